@@ -1,0 +1,27 @@
+//! turnbook: a lab notebook that keeps itself, for catalysts reused over many batches.
+//!
+//! The crate is a functional core with a thin shell:
+//!
+//! - [`chem`]: TON, TOF, apparent rate constants, activity, Arrhenius, metal leaching. Pure.
+//! - [`fit`]: least-squares engine, deactivation models, AICc choice, forecasts. Pure.
+//! - [`ingest`]: decoding export files and reading them through export profiles. Pure.
+//! - [`alert`]: alert rules (pure), the durable outbox and the mailer.
+//! - [`report`]: self-contained HTML, CSV and SVG reports.
+//! - [`config`]: the TOML configuration and its validation.
+//! - [`store`]: SQLite schema migrations, queries and transactions.
+//! - [`audit`]: the hash chain over the event log and its verification.
+//! - [`pipeline`]: one file from bytes to committed records (hash, parse, merge, store).
+//! - [`watch`]: folder events, polling, settling and start-up catch-up.
+//! - [`commands`]: the command-line verbs, called by `main.rs`.
+
+pub mod alert;
+pub mod audit;
+pub mod chem;
+pub mod commands;
+pub mod config;
+pub mod fit;
+pub mod ingest;
+pub mod pipeline;
+pub mod report;
+pub mod store;
+pub mod watch;

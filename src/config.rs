@@ -1,1 +1,354 @@
-//! (module under construction)
+//! The TOML configuration: where the database lives, which folders hold which instrument's
+//! exports, how each export is read, and the chemistry, fitting and alert settings.
+//!
+//! Loading validates everything once, so a running service never meets a bad setting;
+//! every error names the key and what was expected.
+
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+use serde::Deserialize;
+
+use crate::alert::{AlertRules, MailConfig};
+use crate::ingest::Profile;
+use crate::watch::WatchFolder;
+
+/// A configuration problem: which file, which key, what was expected.
+#[derive(Debug, thiserror::Error)]
+pub enum ConfigError {
+    #[error("cannot read configuration {path}: {source}")]
+    Read {
+        path: PathBuf,
+        source: std::io::Error,
+    },
+    #[error("configuration {path} is not valid: {message}")]
+    Syntax { path: PathBuf, message: String },
+    #[error("configuration {path}, key `{key}`: {message}")]
+    Invalid {
+        path: PathBuf,
+        key: String,
+        message: String,
+    },
+}
+
+/// The whole configuration, as written in `turnbook.toml`.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Config {
+    /// SQLite database file; relative paths are taken from the configuration's folder.
+    #[serde(default = "default_database")]
+    pub database: PathBuf,
+    /// Where rejected files are copied (they are never deleted from their source).
+    #[serde(default = "default_quarantine")]
+    pub quarantine: PathBuf,
+    /// Name written into events as who acted; the OS user when absent.
+    #[serde(default)]
+    pub actor: Option<String>,
+    /// Files larger than this are rejected unread.
+    #[serde(default = "default_max_file_bytes")]
+    pub max_file_bytes: u64,
+    /// Files stored per transaction in a backfill (`ingest` of many files).
+    #[serde(default = "default_batch_files")]
+    pub files_per_transaction: usize,
+    #[serde(default)]
+    pub sites: Vec<Site>,
+    #[serde(default)]
+    pub chemistry: Chemistry,
+    #[serde(default)]
+    pub fitting: Fitting,
+    #[serde(default)]
+    pub economics: Option<Economics>,
+    #[serde(default)]
+    pub profiles: BTreeMap<String, Profile>,
+    #[serde(default)]
+    pub folders: Vec<WatchFolder>,
+    #[serde(default)]
+    pub alerts: AlertRules,
+    #[serde(default)]
+    pub mail: MailConfig,
+    /// Folder of the configuration file, for relative paths (set at load).
+    #[serde(skip)]
+    pub base_dir: PathBuf,
+    /// The file it was loaded from (set at load).
+    #[serde(skip)]
+    pub source: PathBuf,
+}
+
+/// A plant site: lots and folders belong to one.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Site {
+    pub name: String,
+    #[serde(default)]
+    pub description: Option<String>,
+    /// Currency of lot costs at this site, for display.
+    #[serde(default)]
+    pub currency: Option<String>,
+}
+
+/// How raw measurements become TON, TOF and activity.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Chemistry {
+    /// Conversion at or above which a cycle is censored (k_app is only a lower bound).
+    #[serde(default = "default_saturation")]
+    pub saturation: f64,
+    /// Apparent activation energy, kJ/mol, for Arrhenius normalisation; none: no normalisation.
+    #[serde(default)]
+    pub activation_energy_kj_mol: Option<f64>,
+    /// Reference temperature for Arrhenius normalisation, °C.
+    #[serde(default = "default_t_ref")]
+    pub reference_temperature_c: f64,
+    /// Route of administration of the product, for ICH Q3D limits: oral, parenteral, inhalation.
+    #[serde(default = "default_route")]
+    pub route: String,
+    /// Metal-in-product limits by element, µg/g, overriding the built-in ICH Q3D values.
+    #[serde(default)]
+    pub metal_limits_ug_g: BTreeMap<String, f64>,
+}
+
+/// What is fitted per lot and when it must be replaced.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Fitting {
+    /// The y of the fit: "activity" (from k_app, the default) or "ton" (TON per cycle).
+    #[serde(default = "default_basis")]
+    pub measure: String,
+    /// The x of the fit: "cycle" (cycle number) or "hours" (cumulative time on stream).
+    #[serde(default = "default_axis")]
+    pub axis: String,
+    /// Replacement criterion as a fraction of the fitted fresh value (e.g. 0.6).
+    #[serde(default)]
+    pub criterion_fraction: Option<f64>,
+    /// Replacement criterion as an absolute value of the measure.
+    #[serde(default)]
+    pub criterion_absolute: Option<f64>,
+    /// Confidence of forecast intervals.
+    #[serde(default = "default_confidence")]
+    pub confidence: f64,
+    /// Candidate models (ids); empty: every activity model.
+    #[serde(default)]
+    pub models: Vec<String>,
+    /// Page's CUSUM reference value k and decision interval h, in residual standard deviations.
+    #[serde(default = "default_cusum_k")]
+    pub cusum_k: f64,
+    #[serde(default = "default_cusum_h")]
+    pub cusum_h: f64,
+}
+
+/// Costs for the economic replacement point.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Economics {
+    /// Fixed cost per cycle (labour, filtration, analysis), in the site's currency.
+    pub cost_per_cycle: f64,
+    /// Lot cost when a lot does not give its own, net of the refining credit.
+    #[serde(default)]
+    pub default_lot_cost: Option<f64>,
+}
+
+fn default_database() -> PathBuf {
+    PathBuf::from("turnbook.db")
+}
+fn default_quarantine() -> PathBuf {
+    PathBuf::from("quarantine")
+}
+fn default_max_file_bytes() -> u64 {
+    16 * 1024 * 1024
+}
+fn default_batch_files() -> usize {
+    1000
+}
+fn default_saturation() -> f64 {
+    0.995
+}
+fn default_t_ref() -> f64 {
+    60.0
+}
+fn default_route() -> String {
+    "oral".into()
+}
+fn default_basis() -> String {
+    "activity".into()
+}
+fn default_axis() -> String {
+    "cycle".into()
+}
+fn default_confidence() -> f64 {
+    0.90
+}
+fn default_cusum_k() -> f64 {
+    0.5
+}
+fn default_cusum_h() -> f64 {
+    4.5
+}
+
+impl Default for Chemistry {
+    fn default() -> Self {
+        Chemistry {
+            saturation: default_saturation(),
+            activation_energy_kj_mol: None,
+            reference_temperature_c: default_t_ref(),
+            route: default_route(),
+            metal_limits_ug_g: BTreeMap::new(),
+        }
+    }
+}
+
+impl Default for Fitting {
+    fn default() -> Self {
+        Fitting {
+            measure: default_basis(),
+            axis: default_axis(),
+            criterion_fraction: None,
+            criterion_absolute: None,
+            confidence: default_confidence(),
+            models: Vec::new(),
+            cusum_k: default_cusum_k(),
+            cusum_h: default_cusum_h(),
+        }
+    }
+}
+
+impl Config {
+    /// Read, parse and validate a configuration file.
+    pub fn load(path: &Path) -> Result<Config, ConfigError> {
+        let text = std::fs::read_to_string(path).map_err(|source| ConfigError::Read {
+            path: path.to_path_buf(),
+            source,
+        })?;
+        let base = path
+            .parent()
+            .map(Path::to_path_buf)
+            .filter(|p| !p.as_os_str().is_empty())
+            .unwrap_or_else(|| PathBuf::from("."));
+        Config::from_toml(&text, path, &base)
+    }
+
+    /// Parse and validate configuration text; `path` names it in errors.
+    pub fn from_toml(text: &str, path: &Path, base: &Path) -> Result<Config, ConfigError> {
+        let mut cfg: Config = toml::from_str(text).map_err(|e| ConfigError::Syntax {
+            path: path.to_path_buf(),
+            message: e.to_string().trim().replace('\n', " | "),
+        })?;
+        cfg.base_dir = base.to_path_buf();
+        cfg.source = path.to_path_buf();
+        cfg.validate()?;
+        Ok(cfg)
+    }
+
+    fn invalid(&self, key: impl Into<String>, message: impl Into<String>) -> ConfigError {
+        ConfigError::Invalid {
+            path: self.source.clone(),
+            key: key.into(),
+            message: message.into(),
+        }
+    }
+
+    fn validate(&self) -> Result<(), ConfigError> {
+        let c = &self.chemistry;
+        if !(c.saturation > 0.5 && c.saturation < 1.0) {
+            return Err(self.invalid("chemistry.saturation", "expected a conversion between 0.5 and 1 (exclusive), e.g. 0.995"));
+        }
+        if let Some(ea) = c.activation_energy_kj_mol
+            && !(ea.is_finite() && ea > 0.0 && ea < 500.0)
+        {
+            return Err(self.invalid("chemistry.activation_energy_kj_mol", "expected kJ/mol between 0 and 500"));
+        }
+        if !(-100.0..=500.0).contains(&c.reference_temperature_c) {
+            return Err(self.invalid("chemistry.reference_temperature_c", "expected °C between -100 and 500"));
+        }
+        if !["oral", "parenteral", "inhalation"].contains(&c.route.as_str()) {
+            return Err(self.invalid("chemistry.route", "expected one of oral, parenteral, inhalation"));
+        }
+        for (metal, v) in &c.metal_limits_ug_g {
+            if !(v.is_finite() && *v > 0.0) {
+                return Err(self.invalid(format!("chemistry.metal_limits_ug_g.{metal}"), "expected a positive number of µg/g"));
+            }
+        }
+        let f = &self.fitting;
+        if !["activity", "ton"].contains(&f.measure.as_str()) {
+            return Err(self.invalid("fitting.measure", "expected \"activity\" or \"ton\""));
+        }
+        if !["cycle", "hours"].contains(&f.axis.as_str()) {
+            return Err(self.invalid("fitting.axis", "expected \"cycle\" or \"hours\""));
+        }
+        if f.criterion_fraction.is_some() && f.criterion_absolute.is_some() {
+            return Err(self.invalid("fitting.criterion_absolute", "give either criterion_fraction or criterion_absolute, not both"));
+        }
+        if let Some(x) = f.criterion_fraction
+            && !(x > 0.0 && x < 1.0)
+        {
+            return Err(self.invalid("fitting.criterion_fraction", "expected a fraction between 0 and 1, e.g. 0.6"));
+        }
+        if !(f.confidence > 0.5 && f.confidence < 1.0) {
+            return Err(self.invalid("fitting.confidence", "expected a probability between 0.5 and 1, e.g. 0.90"));
+        }
+        if !(f.cusum_k >= 0.0 && f.cusum_h > 0.0) {
+            return Err(self.invalid("fitting.cusum_h", "expected cusum_k >= 0 and cusum_h > 0"));
+        }
+        if self.files_per_transaction == 0 {
+            return Err(self.invalid("files_per_transaction", "expected at least 1"));
+        }
+        for (name, p) in &self.profiles {
+            p.validate()
+                .map_err(|m| self.invalid(format!("profiles.{name}"), m))?;
+        }
+        let sites: Vec<&str> = self.sites.iter().map(|s| s.name.as_str()).collect();
+        for (i, folder) in self.folders.iter().enumerate() {
+            let key = format!("folders[{i}]");
+            folder
+                .validate()
+                .map_err(|m| self.invalid(key.clone(), m))?;
+            if !self.profiles.contains_key(&folder.profile) {
+                return Err(self.invalid(
+                    format!("{key}.profile"),
+                    format!(
+                        "no profile named '{}'; expected one of: {}",
+                        folder.profile,
+                        self.profiles.keys().cloned().collect::<Vec<_>>().join(", ")
+                    ),
+                ));
+            }
+            if let Some(site) = &folder.site
+                && !sites.contains(&site.as_str())
+            {
+                return Err(self.invalid(format!("{key}.site"), format!("no site named '{site}' in [[sites]]")));
+            }
+        }
+        Ok(())
+    }
+
+    /// A path from the configuration, made absolute against the configuration's folder.
+    pub fn resolve(&self, p: &Path) -> PathBuf {
+        if p.is_absolute() {
+            p.to_path_buf()
+        } else {
+            self.base_dir.join(p)
+        }
+    }
+
+    pub fn database_path(&self) -> PathBuf {
+        self.resolve(&self.database)
+    }
+
+    pub fn quarantine_dir(&self) -> PathBuf {
+        self.resolve(&self.quarantine)
+    }
+
+    /// The watched folder (and so profile) a file belongs to: the folder whose path is the
+    /// longest prefix of the file's path.
+    pub fn folder_for(&self, file: &Path) -> Option<&WatchFolder> {
+        let file = std::fs::canonicalize(file).unwrap_or_else(|_| file.to_path_buf());
+        self.folders
+            .iter()
+            .filter_map(|f| {
+                let root = self.resolve(&f.path);
+                let root = std::fs::canonicalize(&root).unwrap_or(root);
+                file.starts_with(&root).then_some((root.components().count(), f))
+            })
+            .max_by_key(|(n, _)| *n)
+            .map(|(_, f)| f)
+    }
+}

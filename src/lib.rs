@@ -10,18 +10,24 @@
 //! - [`config`]: the TOML configuration and its validation.
 //! - [`store`]: SQLite schema migrations, queries and transactions.
 //! - [`audit`]: the hash chain over the event log and its verification.
+//! - [`analysis`]: lot metrics, fits and alerts recomputed when records change.
 //! - [`pipeline`]: one file from bytes to committed records (hash, parse, merge, store).
 //! - [`watch`]: folder events, polling, settling and start-up catch-up.
+//! - [`views`]: status, history and sign-off fingerprints for people and scripts.
+//! - [`demo`]: the invented demonstration plant.
 //! - [`commands`]: the command-line verbs, called by `main.rs`.
 
 pub mod alert;
+pub mod analysis;
 pub mod audit;
 pub mod chem;
 pub mod commands;
+pub mod demo;
 pub mod config;
 pub mod fit;
 pub mod ingest;
 pub mod pipeline;
 pub mod report;
 pub mod store;
+pub mod views;
 pub mod watch;

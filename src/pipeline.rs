@@ -1,1 +1,332 @@
-//! (module under construction)
+//! One file from bytes to committed records: read, hash, seen?, parse through its
+//! profile, store in one transaction, recompute the touched lots. This is the shell around
+//! the pure parser; `ingest` and `watch` both go through it.
+//!
+//! Everything before the transaction is safe to repeat: a crash before commit means the
+//! file is read again next time; after commit its SHA-256 marks it as seen.
+
+use std::collections::{BTreeSet, HashMap};
+use std::path::{Path, PathBuf};
+
+use rusqlite::{Connection, TransactionBehavior};
+use serde::Serialize;
+use sha2::{Digest, Sha256};
+
+use crate::audit;
+use crate::config::Config;
+use crate::ingest::{self, ParsedFile};
+use crate::store::records::{self, FileFacts, StoredFile};
+use crate::store::{self, StoreError};
+use crate::watch::WatchFolder;
+
+/// What became of one file.
+#[derive(Debug, Clone, Serialize)]
+#[serde(tag = "outcome", rename_all = "kebab-case")]
+pub enum FileOutcome {
+    Ingested {
+        path: String,
+        sha256: String,
+        stored: StoredFile,
+    },
+    Duplicate {
+        path: String,
+        sha256: String,
+        of_file_id: i64,
+    },
+    Rejected {
+        path: String,
+        sha256: Option<String>,
+        error: String,
+    },
+}
+
+impl FileOutcome {
+    pub fn is_rejected(&self) -> bool {
+        matches!(self, FileOutcome::Rejected { .. })
+    }
+}
+
+/// Totals of a run over many files.
+#[derive(Debug, Clone, Default, Serialize)]
+pub struct RunSummary {
+    pub ingested: usize,
+    pub duplicates: usize,
+    pub rejected: usize,
+    pub rows_new: i64,
+    pub rows_known: i64,
+    pub rows_conflict: i64,
+    pub conflicts: Vec<String>,
+    pub errors: Vec<String>,
+}
+
+impl RunSummary {
+    pub fn add(&mut self, o: &FileOutcome) {
+        match o {
+            FileOutcome::Ingested { stored, .. } => {
+                self.ingested += 1;
+                self.rows_new += stored.rows_new;
+                self.rows_known += stored.rows_known;
+                self.rows_conflict += stored.rows_conflict;
+                self.conflicts.extend(stored.conflicts.iter().cloned());
+            }
+            FileOutcome::Duplicate { .. } => self.duplicates += 1,
+            FileOutcome::Rejected { path, error, .. } => {
+                self.rejected += 1;
+                self.errors.push(format!("{path}: {error}"));
+            }
+        }
+    }
+}
+
+/// A file read and parsed, not yet stored.
+struct Prepared {
+    facts: FileFacts,
+    result: Result<ParsedFile, String>,
+}
+
+/// Owns the database connection and the configuration; one per process (one writer).
+pub struct Ingestor {
+    conn: Connection,
+    cfg: Config,
+    actor: String,
+    /// A profile named on the command line, for files outside every configured folder.
+    pub profile_override: Option<String>,
+}
+
+impl Ingestor {
+    pub fn open(cfg: Config) -> Result<Self, StoreError> {
+        let conn = store::open(&cfg.database_path())?;
+        let actor = audit::actor(cfg.actor.as_deref());
+        Ok(Ingestor {
+            conn,
+            cfg,
+            actor,
+            profile_override: None,
+        })
+    }
+
+    pub fn conn(&self) -> &Connection {
+        &self.conn
+    }
+
+    pub fn config(&self) -> &Config {
+        &self.cfg
+    }
+
+    /// Ingest one file in its own transaction.
+    pub fn ingest_file(&mut self, path: &Path) -> Result<FileOutcome, StoreError> {
+        let mut out = self.ingest_group(&[path.to_path_buf()])?;
+        out.pop()
+            .ok_or_else(|| StoreError::Invalid("no outcome for the file".into()))
+    }
+
+    /// Ingest files in groups of `files_per_transaction`, calling `progress` after each file.
+    pub fn ingest_paths(
+        &mut self,
+        paths: &[PathBuf],
+        mut progress: impl FnMut(&FileOutcome),
+    ) -> Result<RunSummary, StoreError> {
+        let mut summary = RunSummary::default();
+        for group in paths.chunks(self.cfg.files_per_transaction.max(1)) {
+            for o in self.ingest_group(group)? {
+                summary.add(&o);
+                progress(&o);
+            }
+        }
+        Ok(summary)
+    }
+
+    /// Read and parse a group of files, then store them all in one transaction.
+    fn ingest_group(&mut self, paths: &[PathBuf]) -> Result<Vec<FileOutcome>, StoreError> {
+        let prepared: Vec<Prepared> = paths.iter().map(|p| self.prepare(p)).collect();
+        let quarantine = self.cfg.quarantine_dir();
+        // Copies into quarantine happen before the transaction: a crash after copying and
+        // before commit leaves a spare copy, never a lost record.
+        let quarantined: Vec<Option<String>> = prepared
+            .iter()
+            .map(|p| match &p.result {
+                Err(_) => quarantine_copy(&quarantine, &p.facts),
+                Ok(_) => None,
+            })
+            .collect();
+        let tx = self.conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
+        let mut outcomes = Vec::with_capacity(prepared.len());
+        let mut in_group: HashMap<String, i64> = HashMap::new();
+        let mut touched: BTreeSet<String> = BTreeSet::new();
+        for (p, q) in prepared.into_iter().zip(quarantined) {
+            let facts = p.facts;
+            let seen = match in_group.get(&facts.sha256) {
+                Some(id) => Some(*id),
+                None if facts.sha256.is_empty() => None,
+                None => records::ingested_file_with_hash(&tx, &facts.sha256)?,
+            };
+            let outcome = match (seen, p.result) {
+                (Some(of), _) => {
+                    records::record_duplicate(&tx, &facts, of, &self.actor)?;
+                    FileOutcome::Duplicate {
+                        path: facts.path.clone(),
+                        sha256: facts.sha256.clone(),
+                        of_file_id: of,
+                    }
+                }
+                (None, Err(error)) => {
+                    records::record_rejected(&tx, &facts, &error, q.as_deref(), &self.actor)?;
+                    tracing::warn!(path = %facts.path, error = %error, "file rejected");
+                    FileOutcome::Rejected {
+                        path: facts.path.clone(),
+                        sha256: (!facts.sha256.is_empty()).then(|| facts.sha256.clone()),
+                        error,
+                    }
+                }
+                (None, Ok(parsed)) => {
+                    let stored = records::record_parsed(&tx, &facts, &parsed, &self.actor)?;
+                    in_group.insert(facts.sha256.clone(), stored.file_id);
+                    touched.extend(stored.lots_touched.iter().cloned());
+                    for c in &stored.conflicts {
+                        tracing::warn!(path = %facts.path, conflict = %c, "conflicting value kept and flagged");
+                    }
+                    FileOutcome::Ingested {
+                        path: facts.path.clone(),
+                        sha256: facts.sha256.clone(),
+                        stored,
+                    }
+                }
+            };
+            outcomes.push(outcome);
+        }
+        crate::analysis::recompute_lots(&tx, &self.cfg, &touched, &self.actor)?;
+        tx.commit()?;
+        for o in &outcomes {
+            if let FileOutcome::Ingested { path, stored, .. } = o {
+                tracing::info!(path = %path, rows_new = stored.rows_new, rows_known = stored.rows_known,
+                    rows_conflict = stored.rows_conflict, "file ingested");
+            }
+        }
+        Ok(outcomes)
+    }
+
+    /// Read, hash and parse one file. Never fails: a problem becomes a rejection.
+    fn prepare(&self, path: &Path) -> Prepared {
+        let display = path.display().to_string();
+        let mut facts = FileFacts {
+            path: display.clone(),
+            sha256: String::new(),
+            size: 0,
+            mtime: None,
+            profile: None,
+            site: None,
+            seen_at: audit::now_utc(),
+        };
+        let folder: Option<&WatchFolder> = self.cfg.folder_for(path);
+        facts.site = folder.and_then(|f| f.site.clone());
+        let profile_name = self
+            .profile_override
+            .clone()
+            .or_else(|| folder.map(|f| f.profile.clone()));
+        facts.profile = profile_name.clone();
+        let meta = match std::fs::metadata(path) {
+            Ok(m) => m,
+            Err(e) => {
+                return Prepared {
+                    facts,
+                    result: Err(format!("cannot read the file: {e}")),
+                };
+            }
+        };
+        facts.size = i64::try_from(meta.len()).unwrap_or(i64::MAX);
+        facts.mtime = meta
+            .modified()
+            .ok()
+            .map(|t| chrono::DateTime::<chrono::Utc>::from(t).to_rfc3339_opts(chrono::SecondsFormat::Millis, true));
+        if meta.len() > self.cfg.max_file_bytes {
+            // Hash it anyway (streaming) so the record names exactly which content was refused.
+            facts.sha256 = sha256_file(path).unwrap_or_default();
+            return Prepared {
+                facts,
+                result: Err(format!(
+                    "the file is {} bytes, more than max_file_bytes ({}); expected a small export",
+                    meta.len(),
+                    self.cfg.max_file_bytes
+                )),
+            };
+        }
+        let bytes = match std::fs::read(path) {
+            Ok(b) => b,
+            Err(e) => {
+                return Prepared {
+                    facts,
+                    result: Err(format!("cannot read the file: {e}")),
+                };
+            }
+        };
+        facts.size = bytes.len() as i64;
+        facts.sha256 = hex::encode(Sha256::digest(&bytes));
+        let result = match profile_name {
+            None => Err("the file is not under any configured folder, so no export profile applies; \
+                         expected a path below one of [[folders]] (or give --profile)"
+                .to_string()),
+            Some(name) => match self.cfg.profiles.get(&name) {
+                None => Err(format!("no export profile named '{name}'")),
+                Some(profile) => ingest::parse(&bytes, profile).map_err(|e| e.to_string()),
+            },
+        };
+        Prepared { facts, result }
+    }
+}
+
+fn sha256_file(path: &Path) -> std::io::Result<String> {
+    let mut f = std::fs::File::open(path)?;
+    let mut h = Sha256::new();
+    let mut buf = vec![0u8; 1 << 16];
+    loop {
+        let n = std::io::Read::read(&mut f, &mut buf)?;
+        if n == 0 {
+            break;
+        }
+        h.update(&buf[..n]);
+    }
+    Ok(hex::encode(h.finalize()))
+}
+
+/// Copy a rejected file into the quarantine folder as `<sha256 prefix>-<safe name>`.
+fn quarantine_copy(dir: &Path, facts: &FileFacts) -> Option<String> {
+    let src = Path::new(&facts.path);
+    let name: String = src
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "file".into())
+        .chars()
+        .map(|c| if c.is_alphanumeric() || ".-_".contains(c) { c } else { '_' })
+        .take(120)
+        .collect();
+    let prefix = facts.sha256.get(..12).unwrap_or("unhashed");
+    let dest = dir.join(format!("{prefix}-{name}"));
+    if let Err(e) = std::fs::create_dir_all(dir) {
+        tracing::error!(dir = %dir.display(), error = %e, "cannot create the quarantine folder");
+        return None;
+    }
+    match std::fs::copy(src, &dest) {
+        Ok(_) => Some(dest.display().to_string()),
+        Err(e) => {
+            tracing::warn!(path = %facts.path, error = %e, "cannot copy the file into quarantine");
+            None
+        }
+    }
+}
+
+/// Every regular file below `path` (or `path` itself), sorted, for a backfill.
+pub fn collect_files(path: &Path, out: &mut Vec<PathBuf>) -> std::io::Result<()> {
+    let meta = std::fs::symlink_metadata(path)?;
+    if meta.is_file() {
+        out.push(path.to_path_buf());
+    } else if meta.is_dir() {
+        let mut entries: Vec<PathBuf> = std::fs::read_dir(path)?
+            .filter_map(|e| e.ok().map(|e| e.path()))
+            .collect();
+        entries.sort();
+        for e in entries {
+            collect_files(&e, out)?;
+        }
+    }
+    Ok(())
+}

@@ -1,1 +1,62 @@
-//! (module under construction)
+//! SQLite storage: opening the database, migrations from `schema/`, and the transactions
+//! that write records. Every write goes through one event of the audit chain
+//! ([`crate::audit`]) in the same transaction as the rows it describes.
+
+pub mod migrate;
+pub mod records;
+pub mod view;
+
+use std::path::Path;
+
+use rusqlite::Connection;
+
+/// Errors of the storage layer.
+#[derive(Debug, thiserror::Error)]
+pub enum StoreError {
+    #[error("database error: {0}")]
+    Sqlite(#[from] rusqlite::Error),
+    #[error("cannot encode or decode a stored record: {0}")]
+    Json(#[from] serde_json::Error),
+    #[error("migration {version} ({name}) failed: {source}")]
+    Migration {
+        version: i64,
+        name: String,
+        source: rusqlite::Error,
+    },
+    #[error(
+        "the database is at schema version {found}, newer than this turnbook knows ({known}); use a newer turnbook"
+    )]
+    TooNew { found: i64, known: i64 },
+    #[error("{0}")]
+    Invalid(String),
+}
+
+pub type Result<T> = std::result::Result<T, StoreError>;
+
+/// Open (creating if needed) the database at `path`, set the pragmas turnbook relies on and
+/// bring the schema up to date.
+///
+/// WAL lets readers (`status`, reports) run while the service writes; `synchronous=FULL`
+/// makes a committed file survive power loss, which the exactly-once promise needs.
+pub fn open(path: &Path) -> Result<Connection> {
+    let mut conn = Connection::open(path)?;
+    configure(&conn)?;
+    migrate::apply(&mut conn)?;
+    Ok(conn)
+}
+
+/// Open an in-memory database with the full schema (tests and pure replays).
+pub fn open_in_memory() -> Result<Connection> {
+    let mut conn = Connection::open_in_memory()?;
+    configure(&conn)?;
+    migrate::apply(&mut conn)?;
+    Ok(conn)
+}
+
+fn configure(conn: &Connection) -> Result<()> {
+    conn.busy_timeout(std::time::Duration::from_secs(10))?;
+    conn.pragma_update(None, "journal_mode", "WAL")?;
+    conn.pragma_update(None, "synchronous", "FULL")?;
+    conn.pragma_update(None, "foreign_keys", "ON")?;
+    Ok(())
+}

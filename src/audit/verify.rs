@@ -1,0 +1,285 @@
+//! `verify`: walk the chain, then rebuild every record table from the event payloads and
+//! compare it with what is stored. The first broken link is reported with what changed.
+
+use std::collections::{BTreeMap, HashMap};
+
+use rusqlite::Connection;
+use serde::Serialize;
+
+use super::{GENESIS, Payload, event_hash};
+use crate::audit::payload::{FileRow, LotRecord, MeasurementRow};
+use crate::store::records::{all_cycles, all_lots, measurement_from_row};
+use crate::store::view::{self, CYCLE_COLUMNS};
+use crate::store::Result;
+
+/// One discrepancy.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Finding {
+    pub table: String,
+    /// The row's key (event seq, file id, measurement id, lot, batch id).
+    pub row: String,
+    pub field: String,
+    pub stored: String,
+    pub expected: String,
+}
+
+impl std::fmt::Display for Finding {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(
+            f,
+            "table {}, row {}, field {}: stored {}, expected {}",
+            self.table, self.row, self.field, self.stored, self.expected
+        )
+    }
+}
+
+/// The outcome of a verification.
+#[derive(Debug, Clone, Serialize)]
+pub struct VerifyReport {
+    pub events: i64,
+    pub head_hash: String,
+    pub findings: Vec<Finding>,
+}
+
+impl VerifyReport {
+    pub fn ok(&self) -> bool {
+        self.findings.is_empty()
+    }
+}
+
+fn push(out: &mut Vec<Finding>, table: &str, row: impl ToString, field: &str, stored: impl ToString, expected: impl ToString) {
+    out.push(Finding {
+        table: table.into(),
+        row: row.to_string(),
+        field: field.into(),
+        stored: stored.to_string(),
+        expected: expected.to_string(),
+    });
+}
+
+/// Compare two serialisable rows field by field.
+fn diff_rows<T: Serialize>(out: &mut Vec<Finding>, table: &str, key: &str, stored: &T, expected: &T) {
+    let (Ok(serde_json::Value::Object(s)), Ok(serde_json::Value::Object(e))) =
+        (serde_json::to_value(stored), serde_json::to_value(expected))
+    else {
+        return;
+    };
+    for (k, ev) in &e {
+        let sv = s.get(k).cloned().unwrap_or(serde_json::Value::Null);
+        if &sv != ev {
+            push(out, table, key, k, &sv, ev);
+        }
+    }
+}
+
+/// Verify the whole database.
+pub fn verify(conn: &Connection) -> Result<VerifyReport> {
+    let mut findings = Vec::new();
+    let mut files: BTreeMap<i64, (FileRow, i64)> = BTreeMap::new();
+    let mut measurements: BTreeMap<i64, (MeasurementRow, i64)> = BTreeMap::new();
+    let mut lots: BTreeMap<String, (LotRecord, i64)> = BTreeMap::new();
+    let mut excluded: HashMap<String, bool> = HashMap::new();
+    let mut first_seq: HashMap<String, i64> = HashMap::new();
+
+    // 1. The chain itself.
+    let mut stmt =
+        conn.prepare("SELECT seq, at, actor, kind, subject, payload, prev_hash, hash FROM events ORDER BY seq")?;
+    let mut rows = stmt.query([])?;
+    let mut prev = GENESIS.to_string();
+    let mut expected_seq = 1i64;
+    let mut count = 0i64;
+    while let Some(r) = rows.next()? {
+        let seq: i64 = r.get(0)?;
+        let at: String = r.get(1)?;
+        let actor: String = r.get(2)?;
+        let kind: String = r.get(3)?;
+        let subject: String = r.get(4)?;
+        let body: String = r.get(5)?;
+        let prev_hash: String = r.get(6)?;
+        let hash: String = r.get(7)?;
+        count += 1;
+        if seq != expected_seq {
+            push(&mut findings, "events", seq, "seq", seq, format!("{expected_seq} (an event is missing)"));
+            return Ok(VerifyReport { events: count, head_hash: prev, findings });
+        }
+        if prev_hash != prev {
+            push(&mut findings, "events", seq, "prev_hash", &prev_hash, &prev);
+            return Ok(VerifyReport { events: count, head_hash: prev, findings });
+        }
+        let recomputed = event_hash(&prev, seq, &at, &actor, &kind, &subject, &body);
+        if recomputed != hash {
+            push(&mut findings, "events", seq, "hash", &hash, format!("{recomputed} (the event's content was altered)"));
+            return Ok(VerifyReport { events: count, head_hash: prev, findings });
+        }
+        let payload: Payload = match serde_json::from_str(&body) {
+            Ok(p) => p,
+            Err(e) => {
+                push(&mut findings, "events", seq, "payload", "unreadable", format!("a valid payload ({e})"));
+                return Ok(VerifyReport { events: count, head_hash: prev, findings });
+            }
+        };
+        if payload.kind() != kind {
+            push(&mut findings, "events", seq, "kind", &kind, payload.kind());
+        }
+        // 2. Replay what the event wrote.
+        match payload {
+            Payload::FileIngested { file, measurements: ms, lots: ls } => {
+                for m in ms {
+                    first_seq.entry(m.batch_id.clone()).or_insert(seq);
+                    measurements.insert(m.id, (m, seq));
+                }
+                for l in ls {
+                    lots.insert(l.lot.clone(), (l, seq));
+                }
+                files.insert(file.id, (file, seq));
+            }
+            Payload::FileDuplicate { file, .. } | Payload::FileRejected { file } => {
+                files.insert(file.id, (file, seq));
+            }
+            Payload::LotRegistered { lot, .. } => {
+                lots.insert(lot.lot.clone(), (lot, seq));
+            }
+            Payload::Correction { measurement, .. } => {
+                measurements.insert(measurement.id, (measurement, seq));
+            }
+            Payload::Exclusion { batch_id, excluded: ex, .. } => {
+                excluded.insert(batch_id, ex);
+            }
+            Payload::Note { .. } | Payload::SignOff { .. } => {}
+        }
+        prev = hash;
+        expected_seq += 1;
+    }
+    drop(rows);
+    drop(stmt);
+
+    // 3. Stored tables against the replay.
+    let mut stmt = conn.prepare(
+        "SELECT id, sha256, path, size, mtime, profile, site, seen_at, outcome, error,
+                rows_new, rows_known, rows_conflict, quarantined, event_seq FROM source_files ORDER BY id",
+    )?;
+    let stored_files = stmt
+        .query_map([], |r| {
+            Ok((
+                FileRow {
+                    id: r.get(0)?,
+                    sha256: r.get(1)?,
+                    path: r.get(2)?,
+                    size: r.get(3)?,
+                    mtime: r.get(4)?,
+                    profile: r.get(5)?,
+                    site: r.get(6)?,
+                    seen_at: r.get(7)?,
+                    outcome: r.get(8)?,
+                    error: r.get(9)?,
+                    rows_new: r.get(10)?,
+                    rows_known: r.get(11)?,
+                    rows_conflict: r.get(12)?,
+                    quarantined: r.get(13)?,
+                },
+                r.get::<_, i64>(14)?,
+            ))
+        })?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    compare_keyed(&mut findings, "source_files", stored_files.into_iter().map(|(f, s)| (f.id.to_string(), (f, s))).collect(), files.into_iter().map(|(k, v)| (k.to_string(), v)).collect());
+
+    let mut stmt = conn.prepare(
+        "SELECT id, batch_id, quantity, value, text, kind, source_file_id, line, col, raw, event_seq
+         FROM measurements ORDER BY id",
+    )?;
+    let stored_m = stmt
+        .query_map([], |r| Ok((measurement_from_row(r)?, r.get::<_, i64>(10)?)))?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    // Batches and their measurements, for the cycle views below.
+    let mut by_batch: BTreeMap<String, Vec<MeasurementRow>> = BTreeMap::new();
+    for (m, _) in measurements.values() {
+        by_batch.entry(m.batch_id.clone()).or_default().push(m.clone());
+    }
+    compare_keyed(&mut findings, "measurements", stored_m.into_iter().map(|(m, s)| (m.id.to_string(), (m, s))).collect(), measurements.into_iter().map(|(k, v)| (k.to_string(), v)).collect());
+
+    let stored_lots: BTreeMap<String, (LotRecord, i64)> = {
+        let mut stmt = conn.prepare("SELECT lot, event_seq FROM lots")?;
+        let seqs: HashMap<String, i64> = stmt
+            .query_map([], |r| Ok((r.get::<_, String>(0)?, r.get::<_, i64>(1)?)))?
+            .collect::<std::result::Result<_, _>>()?;
+        all_lots(conn)?
+            .into_iter()
+            .map(|l| {
+                let s = seqs.get(&l.lot).copied().unwrap_or(-1);
+                (l.lot.clone(), (l, s))
+            })
+            .collect()
+    };
+    compare_keyed(&mut findings, "lots", stored_lots, lots);
+
+    let stored_cycles: BTreeMap<String, view::CycleView> =
+        all_cycles(conn)?.into_iter().map(|c| (c.batch_id.clone(), c)).collect();
+    for (batch, ms) in &by_batch {
+        let expected = view::derive_cycle(
+            batch,
+            ms,
+            excluded.get(batch).copied().unwrap_or(false),
+            first_seq.get(batch).copied().unwrap_or(0),
+        );
+        match stored_cycles.get(batch) {
+            None => push(&mut findings, "cycles", batch, "(row)", "missing", "present"),
+            Some(s) => diff_cycle(&mut findings, s, &expected),
+        }
+    }
+    for batch in stored_cycles.keys().filter(|b| !by_batch.contains_key(*b)) {
+        push(&mut findings, "cycles", batch, "(row)", "present", "absent (no event wrote it)");
+    }
+
+    Ok(VerifyReport { events: count, head_hash: prev, findings })
+}
+
+fn diff_cycle(out: &mut Vec<Finding>, s: &view::CycleView, e: &view::CycleView) {
+    let b = &s.batch_id;
+    let opt = |x: &Option<String>| x.clone().unwrap_or_else(|| "NULL".into());
+    let num = |x: Option<f64>| x.map_or("NULL".into(), |v| v.to_string());
+    if s.lot != e.lot {
+        push(out, "cycles", b, "lot", opt(&s.lot), opt(&e.lot));
+    }
+    if s.cycle_no != e.cycle_no {
+        push(out, "cycles", b, "cycle_no", format!("{:?}", s.cycle_no), format!("{:?}", e.cycle_no));
+    }
+    if s.started_at != e.started_at {
+        push(out, "cycles", b, "started_at", opt(&s.started_at), opt(&e.started_at));
+    }
+    for (i, col) in CYCLE_COLUMNS.iter().enumerate() {
+        if s.values[i] != e.values[i] {
+            push(out, "cycles", b, col, num(s.values[i]), num(e.values[i]));
+        }
+    }
+    if s.conflicts != e.conflicts {
+        push(out, "cycles", b, "conflicts", s.conflicts, e.conflicts);
+    }
+    if s.excluded != e.excluded {
+        push(out, "cycles", b, "excluded", s.excluded, e.excluded);
+    }
+    if s.first_seq != e.first_seq {
+        push(out, "cycles", b, "first_seq", s.first_seq, e.first_seq);
+    }
+}
+
+fn compare_keyed<T: Serialize>(
+    out: &mut Vec<Finding>,
+    table: &str,
+    stored: BTreeMap<String, (T, i64)>,
+    expected: BTreeMap<String, (T, i64)>,
+) {
+    for (k, (e, eseq)) in &expected {
+        match stored.get(k) {
+            None => push(out, table, k, "(row)", "missing", "present"),
+            Some((s, sseq)) => {
+                diff_rows(out, table, k, s, e);
+                if sseq != eseq {
+                    push(out, table, k, "event_seq", sseq, eseq);
+                }
+            }
+        }
+    }
+    for k in stored.keys().filter(|k| !expected.contains_key(*k)) {
+        push(out, table, k, "(row)", "present", "absent (no event wrote it)");
+    }
+}

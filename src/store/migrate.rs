@@ -1,0 +1,55 @@
+//! Numbered SQL migrations from `schema/`, embedded at build time and applied at start-up,
+//! each in its own transaction with its version recorded.
+
+use rusqlite::Connection;
+
+use super::{Result, StoreError};
+
+/// (version, name, SQL). Add a migration by adding a file `schema/NNNN_name.sql` and a
+/// line here; never edit a migration that has shipped.
+pub const MIGRATIONS: &[(i64, &str, &str)] = &[
+    (1, "core", include_str!("../../schema/0001_core.sql")),
+    (2, "fits", include_str!("../../schema/0002_fits.sql")),
+];
+
+/// The newest schema version this build knows.
+pub fn latest() -> i64 {
+    MIGRATIONS.last().map(|m| m.0).unwrap_or(0)
+}
+
+/// Apply every migration newer than the database's recorded version.
+pub fn apply(conn: &mut Connection) -> Result<()> {
+    conn.execute_batch(
+        "CREATE TABLE IF NOT EXISTS schema_migrations (
+             version INTEGER PRIMARY KEY,
+             name TEXT NOT NULL,
+             applied_at TEXT NOT NULL
+         ) STRICT;",
+    )?;
+    let current: i64 = conn.query_row(
+        "SELECT COALESCE(MAX(version), 0) FROM schema_migrations",
+        [],
+        |r| r.get(0),
+    )?;
+    if current > latest() {
+        return Err(StoreError::TooNew {
+            found: current,
+            known: latest(),
+        });
+    }
+    for &(version, name, sql) in MIGRATIONS.iter().filter(|m| m.0 > current) {
+        let tx = conn.transaction()?;
+        tx.execute_batch(sql).map_err(|source| StoreError::Migration {
+            version,
+            name: name.to_string(),
+            source,
+        })?;
+        tx.execute(
+            "INSERT INTO schema_migrations(version, name, applied_at) VALUES (?1, ?2, ?3)",
+            rusqlite::params![version, name, crate::audit::now_utc()],
+        )?;
+        tx.commit()?;
+        tracing::info!(version, name, "schema migration applied");
+    }
+    Ok(())
+}

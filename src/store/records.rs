@@ -1,0 +1,627 @@
+//! Writes and reads of the records. Each public write is one unit of work in the caller's
+//! transaction: one event of the audit chain plus exactly the rows that event describes.
+
+use std::collections::{BTreeSet, HashMap};
+
+use rusqlite::{OptionalExtension, Transaction, params};
+use serde::Serialize;
+
+use super::view::{self, ATTR_CYCLE_NO, ATTR_LOT, ATTR_STARTED_AT, CYCLE_COLUMNS, CycleView};
+use super::{Result, StoreError};
+use crate::audit::{self, Payload};
+use crate::audit::payload::{FileRow, LotRecord, MeasurementRow};
+use crate::ingest::{CycleRow, LotRow, ParsedFile, Quantity};
+
+/// What the shell knows of a file before it is parsed.
+#[derive(Debug, Clone)]
+pub struct FileFacts {
+    pub path: String,
+    pub sha256: String,
+    pub size: i64,
+    pub mtime: Option<String>,
+    pub profile: Option<String>,
+    pub site: Option<String>,
+    pub seen_at: String,
+}
+
+/// What storing one file did.
+#[derive(Debug, Clone, Default, Serialize)]
+pub struct StoredFile {
+    pub file_id: i64,
+    pub event_seq: i64,
+    pub rows_new: i64,
+    pub rows_known: i64,
+    pub rows_conflict: i64,
+    /// Lots whose records changed (their metrics and fits must be recomputed).
+    pub lots_touched: BTreeSet<String>,
+    /// Conflicts, as sentences for the user (batch, field, stored vs new, line).
+    pub conflicts: Vec<String>,
+}
+
+fn next_id(tx: &Transaction<'_>, table: &str) -> Result<i64> {
+    let sql = format!("SELECT COALESCE(MAX(id), 0) + 1 FROM {table}");
+    Ok(tx.prepare_cached(&sql)?.query_row([], |r| r.get(0))?)
+}
+
+/// The id of the file whose content (SHA-256) was ingested before, if any.
+pub fn ingested_file_with_hash(conn: &rusqlite::Connection, sha256: &str) -> Result<Option<i64>> {
+    Ok(conn
+        .prepare_cached("SELECT id FROM source_files WHERE sha256 = ?1 AND outcome = 'ingested'")?
+        .query_row([sha256], |r| r.get(0))
+        .optional()?)
+}
+
+fn file_row(id: i64, f: &FileFacts, outcome: &str) -> FileRow {
+    FileRow {
+        id,
+        sha256: f.sha256.clone(),
+        path: f.path.clone(),
+        size: f.size,
+        mtime: f.mtime.clone(),
+        profile: f.profile.clone(),
+        site: f.site.clone(),
+        seen_at: f.seen_at.clone(),
+        outcome: outcome.to_string(),
+        error: None,
+        rows_new: 0,
+        rows_known: 0,
+        rows_conflict: 0,
+        quarantined: None,
+    }
+}
+
+fn insert_file(tx: &Transaction<'_>, r: &FileRow, seq: i64) -> Result<()> {
+    tx.prepare_cached(
+        "INSERT INTO source_files(id, sha256, path, size, mtime, profile, site, seen_at, outcome,
+             error, rows_new, rows_known, rows_conflict, quarantined, event_seq)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15)",
+    )?
+    .execute(params![
+        r.id,
+        r.sha256,
+        r.path,
+        r.size,
+        r.mtime,
+        r.profile,
+        r.site,
+        r.seen_at,
+        r.outcome,
+        r.error,
+        r.rows_new,
+        r.rows_known,
+        r.rows_conflict,
+        r.quarantined,
+        seq
+    ])?;
+    Ok(())
+}
+
+/// Record a file whose content was ingested before (as file `of_file_id`).
+pub fn record_duplicate(
+    tx: &Transaction<'_>,
+    facts: &FileFacts,
+    of_file_id: i64,
+    actor: &str,
+) -> Result<i64> {
+    let id = next_id(tx, "source_files")?;
+    let file = file_row(id, facts, "duplicate");
+    let payload = Payload::FileDuplicate {
+        file: file.clone(),
+        of_file_id,
+    };
+    let seq = audit::append(tx, &facts.seen_at, actor, &facts.path, &payload)?;
+    insert_file(tx, &file, seq)?;
+    Ok(id)
+}
+
+/// Record a file that could not be read, with its error and where it was quarantined.
+pub fn record_rejected(
+    tx: &Transaction<'_>,
+    facts: &FileFacts,
+    error: &str,
+    quarantined: Option<&str>,
+    actor: &str,
+) -> Result<i64> {
+    let id = next_id(tx, "source_files")?;
+    let mut file = file_row(id, facts, "rejected");
+    file.error = Some(error.to_string());
+    file.quarantined = quarantined.map(str::to_string);
+    let payload = Payload::FileRejected { file: file.clone() };
+    let seq = audit::append(tx, &facts.seen_at, actor, &facts.path, &payload)?;
+    insert_file(tx, &file, seq)?;
+    Ok(id)
+}
+
+/// Load every measurement of a batch, ordered by id.
+pub fn measurements_of(conn: &rusqlite::Connection, batch_id: &str) -> Result<Vec<MeasurementRow>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT id, batch_id, quantity, value, text, kind, source_file_id, line, col, raw
+         FROM measurements WHERE batch_id = ?1 ORDER BY id",
+    )?;
+    let rows = stmt
+        .query_map([batch_id], measurement_from_row)?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
+}
+
+pub(crate) fn measurement_from_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<MeasurementRow> {
+    Ok(MeasurementRow {
+        id: r.get(0)?,
+        batch_id: r.get(1)?,
+        quantity: r.get(2)?,
+        value: r.get(3)?,
+        text: r.get(4)?,
+        kind: r.get(5)?,
+        source_file_id: r.get(6)?,
+        line: r.get(7)?,
+        col: r.get(8)?,
+        raw: r.get(9)?,
+    })
+}
+
+fn insert_measurement(tx: &Transaction<'_>, m: &MeasurementRow, seq: i64) -> Result<()> {
+    tx.prepare_cached(
+        "INSERT INTO measurements(id, batch_id, quantity, value, text, kind, source_file_id,
+             line, col, raw, event_seq)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
+    )?
+    .execute(params![
+        m.id,
+        m.batch_id,
+        m.quantity,
+        m.value,
+        m.text,
+        m.kind,
+        m.source_file_id,
+        m.line,
+        m.col,
+        m.raw,
+        seq
+    ])?;
+    Ok(())
+}
+
+/// Write (insert or replace) the current view of one cycle.
+pub fn upsert_cycle(tx: &Transaction<'_>, v: &CycleView) -> Result<()> {
+    let sql = format!(
+        "INSERT OR REPLACE INTO cycles(batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq)
+         VALUES (?1, ?2, ?3, ?4, {}, ?16, ?17, ?18)",
+        CYCLE_COLUMNS.join(", "),
+        (5..16).map(|i| format!("?{i}")).collect::<Vec<_>>().join(", ")
+    );
+    let mut stmt = tx.prepare_cached(&sql)?;
+    let mut p: Vec<&dyn rusqlite::ToSql> = vec![&v.batch_id, &v.lot, &v.cycle_no, &v.started_at];
+    for x in &v.values {
+        p.push(x);
+    }
+    p.push(&v.conflicts);
+    p.push(&v.excluded);
+    p.push(&v.first_seq);
+    stmt.execute(p.as_slice())?;
+    Ok(())
+}
+
+/// Read the stored cycle row of a batch.
+pub fn cycle(conn: &rusqlite::Connection, batch_id: &str) -> Result<Option<CycleView>> {
+    let sql = format!(
+        "SELECT batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq
+         FROM cycles WHERE batch_id = ?1",
+        CYCLE_COLUMNS.join(", ")
+    );
+    Ok(conn
+        .prepare_cached(&sql)?
+        .query_row([batch_id], cycle_from_row)
+        .optional()?)
+}
+
+/// Every stored cycle row (all lots, and batches not yet tied to a lot).
+pub fn all_cycles(conn: &rusqlite::Connection) -> Result<Vec<CycleView>> {
+    let sql = format!(
+        "SELECT batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq
+         FROM cycles ORDER BY first_seq, batch_id",
+        CYCLE_COLUMNS.join(", ")
+    );
+    let mut stmt = conn.prepare(&sql)?;
+    let rows = stmt
+        .query_map([], cycle_from_row)?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
+}
+
+/// The cycle rows of one lot, ordered by cycle number (given) and then by first sight.
+pub fn cycles_of_lot(conn: &rusqlite::Connection, lot: &str) -> Result<Vec<CycleView>> {
+    let sql = format!(
+        "SELECT batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq
+         FROM cycles WHERE lot = ?1
+         ORDER BY cycle_no IS NULL, cycle_no, started_at, first_seq",
+        CYCLE_COLUMNS.join(", ")
+    );
+    let mut stmt = conn.prepare(&sql)?;
+    let rows = stmt
+        .query_map([lot], cycle_from_row)?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
+}
+
+pub(crate) fn cycle_from_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<CycleView> {
+    let mut v = CycleView {
+        batch_id: r.get(0)?,
+        lot: r.get(1)?,
+        cycle_no: r.get(2)?,
+        started_at: r.get(3)?,
+        ..Default::default()
+    };
+    for i in 0..11 {
+        v.values[i] = r.get(4 + i)?;
+    }
+    v.conflicts = r.get(15)?;
+    v.excluded = r.get(16)?;
+    v.first_seq = r.get(17)?;
+    Ok(v)
+}
+
+/// Store the records of one parsed file: one event, the file row, every new or
+/// conflicting value, lot registrations from a lot sheet, and the updated cycle views.
+pub fn record_parsed(
+    tx: &Transaction<'_>,
+    facts: &FileFacts,
+    parsed: &ParsedFile,
+    actor: &str,
+) -> Result<StoredFile> {
+    let file_id = next_id(tx, "source_files")?;
+    let mut out = StoredFile {
+        file_id,
+        ..Default::default()
+    };
+    let mut new_measurements = Vec::new();
+    let mut lots = Vec::new();
+    // Measurements of each touched batch: the stored ones, then the ones this file adds.
+    let mut batches: HashMap<String, (Vec<MeasurementRow>, Option<i64>, bool)> = HashMap::new();
+    let mut batch_order: Vec<String> = Vec::new();
+    let mut next_m = next_id(tx, "measurements")?;
+
+    match parsed {
+        ParsedFile::Cycles(rows) => {
+            for row in rows {
+                if !batches.contains_key(&row.batch_id) {
+                    let existing = cycle(tx, &row.batch_id)?;
+                    let stored = if existing.is_some() {
+                        measurements_of(tx, &row.batch_id)?
+                    } else {
+                        Vec::new()
+                    };
+                    let first_seq = existing.as_ref().map(|c| c.first_seq);
+                    let excluded = existing.as_ref().is_some_and(|c| c.excluded);
+                    batches.insert(row.batch_id.clone(), (stored, first_seq, excluded));
+                    batch_order.push(row.batch_id.clone());
+                }
+                let Some((known, _, _)) = batches.get_mut(&row.batch_id) else {
+                    continue;
+                };
+                let added = merge_row(row, file_id, known, &mut next_m, &mut out);
+                new_measurements.extend(added);
+            }
+        }
+        ParsedFile::Lots(rows) => {
+            for row in rows {
+                let rec = lot_record(row, facts.site.clone());
+                match lot(tx, &rec.lot)? {
+                    Some(old) if old == rec => out.rows_known += 1,
+                    _ => {
+                        out.rows_new += 1;
+                        out.lots_touched.insert(rec.lot.clone());
+                        lots.push(rec);
+                    }
+                }
+            }
+        }
+    }
+
+    let mut file = file_row(file_id, facts, "ingested");
+    file.rows_new = out.rows_new;
+    file.rows_known = out.rows_known;
+    file.rows_conflict = out.rows_conflict;
+    let payload = Payload::FileIngested {
+        file: file.clone(),
+        measurements: new_measurements.clone(),
+        lots: lots.clone(),
+    };
+    let seq = audit::append(tx, &facts.seen_at, actor, &facts.path, &payload)?;
+    out.event_seq = seq;
+    insert_file(tx, &file, seq)?;
+    for m in &new_measurements {
+        insert_measurement(tx, m, seq)?;
+    }
+    for l in &lots {
+        upsert_lot(tx, l, seq)?;
+    }
+    for b in batch_order {
+        let Some((rows, first_seq, excluded)) = batches.get(&b) else {
+            continue;
+        };
+        if !rows.iter().any(|m| m.id >= new_measurements.first().map_or(i64::MAX, |m| m.id)) {
+            continue; // nothing new for this batch
+        }
+        let v = view::derive_cycle(&b, rows, *excluded, first_seq.unwrap_or(seq));
+        if let Some(l) = &v.lot {
+            out.lots_touched.insert(l.clone());
+        }
+        upsert_cycle(tx, &v)?;
+    }
+    Ok(out)
+}
+
+/// Classify each value of a row against what the batch already holds and return the
+/// measurements to add. Appends them to `known` so later rows of the same file see them.
+fn merge_row(
+    row: &CycleRow,
+    file_id: i64,
+    known: &mut Vec<MeasurementRow>,
+    next_id: &mut i64,
+    out: &mut StoredFile,
+) -> Vec<MeasurementRow> {
+    enum V<'a> {
+        Num(f64),
+        Text(&'a str),
+    }
+    let mut items: Vec<(String, V<'_>, Option<i64>, Option<&str>)> = Vec::new();
+    if let Some(lot) = &row.lot {
+        items.push((ATTR_LOT.into(), V::Text(lot), None, None));
+    }
+    if let Some(n) = row.cycle_no {
+        items.push((ATTR_CYCLE_NO.into(), V::Num(f64::from(n)), None, None));
+    }
+    if let Some(t) = &row.started_at {
+        items.push((ATTR_STARTED_AT.into(), V::Text(t), None, None));
+    }
+    for mv in &row.values {
+        items.push((
+            mv.quantity.key().into(),
+            V::Num(mv.value),
+            Some(i64::from(mv.column)),
+            Some(mv.raw.as_str()),
+        ));
+    }
+    let mut added = Vec::new();
+    let (mut any_new, mut any_conflict) = (false, false);
+    for (q, v, col, raw) in items {
+        let cur = view::current(known, &q);
+        let same = match (cur, &v) {
+            (None, _) => None,
+            (Some(c), V::Num(x)) => Some(c.value.is_some_and(|y| view::same_value(*x, y))),
+            (Some(c), V::Text(t)) => Some(c.text.as_deref() == Some(*t)),
+        };
+        let kind = match same {
+            Some(true) => continue,
+            Some(false) => {
+                any_conflict = true;
+                if let Some(c) = cur {
+                    out.conflicts.push(format!(
+                        "batch '{}', field '{}': stored {} (file #{}), this file has {} (line {})",
+                        row.batch_id,
+                        q,
+                        show(c.value, c.text.as_deref()),
+                        c.source_file_id.map_or("-".into(), |i| i.to_string()),
+                        match &v {
+                            V::Num(x) => x.to_string(),
+                            V::Text(t) => format!("'{t}'"),
+                        },
+                        row.line
+                    ));
+                }
+                "conflict"
+            }
+            None => {
+                any_new = true;
+                "observed"
+            }
+        };
+        let (value, text) = match v {
+            V::Num(x) => (Some(x), None),
+            V::Text(t) => (None, Some(t.to_string())),
+        };
+        let m = MeasurementRow {
+            id: *next_id,
+            batch_id: row.batch_id.clone(),
+            quantity: q,
+            value,
+            text,
+            kind: kind.into(),
+            source_file_id: Some(file_id),
+            line: i64::try_from(row.line).ok(),
+            col,
+            raw: raw.map(str::to_string),
+        };
+        *next_id += 1;
+        known.push(m.clone());
+        added.push(m);
+    }
+    if any_conflict {
+        out.rows_conflict += 1;
+    } else if any_new {
+        out.rows_new += 1;
+    } else {
+        out.rows_known += 1;
+    }
+    added
+}
+
+fn show(v: Option<f64>, t: Option<&str>) -> String {
+    match (v, t) {
+        (Some(x), _) => x.to_string(),
+        (None, Some(t)) => format!("'{t}'"),
+        _ => "nothing".into(),
+    }
+}
+
+fn lot_record(row: &LotRow, site: Option<String>) -> LotRecord {
+    LotRecord {
+        lot: row.lot.clone(),
+        catalyst: row.catalyst.clone(),
+        metal: row.metal.clone(),
+        loading_wt_pct: row.loading_wt_pct,
+        charged_mass_g: row.charged_mass_g,
+        received: row.received.clone(),
+        supplier_lot: row.supplier_lot.clone(),
+        cost: row.cost,
+        site,
+    }
+}
+
+fn upsert_lot(tx: &Transaction<'_>, l: &LotRecord, seq: i64) -> Result<()> {
+    tx.prepare_cached(
+        "INSERT OR REPLACE INTO lots(lot, catalyst, metal, loading_wt_pct, charged_mass_g,
+             received, supplier_lot, cost, site, event_seq)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10)",
+    )?
+    .execute(params![
+        l.lot,
+        l.catalyst,
+        l.metal,
+        l.loading_wt_pct,
+        l.charged_mass_g,
+        l.received,
+        l.supplier_lot,
+        l.cost,
+        l.site,
+        seq
+    ])?;
+    Ok(())
+}
+
+/// The current registration of a lot.
+pub fn lot(conn: &rusqlite::Connection, name: &str) -> Result<Option<LotRecord>> {
+    Ok(conn
+        .prepare_cached(
+            "SELECT lot, catalyst, metal, loading_wt_pct, charged_mass_g, received, supplier_lot, cost, site
+             FROM lots WHERE lot = ?1",
+        )?
+        .query_row([name], lot_from_row)
+        .optional()?)
+}
+
+/// Every registered lot, by name.
+pub fn all_lots(conn: &rusqlite::Connection) -> Result<Vec<LotRecord>> {
+    let mut stmt = conn.prepare(
+        "SELECT lot, catalyst, metal, loading_wt_pct, charged_mass_g, received, supplier_lot, cost, site
+         FROM lots ORDER BY lot",
+    )?;
+    let rows = stmt
+        .query_map([], lot_from_row)?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
+}
+
+pub(crate) fn lot_from_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<LotRecord> {
+    Ok(LotRecord {
+        lot: r.get(0)?,
+        catalyst: r.get(1)?,
+        metal: r.get(2)?,
+        loading_wt_pct: r.get(3)?,
+        charged_mass_g: r.get(4)?,
+        received: r.get(5)?,
+        supplier_lot: r.get(6)?,
+        cost: r.get(7)?,
+        site: r.get(8)?,
+    })
+}
+
+/// Register a lot, or change its registration, by a person's command.
+pub fn register_lot(
+    tx: &Transaction<'_>,
+    rec: &LotRecord,
+    reason: Option<&str>,
+    actor: &str,
+    at: &str,
+) -> Result<i64> {
+    if lot(tx, &rec.lot)?.as_ref() == Some(rec) {
+        return Err(StoreError::Invalid(format!(
+            "lot '{}' is already registered with exactly these values",
+            rec.lot
+        )));
+    }
+    let payload = Payload::LotRegistered {
+        lot: rec.clone(),
+        reason: reason.map(str::to_string),
+    };
+    let seq = audit::append(tx, at, actor, &rec.lot, &payload)?;
+    upsert_lot(tx, rec, seq)?;
+    Ok(seq)
+}
+
+/// Correct one value of a batch. The earlier values stay in `measurements`.
+pub fn correct(
+    tx: &Transaction<'_>,
+    batch_id: &str,
+    quantity: &str,
+    value: f64,
+    reason: &str,
+    actor: &str,
+    at: &str,
+) -> Result<i64> {
+    let Some(existing) = cycle(tx, batch_id)? else {
+        return Err(StoreError::Invalid(format!("no batch '{batch_id}' is recorded")));
+    };
+    if quantity != ATTR_CYCLE_NO && Quantity::from_key(quantity).is_none() {
+        return Err(StoreError::Invalid(format!(
+            "'{quantity}' is not a correctable field; expected cycle_no or one of {}",
+            Quantity::ALL.map(|q| q.key()).join(", ")
+        )));
+    }
+    if !value.is_finite() {
+        return Err(StoreError::Invalid("a corrected value must be a finite number".into()));
+    }
+    let mut rows = measurements_of(tx, batch_id)?;
+    let previous = view::current(&rows, quantity).and_then(|m| m.value);
+    let m = MeasurementRow {
+        id: next_id(tx, "measurements")?,
+        batch_id: batch_id.to_string(),
+        quantity: quantity.to_string(),
+        value: Some(value),
+        text: None,
+        kind: "correction".into(),
+        source_file_id: None,
+        line: None,
+        col: None,
+        raw: None,
+    };
+    let payload = Payload::Correction {
+        measurement: m.clone(),
+        previous,
+        reason: reason.to_string(),
+    };
+    let seq = audit::append(tx, at, actor, batch_id, &payload)?;
+    insert_measurement(tx, &m, seq)?;
+    rows.push(m);
+    let v = view::derive_cycle(batch_id, &rows, existing.excluded, existing.first_seq);
+    upsert_cycle(tx, &v)?;
+    Ok(seq)
+}
+
+/// Exclude a cycle from fits (or take it back), with the reason.
+pub fn set_excluded(
+    tx: &Transaction<'_>,
+    batch_id: &str,
+    excluded: bool,
+    reason: &str,
+    actor: &str,
+    at: &str,
+) -> Result<i64> {
+    let Some(mut v) = cycle(tx, batch_id)? else {
+        return Err(StoreError::Invalid(format!("no batch '{batch_id}' is recorded")));
+    };
+    let payload = Payload::Exclusion {
+        batch_id: batch_id.to_string(),
+        excluded,
+        reason: reason.to_string(),
+    };
+    let seq = audit::append(tx, at, actor, batch_id, &payload)?;
+    v.excluded = excluded;
+    upsert_cycle(tx, &v)?;
+    Ok(seq)
+}
+
+/// Append any other event that writes no record rows (notes, sign-offs).
+pub fn append_event(tx: &Transaction<'_>, subject: &str, payload: &Payload, actor: &str, at: &str) -> Result<i64> {
+    audit::append(tx, at, actor, subject, payload)
+}

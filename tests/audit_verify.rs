@@ -1,0 +1,142 @@
+//! The audit chain and `verify`: an untouched database verifies clean; a value changed with
+//! plain SQL behind turnbook's back is named by table, row and field.
+
+use turnbook::audit;
+use turnbook::ingest::{CycleRow, LotRow, MeasuredValue, ParsedFile, Quantity};
+use turnbook::store::{self, records};
+
+fn facts(name: &str, sha: &str) -> records::FileFacts {
+    records::FileFacts {
+        path: format!("/exports/{name}"),
+        sha256: sha.to_string(),
+        size: 100,
+        mtime: None,
+        profile: Some("hplc".into()),
+        site: None,
+        seen_at: "2026-01-01T00:00:00.000Z".into(),
+    }
+}
+
+fn row(line: u64, batch: &str, lot: &str, conv: f64) -> CycleRow {
+    CycleRow {
+        line,
+        batch_id: batch.into(),
+        lot: Some(lot.into()),
+        cycle_no: None,
+        started_at: None,
+        values: vec![MeasuredValue {
+            quantity: Quantity::Conversion,
+            value: conv,
+            column: 3,
+            raw: conv.to_string(),
+        }],
+    }
+}
+
+fn populated() -> rusqlite::Connection {
+    let mut conn = store::open_in_memory().unwrap();
+    let tx = conn.transaction().unwrap();
+    let lots = ParsedFile::Lots(vec![LotRow {
+        line: 2,
+        lot: "L1".into(),
+        catalyst: "5% Pd/C".into(),
+        metal: "Pd".into(),
+        loading_wt_pct: 5.0,
+        charged_mass_g: 10.0,
+        received: None,
+        supplier_lot: None,
+        cost: Some(1000.0),
+    }]);
+    records::record_parsed(&tx, &facts("lots.csv", "aa"), &lots, "qa").unwrap();
+    let f = ParsedFile::Cycles(vec![row(2, "B1", "L1", 0.9), row(3, "B2", "L1", 0.8)]);
+    let s = records::record_parsed(&tx, &facts("a.csv", "bb"), &f, "qa").unwrap();
+    assert_eq!(s.rows_new, 2);
+    // The same rows again plus one new: known rows are recognised, not stored twice.
+    let f2 = ParsedFile::Cycles(vec![row(2, "B1", "L1", 0.9), row(3, "B2", "L1", 0.8), row(4, "B3", "L1", 0.7)]);
+    let s2 = records::record_parsed(&tx, &facts("a2.csv", "cc"), &f2, "qa").unwrap();
+    assert_eq!((s2.rows_new, s2.rows_known, s2.rows_conflict), (1, 2, 0));
+    // A changed old row is a conflict: kept, flagged, the first value stays current.
+    let f3 = ParsedFile::Cycles(vec![row(2, "B1", "L1", 0.85)]);
+    let s3 = records::record_parsed(&tx, &facts("a3.csv", "dd"), &f3, "qa").unwrap();
+    assert_eq!(s3.rows_conflict, 1);
+    assert_eq!(s3.conflicts.len(), 1);
+    records::correct(&tx, "B2", "conversion", 0.81, "re-integrated peak", "qa", "2026-01-02T00:00:00.000Z").unwrap();
+    records::set_excluded(&tx, "B3", true, "stirrer failed", "qa", "2026-01-02T00:00:00.000Z").unwrap();
+    tx.commit().unwrap();
+    conn
+}
+
+#[test]
+fn untouched_database_verifies_clean() {
+    let conn = populated();
+    let r = audit::verify(&conn).unwrap();
+    assert!(r.ok(), "{:?}", r.findings);
+    assert_eq!(r.events, 6);
+    let b1 = records::cycle(&conn, "B1").unwrap().unwrap();
+    assert_eq!(b1.get(Quantity::Conversion), Some(0.9));
+    assert_eq!(b1.conflicts, 1);
+    let b2 = records::cycle(&conn, "B2").unwrap().unwrap();
+    assert_eq!(b2.get(Quantity::Conversion), Some(0.81));
+}
+
+#[test]
+fn a_value_changed_behind_the_back_is_named() {
+    let conn = populated();
+    // The measurement table refuses updates through its trigger; a tamperer drops it first.
+    conn.execute_batch("DROP TRIGGER measurements_append_only;").unwrap();
+    conn.execute("UPDATE measurements SET value = 0.95 WHERE batch_id = 'B1' AND kind = 'observed' AND quantity = 'conversion'", []).unwrap();
+    let id: i64 = conn.query_row("SELECT id FROM measurements WHERE value = 0.95", [], |r| r.get(0)).unwrap();
+    let r = audit::verify(&conn).unwrap();
+    assert!(!r.ok());
+    let f = &r.findings[0];
+    assert_eq!((f.table.as_str(), f.row.as_str(), f.field.as_str()), ("measurements", id.to_string().as_str(), "value"));
+    assert_eq!(f.stored, "0.95");
+    assert_eq!(f.expected, "0.9");
+}
+
+#[test]
+fn a_cycle_view_changed_behind_the_back_is_named() {
+    let conn = populated();
+    conn.execute("UPDATE cycles SET conversion = 0.99 WHERE batch_id = 'B3'", []).unwrap();
+    let r = audit::verify(&conn).unwrap();
+    assert_eq!(r.findings.len(), 1, "{:?}", r.findings);
+    let f = &r.findings[0];
+    assert_eq!((f.table.as_str(), f.row.as_str(), f.field.as_str()), ("cycles", "B3", "conversion"));
+}
+
+#[test]
+fn an_edited_event_breaks_the_chain_at_that_event() {
+    let conn = populated();
+    conn.execute_batch("DROP TRIGGER events_append_only_update;").unwrap();
+    conn.execute("UPDATE events SET actor = 'mallory' WHERE seq = 3", []).unwrap();
+    let r = audit::verify(&conn).unwrap();
+    let f = &r.findings[0];
+    assert_eq!((f.table.as_str(), f.row.as_str(), f.field.as_str()), ("events", "3", "hash"));
+}
+
+#[test]
+fn a_lot_registration_changed_behind_the_back_is_named() {
+    let conn = populated();
+    conn.execute("UPDATE lots SET loading_wt_pct = 10.0 WHERE lot = 'L1'", []).unwrap();
+    let r = audit::verify(&conn).unwrap();
+    let f = &r.findings[0];
+    assert_eq!((f.table.as_str(), f.row.as_str(), f.field.as_str()), ("lots", "L1", "loading_wt_pct"));
+}
+
+#[test]
+fn the_event_log_refuses_updates_and_deletes() {
+    let conn = populated();
+    assert!(conn.execute("UPDATE events SET actor = 'x'", []).is_err());
+    assert!(conn.execute("DELETE FROM events", []).is_err());
+    assert!(conn.execute("UPDATE measurements SET value = 1", []).is_err());
+}
+
+#[test]
+fn a_second_ingestion_of_one_content_is_refused_by_the_database() {
+    let conn = populated();
+    let err = conn.execute(
+        "INSERT INTO source_files(sha256, path, size, seen_at, outcome, event_seq) VALUES ('bb', 'x', 1, 'now', 'ingested', 1)",
+        [],
+    );
+    assert!(err.is_err());
+}

@@ -23,6 +23,7 @@ pub mod audit;
 pub mod chem;
 pub mod commands;
 pub mod demo;
+mod demo_live;
 pub mod config;
 pub mod fit;
 pub mod ingest;

@@ -1,4 +1,18 @@
 //! Decoding export files and reading them through export profiles. Pure: bytes in, records out.
+//!
+//! - [`decode`]: bytes to text (UTF-8, UTF-16 LE/BE, BOM sniffing), refusing invalid text.
+//! - [`profile`]: the `[profiles.NAME]` configuration tables and their validation.
+//! - [`units`]: the closed list of units and their conversion to canonical units.
+//! - [`parse()`]: one file through one profile into [`ParsedFile`].
 
+pub mod decode;
+pub mod parse;
+pub mod profile;
 pub mod record;
+pub mod units;
+
+pub use decode::{Encoding, decode};
+pub use parse::{parse, parse_number, parse_text};
+pub use profile::{ColumnSpec, DecimalMark, Delimiter, Profile, ProfileKind};
 pub use record::*;
+pub use units::Unit;

@@ -50,10 +50,11 @@ pub fn parse_text(text: &str, profile: &Profile) -> Result<ParsedFile, ParseErro
         .delimiter(profile.delimiter.byte())
         .from_reader(body.as_bytes());
     let mut record = csv::StringRecord::new();
+    let mut lines = LineCounter::new(body, skipped);
     let header_line = loop {
         let more = reader
             .read_record(&mut record)
-            .map_err(|e| csv_error(&e, skipped))?;
+            .map_err(|e| csv_error(&e, &mut lines))?;
         if !more {
             return Err(err(
                 None,
@@ -64,19 +65,19 @@ pub fn parse_text(text: &str, profile: &Profile) -> Result<ParsedFile, ParseErro
             ));
         }
         if !is_blank(&record) {
-            break line_of(&record, skipped);
+            break lines.line_of(&record);
         }
     };
     let layout = Layout::resolve(profile, &record, header_line)?;
     let mut rows = Rows::new(profile.kind);
     while reader
         .read_record(&mut record)
-        .map_err(|e| csv_error(&e, skipped))?
+        .map_err(|e| csv_error(&e, &mut lines))?
     {
         if is_blank(&record) {
             continue;
         }
-        let line = line_of(&record, skipped);
+        let line = lines.line_of(&record);
         layout.check_width(&record, line)?;
         match &mut rows {
             Rows::Cycles(v) => v.push(layout.cycle_row(profile, &record, line)?),
@@ -158,12 +159,13 @@ fn skip_lines(text: &str, n: usize) -> Result<(&str, u64), ParseError> {
         match text[start..].find('\n') {
             Some(p) => start += p + 1,
             None => {
+                let lines = if start == text.len() { i } else { i + 1 };
                 return Err(err(
-                    Some(i as u64 + 1),
+                    Some(lines.max(1) as u64),
                     None,
                     None,
                     &format!("{n} lines to skip before the header row, then the header"),
-                    &format!("a file of only {} lines", i + 1),
+                    &format!("a file of only {lines} lines"),
                 ));
             }
         }
@@ -171,16 +173,55 @@ fn skip_lines(text: &str, n: usize) -> Result<(&str, u64), ParseError> {
     Ok((&text[start..], n as u64))
 }
 
-fn line_of(record: &csv::StringRecord, skipped: u64) -> u64 {
-    record.position().map(|p| p.line()).unwrap_or(1) + skipped
+/// Physical line numbers from the reader's byte offsets. The csv reader's own line
+/// count does not include the empty lines it skips, so we count newlines ourselves,
+/// incrementally (offsets only grow), which keeps the whole pass linear.
+struct LineCounter<'a> {
+    body: &'a [u8],
+    at: usize,
+    line: u64,
+}
+
+impl<'a> LineCounter<'a> {
+    fn new(body: &'a str, skipped: u64) -> Self {
+        LineCounter {
+            body: body.as_bytes(),
+            at: 0,
+            line: skipped + 1,
+        }
+    }
+
+    /// Line of the first byte at or after `byte` that is not a line terminator (a
+    /// record's position points before the empty lines skipped ahead of it).
+    fn line_at(&mut self, byte: u64) -> u64 {
+        let mut target = usize::try_from(byte)
+            .unwrap_or(usize::MAX)
+            .min(self.body.len());
+        while target < self.body.len() && matches!(self.body[target], b'\r' | b'\n') {
+            target += 1;
+        }
+        if target >= self.at {
+            self.line += self.body[self.at..target]
+                .iter()
+                .filter(|&&b| b == b'\n')
+                .count() as u64;
+            self.at = target;
+        }
+        self.line
+    }
+
+    fn line_of(&mut self, record: &csv::StringRecord) -> u64 {
+        let byte = record.position().map(|p| p.byte()).unwrap_or(0);
+        self.line_at(byte)
+    }
 }
 
 fn is_blank(record: &csv::StringRecord) -> bool {
     record.iter().all(|f| f.trim().is_empty())
 }
 
-fn csv_error(e: &csv::Error, skipped: u64) -> ParseError {
-    let line = e.position().map(|p| p.line() + skipped);
+fn csv_error(e: &csv::Error, lines: &mut LineCounter) -> ParseError {
+    let line = e.position().map(|p| lines.line_at(p.byte()));
     err(
         line,
         None,

@@ -1,4 +1,21 @@
-//! (module under construction)
+//! Chemistry of catalyst reuse: TON, TOF, apparent rate constants, activity, Arrhenius
+//! normalisation, metal leaching and ICH Q3D limits. Pure functions over plain data.
+//!
+//! - [`elements`]: molar masses of the catalyst metals.
+//! - [`kinetics`]: the per-batch formulas, each with its source named.
+//! - [`limits`]: ICH Q3D permitted daily exposures and concentration limits.
+//! - [`metrics`]: [`cycle_metrics`], the call that turns a lot's cycles into metrics.
 
-/// Placeholder until chemistry lands.
-pub fn molar_mass(_s: &str) -> Option<f64> { Some(1.0) }
+pub mod elements;
+pub mod kinetics;
+pub mod limits;
+pub mod metrics;
+
+pub use elements::{METALS, molar_mass};
+pub use kinetics::{
+    DEFAULT_SATURATION, GAS_CONSTANT, RateConstant, Tof, apparent_rate_constant,
+    arrhenius_to_reference, derived_yield, metal_lost_g, metal_mol, product_mol,
+    turnover_frequency, turnover_number,
+};
+pub use limits::{OPTION1_DAILY_DOSE_G, Pde, PdeTable, Route, ich_q3d_pde, option1_limit_ug_per_g};
+pub use metrics::{ChargeSource, ChemOptions, CycleInput, CycleMetrics, LotFacts, cycle_metrics};

@@ -1,18 +1,18 @@
 //! Decoding export files and reading them through export profiles. Pure: bytes in, records out.
+//!
+//! - [`decode`]: bytes to text (UTF-8, UTF-16 LE/BE, BOM sniffing), refusing invalid text.
+//! - [`profile`]: the `[profiles.NAME]` configuration tables and their validation.
+//! - [`units`]: the closed list of units and their conversion to canonical units.
+//! - [`parse()`]: one file through one profile into [`ParsedFile`].
 
+pub mod decode;
+pub mod parse;
+pub mod profile;
 pub mod record;
-pub use record::*;
+pub mod units;
 
-// PLACEHOLDER until the parser lands (replaced at merge).
-#[derive(Debug, Clone, serde::Deserialize)]
-pub struct Profile {
-    pub kind: String,
-}
-impl Profile {
-    pub fn validate(&self) -> Result<(), String> {
-        Ok(())
-    }
-}
-pub fn parse(_bytes: &[u8], _p: &Profile) -> Result<ParsedFile, ParseError> {
-    Err(ParseError { line: None, column: None, field: None, expected: "parser".into(), found: "placeholder".into() })
-}
+pub use decode::{Encoding, decode};
+pub use parse::{parse, parse_number, parse_text};
+pub use profile::{ColumnSpec, DecimalMark, Delimiter, Profile, ProfileKind};
+pub use record::*;
+pub use units::Unit;

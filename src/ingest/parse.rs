@@ -1,0 +1,871 @@
+//! Reading decoded export text through a [`Profile`] into rows in canonical units.
+//!
+//! One pass over the text (the csv crate's reader), first error wins. Every error
+//! carries the 1-based physical line of the decoded text and, for a cell, the 1-based
+//! column (the field's position in the row, as a spreadsheet counts columns).
+
+use chrono::{NaiveDate, NaiveDateTime};
+
+use super::decode::decode;
+use super::profile::{
+    DEFAULT_DATE_FORMAT, DEFAULT_DATETIME_FORMATS, DecimalMark, Field, FieldType, Profile,
+    ProfileKind, UNIT_FROM_HEADER,
+};
+use super::record::{CycleRow, LotRow, MeasuredValue, ParseError, ParsedFile, Quantity};
+use super::units::{Dimension, Unit, split_header_unit};
+
+/// Longest text value (batch id, lot name...) we store; longer is a layout fault.
+pub const MAX_TEXT_CHARS: usize = 200;
+/// Slack allowed above 1 (and below 0) for fractions, for rounding in instrument software.
+pub const FRACTION_SLACK: f64 = 1e-9;
+
+/// Decode and parse one export file.
+pub fn parse(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseError> {
+    profile.validate().map_err(|msg| ParseError {
+        line: None,
+        column: None,
+        field: Some("profile".into()),
+        expected: "a valid export profile".into(),
+        found: msg,
+    })?;
+    let text = decode(bytes, profile.encoding)?;
+    parse_text(&text, profile)
+}
+
+/// Parse already decoded text (the profile is assumed validated by [`parse`]).
+pub fn parse_text(text: &str, profile: &Profile) -> Result<ParsedFile, ParseError> {
+    if text.trim().is_empty() {
+        return Err(err(
+            None,
+            None,
+            None,
+            "a header row and data rows",
+            "an empty file",
+        ));
+    }
+    let (body, skipped) = skip_lines(text, profile.skip_lines)?;
+    let mut reader = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .flexible(true)
+        .delimiter(profile.delimiter.byte())
+        .from_reader(body.as_bytes());
+    let mut record = csv::StringRecord::new();
+    let mut lines = LineCounter::new(body, skipped);
+    let header_line = loop {
+        let more = reader
+            .read_record(&mut record)
+            .map_err(|e| csv_error(&e, &mut lines))?;
+        if !more {
+            return Err(err(
+                None,
+                None,
+                None,
+                "a header row",
+                &format!("no header row after the {skipped} skipped lines"),
+            ));
+        }
+        if !is_blank(&record) {
+            break lines.line_of(&record);
+        }
+    };
+    let layout = Layout::resolve(profile, &record, header_line)?;
+    let mut rows = Rows::new(profile.kind);
+    while reader
+        .read_record(&mut record)
+        .map_err(|e| csv_error(&e, &mut lines))?
+    {
+        if is_blank(&record) {
+            continue;
+        }
+        let line = lines.line_of(&record);
+        layout.check_width(&record, line)?;
+        match &mut rows {
+            Rows::Cycles(v) => v.push(layout.cycle_row(profile, &record, line)?),
+            Rows::Lots(v) => v.push(layout.lot_row(profile, &record, line)?),
+        }
+    }
+    let empty = match &rows {
+        Rows::Cycles(v) => v.is_empty(),
+        Rows::Lots(v) => v.is_empty(),
+    };
+    if empty {
+        return Err(err(
+            Some(header_line),
+            None,
+            None,
+            &format!("at least one data row after the header on line {header_line}"),
+            "no data rows",
+        ));
+    }
+    Ok(match rows {
+        Rows::Cycles(v) => ParsedFile::Cycles(v),
+        Rows::Lots(v) => ParsedFile::Lots(v),
+    })
+}
+
+enum Rows {
+    Cycles(Vec<CycleRow>),
+    Lots(Vec<LotRow>),
+}
+
+impl Rows {
+    fn new(kind: ProfileKind) -> Rows {
+        match kind {
+            ProfileKind::Cycles => Rows::Cycles(Vec::new()),
+            ProfileKind::Lots => Rows::Lots(Vec::new()),
+        }
+    }
+}
+
+fn err(
+    line: Option<u64>,
+    column: Option<u32>,
+    field: Option<&str>,
+    expected: &str,
+    found: &str,
+) -> ParseError {
+    ParseError {
+        line,
+        column,
+        field: field.map(str::to_owned),
+        expected: expected.to_owned(),
+        found: found.to_owned(),
+    }
+}
+
+/// Shorten and escape text for a message: control characters are shown escaped so a
+/// message can never carry a line break or terminal escape into a log or e-mail.
+pub fn shown(text: &str) -> String {
+    const MAX: usize = 60;
+    let mut out = String::from("\"");
+    for (n, c) in text.chars().enumerate() {
+        if n == MAX {
+            out.push('…');
+            break;
+        }
+        if c.is_control() {
+            out.extend(c.escape_default());
+        } else {
+            out.push(c);
+        }
+    }
+    out.push('"');
+    out
+}
+
+fn skip_lines(text: &str, n: usize) -> Result<(&str, u64), ParseError> {
+    let mut start = 0;
+    for i in 0..n {
+        match text[start..].find('\n') {
+            Some(p) => start += p + 1,
+            None => {
+                let lines = if start == text.len() { i } else { i + 1 };
+                return Err(err(
+                    Some(lines.max(1) as u64),
+                    None,
+                    None,
+                    &format!("{n} lines to skip before the header row, then the header"),
+                    &format!("a file of only {lines} lines"),
+                ));
+            }
+        }
+    }
+    Ok((&text[start..], n as u64))
+}
+
+/// Physical line numbers from the reader's byte offsets. The csv reader's own line
+/// count does not include the empty lines it skips, so we count newlines ourselves,
+/// incrementally (offsets only grow), which keeps the whole pass linear.
+struct LineCounter<'a> {
+    body: &'a [u8],
+    at: usize,
+    line: u64,
+}
+
+impl<'a> LineCounter<'a> {
+    fn new(body: &'a str, skipped: u64) -> Self {
+        LineCounter {
+            body: body.as_bytes(),
+            at: 0,
+            line: skipped + 1,
+        }
+    }
+
+    /// Line of the first byte at or after `byte` that is not a line terminator (a
+    /// record's position points before the empty lines skipped ahead of it).
+    fn line_at(&mut self, byte: u64) -> u64 {
+        let mut target = usize::try_from(byte)
+            .unwrap_or(usize::MAX)
+            .min(self.body.len());
+        while target < self.body.len() && matches!(self.body[target], b'\r' | b'\n') {
+            target += 1;
+        }
+        if target >= self.at {
+            self.line += self.body[self.at..target]
+                .iter()
+                .filter(|&&b| b == b'\n')
+                .count() as u64;
+            self.at = target;
+        }
+        self.line
+    }
+
+    fn line_of(&mut self, record: &csv::StringRecord) -> u64 {
+        let byte = record.position().map(|p| p.byte()).unwrap_or(0);
+        self.line_at(byte)
+    }
+}
+
+fn is_blank(record: &csv::StringRecord) -> bool {
+    record.iter().all(|f| f.trim().is_empty())
+}
+
+fn csv_error(e: &csv::Error, lines: &mut LineCounter) -> ParseError {
+    let line = e.position().map(|p| lines.line_at(p.byte()));
+    err(
+        line,
+        None,
+        None,
+        "well-formed delimited text",
+        &e.to_string(),
+    )
+}
+
+fn col(index: usize) -> u32 {
+    u32::try_from(index + 1).unwrap_or(u32::MAX)
+}
+
+/// A profile column found in the header.
+#[derive(Debug)]
+struct Bound {
+    field: Field,
+    key: String,
+    index: usize,
+    unit: Option<Unit>,
+}
+
+/// The profile's columns resolved against one file's header row.
+#[derive(Debug)]
+struct Layout {
+    bound: Vec<Bound>,
+    width: usize,
+    header_line: u64,
+    headers: Vec<String>,
+}
+
+impl Layout {
+    fn resolve(
+        profile: &Profile,
+        header: &csv::StringRecord,
+        line: u64,
+    ) -> Result<Layout, ParseError> {
+        let cells: Vec<String> = header.iter().map(|c| c.trim().to_owned()).collect();
+        let folded: Vec<String> = cells.iter().map(|c| c.to_lowercase()).collect();
+        let split: Vec<Option<(String, String)>> = cells
+            .iter()
+            .map(|c| split_header_unit(c).map(|(n, u)| (n.to_lowercase(), u.to_owned())))
+            .collect();
+        let mut bound = Vec::new();
+        for (key, spec) in &profile.columns {
+            let Some(field) = Field::from_key(profile.kind, key) else {
+                continue; // unreachable after validate(); never panic on it
+            };
+            let target = spec.header.trim().to_lowercase();
+            let from_header = spec.unit.as_deref() == Some(UNIT_FROM_HEADER);
+            let declared = match (&spec.unit, from_header) {
+                (Some(u), false) => Unit::parse(u),
+                _ => None,
+            };
+            let dim = match field.field_type() {
+                FieldType::Measured(d) => Some(d),
+                _ => None,
+            };
+            let mut hits: Vec<(usize, Option<Unit>)> = Vec::new();
+            for i in 0..cells.len() {
+                let by_name = split[i].as_ref().filter(|(name, _)| *name == target);
+                if from_header {
+                    if let Some((_, unit_text)) = by_name {
+                        let unit = Unit::parse(unit_text)
+                            .filter(|u| Some(u.dimension()) == dim)
+                            .ok_or_else(|| {
+                                err(
+                                    Some(line),
+                                    Some(col(i)),
+                                    Some(key),
+                                    &format!(
+                                        "a unit in the header, {}",
+                                        dim.map(|d| d.expected_units()).unwrap_or_default()
+                                    ),
+                                    &shown(&cells[i]),
+                                )
+                            })?;
+                        hits.push((i, Some(unit)));
+                    } else if folded[i] == target {
+                        return Err(err(
+                            Some(line),
+                            Some(col(i)),
+                            Some(key),
+                            &format!(
+                                "a header written \"{} [unit]\" or \"{} (unit)\"",
+                                spec.header.trim(),
+                                spec.header.trim()
+                            ),
+                            &shown(&cells[i]),
+                        ));
+                    }
+                } else if folded[i] == target {
+                    hits.push((i, declared));
+                } else if let Some((_, unit_text)) = by_name {
+                    // "Mass [mg]" for a profile header "Mass": accept only if the file's
+                    // unit agrees with the profile's, never silently rescale.
+                    if let Some(file_unit) = Unit::parse(unit_text) {
+                        if dim.is_some() && Some(file_unit) != declared {
+                            return Err(err(
+                                Some(line),
+                                Some(col(i)),
+                                Some(key),
+                                &format!(
+                                    "the unit {} named in the profile",
+                                    declared.map(|u| u.symbol()).unwrap_or("?")
+                                ),
+                                &format!(
+                                    "the header {} declaring {}",
+                                    shown(&cells[i]),
+                                    file_unit.symbol()
+                                ),
+                            ));
+                        }
+                        hits.push((i, declared));
+                    }
+                }
+            }
+            match hits.as_slice() {
+                [] => {
+                    let found: Vec<String> = cells.iter().map(|c| shown(c)).take(30).collect();
+                    return Err(err(
+                        Some(line),
+                        None,
+                        Some(key),
+                        &format!("a column headed {}", shown(spec.header.trim())),
+                        &format!("the headers {}", found.join(", ")),
+                    ));
+                }
+                [(index, unit)] => bound.push(Bound {
+                    field,
+                    key: key.clone(),
+                    index: *index,
+                    unit: *unit,
+                }),
+                [first, second, ..] => {
+                    return Err(err(
+                        Some(line),
+                        Some(col(second.0)),
+                        Some(key),
+                        &format!("exactly one column headed {}", shown(spec.header.trim())),
+                        &format!("columns {} and {}", col(first.0), col(second.0)),
+                    ));
+                }
+            }
+        }
+        bound.sort_by_key(|b| b.field);
+        Ok(Layout {
+            bound,
+            width: cells.len(),
+            header_line: line,
+            headers: cells,
+        })
+    }
+
+    /// A short row is a truncated line; extra cells are tolerated only when empty
+    /// (spreadsheet exports often end rows with a stray delimiter).
+    fn check_width(&self, record: &csv::StringRecord, line: u64) -> Result<(), ParseError> {
+        let n = record.len();
+        if n < self.width {
+            let field = self.headers.get(n).map(String::as_str);
+            return Err(err(
+                Some(line),
+                Some(col(n)),
+                field,
+                &format!(
+                    "{} fields as in the header on line {}",
+                    self.width, self.header_line
+                ),
+                &format!("{n} fields (a truncated line?)"),
+            ));
+        }
+        if let Some((i, _)) = record
+            .iter()
+            .enumerate()
+            .skip(self.width)
+            .find(|(_, f)| !f.trim().is_empty())
+        {
+            return Err(err(
+                Some(line),
+                Some(col(i)),
+                None,
+                &format!(
+                    "{} fields as in the header on line {}",
+                    self.width, self.header_line
+                ),
+                &format!("{n} fields"),
+            ));
+        }
+        Ok(())
+    }
+
+    fn cycle_row(
+        &self,
+        profile: &Profile,
+        record: &csv::StringRecord,
+        line: u64,
+    ) -> Result<CycleRow, ParseError> {
+        let mut row = CycleRow {
+            line,
+            batch_id: String::new(),
+            lot: None,
+            cycle_no: None,
+            started_at: None,
+            values: Vec::new(),
+        };
+        for b in &self.bound {
+            let raw = record.get(b.index).unwrap_or("");
+            let cell = Cell {
+                raw,
+                text: raw.trim(),
+                line,
+                column: col(b.index),
+                key: &b.key,
+            };
+            match b.field {
+                Field::BatchId => {
+                    row.batch_id = cell.text_value()?.ok_or_else(|| {
+                        cell.fail("a batch id (required on every row)", "an empty cell")
+                    })?;
+                }
+                Field::Lot => row.lot = cell.text_value()?,
+                Field::CycleNo => row.cycle_no = cell.cycle_no()?,
+                Field::StartedAt => {
+                    row.started_at = cell.datetime(profile.datetime_format.as_deref())?
+                }
+                Field::Measured(q) => {
+                    if let Some(v) = cell.measured(q, b.unit, profile)? {
+                        row.values.push(MeasuredValue {
+                            quantity: q,
+                            value: v,
+                            column: cell.column,
+                            raw: raw.to_owned(),
+                        });
+                    }
+                }
+                _ => {}
+            }
+        }
+        Ok(row)
+    }
+
+    fn lot_row(
+        &self,
+        profile: &Profile,
+        record: &csv::StringRecord,
+        line: u64,
+    ) -> Result<LotRow, ParseError> {
+        let mut lot = None;
+        let mut catalyst = None;
+        let mut metal = None;
+        let mut loading = None;
+        let mut charged = None;
+        let mut received = None;
+        let mut supplier_lot = None;
+        let mut cost = None;
+        for b in &self.bound {
+            let raw = record.get(b.index).unwrap_or("");
+            let cell = Cell {
+                raw,
+                text: raw.trim(),
+                line,
+                column: col(b.index),
+                key: &b.key,
+            };
+            match b.field {
+                Field::Lot => lot = Some(cell.required_text("a lot name")?),
+                Field::Catalyst => catalyst = Some(cell.required_text("a catalyst description")?),
+                Field::Metal => metal = Some(cell.metal()?),
+                Field::Loading => loading = Some(cell.loading(b.unit, profile.decimal)?),
+                Field::ChargedMass => charged = Some(cell.charged_mass(b.unit, profile.decimal)?),
+                Field::Received => received = cell.date(profile.date_format.as_deref())?,
+                Field::SupplierLot => supplier_lot = cell.text_value()?,
+                Field::Cost => cost = cell.cost(profile.decimal)?,
+                _ => {}
+            }
+        }
+        // The profile's required columns guarantee these are bound; a missing one is
+        // reported rather than assumed.
+        let need = |v: Option<String>, key: &str| {
+            v.ok_or_else(|| err(Some(line), None, Some(key), "a mapped column", "none"))
+        };
+        Ok(LotRow {
+            line,
+            lot: need(lot, "lot")?,
+            catalyst: need(catalyst, "catalyst")?,
+            metal: need(metal, "metal")?,
+            loading_wt_pct: loading
+                .ok_or_else(|| err(Some(line), None, Some("loading"), "a mapped column", "none"))?,
+            charged_mass_g: charged.ok_or_else(|| {
+                err(
+                    Some(line),
+                    None,
+                    Some("charged_mass"),
+                    "a mapped column",
+                    "none",
+                )
+            })?,
+            received,
+            supplier_lot,
+            cost,
+        })
+    }
+}
+
+/// One cell being read, with its position for errors.
+struct Cell<'a> {
+    raw: &'a str,
+    text: &'a str,
+    line: u64,
+    column: u32,
+    key: &'a str,
+}
+
+impl Cell<'_> {
+    fn fail(&self, expected: &str, found: &str) -> ParseError {
+        err(
+            Some(self.line),
+            Some(self.column),
+            Some(self.key),
+            expected,
+            found,
+        )
+    }
+
+    fn fail_raw(&self, expected: &str) -> ParseError {
+        self.fail(expected, &shown(self.raw))
+    }
+
+    /// Text values join records and show in reports and e-mails: no control characters
+    /// (CR, LF, NUL, escapes), bounded length.
+    fn text_value(&self) -> Result<Option<String>, ParseError> {
+        if self.text.is_empty() {
+            return Ok(None);
+        }
+        if self.text.chars().any(char::is_control) {
+            return Err(self.fail_raw(
+                "text without control characters (no line breaks, tabs or NUL inside a field)",
+            ));
+        }
+        if self.text.chars().count() > MAX_TEXT_CHARS {
+            return Err(self.fail_raw(&format!("text of at most {MAX_TEXT_CHARS} characters")));
+        }
+        Ok(Some(self.text.to_owned()))
+    }
+
+    fn required_text(&self, what: &str) -> Result<String, ParseError> {
+        self.text_value()?
+            .ok_or_else(|| self.fail(&format!("{what} (required on every row)"), "an empty cell"))
+    }
+
+    fn cycle_no(&self) -> Result<Option<u32>, ParseError> {
+        if self.text.is_empty() {
+            return Ok(None);
+        }
+        let expected = "a whole cycle number from 1";
+        if !self.text.bytes().all(|b| b.is_ascii_digit()) {
+            return Err(self.fail_raw(expected));
+        }
+        match self.text.parse::<u32>() {
+            Ok(n) if n >= 1 => Ok(Some(n)),
+            _ => Err(self.fail_raw(expected)),
+        }
+    }
+
+    fn datetime(&self, format: Option<&str>) -> Result<Option<String>, ParseError> {
+        if self.text.is_empty() {
+            return Ok(None);
+        }
+        let formats: Vec<&str> = match format {
+            Some(f) => vec![f],
+            None => DEFAULT_DATETIME_FORMATS.to_vec(),
+        };
+        for f in &formats {
+            if let Ok(dt) = NaiveDateTime::parse_from_str(self.text, f) {
+                return Ok(Some(dt.format("%Y-%m-%dT%H:%M:%S").to_string()));
+            }
+            // A layout without a time of day gives midnight.
+            if let Ok(d) = NaiveDate::parse_from_str(self.text, f) {
+                return Ok(Some(format!("{}T00:00:00", d.format("%Y-%m-%d"))));
+            }
+        }
+        Err(self.fail_raw(&format!(
+            "a date and time in the layout {}",
+            formats.join(" or ")
+        )))
+    }
+
+    fn date(&self, format: Option<&str>) -> Result<Option<String>, ParseError> {
+        if self.text.is_empty() {
+            return Ok(None);
+        }
+        let f = format.unwrap_or(DEFAULT_DATE_FORMAT);
+        let parsed = NaiveDate::parse_from_str(self.text, f).ok().or_else(|| {
+            NaiveDateTime::parse_from_str(self.text, f)
+                .ok()
+                .map(|d| d.date())
+        });
+        match parsed {
+            Some(d) => Ok(Some(d.format("%Y-%m-%d").to_string())),
+            None => Err(self.fail_raw(&format!("a date in the layout {f}"))),
+        }
+    }
+
+    fn number(&self, mark: DecimalMark, unit: &str) -> Result<Option<f64>, ParseError> {
+        if self.text.is_empty() {
+            return Ok(None);
+        }
+        parse_number(self.text, mark).map(Some).map_err(|why| {
+            self.fail_raw(&format!(
+                "a number{unit} with '{}' as decimal mark{why}",
+                mark.char()
+            ))
+        })
+    }
+
+    fn measured(
+        &self,
+        q: Quantity,
+        unit: Option<Unit>,
+        profile: &Profile,
+    ) -> Result<Option<f64>, ParseError> {
+        let Some(unit) = unit else {
+            return Err(self.fail("a unit for this column", "none"));
+        };
+        let Some(v) = self.number(profile.decimal, &format!(" in {}", unit.symbol()))? else {
+            return Ok(None);
+        };
+        let c = unit.to_canonical(v);
+        let found = || {
+            format!(
+                "{} {} ({} {})",
+                shown(self.raw),
+                unit.symbol(),
+                c,
+                q.canonical_unit()
+            )
+        };
+        let ok = match unit.dimension() {
+            Dimension::Ratio => {
+                if (-FRACTION_SLACK..=1.0 + FRACTION_SLACK).contains(&c) {
+                    return Ok(Some(c.clamp(0.0, 1.0)));
+                }
+                return Err(self.fail(
+                    &format!("a {} between 0 and 1 (0 % to 100 %)", q.key()),
+                    &found(),
+                ));
+            }
+            Dimension::TraceContent => {
+                if c >= 0.0 {
+                    return Ok(Some(c));
+                }
+                "a metal content of 0 or more"
+            }
+            Dimension::Temperature => {
+                let [lo, hi] = profile.temperature_range();
+                if (lo..=hi).contains(&c) {
+                    return Ok(Some(c));
+                }
+                return Err(self.fail(
+                    &format!(
+                        "a temperature between {lo} K and {hi} K ({:.2} °C to {:.2} °C)",
+                        lo - 273.15,
+                        hi - 273.15
+                    ),
+                    &found(),
+                ));
+            }
+            Dimension::Time => {
+                if c > 0.0 && c.is_finite() {
+                    return Ok(Some(c));
+                }
+                "a duration greater than 0"
+            }
+            Dimension::Mass | Dimension::Amount => {
+                if c > 0.0 && c.is_finite() {
+                    return Ok(Some(c));
+                }
+                "a value greater than 0"
+            }
+        };
+        Err(self.fail(ok, &found()))
+    }
+
+    fn metal(&self) -> Result<String, ParseError> {
+        let text = self.required_text("a metal element symbol")?;
+        // Accept "PD" or "pd" for "Pd": instrument software is not careful about case.
+        let mut norm = String::new();
+        for (i, c) in text.chars().enumerate() {
+            if i == 0 {
+                norm.extend(c.to_uppercase());
+            } else {
+                norm.extend(c.to_lowercase());
+            }
+        }
+        if crate::chem::molar_mass(&norm).is_some() {
+            Ok(norm)
+        } else {
+            Err(self.fail_raw(&format!(
+                "a catalyst metal symbol, one of {}",
+                crate::chem::METALS.join(", ")
+            )))
+        }
+    }
+
+    fn loading(&self, unit: Option<Unit>, mark: DecimalMark) -> Result<f64, ParseError> {
+        let unit = unit.unwrap_or(Unit::Percent);
+        let v = self
+            .number(mark, &format!(" in {}", unit.symbol()))?
+            .ok_or_else(|| self.fail("a metal loading (required on every row)", "an empty cell"))?;
+        let fraction = unit.to_canonical(v);
+        if fraction > 0.0 && fraction <= 1.0 + FRACTION_SLACK {
+            Ok(fraction.min(1.0) * 100.0)
+        } else {
+            Err(self.fail(
+                "a metal loading above 0 and at most 100 wt %",
+                &format!("{} {}", shown(self.raw), unit.symbol()),
+            ))
+        }
+    }
+
+    fn charged_mass(&self, unit: Option<Unit>, mark: DecimalMark) -> Result<f64, ParseError> {
+        let unit = unit.unwrap_or(Unit::Gram);
+        let v = self
+            .number(mark, &format!(" in {}", unit.symbol()))?
+            .ok_or_else(|| {
+                self.fail(
+                    "a charged catalyst mass (required on every row)",
+                    "an empty cell",
+                )
+            })?;
+        let g = unit.to_canonical(v);
+        if g > 0.0 && g.is_finite() {
+            Ok(g)
+        } else {
+            Err(self.fail(
+                "a mass greater than 0",
+                &format!("{} {}", shown(self.raw), unit.symbol()),
+            ))
+        }
+    }
+
+    fn cost(&self, mark: DecimalMark) -> Result<Option<f64>, ParseError> {
+        match self.number(mark, "")? {
+            Some(v) if v < 0.0 => Err(self.fail("a cost of 0 or more", &shown(self.raw))),
+            other => Ok(other),
+        }
+    }
+}
+
+/// Read a decimal number written with the profile's decimal mark.
+///
+/// Accepted: an optional sign, digits with at most one decimal mark, an optional
+/// exponent (`1,5e-3` or `1.5E-3`). Refused: thousands separators (the other mark, or
+/// spaces: "1.234,5" is ambiguous between locales), `nan`, `inf`, and values that
+/// overflow. The error text (appended to the expectation) says why.
+pub fn parse_number(text: &str, mark: DecimalMark) -> Result<f64, &'static str> {
+    let other = match mark {
+        DecimalMark::Point => ',',
+        DecimalMark::Comma => '.',
+    };
+    if text.contains(other) {
+        return Err(" and no thousands separator");
+    }
+    let bytes = text.as_bytes();
+    let mut i = 0;
+    let mut out = String::with_capacity(text.len());
+    if let Some(&s) = bytes.first() {
+        if s == b'+' || s == b'-' {
+            out.push(s as char);
+            i = 1;
+        }
+    }
+    let mut digits = 0;
+    let mut seen_mark = false;
+    while i < bytes.len() {
+        let b = bytes[i];
+        if b.is_ascii_digit() {
+            digits += 1;
+            out.push(b as char);
+        } else if b as char == mark.char() && !seen_mark {
+            seen_mark = true;
+            out.push('.');
+        } else {
+            break;
+        }
+        i += 1;
+    }
+    if digits == 0 {
+        return Err("");
+    }
+    if i < bytes.len() && (bytes[i] == b'e' || bytes[i] == b'E') {
+        out.push('e');
+        i += 1;
+        if i < bytes.len() && (bytes[i] == b'+' || bytes[i] == b'-') {
+            out.push(bytes[i] as char);
+            i += 1;
+        }
+        let start = i;
+        while i < bytes.len() && bytes[i].is_ascii_digit() {
+            out.push(bytes[i] as char);
+            i += 1;
+        }
+        if i == start {
+            return Err("");
+        }
+    }
+    if i != bytes.len() {
+        return Err("");
+    }
+    match out.parse::<f64>() {
+        Ok(v) if v.is_finite() => Ok(v),
+        _ => Err(" within the range of a double"),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn numbers_by_decimal_mark() {
+        assert_eq!(parse_number("12.5", DecimalMark::Point), Ok(12.5));
+        assert_eq!(parse_number("12,5", DecimalMark::Comma), Ok(12.5));
+        assert_eq!(parse_number("-1,5e-3", DecimalMark::Comma), Ok(-1.5e-3));
+        assert_eq!(parse_number("+.5", DecimalMark::Point), Ok(0.5));
+        assert_eq!(parse_number("5.", DecimalMark::Point), Ok(5.0));
+        assert!(parse_number("1.234,5", DecimalMark::Comma).is_err());
+        assert!(parse_number("1,234.5", DecimalMark::Point).is_err());
+        assert!(parse_number("1,234", DecimalMark::Point).is_err());
+        assert!(parse_number("1.234", DecimalMark::Comma).is_err());
+        assert!(parse_number("1 234", DecimalMark::Point).is_err());
+        assert!(parse_number("1.2.3", DecimalMark::Point).is_err());
+        assert!(parse_number("nan", DecimalMark::Point).is_err());
+        assert!(parse_number("inf", DecimalMark::Point).is_err());
+        assert!(parse_number("1e999", DecimalMark::Point).is_err());
+        assert!(parse_number("1e", DecimalMark::Point).is_err());
+        assert!(parse_number("-", DecimalMark::Point).is_err());
+        assert!(parse_number(".", DecimalMark::Point).is_err());
+        assert!(parse_number("0x10", DecimalMark::Point).is_err());
+    }
+
+    #[test]
+    fn shown_escapes_and_shortens() {
+        assert_eq!(shown("a\nb"), "\"a\\nb\"");
+        assert_eq!(shown(&"x".repeat(100)).chars().count(), 63);
+    }
+}

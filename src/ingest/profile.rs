@@ -1,0 +1,480 @@
+//! Export profiles: how one kind of instrument export is laid out.
+//!
+//! A profile lives in the configuration as `[profiles.NAME]`:
+//!
+//! ```toml
+//! [profiles.hplc_line2]
+//! kind = "cycles"
+//! delimiter = ";"
+//! decimal = ","
+//! encoding = "auto"
+//! skip_lines = 2
+//! datetime_format = "%d.%m.%Y %H:%M"
+//! columns.batch_id = { header = "Batch" }
+//! columns.started_at = { header = "Injected" }
+//! columns.conversion = { header = "Conversion", unit = "%" }
+//! columns.duration = { header = "Time", unit = "from-header" }
+//! ```
+//!
+//! Column keys are the [`Quantity`] keys plus `batch_id`, `lot`, `cycle_no` and
+//! `started_at` for cycle exports, and `lot`, `catalyst`, `metal`, `loading`,
+//! `charged_mass`, `received`, `supplier_lot`, `cost` for lot sheets.
+
+use std::collections::BTreeMap;
+
+use serde::Deserialize;
+
+use super::decode::Encoding;
+use super::record::Quantity;
+use super::units::{Dimension, Unit, dimension_of};
+
+/// The unit value that asks the parser to read the unit from the file's header cell.
+pub const UNIT_FROM_HEADER: &str = "from-header";
+
+/// Datetime layout used when a profile names none: ISO 8601 with a `T` or a space.
+pub const DEFAULT_DATETIME_FORMATS: [&str; 2] = ["%Y-%m-%dT%H:%M:%S", "%Y-%m-%d %H:%M:%S"];
+/// Date layout used for lot sheets when a profile names none.
+pub const DEFAULT_DATE_FORMAT: &str = "%Y-%m-%d";
+/// Plausible reaction temperatures, kelvin (common practice range for liquid-phase
+/// batch chemistry, from cryogenic work to high-temperature hydrotreating).
+pub const DEFAULT_TEMPERATURE_RANGE_K: [f64; 2] = [150.0, 800.0];
+
+/// What a file of this profile registers.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum ProfileKind {
+    /// Measurements of batches, joined into cycles by batch id.
+    Cycles,
+    /// A lot sheet registering catalyst lots.
+    Lots,
+}
+
+/// Field separator.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(try_from = "String")]
+pub enum Delimiter {
+    #[default]
+    Comma,
+    Semicolon,
+    Tab,
+}
+
+impl Delimiter {
+    pub fn byte(self) -> u8 {
+        match self {
+            Delimiter::Comma => b',',
+            Delimiter::Semicolon => b';',
+            Delimiter::Tab => b'\t',
+        }
+    }
+}
+
+impl TryFrom<String> for Delimiter {
+    type Error = String;
+    fn try_from(s: String) -> Result<Self, String> {
+        match s.as_str() {
+            "," => Ok(Delimiter::Comma),
+            ";" => Ok(Delimiter::Semicolon),
+            "tab" | "\t" => Ok(Delimiter::Tab),
+            other => Err(format!(
+                "delimiter: expected one of \",\", \";\", \"tab\"; found {other:?}"
+            )),
+        }
+    }
+}
+
+/// Decimal mark of numbers in the file.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(try_from = "String")]
+pub enum DecimalMark {
+    #[default]
+    Point,
+    Comma,
+}
+
+impl DecimalMark {
+    pub fn char(self) -> char {
+        match self {
+            DecimalMark::Point => '.',
+            DecimalMark::Comma => ',',
+        }
+    }
+}
+
+impl TryFrom<String> for DecimalMark {
+    type Error = String;
+    fn try_from(s: String) -> Result<Self, String> {
+        match s.as_str() {
+            "." => Ok(DecimalMark::Point),
+            "," => Ok(DecimalMark::Comma),
+            other => Err(format!("decimal: expected \".\" or \",\"; found {other:?}")),
+        }
+    }
+}
+
+/// Where one value sits in the file and in which unit it is written.
+#[derive(Debug, Clone, PartialEq, Eq, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ColumnSpec {
+    /// The header cell text (trimmed, case-insensitive match).
+    pub header: String,
+    /// A unit symbol, or `"from-header"`; only for measured values.
+    #[serde(default)]
+    pub unit: Option<String>,
+}
+
+/// One instrument kind's export layout.
+#[derive(Debug, Clone, PartialEq, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Profile {
+    pub kind: ProfileKind,
+    #[serde(default)]
+    pub delimiter: Delimiter,
+    #[serde(default)]
+    pub decimal: DecimalMark,
+    #[serde(default)]
+    pub encoding: Encoding,
+    /// Physical lines before the header row (instrument banners, sample info).
+    #[serde(default)]
+    pub skip_lines: usize,
+    /// chrono strftime layout of `started_at`; ISO 8601 when absent.
+    #[serde(default)]
+    pub datetime_format: Option<String>,
+    /// chrono strftime layout of `received` in lot sheets; `%Y-%m-%d` when absent.
+    #[serde(default)]
+    pub date_format: Option<String>,
+    /// Accepted reaction temperatures `[low, high]` in kelvin.
+    #[serde(default)]
+    pub temperature_range_k: Option<[f64; 2]>,
+    pub columns: BTreeMap<String, ColumnSpec>,
+}
+
+/// What a column key of a profile stands for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
+pub enum Field {
+    BatchId,
+    Lot,
+    CycleNo,
+    StartedAt,
+    Measured(Quantity),
+    Catalyst,
+    Metal,
+    Loading,
+    ChargedMass,
+    Received,
+    SupplierLot,
+    Cost,
+}
+
+/// How a field's cell is read.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum FieldType {
+    Text,
+    Integer,
+    DateTime,
+    Date,
+    /// A number with a unit of this dimension.
+    Measured(Dimension),
+    /// A number without unit (money).
+    Number,
+}
+
+const CYCLE_TEXT_KEYS: [&str; 4] = ["batch_id", "lot", "cycle_no", "started_at"];
+const LOT_KEYS: [&str; 8] = [
+    "lot",
+    "catalyst",
+    "metal",
+    "loading",
+    "charged_mass",
+    "received",
+    "supplier_lot",
+    "cost",
+];
+
+impl Field {
+    /// Resolve a column key for a profile kind.
+    pub fn from_key(kind: ProfileKind, key: &str) -> Option<Field> {
+        match kind {
+            ProfileKind::Cycles => match key {
+                "batch_id" => Some(Field::BatchId),
+                "lot" => Some(Field::Lot),
+                "cycle_no" => Some(Field::CycleNo),
+                "started_at" => Some(Field::StartedAt),
+                other => Quantity::from_key(other).map(Field::Measured),
+            },
+            ProfileKind::Lots => match key {
+                "lot" => Some(Field::Lot),
+                "catalyst" => Some(Field::Catalyst),
+                "metal" => Some(Field::Metal),
+                "loading" => Some(Field::Loading),
+                "charged_mass" => Some(Field::ChargedMass),
+                "received" => Some(Field::Received),
+                "supplier_lot" => Some(Field::SupplierLot),
+                "cost" => Some(Field::Cost),
+                _ => None,
+            },
+        }
+    }
+
+    pub fn field_type(self) -> FieldType {
+        match self {
+            Field::BatchId | Field::Lot | Field::Catalyst | Field::Metal | Field::SupplierLot => {
+                FieldType::Text
+            }
+            Field::CycleNo => FieldType::Integer,
+            Field::StartedAt => FieldType::DateTime,
+            Field::Received => FieldType::Date,
+            Field::Measured(q) => FieldType::Measured(dimension_of(q)),
+            Field::Loading => FieldType::Measured(Dimension::Ratio),
+            Field::ChargedMass => FieldType::Measured(Dimension::Mass),
+            Field::Cost => FieldType::Number,
+        }
+    }
+
+    /// Columns a profile of this kind must map.
+    pub fn required(kind: ProfileKind) -> &'static [&'static str] {
+        match kind {
+            ProfileKind::Cycles => &["batch_id"],
+            ProfileKind::Lots => &["lot", "catalyst", "metal", "loading", "charged_mass"],
+        }
+    }
+}
+
+/// The keys a kind accepts, for messages.
+fn known_keys(kind: ProfileKind) -> Vec<&'static str> {
+    match kind {
+        ProfileKind::Cycles => CYCLE_TEXT_KEYS
+            .iter()
+            .copied()
+            .chain(Quantity::ALL.iter().map(|q| q.key()))
+            .collect(),
+        ProfileKind::Lots => LOT_KEYS.to_vec(),
+    }
+}
+
+/// Check a strftime layout with chrono before any file depends on it.
+fn check_format(key: &str, fmt: &str) -> Result<(), String> {
+    if fmt.trim().is_empty() {
+        return Err(format!("{key}: must not be empty"));
+    }
+    chrono::format::StrftimeItems::new(fmt)
+        .parse()
+        .map(|_| ())
+        .map_err(|_| format!("{key}: not a valid chrono strftime layout: {fmt:?}"))
+}
+
+impl Profile {
+    /// Read a profile from TOML text (one `[profiles.NAME]` table's contents).
+    pub fn from_toml(text: &str) -> Result<Profile, String> {
+        let p: Profile = toml::from_str(text).map_err(|e| e.message().to_string())?;
+        p.validate()?;
+        Ok(p)
+    }
+
+    /// Check the profile; the message names the offending key relative to the profile
+    /// (the configuration loader prefixes `profiles.NAME.`).
+    pub fn validate(&self) -> Result<(), String> {
+        if self.decimal == DecimalMark::Comma && self.delimiter == Delimiter::Comma {
+            return Err(
+                "decimal: a decimal comma needs delimiter \";\" or \"tab\"; found delimiter \",\""
+                    .into(),
+            );
+        }
+        if self.skip_lines > 10_000 {
+            return Err(format!(
+                "skip_lines: expected at most 10000; found {}",
+                self.skip_lines
+            ));
+        }
+        if let Some(f) = &self.datetime_format {
+            check_format("datetime_format", f)?;
+        }
+        if let Some(f) = &self.date_format {
+            check_format("date_format", f)?;
+        }
+        if let Some([lo, hi]) = self.temperature_range_k {
+            if !(lo.is_finite() && hi.is_finite() && lo > 0.0 && lo < hi) {
+                return Err(format!(
+                    "temperature_range_k: expected [low, high] in kelvin with 0 < low < high; found [{lo}, {hi}]"
+                ));
+            }
+        }
+        let mut headers: Vec<(String, &str)> = Vec::new();
+        for (key, spec) in &self.columns {
+            let Some(field) = Field::from_key(self.kind, key) else {
+                return Err(format!(
+                    "columns.{key}: unknown column key for kind = \"{}\"; expected one of {}",
+                    self.kind_name(),
+                    known_keys(self.kind).join(", ")
+                ));
+            };
+            let header = spec.header.trim();
+            if header.is_empty() {
+                return Err(format!("columns.{key}.header: must not be empty"));
+            }
+            if header.chars().any(char::is_control) {
+                return Err(format!(
+                    "columns.{key}.header: must not contain control characters"
+                ));
+            }
+            let folded = header.to_lowercase();
+            if let Some((_, other)) = headers.iter().find(|(h, _)| *h == folded) {
+                return Err(format!(
+                    "columns.{key}.header: {header:?} is also the header of columns.{other}"
+                ));
+            }
+            headers.push((folded, key));
+            match (field.field_type(), &spec.unit) {
+                (FieldType::Measured(dim), None) => {
+                    return Err(format!(
+                        "columns.{key}.unit: required; expected {} or \"{UNIT_FROM_HEADER}\"",
+                        dim.expected_units()
+                    ));
+                }
+                (FieldType::Measured(dim), Some(u)) => {
+                    if u != UNIT_FROM_HEADER {
+                        match Unit::parse(u) {
+                            Some(unit) if unit.dimension() == dim => {}
+                            _ => {
+                                return Err(format!(
+                                    "columns.{key}.unit: expected {} or \"{UNIT_FROM_HEADER}\"; found {u:?}",
+                                    dim.expected_units()
+                                ));
+                            }
+                        }
+                    }
+                }
+                (_, Some(u)) => {
+                    return Err(format!(
+                        "columns.{key}.unit: this column takes no unit; found {u:?}"
+                    ));
+                }
+                (_, None) => {}
+            }
+        }
+        for req in Field::required(self.kind) {
+            if !self.columns.contains_key(*req) {
+                return Err(format!(
+                    "columns.{req}: required for kind = \"{}\"",
+                    self.kind_name()
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    fn kind_name(&self) -> &'static str {
+        match self.kind {
+            ProfileKind::Cycles => "cycles",
+            ProfileKind::Lots => "lots",
+        }
+    }
+
+    /// The accepted temperature range, kelvin.
+    pub fn temperature_range(&self) -> [f64; 2] {
+        self.temperature_range_k
+            .unwrap_or(DEFAULT_TEMPERATURE_RANGE_K)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const BASE: &str = r#"
+kind = "cycles"
+columns.batch_id = { header = "Batch" }
+"#;
+
+    fn with(extra: &str) -> Result<Profile, String> {
+        Profile::from_toml(&format!("{BASE}{extra}"))
+    }
+
+    #[test]
+    fn minimal_profile_has_defaults() {
+        let p = with("").unwrap();
+        assert_eq!(p.delimiter, Delimiter::Comma);
+        assert_eq!(p.decimal, DecimalMark::Point);
+        assert_eq!(p.encoding, Encoding::Auto);
+        assert_eq!(p.skip_lines, 0);
+    }
+
+    #[test]
+    fn wrong_unit_dimension_names_the_key() {
+        let e = with("columns.conversion = { header = \"X\", unit = \"mol\" }\n").unwrap_err();
+        assert_eq!(
+            e,
+            "columns.conversion.unit: expected one of %, fraction or \"from-header\"; found \"mol\""
+        );
+    }
+
+    #[test]
+    fn metal_in_product_accepts_trace_units_only() {
+        for ok in ["ppm", "µg/g", "ug/g", "mg/kg", "from-header"] {
+            with(&format!(
+                "columns.metal_in_product = {{ header = \"Pd\", unit = \"{ok}\" }}\n"
+            ))
+            .unwrap();
+        }
+        let e = with("columns.metal_in_product = { header = \"Pd\", unit = \"%\" }\n").unwrap_err();
+        assert!(e.starts_with("columns.metal_in_product.unit: expected one of ppm, µg/g, mg/kg"));
+    }
+
+    #[test]
+    fn unknown_keys_are_refused() {
+        let e = with("columns.colour = { header = \"c\" }\n").unwrap_err();
+        assert!(e.starts_with("columns.colour: unknown column key"), "{e}");
+        let e = with("speed = 3\n").unwrap_err();
+        assert!(e.contains("speed"), "{e}");
+        let e = with("columns.lot = { header = \"L\", width = 3 }\n").unwrap_err();
+        assert!(e.contains("width"), "{e}");
+    }
+
+    #[test]
+    fn text_column_takes_no_unit_and_unit_is_required() {
+        let e = with("columns.lot = { header = \"L\", unit = \"g\" }\n").unwrap_err();
+        assert_eq!(
+            e,
+            "columns.lot.unit: this column takes no unit; found \"g\""
+        );
+        let e = with("columns.duration = { header = \"t\" }\n").unwrap_err();
+        assert_eq!(
+            e,
+            "columns.duration.unit: required; expected one of s, min, h or \"from-header\""
+        );
+    }
+
+    #[test]
+    fn delimiters_and_conflicts() {
+        assert_eq!(
+            with("delimiter = \"tab\"\n").unwrap().delimiter,
+            Delimiter::Tab
+        );
+        assert_eq!(
+            with("delimiter = \"\\t\"\n").unwrap().delimiter,
+            Delimiter::Tab
+        );
+        assert!(with("delimiter = \"|\"\n").is_err());
+        let e = with("decimal = \",\"\n").unwrap_err();
+        assert!(e.starts_with("decimal:"), "{e}");
+        with("decimal = \",\"\ndelimiter = \";\"\n").unwrap();
+    }
+
+    #[test]
+    fn required_columns_and_duplicate_headers() {
+        let e = Profile::from_toml("kind = \"cycles\"\ncolumns = {}\n").unwrap_err();
+        assert_eq!(e, "columns.batch_id: required for kind = \"cycles\"");
+        let e = Profile::from_toml("kind = \"lots\"\ncolumns.lot = { header = \"Lot\" }\n")
+            .unwrap_err();
+        assert_eq!(e, "columns.catalyst: required for kind = \"lots\"");
+        let e = with("columns.lot = { header = \" batch \" }\n").unwrap_err();
+        assert!(e.starts_with("columns.lot.header:"), "{e}");
+    }
+
+    #[test]
+    fn bad_datetime_format() {
+        let e = with("datetime_format = \"%Q-%\"\n").unwrap_err();
+        assert!(e.starts_with("datetime_format:"), "{e}");
+        with("datetime_format = \"%d.%m.%Y %H:%M\"\n").unwrap();
+    }
+}

@@ -1,1 +1,19 @@
-//! (module under construction)
+//! The fitting engine and the deactivation science (DESIGN.md §4). Pure: no I/O, no clock.
+//!
+//! - [`lm`]: Levenberg–Marquardt with Moré scaling, bounds and geodesic acceleration.
+//! - [`models`]: the deactivation models, their ids, parameter names and derivatives.
+//! - [`start`]: automatic starting values (rate grid with linear amplitudes).
+//! - [`engine`]: fitting one named model and the statistics of the optimum.
+//! - [`choice`]: AICc and the "simplest within ΔAICc < 2" rule.
+
+pub mod choice;
+pub mod engine;
+pub mod error;
+pub mod lm;
+pub mod models;
+pub mod start;
+
+pub use engine::{FitOptions, FitResult, fit_model};
+pub use error::{FitError, SeriesError};
+pub use lm::{Curve, FnCurve, LmOptions, LmOutcome, StopReason, levenberg_marquardt};
+pub use models::ModelId;

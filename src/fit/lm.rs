@@ -530,9 +530,9 @@ mod tests {
         let c = FnCurve::new(2, |x, p: &[f64]| p[0] + p[1] * x);
         let out = levenberg_marquardt(&c, &x, &y, None, &[0.0, 0.0], &LmOptions::default())
             .expect("valid problem");
-        // OLS: slope = Sxy/Sxx = 19.4/10, intercept = ȳ − slope·x̄.
-        assert!((out.params[1] - 1.94).abs() < 1e-10, "{:?}", out.params);
-        assert!((out.params[0] - (5.02 - 1.94 * 2.0)).abs() < 1e-10);
+        // OLS: slope = Sxy/Sxx = 19.6/10, intercept = ȳ − slope·x̄ = 5.02 − 3.92.
+        assert!((out.params[1] - 1.96).abs() < 1e-10, "{:?}", out.params);
+        assert!((out.params[0] - 1.10).abs() < 1e-10);
         assert!(out.reason.is_converged());
     }
 

@@ -5,10 +5,16 @@
 //! - [`start`]: automatic starting values (rate grid with linear amplitudes).
 //! - [`engine`]: fitting one named model and the statistics of the optimum.
 //! - [`choice`]: AICc and the "simplest within ΔAICc < 2" rule.
+//! - [`forecast`]: crossing of the replacement criterion, delta-method interval, lifetime TON.
+//! - [`abrupt`]: one-step-ahead prediction check and Page's CUSUM.
+//! - [`economics`]: the economic replacement point.
 
+pub mod abrupt;
 pub mod choice;
 pub mod engine;
+pub mod economics;
 pub mod error;
+pub mod forecast;
 pub mod lm;
 pub mod models;
 pub mod start;

@@ -8,9 +8,13 @@
 //! - [`forecast`]: crossing of the replacement criterion, delta-method interval, lifetime TON.
 //! - [`abrupt`]: one-step-ahead prediction check and Page's CUSUM.
 //! - [`economics`]: the economic replacement point.
+//! - [`analysis`]: [`analyse`], the one call for the shell, and its serialisable result.
+//! - [`cli`]: CSV series reader, model/start argument parsing, JSON and text output.
 
 pub mod abrupt;
+pub mod analysis;
 pub mod choice;
+pub mod cli;
 pub mod engine;
 pub mod economics;
 pub mod error;
@@ -23,3 +27,7 @@ pub use engine::{FitOptions, FitResult, fit_model};
 pub use error::{FitError, SeriesError};
 pub use lm::{Curve, FnCurve, LmOptions, LmOutcome, StopReason, levenberg_marquardt};
 pub use models::ModelId;
+pub use analysis::{AnalysisOptions, ENGINE_VERSION, LotAnalysis, LotSeries, analyse};
+pub use cli::{ModelArg, fit_json, parse_model_arg, parse_start_arg, read_series_csv, render_text};
+pub use economics::EconomicInputs;
+pub use forecast::{Criterion, Forecast, ForecastStatus, forecast};

@@ -1,1 +1,33 @@
-//! (module under construction)
+//! The fitting engine and the deactivation science (DESIGN.md §4). Pure: no I/O, no clock.
+//!
+//! - [`lm`]: Levenberg–Marquardt with Moré scaling, bounds and geodesic acceleration.
+//! - [`models`]: the deactivation models, their ids, parameter names and derivatives.
+//! - [`start`]: automatic starting values (rate grid with linear amplitudes).
+//! - [`engine`]: fitting one named model and the statistics of the optimum.
+//! - [`choice`]: AICc and the "simplest within ΔAICc < 2" rule.
+//! - [`forecast`]: crossing of the replacement criterion, delta-method interval, lifetime TON.
+//! - [`abrupt`]: one-step-ahead prediction check and Page's CUSUM.
+//! - [`economics`]: the economic replacement point.
+//! - [`analysis`]: [`analyse`], the one call for the shell, and its serialisable result.
+//! - [`cli`]: CSV series reader, model/start argument parsing, JSON and text output.
+
+pub mod abrupt;
+pub mod analysis;
+pub mod choice;
+pub mod cli;
+pub mod engine;
+pub mod economics;
+pub mod error;
+pub mod forecast;
+pub mod lm;
+pub mod models;
+pub mod start;
+
+pub use engine::{FitOptions, FitResult, fit_model};
+pub use error::{FitError, SeriesError};
+pub use lm::{Curve, FnCurve, LmOptions, LmOutcome, StopReason, levenberg_marquardt};
+pub use models::ModelId;
+pub use analysis::{AnalysisOptions, ENGINE_VERSION, LotAnalysis, LotSeries, analyse};
+pub use cli::{ModelArg, fit_json, parse_model_arg, parse_start_arg, read_series_csv, render_text};
+pub use economics::EconomicInputs;
+pub use forecast::{Criterion, Forecast, ForecastStatus, forecast};

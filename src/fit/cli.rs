@@ -1,0 +1,436 @@
+//! Pieces for the command line: reading a two-column series, parsing model and start
+//! arguments, JSON of a fit and the text rendering of an analysis.
+
+use serde_json::{Map, Value, json};
+
+use super::analysis::LotAnalysis;
+use super::engine::FitResult;
+use super::error::{FitError, SeriesError};
+use super::forecast::{Forecast, ForecastStatus, NotReachedWhy};
+use super::models::ModelId;
+
+/// A model argument: a model id, or `auto` for the AICc choice.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ModelArg {
+    Auto,
+    Model(ModelId),
+}
+
+/// Parses a model argument (`auto` or a model id).
+pub fn parse_model_arg(s: &str) -> Result<ModelArg, FitError> {
+    let t = s.trim();
+    if t == "auto" {
+        return Ok(ModelArg::Auto);
+    }
+    ModelId::from_id(t).map(ModelArg::Model)
+}
+
+/// Parses one start value `name=number`.
+pub fn parse_start_arg(s: &str) -> Result<(String, f64), FitError> {
+    let (name, value) = s
+        .split_once('=')
+        .ok_or_else(|| FitError::BadStartArg(s.to_string()))?;
+    let v: f64 = value
+        .trim()
+        .parse()
+        .map_err(|_| FitError::BadStartArg(s.to_string()))?;
+    let name = name.trim();
+    if name.is_empty() || !v.is_finite() {
+        return Err(FitError::BadStartArg(s.to_string()));
+    }
+    Ok((name.to_string(), v))
+}
+
+/// Reads CSV text with a header row, x in the first column and y in the second.
+pub fn read_series_csv(text: &str) -> Result<(Vec<f64>, Vec<f64>), SeriesError> {
+    if text.trim().is_empty() {
+        return Err(SeriesError::Empty);
+    }
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(true)
+        .flexible(true)
+        .trim(csv::Trim::All)
+        .from_reader(text.as_bytes());
+    let (mut xs, mut ys) = (Vec::new(), Vec::new());
+    for (i, rec) in rdr.records().enumerate() {
+        let fallback_line = i + 2;
+        let rec = rec.map_err(|e| SeriesError::Malformed {
+            line: e
+                .position()
+                .map(|p| p.line() as usize)
+                .unwrap_or(fallback_line),
+            message: e.to_string(),
+        })?;
+        let line = rec
+            .position()
+            .map(|p| p.line() as usize)
+            .unwrap_or(fallback_line);
+        if rec.iter().all(|f| f.is_empty()) {
+            continue;
+        }
+        if rec.len() < 2 {
+            return Err(SeriesError::MissingColumn {
+                line,
+                found: rec.len(),
+            });
+        }
+        let num = |col: usize| -> Result<f64, SeriesError> {
+            let t = &rec[col];
+            t.parse::<f64>()
+                .ok()
+                .filter(|v| v.is_finite())
+                .ok_or_else(|| SeriesError::BadNumber {
+                    line,
+                    column: col + 1,
+                    text: t.chars().take(40).collect(),
+                })
+        };
+        xs.push(num(0)?);
+        ys.push(num(1)?);
+    }
+    if xs.is_empty() {
+        return Err(SeriesError::NoData);
+    }
+    Ok((xs, ys))
+}
+
+fn status_word(s: ForecastStatus) -> &'static str {
+    match s {
+        ForecastStatus::Ahead => "ahead",
+        ForecastStatus::ReachedAlready => "reached-already",
+        ForecastStatus::NotReached => "not-reached",
+        ForecastStatus::UnboundedInterval => "unbounded-interval",
+    }
+}
+
+fn why_words(w: NotReachedWhy) -> &'static str {
+    match w {
+        NotReachedWhy::AsymptoteAbove => "activity levels off above the criterion",
+        NotReachedWhy::SlopeWrongSign => "activity is not falling",
+        NotReachedWhy::BeyondHorizon => "not within a million spans of the data",
+    }
+}
+
+fn num(v: Option<f64>) -> Value {
+    v.filter(|v| v.is_finite()).map_or(Value::Null, |v| json!(v))
+}
+
+/// JSON of a fit (and forecast): keys model, n, params, std_errors, rss, dof, aicc,
+/// converged, reason, iterations and, when given, forecast {x, lower, upper, status}.
+pub fn fit_json(fit: &FitResult, forecast: Option<&Forecast>) -> Value {
+    let mut params = Map::new();
+    let mut ses = Map::new();
+    for (j, name) in fit.param_names.iter().enumerate() {
+        params.insert(name.clone(), num(fit.params.get(j).copied()));
+        ses.insert(
+            name.clone(),
+            num(fit.std_errors.as_ref().and_then(|s| s.get(j).copied())),
+        );
+    }
+    let mut v = json!({
+        "model": fit.model.id(),
+        "n": fit.n,
+        "params": params,
+        "std_errors": ses,
+        "rss": num(Some(fit.rss)),
+        "sigma": num(fit.sigma),
+        "dof": fit.dof,
+        "aicc": num(fit.aicc),
+        "converged": fit.converged,
+        "reason": fit.reason.describe(),
+        "iterations": fit.iterations,
+    });
+    if let (Some(fc), Value::Object(m)) = (forecast, &mut v) {
+        m.insert(
+            "forecast".into(),
+            json!({
+                "x": num(fc.x),
+                "lower": num(fc.lower),
+                "upper": num(fc.upper),
+                "status": status_word(fc.status),
+                "threshold": num(Some(fc.threshold)),
+                "confidence": fc.confidence,
+                "why_not": fc.why_not.map(why_words),
+                "lifetime_ton": num(fc.lifetime_ton),
+            }),
+        );
+    }
+    v
+}
+
+const BARS: [char; 8] = ['▁', '▂', '▃', '▄', '▅', '▆', '▇', '█'];
+
+/// A sparkline of values on a shared scale [lo, hi]; a gap for missing values.
+pub fn sparkline(values: &[Option<f64>], lo: f64, hi: f64) -> String {
+    values
+        .iter()
+        .map(|v| match v {
+            Some(v) if v.is_finite() => {
+                let f = if hi > lo { (v - lo) / (hi - lo) } else { 0.5 };
+                let i = (f.clamp(0.0, 1.0) * 7.0).round() as usize;
+                BARS[i.min(7)]
+            }
+            _ => ' ',
+        })
+        .collect()
+}
+
+fn fmt_opt(v: Option<f64>) -> String {
+    v.filter(|v| v.is_finite())
+        .map_or_else(|| "—".to_string(), |v| format!("{v:.4}"))
+}
+
+fn fmt_g(v: f64) -> String {
+    if v != 0.0 && (v.abs() < 1e-3 || v.abs() >= 1e5) {
+        format!("{v:.4e}")
+    } else {
+        format!("{v:.5}")
+    }
+}
+
+/// A plain-text account of an analysis: ranking, parameters with intervals, forecast,
+/// abrupt-loss verdict and sparklines of the activity and the fit.
+pub fn render_text(a: &LotAnalysis) -> String {
+    use std::fmt::Write;
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "{} points ({} fitted, {} censored), engine {}",
+        a.n_points, a.n_fitted, a.censored.count, a.engine_version
+    );
+    let _ = writeln!(s, "\nModel ranking (AICc; simplest within ΔAICc < 2 is chosen)");
+    let _ = writeln!(
+        s,
+        "  {:<22} {:>3} {:>12} {:>10} {:>7}  note",
+        "model", "p", "RSS", "AICc", "ΔAICc"
+    );
+    for r in &a.ranking {
+        let mark = if r.chosen { "*" } else { " " };
+        let _ = writeln!(
+            s,
+            "{mark} {:<22} {:>3} {:>12} {:>10} {:>7}  {}",
+            r.model.id(),
+            r.model.n_params(),
+            r.rss.map_or_else(|| "—".to_string(), fmt_g),
+            r.aicc.map_or_else(|| "—".to_string(), |v| format!("{v:.2}")),
+            r.delta_aicc
+                .map_or_else(|| "—".to_string(), |v| format!("{v:.2}")),
+            r.why_not.as_deref().unwrap_or("")
+        );
+    }
+    let Some(fit) = &a.fit else {
+        let _ = writeln!(s, "\nNo model chosen.");
+        for n in &a.notes {
+            let _ = writeln!(s, "note: {n}");
+        }
+        return s;
+    };
+    let fc = a.forecast.as_ref();
+    let conf = fc.map_or(0.9, |f| f.confidence);
+    let t = super::forecast::t_quantile(conf, fit.dof);
+    let _ = writeln!(
+        s,
+        "\nChosen: {}  y = {}\n  parameters ({:.0} % intervals, t with {} dof):",
+        fit.model.id(),
+        fit.model.formula(),
+        conf * 100.0,
+        fit.dof
+    );
+    for (j, name) in fit.param_names.iter().enumerate() {
+        let v = fit.params[j];
+        let se = fit.std_errors.as_ref().map(|e| e[j]);
+        let interval = match (se, t) {
+            (Some(se), Some(t)) => format!("[{}, {}]", fmt_g(v - t * se), fmt_g(v + t * se)),
+            _ => "[—]".to_string(),
+        };
+        let _ = writeln!(
+            s,
+            "    {:<8} {:>14} ± {:<12} {}",
+            name,
+            fmt_g(v),
+            se.map_or_else(|| "—".to_string(), fmt_g),
+            interval
+        );
+    }
+    if let Some(fc) = fc {
+        let _ = write!(
+            s,
+            "\nForecast (criterion y = {}): {}",
+            fmt_g(fc.threshold),
+            status_word(fc.status)
+        );
+        match fc.x {
+            Some(x) => {
+                let _ = writeln!(
+                    s,
+                    ", x* = {:.2}, interval [{}, {}]",
+                    x,
+                    fmt_opt(fc.lower),
+                    fc.upper
+                        .map_or_else(|| "unbounded".to_string(), |u| format!("{u:.4}"))
+                );
+            }
+            None => {
+                let _ = writeln!(s, " ({})", fc.why_not.map_or("", why_words));
+            }
+        }
+        if let Some(t) = fc.lifetime_ton {
+            let _ = writeln!(s, "  lifetime TON at x*: {t:.0}");
+        }
+    }
+    if let Some(ab) = &a.abrupt {
+        let verdict = if ab.suspected { "SUSPECTED" } else { "not indicated" };
+        let _ = writeln!(s, "\nAbrupt loss: {verdict}");
+        if let Some(p) = &ab.prediction {
+            let _ = writeln!(
+                s,
+                "  newest point x = {}: observed {} vs predicted {} (lower limit {}, z = {:.2})",
+                p.x,
+                fmt_g(p.observed),
+                fmt_g(p.predicted),
+                fmt_g(p.lower),
+                p.z
+            );
+        }
+        if let Some(c) = &ab.cusum {
+            let _ = writeln!(
+                s,
+                "  CUSUM (k = {}, h = {}): last {:.2}, max {:.2}, first alarm {}",
+                c.k,
+                c.h,
+                c.last,
+                c.max,
+                c.first_alarm
+                    .map_or_else(|| "none".to_string(), |i| format!("at point {}", i + 1))
+            );
+        }
+    }
+    if let Some(e) = &a.economics {
+        let _ = writeln!(
+            s,
+            "\nEconomic replacement: after {} cycles, average cost {}{}",
+            e.best_cycles,
+            fmt_g(e.best_average_cost),
+            if e.at_horizon {
+                " (at the horizon: no interior minimum)"
+            } else {
+                ""
+            }
+        );
+    }
+    if !a.censored.above_fit.is_empty() {
+        let _ = writeln!(
+            s,
+            "\nWarning: censored points above the fitted curve at x = {:?}",
+            a.censored.above_fit
+        );
+    }
+    let obs: Vec<Option<f64>> = a.observed.iter().map(|p| Some(p.1)).collect();
+    let fitted: Vec<Option<f64>> = a
+        .observed
+        .iter()
+        .map(|p| Some(fit.predict(p.0)))
+        .collect();
+    let all = obs.iter().chain(&fitted).flatten().filter(|v| v.is_finite());
+    let (lo, hi) = all.fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), &v| {
+        (l.min(v), h.max(v))
+    });
+    let _ = writeln!(s, "\n  activity {}", sparkline(&obs, lo, hi));
+    let _ = writeln!(s, "  fit      {}", sparkline(&fitted, lo, hi));
+    for n in &a.notes {
+        let _ = writeln!(s, "note: {n}");
+    }
+    s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::fit::analysis::{AnalysisOptions, LotSeries, analyse};
+    use crate::fit::{FitOptions, fit_model};
+
+    #[test]
+    fn csv_reads_and_errors_name_line_and_column() {
+        let (x, y) = read_series_csv("cycle,activity\n1,1.0\n2, 0.9\n\n3,0.8\n").expect("ok");
+        assert_eq!(x, vec![1.0, 2.0, 3.0]);
+        assert_eq!(y, vec![1.0, 0.9, 0.8]);
+        assert_eq!(
+            read_series_csv("c,a\n1,1.0\n2,abc\n"),
+            Err(SeriesError::BadNumber {
+                line: 3,
+                column: 2,
+                text: "abc".into()
+            })
+        );
+        assert_eq!(
+            read_series_csv("c,a\n1,1\n7\n"),
+            Err(SeriesError::MissingColumn { line: 3, found: 1 })
+        );
+        assert_eq!(read_series_csv(""), Err(SeriesError::Empty));
+        assert_eq!(read_series_csv("c,a\n"), Err(SeriesError::NoData));
+        assert!(matches!(
+            read_series_csv("c,a\nNaN,1\n"),
+            Err(SeriesError::BadNumber { column: 1, .. })
+        ));
+    }
+
+    #[test]
+    fn model_and_start_args() {
+        assert_eq!(parse_model_arg("auto"), Ok(ModelArg::Auto));
+        assert_eq!(
+            parse_model_arg("two-site"),
+            Ok(ModelArg::Model(ModelId::TwoSite))
+        );
+        assert!(parse_model_arg("exp").is_err());
+        assert_eq!(parse_start_arg("kd=0.1"), Ok(("kd".into(), 0.1)));
+        assert!(parse_start_arg("kd").is_err());
+        assert!(parse_start_arg("kd=x").is_err());
+        assert!(parse_start_arg("=1").is_err());
+    }
+
+    #[test]
+    fn json_has_the_promised_keys() {
+        let x: Vec<f64> = (1..=8).map(f64::from).collect();
+        let y: Vec<f64> = x.iter().map(|&v| 1.0 - 0.05 * v + 0.001 * (v % 2.0)).collect();
+        let f = fit_model(ModelId::Linear, &x, &y, &FitOptions::default()).expect("fit");
+        let fc = crate::fit::forecast::forecast(
+            &f,
+            crate::fit::forecast::Criterion::Absolute(0.5),
+            0.9,
+            1.0,
+            8.0,
+        );
+        let v = fit_json(&f, Some(&fc));
+        for k in ["model", "n", "params", "std_errors", "rss", "dof", "aicc", "converged"] {
+            assert!(v.get(k).is_some(), "missing {k}");
+        }
+        assert_eq!(v["model"], "linear");
+        assert!(v["params"]["r"].as_f64().is_some_and(|r| (r - 0.05).abs() < 0.01));
+        assert_eq!(v["forecast"]["status"], "ahead");
+        assert!(v["forecast"]["x"].as_f64().is_some());
+    }
+
+    #[test]
+    fn text_rendering_contains_the_sections() {
+        let x: Vec<f64> = (1..=12).map(f64::from).collect();
+        let y: Vec<f64> = x.iter().map(|&v| (-0.06 * v).exp()).collect();
+        let a = analyse(
+            &LotSeries {
+                x,
+                y,
+                ..LotSeries::default()
+            },
+            &AnalysisOptions::default(),
+        );
+        let t = render_text(&a);
+        for part in ["Model ranking", "Chosen:", "Forecast", "Abrupt loss", "activity"] {
+            assert!(t.contains(part), "missing {part} in\n{t}");
+        }
+        assert!(t.chars().any(|c| BARS.contains(&c)));
+    }
+
+    #[test]
+    fn sparkline_scales() {
+        assert_eq!(sparkline(&[Some(0.0), Some(1.0), None], 0.0, 1.0), "▁█ ");
+    }
+}

@@ -1,0 +1,144 @@
+//! Fitting a named model: start values, the engine, and the statistics of the optimum.
+
+use serde::{Deserialize, Serialize};
+
+use super::choice::aicc;
+use super::error::FitError;
+use super::lm::{LmOptions, LmOutcome, StopReason, levenberg_marquardt};
+use super::models::ModelId;
+use super::start::start_values;
+
+/// How to fit one model. Start values and bounds are given by parameter name.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct FitOptions {
+    /// Weights wᵢ (e.g. 1/σᵢ²); None for an unweighted fit.
+    pub weights: Option<Vec<f64>>,
+    /// Start values by name; parameters not named get automatic starts.
+    pub start: Vec<(String, f64)>,
+    /// Bounds by name: (name, lower, upper).
+    pub bounds: Vec<(String, f64, f64)>,
+    /// Engine tuning.
+    pub lm: LmOptions,
+}
+
+/// A fitted model with the statistics DESIGN.md §4 asks for.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FitResult {
+    pub model: ModelId,
+    pub param_names: Vec<String>,
+    pub params: Vec<f64>,
+    /// √diag(Σ); None when JᵀJ is singular or there are no degrees of freedom.
+    pub std_errors: Option<Vec<f64>>,
+    /// Σ = s²·(JᵀJ)⁻¹ with s² = RSS/(n − p).
+    pub covariance: Option<Vec<Vec<f64>>>,
+    pub rss: f64,
+    /// Residual standard deviation s = √(RSS/(n − p)).
+    pub sigma: Option<f64>,
+    pub n: usize,
+    pub dof: usize,
+    /// None when n ≤ p + 1 (AICc undefined).
+    pub aicc: Option<f64>,
+    pub converged: bool,
+    pub reason: StopReason,
+    pub iterations: usize,
+}
+
+impl FitResult {
+    /// Fitted y at x.
+    pub fn predict(&self, x: f64) -> f64 {
+        self.model.eval(x, &self.params)
+    }
+
+    /// Parameter value by name.
+    pub fn param(&self, name: &str) -> Option<f64> {
+        let i = self.param_names.iter().position(|n| n == name)?;
+        self.params.get(i).copied()
+    }
+
+    /// Variance of the fitted mean at x, gᵀΣg with g = ∂y/∂θ (delta method).
+    pub fn mean_variance(&self, x: f64) -> Option<f64> {
+        let cov = self.covariance.as_ref()?;
+        let mut g = vec![0.0; self.params.len()];
+        self.model.grad(x, &self.params, &mut g);
+        let v = quad_form(cov, &g);
+        (v.is_finite() && v >= 0.0).then_some(v)
+    }
+}
+
+/// gᵀΣg.
+pub fn quad_form(cov: &[Vec<f64>], g: &[f64]) -> f64 {
+    let mut s = 0.0;
+    for (i, gi) in g.iter().enumerate() {
+        for (j, gj) in g.iter().enumerate() {
+            s += gi * cov[i][j] * gj;
+        }
+    }
+    s
+}
+
+/// Standard errors and covariance from an engine outcome: Σ = s²·(JᵀJ)⁻¹, s² = RSS/(n − p).
+pub fn covariance_of(out: &LmOutcome, n: usize) -> (Option<Vec<Vec<f64>>>, Option<Vec<f64>>) {
+    let p = out.params.len();
+    if n <= p {
+        return (None, None);
+    }
+    let s2 = out.rss / (n - p) as f64;
+    let Some(inv) = out.inv_jtj.as_ref() else {
+        return (None, None);
+    };
+    let cov: Vec<Vec<f64>> = inv
+        .iter()
+        .map(|row| row.iter().map(|v| v * s2).collect())
+        .collect();
+    let se: Vec<f64> = (0..p).map(|j| cov[j][j].sqrt()).collect();
+    if se.iter().all(|v| v.is_finite()) {
+        (Some(cov), Some(se))
+    } else {
+        (None, None)
+    }
+}
+
+/// Fits `model` to (x, y).
+pub fn fit_model(
+    model: ModelId,
+    x: &[f64],
+    y: &[f64],
+    opts: &FitOptions,
+) -> Result<FitResult, FitError> {
+    let p = model.n_params();
+    let mut start = start_values(model, x, y);
+    for (name, v) in &opts.start {
+        start[model.param_index(name)?] = *v;
+    }
+    let mut lm = opts.lm.clone();
+    if !opts.bounds.is_empty() {
+        let mut b = vec![(f64::NEG_INFINITY, f64::INFINITY); p];
+        for (name, lo, hi) in &opts.bounds {
+            b[model.param_index(name)?] = (*lo, *hi);
+        }
+        lm.bounds = b;
+    }
+    let out = levenberg_marquardt(&model, x, y, opts.weights.as_deref(), &start, &lm)?;
+    Ok(result_from(model, &out, x.len()))
+}
+
+/// Builds a [`FitResult`] from an engine outcome.
+pub fn result_from(model: ModelId, out: &LmOutcome, n: usize) -> FitResult {
+    let p = out.params.len();
+    let (covariance, std_errors) = covariance_of(out, n);
+    FitResult {
+        model,
+        param_names: model.param_names().iter().map(|s| s.to_string()).collect(),
+        params: out.params.clone(),
+        std_errors,
+        covariance,
+        rss: out.rss,
+        sigma: (n > p).then(|| (out.rss / (n - p) as f64).sqrt()),
+        n,
+        dof: n.saturating_sub(p),
+        aicc: aicc(n, p, out.rss),
+        converged: out.reason.is_converged(),
+        reason: out.reason,
+        iterations: out.iterations,
+    }
+}

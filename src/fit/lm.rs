@@ -1,0 +1,574 @@
+//! Levenberg–Marquardt nonlinear least squares.
+//!
+//! The damped Gauss–Newton step solves (JᵀJ + λ·D²)·δ = Jᵀr, with D Marquardt's diagonal
+//! scaling kept as the running maximum of the column norms of J (Moré 1978), so the method
+//! does not depend on the units of the parameters. λ follows Nielsen's gain-ratio update
+//! (Madsen, Nielsen & Tingleff 2004, "Methods for non-linear least squares problems").
+//! Optional geodesic acceleration (Transtrum & Sethna 2012) helps in long curved valleys.
+//! Bounds are kept by projecting each trial point onto the box.
+//!
+//! Everything here is pure: the caller hands in data and a [`Curve`], and gets a
+//! [`LmOutcome`] back.
+
+use nalgebra::{DMatrix, DVector};
+
+use super::error::FitError;
+
+/// A model curve y = f(x; θ) that the engine can fit.
+pub trait Curve {
+    /// Number of parameters θ.
+    fn n_params(&self) -> usize;
+    /// y at x for parameters p.
+    fn value(&self, x: f64, p: &[f64]) -> f64;
+    /// Whether [`Curve::gradient`] is analytic; if not, central differences are used.
+    fn has_gradient(&self) -> bool {
+        false
+    }
+    /// ∂y/∂θ at x into `out` (only called when [`Curve::has_gradient`] is true).
+    fn gradient(&self, _x: f64, _p: &[f64], _out: &mut [f64]) {}
+}
+
+/// A user model from a closure, differentiated numerically (central differences).
+pub struct FnCurve<F: Fn(f64, &[f64]) -> f64> {
+    n_params: usize,
+    f: F,
+}
+
+impl<F: Fn(f64, &[f64]) -> f64> FnCurve<F> {
+    /// Wraps `f(x, θ)` with `n_params` parameters.
+    pub fn new(n_params: usize, f: F) -> Self {
+        Self { n_params, f }
+    }
+}
+
+impl<F: Fn(f64, &[f64]) -> f64> Curve for FnCurve<F> {
+    fn n_params(&self) -> usize {
+        self.n_params
+    }
+    fn value(&self, x: f64, p: &[f64]) -> f64 {
+        (self.f)(x, p)
+    }
+}
+
+/// ∂y/∂θ by central differences; the step cbrt(ε)·max(|θ|, 1e-8·scale) balances truncation
+/// and rounding error for a second-order formula.
+pub fn numeric_gradient(curve: &dyn Curve, x: f64, p: &[f64], out: &mut [f64]) {
+    let mut q = p.to_vec();
+    let h0 = f64::EPSILON.cbrt();
+    for j in 0..p.len() {
+        let h = h0 * p[j].abs().max(1e-8);
+        q[j] = p[j] + h;
+        let up = curve.value(x, &q);
+        q[j] = p[j] - h;
+        let down = curve.value(x, &q);
+        q[j] = p[j];
+        out[j] = (up - down) / (2.0 * h);
+    }
+}
+
+/// ∂y/∂θ, analytic when the curve has it.
+pub fn curve_gradient(curve: &dyn Curve, x: f64, p: &[f64], out: &mut [f64]) {
+    if curve.has_gradient() {
+        curve.gradient(x, p, out);
+    } else {
+        numeric_gradient(curve, x, p, out);
+    }
+}
+
+/// Tuning of the engine. The defaults are tight enough to reproduce the NIST StRD
+/// certified values to more than 6 significant digits.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LmOptions {
+    /// Maximum number of Jacobian evaluations (outer iterations).
+    pub max_iterations: usize,
+    /// Stop when both actual and predicted relative reductions of RSS are below this.
+    pub ftol: f64,
+    /// Stop when the scaled step is below xtol·(scaled parameter norm).
+    pub xtol: f64,
+    /// Stop when the largest cosine between r and a column of J is below this.
+    pub gtol: f64,
+    /// Per-parameter (lower, upper) bounds; empty means unbounded.
+    pub bounds: Vec<(f64, f64)>,
+    /// Use geodesic acceleration (one extra model evaluation per trial step).
+    pub geodesic: bool,
+}
+
+impl Default for LmOptions {
+    fn default() -> Self {
+        Self {
+            max_iterations: 2000,
+            ftol: 1e-15,
+            xtol: 1e-13,
+            gtol: 1e-13,
+            bounds: Vec::new(),
+            geodesic: true,
+        }
+    }
+}
+
+/// Why the iterations stopped.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum StopReason {
+    /// Actual and predicted relative RSS reductions below ftol.
+    SmallRssChange,
+    /// Scaled step below xtol.
+    SmallStep,
+    /// Residuals orthogonal to the Jacobian columns (gtol).
+    SmallGradient,
+    /// The residuals are zero to machine precision.
+    ExactFit,
+    /// Iteration budget used up.
+    MaxIterations,
+    /// Damping grew without bound: no step reduces RSS, and the gradient is not small.
+    NoReductionPossible,
+    /// The Jacobian is not finite at the current point.
+    NonFiniteJacobian,
+}
+
+impl StopReason {
+    /// Whether this reason means a minimum was found.
+    pub fn is_converged(self) -> bool {
+        matches!(
+            self,
+            StopReason::SmallRssChange
+                | StopReason::SmallStep
+                | StopReason::SmallGradient
+                | StopReason::ExactFit
+        )
+    }
+    /// Short human wording for reports.
+    pub fn describe(self) -> &'static str {
+        match self {
+            StopReason::SmallRssChange => "RSS no longer decreases",
+            StopReason::SmallStep => "parameter step negligible",
+            StopReason::SmallGradient => "gradient negligible",
+            StopReason::ExactFit => "residuals are zero",
+            StopReason::MaxIterations => "iteration limit reached",
+            StopReason::NoReductionPossible => "no step reduces RSS (flat or singular problem)",
+            StopReason::NonFiniteJacobian => "model derivatives are not finite",
+        }
+    }
+}
+
+/// The raw result of a run of the engine.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LmOutcome {
+    pub params: Vec<f64>,
+    /// Weighted residual sum of squares at `params`.
+    pub rss: f64,
+    /// Unscaled (JᵀJ)⁻¹ at `params`, if J has full column rank.
+    pub inv_jtj: Option<Vec<Vec<f64>>>,
+    pub reason: StopReason,
+    pub iterations: usize,
+    pub evaluations: usize,
+}
+
+fn validate(
+    curve: &dyn Curve,
+    x: &[f64],
+    y: &[f64],
+    weights: Option<&[f64]>,
+    start: &[f64],
+    opts: &LmOptions,
+) -> Result<(), FitError> {
+    let p = curve.n_params();
+    if x.len() != y.len() {
+        return Err(FitError::LengthMismatch {
+            x: x.len(),
+            y: y.len(),
+        });
+    }
+    if start.len() != p {
+        return Err(FitError::StartLength {
+            got: start.len(),
+            expected: p,
+        });
+    }
+    if x.len() < p || p == 0 {
+        return Err(FitError::TooFewPoints { n: x.len(), p });
+    }
+    if let Some(i) = x.iter().position(|v| !v.is_finite()) {
+        return Err(FitError::NonFinite {
+            what: "x",
+            index: i,
+        });
+    }
+    if let Some(i) = y.iter().position(|v| !v.is_finite()) {
+        return Err(FitError::NonFinite {
+            what: "y",
+            index: i,
+        });
+    }
+    if let Some(i) = start.iter().position(|v| !v.is_finite()) {
+        return Err(FitError::NonFinite {
+            what: "start value",
+            index: i,
+        });
+    }
+    if let Some(w) = weights {
+        if w.len() != x.len() {
+            return Err(FitError::WeightsMismatch {
+                weights: w.len(),
+                points: x.len(),
+            });
+        }
+        if let Some(i) = w.iter().position(|v| !v.is_finite()) {
+            return Err(FitError::NonFinite {
+                what: "weight",
+                index: i,
+            });
+        }
+        if let Some(i) = w.iter().position(|v| *v < 0.0) {
+            return Err(FitError::NegativeWeight { index: i });
+        }
+    }
+    if !opts.bounds.is_empty() {
+        if opts.bounds.len() != p {
+            return Err(FitError::StartLength {
+                got: opts.bounds.len(),
+                expected: p,
+            });
+        }
+        for (i, &(lo, hi)) in opts.bounds.iter().enumerate() {
+            if lo.is_nan() || hi.is_nan() || lo > hi {
+                return Err(FitError::BadBounds {
+                    index: i,
+                    lower: lo,
+                    upper: hi,
+                });
+            }
+        }
+    }
+    Ok(())
+}
+
+fn project(p: &mut [f64], bounds: &[(f64, f64)]) {
+    for (v, &(lo, hi)) in p.iter_mut().zip(bounds) {
+        *v = v.clamp(lo, hi);
+    }
+}
+
+/// Weighted residuals r = √w·(y − f); returns RSS, or None if any value is not finite.
+fn residuals(
+    curve: &dyn Curve,
+    x: &[f64],
+    y: &[f64],
+    sw: &[f64],
+    p: &[f64],
+    r: &mut DVector<f64>,
+) -> Option<f64> {
+    let mut rss = 0.0;
+    for i in 0..x.len() {
+        let v = sw[i] * (y[i] - curve.value(x[i], p));
+        if !v.is_finite() {
+            return None;
+        }
+        r[i] = v;
+        rss += v * v;
+    }
+    rss.is_finite().then_some(rss)
+}
+
+fn jacobian(
+    curve: &dyn Curve,
+    x: &[f64],
+    sw: &[f64],
+    p: &[f64],
+    jac: &mut DMatrix<f64>,
+    row: &mut [f64],
+) -> bool {
+    for i in 0..x.len() {
+        curve_gradient(curve, x[i], p, row);
+        for (j, g) in row.iter().enumerate() {
+            let v = sw[i] * g;
+            if !v.is_finite() {
+                return false;
+            }
+            jac[(i, j)] = v;
+        }
+    }
+    true
+}
+
+/// (JᵀJ)⁻¹ through the SVD of the column-scaled J, which is far better conditioned than
+/// inverting JᵀJ itself; None when J is rank deficient.
+pub fn inverse_jtj(jac: &DMatrix<f64>) -> Option<Vec<Vec<f64>>> {
+    let p = jac.ncols();
+    let mut scale = vec![0.0; p];
+    for (j, s) in scale.iter_mut().enumerate() {
+        *s = jac.column(j).norm();
+        if !s.is_finite() || *s == 0.0 {
+            return None;
+        }
+    }
+    let mut js = jac.clone();
+    for j in 0..p {
+        js.column_mut(j).unscale_mut(scale[j]);
+    }
+    let svd = js.svd(false, true);
+    let vt = svd.v_t?;
+    let smax = svd.singular_values.max();
+    let smin = svd.singular_values.min();
+    if !(smin > smax * 1e-14) {
+        return None;
+    }
+    let mut inv = vec![vec![0.0; p]; p];
+    for a in 0..p {
+        for b in 0..p {
+            let mut s = 0.0;
+            for k in 0..svd.singular_values.len() {
+                let sk = svd.singular_values[k];
+                s += vt[(k, a)] * vt[(k, b)] / (sk * sk);
+            }
+            inv[a][b] = s / (scale[a] * scale[b]);
+        }
+    }
+    Some(inv)
+}
+
+/// Minimises Σ wᵢ·(yᵢ − f(xᵢ; θ))² from `start`.
+pub fn levenberg_marquardt(
+    curve: &dyn Curve,
+    x: &[f64],
+    y: &[f64],
+    weights: Option<&[f64]>,
+    start: &[f64],
+    opts: &LmOptions,
+) -> Result<LmOutcome, FitError> {
+    validate(curve, x, y, weights, start, opts)?;
+    let n = x.len();
+    let np = curve.n_params();
+    let sw: Vec<f64> = match weights {
+        Some(w) => w.iter().map(|v| v.sqrt()).collect(),
+        None => vec![1.0; n],
+    };
+    let mut p = start.to_vec();
+    project(&mut p, &opts.bounds);
+    let mut r = DVector::zeros(n);
+    let mut rss = residuals(curve, x, y, &sw, &p, &mut r).ok_or_else(|| {
+        let index = x
+            .iter()
+            .position(|&xi| !curve.value(xi, &p).is_finite())
+            .unwrap_or(0);
+        FitError::BadStart { index }
+    })?;
+    let mut evaluations = 1;
+    let mut jac = DMatrix::zeros(n, np);
+    let mut row = vec![0.0; np];
+    let mut r_trial = DVector::zeros(n);
+    let mut r_geo = DVector::zeros(n);
+    let mut diag: Vec<f64> = vec![0.0; np];
+    let mut lambda = 1e-3;
+    let mut nu = 2.0;
+    let mut iterations = 0;
+    let mut reason = StopReason::MaxIterations;
+    let mut trial = vec![0.0; np];
+    let mut probe = vec![0.0; np];
+
+    'outer: while iterations < opts.max_iterations {
+        iterations += 1;
+        if rss == 0.0 {
+            reason = StopReason::ExactFit;
+            break;
+        }
+        if !jacobian(curve, x, &sw, &p, &mut jac, &mut row) {
+            reason = StopReason::NonFiniteJacobian;
+            break;
+        }
+        let jtj = jac.tr_mul(&jac);
+        let g = jac.tr_mul(&r);
+        // Moré's scaling: D_j never decreases, so the trust region cannot collapse in a
+        // direction that was once informative.
+        for j in 0..np {
+            let c = jtj[(j, j)].sqrt();
+            diag[j] = diag[j].max(c).max(1e-300);
+        }
+        let rnorm = rss.sqrt();
+        let mut gcos: f64 = 0.0;
+        for j in 0..np {
+            let c = jtj[(j, j)].sqrt();
+            if c > 0.0 {
+                gcos = gcos.max(g[j].abs() / (c * rnorm));
+            }
+        }
+        if gcos <= opts.gtol {
+            reason = StopReason::SmallGradient;
+            break;
+        }
+        loop {
+            let mut m = jtj.clone();
+            for j in 0..np {
+                m[(j, j)] += lambda * diag[j] * diag[j];
+            }
+            let Some(chol) = m.cholesky() else {
+                lambda *= nu;
+                nu *= 2.0;
+                if lambda > 1e30 {
+                    reason = StopReason::NoReductionPossible;
+                    break 'outer;
+                }
+                continue;
+            };
+            let delta = chol.solve(&g);
+            // Geodesic acceleration: correct the step with the second directional derivative
+            // of the residuals along δ, estimated by one finite difference.
+            let mut step = delta.clone();
+            if opts.geodesic {
+                let h = 0.1;
+                for j in 0..np {
+                    probe[j] = p[j] + h * delta[j];
+                }
+                if residuals(curve, x, y, &sw, &probe, &mut r_geo).is_some() {
+                    evaluations += 1;
+                    // r(p+hδ) ≈ r − hJδ − ½h²·f''  ⇒  f'' ≈ 2/h·((r − r_h)/h − Jδ)
+                    let jd = &jac * &delta;
+                    let fpp = ((&r - &r_geo) / h - jd) * (2.0 / h);
+                    let acc = chol.solve(&(jac.tr_mul(&fpp)));
+                    let mut na = 0.0;
+                    let mut nd = 0.0;
+                    for j in 0..np {
+                        na += (diag[j] * acc[j]).powi(2);
+                        nd += (diag[j] * delta[j]).powi(2);
+                    }
+                    if na.sqrt() <= 0.75 * nd.sqrt() {
+                        step -= acc * 0.5;
+                    }
+                } else {
+                    evaluations += 1;
+                }
+            }
+            for j in 0..np {
+                trial[j] = p[j] + step[j];
+            }
+            project(&mut trial, &opts.bounds);
+            let actual_step: Vec<f64> = (0..np).map(|j| trial[j] - p[j]).collect();
+            let dstep = DVector::from_vec(actual_step);
+            let mut step_norm = 0.0;
+            let mut pnorm = 0.0;
+            for j in 0..np {
+                step_norm += (diag[j] * dstep[j]).powi(2);
+                pnorm += (diag[j] * p[j]).powi(2);
+            }
+            let step_norm = step_norm.sqrt();
+            let pnorm = pnorm.sqrt();
+            let new_rss = residuals(curve, x, y, &sw, &trial, &mut r_trial);
+            evaluations += 1;
+            // Predicted reduction of the linear model: ‖r‖² − ‖r − Jδ‖².
+            let jd = &jac * &dstep;
+            let predicted = rss - (&r - &jd).norm_squared();
+            match new_rss {
+                Some(new_rss) if new_rss < rss => {
+                    let actual = rss - new_rss;
+                    let rho = if predicted > 0.0 { actual / predicted } else { 1.0 };
+                    let old = rss;
+                    p.copy_from_slice(&trial);
+                    std::mem::swap(&mut r, &mut r_trial);
+                    rss = new_rss;
+                    lambda *= (1.0 - (2.0 * rho - 1.0).powi(3)).max(1.0 / 3.0);
+                    lambda = lambda.max(1e-300);
+                    nu = 2.0;
+                    if actual <= opts.ftol * old && predicted.abs() <= opts.ftol * old {
+                        reason = StopReason::SmallRssChange;
+                        break 'outer;
+                    }
+                    if step_norm <= opts.xtol * (pnorm + opts.xtol) {
+                        reason = StopReason::SmallStep;
+                        break 'outer;
+                    }
+                    break;
+                }
+                other => {
+                    if step_norm <= opts.xtol * (pnorm + opts.xtol) {
+                        reason = StopReason::SmallStep;
+                        break 'outer;
+                    }
+                    // A step whose effect is lost in rounding: the minimum is reached to
+                    // machine precision.
+                    if let Some(new_rss) = other
+                        && (new_rss - rss).abs() <= 8.0 * f64::EPSILON * rss
+                        && predicted.abs() <= opts.ftol.max(8.0 * f64::EPSILON) * rss
+                    {
+                        reason = StopReason::SmallRssChange;
+                        break 'outer;
+                    }
+                    lambda *= nu;
+                    nu *= 2.0;
+                    if lambda > 1e30 {
+                        reason = StopReason::NoReductionPossible;
+                        break 'outer;
+                    }
+                }
+            }
+        }
+    }
+    let inv_jtj = if jacobian(curve, x, &sw, &p, &mut jac, &mut row) {
+        inverse_jtj(&jac)
+    } else {
+        None
+    };
+    Ok(LmOutcome {
+        params: p,
+        rss,
+        inv_jtj,
+        reason,
+        iterations,
+        evaluations,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn straight_line_is_exact_in_few_iterations() {
+        // A linear model is solved by one Gauss–Newton step; LM must land on the
+        // ordinary least-squares line (closed form, any statistics textbook).
+        let x = [0.0, 1.0, 2.0, 3.0, 4.0];
+        let y = [1.1, 2.9, 5.2, 7.1, 8.8];
+        let c = FnCurve::new(2, |x, p: &[f64]| p[0] + p[1] * x);
+        let out = levenberg_marquardt(&c, &x, &y, None, &[0.0, 0.0], &LmOptions::default())
+            .expect("valid problem");
+        // OLS: slope = Sxy/Sxx = 19.6/10, intercept = ȳ − slope·x̄ = 5.02 − 3.92.
+        assert!((out.params[1] - 1.96).abs() < 1e-10, "{:?}", out.params);
+        assert!((out.params[0] - 1.10).abs() < 1e-10);
+        assert!(out.reason.is_converged());
+    }
+
+    #[test]
+    fn bounds_are_respected() {
+        let x = [0.0, 1.0, 2.0, 3.0];
+        let y = [0.0, 1.0, 2.0, 3.0];
+        let c = FnCurve::new(1, |x, p: &[f64]| p[0] * x);
+        let opts = LmOptions {
+            bounds: vec![(0.0, 0.5)],
+            ..LmOptions::default()
+        };
+        let out = levenberg_marquardt(&c, &x, &y, None, &[0.1], &opts).expect("valid");
+        assert!((out.params[0] - 0.5).abs() < 1e-12);
+    }
+
+    #[test]
+    fn errors_are_typed_not_panics() {
+        let c = FnCurve::new(2, |x, p: &[f64]| p[0] + p[1] * x);
+        let o = LmOptions::default();
+        assert!(matches!(
+            levenberg_marquardt(&c, &[1.0], &[1.0, 2.0], None, &[0.0, 0.0], &o),
+            Err(FitError::LengthMismatch { .. })
+        ));
+        assert!(matches!(
+            levenberg_marquardt(&c, &[1.0], &[1.0], None, &[0.0, 0.0], &o),
+            Err(FitError::TooFewPoints { .. })
+        ));
+        assert!(matches!(
+            levenberg_marquardt(&c, &[1.0, f64::NAN], &[1.0, 2.0], None, &[0.0, 0.0], &o),
+            Err(FitError::NonFinite { what: "x", .. })
+        ));
+        let bad = FnCurve::new(1, |x, p: &[f64]| (p[0] - x).ln());
+        assert!(matches!(
+            levenberg_marquardt(&bad, &[1.0, 2.0], &[1.0, 2.0], None, &[0.0], &o),
+            Err(FitError::BadStart { .. })
+        ));
+    }
+}

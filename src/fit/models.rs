@@ -1,0 +1,372 @@
+//! The deactivation models of DESIGN.md §4, with analytic derivatives.
+//!
+//! x is the cycle number (or time on stream), y the activity (or cumulative TON for the
+//! plateau model). Each model knows its id, its parameter names, y, ∂y/∂θ and ∂y/∂x.
+
+use serde::{Deserialize, Serialize};
+
+use super::error::FitError;
+use super::lm::Curve;
+
+/// Below this |m − 1| the power law is evaluated by its first-order limit, where the
+/// closed form loses all digits to cancellation.
+const POWER_M_EPS: f64 = 1e-7;
+
+/// A deactivation model, by the id used in options, JSON and reports.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum ModelId {
+    /// a0 − r·x
+    Linear,
+    /// a0·exp(−kd·x)
+    FirstOrder,
+    /// a_inf + (a0 − a_inf)·exp(−kd·x)
+    FirstOrderResidual,
+    /// a0/(1 + kd·x)
+    SecondOrder,
+    /// a0·(1 + (m − 1)·kd·x)^(−1/(m − 1))
+    Power,
+    /// a_inf + a1·exp(−k1·x) + a2·exp(−k2·x)
+    TwoSite,
+    /// ton_max·(1 − exp(−kd·x)), for cumulative TON
+    Plateau,
+}
+
+impl ModelId {
+    /// Every model, simplest first.
+    pub const ALL: [ModelId; 7] = [
+        ModelId::Linear,
+        ModelId::FirstOrder,
+        ModelId::SecondOrder,
+        ModelId::Plateau,
+        ModelId::FirstOrderResidual,
+        ModelId::Power,
+        ModelId::TwoSite,
+    ];
+
+    /// The models of activity decay (every model but the cumulative-TON plateau).
+    pub const ACTIVITY: [ModelId; 6] = [
+        ModelId::Linear,
+        ModelId::FirstOrder,
+        ModelId::SecondOrder,
+        ModelId::FirstOrderResidual,
+        ModelId::Power,
+        ModelId::TwoSite,
+    ];
+
+    /// The id as written in options and JSON.
+    pub fn id(self) -> &'static str {
+        match self {
+            ModelId::Linear => "linear",
+            ModelId::FirstOrder => "first-order",
+            ModelId::FirstOrderResidual => "first-order-residual",
+            ModelId::SecondOrder => "second-order",
+            ModelId::Power => "power",
+            ModelId::TwoSite => "two-site",
+            ModelId::Plateau => "plateau",
+        }
+    }
+
+    /// Parses a model id.
+    pub fn from_id(s: &str) -> Result<ModelId, FitError> {
+        ModelId::ALL
+            .into_iter()
+            .find(|m| m.id() == s)
+            .ok_or_else(|| FitError::UnknownModel(s.to_string()))
+    }
+
+    /// The formula, for reports.
+    pub fn formula(self) -> &'static str {
+        match self {
+            ModelId::Linear => "a0 - r*x",
+            ModelId::FirstOrder => "a0*exp(-kd*x)",
+            ModelId::FirstOrderResidual => "a_inf + (a0 - a_inf)*exp(-kd*x)",
+            ModelId::SecondOrder => "a0/(1 + kd*x)",
+            ModelId::Power => "a0*(1 + (m - 1)*kd*x)^(-1/(m - 1))",
+            ModelId::TwoSite => "a_inf + a1*exp(-k1*x) + a2*exp(-k2*x)",
+            ModelId::Plateau => "ton_max*(1 - exp(-kd*x))",
+        }
+    }
+
+    /// Parameter names in the order of the parameter vector.
+    pub fn param_names(self) -> &'static [&'static str] {
+        match self {
+            ModelId::Linear => &["a0", "r"],
+            ModelId::FirstOrder => &["a0", "kd"],
+            ModelId::FirstOrderResidual => &["a0", "a_inf", "kd"],
+            ModelId::SecondOrder => &["a0", "kd"],
+            ModelId::Power => &["a0", "kd", "m"],
+            ModelId::TwoSite => &["a_inf", "a1", "k1", "a2", "k2"],
+            ModelId::Plateau => &["ton_max", "kd"],
+        }
+    }
+
+    /// Number of parameters.
+    pub fn n_params(self) -> usize {
+        self.param_names().len()
+    }
+
+    /// Index of a parameter by name.
+    pub fn param_index(self, name: &str) -> Result<usize, FitError> {
+        self.param_names()
+            .iter()
+            .position(|n| *n == name)
+            .ok_or_else(|| FitError::UnknownParameter {
+                model: self.id().to_string(),
+                name: name.to_string(),
+                known: self.param_names().join(", "),
+            })
+    }
+
+    /// y(x; p). Returns NaN where the model is undefined (power law with 1 + (m−1)kd·x ≤ 0).
+    pub fn eval(self, x: f64, p: &[f64]) -> f64 {
+        match self {
+            ModelId::Linear => p[0] - p[1] * x,
+            ModelId::FirstOrder => p[0] * (-p[1] * x).exp(),
+            ModelId::FirstOrderResidual => p[1] + (p[0] - p[1]) * (-p[2] * x).exp(),
+            ModelId::SecondOrder => p[0] / (1.0 + p[1] * x),
+            ModelId::Power => {
+                let (a0, kd, m) = (p[0], p[1], p[2]);
+                let s = m - 1.0;
+                if s.abs() < POWER_M_EPS {
+                    let t = kd * x;
+                    // ln u/s ≈ t − s·t²/2 for small s.
+                    a0 * (-(t - s * t * t / 2.0)).exp()
+                } else {
+                    let u = 1.0 + s * kd * x;
+                    if u <= 0.0 {
+                        f64::NAN
+                    } else {
+                        a0 * (-u.ln() / s).exp()
+                    }
+                }
+            }
+            ModelId::TwoSite => p[0] + p[1] * (-p[2] * x).exp() + p[3] * (-p[4] * x).exp(),
+            ModelId::Plateau => p[0] * (1.0 - (-p[1] * x).exp()),
+        }
+    }
+
+    /// ∂y/∂θ at x into `out`.
+    pub fn grad(self, x: f64, p: &[f64], out: &mut [f64]) {
+        match self {
+            ModelId::Linear => {
+                out[0] = 1.0;
+                out[1] = -x;
+            }
+            ModelId::FirstOrder => {
+                let e = (-p[1] * x).exp();
+                out[0] = e;
+                out[1] = -p[0] * x * e;
+            }
+            ModelId::FirstOrderResidual => {
+                let e = (-p[2] * x).exp();
+                out[0] = e;
+                out[1] = 1.0 - e;
+                out[2] = -(p[0] - p[1]) * x * e;
+            }
+            ModelId::SecondOrder => {
+                let d = 1.0 + p[1] * x;
+                out[0] = 1.0 / d;
+                out[1] = -p[0] * x / (d * d);
+            }
+            ModelId::Power => {
+                let (a0, kd, m) = (p[0], p[1], p[2]);
+                let s = m - 1.0;
+                let t = kd * x;
+                if s.abs() < POWER_M_EPS {
+                    // Limits as m → 1: u^e → e^(−t), ∂y/∂m → y·t²/2.
+                    let e = (-t).exp();
+                    out[0] = e;
+                    out[1] = -a0 * x * e;
+                    out[2] = a0 * e * t * t / 2.0;
+                } else {
+                    let u = 1.0 + s * t;
+                    if u <= 0.0 {
+                        out.iter_mut().for_each(|v| *v = f64::NAN);
+                        return;
+                    }
+                    let lu = u.ln();
+                    let ue = (-lu / s).exp();
+                    let y = a0 * ue;
+                    out[0] = ue;
+                    out[1] = -a0 * x * ue / u;
+                    // ln y = ln a0 − ln(u)/s ⇒ ∂ln y/∂m = ln(u)/s² − t/(s·u); written as
+                    // (ln(u) − s·t/u)/s², whose numerator is O(s²) and accurate via ln_1p.
+                    let num = (s * t).ln_1p() - s * t / u;
+                    out[2] = y * num / (s * s);
+                }
+            }
+            ModelId::TwoSite => {
+                let e1 = (-p[2] * x).exp();
+                let e2 = (-p[4] * x).exp();
+                out[0] = 1.0;
+                out[1] = e1;
+                out[2] = -p[1] * x * e1;
+                out[3] = e2;
+                out[4] = -p[3] * x * e2;
+            }
+            ModelId::Plateau => {
+                let e = (-p[1] * x).exp();
+                out[0] = 1.0 - e;
+                out[1] = p[0] * x * e;
+            }
+        }
+    }
+
+    /// ∂y/∂x, used by the forecast's delta method.
+    pub fn dydx(self, x: f64, p: &[f64]) -> f64 {
+        match self {
+            ModelId::Linear => -p[1],
+            ModelId::FirstOrder => -p[0] * p[1] * (-p[1] * x).exp(),
+            ModelId::FirstOrderResidual => -(p[0] - p[1]) * p[2] * (-p[2] * x).exp(),
+            ModelId::SecondOrder => {
+                let d = 1.0 + p[1] * x;
+                -p[0] * p[1] / (d * d)
+            }
+            ModelId::Power => {
+                let (a0, kd, m) = (p[0], p[1], p[2]);
+                let s = m - 1.0;
+                if s.abs() < POWER_M_EPS {
+                    -a0 * kd * (-kd * x).exp()
+                } else {
+                    let u = 1.0 + s * kd * x;
+                    if u <= 0.0 {
+                        f64::NAN
+                    } else {
+                        -a0 * kd * (-u.ln() * m / s).exp()
+                    }
+                }
+            }
+            ModelId::TwoSite => {
+                -p[1] * p[2] * (-p[2] * x).exp() - p[3] * p[4] * (-p[4] * x).exp()
+            }
+            ModelId::Plateau => p[0] * p[1] * (-p[1] * x).exp(),
+        }
+    }
+
+    /// y as x → ∞, when the model has a finite limit for these parameters.
+    pub fn asymptote(self, p: &[f64]) -> Option<f64> {
+        match self {
+            ModelId::Linear => (p[1] == 0.0).then_some(p[0]),
+            ModelId::FirstOrder | ModelId::SecondOrder => (p[1] > 0.0).then_some(0.0),
+            ModelId::FirstOrderResidual => (p[2] > 0.0).then_some(p[1]),
+            ModelId::Power => (p[1] > 0.0 && p[2] > 1.0).then_some(0.0),
+            ModelId::TwoSite => (p[2] > 0.0 && p[4] > 0.0).then_some(p[0]),
+            ModelId::Plateau => (p[1] > 0.0).then_some(p[0]),
+        }
+    }
+}
+
+impl std::fmt::Display for ModelId {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.id())
+    }
+}
+
+impl Curve for ModelId {
+    fn n_params(&self) -> usize {
+        ModelId::n_params(*self)
+    }
+    fn value(&self, x: f64, p: &[f64]) -> f64 {
+        self.eval(x, p)
+    }
+    fn has_gradient(&self) -> bool {
+        true
+    }
+    fn gradient(&self, x: f64, p: &[f64], out: &mut [f64]) {
+        self.grad(x, p, out)
+    }
+}
+
+/// Maps NIST Bennett5's b1·(b2 + x)^(−1/b3) to the power law a0·(1 + (m−1)·kd·x)^(−1/(m−1)).
+///
+/// With m − 1 = b3: 1 + b3·kd·x = b3·kd·(1/(b3·kd) + x), so b2 = 1/(b3·kd), i.e.
+/// kd = 1/(b2·b3); then a0·(b3·kd)^(−1/b3) = a0·b2^(1/b3) = b1, i.e. a0 = b1·b2^(−1/b3).
+/// Returns (a0, kd, m).
+pub fn power_from_bennett(b1: f64, b2: f64, b3: f64) -> (f64, f64, f64) {
+    (b1 * b2.powf(-1.0 / b3), 1.0 / (b2 * b3), 1.0 + b3)
+}
+
+/// The inverse of [`power_from_bennett`]: (a0, kd, m) → (b1, b2, b3).
+pub fn bennett_from_power(a0: f64, kd: f64, m: f64) -> (f64, f64, f64) {
+    let b3 = m - 1.0;
+    let b2 = 1.0 / (kd * b3);
+    (a0 * b2.powf(1.0 / b3), b2, b3)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::fit::lm::numeric_gradient;
+
+    fn sample_params(m: ModelId) -> Vec<f64> {
+        match m {
+            ModelId::Linear => vec![1.0, 0.02],
+            ModelId::FirstOrder => vec![1.0, 0.05],
+            ModelId::FirstOrderResidual => vec![1.0, 0.3, 0.1],
+            ModelId::SecondOrder => vec![1.0, 0.07],
+            ModelId::Power => vec![1.0, 0.06, 1.7],
+            ModelId::TwoSite => vec![0.2, 0.5, 0.4, 0.3, 0.03],
+            ModelId::Plateau => vec![500.0, 0.1],
+        }
+    }
+
+    #[test]
+    fn analytic_gradients_match_central_differences() {
+        for m in ModelId::ALL {
+            let p = sample_params(m);
+            for &x in &[0.0, 1.0, 7.5, 30.0] {
+                let mut a = vec![0.0; p.len()];
+                let mut n = vec![0.0; p.len()];
+                m.grad(x, &p, &mut a);
+                numeric_gradient(&m, x, &p, &mut n);
+                for j in 0..p.len() {
+                    let tol = 1e-6 * (1.0 + a[j].abs());
+                    assert!((a[j] - n[j]).abs() < tol, "{m} x={x} j={j}: {} vs {}", a[j], n[j]);
+                }
+                let h = 1e-5;
+                let dx = (m.eval(x + h, &p) - m.eval(x - h, &p)) / (2.0 * h);
+                assert!((m.dydx(x, &p) - dx).abs() < 1e-6 * (1.0 + dx.abs()), "{m} dydx");
+            }
+        }
+    }
+
+    #[test]
+    fn power_law_reduces_to_first_and_second_order() {
+        // m = 2 is second order, m → 1 is first order (DESIGN.md §4, from the rate law).
+        let x = 12.0;
+        let so = ModelId::SecondOrder.eval(x, &[1.0, 0.07]);
+        let pw = ModelId::Power.eval(x, &[1.0, 0.07, 2.0]);
+        assert!((so - pw).abs() < 1e-14);
+        let fo = ModelId::FirstOrder.eval(x, &[1.0, 0.07]);
+        let near = ModelId::Power.eval(x, &[1.0, 0.07, 1.0 + 1e-9]);
+        assert!((fo - near).abs() < 1e-9);
+        let off = ModelId::Power.eval(x, &[1.0, 0.07, 1.0 + 2e-7]);
+        assert!((fo - off).abs() < 1e-5);
+    }
+
+    #[test]
+    fn bennett_mapping_round_trips_and_agrees() {
+        let (b1, b2, b3) = (-2523.5, 46.7, 0.932);
+        let (a0, kd, m) = power_from_bennett(b1, b2, b3);
+        for &x in &[7.4, 10.0, 11.6] {
+            let nist = b1 * (b2 + x).powf(-1.0 / b3);
+            let ours = ModelId::Power.eval(x, &[a0, kd, m]);
+            assert!((nist - ours).abs() < 1e-10 * nist.abs());
+        }
+        let (c1, c2, c3) = bennett_from_power(a0, kd, m);
+        assert!((c1 - b1).abs() < 1e-9 * b1.abs());
+        assert!((c2 - b2).abs() < 1e-12 * b2);
+        assert!((c3 - b3).abs() < 1e-12);
+    }
+
+    #[test]
+    fn ids_round_trip() {
+        for m in ModelId::ALL {
+            assert_eq!(ModelId::from_id(m.id()), Ok(m));
+            let js = serde_json::to_string(&m).expect("serialise");
+            assert_eq!(js, format!("\"{}\"", m.id()));
+        }
+        assert!(ModelId::from_id("cubic").is_err());
+    }
+}

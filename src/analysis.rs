@@ -1,36 +1,553 @@
-//! Lot metrics and fits, recomputed in the same transaction as the records that changed.
+//! Lot metrics and fits: the shell that feeds stored cycles to the pure chemistry
+//! ([`crate::chem`]) and fitting ([`crate::fit`]) and stores what they return.
+//!
+//! Single-file ingestion (the service) recomputes the touched lots in the same transaction
+//! as the records. A backfill recomputes once after its last group; if it is interrupted
+//! before that, [`recompute_stale`] heals it at the next start (a lot whose stored fit is
+//! older than its newest record is recomputed).
+
 use std::collections::BTreeSet;
+use std::fmt::Write as _;
 
+use rusqlite::{Connection, OptionalExtension, Transaction};
+use serde::Serialize;
+
+use crate::audit::payload::LotRecord;
+use crate::chem::{self, ChemOptions, CycleInput, CycleMetrics, LotFacts};
+use crate::commands::{CmdResult, Failure};
 use crate::config::Config;
-use crate::store::Result;
+use crate::fit::{self, AnalysisOptions, Criterion, LotAnalysis, LotSeries, ModelId};
+use crate::ingest::Quantity;
+use crate::store::view::CycleView;
+use crate::store::{self, Result, records};
 
-/// Recompute metrics, fits and alerts of the given lots (wired after the fitting merge).
-pub fn recompute_lots(
-    _tx: &rusqlite::Transaction<'_>,
-    _cfg: &Config,
-    _lots: &BTreeSet<String>,
-    _actor: &str,
-) -> Result<()> {
+/// Where a cycle's values came from.
+#[derive(Debug, Clone, Serialize)]
+pub struct SourceRef {
+    pub file_id: i64,
+    pub path: String,
+    pub sha256: String,
+    /// Lines of that file the values were read from.
+    pub lines: Vec<i64>,
+}
+
+/// One cycle with its metrics and provenance.
+#[derive(Debug, Clone, Serialize)]
+pub struct CycleState {
+    pub cycle: u32,
+    pub view: CycleView,
+    pub metrics: Option<CycleMetrics>,
+    pub sources: Vec<SourceRef>,
+    pub flags: Vec<String>,
+}
+
+/// A lot with every cycle and its current analysis.
+#[derive(Debug, Clone, Serialize)]
+pub struct LotState {
+    pub lot: String,
+    pub record: Option<LotRecord>,
+    pub cycles: Vec<CycleState>,
+    pub analysis: Option<LotAnalysis>,
+    /// What the fit was made of.
+    pub basis: String,
+    /// Plain-words reasons someone should look at this lot.
+    pub attention: Vec<String>,
+}
+
+impl LotState {
+    pub fn latest_activity(&self) -> Option<f64> {
+        self.cycles
+            .iter()
+            .rev()
+            .find_map(|c| c.metrics.as_ref().and_then(|m| m.activity))
+    }
+}
+
+fn chem_options(cfg: &Config) -> ChemOptions {
+    ChemOptions {
+        saturation: cfg.chemistry.saturation,
+        activation_energy_j_per_mol: cfg.chemistry.activation_energy_kj_mol.map(|e| e * 1000.0),
+        t_ref_k: cfg.chemistry.reference_temperature_c + 273.15,
+        required: Vec::new(),
+    }
+}
+
+/// The analysis options the configuration asks for.
+pub fn analysis_options(cfg: &Config, record: Option<&LotRecord>, product_first_kg: Option<f64>) -> AnalysisOptions {
+    let f = &cfg.fitting;
+    let criterion = match (f.criterion_absolute, f.criterion_fraction) {
+        (Some(a), _) => Criterion::Absolute(a),
+        (None, Some(x)) => Criterion::FractionOfFresh(x),
+        // Common practice default: replace at 60 % of the fresh activity.
+        (None, None) => Criterion::FractionOfFresh(0.6),
+    };
+    let candidates: Vec<ModelId> = if f.models.is_empty() {
+        ModelId::ACTIVITY.to_vec()
+    } else {
+        f.models.iter().filter_map(|m| ModelId::from_id(m).ok()).collect()
+    };
+    let economics = cfg.economics.as_ref().and_then(|e| {
+        let lot_cost = record.and_then(|r| r.cost).or(e.default_lot_cost)?;
+        Some(fit::EconomicInputs {
+            lot_cost,
+            cost_per_cycle: e.cost_per_cycle,
+            product_first_cycle: product_first_kg?,
+            max_cycles: 200,
+        })
+    });
+    AnalysisOptions {
+        criterion,
+        confidence: f.confidence,
+        candidates,
+        cusum_k: f.cusum_k,
+        cusum_h: f.cusum_h,
+        economics,
+        ..AnalysisOptions::default()
+    }
+}
+
+fn sources_of(conn: &Connection, batch: &str) -> Result<Vec<SourceRef>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT f.id, f.path, f.sha256, m.line FROM measurements m JOIN source_files f ON f.id = m.source_file_id
+         WHERE m.batch_id = ?1 ORDER BY f.id, m.line",
+    )?;
+    let mut out: Vec<SourceRef> = Vec::new();
+    let rows = stmt.query_map([batch], |r| {
+        Ok((r.get::<_, i64>(0)?, r.get::<_, String>(1)?, r.get::<_, String>(2)?, r.get::<_, Option<i64>>(3)?))
+    })?;
+    for row in rows {
+        let (id, path, sha, line) = row?;
+        match out.last_mut() {
+            Some(s) if s.file_id == id => {
+                if let Some(l) = line
+                    && !s.lines.contains(&l)
+                {
+                    s.lines.push(l);
+                }
+            }
+            _ => out.push(SourceRef { file_id: id, path, sha256: sha, lines: line.into_iter().collect() }),
+        }
+    }
+    Ok(out)
+}
+
+/// Compute a lot's state from the store: metrics of every cycle, and the fit.
+pub fn lot_state(conn: &Connection, cfg: &Config, lot: &str) -> Result<LotState> {
+    let record = records::lot(conn, lot)?;
+    let views = records::cycles_of_lot(conn, lot)?;
+    let mut cycles: Vec<CycleState> = Vec::with_capacity(views.len());
+    for (i, v) in views.into_iter().enumerate() {
+        let n = v.cycle_no.and_then(|c| u32::try_from(c).ok()).unwrap_or(i as u32 + 1);
+        let mut flags = Vec::new();
+        if v.conflicts > 0 {
+            flags.push("conflict".to_string());
+        }
+        if v.excluded {
+            flags.push("excluded".to_string());
+        }
+        let sources = sources_of(conn, &v.batch_id)?;
+        cycles.push(CycleState { cycle: n, view: v, metrics: None, sources, flags });
+    }
+    let mut attention = Vec::new();
+    let Some(rec) = record.clone() else {
+        for c in &mut cycles {
+            c.flags.push("pending".into());
+        }
+        attention.push(format!(
+            "{} cycle(s) recorded for lot '{lot}', which nobody registered: pending until the lot is registered",
+            cycles.len()
+        ));
+        return Ok(LotState { lot: lot.to_string(), record, cycles, analysis: None, basis: basis(cfg), attention });
+    };
+    let facts = LotFacts { metal: rec.metal.clone(), loading_wt_pct: rec.loading_wt_pct, charged_mass_g: rec.charged_mass_g };
+    let inputs: Vec<CycleInput> = cycles
+        .iter()
+        .map(|c| CycleInput::from_values(c.cycle, Quantity::ALL.iter().filter_map(|q| c.view.get(*q).map(|v| (*q, v)))))
+        .collect();
+    let metrics = chem::cycle_metrics(&facts, &inputs, &chem_options(cfg));
+    for m in metrics {
+        if let Some(c) = cycles.iter_mut().find(|c| c.cycle == m.cycle_no && c.metrics.is_none()) {
+            for f in &m.flags {
+                if !c.flags.contains(f) {
+                    c.flags.push(f.clone());
+                }
+            }
+            c.metrics = Some(m);
+        }
+    }
+    // The series to fit.
+    let ton_basis = cfg.fitting.measure == "ton";
+    let mut series = LotSeries::default();
+    let mut hours = 0.0;
+    for c in &cycles {
+        let Some(m) = &c.metrics else { continue };
+        hours += c.view.get(Quantity::Duration).unwrap_or(0.0) / 3600.0;
+        if c.view.excluded {
+            continue;
+        }
+        let y = if ton_basis { m.ton } else { m.activity };
+        let Some(y) = y else { continue };
+        series.x.push(if cfg.fitting.axis == "hours" { hours } else { f64::from(c.cycle) });
+        series.y.push(y);
+        series.censored.push(!ton_basis && m.censored);
+        series.ton.push(m.ton);
+    }
+    let product_first_kg = cycles
+        .iter()
+        .find(|c| c.cycle == 1)
+        .and_then(|c| c.view.get(Quantity::ProductMass))
+        .map(|g| g / 1000.0);
+    let opts = analysis_options(cfg, Some(&rec), product_first_kg);
+    let analysis = (!series.x.is_empty()).then(|| fit::analyse(&series, &opts));
+    if let Some(a) = &analysis {
+        attention.extend(attention_from(a));
+    }
+    let pending = cycles.iter().filter(|c| c.flags.iter().any(|f| f == "pending")).count();
+    if pending > 0 {
+        attention.push(format!("{pending} cycle(s) pending: a field a complete cycle needs is missing"));
+    }
+    let conflicts: i64 = cycles.iter().map(|c| c.view.conflicts).sum();
+    if conflicts > 0 {
+        attention.push(format!("{conflicts} conflicting value(s) kept and flagged; settle them with `turnbook correct`"));
+    }
+    Ok(LotState { lot: lot.to_string(), record, cycles, analysis, basis: basis(cfg), attention })
+}
+
+fn basis(cfg: &Config) -> String {
+    format!("{}-vs-{}", cfg.fitting.measure, cfg.fitting.axis)
+}
+
+fn attention_from(a: &LotAnalysis) -> Vec<String> {
+    let mut out = Vec::new();
+    if let Some(f) = &a.forecast {
+        match f.status {
+            fit::ForecastStatus::ReachedAlready => out.push("activity is already at or below the replacement criterion".into()),
+            fit::ForecastStatus::Ahead => {
+                if let (Some(x), Some(last)) = (f.x, a.observed.last().map(|p| p.0)) {
+                    let lo = f.lower.map_or("?".into(), |l| format!("{l:.1}"));
+                    out.push(format!(
+                        "replacement criterion forecast at cycle {x:.1} ({:.0} % interval from {lo}), {:.1} cycles after the newest",
+                        f.confidence * 100.0,
+                        x - last
+                    ));
+                }
+            }
+            _ => {}
+        }
+    }
+    if a.abrupt.as_ref().is_some_and(|b| b.suspected) {
+        out.push("abrupt loss of activity suspected at the newest cycle (poisoning? bad feed lot?)".into());
+    }
+    out
+}
+
+/// Every lot name that has a registration or cycles.
+pub fn lot_names(conn: &Connection) -> Result<Vec<String>> {
+    let mut stmt = conn.prepare(
+        "SELECT lot FROM lots UNION SELECT lot FROM cycles WHERE lot IS NOT NULL ORDER BY 1",
+    )?;
+    let rows = stmt.query_map([], |r| r.get(0))?.collect::<std::result::Result<Vec<String>, _>>()?;
+    Ok(rows)
+}
+
+/// The newest event that wrote records of a lot.
+fn newest_seq_of(conn: &Connection, lot: &str) -> Result<i64> {
+    Ok(conn.query_row(
+        "SELECT MAX(s) FROM (
+             SELECT MAX(m.event_seq) AS s FROM measurements m JOIN cycles c ON c.batch_id = m.batch_id WHERE c.lot = ?1
+             UNION ALL SELECT event_seq FROM lots WHERE lot = ?1
+             UNION ALL SELECT MAX(e.seq) FROM events e WHERE e.kind = 'exclusion' AND e.subject IN (SELECT batch_id FROM cycles WHERE lot = ?1))",
+        [lot],
+        |r| r.get::<_, Option<i64>>(0),
+    )?
+    .unwrap_or(0))
+}
+
+/// Recompute metrics, fits and alerts of the given lots, in the caller's transaction.
+pub fn recompute_lots(tx: &Transaction<'_>, cfg: &Config, lots: &BTreeSet<String>, _actor: &str) -> Result<()> {
+    for lot in lots {
+        let state = lot_state(tx, cfg, lot)?;
+        let after = newest_seq_of(tx, lot)?;
+        let json = match &state.analysis {
+            Some(a) => serde_json::to_string(a)?,
+            None => "null".into(),
+        };
+        tx.prepare_cached(
+            "INSERT INTO fits(lot, computed_at, after_seq, engine_version, basis, model, analysis)
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
+        )?
+        .execute(rusqlite::params![
+            lot,
+            crate::audit::now_utc(),
+            after,
+            fit::ENGINE_VERSION,
+            state.basis,
+            state.analysis.as_ref().and_then(|a| a.chosen).map(|m| m.id()),
+            json
+        ])?;
+        crate::alerting::raise(tx, cfg, &state)?;
+    }
     Ok(())
 }
 
-use crate::commands::CmdResult;
-use rusqlite::Connection;
-
-/// Lots that need someone's attention (wired after the fitting merge).
-pub fn lots_needing_attention(_conn: &Connection, _cfg: &Config) -> Result<Vec<String>> {
-    Ok(Vec::new())
+/// Lots whose stored fit is older than their newest record (an interrupted backfill).
+pub fn stale_lots(conn: &Connection) -> Result<BTreeSet<String>> {
+    let mut out = BTreeSet::new();
+    for lot in lot_names(conn)? {
+        let fitted: Option<i64> = conn
+            .query_row("SELECT MAX(after_seq) FROM fits WHERE lot = ?1", [&lot], |r| r.get(0))
+            .optional()?
+            .flatten();
+        if fitted.is_none_or(|f| f < newest_seq_of(conn, &lot).unwrap_or(0)) {
+            out.insert(lot);
+        }
+    }
+    Ok(out)
 }
 
-/// Messages waiting in the outbox (wired after the alert merge).
-pub fn outbox_waiting(_conn: &Connection) -> Result<i64> {
+/// Recompute every stale lot in one transaction.
+pub fn recompute_stale(conn: &mut Connection, cfg: &Config, actor: &str) -> Result<usize> {
+    let stale = stale_lots(conn)?;
+    if stale.is_empty() {
+        return Ok(0);
+    }
+    let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+    recompute_lots(&tx, cfg, &stale, actor)?;
+    tx.commit()?;
+    Ok(stale.len())
+}
+
+/// Lots that need someone's attention, one line each.
+pub fn lots_needing_attention(conn: &Connection, cfg: &Config) -> Result<Vec<String>> {
+    let mut out = Vec::new();
+    for lot in lot_names(conn)? {
+        let s = lot_state(conn, cfg, &lot)?;
+        for a in s.attention {
+            out.push(format!("{lot}: {a}"));
+        }
+    }
+    Ok(out)
+}
+
+/// Messages waiting in the outbox.
+pub fn outbox_waiting(conn: &Connection) -> Result<i64> {
+    crate::alerting::outbox_waiting(conn)
+}
+
+/// One line of `lots --json`.
+#[derive(Debug, Serialize)]
+pub struct LotLine {
+    pub lot: String,
+    pub registered: bool,
+    pub catalyst: Option<String>,
+    pub metal: Option<String>,
+    pub cycles: usize,
+    pub complete_cycles: usize,
+    pub latest_activity: Option<f64>,
+    pub cumulative_ton: Option<f64>,
+    pub model: Option<String>,
+    pub forecast: Option<serde_json::Value>,
+    pub abrupt_loss: bool,
+    pub flags: Vec<String>,
+    pub attention: Vec<String>,
+}
+
+fn lot_line(s: &LotState) -> LotLine {
+    let mut flags: BTreeSet<String> = BTreeSet::new();
+    for c in &s.cycles {
+        flags.extend(c.flags.iter().cloned());
+    }
+    let a = s.analysis.as_ref();
+    LotLine {
+        lot: s.lot.clone(),
+        registered: s.record.is_some(),
+        catalyst: s.record.as_ref().map(|r| r.catalyst.clone()),
+        metal: s.record.as_ref().map(|r| r.metal.clone()),
+        cycles: s.cycles.len(),
+        complete_cycles: s.cycles.iter().filter(|c| c.metrics.as_ref().is_some_and(|m| m.missing.is_empty())).count(),
+        latest_activity: s.latest_activity(),
+        cumulative_ton: s.cycles.iter().rev().find_map(|c| c.metrics.as_ref().and_then(|m| m.cumulative_ton)),
+        model: a.and_then(|a| a.chosen).map(|m| m.id().to_string()),
+        forecast: a.and_then(|a| a.forecast.as_ref()).and_then(|f| serde_json::to_value(f).ok()),
+        abrupt_loss: a.and_then(|a| a.abrupt.as_ref()).is_some_and(|b| b.suspected),
+        flags: flags.into_iter().collect(),
+        attention: s.attention.clone(),
+    }
+}
+
+fn fmt_opt(v: Option<f64>, digits: usize) -> String {
+    v.map_or("-".into(), |x| format!("{x:.digits$}"))
+}
+
+/// `turnbook lots`.
+pub fn lots(cfg: &Config, json: bool) -> CmdResult {
+    let conn = store::open(&cfg.database_path())?;
+    let mut lines = Vec::new();
+    for lot in lot_names(&conn)? {
+        lines.push(lot_line(&lot_state(&conn, cfg, &lot)?));
+    }
+    if json {
+        println!("{}", serde_json::to_string_pretty(&lines)?);
+        return Ok(0);
+    }
+    if lines.is_empty() {
+        println!("no lots yet: register one (`turnbook register`) or drop a lot sheet into a watched folder");
+        return Ok(0);
+    }
+    println!(
+        "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} {}",
+        "lot", "catalyst", "cycles", "activity", "cum. TON", "model", "forecast / flags"
+    );
+    for l in &lines {
+        let forecast = l.forecast.as_ref().map(|f| {
+            let st = f["status"].as_str().unwrap_or("");
+            match (f["x"].as_f64(), st) {
+                (Some(x), "ahead") => format!(
+                    "criterion at cycle {x:.1} [{}, {}]",
+                    f["lower"].as_f64().map_or("-inf".into(), |v| format!("{v:.1}")),
+                    f["upper"].as_f64().map_or("+inf".into(), |v| format!("{v:.1}"))
+                ),
+                _ => st.replace('-', " "),
+            }
+        });
+        let mut tail = forecast.unwrap_or_default();
+        if l.abrupt_loss {
+            tail.push_str("  ABRUPT LOSS");
+        }
+        if !l.flags.is_empty() {
+            let _ = write!(tail, "  [{}]", l.flags.join(", "));
+        }
+        println!(
+            "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} {}",
+            l.lot,
+            l.catalyst.clone().unwrap_or_else(|| "(not registered)".into()),
+            l.cycles,
+            fmt_opt(l.latest_activity, 3),
+            fmt_opt(l.cumulative_ton, 0),
+            l.model.clone().unwrap_or_else(|| "-".into()),
+            tail
+        );
+    }
     Ok(0)
 }
 
-pub fn lots(_cfg: &Config, _json: bool) -> CmdResult {
-    Ok(0)
+/// One row of the cycle table (CSV and JSON).
+#[derive(Debug, Serialize)]
+pub struct CycleLine {
+    pub cycle: u32,
+    pub batch_id: String,
+    pub started_at: Option<String>,
+    pub duration_h: Option<f64>,
+    pub temperature_c: Option<f64>,
+    pub substrate_mol: Option<f64>,
+    pub catalyst_charged_g: Option<f64>,
+    pub conversion: Option<f64>,
+    pub selectivity: Option<f64>,
+    pub yield_fraction: Option<f64>,
+    pub product_mass_g: Option<f64>,
+    pub metal_in_product_ug_g: Option<f64>,
+    pub catalyst_recovered_g: Option<f64>,
+    pub ton: Option<f64>,
+    pub tof_per_h: Option<f64>,
+    pub tof_per_s: Option<f64>,
+    pub cumulative_ton: Option<f64>,
+    pub k_app_per_h: Option<f64>,
+    pub activity: Option<f64>,
+    pub metal_lost_mg: Option<f64>,
+    pub cumulative_metal_loss_fraction: Option<f64>,
+    pub flags: String,
+    pub sources: String,
 }
 
-pub fn cycles(_cfg: &Config, _lot: &str, _format: &str) -> CmdResult {
+pub fn cycle_lines(s: &LotState) -> Vec<CycleLine> {
+    s.cycles
+        .iter()
+        .map(|c| {
+            let m = c.metrics.as_ref();
+            let v = &c.view;
+            CycleLine {
+                cycle: c.cycle,
+                batch_id: v.batch_id.clone(),
+                started_at: v.started_at.clone(),
+                duration_h: v.get(Quantity::Duration).map(|s| s / 3600.0),
+                temperature_c: v.get(Quantity::Temperature).map(|k| k - 273.15),
+                substrate_mol: v.get(Quantity::Substrate),
+                catalyst_charged_g: m.and_then(|m| m.catalyst_charged_g),
+                conversion: v.get(Quantity::Conversion),
+                selectivity: v.get(Quantity::Selectivity),
+                yield_fraction: m.and_then(|m| m.yield_used),
+                product_mass_g: v.get(Quantity::ProductMass),
+                metal_in_product_ug_g: v.get(Quantity::MetalInProduct),
+                catalyst_recovered_g: v.get(Quantity::CatalystRecovered),
+                ton: m.and_then(|m| m.ton),
+                tof_per_h: m.and_then(|m| m.tof_per_h),
+                tof_per_s: m.and_then(|m| m.tof_per_s),
+                cumulative_ton: m.and_then(|m| m.cumulative_ton),
+                k_app_per_h: m.and_then(|m| m.k_app_per_h),
+                activity: m.and_then(|m| m.activity),
+                metal_lost_mg: m.and_then(|m| m.metal_lost_g).map(|g| g * 1000.0),
+                cumulative_metal_loss_fraction: m.and_then(|m| m.cumulative_loss_fraction),
+                flags: c.flags.join(" "),
+                sources: c
+                    .sources
+                    .iter()
+                    .map(|s| format!("{}:{} ({})", s.path, s.lines.iter().map(|l| l.to_string()).collect::<Vec<_>>().join(","), &s.sha256[..12.min(s.sha256.len())]))
+                    .collect::<Vec<_>>()
+                    .join("; "),
+            }
+        })
+        .collect()
+}
+
+/// `turnbook cycles LOT`.
+pub fn cycles(cfg: &Config, lot: &str, format: &str) -> CmdResult {
+    let conn = store::open(&cfg.database_path())?;
+    let s = lot_state(&conn, cfg, lot)?;
+    if s.cycles.is_empty() && s.record.is_none() {
+        return Err(Failure::rejected(format!("no lot '{lot}' is registered and no cycle names it")));
+    }
+    let lines = cycle_lines(&s);
+    match format {
+        "json" => println!("{}", serde_json::to_string_pretty(&serde_json::json!({"lot": lot, "cycles": lines}))?),
+        "csv" => {
+            let mut w = csv::Writer::from_writer(std::io::stdout());
+            for l in &lines {
+                w.serialize(l).map_err(|e| Failure::rejected(format!("cannot write CSV: {e}")))?;
+            }
+            w.flush()?;
+        }
+        _ => {
+            if let Some(r) = &s.record {
+                println!("lot {} — {} ({} {} wt %, {} g charged)", r.lot, r.catalyst, r.metal, r.loading_wt_pct, r.charged_mass_g);
+            } else {
+                println!("lot {lot} — not registered: its cycles are pending");
+            }
+            println!(
+                "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>7} {:>7} {:>8}  flags / sources",
+                "cycle", "batch", "T °C", "t h", "conv", "yield", "TON", "TOF h⁻¹", "k h⁻¹", "act.", "M µg/g"
+            );
+            for l in &lines {
+                println!(
+                    "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>7} {:>7} {:>8}  {} | {}",
+                    l.cycle,
+                    l.batch_id,
+                    fmt_opt(l.temperature_c, 1),
+                    fmt_opt(l.duration_h, 2),
+                    fmt_opt(l.conversion, 4),
+                    fmt_opt(l.yield_fraction, 4),
+                    fmt_opt(l.ton, 1),
+                    fmt_opt(l.tof_per_h, 1),
+                    fmt_opt(l.k_app_per_h, 3),
+                    fmt_opt(l.activity, 3),
+                    fmt_opt(l.metal_in_product_ug_g, 2),
+                    if l.flags.is_empty() { "-" } else { &l.flags },
+                    l.sources
+                );
+            }
+            for a in &s.attention {
+                println!("attention: {a}");
+            }
+        }
+    }
     Ok(0)
 }

@@ -99,6 +99,12 @@ pub fn body_safe(s: &str) -> String {
         .collect()
 }
 
+/// A name (lot, site, file) folded to one line for a body, so a line break inside it
+/// cannot fake a line of the message.
+pub fn one_line(s: &str) -> String {
+    header_safe(s, 300)
+}
+
 /// Escape text for HTML element content and quoted attribute values.
 pub fn html_escape(s: &str) -> String {
     let mut out = String::with_capacity(s.len() + 8);
@@ -154,13 +160,13 @@ pub fn compose_alert(
     };
 
     let mut text = String::new();
-    let _ = writeln!(text, "{}\n", body_safe(&alert.subject));
+    let _ = writeln!(text, "{}\n", one_line(&alert.subject));
     let _ = writeln!(text, "{headline}");
     let _ = writeln!(
         text,
         "Lot: {}    Site: {}    Severity: {}\n",
-        body_safe(&alert.lot),
-        body_safe(&alert.site),
+        one_line(&alert.lot),
+        one_line(&alert.site),
         alert.severity.as_str()
     );
     text.push_str(&body_safe(&alert.evidence));
@@ -176,8 +182,8 @@ pub fn compose_alert(
                 "{:>5}  {:<8}  {}  {}",
                 r.cycle,
                 num(r.value),
-                body_safe(&r.source_file),
-                body_safe(&r.sha256)
+                one_line(&r.source_file),
+                one_line(&r.sha256)
             );
         }
     }
@@ -188,7 +194,7 @@ pub fn compose_alert(
     let _ = writeln!(
         text,
         "\nAlert key: {}\nMessage-ID: {message_id}",
-        body_safe(&alert.key)
+        one_line(&alert.key)
     );
 
     let mut html = String::new();
@@ -196,10 +202,10 @@ pub fn compose_alert(
     let _ = write!(
         html,
         "<h2>{}</h2><p>{}</p><p>Lot <b>{}</b>, site {}, severity {}.</p>",
-        html_escape(&alert.subject),
+        html_escape(&one_line(&alert.subject)),
         headline,
-        html_escape(&alert.lot),
-        html_escape(&alert.site),
+        html_escape(&one_line(&alert.lot)),
+        html_escape(&one_line(&alert.site)),
         alert.severity.as_str()
     );
     html.push_str("<pre style=\"white-space:pre-wrap\">");

@@ -373,3 +373,95 @@ fn mail_config_rejects_unknown_keys() {
     assert_eq!(c.security, Security::Tls);
     assert!(toml::from_str::<MailConfig>("password = \"x\"").is_err());
 }
+
+#[test]
+fn digest_is_queued_once_per_period_and_kept_out_of_changes() {
+    use turnbook::alert::compose_digest;
+    use turnbook::alert::digest::DigestPeriod;
+    use turnbook::alert::outbox::enqueue_message;
+    let dir = tempfile::tempdir().unwrap();
+    let mut conn = db(&dir.path().join("t.db"));
+    queue(&mut conn, &snap("L1", 0.1), "2026-12-01T06:00:00Z");
+    let period = DigestPeriod {
+        from: t("2026-11-30T07:30:00Z"),
+        to: t("2026-12-01T07:30:00Z"),
+    };
+    let open = open_alerts(&conn).unwrap();
+    let changes = changes_since(&conn, "2026-11-30T07:30:00Z").unwrap();
+    assert_eq!((open.len(), changes.len()), (1, 1));
+    let msg = compose_digest(
+        &[snap("L1", 0.1)],
+        &changes,
+        &open,
+        &period,
+        &["boss@example.org".into()],
+    );
+    assert!(msg.text.contains("Changes in the period (1)"));
+    for _ in 0..2 {
+        let tx = conn.transaction().unwrap();
+        enqueue_message(
+            &tx,
+            "digest|2026-12-01T07:30:00Z",
+            &msg,
+            "2026-12-01T07:30:00Z",
+        )
+        .unwrap();
+        tx.commit().unwrap();
+    }
+    let n: i64 = conn
+        .query_row(
+            "SELECT count(*) FROM alert_outbox WHERE rule = 'digest'",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert_eq!(n, 1);
+    assert_eq!(
+        changes_since(&conn, "2026-11-30T07:30:00Z").unwrap().len(),
+        1
+    );
+}
+
+#[tokio::test]
+async fn run_mailer_delivers_and_stops_on_shutdown() {
+    if std::env::var_os("TURNBOOK_SMTP_URL").is_some() {
+        eprintln!("skipped: TURNBOOK_SMTP_URL is set and would override the file transport");
+        return;
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("t.db");
+    let mut conn = db(&path);
+    // queued in the past so it is due whatever the clock says
+    queue(&mut conn, &snap("L9", 0.1), "2020-01-01T00:00:00Z");
+    let out = dir.path().join("outbox");
+    let cfg = MailConfig {
+        poll_seconds: 1,
+        ..file_cfg(&out)
+    };
+    let (tx, rx) = tokio::sync::watch::channel(false);
+    let p2 = path.clone();
+    let task = tokio::spawn(async move { turnbook::alert::run_mailer(&p2, &cfg, rx).await });
+    let mut delivered = false;
+    for _ in 0..100 {
+        let n: i64 = conn
+            .query_row(
+                "SELECT count(*) FROM alert_outbox WHERE delivered_at IS NOT NULL",
+                [],
+                |r| r.get(0),
+            )
+            .unwrap();
+        if n == 1 {
+            delivered = true;
+            break;
+        }
+        tokio::time::sleep(std::time::Duration::from_millis(50)).await;
+    }
+    assert!(delivered, "the mailer did not deliver");
+    tx.send(true).unwrap();
+    let res = tokio::time::timeout(std::time::Duration::from_secs(10), task)
+        .await
+        .expect("mailer did not stop after shutdown")
+        .unwrap();
+    assert!(res.is_ok());
+    assert_eq!(std::fs::read_dir(&out).unwrap().count(), 1);
+}

@@ -121,14 +121,6 @@ pub fn html_escape(s: &str) -> String {
     out
 }
 
-fn state_label(state: AlertState) -> &'static str {
-    match state {
-        AlertState::Open => "",
-        AlertState::Worse => "[worse] ",
-        AlertState::Cleared => "[cleared] ",
-    }
-}
-
 fn num(v: f64) -> String {
     if v.is_finite() {
         format!("{v:.4}")
@@ -144,15 +136,13 @@ pub fn compose_alert(
     message_id: &str,
     in_reply_to: Option<&str>,
 ) -> ComposedMessage {
-    let subject = header_safe(
-        &format!(
-            "turnbook {}: {}{}",
-            alert.severity.as_str(),
-            state_label(state),
-            alert.subject
-        ),
-        200,
-    );
+    // A clearing is good news whatever the episode's severity was; say so first.
+    let prefix = match state {
+        AlertState::Open => format!("turnbook {}", alert.severity.as_str()),
+        AlertState::Worse => format!("turnbook {} (worse)", alert.severity.as_str()),
+        AlertState::Cleared => "turnbook cleared".to_string(),
+    };
+    let subject = header_safe(&format!("{prefix}: {}", alert.subject), 200);
     let headline = match state {
         AlertState::Open => "This condition is new.",
         AlertState::Worse => "This condition has become worse since the last message.",
@@ -386,8 +376,13 @@ mod tests {
         let m = compose_alert(&alert("L\r\n1"), AlertState::Worse, "<x@y>", Some("<p@y>"));
         assert_eq!(
             m.subject,
-            "turnbook critical: [worse] Lot L 1: activity below replacement criterion"
+            "turnbook critical (worse): Lot L 1: activity below replacement criterion"
         );
         assert!(m.text.contains("become worse"));
+        let c = compose_alert(&alert("L1"), AlertState::Cleared, "<x@y>", None);
+        assert_eq!(
+            c.subject,
+            "turnbook cleared: Lot L1: activity below replacement criterion"
+        );
     }
 }

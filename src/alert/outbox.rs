@@ -341,6 +341,16 @@ pub fn mark_failed(
     Ok(next)
 }
 
+fn parse_state(key: &str, state: &str, sev: i64) -> Result<(AlertState, Severity), AlertError> {
+    match (AlertState::parse(state), Severity::from_level(sev)) {
+        (Some(st), Some(sv)) => Ok((st, sv)),
+        _ => Err(AlertError::Corrupt {
+            id: 0,
+            what: format!("alert {key:?}: state {state:?} / severity {sev}"),
+        }),
+    }
+}
+
 /// Alerts whose condition is currently open or worse, most severe first.
 pub fn open_alerts(conn: &Connection) -> Result<Vec<OpenAlert>, AlertError> {
     let mut st = conn.prepare(
@@ -364,9 +374,10 @@ pub fn open_alerts(conn: &Connection) -> Result<Vec<OpenAlert>, AlertError> {
     let mut out = Vec::new();
     for row in rows {
         let (key, rule, lot, state, sev, since, subject) = row?;
+        let (state, severity) = parse_state(&key, &state, sev)?;
         out.push(OpenAlert {
-            state: AlertState::parse(&state).unwrap_or(AlertState::Open),
-            severity: Severity::from_level(sev).unwrap_or(Severity::Warning),
+            state,
+            severity,
             key,
             rule,
             lot,
@@ -397,12 +408,13 @@ pub fn changes_since(conn: &Connection, since: &str) -> Result<Vec<AlertChange>,
     let mut out = Vec::new();
     for row in rows {
         let (at, key, lot, state, sev, subject) = row?;
+        let (state, severity) = parse_state(&key, &state, sev)?;
         out.push(AlertChange {
             at,
             key,
             lot,
-            state: AlertState::parse(&state).unwrap_or(AlertState::Open),
-            severity: Severity::from_level(sev).unwrap_or(Severity::Warning),
+            state,
+            severity,
             subject,
         });
     }

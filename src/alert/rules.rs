@@ -206,6 +206,57 @@ impl Default for AlertRules {
     }
 }
 
+impl AlertRules {
+    /// Problems with the section, one message each; empty when it is usable.
+    pub fn problems(&self) -> Vec<String> {
+        let mut p = Vec::new();
+        if !(self.lead_cycles.is_finite() && self.lead_cycles >= 0.0) {
+            p.push(format!(
+                "alerts.lead_cycles must be >= 0, got {}",
+                self.lead_cycles
+            ));
+        }
+        if let Some(d) = self.lead_days
+            && !(d.is_finite() && d >= 0.0)
+        {
+            p.push(format!("alerts.lead_days must be >= 0, got {d}"));
+        }
+        if !(self.metal_loss_limit > 0.0 && self.metal_loss_limit <= 1.0) {
+            p.push(format!(
+                "alerts.metal_loss_limit is a fraction in (0, 1], got {}",
+                self.metal_loss_limit
+            ));
+        }
+        if !(self.metal_warn_ratio > 0.0 && self.metal_warn_ratio <= 1.0) {
+            p.push(format!(
+                "alerts.metal_warn_ratio is a fraction in (0, 1], got {}",
+                self.metal_warn_ratio
+            ));
+        }
+        let site_lists = self.sites.iter().flat_map(|(site, o)| {
+            [&o.chemists, &o.qa, &o.managers]
+                .into_iter()
+                .flatten()
+                .flatten()
+                .map(move |a| (format!("alerts.sites.{site}"), a))
+        });
+        let general = [
+            &self.recipients.chemists,
+            &self.recipients.qa,
+            &self.recipients.managers,
+        ]
+        .into_iter()
+        .flatten()
+        .map(|a| ("alerts.recipients".to_string(), a));
+        for (place, addr) in general.chain(site_lists) {
+            if addr.parse::<lettre::message::Mailbox>().is_err() {
+                p.push(format!("{place}: {addr:?} is not a mail address"));
+            }
+        }
+        p
+    }
+}
+
 /// The rules, by a stable name used in alert keys and stored in the outbox.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
 pub enum RuleId {
@@ -455,13 +506,12 @@ pub fn evaluate(snap: &LotSnapshot, rules: &AlertRules) -> Vec<Alert> {
     {
         let outside = ab.newest < ab.pi_lower;
         let cusum_over = ab.cusum > ab.h;
-        let active = ab.flagged.then(|| {
-            if outside && cusum_over {
-                Severity::Critical
-            } else {
-                Severity::Warning
-            }
-        });
+        let severity = if outside && cusum_over {
+            Severity::Critical
+        } else {
+            Severity::Warning
+        };
+        let active = ab.flagged.then_some(severity);
         let text = format!(
             "Newest activity {} against one-step prediction interval [{}, {}].\n\
              CUSUM of standardised residuals {} against decision limit h = {}.\n",
@@ -949,5 +999,25 @@ mod tests {
             vec!["c@example.org", "north-m@example.org"]
         );
         assert!(toml::from_str::<AlertRules>("lead_cycle = 2").is_err());
+        assert!(r.problems().is_empty());
+    }
+
+    #[test]
+    fn problems_are_reported() {
+        let mut r = rules();
+        assert!(r.problems().is_empty());
+        r.lead_cycles = -1.0;
+        r.metal_loss_limit = 2.0;
+        r.recipients.qa.push("not an address".into());
+        r.sites.insert(
+            "South".into(),
+            SiteRecipients {
+                managers: Some(vec!["x@".into()]),
+                ..SiteRecipients::default()
+            },
+        );
+        let p = r.problems();
+        assert_eq!(p.len(), 4, "{p:?}");
+        assert!(p[3].starts_with("alerts.sites.South"));
     }
 }

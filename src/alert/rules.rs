@@ -7,6 +7,8 @@ use std::fmt::{self, Write as _};
 
 use serde::Deserialize;
 
+use super::digest::DigestSchedule;
+
 /// Where a forecast of the replacement cycle stands.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum ForecastStatus {
@@ -188,6 +190,9 @@ pub struct AlertRules {
     pub recipients: Recipients,
     /// Per-site overrides, keyed by site name.
     pub sites: BTreeMap<String, SiteRecipients>,
+    /// When the managers' digest goes out ("daily HH:MM" or "weekly DAY HH:MM", UTC);
+    /// absent means no digest.
+    pub digest: Option<DigestSchedule>,
 }
 
 impl Default for AlertRules {
@@ -202,6 +207,7 @@ impl Default for AlertRules {
             rules: RuleSwitches::default(),
             recipients: Recipients::default(),
             sites: BTreeMap::new(),
+            digest: None,
         }
     }
 }
@@ -985,6 +991,7 @@ mod tests {
         let r: AlertRules = toml::from_str(
             r#"
             lead_cycles = 2
+            digest = "weekly mon 07:00"
             [recipients]
             chemists = ["c@example.org"]
             managers = ["m@example.org"]
@@ -998,7 +1005,9 @@ mod tests {
             only(&a, RuleId::BelowCriterion).recipients,
             vec!["c@example.org", "north-m@example.org"]
         );
+        assert!(matches!(r.digest, Some(DigestSchedule::Weekly { .. })));
         assert!(toml::from_str::<AlertRules>("lead_cycle = 2").is_err());
+        assert!(toml::from_str::<AlertRules>("digest = \"hourly\"").is_err());
         assert!(r.problems().is_empty());
     }
 

@@ -91,11 +91,20 @@ fn slot_after(t: DateTime<Utc>, schedule: &DigestSchedule, inclusive: bool) -> D
             (at, 7, i64::from(ahead))
         }
     };
-    let mut slot = (t.date_naive() + Duration::days(first_offset))
-        .and_time(at)
-        .and_utc();
+    // Checked arithmetic: at the ends of the calendar the answer is `t` itself (due now)
+    // rather than a panic.
+    let Some(mut slot) = t
+        .date_naive()
+        .checked_add_signed(Duration::days(first_offset))
+        .map(|d| d.and_time(at).and_utc())
+    else {
+        return t;
+    };
     while slot < t || (slot == t && !inclusive) {
-        slot += Duration::days(step);
+        match slot.checked_add_signed(Duration::days(step)) {
+            Some(next) => slot = next,
+            None => return t,
+        }
     }
     slot
 }
@@ -153,8 +162,8 @@ pub fn compose_digest(
     let subject = header_safe(
         &format!(
             "turnbook digest {} to {}: {} lots, {} open alerts",
-            &from[..10],
-            &to[..10],
+            period.from.format("%Y-%m-%d"),
+            period.to.format("%Y-%m-%d"),
             snapshots.len(),
             open_alerts.len()
         ),
@@ -332,6 +341,9 @@ mod tests {
             next_digest_due(None, &tue, t("2026-12-01T10:00:00Z")),
             t("2026-12-01T12:00:00Z")
         );
+        // the end of the calendar does not panic
+        let _ = next_digest_due(None, &w, DateTime::<Utc>::MAX_UTC);
+        let _ = next_digest_due(Some(DateTime::<Utc>::MIN_UTC), &w, DateTime::<Utc>::MAX_UTC);
         assert!("hourly".parse::<DigestSchedule>().is_err());
         assert!("daily 25:00".parse::<DigestSchedule>().is_err());
         assert!("weekly xyz 10:00".parse::<DigestSchedule>().is_err());

@@ -332,7 +332,7 @@ pub fn mark_failed(
     let attempts = attempts_before.saturating_add(1);
     let delay = chrono::Duration::from_std(backoff(attempts))
         .unwrap_or_else(|_| chrono::Duration::hours(1));
-    let next = now + delay;
+    let next = now.checked_add_signed(delay).unwrap_or(now);
     conn.execute(
         "UPDATE alert_outbox SET attempts = ?2, next_attempt_at = ?3, last_error = ?4 \
          WHERE id = ?1 AND delivered_at IS NULL",

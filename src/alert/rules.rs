@@ -198,7 +198,8 @@ pub struct AlertRules {
 impl Default for AlertRules {
     fn default() -> Self {
         AlertRules {
-            // Three cycles: time to order and qualify a fresh lot (common practice).
+            // Starting points, not taken from a standard: each site sets the lead to the
+            // time it needs to order and qualify a fresh lot, and its own loss limit.
             lead_cycles: 3.0,
             lead_days: None,
             forecast_bound: ForecastBound::Lower,

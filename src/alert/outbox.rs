@@ -1,0 +1,460 @@
+//! The durable outbox: alerts become rows in the caller's transaction, and the mailer
+//! works the rows off until each is delivered.
+//!
+//! `alert_condition` remembers the state of every alert key; it is what turns the rules'
+//! open/cleared verdicts into messages: a new opening, a rise in severity ("worse") and a
+//! clearing each queue one message, a repeat of the same verdict queues nothing.
+
+use std::time::Duration;
+
+use chrono::{DateTime, SecondsFormat, Utc};
+use rusqlite::{Connection, OptionalExtension, Transaction, params};
+use sha2::{Digest, Sha256};
+
+use super::AlertError;
+use super::compose::{ComposedMessage, compose_alert};
+use super::digest::{AlertChange, OpenAlert};
+use super::rules::{Alert, AlertState, Severity};
+
+/// Domain of our Message-IDs; `.invalid` is reserved (RFC 2606), so it can never clash
+/// with a real host's identifiers.
+pub const MESSAGE_ID_DOMAIN: &str = "turnbook.invalid";
+
+/// Timestamps are stored as RFC 3339 UTC with milliseconds, so text order is time order.
+pub fn format_ts(t: DateTime<Utc>) -> String {
+    t.to_rfc3339_opts(SecondsFormat::Millis, true)
+}
+
+/// Parse an RFC 3339 timestamp (any offset) to UTC.
+pub fn parse_ts(s: &str) -> Result<DateTime<Utc>, AlertError> {
+    DateTime::parse_from_rfc3339(s)
+        .map(|t| t.with_timezone(&Utc))
+        .map_err(|_| AlertError::Time(s.chars().take(64).collect()))
+}
+
+/// A Message-ID fixed by what the message says, so a resend after a crash carries the
+/// same identifier and receivers can drop the duplicate.
+pub fn message_id_for(key: &str, episode: i64, state: AlertState, severity: Severity) -> String {
+    let mut h = Sha256::new();
+    h.update(key.as_bytes());
+    h.update([0]);
+    h.update(episode.to_le_bytes());
+    h.update(state.as_str().as_bytes());
+    h.update([severity as u8]);
+    let hexed = hex::encode(h.finalize());
+    format!("<{}.alert@{MESSAGE_ID_DOMAIN}>", &hexed[..32])
+}
+
+/// Delay before the next attempt after `attempts` failures: 30 s doubling, capped at 1 h.
+pub fn backoff(attempts: u32) -> Duration {
+    const BASE: u64 = 30;
+    const CAP: u64 = 3600;
+    let exp = attempts.saturating_sub(1).min(20);
+    Duration::from_secs(BASE.saturating_mul(1u64 << exp).min(CAP))
+}
+
+struct Condition {
+    state: AlertState,
+    severity: Severity,
+    episode: i64,
+    thread: String,
+}
+
+fn load_condition(tx: &Transaction, key: &str) -> Result<Option<Condition>, AlertError> {
+    let row = tx
+        .query_row(
+            "SELECT state, severity, episode, thread_message_id FROM alert_condition \
+             WHERE alert_key = ?1",
+            [key],
+            |r| {
+                Ok((
+                    r.get::<_, String>(0)?,
+                    r.get::<_, i64>(1)?,
+                    r.get::<_, i64>(2)?,
+                    r.get::<_, String>(3)?,
+                ))
+            },
+        )
+        .optional()?;
+    let Some((state, sev, episode, thread)) = row else {
+        return Ok(None);
+    };
+    let corrupt = |what: &str| AlertError::Corrupt {
+        id: episode,
+        what: format!("alert_condition {key:?}: {what}"),
+    };
+    Ok(Some(Condition {
+        state: AlertState::parse(&state).ok_or_else(|| corrupt("state"))?,
+        severity: Severity::from_level(sev).ok_or_else(|| corrupt("severity"))?,
+        episode,
+        thread,
+    }))
+}
+
+/// What to do with one alert given the stored condition: (state to send, episode,
+/// severity to remember), or None when nothing changes.
+fn decide(alert: &Alert, prev: Option<&Condition>) -> Option<(AlertState, i64, Severity)> {
+    let active = |c: &Condition| c.state != AlertState::Cleared;
+    match (alert.state, prev) {
+        (AlertState::Cleared, Some(c)) if active(c) => {
+            Some((AlertState::Cleared, c.episode, c.severity))
+        }
+        (AlertState::Cleared, _) => None,
+        (_, Some(c)) if active(c) => {
+            (alert.severity > c.severity).then_some((AlertState::Worse, c.episode, alert.severity))
+        }
+        (_, Some(c)) => Some((AlertState::Open, c.episode + 1, alert.severity)),
+        (_, None) => Some((AlertState::Open, 1, alert.severity)),
+    }
+}
+
+/// Queue the messages these alerts call for, inside the caller's transaction.
+///
+/// Returns how many outbox rows were written. An alert without recipients is still
+/// recorded (so the history shows it was raised) but held: it is never attempted.
+pub fn enqueue(tx: &Transaction, alerts: &[Alert], now: &str) -> Result<usize, AlertError> {
+    let now = format_ts(parse_ts(now)?);
+    let mut queued = 0;
+    for alert in alerts {
+        let prev = load_condition(tx, &alert.key)?;
+        let Some((state, episode, severity)) = decide(alert, prev.as_ref()) else {
+            continue;
+        };
+        let message_id = message_id_for(&alert.key, episode, state, severity);
+        let thread = match (&prev, state) {
+            (Some(c), AlertState::Worse | AlertState::Cleared) => Some(c.thread.clone()),
+            _ => None,
+        };
+        let mut shown = alert.clone();
+        shown.severity = severity;
+        let msg = compose_alert(&shown, state, &message_id, thread.as_deref());
+        let n = insert_message(
+            tx,
+            &alert.key,
+            alert.rule.as_str(),
+            &alert.lot,
+            episode,
+            state,
+            severity,
+            &msg,
+            &now,
+        )?;
+        queued += n;
+        tx.execute(
+            "INSERT INTO alert_condition \
+               (alert_key, rule, lot, state, severity, episode, thread_message_id, changed_at) \
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8) \
+             ON CONFLICT (alert_key) DO UPDATE SET state = excluded.state, \
+               severity = excluded.severity, episode = excluded.episode, \
+               thread_message_id = excluded.thread_message_id, changed_at = excluded.changed_at",
+            params![
+                alert.key,
+                alert.rule.as_str(),
+                alert.lot,
+                state.as_str(),
+                severity as i64,
+                episode,
+                thread.unwrap_or(message_id),
+                now
+            ],
+        )?;
+        tracing::info!(
+            key = %alert.key, state = state.as_str(), severity = severity.as_str(),
+            "alert queued"
+        );
+    }
+    Ok(queued)
+}
+
+#[allow(clippy::too_many_arguments)]
+fn insert_message(
+    tx: &Transaction,
+    key: &str,
+    rule: &str,
+    lot: &str,
+    episode: i64,
+    state: AlertState,
+    severity: Severity,
+    msg: &ComposedMessage,
+    now: &str,
+) -> Result<usize, AlertError> {
+    let recipients =
+        serde_json::to_string(&msg.recipients).map_err(|e| AlertError::Build(e.to_string()))?;
+    let (next, err) = if msg.recipients.is_empty() {
+        tracing::warn!(key, "alert has no recipients configured; recorded but held");
+        (None, Some("held: no recipients configured"))
+    } else {
+        (Some(now), None)
+    };
+    let n = tx.execute(
+        "INSERT OR IGNORE INTO alert_outbox \
+           (alert_key, rule, lot, episode, state, severity, message_id, in_reply_to, subject, \
+            body_text, body_html, recipients, queued_at, next_attempt_at, last_error) \
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15)",
+        params![
+            key,
+            rule,
+            lot,
+            episode,
+            state.as_str(),
+            severity as i64,
+            msg.message_id,
+            msg.in_reply_to,
+            msg.subject,
+            msg.text,
+            msg.html,
+            recipients,
+            now,
+            next,
+            err
+        ],
+    )?;
+    Ok(n)
+}
+
+/// Queue a digest (or any composed message not tied to an alert condition). `key` names
+/// the period, e.g. `digest|2026-12-07`; the same key is never queued twice.
+pub fn enqueue_message(
+    tx: &Transaction,
+    key: &str,
+    msg: &ComposedMessage,
+    now: &str,
+) -> Result<usize, AlertError> {
+    let now = format_ts(parse_ts(now)?);
+    insert_message(
+        tx,
+        key,
+        "digest",
+        "",
+        1,
+        AlertState::Open,
+        Severity::Info,
+        msg,
+        &now,
+    )
+}
+
+/// A queued message awaiting delivery.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PendingMessage {
+    pub id: i64,
+    pub message: ComposedMessage,
+    pub rule: String,
+    pub lot: String,
+    pub queued_at: DateTime<Utc>,
+    pub attempts: u32,
+}
+
+/// Messages whose next attempt is due at `now`, oldest first.
+pub fn due_messages(
+    conn: &Connection,
+    now: DateTime<Utc>,
+    limit: usize,
+) -> Result<Vec<PendingMessage>, AlertError> {
+    let mut st = conn.prepare(
+        "SELECT id, message_id, in_reply_to, subject, body_text, body_html, recipients, \
+                queued_at, attempts, rule, lot \
+         FROM alert_outbox \
+         WHERE delivered_at IS NULL AND next_attempt_at IS NOT NULL AND next_attempt_at <= ?1 \
+         ORDER BY id LIMIT ?2",
+    )?;
+    let lim = i64::try_from(limit).unwrap_or(i64::MAX);
+    let rows = st.query_map(params![format_ts(now), lim], |r| {
+        Ok((
+            r.get::<_, i64>(0)?,
+            r.get::<_, String>(1)?,
+            r.get::<_, Option<String>>(2)?,
+            r.get::<_, String>(3)?,
+            r.get::<_, String>(4)?,
+            r.get::<_, String>(5)?,
+            r.get::<_, String>(6)?,
+            r.get::<_, String>(7)?,
+            r.get::<_, i64>(8)?,
+            r.get::<_, String>(9)?,
+            r.get::<_, String>(10)?,
+        ))
+    })?;
+    let mut out = Vec::new();
+    for row in rows {
+        let (id, mid, irt, subject, text, html, rcpt, queued, attempts, rule, lot) = row?;
+        let recipients: Vec<String> =
+            serde_json::from_str(&rcpt).map_err(|e| AlertError::Corrupt {
+                id,
+                what: format!("recipients: {e}"),
+            })?;
+        let queued_at = parse_ts(&queued).map_err(|_| AlertError::Corrupt {
+            id,
+            what: "queued_at".into(),
+        })?;
+        out.push(PendingMessage {
+            id,
+            message: ComposedMessage {
+                message_id: mid,
+                in_reply_to: irt,
+                subject,
+                text,
+                html,
+                recipients,
+            },
+            rule,
+            lot,
+            queued_at,
+            attempts: u32::try_from(attempts).unwrap_or(u32::MAX),
+        });
+    }
+    Ok(out)
+}
+
+/// Record a successful hand-over with the server's reply.
+pub fn mark_delivered(
+    conn: &Connection,
+    id: i64,
+    now: DateTime<Utc>,
+    reply: &str,
+) -> Result<(), AlertError> {
+    conn.execute(
+        "UPDATE alert_outbox SET delivered_at = ?2, server_reply = ?3, next_attempt_at = NULL, \
+           attempts = attempts + 1, last_error = NULL WHERE id = ?1 AND delivered_at IS NULL",
+        params![id, format_ts(now), reply],
+    )?;
+    Ok(())
+}
+
+/// Record a failed attempt and schedule the next one with [`backoff`]. Returns the time
+/// of the next attempt.
+pub fn mark_failed(
+    conn: &Connection,
+    id: i64,
+    attempts_before: u32,
+    now: DateTime<Utc>,
+    error: &str,
+) -> Result<DateTime<Utc>, AlertError> {
+    let attempts = attempts_before.saturating_add(1);
+    let delay = chrono::Duration::from_std(backoff(attempts))
+        .unwrap_or_else(|_| chrono::Duration::hours(1));
+    let next = now.checked_add_signed(delay).unwrap_or(now);
+    conn.execute(
+        "UPDATE alert_outbox SET attempts = ?2, next_attempt_at = ?3, last_error = ?4 \
+         WHERE id = ?1 AND delivered_at IS NULL",
+        params![id, i64::from(attempts), format_ts(next), error],
+    )?;
+    Ok(next)
+}
+
+fn parse_state(key: &str, state: &str, sev: i64) -> Result<(AlertState, Severity), AlertError> {
+    match (AlertState::parse(state), Severity::from_level(sev)) {
+        (Some(st), Some(sv)) => Ok((st, sv)),
+        _ => Err(AlertError::Corrupt {
+            id: 0,
+            what: format!("alert {key:?}: state {state:?} / severity {sev}"),
+        }),
+    }
+}
+
+/// Alerts whose condition is currently open or worse, most severe first.
+pub fn open_alerts(conn: &Connection) -> Result<Vec<OpenAlert>, AlertError> {
+    let mut st = conn.prepare(
+        "SELECT c.alert_key, c.rule, c.lot, c.state, c.severity, c.changed_at, \
+                COALESCE((SELECT o.subject FROM alert_outbox o WHERE o.alert_key = c.alert_key \
+                          ORDER BY o.id DESC LIMIT 1), '') \
+         FROM alert_condition c WHERE c.state <> 'cleared' \
+         ORDER BY c.severity DESC, c.lot, c.rule",
+    )?;
+    let rows = st.query_map([], |r| {
+        Ok((
+            r.get::<_, String>(0)?,
+            r.get::<_, String>(1)?,
+            r.get::<_, String>(2)?,
+            r.get::<_, String>(3)?,
+            r.get::<_, i64>(4)?,
+            r.get::<_, String>(5)?,
+            r.get::<_, String>(6)?,
+        ))
+    })?;
+    let mut out = Vec::new();
+    for row in rows {
+        let (key, rule, lot, state, sev, since, subject) = row?;
+        let (state, severity) = parse_state(&key, &state, sev)?;
+        out.push(OpenAlert {
+            state,
+            severity,
+            key,
+            rule,
+            lot,
+            since,
+            subject,
+        });
+    }
+    Ok(out)
+}
+
+/// Alert messages queued at or after `since` (digests excluded), oldest first.
+pub fn changes_since(conn: &Connection, since: &str) -> Result<Vec<AlertChange>, AlertError> {
+    let since = format_ts(parse_ts(since)?);
+    let mut st = conn.prepare(
+        "SELECT queued_at, alert_key, lot, state, severity, subject FROM alert_outbox \
+         WHERE queued_at >= ?1 AND rule <> 'digest' ORDER BY id",
+    )?;
+    let rows = st.query_map([since], |r| {
+        Ok((
+            r.get::<_, String>(0)?,
+            r.get::<_, String>(1)?,
+            r.get::<_, String>(2)?,
+            r.get::<_, String>(3)?,
+            r.get::<_, i64>(4)?,
+            r.get::<_, String>(5)?,
+        ))
+    })?;
+    let mut out = Vec::new();
+    for row in rows {
+        let (at, key, lot, state, sev, subject) = row?;
+        let (state, severity) = parse_state(&key, &state, sev)?;
+        out.push(AlertChange {
+            at,
+            key,
+            lot,
+            state,
+            severity,
+            subject,
+        });
+    }
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn backoff_doubles_from_30s_and_caps_at_one_hour() {
+        let secs: Vec<u64> = (1..=9).map(|a| backoff(a).as_secs()).collect();
+        assert_eq!(secs, [30, 60, 120, 240, 480, 960, 1920, 3600, 3600]);
+        assert_eq!(backoff(0).as_secs(), 30);
+        assert_eq!(backoff(u32::MAX).as_secs(), 3600);
+    }
+
+    #[test]
+    fn message_id_is_stable_and_distinct() {
+        let a = message_id_for("k", 1, AlertState::Open, Severity::Warning);
+        assert_eq!(
+            a,
+            message_id_for("k", 1, AlertState::Open, Severity::Warning)
+        );
+        assert_ne!(
+            a,
+            message_id_for("k", 2, AlertState::Open, Severity::Warning)
+        );
+        assert_ne!(
+            a,
+            message_id_for("k", 1, AlertState::Worse, Severity::Warning)
+        );
+        assert!(a.starts_with('<') && a.ends_with("@turnbook.invalid>"));
+    }
+
+    #[test]
+    fn timestamps_normalise_to_utc_millis() {
+        let t = parse_ts("2026-12-01T10:00:00+02:00").unwrap();
+        assert_eq!(format_ts(t), "2026-12-01T08:00:00.000Z");
+        assert!(parse_ts("yesterday").is_err());
+    }
+}

@@ -1,0 +1,1033 @@
+//! Alert rules: pure functions from one lot's snapshot and the `[alerts]` configuration to
+//! the alerts that should be raised (or cleared) now. No clock, no I/O, no database: the
+//! outbox decides from its own history whether an alert is new, worse or a repeat.
+
+use std::collections::BTreeMap;
+use std::fmt::{self, Write as _};
+
+use serde::Deserialize;
+
+use super::digest::DigestSchedule;
+
+/// Where a forecast of the replacement cycle stands.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ForecastStatus {
+    /// The fitted curve is already below the criterion at the current cycle.
+    ReachedAlready,
+    /// The curve crosses the criterion at `x`, with a finite interval.
+    Crossing,
+    /// Under the fitted model the criterion is never reached.
+    NotReached,
+    /// A crossing estimate exists but its interval is unbounded (too little evidence).
+    Unbounded,
+}
+
+/// The replacement forecast from the model chosen for the lot.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Forecast {
+    pub status: ForecastStatus,
+    /// Estimated cycle number of the crossing.
+    pub x: Option<f64>,
+    /// Lower confidence bound of the crossing (None when unbounded).
+    pub lower: Option<f64>,
+    /// Upper confidence bound of the crossing (None when unbounded).
+    pub upper: Option<f64>,
+    /// Confidence level of the interval, e.g. 0.95.
+    pub confidence: f64,
+    /// Identifier of the fitted model (e.g. "first-order").
+    pub model: String,
+    /// The lot's cadence, used to turn cycles into days for a lead in days.
+    pub cycles_per_day: Option<f64>,
+}
+
+/// Abrupt-loss check on the newest cycle (prediction interval and Page's CUSUM).
+#[derive(Debug, Clone, PartialEq)]
+pub struct AbruptLoss {
+    pub flagged: bool,
+    pub newest: f64,
+    pub pi_lower: f64,
+    pub pi_upper: f64,
+    pub cusum: f64,
+    pub h: f64,
+}
+
+/// Where a metal limit came from; shown beside the number so nobody mistakes a recalled
+/// value for a configured specification.
+#[derive(Debug, Clone, PartialEq)]
+pub enum LimitSource {
+    /// A specification configured by the site.
+    Configured(String),
+    /// ICH Q3D option 1 concentration limit, value recalled from memory.
+    IchQ3dRecalled,
+}
+
+impl fmt::Display for LimitSource {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            LimitSource::Configured(name) => write!(f, "configured spec {name}"),
+            LimitSource::IchQ3dRecalled => f.write_str("ICH Q3D option 1 (recalled from memory)"),
+        }
+    }
+}
+
+/// Metal found in the product of the newest cycle, with its limit.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MetalInProduct {
+    pub cycle: u32,
+    pub ug_per_g: f64,
+    pub limit_ug_per_g: f64,
+    pub limit_source: LimitSource,
+}
+
+/// A file that could not be read and was kept aside.
+#[derive(Debug, Clone, PartialEq)]
+pub struct QuarantinedFile {
+    pub name: String,
+    pub reason: String,
+}
+
+/// One evidence row: a cycle's value traced to its source file.
+#[derive(Debug, Clone, PartialEq)]
+pub struct EvidenceRow {
+    pub cycle: u32,
+    pub value: f64,
+    pub source_file: String,
+    pub sha256: String,
+}
+
+/// Everything the rules need about one lot, filled by the caller from records and fits.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LotSnapshot {
+    pub lot: String,
+    pub catalyst: String,
+    pub metal: String,
+    pub site: String,
+    pub cycles_done: u32,
+    pub latest_activity: Option<f64>,
+    /// Replacement criterion on the activity measure.
+    pub criterion: f64,
+    pub forecast: Option<Forecast>,
+    pub abrupt: Option<AbruptLoss>,
+    pub metal_in_product: Option<MetalInProduct>,
+    /// Cumulative metal lost as a fraction of the metal charged (0..1).
+    pub metal_loss_fraction: Option<f64>,
+    /// Cycle that minimises the cost per kg of product.
+    pub economic_cycle: Option<u32>,
+    pub quarantined: Vec<QuarantinedFile>,
+    pub evidence: Vec<EvidenceRow>,
+}
+
+/// Which bound of the forecast interval decides "within the lead".
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, Default)]
+#[serde(rename_all = "kebab-case")]
+pub enum ForecastBound {
+    /// The early end of the interval: warns soonest (conservative).
+    #[default]
+    Lower,
+    Estimate,
+    Upper,
+}
+
+/// On/off switch per rule.
+#[derive(Debug, Clone, PartialEq, Eq, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct RuleSwitches {
+    pub replacement_forecast: bool,
+    pub below_criterion: bool,
+    pub abrupt_loss: bool,
+    pub metal_in_product: bool,
+    pub metal_loss: bool,
+    pub economic_point: bool,
+    pub quarantine: bool,
+}
+
+impl Default for RuleSwitches {
+    fn default() -> Self {
+        RuleSwitches {
+            replacement_forecast: true,
+            below_criterion: true,
+            abrupt_loss: true,
+            metal_in_product: true,
+            metal_loss: true,
+            economic_point: true,
+            quarantine: true,
+        }
+    }
+}
+
+/// Addresses per audience.
+#[derive(Debug, Clone, PartialEq, Eq, Deserialize, Default)]
+#[serde(deny_unknown_fields, default)]
+pub struct Recipients {
+    pub chemists: Vec<String>,
+    pub qa: Vec<String>,
+    pub managers: Vec<String>,
+}
+
+/// A site's replacement lists; an absent list keeps the general one.
+#[derive(Debug, Clone, PartialEq, Eq, Deserialize, Default)]
+#[serde(deny_unknown_fields, default)]
+pub struct SiteRecipients {
+    pub chemists: Option<Vec<String>>,
+    pub qa: Option<Vec<String>>,
+    pub managers: Option<Vec<String>>,
+}
+
+/// The `[alerts]` configuration section.
+#[derive(Debug, Clone, PartialEq, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct AlertRules {
+    /// Warn when the forecast crossing is at most this many cycles ahead.
+    pub lead_cycles: f64,
+    /// Also warn when the crossing is at most this many days ahead (needs a cadence).
+    pub lead_days: Option<f64>,
+    pub forecast_bound: ForecastBound,
+    /// Cumulative metal-loss fraction above which the lot is flagged.
+    pub metal_loss_limit: f64,
+    /// Fraction of the metal limit at which an early warning is raised.
+    pub metal_warn_ratio: f64,
+    pub rules: RuleSwitches,
+    pub recipients: Recipients,
+    /// Per-site overrides, keyed by site name.
+    pub sites: BTreeMap<String, SiteRecipients>,
+    /// When the managers' digest goes out ("daily HH:MM" or "weekly DAY HH:MM", UTC);
+    /// absent means no digest.
+    pub digest: Option<DigestSchedule>,
+}
+
+impl Default for AlertRules {
+    fn default() -> Self {
+        AlertRules {
+            // Starting points, not taken from a standard: each site sets the lead to the
+            // time it needs to order and qualify a fresh lot, and its own loss limit.
+            lead_cycles: 3.0,
+            lead_days: None,
+            forecast_bound: ForecastBound::Lower,
+            metal_loss_limit: 0.05,
+            metal_warn_ratio: 0.8,
+            rules: RuleSwitches::default(),
+            recipients: Recipients::default(),
+            sites: BTreeMap::new(),
+            digest: None,
+        }
+    }
+}
+
+impl AlertRules {
+    /// Problems with the section, one message each; empty when it is usable.
+    pub fn problems(&self) -> Vec<String> {
+        let mut p = Vec::new();
+        if !(self.lead_cycles.is_finite() && self.lead_cycles >= 0.0) {
+            p.push(format!(
+                "alerts.lead_cycles must be >= 0, got {}",
+                self.lead_cycles
+            ));
+        }
+        if let Some(d) = self.lead_days
+            && !(d.is_finite() && d >= 0.0)
+        {
+            p.push(format!("alerts.lead_days must be >= 0, got {d}"));
+        }
+        if !(self.metal_loss_limit > 0.0 && self.metal_loss_limit <= 1.0) {
+            p.push(format!(
+                "alerts.metal_loss_limit is a fraction in (0, 1], got {}",
+                self.metal_loss_limit
+            ));
+        }
+        if !(self.metal_warn_ratio > 0.0 && self.metal_warn_ratio <= 1.0) {
+            p.push(format!(
+                "alerts.metal_warn_ratio is a fraction in (0, 1], got {}",
+                self.metal_warn_ratio
+            ));
+        }
+        let site_lists = self.sites.iter().flat_map(|(site, o)| {
+            [&o.chemists, &o.qa, &o.managers]
+                .into_iter()
+                .flatten()
+                .flatten()
+                .map(move |a| (format!("alerts.sites.{site}"), a))
+        });
+        let general = [
+            &self.recipients.chemists,
+            &self.recipients.qa,
+            &self.recipients.managers,
+        ]
+        .into_iter()
+        .flatten()
+        .map(|a| ("alerts.recipients".to_string(), a));
+        for (place, addr) in general.chain(site_lists) {
+            if addr.parse::<lettre::message::Mailbox>().is_err() {
+                p.push(format!("{place}: {addr:?} is not a mail address"));
+            }
+        }
+        p
+    }
+}
+
+/// The rules, by a stable name used in alert keys and stored in the outbox.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub enum RuleId {
+    ReplacementForecast,
+    BelowCriterion,
+    AbruptLoss,
+    MetalInProduct,
+    MetalLoss,
+    EconomicPoint,
+    Quarantine,
+}
+
+impl RuleId {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            RuleId::ReplacementForecast => "replacement-forecast",
+            RuleId::BelowCriterion => "below-criterion",
+            RuleId::AbruptLoss => "abrupt-loss",
+            RuleId::MetalInProduct => "metal-in-product",
+            RuleId::MetalLoss => "metal-loss",
+            RuleId::EconomicPoint => "economic-point",
+            RuleId::Quarantine => "quarantine",
+        }
+    }
+}
+
+/// How urgent an alert is; a rise in severity while open queues a "worse" follow-up.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub enum Severity {
+    Info = 1,
+    Warning = 2,
+    Critical = 3,
+}
+
+impl Severity {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Severity::Info => "info",
+            Severity::Warning => "warning",
+            Severity::Critical => "critical",
+        }
+    }
+    pub fn from_level(level: i64) -> Option<Severity> {
+        match level {
+            1 => Some(Severity::Info),
+            2 => Some(Severity::Warning),
+            3 => Some(Severity::Critical),
+            _ => None,
+        }
+    }
+}
+
+/// State of an alert's condition. `Worse` is never produced by [`evaluate`]: the outbox
+/// assigns it when an open alert comes back with a higher severity.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum AlertState {
+    Open,
+    Worse,
+    Cleared,
+}
+
+impl AlertState {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            AlertState::Open => "open",
+            AlertState::Worse => "worse",
+            AlertState::Cleared => "cleared",
+        }
+    }
+    pub fn parse(s: &str) -> Option<AlertState> {
+        match s {
+            "open" => Some(AlertState::Open),
+            "worse" => Some(AlertState::Worse),
+            "cleared" => Some(AlertState::Cleared),
+            _ => None,
+        }
+    }
+}
+
+/// One alert as decided by the rules. Text fields hold raw (unsafe) export text; the
+/// composer makes them safe for headers and HTML.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Alert {
+    /// Stable identity of the condition: rule + lot (+ file).
+    pub key: String,
+    pub rule: RuleId,
+    pub lot: String,
+    pub site: String,
+    pub file: Option<String>,
+    pub state: AlertState,
+    pub severity: Severity,
+    pub subject: String,
+    /// Plain-text evidence, one fact per line.
+    pub evidence: String,
+    pub recipients: Vec<String>,
+    /// Rows for the chart and the provenance table.
+    pub rows: Vec<EvidenceRow>,
+    pub criterion: f64,
+}
+
+#[derive(Clone, Copy)]
+enum Audience {
+    Chemists,
+    Qa,
+    Managers,
+}
+
+fn audience_of(rule: RuleId) -> &'static [Audience] {
+    use Audience::*;
+    match rule {
+        RuleId::ReplacementForecast | RuleId::BelowCriterion | RuleId::MetalLoss => {
+            &[Chemists, Managers]
+        }
+        RuleId::AbruptLoss => &[Chemists],
+        RuleId::MetalInProduct => &[Qa, Chemists],
+        RuleId::EconomicPoint => &[Managers],
+        RuleId::Quarantine => &[Qa],
+    }
+}
+
+/// Recipients of a rule at a site: the site's list where given, else the general one;
+/// duplicates removed, order kept.
+pub fn recipients_for(rule: RuleId, site: &str, rules: &AlertRules) -> Vec<String> {
+    let over = rules.sites.get(site);
+    let mut out: Vec<String> = Vec::new();
+    for aud in audience_of(rule) {
+        let list = match aud {
+            Audience::Chemists => over
+                .and_then(|o| o.chemists.as_ref())
+                .unwrap_or(&rules.recipients.chemists),
+            Audience::Qa => over
+                .and_then(|o| o.qa.as_ref())
+                .unwrap_or(&rules.recipients.qa),
+            Audience::Managers => over
+                .and_then(|o| o.managers.as_ref())
+                .unwrap_or(&rules.recipients.managers),
+        };
+        for addr in list {
+            let a = addr.trim();
+            if !a.is_empty() && !out.iter().any(|x| x.eq_ignore_ascii_case(a)) {
+                out.push(a.to_string());
+            }
+        }
+    }
+    out
+}
+
+fn fmt_num(v: f64) -> String {
+    if v.is_finite() {
+        format!("{v:.4}")
+    } else {
+        "n/a".to_string()
+    }
+}
+
+fn fmt_opt(v: Option<f64>) -> String {
+    v.map(fmt_num).unwrap_or_else(|| "unbounded".to_string())
+}
+
+struct Builder<'a> {
+    snap: &'a LotSnapshot,
+    rules: &'a AlertRules,
+    out: Vec<Alert>,
+}
+
+impl Builder<'_> {
+    fn push(
+        &mut self,
+        rule: RuleId,
+        file: Option<&str>,
+        active: Option<Severity>,
+        subject: String,
+        evidence: String,
+    ) {
+        let s = self.snap;
+        let key = match file {
+            Some(f) => format!("{}|{}|{}", rule.as_str(), s.lot, f),
+            None => format!("{}|{}", rule.as_str(), s.lot),
+        };
+        let (state, severity) = match active {
+            Some(sev) => (AlertState::Open, sev),
+            None => (AlertState::Cleared, Severity::Info),
+        };
+        self.out.push(Alert {
+            key,
+            rule,
+            lot: s.lot.clone(),
+            site: s.site.clone(),
+            file: file.map(str::to_string),
+            state,
+            severity,
+            subject,
+            evidence,
+            recipients: recipients_for(rule, &s.site, self.rules),
+            rows: s.evidence.clone(),
+            criterion: s.criterion,
+        });
+    }
+}
+
+/// Evaluate all enabled rules for one lot. Every enabled rule that applies yields one
+/// alert: `Open` with a severity when its condition holds, `Cleared` when it does not
+/// (the outbox only sends a "cleared" follow-up if the alert was open).
+pub fn evaluate(snap: &LotSnapshot, rules: &AlertRules) -> Vec<Alert> {
+    let mut b = Builder {
+        snap,
+        rules,
+        out: Vec::new(),
+    };
+    let lot = &snap.lot;
+    let sw = &rules.rules;
+
+    if sw.replacement_forecast
+        && let Some(fc) = &snap.forecast
+    {
+        let (active, text) = forecast_rule(snap, fc, rules);
+        b.push(
+            RuleId::ReplacementForecast,
+            None,
+            active,
+            format!("Lot {lot}: replacement forecast within lead"),
+            text,
+        );
+    }
+
+    if sw.below_criterion
+        && let Some(a) = snap.latest_activity
+    {
+        let below = a.is_finite() && a < snap.criterion;
+        let text = format!(
+            "Latest activity {} at cycle {} against replacement criterion {}.\n",
+            fmt_num(a),
+            snap.cycles_done,
+            fmt_num(snap.criterion)
+        );
+        b.push(
+            RuleId::BelowCriterion,
+            None,
+            below.then_some(Severity::Critical),
+            format!("Lot {lot}: activity below replacement criterion"),
+            text,
+        );
+    }
+
+    if sw.abrupt_loss
+        && let Some(ab) = &snap.abrupt
+    {
+        let outside = ab.newest < ab.pi_lower;
+        let cusum_over = ab.cusum > ab.h;
+        let severity = if outside && cusum_over {
+            Severity::Critical
+        } else {
+            Severity::Warning
+        };
+        let active = ab.flagged.then_some(severity);
+        let text = format!(
+            "Newest activity {} against one-step prediction interval [{}, {}].\n\
+             CUSUM of standardised residuals {} against decision limit h = {}.\n",
+            fmt_num(ab.newest),
+            fmt_num(ab.pi_lower),
+            fmt_num(ab.pi_upper),
+            fmt_num(ab.cusum),
+            fmt_num(ab.h)
+        );
+        b.push(
+            RuleId::AbruptLoss,
+            None,
+            active,
+            format!("Lot {lot}: abrupt loss of activity"),
+            text,
+        );
+    }
+
+    if sw.metal_in_product
+        && let Some(m) = &snap.metal_in_product
+    {
+        let active = if !(m.ug_per_g.is_finite() && m.limit_ug_per_g.is_finite()) {
+            None
+        } else if m.ug_per_g > m.limit_ug_per_g {
+            Some(Severity::Critical)
+        } else if m.ug_per_g > rules.metal_warn_ratio * m.limit_ug_per_g {
+            Some(Severity::Warning)
+        } else {
+            None
+        };
+        let text = format!(
+            "{} in product of cycle {}: {} µg/g; limit {} µg/g ({}).\n",
+            snap.metal,
+            m.cycle,
+            fmt_num(m.ug_per_g),
+            fmt_num(m.limit_ug_per_g),
+            m.limit_source
+        );
+        b.push(
+            RuleId::MetalInProduct,
+            None,
+            active,
+            format!("Lot {lot}: {} in product near or above limit", snap.metal),
+            text,
+        );
+    }
+
+    if sw.metal_loss
+        && let Some(f) = snap.metal_loss_fraction
+    {
+        let over = f.is_finite() && f > rules.metal_loss_limit;
+        let text = format!(
+            "Cumulative {} lost: {:.2} % of the metal charged; limit {:.2} %.\n",
+            snap.metal,
+            f * 100.0,
+            rules.metal_loss_limit * 100.0
+        );
+        b.push(
+            RuleId::MetalLoss,
+            None,
+            over.then_some(Severity::Warning),
+            format!("Lot {lot}: cumulative metal loss above limit"),
+            text,
+        );
+    }
+
+    if sw.economic_point
+        && let Some(n) = snap.economic_cycle
+    {
+        let reached = snap.cycles_done >= n;
+        let text = format!(
+            "Economic replacement point: cycle {n} (lowest cost per kg of product); \
+             cycles done: {}.\n",
+            snap.cycles_done
+        );
+        b.push(
+            RuleId::EconomicPoint,
+            None,
+            reached.then_some(Severity::Info),
+            format!("Lot {lot}: economic replacement point reached"),
+            text,
+        );
+    }
+
+    if sw.quarantine {
+        for q in &snap.quarantined {
+            let text = format!(
+                "File {} was quarantined and not ingested.\nReason: {}\n",
+                q.name, q.reason
+            );
+            b.push(
+                RuleId::Quarantine,
+                Some(&q.name),
+                Some(Severity::Warning),
+                format!("Lot {lot}: file quarantined: {}", q.name),
+                text,
+            );
+        }
+    }
+
+    b.out
+}
+
+/// The replacement-forecast rule: is the chosen bound of the crossing within the lead?
+fn forecast_rule(
+    snap: &LotSnapshot,
+    fc: &Forecast,
+    rules: &AlertRules,
+) -> (Option<Severity>, String) {
+    let mut text = String::new();
+    let _ = writeln!(
+        text,
+        "Model {}; criterion {}; cycles done {}.",
+        fc.model,
+        fmt_num(snap.criterion),
+        snap.cycles_done
+    );
+    let crossing = match fc.status {
+        ForecastStatus::NotReached => {
+            text.push_str("The criterion is never reached under the fitted model.\n");
+            return (None, text);
+        }
+        ForecastStatus::ReachedAlready => {
+            text.push_str("The fitted curve is already below the criterion.\n");
+            return (Some(Severity::Critical), text);
+        }
+        ForecastStatus::Crossing | ForecastStatus::Unbounded => fc.x,
+    };
+    let Some(x) = crossing.filter(|v| v.is_finite()) else {
+        text.push_str("No crossing estimate is available.\n");
+        return (None, text);
+    };
+    let _ = writeln!(
+        text,
+        "Forecast crossing at cycle {} ({:.0} % interval {} to {}).",
+        fmt_num(x),
+        fc.confidence * 100.0,
+        fmt_opt(fc.lower),
+        fmt_opt(fc.upper)
+    );
+    // An unbounded chosen bound falls back to the estimate, and says so.
+    let chosen = match rules.forecast_bound {
+        ForecastBound::Lower => fc.lower,
+        ForecastBound::Estimate => Some(x),
+        ForecastBound::Upper => fc.upper,
+    };
+    let bound = match chosen.filter(|v| v.is_finite()) {
+        Some(v) => v,
+        None => {
+            text.push_str("The chosen bound is unbounded; the estimate is used instead.\n");
+            x
+        }
+    };
+    let ahead = bound - f64::from(snap.cycles_done);
+    let mut within = ahead <= rules.lead_cycles;
+    let _ = writeln!(
+        text,
+        "Cycles left to the {} bound: {}; lead {} cycles.",
+        match rules.forecast_bound {
+            ForecastBound::Lower => "lower",
+            ForecastBound::Estimate => "estimated",
+            ForecastBound::Upper => "upper",
+        },
+        fmt_num(ahead),
+        fmt_num(rules.lead_cycles)
+    );
+    if let (Some(days), Some(cpd)) = (rules.lead_days, fc.cycles_per_day)
+        && cpd.is_finite()
+        && cpd > 0.0
+    {
+        let days_left = ahead / cpd;
+        let _ = writeln!(
+            text,
+            "Days left at {} cycles per day: {}; lead {} days.",
+            fmt_num(cpd),
+            fmt_num(days_left),
+            fmt_num(days)
+        );
+        within |= days_left <= days;
+    }
+    if fc.status == ForecastStatus::Unbounded {
+        text.push_str("The interval is unbounded: the forecast is uncertain.\n");
+    }
+    let sev = if ahead <= 1.0 {
+        Severity::Critical
+    } else {
+        Severity::Warning
+    };
+    (within.then_some(sev), text)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    pub(crate) fn snapshot() -> LotSnapshot {
+        LotSnapshot {
+            lot: "PD-17".into(),
+            catalyst: "5% Pd/C".into(),
+            metal: "Pd".into(),
+            site: "North".into(),
+            cycles_done: 6,
+            latest_activity: Some(0.8),
+            criterion: 0.6,
+            forecast: None,
+            abrupt: None,
+            metal_in_product: None,
+            metal_loss_fraction: None,
+            economic_cycle: None,
+            quarantined: vec![],
+            evidence: vec![EvidenceRow {
+                cycle: 1,
+                value: 1.0,
+                source_file: "a.csv".into(),
+                sha256: "00".into(),
+            }],
+        }
+    }
+
+    fn rules() -> AlertRules {
+        AlertRules {
+            recipients: Recipients {
+                chemists: vec!["chem@example.org".into()],
+                qa: vec!["qa@example.org".into()],
+                managers: vec!["boss@example.org".into(), "CHEM@example.org".into()],
+            },
+            ..AlertRules::default()
+        }
+    }
+
+    fn forecast(status: ForecastStatus, x: f64, lo: Option<f64>, hi: Option<f64>) -> Forecast {
+        Forecast {
+            status,
+            x: Some(x),
+            lower: lo,
+            upper: hi,
+            confidence: 0.95,
+            model: "first-order".into(),
+            cycles_per_day: None,
+        }
+    }
+
+    fn only(alerts: &[Alert], rule: RuleId) -> &Alert {
+        let v: Vec<_> = alerts.iter().filter(|a| a.rule == rule).collect();
+        assert_eq!(v.len(), 1, "{rule:?} in {alerts:?}");
+        v[0]
+    }
+
+    #[test]
+    fn forecast_within_lead_uses_lower_bound() {
+        let mut s = snapshot();
+        // estimate 10 (4 ahead, outside lead 3), lower 8.5 (2.5 ahead, inside).
+        s.forecast = Some(forecast(
+            ForecastStatus::Crossing,
+            10.0,
+            Some(8.5),
+            Some(12.0),
+        ));
+        let a = evaluate(&s, &rules());
+        let f = only(&a, RuleId::ReplacementForecast);
+        assert_eq!(f.state, AlertState::Open);
+        assert_eq!(f.severity, Severity::Warning);
+        assert_eq!(f.key, "replacement-forecast|PD-17");
+        assert!(f.evidence.contains("8.5"));
+        let r = AlertRules {
+            forecast_bound: ForecastBound::Estimate,
+            ..rules()
+        };
+        let f2 = evaluate(&s, &r);
+        assert_eq!(
+            only(&f2, RuleId::ReplacementForecast).state,
+            AlertState::Cleared
+        );
+    }
+
+    #[test]
+    fn forecast_lead_in_days_and_critical_when_next_cycle() {
+        let mut s = snapshot();
+        let mut fc = forecast(ForecastStatus::Crossing, 16.0, Some(14.0), Some(18.0));
+        fc.cycles_per_day = Some(1.0);
+        s.forecast = Some(fc);
+        let mut r = rules();
+        assert_eq!(
+            only(&evaluate(&s, &r), RuleId::ReplacementForecast).state,
+            AlertState::Cleared
+        );
+        r.lead_days = Some(10.0); // 8 cycles left at 1/day = 8 days ≤ 10
+        assert_eq!(
+            only(&evaluate(&s, &r), RuleId::ReplacementForecast).state,
+            AlertState::Open
+        );
+        s.forecast = Some(forecast(
+            ForecastStatus::Crossing,
+            7.5,
+            Some(6.5),
+            Some(9.0),
+        ));
+        let a = evaluate(&s, &rules());
+        assert_eq!(
+            only(&a, RuleId::ReplacementForecast).severity,
+            Severity::Critical
+        );
+    }
+
+    #[test]
+    fn forecast_not_reached_and_unbounded() {
+        let mut s = snapshot();
+        s.forecast = Some(Forecast {
+            status: ForecastStatus::NotReached,
+            x: None,
+            lower: None,
+            upper: None,
+            confidence: 0.95,
+            model: "residual".into(),
+            cycles_per_day: None,
+        });
+        let a = evaluate(&s, &rules());
+        let f = only(&a, RuleId::ReplacementForecast);
+        assert_eq!(f.state, AlertState::Cleared);
+        assert!(f.evidence.contains("never reached"));
+        s.forecast = Some(forecast(ForecastStatus::Unbounded, 8.0, None, None));
+        let a = evaluate(&s, &rules());
+        let f = only(&a, RuleId::ReplacementForecast);
+        assert_eq!(f.state, AlertState::Open);
+        assert!(f.evidence.contains("unbounded"));
+    }
+
+    #[test]
+    fn below_criterion() {
+        let mut s = snapshot();
+        assert_eq!(
+            only(&evaluate(&s, &rules()), RuleId::BelowCriterion).state,
+            AlertState::Cleared
+        );
+        s.latest_activity = Some(0.55);
+        let a = evaluate(&s, &rules());
+        let f = only(&a, RuleId::BelowCriterion);
+        assert_eq!(
+            (f.state, f.severity),
+            (AlertState::Open, Severity::Critical)
+        );
+        // chemists then managers, case-insensitive duplicate dropped
+        assert_eq!(f.recipients, vec!["chem@example.org", "boss@example.org"]);
+        s.latest_activity = Some(f64::NAN);
+        assert_eq!(
+            only(&evaluate(&s, &rules()), RuleId::BelowCriterion).state,
+            AlertState::Cleared
+        );
+    }
+
+    #[test]
+    fn abrupt_loss_severity() {
+        let mut s = snapshot();
+        s.abrupt = Some(AbruptLoss {
+            flagged: true,
+            newest: 0.5,
+            pi_lower: 0.7,
+            pi_upper: 0.9,
+            cusum: 2.0,
+            h: 4.0,
+        });
+        let a = evaluate(&s, &rules());
+        let f = only(&a, RuleId::AbruptLoss);
+        assert_eq!((f.state, f.severity), (AlertState::Open, Severity::Warning));
+        assert_eq!(f.recipients, vec!["chem@example.org"]);
+        if let Some(ab) = s.abrupt.as_mut() {
+            ab.cusum = 5.0;
+        }
+        assert_eq!(
+            only(&evaluate(&s, &rules()), RuleId::AbruptLoss).severity,
+            Severity::Critical
+        );
+        if let Some(ab) = s.abrupt.as_mut() {
+            ab.flagged = false;
+        }
+        assert_eq!(
+            only(&evaluate(&s, &rules()), RuleId::AbruptLoss).state,
+            AlertState::Cleared
+        );
+    }
+
+    #[test]
+    fn metal_in_product_levels_and_source() {
+        let mut s = snapshot();
+        let m = |v| MetalInProduct {
+            cycle: 6,
+            ug_per_g: v,
+            limit_ug_per_g: 10.0,
+            limit_source: LimitSource::IchQ3dRecalled,
+        };
+        s.metal_in_product = Some(m(5.0));
+        assert_eq!(
+            only(&evaluate(&s, &rules()), RuleId::MetalInProduct).state,
+            AlertState::Cleared
+        );
+        s.metal_in_product = Some(m(8.5));
+        let a = evaluate(&s, &rules());
+        let f = only(&a, RuleId::MetalInProduct);
+        assert_eq!(f.severity, Severity::Warning);
+        assert!(f.evidence.contains("recalled from memory"));
+        assert_eq!(f.recipients, vec!["qa@example.org", "chem@example.org"]);
+        s.metal_in_product = Some(m(12.0));
+        assert_eq!(
+            only(&evaluate(&s, &rules()), RuleId::MetalInProduct).severity,
+            Severity::Critical
+        );
+    }
+
+    #[test]
+    fn metal_loss_fraction() {
+        let mut s = snapshot();
+        s.metal_loss_fraction = Some(0.049);
+        assert_eq!(
+            only(&evaluate(&s, &rules()), RuleId::MetalLoss).state,
+            AlertState::Cleared
+        );
+        s.metal_loss_fraction = Some(0.051);
+        let a = evaluate(&s, &rules());
+        assert_eq!(only(&a, RuleId::MetalLoss).state, AlertState::Open);
+        assert!(only(&a, RuleId::MetalLoss).evidence.contains("5.10 %"));
+    }
+
+    #[test]
+    fn economic_point() {
+        let mut s = snapshot();
+        s.economic_cycle = Some(7);
+        assert_eq!(
+            only(&evaluate(&s, &rules()), RuleId::EconomicPoint).state,
+            AlertState::Cleared
+        );
+        s.economic_cycle = Some(6);
+        let a = evaluate(&s, &rules());
+        let f = only(&a, RuleId::EconomicPoint);
+        assert_eq!(f.state, AlertState::Open);
+        assert_eq!(f.recipients, vec!["boss@example.org", "CHEM@example.org"]);
+    }
+
+    #[test]
+    fn quarantine_one_alert_per_file_to_qa() {
+        let mut s = snapshot();
+        s.quarantined = vec![
+            QuarantinedFile {
+                name: "x.csv".into(),
+                reason: "line 3: missing column".into(),
+            },
+            QuarantinedFile {
+                name: "y.csv".into(),
+                reason: "not UTF-8".into(),
+            },
+        ];
+        let a: Vec<_> = evaluate(&s, &rules())
+            .into_iter()
+            .filter(|a| a.rule == RuleId::Quarantine)
+            .collect();
+        assert_eq!(a.len(), 2);
+        assert_eq!(a[0].key, "quarantine|PD-17|x.csv");
+        assert_eq!(a[1].recipients, vec!["qa@example.org"]);
+    }
+
+    #[test]
+    fn switches_and_site_overrides() {
+        let mut s = snapshot();
+        s.latest_activity = Some(0.1);
+        let mut r = rules();
+        r.rules.below_criterion = false;
+        assert!(
+            evaluate(&s, &r)
+                .iter()
+                .all(|a| a.rule != RuleId::BelowCriterion)
+        );
+        let r: AlertRules = toml::from_str(
+            r#"
+            lead_cycles = 2
+            digest = "weekly mon 07:00"
+            [recipients]
+            chemists = ["c@example.org"]
+            managers = ["m@example.org"]
+            [sites.North]
+            managers = ["north-m@example.org"]
+            "#,
+        )
+        .unwrap();
+        let a = evaluate(&s, &r);
+        assert_eq!(
+            only(&a, RuleId::BelowCriterion).recipients,
+            vec!["c@example.org", "north-m@example.org"]
+        );
+        assert!(matches!(r.digest, Some(DigestSchedule::Weekly { .. })));
+        assert!(toml::from_str::<AlertRules>("lead_cycle = 2").is_err());
+        assert!(toml::from_str::<AlertRules>("digest = \"hourly\"").is_err());
+        assert!(r.problems().is_empty());
+    }
+
+    #[test]
+    fn problems_are_reported() {
+        let mut r = rules();
+        assert!(r.problems().is_empty());
+        r.lead_cycles = -1.0;
+        r.metal_loss_limit = 2.0;
+        r.recipients.qa.push("not an address".into());
+        r.sites.insert(
+            "South".into(),
+            SiteRecipients {
+                managers: Some(vec!["x@".into()]),
+                ..SiteRecipients::default()
+            },
+        );
+        let p = r.problems();
+        assert_eq!(p.len(), 4, "{p:?}");
+        assert!(p[3].starts_with("alerts.sites.South"));
+    }
+}

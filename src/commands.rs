@@ -133,6 +133,31 @@ pub enum Command {
         #[arg(long)]
         json: bool,
     },
+    /// Fit deactivation models to a lot (or to any two-column CSV series) and forecast
+    /// when it crosses the replacement criterion.
+    Fit {
+        /// The lot to fit (omit with --series).
+        #[arg(required_unless_present = "series", conflicts_with = "series")]
+        lot: Option<String>,
+        /// A CSV file with a header row, x in the first column and y in the second.
+        #[arg(long)]
+        series: Option<PathBuf>,
+        /// Model id (linear, first-order, first-order-residual, second-order, power,
+        /// two-site, plateau) or auto (choice by AICc).
+        #[arg(long, default_value = "auto", requires = "series")]
+        model: String,
+        /// Start value of a parameter, NAME=VALUE (repeatable).
+        #[arg(long = "start", requires = "series")]
+        starts: Vec<String>,
+        /// The y value to forecast the crossing of.
+        #[arg(long, requires = "series")]
+        threshold: Option<f64>,
+        /// Confidence of the forecast interval.
+        #[arg(long, default_value_t = 0.90, requires = "series")]
+        confidence: f64,
+        #[arg(long)]
+        json: bool,
+    },
     /// Walk the audit chain and compare every record with the events that wrote it.
     Verify {
         #[arg(long)]
@@ -141,9 +166,13 @@ pub enum Command {
 }
 
 /// Set up tracing: readable lines on a terminal, JSON lines when asked. RUST_LOG filters.
-pub fn init_logging(json: bool) {
+///
+/// The service logs each file at info level; one-shot commands only warn, since they print
+/// their own summary.
+pub fn init_logging(json: bool, service: bool) {
+    let default = if service { "warn,turnbook=info" } else { "warn,turnbook=warn" };
     let filter = tracing_subscriber::EnvFilter::try_from_default_env()
-        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("warn,turnbook=info"));
+        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(default));
     let builder = tracing_subscriber::fmt()
         .with_env_filter(filter)
         .with_writer(std::io::stderr);
@@ -286,6 +315,11 @@ fn dispatch(cli: &Cli) -> CmdResult {
         Command::History { lot, json } => crate::views::history(&load(cli)?, lot, *json),
         Command::Status { json } => crate::views::status(&load(cli)?, *json),
         Command::Verify { json } => verify(&load(cli)?, *json),
+        Command::Fit { lot, series, model, starts, threshold, confidence, json } => match (lot, series) {
+            (_, Some(file)) => crate::fitcmd::series(file, model, starts, *threshold, *confidence, *json),
+            (Some(lot), None) => crate::fitcmd::lot(&load(cli)?, lot, *json),
+            (None, None) => Err(Failure::usage("give a LOT or --series FILE")),
+        },
     }
 }
 
@@ -417,4 +451,11 @@ fn verify(cfg: &Config, json: bool) -> CmdResult {
 /// Resolve a path argument for messages.
 pub fn shown(p: &Path) -> String {
     p.display().to_string()
+}
+
+impl Command {
+    /// Long-running commands log every unit of work at info level.
+    pub fn is_service(&self) -> bool {
+        false
+    }
 }

@@ -291,6 +291,9 @@ impl Config {
         if self.files_per_transaction == 0 {
             return Err(self.invalid("files_per_transaction", "expected at least 1"));
         }
+        if let Some(problem) = self.alerts.problems().into_iter().next() {
+            return Err(self.invalid("alerts", problem));
+        }
         for (name, p) in &self.profiles {
             p.validate()
                 .map_err(|m| self.invalid(format!("profiles.{name}"), m))?;

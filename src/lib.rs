@@ -6,6 +6,7 @@
 //! - [`fit`]: least-squares engine, deactivation models, AICc choice, forecasts. Pure.
 //! - [`ingest`]: decoding export files and reading them through export profiles. Pure.
 //! - [`alert`]: alert rules (pure), the durable outbox and the mailer.
+//! - [`alerting`]: from a lot's state to the alert rules and the outbox.
 //! - [`report`]: self-contained HTML, CSV and SVG reports.
 //! - [`config`]: the TOML configuration and its validation.
 //! - [`store`]: SQLite schema migrations, queries and transactions.
@@ -18,6 +19,7 @@
 //! - [`commands`]: the command-line verbs, called by `main.rs`.
 
 pub mod alert;
+pub mod alerting;
 pub mod analysis;
 pub mod audit;
 pub mod chem;
@@ -26,6 +28,7 @@ pub mod demo;
 mod demo_live;
 pub mod config;
 pub mod fit;
+pub mod fitcmd;
 pub mod ingest;
 pub mod pipeline;
 pub mod report;

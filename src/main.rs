@@ -6,6 +6,6 @@ use clap::Parser;
 
 fn main() -> ExitCode {
     let cli = turnbook::commands::Cli::parse();
-    turnbook::commands::init_logging(cli.log_json);
+    turnbook::commands::init_logging(cli.log_json, cli.command.is_service());
     turnbook::commands::run(cli)
 }

@@ -97,6 +97,12 @@ impl Ingestor {
     pub fn open(cfg: Config) -> Result<Self, StoreError> {
         let conn = store::open(&cfg.database_path())?;
         let actor = audit::actor(cfg.actor.as_deref());
+        let mut conn = conn;
+        // Heal an interrupted backfill: lots whose fit is older than their records.
+        let healed = crate::analysis::recompute_stale(&mut conn, &cfg, &actor)?;
+        if healed > 0 {
+            tracing::info!(lots = healed, "recomputed lots whose fits were older than their records");
+        }
         Ok(Ingestor {
             conn,
             cfg,
@@ -171,6 +177,7 @@ impl Ingestor {
                 }
                 (None, Err(error)) => {
                     records::record_rejected(&tx, &facts, &error, q.as_deref(), &self.actor)?;
+                    crate::alerting::raise_quarantine(&tx, &self.cfg, facts.site.as_deref(), &facts.path, &error)?;
                     tracing::warn!(path = %facts.path, error = %error, "file rejected");
                     FileOutcome::Rejected {
                         path: facts.path.clone(),

@@ -10,6 +10,7 @@ use super::{Result, StoreError};
 pub const MIGRATIONS: &[(i64, &str, &str)] = &[
     (1, "core", include_str!("../../schema/0001_core.sql")),
     (2, "fits", include_str!("../../schema/0002_fits.sql")),
+    (3, "outbox", include_str!("../../schema/0003_outbox.sql")),
 ];
 
 /// The newest schema version this build knows.

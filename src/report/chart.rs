@@ -80,9 +80,14 @@ fn ranges_for(fit: &FitSummary) -> Option<Ranges> {
         .flatten()
         .map(|x| x.min(cap));
     let x_hi = finite_max(std::iter::once(data_x).chain(fx))?;
-    let x_lo = finite_min(fit.observed.iter().map(|p| p.x).chain(fit.curve.iter().map(|p| p.x)))
-        .unwrap_or(0.0)
-        .min(0.0);
+    let x_lo = finite_min(
+        fit.observed
+            .iter()
+            .map(|p| p.x)
+            .chain(fit.curve.iter().map(|p| p.x)),
+    )
+    .unwrap_or(0.0)
+    .min(0.0);
     let y_hi = finite_max(
         fit.observed
             .iter()
@@ -156,7 +161,11 @@ pub fn activity_svg(fit: &FitSummary, title: &str) -> Result<String, ChartError>
 
 type Chart<'a, 'b> = ChartContext<'a, SVGBackend<'b>, Cartesian2d<RangedCoordf64, RangedCoordf64>>;
 
-fn draw_band<'a, 'b: 'a>(chart: &mut Chart<'a, 'b>, fit: &FitSummary, r: &Ranges) -> Result<(), ChartError> {
+fn draw_band<'a, 'b: 'a>(
+    chart: &mut Chart<'a, 'b>,
+    fit: &FitSummary,
+    r: &Ranges,
+) -> Result<(), ChartError> {
     let band: Vec<_> = fit
         .band
         .iter()
@@ -172,12 +181,19 @@ fn draw_band<'a, 'b: 'a>(chart: &mut Chart<'a, 'b>, fit: &FitSummary, r: &Ranges
     chart
         .draw_series(std::iter::once(Polygon::new(poly, style)))
         .map_err(draw_err)?
-        .label(format!("{} % confidence band", fmt_sig(fit.level * 100.0, 3)))
+        .label(format!(
+            "{} % confidence band",
+            fmt_sig(fit.level * 100.0, 3)
+        ))
         .legend(move |(x, y)| Rectangle::new([(x, y - 6), (x + 20, y + 6)], style));
     Ok(())
 }
 
-fn draw_curve<'a, 'b: 'a>(chart: &mut Chart<'a, 'b>, fit: &FitSummary, r: &Ranges) -> Result<(), ChartError> {
+fn draw_curve<'a, 'b: 'a>(
+    chart: &mut Chart<'a, 'b>,
+    fit: &FitSummary,
+    r: &Ranges,
+) -> Result<(), ChartError> {
     let pts: Vec<(f64, f64)> = fit
         .curve
         .iter()
@@ -222,7 +238,11 @@ fn draw_criterion<'a, 'b: 'a>(
     Ok(())
 }
 
-fn draw_points<'a, 'b: 'a>(chart: &mut Chart<'a, 'b>, fit: &FitSummary, r: &Ranges) -> Result<(), ChartError> {
+fn draw_points<'a, 'b: 'a>(
+    chart: &mut Chart<'a, 'b>,
+    fit: &FitSummary,
+    r: &Ranges,
+) -> Result<(), ChartError> {
     let inside = |x: f64, y: f64| x.is_finite() && y.is_finite() && x >= r.x0 && x <= r.x1;
     let exact: Vec<(f64, f64)> = fit
         .observed
@@ -292,7 +312,8 @@ fn draw_forecast<'a, 'b: 'a>(
     );
     // The interval as a bar on the criterion line with end caps; an open end (cut by the
     // plot edge or unbounded) gets no cap.
-    let mut parts: Vec<PathElement<(f64, f64)>> = vec![PathElement::new(vec![(lo, t), (hi, t)], style)];
+    let mut parts: Vec<PathElement<(f64, f64)>> =
+        vec![PathElement::new(vec![(lo, t), (hi, t)], style)];
     let cap = (r.y1 - r.y0) * 0.025;
     if !cut_lo {
         parts.push(PathElement::new(vec![(lo, t - cap), (lo, t + cap)], style));
@@ -386,7 +407,9 @@ pub fn sparkline_svg(values: &[f64], threshold: Option<f64>) -> String {
         "<svg class=\"spark\" xmlns=\"http://www.w3.org/2000/svg\" width=\"{W}\" height=\"{H}\" \
          viewBox=\"0 0 {W} {H}\" role=\"img\" aria-label=\"activity per cycle\">"
     );
-    let lo = finite_min(pts.iter().map(|p| p.1).chain(threshold)).unwrap_or(0.0).min(0.0);
+    let lo = finite_min(pts.iter().map(|p| p.1).chain(threshold))
+        .unwrap_or(0.0)
+        .min(0.0);
     let hi = finite_max(pts.iter().map(|p| p.1).chain(threshold)).unwrap_or(1.0);
     let span = (hi - lo).max(1e-12);
     let n = values.len().max(2) - 1;

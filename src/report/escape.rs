@@ -59,7 +59,11 @@ pub(crate) fn fmt_sig(v: f64, sig: usize) -> String {
         return "not a number".to_string();
     }
     if v.is_infinite() {
-        return if v > 0.0 { "∞".to_string() } else { "−∞".to_string() };
+        return if v > 0.0 {
+            "∞".to_string()
+        } else {
+            "−∞".to_string()
+        };
     }
     if v == 0.0 {
         return "0".to_string();

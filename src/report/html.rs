@@ -143,7 +143,10 @@ fn identity(out: &mut String, r: &LotReport) {
         ("Catalyst", esc(&id.catalyst)),
         ("Metal", esc(&id.metal)),
         ("Loading", format!("{} wt %", fmt_sig(id.loading_wt_pct, 4))),
-        ("Charged mass", format!("{} g", fmt_sig(id.charged_mass_g, 5))),
+        (
+            "Charged mass",
+            format!("{} g", fmt_sig(id.charged_mass_g, 5)),
+        ),
         ("Received", opt_text(id.received.as_deref())),
         ("Supplier lot", opt_text(id.supplier_lot.as_deref())),
         ("Cost (net of refining credit)", cost),
@@ -159,7 +162,9 @@ fn identity(out: &mut String, r: &LotReport) {
 fn verify(out: &mut String, r: &LotReport) {
     out.push_str("<section id=\"verify\">\n<h2>Audit chain</h2>\n");
     match &r.verify {
-        None => out.push_str("<p class=\"bad\">The audit chain has not been verified for this report.</p>\n"),
+        None => out.push_str(
+            "<p class=\"bad\">The audit chain has not been verified for this report.</p>\n",
+        ),
         Some(v) => match &v.outcome {
             VerifyOutcome::Intact { entries } => {
                 let _ = writeln!(
@@ -188,7 +193,11 @@ fn figure(out: &mut String, id: &str, caption: &str, svg: Result<String, super::
         Ok(svg) => out.push_str(&svg),
         Err(e) => {
             tracing::warn!(chart = id, error = %e, "chart left out of report");
-            let _ = write!(out, "<p class=\"chart-missing\">{}</p>", esc(&e.to_string()));
+            let _ = write!(
+                out,
+                "<p class=\"chart-missing\">{}</p>",
+                esc(&e.to_string())
+            );
         }
     }
     let _ = writeln!(out, "<figcaption>{}</figcaption>\n</figure>", esc(caption));
@@ -408,7 +417,13 @@ pub fn lot_html(r: &LotReport) -> String {
         &mut out,
         "signoffs",
         "Sign-offs",
-        &["who", "when", "meaning", "SHA-256 signed", "covers the current record"],
+        &[
+            "who",
+            "when",
+            "meaning",
+            "SHA-256 signed",
+            "covers the current record",
+        ],
         r.signoffs
             .iter()
             .map(|s| {

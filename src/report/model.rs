@@ -77,7 +77,10 @@ impl CycleLine {
     /// The value of one quantity, if measured. When a quantity appears twice the first
     /// one wins (the shell resolves conflicts and flags them).
     pub fn value(&self, q: Quantity) -> Option<f64> {
-        self.values.iter().find(|v| v.quantity == q).map(|v| v.value)
+        self.values
+            .iter()
+            .find(|v| v.quantity == q)
+            .map(|v| v.value)
     }
 }
 

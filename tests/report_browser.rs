@@ -152,6 +152,23 @@ fn lot_report_renders_in_headless_chromium() {
         return;
     };
     let dir = tempfile::tempdir().unwrap();
+    // Control: a page that does log errors must be caught by the log scan, or the
+    // "no console errors" checks below would prove nothing with this Chromium build.
+    let control = dir.path().join("control.html");
+    std::fs::write(
+        &control,
+        "<!DOCTYPE html><html><body><p>control</p><script>console.error('control-error');\
+         throw new Error('control-throw')</script></body></html>",
+    )
+    .unwrap();
+    let out = run_chromium(&bin, &control, &["--dump-dom".to_string()]);
+    let caught = page_errors(&String::from_utf8_lossy(&out.stderr));
+    assert!(
+        caught.iter().any(|l| l.contains("control-error"))
+            && caught.iter().any(|l| l.contains("Uncaught")),
+        "the console-error scan missed the control page's errors: {caught:?}"
+    );
+
     let page = dir.path().join("lot-report.html");
     let report = demo_lot("PD-DEMO-07", "hplc-line2", "unit typo: entered kg as g");
     std::fs::write(&page, lot_html(&report)).unwrap();

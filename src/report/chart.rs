@@ -9,7 +9,7 @@ use std::fmt::Write as _;
 use plotters::coord::types::RangedCoordf64;
 use plotters::prelude::*;
 
-use super::escape::{chart_text, fmt_sig};
+use super::escape::{chart_text, fmt_pct, fmt_sig};
 use super::model::{CycleLine, FitSummary, ForecastStatus};
 
 /// Why a chart could not be drawn; the page shows the reason in place of the chart.
@@ -114,6 +114,16 @@ fn ranges_for(fit: &FitSummary) -> Option<Ranges> {
     })
 }
 
+/// An axis tick: whole numbers without a decimal point, others with what they need.
+fn tick(v: f64) -> String {
+    if (v - v.round()).abs() < 1e-9 {
+        format!("{}", v.round())
+    } else {
+        let s = format!("{v:.3}");
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    }
+}
+
 /// The activity-versus-cycle chart: measured points (censored ones as open triangles),
 /// the fitted curve, its confidence band, the dashed criterion line and the forecast
 /// crossing with its interval.
@@ -134,6 +144,9 @@ pub fn activity_svg(fit: &FitSummary, title: &str) -> Result<String, ChartError>
             .configure_mesh()
             .x_desc(chart_text(&fit.x_label))
             .y_desc(chart_text(&fit.y_label))
+            .x_label_formatter(&|x| tick(*x))
+            .y_label_formatter(&|y| tick(*y))
+            .max_light_lines(2)
             .light_line_style(GRID)
             .axis_desc_style(("sans-serif", 15))
             .label_style(("sans-serif", 13))
@@ -306,7 +319,7 @@ fn draw_forecast<'a, 'b: 'a>(
     let interval_label = format!(
         "forecast {} ({} %: {} to {})",
         fmt_sig(xs, 3),
-        fmt_sig(f.confidence * 100.0, 3),
+        fmt_pct(f.confidence),
         f.lower.map_or("unbounded".to_string(), |v| fmt_sig(v, 3)),
         f.upper.map_or("unbounded".to_string(), |v| fmt_sig(v, 3)),
     );
@@ -376,6 +389,9 @@ pub fn ton_svg(cycles: &[CycleLine], title: &str) -> Result<String, ChartError> 
             .configure_mesh()
             .x_desc("cycle number")
             .y_desc("TON (mol product / mol metal)")
+            .x_label_formatter(&|x| tick(*x))
+            .y_label_formatter(&|y| tick(*y))
+            .max_light_lines(2)
             .light_line_style(GRID)
             .axis_desc_style(("sans-serif", 14))
             .label_style(("sans-serif", 12))

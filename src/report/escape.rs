@@ -77,6 +77,15 @@ pub(crate) fn fmt_sig(v: f64, sig: usize) -> String {
     format!("{v:.decimals$}")
 }
 
+/// A confidence level (0.95) as a percentage without needless digits ("95", "99.5").
+pub(crate) fn fmt_pct(level: f64) -> String {
+    if !level.is_finite() {
+        return fmt_sig(level, 3);
+    }
+    let s = format!("{:.2}", level * 100.0);
+    s.trim_end_matches('0').trim_end_matches('.').to_string()
+}
+
 /// An optional number for a table cell; a missing value is an en dash.
 pub(crate) fn fmt_opt(v: Option<f64>, sig: usize) -> String {
     v.map_or_else(|| "–".to_string(), |v| fmt_sig(v, sig))
@@ -115,5 +124,7 @@ mod tests {
         assert_eq!(fmt_sig(f64::NAN, 3), "not a number");
         assert_eq!(fmt_sig(0.0, 3), "0");
         assert_eq!(fmt_opt(None, 3), "–");
+        assert_eq!(fmt_pct(0.95), "95");
+        assert_eq!(fmt_pct(0.995), "99.5");
     }
 }

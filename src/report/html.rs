@@ -9,7 +9,7 @@ use std::fmt::Write as _;
 use crate::ingest::Quantity;
 
 use super::chart::{activity_svg, sparkline_svg, ton_svg};
-use super::escape::{escape_html as esc, fmt_opt, fmt_sig};
+use super::escape::{escape_html as esc, fmt_opt, fmt_pct, fmt_sig};
 use super::model::{
     CycleLine, FitSummary, Forecast, ForecastStatus, LotReport, SiteReport, VerifyOutcome,
 };
@@ -36,6 +36,8 @@ h2 { font-size: 1.15rem; margin: 1.6rem 0 .5rem; border-bottom: 2px solid var(--
 table { border-collapse: collapse; width: 100%; font-size: .85rem; }
 th, td { border: 1px solid var(--line); padding: .25rem .4rem; text-align: left; vertical-align: top; }
 th { background: #f1f4f7; }
+table.params { width: auto; min-width: 28rem; }
+td.nowrap { white-space: nowrap; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 .wide { overflow-x: auto; }
 dl.identity { display: grid; grid-template-columns: max-content 1fr max-content 1fr; gap: .2rem 1rem; }
@@ -123,7 +125,7 @@ fn forecast_text(f: &Forecast) -> String {
         (ForecastStatus::Crosses | ForecastStatus::CrossesUnbounded, Some(x)) => format!(
             "{} ({} % interval {} to {})",
             fmt_sig(x, 3),
-            fmt_sig(f.confidence * 100.0, 3),
+            fmt_pct(f.confidence),
             f.lower.map_or("unbounded".to_string(), |v| fmt_sig(v, 3)),
             f.upper.map_or("unbounded".to_string(), |v| fmt_sig(v, 3)),
         ),
@@ -226,7 +228,7 @@ fn fit_section(out: &mut String, lot: &str, fit: &FitSummary) {
         out,
         "<table class=\"params\"><thead><tr><th>parameter</th><th>estimate</th>\
          <th>{} % interval</th></tr></thead><tbody>",
-        fmt_sig(fit.level * 100.0, 3)
+        fmt_pct(fit.level)
     );
     for p in &fit.params {
         let _ = writeln!(
@@ -288,7 +290,7 @@ fn cycle_table(out: &mut String, r: &LotReport) {
     for c in &r.cycles {
         let _ = write!(
             out,
-            "<tr><td class=\"num\">{}</td><td>{}</td><td>{}</td>",
+            "<tr><td class=\"num\">{}</td><td class=\"nowrap\">{}</td><td class=\"nowrap\">{}</td>",
             c.cycle_no,
             esc(&c.batch_id),
             opt_text(c.started_at.as_deref())

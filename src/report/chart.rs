@@ -194,10 +194,7 @@ fn draw_band<'a, 'b: 'a>(
     chart
         .draw_series(std::iter::once(Polygon::new(poly, style)))
         .map_err(draw_err)?
-        .label(format!(
-            "{} % confidence band",
-            fmt_sig(fit.level * 100.0, 3)
-        ))
+        .label(format!("{} % confidence band", fmt_pct(fit.level)))
         .legend(move |(x, y)| Rectangle::new([(x, y - 6), (x + 20, y + 6)], style));
     Ok(())
 }

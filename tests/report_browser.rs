@@ -193,8 +193,10 @@ fn lot_report_renders_in_headless_chromium() {
         "page logged errors:\n{}",
         errors.join("\n")
     );
+    // For looking at the result by eye: keep the screenshot, and the page beside it.
     if let Ok(keep) = std::env::var("TURNBOOK_KEEP_SCREENSHOT") {
-        std::fs::copy(&shot, keep).unwrap();
+        std::fs::copy(&shot, &keep).unwrap();
+        std::fs::copy(&page, format!("{keep}.html")).unwrap();
     }
 
     let px = count_pixels(&shot);

@@ -323,10 +323,6 @@ fn lot_report_round_trips_through_json() {
     let a = serde_json::to_value(&r).unwrap();
     let b = serde_json::to_value(&back).unwrap();
     assert!(same_json(&a, &b), "the report changed on a JSON round trip");
-    assert!(
-        lot_html(&r) == lot_html(&back),
-        "the page changed on a JSON round trip"
-    );
 }
 
 fn same_json(a: &serde_json::Value, b: &serde_json::Value) -> bool {

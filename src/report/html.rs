@@ -252,21 +252,31 @@ fn flags_cell(c: &CycleLine) -> String {
         .join(" ")
 }
 
-fn sources_cell(c: &CycleLine) -> String {
-    c.sources
+/// Every value's source file, in its own table: names and hashes are long, and inside the
+/// cycle table they would make each row several lines tall.
+fn provenance_table(out: &mut String, r: &LotReport) {
+    let rows = r
+        .cycles
         .iter()
-        .map(|s| {
-            let short: String = s.sha256.chars().take(12).collect();
-            format!(
-                "{}:{} <span class=\"hash\" title=\"SHA-256 {}\">{}…</span>",
-                esc(&s.file_name),
-                s.line,
-                esc(&s.sha256),
-                esc(&short)
-            )
+        .flat_map(|c| {
+            c.sources.iter().map(move |s| {
+                vec![
+                    c.cycle_no.to_string(),
+                    esc(&c.batch_id),
+                    esc(&s.file_name),
+                    s.line.to_string(),
+                    format!("<span class=\"hash\">{}</span>", esc(&s.sha256)),
+                ]
+            })
         })
-        .collect::<Vec<_>>()
-        .join("<br>")
+        .collect();
+    simple_table(
+        out,
+        "provenance",
+        "Source files",
+        &["cycle", "batch", "file", "line", "SHA-256 of the file"],
+        rows,
+    );
 }
 
 fn cycle_table(out: &mut String, r: &LotReport) {
@@ -285,7 +295,7 @@ fn cycle_table(out: &mut String, r: &LotReport) {
     }
     out.push_str(
         "<th>TON</th><th>TOF (h⁻¹)</th><th>k<sub>app</sub> (h⁻¹)</th><th>activity</th>\
-         <th>flags</th><th>sources (file:line, SHA-256)</th></tr></thead>\n<tbody>\n",
+         <th>flags</th></tr></thead>\n<tbody>\n",
     );
     for c in &r.cycles {
         let _ = write!(
@@ -296,25 +306,24 @@ fn cycle_table(out: &mut String, r: &LotReport) {
             opt_text(c.started_at.as_deref())
         );
         for q in &shown {
-            let _ = write!(out, "<td class=\"num\">{}</td>", fmt_opt(c.value(*q), 4));
+            let _ = write!(out, "<td class=\"num\">{}</td>", fmt_opt(c.value(*q), 5));
         }
         let _ = writeln!(
             out,
             "<td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
-             <td class=\"num\">{}</td><td>{}</td><td>{}</td></tr>",
+             <td class=\"num\">{}</td><td>{}</td></tr>",
             fmt_opt(c.ton, 4),
             fmt_opt(c.tof_per_h, 4),
             fmt_opt(c.k_app_per_h, 4),
             fmt_opt(c.activity, 3),
-            flags_cell(c),
-            sources_cell(c)
+            flags_cell(c)
         );
     }
     if r.cycles.is_empty() {
         let _ = writeln!(
             out,
             "<tr><td colspan=\"{}\">No cycles recorded.</td></tr>",
-            shown.len() + 9
+            shown.len() + 8
         );
     }
     out.push_str("</tbody>\n</table>\n</div>\n</section>\n");
@@ -379,6 +388,7 @@ pub fn lot_html(r: &LotReport) -> String {
         out.push_str("</section>\n");
     }
     cycle_table(&mut out, r);
+    provenance_table(&mut out, r);
     simple_table(
         &mut out,
         "alerts",

@@ -57,8 +57,11 @@ figure svg { max-width: 100%; height: auto; }
 .chart-missing { border: 1px dashed var(--line); padding: 1rem; color: var(--muted); }
 svg.spark { vertical-align: middle; }
 footer { margin-top: 2rem; color: var(--muted); font-size: .8rem; }
+table.cycles th, table.cycles td { padding: .2rem .3rem; }
+@page { size: A4 landscape; margin: 12mm; }
 @media print {
   body { margin: 0; max-width: none; font-size: 10pt; }
+  table.cycles { font-size: 6.5pt; }
   h2 { break-after: avoid; }
   table { font-size: 8pt; }
   tr, figure { break-inside: avoid; }

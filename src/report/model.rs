@@ -1,0 +1,316 @@
+//! The plain data a report is rendered from.
+//!
+//! The shell (database, audit chain, fitting) fills these structures; the renderers in
+//! this module only read them. Keeping them plain (no database handles, no clock) makes
+//! every report reproducible from its JSON form, which is also what QA can archive.
+
+use serde::{Deserialize, Serialize};
+
+use crate::ingest::Quantity;
+
+/// Everything one lot's QA report shows.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LotReport {
+    /// When the report was generated, as the shell formats it (ISO 8601 recommended).
+    pub generated_at: String,
+    /// The turnbook version that generated it, e.g. `env!("CARGO_PKG_VERSION")`.
+    pub turnbook_version: String,
+    pub identity: LotIdentity,
+    /// One line per cycle, in the order they should be shown (usually by cycle number).
+    pub cycles: Vec<CycleLine>,
+    /// The deactivation fit, when one could be made.
+    pub fit: Option<FitSummary>,
+    pub alerts: Vec<AlertLine>,
+    pub corrections: Vec<CorrectionLine>,
+    pub signoffs: Vec<SignOffLine>,
+    /// The result of the last audit-chain verification, when one ran.
+    pub verify: Option<VerifyLine>,
+    /// Site-specific cautions shown in addition to the fixed ones
+    /// ([`crate::report::FIXED_CAUTIONS`]).
+    pub cautions: Vec<String>,
+}
+
+/// Who the lot is and where it came from.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LotIdentity {
+    pub lot: String,
+    pub catalyst: String,
+    /// Element symbol, e.g. "Pd".
+    pub metal: String,
+    /// Metal loading, weight percent (5.0 means 5 wt %).
+    pub loading_wt_pct: f64,
+    /// Catalyst mass charged at the first cycle, grams.
+    pub charged_mass_g: f64,
+    /// ISO date `YYYY-MM-DD`.
+    pub received: Option<String>,
+    pub supplier_lot: Option<String>,
+    /// Lot cost net of refining credit.
+    pub cost: Option<f64>,
+    /// Currency code the cost is in, e.g. "EUR".
+    pub currency: Option<String>,
+    pub site: String,
+}
+
+/// One cycle of the lot as the cycle table shows it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CycleLine {
+    pub cycle_no: u32,
+    pub batch_id: String,
+    /// Batch start as recorded (ISO 8601 local plant time).
+    pub started_at: Option<String>,
+    /// Measured values, each in the canonical unit of its quantity.
+    pub values: Vec<ReportValue>,
+    /// Turnover number, mol product per mol metal (dimensionless).
+    pub ton: Option<f64>,
+    /// Turnover frequency, h⁻¹.
+    pub tof_per_h: Option<f64>,
+    /// Apparent first-order rate constant, h⁻¹.
+    pub k_app_per_h: Option<f64>,
+    /// Activity relative to the first cycle (dimensionless).
+    pub activity: Option<f64>,
+    pub flags: CycleFlags,
+    /// The files the cycle's values came from.
+    pub sources: Vec<SourceRef>,
+}
+
+impl CycleLine {
+    /// The value of one quantity, if measured. When a quantity appears twice the first
+    /// one wins (the shell resolves conflicts and flags them).
+    pub fn value(&self, q: Quantity) -> Option<f64> {
+        self.values
+            .iter()
+            .find(|v| v.quantity == q)
+            .map(|v| v.value)
+    }
+}
+
+/// One measured value in its quantity's canonical unit ([`Quantity::canonical_unit`]).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct ReportValue {
+    pub quantity: Quantity,
+    pub value: f64,
+}
+
+/// States of a cycle record that a reader must see next to its numbers.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub struct CycleFlags {
+    /// Conversion at or above the saturation limit: activity is a lower bound.
+    pub censored: bool,
+    /// Some instruments have not reported yet.
+    pub pending: bool,
+    /// Two sources disagree on a value.
+    pub conflict: bool,
+    /// Left out of the fit by a person (see corrections).
+    pub excluded: bool,
+    /// At least one value was corrected after ingestion.
+    pub corrected: bool,
+}
+
+impl CycleFlags {
+    /// The set flags as words, in a fixed order.
+    pub fn words(&self) -> Vec<&'static str> {
+        let mut w = Vec::new();
+        if self.censored {
+            w.push("censored");
+        }
+        if self.pending {
+            w.push("pending");
+        }
+        if self.conflict {
+            w.push("conflict");
+        }
+        if self.excluded {
+            w.push("excluded");
+        }
+        if self.corrected {
+            w.push("corrected");
+        }
+        w
+    }
+}
+
+/// Where a value came from: the file (by name and content hash) and the line in it.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct SourceRef {
+    pub file_name: String,
+    /// SHA-256 of the file's bytes, lowercase hex.
+    pub sha256: String,
+    /// 1-based line in the decoded file.
+    pub line: u64,
+}
+
+/// The chosen deactivation model and what it predicts, precomputed by the fit module.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FitSummary {
+    /// The chosen model's id, e.g. "first_order".
+    pub model_id: String,
+    /// What x is, with unit, e.g. "cycle number" or "time on stream (h)".
+    pub x_label: String,
+    /// What y is, with unit, e.g. "activity (relative to cycle 1)".
+    pub y_label: String,
+    pub params: Vec<ParamLine>,
+    /// Confidence level of the parameter intervals and the band, e.g. 0.95.
+    pub level: f64,
+    /// Points the fit used.
+    pub observed: Vec<ObservedPoint>,
+    /// The fitted curve, already evaluated at enough x to draw it smoothly.
+    pub curve: Vec<CurvePoint>,
+    /// The confidence band of the curve.
+    pub band: Vec<BandPoint>,
+    /// The replacement criterion on the y scale, when one is configured.
+    pub threshold: Option<f64>,
+    pub forecast: Option<Forecast>,
+}
+
+/// One fitted parameter with its interval.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ParamLine {
+    pub name: String,
+    pub value: f64,
+    pub lower: Option<f64>,
+    pub upper: Option<f64>,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct ObservedPoint {
+    pub x: f64,
+    pub y: f64,
+    /// A lower bound only (saturated conversion); drawn as an open triangle.
+    pub censored: bool,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct CurvePoint {
+    pub x: f64,
+    pub y: f64,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct BandPoint {
+    pub x: f64,
+    pub lower: f64,
+    pub upper: f64,
+}
+
+/// When the fitted model crosses the replacement criterion.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Forecast {
+    pub status: ForecastStatus,
+    /// The crossing x*, when there is one.
+    pub x: Option<f64>,
+    /// Interval bounds on x*; `None` means unbounded on that side.
+    pub lower: Option<f64>,
+    pub upper: Option<f64>,
+    /// Confidence level of the interval, e.g. 0.95.
+    pub confidence: f64,
+}
+
+/// The forecast's outcome, said plainly in reports.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ForecastStatus {
+    /// The criterion is crossed at x* with a bounded interval.
+    Crosses,
+    /// The criterion is crossed at x*, but the interval is unbounded on at least one side.
+    CrossesUnbounded,
+    /// The lot is already at or below the criterion.
+    AlreadyCrossed,
+    /// Under the fitted model the criterion is never reached.
+    NeverCrosses,
+    /// Too few usable cycles to forecast.
+    TooFewCycles,
+}
+
+impl ForecastStatus {
+    /// A sentence for readers of the report.
+    pub fn describe(self) -> &'static str {
+        match self {
+            ForecastStatus::Crosses => "criterion crossed at the forecast point",
+            ForecastStatus::CrossesUnbounded => {
+                "criterion crossed at the forecast point, but the interval is unbounded"
+            }
+            ForecastStatus::AlreadyCrossed => "already at or below the criterion",
+            ForecastStatus::NeverCrosses => "never reached under the fitted model",
+            ForecastStatus::TooFewCycles => "too few usable cycles to forecast",
+        }
+    }
+}
+
+/// An alert raised for the lot.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct AlertLine {
+    pub raised_at: String,
+    pub rule: String,
+    pub subject: String,
+    /// Still open (not acknowledged or cleared).
+    pub open: bool,
+}
+
+/// A correction: a new version of a value, with who, when and why.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct CorrectionLine {
+    pub at: String,
+    pub who: String,
+    pub field: String,
+    pub old: String,
+    pub new: String,
+    pub why: String,
+}
+
+/// An electronic sign-off of the lot's record.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct SignOffLine {
+    pub who: String,
+    pub at: String,
+    /// What the signature means, e.g. "reviewed" or "approved for reuse".
+    pub meaning: String,
+    /// SHA-256 of the record state that was signed.
+    pub signed_sha256: String,
+    /// Whether the signed state is still the current state (no change since).
+    pub covers_current: bool,
+}
+
+/// The last audit-chain verification.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct VerifyLine {
+    pub ran_at: String,
+    pub outcome: VerifyOutcome,
+}
+
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum VerifyOutcome {
+    /// Every link checked out.
+    Intact { entries: u64 },
+    /// The first link that did not check out, as the audit module describes it.
+    Broken { first_broken: String },
+}
+
+/// All lots of a site, for the overview page.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SiteReport {
+    pub generated_at: String,
+    pub turnbook_version: String,
+    pub site: String,
+    pub lots: Vec<SiteLotLine>,
+    /// Site-specific cautions shown after the fixed ones.
+    pub cautions: Vec<String>,
+}
+
+/// One lot's line on the site overview.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SiteLotLine {
+    pub lot: String,
+    pub catalyst: String,
+    pub metal: String,
+    /// The lot's state as the store names it (e.g. "in service", "retired").
+    pub state: String,
+    pub cycles: u32,
+    pub latest_activity: Option<f64>,
+    pub forecast: Option<Forecast>,
+    pub open_alerts: u32,
+    /// Activity per cycle, oldest first, for the sparkline.
+    pub activity_history: Vec<f64>,
+    /// The replacement criterion, drawn on the sparkline when set.
+    pub threshold: Option<f64>,
+}

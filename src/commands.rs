@@ -158,6 +158,20 @@ pub enum Command {
         #[arg(long)]
         json: bool,
     },
+    /// Write a lot's report (self-contained HTML with charts, and CSV), or the site summary.
+    Report {
+        #[arg(required_unless_present = "site", conflicts_with = "site")]
+        lot: Option<String>,
+        /// The summary of every lot instead of one lot's report.
+        #[arg(long)]
+        site: bool,
+        /// The HTML file to write.
+        #[arg(long)]
+        out: PathBuf,
+        /// Also write the cycle table as CSV here.
+        #[arg(long)]
+        csv: Option<PathBuf>,
+    },
     /// Walk the audit chain and compare every record with the events that wrote it.
     Verify {
         #[arg(long)]
@@ -315,6 +329,7 @@ fn dispatch(cli: &Cli) -> CmdResult {
         Command::History { lot, json } => crate::views::history(&load(cli)?, lot, *json),
         Command::Status { json } => crate::views::status(&load(cli)?, *json),
         Command::Verify { json } => verify(&load(cli)?, *json),
+        Command::Report { lot, site, out, csv } => crate::reportcmd::run(&load(cli)?, lot.as_deref(), *site, out, csv.as_deref()),
         Command::Fit { lot, series, model, starts, threshold, confidence, json } => match (lot, series) {
             (_, Some(file)) => crate::fitcmd::series(file, model, starts, *threshold, *confidence, *json),
             (Some(lot), None) => crate::fitcmd::lot(&load(cli)?, lot, *json),
@@ -457,5 +472,11 @@ impl Command {
     /// Long-running commands log every unit of work at info level.
     pub fn is_service(&self) -> bool {
         false
+    }
+}
+
+impl From<rusqlite::Error> for Failure {
+    fn from(e: rusqlite::Error) -> Self {
+        Failure { code: 1, message: format!("database error: {e}") }
     }
 }

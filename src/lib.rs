@@ -32,6 +32,7 @@ pub mod fitcmd;
 pub mod ingest;
 pub mod pipeline;
 pub mod report;
+pub mod reportcmd;
 pub mod store;
 pub mod views;
 pub mod watch;

@@ -1,0 +1,448 @@
+//! The running watcher: event watchers and scanners feed sightings into one loop, which
+//! settles files and hands them, in arrival order, to one worker thread that calls the sink.
+//!
+//! ```text
+//! notify threads ─┐
+//! scanner tasks ──┴─ sightings ─▶ loop: settle tracker ─▶ jobs ─▶ worker thread ─▶ FileSink
+//!                                   ▲                                  │
+//!                                   └────────────── outcomes ◀─────────┘
+//! ```
+
+use std::collections::HashMap;
+use std::panic::{AssertUnwindSafe, catch_unwind};
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::time::{Duration, Instant};
+
+use notify::{RecommendedWatcher, RecursiveMode, Watcher};
+use tokio::sync::{mpsc, watch};
+use tokio::task::JoinHandle;
+
+use super::error::WatchError;
+use super::events::classify;
+use super::folder::{WatchFolder, WatchMode};
+use super::scan::{FileFound, Root, Skip};
+use super::settle::{SettleTracker, Signal, Stamp, Verdict};
+use super::{FileSink, WatchStats};
+
+/// How long shutdown waits for the sink call in progress. Below the 5 s promised to the
+/// caller, leaving time to tear down; systemd's default stop timeout is far longer.
+pub const SHUTDOWN_GRACE: Duration = Duration::from_millis(4000);
+
+/// A file seen by an event or a scan, already checked against the folder's rules.
+#[derive(Debug)]
+struct Sighting {
+    root: usize,
+    found: FileFound,
+    signal: Signal,
+}
+
+/// A settled file for the worker.
+#[derive(Debug)]
+struct Job {
+    root: usize,
+    path: PathBuf,
+    key: PathBuf,
+    stamp: Stamp,
+}
+
+/// What the worker reports back after one sink call.
+#[derive(Debug)]
+struct Outcome {
+    job: Job,
+    result: Result<(), String>,
+}
+
+/// Watches `folders` and offers each settled file to `sink` until `shutdown` turns true
+/// (or its sender is dropped: then nobody could stop the watcher any more).
+///
+/// Start-up scans every folder, so files that landed while the service was down are offered
+/// too. Errors only at start (invalid entry, missing folder, overlapping entries, event
+/// set-up); once running, per-file problems are logged and counted in the returned stats.
+pub async fn run(
+    folders: Vec<WatchFolder>,
+    sink: Arc<dyn FileSink>,
+    mut shutdown: watch::Receiver<bool>,
+) -> anyhow::Result<WatchStats> {
+    let roots: Arc<[Root]> = prepare(&folders)?.into();
+    let folders: Arc<[WatchFolder]> = folders.into();
+    if roots.is_empty() {
+        tracing::warn!("no folders configured; waiting for shutdown");
+    }
+    let (seen_tx, mut seen_rx) = mpsc::unbounded_channel::<Sighting>();
+
+    // Events first, then the catch-up scan: a file landing in between is seen twice at
+    // worst (harmless), never missed.
+    let mut watchers: Vec<RecommendedWatcher> = Vec::new();
+    for root in roots
+        .iter()
+        .filter(|r| folders[r.index].mode == WatchMode::Events)
+    {
+        watchers.push(start_events(root.clone(), seen_tx.clone())?);
+    }
+    let scanners: Vec<JoinHandle<()>> = roots
+        .iter()
+        .map(|root| {
+            let folder = &folders[root.index];
+            let every =
+                (folder.mode == WatchMode::Poll).then(|| Duration::from_secs(folder.poll_interval));
+            tokio::spawn(scanner(root.clone(), every, seen_tx.clone()))
+        })
+        .collect();
+    for root in roots.iter() {
+        let folder = &folders[root.index];
+        tracing::info!(folder = ?root.canonical, profile = %folder.profile, mode = ?folder.mode,
+            recursive = folder.recursive, "watching");
+    }
+    drop(seen_tx);
+
+    let stop = Arc::new(AtomicBool::new(false));
+    let (job_tx, job_rx) = std::sync::mpsc::channel::<Job>();
+    let (done_tx, mut done_rx) = mpsc::unbounded_channel::<Outcome>();
+    {
+        let (sink, folders, stop) = (sink.clone(), folders.clone(), stop.clone());
+        std::thread::Builder::new()
+            .name("turnbook-ingest".into())
+            .spawn(move || worker(job_rx, done_tx, sink, folders, stop))
+            .map_err(WatchError::Worker)?;
+    }
+
+    let mut state = State::new(folders.clone(), roots.clone(), job_tx);
+    if !*shutdown.borrow_and_update() {
+        loop {
+            let deadline = state.tracker.next_deadline();
+            tokio::select! {
+                changed = shutdown.changed() => {
+                    if changed.is_err() || *shutdown.borrow_and_update() {
+                        break;
+                    }
+                }
+                Some(sighting) = seen_rx.recv() => state.sighted(sighting),
+                Some(outcome) = done_rx.recv() => state.finished(outcome),
+                () = sleep_until(deadline) => state.recheck(),
+            }
+        }
+    }
+
+    // Stop taking files: the worker skips queued jobs, the call in progress may finish.
+    let shutdown_at = tokio::time::Instant::now();
+    stop.store(true, Ordering::SeqCst);
+    state.job_tx = None;
+    drop(watchers);
+    for scanner in &scanners {
+        scanner.abort();
+    }
+    tracing::info!(
+        settling = state.tracker.len(),
+        "shutting down; files still settling are offered at the next start"
+    );
+    let drained = tokio::time::timeout_at(shutdown_at + SHUTDOWN_GRACE, async {
+        while let Some(outcome) = done_rx.recv().await {
+            state.finished(outcome);
+        }
+    })
+    .await;
+    if drained.is_err() {
+        tracing::warn!(
+            grace_ms = SHUTDOWN_GRACE.as_millis() as u64,
+            "the sink call in progress did not finish in time; leaving it behind"
+        );
+    }
+    Ok(state.stats)
+}
+
+/// Sleeps until the next re-check, or forever when nothing is settling (no idle polling).
+async fn sleep_until(deadline: Option<Instant>) {
+    match deadline {
+        Some(at) => tokio::time::sleep_until(tokio::time::Instant::from_std(at)).await,
+        None => std::future::pending::<()>().await,
+    }
+}
+
+/// Validates every entry, resolves the folders and refuses entries that overlap.
+fn prepare(folders: &[WatchFolder]) -> Result<Vec<Root>, WatchError> {
+    let mut roots = Vec::with_capacity(folders.len());
+    for (index, folder) in folders.iter().enumerate() {
+        folder.validate(index)?;
+        let unreachable = |reason: String| WatchError::Unreachable {
+            index,
+            path: folder.path.clone(),
+            reason,
+        };
+        let canonical =
+            std::fs::canonicalize(&folder.path).map_err(|e| unreachable(e.to_string()))?;
+        if !canonical.is_dir() {
+            return Err(unreachable("not a directory".into()));
+        }
+        let ignore = folder
+            .ignore_set()
+            .map_err(|reason| WatchError::InvalidFolder {
+                index,
+                key: "ignore",
+                reason,
+            })?;
+        roots.push(Root {
+            index,
+            canonical,
+            recursive: folder.recursive,
+            ignore,
+        });
+    }
+    for (i, a) in roots.iter().enumerate() {
+        for b in &roots[i + 1..] {
+            let overlap = if a.canonical == b.canonical {
+                Some((a, b))
+            } else if a.recursive && b.canonical.starts_with(&a.canonical) {
+                Some((a, b))
+            } else if b.recursive && a.canonical.starts_with(&b.canonical) {
+                Some((b, a))
+            } else {
+                None
+            };
+            if let Some((outer, inner)) = overlap {
+                return Err(WatchError::Overlap {
+                    first: outer.index,
+                    second: inner.index,
+                    path: inner.canonical.clone(),
+                });
+            }
+        }
+    }
+    Ok(roots)
+}
+
+/// Starts operating-system file events for one folder. The handler runs on notify's
+/// thread and does the file checks there, so the loop only sees candidate files.
+fn start_events(
+    root: Root,
+    seen: mpsc::UnboundedSender<Sighting>,
+) -> Result<RecommendedWatcher, WatchError> {
+    let path = root.canonical.clone();
+    let index = root.index;
+    let mode = if root.recursive {
+        RecursiveMode::Recursive
+    } else {
+        RecursiveMode::NonRecursive
+    };
+    let handler = move |event: notify::Result<notify::Event>| match event {
+        Ok(event) => {
+            let meaning = classify(&event);
+            if meaning.rescan {
+                tracing::warn!(folder = ?root.canonical, "file events were lost; rescanning");
+                send_all(&seen, root.index, root.scan(&root.canonical));
+            }
+            for (path, signal) in meaning.look_at {
+                match root.examine(&path) {
+                    Ok(found) => {
+                        let _ = seen.send(Sighting {
+                            root: root.index,
+                            found,
+                            signal,
+                        });
+                    }
+                    Err(Skip::Directory) if root.recursive && meaning.arrived.contains(&path) => {
+                        send_all(&seen, root.index, root.scan(&path));
+                    }
+                    Err(skip) => tracing::trace!(path = ?path, ?skip, "not offered"),
+                }
+            }
+        }
+        Err(error) => tracing::warn!(folder = ?root.canonical, %error, "file event error"),
+    };
+    let events = |source| WatchError::Events {
+        index,
+        path: path.clone(),
+        source,
+    };
+    let mut watcher = notify::recommended_watcher(handler).map_err(events)?;
+    watcher.watch(&path, mode).map_err(events)?;
+    Ok(watcher)
+}
+
+fn send_all(seen: &mpsc::UnboundedSender<Sighting>, root: usize, files: Vec<FileFound>) {
+    for found in files {
+        // The loop is gone only during shutdown; nothing left to tell then.
+        let _ = seen.send(Sighting {
+            root,
+            found,
+            signal: Signal::Seen,
+        });
+    }
+}
+
+/// Scans a folder once (catch-up), or every `every` in poll mode. Directory listing may
+/// block on a slow share, so it runs on the blocking pool.
+async fn scanner(root: Root, every: Option<Duration>, seen: mpsc::UnboundedSender<Sighting>) {
+    let root = Arc::new(root);
+    loop {
+        let scan_root = root.clone();
+        match tokio::task::spawn_blocking(move || scan_root.scan(&scan_root.canonical)).await {
+            Ok(files) => send_all(&seen, root.index, files),
+            Err(error) => tracing::error!(folder = ?root.canonical, %error, "folder scan failed"),
+        }
+        match every {
+            Some(pause) if !seen.is_closed() => tokio::time::sleep(pause).await,
+            _ => return,
+        }
+    }
+}
+
+/// The one thread that calls the sink, so the database has one writer and files are
+/// ingested in the order they settled.
+fn worker(
+    jobs: std::sync::mpsc::Receiver<Job>,
+    done: mpsc::UnboundedSender<Outcome>,
+    sink: Arc<dyn FileSink>,
+    folders: Arc<[WatchFolder]>,
+    stop: Arc<AtomicBool>,
+) {
+    while let Ok(job) = jobs.recv() {
+        if stop.load(Ordering::SeqCst) {
+            break;
+        }
+        let result = match folders.get(job.root) {
+            Some(folder) => match catch_unwind(AssertUnwindSafe(|| sink.ingest(folder, &job.path)))
+            {
+                Ok(Ok(())) => Ok(()),
+                Ok(Err(error)) => Err(format!("{error:#}")),
+                Err(_) => Err("the ingestion code panicked".to_string()),
+            },
+            None => Err("file belongs to no configured folder".to_string()),
+        };
+        if done.send(Outcome { job, result }).is_err() {
+            break;
+        }
+    }
+}
+
+/// The loop's bookkeeping: files settling, files with the sink, files done in this run.
+struct State {
+    folders: Arc<[WatchFolder]>,
+    roots: Arc<[Root]>,
+    tracker: SettleTracker<PathBuf, (usize, PathBuf)>,
+    /// Versions offered successfully; the same (size, mtime) is not offered again.
+    offered: HashMap<PathBuf, Stamp>,
+    /// Versions queued for or inside the sink.
+    in_flight: HashMap<PathBuf, Stamp>,
+    /// Versions the sink refused; offered again only once they change (or at next start),
+    /// so a poll folder does not retry a bad file every scan.
+    refused: HashMap<PathBuf, Stamp>,
+    job_tx: Option<std::sync::mpsc::Sender<Job>>,
+    stats: WatchStats,
+}
+
+impl State {
+    fn new(
+        folders: Arc<[WatchFolder]>,
+        roots: Arc<[Root]>,
+        job_tx: std::sync::mpsc::Sender<Job>,
+    ) -> Self {
+        Self {
+            folders,
+            roots,
+            tracker: SettleTracker::new(),
+            offered: HashMap::new(),
+            in_flight: HashMap::new(),
+            refused: HashMap::new(),
+            job_tx: Some(job_tx),
+            stats: WatchStats::default(),
+        }
+    }
+
+    fn known(&self, key: &Path, stamp: &Stamp) -> bool {
+        [&self.offered, &self.in_flight, &self.refused]
+            .iter()
+            .any(|map| map.get(key) == Some(stamp))
+    }
+
+    fn settle_time(&self, root: usize) -> Duration {
+        let ms = self.folders.get(root).map_or(0, |f| f.settle);
+        Duration::from_millis(ms)
+    }
+
+    fn sighted(&mut self, sighting: Sighting) {
+        let Sighting {
+            root,
+            found,
+            signal,
+        } = sighting;
+        if self.known(&found.key, &found.stamp) {
+            self.tracker.forget(&found.key);
+            return;
+        }
+        let settle = self.settle_time(root);
+        self.tracker.note(
+            found.key,
+            (root, found.path),
+            found.stamp,
+            signal,
+            settle,
+            Instant::now(),
+        );
+    }
+
+    /// Re-checks every file whose time has come and hands the settled ones to the worker.
+    fn recheck(&mut self) {
+        let now = Instant::now();
+        for key in self.tracker.due(now) {
+            let Some((root, path)) = self.tracker.value(&key).cloned() else {
+                continue;
+            };
+            let stamp = self
+                .roots
+                .get(root)
+                .and_then(|r| r.examine(&path).ok())
+                .filter(|found| found.key == key)
+                .map(|found| found.stamp);
+            match self.tracker.confirm(&key, stamp, now) {
+                Verdict::Settled((root, path), stamp) => self.dispatch(Job {
+                    root,
+                    path,
+                    key,
+                    stamp,
+                }),
+                Verdict::Waiting => tracing::trace!(path = ?path, "still changing"),
+                Verdict::Gone => tracing::debug!(path = ?path, "vanished before it settled"),
+            }
+        }
+    }
+
+    fn dispatch(&mut self, job: Job) {
+        if self.known(&job.key, &job.stamp) {
+            return;
+        }
+        let Some(job_tx) = &self.job_tx else {
+            return;
+        };
+        self.in_flight.insert(job.key.clone(), job.stamp);
+        if let Err(lost) = job_tx.send(job) {
+            let job = lost.0;
+            self.in_flight.remove(&job.key);
+            tracing::error!(path = ?job.path, "ingestion worker is gone; file not offered");
+        }
+    }
+
+    fn finished(&mut self, outcome: Outcome) {
+        let Outcome { job, result } = outcome;
+        if self.in_flight.get(&job.key) == Some(&job.stamp) {
+            self.in_flight.remove(&job.key);
+        }
+        self.stats.offered += 1;
+        let profile = self
+            .folders
+            .get(job.root)
+            .map_or("", |f| f.profile.as_str());
+        match result {
+            Ok(()) => {
+                tracing::debug!(path = ?job.path, profile, size = job.stamp.size, "file offered");
+                self.offered.insert(job.key, job.stamp);
+            }
+            Err(error) => {
+                self.stats.sink_errors += 1;
+                tracing::error!(path = ?job.path, profile, error = %error, "file not ingested");
+                self.refused.insert(job.key, job.stamp);
+            }
+        }
+    }
+}

@@ -112,7 +112,12 @@ async fn slowly_written_file_is_offered_once_after_its_last_chunk() {
     let running = start(vec![folder(dir.path(), 400)], sink.clone());
     warm_up().await;
 
-    let data: Vec<u8> = b"batch;conversion\n".iter().copied().cycle().take(3000).collect();
+    let data: Vec<u8> = b"batch;conversion\n"
+        .iter()
+        .copied()
+        .cycle()
+        .take(3000)
+        .collect();
     let path = dir.path().join("batch-0042.csv");
     let writer_path = path.clone();
     let writer_data = data.clone();
@@ -129,10 +134,19 @@ async fn slowly_written_file_is_offered_once_after_its_last_chunk() {
     let calls = sink.calls();
     assert_eq!(calls.len(), 1, "offered once: {calls:?}");
     assert_eq!(calls[0].size, data.len() as u64, "offered complete");
-    assert!(calls[0].started >= finished, "offered only after the last chunk");
+    assert!(
+        calls[0].started >= finished,
+        "offered only after the last chunk"
+    );
     assert_eq!(calls[0].profile, "hplc-line-2");
     let stats = running.stop().await;
-    assert_eq!(stats, WatchStats { offered: 1, sink_errors: 0 });
+    assert_eq!(
+        stats,
+        WatchStats {
+            offered: 1,
+            sink_errors: 0
+        }
+    );
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
@@ -176,7 +190,11 @@ async fn poll_mode_picks_up_new_and_growing_files() {
     sink.wait_for(2, Duration::from_secs(4)).await;
     tokio::time::sleep(Duration::from_millis(1500)).await;
     let calls = sink.calls();
-    assert_eq!(sink.names(), vec!["balance-1.txt", "balance-2.txt"], "{calls:?}");
+    assert_eq!(
+        sink.names(),
+        vec!["balance-1.txt", "balance-2.txt"],
+        "{calls:?}"
+    );
     assert_eq!(calls[1].size, 2000);
     assert!(calls[1].started >= finished);
     assert_eq!(running.stop().await.offered, 2);
@@ -192,7 +210,8 @@ async fn files_present_at_start_are_offered_oldest_first() {
         let p = dir.path().join(name);
         fs::write(&p, name.as_bytes()).unwrap();
         let file = fs::File::options().write(true).open(&p).unwrap();
-        file.set_modified(epoch - Duration::from_secs(age_s)).unwrap();
+        file.set_modified(epoch - Duration::from_secs(age_s))
+            .unwrap();
     }
     fs::write(dir.path().join("notes.tmp"), b"x").unwrap();
     let sink = Arc::new(Recorder::default());
@@ -215,15 +234,29 @@ async fn ignored_names_and_links_leaving_the_folder_are_not_offered() {
     // Present at start ...
     fs::write(dir.path().join("run-1.csv"), b"1").unwrap();
     fs::write(dir.path().join("run-1.csv.part"), b"1").unwrap();
-    symlink(outside.path().join("payroll.csv"), dir.path().join("escape-1.csv")).unwrap();
+    symlink(
+        outside.path().join("payroll.csv"),
+        dir.path().join("escape-1.csv"),
+    )
+    .unwrap();
     let sink = Arc::new(Recorder::default());
     let running = start(vec![folder(dir.path(), 200)], sink.clone());
     warm_up().await;
     // ... and arriving while running.
-    for name in ["~lock.csv", ".sync-state", "RUN-2.TMP", "editor.csv.swp", "backup.csv~"] {
+    for name in [
+        "~lock.csv",
+        ".sync-state",
+        "RUN-2.TMP",
+        "editor.csv.swp",
+        "backup.csv~",
+    ] {
         fs::write(dir.path().join(name), b"x").unwrap();
     }
-    symlink(outside.path().join("payroll.csv"), dir.path().join("escape-2.csv")).unwrap();
+    symlink(
+        outside.path().join("payroll.csv"),
+        dir.path().join("escape-2.csv"),
+    )
+    .unwrap();
     // A link inside the folder resolves to run-1.csv: link and target are one file.
     symlink(dir.path().join("run-1.csv"), dir.path().join("alias.csv")).unwrap();
     fs::write(dir.path().join("run-3.csv"), b"3").unwrap();
@@ -252,7 +285,13 @@ async fn a_refused_file_does_not_stop_the_next_one() {
     tokio::time::sleep(Duration::from_millis(500)).await;
     assert_eq!(sink.names(), vec!["garbled.csv", "good.csv"]);
     let stats = running.stop().await;
-    assert_eq!(stats, WatchStats { offered: 2, sink_errors: 1 });
+    assert_eq!(
+        stats,
+        WatchStats {
+            offered: 2,
+            sink_errors: 1
+        }
+    );
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
@@ -273,7 +312,10 @@ async fn shutdown_lets_the_current_call_finish_and_takes_no_new_file() {
     assert!(took < Duration::from_secs(5), "{took:?}");
     // The call in progress was allowed to finish and is counted ...
     assert_eq!(stats.offered, 1);
-    assert!(took >= Duration::from_millis(500), "returned before the call ended: {took:?}");
+    assert!(
+        took >= Duration::from_millis(500),
+        "returned before the call ended: {took:?}"
+    );
     // ... and the queued file was not started.
     tokio::time::sleep(Duration::from_millis(1200)).await;
     assert_eq!(sink.names(), vec!["first.csv"]);
@@ -340,13 +382,18 @@ async fn unusable_configuration_is_refused_at_start() {
     outer.recursive = true;
     fs::create_dir(dir.path().join("inner")).unwrap();
     let inner = folder(&dir.path().join("inner"), 500);
-    let err = run(vec![outer, inner], sink.clone(), rx.clone()).await.unwrap_err();
+    let err = run(vec![outer, inner], sink.clone(), rx.clone())
+        .await
+        .unwrap_err();
     assert!(err.to_string().contains("overlap"), "{err}");
 
     let mut bad = folder(dir.path(), 500);
     bad.poll_interval = 0;
     let err = run(vec![bad], sink.clone(), rx).await.unwrap_err();
-    assert!(err.to_string().starts_with("folders[0].poll_interval:"), "{err}");
+    assert!(
+        err.to_string().starts_with("folders[0].poll_interval:"),
+        "{err}"
+    );
     assert!(sink.calls().is_empty());
 }
 

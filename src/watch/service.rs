@@ -191,9 +191,9 @@ fn prepare(folders: &[WatchFolder]) -> Result<Vec<Root>, WatchError> {
     }
     for (i, a) in roots.iter().enumerate() {
         for b in &roots[i + 1..] {
-            let overlap = if a.canonical == b.canonical {
-                Some((a, b))
-            } else if a.recursive && b.canonical.starts_with(&a.canonical) {
+            let overlap = if a.canonical == b.canonical
+                || (a.recursive && b.canonical.starts_with(&a.canonical))
+            {
                 Some((a, b))
             } else if b.recursive && a.canonical.starts_with(&b.canonical) {
                 Some((b, a))

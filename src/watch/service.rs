@@ -255,7 +255,10 @@ fn start_events(
         path: path.clone(),
         source,
     };
-    let mut watcher = notify::recommended_watcher(handler).map_err(events)?;
+    // Do not descend into linked directories: their files would be refused anyway when
+    // they resolve outside the folder, and each costs a kernel watch.
+    let config = notify::Config::default().with_follow_symlinks(false);
+    let mut watcher = RecommendedWatcher::new(handler, config).map_err(events)?;
     watcher.watch(&path, mode).map_err(events)?;
     Ok(watcher)
 }

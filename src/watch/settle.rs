@@ -327,4 +327,53 @@ mod tests {
         t.note("a", (), stamp(1, 1), Signal::Seen, SETTLE, ms(t0, 1500));
         assert_eq!(t.next_deadline(), Some(ms(t0, 2000)));
     }
+
+    proptest::proptest! {
+        /// Safety: whatever the writer's rhythm, a version is settled only if it was
+        /// unchanged over the whole settle time before (no close event involved).
+        /// Liveness: the last version settles exactly one settle time after it was written.
+        #[test]
+        fn settles_only_what_stood_still(gaps in proptest::collection::vec(0u64..6000, 1..40)) {
+            let t0 = Instant::now();
+            let mut tracker = SettleTracker::new();
+            let mut changes: Vec<(Instant, Stamp)> = Vec::new();
+            let mut at = t0;
+            for (i, gap) in gaps.iter().enumerate() {
+                at += Duration::from_millis(*gap);
+                changes.push((at, stamp(i as u64 + 1, i as u64 + 1)));
+            }
+            let current = |now: Instant, changes: &[(Instant, Stamp)]| {
+                changes.iter().rev().find(|(t, _)| *t <= now).map(|(_, s)| *s)
+            };
+            let mut settled: Vec<(Instant, Stamp)> = Vec::new();
+            let mut next = 0;
+            loop {
+                let event_at = changes.get(next).map(|(t, _)| *t);
+                match (tracker.next_deadline(), event_at) {
+                    (Some(d), e) if e.is_none_or(|e| d < e) => {
+                        let found = current(d, &changes);
+                        if let Verdict::Settled((), s) = tracker.confirm(&"f", found, d) {
+                            settled.push((d, s));
+                        }
+                    }
+                    (_, Some(e)) => {
+                        let (_, s) = changes[next];
+                        tracker.note("f", (), s, Signal::Seen, SETTLE, e);
+                        next += 1;
+                    }
+                    (None, None) => break,
+                    (Some(_), None) => unreachable!("covered by the first arm"),
+                }
+            }
+            for (when, s) in &settled {
+                let written = changes.iter().find(|(_, c)| c == s).map(|(t, _)| *t);
+                let written = written.expect("a settled stamp was written");
+                proptest::prop_assert!(*when >= written + SETTLE);
+                let later = changes.iter().any(|(t, c)| c != s && *t > written && *t <= *when);
+                proptest::prop_assert!(!later, "settled a version that had changed");
+            }
+            let (last_at, last) = *changes.last().expect("at least one change");
+            proptest::prop_assert_eq!(settled.last().copied(), Some((last_at + SETTLE, last)));
+        }
+    }
 }

@@ -15,6 +15,19 @@
 //! below the root) are not; directories and non-regular files are not; a symbolic link is
 //! followed only if it resolves inside the watched folder, and is then deduplicated with
 //! its target, so one file version is offered once.
+//!
+//! Wiring, in the `watch` command:
+//!
+//! ```no_run
+//! # use std::sync::Arc;
+//! # use turnbook::watch::{FileSink, WatchFolder};
+//! # async fn demo(folders: Vec<WatchFolder>, sink: Arc<dyn FileSink>) -> anyhow::Result<()> {
+//! let shutdown = turnbook::watch::shutdown_receiver();
+//! let stats = turnbook::watch::run(folders, sink, shutdown).await?;
+//! tracing::info!(offered = stats.offered, errors = stats.sink_errors, "watcher stopped");
+//! # Ok(())
+//! # }
+//! ```
 
 mod error;
 mod events;

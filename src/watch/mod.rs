@@ -44,7 +44,7 @@ pub use error::WatchError;
 pub use folder::{
     MAX_POLL_INTERVAL_S, MAX_SETTLE_MS, MIN_SETTLE_MS, WatchFolder, WatchMode, default_ignore,
 };
-pub use service::{SHUTDOWN_GRACE, run};
+pub use service::{RETRY_FIRST, RETRY_MAX, SHUTDOWN_GRACE, run};
 pub use settle::{CLOSE_RECHECK, SettleTracker, Signal, Stamp, Verdict};
 pub use shutdown::{shutdown_receiver, shutdown_signal};
 pub use slow::write_slowly;
@@ -56,8 +56,13 @@ pub use slow::write_slowly;
 /// idempotent by content: the watcher avoids offering the same (size, modification time)
 /// twice in one run, but a restart offers every file again.
 pub trait FileSink: Send + Sync + 'static {
-    /// Ingests one file found in `folder`. An error is logged and counted; the watcher
-    /// goes on with the next file and does not offer this version again in this run.
+    /// Ingests one file found in `folder`.
+    ///
+    /// Return `Ok` once the file is handled, including a bad file that was recorded and
+    /// quarantined: that outcome is final. Return `Err` when ingestion failed and may work
+    /// later (database busy, disk full): the error is logged and counted, the watcher goes
+    /// on with the next file and offers this version again after a growing pause
+    /// ([`RETRY_FIRST`], doubling up to [`RETRY_MAX`]); a changed file is offered at once.
     fn ingest(&self, folder: &WatchFolder, path: &Path) -> anyhow::Result<()>;
 }
 

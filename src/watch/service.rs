@@ -111,7 +111,7 @@ pub async fn run(
     let mut state = State::new(folders.clone(), roots.clone(), job_tx);
     if !*shutdown.borrow_and_update() {
         loop {
-            let deadline = state.tracker.next_deadline();
+            let deadline = state.next_deadline();
             tokio::select! {
                 changed = shutdown.changed() => {
                     if changed.is_err() || *shutdown.borrow_and_update() {
@@ -319,6 +319,30 @@ fn worker(
     }
 }
 
+/// First wait before a version the sink refused is offered again; doubled at each further
+/// refusal up to [`RETRY_MAX`] (exponential backoff, common practice). A transient failure
+/// (database busy, disk full) thus heals by itself without flooding the log.
+pub const RETRY_FIRST: Duration = Duration::from_secs(30);
+/// Longest wait between two offers of a refused version.
+pub const RETRY_MAX: Duration = Duration::from_secs(30 * 60);
+
+/// Wait before the offer following the `attempts`-th refusal (1-based).
+fn retry_delay(first: Duration, attempts: u32) -> Duration {
+    let factor = 1u32 << attempts.saturating_sub(1).min(16);
+    first.saturating_mul(factor).min(RETRY_MAX)
+}
+
+/// A version the sink refused.
+#[derive(Debug)]
+struct Refusal {
+    stamp: Stamp,
+    root: usize,
+    path: PathBuf,
+    attempts: u32,
+    /// When it may be offered again; `None` while a new offer is under way.
+    retry_at: Option<Instant>,
+}
+
 /// The loop's bookkeeping: files settling, files with the sink, files done in this run.
 struct State {
     folders: Arc<[WatchFolder]>,
@@ -328,9 +352,10 @@ struct State {
     offered: HashMap<PathBuf, Stamp>,
     /// Versions queued for or inside the sink.
     in_flight: HashMap<PathBuf, Stamp>,
-    /// Versions the sink refused; offered again only once they change (or at next start),
-    /// so a poll folder does not retry a bad file every scan.
-    refused: HashMap<PathBuf, Stamp>,
+    /// Versions the sink refused; held back until their retry time, so a poll folder does
+    /// not offer a failing file at every scan.
+    refused: HashMap<PathBuf, Refusal>,
+    retry_first: Duration,
     job_tx: Option<std::sync::mpsc::Sender<Job>>,
     stats: WatchStats,
 }
@@ -348,15 +373,30 @@ impl State {
             offered: HashMap::new(),
             in_flight: HashMap::new(),
             refused: HashMap::new(),
+            retry_first: RETRY_FIRST,
             job_tx: Some(job_tx),
             stats: WatchStats::default(),
         }
     }
 
-    fn known(&self, key: &Path, stamp: &Stamp) -> bool {
-        [&self.offered, &self.in_flight, &self.refused]
-            .iter()
-            .any(|map| map.get(key) == Some(stamp))
+    /// True when this version needs no offer now: done, under way, or waiting for a retry.
+    fn known(&self, key: &Path, stamp: &Stamp, now: Instant) -> bool {
+        self.offered.get(key) == Some(stamp)
+            || self.in_flight.get(key) == Some(stamp)
+            || self
+                .refused
+                .get(key)
+                .is_some_and(|r| r.stamp == *stamp && r.retry_at.is_some_and(|at| now < at))
+    }
+
+    /// The next moment the loop must act without being woken by a message: a settling
+    /// file's re-check or a refused file's retry. `None` when idle.
+    fn next_deadline(&self) -> Option<Instant> {
+        let retry = self.refused.values().filter_map(|r| r.retry_at).min();
+        match (self.tracker.next_deadline(), retry) {
+            (Some(a), Some(b)) => Some(a.min(b)),
+            (a, b) => a.or(b),
+        }
     }
 
     fn settle_time(&self, root: usize) -> Duration {
@@ -370,7 +410,16 @@ impl State {
             found,
             signal,
         } = sighting;
-        if self.known(&found.key, &found.stamp) {
+        let now = Instant::now();
+        if self
+            .refused
+            .get(&found.key)
+            .is_some_and(|r| r.stamp != found.stamp)
+        {
+            // A new version: the old refusal and its backoff no longer apply.
+            self.refused.remove(&found.key);
+        }
+        if self.known(&found.key, &found.stamp, now) {
             self.tracker.forget(&found.key);
             return;
         }
@@ -381,13 +430,38 @@ impl State {
             found.stamp,
             signal,
             settle,
-            Instant::now(),
+            now,
         );
     }
 
-    /// Re-checks every file whose time has come and hands the settled ones to the worker.
+    /// Puts refused files whose retry time has come back into the settle tracker, then
+    /// re-checks every file whose time has come and hands the settled ones to the worker.
     fn recheck(&mut self) {
         let now = Instant::now();
+        let retries: Vec<PathBuf> = self
+            .refused
+            .iter()
+            .filter(|(_, r)| r.retry_at.is_some_and(|at| at <= now))
+            .map(|(k, _)| k.clone())
+            .collect();
+        for key in retries {
+            let Some(refusal) = self.refused.get_mut(&key) else {
+                continue;
+            };
+            refusal.retry_at = None;
+            let (root, path) = (refusal.root, refusal.path.clone());
+            match self.roots.get(root).map(|r| r.examine(&path)) {
+                Some(Ok(found)) if found.key == key => {
+                    let settle = self.settle_time(root);
+                    self.tracker
+                        .note(key, (root, path), found.stamp, Signal::Seen, settle, now);
+                }
+                _ => {
+                    tracing::debug!(path = ?path, "refused file is gone; no retry");
+                    self.refused.remove(&key);
+                }
+            }
+        }
         for key in self.tracker.due(now) {
             let Some((root, path)) = self.tracker.value(&key).cloned() else {
                 continue;
@@ -399,20 +473,26 @@ impl State {
                 .filter(|found| found.key == key)
                 .map(|found| found.stamp);
             match self.tracker.confirm(&key, stamp, now) {
-                Verdict::Settled((root, path), stamp) => self.dispatch(Job {
-                    root,
-                    path,
-                    key,
-                    stamp,
-                }),
+                Verdict::Settled((root, path), stamp) => self.dispatch(
+                    Job {
+                        root,
+                        path,
+                        key,
+                        stamp,
+                    },
+                    now,
+                ),
                 Verdict::Waiting => tracing::trace!(path = ?path, "still changing"),
-                Verdict::Gone => tracing::debug!(path = ?path, "vanished before it settled"),
+                Verdict::Gone => {
+                    tracing::debug!(path = ?path, "vanished before it settled");
+                    self.refused.remove(&key);
+                }
             }
         }
     }
 
-    fn dispatch(&mut self, job: Job) {
-        if self.known(&job.key, &job.stamp) {
+    fn dispatch(&mut self, job: Job, now: Instant) {
+        if self.known(&job.key, &job.stamp, now) {
             return;
         }
         let Some(job_tx) = &self.job_tx else {
@@ -439,13 +519,147 @@ impl State {
         match result {
             Ok(()) => {
                 tracing::debug!(path = ?job.path, profile, size = job.stamp.size, "file offered");
+                self.refused.remove(&job.key);
                 self.offered.insert(job.key, job.stamp);
             }
             Err(error) => {
                 self.stats.sink_errors += 1;
-                tracing::error!(path = ?job.path, profile, error = %error, "file not ingested");
-                self.refused.insert(job.key, job.stamp);
+                let attempts = match self.refused.get(&job.key) {
+                    Some(r) if r.stamp == job.stamp => r.attempts.saturating_add(1),
+                    _ => 1,
+                };
+                let wait = retry_delay(self.retry_first, attempts);
+                tracing::error!(path = ?job.path, profile, error = %error, attempts,
+                    retry_in_s = wait.as_secs(), "file not ingested");
+                self.refused.insert(
+                    job.key,
+                    Refusal {
+                        stamp: job.stamp,
+                        root: job.root,
+                        path: job.path,
+                        attempts,
+                        retry_at: Some(Instant::now() + wait),
+                    },
+                );
             }
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn backoff_doubles_up_to_its_cap() {
+        let first = Duration::from_secs(30);
+        let waits: Vec<u64> = (1..=8).map(|n| retry_delay(first, n).as_secs()).collect();
+        assert_eq!(waits, vec![30, 60, 120, 240, 480, 960, 1800, 1800]);
+        assert_eq!(retry_delay(first, u32::MAX), RETRY_MAX);
+    }
+
+    /// Sleeps until the state's next deadline and lets it act, as the loop would.
+    fn advance(state: &mut State) {
+        let at = state.next_deadline().expect("something is pending");
+        std::thread::sleep(at.saturating_duration_since(Instant::now()));
+        state.recheck();
+    }
+
+    #[test]
+    fn refused_file_is_held_back_then_offered_again() {
+        let dir = tempfile::tempdir().unwrap();
+        let file = dir.path().join("assay-9.csv");
+        std::fs::write(&file, b"Pd;1.2\n").unwrap();
+        let mut folder = WatchFolder::new(dir.path(), "assay");
+        folder.settle = 50;
+        let folders = vec![folder];
+        let roots: Arc<[Root]> = prepare(&folders).unwrap().into();
+        let (job_tx, jobs) = std::sync::mpsc::channel();
+        let mut state = State::new(folders.into(), roots.clone(), job_tx);
+        state.retry_first = Duration::from_millis(150);
+        let sight = |state: &mut State| {
+            let found = roots[0]
+                .examine(&roots[0].canonical.join("assay-9.csv"))
+                .unwrap();
+            state.sighted(Sighting {
+                root: 0,
+                found,
+                signal: Signal::Seen,
+            });
+        };
+
+        sight(&mut state);
+        advance(&mut state);
+        let job = jobs.try_recv().expect("offered once settled");
+        state.finished(Outcome {
+            job,
+            result: Err("database is locked".into()),
+        });
+        assert_eq!(state.stats.sink_errors, 1);
+
+        // A scan sees the same version again before its retry time: held back.
+        sight(&mut state);
+        assert!(state.tracker.is_empty());
+        let retry_at = state.next_deadline().unwrap();
+        assert!(retry_at >= Instant::now() + Duration::from_millis(100));
+
+        // At the retry time it settles again and is offered again.
+        advance(&mut state);
+        assert!(jobs.try_recv().is_err(), "settles before the new offer");
+        advance(&mut state);
+        let job = jobs.try_recv().expect("offered again after the backoff");
+        state.finished(Outcome {
+            job,
+            result: Ok(()),
+        });
+        assert_eq!(
+            state.stats,
+            WatchStats {
+                offered: 2,
+                sink_errors: 1
+            }
+        );
+        assert_eq!(state.next_deadline(), None, "idle again: no timer");
+        sight(&mut state);
+        assert!(
+            state.tracker.is_empty(),
+            "an ingested version is not offered twice"
+        );
+    }
+
+    #[test]
+    fn a_changed_version_is_not_held_back() {
+        let dir = tempfile::tempdir().unwrap();
+        let file = dir.path().join("assay-10.csv");
+        std::fs::write(&file, b"Pd;1.2\n").unwrap();
+        let mut folder = WatchFolder::new(dir.path(), "assay");
+        folder.settle = 50;
+        let folders = vec![folder];
+        let roots: Arc<[Root]> = prepare(&folders).unwrap().into();
+        let (job_tx, jobs) = std::sync::mpsc::channel();
+        let mut state = State::new(folders.into(), roots.clone(), job_tx);
+        let path = roots[0].canonical.join("assay-10.csv");
+        let found = roots[0].examine(&path).unwrap();
+        state.sighted(Sighting {
+            root: 0,
+            found,
+            signal: Signal::Closed,
+        });
+        advance(&mut state);
+        let job = jobs.try_recv().unwrap();
+        state.finished(Outcome {
+            job,
+            result: Err("cannot parse".into()),
+        });
+        // The chemist fixes the export and saves it again: a new version, offered now.
+        std::fs::write(&file, b"Pd;1.25\n").unwrap();
+        let found = roots[0].examine(&path).unwrap();
+        state.sighted(Sighting {
+            root: 0,
+            found,
+            signal: Signal::Closed,
+        });
+        advance(&mut state);
+        assert_eq!(jobs.try_recv().unwrap().stamp.size, 8);
     }
 }

@@ -1,12 +1,76 @@
-//! PLACEHOLDER until the watcher lands (replaced at merge).
-#[derive(Debug, Clone, serde::Deserialize)]
-pub struct WatchFolder {
-    pub path: std::path::PathBuf,
-    pub profile: String,
-    pub site: Option<String>,
+//! The folder watcher: notices instrument exports as they land and hands each complete
+//! file, once, to the ingestion pipeline.
+//!
+//! - [`WatchFolder`]: one `[[folders]]` entry of the configuration (path, profile, mode…).
+//! - [`run`]: the service loop. File events (or polling, for network shares) feed a settle
+//!   tracker; a file is offered only when it has stopped changing: a close-after-write
+//!   confirmed by a short re-check, or size and modification time unchanged for the
+//!   folder's `settle` time. Start-up scans every folder so nothing landed while the
+//!   service was down is missed.
+//! - [`FileSink`]: what the watcher offers files to (the pipeline); called from one thread.
+//! - [`shutdown_signal`], [`shutdown_receiver`]: stop on SIGTERM/SIGINT.
+//! - [`write_slowly`]: writes a file like a slow instrument, for tests and demos.
+//!
+//! Which files are offered: names matching an ignore pattern (the file's or any folder's
+//! below the root) are not; directories and non-regular files are not; a symbolic link is
+//! followed only if it resolves inside the watched folder, and is then deduplicated with
+//! its target, so one file version is offered once.
+//!
+//! Wiring, in the `watch` command:
+//!
+//! ```no_run
+//! # use std::sync::Arc;
+//! # use turnbook::watch::{FileSink, WatchFolder};
+//! # async fn demo(folders: Vec<WatchFolder>, sink: Arc<dyn FileSink>) -> anyhow::Result<()> {
+//! let shutdown = turnbook::watch::shutdown_receiver();
+//! let stats = turnbook::watch::run(folders, sink, shutdown).await?;
+//! tracing::info!(offered = stats.offered, errors = stats.sink_errors, "watcher stopped");
+//! # Ok(())
+//! # }
+//! ```
+
+mod error;
+mod events;
+mod folder;
+mod scan;
+mod service;
+mod settle;
+mod shutdown;
+mod slow;
+
+use std::path::Path;
+
+pub use error::WatchError;
+pub use folder::{
+    MAX_POLL_INTERVAL_S, MAX_SETTLE_MS, MIN_SETTLE_MS, WatchFolder, WatchMode, default_ignore,
+};
+pub use service::{RETRY_FIRST, RETRY_MAX, SHUTDOWN_GRACE, run};
+pub use settle::{CLOSE_RECHECK, SettleTracker, Signal, Stamp, Verdict};
+pub use shutdown::{shutdown_receiver, shutdown_signal};
+pub use slow::write_slowly;
+
+/// Receives settled files. Implemented by the ingestion pipeline.
+///
+/// Called from a single worker thread, one file at a time, in the order files settled, so
+/// it may block (SQLite) and needs no locking of its own against other calls. It should be
+/// idempotent by content: the watcher avoids offering the same (size, modification time)
+/// twice in one run, but a restart offers every file again.
+pub trait FileSink: Send + Sync + 'static {
+    /// Ingests one file found in `folder`.
+    ///
+    /// Return `Ok` once the file is handled, including a bad file that was recorded and
+    /// quarantined: that outcome is final. Return `Err` when ingestion failed and may work
+    /// later (database busy, disk full): the error is logged and counted, the watcher goes
+    /// on with the next file and offers this version again after a growing pause
+    /// ([`RETRY_FIRST`], doubling up to [`RETRY_MAX`]); a changed file is offered at once.
+    fn ingest(&self, folder: &WatchFolder, path: &Path) -> anyhow::Result<()>;
 }
-impl WatchFolder {
-    pub fn validate(&self) -> Result<(), String> {
-        Ok(())
-    }
+
+/// What the watcher did, returned when it stops.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct WatchStats {
+    /// Sink calls completed (successful or not).
+    pub offered: u64,
+    /// Sink calls that returned an error (or panicked).
+    pub sink_errors: u64,
 }

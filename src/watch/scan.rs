@@ -1,0 +1,274 @@
+//! Looking at the file system: which paths are files we may offer, and directory scans.
+//!
+//! Rules, in order: the path must lie below the watched root (directly, unless the folder
+//! is recursive); no name between the root and the file may match an ignore pattern;
+//! directories and non-regular files (FIFOs, sockets, devices) are skipped; a symbolic
+//! link is followed only when its target resolves inside the watched root, so a link
+//! cannot smuggle in a file from elsewhere. Inside links are offered under the link's own
+//! path but deduplicated by the resolved path, so link and target are offered once.
+
+use std::fs;
+use std::io;
+use std::path::{Component, Path, PathBuf};
+
+use globset::GlobSet;
+
+use super::settle::Stamp;
+
+/// A watched folder resolved for use: canonical path, recursion, compiled ignore patterns.
+#[derive(Debug, Clone)]
+pub(crate) struct Root {
+    /// Index of the `[[folders]]` entry.
+    pub index: usize,
+    /// Canonical (absolute, link-free) folder path.
+    pub canonical: PathBuf,
+    pub recursive: bool,
+    pub ignore: GlobSet,
+}
+
+/// Why a path is not offered; used for debug logs and tests.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Skip {
+    OutsideRoot,
+    TooDeep,
+    Ignored,
+    Gone,
+    Unreadable,
+    Directory,
+    LinkOutside,
+    NotRegular,
+}
+
+/// A file that may be offered: `key` is its resolved path (the identity used to avoid
+/// offering the same version twice), `stamp` its current size and modification time.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub(crate) struct FileFound {
+    pub path: PathBuf,
+    pub key: PathBuf,
+    pub stamp: Stamp,
+}
+
+fn stamp_of(meta: &fs::Metadata) -> Stamp {
+    Stamp {
+        size: meta.len(),
+        modified: meta.modified().ok(),
+    }
+}
+
+impl Root {
+    /// True when a name below the root matches an ignore pattern.
+    fn ignored_name(&self, name: &std::ffi::OsStr) -> bool {
+        self.ignore.is_match(Path::new(name))
+    }
+
+    /// Applies the rules above to one path (as reported by an event or a scan).
+    pub fn examine(&self, path: &Path) -> Result<FileFound, Skip> {
+        let rel = path
+            .strip_prefix(&self.canonical)
+            .map_err(|_| Skip::OutsideRoot)?;
+        let mut depth = 0usize;
+        for component in rel.components() {
+            match component {
+                Component::Normal(name) => {
+                    depth += 1;
+                    if self.ignored_name(name) {
+                        return Err(Skip::Ignored);
+                    }
+                }
+                // `..` or a second root would escape the folder.
+                _ => return Err(Skip::OutsideRoot),
+            }
+        }
+        if depth == 0 {
+            return Err(Skip::Directory);
+        }
+        if depth > 1 && !self.recursive {
+            return Err(Skip::TooDeep);
+        }
+        let own = fs::symlink_metadata(path).map_err(io_skip)?;
+        if own.is_dir() {
+            return Err(Skip::Directory);
+        }
+        // Resolve links in the file and in any directory on the way; both must stay inside.
+        let key = fs::canonicalize(path).map_err(io_skip)?;
+        if !key.starts_with(&self.canonical) {
+            return Err(Skip::LinkOutside);
+        }
+        let meta = if own.file_type().is_symlink() {
+            fs::metadata(&key).map_err(io_skip)?
+        } else {
+            own
+        };
+        if !meta.is_file() {
+            return Err(if meta.is_dir() {
+                Skip::Directory
+            } else {
+                Skip::NotRegular
+            });
+        }
+        Ok(FileFound {
+            path: path.to_path_buf(),
+            key,
+            stamp: stamp_of(&meta),
+        })
+    }
+
+    /// Every file that may be offered under `dir` (the root or a sub-folder of it), oldest
+    /// modification first so that a catch-up offers files roughly in the order they landed.
+    /// Symbolic links to directories are not descended into; unreadable directories are
+    /// logged and skipped.
+    pub fn scan(&self, dir: &Path) -> Vec<FileFound> {
+        let mut found = Vec::new();
+        let mut stack = vec![dir.to_path_buf()];
+        while let Some(current) = stack.pop() {
+            let entries = match fs::read_dir(&current) {
+                Ok(entries) => entries,
+                Err(error) => {
+                    tracing::warn!(path = ?current, %error, "cannot list folder");
+                    continue;
+                }
+            };
+            for entry in entries.flatten() {
+                let path = entry.path();
+                let is_real_dir = entry.file_type().map(|t| t.is_dir()).unwrap_or(false);
+                if is_real_dir {
+                    if self.recursive && !self.ignored_name(&entry.file_name()) {
+                        stack.push(path);
+                    }
+                    continue;
+                }
+                match self.examine(&path) {
+                    Ok(file) => found.push(file),
+                    Err(skip) => tracing::trace!(path = ?path, ?skip, "not offered"),
+                }
+            }
+        }
+        found.sort_by(|a, b| {
+            a.stamp
+                .modified
+                .cmp(&b.stamp.modified)
+                .then_with(|| a.path.cmp(&b.path))
+        });
+        found
+    }
+}
+
+fn io_skip(error: io::Error) -> Skip {
+    if error.kind() == io::ErrorKind::NotFound {
+        Skip::Gone
+    } else {
+        Skip::Unreadable
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::watch::WatchFolder;
+
+    fn root(dir: &Path, recursive: bool) -> Root {
+        let mut folder = WatchFolder::new(dir, "p");
+        folder.recursive = recursive;
+        Root {
+            index: 0,
+            canonical: fs::canonicalize(dir).unwrap(),
+            recursive,
+            ignore: folder.ignore_set().unwrap(),
+        }
+    }
+
+    #[test]
+    fn regular_file_is_found_with_its_size() {
+        let tmp = tempfile::tempdir().unwrap();
+        let r = root(tmp.path(), false);
+        let p = r.canonical.join("run-1.csv");
+        fs::write(&p, b"12345").unwrap();
+        let f = r.examine(&p).unwrap();
+        assert_eq!(f.stamp.size, 5);
+        assert_eq!(f.key, p);
+    }
+
+    #[test]
+    fn ignored_missing_and_outside_paths_are_skipped() {
+        let tmp = tempfile::tempdir().unwrap();
+        let r = root(tmp.path(), true);
+        fs::write(r.canonical.join("a.tmp"), b"x").unwrap();
+        assert_eq!(r.examine(&r.canonical.join("a.tmp")), Err(Skip::Ignored));
+        assert_eq!(r.examine(&r.canonical.join("nope.csv")), Err(Skip::Gone));
+        assert_eq!(
+            r.examine(Path::new("/etc/hostname")),
+            Err(Skip::OutsideRoot)
+        );
+        assert_eq!(
+            r.examine(&r.canonical.join("../x.csv")),
+            Err(Skip::OutsideRoot)
+        );
+        fs::create_dir(r.canonical.join(".cache")).unwrap();
+        fs::write(r.canonical.join(".cache/b.csv"), b"x").unwrap();
+        assert_eq!(
+            r.examine(&r.canonical.join(".cache/b.csv")),
+            Err(Skip::Ignored)
+        );
+        assert!(r.scan(&r.canonical).is_empty());
+    }
+
+    #[test]
+    fn depth_follows_the_recursive_key() {
+        let tmp = tempfile::tempdir().unwrap();
+        fs::create_dir(tmp.path().join("sub")).unwrap();
+        fs::write(tmp.path().join("sub/c.csv"), b"x").unwrap();
+        let flat = root(tmp.path(), false);
+        assert_eq!(
+            flat.examine(&flat.canonical.join("sub/c.csv")),
+            Err(Skip::TooDeep)
+        );
+        assert!(flat.scan(&flat.canonical).is_empty());
+        let deep = root(tmp.path(), true);
+        assert_eq!(deep.scan(&deep.canonical).len(), 1);
+        assert_eq!(
+            deep.examine(&deep.canonical.join("sub")),
+            Err(Skip::Directory)
+        );
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn links_are_followed_only_inside_the_root() {
+        use std::os::unix::fs::symlink;
+        let outside = tempfile::tempdir().unwrap();
+        let tmp = tempfile::tempdir().unwrap();
+        let r = root(tmp.path(), false);
+        fs::write(outside.path().join("secret.csv"), b"x").unwrap();
+        fs::write(r.canonical.join("real.csv"), b"abc").unwrap();
+        symlink(
+            outside.path().join("secret.csv"),
+            r.canonical.join("out.csv"),
+        )
+        .unwrap();
+        symlink(r.canonical.join("real.csv"), r.canonical.join("in.csv")).unwrap();
+        symlink("/nonexistent-target", r.canonical.join("dangling.csv")).unwrap();
+        assert_eq!(
+            r.examine(&r.canonical.join("out.csv")),
+            Err(Skip::LinkOutside)
+        );
+        assert_eq!(
+            r.examine(&r.canonical.join("dangling.csv")),
+            Err(Skip::Gone)
+        );
+        let inside = r.examine(&r.canonical.join("in.csv")).unwrap();
+        assert_eq!(inside.key, r.canonical.join("real.csv"));
+        assert_eq!(inside.stamp.size, 3);
+        let names: Vec<_> = r.scan(&r.canonical).into_iter().map(|f| f.path).collect();
+        assert_eq!(names.len(), 2, "{names:?}");
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn sockets_are_not_offered() {
+        let tmp = tempfile::tempdir().unwrap();
+        let r = root(tmp.path(), false);
+        let sock = r.canonical.join("instrument.csv");
+        let _listener = std::os::unix::net::UnixListener::bind(&sock).unwrap();
+        assert_eq!(r.examine(&sock), Err(Skip::NotRegular));
+    }
+}

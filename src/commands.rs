@@ -172,6 +172,10 @@ pub enum Command {
         #[arg(long)]
         csv: Option<PathBuf>,
     },
+    /// The service: watch the configured export folders, ingest every file once, send alerts.
+    Watch,
+    /// Deliver the messages waiting in the outbox now (the service does this on its own).
+    Mail,
     /// Walk the audit chain and compare every record with the events that wrote it.
     Verify {
         #[arg(long)]
@@ -329,6 +333,8 @@ fn dispatch(cli: &Cli) -> CmdResult {
         Command::History { lot, json } => crate::views::history(&load(cli)?, lot, *json),
         Command::Status { json } => crate::views::status(&load(cli)?, *json),
         Command::Verify { json } => verify(&load(cli)?, *json),
+        Command::Watch => crate::service::watch_command(&load(cli)?),
+        Command::Mail => crate::service::mail_command(&load(cli)?),
         Command::Report { lot, site, out, csv } => crate::reportcmd::run(&load(cli)?, lot.as_deref(), *site, out, csv.as_deref()),
         Command::Fit { lot, series, model, starts, threshold, confidence, json } => match (lot, series) {
             (_, Some(file)) => crate::fitcmd::series(file, model, starts, *threshold, *confidence, *json),
@@ -471,7 +477,7 @@ pub fn shown(p: &Path) -> String {
 impl Command {
     /// Long-running commands log every unit of work at info level.
     pub fn is_service(&self) -> bool {
-        false
+        matches!(self, Command::Watch)
     }
 }
 

@@ -301,9 +301,11 @@ impl Config {
         let sites: Vec<&str> = self.sites.iter().map(|s| s.name.as_str()).collect();
         for (i, folder) in self.folders.iter().enumerate() {
             let key = format!("folders[{i}]");
-            folder
-                .validate()
-                .map_err(|m| self.invalid(key.clone(), m))?;
+            if let Err(e) = folder.validate(i) {
+                let text = e.to_string();
+                let prefix = format!("{key}.");
+                return Err(self.invalid(key, text.strip_prefix(&prefix).unwrap_or(&text).to_string()));
+            }
             if !self.profiles.contains_key(&folder.profile) {
                 return Err(self.invalid(
                     format!("{key}.profile"),
@@ -334,6 +336,25 @@ impl Config {
 
     pub fn database_path(&self) -> PathBuf {
         self.resolve(&self.database)
+    }
+
+    /// The watched folders with their paths made absolute against the configuration's folder.
+    pub fn resolved_folders(&self) -> Vec<WatchFolder> {
+        self.folders
+            .iter()
+            .map(|f| {
+                let mut f = f.clone();
+                f.path = self.resolve(&f.path);
+                f
+            })
+            .collect()
+    }
+
+    /// The mail settings with the file transport's folder made absolute.
+    pub fn resolved_mail(&self) -> MailConfig {
+        let mut m = self.mail.clone();
+        m.dir = self.resolve(&m.dir);
+        m
     }
 
     pub fn quarantine_dir(&self) -> PathBuf {

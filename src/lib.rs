@@ -13,6 +13,7 @@
 //! - [`audit`]: the hash chain over the event log and its verification.
 //! - [`analysis`]: lot metrics, fits and alerts recomputed when records change.
 //! - [`pipeline`]: one file from bytes to committed records (hash, parse, merge, store).
+//! - [`service`]: the long-running watcher and mailer around the pipeline.
 //! - [`watch`]: folder events, polling, settling and start-up catch-up.
 //! - [`views`]: status, history and sign-off fingerprints for people and scripts.
 //! - [`demo`]: the invented demonstration plant.
@@ -32,6 +33,7 @@ pub mod fitcmd;
 pub mod ingest;
 pub mod pipeline;
 pub mod report;
+pub mod service;
 pub mod reportcmd;
 pub mod store;
 pub mod views;

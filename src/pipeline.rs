@@ -91,6 +91,11 @@ pub struct Ingestor {
     actor: String,
     /// A profile named on the command line, for files outside every configured folder.
     pub profile_override: Option<String>,
+    /// Skip, without reading it, a file whose path, size and mtime were recorded before
+    /// (the service's start-up scan offers every file again; re-recording each as a
+    /// duplicate at every restart would only grow the log). `ingest` keeps it off so that
+    /// a second backfill reports every file as a duplicate.
+    pub skip_unchanged: bool,
 }
 
 impl Ingestor {
@@ -108,6 +113,7 @@ impl Ingestor {
             cfg,
             actor,
             profile_override: None,
+            skip_unchanged: false,
         })
     }
 
@@ -119,7 +125,24 @@ impl Ingestor {
         &self.cfg
     }
 
-    /// Ingest one file in its own transaction.
+    /// True when this path, with this size and mtime, was recorded before.
+    pub fn unchanged_since_recorded(&self, path: &Path) -> Result<bool, StoreError> {
+        let Ok(meta) = std::fs::metadata(path) else {
+            return Ok(false);
+        };
+        let mtime = meta
+            .modified()
+            .ok()
+            .map(|t| chrono::DateTime::<chrono::Utc>::from(t).to_rfc3339_opts(chrono::SecondsFormat::Millis, true));
+        let n: i64 = self
+            .conn
+            .prepare_cached("SELECT COUNT(*) FROM source_files WHERE path = ?1 AND size = ?2 AND mtime IS ?3")?
+            .query_row(rusqlite::params![path.display().to_string(), meta.len() as i64, mtime], |r| r.get(0))?;
+        Ok(n > 0)
+    }
+
+    /// Ingest one file in its own transaction (the service's unit of work): its records,
+    /// the recomputed fits and any alerts they raise commit together.
     pub fn ingest_file(&mut self, path: &Path) -> Result<FileOutcome, StoreError> {
         let mut out = self.ingest_group(&[path.to_path_buf()])?;
         out.pop()
@@ -133,17 +156,40 @@ impl Ingestor {
         mut progress: impl FnMut(&FileOutcome),
     ) -> Result<RunSummary, StoreError> {
         let mut summary = RunSummary::default();
+        let mut touched = BTreeSet::new();
         for group in paths.chunks(self.cfg.files_per_transaction.max(1)) {
-            for o in self.ingest_group(group)? {
+            let (outcomes, lots) = self.store_group(group)?;
+            touched.extend(lots);
+            for o in outcomes {
                 summary.add(&o);
                 progress(&o);
             }
         }
+        // A backfill recomputes each touched lot once, after its last group.
+        if !touched.is_empty() {
+            let tx = self.conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
+            crate::analysis::recompute_lots(&tx, &self.cfg, &touched, &self.actor)?;
+            tx.commit()?;
+        }
         Ok(summary)
     }
 
-    /// Read and parse a group of files, then store them all in one transaction.
+    /// Store a group of files and recompute the lots they touched, in one transaction.
     fn ingest_group(&mut self, paths: &[PathBuf]) -> Result<Vec<FileOutcome>, StoreError> {
+        self.store_group_then(paths, true).map(|(o, _)| o)
+    }
+
+    /// Store a group of files in one transaction; the caller recomputes the lots later.
+    fn store_group(&mut self, paths: &[PathBuf]) -> Result<(Vec<FileOutcome>, BTreeSet<String>), StoreError> {
+        self.store_group_then(paths, false)
+    }
+
+    /// Read and parse a group of files, then store them all in one transaction.
+    fn store_group_then(
+        &mut self,
+        paths: &[PathBuf],
+        recompute: bool,
+    ) -> Result<(Vec<FileOutcome>, BTreeSet<String>), StoreError> {
         let prepared: Vec<Prepared> = paths.iter().map(|p| self.prepare(p)).collect();
         let quarantine = self.cfg.quarantine_dir();
         // Copies into quarantine happen before the transaction: a crash after copying and
@@ -201,7 +247,9 @@ impl Ingestor {
             };
             outcomes.push(outcome);
         }
-        crate::analysis::recompute_lots(&tx, &self.cfg, &touched, &self.actor)?;
+        if recompute {
+            crate::analysis::recompute_lots(&tx, &self.cfg, &touched, &self.actor)?;
+        }
         tx.commit()?;
         for o in &outcomes {
             if let FileOutcome::Ingested { path, stored, .. } = o {
@@ -209,7 +257,7 @@ impl Ingestor {
                     rows_conflict = stored.rows_conflict, "file ingested");
             }
         }
-        Ok(outcomes)
+        Ok((outcomes, touched))
     }
 
     /// Read, hash and parse one file. Never fails: a problem becomes a rejection.

@@ -788,11 +788,11 @@ pub fn parse_number(text: &str, mark: DecimalMark) -> Result<f64, &'static str> 
     let bytes = text.as_bytes();
     let mut i = 0;
     let mut out = String::with_capacity(text.len());
-    if let Some(&s) = bytes.first() {
-        if s == b'+' || s == b'-' {
-            out.push(s as char);
-            i = 1;
-        }
+    if let Some(&s) = bytes.first()
+        && (s == b'+' || s == b'-')
+    {
+        out.push(s as char);
+        i = 1;
     }
     let mut digits = 0;
     let mut seen_mark = false;

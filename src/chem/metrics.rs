@@ -96,6 +96,7 @@ impl CycleInput {
 
 /// Settings of the calculation, from the configuration.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
 pub struct ChemOptions {
     /// Conversion from which k_app is only a lower bound (censored).
     pub saturation: f64,

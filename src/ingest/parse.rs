@@ -381,7 +381,13 @@ impl Layout {
     fn check_width(&self, record: &csv::StringRecord, line: u64) -> Result<(), ParseError> {
         let n = record.len();
         if n < self.width {
-            let field = self.headers.get(n).map(String::as_str);
+            // Name the first missing cell by its profile key when mapped, else its header.
+            let field = self
+                .bound
+                .iter()
+                .find(|b| b.index == n)
+                .map(|b| b.key.as_str())
+                .or_else(|| self.headers.get(n).map(String::as_str));
             return Err(err(
                 Some(line),
                 Some(col(n)),

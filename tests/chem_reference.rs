@@ -357,3 +357,15 @@ fn censored_reference_marks_later_activities() {
     // a2 = ln 10 / −ln(0.005) = 2.302585 / 5.298317 = 0.434588, an upper bound.
     assert_close!(some(m[1].activity), 0.434_587_990, 1e-8);
 }
+
+#[test]
+fn options_read_from_configuration_with_defaults() {
+    let o: ChemOptions = match toml::from_str("saturation = 0.99\nrequired = [\"temperature\"]\n") {
+        Ok(o) => o,
+        Err(e) => panic!("{e}"),
+    };
+    assert_eq!(o.saturation, 0.99);
+    assert_eq!(o.t_ref_k, 298.15);
+    assert_eq!(o.required, vec![Quantity::Temperature]);
+    assert!(toml::from_str::<ChemOptions>("saturaton = 0.99\n").is_err());
+}

@@ -150,7 +150,7 @@ fn duplicate_header_is_ambiguous() {
 #[test]
 fn truncated_last_line() {
     let e = fails(&format!("{HEADER}B-1,L,1,,1,25,50,500,1\nB-2,L,2,,1,2"));
-    assert_eq!(pos(&e), (Some(3), Some(7), Some("Conv")));
+    assert_eq!(pos(&e), (Some(3), Some(7), Some("conversion")));
     assert_eq!(e.expected, "9 fields as in the header on line 1");
     assert_eq!(e.found, "6 fields (a truncated line?)");
 }

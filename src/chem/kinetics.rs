@@ -37,13 +37,13 @@ pub fn metal_mol(catalyst_mass_g: f64, loading_wt_pct: f64, molar_mass: f64) -> 
 
 /// Yield from conversion and selectivity, for batches where yield is not measured.
 pub fn derived_yield(conversion: f64, selectivity: f64) -> Option<f64> {
-    (fraction(conversion) && fraction(selectivity)).then(|| conversion * selectivity)
+    (fraction(conversion) && fraction(selectivity)).then_some(conversion * selectivity)
 }
 
 /// mol product = mol limiting substrate × yield.
 pub fn product_mol(substrate_mol: f64, yield_fraction: f64) -> Option<f64> {
     (positive(substrate_mol) && fraction(yield_fraction))
-        .then(|| substrate_mol * yield_fraction)
+        .then_some(substrate_mol * yield_fraction)
         .and_then(finite)
 }
 

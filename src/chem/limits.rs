@@ -69,9 +69,9 @@ pub fn ich_q3d_pde(symbol: &str) -> Option<Pde> {
 /// Concentration limit in µg/g for a PDE and a daily dose: PDE / dose (ICH Q3D, option 2a
 /// form; option 1 when the dose is 10 g/day).
 pub fn concentration_limit_ug_per_g(pde_ug_per_day: f64, daily_dose_g: f64) -> Option<f64> {
-    if !(pde_ug_per_day.is_finite() && pde_ug_per_day >= 0.0)
-        || !(daily_dose_g.is_finite() && daily_dose_g > 0.0)
-    {
+    let pde_ok = pde_ug_per_day.is_finite() && pde_ug_per_day >= 0.0;
+    let dose_ok = daily_dose_g.is_finite() && daily_dose_g > 0.0;
+    if !(pde_ok && dose_ok) {
         return None;
     }
     Some(pde_ug_per_day / daily_dose_g)

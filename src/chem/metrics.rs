@@ -96,6 +96,7 @@ impl CycleInput {
 
 /// Settings of the calculation, from the configuration.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
 pub struct ChemOptions {
     /// Conversion from which k_app is only a lower bound (censored).
     pub saturation: f64,
@@ -199,23 +200,24 @@ pub fn cycle_metrics(
         .find(|m| m.cycle_no == 1)
         .and_then(|m| specific_rate(m, opts).map(|r| (r, m.censored)));
 
-    let mut product_sum = 0.0;
+    // Sums over the cycles known so far; None until at least one term is known.
+    let mut product_sum: Option<f64> = None;
     let mut product_gap = false;
-    let mut lost_sum = 0.0;
+    let mut lost_sum: Option<f64> = None;
     let mut lost_gap = false;
     for m in &mut out {
         match m.product_mol {
-            Some(p) => product_sum += p,
+            Some(p) => product_sum = Some(product_sum.unwrap_or(0.0) + p),
             None => product_gap = true,
         }
         match m.metal_lost_g {
-            Some(g) => lost_sum += g,
+            Some(g) => lost_sum = Some(lost_sum.unwrap_or(0.0) + g),
             None => lost_gap = true,
         }
         if let Some(n0) = initial_mol.filter(|n| *n > 0.0) {
-            m.cumulative_ton = finite(product_sum / n0);
+            m.cumulative_ton = product_sum.and_then(|p| finite(p / n0));
             let metal_g = m_metal.map(|mm| n0 * mm);
-            m.cumulative_loss_fraction = metal_g.and_then(|g| finite(lost_sum / g));
+            m.cumulative_loss_fraction = lost_sum.and_then(|l| metal_g.and_then(|g| finite(l / g)));
         }
         if product_gap {
             m.flags.push("cumulative-ton-partial".into());
@@ -252,6 +254,21 @@ fn finite(x: f64) -> Option<f64> {
     x.is_finite().then_some(x)
 }
 
+fn sanitized(c: &CycleInput, flags: &mut Vec<String>) -> CycleInput {
+    let mut clean = CycleInput {
+        cycle_no: c.cycle_no,
+        ..CycleInput::default()
+    };
+    for q in Quantity::ALL {
+        match c.get(q) {
+            Some(v) if v.is_finite() => *clean.slot(q) = Some(v),
+            Some(_) => flags.push(format!("invalid-{}", q.key())),
+            None => {}
+        }
+    }
+    clean
+}
+
 fn one_cycle(
     lot: &LotFacts,
     c: &CycleInput,
@@ -260,12 +277,15 @@ fn one_cycle(
     opts: &ChemOptions,
 ) -> CycleMetrics {
     let mut flags: Vec<String> = Vec::new();
-    let (catalyst_charged_g, charge_source) = if let Some(g) = c.catalyst_mass_g {
+    // A non-finite value is treated as not measured, and said so.
+    let c = &sanitized(c, &mut flags);
+    let mass = |g: Option<f64>| g.filter(|g| g.is_finite() && *g > 0.0);
+    let (catalyst_charged_g, charge_source) = if let Some(g) = mass(c.catalyst_mass_g) {
         (Some(g), Some(ChargeSource::Measured))
-    } else if let Some(g) = prev.and_then(|p| p.catalyst_recovered_g) {
+    } else if let Some(g) = mass(prev.and_then(|p| p.catalyst_recovered_g)) {
         (Some(g), Some(ChargeSource::PreviousRecovered))
-    } else if c.cycle_no == 1 {
-        (Some(lot.charged_mass_g), Some(ChargeSource::LotCharge))
+    } else if let Some(g) = mass(Some(lot.charged_mass_g)).filter(|_| c.cycle_no == 1) {
+        (Some(g), Some(ChargeSource::LotCharge))
     } else {
         (None, None)
     };

@@ -381,7 +381,13 @@ impl Layout {
     fn check_width(&self, record: &csv::StringRecord, line: u64) -> Result<(), ParseError> {
         let n = record.len();
         if n < self.width {
-            let field = self.headers.get(n).map(String::as_str);
+            // Name the first missing cell by its profile key when mapped, else its header.
+            let field = self
+                .bound
+                .iter()
+                .find(|b| b.index == n)
+                .map(|b| b.key.as_str())
+                .or_else(|| self.headers.get(n).map(String::as_str));
             return Err(err(
                 Some(line),
                 Some(col(n)),
@@ -625,11 +631,16 @@ impl Cell<'_> {
         }
     }
 
-    fn number(&self, mark: DecimalMark, unit: &str) -> Result<Option<f64>, ParseError> {
+    /// The unit only shapes the message, which is built on failure alone (this runs for
+    /// every cell of a file).
+    fn number(&self, mark: DecimalMark, unit: Option<Unit>) -> Result<Option<f64>, ParseError> {
         if self.text.is_empty() {
             return Ok(None);
         }
         parse_number(self.text, mark).map(Some).map_err(|why| {
+            let unit = unit
+                .map(|u| format!(" in {}", u.symbol()))
+                .unwrap_or_default();
             self.fail_raw(&format!(
                 "a number{unit} with '{}' as decimal mark{why}",
                 mark.char()
@@ -646,7 +657,7 @@ impl Cell<'_> {
         let Some(unit) = unit else {
             return Err(self.fail("a unit for this column", "none"));
         };
-        let Some(v) = self.number(profile.decimal, &format!(" in {}", unit.symbol()))? else {
+        let Some(v) = self.number(profile.decimal, Some(unit))? else {
             return Ok(None);
         };
         let c = unit.to_canonical(v);
@@ -729,7 +740,7 @@ impl Cell<'_> {
     fn loading(&self, unit: Option<Unit>, mark: DecimalMark) -> Result<f64, ParseError> {
         let unit = unit.unwrap_or(Unit::Percent);
         let v = self
-            .number(mark, &format!(" in {}", unit.symbol()))?
+            .number(mark, Some(unit))?
             .ok_or_else(|| self.fail("a metal loading (required on every row)", "an empty cell"))?;
         let fraction = unit.to_canonical(v);
         if fraction > 0.0 && fraction <= 1.0 + FRACTION_SLACK {
@@ -744,14 +755,12 @@ impl Cell<'_> {
 
     fn charged_mass(&self, unit: Option<Unit>, mark: DecimalMark) -> Result<f64, ParseError> {
         let unit = unit.unwrap_or(Unit::Gram);
-        let v = self
-            .number(mark, &format!(" in {}", unit.symbol()))?
-            .ok_or_else(|| {
-                self.fail(
-                    "a charged catalyst mass (required on every row)",
-                    "an empty cell",
-                )
-            })?;
+        let v = self.number(mark, Some(unit))?.ok_or_else(|| {
+            self.fail(
+                "a charged catalyst mass (required on every row)",
+                "an empty cell",
+            )
+        })?;
         let g = unit.to_canonical(v);
         if g > 0.0 && g.is_finite() {
             Ok(g)
@@ -764,7 +773,7 @@ impl Cell<'_> {
     }
 
     fn cost(&self, mark: DecimalMark) -> Result<Option<f64>, ParseError> {
-        match self.number(mark, "")? {
+        match self.number(mark, None)? {
             Some(v) if v < 0.0 => Err(self.fail("a cost of 0 or more", &shown(self.raw))),
             other => Ok(other),
         }
@@ -787,12 +796,10 @@ pub fn parse_number(text: &str, mark: DecimalMark) -> Result<f64, &'static str> 
     }
     let bytes = text.as_bytes();
     let mut i = 0;
-    let mut out = String::with_capacity(text.len());
-    if let Some(&s) = bytes.first() {
-        if s == b'+' || s == b'-' {
-            out.push(s as char);
-            i = 1;
-        }
+    if let Some(&s) = bytes.first()
+        && (s == b'+' || s == b'-')
+    {
+        i = 1;
     }
     let mut digits = 0;
     let mut seen_mark = false;
@@ -800,10 +807,8 @@ pub fn parse_number(text: &str, mark: DecimalMark) -> Result<f64, &'static str> 
         let b = bytes[i];
         if b.is_ascii_digit() {
             digits += 1;
-            out.push(b as char);
         } else if b as char == mark.char() && !seen_mark {
             seen_mark = true;
-            out.push('.');
         } else {
             break;
         }
@@ -813,15 +818,12 @@ pub fn parse_number(text: &str, mark: DecimalMark) -> Result<f64, &'static str> 
         return Err("");
     }
     if i < bytes.len() && (bytes[i] == b'e' || bytes[i] == b'E') {
-        out.push('e');
         i += 1;
         if i < bytes.len() && (bytes[i] == b'+' || bytes[i] == b'-') {
-            out.push(bytes[i] as char);
             i += 1;
         }
         let start = i;
         while i < bytes.len() && bytes[i].is_ascii_digit() {
-            out.push(bytes[i] as char);
             i += 1;
         }
         if i == start {
@@ -831,7 +833,13 @@ pub fn parse_number(text: &str, mark: DecimalMark) -> Result<f64, &'static str> 
     if i != bytes.len() {
         return Err("");
     }
-    match out.parse::<f64>() {
+    // The text now matches a grammar that Rust's float parser accepts once the decimal
+    // mark is a point; only a decimal comma needs a copy.
+    let parsed = match mark {
+        DecimalMark::Point => text.parse::<f64>(),
+        DecimalMark::Comma => text.replace(',', ".").parse::<f64>(),
+    };
+    match parsed {
         Ok(v) if v.is_finite() => Ok(v),
         _ => Err(" within the range of a double"),
     }

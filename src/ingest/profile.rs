@@ -292,12 +292,12 @@ impl Profile {
         if let Some(f) = &self.date_format {
             check_format("date_format", f)?;
         }
-        if let Some([lo, hi]) = self.temperature_range_k {
-            if !(lo.is_finite() && hi.is_finite() && lo > 0.0 && lo < hi) {
-                return Err(format!(
-                    "temperature_range_k: expected [low, high] in kelvin with 0 < low < high; found [{lo}, {hi}]"
-                ));
-            }
+        if let Some([lo, hi]) = self.temperature_range_k
+            && !(lo.is_finite() && hi.is_finite() && lo > 0.0 && lo < hi)
+        {
+            return Err(format!(
+                "temperature_range_k: expected [low, high] in kelvin with 0 < low < high; found [{lo}, {hi}]"
+            ));
         }
         let mut headers: Vec<(String, &str)> = Vec::new();
         for (key, spec) in &self.columns {

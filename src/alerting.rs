@@ -4,7 +4,9 @@
 
 use rusqlite::{Connection, Transaction};
 
-use crate::alert::rules::{self, EvidenceRow, LimitSource, LotSnapshot, MetalInProduct, QuarantinedFile};
+use crate::alert::rules::{
+    self, EvidenceRow, LimitSource, LotSnapshot, MetalInProduct, QuarantinedFile,
+};
 use crate::alert::{self, evaluate};
 use crate::analysis::LotState;
 use crate::chem::{PdeTable, Route};
@@ -24,7 +26,10 @@ fn route(cfg: &Config) -> Route {
 /// The metal-in-product limit of a metal: the configured one, else ICH Q3D option 1.
 pub fn metal_limit(cfg: &Config, metal: &str) -> Option<(f64, LimitSource)> {
     if let Some(v) = cfg.chemistry.metal_limits_ug_g.get(metal) {
-        return Some((*v, LimitSource::Configured(format!("chemistry.metal_limits_ug_g.{metal}"))));
+        return Some((
+            *v,
+            LimitSource::Configured(format!("chemistry.metal_limits_ug_g.{metal}")),
+        ));
     }
     PdeTable::ich_q3d()
         .option1_limit(metal, route(cfg))
@@ -49,7 +54,12 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
     let rec = state.record.as_ref()?;
     let a = state.analysis.as_ref();
     let criterion = a
-        .and_then(|a| a.forecast.as_ref().map(|f| f.threshold).or(a.plot.as_ref().and_then(|p| p.threshold)))
+        .and_then(|a| {
+            a.forecast
+                .as_ref()
+                .map(|f| f.threshold)
+                .or(a.plot.as_ref().and_then(|p| p.threshold))
+        })
         .unwrap_or(f64::NAN);
     let forecast = a.and_then(|a| {
         let f = a.forecast.as_ref()?;
@@ -80,7 +90,11 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
             h: b.cusum.as_ref().map_or(cfg.fitting.cusum_h, |c| c.h),
         })
     });
-    let newest = state.cycles.iter().rev().find(|c| c.view.get(Quantity::MetalInProduct).is_some());
+    let newest = state
+        .cycles
+        .iter()
+        .rev()
+        .find(|c| c.view.get(Quantity::MetalInProduct).is_some());
     let metal_in_product = newest.and_then(|c| {
         let (limit, source) = metal_limit(cfg, &rec.metal)?;
         Some(MetalInProduct {
@@ -95,7 +109,11 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
         .iter()
         .filter_map(|c| {
             let m = c.metrics.as_ref()?;
-            let value = if cfg.fitting.measure == "ton" { m.ton? } else { m.activity? };
+            let value = if cfg.fitting.measure == "ton" {
+                m.ton?
+            } else {
+                m.activity?
+            };
             let src = c.sources.first();
             Some(EvidenceRow {
                 cycle: c.cycle,
@@ -147,7 +165,13 @@ pub fn raise(tx: &Transaction<'_>, cfg: &Config, state: &LotState) -> Result<usi
 }
 
 /// Queue the quarantine alert (to QA) for a rejected file.
-pub fn raise_quarantine(tx: &Transaction<'_>, cfg: &Config, site: Option<&str>, name: &str, reason: &str) -> Result<usize> {
+pub fn raise_quarantine(
+    tx: &Transaction<'_>,
+    cfg: &Config,
+    site: Option<&str>,
+    name: &str,
+    reason: &str,
+) -> Result<usize> {
     let mut rules = cfg.alerts.clone();
     // Only the quarantine rule speaks for a file that belongs to no lot yet.
     rules.rules = rules::RuleSwitches {
@@ -172,7 +196,10 @@ pub fn raise_quarantine(tx: &Transaction<'_>, cfg: &Config, site: Option<&str>, 
         metal_in_product: None,
         metal_loss_fraction: None,
         economic_cycle: None,
-        quarantined: vec![QuarantinedFile { name: name.to_string(), reason: reason.to_string() }],
+        quarantined: vec![QuarantinedFile {
+            name: name.to_string(),
+            reason: reason.to_string(),
+        }],
         evidence: Vec::new(),
     };
     let alerts: Vec<_> = evaluate(&snap, &rules)
@@ -184,5 +211,9 @@ pub fn raise_quarantine(tx: &Transaction<'_>, cfg: &Config, site: Option<&str>, 
 
 /// Messages not yet delivered.
 pub fn outbox_waiting(conn: &Connection) -> Result<i64> {
-    Ok(conn.query_row("SELECT COUNT(*) FROM alert_outbox WHERE delivered_at IS NULL", [], |r| r.get(0))?)
+    Ok(conn.query_row(
+        "SELECT COUNT(*) FROM alert_outbox WHERE delivered_at IS NULL",
+        [],
+        |r| r.get(0),
+    )?)
 }

@@ -73,7 +73,11 @@ fn chem_options(cfg: &Config) -> ChemOptions {
 }
 
 /// The analysis options the configuration asks for.
-pub fn analysis_options(cfg: &Config, record: Option<&LotRecord>, product_first_kg: Option<f64>) -> AnalysisOptions {
+pub fn analysis_options(
+    cfg: &Config,
+    record: Option<&LotRecord>,
+    product_first_kg: Option<f64>,
+) -> AnalysisOptions {
     let f = &cfg.fitting;
     let criterion = match (f.criterion_absolute, f.criterion_fraction) {
         (Some(a), _) => Criterion::Absolute(a),
@@ -84,7 +88,10 @@ pub fn analysis_options(cfg: &Config, record: Option<&LotRecord>, product_first_
     let candidates: Vec<ModelId> = if f.models.is_empty() {
         ModelId::ACTIVITY.to_vec()
     } else {
-        f.models.iter().filter_map(|m| ModelId::from_id(m).ok()).collect()
+        f.models
+            .iter()
+            .filter_map(|m| ModelId::from_id(m).ok())
+            .collect()
     };
     let economics = cfg.economics.as_ref().and_then(|e| {
         let lot_cost = record.and_then(|r| r.cost).or(e.default_lot_cost)?;
@@ -113,7 +120,12 @@ fn sources_of(conn: &Connection, batch: &str) -> Result<Vec<SourceRef>> {
     )?;
     let mut out: Vec<SourceRef> = Vec::new();
     let rows = stmt.query_map([batch], |r| {
-        Ok((r.get::<_, i64>(0)?, r.get::<_, String>(1)?, r.get::<_, String>(2)?, r.get::<_, Option<i64>>(3)?))
+        Ok((
+            r.get::<_, i64>(0)?,
+            r.get::<_, String>(1)?,
+            r.get::<_, String>(2)?,
+            r.get::<_, Option<i64>>(3)?,
+        ))
     })?;
     for row in rows {
         let (id, path, sha, line) = row?;
@@ -125,7 +137,12 @@ fn sources_of(conn: &Connection, batch: &str) -> Result<Vec<SourceRef>> {
                     s.lines.push(l);
                 }
             }
-            _ => out.push(SourceRef { file_id: id, path, sha256: sha, lines: line.into_iter().collect() }),
+            _ => out.push(SourceRef {
+                file_id: id,
+                path,
+                sha256: sha,
+                lines: line.into_iter().collect(),
+            }),
         }
     }
     Ok(out)
@@ -137,7 +154,10 @@ pub fn lot_state(conn: &Connection, cfg: &Config, lot: &str) -> Result<LotState>
     let views = records::cycles_of_lot(conn, lot)?;
     let mut cycles: Vec<CycleState> = Vec::with_capacity(views.len());
     for (i, v) in views.into_iter().enumerate() {
-        let n = v.cycle_no.and_then(|c| u32::try_from(c).ok()).unwrap_or(i as u32 + 1);
+        let n = v
+            .cycle_no
+            .and_then(|c| u32::try_from(c).ok())
+            .unwrap_or(i as u32 + 1);
         let mut flags = Vec::new();
         if v.conflicts > 0 {
             flags.push("conflict".to_string());
@@ -146,7 +166,13 @@ pub fn lot_state(conn: &Connection, cfg: &Config, lot: &str) -> Result<LotState>
             flags.push("excluded".to_string());
         }
         let sources = sources_of(conn, &v.batch_id)?;
-        cycles.push(CycleState { cycle: n, view: v, metrics: None, sources, flags });
+        cycles.push(CycleState {
+            cycle: n,
+            view: v,
+            metrics: None,
+            sources,
+            flags,
+        });
     }
     let mut attention = Vec::new();
     let Some(rec) = record.clone() else {
@@ -157,16 +183,37 @@ pub fn lot_state(conn: &Connection, cfg: &Config, lot: &str) -> Result<LotState>
             "{} cycle(s) recorded for lot '{lot}', which nobody registered: pending until the lot is registered",
             cycles.len()
         ));
-        return Ok(LotState { lot: lot.to_string(), record, cycles, analysis: None, basis: basis(cfg), attention });
+        return Ok(LotState {
+            lot: lot.to_string(),
+            record,
+            cycles,
+            analysis: None,
+            basis: basis(cfg),
+            attention,
+        });
     };
-    let facts = LotFacts { metal: rec.metal.clone(), loading_wt_pct: rec.loading_wt_pct, charged_mass_g: rec.charged_mass_g };
+    let facts = LotFacts {
+        metal: rec.metal.clone(),
+        loading_wt_pct: rec.loading_wt_pct,
+        charged_mass_g: rec.charged_mass_g,
+    };
     let inputs: Vec<CycleInput> = cycles
         .iter()
-        .map(|c| CycleInput::from_values(c.cycle, Quantity::ALL.iter().filter_map(|q| c.view.get(*q).map(|v| (*q, v)))))
+        .map(|c| {
+            CycleInput::from_values(
+                c.cycle,
+                Quantity::ALL
+                    .iter()
+                    .filter_map(|q| c.view.get(*q).map(|v| (*q, v))),
+            )
+        })
         .collect();
     let metrics = chem::cycle_metrics(&facts, &inputs, &chem_options(cfg));
     for m in metrics {
-        if let Some(c) = cycles.iter_mut().find(|c| c.cycle == m.cycle_no && c.metrics.is_none()) {
+        if let Some(c) = cycles
+            .iter_mut()
+            .find(|c| c.cycle == m.cycle_no && c.metrics.is_none())
+        {
             for f in &m.flags {
                 if !c.flags.contains(f) {
                     c.flags.push(f.clone());
@@ -187,7 +234,11 @@ pub fn lot_state(conn: &Connection, cfg: &Config, lot: &str) -> Result<LotState>
         }
         let y = if ton_basis { m.ton } else { m.activity };
         let Some(y) = y else { continue };
-        series.x.push(if cfg.fitting.axis == "hours" { hours } else { f64::from(c.cycle) });
+        series.x.push(if cfg.fitting.axis == "hours" {
+            hours
+        } else {
+            f64::from(c.cycle)
+        });
         series.y.push(y);
         series.censored.push(!ton_basis && m.censored);
         series.ton.push(m.ton);
@@ -202,15 +253,29 @@ pub fn lot_state(conn: &Connection, cfg: &Config, lot: &str) -> Result<LotState>
     if let Some(a) = &analysis {
         attention.extend(attention_from(a));
     }
-    let pending = cycles.iter().filter(|c| c.flags.iter().any(|f| f == "pending")).count();
+    let pending = cycles
+        .iter()
+        .filter(|c| c.flags.iter().any(|f| f == "pending"))
+        .count();
     if pending > 0 {
-        attention.push(format!("{pending} cycle(s) pending: a field a complete cycle needs is missing"));
+        attention.push(format!(
+            "{pending} cycle(s) pending: a field a complete cycle needs is missing"
+        ));
     }
     let conflicts: i64 = cycles.iter().map(|c| c.view.conflicts).sum();
     if conflicts > 0 {
-        attention.push(format!("{conflicts} conflicting value(s) kept and flagged; settle them with `turnbook correct`"));
+        attention.push(format!(
+            "{conflicts} conflicting value(s) kept and flagged; settle them with `turnbook correct`"
+        ));
     }
-    Ok(LotState { lot: lot.to_string(), record, cycles, analysis, basis: basis(cfg), attention })
+    Ok(LotState {
+        lot: lot.to_string(),
+        record,
+        cycles,
+        analysis,
+        basis: basis(cfg),
+        attention,
+    })
 }
 
 fn basis(cfg: &Config) -> String {
@@ -221,7 +286,9 @@ fn attention_from(a: &LotAnalysis) -> Vec<String> {
     let mut out = Vec::new();
     if let Some(f) = &a.forecast {
         match f.status {
-            fit::ForecastStatus::ReachedAlready => out.push("activity is already at or below the replacement criterion".into()),
+            fit::ForecastStatus::ReachedAlready => {
+                out.push("activity is already at or below the replacement criterion".into())
+            }
             fit::ForecastStatus::Ahead => {
                 if let (Some(x), Some(last)) = (f.x, a.observed.last().map(|p| p.0)) {
                     let lo = f.lower.map_or("?".into(), |l| format!("{l:.1}"));
@@ -236,7 +303,10 @@ fn attention_from(a: &LotAnalysis) -> Vec<String> {
         }
     }
     if a.abrupt.as_ref().is_some_and(|b| b.suspected) {
-        out.push("abrupt loss of activity suspected at the newest cycle (poisoning? bad feed lot?)".into());
+        out.push(
+            "abrupt loss of activity suspected at the newest cycle (poisoning? bad feed lot?)"
+                .into(),
+        );
     }
     out
 }
@@ -246,7 +316,9 @@ pub fn lot_names(conn: &Connection) -> Result<Vec<String>> {
     let mut stmt = conn.prepare(
         "SELECT lot FROM lots UNION SELECT lot FROM cycles WHERE lot IS NOT NULL ORDER BY 1",
     )?;
-    let rows = stmt.query_map([], |r| r.get(0))?.collect::<std::result::Result<Vec<String>, _>>()?;
+    let rows = stmt
+        .query_map([], |r| r.get(0))?
+        .collect::<std::result::Result<Vec<String>, _>>()?;
     Ok(rows)
 }
 
@@ -264,7 +336,12 @@ fn newest_seq_of(conn: &Connection, lot: &str) -> Result<i64> {
 }
 
 /// Recompute metrics, fits and alerts of the given lots, in the caller's transaction.
-pub fn recompute_lots(tx: &Transaction<'_>, cfg: &Config, lots: &BTreeSet<String>, _actor: &str) -> Result<()> {
+pub fn recompute_lots(
+    tx: &Transaction<'_>,
+    cfg: &Config,
+    lots: &BTreeSet<String>,
+    _actor: &str,
+) -> Result<()> {
     for lot in lots {
         let state = lot_state(tx, cfg, lot)?;
         let after = newest_seq_of(tx, lot)?;
@@ -282,7 +359,11 @@ pub fn recompute_lots(tx: &Transaction<'_>, cfg: &Config, lots: &BTreeSet<String
             after,
             fit::ENGINE_VERSION,
             state.basis,
-            state.analysis.as_ref().and_then(|a| a.chosen).map(|m| m.id()),
+            state
+                .analysis
+                .as_ref()
+                .and_then(|a| a.chosen)
+                .map(|m| m.id()),
             json
         ])?;
         crate::alerting::raise(tx, cfg, &state)?;
@@ -295,7 +376,11 @@ pub fn stale_lots(conn: &Connection) -> Result<BTreeSet<String>> {
     let mut out = BTreeSet::new();
     for lot in lot_names(conn)? {
         let fitted: Option<i64> = conn
-            .query_row("SELECT MAX(after_seq) FROM fits WHERE lot = ?1", [&lot], |r| r.get(0))
+            .query_row(
+                "SELECT MAX(after_seq) FROM fits WHERE lot = ?1",
+                [&lot],
+                |r| r.get(0),
+            )
             .optional()?
             .flatten();
         if fitted.is_none_or(|f| f < newest_seq_of(conn, &lot).unwrap_or(0)) {
@@ -364,12 +449,24 @@ fn lot_line(s: &LotState) -> LotLine {
         catalyst: s.record.as_ref().map(|r| r.catalyst.clone()),
         metal: s.record.as_ref().map(|r| r.metal.clone()),
         cycles: s.cycles.len(),
-        complete_cycles: s.cycles.iter().filter(|c| c.metrics.as_ref().is_some_and(|m| m.missing.is_empty())).count(),
+        complete_cycles: s
+            .cycles
+            .iter()
+            .filter(|c| c.metrics.as_ref().is_some_and(|m| m.missing.is_empty()))
+            .count(),
         latest_activity: s.latest_activity(),
-        cumulative_ton: s.cycles.iter().rev().find_map(|c| c.metrics.as_ref().and_then(|m| m.cumulative_ton)),
+        cumulative_ton: s
+            .cycles
+            .iter()
+            .rev()
+            .find_map(|c| c.metrics.as_ref().and_then(|m| m.cumulative_ton)),
         model: a.and_then(|a| a.chosen).map(|m| m.id().to_string()),
-        forecast: a.and_then(|a| a.forecast.as_ref()).and_then(|f| serde_json::to_value(f).ok()),
-        abrupt_loss: a.and_then(|a| a.abrupt.as_ref()).is_some_and(|b| b.suspected),
+        forecast: a
+            .and_then(|a| a.forecast.as_ref())
+            .and_then(|f| serde_json::to_value(f).ok()),
+        abrupt_loss: a
+            .and_then(|a| a.abrupt.as_ref())
+            .is_some_and(|b| b.suspected),
         flags: flags.into_iter().collect(),
         attention: s.attention.clone(),
     }
@@ -391,12 +488,14 @@ pub fn lots(cfg: &Config, json: bool) -> CmdResult {
         return Ok(0);
     }
     if lines.is_empty() {
-        println!("no lots yet: register one (`turnbook register`) or drop a lot sheet into a watched folder");
+        println!(
+            "no lots yet: register one (`turnbook register`) or drop a lot sheet into a watched folder"
+        );
         return Ok(0);
     }
     println!(
-        "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} {}",
-        "lot", "catalyst", "cycles", "activity", "cum. TON", "model", "forecast / flags"
+        "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} forecast / flags",
+        "lot", "catalyst", "cycles", "activity", "cum. TON", "model"
     );
     for l in &lines {
         let forecast = l.forecast.as_ref().map(|f| {
@@ -404,8 +503,12 @@ pub fn lots(cfg: &Config, json: bool) -> CmdResult {
             match (f["x"].as_f64(), st) {
                 (Some(x), "ahead") => format!(
                     "criterion at cycle {x:.1} [{}, {}]",
-                    f["lower"].as_f64().map_or("-inf".into(), |v| format!("{v:.1}")),
-                    f["upper"].as_f64().map_or("+inf".into(), |v| format!("{v:.1}"))
+                    f["lower"]
+                        .as_f64()
+                        .map_or("-inf".into(), |v| format!("{v:.1}")),
+                    f["upper"]
+                        .as_f64()
+                        .map_or("+inf".into(), |v| format!("{v:.1}"))
                 ),
                 _ => st.replace('-', " "),
             }
@@ -420,7 +523,9 @@ pub fn lots(cfg: &Config, json: bool) -> CmdResult {
         println!(
             "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} {}",
             l.lot,
-            l.catalyst.clone().unwrap_or_else(|| "(not registered)".into()),
+            l.catalyst
+                .clone()
+                .unwrap_or_else(|| "(not registered)".into()),
             l.cycles,
             fmt_opt(l.latest_activity, 3),
             fmt_opt(l.cumulative_ton, 0),
@@ -491,7 +596,18 @@ pub fn cycle_lines(s: &LotState) -> Vec<CycleLine> {
                 sources: c
                     .sources
                     .iter()
-                    .map(|s| format!("{}:{} ({})", s.path, s.lines.iter().map(|l| l.to_string()).collect::<Vec<_>>().join(","), &s.sha256[..12.min(s.sha256.len())]))
+                    .map(|s| {
+                        format!(
+                            "{}:{} ({})",
+                            s.path,
+                            s.lines
+                                .iter()
+                                .map(|l| l.to_string())
+                                .collect::<Vec<_>>()
+                                .join(","),
+                            &s.sha256[..12.min(s.sha256.len())]
+                        )
+                    })
                     .collect::<Vec<_>>()
                     .join("; "),
             }
@@ -504,27 +620,46 @@ pub fn cycles(cfg: &Config, lot: &str, format: &str) -> CmdResult {
     let conn = store::open(&cfg.database_path())?;
     let s = lot_state(&conn, cfg, lot)?;
     if s.cycles.is_empty() && s.record.is_none() {
-        return Err(Failure::rejected(format!("no lot '{lot}' is registered and no cycle names it")));
+        return Err(Failure::rejected(format!(
+            "no lot '{lot}' is registered and no cycle names it"
+        )));
     }
     let lines = cycle_lines(&s);
     match format {
-        "json" => println!("{}", serde_json::to_string_pretty(&serde_json::json!({"lot": lot, "cycles": lines}))?),
+        "json" => println!(
+            "{}",
+            serde_json::to_string_pretty(&serde_json::json!({"lot": lot, "cycles": lines}))?
+        ),
         "csv" => {
             let mut w = csv::Writer::from_writer(std::io::stdout());
             for l in &lines {
-                w.serialize(l).map_err(|e| Failure::rejected(format!("cannot write CSV: {e}")))?;
+                w.serialize(l)
+                    .map_err(|e| Failure::rejected(format!("cannot write CSV: {e}")))?;
             }
             w.flush()?;
         }
         _ => {
             if let Some(r) = &s.record {
-                println!("lot {} — {} ({} {} wt %, {} g charged)", r.lot, r.catalyst, r.metal, r.loading_wt_pct, r.charged_mass_g);
+                println!(
+                    "lot {} — {} ({} {} wt %, {} g charged)",
+                    r.lot, r.catalyst, r.metal, r.loading_wt_pct, r.charged_mass_g
+                );
             } else {
                 println!("lot {lot} — not registered: its cycles are pending");
             }
             println!(
                 "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>7} {:>7} {:>8}  flags / sources",
-                "cycle", "batch", "T °C", "t h", "conv", "yield", "TON", "TOF h⁻¹", "k h⁻¹", "act.", "M µg/g"
+                "cycle",
+                "batch",
+                "T °C",
+                "t h",
+                "conv",
+                "yield",
+                "TON",
+                "TOF h⁻¹",
+                "k h⁻¹",
+                "act.",
+                "M µg/g"
             );
             for l in &lines {
                 println!(

@@ -188,7 +188,11 @@ pub enum Command {
 /// The service logs each file at info level; one-shot commands only warn, since they print
 /// their own summary.
 pub fn init_logging(json: bool, service: bool) {
-    let default = if service { "warn,turnbook=info" } else { "warn,turnbook=warn" };
+    let default = if service {
+        "warn,turnbook=info"
+    } else {
+        "warn,turnbook=warn"
+    };
     let filter = tracing_subscriber::EnvFilter::try_from_default_env()
         .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(default));
     let builder = tracing_subscriber::fmt()
@@ -210,10 +214,16 @@ pub struct Failure {
 
 impl Failure {
     pub fn usage(m: impl Into<String>) -> Self {
-        Failure { code: 2, message: m.into() }
+        Failure {
+            code: 2,
+            message: m.into(),
+        }
     }
     pub fn rejected(m: impl Into<String>) -> Self {
-        Failure { code: 1, message: m.into() }
+        Failure {
+            code: 1,
+            message: m.into(),
+        }
     }
 }
 
@@ -221,7 +231,10 @@ impl From<store::StoreError> for Failure {
     fn from(e: store::StoreError) -> Self {
         match e {
             store::StoreError::Invalid(m) => Failure::rejected(m),
-            e => Failure { code: 1, message: e.to_string() },
+            e => Failure {
+                code: 1,
+                message: e.to_string(),
+            },
         }
     }
 }
@@ -234,13 +247,19 @@ impl From<crate::config::ConfigError> for Failure {
 
 impl From<std::io::Error> for Failure {
     fn from(e: std::io::Error) -> Self {
-        Failure { code: 1, message: format!("input/output error: {e}") }
+        Failure {
+            code: 1,
+            message: format!("input/output error: {e}"),
+        }
     }
 }
 
 impl From<serde_json::Error> for Failure {
     fn from(e: serde_json::Error) -> Self {
-        Failure { code: 1, message: format!("cannot write JSON: {e}") }
+        Failure {
+            code: 1,
+            message: format!("cannot write JSON: {e}"),
+        }
     }
 }
 
@@ -265,10 +284,25 @@ fn load(cli: &Cli) -> Result<Config, Failure> {
 fn dispatch(cli: &Cli) -> CmdResult {
     match &cli.command {
         Command::Demo { dir, no_live } => crate::demo::run(dir, !*no_live),
-        Command::Ingest { paths, profile, json } => ingest(load(cli)?, paths, profile.clone(), *json),
+        Command::Ingest {
+            paths,
+            profile,
+            json,
+        } => ingest(load(cli)?, paths, profile.clone(), *json),
         Command::Lots { json } => crate::views::lots(&load(cli)?, *json),
         Command::Cycles { lot, format } => crate::views::cycles(&load(cli)?, lot, format),
-        Command::Register { lot, catalyst, metal, loading, mass, received, supplier_lot, cost, site, reason } => {
+        Command::Register {
+            lot,
+            catalyst,
+            metal,
+            loading,
+            mass,
+            received,
+            supplier_lot,
+            cost,
+            site,
+            reason,
+        } => {
             let cfg = load(cli)?;
             let rec = LotRecord {
                 lot: lot.clone(),
@@ -283,7 +317,12 @@ fn dispatch(cli: &Cli) -> CmdResult {
             };
             register(&cfg, &rec, reason.as_deref())
         }
-        Command::Correct { batch, field, value, reason } => {
+        Command::Correct {
+            batch,
+            field,
+            value,
+            reason,
+        } => {
             let cfg = load(cli)?;
             write_event(&cfg, |tx, actor, at| {
                 let lot = records::cycle(tx, batch)?.and_then(|c| c.lot);
@@ -291,10 +330,16 @@ fn dispatch(cli: &Cli) -> CmdResult {
                 if let Some(l) = lot {
                     crate::analysis::recompute_lots(tx, &cfg, &[l].into(), actor)?;
                 }
-                Ok(format!("correction recorded as event {seq}: batch '{batch}', {field} = {value}"))
+                Ok(format!(
+                    "correction recorded as event {seq}: batch '{batch}', {field} = {value}"
+                ))
             })
         }
-        Command::Exclude { batch, reason, undo } => {
+        Command::Exclude {
+            batch,
+            reason,
+            undo,
+        } => {
             let cfg = load(cli)?;
             write_event(&cfg, |tx, actor, at| {
                 let lot = records::cycle(tx, batch)?.and_then(|c| c.lot);
@@ -302,7 +347,11 @@ fn dispatch(cli: &Cli) -> CmdResult {
                 if let Some(l) = lot {
                     crate::analysis::recompute_lots(tx, &cfg, &[l].into(), actor)?;
                 }
-                let what = if *undo { "taken back into the fits" } else { "excluded from the fits" };
+                let what = if *undo {
+                    "taken back into the fits"
+                } else {
+                    "excluded from the fits"
+                };
                 Ok(format!("batch '{batch}' {what} (event {seq})"))
             })
         }
@@ -310,12 +359,20 @@ fn dispatch(cli: &Cli) -> CmdResult {
             let cfg = load(cli)?;
             write_event(&cfg, |tx, actor, at| {
                 let subject = lot.clone().or_else(|| batch.clone()).unwrap_or_default();
-                let p = Payload::Note { lot: lot.clone(), batch_id: batch.clone(), text: text.clone() };
+                let p = Payload::Note {
+                    lot: lot.clone(),
+                    batch_id: batch.clone(),
+                    text: text.clone(),
+                };
                 let seq = records::append_event(tx, &subject, &p, actor, at)?;
                 Ok(format!("note recorded as event {seq}"))
             })
         }
-        Command::Signoff { lot, meaning, comment } => {
+        Command::Signoff {
+            lot,
+            meaning,
+            comment,
+        } => {
             let cfg = load(cli)?;
             write_event(&cfg, |tx, actor, at| {
                 let (what, sha) = crate::views::lot_fingerprint(tx, lot)?;
@@ -327,7 +384,9 @@ fn dispatch(cli: &Cli) -> CmdResult {
                     comment: comment.clone(),
                 };
                 let seq = records::append_event(tx, lot, &p, actor, at)?;
-                Ok(format!("lot '{lot}' signed off as {meaning} by {actor} (event {seq}); it covers the history with SHA-256 {sha}"))
+                Ok(format!(
+                    "lot '{lot}' signed off as {meaning} by {actor} (event {seq}); it covers the history with SHA-256 {sha}"
+                ))
             })
         }
         Command::History { lot, json } => crate::views::history(&load(cli)?, lot, *json),
@@ -335,9 +394,24 @@ fn dispatch(cli: &Cli) -> CmdResult {
         Command::Verify { json } => verify(&load(cli)?, *json),
         Command::Watch => crate::service::watch_command(&load(cli)?),
         Command::Mail => crate::service::mail_command(&load(cli)?),
-        Command::Report { lot, site, out, csv } => crate::reportcmd::run(&load(cli)?, lot.as_deref(), *site, out, csv.as_deref()),
-        Command::Fit { lot, series, model, starts, threshold, confidence, json } => match (lot, series) {
-            (_, Some(file)) => crate::fitcmd::series(file, model, starts, *threshold, *confidence, *json),
+        Command::Report {
+            lot,
+            site,
+            out,
+            csv,
+        } => crate::reportcmd::run(&load(cli)?, lot.as_deref(), *site, out, csv.as_deref()),
+        Command::Fit {
+            lot,
+            series,
+            model,
+            starts,
+            threshold,
+            confidence,
+            json,
+        } => match (lot, series) {
+            (_, Some(file)) => {
+                crate::fitcmd::series(file, model, starts, *threshold, *confidence, *json)
+            }
             (Some(lot), None) => crate::fitcmd::lot(&load(cli)?, lot, *json),
             (None, None) => Err(Failure::usage("give a LOT or --series FILE")),
         },
@@ -352,7 +426,9 @@ fn write_event(
     let mut conn = store::open(&cfg.database_path())?;
     let actor = audit::actor(cfg.actor.as_deref());
     let at = audit::now_utc();
-    let tx = conn.transaction_with_behavior(TransactionBehavior::Immediate).map_err(store::StoreError::from)?;
+    let tx = conn
+        .transaction_with_behavior(TransactionBehavior::Immediate)
+        .map_err(store::StoreError::from)?;
     let msg = work(&tx, &actor, &at)?;
     tx.commit().map_err(store::StoreError::from)?;
     println!("{msg}");
@@ -367,15 +443,21 @@ fn register(cfg: &Config, rec: &LotRecord, reason: Option<&str>) -> CmdResult {
         )));
     }
     if !(rec.loading_wt_pct > 0.0 && rec.loading_wt_pct <= 100.0) {
-        return Err(Failure::usage("--loading: expected a metal loading in wt % between 0 and 100"));
+        return Err(Failure::usage(
+            "--loading: expected a metal loading in wt % between 0 and 100",
+        ));
     }
     if !(rec.charged_mass_g.is_finite() && rec.charged_mass_g > 0.0) {
-        return Err(Failure::usage("--mass: expected the catalyst mass charged, g, greater than 0"));
+        return Err(Failure::usage(
+            "--mass: expected the catalyst mass charged, g, greater than 0",
+        ));
     }
     if let Some(d) = &rec.received
         && chrono::NaiveDate::parse_from_str(d, "%Y-%m-%d").is_err()
     {
-        return Err(Failure::usage(format!("--received '{d}': expected a date YYYY-MM-DD")));
+        return Err(Failure::usage(format!(
+            "--received '{d}': expected a date YYYY-MM-DD"
+        )));
     }
     write_event(cfg, |tx, actor, at| {
         let exists = records::lot(tx, &rec.lot)?.is_some();
@@ -444,7 +526,9 @@ pub fn progress_bar(len: u64, quiet: bool) -> indicatif::ProgressBar {
         return indicatif::ProgressBar::hidden();
     }
     let bar = indicatif::ProgressBar::new(len);
-    if let Ok(style) = indicatif::ProgressStyle::with_template("{bar:40} {pos}/{len} files {per_sec} {eta}") {
+    if let Ok(style) =
+        indicatif::ProgressStyle::with_template("{bar:40} {pos}/{len} files {per_sec} {eta}")
+    {
         bar.set_style(style);
     }
     bar
@@ -483,6 +567,9 @@ impl Command {
 
 impl From<rusqlite::Error> for Failure {
     fn from(e: rusqlite::Error) -> Self {
-        Failure { code: 1, message: format!("database error: {e}") }
+        Failure {
+            code: 1,
+            message: format!("database error: {e}"),
+        }
     }
 }

@@ -249,22 +249,37 @@ impl Config {
     fn validate(&self) -> Result<(), ConfigError> {
         let c = &self.chemistry;
         if !(c.saturation > 0.5 && c.saturation < 1.0) {
-            return Err(self.invalid("chemistry.saturation", "expected a conversion between 0.5 and 1 (exclusive), e.g. 0.995"));
+            return Err(self.invalid(
+                "chemistry.saturation",
+                "expected a conversion between 0.5 and 1 (exclusive), e.g. 0.995",
+            ));
         }
         if let Some(ea) = c.activation_energy_kj_mol
             && !(ea.is_finite() && ea > 0.0 && ea < 500.0)
         {
-            return Err(self.invalid("chemistry.activation_energy_kj_mol", "expected kJ/mol between 0 and 500"));
+            return Err(self.invalid(
+                "chemistry.activation_energy_kj_mol",
+                "expected kJ/mol between 0 and 500",
+            ));
         }
         if !(-100.0..=500.0).contains(&c.reference_temperature_c) {
-            return Err(self.invalid("chemistry.reference_temperature_c", "expected °C between -100 and 500"));
+            return Err(self.invalid(
+                "chemistry.reference_temperature_c",
+                "expected °C between -100 and 500",
+            ));
         }
         if !["oral", "parenteral", "inhalation"].contains(&c.route.as_str()) {
-            return Err(self.invalid("chemistry.route", "expected one of oral, parenteral, inhalation"));
+            return Err(self.invalid(
+                "chemistry.route",
+                "expected one of oral, parenteral, inhalation",
+            ));
         }
         for (metal, v) in &c.metal_limits_ug_g {
             if !(v.is_finite() && *v > 0.0) {
-                return Err(self.invalid(format!("chemistry.metal_limits_ug_g.{metal}"), "expected a positive number of µg/g"));
+                return Err(self.invalid(
+                    format!("chemistry.metal_limits_ug_g.{metal}"),
+                    "expected a positive number of µg/g",
+                ));
             }
         }
         let f = &self.fitting;
@@ -275,15 +290,24 @@ impl Config {
             return Err(self.invalid("fitting.axis", "expected \"cycle\" or \"hours\""));
         }
         if f.criterion_fraction.is_some() && f.criterion_absolute.is_some() {
-            return Err(self.invalid("fitting.criterion_absolute", "give either criterion_fraction or criterion_absolute, not both"));
+            return Err(self.invalid(
+                "fitting.criterion_absolute",
+                "give either criterion_fraction or criterion_absolute, not both",
+            ));
         }
         if let Some(x) = f.criterion_fraction
             && !(x > 0.0 && x < 1.0)
         {
-            return Err(self.invalid("fitting.criterion_fraction", "expected a fraction between 0 and 1, e.g. 0.6"));
+            return Err(self.invalid(
+                "fitting.criterion_fraction",
+                "expected a fraction between 0 and 1, e.g. 0.6",
+            ));
         }
         if !(f.confidence > 0.5 && f.confidence < 1.0) {
-            return Err(self.invalid("fitting.confidence", "expected a probability between 0.5 and 1, e.g. 0.90"));
+            return Err(self.invalid(
+                "fitting.confidence",
+                "expected a probability between 0.5 and 1, e.g. 0.90",
+            ));
         }
         if !(f.cusum_k >= 0.0 && f.cusum_h > 0.0) {
             return Err(self.invalid("fitting.cusum_h", "expected cusum_k >= 0 and cusum_h > 0"));
@@ -304,7 +328,9 @@ impl Config {
             if let Err(e) = folder.validate(i) {
                 let text = e.to_string();
                 let prefix = format!("{key}.");
-                return Err(self.invalid(key, text.strip_prefix(&prefix).unwrap_or(&text).to_string()));
+                return Err(
+                    self.invalid(key, text.strip_prefix(&prefix).unwrap_or(&text).to_string())
+                );
             }
             if !self.profiles.contains_key(&folder.profile) {
                 return Err(self.invalid(
@@ -319,7 +345,10 @@ impl Config {
             if let Some(site) = &folder.site
                 && !sites.contains(&site.as_str())
             {
-                return Err(self.invalid(format!("{key}.site"), format!("no site named '{site}' in [[sites]]")));
+                return Err(self.invalid(
+                    format!("{key}.site"),
+                    format!("no site named '{site}' in [[sites]]"),
+                ));
             }
         }
         Ok(())
@@ -370,7 +399,8 @@ impl Config {
             .filter_map(|f| {
                 let root = self.resolve(&f.path);
                 let root = std::fs::canonicalize(&root).unwrap_or(root);
-                file.starts_with(&root).then_some((root.components().count(), f))
+                file.starts_with(&root)
+                    .then_some((root.components().count(), f))
             })
             .max_by_key(|(n, _)| *n)
             .map(|(_, f)| f)

@@ -137,7 +137,10 @@ pub fn batches() -> Vec<DemoBatch> {
             let hours = plan.minutes / 60.0;
             let conversion = 1.0 - (-k * hours).exp();
             let selectivity = (0.985 + noise.normal(0.004)).min(0.999);
-            let product = plan.substrate_mmol / 1000.0 * conversion * selectivity * plan.product_g_per_mol
+            let product = plan.substrate_mmol / 1000.0
+                * conversion
+                * selectivity
+                * plan.product_g_per_mol
                 * (0.97 + noise.normal(0.005));
             let recovered = charged * (0.985 + noise.normal(0.002));
             let started = chrono::NaiveDate::from_ymd_opt(2026, 10, 1)
@@ -220,7 +223,11 @@ fn balance_file(b: &DemoBatch) -> Vec<u8> {
 fn icp_file(rows: &[&DemoBatch]) -> String {
     let mut s = String::from("Sample ID\tElement\tResult [ug/g]\tMethod\n");
     for b in rows {
-        let _ = writeln!(s, "{}\t{}\t{:.2}\tICP-OES digest", b.batch, b.metal, b.metal_ug_g);
+        let _ = writeln!(
+            s,
+            "{}\t{}\t{:.2}\tICP-OES digest",
+            b.batch, b.metal, b.metal_ug_g
+        );
     }
     s
 }
@@ -234,8 +241,14 @@ PT-AL-2610-B,1 % Pt/Al2O3 spheres,Pt,1.0,25.0,2026-09-21,NS-54877,5100
 /// Files of one batch, as (relative path, bytes).
 fn batch_files(b: &DemoBatch) -> Vec<(PathBuf, Vec<u8>)> {
     vec![
-        (PathBuf::from(format!("exports/hplc/{}.csv", b.batch)), hplc_file(b).into_bytes()),
-        (PathBuf::from(format!("exports/balance/{}.txt", b.batch)), balance_file(b)),
+        (
+            PathBuf::from(format!("exports/hplc/{}.csv", b.batch)),
+            hplc_file(b).into_bytes(),
+        ),
+        (
+            PathBuf::from(format!("exports/balance/{}.txt", b.batch)),
+            balance_file(b),
+        ),
     ]
 }
 
@@ -268,12 +281,17 @@ pub fn run(dir: &Path, live: bool) -> CmdResult {
     }
     std::fs::create_dir_all(dir)?;
     write(dir, Path::new("turnbook.toml"), config_text().as_bytes())?;
-    write(dir, Path::new("exports/lots/lot-sheet-2026-10.csv"), LOT_SHEET.as_bytes())?;
+    write(
+        dir,
+        Path::new("exports/lots/lot-sheet-2026-10.csv"),
+        LOT_SHEET.as_bytes(),
+    )?;
     for f in ["hplc", "balance", "icp", "lots"] {
         std::fs::create_dir_all(dir.join("exports").join(f))?;
     }
     let all = batches();
-    let (now, later): (Vec<&DemoBatch>, Vec<&DemoBatch>) = all.iter().partition(|b| !live || !is_live(b));
+    let (now, later): (Vec<&DemoBatch>, Vec<&DemoBatch>) =
+        all.iter().partition(|b| !live || !is_live(b));
     for b in &now {
         for (rel, bytes) in batch_files(b) {
             write(dir, &rel, &bytes)?;
@@ -281,13 +299,21 @@ pub fn run(dir: &Path, live: bool) -> CmdResult {
     }
     // Elemental analysis comes as weekly reports covering several batches.
     for (i, chunk) in now.chunks(6).enumerate() {
-        write(dir, Path::new(&format!("exports/icp/icp-report-{:02}.tsv", i + 1)), icp_file(chunk).as_bytes())?;
+        write(
+            dir,
+            Path::new(&format!("exports/icp/icp-report-{:02}.tsv", i + 1)),
+            icp_file(chunk).as_bytes(),
+        )?;
     }
     // A batch charged with a lot nobody has registered yet: kept as pending.
     let stray = "Sample report export,KV4 HPLC-2\nMethod,RED-ASSAY-v3\n\
         Batch,Catalyst lot,Cycle,Started,Reaction time (min),Temperature (degC),Conversion (%),Selectivity (%)\n\
         KV4-R-001,RU-C-2612-D,1,2026-10-30T09:15:00,90,50.0,88.40,97.20\n";
-    write(dir, Path::new("exports/hplc/KV4-R-001.csv"), stray.as_bytes())?;
+    write(
+        dir,
+        Path::new("exports/hplc/KV4-R-001.csv"),
+        stray.as_bytes(),
+    )?;
 
     let cfg_path = dir.join("turnbook.toml");
     let cfg = crate::config::Config::load(&cfg_path)?;
@@ -310,8 +336,12 @@ pub fn run(dir: &Path, live: bool) -> CmdResult {
     }
     drop(ing);
     if live && !later.is_empty() {
-        crate::demo_live::run(dir, &cfg, &later.iter().map(|b| batch_files(b)).collect::<Vec<_>>(),
-            &icp_file(&later))?;
+        crate::demo_live::run(
+            dir,
+            &cfg,
+            &later.iter().map(|b| batch_files(b)).collect::<Vec<_>>(),
+            &icp_file(&later),
+        )?;
     }
     crate::demo_live::finish(dir, &cfg)
 }

@@ -7,34 +7,50 @@ use std::time::{Duration, Instant};
 use crate::commands::{CmdResult, Failure};
 use crate::config::Config;
 
-fn landed_since(conn: &rusqlite::Connection, after: i64) -> rusqlite::Result<Vec<(i64, String, String, i64)>> {
+fn landed_since(
+    conn: &rusqlite::Connection,
+    after: i64,
+) -> rusqlite::Result<Vec<(i64, String, String, i64)>> {
     let mut stmt = conn.prepare(
         "SELECT id, path, outcome, rows_new FROM source_files WHERE id > ?1 ORDER BY id",
     )?;
-    let rows = stmt
-        .query_map([after], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?)))?
-        .collect();
-    rows
+    stmt.query_map([after], |r| {
+        Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?))
+    })?
+    .collect()
 }
 
 /// Run the service while the plant writes `batches` (files of each batch) and the ICP
 /// report, each in chunks over about a second; stop once every file is recorded.
-pub fn run(dir: &Path, cfg: &Config, batches: &[Vec<(PathBuf, Vec<u8>)>], icp: &str) -> Result<(), Failure> {
+pub fn run(
+    dir: &Path,
+    cfg: &Config,
+    batches: &[Vec<(PathBuf, Vec<u8>)>],
+    icp: &str,
+) -> Result<(), Failure> {
     let mut files: Vec<(PathBuf, Vec<u8>)> = batches.iter().flatten().cloned().collect();
-    files.push((PathBuf::from("exports/icp/icp-report-live.tsv"), icp.as_bytes().to_vec()));
+    files.push((
+        PathBuf::from("exports/icp/icp-report-live.tsv"),
+        icp.as_bytes().to_vec(),
+    ));
     let rt = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()
         .build()
         .map_err(|e| Failure::rejected(format!("cannot start the async runtime: {e}")))?;
     let conn = crate::store::open(&cfg.database_path())?;
-    let start_id: i64 = conn.query_row("SELECT COALESCE(MAX(id), 0) FROM source_files", [], |r| r.get(0))?;
+    let start_id: i64 =
+        conn.query_row("SELECT COALESCE(MAX(id), 0) FROM source_files", [], |r| {
+            r.get(0)
+        })?;
     rt.block_on(async {
         let (stop, rx) = tokio::sync::watch::channel(false);
         let service_cfg = cfg.clone();
         let service = tokio::spawn(async move { crate::service::serve(&service_cfg, rx).await });
         tokio::time::sleep(Duration::from_millis(800)).await;
-        println!("  live           the service is watching; the plant writes its newest exports slowly:");
+        println!(
+            "  live           the service is watching; the plant writes its newest exports slowly:"
+        );
         let root = dir.to_path_buf();
         let to_write = files.clone();
         let writer = tokio::task::spawn_blocking(move || -> std::io::Result<()> {
@@ -61,17 +77,34 @@ pub fn run(dir: &Path, cfg: &Config, batches: &[Vec<(PathBuf, Vec<u8>)>], icp: &
             for (id, path, outcome, rows) in landed_since(&conn, last).unwrap_or_default() {
                 last = id;
                 seen += 1;
-                let shown = Path::new(&path).strip_prefix(dir).map(Path::to_path_buf).unwrap_or_else(|_| PathBuf::from(&path));
-                println!("                 turnbook       {outcome} {} ({rows} new rows)", shown.display());
+                let shown = Path::new(&path)
+                    .strip_prefix(dir)
+                    .map(Path::to_path_buf)
+                    .unwrap_or_else(|_| PathBuf::from(&path));
+                println!(
+                    "                 turnbook       {outcome} {} ({rows} new rows)",
+                    shown.display()
+                );
             }
         }
         match writer.await {
             Ok(Ok(())) => {}
-            Ok(Err(e)) => return Err(Failure::rejected(format!("the simulated plant could not write: {e}"))),
-            Err(e) => return Err(Failure::rejected(format!("the simulated plant stopped: {e}"))),
+            Ok(Err(e)) => {
+                return Err(Failure::rejected(format!(
+                    "the simulated plant could not write: {e}"
+                )));
+            }
+            Err(e) => {
+                return Err(Failure::rejected(format!(
+                    "the simulated plant stopped: {e}"
+                )));
+            }
         }
         if seen < files.len() {
-            println!("  live           only {seen} of {} files were recorded within 40 s", files.len());
+            println!(
+                "  live           only {seen} of {} files were recorded within 40 s",
+                files.len()
+            );
         }
         let _ = stop.send(true);
         match service.await {
@@ -83,13 +116,19 @@ pub fn run(dir: &Path, cfg: &Config, batches: &[Vec<(PathBuf, Vec<u8>)>], icp: &
 
 /// Deliver the alerts, write the reports and print what the demo produced.
 pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
-    let smtp = std::env::var(crate::alert::mailer::SMTP_URL_ENV).ok().filter(|s| !s.trim().is_empty());
+    let smtp = std::env::var(crate::alert::mailer::SMTP_URL_ENV)
+        .ok()
+        .filter(|s| !s.trim().is_empty());
     let rt = tokio::runtime::Builder::new_current_thread()
         .enable_all()
         .build()
         .map_err(|e| Failure::rejected(format!("cannot start the async runtime: {e}")))?;
     let mail = rt
-        .block_on(crate::alert::deliver_due(&cfg.database_path(), &cfg.resolved_mail(), chrono::Utc::now()))
+        .block_on(crate::alert::deliver_due(
+            &cfg.database_path(),
+            &cfg.resolved_mail(),
+            chrono::Utc::now(),
+        ))
         .map_err(|e| Failure::rejected(format!("mail delivery failed: {e}")))?;
     let conn = crate::store::open(&cfg.database_path())?;
     let reports = dir.join("reports");
@@ -110,25 +149,38 @@ pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
     let state = crate::analysis::lot_state(&conn, cfg, "PD-C-2611-A")?;
     if let Some(a) = &state.analysis {
         for line in crate::fit::render_text(a).lines().filter(|l| {
-            l.starts_with("Chosen") || l.starts_with("Forecast") || l.contains("lifetime TON") || l.trim_start().starts_with("activity") || l.trim_start().starts_with("fit ")
+            l.starts_with("Chosen")
+                || l.starts_with("Forecast")
+                || l.contains("lifetime TON")
+                || l.trim_start().starts_with("activity")
+                || l.trim_start().starts_with("fit ")
         }) {
             println!("  {line}");
         }
     }
     println!();
     match smtp {
-        Some(_) => println!("  mail           {} alert(s) sent over SMTP ({} failed)", mail.delivered, mail.failed),
+        Some(_) => println!(
+            "  mail           {} alert(s) sent over SMTP ({} failed)",
+            mail.delivered, mail.failed
+        ),
         None => println!(
             "  mail           {} alert(s) written to {} (open them in a mail client)",
             mail.delivered,
             cfg.resolved_mail().dir.display()
         ),
     }
-    println!("  reports        {} (one per lot, CSV beside each, site.html)", reports.display());
+    println!(
+        "  reports        {} (one per lot, CSV beside each, site.html)",
+        reports.display()
+    );
     println!("  database       {}", cfg.database_path().display());
     println!();
     println!("Try: turnbook --config {} status", cfg.source.display());
-    println!("     turnbook --config {} cycles PT-AL-2610-B", cfg.source.display());
+    println!(
+        "     turnbook --config {} cycles PT-AL-2610-B",
+        cfg.source.display()
+    );
     println!("     turnbook --config {} verify", cfg.source.display());
     println!("Spent catalysts can be pyrophoric: keep them wet and follow the site's procedures.");
     Ok(0)

@@ -13,7 +13,9 @@ pub fn lot(cfg: &Config, lot: &str, json: bool) -> CmdResult {
     let conn = store::open(&cfg.database_path())?;
     let state = crate::analysis::lot_state(&conn, cfg, lot)?;
     if state.record.is_none() && state.cycles.is_empty() {
-        return Err(Failure::rejected(format!("no lot '{lot}' is registered and no cycle names it")));
+        return Err(Failure::rejected(format!(
+            "no lot '{lot}' is registered and no cycle names it"
+        )));
     }
     let Some(a) = &state.analysis else {
         return Err(Failure::rejected(format!(
@@ -32,13 +34,21 @@ pub fn lot(cfg: &Config, lot: &str, json: bool) -> CmdResult {
                 }
             }
             m.insert("lot".into(), serde_json::Value::String(lot.to_string()));
-            m.insert("basis".into(), serde_json::Value::String(state.basis.clone()));
+            m.insert(
+                "basis".into(),
+                serde_json::Value::String(state.basis.clone()),
+            );
         }
         println!("{}", serde_json::to_string_pretty(&v)?);
     } else {
-        println!("lot {lot}: {} against {}", cfg.fitting.measure, cfg.fitting.axis);
+        println!(
+            "lot {lot}: {} against {}",
+            cfg.fitting.measure, cfg.fitting.axis
+        );
         print!("{}", fit::render_text(a));
-        println!("Forecasts are advisory: batch release follows QA procedures and local regulations.");
+        println!(
+            "Forecasts are advisory: batch release follows QA procedures and local regulations."
+        );
     }
     Ok(0)
 }
@@ -59,26 +69,51 @@ pub fn series(
     let model = fit::parse_model_arg(model).map_err(|e| Failure::usage(format!("--model: {e}")))?;
     let mut start = Vec::new();
     for s in starts {
-        start.push(fit::parse_start_arg(s).map_err(|e| Failure::usage(format!("--start {s}: {e}")))?);
+        start.push(
+            fit::parse_start_arg(s).map_err(|e| Failure::usage(format!("--start {s}: {e}")))?,
+        );
     }
     if !(confidence > 0.5 && confidence < 1.0) {
-        return Err(Failure::usage("--confidence: expected a probability between 0.5 and 1, e.g. 0.9"));
+        return Err(Failure::usage(
+            "--confidence: expected a probability between 0.5 and 1, e.g. 0.9",
+        ));
     }
     let (x_first, x_last) = x
         .iter()
-        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+            (a.min(v), b.max(v))
+        });
     match model {
         ModelArg::Model(m) => {
-            let opts = FitOptions { start, ..FitOptions::default() };
-            let f = fit::fit_model(m, &x, &y, &opts).map_err(|e| Failure::rejected(format!("{}: {e}", file.display())))?;
-            let fc = threshold.map(|t| fit::forecast(&f, Criterion::Absolute(t), confidence, x_first, x_last));
+            let opts = FitOptions {
+                start,
+                ..FitOptions::default()
+            };
+            let f = fit::fit_model(m, &x, &y, &opts)
+                .map_err(|e| Failure::rejected(format!("{}: {e}", file.display())))?;
+            let fc = threshold
+                .map(|t| fit::forecast(&f, Criterion::Absolute(t), confidence, x_first, x_last));
             if json {
-                println!("{}", serde_json::to_string_pretty(&fit::fit_json(&f, fc.as_ref()))?);
+                println!(
+                    "{}",
+                    serde_json::to_string_pretty(&fit::fit_json(&f, fc.as_ref()))?
+                );
             } else {
                 let v = fit::fit_json(&f, fc.as_ref());
-                println!("model {} on {} points: converged {}, RSS {}, AICc {}", m.id(), f.n, f.converged, v["rss"], v["aicc"]);
+                println!(
+                    "model {} on {} points: converged {}, RSS {}, AICc {}",
+                    m.id(),
+                    f.n,
+                    f.converged,
+                    v["rss"],
+                    v["aicc"]
+                );
                 for (j, name) in f.param_names.iter().enumerate() {
-                    let se = f.std_errors.as_ref().and_then(|s| s.get(j)).map_or("-".to_string(), |s| format!("{s:.6e}"));
+                    let se = f
+                        .std_errors
+                        .as_ref()
+                        .and_then(|s| s.get(j))
+                        .map_or("-".to_string(), |s| format!("{s:.6e}"));
                     println!("  {name:<8} {:>14.8e}  ± {se}", f.params[j]);
                 }
                 if fc.is_some() {
@@ -97,9 +132,20 @@ pub fn series(
                 candidates: ModelId::ALL.to_vec(),
                 ..AnalysisOptions::default()
             };
-            let a = fit::analyse(&LotSeries { x, y, ..LotSeries::default() }, &opts);
+            let a = fit::analyse(
+                &LotSeries {
+                    x,
+                    y,
+                    ..LotSeries::default()
+                },
+                &opts,
+            );
             let Some(f) = &a.fit else {
-                return Err(Failure::rejected(format!("{}: no model could be fitted ({})", file.display(), a.notes.join("; "))));
+                return Err(Failure::rejected(format!(
+                    "{}: no model could be fitted ({})",
+                    file.display(),
+                    a.notes.join("; ")
+                )));
             };
             if json {
                 let mut v = fit::fit_json(f, threshold.and(a.forecast.as_ref()));

@@ -106,7 +106,10 @@ impl Ingestor {
         // Heal an interrupted backfill: lots whose fit is older than their records.
         let healed = crate::analysis::recompute_stale(&mut conn, &cfg, &actor)?;
         if healed > 0 {
-            tracing::info!(lots = healed, "recomputed lots whose fits were older than their records");
+            tracing::info!(
+                lots = healed,
+                "recomputed lots whose fits were older than their records"
+            );
         }
         Ok(Ingestor {
             conn,
@@ -130,14 +133,19 @@ impl Ingestor {
         let Ok(meta) = std::fs::metadata(path) else {
             return Ok(false);
         };
-        let mtime = meta
-            .modified()
-            .ok()
-            .map(|t| chrono::DateTime::<chrono::Utc>::from(t).to_rfc3339_opts(chrono::SecondsFormat::Millis, true));
+        let mtime = meta.modified().ok().map(|t| {
+            chrono::DateTime::<chrono::Utc>::from(t)
+                .to_rfc3339_opts(chrono::SecondsFormat::Millis, true)
+        });
         let n: i64 = self
             .conn
-            .prepare_cached("SELECT COUNT(*) FROM source_files WHERE path = ?1 AND size = ?2 AND mtime IS ?3")?
-            .query_row(rusqlite::params![path.display().to_string(), meta.len() as i64, mtime], |r| r.get(0))?;
+            .prepare_cached(
+                "SELECT COUNT(*) FROM source_files WHERE path = ?1 AND size = ?2 AND mtime IS ?3",
+            )?
+            .query_row(
+                rusqlite::params![path.display().to_string(), meta.len() as i64, mtime],
+                |r| r.get(0),
+            )?;
         Ok(n > 0)
     }
 
@@ -167,7 +175,9 @@ impl Ingestor {
         }
         // A backfill recomputes each touched lot once, after its last group.
         if !touched.is_empty() {
-            let tx = self.conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
+            let tx = self
+                .conn
+                .transaction_with_behavior(TransactionBehavior::Immediate)?;
             crate::analysis::recompute_lots(&tx, &self.cfg, &touched, &self.actor)?;
             tx.commit()?;
         }
@@ -180,7 +190,10 @@ impl Ingestor {
     }
 
     /// Store a group of files in one transaction; the caller recomputes the lots later.
-    fn store_group(&mut self, paths: &[PathBuf]) -> Result<(Vec<FileOutcome>, BTreeSet<String>), StoreError> {
+    fn store_group(
+        &mut self,
+        paths: &[PathBuf],
+    ) -> Result<(Vec<FileOutcome>, BTreeSet<String>), StoreError> {
         self.store_group_then(paths, false)
     }
 
@@ -201,7 +214,9 @@ impl Ingestor {
                 Ok(_) => None,
             })
             .collect();
-        let tx = self.conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
+        let tx = self
+            .conn
+            .transaction_with_behavior(TransactionBehavior::Immediate)?;
         let mut outcomes = Vec::with_capacity(prepared.len());
         let mut in_group: HashMap<String, i64> = HashMap::new();
         let mut touched: BTreeSet<String> = BTreeSet::new();
@@ -223,7 +238,13 @@ impl Ingestor {
                 }
                 (None, Err(error)) => {
                     records::record_rejected(&tx, &facts, &error, q.as_deref(), &self.actor)?;
-                    crate::alerting::raise_quarantine(&tx, &self.cfg, facts.site.as_deref(), &facts.path, &error)?;
+                    crate::alerting::raise_quarantine(
+                        &tx,
+                        &self.cfg,
+                        facts.site.as_deref(),
+                        &facts.path,
+                        &error,
+                    )?;
                     tracing::warn!(path = %facts.path, error = %error, "file rejected");
                     FileOutcome::Rejected {
                         path: facts.path.clone(),
@@ -289,10 +310,10 @@ impl Ingestor {
             }
         };
         facts.size = i64::try_from(meta.len()).unwrap_or(i64::MAX);
-        facts.mtime = meta
-            .modified()
-            .ok()
-            .map(|t| chrono::DateTime::<chrono::Utc>::from(t).to_rfc3339_opts(chrono::SecondsFormat::Millis, true));
+        facts.mtime = meta.modified().ok().map(|t| {
+            chrono::DateTime::<chrono::Utc>::from(t)
+                .to_rfc3339_opts(chrono::SecondsFormat::Millis, true)
+        });
         if meta.len() > self.cfg.max_file_bytes {
             // Hash it anyway (streaming) so the record names exactly which content was refused.
             facts.sha256 = sha256_file(path).unwrap_or_default();
@@ -317,9 +338,11 @@ impl Ingestor {
         facts.size = bytes.len() as i64;
         facts.sha256 = hex::encode(Sha256::digest(&bytes));
         let result = match profile_name {
-            None => Err("the file is not under any configured folder, so no export profile applies; \
+            None => Err(
+                "the file is not under any configured folder, so no export profile applies; \
                          expected a path below one of [[folders]] (or give --profile)"
-                .to_string()),
+                    .to_string(),
+            ),
             Some(name) => match self.cfg.profiles.get(&name) {
                 None => Err(format!("no export profile named '{name}'")),
                 Some(profile) => ingest::parse(&bytes, profile).map_err(|e| e.to_string()),
@@ -351,7 +374,13 @@ fn quarantine_copy(dir: &Path, facts: &FileFacts) -> Option<String> {
         .map(|n| n.to_string_lossy().into_owned())
         .unwrap_or_else(|| "file".into())
         .chars()
-        .map(|c| if c.is_alphanumeric() || ".-_".contains(c) { c } else { '_' })
+        .map(|c| {
+            if c.is_alphanumeric() || ".-_".contains(c) {
+                c
+            } else {
+                '_'
+            }
+        })
         .take(120)
         .collect();
     let prefix = facts.sha256.get(..12).unwrap_or("unhashed");

@@ -59,14 +59,28 @@ fn fit_summary(cfg: &Config, a: &fit::LotAnalysis) -> Option<report::FitSummary>
         .map(|p| {
             p.x.iter()
                 .zip(p.lower.iter().zip(&p.upper))
-                .filter_map(|(x, (lo, hi))| Some(report::BandPoint { x: *x, lower: (*lo)?, upper: (*hi)? }))
+                .filter_map(|(x, (lo, hi))| {
+                    Some(report::BandPoint {
+                        x: *x,
+                        lower: (*lo)?,
+                        upper: (*hi)?,
+                    })
+                })
                 .collect()
         })
         .unwrap_or_default();
     Some(report::FitSummary {
         model_id: f.model.id().to_string(),
-        x_label: if cfg.fitting.axis == "hours" { "time on stream (h)".into() } else { "cycle".into() },
-        y_label: if cfg.fitting.measure == "ton" { "TON per cycle".into() } else { "activity (relative to cycle 1)".into() },
+        x_label: if cfg.fitting.axis == "hours" {
+            "time on stream (h)".into()
+        } else {
+            "cycle".into()
+        },
+        y_label: if cfg.fitting.measure == "ton" {
+            "TON per cycle".into()
+        } else {
+            "activity (relative to cycle 1)".into()
+        },
         params,
         level: cfg.fitting.confidence,
         observed: a
@@ -76,7 +90,11 @@ fn fit_summary(cfg: &Config, a: &fit::LotAnalysis) -> Option<report::FitSummary>
             .collect(),
         curve,
         band,
-        threshold: a.forecast.as_ref().map(|f| f.threshold).or(plot.and_then(|p| p.threshold)),
+        threshold: a
+            .forecast
+            .as_ref()
+            .map(|f| f.threshold)
+            .or(plot.and_then(|p| p.threshold)),
         forecast: a.forecast.as_ref().map(report_forecast),
     })
 }
@@ -89,7 +107,12 @@ fn alerts_of(conn: &Connection, lot: &str) -> store::Result<Vec<report::AlertLin
     )?;
     let rows = stmt
         .query_map([lot], |r| {
-            Ok(report::AlertLine { raised_at: r.get(0)?, rule: r.get(1)?, subject: r.get(2)?, open: r.get(3)? })
+            Ok(report::AlertLine {
+                raised_at: r.get(0)?,
+                rule: r.get(1)?,
+                subject: r.get(2)?,
+                open: r.get(3)?,
+            })
         })?
         .collect::<Result<Vec<_>, _>>()?;
     Ok(rows)
@@ -98,7 +121,9 @@ fn alerts_of(conn: &Connection, lot: &str) -> store::Result<Vec<report::AlertLin
 /// Fill a lot report.
 pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotReport, Failure> {
     let history = crate::views::lot_history(conn, &state.lot)?;
-    let current = crate::views::lot_fingerprint(conn, &state.lot).ok().map(|f| f.1);
+    let current = crate::views::lot_fingerprint(conn, &state.lot)
+        .ok()
+        .map(|f| f.1);
     let mut corrections = Vec::new();
     let mut signoffs = Vec::new();
     let mut corrected_batches = Vec::new();
@@ -121,7 +146,10 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
             "exclusion" => corrections.push(report::CorrectionLine {
                 at: e.at.clone(),
                 who: e.actor.clone(),
-                field: format!("batch {} excluded from fits", p["batch_id"].as_str().unwrap_or("?")),
+                field: format!(
+                    "batch {} excluded from fits",
+                    p["batch_id"].as_str().unwrap_or("?")
+                ),
                 old: (!p["excluded"].as_bool().unwrap_or(false)).to_string(),
                 new: p["excluded"].to_string(),
                 why: p["reason"].as_str().unwrap_or("").to_string(),
@@ -168,7 +196,12 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
                 started_at: c.view.started_at.clone(),
                 values: Quantity::ALL
                     .iter()
-                    .filter_map(|q| c.view.get(*q).map(|v| report::ReportValue { quantity: *q, value: v }))
+                    .filter_map(|q| {
+                        c.view.get(*q).map(|v| report::ReportValue {
+                            quantity: *q,
+                            value: v,
+                        })
+                    })
                     .collect(),
                 ton: m.and_then(|m| m.ton),
                 tof_per_h: m.and_then(|m| m.tof_per_h),
@@ -199,9 +232,13 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
     let verify = report::VerifyLine {
         ran_at: crate::audit::now_utc(),
         outcome: if v.ok() {
-            report::VerifyOutcome::Intact { entries: v.events as u64 }
+            report::VerifyOutcome::Intact {
+                entries: v.events as u64,
+            }
         } else {
-            report::VerifyOutcome::Broken { first_broken: v.findings[0].to_string() }
+            report::VerifyOutcome::Broken {
+                first_broken: v.findings[0].to_string(),
+            }
         },
     };
     Ok(LotReport {
@@ -219,7 +256,11 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
 }
 
 /// Fill the site summary across all lots.
-pub fn build_site(conn: &Connection, cfg: &Config, site: Option<&str>) -> Result<report::SiteReport, Failure> {
+pub fn build_site(
+    conn: &Connection,
+    cfg: &Config,
+    site: Option<&str>,
+) -> Result<report::SiteReport, Failure> {
     let mut lots = Vec::new();
     for name in crate::analysis::lot_names(conn)? {
         let s = lot_state(conn, cfg, &name)?;
@@ -242,31 +283,53 @@ pub fn build_site(conn: &Connection, cfg: &Config, site: Option<&str>) -> Result
         };
         lots.push(report::SiteLotLine {
             lot: name.clone(),
-            catalyst: s.record.as_ref().map_or("(not registered)".into(), |r| r.catalyst.clone()),
+            catalyst: s
+                .record
+                .as_ref()
+                .map_or("(not registered)".into(), |r| r.catalyst.clone()),
             metal: s.record.as_ref().map_or(String::new(), |r| r.metal.clone()),
             state,
             cycles: s.cycles.len() as u32,
             latest_activity: s.latest_activity(),
             forecast: a.and_then(|a| a.forecast.as_ref()).map(report_forecast),
             open_alerts: open,
-            activity_history: s.cycles.iter().filter_map(|c| c.metrics.as_ref().and_then(|m| m.activity)).collect(),
+            activity_history: s
+                .cycles
+                .iter()
+                .filter_map(|c| c.metrics.as_ref().and_then(|m| m.activity))
+                .collect(),
             threshold: a.and_then(|a| a.forecast.as_ref()).map(|f| f.threshold),
         });
     }
     Ok(report::SiteReport {
         generated_at: crate::audit::now_utc(),
         turnbook_version: env!("CARGO_PKG_VERSION").to_string(),
-        site: site.map_or_else(|| cfg.sites.first().map_or("all sites".into(), |s| s.name.clone()), str::to_string),
+        site: site.map_or_else(
+            || {
+                cfg.sites
+                    .first()
+                    .map_or("all sites".into(), |s| s.name.clone())
+            },
+            str::to_string,
+        ),
         lots,
         cautions: Vec::new(),
     })
 }
 
 /// Write a lot's HTML report and, when asked, its CSV table.
-pub fn write_lot(conn: &Connection, cfg: &Config, lot: &str, out: &Path, csv: Option<&Path>) -> Result<(), Failure> {
+pub fn write_lot(
+    conn: &Connection,
+    cfg: &Config,
+    lot: &str,
+    out: &Path,
+    csv: Option<&Path>,
+) -> Result<(), Failure> {
     let state = lot_state(conn, cfg, lot)?;
     if state.record.is_none() && state.cycles.is_empty() {
-        return Err(Failure::rejected(format!("no lot '{lot}' is registered and no cycle names it")));
+        return Err(Failure::rejected(format!(
+            "no lot '{lot}' is registered and no cycle names it"
+        )));
     }
     let r = build(conn, cfg, &state)?;
     std::fs::write(out, report::lot_html(&r))
@@ -279,7 +342,13 @@ pub fn write_lot(conn: &Connection, cfg: &Config, lot: &str, out: &Path, csv: Op
 }
 
 /// `turnbook report`.
-pub fn run(cfg: &Config, lot: Option<&str>, site: bool, out: &Path, csv: Option<&Path>) -> CmdResult {
+pub fn run(
+    cfg: &Config,
+    lot: Option<&str>,
+    site: bool,
+    out: &Path,
+    csv: Option<&Path>,
+) -> CmdResult {
     let conn = store::open(&cfg.database_path())?;
     match (lot, site) {
         (Some(lot), false) => {
@@ -292,7 +361,11 @@ pub fn run(cfg: &Config, lot: Option<&str>, site: bool, out: &Path, csv: Option<
                 .map_err(|e| Failure::rejected(format!("cannot write {}: {e}", out.display())))?;
             println!("site report written to {}", out.display());
         }
-        _ => return Err(Failure::usage("give a LOT, or --site for the summary of all lots")),
+        _ => {
+            return Err(Failure::usage(
+                "give a LOT, or --site for the summary of all lots",
+            ));
+        }
     }
     Ok(0)
 }

@@ -19,7 +19,9 @@ impl PipelineSink {
     pub fn new(cfg: Config) -> Result<Self, Failure> {
         let mut ingestor = Ingestor::open(cfg)?;
         ingestor.skip_unchanged = true;
-        Ok(PipelineSink { ingestor: Mutex::new(ingestor) })
+        Ok(PipelineSink {
+            ingestor: Mutex::new(ingestor),
+        })
     }
 }
 
@@ -36,7 +38,9 @@ impl FileSink for PipelineSink {
         // A database error is returned so the watcher offers the file again later; a bad
         // file is an outcome (recorded, quarantined), not an error.
         match ing.ingest_file(path)? {
-            FileOutcome::Duplicate { path, of_file_id, .. } => {
+            FileOutcome::Duplicate {
+                path, of_file_id, ..
+            } => {
                 tracing::info!(path = %path, of_file_id, "content ingested before; recorded as a duplicate")
             }
             FileOutcome::Rejected { path, error, .. } => {
@@ -49,7 +53,10 @@ impl FileSink for PipelineSink {
 }
 
 /// Run the watcher and the mailer until `shutdown` turns true.
-pub async fn serve(cfg: &Config, shutdown: tokio::sync::watch::Receiver<bool>) -> Result<watch::WatchStats, Failure> {
+pub async fn serve(
+    cfg: &Config,
+    shutdown: tokio::sync::watch::Receiver<bool>,
+) -> Result<watch::WatchStats, Failure> {
     let sink: Arc<dyn FileSink> = Arc::new(PipelineSink::new(cfg.clone())?);
     let db = cfg.database_path();
     let mail = cfg.resolved_mail();
@@ -63,7 +70,10 @@ pub async fn serve(cfg: &Config, shutdown: tokio::sync::watch::Receiver<bool>) -
         .await
         .map_err(|e| Failure::usage(format!("cannot watch the configured folders: {e:#}")))?;
     // The mailer saw the same shutdown; give it a moment to finish a delivery in flight.
-    if tokio::time::timeout(Duration::from_secs(3), mailer).await.is_err() {
+    if tokio::time::timeout(Duration::from_secs(3), mailer)
+        .await
+        .is_err()
+    {
         tracing::warn!("the mailer did not stop within 3 s; leaving it");
     }
     Ok(stats)
@@ -99,7 +109,11 @@ pub fn watch_command(cfg: &Config) -> CmdResult {
 pub fn mail_command(cfg: &Config) -> CmdResult {
     let rt = runtime()?;
     let report = rt
-        .block_on(crate::alert::deliver_due(&cfg.database_path(), &cfg.resolved_mail(), chrono::Utc::now()))
+        .block_on(crate::alert::deliver_due(
+            &cfg.database_path(),
+            &cfg.resolved_mail(),
+            chrono::Utc::now(),
+        ))
         .map_err(|e| Failure::rejected(format!("mail delivery failed: {e}")))?;
     println!(
         "mail: {} attempted, {} delivered, {} failed (failed ones are retried with backoff)",

@@ -57,8 +57,16 @@ pub fn gather_status(conn: &Connection, cfg: &Config) -> store::Result<Status> {
         files_ingested_last_day: count(conn, &format!("{ing} AND seen_at >= ?1"), [&day])?,
         last_file: last.as_ref().map(|l| l.0.clone()),
         last_ingest_at: last.map(|l| l.1),
-        files_quarantined: count(conn, "SELECT COUNT(*) FROM source_files WHERE outcome = 'rejected'", [])?,
-        duplicates: count(conn, "SELECT COUNT(*) FROM source_files WHERE outcome = 'duplicate'", [])?,
+        files_quarantined: count(
+            conn,
+            "SELECT COUNT(*) FROM source_files WHERE outcome = 'rejected'",
+            [],
+        )?,
+        duplicates: count(
+            conn,
+            "SELECT COUNT(*) FROM source_files WHERE outcome = 'duplicate'",
+            [],
+        )?,
         conflicts: count(conn, "SELECT COALESCE(SUM(conflicts), 0) FROM cycles", [])?,
         lots: count(conn, "SELECT COUNT(*) FROM lots", [])?,
         cycles: count(conn, "SELECT COUNT(*) FROM cycles", [])?,
@@ -90,8 +98,14 @@ pub fn status(cfg: &Config, json: bool) -> CmdResult {
     }
     println!("quarantined     {}", s.files_quarantined);
     println!("duplicates      {}", s.duplicates);
-    println!("conflicts       {} (values kept and flagged; settle with `turnbook correct`)", s.conflicts);
-    println!("lots / cycles   {} / {} ({} cycles pending: lot unknown or not registered)", s.lots, s.cycles, s.pending_cycles);
+    println!(
+        "conflicts       {} (values kept and flagged; settle with `turnbook correct`)",
+        s.conflicts
+    );
+    println!(
+        "lots / cycles   {} / {} ({} cycles pending: lot unknown or not registered)",
+        s.lots, s.cycles, s.pending_cycles
+    );
     println!("mail waiting    {}", s.outbox_waiting);
     if s.lots_needing_attention.is_empty() {
         println!("attention       none");
@@ -176,7 +190,10 @@ pub fn history(cfg: &Config, lot: &str, json: bool) -> CmdResult {
             ),
             _ => e.subject.clone(),
         };
-        println!("#{:<6} {}  {:<10} {:<15} {}", e.seq, e.at, e.actor, e.kind, detail);
+        println!(
+            "#{:<6} {}  {:<10} {:<15} {}",
+            e.seq, e.at, e.actor, e.kind, detail
+        );
     }
     Ok(0)
 }
@@ -187,7 +204,9 @@ pub fn lot_fingerprint(conn: &Connection, lot: &str) -> store::Result<(String, S
     let h = lot_history(conn, lot)?;
     let covered: Vec<&HistoryEntry> = h.iter().filter(|e| e.kind != "sign-off").collect();
     if covered.is_empty() {
-        return Err(store::StoreError::Invalid(format!("no history to sign for lot '{lot}'")));
+        return Err(store::StoreError::Invalid(format!(
+            "no history to sign for lot '{lot}'"
+        )));
     }
     let mut sha = Sha256::new();
     for e in &covered {
@@ -196,7 +215,10 @@ pub fn lot_fingerprint(conn: &Connection, lot: &str) -> store::Result<(String, S
     }
     let last = covered.last().map_or(0, |e| e.seq);
     Ok((
-        format!("history of lot {lot}: {} events up to #{last}", covered.len()),
+        format!(
+            "history of lot {lot}: {} events up to #{last}",
+            covered.len()
+        ),
         hex::encode(sha.finalize()),
     ))
 }

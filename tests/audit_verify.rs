@@ -52,7 +52,11 @@ fn populated() -> rusqlite::Connection {
     let s = records::record_parsed(&tx, &facts("a.csv", "bb"), &f, "qa").unwrap();
     assert_eq!(s.rows_new, 2);
     // The same rows again plus one new: known rows are recognised, not stored twice.
-    let f2 = ParsedFile::Cycles(vec![row(2, "B1", "L1", 0.9), row(3, "B2", "L1", 0.8), row(4, "B3", "L1", 0.7)]);
+    let f2 = ParsedFile::Cycles(vec![
+        row(2, "B1", "L1", 0.9),
+        row(3, "B2", "L1", 0.8),
+        row(4, "B3", "L1", 0.7),
+    ]);
     let s2 = records::record_parsed(&tx, &facts("a2.csv", "cc"), &f2, "qa").unwrap();
     assert_eq!((s2.rows_new, s2.rows_known, s2.rows_conflict), (1, 2, 0));
     // A changed old row is a conflict: kept, flagged, the first value stays current.
@@ -60,8 +64,25 @@ fn populated() -> rusqlite::Connection {
     let s3 = records::record_parsed(&tx, &facts("a3.csv", "dd"), &f3, "qa").unwrap();
     assert_eq!(s3.rows_conflict, 1);
     assert_eq!(s3.conflicts.len(), 1);
-    records::correct(&tx, "B2", "conversion", 0.81, "re-integrated peak", "qa", "2026-01-02T00:00:00.000Z").unwrap();
-    records::set_excluded(&tx, "B3", true, "stirrer failed", "qa", "2026-01-02T00:00:00.000Z").unwrap();
+    records::correct(
+        &tx,
+        "B2",
+        "conversion",
+        0.81,
+        "re-integrated peak",
+        "qa",
+        "2026-01-02T00:00:00.000Z",
+    )
+    .unwrap();
+    records::set_excluded(
+        &tx,
+        "B3",
+        true,
+        "stirrer failed",
+        "qa",
+        "2026-01-02T00:00:00.000Z",
+    )
+    .unwrap();
     tx.commit().unwrap();
     conn
 }
@@ -83,13 +104,21 @@ fn untouched_database_verifies_clean() {
 fn a_value_changed_behind_the_back_is_named() {
     let conn = populated();
     // The measurement table refuses updates through its trigger; a tamperer drops it first.
-    conn.execute_batch("DROP TRIGGER measurements_append_only;").unwrap();
+    conn.execute_batch("DROP TRIGGER measurements_append_only;")
+        .unwrap();
     conn.execute("UPDATE measurements SET value = 0.95 WHERE batch_id = 'B1' AND kind = 'observed' AND quantity = 'conversion'", []).unwrap();
-    let id: i64 = conn.query_row("SELECT id FROM measurements WHERE value = 0.95", [], |r| r.get(0)).unwrap();
+    let id: i64 = conn
+        .query_row("SELECT id FROM measurements WHERE value = 0.95", [], |r| {
+            r.get(0)
+        })
+        .unwrap();
     let r = audit::verify(&conn).unwrap();
     assert!(!r.ok());
     let f = &r.findings[0];
-    assert_eq!((f.table.as_str(), f.row.as_str(), f.field.as_str()), ("measurements", id.to_string().as_str(), "value"));
+    assert_eq!(
+        (f.table.as_str(), f.row.as_str(), f.field.as_str()),
+        ("measurements", id.to_string().as_str(), "value")
+    );
     assert_eq!(f.stored, "0.95");
     assert_eq!(f.expected, "0.9");
 }
@@ -97,30 +126,46 @@ fn a_value_changed_behind_the_back_is_named() {
 #[test]
 fn a_cycle_view_changed_behind_the_back_is_named() {
     let conn = populated();
-    conn.execute("UPDATE cycles SET conversion = 0.99 WHERE batch_id = 'B3'", []).unwrap();
+    conn.execute(
+        "UPDATE cycles SET conversion = 0.99 WHERE batch_id = 'B3'",
+        [],
+    )
+    .unwrap();
     let r = audit::verify(&conn).unwrap();
     assert_eq!(r.findings.len(), 1, "{:?}", r.findings);
     let f = &r.findings[0];
-    assert_eq!((f.table.as_str(), f.row.as_str(), f.field.as_str()), ("cycles", "B3", "conversion"));
+    assert_eq!(
+        (f.table.as_str(), f.row.as_str(), f.field.as_str()),
+        ("cycles", "B3", "conversion")
+    );
 }
 
 #[test]
 fn an_edited_event_breaks_the_chain_at_that_event() {
     let conn = populated();
-    conn.execute_batch("DROP TRIGGER events_append_only_update;").unwrap();
-    conn.execute("UPDATE events SET actor = 'mallory' WHERE seq = 3", []).unwrap();
+    conn.execute_batch("DROP TRIGGER events_append_only_update;")
+        .unwrap();
+    conn.execute("UPDATE events SET actor = 'mallory' WHERE seq = 3", [])
+        .unwrap();
     let r = audit::verify(&conn).unwrap();
     let f = &r.findings[0];
-    assert_eq!((f.table.as_str(), f.row.as_str(), f.field.as_str()), ("events", "3", "hash"));
+    assert_eq!(
+        (f.table.as_str(), f.row.as_str(), f.field.as_str()),
+        ("events", "3", "hash")
+    );
 }
 
 #[test]
 fn a_lot_registration_changed_behind_the_back_is_named() {
     let conn = populated();
-    conn.execute("UPDATE lots SET loading_wt_pct = 10.0 WHERE lot = 'L1'", []).unwrap();
+    conn.execute("UPDATE lots SET loading_wt_pct = 10.0 WHERE lot = 'L1'", [])
+        .unwrap();
     let r = audit::verify(&conn).unwrap();
     let f = &r.findings[0];
-    assert_eq!((f.table.as_str(), f.row.as_str(), f.field.as_str()), ("lots", "L1", "loading_wt_pct"));
+    assert_eq!(
+        (f.table.as_str(), f.row.as_str(), f.field.as_str()),
+        ("lots", "L1", "loading_wt_pct")
+    );
 }
 
 #[test]
@@ -128,7 +173,10 @@ fn the_event_log_refuses_updates_and_deletes() {
     let conn = populated();
     assert!(conn.execute("UPDATE events SET actor = 'x'", []).is_err());
     assert!(conn.execute("DELETE FROM events", []).is_err());
-    assert!(conn.execute("UPDATE measurements SET value = 1", []).is_err());
+    assert!(
+        conn.execute("UPDATE measurements SET value = 1", [])
+            .is_err()
+    );
 }
 
 #[test]

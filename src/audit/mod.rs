@@ -43,7 +43,15 @@ pub fn event_hash(
     payload: &str,
 ) -> String {
     let mut h = Sha256::new();
-    for part in [prev_hash, &seq.to_string(), at, actor, kind, subject, payload] {
+    for part in [
+        prev_hash,
+        &seq.to_string(),
+        at,
+        actor,
+        kind,
+        subject,
+        payload,
+    ] {
         h.update(part.as_bytes());
         h.update(b"\n");
     }
@@ -72,7 +80,9 @@ pub fn append(
         "INSERT INTO events(seq, at, actor, kind, subject, payload, prev_hash, hash)
          VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
     )?
-    .execute(rusqlite::params![seq, at, actor, kind, subject, body, prev, hash])?;
+    .execute(rusqlite::params![
+        seq, at, actor, kind, subject, body, prev, hash
+    ])?;
     Ok(seq)
 }
 

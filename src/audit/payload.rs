@@ -68,7 +68,10 @@ pub enum Payload {
     /// A file that could not be read; it is kept (quarantine) and its error stored.
     FileRejected { file: FileRow },
     /// A lot registered or changed by a person (not from a lot sheet file).
-    LotRegistered { lot: LotRecord, reason: Option<String> },
+    LotRegistered {
+        lot: LotRecord,
+        reason: Option<String>,
+    },
     /// A value corrected by a person, with the reason.
     Correction {
         measurement: MeasurementRow,

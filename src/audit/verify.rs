@@ -8,9 +8,9 @@ use serde::Serialize;
 
 use super::{GENESIS, Payload, event_hash};
 use crate::audit::payload::{FileRow, LotRecord, MeasurementRow};
+use crate::store::Result;
 use crate::store::records::{all_cycles, all_lots, measurement_from_row};
 use crate::store::view::{self, CYCLE_COLUMNS};
-use crate::store::Result;
 
 /// One discrepancy.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -47,7 +47,14 @@ impl VerifyReport {
     }
 }
 
-fn push(out: &mut Vec<Finding>, table: &str, row: impl ToString, field: &str, stored: impl ToString, expected: impl ToString) {
+fn push(
+    out: &mut Vec<Finding>,
+    table: &str,
+    row: impl ToString,
+    field: &str,
+    stored: impl ToString,
+    expected: impl ToString,
+) {
     out.push(Finding {
         table: table.into(),
         row: row.to_string(),
@@ -58,7 +65,13 @@ fn push(out: &mut Vec<Finding>, table: &str, row: impl ToString, field: &str, st
 }
 
 /// Compare two serialisable rows field by field.
-fn diff_rows<T: Serialize>(out: &mut Vec<Finding>, table: &str, key: &str, stored: &T, expected: &T) {
+fn diff_rows<T: Serialize>(
+    out: &mut Vec<Finding>,
+    table: &str,
+    key: &str,
+    stored: &T,
+    expected: &T,
+) {
     let (Ok(serde_json::Value::Object(s)), Ok(serde_json::Value::Object(e))) =
         (serde_json::to_value(stored), serde_json::to_value(expected))
     else {
@@ -82,8 +95,9 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
     let mut first_seq: HashMap<String, i64> = HashMap::new();
 
     // 1. The chain itself.
-    let mut stmt =
-        conn.prepare("SELECT seq, at, actor, kind, subject, payload, prev_hash, hash FROM events ORDER BY seq")?;
+    let mut stmt = conn.prepare(
+        "SELECT seq, at, actor, kind, subject, payload, prev_hash, hash FROM events ORDER BY seq",
+    )?;
     let mut rows = stmt.query([])?;
     let mut prev = GENESIS.to_string();
     let mut expected_seq = 1i64;
@@ -99,23 +113,60 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
         let hash: String = r.get(7)?;
         count += 1;
         if seq != expected_seq {
-            push(&mut findings, "events", seq, "seq", seq, format!("{expected_seq} (an event is missing)"));
-            return Ok(VerifyReport { events: count, head_hash: prev, findings });
+            push(
+                &mut findings,
+                "events",
+                seq,
+                "seq",
+                seq,
+                format!("{expected_seq} (an event is missing)"),
+            );
+            return Ok(VerifyReport {
+                events: count,
+                head_hash: prev,
+                findings,
+            });
         }
         if prev_hash != prev {
             push(&mut findings, "events", seq, "prev_hash", &prev_hash, &prev);
-            return Ok(VerifyReport { events: count, head_hash: prev, findings });
+            return Ok(VerifyReport {
+                events: count,
+                head_hash: prev,
+                findings,
+            });
         }
         let recomputed = event_hash(&prev, seq, &at, &actor, &kind, &subject, &body);
         if recomputed != hash {
-            push(&mut findings, "events", seq, "hash", &hash, format!("{recomputed} (the event's content was altered)"));
-            return Ok(VerifyReport { events: count, head_hash: prev, findings });
+            push(
+                &mut findings,
+                "events",
+                seq,
+                "hash",
+                &hash,
+                format!("{recomputed} (the event's content was altered)"),
+            );
+            return Ok(VerifyReport {
+                events: count,
+                head_hash: prev,
+                findings,
+            });
         }
         let payload: Payload = match serde_json::from_str(&body) {
             Ok(p) => p,
             Err(e) => {
-                push(&mut findings, "events", seq, "payload", "unreadable", format!("a valid payload ({e})"));
-                return Ok(VerifyReport { events: count, head_hash: prev, findings });
+                push(
+                    &mut findings,
+                    "events",
+                    seq,
+                    "payload",
+                    "unreadable",
+                    format!("a valid payload ({e})"),
+                );
+                return Ok(VerifyReport {
+                    events: count,
+                    head_hash: prev,
+                    findings,
+                });
             }
         };
         if payload.kind() != kind {
@@ -123,7 +174,11 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
         }
         // 2. Replay what the event wrote.
         match payload {
-            Payload::FileIngested { file, measurements: ms, lots: ls } => {
+            Payload::FileIngested {
+                file,
+                measurements: ms,
+                lots: ls,
+            } => {
                 for m in ms {
                     first_seq.entry(m.batch_id.clone()).or_insert(seq);
                     measurements.insert(m.id, (m, seq));
@@ -142,7 +197,11 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
             Payload::Correction { measurement, .. } => {
                 measurements.insert(measurement.id, (measurement, seq));
             }
-            Payload::Exclusion { batch_id, excluded: ex, .. } => {
+            Payload::Exclusion {
+                batch_id,
+                excluded: ex,
+                ..
+            } => {
                 excluded.insert(batch_id, ex);
             }
             Payload::Note { .. } | Payload::SignOff { .. } => {}
@@ -181,7 +240,15 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
             ))
         })?
         .collect::<std::result::Result<Vec<_>, _>>()?;
-    compare_keyed(&mut findings, "source_files", stored_files.into_iter().map(|(f, s)| (f.id.to_string(), (f, s))).collect(), files.into_iter().map(|(k, v)| (k.to_string(), v)).collect());
+    compare_keyed(
+        &mut findings,
+        "source_files",
+        stored_files
+            .into_iter()
+            .map(|(f, s)| (f.id.to_string(), (f, s)))
+            .collect(),
+        files.into_iter().map(|(k, v)| (k.to_string(), v)).collect(),
+    );
 
     let mut stmt = conn.prepare(
         "SELECT id, batch_id, quantity, value, text, kind, source_file_id, line, col, raw, event_seq
@@ -193,9 +260,23 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
     // Batches and their measurements, for the cycle views below.
     let mut by_batch: BTreeMap<String, Vec<MeasurementRow>> = BTreeMap::new();
     for (m, _) in measurements.values() {
-        by_batch.entry(m.batch_id.clone()).or_default().push(m.clone());
+        by_batch
+            .entry(m.batch_id.clone())
+            .or_default()
+            .push(m.clone());
     }
-    compare_keyed(&mut findings, "measurements", stored_m.into_iter().map(|(m, s)| (m.id.to_string(), (m, s))).collect(), measurements.into_iter().map(|(k, v)| (k.to_string(), v)).collect());
+    compare_keyed(
+        &mut findings,
+        "measurements",
+        stored_m
+            .into_iter()
+            .map(|(m, s)| (m.id.to_string(), (m, s)))
+            .collect(),
+        measurements
+            .into_iter()
+            .map(|(k, v)| (k.to_string(), v))
+            .collect(),
+    );
 
     let stored_lots: BTreeMap<String, (LotRecord, i64)> = {
         let mut stmt = conn.prepare("SELECT lot, event_seq FROM lots")?;
@@ -212,8 +293,10 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
     };
     compare_keyed(&mut findings, "lots", stored_lots, lots);
 
-    let stored_cycles: BTreeMap<String, view::CycleView> =
-        all_cycles(conn)?.into_iter().map(|c| (c.batch_id.clone(), c)).collect();
+    let stored_cycles: BTreeMap<String, view::CycleView> = all_cycles(conn)?
+        .into_iter()
+        .map(|c| (c.batch_id.clone(), c))
+        .collect();
     for (batch, ms) in &by_batch {
         let expected = view::derive_cycle(
             batch,
@@ -222,15 +305,33 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
             first_seq.get(batch).copied().unwrap_or(0),
         );
         match stored_cycles.get(batch) {
-            None => push(&mut findings, "cycles", batch, "(row)", "missing", "present"),
+            None => push(
+                &mut findings,
+                "cycles",
+                batch,
+                "(row)",
+                "missing",
+                "present",
+            ),
             Some(s) => diff_cycle(&mut findings, s, &expected),
         }
     }
     for batch in stored_cycles.keys().filter(|b| !by_batch.contains_key(*b)) {
-        push(&mut findings, "cycles", batch, "(row)", "present", "absent (no event wrote it)");
+        push(
+            &mut findings,
+            "cycles",
+            batch,
+            "(row)",
+            "present",
+            "absent (no event wrote it)",
+        );
     }
 
-    Ok(VerifyReport { events: count, head_hash: prev, findings })
+    Ok(VerifyReport {
+        events: count,
+        head_hash: prev,
+        findings,
+    })
 }
 
 fn diff_cycle(out: &mut Vec<Finding>, s: &view::CycleView, e: &view::CycleView) {
@@ -241,10 +342,24 @@ fn diff_cycle(out: &mut Vec<Finding>, s: &view::CycleView, e: &view::CycleView) 
         push(out, "cycles", b, "lot", opt(&s.lot), opt(&e.lot));
     }
     if s.cycle_no != e.cycle_no {
-        push(out, "cycles", b, "cycle_no", format!("{:?}", s.cycle_no), format!("{:?}", e.cycle_no));
+        push(
+            out,
+            "cycles",
+            b,
+            "cycle_no",
+            format!("{:?}", s.cycle_no),
+            format!("{:?}", e.cycle_no),
+        );
     }
     if s.started_at != e.started_at {
-        push(out, "cycles", b, "started_at", opt(&s.started_at), opt(&e.started_at));
+        push(
+            out,
+            "cycles",
+            b,
+            "started_at",
+            opt(&s.started_at),
+            opt(&e.started_at),
+        );
     }
     for (i, col) in CYCLE_COLUMNS.iter().enumerate() {
         if s.values[i] != e.values[i] {
@@ -280,6 +395,13 @@ fn compare_keyed<T: Serialize>(
         }
     }
     for k in stored.keys().filter(|k| !expected.contains_key(*k)) {
-        push(out, table, k, "(row)", "present", "absent (no event wrote it)");
+        push(
+            out,
+            table,
+            k,
+            "(row)",
+            "present",
+            "absent (no event wrote it)",
+        );
     }
 }

@@ -155,7 +155,9 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         pts.push((x, y, c, t));
     }
     if dropped > 0 {
-        notes.push(format!("{dropped} points with non-finite x or y were left out"));
+        notes.push(format!(
+            "{dropped} points with non-finite x or y were left out"
+        ));
     }
     pts.sort_by(|a, b| a.0.total_cmp(&b.0));
     let (fx, fy): (Vec<f64>, Vec<f64>) = pts.iter().filter(|p| !p.2).map(|p| (p.0, p.1)).unzip();
@@ -255,7 +257,8 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         (None, None) => std::cmp::Ordering::Equal,
     });
     let Some(ci) = chosen_idx else {
-        out.notes.push("no model could be fitted and chosen".to_string());
+        out.notes
+            .push("no model could be fitted and chosen".to_string());
         return out;
     };
     let (model, Ok(fit)) = (&fits[ci].0, &fits[ci].1) else {

@@ -93,10 +93,21 @@ mod tests {
             let prod = 100.0 * (1.0 - q.powi(n as i32)) / (1.0 - q);
             (5000.0 + 300.0 * n as f64) / prod
         };
-        let want = (1..=200).min_by(|&a, &b| avg(a).total_cmp(&avg(b))).unwrap_or(0);
+        let want = (1..=200)
+            .min_by(|&a, &b| avg(a).total_cmp(&avg(b)))
+            .unwrap_or(0);
         assert_eq!(r.best_cycles, want);
         assert!((r.best_average_cost - avg(want)).abs() < 1e-6 * avg(want));
         assert!(!r.at_horizon);
-        assert!(economic_replacement(&f, &EconomicInputs { product_first_cycle: 0.0, ..inp }).is_none());
+        assert!(
+            economic_replacement(
+                &f,
+                &EconomicInputs {
+                    product_first_cycle: 0.0,
+                    ..inp
+                }
+            )
+            .is_none()
+        );
     }
 }

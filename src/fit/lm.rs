@@ -460,7 +460,11 @@ pub fn levenberg_marquardt(
             match new_rss {
                 Some(new_rss) if new_rss < rss => {
                     let actual = rss - new_rss;
-                    let rho = if predicted > 0.0 { actual / predicted } else { 1.0 };
+                    let rho = if predicted > 0.0 {
+                        actual / predicted
+                    } else {
+                        1.0
+                    };
                     let old = rss;
                     p.copy_from_slice(&trial);
                     std::mem::swap(&mut r, &mut r_trial);

@@ -40,11 +40,12 @@ pub fn apply(conn: &mut Connection) -> Result<()> {
     }
     for &(version, name, sql) in MIGRATIONS.iter().filter(|m| m.0 > current) {
         let tx = conn.transaction()?;
-        tx.execute_batch(sql).map_err(|source| StoreError::Migration {
-            version,
-            name: name.to_string(),
-            source,
-        })?;
+        tx.execute_batch(sql)
+            .map_err(|source| StoreError::Migration {
+                version,
+                name: name.to_string(),
+                source,
+            })?;
         tx.execute(
             "INSERT INTO schema_migrations(version, name, applied_at) VALUES (?1, ?2, ?3)",
             rusqlite::params![version, name, crate::audit::now_utc()],

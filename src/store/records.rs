@@ -8,8 +8,8 @@ use serde::Serialize;
 
 use super::view::{self, ATTR_CYCLE_NO, ATTR_LOT, ATTR_STARTED_AT, CYCLE_COLUMNS, CycleView};
 use super::{Result, StoreError};
-use crate::audit::{self, Payload};
 use crate::audit::payload::{FileRow, LotRecord, MeasurementRow};
+use crate::audit::{self, Payload};
 use crate::ingest::{CycleRow, LotRow, ParsedFile, Quantity};
 
 /// What the shell knows of a file before it is parsed.
@@ -339,7 +339,10 @@ pub fn record_parsed(
         let Some((rows, first_seq, excluded)) = batches.get(&b) else {
             continue;
         };
-        if !rows.iter().any(|m| m.id >= new_measurements.first().map_or(i64::MAX, |m| m.id)) {
+        if !rows
+            .iter()
+            .any(|m| m.id >= new_measurements.first().map_or(i64::MAX, |m| m.id))
+        {
             continue; // nothing new for this batch
         }
         let v = view::derive_cycle(&b, rows, *excluded, first_seq.unwrap_or(seq));
@@ -560,7 +563,9 @@ pub fn correct(
     at: &str,
 ) -> Result<i64> {
     let Some(existing) = cycle(tx, batch_id)? else {
-        return Err(StoreError::Invalid(format!("no batch '{batch_id}' is recorded")));
+        return Err(StoreError::Invalid(format!(
+            "no batch '{batch_id}' is recorded"
+        )));
     };
     if quantity != ATTR_CYCLE_NO && Quantity::from_key(quantity).is_none() {
         return Err(StoreError::Invalid(format!(
@@ -569,7 +574,9 @@ pub fn correct(
         )));
     }
     if !value.is_finite() {
-        return Err(StoreError::Invalid("a corrected value must be a finite number".into()));
+        return Err(StoreError::Invalid(
+            "a corrected value must be a finite number".into(),
+        ));
     }
     let mut rows = measurements_of(tx, batch_id)?;
     let previous = view::current(&rows, quantity).and_then(|m| m.value);
@@ -608,7 +615,9 @@ pub fn set_excluded(
     at: &str,
 ) -> Result<i64> {
     let Some(mut v) = cycle(tx, batch_id)? else {
-        return Err(StoreError::Invalid(format!("no batch '{batch_id}' is recorded")));
+        return Err(StoreError::Invalid(format!(
+            "no batch '{batch_id}' is recorded"
+        )));
     };
     let payload = Payload::Exclusion {
         batch_id: batch_id.to_string(),
@@ -622,6 +631,12 @@ pub fn set_excluded(
 }
 
 /// Append any other event that writes no record rows (notes, sign-offs).
-pub fn append_event(tx: &Transaction<'_>, subject: &str, payload: &Payload, actor: &str, at: &str) -> Result<i64> {
+pub fn append_event(
+    tx: &Transaction<'_>,
+    subject: &str,
+    payload: &Payload,
+    actor: &str,
+    at: &str,
+) -> Result<i64> {
     audit::append(tx, at, actor, subject, payload)
 }

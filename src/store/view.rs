@@ -56,7 +56,7 @@ pub fn current<'a>(rows: &'a [MeasurementRow], quantity: &str) -> Option<&'a Mea
     let of_q = rows.iter().filter(|m| m.quantity == quantity);
     of_q.clone()
         .filter(|m| m.kind == "correction")
-        .last()
+        .next_back()
         .or_else(|| of_q.clone().find(|m| m.kind == "observed"))
 }
 

@@ -413,3 +413,59 @@ async fn already_true_shutdown_returns_at_once() {
     assert_eq!(stats, WatchStats::default());
     assert!(sink.calls().is_empty());
 }
+
+/// Panics on one file name, records every call.
+struct Panicky(Recorder);
+
+impl FileSink for Panicky {
+    fn ingest(&self, folder: &WatchFolder, path: &Path) -> anyhow::Result<()> {
+        self.0.ingest(folder, path)?;
+        if path.ends_with("crash.csv") {
+            panic!("parser bug");
+        }
+        Ok(())
+    }
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_panicking_sink_call_counts_as_an_error_and_the_next_file_is_offered() {
+    let dir = tempfile::tempdir().unwrap();
+    let sink = Arc::new(Panicky(Recorder::default()));
+    let (stop, rx) = watch::channel(false);
+    let task = tokio::spawn(run(vec![folder(dir.path(), 200)], sink.clone(), rx));
+    warm_up().await;
+    fs::write(dir.path().join("crash.csv"), b"1").unwrap();
+    sink.0.wait_for(1, Duration::from_secs(3)).await;
+    fs::write(dir.path().join("fine.csv"), b"2").unwrap();
+    sink.0.wait_for(2, Duration::from_secs(3)).await;
+    stop.send(true).unwrap();
+    let stats = task.await.unwrap().unwrap();
+    assert_eq!(sink.0.names(), vec!["crash.csv", "fine.csv"]);
+    assert_eq!(
+        stats,
+        WatchStats {
+            offered: 2,
+            sink_errors: 1
+        }
+    );
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_file_changed_after_its_offer_is_offered_again() {
+    let dir = tempfile::tempdir().unwrap();
+    let sink = Arc::new(Recorder::default());
+    let running = start(vec![folder(dir.path(), 200)], sink.clone());
+    warm_up().await;
+    let path = dir.path().join("sequence.csv");
+    fs::write(&path, b"batch;1\n").unwrap();
+    sink.wait_for(1, Duration::from_secs(3)).await;
+    // The instrument appends the next batch to the same export.
+    let mut file = fs::OpenOptions::new().append(true).open(&path).unwrap();
+    std::io::Write::write_all(&mut file, b"batch;2\n").unwrap();
+    drop(file);
+    sink.wait_for(2, Duration::from_secs(3)).await;
+    tokio::time::sleep(Duration::from_millis(500)).await;
+    let sizes: Vec<u64> = sink.calls().iter().map(|c| c.size).collect();
+    assert_eq!(sizes, vec![8, 16]);
+    running.stop().await;
+}

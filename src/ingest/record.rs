@@ -168,11 +168,7 @@ impl ParseError {
         if let Some(f) = &self.field {
             at.push(format!("field '{f}'"));
         }
-        let at = if at.is_empty() {
-            String::new()
-        } else {
-            format!("{}: ", at.join(", "))
-        };
+        let at = if at.is_empty() { String::new() } else { format!("{}: ", at.join(", ")) };
         format!("{at}expected {}, found {}", self.expected, self.found)
     }
 }

@@ -92,7 +92,7 @@ pub async fn run(
         .collect();
     for root in roots.iter() {
         let folder = &folders[root.index];
-        tracing::info!(folder = ?root.canonical, profile = %folder.profile, mode = ?folder.mode,
+        tracing::info!(folder = ?root.canonical, profile = ?folder.profile, mode = ?folder.mode,
             recursive = folder.recursive, "watching");
     }
     drop(seen_tx);
@@ -529,7 +529,9 @@ impl State {
                     _ => 1,
                 };
                 let wait = retry_delay(self.retry_first, attempts);
-                tracing::error!(path = ?job.path, profile, error = %error, attempts,
+                // The message may quote the file name: escape control characters so a name
+                // cannot start a forged log line.
+                tracing::error!(path = ?job.path, profile, error = %error.escape_debug(), attempts,
                     retry_in_s = wait.as_secs(), "file not ingested");
                 self.refused.insert(
                     job.key,

@@ -168,7 +168,11 @@ impl ParseError {
         if let Some(f) = &self.field {
             at.push(format!("field '{f}'"));
         }
-        let at = if at.is_empty() { String::new() } else { format!("{}: ", at.join(", ")) };
+        let at = if at.is_empty() {
+            String::new()
+        } else {
+            format!("{}: ", at.join(", "))
+        };
         format!("{at}expected {}, found {}", self.expected, self.found)
     }
 }

@@ -53,11 +53,12 @@ pub const ATTR_STARTED_AT: &str = "started_at";
 /// The current value of one quantity among a batch's measurements (ordered by id): the
 /// latest correction if any, else the first observation. Returns the row.
 pub fn current<'a>(rows: &'a [MeasurementRow], quantity: &str) -> Option<&'a MeasurementRow> {
-    let of_q = rows.iter().filter(|m| m.quantity == quantity);
-    of_q.clone()
-        .filter(|m| m.kind == "correction")
-        .next_back()
-        .or_else(|| of_q.clone().find(|m| m.kind == "observed"))
+    rows.iter()
+        .rfind(|m| m.quantity == quantity && m.kind == "correction")
+        .or_else(|| {
+            rows.iter()
+                .find(|m| m.quantity == quantity && m.kind == "observed")
+        })
 }
 
 /// Derive the cycle row from all measurements of one batch, ordered by id.

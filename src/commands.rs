@@ -176,6 +176,8 @@ pub enum Command {
     Watch,
     /// Deliver the messages waiting in the outbox now (the service does this on its own).
     Mail,
+    /// Queue the managers' digest now: every lot's state and forecast, changes, open alerts.
+    Digest,
     /// Walk the audit chain and compare every record with the events that wrote it.
     Verify {
         #[arg(long)]
@@ -394,6 +396,7 @@ fn dispatch(cli: &Cli) -> CmdResult {
         Command::Verify { json } => verify(&load(cli)?, *json),
         Command::Watch => crate::service::watch_command(&load(cli)?),
         Command::Mail => crate::service::mail_command(&load(cli)?),
+        Command::Digest => crate::service::digest_command(&load(cli)?),
         Command::Report {
             lot,
             site,

@@ -119,6 +119,7 @@ pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
     let smtp = std::env::var(crate::alert::mailer::SMTP_URL_ENV)
         .ok()
         .filter(|s| !s.trim().is_empty());
+    let digest = crate::service::queue_digest(cfg)?;
     let rt = tokio::runtime::Builder::new_current_thread()
         .enable_all()
         .build()
@@ -164,11 +165,20 @@ pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
             "  mail           {} alert(s) sent over SMTP ({} failed)",
             mail.delivered, mail.failed
         ),
-        None => println!(
-            "  mail           {} alert(s) written to {} (open them in a mail client)",
-            mail.delivered,
-            cfg.resolved_mail().dir.display()
-        ),
+        None => {
+            let dir = cfg.resolved_mail().dir;
+            let n = std::fs::read_dir(&dir)
+                .map(|d| {
+                    d.filter_map(|e| e.ok())
+                        .filter(|e| e.path().extension().is_some_and(|x| x == "eml"))
+                        .count()
+                })
+                .unwrap_or(0);
+            println!(
+                "  mail           {n} message(s) in {} (open them in a mail client), the last: {digest}",
+                dir.display()
+            )
+        }
     }
     println!(
         "  reports        {} (one per lot, CSV beside each, site.html)",

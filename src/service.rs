@@ -66,6 +66,7 @@ pub async fn serve(
             tracing::error!(error = %e, "the mailer stopped");
         }
     });
+    let digest = tokio::spawn(digest_loop(cfg.clone(), shutdown.clone()));
     let stats = watch::run(cfg.resolved_folders(), sink, shutdown)
         .await
         .map_err(|e| Failure::usage(format!("cannot watch the configured folders: {e:#}")))?;
@@ -76,6 +77,7 @@ pub async fn serve(
     {
         tracing::warn!("the mailer did not stop within 3 s; leaving it");
     }
+    digest.abort();
     Ok(stats)
 }
 
@@ -120,4 +122,86 @@ pub fn mail_command(cfg: &Config) -> CmdResult {
         report.attempted, report.delivered, report.failed
     );
     Ok(if report.failed > 0 { 1 } else { 0 })
+}
+
+/// When the last digest was queued.
+fn last_digest(
+    conn: &rusqlite::Connection,
+) -> Result<Option<chrono::DateTime<chrono::Utc>>, Failure> {
+    let last: Option<String> = conn.query_row(
+        "SELECT MAX(queued_at) FROM alert_outbox WHERE rule = 'digest'",
+        [],
+        |r| r.get(0),
+    )?;
+    Ok(last
+        .and_then(|s| chrono::DateTime::parse_from_rfc3339(&s).ok())
+        .map(|t| t.with_timezone(&chrono::Utc)))
+}
+
+/// Compose the managers' digest for the period since the last one and queue it.
+pub fn queue_digest(cfg: &Config) -> Result<String, Failure> {
+    use crate::alert::{digest, outbox};
+    let mut conn = crate::store::open(&cfg.database_path())?;
+    let now = chrono::Utc::now();
+    let from = last_digest(&conn)?.unwrap_or_else(|| now - chrono::Duration::days(7));
+    let mut snapshots = Vec::new();
+    for lot in crate::analysis::lot_names(&conn)? {
+        let state = crate::analysis::lot_state(&conn, cfg, &lot)?;
+        if let Some(s) = crate::alerting::snapshot(cfg, &state) {
+            snapshots.push(s);
+        }
+    }
+    let alert_err = |e: crate::alert::AlertError| Failure::rejected(format!("digest: {e}"));
+    let open = outbox::open_alerts(&conn).map_err(alert_err)?;
+    let changes = outbox::changes_since(&conn, &outbox::format_ts(from)).map_err(alert_err)?;
+    let period = digest::DigestPeriod { from, to: now };
+    let msg = digest::compose_digest(
+        &snapshots,
+        &changes,
+        &open,
+        &period,
+        &cfg.alerts.recipients.managers,
+    );
+    let tx = conn.transaction().map_err(crate::store::StoreError::from)?;
+    let key = format!("digest|{}", outbox::format_ts(now));
+    outbox::enqueue_message(&tx, &key, &msg, &outbox::format_ts(now)).map_err(alert_err)?;
+    tx.commit().map_err(crate::store::StoreError::from)?;
+    Ok(msg.subject)
+}
+
+/// Queue a digest at every slot of the configured schedule until shutdown.
+async fn digest_loop(cfg: Config, mut shutdown: tokio::sync::watch::Receiver<bool>) {
+    let Some(schedule) = cfg.alerts.digest else {
+        return;
+    };
+    loop {
+        let last = crate::store::open(&cfg.database_path())
+            .ok()
+            .and_then(|c| last_digest(&c).ok().flatten());
+        let now = chrono::Utc::now();
+        let due = crate::alert::next_digest_due(last, &schedule, now);
+        let wait = (due - now).to_std().unwrap_or(Duration::ZERO);
+        tokio::select! {
+            _ = tokio::time::sleep(wait) => {}
+            _ = shutdown.changed() => return,
+        }
+        if *shutdown.borrow() {
+            return;
+        }
+        let c = cfg.clone();
+        match tokio::task::spawn_blocking(move || queue_digest(&c)).await {
+            Ok(Ok(subject)) => tracing::info!(subject = %subject, "digest queued"),
+            Ok(Err(f)) => tracing::error!(error = %f.message, "digest not queued"),
+            Err(e) => tracing::error!(error = %e, "digest task failed"),
+        }
+        // Never queue twice for one slot, even if the clock stepped back.
+        tokio::time::sleep(Duration::from_secs(1)).await;
+    }
+}
+
+/// `turnbook digest`: queue the managers' digest now (the service does this on schedule).
+pub fn digest_command(cfg: &Config) -> CmdResult {
+    let subject = queue_digest(cfg)?;
+    println!("queued: {subject}");
+    Ok(0)
 }

@@ -175,7 +175,7 @@ pub fn config_text() -> String {
         .replace("/var/lib/turnbook/turnbook.db", "turnbook.db")
         .replace("/var/lib/turnbook/quarantine", "quarantine")
         .replace("/var/lib/turnbook/outbox", "outbox")
-        .replace("/srv/exports/", "exports/")
+        .replace("/srv/turnbook/exports/", "exports/")
 }
 
 fn hplc_file(b: &DemoBatch) -> String {

@@ -50,6 +50,9 @@ pub struct LotState {
     pub analysis: Option<LotAnalysis>,
     /// What the fit was made of.
     pub basis: String,
+    /// Lifetime TON from the `plateau` model fitted to cumulative TON against cycle:
+    /// (ton_max, its standard error).
+    pub lifetime_ton: Option<(f64, Option<f64>)>,
     /// Plain-words reasons someone should look at this lot.
     pub attention: Vec<String>,
 }
@@ -189,6 +192,7 @@ pub fn lot_state(conn: &Connection, cfg: &Config, lot: &str) -> Result<LotState>
             cycles,
             analysis: None,
             basis: basis(cfg),
+            lifetime_ton: None,
             attention,
         });
     };
@@ -268,13 +272,35 @@ pub fn lot_state(conn: &Connection, cfg: &Config, lot: &str) -> Result<LotState>
             "{conflicts} conflicting value(s) kept and flagged; settle them with `turnbook correct`"
         ));
     }
+    let lifetime_ton = plateau_lifetime(&cycles);
     Ok(LotState {
         lot: lot.to_string(),
         record,
         cycles,
         analysis,
         basis: basis(cfg),
+        lifetime_ton,
         attention,
+    })
+}
+
+/// Fit `plateau` (ton_max·(1 − exp(−kd·x))) to cumulative TON against cycle number; its
+/// ton_max is the lot's lifetime TON. Needs more points than parameters + 1.
+fn plateau_lifetime(cycles: &[CycleState]) -> Option<(f64, Option<f64>)> {
+    let (x, y): (Vec<f64>, Vec<f64>) = cycles
+        .iter()
+        .filter_map(|c| Some((f64::from(c.cycle), c.metrics.as_ref()?.cumulative_ton?)))
+        .unzip();
+    if x.len() <= ModelId::Plateau.n_params() + 1 {
+        return None;
+    }
+    let f = fit::fit_model(ModelId::Plateau, &x, &y, &fit::FitOptions::default()).ok()?;
+    let ton_max = f.param("ton_max")?;
+    (f.converged && ton_max.is_finite()).then(|| {
+        (
+            ton_max,
+            f.std_errors.as_ref().and_then(|s| s.first().copied()),
+        )
     })
 }
 
@@ -430,6 +456,8 @@ pub struct LotLine {
     pub complete_cycles: usize,
     pub latest_activity: Option<f64>,
     pub cumulative_ton: Option<f64>,
+    /// Lifetime TON from the plateau model fitted to cumulative TON.
+    pub lifetime_ton: Option<f64>,
     pub model: Option<String>,
     pub forecast: Option<serde_json::Value>,
     pub abrupt_loss: bool,
@@ -460,6 +488,7 @@ fn lot_line(s: &LotState) -> LotLine {
             .iter()
             .rev()
             .find_map(|c| c.metrics.as_ref().and_then(|m| m.cumulative_ton)),
+        lifetime_ton: s.lifetime_ton.map(|l| l.0),
         model: a.and_then(|a| a.chosen).map(|m| m.id().to_string()),
         forecast: a
             .and_then(|a| a.forecast.as_ref())

@@ -137,6 +137,8 @@ pub fn lot_history(conn: &Connection, lot: &str) -> store::Result<Vec<HistoryEnt
          WHERE e.subject = ?1
             OR e.subject IN (SELECT batch_id FROM cycles WHERE lot = ?1)
             OR e.seq IN (SELECT m.event_seq FROM measurements m JOIN cycles c ON c.batch_id = m.batch_id WHERE c.lot = ?1)
+            OR (e.kind = 'file-ingested' AND EXISTS (
+                    SELECT 1 FROM json_each(e.payload, '$.lots') j WHERE json_extract(j.value, '$.lot') = ?1))
          ORDER BY e.seq",
     )?;
     let rows = stmt

@@ -93,5 +93,27 @@ pub fn actor(configured: Option<&str>) -> String {
     }
     std::env::var("USER")
         .or_else(|_| std::env::var("LOGNAME"))
-        .unwrap_or_else(|_| "unknown".to_string())
+        .ok()
+        .filter(|u| !u.is_empty())
+        .or_else(os_user)
+        .unwrap_or_else(|| "unknown".to_string())
+}
+
+/// The name of the process's real user from /proc and /etc/passwd (services often run
+/// without USER in their environment).
+fn os_user() -> Option<String> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    let uid = status
+        .lines()
+        .find_map(|l| l.strip_prefix("Uid:"))?
+        .split_whitespace()
+        .next()?
+        .to_string();
+    let passwd = std::fs::read_to_string("/etc/passwd").ok()?;
+    passwd.lines().find_map(|l| {
+        let mut f = l.split(':');
+        let name = f.next()?;
+        let _pw = f.next()?;
+        (f.next()? == uid).then(|| name.to_string())
+    })
 }

@@ -116,13 +116,13 @@ pub fn analysis_options(
     }
 }
 
-fn sources_of(conn: &Connection, batch: &str) -> Result<Vec<SourceRef>> {
+fn sources_of(conn: &Connection, batch: &str, as_of: i64) -> Result<Vec<SourceRef>> {
     let mut stmt = conn.prepare_cached(
         "SELECT f.id, f.path, f.sha256, m.line FROM measurements m JOIN source_files f ON f.id = m.source_file_id
-         WHERE m.batch_id = ?1 ORDER BY f.id, m.line",
+         WHERE m.batch_id = ?1 AND m.event_seq <= ?2 ORDER BY f.id, m.line",
     )?;
     let mut out: Vec<SourceRef> = Vec::new();
-    let rows = stmt.query_map([batch], |r| {
+    let rows = stmt.query_map(rusqlite::params![batch, as_of], |r| {
         Ok((
             r.get::<_, i64>(0)?,
             r.get::<_, String>(1)?,
@@ -153,8 +153,94 @@ fn sources_of(conn: &Connection, batch: &str) -> Result<Vec<SourceRef>> {
 
 /// Compute a lot's state from the store: metrics of every cycle, and the fit.
 pub fn lot_state(conn: &Connection, cfg: &Config, lot: &str) -> Result<LotState> {
-    let record = records::lot(conn, lot)?;
-    let views = records::cycles_of_lot(conn, lot)?;
+    lot_state_as_of(conn, cfg, lot, None)
+}
+
+/// The lot's registration as it stood after event `as_of`, replayed from the events.
+fn lot_record_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Option<LotRecord>> {
+    let mut stmt = conn.prepare(
+        "SELECT payload FROM events WHERE seq <= ?1 AND kind IN ('lot-registered', 'file-ingested') ORDER BY seq",
+    )?;
+    let mut found = None;
+    let rows = stmt.query_map([as_of], |r| r.get::<_, String>(0))?;
+    for body in rows {
+        match serde_json::from_str::<crate::audit::Payload>(&body?)? {
+            crate::audit::Payload::LotRegistered { lot: l, .. } if l.lot == lot => found = Some(l),
+            crate::audit::Payload::FileIngested { lots, .. } => {
+                if let Some(l) = lots.into_iter().rev().find(|l| l.lot == lot) {
+                    found = Some(l);
+                }
+            }
+            _ => {}
+        }
+    }
+    Ok(found)
+}
+
+/// The lot's cycles as they stood after event `as_of`: every measurement and exclusion up
+/// to that event, through the same derivation as the current view.
+fn cycles_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Vec<CycleView>> {
+    let mut stmt = conn.prepare(
+        "SELECT DISTINCT batch_id FROM measurements WHERE event_seq <= ?1 ORDER BY batch_id",
+    )?;
+    let batches = stmt
+        .query_map([as_of], |r| r.get::<_, String>(0))?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    let mut out = Vec::new();
+    for b in batches {
+        let rows: Vec<_> = conn
+            .prepare_cached(
+                "SELECT id, batch_id, quantity, value, text, kind, source_file_id, line, col, raw, event_seq
+                 FROM measurements WHERE batch_id = ?1 AND event_seq <= ?2 ORDER BY id",
+            )?
+            .query_map(rusqlite::params![b, as_of], |r| {
+                Ok((records::measurement_from_row(r)?, r.get::<_, i64>(10)?))
+            })?
+            .collect::<std::result::Result<Vec<_>, _>>()?;
+        let first_seq = rows.iter().map(|r| r.1).min().unwrap_or(0);
+        let rows: Vec<_> = rows.into_iter().map(|r| r.0).collect();
+        let excluded = conn
+            .query_row(
+                "SELECT payload FROM events WHERE kind = 'exclusion' AND subject = ?1 AND seq <= ?2 ORDER BY seq DESC LIMIT 1",
+                rusqlite::params![b, as_of],
+                |r| r.get::<_, String>(0),
+            )
+            .optional()?
+            .and_then(|p| serde_json::from_str::<serde_json::Value>(&p).ok())
+            .and_then(|v| v["excluded"].as_bool())
+            .unwrap_or(false);
+        let v = crate::store::view::derive_cycle(&b, &rows, excluded, first_seq);
+        if v.lot.as_deref() == Some(lot) {
+            out.push(v);
+        }
+    }
+    out.sort_by(|a, b| {
+        (a.cycle_no.is_none(), a.cycle_no, &a.started_at, a.first_seq).cmp(&(
+            b.cycle_no.is_none(),
+            b.cycle_no,
+            &b.started_at,
+            b.first_seq,
+        ))
+    });
+    Ok(out)
+}
+
+/// A lot's state now (`as_of` None) or as it stood after event `as_of`: the current view
+/// is derived from the append-only history, so any earlier view can be rebuilt.
+pub fn lot_state_as_of(
+    conn: &Connection,
+    cfg: &Config,
+    lot: &str,
+    as_of: Option<i64>,
+) -> Result<LotState> {
+    let (record, views) = match as_of {
+        None => (records::lot(conn, lot)?, records::cycles_of_lot(conn, lot)?),
+        Some(seq) => (
+            lot_record_as_of(conn, lot, seq)?,
+            cycles_as_of(conn, lot, seq)?,
+        ),
+    };
+    let as_of = as_of.unwrap_or(i64::MAX);
     let mut cycles: Vec<CycleState> = Vec::with_capacity(views.len());
     for (i, v) in views.into_iter().enumerate() {
         let n = v
@@ -168,7 +254,7 @@ pub fn lot_state(conn: &Connection, cfg: &Config, lot: &str) -> Result<LotState>
         if v.excluded {
             flags.push("excluded".to_string());
         }
-        let sources = sources_of(conn, &v.batch_id)?;
+        let sources = sources_of(conn, &v.batch_id, as_of)?;
         cycles.push(CycleState {
             cycle: n,
             view: v,

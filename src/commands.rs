@@ -171,6 +171,9 @@ pub enum Command {
         /// Also write the cycle table as CSV here.
         #[arg(long)]
         csv: Option<PathBuf>,
+        /// Show the lot as it stood after this event number (see `history`).
+        #[arg(long, conflicts_with = "site")]
+        as_of: Option<i64>,
     },
     /// The service: watch the configured export folders, ingest every file once, send alerts.
     Watch,
@@ -402,7 +405,15 @@ fn dispatch(cli: &Cli) -> CmdResult {
             site,
             out,
             csv,
-        } => crate::reportcmd::run(&load(cli)?, lot.as_deref(), *site, out, csv.as_deref()),
+            as_of,
+        } => crate::reportcmd::run(
+            &load(cli)?,
+            lot.as_deref(),
+            *site,
+            *as_of,
+            out,
+            csv.as_deref(),
+        ),
         Command::Fit {
             lot,
             series,

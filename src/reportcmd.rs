@@ -325,7 +325,19 @@ pub fn write_lot(
     out: &Path,
     csv: Option<&Path>,
 ) -> Result<(), Failure> {
-    let state = lot_state(conn, cfg, lot)?;
+    write_lot_as_of(conn, cfg, lot, None, out, csv)
+}
+
+/// Write a lot's report as it stood after event `as_of` (None: now).
+pub fn write_lot_as_of(
+    conn: &Connection,
+    cfg: &Config,
+    lot: &str,
+    as_of: Option<i64>,
+    out: &Path,
+    csv: Option<&Path>,
+) -> Result<(), Failure> {
+    let state = crate::analysis::lot_state_as_of(conn, cfg, lot, as_of)?;
     if state.record.is_none() && state.cycles.is_empty() {
         return Err(Failure::rejected(format!(
             "no lot '{lot}' is registered and no cycle names it"
@@ -346,14 +358,21 @@ pub fn run(
     cfg: &Config,
     lot: Option<&str>,
     site: bool,
+    as_of: Option<i64>,
     out: &Path,
     csv: Option<&Path>,
 ) -> CmdResult {
     let conn = store::open(&cfg.database_path())?;
     match (lot, site) {
         (Some(lot), false) => {
-            write_lot(&conn, cfg, lot, out, csv)?;
-            println!("report of lot {lot} written to {}", out.display());
+            write_lot_as_of(&conn, cfg, lot, as_of, out, csv)?;
+            match as_of {
+                Some(seq) => println!(
+                    "report of lot {lot} as it stood after event {seq} written to {}",
+                    out.display()
+                ),
+                None => println!("report of lot {lot} written to {}", out.display()),
+            }
         }
         (None, true) => {
             let s = build_site(&conn, cfg, None)?;

@@ -12,6 +12,7 @@ use super::abrupt::{AbruptLoss, cusum_down, prediction_check};
 use super::choice::{Candidate, choose};
 use super::economics::{EconomicInputs, EconomicResult, economic_replacement};
 use super::engine::{FitOptions, FitResult, fit_model};
+use super::lm::LmOptions;
 use super::forecast::{Criterion, Forecast, ForecastStatus, forecast, lifetime_ton, t_quantile};
 use super::models::ModelId;
 
@@ -47,6 +48,8 @@ pub struct AnalysisOptions {
     pub economics: Option<EconomicInputs>,
     /// Points of the plot grid.
     pub grid_points: usize,
+    /// Iteration limit per candidate fit.
+    pub max_iterations: usize,
 }
 
 impl Default for AnalysisOptions {
@@ -60,6 +63,7 @@ impl Default for AnalysisOptions {
             cusum_h: 4.5,
             economics: None,
             grid_points: 80,
+            max_iterations: 200,
         }
     }
 }
@@ -179,7 +183,15 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         notes,
     };
 
-    let fit_opts = FitOptions::default();
+    // A lot's candidate that needs more than this is wandering along a degenerate valley
+    // (e.g. two sites collapsing into one); it is reported as not converged instead.
+    let fit_opts = FitOptions {
+        lm: LmOptions {
+            max_iterations: opts.max_iterations,
+            ..LmOptions::default()
+        },
+        ..FitOptions::default()
+    };
     let mut fits: Vec<(ModelId, Result<FitResult, String>)> = Vec::new();
     for &m in &opts.candidates {
         let r = if fx.len() <= m.n_params() + 1 {
@@ -291,7 +303,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
                 .cloned()
                 .zip(fit.params.iter().copied())
                 .collect(),
-            ..FitOptions::default()
+            ..fit_opts.clone()
         };
         fit_model(model, &fx[..k], &fy[..k], &opts_prev)
             .ok()

@@ -17,7 +17,11 @@ fn coverage(model: ModelId, truth: &[f64], sd: f64, n: usize, crit: f64, seed: u
     let (mut lo, mut hi) = (0.0, 1e4);
     for _ in 0..200 {
         let m = 0.5 * (lo + hi);
-        if model.eval(m, truth) > crit { lo = m } else { hi = m }
+        if model.eval(m, truth) > crit {
+            lo = m
+        } else {
+            hi = m
+        }
     }
     let x_true = 0.5 * (lo + hi);
     let trials = 1000;

@@ -3,6 +3,8 @@
 //! Certified parameters, standard deviations and RSS are read from the files' headers and
 //! must be matched to at least 6 significant digits from both NIST starting points.
 
+#![allow(clippy::needless_range_loop)]
+
 use turnbook::fit::lm::{Curve, FnCurve, LmOptions, levenberg_marquardt};
 use turnbook::fit::models::{bennett_from_power, power_from_bennett};
 use turnbook::fit::{FitOptions, ModelId, engine::covariance_of, fit_model};
@@ -29,7 +31,10 @@ fn number_after_colon(line: &str) -> f64 {
 /// Parses the StRD layout: parameter lines "bK = start1 start2 certified sd", the summary
 /// lines, then the data block after the "Data:  y  x" line.
 fn parse_strd(name: &str) -> Strd {
-    let path = format!("{}/tests/fixtures/nist/{name}.dat", env!("CARGO_MANIFEST_DIR"));
+    let path = format!(
+        "{}/tests/fixtures/nist/{name}.dat",
+        env!("CARGO_MANIFEST_DIR")
+    );
     let text = std::fs::read_to_string(&path).unwrap_or_else(|e| panic!("{path}: {e}"));
     let mut starts = [Vec::new(), Vec::new()];
     let (mut certified, mut certified_sd) = (Vec::new(), Vec::new());
@@ -39,7 +44,10 @@ fn parse_strd(name: &str) -> Strd {
     for line in text.lines() {
         let t = line.trim();
         if in_data {
-            let v: Vec<f64> = t.split_whitespace().filter_map(|s| s.parse().ok()).collect();
+            let v: Vec<f64> = t
+                .split_whitespace()
+                .filter_map(|s| s.parse().ok())
+                .collect();
             if v.len() == 2 {
                 y.push(v[0]);
                 x.push(v[1]);
@@ -76,7 +84,11 @@ fn parse_strd(name: &str) -> Strd {
         x,
         y,
     };
-    assert_eq!(s.x.len(), s.dof + s.certified.len(), "{name}: observation count");
+    assert_eq!(
+        s.x.len(),
+        s.dof + s.certified.len(),
+        "{name}: observation count"
+    );
     s
 }
 
@@ -93,13 +105,28 @@ fn check_engine(name: &str, curve: &dyn Curve) {
     for (k, start) in d.starts.iter().enumerate() {
         let out = levenberg_marquardt(curve, &d.x, &d.y, None, start, &LmOptions::default())
             .unwrap_or_else(|e| panic!("{name} start {}: {e}", k + 1));
-        assert!(out.reason.is_converged(), "{name} start {}: {:?}", k + 1, out.reason);
+        assert!(
+            out.reason.is_converged(),
+            "{name} start {}: {:?}",
+            k + 1,
+            out.reason
+        );
         let (_, se) = covariance_of(&out, d.x.len());
         let se = se.unwrap_or_else(|| panic!("{name}: singular covariance"));
         let tag = format!("{name} (NIST StRD certified) start {}", k + 1);
         for j in 0..d.certified.len() {
-            assert_sig(out.params[j], d.certified[j], 6.0, &format!("{tag} b{}", j + 1));
-            assert_sig(se[j], d.certified_sd[j], 6.0, &format!("{tag} sd(b{})", j + 1));
+            assert_sig(
+                out.params[j],
+                d.certified[j],
+                6.0,
+                &format!("{tag} b{}", j + 1),
+            );
+            assert_sig(
+                se[j],
+                d.certified_sd[j],
+                6.0,
+                &format!("{tag} sd(b{})", j + 1),
+            );
         }
         assert_sig(out.rss, d.rss, 6.0, &format!("{tag} RSS"));
         let s = (out.rss / d.dof as f64).sqrt();
@@ -121,7 +148,9 @@ fn misra1b_engine() {
     // NIST StRD Misra1b: y = b1 * (1-(1+b2*x/2)**(-2)).
     check_engine(
         "Misra1b",
-        &FnCurve::new(2, |x, b: &[f64]| b[0] * (1.0 - (1.0 + b[1] * x / 2.0).powi(-2))),
+        &FnCurve::new(2, |x, b: &[f64]| {
+            b[0] * (1.0 - (1.0 + b[1] * x / 2.0).powi(-2))
+        }),
     );
 }
 
@@ -137,7 +166,10 @@ fn chwirut2_engine() {
 #[test]
 fn danwood_engine() {
     // NIST StRD DanWood: y = b1*x**b2.
-    check_engine("DanWood", &FnCurve::new(2, |x, b: &[f64]| b[0] * x.powf(b[1])));
+    check_engine(
+        "DanWood",
+        &FnCurve::new(2, |x, b: &[f64]| b[0] * x.powf(b[1])),
+    );
 }
 
 #[test]
@@ -210,5 +242,10 @@ fn automatic_starts_find_the_certified_plateau() {
     // Misra1a again, without NIST's starts: the automatic start must reach the same optimum.
     let d = parse_strd("Misra1a");
     let f = fit_model(ModelId::Plateau, &d.x, &d.y, &FitOptions::default()).expect("fit runs");
-    assert_sig(f.rss, d.rss, 6.0, "Misra1a via plateau, automatic start (NIST StRD)");
+    assert_sig(
+        f.rss,
+        d.rss,
+        6.0,
+        "Misra1a via plateau, automatic start (NIST StRD)",
+    );
 }

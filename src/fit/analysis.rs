@@ -12,8 +12,8 @@ use super::abrupt::{AbruptLoss, cusum_down, prediction_check};
 use super::choice::{Candidate, choose};
 use super::economics::{EconomicInputs, EconomicResult, economic_replacement};
 use super::engine::{FitOptions, FitResult, fit_model};
-use super::lm::LmOptions;
 use super::forecast::{Criterion, Forecast, ForecastStatus, forecast, lifetime_ton, t_quantile};
+use super::lm::LmOptions;
 use super::models::ModelId;
 
 /// Version of the numerical engine, stored beside each analysis so that a stored result
@@ -159,7 +159,9 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         pts.push((x, y, c, t));
     }
     if dropped > 0 {
-        notes.push(format!("{dropped} points with non-finite x or y were left out"));
+        notes.push(format!(
+            "{dropped} points with non-finite x or y were left out"
+        ));
     }
     pts.sort_by(|a, b| a.0.total_cmp(&b.0));
     let (fx, fy): (Vec<f64>, Vec<f64>) = pts.iter().filter(|p| !p.2).map(|p| (p.0, p.1)).unzip();
@@ -267,7 +269,8 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         (None, None) => std::cmp::Ordering::Equal,
     });
     let Some(ci) = chosen_idx else {
-        out.notes.push("no model could be fitted and chosen".to_string());
+        out.notes
+            .push("no model could be fitted and chosen".to_string());
         return out;
     };
     let (model, Ok(fit)) = (&fits[ci].0, &fits[ci].1) else {
@@ -278,13 +281,13 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
 
     let (x_first, x_last) = (fx[0], fx[fx.len() - 1]);
     let mut fc = forecast(fit, opts.criterion, opts.confidence, x_first, x_last);
-    if pts.iter().any(|p| p.3.is_some()) {
-        if let Some(xs) = fc.x {
-            let ax: Vec<f64> = pts.iter().map(|p| p.0).collect();
-            let ay: Vec<f64> = pts.iter().map(|p| p.1).collect();
-            let at: Vec<Option<f64>> = pts.iter().map(|p| p.3).collect();
-            fc.lifetime_ton = lifetime_ton(fit, &ax, &ay, &at, xs);
-        }
+    if pts.iter().any(|p| p.3.is_some())
+        && let Some(xs) = fc.x
+    {
+        let ax: Vec<f64> = pts.iter().map(|p| p.0).collect();
+        let ay: Vec<f64> = pts.iter().map(|p| p.1).collect();
+        let at: Vec<Option<f64>> = pts.iter().map(|p| p.3).collect();
+        fc.lifetime_ton = lifetime_ton(fit, &ax, &ay, &at, xs);
     }
 
     out.censored.above_fit = pts

@@ -12,7 +12,8 @@ pub fn aicc(n: usize, p: usize, rss: f64) -> Option<f64> {
     }
     let nf = n as f64;
     let pf = p as f64;
-    let v = nf * (rss.max(RSS_FLOOR) / nf).ln() + 2.0 * pf + 2.0 * pf * (pf + 1.0) / (nf - pf - 1.0);
+    let v =
+        nf * (rss.max(RSS_FLOOR) / nf).ln() + 2.0 * pf + 2.0 * pf * (pf + 1.0) / (nf - pf - 1.0);
     v.is_finite().then_some(v)
 }
 

@@ -112,7 +112,8 @@ fn why_words(w: NotReachedWhy) -> &'static str {
 }
 
 fn num(v: Option<f64>) -> Value {
-    v.filter(|v| v.is_finite()).map_or(Value::Null, |v| json!(v))
+    v.filter(|v| v.is_finite())
+        .map_or(Value::Null, |v| json!(v))
 }
 
 /// JSON of a fit (and forecast): keys model, n, params, std_errors, rss, dof, aicc,
@@ -198,7 +199,10 @@ pub fn render_text(a: &LotAnalysis) -> String {
         "{} points ({} fitted, {} censored), engine {}",
         a.n_points, a.n_fitted, a.censored.count, a.engine_version
     );
-    let _ = writeln!(s, "\nModel ranking (AICc; simplest within ΔAICc < 2 is chosen)");
+    let _ = writeln!(
+        s,
+        "\nModel ranking (AICc; simplest within ΔAICc < 2 is chosen)"
+    );
     let _ = writeln!(
         s,
         "  {:<22} {:>3} {:>12} {:>10} {:>7}  note",
@@ -212,7 +216,8 @@ pub fn render_text(a: &LotAnalysis) -> String {
             r.model.id(),
             r.model.n_params(),
             r.rss.map_or_else(|| "—".to_string(), fmt_g),
-            r.aicc.map_or_else(|| "—".to_string(), |v| format!("{v:.2}")),
+            r.aicc
+                .map_or_else(|| "—".to_string(), |v| format!("{v:.2}")),
             r.delta_aicc
                 .map_or_else(|| "—".to_string(), |v| format!("{v:.2}")),
             r.why_not.as_deref().unwrap_or("")
@@ -279,7 +284,11 @@ pub fn render_text(a: &LotAnalysis) -> String {
         }
     }
     if let Some(ab) = &a.abrupt {
-        let verdict = if ab.suspected { "SUSPECTED" } else { "not indicated" };
+        let verdict = if ab.suspected {
+            "SUSPECTED"
+        } else {
+            "not indicated"
+        };
         let _ = writeln!(s, "\nAbrupt loss: {verdict}");
         if let Some(p) = &ab.prediction {
             let _ = writeln!(
@@ -326,12 +335,12 @@ pub fn render_text(a: &LotAnalysis) -> String {
         );
     }
     let obs: Vec<Option<f64>> = a.observed.iter().map(|p| Some(p.1)).collect();
-    let fitted: Vec<Option<f64>> = a
-        .observed
+    let fitted: Vec<Option<f64>> = a.observed.iter().map(|p| Some(fit.predict(p.0))).collect();
+    let all = obs
         .iter()
-        .map(|p| Some(fit.predict(p.0)))
-        .collect();
-    let all = obs.iter().chain(&fitted).flatten().filter(|v| v.is_finite());
+        .chain(&fitted)
+        .flatten()
+        .filter(|v| v.is_finite());
     let (lo, hi) = all.fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), &v| {
         (l.min(v), h.max(v))
     });
@@ -391,7 +400,10 @@ mod tests {
     #[test]
     fn json_has_the_promised_keys() {
         let x: Vec<f64> = (1..=8).map(f64::from).collect();
-        let y: Vec<f64> = x.iter().map(|&v| 1.0 - 0.05 * v + 0.001 * (v % 2.0)).collect();
+        let y: Vec<f64> = x
+            .iter()
+            .map(|&v| 1.0 - 0.05 * v + 0.001 * (v % 2.0))
+            .collect();
         let f = fit_model(ModelId::Linear, &x, &y, &FitOptions::default()).expect("fit");
         let fc = crate::fit::forecast::forecast(
             &f,
@@ -401,11 +413,24 @@ mod tests {
             8.0,
         );
         let v = fit_json(&f, Some(&fc));
-        for k in ["model", "n", "params", "std_errors", "rss", "dof", "aicc", "converged"] {
+        for k in [
+            "model",
+            "n",
+            "params",
+            "std_errors",
+            "rss",
+            "dof",
+            "aicc",
+            "converged",
+        ] {
             assert!(v.get(k).is_some(), "missing {k}");
         }
         assert_eq!(v["model"], "linear");
-        assert!(v["params"]["r"].as_f64().is_some_and(|r| (r - 0.05).abs() < 0.01));
+        assert!(
+            v["params"]["r"]
+                .as_f64()
+                .is_some_and(|r| (r - 0.05).abs() < 0.01)
+        );
         assert_eq!(v["forecast"]["status"], "ahead");
         assert!(v["forecast"]["x"].as_f64().is_some());
     }
@@ -423,7 +448,13 @@ mod tests {
             &AnalysisOptions::default(),
         );
         let t = render_text(&a);
-        for part in ["Model ranking", "Chosen:", "Forecast", "Abrupt loss", "activity"] {
+        for part in [
+            "Model ranking",
+            "Chosen:",
+            "Forecast",
+            "Abrupt loss",
+            "activity",
+        ] {
             assert!(t.contains(part), "missing {part} in\n{t}");
         }
         assert!(t.chars().any(|c| BARS.contains(&c)));

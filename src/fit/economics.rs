@@ -36,10 +36,8 @@ pub struct EconomicResult {
 /// positive and finite or the fitted activity at cycle 1 is not positive.
 pub fn economic_replacement(fit: &FitResult, inp: &EconomicInputs) -> Option<EconomicResult> {
     let ok = |v: f64| v.is_finite() && v >= 0.0;
-    if !(ok(inp.lot_cost) && ok(inp.cost_per_cycle))
-        || !(inp.product_first_cycle > 0.0 && inp.product_first_cycle.is_finite())
-        || inp.max_cycles == 0
-    {
+    let product_ok = inp.product_first_cycle > 0.0 && inp.product_first_cycle.is_finite();
+    if !(ok(inp.lot_cost) && ok(inp.cost_per_cycle) && product_ok) || inp.max_cycles == 0 {
         return None;
     }
     let y1 = fit.predict(1.0);
@@ -93,10 +91,21 @@ mod tests {
             let prod = 100.0 * (1.0 - q.powi(n as i32)) / (1.0 - q);
             (5000.0 + 300.0 * n as f64) / prod
         };
-        let want = (1..=200).min_by(|&a, &b| avg(a).total_cmp(&avg(b))).unwrap_or(0);
+        let want = (1..=200)
+            .min_by(|&a, &b| avg(a).total_cmp(&avg(b)))
+            .unwrap_or(0);
         assert_eq!(r.best_cycles, want);
         assert!((r.best_average_cost - avg(want)).abs() < 1e-6 * avg(want));
         assert!(!r.at_horizon);
-        assert!(economic_replacement(&f, &EconomicInputs { product_first_cycle: 0.0, ..inp }).is_none());
+        assert!(
+            economic_replacement(
+                &f,
+                &EconomicInputs {
+                    product_first_cycle: 0.0,
+                    ..inp
+                }
+            )
+            .is_none()
+        );
     }
 }

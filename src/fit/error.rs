@@ -25,10 +25,16 @@ pub enum FitError {
         known: String,
     },
     #[error("bounds for parameter {index} are empty or not numbers: [{lower}, {upper}]")]
-    BadBounds { index: usize, lower: f64, upper: f64 },
+    BadBounds {
+        index: usize,
+        lower: f64,
+        upper: f64,
+    },
     #[error("the model cannot be evaluated at the starting values (point {index})")]
     BadStart { index: usize },
-    #[error("unknown model '{0}' (known: linear, first-order, first-order-residual, second-order, power, two-site, plateau, auto)")]
+    #[error(
+        "unknown model '{0}' (known: linear, first-order, first-order-residual, second-order, power, two-site, plateau, auto)"
+    )]
     UnknownModel(String),
     #[error("start value '{0}' is not of the form name=number")]
     BadStartArg(String),

@@ -310,7 +310,7 @@ pub fn inverse_jtj(jac: &DMatrix<f64>) -> Option<Vec<Vec<f64>>> {
     let vt = svd.v_t?;
     let smax = svd.singular_values.max();
     let smin = svd.singular_values.min();
-    if !(smin > smax * 1e-14) {
+    if smin.is_nan() || smin <= smax * 1e-14 {
         return None;
     }
     let mut inv = vec![vec![0.0; p]; p];
@@ -460,7 +460,11 @@ pub fn levenberg_marquardt(
             match new_rss {
                 Some(new_rss) if new_rss < rss => {
                     let actual = rss - new_rss;
-                    let rho = if predicted > 0.0 { actual / predicted } else { 1.0 };
+                    let rho = if predicted > 0.0 {
+                        actual / predicted
+                    } else {
+                        1.0
+                    };
                     let old = rss;
                     p.copy_from_slice(&trial);
                     std::mem::swap(&mut r, &mut r_trial);

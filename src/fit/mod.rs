@@ -11,23 +11,26 @@
 //! - [`analysis`]: [`analyse`], the one call for the shell, and its serialisable result.
 //! - [`cli`]: CSV series reader, model/start argument parsing, JSON and text output.
 
+// Numerical kernels index several arrays in step; index loops say that most plainly.
+#![allow(clippy::needless_range_loop)]
+
 pub mod abrupt;
 pub mod analysis;
 pub mod choice;
 pub mod cli;
-pub mod engine;
 pub mod economics;
+pub mod engine;
 pub mod error;
 pub mod forecast;
 pub mod lm;
 pub mod models;
 pub mod start;
 
-pub use engine::{FitOptions, FitResult, fit_model};
-pub use error::{FitError, SeriesError};
-pub use lm::{Curve, FnCurve, LmOptions, LmOutcome, StopReason, levenberg_marquardt};
-pub use models::ModelId;
 pub use analysis::{AnalysisOptions, ENGINE_VERSION, LotAnalysis, LotSeries, analyse};
 pub use cli::{ModelArg, fit_json, parse_model_arg, parse_start_arg, read_series_csv, render_text};
 pub use economics::EconomicInputs;
+pub use engine::{FitOptions, FitResult, fit_model};
+pub use error::{FitError, SeriesError};
 pub use forecast::{Criterion, Forecast, ForecastStatus, forecast};
+pub use lm::{Curve, FnCurve, LmOptions, LmOutcome, StopReason, levenberg_marquardt};
+pub use models::ModelId;

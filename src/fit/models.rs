@@ -237,9 +237,7 @@ impl ModelId {
                     }
                 }
             }
-            ModelId::TwoSite => {
-                -p[1] * p[2] * (-p[2] * x).exp() - p[3] * p[4] * (-p[4] * x).exp()
-            }
+            ModelId::TwoSite => -p[1] * p[2] * (-p[2] * x).exp() - p[3] * p[4] * (-p[4] * x).exp(),
             ModelId::Plateau => p[0] * p[1] * (-p[1] * x).exp(),
         }
     }
@@ -322,11 +320,19 @@ mod tests {
                 numeric_gradient(&m, x, &p, &mut n);
                 for j in 0..p.len() {
                     let tol = 1e-6 * (1.0 + a[j].abs());
-                    assert!((a[j] - n[j]).abs() < tol, "{m} x={x} j={j}: {} vs {}", a[j], n[j]);
+                    assert!(
+                        (a[j] - n[j]).abs() < tol,
+                        "{m} x={x} j={j}: {} vs {}",
+                        a[j],
+                        n[j]
+                    );
                 }
                 let h = 1e-5;
                 let dx = (m.eval(x + h, &p) - m.eval(x - h, &p)) / (2.0 * h);
-                assert!((m.dydx(x, &p) - dx).abs() < 1e-6 * (1.0 + dx.abs()), "{m} dydx");
+                assert!(
+                    (m.dydx(x, &p) - dx).abs() < 1e-6 * (1.0 + dx.abs()),
+                    "{m} dydx"
+                );
             }
         }
     }

@@ -173,7 +173,10 @@ mod tests {
             let rate = *s.last().unwrap_or(&0.0);
             let true_rate = *p.last().unwrap_or(&0.0);
             // The grid spacing is a factor (2000)^(1/15) ≈ 1.66 between neighbours.
-            assert!(rate / true_rate < 1.7 && true_rate / rate < 1.7, "{m}: {s:?}");
+            assert!(
+                rate / true_rate < 1.7 && true_rate / rate < 1.7,
+                "{m}: {s:?}"
+            );
         }
     }
 

@@ -37,7 +37,12 @@ fn benches(c: &mut Criterion) {
     g.bench_function("10,000 lots, first-order-residual", |b| {
         b.iter(|| {
             for l in &lots {
-                let f = fit_model(ModelId::FirstOrderResidual, &l.x, &l.y, &FitOptions::default());
+                let f = fit_model(
+                    ModelId::FirstOrderResidual,
+                    &l.x,
+                    &l.y,
+                    &FitOptions::default(),
+                );
                 black_box(f.ok());
             }
         })

@@ -111,6 +111,12 @@ fn check_engine(name: &str, curve: &dyn Curve) {
             k + 1,
             out.reason
         );
+        eprintln!(
+            "{name} start {}: {} iterations, {:?}",
+            k + 1,
+            out.iterations,
+            out.reason
+        );
         let (_, se) = covariance_of(&out, d.x.len());
         let se = se.unwrap_or_else(|| panic!("{name}: singular covariance"));
         let tag = format!("{name} (NIST StRD certified) start {}", k + 1);

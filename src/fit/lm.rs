@@ -91,6 +91,11 @@ pub struct LmOptions {
     pub bounds: Vec<(f64, f64)>,
     /// Use geodesic acceleration (one extra model evaluation per trial step).
     pub geodesic: bool,
+    /// Give up as [`StopReason::Stalled`] when `stall_window` iterations together reduce
+    /// RSS by less than `stall_rtol` (relative); 0 disables. This ends, cheaply and
+    /// honestly, the drift of a poorly determined model along a flat valley.
+    pub stall_window: usize,
+    pub stall_rtol: f64,
 }
 
 impl Default for LmOptions {
@@ -102,6 +107,8 @@ impl Default for LmOptions {
             gtol: 1e-13,
             bounds: Vec::new(),
             geodesic: true,
+            stall_window: 40,
+            stall_rtol: 1e-10,
         }
     }
 }
@@ -124,6 +131,8 @@ pub enum StopReason {
     NoReductionPossible,
     /// The Jacobian is not finite at the current point.
     NonFiniteJacobian,
+    /// Many iterations brought no meaningful reduction of RSS: a flat valley.
+    Stalled,
 }
 
 impl StopReason {
@@ -147,6 +156,7 @@ impl StopReason {
             StopReason::MaxIterations => "iteration limit reached",
             StopReason::NoReductionPossible => "no step reduces RSS (flat or singular problem)",
             StopReason::NonFiniteJacobian => "model derivatives are not finite",
+            StopReason::Stalled => "no progress along a flat valley (poorly determined model)",
         }
     }
 }
@@ -366,8 +376,16 @@ pub fn levenberg_marquardt(
     let mut trial = vec![0.0; np];
     let mut probe = vec![0.0; np];
 
+    let mut checkpoint = rss;
     'outer: while iterations < opts.max_iterations {
         iterations += 1;
+        if opts.stall_window > 0 && iterations % opts.stall_window == 0 {
+            if checkpoint - rss <= opts.stall_rtol * checkpoint {
+                reason = StopReason::Stalled;
+                break;
+            }
+            checkpoint = rss;
+        }
         if rss == 0.0 {
             reason = StopReason::ExactFit;
             break;

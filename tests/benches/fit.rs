@@ -8,6 +8,7 @@ use criterion::{Criterion, criterion_group, criterion_main};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
+use turnbook::fit::start::start_values;
 use turnbook::fit::{AnalysisOptions, FitOptions, LotSeries, ModelId, analyse, fit_model};
 
 fn lot(rng: &mut ChaCha8Rng, n: usize) -> LotSeries {
@@ -31,6 +32,16 @@ fn benches(c: &mut Criterion) {
     c.bench_function("analyse 40-cycle lot, all models", |b| {
         b.iter(|| black_box(analyse(black_box(&one), &opts)))
     });
+    let mut per_model = c.benchmark_group("one model, 40 cycles");
+    for m in ModelId::ALL {
+        per_model.bench_function(format!("start {m}"), |b| {
+            b.iter(|| black_box(start_values(m, black_box(&one.x), black_box(&one.y))))
+        });
+        per_model.bench_function(format!("fit {m}"), |b| {
+            b.iter(|| black_box(fit_model(m, &one.x, &one.y, &FitOptions::default()).ok()))
+        });
+    }
+    per_model.finish();
     let lots: Vec<LotSeries> = (0..10_000).map(|_| lot(&mut rng, 40)).collect();
     let mut g = c.benchmark_group("refit");
     g.sample_size(10);

@@ -3,6 +3,8 @@
 //! Certified parameters, standard deviations and RSS are read from the files' headers and
 //! must be matched to at least 6 significant digits from both NIST starting points.
 
+#![allow(clippy::needless_range_loop)]
+
 use turnbook::fit::lm::{Curve, FnCurve, LmOptions, levenberg_marquardt};
 use turnbook::fit::models::{bennett_from_power, power_from_bennett};
 use turnbook::fit::{FitOptions, ModelId, engine::covariance_of, fit_model};
@@ -107,6 +109,12 @@ fn check_engine(name: &str, curve: &dyn Curve) {
             out.reason.is_converged(),
             "{name} start {}: {:?}",
             k + 1,
+            out.reason
+        );
+        eprintln!(
+            "{name} start {}: {} iterations, {:?}",
+            k + 1,
+            out.iterations,
             out.reason
         );
         let (_, se) = covariance_of(&out, d.x.len());

@@ -13,6 +13,7 @@ use super::choice::{Candidate, choose};
 use super::economics::{EconomicInputs, EconomicResult, economic_replacement};
 use super::engine::{FitOptions, FitResult, fit_model};
 use super::forecast::{Criterion, Forecast, ForecastStatus, forecast, lifetime_ton, t_quantile};
+use super::lm::LmOptions;
 use super::models::ModelId;
 
 /// Version of the numerical engine, stored beside each analysis so that a stored result
@@ -47,6 +48,8 @@ pub struct AnalysisOptions {
     pub economics: Option<EconomicInputs>,
     /// Points of the plot grid.
     pub grid_points: usize,
+    /// Iteration limit per candidate fit.
+    pub max_iterations: usize,
 }
 
 impl Default for AnalysisOptions {
@@ -60,6 +63,7 @@ impl Default for AnalysisOptions {
             cusum_h: 4.5,
             economics: None,
             grid_points: 80,
+            max_iterations: 200,
         }
     }
 }
@@ -181,7 +185,15 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         notes,
     };
 
-    let fit_opts = FitOptions::default();
+    // A lot's candidate that needs more than this is wandering along a degenerate valley
+    // (e.g. two sites collapsing into one); it is reported as not converged instead.
+    let fit_opts = FitOptions {
+        lm: LmOptions {
+            max_iterations: opts.max_iterations,
+            ..LmOptions::default()
+        },
+        ..FitOptions::default()
+    };
     let mut fits: Vec<(ModelId, Result<FitResult, String>)> = Vec::new();
     for &m in &opts.candidates {
         let r = if fx.len() <= m.n_params() + 1 {
@@ -269,13 +281,13 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
 
     let (x_first, x_last) = (fx[0], fx[fx.len() - 1]);
     let mut fc = forecast(fit, opts.criterion, opts.confidence, x_first, x_last);
-    if pts.iter().any(|p| p.3.is_some()) {
-        if let Some(xs) = fc.x {
-            let ax: Vec<f64> = pts.iter().map(|p| p.0).collect();
-            let ay: Vec<f64> = pts.iter().map(|p| p.1).collect();
-            let at: Vec<Option<f64>> = pts.iter().map(|p| p.3).collect();
-            fc.lifetime_ton = lifetime_ton(fit, &ax, &ay, &at, xs);
-        }
+    if pts.iter().any(|p| p.3.is_some())
+        && let Some(xs) = fc.x
+    {
+        let ax: Vec<f64> = pts.iter().map(|p| p.0).collect();
+        let ay: Vec<f64> = pts.iter().map(|p| p.1).collect();
+        let at: Vec<Option<f64>> = pts.iter().map(|p| p.3).collect();
+        fc.lifetime_ton = lifetime_ton(fit, &ax, &ay, &at, xs);
     }
 
     out.censored.above_fit = pts
@@ -294,7 +306,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
                 .cloned()
                 .zip(fit.params.iter().copied())
                 .collect(),
-            ..FitOptions::default()
+            ..fit_opts.clone()
         };
         fit_model(model, &fx[..k], &fy[..k], &opts_prev)
             .ok()

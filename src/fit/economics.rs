@@ -36,10 +36,8 @@ pub struct EconomicResult {
 /// positive and finite or the fitted activity at cycle 1 is not positive.
 pub fn economic_replacement(fit: &FitResult, inp: &EconomicInputs) -> Option<EconomicResult> {
     let ok = |v: f64| v.is_finite() && v >= 0.0;
-    if !(ok(inp.lot_cost) && ok(inp.cost_per_cycle))
-        || !(inp.product_first_cycle > 0.0 && inp.product_first_cycle.is_finite())
-        || inp.max_cycles == 0
-    {
+    let product_ok = inp.product_first_cycle > 0.0 && inp.product_first_cycle.is_finite();
+    if !(ok(inp.lot_cost) && ok(inp.cost_per_cycle) && product_ok) || inp.max_cycles == 0 {
         return None;
     }
     let y1 = fit.predict(1.0);

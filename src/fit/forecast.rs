@@ -184,7 +184,7 @@ pub fn forecast(
             }
             None => {
                 let slope = model.dydx(x_last, p);
-                fc.why_not = Some(if !(slope < 0.0) {
+                fc.why_not = Some(if slope.is_nan() || slope >= 0.0 {
                     NotReachedWhy::SlopeWrongSign
                 } else if model.asymptote(p).is_some_and(|a| a >= threshold) {
                     NotReachedWhy::AsymptoteAbove
@@ -226,16 +226,15 @@ pub fn forecast(
         // If even the upper confidence band of the curve stays above the criterion far out,
         // the data cannot exclude that it is never reached: the upper limit is unbounded.
         let far = x_last.max(xs) + 1e3 * span;
-        if let Some(v) = fit.mean_variance(far) {
-            if fit.predict(far) + t * v.sqrt() > threshold && criterion_is_absolute(criterion) {
-                fc.upper = None;
-            }
+        if let Some(v) = fit.mean_variance(far)
+            && criterion_is_absolute(criterion)
+            && fit.predict(far) + t * v.sqrt() > threshold
+        {
+            fc.upper = None;
         }
     }
-    if fc.lower.is_none() || fc.upper.is_none() {
-        if fc.status == ForecastStatus::Ahead {
-            fc.status = ForecastStatus::UnboundedInterval;
-        }
+    if (fc.lower.is_none() || fc.upper.is_none()) && fc.status == ForecastStatus::Ahead {
+        fc.status = ForecastStatus::UnboundedInterval;
     }
     fc
 }
@@ -381,6 +380,6 @@ mod tests {
         let total = lifetime_ton(&f, &x, &y, &ton, 12.5).expect("ton given");
         let want: f64 = (1..=12).map(|n| 100.0 * f.predict(f64::from(n))).sum();
         assert!((total - want).abs() < 1e-6 * want, "{total} vs {want}");
-        assert_eq!(lifetime_ton(&f, &x, &y, &vec![None; 10], 12.5), None);
+        assert_eq!(lifetime_ton(&f, &x, &y, &[None; 10], 12.5), None);
     }
 }

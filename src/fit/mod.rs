@@ -11,6 +11,9 @@
 //! - [`analysis`]: [`analyse`], the one call for the shell, and its serialisable result.
 //! - [`cli`]: CSV series reader, model/start argument parsing, JSON and text output.
 
+// Numerical kernels index several arrays in step; index loops say that most plainly.
+#![allow(clippy::needless_range_loop)]
+
 pub mod abrupt;
 pub mod analysis;
 pub mod choice;

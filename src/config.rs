@@ -228,9 +228,18 @@ impl Config {
 
     /// Parse and validate configuration text; `path` names it in errors.
     pub fn from_toml(text: &str, path: &Path, base: &Path) -> Result<Config, ConfigError> {
-        let mut cfg: Config = toml::from_str(text).map_err(|e| ConfigError::Syntax {
-            path: path.to_path_buf(),
-            message: e.to_string().trim().replace('\n', " | "),
+        let mut cfg: Config = toml::from_str(text).map_err(|e| {
+            // Name the line and column; toml's own rendering spans several lines.
+            let at = e.span().map(|span| {
+                let before = text.get(..span.start).unwrap_or(text);
+                let line = before.matches('\n').count() + 1;
+                let column = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
+                format!("line {line}, column {column}: ")
+            });
+            ConfigError::Syntax {
+                path: path.to_path_buf(),
+                message: format!("{}{}", at.unwrap_or_default(), e.message().trim()),
+            }
         })?;
         cfg.base_dir = base.to_path_buf();
         cfg.source = path.to_path_buf();

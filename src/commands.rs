@@ -21,8 +21,9 @@ pub struct Cli {
     /// Configuration file.
     #[arg(long, global = true, default_value = "turnbook.toml")]
     pub config: PathBuf,
-    /// Log as JSON lines (for journald or a log collector) instead of readable lines.
-    #[arg(long, global = true)]
+    /// Log as JSON lines (for journald or a log collector) instead of readable lines; also
+    /// set by TURNBOOK_LOG_JSON=true. RUST_LOG filters as usual.
+    #[arg(long, global = true, env = "TURNBOOK_LOG_JSON")]
     pub log_json: bool,
     #[command(subcommand)]
     pub command: Command,

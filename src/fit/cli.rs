@@ -242,8 +242,10 @@ pub fn render_text(a: &LotAnalysis) -> String {
         fit.dof
     );
     for (j, name) in fit.param_names.iter().enumerate() {
-        let v = fit.params[j];
-        let se = fit.std_errors.as_ref().map(|e| e[j]);
+        let Some(&v) = fit.params.get(j) else {
+            continue;
+        };
+        let se = fit.std_errors.as_ref().and_then(|e| e.get(j).copied());
         let interval = match (se, t) {
             (Some(se), Some(t)) => format!("[{}, {}]", fmt_g(v - t * se), fmt_g(v + t * se)),
             _ => "[—]".to_string(),

@@ -29,7 +29,7 @@ pub mod start;
 pub use analysis::{AnalysisOptions, ENGINE_VERSION, LotAnalysis, LotSeries, analyse};
 pub use cli::{ModelArg, fit_json, parse_model_arg, parse_start_arg, read_series_csv, render_text};
 pub use economics::EconomicInputs;
-pub use engine::{FitOptions, FitResult, fit_model};
+pub use engine::{FitOptions, FitResult, fit_model, fit_with_start};
 pub use error::{FitError, SeriesError};
 pub use forecast::{Criterion, Forecast, ForecastStatus, forecast};
 pub use lm::{Curve, FnCurve, LmOptions, LmOutcome, StopReason, levenberg_marquardt};

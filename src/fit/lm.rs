@@ -379,19 +379,21 @@ pub fn levenberg_marquardt(
     let mut probe = vec![0.0; np];
 
     let max_abs = |p: &[f64]| p.iter().fold(0.0f64, |m, v| m.max(v.abs()));
-    let mut checkpoint = (rss, max_abs(&p));
+    // (RSS, max |θ|) of the last `stall_window` iterations, compared with the oldest.
+    let mut history = std::collections::VecDeque::with_capacity(opts.stall_window + 1);
     'outer: while iterations < opts.max_iterations {
         iterations += 1;
-        if opts.stall_window > 0 && iterations % opts.stall_window == 0 {
-            let gain = checkpoint.0 - rss;
-            let growth = max_abs(&p) / checkpoint.1.max(1e-300);
-            if gain <= opts.stall_rtol * checkpoint.0
-                || (gain <= 1e-3 * checkpoint.0 && growth >= 1.5)
-            {
-                reason = StopReason::Stalled;
-                break;
+        if opts.stall_window > 0 {
+            history.push_back((rss, max_abs(&p)));
+            if history.len() > opts.stall_window {
+                let (old_rss, old_max): (f64, f64) = history.pop_front().unwrap_or((rss, 0.0));
+                let gain = old_rss - rss;
+                let growth = max_abs(&p) / old_max.max(1e-300);
+                if gain <= opts.stall_rtol * old_rss || (gain <= 1e-3 * old_rss && growth >= 1.5) {
+                    reason = StopReason::Stalled;
+                    break;
+                }
             }
-            checkpoint = (rss, max_abs(&p));
         }
         if rss == 0.0 {
             reason = StopReason::ExactFit;

@@ -346,7 +346,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     let np = opts.grid_points.clamp(2, 10_000);
     let t = t_quantile(opts.confidence, fit.dof);
     let mut plot = PlotData {
-        threshold: finite_or_none(fc.threshold),
+        threshold: fc.threshold,
         ..PlotData::default()
     };
     for i in 0..np {

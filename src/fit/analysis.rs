@@ -205,6 +205,17 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         } else {
             fit_model(m, &fx, &fy, &fit_opts).map_err(|e| e.to_string())
         };
+        match &r {
+            Ok(f) if !f.converged => {
+                tracing::debug!(
+                    model = m.id(),
+                    reason = f.reason.describe(),
+                    "fit not converged"
+                )
+            }
+            Err(e) => tracing::debug!(model = m.id(), error = %e, "fit not attempted"),
+            _ => {}
+        }
         fits.push((m, r));
     }
     let cands: Vec<Candidate> = fits

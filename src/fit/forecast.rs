@@ -226,6 +226,7 @@ pub fn forecast(
         fc.lower = Some(xs - t * se);
         fc.upper = Some(xs + t * se);
         // If even the upper confidence band of the curve stays above the criterion far out,
+        // (checked for absolute criteria, whose level does not move with θ)
         // the data cannot exclude that it is never reached: the upper limit is unbounded.
         let far = x_last.max(xs) + 1e3 * span;
         if let Some(v) = fit.mean_variance(far)

@@ -1,8 +1,8 @@
 //! Cross-check against an independent reference library: scipy.optimize.curve_fit
 //! (MINPACK Levenberg–Marquardt) fits the same seeded synthetic series for every model,
 //! from the same starting values; the optima must agree to 1e-6 relative, and the standard
-//! errors to 1e-4 (scipy's MINPACK differentiates by forward differences, ours
-//! analytically, so the Jacobians at the optimum differ in the 8th digit or so).
+//! errors to 1e-5 (scipy's MINPACK differentiates by forward differences, ours
+//! analytically; observed agreement 1e-8 to 1.4e-7 relative).
 //! Needs python3 with numpy and scipy: without them the test fails when the environment
 //! variable CI is set, and otherwise prints a skip notice.
 
@@ -88,7 +88,7 @@ fn every_model_agrees_with_scipy_curve_fit() {
         for (j, (a, b)) in se.iter().zip(&q.se).enumerate() {
             let rel = (a - b).abs() / b.abs().max(1e-300);
             assert!(
-                rel <= 1e-4,
+                rel <= 1e-5,
                 "{model} se({}): turnbook {a:.8e}, scipy {b:.8e} (rel {rel:.1e})",
                 model.param_names()[j]
             );

@@ -187,9 +187,14 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
 
     // A lot's candidate that needs more than this is wandering along a degenerate valley
     // (e.g. two sites collapsing into one); it is reported as not converged instead.
+    // Ten digits in the parameters are far more than a forecast can use, and the last
+    // digits of the NIST-grade defaults cost iterations on every lot.
     let fit_opts = FitOptions {
         lm: LmOptions {
             max_iterations: opts.max_iterations,
+            ftol: 1e-12,
+            xtol: 1e-10,
+            gtol: 1e-10,
             ..LmOptions::default()
         },
         ..FitOptions::default()

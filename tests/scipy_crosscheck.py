@@ -1,7 +1,8 @@
 """Independent check of turnbook's fits with scipy.optimize.curve_fit (MINPACK lmder/lmdif).
 
 Reads a JSON list of cases {"model", "x", "y", "start"} from the file named by argv[1] and
-prints a JSON list of fitted parameter vectors, in the same order as the cases.
+prints a JSON list of {"params", "se"} (standard errors from curve_fit's pcov, i.e.
+s^2 (J^T J)^-1), in the same order as the cases.
 """
 import json
 import sys
@@ -33,11 +34,14 @@ def main():
         f = MODELS[case["model"]]
         x = np.asarray(case["x"], dtype=float)
         y = np.asarray(case["y"], dtype=float)
-        popt, _ = curve_fit(
+        popt, pcov = curve_fit(
             f, x, y, p0=case["start"], method="lm",
             ftol=1e-15, xtol=1e-15, gtol=1e-15, maxfev=200000,
         )
-        out.append([float(v) for v in popt])
+        out.append({
+            "params": [float(v) for v in popt],
+            "se": [float(v) for v in np.sqrt(np.diag(pcov))],
+        })
     print(json.dumps(out))
 
 

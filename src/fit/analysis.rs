@@ -187,9 +187,14 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
 
     // A lot's candidate that needs more than this is wandering along a degenerate valley
     // (e.g. two sites collapsing into one); it is reported as not converged instead.
+    // Ten digits in the parameters are far more than a forecast can use, and the last
+    // digits of the NIST-grade defaults cost iterations on every lot.
     let fit_opts = FitOptions {
         lm: LmOptions {
             max_iterations: opts.max_iterations,
+            ftol: 1e-12,
+            xtol: 1e-10,
+            gtol: 1e-10,
             ..LmOptions::default()
         },
         ..FitOptions::default()
@@ -205,6 +210,17 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         } else {
             fit_model(m, &fx, &fy, &fit_opts).map_err(|e| e.to_string())
         };
+        match &r {
+            Ok(f) if !f.converged => {
+                tracing::debug!(
+                    model = m.id(),
+                    reason = f.reason.describe(),
+                    "fit not converged"
+                )
+            }
+            Err(e) => tracing::debug!(model = m.id(), error = %e, "fit not attempted"),
+            _ => {}
+        }
         fits.push((m, r));
     }
     let cands: Vec<Candidate> = fits
@@ -346,7 +362,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     let np = opts.grid_points.clamp(2, 10_000);
     let t = t_quantile(opts.confidence, fit.dof);
     let mut plot = PlotData {
-        threshold: finite_or_none(fc.threshold),
+        threshold: fc.threshold,
         ..PlotData::default()
     };
     for i in 0..np {

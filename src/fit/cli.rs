@@ -108,6 +108,7 @@ fn why_words(w: NotReachedWhy) -> &'static str {
         NotReachedWhy::AsymptoteAbove => "activity levels off above the criterion",
         NotReachedWhy::SlopeWrongSign => "activity is not falling",
         NotReachedWhy::BeyondHorizon => "not within a million spans of the data",
+        NotReachedWhy::UndefinedCriterion => "the criterion is not a finite number",
     }
 }
 
@@ -149,7 +150,7 @@ pub fn fit_json(fit: &FitResult, forecast: Option<&Forecast>) -> Value {
                 "lower": num(fc.lower),
                 "upper": num(fc.upper),
                 "status": status_word(fc.status),
-                "threshold": num(Some(fc.threshold)),
+                "threshold": num(fc.threshold),
                 "confidence": fc.confidence,
                 "why_not": fc.why_not.map(why_words),
                 "lifetime_ton": num(fc.lifetime_ton),
@@ -242,8 +243,10 @@ pub fn render_text(a: &LotAnalysis) -> String {
         fit.dof
     );
     for (j, name) in fit.param_names.iter().enumerate() {
-        let v = fit.params[j];
-        let se = fit.std_errors.as_ref().map(|e| e[j]);
+        let Some(&v) = fit.params.get(j) else {
+            continue;
+        };
+        let se = fit.std_errors.as_ref().and_then(|e| e.get(j).copied());
         let interval = match (se, t) {
             (Some(se), Some(t)) => format!("[{}, {}]", fmt_g(v - t * se), fmt_g(v + t * se)),
             _ => "[—]".to_string(),
@@ -261,7 +264,7 @@ pub fn render_text(a: &LotAnalysis) -> String {
         let _ = write!(
             s,
             "\nForecast (criterion y = {}): {}",
-            fmt_g(fc.threshold),
+            fc.threshold.map_or_else(|| "—".to_string(), fmt_g),
             status_word(fc.status)
         );
         match fc.x {

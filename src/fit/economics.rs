@@ -6,6 +6,9 @@ use serde::{Deserialize, Serialize};
 
 use super::engine::FitResult;
 
+/// Upper limit of the policy horizon, so that a wild input cannot exhaust memory.
+pub const MAX_CYCLES: usize = 100_000;
+
 /// Costs of a lot and its use.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct EconomicInputs {
@@ -15,7 +18,7 @@ pub struct EconomicInputs {
     pub cost_per_cycle: f64,
     /// Product of the first cycle P₁ (e.g. kg).
     pub product_first_cycle: f64,
-    /// Largest N considered.
+    /// Largest N considered (capped at [`MAX_CYCLES`]).
     pub max_cycles: usize,
 }
 
@@ -46,7 +49,7 @@ pub fn economic_replacement(fit: &FitResult, inp: &EconomicInputs) -> Option<Eco
     }
     let mut total_product = 0.0;
     let mut average_cost = Vec::new();
-    for n in 1..=inp.max_cycles {
+    for n in 1..=inp.max_cycles.min(MAX_CYCLES) {
         let y = fit.predict(n as f64);
         let pn = inp.product_first_cycle * y / y1;
         // A cycle with no fitted activity makes no product: stop the policy there.

@@ -65,8 +65,11 @@ impl FitResult {
     }
 }
 
-/// gᵀΣg.
+/// gᵀΣg; NaN when the dimensions disagree.
 pub fn quad_form(cov: &[Vec<f64>], g: &[f64]) -> f64 {
+    if cov.len() != g.len() || cov.iter().any(|row| row.len() != g.len()) {
+        return f64::NAN;
+    }
     let mut s = 0.0;
     for (i, gi) in g.iter().enumerate() {
         for (j, gj) in g.iter().enumerate() {
@@ -96,6 +99,21 @@ pub fn covariance_of(out: &LmOutcome, n: usize) -> (Option<Vec<Vec<f64>>>, Optio
     } else {
         (None, None)
     }
+}
+
+/// Fits `model` with start values by name (`--start kd=0.1` on the command line); the
+/// parameters not named start automatically.
+pub fn fit_with_start(
+    model: ModelId,
+    x: &[f64],
+    y: &[f64],
+    start: &[(String, f64)],
+) -> Result<FitResult, FitError> {
+    let opts = FitOptions {
+        start: start.to_vec(),
+        ..FitOptions::default()
+    };
+    fit_model(model, x, y, &opts)
 }
 
 /// Fits `model` to (x, y).
@@ -140,5 +158,62 @@ pub fn result_from(model: ModelId, out: &LmOutcome, n: usize) -> FitResult {
         converged: out.reason.is_converged(),
         reason: out.reason,
         iterations: out.iterations,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn data() -> (Vec<f64>, Vec<f64>) {
+        let x: Vec<f64> = (1..=12).map(f64::from).collect();
+        let y = x
+            .iter()
+            .map(|&v| (-0.07 * v).exp() + 0.01 * (v * 2.3).sin())
+            .collect();
+        (x, y)
+    }
+
+    #[test]
+    fn integer_weights_equal_duplicated_points() {
+        // Weighted least squares with weight 2 on a point is the unweighted problem with
+        // that point given twice (definition of weighted least squares).
+        let (x, y) = data();
+        let mut w = vec![1.0; x.len()];
+        w[3] = 2.0;
+        let weighted = FitOptions {
+            weights: Some(w),
+            ..FitOptions::default()
+        };
+        let a = fit_model(ModelId::FirstOrder, &x, &y, &weighted).expect("fit");
+        let (mut x2, mut y2) = (x.clone(), y.clone());
+        x2.push(x[3]);
+        y2.push(y[3]);
+        let b = fit_model(ModelId::FirstOrder, &x2, &y2, &FitOptions::default()).expect("fit");
+        for j in 0..2 {
+            assert!((a.params[j] - b.params[j]).abs() < 1e-10 * b.params[j].abs());
+        }
+        assert!((a.rss - b.rss).abs() < 1e-12 * b.rss.max(1e-300));
+        let u = fit_model(ModelId::FirstOrder, &x, &y, &FitOptions::default()).expect("fit");
+        assert!(
+            (u.params[1] - a.params[1]).abs() > 1e-9,
+            "weights must matter"
+        );
+    }
+
+    #[test]
+    fn named_starts_and_bounds() {
+        let (x, y) = data();
+        let f = fit_with_start(ModelId::FirstOrder, &x, &y, &[("kd".into(), 0.5)]).expect("fit");
+        assert!(f.converged);
+        assert!((f.param("kd").unwrap_or(0.0) - 0.07).abs() < 0.01);
+        let bad = fit_with_start(ModelId::FirstOrder, &x, &y, &[("k".into(), 0.5)]);
+        assert!(matches!(bad, Err(FitError::UnknownParameter { .. })));
+        let bounded = FitOptions {
+            bounds: vec![("kd".into(), 0.0, 0.05)],
+            ..FitOptions::default()
+        };
+        let b = fit_model(ModelId::FirstOrder, &x, &y, &bounded).expect("fit");
+        assert!(b.param("kd").is_some_and(|k| k <= 0.05));
     }
 }

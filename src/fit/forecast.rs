@@ -46,6 +46,8 @@ pub enum NotReachedWhy {
     SlopeWrongSign,
     /// Falling, but not within 10⁶ spans of the observed x range.
     BeyondHorizon,
+    /// The criterion itself is not a finite number (e.g. a fraction of a non-finite y(0)).
+    UndefinedCriterion,
 }
 
 /// A forecast of the replacement point.
@@ -53,8 +55,8 @@ pub enum NotReachedWhy {
 pub struct Forecast {
     pub status: ForecastStatus,
     pub why_not: Option<NotReachedWhy>,
-    /// The activity value that triggers replacement.
-    pub threshold: f64,
+    /// The activity value that triggers replacement (None if not finite).
+    pub threshold: Option<f64>,
     /// x* (None when not reached).
     pub x: Option<f64>,
     /// Lower and upper interval limits; None means unbounded on that side.
@@ -149,7 +151,7 @@ pub fn forecast(
     let mut fc = Forecast {
         status: ForecastStatus::NotReached,
         why_not: None,
-        threshold,
+        threshold: threshold.is_finite().then_some(threshold),
         x: None,
         lower: None,
         upper: None,
@@ -159,7 +161,7 @@ pub fn forecast(
         lifetime_ton: None,
     };
     if !threshold.is_finite() {
-        fc.why_not = Some(NotReachedWhy::AsymptoteAbove);
+        fc.why_not = Some(NotReachedWhy::UndefinedCriterion);
         return fc;
     }
     let span = if x_last > x_first {
@@ -224,6 +226,7 @@ pub fn forecast(
         fc.lower = Some(xs - t * se);
         fc.upper = Some(xs + t * se);
         // If even the upper confidence band of the curve stays above the criterion far out,
+        // (checked for absolute criteria, whose level does not move with θ)
         // the data cannot exclude that it is never reached: the upper limit is unbounded.
         let far = x_last.max(xs) + 1e3 * span;
         if let Some(v) = fit.mean_variance(far)
@@ -363,8 +366,8 @@ mod tests {
 
     #[test]
     fn t_quantile_matches_tables() {
-        // Student t, two-sided 90 %: t(0.95; 10) = 1.812461 (NIST/SEMATECH e-Handbook
-        // table of critical values).
+        // Student t, two-sided 90 %: t(0.95; 10) = 1.8124611 (scipy.stats.t.ppf(0.95, 10),
+        // scipy 1.17 as the reference library).
         let t = t_quantile(0.90, 10).expect("defined");
         assert!((t - 1.812461).abs() < 1e-5, "{t}");
         assert_eq!(t_quantile(0.9, 0), None);

@@ -91,6 +91,10 @@ pub struct LmOptions {
     pub bounds: Vec<(f64, f64)>,
     /// Use geodesic acceleration (one extra model evaluation per trial step).
     pub geodesic: bool,
+    /// Iterations of plain LM before geodesic acceleration starts: most fits converge in
+    /// a handful of iterations without it, at half the evaluations; long curved valleys
+    /// (NIST Bennett5) then get it.
+    pub geodesic_after: usize,
     /// Give up as [`StopReason::Stalled`] when `stall_window` iterations together reduce
     /// RSS by less than `stall_rtol` (relative), or by less than 10⁻³ while the largest
     /// |parameter| grows by half or more; 0 disables. This ends, cheaply and honestly, the drift
@@ -109,6 +113,7 @@ impl Default for LmOptions {
             gtol: 1e-13,
             bounds: Vec::new(),
             geodesic: true,
+            geodesic_after: 6,
             stall_window: 25,
             stall_rtol: 1e-10,
         }
@@ -379,19 +384,21 @@ pub fn levenberg_marquardt(
     let mut probe = vec![0.0; np];
 
     let max_abs = |p: &[f64]| p.iter().fold(0.0f64, |m, v| m.max(v.abs()));
-    let mut checkpoint = (rss, max_abs(&p));
+    // (RSS, max |θ|) of the last `stall_window` iterations, compared with the oldest.
+    let mut history = std::collections::VecDeque::with_capacity(opts.stall_window + 1);
     'outer: while iterations < opts.max_iterations {
         iterations += 1;
-        if opts.stall_window > 0 && iterations % opts.stall_window == 0 {
-            let gain = checkpoint.0 - rss;
-            let growth = max_abs(&p) / checkpoint.1.max(1e-300);
-            if gain <= opts.stall_rtol * checkpoint.0
-                || (gain <= 1e-3 * checkpoint.0 && growth >= 1.5)
-            {
-                reason = StopReason::Stalled;
-                break;
+        if opts.stall_window > 0 {
+            history.push_back((rss, max_abs(&p)));
+            if history.len() > opts.stall_window {
+                let (old_rss, old_max): (f64, f64) = history.pop_front().unwrap_or((rss, 0.0));
+                let gain = old_rss - rss;
+                let growth = max_abs(&p) / old_max.max(1e-300);
+                if gain <= opts.stall_rtol * old_rss || (gain <= 1e-3 * old_rss && growth >= 1.5) {
+                    reason = StopReason::Stalled;
+                    break;
+                }
             }
-            checkpoint = (rss, max_abs(&p));
         }
         if rss == 0.0 {
             reason = StopReason::ExactFit;
@@ -439,7 +446,7 @@ pub fn levenberg_marquardt(
             // Geodesic acceleration: correct the step with the second directional derivative
             // of the residuals along δ, estimated by one finite difference.
             let mut step = delta.clone();
-            if opts.geodesic {
+            if opts.geodesic && iterations > opts.geodesic_after {
                 let h = 0.1;
                 for j in 0..np {
                     probe[j] = p[j] + h * delta[j];
@@ -585,6 +592,10 @@ mod tests {
             levenberg_marquardt(&m, &x, &y, None, &start, &LmOptions::default()).expect("valid");
         assert_eq!(out.reason, StopReason::Stalled, "{out:?}");
         assert!(!out.reason.is_converged());
+        eprintln!(
+            "two-site runaway stopped after {} iterations",
+            out.iterations
+        );
         assert!(out.iterations < 300, "{}", out.iterations);
         let off = LmOptions {
             stall_window: 0,

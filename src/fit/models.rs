@@ -120,6 +120,9 @@ impl ModelId {
 
     /// y(x; p). Returns NaN where the model is undefined (power law with 1 + (m−1)kd·x ≤ 0).
     pub fn eval(self, x: f64, p: &[f64]) -> f64 {
+        if p.len() < self.n_params() {
+            return f64::NAN;
+        }
         match self {
             ModelId::Linear => p[0] - p[1] * x,
             ModelId::FirstOrder => p[0] * (-p[1] * x).exp(),
@@ -148,6 +151,12 @@ impl ModelId {
 
     /// ∂y/∂θ at x into `out`.
     pub fn grad(self, x: f64, p: &[f64], out: &mut [f64]) {
+        // A parameter vector of the wrong length (e.g. from a hand-edited JSON) gives NaN,
+        // never an index panic.
+        if p.len() < self.n_params() || out.len() < self.n_params() {
+            out.iter_mut().for_each(|v| *v = f64::NAN);
+            return;
+        }
         match self {
             ModelId::Linear => {
                 out[0] = 1.0;
@@ -215,6 +224,9 @@ impl ModelId {
 
     /// ∂y/∂x, used by the forecast's delta method.
     pub fn dydx(self, x: f64, p: &[f64]) -> f64 {
+        if p.len() < self.n_params() {
+            return f64::NAN;
+        }
         match self {
             ModelId::Linear => -p[1],
             ModelId::FirstOrder => -p[0] * p[1] * (-p[1] * x).exp(),
@@ -244,6 +256,9 @@ impl ModelId {
 
     /// y as x → ∞, when the model has a finite limit for these parameters.
     pub fn asymptote(self, p: &[f64]) -> Option<f64> {
+        if p.len() < self.n_params() {
+            return None;
+        }
         match self {
             ModelId::Linear => (p[1] == 0.0).then_some(p[0]),
             ModelId::FirstOrder | ModelId::SecondOrder => (p[1] > 0.0).then_some(0.0),
@@ -364,6 +379,18 @@ mod tests {
         assert!((c1 - b1).abs() < 1e-9 * b1.abs());
         assert!((c2 - b2).abs() < 1e-12 * b2);
         assert!((c3 - b3).abs() < 1e-12);
+    }
+
+    #[test]
+    fn wrong_length_parameters_give_nan_not_panic() {
+        for m in ModelId::ALL {
+            assert!(m.eval(1.0, &[1.0]).is_nan());
+            assert!(m.dydx(1.0, &[]).is_nan());
+            let mut out = [0.0; 1];
+            m.grad(1.0, &[1.0], &mut out);
+            assert!(out[0].is_nan());
+            assert_eq!(m.asymptote(&[]), None);
+        }
     }
 
     #[test]

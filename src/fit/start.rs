@@ -26,14 +26,14 @@ fn linear_fit(
     x: &[f64],
     y: &[f64],
     k: usize,
-    basis: impl Fn(f64, &mut [f64; 3]),
+    basis: impl Fn(usize, f64, &mut [f64; 3]),
 ) -> Option<([f64; 3], f64)> {
     let mut a = [[0.0f64; 4]; 3];
     let mut b = [0.0f64; 3];
     let mut yty = 0.0;
-    for (&xi, &yi) in x.iter().zip(y) {
+    for (i, (&xi, &yi)) in x.iter().zip(y).enumerate() {
         yty += yi * yi;
-        basis(xi, &mut b);
+        basis(i, xi, &mut b);
         for r in 0..k {
             for c in 0..k {
                 a[r][c] += b[r] * b[c];
@@ -95,24 +95,24 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
     };
     let grid = rate_grid(span, 16);
     let found: Option<Vec<f64>> = match model {
-        ModelId::Linear => linear_fit(x, y, 2, |x, b| {
+        ModelId::Linear => linear_fit(x, y, 2, |_, x, b| {
             b[0] = 1.0;
             b[1] = -x;
         })
         .map(|(c, _)| vec![c[0], c[1]]),
         ModelId::FirstOrder => best(grid.iter().map(|&kd| {
-            linear_fit(x, y, 1, |x, b| b[0] = (-kd * x).exp()).map(|(c, r)| (vec![c[0], kd], r))
+            linear_fit(x, y, 1, |_, x, b| b[0] = (-kd * x).exp()).map(|(c, r)| (vec![c[0], kd], r))
         })),
         ModelId::SecondOrder => best(grid.iter().map(|&kd| {
-            linear_fit(x, y, 1, |x, b| b[0] = 1.0 / (1.0 + kd * x))
+            linear_fit(x, y, 1, |_, x, b| b[0] = 1.0 / (1.0 + kd * x))
                 .map(|(c, r)| (vec![c[0], kd], r))
         })),
         ModelId::Plateau => best(grid.iter().map(|&kd| {
-            linear_fit(x, y, 1, |x, b| b[0] = 1.0 - (-kd * x).exp())
+            linear_fit(x, y, 1, |_, x, b| b[0] = 1.0 - (-kd * x).exp())
                 .map(|(c, r)| (vec![c[0], kd], r))
         })),
         ModelId::FirstOrderResidual => best(grid.iter().map(|&kd| {
-            linear_fit(x, y, 2, |x, b| {
+            linear_fit(x, y, 2, |_, x, b| {
                 let e = (-kd * x).exp();
                 b[0] = e;
                 b[1] = 1.0 - e;
@@ -124,7 +124,7 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
             best(grid.iter().flat_map(|&kd| {
                 [1.5, 2.0, 3.0].into_iter().map(move |m| {
                     let s: f64 = m - 1.0;
-                    linear_fit(x, y, 1, |x, b| {
+                    linear_fit(x, y, 1, |_, x, b| {
                         let u = 1.0 + s * kd * x;
                         b[0] = if m == 1.5 {
                             1.0 / (u * u)
@@ -140,12 +140,18 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
         }
         ModelId::TwoSite => {
             let coarse = rate_grid(span, 9);
+            // exp(−k·xᵢ) once per rate and point, shared by every pair of rates.
+            let table: Vec<Vec<f64>> = coarse
+                .iter()
+                .map(|&k| x.iter().map(|&xi| (-k * xi).exp()).collect())
+                .collect();
+            let table = &table;
             best(coarse.iter().enumerate().flat_map(|(i, &k1)| {
-                coarse[..i].iter().map(move |&k2| {
-                    linear_fit(x, y, 3, |x, b| {
+                coarse[..i].iter().enumerate().map(move |(j, &k2)| {
+                    linear_fit(x, y, 3, |n, _, b| {
                         b[0] = 1.0;
-                        b[1] = (-k1 * x).exp();
-                        b[2] = (-k2 * x).exp();
+                        b[1] = table[i][n];
+                        b[2] = table[j][n];
                     })
                     .map(|(c, r)| (vec![c[0], c[1], k1, c[2], k2], r))
                 })

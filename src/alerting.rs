@@ -57,7 +57,7 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
         .and_then(|a| {
             a.forecast
                 .as_ref()
-                .map(|f| f.threshold)
+                .and_then(|f| f.threshold)
                 .or(a.plot.as_ref().and_then(|p| p.threshold))
         })
         .unwrap_or(f64::NAN);

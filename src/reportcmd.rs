@@ -93,7 +93,7 @@ fn fit_summary(cfg: &Config, a: &fit::LotAnalysis) -> Option<report::FitSummary>
         threshold: a
             .forecast
             .as_ref()
-            .map(|f| f.threshold)
+            .and_then(|f| f.threshold)
             .or(plot.and_then(|p| p.threshold)),
         forecast: a.forecast.as_ref().map(report_forecast),
     })
@@ -298,7 +298,9 @@ pub fn build_site(
                 .iter()
                 .filter_map(|c| c.metrics.as_ref().and_then(|m| m.activity))
                 .collect(),
-            threshold: a.and_then(|a| a.forecast.as_ref()).map(|f| f.threshold),
+            threshold: a
+                .and_then(|a| a.forecast.as_ref())
+                .and_then(|f| f.threshold),
         });
     }
     Ok(report::SiteReport {

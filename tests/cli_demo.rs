@@ -70,7 +70,11 @@ fn demo_writes_plant_database_alerts_and_reports_and_refuses_a_used_folder() {
     assert!(!reports.is_empty());
     for r in &reports {
         let html = std::fs::read_to_string(r).unwrap();
-        assert!(html.contains("<html") && html.contains("</html>"), "{}", r.display());
+        assert!(
+            html.contains("<html") && html.contains("</html>"),
+            "{}",
+            r.display()
+        );
     }
 
     let cfg = dir.join("turnbook.toml");
@@ -93,7 +97,11 @@ fn demo_writes_plant_database_alerts_and_reports_and_refuses_a_used_folder() {
     // A second demo into the same, now non-empty folder is a usage error.
     let out = turnbook(&["demo", "--dir", d, "--no-live"]);
     assert_eq!(out.status.code(), Some(2), "stderr: {}", text(&out.stderr));
-    assert!(text(&out.stderr).contains("not empty"), "{}", text(&out.stderr));
+    assert!(
+        text(&out.stderr).contains("not empty"),
+        "{}",
+        text(&out.stderr)
+    );
 }
 
 #[test]
@@ -143,7 +151,10 @@ fn second_backfill_adds_nothing_and_reports_every_file_as_a_duplicate() {
     );
     // Each duplicate names the file it repeats, through its event.
     assert_eq!(
-        count(&db, "SELECT COUNT(*) FROM events WHERE kind = 'file-duplicate'") - dup_before,
+        count(
+            &db,
+            "SELECT COUNT(*) FROM events WHERE kind = 'file-duplicate'"
+        ) - dup_before,
         n
     );
     let out = turnbook(&["--config", cfg.to_str().unwrap(), "verify"]);

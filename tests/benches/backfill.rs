@@ -80,7 +80,10 @@ fn main() {
     write_exports(&exports, n).expect("write the export files");
     let cfg_path = root.join("turnbook.toml");
     std::fs::write(&cfg_path, CONFIG).expect("write the configuration");
-    println!("backfill: wrote {n} files in {:.2} s", t.elapsed().as_secs_f64());
+    println!(
+        "backfill: wrote {n} files in {:.2} s",
+        t.elapsed().as_secs_f64()
+    );
 
     let mut files: Vec<PathBuf> = Vec::new();
     pipeline::collect_files(&exports, &mut files).expect("list the files");
@@ -114,7 +117,12 @@ fn main() {
         .expect("ingest");
     let total = t.elapsed().as_secs_f64();
     let recompute = last.elapsed().as_secs_f64();
-    assert_eq!(summary.ingested, n, "every file ingested: {:?}", summary.errors.first());
+    assert_eq!(
+        summary.ingested,
+        n,
+        "every file ingested: {:?}",
+        summary.errors.first()
+    );
     assert_eq!(summary.rejected, 0);
     let cycles: i64 = ing
         .conn()

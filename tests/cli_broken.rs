@@ -450,7 +450,7 @@ fn good_files_are_ingested_and_each_broken_one_is_named_with_its_reason() {
     assert_eq!(copies.len(), n_bad);
     for b in &bad {
         assert!(
-            copies.iter().any(|c| *c == b.bytes),
+            copies.contains(&b.bytes),
             "no quarantine copy of {:?}",
             b.name
         );

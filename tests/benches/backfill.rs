@@ -43,6 +43,24 @@ fn vm_hwm_kib() -> Option<u64> {
     line.split_whitespace().nth(1)?.parse().ok()
 }
 
+/// CPU seconds (user + system) of `/proc/<which>/stat`: "self" for the process,
+/// "thread-self" for the calling thread (here the single database writer).
+fn cpu_secs(which: &str) -> f64 {
+    let Ok(s) = std::fs::read_to_string(format!("/proc/{which}/stat")) else {
+        return f64::NAN;
+    };
+    // Fields after the command name, which is in parentheses and may hold spaces.
+    let rest = s.rsplit_once(')').map_or("", |(_, r)| r);
+    let f: Vec<&str> = rest.split_whitespace().collect();
+    let ticks = |i: usize| {
+        f.get(i)
+            .and_then(|v| v.parse::<f64>().ok())
+            .unwrap_or(f64::NAN)
+    };
+    // utime and stime are fields 14 and 15 of stat, 12 and 13 after the name; 100 ticks/s.
+    (ticks(11) + ticks(12)) / 100.0
+}
+
 fn write_exports(dir: &Path, n: usize) -> std::io::Result<()> {
     // 100 files a subfolder keeps directory listings short.
     for i in 0..n {
@@ -102,6 +120,7 @@ fn main() {
 
     let cfg = Config::load(&cfg_path).expect("load the configuration");
     let mut ing = Ingestor::open(cfg).expect("open the database");
+    let (proc0, thread0) = (cpu_secs("self"), cpu_secs("thread-self"));
     let t = Instant::now();
     let mut last = t;
     let mut store_secs = 0.0;
@@ -116,6 +135,7 @@ fn main() {
         })
         .expect("ingest");
     let total = t.elapsed().as_secs_f64();
+    let (proc_cpu, writer_cpu) = (cpu_secs("self") - proc0, cpu_secs("thread-self") - thread0);
     let recompute = last.elapsed().as_secs_f64();
     assert_eq!(
         summary.ingested,
@@ -136,6 +156,11 @@ fn main() {
         bytes as f64 / 1e6,
         n as f64 / total,
         n as f64 / store_secs
+    );
+    println!(
+        "backfill: CPU {proc_cpu:.2} s in all threads, {writer_cpu:.2} s in the writer \
+         ({:.1} us a file, recompute included)",
+        writer_cpu * 1e6 / n as f64
     );
     println!(
         "backfill: peak RSS (VmHWM) {:.1} MB (before ingesting {:.1} MB)",

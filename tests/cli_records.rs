@@ -369,9 +369,19 @@ fn record_verbs_keep_history_and_signoffs_honest() {
 
     // fit LOT --json: the excluded cycle is left out, a model is chosen.
     let fit = plant.json(&["fit", LOT, "--json"]);
-    assert!(fit.is_object(), "{fit}");
-    let s = fit.to_string();
-    assert!(s.contains("\"model\""), "{s}");
+    assert_eq!(fit["lot"], LOT);
+    assert!(fit["model"].is_string() && fit["converged"].is_boolean());
+    assert!(fit["forecast"].is_object());
+    // The excluded cycle (number 5) is neither fitted nor among the observed points.
+    assert_eq!(fit["n_points"].as_i64(), Some(n_db - 1));
+    let xs: Vec<f64> = fit["observed"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| p[0].as_f64().unwrap())
+        .collect();
+    assert_eq!(xs.len() as i64, n_db - 1);
+    assert!(!xs.contains(&5.0), "{xs:?}");
     plant.ok(&["verify"]);
 }
 

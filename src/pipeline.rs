@@ -7,6 +7,7 @@
 
 use std::collections::{BTreeSet, HashMap};
 use std::path::{Path, PathBuf};
+use std::sync::mpsc;
 
 use rusqlite::{Connection, TransactionBehavior};
 use serde::Serialize;
@@ -15,7 +16,7 @@ use sha2::{Digest, Sha256};
 use crate::audit;
 use crate::config::Config;
 use crate::ingest::{self, ParsedFile};
-use crate::store::records::{self, FileFacts, StoredFile};
+use crate::store::records::{self, FileFacts, NextIds, StoredFile};
 use crate::store::{self, StoreError};
 use crate::watch::WatchFolder;
 
@@ -78,6 +79,15 @@ impl RunSummary {
     }
 }
 
+/// Prepared statements kept per connection.
+const STATEMENT_CACHE: usize = 64;
+/// SQLite page cache of the writer, KiB (a negative `cache_size` is in KiB).
+const PAGE_CACHE_KIB: i64 = -24 * 1024;
+/// Write-ahead log size, in pages, that triggers a checkpoint (SQLite's default is 1000).
+const WAL_CHECKPOINT_PAGES: i64 = 8192;
+/// Most threads reading, hashing and parsing files while the writer stores earlier ones.
+const MAX_READERS: usize = 4;
+
 /// A file read and parsed, not yet stored.
 struct Prepared {
     facts: FileFacts,
@@ -103,6 +113,15 @@ impl Ingestor {
         let conn = store::open(&cfg.database_path())?;
         let actor = audit::actor(cfg.actor.as_deref());
         let mut conn = conn;
+        // A group writes through about a dozen distinct statements, and recomputing a lot
+        // through more: keep them all prepared. A larger page cache keeps the hash indexes
+        // (random order by nature) in memory during a backfill.
+        conn.set_prepared_statement_cache_capacity(STATEMENT_CACHE);
+        conn.pragma_update(None, "cache_size", PAGE_CACHE_KIB)?;
+        // Checkpoint the write-ahead log less often than every 4 MB: a page changed by many
+        // groups is copied into the database once. Commits still sync the log (durability
+        // is unchanged); the log only grows larger on disk between checkpoints.
+        conn.pragma_update(None, "wal_autocheckpoint", WAL_CHECKPOINT_PAGES)?;
         // Heal an interrupted backfill: lots whose fit is older than their records.
         let healed = crate::analysis::recompute_stale(&mut conn, &cfg, &actor)?;
         if healed > 0 {
@@ -158,6 +177,10 @@ impl Ingestor {
     }
 
     /// Ingest files in groups of `files_per_transaction`, calling `progress` after each file.
+    ///
+    /// Reading, hashing and parsing happen on reader threads, a few groups ahead of this
+    /// thread, which alone writes to the database: group after group in path order, each in
+    /// one transaction, exactly as if the groups were read here one after the other.
     pub fn ingest_paths(
         &mut self,
         paths: &[PathBuf],
@@ -165,14 +188,56 @@ impl Ingestor {
     ) -> Result<RunSummary, StoreError> {
         let mut summary = RunSummary::default();
         let mut touched = BTreeSet::new();
-        for group in paths.chunks(self.cfg.files_per_transaction.max(1)) {
-            let (outcomes, lots) = self.store_group(group)?;
-            touched.extend(lots);
-            for o in outcomes {
-                summary.add(&o);
-                progress(&o);
+        let groups: Vec<&[PathBuf]> = paths
+            .chunks(self.cfg.files_per_transaction.max(1))
+            .collect();
+        let readers = std::thread::available_parallelism()
+            .map_or(1, |n| n.get().saturating_sub(1))
+            .clamp(1, MAX_READERS)
+            .min(groups.len().max(1));
+        let reader = Reader {
+            cfg: &self.cfg,
+            profile_override: self.profile_override.as_deref(),
+        };
+        let writer = Writer {
+            conn: &mut self.conn,
+            cfg: &self.cfg,
+            actor: &self.actor,
+        };
+        std::thread::scope(|scope| -> Result<(), StoreError> {
+            // Reader r prepares groups r, r + readers, ...; one group in flight per reader
+            // bounds the memory held.
+            let mut inbox = Vec::with_capacity(readers);
+            for r in 0..readers {
+                let (tx, rx) = mpsc::sync_channel::<Vec<Prepared>>(1);
+                inbox.push(rx);
+                let groups = &groups;
+                let reader = &reader;
+                scope.spawn(move || {
+                    for group in groups.iter().skip(r).step_by(readers) {
+                        if tx.send(reader.prepare_group(group)).is_err() {
+                            break; // the writer stopped on an error
+                        }
+                    }
+                });
             }
-        }
+            let mut writer = writer;
+            for (g, group) in groups.iter().enumerate() {
+                let prepared = match inbox[g % readers].recv() {
+                    Ok(p) => p,
+                    // A reader thread ended early (it panicked): read this group here; the
+                    // panic is raised again when the scope ends.
+                    Err(_) => reader.prepare_group(group),
+                };
+                let (outcomes, lots) = writer.store(prepared, false)?;
+                touched.extend(lots);
+                for o in outcomes {
+                    summary.add(&o);
+                    progress(&o);
+                }
+            }
+            Ok(())
+        })?;
         // A backfill recomputes each touched lot once, after its last group.
         if !touched.is_empty() {
             let tx = self
@@ -186,24 +251,36 @@ impl Ingestor {
 
     /// Store a group of files and recompute the lots they touched, in one transaction.
     fn ingest_group(&mut self, paths: &[PathBuf]) -> Result<Vec<FileOutcome>, StoreError> {
-        self.store_group_then(paths, true).map(|(o, _)| o)
+        let prepared = Reader {
+            cfg: &self.cfg,
+            profile_override: self.profile_override.as_deref(),
+        }
+        .prepare_group(paths);
+        Writer {
+            conn: &mut self.conn,
+            cfg: &self.cfg,
+            actor: &self.actor,
+        }
+        .store(prepared, true)
+        .map(|(o, _)| o)
     }
+}
 
-    /// Store a group of files in one transaction; the caller recomputes the lots later.
-    fn store_group(
-        &mut self,
-        paths: &[PathBuf],
-    ) -> Result<(Vec<FileOutcome>, BTreeSet<String>), StoreError> {
-        self.store_group_then(paths, false)
-    }
+/// The writing half: stores prepared groups, one transaction each.
+struct Writer<'a> {
+    conn: &'a mut Connection,
+    cfg: &'a Config,
+    actor: &'a str,
+}
 
-    /// Read and parse a group of files, then store them all in one transaction.
-    fn store_group_then(
+impl Writer<'_> {
+    /// Store a group of prepared files in one transaction; with `recompute`, the lots they
+    /// touched are recomputed in it too (otherwise the caller does it later).
+    fn store(
         &mut self,
-        paths: &[PathBuf],
+        prepared: Vec<Prepared>,
         recompute: bool,
     ) -> Result<(Vec<FileOutcome>, BTreeSet<String>), StoreError> {
-        let prepared: Vec<Prepared> = paths.iter().map(|p| self.prepare(p)).collect();
         let quarantine = self.cfg.quarantine_dir();
         // Copies into quarantine happen before the transaction: a crash after copying and
         // before commit leaves a spare copy, never a lost record.
@@ -217,6 +294,8 @@ impl Ingestor {
         let tx = self
             .conn
             .transaction_with_behavior(TransactionBehavior::Immediate)?;
+        // The transaction holds the write lock: ids can be counted here, not queried.
+        let mut ids = NextIds::default();
         let mut outcomes = Vec::with_capacity(prepared.len());
         let mut in_group: HashMap<String, i64> = HashMap::new();
         let mut touched: BTreeSet<String> = BTreeSet::new();
@@ -229,39 +308,47 @@ impl Ingestor {
             };
             let outcome = match (seen, p.result) {
                 (Some(of), _) => {
-                    records::record_duplicate(&tx, &facts, of, &self.actor)?;
+                    records::record_duplicate_with(&tx, &mut ids, &facts, of, self.actor)?;
                     FileOutcome::Duplicate {
-                        path: facts.path.clone(),
-                        sha256: facts.sha256.clone(),
+                        path: facts.path,
+                        sha256: facts.sha256,
                         of_file_id: of,
                     }
                 }
                 (None, Err(error)) => {
-                    records::record_rejected(&tx, &facts, &error, q.as_deref(), &self.actor)?;
+                    records::record_rejected_with(
+                        &tx,
+                        &mut ids,
+                        &facts,
+                        &error,
+                        q.as_deref(),
+                        self.actor,
+                    )?;
                     crate::alerting::raise_quarantine(
                         &tx,
-                        &self.cfg,
+                        self.cfg,
                         facts.site.as_deref(),
                         &facts.path,
                         &error,
                     )?;
                     tracing::warn!(path = %facts.path, error = %error, "file rejected");
                     FileOutcome::Rejected {
-                        path: facts.path.clone(),
                         sha256: (!facts.sha256.is_empty()).then(|| facts.sha256.clone()),
+                        path: facts.path,
                         error,
                     }
                 }
                 (None, Ok(parsed)) => {
-                    let stored = records::record_parsed(&tx, &facts, &parsed, &self.actor)?;
-                    in_group.insert(facts.sha256.clone(), stored.file_id);
+                    let stored =
+                        records::record_parsed_with(&tx, &mut ids, &facts, &parsed, self.actor)?;
                     touched.extend(stored.lots_touched.iter().cloned());
                     for c in &stored.conflicts {
                         tracing::warn!(path = %facts.path, conflict = %c, "conflicting value kept and flagged");
                     }
+                    in_group.insert(facts.sha256.clone(), stored.file_id);
                     FileOutcome::Ingested {
-                        path: facts.path.clone(),
-                        sha256: facts.sha256.clone(),
+                        path: facts.path,
+                        sha256: facts.sha256,
                         stored,
                     }
                 }
@@ -269,20 +356,35 @@ impl Ingestor {
             outcomes.push(outcome);
         }
         if recompute {
-            crate::analysis::recompute_lots(&tx, &self.cfg, &touched, &self.actor)?;
+            crate::analysis::recompute_lots(&tx, self.cfg, &touched, self.actor)?;
         }
         tx.commit()?;
-        for o in &outcomes {
-            if let FileOutcome::Ingested { path, stored, .. } = o {
-                tracing::info!(path = %path, rows_new = stored.rows_new, rows_known = stored.rows_known,
-                    rows_conflict = stored.rows_conflict, "file ingested");
+        if tracing::enabled!(tracing::Level::INFO) {
+            for o in &outcomes {
+                if let FileOutcome::Ingested { path, stored, .. } = o {
+                    tracing::info!(path = %path, rows_new = stored.rows_new, rows_known = stored.rows_known,
+                        rows_conflict = stored.rows_conflict, "file ingested");
+                }
             }
         }
         Ok((outcomes, touched))
     }
+}
+
+/// The reading half: read, hash and parse files; shared by the reader threads.
+struct Reader<'a> {
+    cfg: &'a Config,
+    profile_override: Option<&'a str>,
+}
+
+impl Reader<'_> {
+    fn prepare_group(&self, paths: &[PathBuf]) -> Vec<Prepared> {
+        let folders = FolderRoots::new(self.cfg);
+        paths.iter().map(|p| self.prepare(p, &folders)).collect()
+    }
 
     /// Read, hash and parse one file. Never fails: a problem becomes a rejection.
-    fn prepare(&self, path: &Path) -> Prepared {
+    fn prepare(&self, path: &Path, folders: &FolderRoots<'_>) -> Prepared {
         let display = path.display().to_string();
         let mut facts = FileFacts {
             path: display.clone(),
@@ -293,11 +395,11 @@ impl Ingestor {
             site: None,
             seen_at: audit::now_utc(),
         };
-        let folder: Option<&WatchFolder> = self.cfg.folder_for(path);
+        let folder: Option<&WatchFolder> = folders.folder_for(path);
         facts.site = folder.and_then(|f| f.site.clone());
         let profile_name = self
             .profile_override
-            .clone()
+            .map(str::to_string)
             .or_else(|| folder.map(|f| f.profile.clone()));
         facts.profile = profile_name.clone();
         let meta = match std::fs::metadata(path) {
@@ -349,6 +451,37 @@ impl Ingestor {
             },
         };
         Prepared { facts, result }
+    }
+}
+
+/// The configured folders with their roots resolved once (per group), for
+/// [`Config::folder_for`]'s longest-prefix choice without resolving every root per file.
+struct FolderRoots<'a> {
+    roots: Vec<(PathBuf, usize, &'a WatchFolder)>,
+}
+
+impl<'a> FolderRoots<'a> {
+    fn new(cfg: &'a Config) -> Self {
+        let roots = cfg
+            .folders
+            .iter()
+            .map(|f| {
+                let root = cfg.resolve(&f.path);
+                let root = std::fs::canonicalize(&root).unwrap_or(root);
+                (root.components().count(), root, f)
+            })
+            .map(|(n, root, f)| (root, n, f))
+            .collect();
+        FolderRoots { roots }
+    }
+
+    fn folder_for(&self, file: &Path) -> Option<&'a WatchFolder> {
+        let file = std::fs::canonicalize(file).unwrap_or_else(|_| file.to_path_buf());
+        self.roots
+            .iter()
+            .filter(|(root, _, _)| file.starts_with(root))
+            .max_by_key(|(_, n, _)| *n)
+            .map(|(_, _, f)| *f)
     }
 }
 

@@ -2,6 +2,7 @@
 //! transaction: one event of the audit chain plus exactly the rows that event describes.
 
 use std::collections::{BTreeSet, HashMap};
+use std::sync::LazyLock;
 
 use rusqlite::{OptionalExtension, Transaction, params};
 use serde::Serialize;
@@ -39,8 +40,48 @@ pub struct StoredFile {
 }
 
 fn next_id(tx: &Transaction<'_>, table: &str) -> Result<i64> {
-    let sql = format!("SELECT COALESCE(MAX(id), 0) + 1 FROM {table}");
-    Ok(tx.prepare_cached(&sql)?.query_row([], |r| r.get(0))?)
+    let sql = match table {
+        "source_files" => "SELECT COALESCE(MAX(id), 0) + 1 FROM source_files",
+        "measurements" => "SELECT COALESCE(MAX(id), 0) + 1 FROM measurements",
+        _ => {
+            return Err(StoreError::Invalid(format!(
+                "no id counter for table {table}"
+            )));
+        }
+    };
+    Ok(tx.prepare_cached(sql)?.query_row([], |r| r.get(0))?)
+}
+
+/// The next free ids of `source_files` and `measurements`, read from the database once and
+/// then counted, for a writer storing many files in one transaction (which holds the
+/// write lock, so nobody else takes ids meanwhile). Start a new one for each transaction.
+#[derive(Debug, Default, Clone, Copy)]
+pub struct NextIds {
+    file: Option<i64>,
+    measurement: Option<i64>,
+}
+
+impl NextIds {
+    fn take_file(&mut self, tx: &Transaction<'_>) -> Result<i64> {
+        let id = match self.file {
+            Some(id) => id,
+            None => next_id(tx, "source_files")?,
+        };
+        self.file = Some(id + 1);
+        Ok(id)
+    }
+
+    /// The first free measurement id; give back the next free one with `measurements_to`.
+    fn first_measurement(&mut self, tx: &Transaction<'_>) -> Result<i64> {
+        match self.measurement {
+            Some(id) => Ok(id),
+            None => next_id(tx, "measurements"),
+        }
+    }
+
+    fn measurements_to(&mut self, next_free: i64) {
+        self.measurement = Some(next_free);
+    }
 }
 
 /// The id of the file whose content (SHA-256) was ingested before, if any.
@@ -103,7 +144,18 @@ pub fn record_duplicate(
     of_file_id: i64,
     actor: &str,
 ) -> Result<i64> {
-    let id = next_id(tx, "source_files")?;
+    record_duplicate_with(tx, &mut NextIds::default(), facts, of_file_id, actor)
+}
+
+/// [`record_duplicate`] taking its id from the transaction's counters.
+pub fn record_duplicate_with(
+    tx: &Transaction<'_>,
+    ids: &mut NextIds,
+    facts: &FileFacts,
+    of_file_id: i64,
+    actor: &str,
+) -> Result<i64> {
+    let id = ids.take_file(tx)?;
     let file = file_row(id, facts, "duplicate");
     let payload = Payload::FileDuplicate {
         file: file.clone(),
@@ -122,7 +174,26 @@ pub fn record_rejected(
     quarantined: Option<&str>,
     actor: &str,
 ) -> Result<i64> {
-    let id = next_id(tx, "source_files")?;
+    record_rejected_with(
+        tx,
+        &mut NextIds::default(),
+        facts,
+        error,
+        quarantined,
+        actor,
+    )
+}
+
+/// [`record_rejected`] taking its id from the transaction's counters.
+pub fn record_rejected_with(
+    tx: &Transaction<'_>,
+    ids: &mut NextIds,
+    facts: &FileFacts,
+    error: &str,
+    quarantined: Option<&str>,
+    actor: &str,
+) -> Result<i64> {
+    let id = ids.take_file(tx)?;
     let mut file = file_row(id, facts, "rejected");
     file.error = Some(error.to_string());
     file.quarantined = quarantined.map(str::to_string);
@@ -181,15 +252,79 @@ fn insert_measurement(tx: &Transaction<'_>, m: &MeasurementRow, seq: i64) -> Res
     Ok(())
 }
 
+/// Rows per multi-row INSERT of measurements (11 parameters a row).
+const MEASUREMENTS_PER_INSERT: usize = 8;
+
+/// Insert the measurements of one event, several rows a statement.
+fn insert_measurements(tx: &Transaction<'_>, ms: &[MeasurementRow], seq: i64) -> Result<()> {
+    static SQL: LazyLock<Vec<String>> = LazyLock::new(|| {
+        (0..=MEASUREMENTS_PER_INSERT)
+            .map(|n| {
+                let rows: Vec<String> = (0..n)
+                    .map(|r| {
+                        let b = r * 11;
+                        format!(
+                            "(?{}, ?{}, ?{}, ?{}, ?{}, ?{}, ?{}, ?{}, ?{}, ?{}, ?{})",
+                            b + 1,
+                            b + 2,
+                            b + 3,
+                            b + 4,
+                            b + 5,
+                            b + 6,
+                            b + 7,
+                            b + 8,
+                            b + 9,
+                            b + 10,
+                            b + 11
+                        )
+                    })
+                    .collect();
+                format!(
+                    "INSERT INTO measurements(id, batch_id, quantity, value, text, kind, source_file_id,
+             line, col, raw, event_seq) VALUES {}",
+                    rows.join(", ")
+                )
+            })
+            .collect()
+    });
+    for chunk in ms.chunks(MEASUREMENTS_PER_INSERT) {
+        if chunk.len() == 1 {
+            insert_measurement(tx, &chunk[0], seq)?;
+            continue;
+        }
+        let mut stmt = tx.prepare_cached(&SQL[chunk.len()])?;
+        let mut p: Vec<&dyn rusqlite::ToSql> = Vec::with_capacity(chunk.len() * 11);
+        for m in chunk {
+            p.extend_from_slice(&[
+                &m.id as &dyn rusqlite::ToSql,
+                &m.batch_id,
+                &m.quantity,
+                &m.value,
+                &m.text,
+                &m.kind,
+                &m.source_file_id,
+                &m.line,
+                &m.col,
+                &m.raw,
+                &seq,
+            ]);
+        }
+        stmt.execute(p.as_slice())?;
+    }
+    Ok(())
+}
+
 /// Write (insert or replace) the current view of one cycle.
 pub fn upsert_cycle(tx: &Transaction<'_>, v: &CycleView) -> Result<()> {
-    let sql = format!(
-        "INSERT OR REPLACE INTO cycles(batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq)
+    static SQL: LazyLock<String> = LazyLock::new(|| {
+        format!(
+            "INSERT OR REPLACE INTO cycles(batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq)
          VALUES (?1, ?2, ?3, ?4, {}, ?16, ?17, ?18)",
-        CYCLE_COLUMNS.join(", "),
-        (5..16).map(|i| format!("?{i}")).collect::<Vec<_>>().join(", ")
-    );
-    let mut stmt = tx.prepare_cached(&sql)?;
+            CYCLE_COLUMNS.join(", "),
+            (5..16).map(|i| format!("?{i}")).collect::<Vec<_>>().join(", ")
+        )
+    });
+    let mut stmt = tx.prepare_cached(&SQL)?;
     let mut p: Vec<&dyn rusqlite::ToSql> = vec![&v.batch_id, &v.lot, &v.cycle_no, &v.started_at];
     for x in &v.values {
         p.push(x);
@@ -203,13 +338,15 @@ pub fn upsert_cycle(tx: &Transaction<'_>, v: &CycleView) -> Result<()> {
 
 /// Read the stored cycle row of a batch.
 pub fn cycle(conn: &rusqlite::Connection, batch_id: &str) -> Result<Option<CycleView>> {
-    let sql = format!(
-        "SELECT batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq
+    static SQL: LazyLock<String> = LazyLock::new(|| {
+        format!(
+            "SELECT batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq
          FROM cycles WHERE batch_id = ?1",
-        CYCLE_COLUMNS.join(", ")
-    );
+            CYCLE_COLUMNS.join(", ")
+        )
+    });
     Ok(conn
-        .prepare_cached(&sql)?
+        .prepare_cached(&SQL)?
         .query_row([batch_id], cycle_from_row)
         .optional()?)
 }
@@ -268,7 +405,18 @@ pub fn record_parsed(
     parsed: &ParsedFile,
     actor: &str,
 ) -> Result<StoredFile> {
-    let file_id = next_id(tx, "source_files")?;
+    record_parsed_with(tx, &mut NextIds::default(), facts, parsed, actor)
+}
+
+/// [`record_parsed`] taking its ids from the transaction's counters.
+pub fn record_parsed_with(
+    tx: &Transaction<'_>,
+    ids: &mut NextIds,
+    facts: &FileFacts,
+    parsed: &ParsedFile,
+    actor: &str,
+) -> Result<StoredFile> {
+    let file_id = ids.take_file(tx)?;
     let mut out = StoredFile {
         file_id,
         ..Default::default()
@@ -278,7 +426,7 @@ pub fn record_parsed(
     // Measurements of each touched batch: the stored ones, then the ones this file adds.
     let mut batches: HashMap<String, (Vec<MeasurementRow>, Option<i64>, bool)> = HashMap::new();
     let mut batch_order: Vec<String> = Vec::new();
-    let mut next_m = next_id(tx, "measurements")?;
+    let mut next_m = ids.first_measurement(tx)?;
 
     match parsed {
         ParsedFile::Cycles(rows) => {
@@ -327,11 +475,10 @@ pub fn record_parsed(
         lots: lots.clone(),
     };
     let seq = audit::append(tx, &facts.seen_at, actor, &facts.path, &payload)?;
+    ids.measurements_to(next_m);
     out.event_seq = seq;
     insert_file(tx, &file, seq)?;
-    for m in &new_measurements {
-        insert_measurement(tx, m, seq)?;
-    }
+    insert_measurements(tx, &new_measurements, seq)?;
     for l in &lots {
         upsert_lot(tx, l, seq)?;
     }

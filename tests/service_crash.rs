@@ -160,7 +160,10 @@ from = "turnbook@plant.test"
     let mut kills_mid_backlog = 0;
     let t0 = Instant::now();
     while !(written.load(Ordering::SeqCst) && kills >= 12) {
-        assert!(t0.elapsed() < Duration::from_secs(120), "kill phase ran too long");
+        assert!(
+            t0.elapsed() < Duration::from_secs(120),
+            "kill phase ran too long"
+        );
         let mut child = spawn(&bin, &config, &log);
         std::thread::sleep(Duration::from_millis(rng.between(150, 1500)));
         child.kill().unwrap(); // SIGKILL on Unix
@@ -177,7 +180,10 @@ from = "turnbook@plant.test"
         "{kills} kills ({kills_mid_backlog} with files still to ingest), {before_final} ingested before the final run, {:.1} s",
         t0.elapsed().as_secs_f64()
     );
-    assert!(kills_mid_backlog >= 5, "the kills must hit a running backlog");
+    assert!(
+        kills_mid_backlog >= 5,
+        "the kills must hit a running backlog"
+    );
 
     // A final clean run takes the rest, then stops on SIGTERM.
     let mut child = spawn(&bin, &config, &log);

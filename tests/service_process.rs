@@ -369,7 +369,10 @@ fn poll_mode_finds_files_by_scanning_within_interval_plus_settle() {
     let mut latencies = Vec::new();
     for i in 0..3 {
         let path = plant.folder("share").join(format!("polled-{i}.csv"));
-        drop_file(&path, &export(&[(&format!("POLL-{i}"), "LOT-P", "55.0", "20")]));
+        drop_file(
+            &path,
+            &export(&[(&format!("POLL-{i}"), "LOT-P", "55.0", "20")]),
+        );
         latencies.push(plant.wait_recorded(&path, Duration::from_secs(10)));
         let rows = plant.rows_for(&path);
         assert_eq!(rows.len(), 1);

@@ -18,22 +18,64 @@ use sha2::{Digest, Sha256};
 
 const SETTLE_MS: u64 = 300;
 
-/// A private copy of the binary: the target directory is shared with other builds, which
-/// may relink `target/debug/turnbook` while these tests run.
+/// The binary under test, checked once.
 fn binary() -> &'static Path {
     static BIN: OnceLock<PathBuf> = OnceLock::new();
     BIN.get_or_init(|| {
-        let dir = std::env::temp_dir().join(format!("turnbook-svc-bin-{}", std::process::id()));
-        fs::create_dir_all(&dir).unwrap();
-        let copy = dir.join("turnbook");
-        fs::copy(env!("CARGO_BIN_EXE_turnbook"), &copy).unwrap();
-        let out = Command::new(&copy).arg("--version").output().unwrap();
+        let bin = this_trees_binary();
+        let out = Command::new(&bin).arg("--version").output().unwrap();
         assert!(
             String::from_utf8_lossy(&out.stdout).starts_with("turnbook "),
-            "the built binary does not answer --version: {out:?}"
+            "{} does not answer --version: {out:?}",
+            bin.display()
         );
-        copy
+        bin
     })
+}
+
+/// The `turnbook` binary built from this source tree. The target directory may be shared
+/// with other trees: each builds its own `deps/turnbook-<hash>` (written only by its own
+/// builds), but the one path that `CARGO_BIN_EXE_turnbook` names is relinked by whichever
+/// tree built last, and not relinked again when this tree's build is already fresh. So
+/// the newest `deps/turnbook-*` built here is used; the named path only as a fallback.
+fn this_trees_binary() -> PathBuf {
+    let named = PathBuf::from(env!("CARGO_BIN_EXE_turnbook"));
+    let deps = named.parent().map(|d| d.join("deps")).unwrap_or_default();
+    let mut found: Vec<(std::time::SystemTime, PathBuf)> = fs::read_dir(&deps)
+        .map(|dir| {
+            dir.flatten()
+                .map(|e| e.path())
+                .filter(|p| {
+                    p.file_name()
+                        .and_then(|n| n.to_str())
+                        .is_some_and(|n| n.starts_with("turnbook-") && !n.contains('.'))
+                })
+                .filter(|p| built_from_this_tree(p))
+                .filter_map(|p| Some((fs::metadata(&p).ok()?.modified().ok()?, p)))
+                .collect()
+        })
+        .unwrap_or_default();
+    found.sort();
+    match found.pop() {
+        Some((_, p)) => p,
+        None if built_from_this_tree(&named) => named,
+        None => panic!(
+            "no turnbook binary built from {} in {} or {}",
+            env!("CARGO_MANIFEST_DIR"),
+            named.display(),
+            deps.display()
+        ),
+    }
+}
+
+/// True when `bin` was built from this source tree: the build's source directory is in
+/// the binary's debug line tables. Without `grep`, assumed true.
+fn built_from_this_tree(bin: &Path) -> bool {
+    Command::new("grep")
+        .args(["-q", "-a", "-F", env!("CARGO_MANIFEST_DIR")])
+        .arg(bin)
+        .status()
+        .map_or(true, |s| s.success())
 }
 
 /// A temporary plant: one configuration, one database, one or two watched folders.

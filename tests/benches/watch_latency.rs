@@ -10,7 +10,8 @@
 //!
 //! Environment (optional): TURNBOOK_BENCH_SECONDS (60), TURNBOOK_BENCH_RATE (files per
 //! second, 50), TURNBOOK_BENCH_LOTS (lots the files are spread over, 10),
-//! TURNBOOK_BENCH_SETTLE_MS (300).
+//! TURNBOOK_BENCH_SETTLE_MS (300). Up to 100 lots are registered before the start, so
+//! each file's recompute fits its lot; with more, the lots stay unregistered (no fits).
 
 use std::collections::HashMap;
 use std::fs;
@@ -144,11 +145,49 @@ fn summary(ms: &[f64]) -> String {
     )
 }
 
-/// The built binary, copied: the target directory may be shared with other builds.
-fn private_binary(dir: &Path) -> PathBuf {
-    let copy = dir.join("turnbook-bench");
-    fs::copy(env!("CARGO_BIN_EXE_turnbook"), &copy).expect("copy the turnbook binary");
-    copy
+/// The `turnbook` binary built from this source tree. The target directory may be shared
+/// with other trees: each builds its own `deps/turnbook-<hash>` (written only by its own
+/// builds), but the one path that `CARGO_BIN_EXE_turnbook` names is relinked by whichever
+/// tree built last, and not relinked again when this tree's build is already fresh. So
+/// the newest `deps/turnbook-*` built here is used; the named path only as a fallback.
+fn this_trees_binary() -> PathBuf {
+    let named = PathBuf::from(env!("CARGO_BIN_EXE_turnbook"));
+    let deps = named.parent().map(|d| d.join("deps")).unwrap_or_default();
+    let mut found: Vec<(std::time::SystemTime, PathBuf)> = fs::read_dir(&deps)
+        .map(|dir| {
+            dir.flatten()
+                .map(|e| e.path())
+                .filter(|p| {
+                    p.file_name()
+                        .and_then(|n| n.to_str())
+                        .is_some_and(|n| n.starts_with("turnbook-") && !n.contains('.'))
+                })
+                .filter(|p| built_from_this_tree(p))
+                .filter_map(|p| Some((fs::metadata(&p).ok()?.modified().ok()?, p)))
+                .collect()
+        })
+        .unwrap_or_default();
+    found.sort();
+    match found.pop() {
+        Some((_, p)) => p,
+        None if built_from_this_tree(&named) => named,
+        None => panic!(
+            "no turnbook binary built from {} in {} or {}",
+            env!("CARGO_MANIFEST_DIR"),
+            named.display(),
+            deps.display()
+        ),
+    }
+}
+
+/// True when `bin` was built from this source tree: the build's source directory is in
+/// the binary's debug line tables. Without `grep`, assumed true.
+fn built_from_this_tree(bin: &Path) -> bool {
+    Command::new("grep")
+        .args(["-q", "-a", "-F", env!("CARGO_MANIFEST_DIR")])
+        .arg(bin)
+        .status()
+        .map_or(true, |s| s.success())
 }
 
 fn spawn(bin: &Path, config: &Path, log: &Path) -> Child {
@@ -165,14 +204,39 @@ fn spawn(bin: &Path, config: &Path, log: &Path) -> Child {
         .expect("start turnbook watch")
 }
 
+/// One cycle of lot `i % lots`: conversion after 30 min of a first-order reaction whose
+/// rate constant decays slowly with the lot's cycle number (invented data, with a small
+/// deterministic scatter), so the lot's fits have a deactivation trend to find.
 fn export(i: u64, lots: u64) -> String {
+    let cycle = (i / lots + 1) as f64;
+    let k = 0.08 * (-0.004 * cycle).exp();
+    let scatter = ((i * 37 % 11) as f64 - 5.0) * 0.06;
+    let conversion = (100.0 * (1.0 - (-k * 30.0).exp()) + scatter).clamp(1.0, 99.0);
     format!(
-        "Batch,Lot,Conversion,Time\nLAT-{i:06},LOT-{:03},{}.{},{}\n",
-        i % lots,
-        30 + (i * 7) % 65,
-        i % 10,
-        20 + i % 40
+        "Batch,Lot,Conversion,Time,Cycle,Substrate,Catalyst\n\
+         LAT-{i:06},LOT-{:03},{conversion:.2},30,{cycle},0.5,2.0\n",
+        i % lots
     )
+}
+
+/// Registers the lots (a Pd catalyst each) through the command line, so every file's
+/// recompute fits the lot's deactivation models as in a plant.
+fn register_lots(bin: &Path, config: &Path, lots: u64) {
+    for l in 0..lots {
+        let out = Command::new(bin)
+            .arg("--config")
+            .arg(config)
+            .args(["register", "--catalyst", "Pd/C 5%", "--metal", "Pd"])
+            .args(["--loading", "5", "--mass", "2.0"])
+            .arg(format!("LOT-{l:03}"))
+            .output()
+            .expect("run turnbook register");
+        assert!(
+            out.status.success(),
+            "register LOT-{l:03}: {}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+    }
 }
 
 fn main() {
@@ -204,6 +268,9 @@ columns.batch_id = {{ header = "Batch" }}
 columns.lot = {{ header = "Lot" }}
 columns.conversion = {{ header = "Conversion", unit = "%" }}
 columns.duration = {{ header = "Time", unit = "min" }}
+columns.cycle_no = {{ header = "Cycle" }}
+columns.substrate = {{ header = "Substrate", unit = "mol" }}
+columns.catalyst_mass = {{ header = "Catalyst", unit = "g" }}
 
 [[folders]]
 path = "inbox"
@@ -219,10 +286,15 @@ from = "turnbook@plant.test"
         ),
     )
     .unwrap();
-    let bin = private_binary(root);
+    let bin = this_trees_binary();
+    println!("binary: {}", bin.display());
     let db = root.join("plant.db");
     let log = root.join("service.log");
 
+    let register = lots <= 100;
+    if register {
+        register_lots(&bin, &config, lots);
+    }
     let mut child = spawn(&bin, &config, &log);
     let pid = child.id();
     let t0 = Instant::now();
@@ -237,7 +309,12 @@ from = "turnbook@plant.test"
         std::thread::sleep(Duration::from_millis(20));
     }
     println!(
-        "turnbook watch (pid {pid}), events mode, settle {settle_ms} ms; {rate} files/s for {seconds} s over {lots} lots"
+        "turnbook watch (pid {pid}), events mode, settle {settle_ms} ms; {rate} files/s for {seconds} s over {lots} lots ({})",
+        if register {
+            "registered"
+        } else {
+            "unregistered: no fits"
+        }
     );
     std::thread::sleep(Duration::from_secs(1));
     let idle_over = Duration::from_secs(10);
@@ -337,6 +414,26 @@ from = "turnbook@plant.test"
             percentile(&s, 99.0)
         );
     }
+    if let Ok(conn) = Connection::open_with_flags(&db, OpenFlags::SQLITE_OPEN_READ_ONLY) {
+        let fits: Result<(i64, i64, i64), _> = conn.query_row(
+            "SELECT COUNT(*), COALESCE(SUM(model IS NOT NULL), 0), \
+             COALESCE(SUM(LENGTH(analysis)), 0) FROM fits",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)),
+        );
+        if let Ok((n, chosen, bytes)) = fits {
+            println!(
+                "fits stored: {n} ({chosen} with a chosen model), {:.1} MB of analysis JSON",
+                bytes as f64 / 1e6
+            );
+        }
+    }
+    let size = |p: PathBuf| fs::metadata(p).map_or(0, |m| m.len());
+    println!(
+        "database {:.1} MB, WAL {:.1} MB",
+        size(db.clone()) as f64 / 1e6,
+        size(root.join("plant.db-wal")) as f64 / 1e6
+    );
     let c_after_load = cpu_ticks(pid);
     println!(
         "service CPU during the run: {:.1} s",

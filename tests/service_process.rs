@@ -176,12 +176,19 @@ from = "turnbook@plant.test"
         conn
     }
 
-    fn count(&self, sql: &str) -> i64 {
-        // The database does not exist until the service first opens it.
+    /// For waits: `None` while the database or its tables do not exist yet.
+    fn try_count(&self, sql: &str) -> Option<i64> {
         if !self.dir.path().join("plant.db").exists() {
-            return 0;
+            return None;
         }
-        self.db().query_row(sql, [], |r| r.get(0)).unwrap_or(0)
+        self.db().query_row(sql, [], |r| r.get(0)).ok()
+    }
+
+    /// For assertions: a bad query fails the test instead of reading as zero.
+    fn count(&self, sql: &str) -> i64 {
+        self.db()
+            .query_row(sql, [], |r| r.get(0))
+            .unwrap_or_else(|e| panic!("{sql}: {e}"))
     }
 
     fn rows_for(&self, path: &Path) -> Vec<FileRow> {
@@ -214,7 +221,7 @@ from = "turnbook@plant.test"
             path.display().to_string().replace('\'', "''")
         );
         assert!(
-            wait_until(limit, || self.count(&sql) > 0),
+            wait_until(limit, || self.try_count(&sql).is_some_and(|n| n > 0)),
             "{} was not recorded within {limit:?}; log:\n{}",
             path.display(),
             self.log()

@@ -234,7 +234,18 @@ impl Config {
                 let before = text.get(..span.start).unwrap_or(text);
                 let line = before.matches('\n').count() + 1;
                 let column = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
-                format!("line {line}, column {column}: ")
+                // Quote the line, so the key it sets is named even when toml's message
+                // (a type mismatch, say) does not name it.
+                let quoted: String = text
+                    .lines()
+                    .nth(line - 1)
+                    .unwrap_or("")
+                    .trim()
+                    .chars()
+                    .filter(|c| !c.is_control())
+                    .take(80)
+                    .collect();
+                format!("line {line}, column {column} (`{quoted}`): ")
             });
             ConfigError::Syntax {
                 path: path.to_path_buf(),

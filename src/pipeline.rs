@@ -331,7 +331,9 @@ impl Writer<'_> {
                         &facts.path,
                         &error,
                     )?;
-                    tracing::warn!(path = %facts.path, error = %error, "file rejected");
+                    // A file name or a quoted cell may hold control characters: escape them so
+                    // that a log read on a terminal shows them instead of obeying them.
+                    tracing::warn!(path = %facts.path.escape_debug(), error = %error.escape_debug(), "file rejected");
                     FileOutcome::Rejected {
                         sha256: (!facts.sha256.is_empty()).then(|| facts.sha256.clone()),
                         path: facts.path,
@@ -343,7 +345,7 @@ impl Writer<'_> {
                         records::record_parsed_with(&tx, &mut ids, &facts, &parsed, self.actor)?;
                     touched.extend(stored.lots_touched.iter().cloned());
                     for c in &stored.conflicts {
-                        tracing::warn!(path = %facts.path, conflict = %c, "conflicting value kept and flagged");
+                        tracing::warn!(path = %facts.path.escape_debug(), conflict = %c.escape_debug(), "conflicting value kept and flagged");
                     }
                     in_group.insert(facts.sha256.clone(), stored.file_id);
                     FileOutcome::Ingested {
@@ -362,7 +364,7 @@ impl Writer<'_> {
         if tracing::enabled!(tracing::Level::INFO) {
             for o in &outcomes {
                 if let FileOutcome::Ingested { path, stored, .. } = o {
-                    tracing::info!(path = %path, rows_new = stored.rows_new, rows_known = stored.rows_known,
+                    tracing::info!(path = %path.escape_debug(), rows_new = stored.rows_new, rows_known = stored.rows_known,
                         rows_conflict = stored.rows_conflict, "file ingested");
                 }
             }
@@ -519,13 +521,13 @@ fn quarantine_copy(dir: &Path, facts: &FileFacts) -> Option<String> {
     let prefix = facts.sha256.get(..12).unwrap_or("unhashed");
     let dest = dir.join(format!("{prefix}-{name}"));
     if let Err(e) = std::fs::create_dir_all(dir) {
-        tracing::error!(dir = %dir.display(), error = %e, "cannot create the quarantine folder");
+        tracing::error!(dir = ?dir, error = %e, "cannot create the quarantine folder");
         return None;
     }
     match std::fs::copy(src, &dest) {
         Ok(_) => Some(dest.display().to_string()),
         Err(e) => {
-            tracing::warn!(path = %facts.path, error = %e, "cannot copy the file into quarantine");
+            tracing::warn!(path = %facts.path.escape_debug(), error = %e, "cannot copy the file into quarantine");
             None
         }
     }

@@ -394,6 +394,20 @@ fn good_files_are_ingested_and_each_broken_one_is_named_with_its_reason() {
         "summary: {stdout}"
     );
 
+    // The log lines escape the control characters of the odd file name.
+    let logged = stderr
+        .lines()
+        .find(|l| l.contains("file rejected") && l.contains("bad-ctrl-"))
+        .unwrap_or_else(|| panic!("no log line for the control-character name: {stderr}"));
+    assert!(
+        logged.contains("bad-ctrl-\\u{7}name\\u{1b}.csv"),
+        "{logged}"
+    );
+    assert!(
+        !logged.contains('\u{1b}') && !logged.contains('\u{7}'),
+        "{logged:?}"
+    );
+
     // Each bad file has its own "rejected PATH: REASON" line with the expected details.
     let rejected: Vec<&str> = stderr
         .lines()

@@ -513,7 +513,7 @@ fn ingest(cfg: Config, paths: &[PathBuf], profile: Option<String>, json: bool) -
                 println!("{s}");
             }
         } else if let FileOutcome::Rejected { path, error, .. } = o {
-            bar.suspend(|| eprintln!("rejected {path}: {error}"));
+            bar.suspend(|| eprintln!("rejected {}: {}", printable(path), printable(error)));
         }
     })?;
     bar.finish_and_clear();
@@ -529,7 +529,7 @@ fn ingest(cfg: Config, paths: &[PathBuf], profile: Option<String>, json: bool) -
             summary.rows_conflict
         );
         for c in &summary.conflicts {
-            println!("conflict kept and flagged: {c}");
+            println!("conflict kept and flagged: {}", printable(c));
         }
     }
     Ok(if summary.rejected > 0 { 1 } else { 0 })
@@ -566,6 +566,20 @@ fn verify(cfg: &Config, json: bool) -> CmdResult {
         }
     }
     Ok(if report.ok() { 0 } else { 1 })
+}
+
+/// Text from a file or a file name, with control characters shown escaped so a terminal
+/// displays them instead of obeying them.
+pub fn printable(s: &str) -> String {
+    s.chars()
+        .map(|c| {
+            if c.is_control() {
+                c.escape_default().to_string()
+            } else {
+                c.to_string()
+            }
+        })
+        .collect()
 }
 
 /// Resolve a path argument for messages.

@@ -333,7 +333,7 @@ impl Writer<'_> {
                     )?;
                     // A file name or a quoted cell may hold control characters: escape them so
                     // that a log read on a terminal shows them instead of obeying them.
-                    tracing::warn!(path = %facts.path.escape_debug(), error = %error.escape_debug(), "file rejected");
+                    tracing::info!(path = %facts.path.escape_debug(), error = %error.escape_debug(), "file rejected");
                     FileOutcome::Rejected {
                         sha256: (!facts.sha256.is_empty()).then(|| facts.sha256.clone()),
                         path: facts.path,

@@ -394,10 +394,12 @@ fn good_files_are_ingested_and_each_broken_one_is_named_with_its_reason() {
         "summary: {stdout}"
     );
 
-    // The log lines escape the control characters of the odd file name.
+    // The rejection line escapes the control characters of the odd file name, and no raw
+    // control character reaches the terminal.
+    assert!(!stderr.chars().any(|c| c == '\u{7}' || c == '\u{1b}'), "{stderr:?}");
     let logged = stderr
         .lines()
-        .find(|l| l.contains("file rejected") && l.contains("bad-ctrl-"))
+        .find(|l| l.starts_with("rejected ") && l.contains("bad-ctrl-"))
         .unwrap_or_else(|| panic!("no log line for the control-character name: {stderr}"));
     assert!(
         logged.contains("bad-ctrl-\\u{7}name\\u{1b}.csv"),

@@ -121,7 +121,6 @@ fn sources_of(conn: &Connection, batch: &str, as_of: i64) -> Result<Vec<SourceRe
         "SELECT f.id, f.path, f.sha256, m.line FROM measurements m JOIN source_files f ON f.id = m.source_file_id
          WHERE m.batch_id = ?1 AND m.event_seq <= ?2 ORDER BY f.id, m.line",
     )?;
-    let mut out: Vec<SourceRef> = Vec::new();
     let rows = stmt.query_map(rusqlite::params![batch, as_of], |r| {
         Ok((
             r.get::<_, i64>(0)?,
@@ -130,25 +129,60 @@ fn sources_of(conn: &Connection, batch: &str, as_of: i64) -> Result<Vec<SourceRe
             r.get::<_, Option<i64>>(3)?,
         ))
     })?;
+    let mut out: Vec<SourceRef> = Vec::new();
     for row in rows {
-        let (id, path, sha, line) = row?;
-        match out.last_mut() {
-            Some(s) if s.file_id == id => {
-                if let Some(l) = line
-                    && !s.lines.contains(&l)
-                {
-                    s.lines.push(l);
-                }
-            }
-            _ => out.push(SourceRef {
-                file_id: id,
-                path,
-                sha256: sha,
-                lines: line.into_iter().collect(),
-            }),
-        }
+        add_source(&mut out, row?);
     }
     Ok(out)
+}
+
+/// The sources of every batch of a lot in one query (the recompute path), by batch id.
+fn sources_of_lot(
+    conn: &Connection,
+    lot: &str,
+) -> Result<std::collections::HashMap<String, Vec<SourceRef>>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT m.batch_id, f.id, f.path, f.sha256, m.line
+         FROM cycles c JOIN measurements m ON m.batch_id = c.batch_id
+         JOIN source_files f ON f.id = m.source_file_id
+         WHERE c.lot = ?1 ORDER BY m.batch_id, f.id, m.line",
+    )?;
+    let rows = stmt.query_map([lot], |r| {
+        Ok((
+            r.get::<_, String>(0)?,
+            (
+                r.get::<_, i64>(1)?,
+                r.get::<_, String>(2)?,
+                r.get::<_, String>(3)?,
+                r.get::<_, Option<i64>>(4)?,
+            ),
+        ))
+    })?;
+    let mut out: std::collections::HashMap<String, Vec<SourceRef>> =
+        std::collections::HashMap::new();
+    for row in rows {
+        let (batch, src) = row?;
+        add_source(out.entry(batch).or_default(), src);
+    }
+    Ok(out)
+}
+
+fn add_source(out: &mut Vec<SourceRef>, (id, path, sha, line): (i64, String, String, Option<i64>)) {
+    match out.last_mut() {
+        Some(s) if s.file_id == id => {
+            if let Some(l) = line
+                && !s.lines.contains(&l)
+            {
+                s.lines.push(l);
+            }
+        }
+        _ => out.push(SourceRef {
+            file_id: id,
+            path,
+            sha256: sha,
+            lines: line.into_iter().collect(),
+        }),
+    }
 }
 
 /// Compute a lot's state from the store: metrics of every cycle, and the fit.
@@ -240,6 +274,11 @@ pub fn lot_state_as_of(
             cycles_as_of(conn, lot, seq)?,
         ),
     };
+    // The current view fetches every batch's sources in one query.
+    let mut lot_sources = match as_of {
+        None => Some(sources_of_lot(conn, lot)?),
+        Some(_) => None,
+    };
     let as_of = as_of.unwrap_or(i64::MAX);
     let mut cycles: Vec<CycleState> = Vec::with_capacity(views.len());
     for (i, v) in views.into_iter().enumerate() {
@@ -254,7 +293,10 @@ pub fn lot_state_as_of(
         if v.excluded {
             flags.push("excluded".to_string());
         }
-        let sources = sources_of(conn, &v.batch_id, as_of)?;
+        let sources = match lot_sources.as_mut() {
+            Some(all) => all.remove(&v.batch_id).unwrap_or_default(),
+            None => sources_of(conn, &v.batch_id, as_of)?,
+        };
         cycles.push(CycleState {
             cycle: n,
             view: v,

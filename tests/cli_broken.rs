@@ -396,7 +396,10 @@ fn good_files_are_ingested_and_each_broken_one_is_named_with_its_reason() {
 
     // The rejection line escapes the control characters of the odd file name, and no raw
     // control character reaches the terminal.
-    assert!(!stderr.chars().any(|c| c == '\u{7}' || c == '\u{1b}'), "{stderr:?}");
+    assert!(
+        !stderr.chars().any(|c| c == '\u{7}' || c == '\u{1b}'),
+        "{stderr:?}"
+    );
     let logged = stderr
         .lines()
         .find(|l| l.starts_with("rejected ") && l.contains("bad-ctrl-"))

@@ -2,8 +2,8 @@
 //! encoding of its content, and `verify` replays the events to prove the stored records
 //! are exactly what the events wrote.
 //!
-//! Canonical encoding: the payload is serialised to JSON with object keys sorted (serde_json's
-//! default map is ordered) and numbers in their shortest round-trip form; the hash input is
+//! Canonical encoding: the payload is serialised to JSON with fields in the payload types'
+//! declaration order and numbers in their shortest round-trip form; the hash input is
 //! `prev_hash \n seq \n at \n actor \n kind \n subject \n payload`.
 
 pub mod payload;
@@ -25,11 +25,11 @@ pub fn now_utc() -> String {
     chrono::Utc::now().to_rfc3339_opts(chrono::SecondsFormat::Millis, true)
 }
 
-/// Canonical JSON of a payload.
+/// Canonical JSON of a payload: the payload types' fields in declaration order, numbers in
+/// their shortest round-trip form. Deterministic for a given build; `verify` hashes the
+/// stored text itself, so it never depends on re-encoding.
 pub fn canonical(payload: &Payload) -> Result<String> {
-    // Going through Value sorts the keys of every object.
-    let value = serde_json::to_value(payload)?;
-    Ok(serde_json::to_string(&value)?)
+    Ok(serde_json::to_string(payload)?)
 }
 
 /// SHA-256 of one event, hex.

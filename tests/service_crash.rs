@@ -76,7 +76,9 @@ fn this_trees_binary() -> PathBuf {
         Some((_, p)) => p,
         None if built_from_this_tree(&named) => named,
         None => panic!(
-            "no turnbook binary built from {} in {} or {}",
+            "no turnbook binary built from {} in {} or {}: the target directory is shared \
+             with another source tree whose build cargo takes as fresh for this one; build \
+             with a target directory of this tree's own (CARGO_TARGET_DIR)",
             env!("CARGO_MANIFEST_DIR"),
             named.display(),
             deps.display()

@@ -139,6 +139,16 @@ impl Ingestor {
         })
     }
 
+    /// Settings for the long-running service, which ingests one file at a time: a small
+    /// page cache and SQLite's default checkpoint interval keep an idle service small
+    /// (the large cache only pays off in a backfill).
+    pub fn tune_for_service(&mut self) -> Result<(), StoreError> {
+        self.conn.pragma_update(None, "cache_size", -4096)?;
+        self.conn.pragma_update(None, "wal_autocheckpoint", 1000)?;
+        self.skip_unchanged = true;
+        Ok(())
+    }
+
     pub fn conn(&self) -> &Connection {
         &self.conn
     }

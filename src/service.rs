@@ -18,7 +18,7 @@ pub struct PipelineSink {
 impl PipelineSink {
     pub fn new(cfg: Config) -> Result<Self, Failure> {
         let mut ingestor = Ingestor::open(cfg)?;
-        ingestor.skip_unchanged = true;
+        ingestor.tune_for_service()?;
         Ok(PipelineSink {
             ingestor: Mutex::new(ingestor),
         })

@@ -49,51 +49,10 @@ fn binary() -> PathBuf {
     bin
 }
 
-/// The `turnbook` binary built from this source tree. The target directory may be shared
-/// with other trees: each builds its own `deps/turnbook-<hash>` (written only by its own
-/// builds), but the one path that `CARGO_BIN_EXE_turnbook` names is relinked by whichever
-/// tree built last, and not relinked again when this tree's build is already fresh. So
-/// the newest `deps/turnbook-*` built here is used; the named path only as a fallback.
+/// The `turnbook` binary built with these tests (keep one target directory per source
+/// tree: a shared one can hold another tree's build under this name).
 fn this_trees_binary() -> PathBuf {
-    let named = PathBuf::from(env!("CARGO_BIN_EXE_turnbook"));
-    let deps = named.parent().map(|d| d.join("deps")).unwrap_or_default();
-    let mut found: Vec<(std::time::SystemTime, PathBuf)> = fs::read_dir(&deps)
-        .map(|dir| {
-            dir.flatten()
-                .map(|e| e.path())
-                .filter(|p| {
-                    p.file_name()
-                        .and_then(|n| n.to_str())
-                        .is_some_and(|n| n.starts_with("turnbook-") && !n.contains('.'))
-                })
-                .filter(|p| built_from_this_tree(p))
-                .filter_map(|p| Some((fs::metadata(&p).ok()?.modified().ok()?, p)))
-                .collect()
-        })
-        .unwrap_or_default();
-    found.sort();
-    match found.pop() {
-        Some((_, p)) => p,
-        None if built_from_this_tree(&named) => named,
-        None => panic!(
-            "no turnbook binary built from {} in {} or {}: the target directory is shared \
-             with another source tree whose build cargo takes as fresh for this one; build \
-             with a target directory of this tree's own (CARGO_TARGET_DIR)",
-            env!("CARGO_MANIFEST_DIR"),
-            named.display(),
-            deps.display()
-        ),
-    }
-}
-
-/// True when `bin` was built from this source tree: the build's source directory is in
-/// the binary's debug line tables. Without `grep`, assumed true.
-fn built_from_this_tree(bin: &Path) -> bool {
-    Command::new("grep")
-        .args(["-q", "-a", "-F", env!("CARGO_MANIFEST_DIR")])
-        .arg(bin)
-        .status()
-        .map_or(true, |s| s.success())
+    PathBuf::from(env!("CARGO_BIN_EXE_turnbook"))
 }
 
 fn spawn(bin: &Path, config: &Path, log: &Path) -> Child {

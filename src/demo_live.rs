@@ -71,22 +71,26 @@ pub fn run(
         });
         let mut last = start_id;
         let deadline = Instant::now() + Duration::from_secs(40);
-        let mut seen = 0usize;
-        while seen < files.len() && Instant::now() < deadline {
+        // Wait for exactly the files the plant writes now (not whatever else is recorded).
+        let root = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
+        let mut waiting: Vec<PathBuf> = files.iter().map(|(rel, _)| root.join(rel)).collect();
+        while !waiting.is_empty() && Instant::now() < deadline {
             tokio::time::sleep(Duration::from_millis(250)).await;
             for (id, path, outcome, rows) in landed_since(&conn, last).unwrap_or_default() {
                 last = id;
-                seen += 1;
-                let shown = Path::new(&path)
-                    .strip_prefix(dir)
+                let path = PathBuf::from(path);
+                waiting.retain(|w| *w != path);
+                let shown = path
+                    .strip_prefix(&root)
                     .map(Path::to_path_buf)
-                    .unwrap_or_else(|_| PathBuf::from(&path));
+                    .unwrap_or_else(|_| path.clone());
                 println!(
                     "                 turnbook       {outcome} {} ({rows} new rows)",
                     shown.display()
                 );
             }
         }
+        let seen = files.len() - waiting.len();
         match writer.await {
             Ok(Ok(())) => {}
             Ok(Err(e)) => {

@@ -172,7 +172,7 @@ impl Ingestor {
                 "SELECT COUNT(*) FROM source_files WHERE path = ?1 AND size = ?2 AND mtime IS ?3",
             )?
             .query_row(
-                rusqlite::params![path.display().to_string(), meta.len() as i64, mtime],
+                rusqlite::params![recorded_path(path), meta.len() as i64, mtime],
                 |r| r.get(0),
             )?;
         Ok(n > 0)
@@ -397,7 +397,7 @@ impl Reader<'_> {
 
     /// Read, hash and parse one file. Never fails: a problem becomes a rejection.
     fn prepare(&self, path: &Path, folders: &FolderRoots<'_>) -> Prepared {
-        let display = path.display().to_string();
+        let display = recorded_path(path);
         let mut facts = FileFacts {
             path: display.clone(),
             sha256: String::new(),
@@ -541,6 +541,15 @@ fn quarantine_copy(dir: &Path, facts: &FileFacts) -> Option<String> {
             None
         }
     }
+}
+
+/// The path as recorded: absolute (symbolic links kept), so a file reached through a
+/// relative backfill argument and through the watcher is recorded under one name.
+pub fn recorded_path(path: &Path) -> String {
+    std::path::absolute(path)
+        .unwrap_or_else(|_| path.to_path_buf())
+        .display()
+        .to_string()
 }
 
 /// Every regular file below `path` (or `path` itself), sorted, for a backfill.

@@ -3,6 +3,8 @@
 //! (Debian) or `pip install aiosmtpd`; set TURNBOOK_TEST_PYTHON to pick the interpreter.
 //! Without it the test is skipped, unless CI is set, where it fails.
 
+mod common;
+
 use std::io::{BufRead, BufReader};
 use std::net::TcpListener;
 use std::path::{Path, PathBuf};
@@ -16,19 +18,6 @@ use turnbook::alert::rules::{EvidenceRow, Recipients};
 use turnbook::alert::{AlertRules, LotSnapshot, deliver_due, enqueue, evaluate};
 
 const SCHEMA: &str = include_str!("../schema/0003_outbox.sql");
-
-fn python_with_aiosmtpd() -> Option<String> {
-    let mut candidates: Vec<String> = std::env::var("TURNBOOK_TEST_PYTHON").into_iter().collect();
-    candidates.extend(["python3".into(), "/usr/bin/python3".into()]);
-    candidates.into_iter().find(|py| {
-        Command::new(py)
-            .args(["-c", "import aiosmtpd"])
-            .stdout(Stdio::null())
-            .stderr(Stdio::null())
-            .status()
-            .is_ok_and(|s| s.success())
-    })
-}
 
 struct Sink {
     child: Child,
@@ -149,7 +138,7 @@ async fn delivers_through_a_real_server_waits_while_down_and_never_twice() {
         eprintln!("skipped: TURNBOOK_SMTP_URL is set and would override the test server");
         return;
     }
-    let Some(python) = python_with_aiosmtpd() else {
+    let Some(python) = common::python_with_aiosmtpd() else {
         let msg =
             "aiosmtpd not available (apt-get install python3-aiosmtpd or pip install aiosmtpd)";
         assert!(std::env::var_os("CI").is_none(), "{msg}");

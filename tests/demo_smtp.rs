@@ -2,25 +2,14 @@
 //! on loopback (aiosmtpd via tests/smtp_sink.py) instead of writing .eml files. Skipped
 //! without aiosmtpd unless CI is set, where it fails.
 
+mod common;
+
 use std::io::{BufRead, BufReader};
 use std::net::TcpListener;
 use std::path::Path;
 use std::process::{Child, Command, Stdio};
 
 use mail_parser::MessageParser;
-
-fn python_with_aiosmtpd() -> Option<String> {
-    let mut candidates: Vec<String> = std::env::var("TURNBOOK_TEST_PYTHON").into_iter().collect();
-    candidates.extend(["python3".into(), "/usr/bin/python3".into()]);
-    candidates.into_iter().find(|py| {
-        Command::new(py)
-            .args(["-c", "import aiosmtpd"])
-            .stdout(Stdio::null())
-            .stderr(Stdio::null())
-            .status()
-            .is_ok_and(|s| s.success())
-    })
-}
 
 struct Sink(Child);
 
@@ -33,7 +22,7 @@ impl Drop for Sink {
 
 #[test]
 fn demo_sends_its_alerts_over_smtp_when_asked() {
-    let Some(python) = python_with_aiosmtpd() else {
+    let Some(python) = common::python_with_aiosmtpd() else {
         if std::env::var_os("CI").is_some() {
             panic!("aiosmtpd is not installed; CI must install it (pip install aiosmtpd)");
         }

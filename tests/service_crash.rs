@@ -5,10 +5,12 @@
 
 #![cfg(unix)]
 
+mod common;
+
 use std::collections::BTreeSet;
 use std::fs;
 use std::io::Write;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::process::{Child, Command, Stdio};
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -35,24 +37,6 @@ impl Mix {
     fn between(&mut self, lo: u64, hi: u64) -> u64 {
         lo + self.next() % (hi - lo + 1)
     }
-}
-
-/// The binary under test, checked.
-fn binary() -> PathBuf {
-    let bin = this_trees_binary();
-    let out = Command::new(&bin).arg("--version").output().unwrap();
-    assert!(
-        String::from_utf8_lossy(&out.stdout).starts_with("turnbook "),
-        "{} does not answer --version: {out:?}",
-        bin.display()
-    );
-    bin
-}
-
-/// The `turnbook` binary built with these tests (keep one target directory per source
-/// tree: a shared one can hold another tree's build under this name).
-fn this_trees_binary() -> PathBuf {
-    PathBuf::from(env!("CARGO_BIN_EXE_turnbook"))
 }
 
 fn spawn(bin: &Path, config: &Path, log: &Path) -> Child {
@@ -137,7 +121,7 @@ from = "turnbook@plant.test"
 "#,
     )
     .unwrap();
-    let bin = binary();
+    let bin = common::turnbook_binary();
     let db = root.join("plant.db");
     let log = root.join("service.log");
 

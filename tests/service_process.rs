@@ -6,6 +6,8 @@
 
 #![cfg(unix)]
 
+mod common;
+
 use std::fs;
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -21,22 +23,7 @@ const SETTLE_MS: u64 = 300;
 /// The binary under test, checked once.
 fn binary() -> &'static Path {
     static BIN: OnceLock<PathBuf> = OnceLock::new();
-    BIN.get_or_init(|| {
-        let bin = this_trees_binary();
-        let out = Command::new(&bin).arg("--version").output().unwrap();
-        assert!(
-            String::from_utf8_lossy(&out.stdout).starts_with("turnbook "),
-            "{} does not answer --version: {out:?}",
-            bin.display()
-        );
-        bin
-    })
-}
-
-/// The `turnbook` binary built with these tests (keep one target directory per source
-/// tree: a shared one can hold another tree's build under this name).
-fn this_trees_binary() -> PathBuf {
-    PathBuf::from(env!("CARGO_BIN_EXE_turnbook"))
+    BIN.get_or_init(common::turnbook_binary)
 }
 
 /// A temporary plant: one configuration, one database, one or two watched folders.

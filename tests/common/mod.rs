@@ -1,0 +1,33 @@
+//! Helpers shared by the integration tests (each test file uses only some of them).
+#![allow(dead_code)]
+
+use std::path::PathBuf;
+use std::process::{Command, Stdio};
+
+/// The `turnbook` binary cargo built for these tests, checked to answer `--version` (keep
+/// one target directory per source tree: a shared one can hold another tree's build).
+pub fn turnbook_binary() -> PathBuf {
+    let bin = PathBuf::from(env!("CARGO_BIN_EXE_turnbook"));
+    let out = Command::new(&bin).arg("--version").output().unwrap();
+    assert!(
+        String::from_utf8_lossy(&out.stdout).starts_with("turnbook "),
+        "{} does not answer --version: {out:?}",
+        bin.display()
+    );
+    bin
+}
+
+/// A Python interpreter that has aiosmtpd (the real SMTP server of the mail tests):
+/// TURNBOOK_TEST_PYTHON, else python3, else /usr/bin/python3.
+pub fn python_with_aiosmtpd() -> Option<String> {
+    let mut candidates: Vec<String> = std::env::var("TURNBOOK_TEST_PYTHON").into_iter().collect();
+    candidates.extend(["python3".into(), "/usr/bin/python3".into()]);
+    candidates.into_iter().find(|py| {
+        Command::new(py)
+            .args(["-c", "import aiosmtpd"])
+            .stdout(Stdio::null())
+            .stderr(Stdio::null())
+            .status()
+            .is_ok_and(|s| s.success())
+    })
+}

@@ -478,15 +478,19 @@ pub fn lot_names(conn: &Connection) -> Result<Vec<String>> {
 
 /// The newest event that wrote records of a lot.
 fn newest_seq_of(conn: &Connection, lot: &str) -> Result<i64> {
-    Ok(conn.query_row(
-        "SELECT MAX(s) FROM (
-             SELECT MAX(m.event_seq) AS s FROM measurements m JOIN cycles c ON c.batch_id = m.batch_id WHERE c.lot = ?1
+    // Each part is an index-only lookup: measurements by (batch_id, event_seq), lots by
+    // name, exclusions through their partial index.
+    Ok(conn
+        .prepare_cached(
+            "SELECT MAX(s) FROM (
+             SELECT (SELECT MAX(m.event_seq) FROM measurements m WHERE m.batch_id = c.batch_id) AS s
+                 FROM cycles c WHERE c.lot = ?1
              UNION ALL SELECT event_seq FROM lots WHERE lot = ?1
-             UNION ALL SELECT MAX(e.seq) FROM events e WHERE e.kind = 'exclusion' AND e.subject IN (SELECT batch_id FROM cycles WHERE lot = ?1))",
-        [lot],
-        |r| r.get::<_, Option<i64>>(0),
-    )?
-    .unwrap_or(0))
+             UNION ALL SELECT MAX(e.seq) FROM cycles c JOIN events e
+                 ON e.subject = c.batch_id AND e.kind = 'exclusion' WHERE c.lot = ?1)",
+        )?
+        .query_row([lot], |r| r.get::<_, Option<i64>>(0))?
+        .unwrap_or(0))
 }
 
 /// Recompute metrics, fits and alerts of the given lots, in the caller's transaction.

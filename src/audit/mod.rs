@@ -66,6 +66,18 @@ pub fn append(
     subject: &str,
     payload: &Payload,
 ) -> Result<i64> {
+    append_encoded(tx, at, actor, subject, payload.kind(), &canonical(payload)?)
+}
+
+/// [`append`] for a payload already in its canonical encoding (`body`, of kind `kind`).
+pub fn append_encoded(
+    tx: &Transaction<'_>,
+    at: &str,
+    actor: &str,
+    subject: &str,
+    kind: &str,
+    body: &str,
+) -> Result<i64> {
     let (seq, prev): (i64, String) = tx
         .prepare_cached("SELECT seq, hash FROM events ORDER BY seq DESC LIMIT 1")?
         .query_row([], |r| Ok((r.get::<_, i64>(0)? + 1, r.get(1)?)))
@@ -73,9 +85,7 @@ pub fn append(
             rusqlite::Error::QueryReturnedNoRows => Ok((1, GENESIS.to_string())),
             e => Err(e),
         })?;
-    let body = canonical(payload)?;
-    let kind = payload.kind();
-    let hash = event_hash(&prev, seq, at, actor, kind, subject, &body);
+    let hash = event_hash(&prev, seq, at, actor, kind, subject, body);
     tx.prepare_cached(
         "INSERT INTO events(seq, at, actor, kind, subject, payload, prev_hash, hash)
          VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",

@@ -100,6 +100,17 @@ pub enum Payload {
     },
 }
 
+/// The `file-ingested` payload by reference: serialises exactly as
+/// [`Payload::FileIngested`] (a test checks it), without copying every row of the file
+/// first; the writer of a backfill builds one per file.
+#[derive(Debug, Serialize)]
+#[serde(tag = "kind", rename = "file-ingested")]
+pub struct FileIngestedRef<'a> {
+    pub file: &'a FileRow,
+    pub measurements: &'a [MeasurementRow],
+    pub lots: &'a [LotRecord],
+}
+
 impl Payload {
     /// The event kind, as stored in `events.kind`.
     pub fn kind(&self) -> &'static str {
@@ -113,5 +124,67 @@ impl Payload {
             Payload::Note { .. } => "note",
             Payload::SignOff { .. } => "sign-off",
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn file_ingested_by_reference_encodes_as_the_payload() {
+        let file = FileRow {
+            id: 3,
+            sha256: "ab".repeat(32),
+            path: "/x/\"q\".csv".into(),
+            size: 10,
+            mtime: None,
+            profile: Some("p".into()),
+            site: None,
+            seen_at: "2026-01-01T00:00:00.000Z".into(),
+            outcome: "ingested".into(),
+            error: None,
+            rows_new: 1,
+            rows_known: 0,
+            rows_conflict: 0,
+            quarantined: None,
+        };
+        let m = MeasurementRow {
+            id: 9,
+            batch_id: "B1".into(),
+            quantity: "conversion".into(),
+            value: Some(0.1 + 0.2),
+            text: None,
+            kind: "observed".into(),
+            source_file_id: Some(3),
+            line: Some(2),
+            col: Some(7),
+            raw: Some("30,0".into()),
+        };
+        let lot = LotRecord {
+            lot: "L".into(),
+            catalyst: "Pd/C".into(),
+            metal: "Pd".into(),
+            loading_wt_pct: 5.0,
+            charged_mass_g: 1.25,
+            received: None,
+            supplier_lot: None,
+            cost: Some(100.0),
+            site: None,
+        };
+        let owned = Payload::FileIngested {
+            file: file.clone(),
+            measurements: vec![m.clone(), m.clone()],
+            lots: vec![lot.clone()],
+        };
+        let by_ref = FileIngestedRef {
+            file: &file,
+            measurements: &[m.clone(), m],
+            lots: &[lot],
+        };
+        assert_eq!(
+            serde_json::to_string(&owned).unwrap(),
+            serde_json::to_string(&by_ref).unwrap()
+        );
     }
 }

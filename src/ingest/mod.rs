@@ -6,6 +6,7 @@
 //! - [`parse()`]: one file through one profile into [`ParsedFile`].
 
 pub mod decode;
+mod delimited;
 pub mod parse;
 pub mod profile;
 pub mod record;

@@ -1,12 +1,13 @@
 //! Reading decoded export text through a [`Profile`] into rows in canonical units.
 //!
-//! One pass over the text (the csv crate's reader), first error wins. Every error
+//! One pass over the text (`csv_core`, see [`super::delimited`]), first error wins. Every error
 //! carries the 1-based physical line of the decoded text and, for a cell, the 1-based
 //! column (the field's position in the row, as a spreadsheet counts columns).
 
 use chrono::{NaiveDate, NaiveDateTime};
 
 use super::decode::decode;
+use super::delimited::{Record, Records};
 use super::profile::{
     DEFAULT_DATE_FORMAT, DEFAULT_DATETIME_FORMATS, DecimalMark, Field, FieldType, Profile,
     ProfileKind, UNIT_FROM_HEADER,
@@ -44,18 +45,11 @@ pub fn parse_text(text: &str, profile: &Profile) -> Result<ParsedFile, ParseErro
         ));
     }
     let (body, skipped) = skip_lines(text, profile.skip_lines)?;
-    let mut reader = csv::ReaderBuilder::new()
-        .has_headers(false)
-        .flexible(true)
-        .delimiter(profile.delimiter.byte())
-        .from_reader(body.as_bytes());
-    let mut record = csv::StringRecord::new();
+    let mut reader = Records::new(body, profile.delimiter.byte());
+    let mut record = Record::default();
     let mut lines = LineCounter::new(body, skipped);
     let header_line = loop {
-        let more = reader
-            .read_record(&mut record)
-            .map_err(|e| csv_error(&e, &mut lines))?;
-        if !more {
+        if !reader.read(&mut record) {
             return Err(err(
                 None,
                 None,
@@ -70,10 +64,7 @@ pub fn parse_text(text: &str, profile: &Profile) -> Result<ParsedFile, ParseErro
     };
     let layout = Layout::resolve(profile, &record, header_line)?;
     let mut rows = Rows::new(profile.kind);
-    while reader
-        .read_record(&mut record)
-        .map_err(|e| csv_error(&e, &mut lines))?
-    {
+    while reader.read(&mut record) {
         if is_blank(&record) {
             continue;
         }
@@ -193,10 +184,8 @@ impl<'a> LineCounter<'a> {
 
     /// Line of the first byte at or after `byte` that is not a line terminator (a
     /// record's position points before the empty lines skipped ahead of it).
-    fn line_at(&mut self, byte: u64) -> u64 {
-        let mut target = usize::try_from(byte)
-            .unwrap_or(usize::MAX)
-            .min(self.body.len());
+    fn line_at(&mut self, byte: usize) -> u64 {
+        let mut target = byte.min(self.body.len());
         while target < self.body.len() && matches!(self.body[target], b'\r' | b'\n') {
             target += 1;
         }
@@ -210,25 +199,13 @@ impl<'a> LineCounter<'a> {
         self.line
     }
 
-    fn line_of(&mut self, record: &csv::StringRecord) -> u64 {
-        let byte = record.position().map(|p| p.byte()).unwrap_or(0);
-        self.line_at(byte)
+    fn line_of(&mut self, record: &Record) -> u64 {
+        self.line_at(record.start())
     }
 }
 
-fn is_blank(record: &csv::StringRecord) -> bool {
+fn is_blank(record: &Record) -> bool {
     record.iter().all(|f| f.trim().is_empty())
-}
-
-fn csv_error(e: &csv::Error, lines: &mut LineCounter) -> ParseError {
-    let line = e.position().map(|p| lines.line_at(p.byte()));
-    err(
-        line,
-        None,
-        None,
-        "well-formed delimited text",
-        &e.to_string(),
-    )
 }
 
 fn col(index: usize) -> u32 {
@@ -254,11 +231,7 @@ struct Layout {
 }
 
 impl Layout {
-    fn resolve(
-        profile: &Profile,
-        header: &csv::StringRecord,
-        line: u64,
-    ) -> Result<Layout, ParseError> {
+    fn resolve(profile: &Profile, header: &Record, line: u64) -> Result<Layout, ParseError> {
         let cells: Vec<String> = header.iter().map(|c| c.trim().to_owned()).collect();
         let folded: Vec<String> = cells.iter().map(|c| c.to_lowercase()).collect();
         let split: Vec<Option<(String, String)>> = cells
@@ -378,7 +351,7 @@ impl Layout {
 
     /// A short row is a truncated line; extra cells are tolerated only when empty
     /// (spreadsheet exports often end rows with a stray delimiter).
-    fn check_width(&self, record: &csv::StringRecord, line: u64) -> Result<(), ParseError> {
+    fn check_width(&self, record: &Record, line: u64) -> Result<(), ParseError> {
         let n = record.len();
         if n < self.width {
             // Name the first missing cell by its profile key when mapped, else its header.
@@ -422,7 +395,7 @@ impl Layout {
     fn cycle_row(
         &self,
         profile: &Profile,
-        record: &csv::StringRecord,
+        record: &Record,
         line: u64,
     ) -> Result<CycleRow, ParseError> {
         let mut row = CycleRow {
@@ -469,12 +442,7 @@ impl Layout {
         Ok(row)
     }
 
-    fn lot_row(
-        &self,
-        profile: &Profile,
-        record: &csv::StringRecord,
-        line: u64,
-    ) -> Result<LotRow, ParseError> {
+    fn lot_row(&self, profile: &Profile, record: &Record, line: u64) -> Result<LotRow, ParseError> {
         let mut lot = None;
         let mut catalyst = None;
         let mut metal = None;

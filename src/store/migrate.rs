@@ -11,6 +11,7 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
     (1, "core", include_str!("../../schema/0001_core.sql")),
     (2, "fits", include_str!("../../schema/0002_fits.sql")),
     (3, "outbox", include_str!("../../schema/0003_outbox.sql")),
+    (4, "indexes", include_str!("../../schema/0004_indexes.sql")),
 ];
 
 /// The newest schema version this build knows.

@@ -37,7 +37,8 @@ pub type Result<T> = std::result::Result<T, StoreError>;
 /// bring the schema up to date.
 ///
 /// WAL lets readers (`status`, reports) run while the service writes; `synchronous=FULL`
-/// makes a committed file survive power loss, which the exactly-once promise needs.
+/// makes a committed file survive power loss, which the exactly-once promise needs (a
+/// backfill relaxes it per group and syncs once at its end; see `Ingestor::ingest_paths`).
 pub fn open(path: &Path) -> Result<Connection> {
     let mut conn = Connection::open(path)?;
     configure(&conn)?;

@@ -9,7 +9,7 @@ use serde::Serialize;
 
 use super::view::{self, ATTR_CYCLE_NO, ATTR_LOT, ATTR_STARTED_AT, CYCLE_COLUMNS, CycleView};
 use super::{Result, StoreError};
-use crate::audit::payload::{FileRow, LotRecord, MeasurementRow};
+use crate::audit::payload::{FileIngestedRef, FileRow, LotRecord, MeasurementRow};
 use crate::audit::{self, Payload};
 use crate::ingest::{CycleRow, LotRow, ParsedFile, Quantity};
 
@@ -469,12 +469,19 @@ pub fn record_parsed_with(
     file.rows_new = out.rows_new;
     file.rows_known = out.rows_known;
     file.rows_conflict = out.rows_conflict;
-    let payload = Payload::FileIngested {
-        file: file.clone(),
-        measurements: new_measurements.clone(),
-        lots: lots.clone(),
-    };
-    let seq = audit::append(tx, &facts.seen_at, actor, &facts.path, &payload)?;
+    let body = serde_json::to_string(&FileIngestedRef {
+        file: &file,
+        measurements: &new_measurements,
+        lots: &lots,
+    })?;
+    let seq = audit::append_encoded(
+        tx,
+        &facts.seen_at,
+        actor,
+        &facts.path,
+        "file-ingested",
+        &body,
+    )?;
     ids.measurements_to(next_m);
     out.event_seq = seq;
     insert_file(tx, &file, seq)?;

@@ -149,6 +149,14 @@ fn main() {
         .query_row("SELECT COUNT(*) FROM cycles", [], |r| r.get(0))
         .expect("count cycles");
     assert_eq!(cycles as usize, n);
+    let (payload, pages): (f64, i64) = ing
+        .conn()
+        .query_row(
+            "SELECT (SELECT AVG(LENGTH(payload)) FROM events), (SELECT page_count FROM pragma_page_count())",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .expect("database figures");
     let hwm = vm_hwm_kib().unwrap_or(0);
     println!(
         "backfill: {n} files ({:.1} MB) in {total:.2} s = {:.0} files/s; \
@@ -161,6 +169,10 @@ fn main() {
         "backfill: CPU {proc_cpu:.2} s in all threads, {writer_cpu:.2} s in the writer \
          ({:.1} us a file, recompute included)",
         writer_cpu * 1e6 / n as f64
+    );
+    println!(
+        "backfill: database {:.0} bytes a file (page_count {pages}), event payload {payload:.0} bytes on average",
+        pages as f64 * 4096.0 / n as f64
     );
     println!(
         "backfill: peak RSS (VmHWM) {:.1} MB (before ingesting {:.1} MB)",

@@ -2,7 +2,8 @@
 //! five lots) ingested through `Ingestor::ingest_paths` in this process. Prints files/s
 //! for the whole run and for the recompute at its end, and the peak resident set (VmHWM).
 //!
-//! `cargo bench --bench backfill` (TURNBOOK_BENCH_FILES overrides the count).
+//! `cargo bench --bench backfill` (TURNBOOK_BENCH_FILES overrides the count,
+//! TURNBOOK_BENCH_GROUP the files per transaction).
 
 use std::io::Read;
 use std::path::{Path, PathBuf};
@@ -97,7 +98,15 @@ fn main() {
     let t = Instant::now();
     write_exports(&exports, n).expect("write the export files");
     let cfg_path = root.join("turnbook.toml");
-    std::fs::write(&cfg_path, CONFIG).expect("write the configuration");
+    // TURNBOOK_BENCH_GROUP overrides files_per_transaction.
+    let config = match std::env::var("TURNBOOK_BENCH_GROUP") {
+        Ok(g) => CONFIG.replace(
+            "files_per_transaction = 1000",
+            &format!("files_per_transaction = {g}"),
+        ),
+        Err(_) => CONFIG.to_string(),
+    };
+    std::fs::write(&cfg_path, config).expect("write the configuration");
     println!(
         "backfill: wrote {n} files in {:.2} s",
         t.elapsed().as_secs_f64()

@@ -501,8 +501,24 @@ pub fn recompute_lots(
     _actor: &str,
 ) -> Result<()> {
     for lot in lots {
-        let state = lot_state(tx, cfg, lot)?;
         let after = newest_seq_of(tx, lot)?;
+        if records::lot(tx, lot)?.is_none() {
+            // Pending (nobody registered the lot): nothing to fit and no alert to raise;
+            // the empty fit still records what the lot's records were when looked at.
+            tx.prepare_cached(
+                "INSERT INTO fits(lot, computed_at, after_seq, engine_version, basis, model, analysis)
+                 VALUES (?1, ?2, ?3, ?4, ?5, NULL, 'null')",
+            )?
+            .execute(rusqlite::params![
+                lot,
+                crate::audit::now_utc(),
+                after,
+                fit::ENGINE_VERSION,
+                basis(cfg),
+            ])?;
+            continue;
+        }
+        let state = lot_state(tx, cfg, lot)?;
         let json = match &state.analysis {
             Some(a) => serde_json::to_string(a)?,
             None => "null".into(),

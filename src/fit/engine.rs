@@ -7,6 +7,7 @@ use super::error::FitError;
 use super::lm::{LmOptions, LmOutcome, StopReason, levenberg_marquardt};
 use super::models::ModelId;
 use super::start::start_values;
+use super::varpro::fit_two_site;
 
 /// How to fit one model. Start values and bounds are given by parameter name.
 #[derive(Debug, Clone, Default, PartialEq)]
@@ -136,7 +137,17 @@ pub fn fit_model(
         }
         lm.bounds = b;
     }
-    let out = levenberg_marquardt(&model, x, y, opts.weights.as_deref(), &start, &lm)?;
+    let weights = opts.weights.as_deref();
+    // Two sites go through variable projection, which ends the degenerate valley quickly
+    // and hands an interior optimum back to the engine (see varpro.rs).
+    let via_projection = match model {
+        ModelId::TwoSite => fit_two_site(x, y, weights, &start, &lm),
+        _ => None,
+    };
+    let out = match via_projection {
+        Some(out) => out?,
+        None => levenberg_marquardt(&model, x, y, weights, &start, &lm)?,
+    };
     Ok(result_from(model, &out, x.len()))
 }
 

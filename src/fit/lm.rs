@@ -140,6 +140,9 @@ pub enum StopReason {
     NonFiniteJacobian,
     /// Many iterations brought no meaningful reduction of RSS: a flat valley.
     Stalled,
+    /// The best fit lies where the model turns into a simpler one (a rate at zero, two
+    /// equal rates): no interior optimum, the parameters are not identifiable.
+    Degenerate,
 }
 
 impl StopReason {
@@ -164,6 +167,9 @@ impl StopReason {
             StopReason::NoReductionPossible => "no step reduces RSS (flat or singular problem)",
             StopReason::NonFiniteJacobian => "model derivatives are not finite",
             StopReason::Stalled => "no progress along a flat valley (poorly determined model)",
+            StopReason::Degenerate => {
+                "the best fit degenerates into a simpler model (a rate at zero or two equal rates)"
+            }
         }
     }
 }

@@ -125,10 +125,21 @@ pub fn fit_model(
     opts: &FitOptions,
 ) -> Result<FitResult, FitError> {
     let p = model.n_params();
-    let mut start = start_values(model, x, y);
+    let mut named: Vec<Option<f64>> = vec![None; p];
     for (name, v) in &opts.start {
-        start[model.param_index(name)?] = *v;
+        named[model.param_index(name)?] = Some(*v);
     }
+    // The automatic starts cost a grid search; a refit that names every start skips it.
+    let start: Vec<f64> = if named.iter().all(Option::is_some) {
+        named.iter().map(|v| v.unwrap_or(f64::NAN)).collect()
+    } else {
+        let auto = start_values(model, x, y);
+        named
+            .iter()
+            .zip(auto)
+            .map(|(v, a)| v.unwrap_or(a))
+            .collect()
+    };
     let mut lm = opts.lm.clone();
     if !opts.bounds.is_empty() {
         let mut b = vec![(f64::NEG_INFINITY, f64::INFINITY); p];

@@ -59,9 +59,17 @@ impl FitResult {
     /// Variance of the fitted mean at x, gᵀΣg with g = ∂y/∂θ (delta method).
     pub fn mean_variance(&self, x: f64) -> Option<f64> {
         let cov = self.covariance.as_ref()?;
-        let mut g = vec![0.0; self.params.len()];
-        self.model.grad(x, &self.params, &mut g);
-        let v = quad_form(cov, &g);
+        // On the stack: a plot grid calls this for every point.
+        let (mut small, mut large);
+        let g: &mut [f64] = if self.params.len() <= 8 {
+            small = [0.0; 8];
+            &mut small[..self.params.len()]
+        } else {
+            large = vec![0.0; self.params.len()];
+            &mut large
+        };
+        self.model.grad(x, &self.params, g);
+        let v = quad_form(cov, g);
         (v.is_finite() && v >= 0.0).then_some(v)
     }
 }

@@ -375,6 +375,7 @@ pub fn inverse_jtj(jac: &DMatrix<f64>) -> Option<Vec<Vec<f64>>> {
     for j in 0..p {
         v[j * p + j] = 1.0;
     }
+    let tol = p as f64 * f64::EPSILON;
     for _sweep in 0..60 {
         let mut rotated = false;
         for i in 0..p {
@@ -383,7 +384,8 @@ pub fn inverse_jtj(jac: &DMatrix<f64>) -> Option<Vec<Vec<f64>>> {
                 let alpha = dot(bi, bi);
                 let beta = dot(bj, bj);
                 let gamma = dot(bi, bj);
-                if gamma == 0.0 || gamma.abs() <= f64::EPSILON * (alpha * beta).sqrt() {
+                // Orthogonal to rounding: p·ε, since each dot product carries that error.
+                if gamma == 0.0 || gamma.abs() <= tol * (alpha * beta).sqrt() {
                     continue;
                 }
                 rotated = true;
@@ -492,8 +494,12 @@ pub fn levenberg_marquardt(
     let mut p = start.to_vec();
     project(&mut p, &opts.bounds);
     // Every buffer is allocated once here: an iteration allocates nothing.
-    let mut r = vec![0.0; n];
-    let mut rss = residuals(curve, x, y, &sw, &p, &mut r).ok_or_else(|| {
+    // One allocation for all the buffers.
+    let mut work = vec![0.0; 3 * n + 9 * np + 2 * np * np];
+    let (mut r, rest) = work.split_at_mut(n);
+    let (mut r_trial, rest) = rest.split_at_mut(n);
+    let (r_geo, rest) = rest.split_at_mut(n);
+    let mut rss = residuals(curve, x, y, &sw, &p, r).ok_or_else(|| {
         let index = x
             .iter()
             .position(|&xi| !curve.value(xi, &p).is_finite())
@@ -502,23 +508,16 @@ pub fn levenberg_marquardt(
     })?;
     let mut evaluations = 1;
     let mut jac = DMatrix::zeros(n, np);
-    let mut row = vec![0.0; np];
-    let mut r_trial = vec![0.0; n];
-    let mut r_geo = vec![0.0; n];
-    let mut diag: Vec<f64> = vec![0.0; np];
-    let mut jtj = vec![0.0; np * np];
-    let mut chol = vec![0.0; np * np];
-    let mut g = vec![0.0; np];
-    let mut delta = vec![0.0; np];
-    let mut step = vec![0.0; np];
-    let mut acc = vec![0.0; np];
-    let mut rhs = vec![0.0; np];
+    let (jtj, rest) = rest.split_at_mut(np * np);
+    let (chol, rest) = rest.split_at_mut(np * np);
+    let mut bufs = rest.chunks_exact_mut(np);
+    let mut next = || bufs.next().unwrap_or_default();
+    let (row, diag, g, delta, step) = (next(), next(), next(), next(), next());
+    let (acc, rhs, trial, probe) = (next(), next(), next(), next());
     let mut lambda = 1e-3;
     let mut nu = 2.0;
     let mut iterations = 0;
     let mut reason = StopReason::MaxIterations;
-    let mut trial = vec![0.0; np];
-    let mut probe = vec![0.0; np];
 
     let max_abs = |p: &[f64]| p.iter().fold(0.0f64, |m, v| m.max(v.abs()));
     // (RSS, max |θ|) of the last `stall_window` iterations, compared with the oldest.
@@ -541,7 +540,7 @@ pub fn levenberg_marquardt(
             reason = StopReason::ExactFit;
             break;
         }
-        if !jacobian(curve, x, &sw, &p, &mut jac, &mut row) {
+        if !jacobian(curve, x, &sw, &p, &mut jac, row) {
             reason = StopReason::NonFiniteJacobian;
             break;
         }
@@ -581,7 +580,7 @@ pub fn levenberg_marquardt(
             for j in 0..np {
                 chol[j * np + j] += lambda * diag[j] * diag[j];
             }
-            if !cholesky_in_place(&mut chol, np) {
+            if !cholesky_in_place(chol, np) {
                 lambda *= nu;
                 nu *= 2.0;
                 if lambda > 1e30 {
@@ -590,7 +589,7 @@ pub fn levenberg_marquardt(
                 }
                 continue;
             }
-            cholesky_solve(&chol, np, &g, &mut delta);
+            cholesky_solve(&chol, np, &g, delta);
             // Geodesic acceleration: correct the step with the second directional derivative
             // of the residuals along δ, estimated by one finite difference.
             step.copy_from_slice(&delta);
@@ -599,7 +598,7 @@ pub fn levenberg_marquardt(
                 for j in 0..np {
                     probe[j] = p[j] + h * delta[j];
                 }
-                if residuals(curve, x, y, &sw, &probe, &mut r_geo).is_some() {
+                if residuals(curve, x, y, &sw, &probe, r_geo).is_some() {
                     evaluations += 1;
                     // r(p+hδ) ≈ r − hJδ − ½h²·f''  ⇒  f'' ≈ 2/h·((r − r_h)/h − Jδ)
                     for i in 0..n {
@@ -608,7 +607,7 @@ pub fn levenberg_marquardt(
                     for j in 0..np {
                         rhs[j] = dot(col(j), &r_geo);
                     }
-                    cholesky_solve(&chol, np, &rhs, &mut acc);
+                    cholesky_solve(&chol, np, &rhs, acc);
                     let mut na = 0.0;
                     let mut nd = 0.0;
                     for j in 0..np {
@@ -627,7 +626,7 @@ pub fn levenberg_marquardt(
             for j in 0..np {
                 trial[j] = p[j] + step[j];
             }
-            project(&mut trial, &opts.bounds);
+            project(trial, &opts.bounds);
             // From here `step` is the step actually taken (after the projection).
             for j in 0..np {
                 step[j] = trial[j] - p[j];
@@ -640,7 +639,7 @@ pub fn levenberg_marquardt(
             }
             let step_norm = step_norm.sqrt();
             let pnorm = pnorm.sqrt();
-            let new_rss = residuals(curve, x, y, &sw, &trial, &mut r_trial);
+            let new_rss = residuals(curve, x, y, &sw, &trial, r_trial);
             evaluations += 1;
             // Predicted reduction of the linear model: ‖r‖² − ‖r − Jδ‖².
             let mut lin = 0.0;
@@ -698,7 +697,7 @@ pub fn levenberg_marquardt(
             }
         }
     }
-    let inv_jtj = if jacobian(curve, x, &sw, &p, &mut jac, &mut row) {
+    let inv_jtj = if jacobian(curve, x, &sw, &p, &mut jac, row) {
         inverse_jtj(&jac)
     } else {
         None

@@ -212,10 +212,12 @@ pub fn fit_two_site(
     let span = if xmax > xmin { xmax - xmin } else { 1.0 };
     let kmin = ZERO_RATE / span;
 
+    // `w` holds the projection at the current rates, `wt` that of a trial; an accepted
+    // trial swaps them, a refused one costs nothing to undo.
     let mut w = Work::new(n);
+    let mut wt = Work::new(n);
     let mut k = [k1.max(kmin), k2.max(kmin)];
     let mut rss = w.project(x, &yw, &sw, k)?;
-    let mut best_c = w.c;
     let mut evaluations = 1;
     let mut iterations = 0;
     let mut lambda = 1e-3;
@@ -228,7 +230,6 @@ pub fn fit_two_site(
             verdict = Verdict::Interior;
             break;
         }
-        // The workspace holds the projection at k (restored after a refused trial).
         w.jacobian(x);
         let a = [
             [dot(&w.jac[0], &w.jac[0]), dot(&w.jac[0], &w.jac[1])],
@@ -295,7 +296,7 @@ pub fn fit_two_site(
             }
             let predicted = rss - pred_rss;
             evaluations += 1;
-            match w.project(x, &yw, &sw, trial) {
+            match wt.project(x, &yw, &sw, trial) {
                 Some(new_rss) if new_rss < rss => {
                     let actual = rss - new_rss;
                     let rho = if predicted > 0.0 {
@@ -304,9 +305,9 @@ pub fn fit_two_site(
                         1.0
                     };
                     let old = rss;
+                    std::mem::swap(&mut w, &mut wt);
                     k = trial;
                     rss = new_rss;
-                    best_c = w.c;
                     lambda *= (1.0 - (2.0 * rho - 1.0).powi(3)).max(1.0 / 3.0);
                     lambda = lambda.max(1e-300);
                     nu = 2.0;
@@ -323,12 +324,6 @@ pub fn fit_two_site(
                     break;
                 }
                 other => {
-                    // Back to the projection at k for the next trial.
-                    let restored = w.project(x, &yw, &sw, k);
-                    evaluations += 1;
-                    if restored.is_none() {
-                        break 'outer;
-                    }
                     if step_norm <= opts.xtol * (knorm + opts.xtol)
                         || other.is_some_and(|v| {
                             (v - rss).abs() <= 8.0 * f64::EPSILON * rss
@@ -351,7 +346,6 @@ pub fn fit_two_site(
     if matches!(verdict, Verdict::Interior) && (k[0] <= kmin || k[1] <= kmin) {
         verdict = Verdict::Degenerate;
     }
-    w.c = best_c;
     let params = w.params(k);
     let model = ModelId::TwoSite;
     match verdict {

@@ -141,7 +141,8 @@ pub enum StopReason {
     /// Many iterations brought no meaningful reduction of RSS: a flat valley.
     Stalled,
     /// The best fit lies where the model turns into a simpler one (a rate at zero, two
-    /// equal rates): no interior optimum, the parameters are not identifiable.
+    /// equal rates, a site gone before the second point): no interior optimum, the
+    /// parameters are not identifiable.
     Degenerate,
 }
 
@@ -168,7 +169,7 @@ impl StopReason {
             StopReason::NonFiniteJacobian => "model derivatives are not finite",
             StopReason::Stalled => "no progress along a flat valley (poorly determined model)",
             StopReason::Degenerate => {
-                "the best fit degenerates into a simpler model (a rate at zero or two equal rates)"
+                "the best fit degenerates into a simpler model (a rate at zero or infinity, or two equal rates)"
             }
         }
     }
@@ -553,7 +554,7 @@ pub fn levenberg_marquardt(
                 jtj[a * np + b] = v;
                 jtj[b * np + a] = v;
             }
-            g[a] = dot(col(a), &r);
+            g[a] = dot(col(a), r);
         }
         // (J·v)ᵢ for a parameter-space vector v.
         let jmul = |v: &[f64], i: usize| (0..np).map(|j| js[j * n + i] * v[j]).sum::<f64>();
@@ -576,7 +577,7 @@ pub fn levenberg_marquardt(
             break;
         }
         loop {
-            chol.copy_from_slice(&jtj);
+            chol.copy_from_slice(jtj);
             for j in 0..np {
                 chol[j * np + j] += lambda * diag[j] * diag[j];
             }
@@ -589,25 +590,25 @@ pub fn levenberg_marquardt(
                 }
                 continue;
             }
-            cholesky_solve(&chol, np, &g, delta);
+            cholesky_solve(chol, np, g, delta);
             // Geodesic acceleration: correct the step with the second directional derivative
             // of the residuals along δ, estimated by one finite difference.
-            step.copy_from_slice(&delta);
+            step.copy_from_slice(delta);
             if opts.geodesic && iterations > opts.geodesic_after {
                 let h = 0.1;
                 for j in 0..np {
                     probe[j] = p[j] + h * delta[j];
                 }
-                if residuals(curve, x, y, &sw, &probe, r_geo).is_some() {
+                if residuals(curve, x, y, &sw, probe, r_geo).is_some() {
                     evaluations += 1;
                     // r(p+hδ) ≈ r − hJδ − ½h²·f''  ⇒  f'' ≈ 2/h·((r − r_h)/h − Jδ)
                     for i in 0..n {
-                        r_geo[i] = ((r[i] - r_geo[i]) / h - jmul(&delta, i)) * (2.0 / h);
+                        r_geo[i] = ((r[i] - r_geo[i]) / h - jmul(delta, i)) * (2.0 / h);
                     }
                     for j in 0..np {
-                        rhs[j] = dot(col(j), &r_geo);
+                        rhs[j] = dot(col(j), r_geo);
                     }
-                    cholesky_solve(&chol, np, &rhs, acc);
+                    cholesky_solve(chol, np, rhs, acc);
                     let mut na = 0.0;
                     let mut nd = 0.0;
                     for j in 0..np {
@@ -639,12 +640,12 @@ pub fn levenberg_marquardt(
             }
             let step_norm = step_norm.sqrt();
             let pnorm = pnorm.sqrt();
-            let new_rss = residuals(curve, x, y, &sw, &trial, r_trial);
+            let new_rss = residuals(curve, x, y, &sw, trial, r_trial);
             evaluations += 1;
             // Predicted reduction of the linear model: ‖r‖² − ‖r − Jδ‖².
             let mut lin = 0.0;
             for i in 0..n {
-                let v = r[i] - jmul(&step, i);
+                let v = r[i] - jmul(step, i);
                 lin += v * v;
             }
             let predicted = rss - lin;
@@ -657,7 +658,7 @@ pub fn levenberg_marquardt(
                         1.0
                     };
                     let old = rss;
-                    p.copy_from_slice(&trial);
+                    p.copy_from_slice(trial);
                     std::mem::swap(&mut r, &mut r_trial);
                     rss = new_rss;
                     lambda *= (1.0 - (2.0 * rho - 1.0).powi(3)).max(1.0 / 3.0);

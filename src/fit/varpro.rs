@@ -20,8 +20,15 @@ use super::models::ModelId;
 /// Rates below this fraction of 1/span count as zero: e^(−k·x) then differs from a
 /// straight line by (k·span)²/2 = 5·10⁻⁹ over the data, which no lot can tell apart.
 const ZERO_RATE: f64 = 1e-4;
-/// Rates closer than this (relative) count as equal: the two decays are one.
-const SAME_RATE: f64 = 1e-6;
+/// Rates closer than this (relative) count as equal: the two decays are one. On the way
+/// to equal rates the amplitudes grow with opposite signs like 1/Δk (observed: ±3·10⁴ at
+/// Δk/k = 3·10⁻⁵ on a one-decay lot); a 0.1 % difference of rates cannot be resolved by
+/// a lot of a few dozen cycles at any realistic noise.
+const SAME_RATE: f64 = 1e-3;
+/// A site with k·x above this at the second smallest x has vanished (e^(−40) ≈ 4·10⁻¹⁸)
+/// before the second point: it can only fit the first point, and any larger rate fits as
+/// well, so there is no optimum.
+const GONE_RATE_X: f64 = 40.0;
 /// A basis column whose part orthogonal to the others is below this (relative to its
 /// norm) makes the amplitudes numerically undetermined; such a trial point is refused.
 const RANK_TOL: f64 = 1e-11;
@@ -89,7 +96,8 @@ impl Work {
             }
             let v = &mut self.q[j * n..(j + 1) * n];
             let norm = dot(v, v).sqrt();
-            if !(norm > RANK_TOL * norm0) {
+            // NaN norms fail too.
+            if norm.is_nan() || norm <= RANK_TOL * norm0 {
                 return None;
             }
             self.rr[j][j] = norm;
@@ -168,7 +176,8 @@ fn dot(a: &[f64], b: &[f64]) -> f64 {
 enum Verdict {
     /// A minimum with distinct positive rates.
     Interior,
-    /// The rates reach the edge of the model: a rate at zero, or both equal.
+    /// The rates reach the edge of the model: a rate at zero, both equal, or a site gone
+    /// before the second point.
     Degenerate,
     /// Neither could be established (budget used, or no step reduces RSS).
     Undecided,
@@ -186,7 +195,7 @@ pub fn fit_two_site(
     opts: &LmOptions,
 ) -> Option<Result<LmOutcome, super::error::FitError>> {
     let (k1, k2) = (*start.get(2)?, *start.get(4)?);
-    if !(k1.is_finite() && k2.is_finite() && k1 > 0.0 && k2 > 0.0) || !opts.bounds.is_empty() {
+    if !(k1.is_finite() && k2.is_finite() && k1 > 0.0 && k2 > 0.0 && opts.bounds.is_empty()) {
         return None;
     }
     let n = x.len();
@@ -211,6 +220,13 @@ pub fn fit_two_site(
         });
     let span = if xmax > xmin { xmax - xmin } else { 1.0 };
     let kmin = ZERO_RATE / span;
+    let x_second = x
+        .iter()
+        .copied()
+        .filter(|&v| v > xmin)
+        .fold(f64::INFINITY, f64::min);
+    let gone = |k: [f64; 2]| k.iter().any(|&r| r * x_second > GONE_RATE_X);
+    let merged = |k: [f64; 2]| (k[0] - k[1]).abs() <= SAME_RATE * k[0].max(k[1]);
 
     // `w` holds the projection at the current rates, `wt` that of a trial; an accepted
     // trial swaps them, a refused one costs nothing to undo.
@@ -311,7 +327,7 @@ pub fn fit_two_site(
                     lambda *= (1.0 - (2.0 * rho - 1.0).powi(3)).max(1.0 / 3.0);
                     lambda = lambda.max(1e-300);
                     nu = 2.0;
-                    if (k[0] - k[1]).abs() <= SAME_RATE * k[0].max(k[1]) {
+                    if merged(k) || gone(k) {
                         verdict = Verdict::Degenerate;
                         break 'outer;
                     }
@@ -342,8 +358,10 @@ pub fn fit_two_site(
             }
         }
     }
-    // A "minimum" with a rate held at zero is the edge of the model, not an optimum of it.
-    if matches!(verdict, Verdict::Interior) && (k[0] <= kmin || k[1] <= kmin) {
+    // A "minimum" at the edge of the model is not an optimum of it.
+    if matches!(verdict, Verdict::Interior)
+        && (k[0] <= kmin || k[1] <= kmin || merged(k) || gone(k))
+    {
         verdict = Verdict::Degenerate;
     }
     let params = w.params(k);

@@ -26,6 +26,14 @@ pub trait Curve {
     }
     /// ∂y/∂θ at x into `out` (only called when [`Curve::has_gradient`] is true).
     fn gradient(&self, _x: f64, _p: &[f64], _out: &mut [f64]) {}
+    /// y at x, and ∂y/∂θ into `out`, in one pass (only called when
+    /// [`Curve::has_gradient`] is true). Curves whose value and derivatives share work
+    /// (one exponential for both) override it: the engine then gets the Jacobian of an
+    /// accepted step for free.
+    fn value_and_gradient(&self, x: f64, p: &[f64], out: &mut [f64]) -> f64 {
+        self.gradient(x, p, out);
+        self.value(x, p)
+    }
 }
 
 /// A user model from a closure, differentiated numerically (central differences).
@@ -294,6 +302,39 @@ fn residuals(
     rss.is_finite().then_some(rss)
 }
 
+/// Residuals as [`residuals`] and the weighted Jacobian at the same point, in one pass
+/// over the data. Returns (RSS or None, whether the Jacobian is finite).
+// The arguments are the data and the engine's own buffers; bundling them would only hide that.
+#[allow(clippy::too_many_arguments)]
+fn residuals_and_jacobian(
+    curve: &dyn Curve,
+    x: &[f64],
+    y: &[f64],
+    sw: &[f64],
+    p: &[f64],
+    r: &mut [f64],
+    jac: &mut DMatrix<f64>,
+    row: &mut [f64],
+) -> (Option<f64>, bool) {
+    let mut rss = 0.0;
+    let mut finite_jac = true;
+    for i in 0..x.len() {
+        let f = curve.value_and_gradient(x[i], p, row);
+        let v = sw[i] * (y[i] - f);
+        if !v.is_finite() {
+            return (None, false);
+        }
+        r[i] = v;
+        rss += v * v;
+        for (j, g) in row.iter().enumerate() {
+            let d = sw[i] * g;
+            finite_jac &= d.is_finite();
+            jac[(i, j)] = d;
+        }
+    }
+    (rss.is_finite().then_some(rss), finite_jac)
+}
+
 fn jacobian(
     curve: &dyn Curve,
     x: &[f64],
@@ -509,6 +550,17 @@ pub fn levenberg_marquardt(
     })?;
     let mut evaluations = 1;
     let mut jac = DMatrix::zeros(n, np);
+    // With analytic derivatives every trial point also gets its Jacobian (the same
+    // exponentials serve both); an accepted trial then needs no separate Jacobian pass.
+    let joint = curve.has_gradient();
+    let mut jac_trial = if joint {
+        DMatrix::zeros(n, np)
+    } else {
+        DMatrix::zeros(0, 0)
+    };
+    let mut trial_jac_finite = false;
+    // Some(finite) when `jac` already holds the Jacobian at the current point.
+    let mut jac_ready: Option<bool> = None;
     let (jtj, rest) = rest.split_at_mut(np * np);
     let (chol, rest) = rest.split_at_mut(np * np);
     let mut bufs = rest.chunks_exact_mut(np);
@@ -541,7 +593,11 @@ pub fn levenberg_marquardt(
             reason = StopReason::ExactFit;
             break;
         }
-        if !jacobian(curve, x, &sw, &p, &mut jac, row) {
+        let finite = match jac_ready.take() {
+            Some(f) => f,
+            None => jacobian(curve, x, &sw, &p, &mut jac, row),
+        };
+        if !finite {
             reason = StopReason::NonFiniteJacobian;
             break;
         }
@@ -640,7 +696,14 @@ pub fn levenberg_marquardt(
             }
             let step_norm = step_norm.sqrt();
             let pnorm = pnorm.sqrt();
-            let new_rss = residuals(curve, x, y, &sw, trial, r_trial);
+            let new_rss = if joint {
+                let (v, f) =
+                    residuals_and_jacobian(curve, x, y, &sw, trial, r_trial, &mut jac_trial, row);
+                trial_jac_finite = f;
+                v
+            } else {
+                residuals(curve, x, y, &sw, trial, r_trial)
+            };
             evaluations += 1;
             // Predicted reduction of the linear model: ‖r‖² − ‖r − Jδ‖².
             let mut lin = 0.0;
@@ -660,6 +723,10 @@ pub fn levenberg_marquardt(
                     let old = rss;
                     p.copy_from_slice(trial);
                     std::mem::swap(&mut r, &mut r_trial);
+                    if joint {
+                        std::mem::swap(&mut jac, &mut jac_trial);
+                        jac_ready = Some(trial_jac_finite);
+                    }
                     rss = new_rss;
                     lambda *= (1.0 - (2.0 * rho - 1.0).powi(3)).max(1.0 / 3.0);
                     lambda = lambda.max(1e-300);

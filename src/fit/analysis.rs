@@ -363,7 +363,10 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     let t = t_quantile(opts.confidence, fit.dof);
     let mut plot = PlotData {
         threshold: fc.threshold,
-        ..PlotData::default()
+        x: Vec::with_capacity(np),
+        fit: Vec::with_capacity(np),
+        lower: Vec::with_capacity(np),
+        upper: Vec::with_capacity(np),
     };
     for i in 0..np {
         let x = x_start + (x_end - x_start) * i as f64 / (np - 1) as f64;

@@ -7,6 +7,7 @@ use super::error::FitError;
 use super::lm::{LmOptions, LmOutcome, StopReason, levenberg_marquardt};
 use super::models::ModelId;
 use super::start::start_values;
+use super::varpro::fit_two_site;
 
 /// How to fit one model. Start values and bounds are given by parameter name.
 #[derive(Debug, Clone, Default, PartialEq)]
@@ -58,9 +59,17 @@ impl FitResult {
     /// Variance of the fitted mean at x, gᵀΣg with g = ∂y/∂θ (delta method).
     pub fn mean_variance(&self, x: f64) -> Option<f64> {
         let cov = self.covariance.as_ref()?;
-        let mut g = vec![0.0; self.params.len()];
-        self.model.grad(x, &self.params, &mut g);
-        let v = quad_form(cov, &g);
+        // On the stack: a plot grid calls this for every point.
+        let (mut small, mut large);
+        let g: &mut [f64] = if self.params.len() <= 8 {
+            small = [0.0; 8];
+            &mut small[..self.params.len()]
+        } else {
+            large = vec![0.0; self.params.len()];
+            &mut large
+        };
+        self.model.grad(x, &self.params, g);
+        let v = quad_form(cov, g);
         (v.is_finite() && v >= 0.0).then_some(v)
     }
 }
@@ -124,10 +133,21 @@ pub fn fit_model(
     opts: &FitOptions,
 ) -> Result<FitResult, FitError> {
     let p = model.n_params();
-    let mut start = start_values(model, x, y);
+    let mut named: Vec<Option<f64>> = vec![None; p];
     for (name, v) in &opts.start {
-        start[model.param_index(name)?] = *v;
+        named[model.param_index(name)?] = Some(*v);
     }
+    // The automatic starts cost a grid search; a refit that names every start skips it.
+    let start: Vec<f64> = if named.iter().all(Option::is_some) {
+        named.iter().map(|v| v.unwrap_or(f64::NAN)).collect()
+    } else {
+        let auto = start_values(model, x, y);
+        named
+            .iter()
+            .zip(auto)
+            .map(|(v, a)| v.unwrap_or(a))
+            .collect()
+    };
     let mut lm = opts.lm.clone();
     if !opts.bounds.is_empty() {
         let mut b = vec![(f64::NEG_INFINITY, f64::INFINITY); p];
@@ -136,7 +156,17 @@ pub fn fit_model(
         }
         lm.bounds = b;
     }
-    let out = levenberg_marquardt(&model, x, y, opts.weights.as_deref(), &start, &lm)?;
+    let weights = opts.weights.as_deref();
+    // Two sites go through variable projection, which ends the degenerate valley quickly
+    // and hands an interior optimum back to the engine (see varpro.rs).
+    let via_projection = match model {
+        ModelId::TwoSite => fit_two_site(x, y, weights, &start, &lm),
+        _ => None,
+    };
+    let out = match via_projection {
+        Some(out) => out?,
+        None => levenberg_marquardt(&model, x, y, weights, &start, &lm)?,
+    };
     Ok(result_from(model, &out, x.len()))
 }
 

@@ -74,8 +74,26 @@ pub fn t_quantile(confidence: f64, dof: usize) -> Option<f64> {
     if dof == 0 || !(confidence > 0.0 && confidence < 1.0) {
         return None;
     }
-    let t = StudentsT::new(0.0, 1.0, dof as f64).ok()?;
-    let q = t.inverse_cdf(1.0 - (1.0 - confidence) / 2.0);
+    // The inverse CDF is an iterative incomplete-beta inversion, and one analysis asks for
+    // the same few (confidence, dof) pairs several times: the last ones are remembered.
+    thread_local! {
+        static RECENT: std::cell::RefCell<[(u64, usize, f64); 4]> =
+            const { std::cell::RefCell::new([(u64::MAX, usize::MAX, f64::NAN); 4]) };
+    }
+    let key = confidence.to_bits();
+    let hit = RECENT.with_borrow(|r| r.iter().find(|e| e.0 == key && e.1 == dof).map(|e| e.2));
+    let q = match hit {
+        Some(q) => q,
+        None => {
+            let t = StudentsT::new(0.0, 1.0, dof as f64).ok()?;
+            let q = t.inverse_cdf(1.0 - (1.0 - confidence) / 2.0);
+            RECENT.with_borrow_mut(|r| {
+                r.rotate_right(1);
+                r[0] = (key, dof, q);
+            });
+            q
+        }
+    };
     q.is_finite().then_some(q)
 }
 

@@ -10,7 +10,7 @@
 //! Everything here is pure: the caller hands in data and a [`Curve`], and gets a
 //! [`LmOutcome`] back.
 
-use nalgebra::{DMatrix, DVector};
+use nalgebra::DMatrix;
 
 use super::error::FitError;
 
@@ -26,6 +26,14 @@ pub trait Curve {
     }
     /// ∂y/∂θ at x into `out` (only called when [`Curve::has_gradient`] is true).
     fn gradient(&self, _x: f64, _p: &[f64], _out: &mut [f64]) {}
+    /// y at x, and ∂y/∂θ into `out`, in one pass (only called when
+    /// [`Curve::has_gradient`] is true). Curves whose value and derivatives share work
+    /// (one exponential for both) override it: the engine then gets the Jacobian of an
+    /// accepted step for free.
+    fn value_and_gradient(&self, x: f64, p: &[f64], out: &mut [f64]) -> f64 {
+        self.gradient(x, p, out);
+        self.value(x, p)
+    }
 }
 
 /// A user model from a closure, differentiated numerically (central differences).
@@ -140,6 +148,10 @@ pub enum StopReason {
     NonFiniteJacobian,
     /// Many iterations brought no meaningful reduction of RSS: a flat valley.
     Stalled,
+    /// The best fit lies where the model turns into a simpler one (a rate at zero, two
+    /// equal rates, a site gone before the second point): no interior optimum, the
+    /// parameters are not identifiable.
+    Degenerate,
 }
 
 impl StopReason {
@@ -164,6 +176,9 @@ impl StopReason {
             StopReason::NoReductionPossible => "no step reduces RSS (flat or singular problem)",
             StopReason::NonFiniteJacobian => "model derivatives are not finite",
             StopReason::Stalled => "no progress along a flat valley (poorly determined model)",
+            StopReason::Degenerate => {
+                "the best fit degenerates into a simpler model (a rate at zero or infinity, or two equal rates)"
+            }
         }
     }
 }
@@ -273,7 +288,7 @@ fn residuals(
     y: &[f64],
     sw: &[f64],
     p: &[f64],
-    r: &mut DVector<f64>,
+    r: &mut [f64],
 ) -> Option<f64> {
     let mut rss = 0.0;
     for i in 0..x.len() {
@@ -285,6 +300,39 @@ fn residuals(
         rss += v * v;
     }
     rss.is_finite().then_some(rss)
+}
+
+/// Residuals as [`residuals`] and the weighted Jacobian at the same point, in one pass
+/// over the data. Returns (RSS or None, whether the Jacobian is finite).
+// The arguments are the data and the engine's own buffers; bundling them would only hide that.
+#[allow(clippy::too_many_arguments)]
+fn residuals_and_jacobian(
+    curve: &dyn Curve,
+    x: &[f64],
+    y: &[f64],
+    sw: &[f64],
+    p: &[f64],
+    r: &mut [f64],
+    jac: &mut DMatrix<f64>,
+    row: &mut [f64],
+) -> (Option<f64>, bool) {
+    let mut rss = 0.0;
+    let mut finite_jac = true;
+    for i in 0..x.len() {
+        let f = curve.value_and_gradient(x[i], p, row);
+        let v = sw[i] * (y[i] - f);
+        if !v.is_finite() {
+            return (None, false);
+        }
+        r[i] = v;
+        rss += v * v;
+        for (j, g) in row.iter().enumerate() {
+            let d = sw[i] * g;
+            finite_jac &= d.is_finite();
+            jac[(i, j)] = d;
+        }
+    }
+    (rss.is_finite().then_some(rss), finite_jac)
 }
 
 fn jacobian(
@@ -310,8 +358,16 @@ fn jacobian(
 
 /// (JᵀJ)⁻¹ through the SVD of the column-scaled J, which is far better conditioned than
 /// inverting JᵀJ itself; None when J is rank deficient.
+///
+/// The SVD is taken of R from a Householder QR of the scaled J: same singular values and
+/// right singular vectors, and QR is backward stable. R is p×p, so a one-sided Jacobi SVD
+/// (Hestenes 1958), accurate to high relative precision, costs almost nothing; a general
+/// library SVD of the tall J cost more than the rest of a small fit.
 pub fn inverse_jtj(jac: &DMatrix<f64>) -> Option<Vec<Vec<f64>>> {
-    let p = jac.ncols();
+    let (n, p) = (jac.nrows(), jac.ncols());
+    if n < p || p == 0 {
+        return None;
+    }
     let mut scale = vec![0.0; p];
     for (j, s) in scale.iter_mut().enumerate() {
         *s = jac.column(j).norm();
@@ -319,29 +375,146 @@ pub fn inverse_jtj(jac: &DMatrix<f64>) -> Option<Vec<Vec<f64>>> {
             return None;
         }
     }
-    let mut js = jac.clone();
+    // Column-major copy of the scaled J, reduced in place to R.
+    let mut a: Vec<f64> = jac.as_slice().to_vec();
     for j in 0..p {
-        js.column_mut(j).unscale_mut(scale[j]);
+        a[j * n..(j + 1) * n]
+            .iter_mut()
+            .for_each(|v| *v /= scale[j]);
     }
-    let svd = js.svd(false, true);
-    let vt = svd.v_t?;
-    let smax = svd.singular_values.max();
-    let smin = svd.singular_values.min();
+    for k in 0..p {
+        let norm = a[k * n + k..(k + 1) * n]
+            .iter()
+            .map(|v| v * v)
+            .sum::<f64>()
+            .sqrt();
+        if norm == 0.0 {
+            continue;
+        }
+        let alpha = if a[k * n + k] > 0.0 { -norm } else { norm };
+        a[k * n + k] -= alpha;
+        let vnorm2: f64 = a[k * n + k..(k + 1) * n].iter().map(|v| v * v).sum();
+        for j in k + 1..p {
+            let (left, right) = a.split_at_mut(j * n);
+            let v = &left[k * n + k..(k + 1) * n];
+            let c = &mut right[k..n];
+            let f = 2.0 * dot(v, c) / vnorm2;
+            for (ci, vi) in c.iter_mut().zip(v) {
+                *ci -= f * vi;
+            }
+        }
+        a[k * n + k] = alpha;
+    }
+    // R column-major (p×p), then one-sided Jacobi: rotate column pairs until orthogonal;
+    // B·V = U·Σ at the end, so the column norms are the singular values.
+    let mut b = vec![0.0; p * p];
+    for j in 0..p {
+        for i in 0..=j {
+            b[j * p + i] = a[j * n + i];
+        }
+    }
+    let mut v = vec![0.0; p * p];
+    for j in 0..p {
+        v[j * p + j] = 1.0;
+    }
+    let tol = p as f64 * f64::EPSILON;
+    for _sweep in 0..60 {
+        let mut rotated = false;
+        for i in 0..p {
+            for j in i + 1..p {
+                let (bi, bj) = (&b[i * p..(i + 1) * p], &b[j * p..(j + 1) * p]);
+                let alpha = dot(bi, bi);
+                let beta = dot(bj, bj);
+                let gamma = dot(bi, bj);
+                // Orthogonal to rounding: p·ε, since each dot product carries that error.
+                if gamma == 0.0 || gamma.abs() <= tol * (alpha * beta).sqrt() {
+                    continue;
+                }
+                rotated = true;
+                let zeta = (beta - alpha) / (2.0 * gamma);
+                let t = zeta.signum() / (zeta.abs() + (1.0 + zeta * zeta).sqrt());
+                let c = 1.0 / (1.0 + t * t).sqrt();
+                let s = c * t;
+                for m in [&mut b, &mut v] {
+                    for k in 0..p {
+                        let (x, y) = (m[i * p + k], m[j * p + k]);
+                        m[i * p + k] = c * x - s * y;
+                        m[j * p + k] = s * x + c * y;
+                    }
+                }
+            }
+        }
+        if !rotated {
+            break;
+        }
+    }
+    let sv: Vec<f64> = (0..p)
+        .map(|j| dot(&b[j * p..(j + 1) * p], &b[j * p..(j + 1) * p]).sqrt())
+        .collect();
+    let smax = sv.iter().fold(0.0f64, |m, &x| m.max(x));
+    let smin = sv.iter().fold(f64::INFINITY, |m, &x| m.min(x));
     if smin.is_nan() || smin <= smax * 1e-14 {
         return None;
     }
     let mut inv = vec![vec![0.0; p]; p];
-    for a in 0..p {
-        for b in 0..p {
+    for r in 0..p {
+        for c in 0..p {
             let mut s = 0.0;
-            for k in 0..svd.singular_values.len() {
-                let sk = svd.singular_values[k];
-                s += vt[(k, a)] * vt[(k, b)] / (sk * sk);
+            for k in 0..p {
+                s += v[k * p + r] * v[k * p + c] / (sv[k] * sv[k]);
             }
-            inv[a][b] = s / (scale[a] * scale[b]);
+            inv[r][c] = s / (scale[r] * scale[c]);
         }
     }
     Some(inv)
+}
+
+fn dot(a: &[f64], b: &[f64]) -> f64 {
+    a.iter().zip(b).map(|(u, v)| u * v).sum()
+}
+
+/// Cholesky factorisation in place of the symmetric p×p matrix `a` (row-major; the lower
+/// triangle becomes L). False when `a` is not positive definite. Hand-written because the
+/// engine factorises a tiny matrix several times per iteration, and a library call would
+/// allocate each time.
+fn cholesky_in_place(a: &mut [f64], p: usize) -> bool {
+    for j in 0..p {
+        let mut d = a[j * p + j];
+        for k in 0..j {
+            d -= a[j * p + k] * a[j * p + k];
+        }
+        if !(d > 0.0 && d.is_finite()) {
+            return false;
+        }
+        let d = d.sqrt();
+        a[j * p + j] = d;
+        for i in j + 1..p {
+            let mut s = a[i * p + j];
+            for k in 0..j {
+                s -= a[i * p + k] * a[j * p + k];
+            }
+            a[i * p + j] = s / d;
+        }
+    }
+    true
+}
+
+/// Solves L·Lᵀ·x = b with L from [`cholesky_in_place`].
+fn cholesky_solve(l: &[f64], p: usize, b: &[f64], x: &mut [f64]) {
+    for i in 0..p {
+        let mut s = b[i];
+        for k in 0..i {
+            s -= l[i * p + k] * x[k];
+        }
+        x[i] = s / l[i * p + i];
+    }
+    for i in (0..p).rev() {
+        let mut s = x[i];
+        for k in i + 1..p {
+            s -= l[k * p + i] * x[k];
+        }
+        x[i] = s / l[i * p + i];
+    }
 }
 
 /// Minimises Σ wᵢ·(yᵢ − f(xᵢ; θ))² from `start`.
@@ -362,8 +535,13 @@ pub fn levenberg_marquardt(
     };
     let mut p = start.to_vec();
     project(&mut p, &opts.bounds);
-    let mut r = DVector::zeros(n);
-    let mut rss = residuals(curve, x, y, &sw, &p, &mut r).ok_or_else(|| {
+    // Every buffer is allocated once here: an iteration allocates nothing.
+    // One allocation for all the buffers.
+    let mut work = vec![0.0; 3 * n + 9 * np + 2 * np * np];
+    let (mut r, rest) = work.split_at_mut(n);
+    let (mut r_trial, rest) = rest.split_at_mut(n);
+    let (r_geo, rest) = rest.split_at_mut(n);
+    let mut rss = residuals(curve, x, y, &sw, &p, r).ok_or_else(|| {
         let index = x
             .iter()
             .position(|&xi| !curve.value(xi, &p).is_finite())
@@ -372,16 +550,27 @@ pub fn levenberg_marquardt(
     })?;
     let mut evaluations = 1;
     let mut jac = DMatrix::zeros(n, np);
-    let mut row = vec![0.0; np];
-    let mut r_trial = DVector::zeros(n);
-    let mut r_geo = DVector::zeros(n);
-    let mut diag: Vec<f64> = vec![0.0; np];
+    // With analytic derivatives every trial point also gets its Jacobian (the same
+    // exponentials serve both); an accepted trial then needs no separate Jacobian pass.
+    let joint = curve.has_gradient();
+    let mut jac_trial = if joint {
+        DMatrix::zeros(n, np)
+    } else {
+        DMatrix::zeros(0, 0)
+    };
+    let mut trial_jac_finite = false;
+    // Some(finite) when `jac` already holds the Jacobian at the current point.
+    let mut jac_ready: Option<bool> = None;
+    let (jtj, rest) = rest.split_at_mut(np * np);
+    let (chol, rest) = rest.split_at_mut(np * np);
+    let mut bufs = rest.chunks_exact_mut(np);
+    let mut next = || bufs.next().unwrap_or_default();
+    let (row, diag, g, delta, step) = (next(), next(), next(), next(), next());
+    let (acc, rhs, trial, probe) = (next(), next(), next(), next());
     let mut lambda = 1e-3;
     let mut nu = 2.0;
     let mut iterations = 0;
     let mut reason = StopReason::MaxIterations;
-    let mut trial = vec![0.0; np];
-    let mut probe = vec![0.0; np];
 
     let max_abs = |p: &[f64]| p.iter().fold(0.0f64, |m, v| m.max(v.abs()));
     // (RSS, max |θ|) of the last `stall_window` iterations, compared with the oldest.
@@ -404,22 +593,37 @@ pub fn levenberg_marquardt(
             reason = StopReason::ExactFit;
             break;
         }
-        if !jacobian(curve, x, &sw, &p, &mut jac, &mut row) {
+        let finite = match jac_ready.take() {
+            Some(f) => f,
+            None => jacobian(curve, x, &sw, &p, &mut jac, row),
+        };
+        if !finite {
             reason = StopReason::NonFiniteJacobian;
             break;
         }
-        let jtj = jac.tr_mul(&jac);
-        let g = jac.tr_mul(&r);
+        // J is column-major: column j is js[j·n .. (j+1)·n].
+        let js = jac.as_slice();
+        let col = |j: usize| &js[j * n..(j + 1) * n];
+        for a in 0..np {
+            for b in a..np {
+                let v = dot(col(a), col(b));
+                jtj[a * np + b] = v;
+                jtj[b * np + a] = v;
+            }
+            g[a] = dot(col(a), r);
+        }
+        // (J·v)ᵢ for a parameter-space vector v.
+        let jmul = |v: &[f64], i: usize| (0..np).map(|j| js[j * n + i] * v[j]).sum::<f64>();
         // Moré's scaling: D_j never decreases, so the trust region cannot collapse in a
         // direction that was once informative.
         for j in 0..np {
-            let c = jtj[(j, j)].sqrt();
+            let c = jtj[j * np + j].sqrt();
             diag[j] = diag[j].max(c).max(1e-300);
         }
         let rnorm = rss.sqrt();
         let mut gcos: f64 = 0.0;
         for j in 0..np {
-            let c = jtj[(j, j)].sqrt();
+            let c = jtj[j * np + j].sqrt();
             if c > 0.0 {
                 gcos = gcos.max(g[j].abs() / (c * rnorm));
             }
@@ -429,11 +633,11 @@ pub fn levenberg_marquardt(
             break;
         }
         loop {
-            let mut m = jtj.clone();
+            chol.copy_from_slice(jtj);
             for j in 0..np {
-                m[(j, j)] += lambda * diag[j] * diag[j];
+                chol[j * np + j] += lambda * diag[j] * diag[j];
             }
-            let Some(chol) = m.cholesky() else {
+            if !cholesky_in_place(chol, np) {
                 lambda *= nu;
                 nu *= 2.0;
                 if lambda > 1e30 {
@@ -441,22 +645,26 @@ pub fn levenberg_marquardt(
                     break 'outer;
                 }
                 continue;
-            };
-            let delta = chol.solve(&g);
+            }
+            cholesky_solve(chol, np, g, delta);
             // Geodesic acceleration: correct the step with the second directional derivative
             // of the residuals along δ, estimated by one finite difference.
-            let mut step = delta.clone();
+            step.copy_from_slice(delta);
             if opts.geodesic && iterations > opts.geodesic_after {
                 let h = 0.1;
                 for j in 0..np {
                     probe[j] = p[j] + h * delta[j];
                 }
-                if residuals(curve, x, y, &sw, &probe, &mut r_geo).is_some() {
+                if residuals(curve, x, y, &sw, probe, r_geo).is_some() {
                     evaluations += 1;
                     // r(p+hδ) ≈ r − hJδ − ½h²·f''  ⇒  f'' ≈ 2/h·((r − r_h)/h − Jδ)
-                    let jd = &jac * &delta;
-                    let fpp = ((&r - &r_geo) / h - jd) * (2.0 / h);
-                    let acc = chol.solve(&(jac.tr_mul(&fpp)));
+                    for i in 0..n {
+                        r_geo[i] = ((r[i] - r_geo[i]) / h - jmul(delta, i)) * (2.0 / h);
+                    }
+                    for j in 0..np {
+                        rhs[j] = dot(col(j), r_geo);
+                    }
+                    cholesky_solve(chol, np, rhs, acc);
                     let mut na = 0.0;
                     let mut nd = 0.0;
                     for j in 0..np {
@@ -464,7 +672,9 @@ pub fn levenberg_marquardt(
                         nd += (diag[j] * delta[j]).powi(2);
                     }
                     if na.sqrt() <= 0.75 * nd.sqrt() {
-                        step -= acc * 0.5;
+                        for j in 0..np {
+                            step[j] -= acc[j] * 0.5;
+                        }
                     }
                 } else {
                     evaluations += 1;
@@ -473,22 +683,35 @@ pub fn levenberg_marquardt(
             for j in 0..np {
                 trial[j] = p[j] + step[j];
             }
-            project(&mut trial, &opts.bounds);
-            let actual_step: Vec<f64> = (0..np).map(|j| trial[j] - p[j]).collect();
-            let dstep = DVector::from_vec(actual_step);
+            project(trial, &opts.bounds);
+            // From here `step` is the step actually taken (after the projection).
+            for j in 0..np {
+                step[j] = trial[j] - p[j];
+            }
             let mut step_norm = 0.0;
             let mut pnorm = 0.0;
             for j in 0..np {
-                step_norm += (diag[j] * dstep[j]).powi(2);
+                step_norm += (diag[j] * step[j]).powi(2);
                 pnorm += (diag[j] * p[j]).powi(2);
             }
             let step_norm = step_norm.sqrt();
             let pnorm = pnorm.sqrt();
-            let new_rss = residuals(curve, x, y, &sw, &trial, &mut r_trial);
+            let new_rss = if joint {
+                let (v, f) =
+                    residuals_and_jacobian(curve, x, y, &sw, trial, r_trial, &mut jac_trial, row);
+                trial_jac_finite = f;
+                v
+            } else {
+                residuals(curve, x, y, &sw, trial, r_trial)
+            };
             evaluations += 1;
             // Predicted reduction of the linear model: ‖r‖² − ‖r − Jδ‖².
-            let jd = &jac * &dstep;
-            let predicted = rss - (&r - &jd).norm_squared();
+            let mut lin = 0.0;
+            for i in 0..n {
+                let v = r[i] - jmul(step, i);
+                lin += v * v;
+            }
+            let predicted = rss - lin;
             match new_rss {
                 Some(new_rss) if new_rss < rss => {
                     let actual = rss - new_rss;
@@ -498,8 +721,12 @@ pub fn levenberg_marquardt(
                         1.0
                     };
                     let old = rss;
-                    p.copy_from_slice(&trial);
+                    p.copy_from_slice(trial);
                     std::mem::swap(&mut r, &mut r_trial);
+                    if joint {
+                        std::mem::swap(&mut jac, &mut jac_trial);
+                        jac_ready = Some(trial_jac_finite);
+                    }
                     rss = new_rss;
                     lambda *= (1.0 - (2.0 * rho - 1.0).powi(3)).max(1.0 / 3.0);
                     lambda = lambda.max(1e-300);
@@ -538,7 +765,7 @@ pub fn levenberg_marquardt(
             }
         }
     }
-    let inv_jtj = if jacobian(curve, x, &sw, &p, &mut jac, &mut row) {
+    let inv_jtj = if jacobian(curve, x, &sw, &p, &mut jac, row) {
         inverse_jtj(&jac)
     } else {
         None

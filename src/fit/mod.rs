@@ -3,6 +3,7 @@
 //! - [`lm`]: Levenberg–Marquardt with Moré scaling, bounds and geodesic acceleration.
 //! - [`models`]: the deactivation models, their ids, parameter names and derivatives.
 //! - [`start`]: automatic starting values (rate grid with linear amplitudes).
+//! - [`varpro`]: two sites by variable projection, with degenerate fits recognised.
 //! - [`engine`]: fitting one named model and the statistics of the optimum.
 //! - [`choice`]: AICc and the "simplest within ΔAICc < 2" rule.
 //! - [`forecast`]: crossing of the replacement criterion, delta-method interval, lifetime TON.
@@ -19,6 +20,8 @@
 //!   interval covered only ~70 % in simulation (tests/fit_coverage.rs).
 //! - A fit whose parameters run away along a flat valley (RSS flat, |θ| growing) stops as
 //!   [`StopReason::Stalled`], reported as not converged, and is never chosen.
+//! - Two sites whose best fit is at the edge of the model (a rate at zero, two equal rates)
+//!   stop as [`StopReason::Degenerate`], also not converged and never chosen.
 //! - The CUSUM runs over the chosen fit's residuals divided by s, in x order.
 
 // Numerical kernels index several arrays in step; index loops say that most plainly.
@@ -35,6 +38,7 @@ pub mod forecast;
 pub mod lm;
 pub mod models;
 pub mod start;
+pub mod varpro;
 
 pub use analysis::{AnalysisOptions, ENGINE_VERSION, LotAnalysis, LotSeries, analyse};
 pub use cli::{ModelArg, fit_json, parse_model_arg, parse_start_arg, read_series_csv, render_text};

@@ -19,56 +19,59 @@ fn rate_grid(span: f64, n: usize) -> Vec<f64> {
         .collect()
 }
 
-/// Ordinary least squares for y ≈ Σ c_j·b_j(x) with k ≤ 3 basis functions, by the normal
-/// equations in one pass (k is tiny and only a start is wanted). RSS = yᵀy − cᵀ(Bᵀy) is
-/// good enough to rank grid points. Returns coefficients and RSS.
-fn linear_fit(
+/// Ordinary least squares for y ≈ Σ c_j·b_j(x) with K ≤ 3 basis functions, by the normal
+/// equations in one pass (K is tiny and only a start is wanted). RSS = yᵀy − cᵀ(Bᵀy) is
+/// good enough to rank grid points. Returns coefficients and RSS. K is a constant so the
+/// loops unroll: this runs once per grid point, hundreds of times per analysis.
+fn linear_fit<const K: usize>(
     x: &[f64],
     y: &[f64],
-    k: usize,
-    basis: impl Fn(usize, f64, &mut [f64; 3]),
-) -> Option<([f64; 3], f64)> {
-    let mut a = [[0.0f64; 4]; 3];
-    let mut b = [0.0f64; 3];
+    basis: impl Fn(usize, f64, &mut [f64; K]),
+) -> Option<([f64; K], f64)> {
+    let mut a = [[0.0f64; K]; K];
+    let mut rhs = [0.0f64; K];
+    let mut b = [0.0f64; K];
     let mut yty = 0.0;
     for (i, (&xi, &yi)) in x.iter().zip(y).enumerate() {
         yty += yi * yi;
         basis(i, xi, &mut b);
-        for r in 0..k {
-            for c in 0..k {
+        for r in 0..K {
+            for c in 0..K {
                 a[r][c] += b[r] * b[c];
             }
-            a[r][3] += b[r] * yi;
+            rhs[r] += b[r] * yi;
         }
     }
-    let bty = [a[0][3], a[1][3], a[2][3]];
-    // Gaussian elimination with partial pivoting on the augmented k×(k+1) system.
-    for col in 0..k {
-        let piv = (col..k).max_by(|&i, &j| a[i][col].abs().total_cmp(&a[j][col].abs()))?;
+    let bty = rhs;
+    // Gaussian elimination with partial pivoting on the K×K system.
+    for col in 0..K {
+        let piv = (col..K).max_by(|&i, &j| a[i][col].abs().total_cmp(&a[j][col].abs()))?;
         a.swap(col, piv);
+        rhs.swap(col, piv);
         let d = a[col][col];
         if d.abs() <= 1e-300 || !d.is_finite() {
             return None;
         }
-        for r in 0..k {
+        for r in 0..K {
             if r != col {
                 let f = a[r][col] / d;
-                for c in col..4 {
+                for c in col..K {
                     a[r][c] -= f * a[col][c];
                 }
+                rhs[r] -= f * rhs[col];
             }
         }
     }
-    let mut coef = [0.0; 3];
+    let mut coef = [0.0; K];
     let mut rss = yty;
-    for r in 0..k {
-        coef[r] = a[r][3] / a[r][r];
+    for r in 0..K {
+        coef[r] = rhs[r] / a[r][r];
     }
-    for j in 0..k {
+    for j in 0..K {
         rss -= coef[j] * bty[j];
     }
     let rss = rss.max(0.0);
-    (rss.is_finite() && coef[..k].iter().all(|c| c.is_finite())).then_some((coef, rss))
+    (rss.is_finite() && coef.iter().all(|c| c.is_finite())).then_some((coef, rss))
 }
 
 fn best<T>(cands: impl Iterator<Item = Option<(T, f64)>>) -> Option<T> {
@@ -94,37 +97,42 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
         y.iter().sum::<f64>() / y.len() as f64
     };
     let grid = rate_grid(span, 16);
+    // Candidates are small arrays; only the winner becomes a Vec.
     let found: Option<Vec<f64>> = match model {
-        ModelId::Linear => linear_fit(x, y, 2, |_, x, b| {
+        ModelId::Linear => linear_fit::<2>(x, y, |_, x, b| {
             b[0] = 1.0;
             b[1] = -x;
         })
         .map(|(c, _)| vec![c[0], c[1]]),
         ModelId::FirstOrder => best(grid.iter().map(|&kd| {
-            linear_fit(x, y, 1, |_, x, b| b[0] = (-kd * x).exp()).map(|(c, r)| (vec![c[0], kd], r))
-        })),
+            linear_fit::<1>(x, y, |_, x, b| b[0] = (-kd * x).exp()).map(|(c, r)| ([c[0], kd], r))
+        }))
+        .map(|p| p.to_vec()),
         ModelId::SecondOrder => best(grid.iter().map(|&kd| {
-            linear_fit(x, y, 1, |_, x, b| b[0] = 1.0 / (1.0 + kd * x))
-                .map(|(c, r)| (vec![c[0], kd], r))
-        })),
+            linear_fit::<1>(x, y, |_, x, b| b[0] = 1.0 / (1.0 + kd * x))
+                .map(|(c, r)| ([c[0], kd], r))
+        }))
+        .map(|p| p.to_vec()),
         ModelId::Plateau => best(grid.iter().map(|&kd| {
-            linear_fit(x, y, 1, |_, x, b| b[0] = 1.0 - (-kd * x).exp())
-                .map(|(c, r)| (vec![c[0], kd], r))
-        })),
+            linear_fit::<1>(x, y, |_, x, b| b[0] = 1.0 - (-kd * x).exp())
+                .map(|(c, r)| ([c[0], kd], r))
+        }))
+        .map(|p| p.to_vec()),
         ModelId::FirstOrderResidual => best(grid.iter().map(|&kd| {
-            linear_fit(x, y, 2, |_, x, b| {
+            linear_fit::<2>(x, y, |_, x, b| {
                 let e = (-kd * x).exp();
                 b[0] = e;
                 b[1] = 1.0 - e;
             })
-            .map(|(c, r)| (vec![c[0], c[1], kd], r))
-        })),
+            .map(|(c, r)| ([c[0], c[1], kd], r))
+        }))
+        .map(|p| p.to_vec()),
         ModelId::Power => {
             // Orders 1.5, 2 and 3 have power-free closed forms: u⁻², u⁻¹ and u^(−1/2).
             best(grid.iter().flat_map(|&kd| {
                 [1.5, 2.0, 3.0].into_iter().map(move |m| {
                     let s: f64 = m - 1.0;
-                    linear_fit(x, y, 1, |_, x, b| {
+                    linear_fit::<1>(x, y, |_, x, b| {
                         let u = 1.0 + s * kd * x;
                         b[0] = if m == 1.5 {
                             1.0 / (u * u)
@@ -134,9 +142,10 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
                             1.0 / u.sqrt()
                         };
                     })
-                    .map(|(c, r)| (vec![c[0], kd, m], r))
+                    .map(|(c, r)| ([c[0], kd, m], r))
                 })
             }))
+            .map(|p| p.to_vec())
         }
         ModelId::TwoSite => {
             let coarse = rate_grid(span, 9);
@@ -148,14 +157,15 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
             let table = &table;
             best(coarse.iter().enumerate().flat_map(|(i, &k1)| {
                 coarse[..i].iter().enumerate().map(move |(j, &k2)| {
-                    linear_fit(x, y, 3, |n, _, b| {
+                    linear_fit::<3>(x, y, |n, _, b| {
                         b[0] = 1.0;
                         b[1] = table[i][n];
                         b[2] = table[j][n];
                     })
-                    .map(|(c, r)| (vec![c[0], c[1], k1, c[2], k2], r))
+                    .map(|(c, r)| ([c[0], c[1], k1, c[2], k2], r))
                 })
             }))
+            .map(|p| p.to_vec())
         }
     };
     found.unwrap_or_else(|| fallback(model, ymean, span))

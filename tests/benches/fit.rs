@@ -9,7 +9,9 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
 use turnbook::fit::start::start_values;
-use turnbook::fit::{AnalysisOptions, FitOptions, LotSeries, ModelId, analyse, fit_model};
+use turnbook::fit::{
+    AnalysisOptions, FitOptions, LmOptions, LotSeries, ModelId, analyse, fit_model,
+};
 
 fn lot(rng: &mut ChaCha8Rng, n: usize) -> LotSeries {
     let noise = Normal::new(0.0, 0.01).expect("valid sd");
@@ -42,6 +44,24 @@ fn benches(c: &mut Criterion) {
         });
     }
     per_model.finish();
+    // The same fits at the tolerances analyse() uses, to see where an analysis spends.
+    let analysis_fit = FitOptions {
+        lm: LmOptions {
+            max_iterations: 200,
+            ftol: 1e-12,
+            xtol: 1e-10,
+            gtol: 1e-10,
+            ..LmOptions::default()
+        },
+        ..FitOptions::default()
+    };
+    let mut parts = c.benchmark_group("analysis tolerances, 40 cycles");
+    for m in ModelId::ACTIVITY {
+        parts.bench_function(format!("fit {m}"), |b| {
+            b.iter(|| black_box(fit_model(m, &one.x, &one.y, &analysis_fit).ok()))
+        });
+    }
+    parts.finish();
     let lots: Vec<LotSeries> = (0..10_000).map(|_| lot(&mut rng, 40)).collect();
     let mut g = c.benchmark_group("refit");
     g.sample_size(10);

@@ -74,6 +74,32 @@ fn linear_fit<const K: usize>(
     (rss.is_finite() && coef.iter().all(|c| c.is_finite())).then_some((coef, rss))
 }
 
+/// The common step of evenly spaced x (cycle numbers usually are), if they are.
+fn even_step(x: &[f64]) -> Option<f64> {
+    let (first, second) = (*x.first()?, *x.get(1)?);
+    let step = second - first;
+    let tol = 1e-12 * (x.last()? - first).abs().max(f64::MIN_POSITIVE);
+    (step.is_finite() && step != 0.0 && x.windows(2).all(|w| ((w[1] - w[0]) - step).abs() <= tol))
+        .then_some(step)
+}
+
+/// exp(−k·xᵢ) for every point into `out`. With evenly spaced x a running product replaces
+/// all but two exponentials; its rounding (about n ulp) does not matter for a start.
+fn decay_row(k: f64, x: &[f64], step: Option<f64>, out: &mut Vec<f64>) {
+    out.clear();
+    match (step, x.first()) {
+        (Some(h), Some(&x0)) => {
+            let q = (-k * h).exp();
+            let mut e = (-k * x0).exp();
+            for _ in x {
+                out.push(e);
+                e *= q;
+            }
+        }
+        _ => out.extend(x.iter().map(|&xi| (-k * xi).exp())),
+    }
+}
+
 fn best<T>(cands: impl Iterator<Item = Option<(T, f64)>>) -> Option<T> {
     cands
         .flatten()
@@ -97,6 +123,8 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
         y.iter().sum::<f64>() / y.len() as f64
     };
     let grid = rate_grid(span, 16);
+    let step = even_step(x);
+    let mut row = Vec::with_capacity(x.len());
     // Candidates are small arrays; only the winner becomes a Vec.
     let found: Option<Vec<f64>> = match model {
         ModelId::Linear => linear_fit::<2>(x, y, |_, x, b| {
@@ -105,7 +133,8 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
         })
         .map(|(c, _)| vec![c[0], c[1]]),
         ModelId::FirstOrder => best(grid.iter().map(|&kd| {
-            linear_fit::<1>(x, y, |_, x, b| b[0] = (-kd * x).exp()).map(|(c, r)| ([c[0], kd], r))
+            decay_row(kd, x, step, &mut row);
+            linear_fit::<1>(x, y, |i, _, b| b[0] = row[i]).map(|(c, r)| ([c[0], kd], r))
         }))
         .map(|p| p.to_vec()),
         ModelId::SecondOrder => best(grid.iter().map(|&kd| {
@@ -114,13 +143,14 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
         }))
         .map(|p| p.to_vec()),
         ModelId::Plateau => best(grid.iter().map(|&kd| {
-            linear_fit::<1>(x, y, |_, x, b| b[0] = 1.0 - (-kd * x).exp())
-                .map(|(c, r)| ([c[0], kd], r))
+            decay_row(kd, x, step, &mut row);
+            linear_fit::<1>(x, y, |i, _, b| b[0] = 1.0 - row[i]).map(|(c, r)| ([c[0], kd], r))
         }))
         .map(|p| p.to_vec()),
         ModelId::FirstOrderResidual => best(grid.iter().map(|&kd| {
-            linear_fit::<2>(x, y, |_, x, b| {
-                let e = (-kd * x).exp();
+            decay_row(kd, x, step, &mut row);
+            linear_fit::<2>(x, y, |i, _, b| {
+                let e = row[i];
                 b[0] = e;
                 b[1] = 1.0 - e;
             })
@@ -152,7 +182,11 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
             // exp(−k·xᵢ) once per rate and point, shared by every pair of rates.
             let table: Vec<Vec<f64>> = coarse
                 .iter()
-                .map(|&k| x.iter().map(|&xi| (-k * xi).exp()).collect())
+                .map(|&k| {
+                    let mut r = Vec::with_capacity(x.len());
+                    decay_row(k, x, step, &mut r);
+                    r
+                })
                 .collect();
             let table = &table;
             best(coarse.iter().enumerate().flat_map(|(i, &k1)| {
@@ -186,6 +220,24 @@ fn fallback(model: ModelId, ymean: f64, span: f64) -> Vec<f64> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn running_product_matches_exponentials() {
+        let even: Vec<f64> = (1..=200).map(f64::from).collect();
+        assert_eq!(even_step(&even), Some(1.0));
+        let uneven = [1.0, 2.0, 4.0];
+        assert_eq!(even_step(&uneven), None);
+        let mut row = Vec::new();
+        for k in [1e-4, 0.05, 3.0] {
+            decay_row(k, &even, even_step(&even), &mut row);
+            for (e, &xi) in row.iter().zip(&even) {
+                let exact = (-k * xi).exp();
+                assert!((e - exact).abs() <= 1e-13 * exact, "k {k}, x {xi}");
+            }
+            decay_row(k, &uneven, None, &mut row);
+            assert_eq!(row[2], (-k * 4.0).exp());
+        }
+    }
 
     #[test]
     fn starts_are_near_truth_for_clean_data() {

@@ -505,17 +505,7 @@ pub fn recompute_lots(
         if records::lot(tx, lot)?.is_none() {
             // Pending (nobody registered the lot): nothing to fit and no alert to raise;
             // the empty fit still records what the lot's records were when looked at.
-            tx.prepare_cached(
-                "INSERT INTO fits(lot, computed_at, after_seq, engine_version, basis, model, analysis)
-                 VALUES (?1, ?2, ?3, ?4, ?5, NULL, 'null')",
-            )?
-            .execute(rusqlite::params![
-                lot,
-                crate::audit::now_utc(),
-                after,
-                fit::ENGINE_VERSION,
-                basis(cfg),
-            ])?;
+            store_fit(tx, lot, after, &basis(cfg), None, "null")?;
             continue;
         }
         let state = lot_state(tx, cfg, lot)?;
@@ -523,25 +513,39 @@ pub fn recompute_lots(
             Some(a) => serde_json::to_string(a)?,
             None => "null".into(),
         };
-        tx.prepare_cached(
-            "INSERT INTO fits(lot, computed_at, after_seq, engine_version, basis, model, analysis)
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
-        )?
-        .execute(rusqlite::params![
-            lot,
-            crate::audit::now_utc(),
-            after,
-            fit::ENGINE_VERSION,
-            state.basis,
-            state
-                .analysis
-                .as_ref()
-                .and_then(|a| a.chosen)
-                .map(|m| m.id()),
-            json
-        ])?;
+        let model = state
+            .analysis
+            .as_ref()
+            .and_then(|a| a.chosen)
+            .map(|m| m.id());
+        store_fit(tx, lot, after, &state.basis, model, &json)?;
         crate::alerting::raise(tx, cfg, &state)?;
     }
+    Ok(())
+}
+
+/// One row of `fits`: the analysis of `lot` as computed after event `after`.
+fn store_fit(
+    tx: &Transaction<'_>,
+    lot: &str,
+    after: i64,
+    basis: &str,
+    model: Option<&str>,
+    analysis_json: &str,
+) -> Result<()> {
+    tx.prepare_cached(
+        "INSERT INTO fits(lot, computed_at, after_seq, engine_version, basis, model, analysis)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
+    )?
+    .execute(rusqlite::params![
+        lot,
+        crate::audit::now_utc(),
+        after,
+        fit::ENGINE_VERSION,
+        basis,
+        model,
+        analysis_json
+    ])?;
     Ok(())
 }
 

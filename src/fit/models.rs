@@ -162,22 +162,6 @@ impl ModelId {
                 out[0] = 1.0;
                 out[1] = -x;
             }
-            ModelId::FirstOrder => {
-                let e = (-p[1] * x).exp();
-                out[0] = e;
-                out[1] = -p[0] * x * e;
-            }
-            ModelId::FirstOrderResidual => {
-                let e = (-p[2] * x).exp();
-                out[0] = e;
-                out[1] = 1.0 - e;
-                out[2] = -(p[0] - p[1]) * x * e;
-            }
-            ModelId::SecondOrder => {
-                let d = 1.0 + p[1] * x;
-                out[0] = 1.0 / d;
-                out[1] = -p[0] * x / (d * d);
-            }
             ModelId::Power => {
                 let (a0, kd, m) = (p[0], p[1], p[2]);
                 let s = m - 1.0;
@@ -205,19 +189,13 @@ impl ModelId {
                     out[2] = y * num / (s * s);
                 }
             }
-            ModelId::TwoSite => {
-                let e1 = (-p[2] * x).exp();
-                let e2 = (-p[4] * x).exp();
-                out[0] = 1.0;
-                out[1] = e1;
-                out[2] = -p[1] * x * e1;
-                out[3] = e2;
-                out[4] = -p[3] * x * e2;
-            }
-            ModelId::Plateau => {
-                let e = (-p[1] * x).exp();
-                out[0] = 1.0 - e;
-                out[1] = p[0] * x * e;
+            // The exponential models share their derivatives with the engine's inner loop.
+            ModelId::FirstOrder
+            | ModelId::FirstOrderResidual
+            | ModelId::SecondOrder
+            | ModelId::TwoSite
+            | ModelId::Plateau => {
+                self.eval_grad(x, p, out);
             }
         }
     }

@@ -118,8 +118,8 @@ pub fn analysis_options(
 
 fn sources_of(conn: &Connection, batch: &str, as_of: i64) -> Result<Vec<SourceRef>> {
     let mut stmt = conn.prepare_cached(
-        "SELECT f.id, f.path, f.sha256, m.line FROM measurements m JOIN source_files f ON f.id = m.source_file_id
-         WHERE m.batch_id = ?1 AND m.event_seq <= ?2 ORDER BY f.id, m.line",
+        "SELECT f.id, f.path, f.sha256, b.line FROM batch_sources b JOIN source_files f ON f.id = b.source_file_id
+         WHERE b.batch_id = ?1 AND b.event_seq <= ?2 ORDER BY f.id, b.line",
     )?;
     let rows = stmt.query_map(rusqlite::params![batch, as_of], |r| {
         Ok((
@@ -142,10 +142,10 @@ fn sources_of_lot(
     lot: &str,
 ) -> Result<std::collections::HashMap<String, Vec<SourceRef>>> {
     let mut stmt = conn.prepare_cached(
-        "SELECT m.batch_id, f.id, f.path, f.sha256, m.line
-         FROM cycles c JOIN measurements m ON m.batch_id = c.batch_id
-         JOIN source_files f ON f.id = m.source_file_id
-         WHERE c.lot = ?1 ORDER BY m.batch_id, f.id, m.line",
+        "SELECT b.batch_id, f.id, f.path, f.sha256, b.line
+         FROM cycles c JOIN batch_sources b ON b.batch_id = c.batch_id
+         JOIN source_files f ON f.id = b.source_file_id
+         WHERE c.lot = ?1 ORDER BY b.batch_id, f.id, b.line",
     )?;
     let rows = stmt.query_map([lot], |r| {
         Ok((
@@ -215,22 +215,14 @@ fn lot_record_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Option<L
 /// to that event, through the same derivation as the current view.
 fn cycles_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Vec<CycleView>> {
     let mut stmt = conn.prepare(
-        "SELECT DISTINCT batch_id FROM measurements WHERE event_seq <= ?1 ORDER BY batch_id",
+        "SELECT DISTINCT batch_id FROM batch_sources WHERE event_seq <= ?1 ORDER BY batch_id",
     )?;
     let batches = stmt
         .query_map([as_of], |r| r.get::<_, String>(0))?
         .collect::<std::result::Result<Vec<_>, _>>()?;
     let mut out = Vec::new();
     for b in batches {
-        let rows: Vec<_> = conn
-            .prepare_cached(
-                "SELECT id, batch_id, quantity, value, text, kind, source_file_id, line, col, raw, event_seq
-                 FROM measurements WHERE batch_id = ?1 AND event_seq <= ?2 ORDER BY id",
-            )?
-            .query_map(rusqlite::params![b, as_of], |r| {
-                Ok((records::measurement_from_row(r)?, r.get::<_, i64>(10)?))
-            })?
-            .collect::<std::result::Result<Vec<_>, _>>()?;
+        let rows = records::measurements_up_to(conn, &b, as_of)?;
         let first_seq = rows.iter().map(|r| r.1).min().unwrap_or(0);
         let rows: Vec<_> = rows.into_iter().map(|r| r.0).collect();
         let excluded = conn
@@ -478,12 +470,12 @@ pub fn lot_names(conn: &Connection) -> Result<Vec<String>> {
 
 /// The newest event that wrote records of a lot.
 fn newest_seq_of(conn: &Connection, lot: &str) -> Result<i64> {
-    // Each part is an index-only lookup: measurements by (batch_id, event_seq), lots by
+    // Each part is an index-only lookup: batch_sources by (batch_id, event_seq), lots by
     // name, exclusions through their partial index.
     Ok(conn
         .prepare_cached(
             "SELECT MAX(s) FROM (
-             SELECT (SELECT MAX(m.event_seq) FROM measurements m WHERE m.batch_id = c.batch_id) AS s
+             SELECT (SELECT MAX(b.event_seq) FROM batch_sources b WHERE b.batch_id = c.batch_id) AS s
                  FROM cycles c WHERE c.lot = ?1
              UNION ALL SELECT event_seq FROM lots WHERE lot = ?1
              UNION ALL SELECT MAX(e.seq) FROM cycles c JOIN events e

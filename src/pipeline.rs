@@ -403,12 +403,27 @@ struct Reader<'a> {
 
 impl Reader<'_> {
     fn prepare_group(&self, paths: &[PathBuf]) -> Vec<Prepared> {
-        let folders = FolderRoots::new(self.cfg);
-        paths.iter().map(|p| self.prepare(p, &folders)).collect()
+        let mut folders = FolderRoots::new(self.cfg);
+        // Each profile is checked once a group, not once a file.
+        let valid: HashMap<&str, Result<(), String>> = self
+            .cfg
+            .profiles
+            .iter()
+            .map(|(name, p)| (name.as_str(), p.validate()))
+            .collect();
+        paths
+            .iter()
+            .map(|p| self.prepare(p, &mut folders, &valid))
+            .collect()
     }
 
     /// Read, hash and parse one file. Never fails: a problem becomes a rejection.
-    fn prepare(&self, path: &Path, folders: &FolderRoots<'_>) -> Prepared {
+    fn prepare(
+        &self,
+        path: &Path,
+        folders: &mut FolderRoots<'_>,
+        valid: &HashMap<&str, Result<(), String>>,
+    ) -> Prepared {
         let display = recorded_path(path);
         let mut facts = FileFacts {
             path: display.clone(),
@@ -419,15 +434,27 @@ impl Reader<'_> {
             site: None,
             seen_at: audit::now_utc(),
         };
-        let folder: Option<&WatchFolder> = folders.folder_for(path);
+        // One stat: a symbolic link is followed for its size and judged by its target's
+        // folder, any other file by its own place.
+        let meta = std::fs::symlink_metadata(path).and_then(|m| {
+            if m.file_type().is_symlink() {
+                std::fs::metadata(path).map(|t| (t, true))
+            } else {
+                Ok((m, false))
+            }
+        });
+        let folder: Option<&WatchFolder> = match &meta {
+            Ok((_, true)) | Err(_) => folders.folder_for(path),
+            Ok((_, false)) => folders.folder_for_plain_file(path),
+        };
         facts.site = folder.and_then(|f| f.site.clone());
         let profile_name = self
             .profile_override
             .map(str::to_string)
             .or_else(|| folder.map(|f| f.profile.clone()));
         facts.profile = profile_name.clone();
-        let meta = match std::fs::metadata(path) {
-            Ok(m) => m,
+        let meta = match meta {
+            Ok((m, _)) => m,
             Err(e) => {
                 return Prepared {
                     facts,
@@ -452,7 +479,7 @@ impl Reader<'_> {
                 )),
             };
         }
-        let bytes = match std::fs::read(path) {
+        let bytes = match read_sized(path, meta.len()) {
             Ok(b) => b,
             Err(e) => {
                 return Prepared {
@@ -469,9 +496,13 @@ impl Reader<'_> {
                          expected a path below one of [[folders]] (or give --profile)"
                     .to_string(),
             ),
-            Some(name) => match self.cfg.profiles.get(&name) {
-                None => Err(format!("no export profile named '{name}'")),
-                Some(profile) => ingest::parse(&bytes, profile).map_err(|e| e.to_string()),
+            Some(name) => match (self.cfg.profiles.get(&name), valid.get(name.as_str())) {
+                (Some(profile), Some(Ok(()))) => {
+                    ingest::parse_valid(&bytes, profile).map_err(|e| e.to_string())
+                }
+                // An invalid profile: the parser names what is wrong with it.
+                (Some(profile), _) => ingest::parse(&bytes, profile).map_err(|e| e.to_string()),
+                (None, _) => Err(format!("no export profile named '{name}'")),
             },
         };
         Prepared { facts, result }
@@ -479,9 +510,11 @@ impl Reader<'_> {
 }
 
 /// The configured folders with their roots resolved once (per group), for
-/// [`Config::folder_for`]'s longest-prefix choice without resolving every root per file.
+/// [`Config::folder_for`]'s longest-prefix choice without resolving every root per file,
+/// and the last resolved parent folder (a backfill's files come sorted, folder by folder).
 struct FolderRoots<'a> {
     roots: Vec<(PathBuf, usize, &'a WatchFolder)>,
+    last_parent: Option<(PathBuf, PathBuf)>,
 }
 
 impl<'a> FolderRoots<'a> {
@@ -496,17 +529,53 @@ impl<'a> FolderRoots<'a> {
             })
             .map(|(n, root, f)| (root, n, f))
             .collect();
-        FolderRoots { roots }
+        FolderRoots {
+            roots,
+            last_parent: None,
+        }
     }
 
+    /// The folder of any path, resolving every link in it.
     fn folder_for(&self, file: &Path) -> Option<&'a WatchFolder> {
         let file = std::fs::canonicalize(file).unwrap_or_else(|_| file.to_path_buf());
+        self.longest_root(&file)
+    }
+
+    /// The folder of a file that is not itself a link: only its parent needs resolving, and
+    /// the parent of the previous file is remembered.
+    fn folder_for_plain_file(&mut self, file: &Path) -> Option<&'a WatchFolder> {
+        let (Some(parent), Some(name)) = (file.parent(), file.file_name()) else {
+            return self.folder_for(file);
+        };
+        let resolved = match &self.last_parent {
+            Some((p, r)) if p == parent => r.join(name),
+            _ => {
+                let r = std::fs::canonicalize(parent).unwrap_or_else(|_| parent.to_path_buf());
+                let joined = r.join(name);
+                self.last_parent = Some((parent.to_path_buf(), r));
+                joined
+            }
+        };
+        self.longest_root(&resolved)
+    }
+
+    fn longest_root(&self, file: &Path) -> Option<&'a WatchFolder> {
         self.roots
             .iter()
             .filter(|(root, _, _)| file.starts_with(root))
             .max_by_key(|(_, n, _)| *n)
             .map(|(_, _, f)| *f)
     }
+}
+
+/// Read a whole file whose size is known from its metadata (one system call fewer than
+/// `fs::read`, which asks for the size again).
+fn read_sized(path: &Path, size: u64) -> std::io::Result<Vec<u8>> {
+    use std::io::Read;
+    let mut f = std::fs::File::open(path)?;
+    let mut buf = Vec::with_capacity(usize::try_from(size).unwrap_or(0).saturating_add(1));
+    f.read_to_end(&mut buf)?;
+    Ok(buf)
 }
 
 fn sha256_file(path: &Path) -> std::io::Result<String> {

@@ -136,7 +136,7 @@ pub fn lot_history(conn: &Connection, lot: &str) -> store::Result<Vec<HistoryEnt
         "SELECT e.seq, e.at, e.actor, e.kind, e.subject, e.payload, e.hash FROM events e
          WHERE e.subject = ?1
             OR e.subject IN (SELECT batch_id FROM cycles WHERE lot = ?1)
-            OR e.seq IN (SELECT m.event_seq FROM measurements m JOIN cycles c ON c.batch_id = m.batch_id WHERE c.lot = ?1)
+            OR e.seq IN (SELECT b.event_seq FROM batch_sources b JOIN cycles c ON c.batch_id = b.batch_id WHERE c.lot = ?1)
             OR (e.kind = 'file-ingested' AND EXISTS (
                     SELECT 1 FROM json_each(e.payload, '$.lots') j WHERE json_extract(j.value, '$.lot') = ?1))
          ORDER BY e.seq",

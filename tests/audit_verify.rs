@@ -103,24 +103,72 @@ fn untouched_database_verifies_clean() {
 #[test]
 fn a_value_changed_behind_the_back_is_named() {
     let conn = populated();
-    // The measurement table refuses updates through its trigger; a tamperer drops it first.
-    conn.execute_batch("DROP TRIGGER measurements_append_only;")
+    // A value lives in the payload of the event that wrote it: changing it means editing
+    // the event, and the chain names that event. A tamperer drops the guard first.
+    conn.execute_batch("DROP TRIGGER events_append_only_update;")
         .unwrap();
-    conn.execute("UPDATE measurements SET value = 0.95 WHERE batch_id = 'B1' AND kind = 'observed' AND quantity = 'conversion'", []).unwrap();
-    let id: i64 = conn
-        .query_row("SELECT id FROM measurements WHERE value = 0.95", [], |r| {
-            r.get(0)
-        })
+    let seq: i64 = conn
+        .query_row(
+            "SELECT event_seq FROM measurements WHERE batch_id = 'B1' AND kind = 'observed' AND quantity = 'conversion'",
+            [],
+            |r| r.get(0),
+        )
         .unwrap();
+    let changed = conn
+        .execute(
+            "UPDATE events SET payload = replace(payload, '\"value\":0.9,', '\"value\":0.95,') WHERE seq = ?1",
+            [seq],
+        )
+        .unwrap();
+    assert_eq!(changed, 1);
+    let stored: f64 = conn
+        .query_row(
+            "SELECT value FROM measurements WHERE batch_id = 'B1' AND kind = 'observed' AND quantity = 'conversion'",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert_eq!(stored, 0.95, "the view shows the edited payload");
     let r = audit::verify(&conn).unwrap();
     assert!(!r.ok());
     let f = &r.findings[0];
     assert_eq!(
         (f.table.as_str(), f.row.as_str(), f.field.as_str()),
-        ("measurements", id.to_string().as_str(), "value")
+        ("events", seq.to_string().as_str(), "hash")
     );
-    assert_eq!(f.stored, "0.95");
-    assert_eq!(f.expected, "0.9");
+}
+
+#[test]
+fn a_provenance_link_changed_behind_the_back_is_named() {
+    let conn = populated();
+    let (seq, line): (i64, i64) = conn
+        .query_row(
+            "SELECT event_seq, line FROM batch_sources WHERE batch_id = 'B2' ORDER BY event_seq LIMIT 1",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .unwrap();
+    conn.execute(
+        "UPDATE batch_sources SET line = 99 WHERE batch_id = 'B2' AND event_seq = ?1",
+        [seq],
+    )
+    .unwrap();
+    let r = audit::verify(&conn).unwrap();
+    let named: Vec<(&str, &str, &str)> = r
+        .findings
+        .iter()
+        .map(|f| (f.table.as_str(), f.row.as_str(), f.field.as_str()))
+        .collect();
+    let was = format!("B2/{seq}/{line}");
+    let now = format!("B2/{seq}/99");
+    assert!(
+        named.contains(&("batch_sources", was.as_str(), "(row)")),
+        "{named:?}"
+    );
+    assert!(
+        named.contains(&("batch_sources", now.as_str(), "(row)")),
+        "{named:?}"
+    );
 }
 
 #[test]

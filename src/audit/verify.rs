@@ -9,7 +9,7 @@ use serde::Serialize;
 use super::{GENESIS, Payload, event_hash};
 use crate::audit::payload::{FileRow, LotRecord, MeasurementRow};
 use crate::store::Result;
-use crate::store::records::{all_cycles, all_lots, measurement_from_row};
+use crate::store::records::{all_cycles, all_lots};
 use crate::store::view::{self, CYCLE_COLUMNS};
 
 /// One discrepancy.
@@ -86,6 +86,20 @@ fn diff_rows<T: Serialize>(
 }
 
 /// Verify the whole database.
+/// A row of `batch_sources`: an event wrote values of a batch from a file line.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+struct SourceLink {
+    batch_id: String,
+    line: i64,
+    source_file_id: Option<i64>,
+}
+
+impl SourceLink {
+    fn key(&self, seq: i64) -> String {
+        format!("{}/{seq}/{}", self.batch_id, self.line)
+    }
+}
+
 pub fn verify(conn: &Connection) -> Result<VerifyReport> {
     let mut findings = Vec::new();
     let mut files: BTreeMap<i64, (FileRow, i64)> = BTreeMap::new();
@@ -250,32 +264,46 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
         files.into_iter().map(|(k, v)| (k.to_string(), v)).collect(),
     );
 
-    let mut stmt = conn.prepare(
-        "SELECT id, batch_id, quantity, value, text, kind, source_file_id, line, col, raw, event_seq
-         FROM measurements ORDER BY id",
-    )?;
-    let stored_m = stmt
-        .query_map([], |r| Ok((measurement_from_row(r)?, r.get::<_, i64>(10)?)))?
-        .collect::<std::result::Result<Vec<_>, _>>()?;
-    // Batches and their measurements, for the cycle views below.
+    // Batches and their measurements, for the cycle views below, and the provenance links
+    // the events imply: one per batch, event and file line (line 0 for a person's entry).
     let mut by_batch: BTreeMap<String, Vec<MeasurementRow>> = BTreeMap::new();
-    for (m, _) in measurements.values() {
+    let mut expected_links: BTreeMap<String, (SourceLink, i64)> = BTreeMap::new();
+    for (m, seq) in measurements.values() {
+        let link = SourceLink {
+            batch_id: m.batch_id.clone(),
+            line: m.line.unwrap_or(0),
+            source_file_id: m.source_file_id,
+        };
+        expected_links.entry(link.key(*seq)).or_insert((link, *seq));
         by_batch
             .entry(m.batch_id.clone())
             .or_default()
             .push(m.clone());
     }
+    let mut stmt = conn.prepare(
+        "SELECT batch_id, event_seq, line, source_file_id FROM batch_sources
+         ORDER BY batch_id, event_seq, line",
+    )?;
+    let stored_links = stmt
+        .query_map([], |r| {
+            Ok((
+                SourceLink {
+                    batch_id: r.get(0)?,
+                    line: r.get(2)?,
+                    source_file_id: r.get(3)?,
+                },
+                r.get::<_, i64>(1)?,
+            ))
+        })?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
     compare_keyed(
         &mut findings,
-        "measurements",
-        stored_m
+        "batch_sources",
+        stored_links
             .into_iter()
-            .map(|(m, s)| (m.id.to_string(), (m, s)))
+            .map(|(l, s)| (l.key(s), (l, s)))
             .collect(),
-        measurements
-            .into_iter()
-            .map(|(k, v)| (k.to_string(), v))
-            .collect(),
+        expected_links,
     );
 
     let stored_lots: BTreeMap<String, (LotRecord, i64)> = {

@@ -13,7 +13,7 @@ pub mod record;
 pub mod units;
 
 pub use decode::{Encoding, decode};
-pub use parse::{parse, parse_number, parse_text};
+pub use parse::{parse, parse_number, parse_text, parse_valid};
 pub use profile::{ColumnSpec, DecimalMark, Delimiter, Profile, ProfileKind};
 pub use record::*;
 pub use units::Unit;

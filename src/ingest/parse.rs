@@ -29,6 +29,11 @@ pub fn parse(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseError> 
         expected: "a valid export profile".into(),
         found: msg,
     })?;
+    parse_valid(bytes, profile)
+}
+
+/// [`parse`] for a profile the caller has validated already (once for many files).
+pub fn parse_valid(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseError> {
     let text = decode(bytes, profile.encoding)?;
     parse_text(&text, profile)
 }

@@ -12,6 +12,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
     (2, "fits", include_str!("../../schema/0002_fits.sql")),
     (3, "outbox", include_str!("../../schema/0003_outbox.sql")),
     (4, "indexes", include_str!("../../schema/0004_indexes.sql")),
+    (
+        5,
+        "lean_records",
+        include_str!("../../schema/0005_lean_records.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

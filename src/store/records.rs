@@ -42,7 +42,8 @@ pub struct StoredFile {
 fn next_id(tx: &Transaction<'_>, table: &str) -> Result<i64> {
     let sql = match table {
         "source_files" => "SELECT COALESCE(MAX(id), 0) + 1 FROM source_files",
-        "measurements" => "SELECT COALESCE(MAX(id), 0) + 1 FROM measurements",
+        // Measurements live in the event payloads; their ids are counted in `id_counters`.
+        "measurements" => "SELECT next FROM id_counters WHERE name = 'measurement'",
         _ => {
             return Err(StoreError::Invalid(format!(
                 "no id counter for table {table}"
@@ -52,7 +53,14 @@ fn next_id(tx: &Transaction<'_>, table: &str) -> Result<i64> {
     Ok(tx.prepare_cached(sql)?.query_row([], |r| r.get(0))?)
 }
 
-/// The next free ids of `source_files` and `measurements`, read from the database once and
+/// Record the next free measurement id (in the same transaction as the rows that took ids).
+fn store_next_measurement(tx: &Transaction<'_>, next: i64) -> Result<()> {
+    tx.prepare_cached("UPDATE id_counters SET next = ?1 WHERE name = 'measurement'")?
+        .execute([next])?;
+    Ok(())
+}
+
+/// The next free ids of `source_files` and of measurements, read from the database once and
 /// then counted, for a writer storing many files in one transaction (which holds the
 /// write lock, so nobody else takes ids meanwhile). Start a new one for each transaction.
 #[derive(Debug, Default, Clone, Copy)]
@@ -79,15 +87,22 @@ impl NextIds {
         }
     }
 
-    fn measurements_to(&mut self, next_free: i64) {
+    /// Take ids up to `next_free` (exclusive) and record the counter when it moved.
+    fn measurements_to(&mut self, tx: &Transaction<'_>, first: i64, next_free: i64) -> Result<()> {
         self.measurement = Some(next_free);
+        if next_free != first {
+            store_next_measurement(tx, next_free)?;
+        }
+        Ok(())
     }
 }
 
 /// The id of the file whose content (SHA-256) was ingested before, if any.
 pub fn ingested_file_with_hash(conn: &rusqlite::Connection, sha256: &str) -> Result<Option<i64>> {
     Ok(conn
-        .prepare_cached("SELECT id FROM source_files WHERE sha256 = ?1 AND outcome = 'ingested'")?
+        .prepare_cached(
+            "SELECT id FROM source_files WHERE unhex(sha256) = unhex(?1) AND outcome = 'ingested'",
+        )?
         .query_row([sha256], |r| r.get(0))
         .optional()?)
 }
@@ -203,113 +218,83 @@ pub fn record_rejected_with(
     Ok(id)
 }
 
-/// Load every measurement of a batch, ordered by id.
+/// Load every measurement of a batch, ordered by id, from the payloads of the events that
+/// wrote them (found through `batch_sources`).
 pub fn measurements_of(conn: &rusqlite::Connection, batch_id: &str) -> Result<Vec<MeasurementRow>> {
+    Ok(measurements_up_to(conn, batch_id, i64::MAX)?
+        .into_iter()
+        .map(|(m, _)| m)
+        .collect())
+}
+
+/// The measurements of a batch written by events up to `as_of`, each with its event, ordered
+/// by id.
+pub fn measurements_up_to(
+    conn: &rusqlite::Connection,
+    batch_id: &str,
+    as_of: i64,
+) -> Result<Vec<(MeasurementRow, i64)>> {
     let mut stmt = conn.prepare_cached(
-        "SELECT id, batch_id, quantity, value, text, kind, source_file_id, line, col, raw
-         FROM measurements WHERE batch_id = ?1 ORDER BY id",
+        "SELECT e.seq, e.payload FROM events e
+         WHERE e.seq IN (SELECT event_seq FROM batch_sources WHERE batch_id = ?1 AND event_seq <= ?2)
+         ORDER BY e.seq",
     )?;
-    let rows = stmt
-        .query_map([batch_id], measurement_from_row)?
-        .collect::<std::result::Result<Vec<_>, _>>()?;
-    Ok(rows)
+    let mut rows = stmt.query(params![batch_id, as_of])?;
+    let mut out = Vec::new();
+    while let Some(r) = rows.next()? {
+        let seq: i64 = r.get(0)?;
+        let body: String = r.get(1)?;
+        let written: WrittenValues = serde_json::from_str(&body)?;
+        out.extend(
+            written
+                .measurements
+                .into_iter()
+                .chain(written.measurement)
+                .filter(|m| m.batch_id == batch_id)
+                .map(|m| (m, seq)),
+        );
+    }
+    out.sort_by_key(|(m, _)| m.id);
+    Ok(out)
 }
 
-pub(crate) fn measurement_from_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<MeasurementRow> {
-    Ok(MeasurementRow {
-        id: r.get(0)?,
-        batch_id: r.get(1)?,
-        quantity: r.get(2)?,
-        value: r.get(3)?,
-        text: r.get(4)?,
-        kind: r.get(5)?,
-        source_file_id: r.get(6)?,
-        line: r.get(7)?,
-        col: r.get(8)?,
-        raw: r.get(9)?,
-    })
+/// The measurement rows of an event's payload (a file's values, or a person's correction);
+/// every other field of the payload is skipped.
+#[derive(serde::Deserialize)]
+struct WrittenValues {
+    #[serde(default)]
+    measurements: Vec<MeasurementRow>,
+    #[serde(default)]
+    measurement: Option<MeasurementRow>,
 }
 
-fn insert_measurement(tx: &Transaction<'_>, m: &MeasurementRow, seq: i64) -> Result<()> {
+/// Link a batch to the event that wrote values of it, and to the file line they came from
+/// (line 0: entered by a person).
+fn insert_source(
+    tx: &Transaction<'_>,
+    batch_id: &str,
+    seq: i64,
+    line: i64,
+    file_id: Option<i64>,
+) -> Result<()> {
     tx.prepare_cached(
-        "INSERT INTO measurements(id, batch_id, quantity, value, text, kind, source_file_id,
-             line, col, raw, event_seq)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
+        "INSERT OR IGNORE INTO batch_sources(batch_id, event_seq, line, source_file_id)
+         VALUES (?1, ?2, ?3, ?4)",
     )?
-    .execute(params![
-        m.id,
-        m.batch_id,
-        m.quantity,
-        m.value,
-        m.text,
-        m.kind,
-        m.source_file_id,
-        m.line,
-        m.col,
-        m.raw,
-        seq
-    ])?;
+    .execute(params![batch_id, seq, line, file_id])?;
     Ok(())
 }
 
-/// Rows per multi-row INSERT of measurements (11 parameters a row).
-const MEASUREMENTS_PER_INSERT: usize = 8;
-
-/// Insert the measurements of one event, several rows a statement.
-fn insert_measurements(tx: &Transaction<'_>, ms: &[MeasurementRow], seq: i64) -> Result<()> {
-    static SQL: LazyLock<Vec<String>> = LazyLock::new(|| {
-        (0..=MEASUREMENTS_PER_INSERT)
-            .map(|n| {
-                let rows: Vec<String> = (0..n)
-                    .map(|r| {
-                        let b = r * 11;
-                        format!(
-                            "(?{}, ?{}, ?{}, ?{}, ?{}, ?{}, ?{}, ?{}, ?{}, ?{}, ?{})",
-                            b + 1,
-                            b + 2,
-                            b + 3,
-                            b + 4,
-                            b + 5,
-                            b + 6,
-                            b + 7,
-                            b + 8,
-                            b + 9,
-                            b + 10,
-                            b + 11
-                        )
-                    })
-                    .collect();
-                format!(
-                    "INSERT INTO measurements(id, batch_id, quantity, value, text, kind, source_file_id,
-             line, col, raw, event_seq) VALUES {}",
-                    rows.join(", ")
-                )
-            })
-            .collect()
-    });
-    for chunk in ms.chunks(MEASUREMENTS_PER_INSERT) {
-        if chunk.len() == 1 {
-            insert_measurement(tx, &chunk[0], seq)?;
-            continue;
+/// The provenance links of one event's measurements: one per batch and file line.
+fn insert_sources(tx: &Transaction<'_>, ms: &[MeasurementRow], seq: i64) -> Result<()> {
+    let mut last: Option<(&str, i64)> = None;
+    for m in ms {
+        let key = (m.batch_id.as_str(), m.line.unwrap_or(0));
+        if last == Some(key) {
+            continue; // the rows of one line come together
         }
-        let mut stmt = tx.prepare_cached(&SQL[chunk.len()])?;
-        let mut p: Vec<&dyn rusqlite::ToSql> = Vec::with_capacity(chunk.len() * 11);
-        for m in chunk {
-            p.extend_from_slice(&[
-                &m.id as &dyn rusqlite::ToSql,
-                &m.batch_id,
-                &m.quantity,
-                &m.value,
-                &m.text,
-                &m.kind,
-                &m.source_file_id,
-                &m.line,
-                &m.col,
-                &m.raw,
-                &seq,
-            ]);
-        }
-        stmt.execute(p.as_slice())?;
+        last = Some(key);
+        insert_source(tx, key.0, seq, key.1, m.source_file_id)?;
     }
     Ok(())
 }
@@ -426,7 +411,8 @@ pub fn record_parsed_with(
     // Measurements of each touched batch: the stored ones, then the ones this file adds.
     let mut batches: HashMap<String, (Vec<MeasurementRow>, Option<i64>, bool)> = HashMap::new();
     let mut batch_order: Vec<String> = Vec::new();
-    let mut next_m = ids.first_measurement(tx)?;
+    let first_m = ids.first_measurement(tx)?;
+    let mut next_m = first_m;
 
     match parsed {
         ParsedFile::Cycles(rows) => {
@@ -482,10 +468,10 @@ pub fn record_parsed_with(
         "file-ingested",
         &body,
     )?;
-    ids.measurements_to(next_m);
+    ids.measurements_to(tx, first_m, next_m)?;
     out.event_seq = seq;
     insert_file(tx, &file, seq)?;
-    insert_measurements(tx, &new_measurements, seq)?;
+    insert_sources(tx, &new_measurements, seq)?;
     for l in &lots {
         upsert_lot(tx, l, seq)?;
     }
@@ -752,7 +738,8 @@ pub fn correct(
         reason: reason.to_string(),
     };
     let seq = audit::append(tx, at, actor, batch_id, &payload)?;
-    insert_measurement(tx, &m, seq)?;
+    store_next_measurement(tx, m.id + 1)?;
+    insert_source(tx, batch_id, seq, 0, None)?;
     rows.push(m);
     let v = view::derive_cycle(batch_id, &rows, existing.excluded, existing.first_seq);
     upsert_cycle(tx, &v)?;

@@ -162,37 +162,11 @@ impl ModelId {
                 out[0] = 1.0;
                 out[1] = -x;
             }
-            ModelId::Power => {
-                let (a0, kd, m) = (p[0], p[1], p[2]);
-                let s = m - 1.0;
-                let t = kd * x;
-                if s.abs() < POWER_M_EPS {
-                    // Limits as m → 1: u^e → e^(−t), ∂y/∂m → y·t²/2.
-                    let e = (-t).exp();
-                    out[0] = e;
-                    out[1] = -a0 * x * e;
-                    out[2] = a0 * e * t * t / 2.0;
-                } else {
-                    let u = 1.0 + s * t;
-                    if u <= 0.0 {
-                        out.iter_mut().for_each(|v| *v = f64::NAN);
-                        return;
-                    }
-                    let lu = u.ln();
-                    let ue = (-lu / s).exp();
-                    let y = a0 * ue;
-                    out[0] = ue;
-                    out[1] = -a0 * x * ue / u;
-                    // ln y = ln a0 − ln(u)/s ⇒ ∂ln y/∂m = ln(u)/s² − t/(s·u); written as
-                    // (ln(u) − s·t/u)/s², whose numerator is O(s²) and accurate via ln_1p.
-                    let num = (s * t).ln_1p() - s * t / u;
-                    out[2] = y * num / (s * s);
-                }
-            }
-            // The exponential models share their derivatives with the engine's inner loop.
+            // Every other model shares its derivatives with the engine's inner loop.
             ModelId::FirstOrder
             | ModelId::FirstOrderResidual
             | ModelId::SecondOrder
+            | ModelId::Power
             | ModelId::TwoSite
             | ModelId::Plateau => {
                 self.eval_grad(x, p, out);
@@ -243,8 +217,40 @@ impl ModelId {
                 out[1] = p[0] * x * e;
                 p[0] * (1.0 - e)
             }
-            // Linear is trivial and the power law has several branches: kept as two calls.
-            ModelId::Linear | ModelId::Power => {
+            ModelId::Power => {
+                let (a0, kd, m) = (p[0], p[1], p[2]);
+                let s = m - 1.0;
+                let t = kd * x;
+                if s.abs() < POWER_M_EPS {
+                    // Limits as m → 1: u^e → e^(−t), ∂y/∂m → y·t²/2.
+                    let e = (-t).exp();
+                    out[0] = e;
+                    out[1] = -a0 * x * e;
+                    out[2] = a0 * e * t * t / 2.0;
+                    // The value keeps eval's second-order term in s.
+                    a0 * (-(t - s * t * t / 2.0)).exp()
+                } else {
+                    let u = 1.0 + s * kd * x;
+                    if u <= 0.0 {
+                        out.iter_mut().for_each(|v| *v = f64::NAN);
+                        return f64::NAN;
+                    }
+                    // One logarithm and one exponential serve the value and all three
+                    // derivatives (the same operations as eval, so the same bits).
+                    let lu = u.ln();
+                    let ue = (-lu / s).exp();
+                    let y = a0 * ue;
+                    out[0] = ue;
+                    out[1] = -a0 * x * ue / u;
+                    // ln y = ln a0 − ln(u)/s ⇒ ∂ln y/∂m = ln(u)/s² − t/(s·u); written as
+                    // (ln(u) − s·t/u)/s², whose numerator is O(s²) and accurate via ln_1p.
+                    let num = (s * t).ln_1p() - s * t / u;
+                    out[2] = y * num / (s * s);
+                    y
+                }
+            }
+            // Linear is trivial: kept as two calls.
+            ModelId::Linear => {
                 self.grad(x, p, out);
                 self.eval(x, p)
             }

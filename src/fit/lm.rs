@@ -34,6 +34,20 @@ pub trait Curve {
         self.gradient(x, p, out);
         self.value(x, p)
     }
+    /// y at every x into `f` and ∂y/∂θ column-major into `jac` (element (i, j) at
+    /// j·n + i), as [`Curve::value_and_gradient`] gives them point by point (only called
+    /// when [`Curve::has_gradient`] is true). Curves override it to keep per-point
+    /// overhead out of the engine's inner loop.
+    fn values_and_jacobian(&self, x: &[f64], p: &[f64], f: &mut [f64], jac: &mut [f64]) {
+        let (n, np) = (x.len(), self.n_params());
+        let mut row = vec![0.0; np];
+        for (i, &xi) in x.iter().enumerate() {
+            f[i] = self.value_and_gradient(xi, p, &mut row);
+            for (j, g) in row.iter().enumerate() {
+                jac[j * n + i] = *g;
+            }
+        }
+    }
 }
 
 /// A user model from a closure, differentiated numerically (central differences).
@@ -302,10 +316,9 @@ fn residuals<C: Curve + ?Sized>(
     rss.is_finite().then_some(rss)
 }
 
-/// Residuals as [`residuals`] and the weighted Jacobian at the same point, in one pass
-/// over the data. Returns (RSS or None, whether the Jacobian is finite).
-// The arguments are the data and the engine's own buffers; bundling them would only hide that.
-#[allow(clippy::too_many_arguments)]
+/// Residuals as [`residuals`] and the weighted Jacobian at the same point, from one
+/// evaluation of the curve over all points. Returns (RSS or None, whether the Jacobian is
+/// finite).
 fn residuals_and_jacobian<C: Curve + ?Sized>(
     curve: &C,
     x: &[f64],
@@ -314,25 +327,25 @@ fn residuals_and_jacobian<C: Curve + ?Sized>(
     p: &[f64],
     r: &mut [f64],
     jac: &mut DMatrix<f64>,
-    row: &mut [f64],
 ) -> (Option<f64>, bool) {
     let n = x.len();
     let mut rss = 0.0;
-    let mut finite_jac = true;
-    // Column-major: element (i, j) is js[j·n + i].
+    // Column-major: element (i, j) is js[j·n + i]. The model's values land in r first.
     let js = jac.as_mut_slice();
+    curve.values_and_jacobian(x, p, r, js);
     for i in 0..n {
-        let f = curve.value_and_gradient(x[i], p, row);
-        let v = sw[i] * (y[i] - f);
-        if !v.is_finite() {
-            return (None, false);
-        }
+        let v = sw[i] * (y[i] - r[i]);
         r[i] = v;
         rss += v * v;
-        for (j, g) in row.iter().enumerate() {
-            let d = sw[i] * g;
+    }
+    if !r.iter().all(|v| v.is_finite()) {
+        return (None, false);
+    }
+    let mut finite_jac = true;
+    for col in js.chunks_exact_mut(n.max(1)) {
+        for (d, w) in col.iter_mut().zip(sw) {
+            *d *= w;
             finite_jac &= d.is_finite();
-            js[j * n + i] = d;
         }
     }
     (rss.is_finite().then_some(rss), finite_jac)
@@ -570,7 +583,7 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
     // has not used it yet.
     let mut jac_ready: Option<bool> = None;
     let start_rss = if joint {
-        let (v, f) = residuals_and_jacobian(curve, x, y, &sw, &p, r, &mut jac, row);
+        let (v, f) = residuals_and_jacobian(curve, x, y, &sw, &p, r, &mut jac);
         jac_ready = Some(f);
         v
     } else {
@@ -730,7 +743,7 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
             let pnorm = pnorm.sqrt();
             let new_rss = if joint {
                 let (v, f) =
-                    residuals_and_jacobian(curve, x, y, &sw, trial, r_trial, &mut jac_trial, row);
+                    residuals_and_jacobian(curve, x, y, &sw, trial, r_trial, &mut jac_trial);
                 trial_jac_finite = f;
                 v
             } else {

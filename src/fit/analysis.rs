@@ -131,6 +131,39 @@ pub struct LotAnalysis {
     pub notes: Vec<String>,
 }
 
+/// A start for `model` from the optimum of a simpler model it contains, when one was
+/// fitted: the power law is first order at m = 1 and second order at m = 2, so it starts
+/// from whichever of those fits the lot better (its RSS is the power law's there). None
+/// means the model's own start grid. The caller falls back to the grid when the warm
+/// start does not converge.
+fn warm_start(
+    model: ModelId,
+    fits: &[(ModelId, Result<FitResult, String>)],
+) -> Option<Vec<(String, f64)>> {
+    if model != ModelId::Power {
+        return None;
+    }
+    let (f, m) = fits
+        .iter()
+        .filter_map(|(id, r)| {
+            let order = match id {
+                ModelId::FirstOrder => 1.0,
+                ModelId::SecondOrder => 2.0,
+                _ => return None,
+            };
+            r.as_ref()
+                .ok()
+                .filter(|f| f.converged && f.params.iter().all(|v| v.is_finite()))
+                .map(|f| (f, order))
+        })
+        .min_by(|a, b| a.0.rss.total_cmp(&b.0.rss))?;
+    Some(vec![
+        ("a0".to_string(), *f.params.first()?),
+        ("kd".to_string(), *f.params.get(1)?),
+        ("m".to_string(), m),
+    ])
+}
+
 fn finite_or_none(v: f64) -> Option<f64> {
     v.is_finite().then_some(v)
 }
@@ -208,7 +241,17 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
                 m.n_params()
             ))
         } else {
-            fit_model(m, &fx, &fy, &fit_opts).map_err(|e| e.to_string())
+            let warm = warm_start(m, &fits).and_then(|start| {
+                let opts = FitOptions {
+                    start,
+                    ..fit_opts.clone()
+                };
+                fit_model(m, &fx, &fy, &opts).ok().filter(|f| f.converged)
+            });
+            match warm {
+                Some(f) => Ok(f),
+                None => fit_model(m, &fx, &fy, &fit_opts).map_err(|e| e.to_string()),
+            }
         };
         match &r {
             Ok(f) if !f.converged => {

@@ -34,6 +34,20 @@ pub trait Curve {
         self.gradient(x, p, out);
         self.value(x, p)
     }
+    /// y at every x into `f` and ∂y/∂θ column-major into `jac` (element (i, j) at
+    /// j·n + i), as [`Curve::value_and_gradient`] gives them point by point (only called
+    /// when [`Curve::has_gradient`] is true). Curves override it to keep per-point
+    /// overhead out of the engine's inner loop.
+    fn values_and_jacobian(&self, x: &[f64], p: &[f64], f: &mut [f64], jac: &mut [f64]) {
+        let (n, np) = (x.len(), self.n_params());
+        let mut row = vec![0.0; np];
+        for (i, &xi) in x.iter().enumerate() {
+            f[i] = self.value_and_gradient(xi, p, &mut row);
+            for (j, g) in row.iter().enumerate() {
+                jac[j * n + i] = *g;
+            }
+        }
+    }
 }
 
 /// A user model from a closure, differentiated numerically (central differences).
@@ -60,7 +74,7 @@ impl<F: Fn(f64, &[f64]) -> f64> Curve for FnCurve<F> {
 
 /// ∂y/∂θ by central differences; the step cbrt(ε)·max(|θ|, 1e-8·scale) balances truncation
 /// and rounding error for a second-order formula.
-pub fn numeric_gradient(curve: &dyn Curve, x: f64, p: &[f64], out: &mut [f64]) {
+pub fn numeric_gradient<C: Curve + ?Sized>(curve: &C, x: f64, p: &[f64], out: &mut [f64]) {
     let mut q = p.to_vec();
     let h0 = f64::EPSILON.cbrt();
     for j in 0..p.len() {
@@ -75,7 +89,7 @@ pub fn numeric_gradient(curve: &dyn Curve, x: f64, p: &[f64], out: &mut [f64]) {
 }
 
 /// ∂y/∂θ, analytic when the curve has it.
-pub fn curve_gradient(curve: &dyn Curve, x: f64, p: &[f64], out: &mut [f64]) {
+pub fn curve_gradient<C: Curve + ?Sized>(curve: &C, x: f64, p: &[f64], out: &mut [f64]) {
     if curve.has_gradient() {
         curve.gradient(x, p, out);
     } else {
@@ -196,8 +210,8 @@ pub struct LmOutcome {
     pub evaluations: usize,
 }
 
-fn validate(
-    curve: &dyn Curve,
+fn validate<C: Curve + ?Sized>(
+    curve: &C,
     x: &[f64],
     y: &[f64],
     weights: Option<&[f64]>,
@@ -282,8 +296,8 @@ fn project(p: &mut [f64], bounds: &[(f64, f64)]) {
 }
 
 /// Weighted residuals r = √w·(y − f); returns RSS, or None if any value is not finite.
-fn residuals(
-    curve: &dyn Curve,
+fn residuals<C: Curve + ?Sized>(
+    curve: &C,
     x: &[f64],
     y: &[f64],
     sw: &[f64],
@@ -302,55 +316,59 @@ fn residuals(
     rss.is_finite().then_some(rss)
 }
 
-/// Residuals as [`residuals`] and the weighted Jacobian at the same point, in one pass
-/// over the data. Returns (RSS or None, whether the Jacobian is finite).
-// The arguments are the data and the engine's own buffers; bundling them would only hide that.
-#[allow(clippy::too_many_arguments)]
-fn residuals_and_jacobian(
-    curve: &dyn Curve,
+/// Residuals as [`residuals`] and the weighted Jacobian at the same point, from one
+/// evaluation of the curve over all points. Returns (RSS or None, whether the Jacobian is
+/// finite).
+fn residuals_and_jacobian<C: Curve + ?Sized>(
+    curve: &C,
     x: &[f64],
     y: &[f64],
     sw: &[f64],
     p: &[f64],
     r: &mut [f64],
     jac: &mut DMatrix<f64>,
-    row: &mut [f64],
 ) -> (Option<f64>, bool) {
+    let n = x.len();
     let mut rss = 0.0;
-    let mut finite_jac = true;
-    for i in 0..x.len() {
-        let f = curve.value_and_gradient(x[i], p, row);
-        let v = sw[i] * (y[i] - f);
-        if !v.is_finite() {
-            return (None, false);
-        }
+    // Column-major: element (i, j) is js[j·n + i]. The model's values land in r first.
+    let js = jac.as_mut_slice();
+    curve.values_and_jacobian(x, p, r, js);
+    for i in 0..n {
+        let v = sw[i] * (y[i] - r[i]);
         r[i] = v;
         rss += v * v;
-        for (j, g) in row.iter().enumerate() {
-            let d = sw[i] * g;
+    }
+    if !r.iter().all(|v| v.is_finite()) {
+        return (None, false);
+    }
+    let mut finite_jac = true;
+    for col in js.chunks_exact_mut(n.max(1)) {
+        for (d, w) in col.iter_mut().zip(sw) {
+            *d *= w;
             finite_jac &= d.is_finite();
-            jac[(i, j)] = d;
         }
     }
     (rss.is_finite().then_some(rss), finite_jac)
 }
 
-fn jacobian(
-    curve: &dyn Curve,
+fn jacobian<C: Curve + ?Sized>(
+    curve: &C,
     x: &[f64],
     sw: &[f64],
     p: &[f64],
     jac: &mut DMatrix<f64>,
     row: &mut [f64],
 ) -> bool {
-    for i in 0..x.len() {
+    let n = x.len();
+    let js = jac.as_mut_slice();
+    for i in 0..n {
         curve_gradient(curve, x[i], p, row);
         for (j, g) in row.iter().enumerate() {
             let v = sw[i] * g;
             if !v.is_finite() {
                 return false;
             }
-            jac[(i, j)] = v;
+            js[j * n + i] = v;
         }
     }
     true
@@ -517,9 +535,10 @@ fn cholesky_solve(l: &[f64], p: usize, b: &[f64], x: &mut [f64]) {
     }
 }
 
-/// Minimises Σ wᵢ·(yᵢ − f(xᵢ; θ))² from `start`.
-pub fn levenberg_marquardt(
-    curve: &dyn Curve,
+/// Minimises Σ wᵢ·(yᵢ − f(xᵢ; θ))² from `start`. Generic over the curve so that a model's
+/// value and derivatives inline into the per-point loops (a `&dyn Curve` works too).
+pub fn levenberg_marquardt<C: Curve + ?Sized>(
+    curve: &C,
     x: &[f64],
     y: &[f64],
     weights: Option<&[f64]>,
@@ -537,21 +556,22 @@ pub fn levenberg_marquardt(
     project(&mut p, &opts.bounds);
     // Every buffer is allocated once here: an iteration allocates nothing.
     // One allocation for all the buffers.
-    let mut work = vec![0.0; 3 * n + 9 * np + 2 * np * np];
+    let mut work = vec![0.0; 4 * n + 9 * np + 2 * np * np];
     let (mut r, rest) = work.split_at_mut(n);
     let (mut r_trial, rest) = rest.split_at_mut(n);
     let (r_geo, rest) = rest.split_at_mut(n);
-    let mut rss = residuals(curve, x, y, &sw, &p, r).ok_or_else(|| {
-        let index = x
-            .iter()
-            .position(|&xi| !curve.value(xi, &p).is_finite())
-            .unwrap_or(0);
-        FitError::BadStart { index }
-    })?;
-    let mut evaluations = 1;
+    // J·v for the step being tried, one column at a time.
+    let (jv, rest) = rest.split_at_mut(n);
+    let (jtj, rest) = rest.split_at_mut(np * np);
+    let (chol, rest) = rest.split_at_mut(np * np);
+    let mut bufs = rest.chunks_exact_mut(np);
+    let mut next = || bufs.next().unwrap_or_default();
+    let (row, diag, g, delta, step) = (next(), next(), next(), next(), next());
+    let (acc, rhs, trial, probe) = (next(), next(), next(), next());
     let mut jac = DMatrix::zeros(n, np);
     // With analytic derivatives every trial point also gets its Jacobian (the same
-    // exponentials serve both); an accepted trial then needs no separate Jacobian pass.
+    // exponentials serve both); an accepted trial then needs no separate Jacobian pass,
+    // and neither does the start.
     let joint = curve.has_gradient();
     let mut jac_trial = if joint {
         DMatrix::zeros(n, np)
@@ -559,14 +579,27 @@ pub fn levenberg_marquardt(
         DMatrix::zeros(0, 0)
     };
     let mut trial_jac_finite = false;
-    // Some(finite) when `jac` already holds the Jacobian at the current point.
+    // Some(finite) when `jac` already holds the Jacobian at the current point and the loop
+    // has not used it yet.
     let mut jac_ready: Option<bool> = None;
-    let (jtj, rest) = rest.split_at_mut(np * np);
-    let (chol, rest) = rest.split_at_mut(np * np);
-    let mut bufs = rest.chunks_exact_mut(np);
-    let mut next = || bufs.next().unwrap_or_default();
-    let (row, diag, g, delta, step) = (next(), next(), next(), next(), next());
-    let (acc, rhs, trial, probe) = (next(), next(), next(), next());
+    let start_rss = if joint {
+        let (v, f) = residuals_and_jacobian(curve, x, y, &sw, &p, r, &mut jac);
+        jac_ready = Some(f);
+        v
+    } else {
+        residuals(curve, x, y, &sw, &p, r)
+    };
+    let mut rss = start_rss.ok_or_else(|| {
+        let index = x
+            .iter()
+            .position(|&xi| !curve.value(xi, &p).is_finite())
+            .unwrap_or(0);
+        FitError::BadStart { index }
+    })?;
+    let mut evaluations = 1;
+    // Some(finite) when `jac` holds the Jacobian at the current point, used or not: the
+    // covariance at the end then needs no further pass.
+    let mut jac_at_p: Option<bool> = jac_ready;
     let mut lambda = 1e-3;
     let mut nu = 2.0;
     let mut iterations = 0;
@@ -597,6 +630,7 @@ pub fn levenberg_marquardt(
             Some(f) => f,
             None => jacobian(curve, x, &sw, &p, &mut jac, row),
         };
+        jac_at_p = Some(finite);
         if !finite {
             reason = StopReason::NonFiniteJacobian;
             break;
@@ -612,8 +646,18 @@ pub fn levenberg_marquardt(
             }
             g[a] = dot(col(a), r);
         }
-        // (J·v)ᵢ for a parameter-space vector v.
-        let jmul = |v: &[f64], i: usize| (0..np).map(|j| js[j * n + i] * v[j]).sum::<f64>();
+        // out = J·v, column by column (the same sums, in the same order, as row by row).
+        let jmul = |v: &[f64], out: &mut [f64]| {
+            for (i, o) in out.iter_mut().enumerate() {
+                *o = js[i] * v[0];
+            }
+            for j in 1..np {
+                let (c, vj) = (col(j), v[j]);
+                for (o, cj) in out.iter_mut().zip(c) {
+                    *o += cj * vj;
+                }
+            }
+        };
         // Moré's scaling: D_j never decreases, so the trust region cannot collapse in a
         // direction that was once informative.
         for j in 0..np {
@@ -658,8 +702,9 @@ pub fn levenberg_marquardt(
                 if residuals(curve, x, y, &sw, probe, r_geo).is_some() {
                     evaluations += 1;
                     // r(p+hδ) ≈ r − hJδ − ½h²·f''  ⇒  f'' ≈ 2/h·((r − r_h)/h − Jδ)
+                    jmul(delta, jv);
                     for i in 0..n {
-                        r_geo[i] = ((r[i] - r_geo[i]) / h - jmul(delta, i)) * (2.0 / h);
+                        r_geo[i] = ((r[i] - r_geo[i]) / h - jv[i]) * (2.0 / h);
                     }
                     for j in 0..np {
                         rhs[j] = dot(col(j), r_geo);
@@ -698,7 +743,7 @@ pub fn levenberg_marquardt(
             let pnorm = pnorm.sqrt();
             let new_rss = if joint {
                 let (v, f) =
-                    residuals_and_jacobian(curve, x, y, &sw, trial, r_trial, &mut jac_trial, row);
+                    residuals_and_jacobian(curve, x, y, &sw, trial, r_trial, &mut jac_trial);
                 trial_jac_finite = f;
                 v
             } else {
@@ -707,8 +752,9 @@ pub fn levenberg_marquardt(
             evaluations += 1;
             // Predicted reduction of the linear model: ‖r‖² − ‖r − Jδ‖².
             let mut lin = 0.0;
+            jmul(step, jv);
             for i in 0..n {
-                let v = r[i] - jmul(step, i);
+                let v = r[i] - jv[i];
                 lin += v * v;
             }
             let predicted = rss - lin;
@@ -726,6 +772,9 @@ pub fn levenberg_marquardt(
                     if joint {
                         std::mem::swap(&mut jac, &mut jac_trial);
                         jac_ready = Some(trial_jac_finite);
+                        jac_at_p = jac_ready;
+                    } else {
+                        jac_at_p = None;
                     }
                     rss = new_rss;
                     lambda *= (1.0 - (2.0 * rho - 1.0).powi(3)).max(1.0 / 3.0);
@@ -765,11 +814,11 @@ pub fn levenberg_marquardt(
             }
         }
     }
-    let inv_jtj = if jacobian(curve, x, &sw, &p, &mut jac, row) {
-        inverse_jtj(&jac)
-    } else {
-        None
+    let finite = match jac_at_p {
+        Some(f) => f,
+        None => jacobian(curve, x, &sw, &p, &mut jac, row),
     };
+    let inv_jtj = if finite { inverse_jtj(&jac) } else { None };
     Ok(LmOutcome {
         params: p,
         rss,

@@ -158,41 +158,12 @@ impl ModelId {
             return;
         }
         match self {
-            ModelId::Linear => {
-                out[0] = 1.0;
-                out[1] = -x;
-            }
-            ModelId::Power => {
-                let (a0, kd, m) = (p[0], p[1], p[2]);
-                let s = m - 1.0;
-                let t = kd * x;
-                if s.abs() < POWER_M_EPS {
-                    // Limits as m → 1: u^e → e^(−t), ∂y/∂m → y·t²/2.
-                    let e = (-t).exp();
-                    out[0] = e;
-                    out[1] = -a0 * x * e;
-                    out[2] = a0 * e * t * t / 2.0;
-                } else {
-                    let u = 1.0 + s * t;
-                    if u <= 0.0 {
-                        out.iter_mut().for_each(|v| *v = f64::NAN);
-                        return;
-                    }
-                    let lu = u.ln();
-                    let ue = (-lu / s).exp();
-                    let y = a0 * ue;
-                    out[0] = ue;
-                    out[1] = -a0 * x * ue / u;
-                    // ln y = ln a0 − ln(u)/s ⇒ ∂ln y/∂m = ln(u)/s² − t/(s·u); written as
-                    // (ln(u) − s·t/u)/s², whose numerator is O(s²) and accurate via ln_1p.
-                    let num = (s * t).ln_1p() - s * t / u;
-                    out[2] = y * num / (s * s);
-                }
-            }
-            // The exponential models share their derivatives with the engine's inner loop.
-            ModelId::FirstOrder
+            // Every model shares its derivatives with the engine's inner loop.
+            ModelId::Linear
+            | ModelId::FirstOrder
             | ModelId::FirstOrderResidual
             | ModelId::SecondOrder
+            | ModelId::Power
             | ModelId::TwoSite
             | ModelId::Plateau => {
                 self.eval_grad(x, p, out);
@@ -207,6 +178,42 @@ impl ModelId {
             out.iter_mut().for_each(|v| *v = f64::NAN);
             return f64::NAN;
         }
+        self.point(x, p, out)
+    }
+
+    /// y at every x into `f` and ∂y/∂θ column-major into `jac` (element (i, j) at
+    /// j·n + i), each exactly as [`ModelId::eval_grad`] gives it. The model is matched
+    /// once, not once per point, so the loop holds only the formula: this is where a fit
+    /// spends most of its time.
+    pub fn eval_grad_rows(self, x: &[f64], p: &[f64], f: &mut [f64], jac: &mut [f64]) {
+        let (n, np) = (x.len(), self.n_params());
+        if p.len() < np || f.len() < n || jac.len() < n * np {
+            f.iter_mut()
+                .chain(jac.iter_mut())
+                .for_each(|v| *v = f64::NAN);
+            return;
+        }
+        // Each arm names its model as a constant, so `point` inlines to that formula.
+        match self {
+            ModelId::Linear => rows_into(x, f, jac, np, |x, o| ModelId::Linear.point(x, p, o)),
+            ModelId::FirstOrder => {
+                rows_into(x, f, jac, np, |x, o| ModelId::FirstOrder.point(x, p, o))
+            }
+            ModelId::FirstOrderResidual => rows_into(x, f, jac, np, |x, o| {
+                ModelId::FirstOrderResidual.point(x, p, o)
+            }),
+            ModelId::SecondOrder => {
+                rows_into(x, f, jac, np, |x, o| ModelId::SecondOrder.point(x, p, o))
+            }
+            ModelId::Power => rows_into(x, f, jac, np, |x, o| ModelId::Power.point(x, p, o)),
+            ModelId::TwoSite => rows_into(x, f, jac, np, |x, o| ModelId::TwoSite.point(x, p, o)),
+            ModelId::Plateau => rows_into(x, f, jac, np, |x, o| ModelId::Plateau.point(x, p, o)),
+        }
+    }
+
+    /// The body of [`ModelId::eval_grad`], lengths already checked.
+    #[inline(always)]
+    fn point(self, x: f64, p: &[f64], out: &mut [f64]) -> f64 {
         match self {
             ModelId::FirstOrder => {
                 let e = (-p[1] * x).exp();
@@ -243,10 +250,42 @@ impl ModelId {
                 out[1] = p[0] * x * e;
                 p[0] * (1.0 - e)
             }
-            // Linear is trivial and the power law has several branches: kept as two calls.
-            ModelId::Linear | ModelId::Power => {
-                self.grad(x, p, out);
-                self.eval(x, p)
+            ModelId::Power => {
+                let (a0, kd, m) = (p[0], p[1], p[2]);
+                let s = m - 1.0;
+                let t = kd * x;
+                if s.abs() < POWER_M_EPS {
+                    // Limits as m → 1: u^e → e^(−t), ∂y/∂m → y·t²/2.
+                    let e = (-t).exp();
+                    out[0] = e;
+                    out[1] = -a0 * x * e;
+                    out[2] = a0 * e * t * t / 2.0;
+                    // The value keeps eval's second-order term in s.
+                    a0 * (-(t - s * t * t / 2.0)).exp()
+                } else {
+                    let u = 1.0 + s * kd * x;
+                    if u <= 0.0 {
+                        out.iter_mut().for_each(|v| *v = f64::NAN);
+                        return f64::NAN;
+                    }
+                    // One logarithm and one exponential serve the value and all three
+                    // derivatives (the same operations as eval, so the same bits).
+                    let lu = u.ln();
+                    let ue = (-lu / s).exp();
+                    let y = a0 * ue;
+                    out[0] = ue;
+                    out[1] = -a0 * x * ue / u;
+                    // ln y = ln a0 − ln(u)/s ⇒ ∂ln y/∂m = ln(u)/s² − t/(s·u); written as
+                    // (ln(u) − s·t/u)/s², whose numerator is O(s²) and accurate via ln_1p.
+                    let num = (s * t).ln_1p() - s * t / u;
+                    out[2] = y * num / (s * s);
+                    y
+                }
+            }
+            ModelId::Linear => {
+                out[0] = 1.0;
+                out[1] = -x;
+                p[0] - p[1] * x
             }
         }
     }
@@ -299,6 +338,26 @@ impl ModelId {
     }
 }
 
+/// The loop of [`ModelId::eval_grad_rows`] for one model's `point` formula (np ≤ 5).
+#[inline(always)]
+fn rows_into(
+    x: &[f64],
+    f: &mut [f64],
+    jac: &mut [f64],
+    np: usize,
+    point: impl Fn(f64, &mut [f64]) -> f64,
+) {
+    let n = x.len();
+    let mut row = [0.0; 5];
+    let row = &mut row[..np.min(5)];
+    for (i, &xi) in x.iter().enumerate() {
+        f[i] = point(xi, row);
+        for (j, g) in row.iter().enumerate() {
+            jac[j * n + i] = *g;
+        }
+    }
+}
+
 impl std::fmt::Display for ModelId {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.write_str(self.id())
@@ -320,6 +379,9 @@ impl Curve for ModelId {
     }
     fn value_and_gradient(&self, x: f64, p: &[f64], out: &mut [f64]) -> f64 {
         self.eval_grad(x, p, out)
+    }
+    fn values_and_jacobian(&self, x: &[f64], p: &[f64], f: &mut [f64], jac: &mut [f64]) {
+        self.eval_grad_rows(x, p, f, jac)
     }
 }
 
@@ -395,6 +457,26 @@ mod tests {
                 let v = m.eval_grad(x, &p, &mut b);
                 assert_eq!(v.to_bits(), m.eval(x, &p).to_bits(), "{m} x={x}");
                 assert_eq!(a, b, "{m} x={x}");
+            }
+        }
+    }
+
+    #[test]
+    fn rows_are_identical_to_points() {
+        let x = [0.0, 1.0, 7.5, 30.0];
+        for m in ModelId::ALL {
+            let p = sample_params(m);
+            let np = p.len();
+            let mut f = [0.0; 4];
+            let mut jac = vec![0.0; 4 * np];
+            m.eval_grad_rows(&x, &p, &mut f, &mut jac);
+            for (i, &xi) in x.iter().enumerate() {
+                let mut g = vec![0.0; np];
+                let v = m.eval_grad(xi, &p, &mut g);
+                assert_eq!(f[i].to_bits(), v.to_bits(), "{m} x={xi}");
+                for j in 0..np {
+                    assert_eq!(jac[j * 4 + i].to_bits(), g[j].to_bits(), "{m} x={xi} j={j}");
+                }
             }
         }
     }

@@ -42,6 +42,15 @@ fn linear_fit<const K: usize>(
             rhs[r] += b[r] * yi;
         }
     }
+    solve_normal(a, rhs, yty)
+}
+
+/// Solves the normal equations A·c = Bᵀy of [`linear_fit`], given A, Bᵀy and yᵀy.
+fn solve_normal<const K: usize>(
+    mut a: [[f64; K]; K],
+    mut rhs: [f64; K],
+    yty: f64,
+) -> Option<([f64; K], f64)> {
     let bty = rhs;
     // Gaussian elimination with partial pivoting on the K×K system.
     for col in 0..K {
@@ -179,24 +188,42 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
         }
         ModelId::TwoSite => {
             let coarse = rate_grid(span, 9);
-            // exp(−k·xᵢ) once per rate and point, shared by every pair of rates.
-            let table: Vec<Vec<f64>> = coarse
-                .iter()
-                .map(|&k| {
-                    let mut r = Vec::with_capacity(x.len());
-                    decay_row(k, x, step, &mut r);
-                    r
-                })
+            let m = x.len().min(y.len());
+            let (x, y) = (&x[..m], &y[..m]);
+            // exp(−k·xᵢ) once per rate and point, shared by every pair of rates; and so
+            // are the sums of the normal equations: each pair's basis (1, e_i, e_j) only
+            // combines them. The sums are the ones `linear_fit` would form, term by term
+            // in the same order, so the starts are the same to the last bit.
+            let g = coarse.len();
+            let mut table = vec![0.0; g * x.len()];
+            for (k, t) in coarse.iter().zip(table.chunks_exact_mut(x.len().max(1))) {
+                decay_row(*k, x, step, &mut row);
+                t.copy_from_slice(&row);
+            }
+            let col = |i: usize| &table[i * x.len()..(i + 1) * x.len()];
+            let sum = |a: &[f64], b: &[f64]| a.iter().zip(b).fold(0.0, |s, (u, v)| s + u * v);
+            let count = y.iter().fold(0.0, |s, _| s + 1.0);
+            let (sum_y, yty) = y.iter().fold((0.0, 0.0), |(s, q), &v| (s + v, q + v * v));
+            let sum_e: Vec<f64> = (0..g)
+                .map(|i| col(i).iter().fold(0.0, |s, v| s + v))
                 .collect();
-            let table = &table;
+            let sum_ey: Vec<f64> = (0..g).map(|i| sum(col(i), y)).collect();
+            let mut gram = vec![0.0; g * g];
+            for i in 0..g {
+                for j in 0..=i {
+                    gram[i * g + j] = sum(col(i), col(j));
+                }
+            }
+            let (sum_e, sum_ey, gram) = (&sum_e, &sum_ey, &gram);
             best(coarse.iter().enumerate().flat_map(|(i, &k1)| {
                 coarse[..i].iter().enumerate().map(move |(j, &k2)| {
-                    linear_fit::<3>(x, y, |n, _, b| {
-                        b[0] = 1.0;
-                        b[1] = table[i][n];
-                        b[2] = table[j][n];
-                    })
-                    .map(|(c, r)| ([c[0], c[1], k1, c[2], k2], r))
+                    let a = [
+                        [count, sum_e[i], sum_e[j]],
+                        [sum_e[i], gram[i * g + i], gram[i * g + j]],
+                        [sum_e[j], gram[i * g + j], gram[j * g + j]],
+                    ];
+                    solve_normal::<3>(a, [sum_y, sum_ey[i], sum_ey[j]], yty)
+                        .map(|(c, r)| ([c[0], c[1], k1, c[2], k2], r))
                 })
             }))
             .map(|p| p.to_vec())

@@ -66,6 +66,36 @@ CREATE VIEW measurements AS
     FROM events e
     WHERE e.kind = 'correction';
 
+-- The current view of each cycle, clustered by its batch id: a WITHOUT ROWID table is one
+-- B-tree where the rowid table with its TEXT primary key was two (table and key index).
+CREATE TABLE cycles_by_batch (
+    batch_id             TEXT PRIMARY KEY,
+    lot                  TEXT,
+    cycle_no             INTEGER,
+    started_at           TEXT,
+    duration_s           REAL,
+    temperature_k        REAL,
+    substrate_mol        REAL,
+    catalyst_mass_g      REAL,
+    metal_charged_mol    REAL,
+    conversion           REAL,
+    selectivity          REAL,
+    yield                REAL,
+    product_mass_g       REAL,
+    metal_in_product_ug_g REAL,
+    catalyst_recovered_g REAL,
+    conflicts            INTEGER NOT NULL DEFAULT 0,
+    excluded             INTEGER NOT NULL DEFAULT 0,
+    first_seq            INTEGER NOT NULL
+) STRICT, WITHOUT ROWID;
+INSERT INTO cycles_by_batch SELECT batch_id, lot, cycle_no, started_at, duration_s,
+    temperature_k, substrate_mol, catalyst_mass_g, metal_charged_mol, conversion,
+    selectivity, yield, product_mass_g, metal_in_product_ug_g, catalyst_recovered_g,
+    conflicts, excluded, first_seq FROM cycles;
+DROP TABLE cycles;
+ALTER TABLE cycles_by_batch RENAME TO cycles;
+CREATE INDEX cycles_lot ON cycles(lot);
+
 -- A content is ingested once. The index holds the 32 bytes of the SHA-256 rather than its
 -- 64 hex characters: a hash lands on a random page, so every commit rewrites the pages it
 -- touched, and half the key size halves the pages. Lookups use the same expression.

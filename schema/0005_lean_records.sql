@@ -36,19 +36,32 @@ DROP INDEX measurements_batch_seq;
 DROP TABLE measurements;
 
 -- The values as rows, read from the events that wrote them (a scan of the event log: for
--- people and reports, not for the hot path).
+-- people and reports, not for the hot path). A file's rows are stored as arrays in this
+-- column order (events from before 0005 hold them as objects); a correction holds one
+-- row as an object.
 CREATE VIEW measurements AS
-    SELECT json_extract(m.value, '$.id')             AS id,
-           json_extract(m.value, '$.batch_id')       AS batch_id,
-           json_extract(m.value, '$.quantity')       AS quantity,
-           json_extract(m.value, '$.value')          AS value,
-           json_extract(m.value, '$.text')           AS text,
-           json_extract(m.value, '$.kind')           AS kind,
-           json_extract(m.value, '$.source_file_id') AS source_file_id,
-           json_extract(m.value, '$.line')           AS line,
-           json_extract(m.value, '$.col')            AS col,
-           json_extract(m.value, '$.raw')            AS raw,
-           e.seq                                     AS event_seq
+    SELECT
+           CASE m.type WHEN 'array' THEN json_extract(m.value, '$[0]')
+                ELSE json_extract(m.value, '$.id') END AS id,
+           CASE m.type WHEN 'array' THEN json_extract(m.value, '$[1]')
+                ELSE json_extract(m.value, '$.batch_id') END AS batch_id,
+           CASE m.type WHEN 'array' THEN json_extract(m.value, '$[2]')
+                ELSE json_extract(m.value, '$.quantity') END AS quantity,
+           CASE m.type WHEN 'array' THEN json_extract(m.value, '$[3]')
+                ELSE json_extract(m.value, '$.value') END AS value,
+           CASE m.type WHEN 'array' THEN json_extract(m.value, '$[4]')
+                ELSE json_extract(m.value, '$.text') END AS text,
+           CASE m.type WHEN 'array' THEN json_extract(m.value, '$[5]')
+                ELSE json_extract(m.value, '$.kind') END AS kind,
+           CASE m.type WHEN 'array' THEN json_extract(m.value, '$[6]')
+                ELSE json_extract(m.value, '$.source_file_id') END AS source_file_id,
+           CASE m.type WHEN 'array' THEN json_extract(m.value, '$[7]')
+                ELSE json_extract(m.value, '$.line') END AS line,
+           CASE m.type WHEN 'array' THEN json_extract(m.value, '$[8]')
+                ELSE json_extract(m.value, '$.col') END AS col,
+           CASE m.type WHEN 'array' THEN json_extract(m.value, '$[9]')
+                ELSE json_extract(m.value, '$.raw') END AS raw,
+           e.seq AS event_seq
     FROM events e, json_each(e.payload, '$.measurements') m
     WHERE e.kind = 'file-ingested'
     UNION ALL

@@ -116,7 +116,7 @@ fn a_value_changed_behind_the_back_is_named() {
         .unwrap();
     let changed = conn
         .execute(
-            "UPDATE events SET payload = replace(payload, '\"value\":0.9,', '\"value\":0.95,') WHERE seq = ?1",
+            "UPDATE events SET payload = replace(payload, '\"conversion\",0.9,', '\"conversion\",0.95,') WHERE seq = ?1",
             [seq],
         )
         .unwrap();

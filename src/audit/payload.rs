@@ -5,6 +5,94 @@
 
 use serde::{Deserialize, Serialize};
 
+/// The measurements of a `file-ingested` event, stored compactly: each row as a JSON array
+/// in the column order of the `measurements` view, `[id, batch_id, quantity, value, text,
+/// kind, source_file_id, line, col, raw]`, rather than an object repeating every name.
+/// They are most of a backfill's bytes. Rows as objects (events written before) are read
+/// too, so every event ever stored still decodes.
+pub mod compact_rows {
+    use serde::de::{self, MapAccess, SeqAccess, Visitor};
+    use serde::ser::SerializeSeq;
+    use serde::{Deserialize, Deserializer, Serializer};
+
+    use super::MeasurementRow;
+
+    pub fn serialize<S: Serializer>(rows: &[MeasurementRow], s: S) -> Result<S::Ok, S::Error> {
+        let mut seq = s.serialize_seq(Some(rows.len()))?;
+        for m in rows {
+            seq.serialize_element(&(
+                m.id,
+                &m.batch_id,
+                &m.quantity,
+                m.value,
+                &m.text,
+                &m.kind,
+                m.source_file_id,
+                m.line,
+                m.col,
+                &m.raw,
+            ))?;
+        }
+        seq.end()
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Vec<MeasurementRow>, D::Error> {
+        Ok(Vec::<Wire>::deserialize(d)?
+            .into_iter()
+            .map(|w| w.0)
+            .collect())
+    }
+
+    /// One row, as an array (compact) or as an object (older events).
+    struct Wire(MeasurementRow);
+
+    impl<'de> Deserialize<'de> for Wire {
+        fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+            d.deserialize_any(WireVisitor)
+        }
+    }
+
+    struct WireVisitor;
+
+    impl<'de> Visitor<'de> for WireVisitor {
+        type Value = Wire;
+
+        fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+            f.write_str("a measurement row, as an array of 10 values or as an object")
+        }
+
+        fn visit_seq<A: SeqAccess<'de>>(self, mut a: A) -> Result<Wire, A::Error> {
+            fn next<'de, A: SeqAccess<'de>, T: Deserialize<'de>>(
+                a: &mut A,
+                i: usize,
+            ) -> Result<T, A::Error> {
+                a.next_element()?
+                    .ok_or_else(|| de::Error::invalid_length(i, &"10 values"))
+            }
+            let row = MeasurementRow {
+                id: next(&mut a, 0)?,
+                batch_id: next(&mut a, 1)?,
+                quantity: next(&mut a, 2)?,
+                value: next(&mut a, 3)?,
+                text: next(&mut a, 4)?,
+                kind: next(&mut a, 5)?,
+                source_file_id: next(&mut a, 6)?,
+                line: next(&mut a, 7)?,
+                col: next(&mut a, 8)?,
+                raw: next(&mut a, 9)?,
+            };
+            if a.next_element::<de::IgnoredAny>()?.is_some() {
+                return Err(de::Error::invalid_length(11, &"10 values"));
+            }
+            Ok(Wire(row))
+        }
+
+        fn visit_map<A: MapAccess<'de>>(self, a: A) -> Result<Wire, A::Error> {
+            MeasurementRow::deserialize(de::value::MapAccessDeserializer::new(a)).map(Wire)
+        }
+    }
+}
+
 /// A row of `source_files`.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct FileRow {
@@ -60,6 +148,7 @@ pub enum Payload {
     /// A file's records were stored. `lots` are registrations or changes from a lot sheet.
     FileIngested {
         file: FileRow,
+        #[serde(with = "compact_rows")]
         measurements: Vec<MeasurementRow>,
         lots: Vec<LotRecord>,
     },
@@ -107,6 +196,7 @@ pub enum Payload {
 #[serde(tag = "kind", rename = "file-ingested")]
 pub struct FileIngestedRef<'a> {
     pub file: &'a FileRow,
+    #[serde(serialize_with = "compact_rows::serialize")]
     pub measurements: &'a [MeasurementRow],
     pub lots: &'a [LotRecord],
 }
@@ -182,9 +272,39 @@ mod tests {
             measurements: &[m.clone(), m],
             lots: &[lot],
         };
-        assert_eq!(
-            serde_json::to_string(&owned).unwrap(),
-            serde_json::to_string(&by_ref).unwrap()
+        let text = serde_json::to_string(&owned).unwrap();
+        assert_eq!(text, serde_json::to_string(&by_ref).unwrap());
+        // Rows are arrays in the view's column order, and decode back exactly.
+        assert!(
+            text.contains(r#""measurements":[[9,"B1","conversion",0.30000000000000004,null,"observed",3,2,7,"30,0"],"#),
+            "{text}"
         );
+        assert_eq!(serde_json::from_str::<Payload>(&text).unwrap(), owned);
+    }
+
+    #[test]
+    fn rows_written_as_objects_by_earlier_versions_still_decode() {
+        let old = r#"{"kind":"file-ingested","file":{"id":6,"sha256":"bf","path":"/e/b.txt","size":298,"mtime":null,"profile":"balance","site":"KV4","seen_at":"2026-12-02T01:05:20.492Z","outcome":"ingested","error":null,"rows_new":1,"rows_known":0,"rows_conflict":0,"quarantined":null},"measurements":[{"id":21,"batch_id":"KV4-H-006","quantity":"substrate","value":1.2,"text":null,"kind":"observed","source_file_id":6,"line":2,"col":4,"raw":"1200,0"}],"lots":[]}"#;
+        let Payload::FileIngested { measurements, .. } = serde_json::from_str(old).unwrap() else {
+            panic!("a file-ingested payload");
+        };
+        assert_eq!(measurements.len(), 1);
+        assert_eq!(measurements[0].id, 21);
+        assert_eq!(measurements[0].value, Some(1.2));
+        assert_eq!(measurements[0].raw.as_deref(), Some("1200,0"));
+    }
+
+    #[test]
+    fn a_row_of_the_wrong_length_is_an_error_not_a_panic() {
+        for rows in [
+            r#"[[1,"B","q",0.5,null,"observed",1,2,3]]"#,
+            r#"[[1,"B","q",0.5,null,"observed",1,2,3,"x","extra"]]"#,
+            r#"[1]"#,
+        ] {
+            let body = format!(
+                r#"{{"kind":"file-ingested","file":{{"id":1,"sha256":"a","path":"p","size":1,"mtime":null,"profile":null,"site":null,"seen_at":"t","outcome":"ingested","error":null,"rows_new":0,"rows_known":0,"rows_conflict":0,"quarantined":null}},"measurements":{rows},"lots":[]}}"#
+            );
+            assert!(serde_json::from_str::<Payload>(&body).is_err(), "{rows}");
+        }
     }
 }

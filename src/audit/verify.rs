@@ -85,7 +85,6 @@ fn diff_rows<T: Serialize>(
     }
 }
 
-/// Verify the whole database.
 /// A row of `batch_sources`: an event wrote values of a batch from a file line.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 struct SourceLink {
@@ -100,6 +99,7 @@ impl SourceLink {
     }
 }
 
+/// Verify the whole database.
 pub fn verify(conn: &Connection) -> Result<VerifyReport> {
     let mut findings = Vec::new();
     let mut files: BTreeMap<i64, (FileRow, i64)> = BTreeMap::new();

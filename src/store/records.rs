@@ -262,7 +262,10 @@ pub fn measurements_up_to(
 /// every other field of the payload is skipped.
 #[derive(serde::Deserialize)]
 struct WrittenValues {
-    #[serde(default)]
+    #[serde(
+        default,
+        deserialize_with = "crate::audit::payload::compact_rows::deserialize"
+    )]
     measurements: Vec<MeasurementRow>,
     #[serde(default)]
     measurement: Option<MeasurementRow>,

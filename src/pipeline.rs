@@ -7,6 +7,7 @@
 
 use std::collections::{BTreeSet, HashMap};
 use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::mpsc;
 
 use rusqlite::{Connection, TransactionBehavior};
@@ -216,37 +217,48 @@ impl Ingestor {
         // unrecorded and read again by the next run: nothing lost, nothing twice. (WAL
         // keeps the database whole either way; a process crash loses nothing at all.)
         self.conn.pragma_update(None, "synchronous", "NORMAL")?;
-        let writer = Writer {
-            conn: &mut self.conn,
-            cfg: &self.cfg,
-            actor: &self.actor,
-        };
+        let db_path = self.cfg.database_path();
+        let committed = AtomicUsize::new(0);
+        let mut writer = Writer::new(&mut self.conn, &self.cfg, &self.actor);
+        writer.version_at_start = Some(data_version(writer.conn)?);
         let stored = std::thread::scope(|scope| -> Result<(), StoreError> {
             // Reader r prepares groups r, r + readers, ...; one group in flight per reader
             // bounds the memory held.
             let mut inbox = Vec::with_capacity(readers);
             for r in 0..readers {
-                let (tx, rx) = mpsc::sync_channel::<Vec<Prepared>>(1);
+                let (tx, rx) = mpsc::sync_channel::<(Vec<Prepared>, Option<HashLookups>)>(1);
                 inbox.push(rx);
                 let groups = &groups;
                 let reader = &reader;
+                let (db_path, committed) = (&db_path, &committed);
                 scope.spawn(move || {
+                    // Hash lookups on the reader's own connection take them off the writer;
+                    // without it (an error), the writer looks each hash up itself.
+                    let mut conn = open_for_lookups(db_path)
+                        .inspect_err(|e| tracing::debug!(error = %e, "reader looks up no hashes"))
+                        .ok();
                     for group in groups.iter().skip(r).step_by(readers) {
-                        if tx.send(reader.prepare_group(group)).is_err() {
+                        let prepared = reader.prepare_group(group);
+                        let lookups = conn.as_mut().and_then(|c| {
+                            lookup_hashes(c, &prepared, committed)
+                                .inspect_err(|e| tracing::debug!(error = %e, "hash lookups failed"))
+                                .ok()
+                        });
+                        if tx.send((prepared, lookups)).is_err() {
                             break; // the writer stopped on an error
                         }
                     }
                 });
             }
-            let mut writer = writer;
             for (g, group) in groups.iter().enumerate() {
-                let prepared = match inbox[g % readers].recv() {
+                let (prepared, lookups) = match inbox[g % readers].recv() {
                     Ok(p) => p,
                     // A reader thread ended early (it panicked): read this group here; the
                     // panic is raised again when the scope ends.
-                    Err(_) => reader.prepare_group(group),
+                    Err(_) => (reader.prepare_group(group), None),
                 };
-                let (outcomes, lots) = writer.store(prepared, false)?;
+                let (outcomes, lots) = writer.store(prepared, lookups.as_ref(), false)?;
+                committed.store(writer.committed, Ordering::Release);
                 touched.extend(lots);
                 for o in outcomes {
                     summary.add(&o);
@@ -279,31 +291,110 @@ impl Ingestor {
             profile_override: self.profile_override.as_deref(),
         }
         .prepare_group(paths);
-        Writer {
-            conn: &mut self.conn,
-            cfg: &self.cfg,
-            actor: &self.actor,
-        }
-        .store(prepared, true)
-        .map(|(o, _)| o)
+        Writer::new(&mut self.conn, &self.cfg, &self.actor)
+            .store(prepared, None, true)
+            .map(|(o, _)| o)
     }
 }
+
+/// What a reader learnt of a group's hashes from the database, so that the writer need not
+/// look each one up itself.
+struct HashLookups {
+    /// Groups of this run already committed when the reader's snapshot began: every file
+    /// they ingested was visible to the lookups.
+    visible_groups: usize,
+    /// Per file of the group: the file ingested before with the same content, if any.
+    found: Vec<Option<i64>>,
+}
+
+/// Look up, in one read snapshot, whether each file's content was ingested before.
+/// `committed` counts the groups this run has committed; it is read before the snapshot
+/// begins, so every group it counts is visible.
+fn lookup_hashes(
+    conn: &mut Connection,
+    prepared: &[Prepared],
+    committed: &AtomicUsize,
+) -> Result<HashLookups, StoreError> {
+    let visible_groups = committed.load(Ordering::Acquire);
+    let tx = conn.transaction()?;
+    let mut found = Vec::with_capacity(prepared.len());
+    for p in prepared {
+        found.push(if p.facts.sha256.is_empty() {
+            None
+        } else {
+            records::ingested_file_with_hash(&tx, &p.facts.sha256)?
+        });
+    }
+    tx.finish()?;
+    Ok(HashLookups {
+        visible_groups,
+        found,
+    })
+}
+
+/// A read-only connection for a reader thread's hash lookups.
+fn open_for_lookups(db_path: &Path) -> Result<Connection, StoreError> {
+    let conn = Connection::open_with_flags(
+        db_path,
+        rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX,
+    )?;
+    conn.busy_timeout(std::time::Duration::from_secs(10))?;
+    Ok(conn)
+}
+
+/// Groups whose ingested hashes the writer keeps, for lookups made before they committed.
+const RECENT_GROUPS: usize = 2 * MAX_READERS + 2;
 
 /// The writing half: stores prepared groups, one transaction each.
 struct Writer<'a> {
     conn: &'a mut Connection,
     cfg: &'a Config,
     actor: &'a str,
+    /// Groups this writer committed.
+    committed: usize,
+    /// The hashes ingested by the last groups committed (oldest first), by file id.
+    recent: std::collections::VecDeque<HashMap<String, i64>>,
+    /// `PRAGMA data_version` of this connection before the readers began: it moves only
+    /// when another connection commits. If it moved, a file that other writer ingested
+    /// after a reader's snapshot would be missed, so readers' lookups are not used.
+    version_at_start: Option<i64>,
 }
 
-impl Writer<'_> {
+fn data_version(conn: &Connection) -> Result<i64, StoreError> {
+    Ok(conn.query_row("PRAGMA data_version", [], |r| r.get(0))?)
+}
+
+impl<'a> Writer<'a> {
+    fn new(conn: &'a mut Connection, cfg: &'a Config, actor: &'a str) -> Self {
+        Writer {
+            conn,
+            cfg,
+            actor,
+            committed: 0,
+            recent: std::collections::VecDeque::new(),
+            version_at_start: None,
+        }
+    }
+
     /// Store a group of prepared files in one transaction; with `recompute`, the lots they
     /// touched are recomputed in it too (otherwise the caller does it later).
+    ///
+    /// `lookups`, when a reader made them, say which contents were ingested before as of
+    /// its snapshot; files ingested by groups committed after that snapshot are found in
+    /// the hashes this writer keeps of its recent groups. Without them (or when the
+    /// snapshot is older than what is kept), each hash is looked up here.
     fn store(
         &mut self,
         prepared: Vec<Prepared>,
+        lookups: Option<&HashLookups>,
         recompute: bool,
     ) -> Result<(Vec<FileOutcome>, BTreeSet<String>), StoreError> {
+        let oldest_kept = self.committed - self.recent.len();
+        let lookups = lookups.filter(|l| {
+            l.visible_groups >= oldest_kept
+                && l.visible_groups <= self.committed
+                && l.found.len() == prepared.len()
+        });
         let quarantine = self.cfg.quarantine_dir();
         // Copies into quarantine happen before the transaction: a crash after copying and
         // before commit leaves a spare copy, never a lost record.
@@ -317,17 +408,31 @@ impl Writer<'_> {
         let tx = self
             .conn
             .transaction_with_behavior(TransactionBehavior::Immediate)?;
+        // Only this run has written since the readers began (checked under the write lock).
+        let lookups = match (lookups, self.version_at_start) {
+            (Some(l), Some(v)) if data_version(&tx)? == v => Some(l),
+            _ => None,
+        };
         // The transaction holds the write lock: ids can be counted here, not queried.
         let mut ids = NextIds::default();
         let mut outcomes = Vec::with_capacity(prepared.len());
         let mut in_group: HashMap<String, i64> = HashMap::new();
         let mut touched: BTreeSet<String> = BTreeSet::new();
-        for (p, q) in prepared.into_iter().zip(quarantined) {
+        for (i, (p, q)) in prepared.into_iter().zip(quarantined).enumerate() {
             let facts = p.facts;
             let seen = match in_group.get(&facts.sha256) {
                 Some(id) => Some(*id),
                 None if facts.sha256.is_empty() => None,
-                None => records::ingested_file_with_hash(&tx, &facts.sha256)?,
+                None => match lookups {
+                    Some(l) => l.found[i].or_else(|| {
+                        // Groups committed after the reader's snapshot.
+                        self.recent
+                            .iter()
+                            .skip(l.visible_groups - oldest_kept)
+                            .find_map(|g| g.get(&facts.sha256).copied())
+                    }),
+                    None => records::ingested_file_with_hash(&tx, &facts.sha256)?,
+                },
             };
             let outcome = match (seen, p.result) {
                 (Some(of), _) => {
@@ -380,10 +485,16 @@ impl Writer<'_> {
             };
             outcomes.push(outcome);
         }
+        ids.finish(&tx)?;
         if recompute {
             crate::analysis::recompute_lots(&tx, self.cfg, &touched, self.actor)?;
         }
         tx.commit()?;
+        self.committed += 1;
+        self.recent.push_back(in_group);
+        if self.recent.len() > RECENT_GROUPS {
+            self.recent.pop_front();
+        }
         if tracing::enabled!(tracing::Level::INFO) {
             for o in &outcomes {
                 if let FileOutcome::Ingested { path, stored, .. } = o {

@@ -236,3 +236,22 @@ fn a_second_ingestion_of_one_content_is_refused_by_the_database() {
     );
     assert!(err.is_err());
 }
+
+#[test]
+fn a_measurement_counter_moved_back_is_named() {
+    let conn = populated();
+    // Measurement ids live only in the event payloads; a counter set back would make the
+    // next value reuse an id.
+    conn.execute(
+        "UPDATE id_counters SET next = 2 WHERE name = 'measurement'",
+        [],
+    )
+    .unwrap();
+    let r = audit::verify(&conn).unwrap();
+    let f = &r.findings[0];
+    assert_eq!(
+        (f.table.as_str(), f.row.as_str(), f.field.as_str()),
+        ("id_counters", "measurement", "next")
+    );
+    assert_eq!(f.stored, "2");
+}

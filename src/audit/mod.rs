@@ -78,13 +78,47 @@ pub fn append_encoded(
     kind: &str,
     body: &str,
 ) -> Result<i64> {
-    let (seq, prev): (i64, String) = tx
-        .prepare_cached("SELECT seq, hash FROM events ORDER BY seq DESC LIMIT 1")?
-        .query_row([], |r| Ok((r.get::<_, i64>(0)? + 1, r.get(1)?)))
-        .or_else(|e| match e {
-            rusqlite::Error::QueryReturnedNoRows => Ok((1, GENESIS.to_string())),
-            e => Err(e),
-        })?;
+    append_after(
+        tx,
+        &mut ChainHead::default(),
+        at,
+        actor,
+        subject,
+        kind,
+        body,
+    )
+}
+
+/// The newest event (sequence number and hash) as one writer transaction last saw it, so
+/// that a transaction appending many events reads it from the database once.
+///
+/// Only valid while every event of the transaction goes through it; an event appended
+/// past it would make the next append reuse a sequence number, which the primary key of
+/// `events` refuses (an error, never a forked chain).
+#[derive(Debug, Default, Clone)]
+pub struct ChainHead(Option<(i64, String)>);
+
+/// [`append_encoded`] continuing from `head`, which it reads when unknown and moves on.
+pub fn append_after(
+    tx: &Transaction<'_>,
+    head: &mut ChainHead,
+    at: &str,
+    actor: &str,
+    subject: &str,
+    kind: &str,
+    body: &str,
+) -> Result<i64> {
+    let (last, prev) = match head.0.take() {
+        Some(h) => h,
+        None => tx
+            .prepare_cached("SELECT seq, hash FROM events ORDER BY seq DESC LIMIT 1")?
+            .query_row([], |r| Ok((r.get::<_, i64>(0)?, r.get(1)?)))
+            .or_else(|e| match e {
+                rusqlite::Error::QueryReturnedNoRows => Ok((0, GENESIS.to_string())),
+                e => Err(e),
+            })?,
+    };
+    let seq = last + 1;
     let hash = event_hash(&prev, seq, at, actor, kind, subject, body);
     tx.prepare_cached(
         "INSERT INTO events(seq, at, actor, kind, subject, payload, prev_hash, hash)
@@ -93,6 +127,7 @@ pub fn append_encoded(
     .execute(rusqlite::params![
         seq, at, actor, kind, subject, body, prev, hash
     ])?;
+    head.0 = Some((seq, hash));
     Ok(seq)
 }
 

@@ -3,7 +3,7 @@
 
 use std::collections::{BTreeMap, HashMap};
 
-use rusqlite::Connection;
+use rusqlite::{Connection, OptionalExtension};
 use serde::Serialize;
 
 use super::{GENESIS, Payload, event_hash};
@@ -82,6 +82,27 @@ fn diff_rows<T: Serialize>(
         if &sv != ev {
             push(out, table, key, k, &sv, ev);
         }
+    }
+}
+
+/// Replay one measurement; an id given twice is a finding (ids are unique by construction,
+/// and only the event log holds them now).
+fn insert_measurement(
+    findings: &mut Vec<Finding>,
+    measurements: &mut BTreeMap<i64, (MeasurementRow, i64)>,
+    m: MeasurementRow,
+    seq: i64,
+) {
+    let id = m.id;
+    if let Some((_, earlier)) = measurements.insert(id, (m, seq)) {
+        push(
+            findings,
+            "measurements",
+            id,
+            "id",
+            format!("written again by event {seq}"),
+            format!("written once (first by event {earlier})"),
+        );
     }
 }
 
@@ -195,7 +216,7 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
             } => {
                 for m in ms {
                     first_seq.entry(m.batch_id.clone()).or_insert(seq);
-                    measurements.insert(m.id, (m, seq));
+                    insert_measurement(&mut findings, &mut measurements, m, seq);
                 }
                 for l in ls {
                     lots.insert(l.lot.clone(), (l, seq));
@@ -209,7 +230,7 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
                 lots.insert(lot.lot.clone(), (lot, seq));
             }
             Payload::Correction { measurement, .. } => {
-                measurements.insert(measurement.id, (measurement, seq));
+                insert_measurement(&mut findings, &mut measurements, measurement, seq);
             }
             Payload::Exclusion {
                 batch_id,
@@ -263,6 +284,28 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
             .collect(),
         files.into_iter().map(|(k, v)| (k.to_string(), v)).collect(),
     );
+
+    // Measurement ids are counted in `id_counters`; the next one must lie past every id
+    // the events hold, or a later value would take an id already given.
+    let next_measurement: Option<i64> = conn
+        .query_row(
+            "SELECT next FROM id_counters WHERE name = 'measurement'",
+            [],
+            |r| r.get(0),
+        )
+        .optional()?;
+    let max_id = measurements.keys().next_back().copied().unwrap_or(0);
+    match next_measurement {
+        Some(n) if n > max_id => {}
+        found => push(
+            &mut findings,
+            "id_counters",
+            "measurement",
+            "next",
+            found.map_or("missing".to_string(), |n| n.to_string()),
+            format!("more than {max_id}, the largest measurement id in the events"),
+        ),
+    }
 
     // Batches and their measurements, for the cycle views below, and the provenance links
     // the events imply: one per batch, event and file line (line 0 for a person's entry).

@@ -63,10 +63,16 @@ fn store_next_measurement(tx: &Transaction<'_>, next: i64) -> Result<()> {
 /// The next free ids of `source_files` and of measurements, read from the database once and
 /// then counted, for a writer storing many files in one transaction (which holds the
 /// write lock, so nobody else takes ids meanwhile). Start a new one for each transaction.
-#[derive(Debug, Default, Clone, Copy)]
+///
+/// It also carries the newest event of the chain, and records the next free measurement id
+/// in `id_counters` with [`NextIds::finish`], once, before the transaction commits.
+#[derive(Debug, Default, Clone)]
 pub struct NextIds {
     file: Option<i64>,
     measurement: Option<i64>,
+    /// The measurement counter as read from the database, to see whether it moved.
+    measurement_read: Option<i64>,
+    head: audit::ChainHead,
 }
 
 impl NextIds {
@@ -83,15 +89,27 @@ impl NextIds {
     fn first_measurement(&mut self, tx: &Transaction<'_>) -> Result<i64> {
         match self.measurement {
             Some(id) => Ok(id),
-            None => next_id(tx, "measurements"),
+            None => {
+                let id = next_id(tx, "measurements")?;
+                self.measurement_read = Some(id);
+                Ok(id)
+            }
         }
     }
 
-    /// Take ids up to `next_free` (exclusive) and record the counter when it moved.
-    fn measurements_to(&mut self, tx: &Transaction<'_>, first: i64, next_free: i64) -> Result<()> {
+    /// Take ids up to `next_free` (exclusive).
+    fn measurements_to(&mut self, next_free: i64) {
         self.measurement = Some(next_free);
-        if next_free != first {
-            store_next_measurement(tx, next_free)?;
+    }
+
+    /// Record the next free measurement id, if ids were taken. Call it before the
+    /// transaction commits; the `record_*` functions without counters call it themselves.
+    pub fn finish(&mut self, tx: &Transaction<'_>) -> Result<()> {
+        if let (Some(next), Some(read)) = (self.measurement, self.measurement_read)
+            && next != read
+        {
+            store_next_measurement(tx, next)?;
+            self.measurement_read = Some(next);
         }
         Ok(())
     }
@@ -159,7 +177,10 @@ pub fn record_duplicate(
     of_file_id: i64,
     actor: &str,
 ) -> Result<i64> {
-    record_duplicate_with(tx, &mut NextIds::default(), facts, of_file_id, actor)
+    let mut ids = NextIds::default();
+    let id = record_duplicate_with(tx, &mut ids, facts, of_file_id, actor)?;
+    ids.finish(tx)?;
+    Ok(id)
 }
 
 /// [`record_duplicate`] taking its id from the transaction's counters.
@@ -176,7 +197,16 @@ pub fn record_duplicate_with(
         file: file.clone(),
         of_file_id,
     };
-    let seq = audit::append(tx, &facts.seen_at, actor, &facts.path, &payload)?;
+    let body = audit::canonical(&payload)?;
+    let seq = audit::append_after(
+        tx,
+        &mut ids.head,
+        &facts.seen_at,
+        actor,
+        &facts.path,
+        payload.kind(),
+        &body,
+    )?;
     insert_file(tx, &file, seq)?;
     Ok(id)
 }
@@ -189,14 +219,10 @@ pub fn record_rejected(
     quarantined: Option<&str>,
     actor: &str,
 ) -> Result<i64> {
-    record_rejected_with(
-        tx,
-        &mut NextIds::default(),
-        facts,
-        error,
-        quarantined,
-        actor,
-    )
+    let mut ids = NextIds::default();
+    let id = record_rejected_with(tx, &mut ids, facts, error, quarantined, actor)?;
+    ids.finish(tx)?;
+    Ok(id)
 }
 
 /// [`record_rejected`] taking its id from the transaction's counters.
@@ -213,7 +239,16 @@ pub fn record_rejected_with(
     file.error = Some(error.to_string());
     file.quarantined = quarantined.map(str::to_string);
     let payload = Payload::FileRejected { file: file.clone() };
-    let seq = audit::append(tx, &facts.seen_at, actor, &facts.path, &payload)?;
+    let body = audit::canonical(&payload)?;
+    let seq = audit::append_after(
+        tx,
+        &mut ids.head,
+        &facts.seen_at,
+        actor,
+        &facts.path,
+        payload.kind(),
+        &body,
+    )?;
     insert_file(tx, &file, seq)?;
     Ok(id)
 }
@@ -393,7 +428,10 @@ pub fn record_parsed(
     parsed: &ParsedFile,
     actor: &str,
 ) -> Result<StoredFile> {
-    record_parsed_with(tx, &mut NextIds::default(), facts, parsed, actor)
+    let mut ids = NextIds::default();
+    let stored = record_parsed_with(tx, &mut ids, facts, parsed, actor)?;
+    ids.finish(tx)?;
+    Ok(stored)
 }
 
 /// [`record_parsed`] taking its ids from the transaction's counters.
@@ -414,8 +452,7 @@ pub fn record_parsed_with(
     // Measurements of each touched batch: the stored ones, then the ones this file adds.
     let mut batches: HashMap<String, (Vec<MeasurementRow>, Option<i64>, bool)> = HashMap::new();
     let mut batch_order: Vec<String> = Vec::new();
-    let first_m = ids.first_measurement(tx)?;
-    let mut next_m = first_m;
+    let mut next_m = ids.first_measurement(tx)?;
 
     match parsed {
         ParsedFile::Cycles(rows) => {
@@ -463,15 +500,16 @@ pub fn record_parsed_with(
         measurements: &new_measurements,
         lots: &lots,
     })?;
-    let seq = audit::append_encoded(
+    let seq = audit::append_after(
         tx,
+        &mut ids.head,
         &facts.seen_at,
         actor,
         &facts.path,
         "file-ingested",
         &body,
     )?;
-    ids.measurements_to(tx, first_m, next_m)?;
+    ids.measurements_to(next_m);
     out.event_seq = seq;
     insert_file(tx, &file, seq)?;
     insert_sources(tx, &new_measurements, seq)?;

@@ -1,0 +1,150 @@
+//! A backfill recognises every repeated content exactly once, wherever the copy falls:
+//! in the same group, in the next, or many groups later, whichever thread looked its hash
+//! up first; and a file ingested by another writer while the backfill runs is recognised
+//! too (the run must neither ingest it twice nor stop on the database's refusal).
+//!
+//! Invented data: one-line exports of an imaginary reactor.
+
+use std::path::{Path, PathBuf};
+
+use turnbook::config::Config;
+use turnbook::pipeline::{FileOutcome, Ingestor};
+
+fn config(root: &Path, group: usize) -> Config {
+    let text = format!(
+        r#"
+database = "t.db"
+quarantine = "quarantine"
+files_per_transaction = {group}
+
+[profiles.reactor]
+kind = "cycles"
+delimiter = ","
+decimal = "."
+encoding = "utf-8"
+columns.batch_id = {{ header = "Batch" }}
+columns.lot = {{ header = "Lot" }}
+columns.conversion = {{ header = "Conversion", unit = "%" }}
+
+[[folders]]
+path = "exports"
+profile = "reactor"
+"#
+    );
+    let path = root.join("turnbook.toml");
+    std::fs::write(&path, text).unwrap();
+    Config::load(&path).unwrap()
+}
+
+fn export(batch: usize) -> String {
+    format!(
+        "Batch,Lot,Conversion\nRD-{batch:05},LOT-A,{}.5\n",
+        40 + batch % 50
+    )
+}
+
+/// Write `n` files; file i holds the content of file `source(i)`.
+fn write(root: &Path, n: usize, source: impl Fn(usize) -> usize) -> Vec<PathBuf> {
+    let dir = root.join("exports");
+    std::fs::create_dir_all(&dir).unwrap();
+    (0..n)
+        .map(|i| {
+            let p = dir.join(format!("f{i:05}.csv"));
+            std::fs::write(&p, export(source(i))).unwrap();
+            p
+        })
+        .collect()
+}
+
+fn ingested_files(ing: &Ingestor) -> i64 {
+    ing.conn()
+        .query_row(
+            "SELECT COUNT(*) FROM source_files WHERE outcome = 'ingested'",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap()
+}
+
+#[test]
+fn copies_at_every_distance_are_duplicates_of_the_first() {
+    // File i repeats file i - d for d cycling through 1, 2, 3, 5, 8, 13, 21 on every
+    // third file; the rest are new contents.
+    let distances = [1usize, 2, 3, 5, 8, 13, 21];
+    let source = |i: usize| {
+        if i % 3 == 2 && i >= 21 {
+            i - distances[(i / 3) % distances.len()]
+        } else {
+            i
+        }
+    };
+    for group in [1usize, 2, 4, 7] {
+        let tmp = tempfile::tempdir().unwrap();
+        let files = write(tmp.path(), 400, source);
+        let mut ing = Ingestor::open(config(tmp.path(), group)).unwrap();
+        let mut outcomes = Vec::new();
+        let summary = ing
+            .ingest_paths(&files, |o| outcomes.push(o.clone()))
+            .unwrap();
+        // File i holds export(source(i)); it duplicates the first file holding the same.
+        let first_of = |i: usize| (0..=i).find(|&k| source(k) == source(i)).unwrap_or(i);
+        let expected_dups = (0..400).filter(|&i| first_of(i) != i).count();
+        assert!(expected_dups > 80, "{expected_dups}");
+        assert_eq!(summary.duplicates, expected_dups, "group {group}");
+        assert_eq!(summary.ingested, 400 - expected_dups, "group {group}");
+        assert_eq!(summary.rejected, 0, "group {group}");
+        assert_eq!(ingested_files(&ing), (400 - expected_dups) as i64);
+        // Each duplicate names the file id of its first copy (ids follow path order).
+        let ids: Vec<i64> = outcomes
+            .iter()
+            .map(|o| match o {
+                FileOutcome::Ingested { stored, .. } => stored.file_id,
+                _ => 0,
+            })
+            .collect();
+        for (i, o) in outcomes.iter().enumerate() {
+            if let FileOutcome::Duplicate { of_file_id, .. } = o {
+                assert_eq!(*of_file_id, ids[first_of(i)], "group {group}, file {i}");
+            }
+        }
+        let report = turnbook::audit::verify(ing.conn()).unwrap();
+        assert!(report.ok(), "{:?}", report.findings);
+    }
+}
+
+#[test]
+fn a_content_another_writer_ingests_during_the_run_is_a_duplicate() {
+    let tmp = tempfile::tempdir().unwrap();
+    let root = tmp.path();
+    // 60 distinct files, one per transaction. While the run is at its third file, another
+    // writer ingests a copy of the fourth, whose hash the run's reader has most likely
+    // looked up already (it reads ahead): the run must find the copy all the same.
+    let files = write(root, 60, |i| i);
+    let copy = root.join("late-copy.csv");
+    std::fs::write(&copy, export(3)).unwrap();
+    let cfg = config(root, 1);
+    let mut ing = Ingestor::open(cfg.clone()).unwrap();
+    let mut other = Ingestor::open(cfg).unwrap();
+    other.profile_override = Some("reactor".into());
+    let mut outcomes = Vec::new();
+    let summary = ing
+        .ingest_paths(&files, |o| {
+            outcomes.push(o.clone());
+            if outcomes.len() == 3 {
+                // Give the reader time to look the next groups up.
+                std::thread::sleep(std::time::Duration::from_millis(200));
+                let o = other.ingest_file(&copy).unwrap();
+                assert!(matches!(o, FileOutcome::Ingested { .. }), "{o:?}");
+            }
+        })
+        .unwrap();
+    assert_eq!((summary.ingested, summary.duplicates), (59, 1));
+    assert!(
+        matches!(&outcomes[3], FileOutcome::Duplicate { path, .. } if path.ends_with("f00003.csv")),
+        "{:?}",
+        outcomes[3]
+    );
+    assert_eq!(ingested_files(&ing), 60);
+    let report = turnbook::audit::verify(ing.conn()).unwrap();
+    assert!(report.ok(), "{:?}", report.findings);
+}

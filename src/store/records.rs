@@ -733,7 +733,8 @@ pub fn register_lot(
     Ok(seq)
 }
 
-/// Correct one value of a batch. The earlier values stay in `measurements`.
+/// Correct one value of a batch. The earlier values stay in their events (and so in the
+/// `measurements` view).
 pub fn correct(
     tx: &Transaction<'_>,
     batch_id: &str,

@@ -4,11 +4,6 @@ use std::process::ExitCode;
 
 use clap::Parser;
 
-/// mimalloc rather than the system allocator: a backfill allocates many small strings on
-/// reader threads and frees them on the writer, which the system allocator does slowly.
-#[global_allocator]
-static GLOBAL: mimalloc::MiMalloc = mimalloc::MiMalloc;
-
 fn main() -> ExitCode {
     restore_default_sigpipe();
     let cli = turnbook::commands::Cli::parse();

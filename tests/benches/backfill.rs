@@ -12,10 +12,6 @@ use std::time::Instant;
 use turnbook::config::Config;
 use turnbook::pipeline::{self, Ingestor};
 
-/// The allocator of the `turnbook` binary, so that the bench measures what users run.
-#[global_allocator]
-static GLOBAL: mimalloc::MiMalloc = mimalloc::MiMalloc;
-
 const LOTS: usize = 5;
 
 const CONFIG: &str = r#"

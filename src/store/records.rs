@@ -197,7 +197,20 @@ pub fn record_duplicate_with(
         file: file.clone(),
         of_file_id,
     };
-    let body = audit::canonical(&payload)?;
+    store_file_event(tx, ids, facts, actor, &payload, &file)?;
+    Ok(id)
+}
+
+/// Append a file's event (a duplicate or a rejection) and its `source_files` row.
+fn store_file_event(
+    tx: &Transaction<'_>,
+    ids: &mut NextIds,
+    facts: &FileFacts,
+    actor: &str,
+    payload: &Payload,
+    file: &FileRow,
+) -> Result<()> {
+    let body = audit::canonical(payload)?;
     let seq = audit::append_after(
         tx,
         &mut ids.head,
@@ -207,8 +220,7 @@ pub fn record_duplicate_with(
         payload.kind(),
         &body,
     )?;
-    insert_file(tx, &file, seq)?;
-    Ok(id)
+    insert_file(tx, file, seq)
 }
 
 /// Record a file that could not be read, with its error and where it was quarantined.
@@ -239,17 +251,7 @@ pub fn record_rejected_with(
     file.error = Some(error.to_string());
     file.quarantined = quarantined.map(str::to_string);
     let payload = Payload::FileRejected { file: file.clone() };
-    let body = audit::canonical(&payload)?;
-    let seq = audit::append_after(
-        tx,
-        &mut ids.head,
-        &facts.seen_at,
-        actor,
-        &facts.path,
-        payload.kind(),
-        &body,
-    )?;
-    insert_file(tx, &file, seq)?;
+    store_file_event(tx, ids, facts, actor, &payload, &file)?;
     Ok(id)
 }
 

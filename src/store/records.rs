@@ -211,16 +211,29 @@ fn store_file_event(
     file: &FileRow,
 ) -> Result<()> {
     let body = audit::canonical(payload)?;
-    let seq = audit::append_after(
+    let seq = append_file_event(tx, ids, facts, actor, payload.kind(), &body)?;
+    insert_file(tx, file, seq)
+}
+
+/// Append the event of a file (seen by the writer as of `facts`), continuing the chain
+/// from the transaction's head.
+fn append_file_event(
+    tx: &Transaction<'_>,
+    ids: &mut NextIds,
+    facts: &FileFacts,
+    actor: &str,
+    kind: &str,
+    body: &str,
+) -> Result<i64> {
+    audit::append_after(
         tx,
         &mut ids.head,
         &facts.seen_at,
         actor,
         &facts.path,
-        payload.kind(),
-        &body,
-    )?;
-    insert_file(tx, file, seq)
+        kind,
+        body,
+    )
 }
 
 /// Record a file that could not be read, with its error and where it was quarantined.
@@ -502,15 +515,7 @@ pub fn record_parsed_with(
         measurements: &new_measurements,
         lots: &lots,
     })?;
-    let seq = audit::append_after(
-        tx,
-        &mut ids.head,
-        &facts.seen_at,
-        actor,
-        &facts.path,
-        "file-ingested",
-        &body,
-    )?;
+    let seq = append_file_event(tx, ids, facts, actor, "file-ingested", &body)?;
     ids.measurements_to(next_m);
     out.event_seq = seq;
     insert_file(tx, &file, seq)?;

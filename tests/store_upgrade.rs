@@ -669,7 +669,7 @@ fn an_upgrade_from_version_4_keeps_every_value_with_its_origin() {
     let conn = upgrade(&v4.path);
 
     // The schema is the newest, every migration recorded once.
-    assert_eq!(schema_version(&conn), 5);
+    assert_eq!(schema_version(&conn), 6);
     assert_eq!(schema_version(&conn), migrate::latest());
     let recorded: Vec<(i64, String)> = {
         let mut stmt = conn
@@ -773,7 +773,7 @@ fn an_upgrade_from_version_4_keeps_every_value_with_its_origin() {
     // Opening again changes nothing (the upgrade ran once).
     drop(conn);
     let again = upgrade(&v4.path);
-    assert_eq!(schema_version(&again), 5);
+    assert_eq!(schema_version(&again), migrate::latest());
     assert_eq!(measurement_values(&again), old_values);
     assert_eq!(measurement_counter(&again), v4.max_id() + 1);
 }
@@ -982,4 +982,57 @@ fn records_after_the_upgrade_continue_the_old_ids_and_verify() {
         (Some(0.965), 0)
     );
     assert_verifies(&conn);
+}
+
+/// Migration 0006 rebuilt `source_files` for its CHECK: the rows, the references to them
+/// and the foreign keys survive it, the check still refuses any other outcome, and storing
+/// a file's row no longer builds a temporary index per row.
+#[test]
+fn the_rebuilt_file_table_keeps_its_rows_and_checks_without_a_temporary_index() {
+    let v4 = build_v4();
+    let conn = upgrade(&v4.path);
+    let fk_on: bool = conn
+        .query_row("PRAGMA foreign_keys", [], |r| r.get(0))
+        .unwrap();
+    assert!(fk_on, "foreign keys are back on after the migrations");
+    let orphans: i64 = conn
+        .query_row("SELECT COUNT(*) FROM pragma_foreign_key_check", [], |r| {
+            r.get(0)
+        })
+        .unwrap();
+    assert_eq!(orphans, 0);
+    let indexes: Vec<String> = conn
+        .prepare(
+            "SELECT name FROM sqlite_schema WHERE type = 'index' AND tbl_name = 'source_files' \
+             AND sql IS NOT NULL ORDER BY name",
+        )
+        .unwrap()
+        .query_map([], |r| r.get(0))
+        .unwrap()
+        .collect::<Result<_, _>>()
+        .unwrap();
+    assert_eq!(indexes, ["source_files_ingested_once", "source_files_path"]);
+    let insert = "INSERT INTO source_files(sha256, path, size, seen_at, outcome, event_seq) \
+                  VALUES ('00', 'x', 1, 'now', ?1, (SELECT MAX(seq) FROM events))";
+    let refused = conn.execute(insert, ["imported"]).unwrap_err();
+    assert!(
+        refused.to_string().contains("CHECK constraint failed"),
+        "{refused}"
+    );
+    for ok in ["ingested", "duplicate", "rejected"] {
+        let tx = conn.unchecked_transaction().unwrap();
+        tx.execute(insert, [ok]).unwrap();
+        tx.rollback().unwrap();
+    }
+    let plan: Vec<String> = conn
+        .prepare(&format!("EXPLAIN {insert}"))
+        .unwrap()
+        .query_map(["ingested"], |r| r.get(1))
+        .unwrap()
+        .collect::<Result<_, _>>()
+        .unwrap();
+    assert!(
+        !plan.iter().any(|op| op == "OpenEphemeral"),
+        "the insert builds a temporary table: {plan:?}"
+    );
 }

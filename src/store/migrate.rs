@@ -17,6 +17,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "lean_records",
         include_str!("../../schema/0005_lean_records.sql"),
     ),
+    (
+        6,
+        "outcome_check",
+        include_str!("../../schema/0006_outcome_check.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.
@@ -44,14 +49,40 @@ pub fn apply(conn: &mut Connection) -> Result<()> {
             known: latest(),
         });
     }
+    if current == latest() {
+        return Ok(());
+    }
+    // A migration may rebuild a table that others reference (SQLite's documented way to
+    // change a constraint): foreign keys are off while migrations run, which can only be
+    // switched outside a transaction, and each migration checks them before it commits.
+    let fk_on: bool = conn.query_row("PRAGMA foreign_keys", [], |r| r.get(0))?;
+    conn.pragma_update(None, "foreign_keys", "OFF")?;
+    let applied = apply_from(conn, current);
+    if fk_on {
+        conn.pragma_update(None, "foreign_keys", "ON")?;
+    }
+    applied
+}
+
+fn apply_from(conn: &mut Connection, current: i64) -> Result<()> {
     for &(version, name, sql) in MIGRATIONS.iter().filter(|m| m.0 > current) {
+        let failed = |source| StoreError::Migration {
+            version,
+            name: name.to_string(),
+            source,
+        };
         let tx = conn.transaction()?;
-        tx.execute_batch(sql)
-            .map_err(|source| StoreError::Migration {
-                version,
-                name: name.to_string(),
-                source,
-            })?;
+        tx.execute_batch(sql).map_err(failed)?;
+        let orphans: i64 = tx
+            .query_row("SELECT COUNT(*) FROM pragma_foreign_key_check", [], |r| {
+                r.get(0)
+            })
+            .map_err(failed)?;
+        if orphans > 0 {
+            return Err(StoreError::Invalid(format!(
+                "migration {version} ({name}) would leave {orphans} rows referring to missing rows; nothing was changed"
+            )));
+        }
         tx.execute(
             "INSERT INTO schema_migrations(version, name, applied_at) VALUES (?1, ?2, ?3)",
             rusqlite::params![version, name, crate::audit::now_utc()],

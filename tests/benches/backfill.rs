@@ -3,7 +3,8 @@
 //! for the whole run and for the recompute at its end, and the peak resident set (VmHWM).
 //!
 //! `cargo bench --bench backfill` (TURNBOOK_BENCH_FILES overrides the count,
-//! TURNBOOK_BENCH_GROUP the files per transaction).
+//! TURNBOOK_BENCH_GROUP the files per transaction, TURNBOOK_BENCH_EXPORTS names a folder
+//! that keeps the export files for the next run).
 
 use std::io::Read;
 use std::path::{Path, PathBuf};
@@ -94,9 +95,20 @@ fn main() {
         .unwrap_or(100_000);
     let tmp = tempfile::tempdir().expect("temporary folder");
     let root = tmp.path();
-    let exports = root.join("exports");
+    // TURNBOOK_BENCH_EXPORTS keeps the export files in a folder of its own between runs:
+    // creating 100,000 files costs more than ingesting them, and varies with the file
+    // system's state. The database is always new.
+    let kept = std::env::var_os("TURNBOOK_BENCH_EXPORTS").map(PathBuf::from);
+    let exports = kept.clone().unwrap_or_else(|| root.join("exports"));
+    // Beside the folder, not in it: everything in it is ingested.
+    let marker = exports.with_extension(format!("complete-{n}"));
     let t = Instant::now();
-    write_exports(&exports, n).expect("write the export files");
+    if !marker.exists() {
+        write_exports(&exports, n).expect("write the export files");
+        if kept.is_some() {
+            std::fs::write(&marker, b"").expect("mark the export files complete");
+        }
+    }
     let cfg_path = root.join("turnbook.toml");
     // TURNBOOK_BENCH_GROUP overrides files_per_transaction.
     let config = match std::env::var("TURNBOOK_BENCH_GROUP") {
@@ -106,6 +118,10 @@ fn main() {
         ),
         Err(_) => CONFIG.to_string(),
     };
+    let config = config.replace(
+        "path = \"exports\"",
+        &format!("path = {:?}", exports.display().to_string()),
+    );
     std::fs::write(&cfg_path, config).expect("write the configuration");
     println!(
         "backfill: wrote {n} files in {:.2} s",

@@ -18,7 +18,23 @@ pub mod compact_rows {
     use super::MeasurementRow;
 
     pub fn serialize<S: Serializer>(rows: &[MeasurementRow], s: S) -> Result<S::Ok, S::Error> {
-        let mut seq = s.serialize_seq(Some(rows.len()))?;
+        serialize_each(rows.iter(), rows.len(), s)
+    }
+
+    /// [`serialize`] for rows held by reference (the writer does not copy a file's rows).
+    pub fn serialize_refs<S: Serializer>(
+        rows: &[&MeasurementRow],
+        s: S,
+    ) -> Result<S::Ok, S::Error> {
+        serialize_each(rows.iter().copied(), rows.len(), s)
+    }
+
+    fn serialize_each<'a, S: Serializer>(
+        rows: impl Iterator<Item = &'a MeasurementRow>,
+        len: usize,
+        s: S,
+    ) -> Result<S::Ok, S::Error> {
+        let mut seq = s.serialize_seq(Some(len))?;
         for m in rows {
             seq.serialize_element(&(
                 m.id,
@@ -196,8 +212,8 @@ pub enum Payload {
 #[serde(tag = "kind", rename = "file-ingested")]
 pub struct FileIngestedRef<'a> {
     pub file: &'a FileRow,
-    #[serde(serialize_with = "compact_rows::serialize")]
-    pub measurements: &'a [MeasurementRow],
+    #[serde(serialize_with = "compact_rows::serialize_refs")]
+    pub measurements: &'a [&'a MeasurementRow],
     pub lots: &'a [LotRecord],
 }
 
@@ -269,7 +285,7 @@ mod tests {
         };
         let by_ref = FileIngestedRef {
             file: &file,
-            measurements: &[m.clone(), m],
+            measurements: &[&m, &m],
             lots: &[lot],
         };
         let text = serde_json::to_string(&owned).unwrap();

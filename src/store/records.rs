@@ -339,7 +339,7 @@ fn insert_source(
 }
 
 /// The provenance links of one event's measurements: one per batch and file line.
-fn insert_sources(tx: &Transaction<'_>, ms: &[MeasurementRow], seq: i64) -> Result<()> {
+fn insert_sources(tx: &Transaction<'_>, ms: &[&MeasurementRow], seq: i64) -> Result<()> {
     let mut last: Option<(&str, i64)> = None;
     for m in ms {
         let key = (m.batch_id.as_str(), m.line.unwrap_or(0));
@@ -462,33 +462,37 @@ pub fn record_parsed_with(
         file_id,
         ..Default::default()
     };
-    let mut new_measurements = Vec::new();
     let mut lots = Vec::new();
-    // Measurements of each touched batch: the stored ones, then the ones this file adds.
-    let mut batches: HashMap<String, (Vec<MeasurementRow>, Option<i64>, bool)> = HashMap::new();
-    let mut batch_order: Vec<String> = Vec::new();
-    let mut next_m = ids.first_measurement(tx)?;
+    // Each touched batch with its measurements: the stored ones, then the ones this file
+    // adds (new rows are kept once, here, and referred to by the payload).
+    let mut batches: Vec<BatchWork<'_>> = Vec::new();
+    let mut batch_index: HashMap<&str, usize> = HashMap::new();
+    let first_new = ids.first_measurement(tx)?;
+    let mut next_m = first_new;
 
     match parsed {
         ParsedFile::Cycles(rows) => {
             for row in rows {
-                if !batches.contains_key(&row.batch_id) {
-                    let existing = cycle(tx, &row.batch_id)?;
-                    let stored = if existing.is_some() {
-                        measurements_of(tx, &row.batch_id)?
-                    } else {
-                        Vec::new()
-                    };
-                    let first_seq = existing.as_ref().map(|c| c.first_seq);
-                    let excluded = existing.as_ref().is_some_and(|c| c.excluded);
-                    batches.insert(row.batch_id.clone(), (stored, first_seq, excluded));
-                    batch_order.push(row.batch_id.clone());
-                }
-                let Some((known, _, _)) = batches.get_mut(&row.batch_id) else {
-                    continue;
+                let b = match batch_index.get(row.batch_id.as_str()) {
+                    Some(&b) => b,
+                    None => {
+                        let existing = cycle(tx, &row.batch_id)?;
+                        let known = if existing.is_some() {
+                            measurements_of(tx, &row.batch_id)?
+                        } else {
+                            Vec::new()
+                        };
+                        batches.push(BatchWork {
+                            batch_id: &row.batch_id,
+                            first_seq: existing.as_ref().map(|c| c.first_seq),
+                            excluded: existing.as_ref().is_some_and(|c| c.excluded),
+                            known,
+                        });
+                        batch_index.insert(&row.batch_id, batches.len() - 1);
+                        batches.len() - 1
+                    }
                 };
-                let added = merge_row(row, file_id, known, &mut next_m, &mut out);
-                new_measurements.extend(added);
+                merge_row(row, file_id, &mut batches[b].known, &mut next_m, &mut out);
             }
         }
         ParsedFile::Lots(rows) => {
@@ -504,6 +508,14 @@ pub fn record_parsed_with(
                 }
             }
         }
+    }
+    // The rows this file adds, in id order (the order they were taken in).
+    let mut new_measurements: Vec<&MeasurementRow> = batches
+        .iter()
+        .flat_map(|b| b.known.iter().filter(|m| m.id >= first_new))
+        .collect();
+    if batches.len() > 1 {
+        new_measurements.sort_by_key(|m| m.id);
     }
 
     let mut file = file_row(file_id, facts, "ingested");
@@ -523,17 +535,11 @@ pub fn record_parsed_with(
     for l in &lots {
         upsert_lot(tx, l, seq)?;
     }
-    for b in batch_order {
-        let Some((rows, first_seq, excluded)) = batches.get(&b) else {
-            continue;
-        };
-        if !rows
-            .iter()
-            .any(|m| m.id >= new_measurements.first().map_or(i64::MAX, |m| m.id))
-        {
+    for b in &batches {
+        if !b.known.iter().any(|m| m.id >= first_new) {
             continue; // nothing new for this batch
         }
-        let v = view::derive_cycle(&b, rows, *excluded, first_seq.unwrap_or(seq));
+        let v = view::derive_cycle(b.batch_id, &b.known, b.excluded, b.first_seq.unwrap_or(seq));
         if let Some(l) = &v.lot {
             out.lots_touched.insert(l.clone());
         }
@@ -542,48 +548,38 @@ pub fn record_parsed_with(
     Ok(out)
 }
 
-/// Classify each value of a row against what the batch already holds and return the
-/// measurements to add. Appends them to `known` so later rows of the same file see them.
+/// A batch a file touches, while the file is stored.
+struct BatchWork<'a> {
+    batch_id: &'a str,
+    first_seq: Option<i64>,
+    excluded: bool,
+    /// Its measurements by id: the stored ones, then those this file adds.
+    known: Vec<MeasurementRow>,
+}
+
+/// Classify each value of a row against what the batch already holds and append the
+/// measurements to add to `known` (so later rows of the same file see them).
 fn merge_row(
     row: &CycleRow,
     file_id: i64,
     known: &mut Vec<MeasurementRow>,
     next_id: &mut i64,
     out: &mut StoredFile,
-) -> Vec<MeasurementRow> {
+) {
     enum V<'a> {
         Num(f64),
         Text(&'a str),
     }
-    let mut items: Vec<(String, V<'_>, Option<i64>, Option<&str>)> = Vec::new();
-    if let Some(lot) = &row.lot {
-        items.push((ATTR_LOT.into(), V::Text(lot), None, None));
-    }
-    if let Some(n) = row.cycle_no {
-        items.push((ATTR_CYCLE_NO.into(), V::Num(f64::from(n)), None, None));
-    }
-    if let Some(t) = &row.started_at {
-        items.push((ATTR_STARTED_AT.into(), V::Text(t), None, None));
-    }
-    for mv in &row.values {
-        items.push((
-            mv.quantity.key().into(),
-            V::Num(mv.value),
-            Some(i64::from(mv.column)),
-            Some(mv.raw.as_str()),
-        ));
-    }
-    let mut added = Vec::new();
     let (mut any_new, mut any_conflict) = (false, false);
-    for (q, v, col, raw) in items {
-        let cur = view::current(known, &q);
+    let mut merge = |q: &'static str, v: V<'_>, col: Option<i64>, raw: Option<&str>| {
+        let cur = view::current(known, q);
         let same = match (cur, &v) {
             (None, _) => None,
             (Some(c), V::Num(x)) => Some(c.value.is_some_and(|y| view::same_value(*x, y))),
             (Some(c), V::Text(t)) => Some(c.text.as_deref() == Some(*t)),
         };
         let kind = match same {
-            Some(true) => continue,
+            Some(true) => return,
             Some(false) => {
                 any_conflict = true;
                 if let Some(c) = cur {
@@ -611,21 +607,36 @@ fn merge_row(
             V::Num(x) => (Some(x), None),
             V::Text(t) => (None, Some(t.to_string())),
         };
-        let m = MeasurementRow {
+        known.push(MeasurementRow {
             id: *next_id,
             batch_id: row.batch_id.clone(),
-            quantity: q,
+            quantity: q.to_string(),
             value,
             text,
-            kind: kind.into(),
+            kind: kind.to_string(),
             source_file_id: Some(file_id),
             line: i64::try_from(row.line).ok(),
             col,
             raw: raw.map(str::to_string),
-        };
+        });
         *next_id += 1;
-        known.push(m.clone());
-        added.push(m);
+    };
+    if let Some(lot) = &row.lot {
+        merge(ATTR_LOT, V::Text(lot), None, None);
+    }
+    if let Some(n) = row.cycle_no {
+        merge(ATTR_CYCLE_NO, V::Num(f64::from(n)), None, None);
+    }
+    if let Some(t) = &row.started_at {
+        merge(ATTR_STARTED_AT, V::Text(t), None, None);
+    }
+    for mv in &row.values {
+        merge(
+            mv.quantity.key(),
+            V::Num(mv.value),
+            Some(i64::from(mv.column)),
+            Some(mv.raw.as_str()),
+        );
     }
     if any_conflict {
         out.rows_conflict += 1;
@@ -634,7 +645,6 @@ fn merge_row(
     } else {
         out.rows_known += 1;
     }
-    added
 }
 
 fn show(v: Option<f64>, t: Option<&str>) -> String {

@@ -546,18 +546,17 @@ impl Reader<'_> {
             site: None,
             seen_at: audit::now_utc(),
         };
-        // One stat: a symbolic link is followed for its size and judged by its target's
-        // folder, any other file by its own place.
-        let meta = std::fs::symlink_metadata(path).and_then(|m| {
-            if m.file_type().is_symlink() {
-                std::fs::metadata(path).map(|t| (t, true))
-            } else {
-                Ok((m, false))
-            }
-        });
-        let folder: Option<&WatchFolder> = match &meta {
-            Ok((_, true)) | Err(_) => folders.folder_for(path),
-            Ok((_, false)) => folders.folder_for_plain_file(path),
+        // One open, without following a symbolic link: a plain file is judged by its own
+        // place; a link (the open refuses it) is followed and judged by its target's folder.
+        // The size and time come from the open file, so nothing looks the path up twice.
+        let (file, linked) = match open_unfollowed(path) {
+            Err(e) if e.raw_os_error() == Some(libc::ELOOP) => (std::fs::File::open(path), true),
+            other => (other, false),
+        };
+        let folder: Option<&WatchFolder> = if linked || file.is_err() {
+            folders.folder_for(path)
+        } else {
+            folders.folder_for_plain_file(path)
         };
         facts.site = folder.and_then(|f| f.site.clone());
         let profile_name = self
@@ -565,8 +564,8 @@ impl Reader<'_> {
             .map(str::to_string)
             .or_else(|| folder.map(|f| f.profile.clone()));
         facts.profile = profile_name.clone();
-        let meta = match meta {
-            Ok((m, _)) => m,
+        let (file, meta) = match file.and_then(|f| f.metadata().map(|m| (f, m))) {
+            Ok(fm) => fm,
             Err(e) => {
                 return Prepared {
                     facts,
@@ -591,7 +590,7 @@ impl Reader<'_> {
                 )),
             };
         }
-        let bytes = match read_sized(path, meta.len()) {
+        let bytes = match read_sized(&file, meta.len()) {
             Ok(b) => b,
             Err(e) => {
                 return Prepared {
@@ -680,13 +679,23 @@ impl<'a> FolderRoots<'a> {
     }
 }
 
-/// Read a whole file whose size is known from its metadata (one system call fewer than
-/// `fs::read`, which asks for the size again).
-fn read_sized(path: &Path, size: u64) -> std::io::Result<Vec<u8>> {
+/// Open a file for reading without following a symbolic link (the open fails with ELOOP
+/// on one) and without waiting for a writer should the path be a named pipe (a read then
+/// finds it empty).
+fn open_unfollowed(path: &Path) -> std::io::Result<std::fs::File> {
+    use std::os::unix::fs::OpenOptionsExt;
+    std::fs::OpenOptions::new()
+        .read(true)
+        .custom_flags(libc::O_NOFOLLOW | libc::O_NONBLOCK)
+        .open(path)
+}
+
+/// Read the whole of an open file whose size is known from its metadata. `File`'s own
+/// `read_to_end` asks the size and the position again (two system calls per file).
+fn read_sized(file: &std::fs::File, size: u64) -> std::io::Result<Vec<u8>> {
     use std::io::Read;
-    let mut f = std::fs::File::open(path)?;
     let mut buf = Vec::with_capacity(usize::try_from(size).unwrap_or(0).saturating_add(1));
-    f.read_to_end(&mut buf)?;
+    file.take(u64::MAX).read_to_end(&mut buf)?;
     Ok(buf)
 }
 
@@ -751,12 +760,23 @@ pub fn collect_files(path: &Path, out: &mut Vec<PathBuf>) -> std::io::Result<()>
     if meta.is_file() {
         out.push(path.to_path_buf());
     } else if meta.is_dir() {
-        let mut entries: Vec<PathBuf> = std::fs::read_dir(path)?
-            .filter_map(|e| e.ok().map(|e| e.path()))
-            .collect();
-        entries.sort();
-        for e in entries {
-            collect_files(&e, out)?;
+        collect_dir(path, out)?;
+    }
+    Ok(())
+}
+
+/// The files below a folder, sorted. An entry's type comes with the listing (no stat per
+/// file); as for a path given directly, symbolic links are not followed.
+fn collect_dir(dir: &Path, out: &mut Vec<PathBuf>) -> std::io::Result<()> {
+    let mut entries: Vec<(PathBuf, std::fs::FileType)> = std::fs::read_dir(dir)?
+        .filter_map(|e| e.ok().and_then(|e| Some((e.path(), e.file_type().ok()?))))
+        .collect();
+    entries.sort_by(|a, b| a.0.cmp(&b.0));
+    for (p, t) in entries {
+        if t.is_file() {
+            out.push(p);
+        } else if t.is_dir() {
+            collect_dir(&p, out)?;
         }
     }
     Ok(())

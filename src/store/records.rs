@@ -522,11 +522,18 @@ pub fn record_parsed_with(
     file.rows_new = out.rows_new;
     file.rows_known = out.rows_known;
     file.rows_conflict = out.rows_conflict;
-    let body = serde_json::to_string(&FileIngestedRef {
-        file: &file,
-        measurements: &new_measurements,
-        lots: &lots,
-    })?;
+    // Sized for a typical file's payload, so that it is written without regrowing.
+    let mut body = Vec::with_capacity(512 + 128 * new_measurements.len());
+    serde_json::to_writer(
+        &mut body,
+        &FileIngestedRef {
+            file: &file,
+            measurements: &new_measurements,
+            lots: &lots,
+        },
+    )?;
+    // serde_json writes only UTF-8.
+    let body = String::from_utf8(body).map_err(|e| StoreError::Invalid(e.to_string()))?;
     let seq = append_file_event(tx, ids, facts, actor, "file-ingested", &body)?;
     ids.measurements_to(next_m);
     out.event_seq = seq;

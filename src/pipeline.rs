@@ -573,6 +573,16 @@ impl Reader<'_> {
                 };
             }
         };
+        if !meta.is_file() {
+            return Prepared {
+                facts,
+                result: Err(
+                    "cannot read the file: it is not a regular file (a folder, pipe or device); \
+                     expected an export file"
+                        .to_string(),
+                ),
+            };
+        }
         facts.size = i64::try_from(meta.len()).unwrap_or(i64::MAX);
         facts.mtime = meta.modified().ok().map(|t| {
             chrono::DateTime::<chrono::Utc>::from(t)
@@ -730,6 +740,10 @@ fn quarantine_copy(dir: &Path, facts: &FileFacts) -> Option<String> {
         })
         .take(120)
         .collect();
+    // Only a regular file has content to keep (opening a named pipe would wait for a writer).
+    if !std::fs::metadata(src).is_ok_and(|m| m.is_file()) {
+        return None;
+    }
     let prefix = facts.sha256.get(..12).unwrap_or("unhashed");
     let dest = dir.join(format!("{prefix}-{name}"));
     if let Err(e) = std::fs::create_dir_all(dir) {

@@ -148,3 +148,63 @@ fn a_content_another_writer_ingests_during_the_run_is_a_duplicate() {
     let report = turnbook::audit::verify(ing.conn()).unwrap();
     assert!(report.ok(), "{:?}", report.findings);
 }
+
+/// A file is opened once, without following links: a link is still followed and judged by
+/// its target's folder (here a link from outside every folder to an export inside one), a
+/// plain file by its own place, and a named pipe is refused at once instead of blocking
+/// the reader until something writes to it.
+#[cfg(unix)]
+#[test]
+fn links_are_judged_by_their_target_and_a_pipe_does_not_block() {
+    let root = tempfile::tempdir().unwrap();
+    let files = write(root.path(), 1, |i| i);
+    let elsewhere = root.path().join("elsewhere");
+    std::fs::create_dir_all(&elsewhere).unwrap();
+    let link = elsewhere.join("link.csv");
+    std::os::unix::fs::symlink(&files[0], &link).unwrap();
+    let stray = elsewhere.join("stray.csv");
+    std::fs::write(&stray, export(7)).unwrap();
+    let pipe = root.path().join("exports").join("pipe.csv");
+    let made = std::process::Command::new("mkfifo")
+        .arg(&pipe)
+        .status()
+        .unwrap();
+    assert!(made.success());
+
+    let mut ing = Ingestor::open(config(root.path(), 10)).unwrap();
+    let (tx, rx) = std::sync::mpsc::channel();
+    let paths = vec![link.clone(), stray.clone(), pipe.clone(), files[0].clone()];
+    std::thread::spawn(move || {
+        let mut outcomes = Vec::new();
+        ing.ingest_paths(&paths, |o| outcomes.push(o.clone()))
+            .unwrap();
+        tx.send(outcomes).unwrap();
+    });
+    let outcomes = rx
+        .recv_timeout(std::time::Duration::from_secs(60))
+        .expect("the run ends (a pipe must not block it)");
+    assert_eq!(outcomes.len(), 4);
+    // The link's target lies in the reactor folder: ingested with its profile.
+    assert!(
+        matches!(&outcomes[0], FileOutcome::Ingested { path, .. } if path.ends_with("link.csv")),
+        "{:?}",
+        outcomes[0]
+    );
+    // The same content outside every folder has no profile.
+    assert!(
+        matches!(&outcomes[1], FileOutcome::Rejected { error, .. } if error.contains("not under any configured folder")),
+        "{:?}",
+        outcomes[1]
+    );
+    assert!(
+        matches!(&outcomes[2], FileOutcome::Rejected { error, .. } if error.contains("not a regular file")),
+        "{:?}",
+        outcomes[2]
+    );
+    // The target itself, read through its own path, is the content the link brought.
+    assert!(
+        matches!(&outcomes[3], FileOutcome::Duplicate { .. }),
+        "{:?}",
+        outcomes[3]
+    );
+}

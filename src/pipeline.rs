@@ -415,6 +415,7 @@ impl<'a> Writer<'a> {
         };
         // The transaction holds the write lock: ids can be counted here, not queried.
         let mut ids = NextIds::default();
+        let mut st = records::FileStatements::prepare(&tx)?;
         let mut outcomes = Vec::with_capacity(prepared.len());
         let mut in_group: HashMap<String, i64> = HashMap::new();
         let mut touched: BTreeSet<String> = BTreeSet::new();
@@ -469,8 +470,9 @@ impl<'a> Writer<'a> {
                     }
                 }
                 (None, Ok(parsed)) => {
-                    let stored =
-                        records::record_parsed_with(&tx, &mut ids, &facts, &parsed, self.actor)?;
+                    let stored = records::record_parsed_with(
+                        &tx, &mut st, &mut ids, &facts, &parsed, self.actor,
+                    )?;
                     touched.extend(stored.lots_touched.iter().cloned());
                     for c in &stored.conflicts {
                         tracing::warn!(path = %facts.path.escape_debug(), conflict = %c.escape_debug(), "conflicting value kept and flagged");
@@ -486,6 +488,7 @@ impl<'a> Writer<'a> {
             outcomes.push(outcome);
         }
         ids.finish(&tx)?;
+        drop(st);
         if recompute {
             crate::analysis::recompute_lots(&tx, self.cfg, &touched, self.actor)?;
         }

@@ -108,6 +108,28 @@ pub fn append_after(
     kind: &str,
     body: &str,
 ) -> Result<i64> {
+    let mut insert = tx.prepare_cached(INSERT_EVENT)?;
+    append_prepared(tx, &mut insert, head, at, actor, subject, kind, body)
+}
+
+/// The statement that appends an event, for [`append_prepared`].
+pub const INSERT_EVENT: &str =
+    "INSERT INTO events(seq, at, actor, kind, subject, payload, prev_hash, hash)
+     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)";
+
+/// [`append_after`] through `insert`, [`INSERT_EVENT`] prepared once by a writer that
+/// appends an event for every file of a backfill.
+#[allow(clippy::too_many_arguments)]
+pub fn append_prepared(
+    tx: &Transaction<'_>,
+    insert: &mut rusqlite::Statement<'_>,
+    head: &mut ChainHead,
+    at: &str,
+    actor: &str,
+    subject: &str,
+    kind: &str,
+    body: &str,
+) -> Result<i64> {
     let (last, prev) = match head.0.take() {
         Some(h) => h,
         None => tx
@@ -120,11 +142,7 @@ pub fn append_after(
     };
     let seq = last + 1;
     let hash = event_hash(&prev, seq, at, actor, kind, subject, body);
-    tx.prepare_cached(
-        "INSERT INTO events(seq, at, actor, kind, subject, payload, prev_hash, hash)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
-    )?
-    .execute(rusqlite::params![
+    insert.execute(rusqlite::params![
         seq, at, actor, kind, subject, body, prev, hash
     ])?;
     head.0 = Some((seq, hash));

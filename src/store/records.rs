@@ -39,6 +39,29 @@ pub struct StoredFile {
     pub conflicts: Vec<String>,
 }
 
+/// The statements run for every stored file, prepared once per transaction by a writer
+/// that stores many files in it (the connection's statement cache costs a lookup and a
+/// copy of the SQL text per use).
+pub struct FileStatements<'c> {
+    event: rusqlite::Statement<'c>,
+    file: rusqlite::Statement<'c>,
+    source: rusqlite::Statement<'c>,
+    cycle_get: rusqlite::Statement<'c>,
+    cycle_put: rusqlite::Statement<'c>,
+}
+
+impl<'c> FileStatements<'c> {
+    pub fn prepare(conn: &'c rusqlite::Connection) -> Result<Self> {
+        Ok(FileStatements {
+            event: conn.prepare(audit::INSERT_EVENT)?,
+            file: conn.prepare(INSERT_FILE)?,
+            source: conn.prepare(INSERT_SOURCE)?,
+            cycle_get: conn.prepare(&SELECT_CYCLE)?,
+            cycle_put: conn.prepare(&UPSERT_CYCLE)?,
+        })
+    }
+}
+
 fn next_id(tx: &Transaction<'_>, table: &str) -> Result<i64> {
     let sql = match table {
         "source_files" => "SELECT COALESCE(MAX(id), 0) + 1 FROM source_files",
@@ -144,13 +167,17 @@ fn file_row(id: i64, f: &FileFacts, outcome: &str) -> FileRow {
     }
 }
 
+const INSERT_FILE: &str = "INSERT INTO source_files(id, sha256, path, size, mtime, profile, site,
+         seen_at, outcome, error, rows_new, rows_known, rows_conflict, quarantined, event_seq)
+     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15)";
+
 fn insert_file(tx: &Transaction<'_>, r: &FileRow, seq: i64) -> Result<()> {
-    tx.prepare_cached(
-        "INSERT INTO source_files(id, sha256, path, size, mtime, profile, site, seen_at, outcome,
-             error, rows_new, rows_known, rows_conflict, quarantined, event_seq)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15)",
-    )?
-    .execute(params![
+    let mut stmt = tx.prepare_cached(INSERT_FILE)?;
+    insert_file_with(&mut stmt, r, seq)
+}
+
+fn insert_file_with(stmt: &mut rusqlite::Statement<'_>, r: &FileRow, seq: i64) -> Result<()> {
+    stmt.execute(params![
         r.id,
         r.sha256,
         r.path,
@@ -321,6 +348,10 @@ struct WrittenValues {
     measurement: Option<MeasurementRow>,
 }
 
+const INSERT_SOURCE: &str = "INSERT OR IGNORE INTO batch_sources(batch_id, event_seq, line,
+         source_file_id)
+     VALUES (?1, ?2, ?3, ?4)";
+
 /// Link a batch to the event that wrote values of it, and to the file line they came from
 /// (line 0: entered by a person).
 fn insert_source(
@@ -330,16 +361,17 @@ fn insert_source(
     line: i64,
     file_id: Option<i64>,
 ) -> Result<()> {
-    tx.prepare_cached(
-        "INSERT OR IGNORE INTO batch_sources(batch_id, event_seq, line, source_file_id)
-         VALUES (?1, ?2, ?3, ?4)",
-    )?
-    .execute(params![batch_id, seq, line, file_id])?;
+    tx.prepare_cached(INSERT_SOURCE)?
+        .execute(params![batch_id, seq, line, file_id])?;
     Ok(())
 }
 
 /// The provenance links of one event's measurements: one per batch and file line.
-fn insert_sources(tx: &Transaction<'_>, ms: &[&MeasurementRow], seq: i64) -> Result<()> {
+fn insert_sources(
+    stmt: &mut rusqlite::Statement<'_>,
+    ms: &[&MeasurementRow],
+    seq: i64,
+) -> Result<()> {
     let mut last: Option<(&str, i64)> = None;
     for m in ms {
         let key = (m.batch_id.as_str(), m.line.unwrap_or(0));
@@ -347,46 +379,67 @@ fn insert_sources(tx: &Transaction<'_>, ms: &[&MeasurementRow], seq: i64) -> Res
             continue; // the rows of one line come together
         }
         last = Some(key);
-        insert_source(tx, key.0, seq, key.1, m.source_file_id)?;
+        stmt.execute(params![key.0, seq, key.1, m.source_file_id])?;
     }
     Ok(())
 }
 
+static UPSERT_CYCLE: LazyLock<String> = LazyLock::new(|| {
+    format!(
+        "INSERT OR REPLACE INTO cycles(batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq)
+         VALUES (?1, ?2, ?3, ?4, {}, ?16, ?17, ?18)",
+        CYCLE_COLUMNS.join(", "),
+        (5..16).map(|i| format!("?{i}")).collect::<Vec<_>>().join(", ")
+    )
+});
+
+static SELECT_CYCLE: LazyLock<String> = LazyLock::new(|| {
+    format!(
+        "SELECT batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq
+         FROM cycles WHERE batch_id = ?1",
+        CYCLE_COLUMNS.join(", ")
+    )
+});
+
 /// Write (insert or replace) the current view of one cycle.
 pub fn upsert_cycle(tx: &Transaction<'_>, v: &CycleView) -> Result<()> {
-    static SQL: LazyLock<String> = LazyLock::new(|| {
-        format!(
-            "INSERT OR REPLACE INTO cycles(batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq)
-         VALUES (?1, ?2, ?3, ?4, {}, ?16, ?17, ?18)",
-            CYCLE_COLUMNS.join(", "),
-            (5..16).map(|i| format!("?{i}")).collect::<Vec<_>>().join(", ")
-        )
-    });
-    let mut stmt = tx.prepare_cached(&SQL)?;
-    let mut p: Vec<&dyn rusqlite::ToSql> = vec![&v.batch_id, &v.lot, &v.cycle_no, &v.started_at];
-    for x in &v.values {
-        p.push(x);
-    }
-    p.push(&v.conflicts);
-    p.push(&v.excluded);
-    p.push(&v.first_seq);
-    stmt.execute(p.as_slice())?;
+    let mut stmt = tx.prepare_cached(&UPSERT_CYCLE)?;
+    upsert_cycle_with(&mut stmt, v)
+}
+
+fn upsert_cycle_with(stmt: &mut rusqlite::Statement<'_>, v: &CycleView) -> Result<()> {
+    let x = &v.values;
+    stmt.execute(params![
+        v.batch_id,
+        v.lot,
+        v.cycle_no,
+        v.started_at,
+        x[0],
+        x[1],
+        x[2],
+        x[3],
+        x[4],
+        x[5],
+        x[6],
+        x[7],
+        x[8],
+        x[9],
+        x[10],
+        v.conflicts,
+        v.excluded,
+        v.first_seq
+    ])?;
     Ok(())
 }
 
 /// Read the stored cycle row of a batch.
 pub fn cycle(conn: &rusqlite::Connection, batch_id: &str) -> Result<Option<CycleView>> {
-    static SQL: LazyLock<String> = LazyLock::new(|| {
-        format!(
-            "SELECT batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq
-         FROM cycles WHERE batch_id = ?1",
-            CYCLE_COLUMNS.join(", ")
-        )
-    });
-    Ok(conn
-        .prepare_cached(&SQL)?
-        .query_row([batch_id], cycle_from_row)
-        .optional()?)
+    let mut stmt = conn.prepare_cached(&SELECT_CYCLE)?;
+    cycle_with(&mut stmt, batch_id)
+}
+
+fn cycle_with(stmt: &mut rusqlite::Statement<'_>, batch_id: &str) -> Result<Option<CycleView>> {
+    Ok(stmt.query_row([batch_id], cycle_from_row).optional()?)
 }
 
 /// Every stored cycle row (all lots, and batches not yet tied to a lot).
@@ -444,7 +497,8 @@ pub fn record_parsed(
     actor: &str,
 ) -> Result<StoredFile> {
     let mut ids = NextIds::default();
-    let stored = record_parsed_with(tx, &mut ids, facts, parsed, actor)?;
+    let mut st = FileStatements::prepare(tx)?;
+    let stored = record_parsed_with(tx, &mut st, &mut ids, facts, parsed, actor)?;
     ids.finish(tx)?;
     Ok(stored)
 }
@@ -452,6 +506,7 @@ pub fn record_parsed(
 /// [`record_parsed`] taking its ids from the transaction's counters.
 pub fn record_parsed_with(
     tx: &Transaction<'_>,
+    st: &mut FileStatements<'_>,
     ids: &mut NextIds,
     facts: &FileFacts,
     parsed: &ParsedFile,
@@ -476,7 +531,7 @@ pub fn record_parsed_with(
                 let b = match batch_index.get(row.batch_id.as_str()) {
                     Some(&b) => b,
                     None => {
-                        let existing = cycle(tx, &row.batch_id)?;
+                        let existing = cycle_with(&mut st.cycle_get, &row.batch_id)?;
                         let known = if existing.is_some() {
                             measurements_of(tx, &row.batch_id)?
                         } else {
@@ -534,11 +589,20 @@ pub fn record_parsed_with(
     )?;
     // serde_json writes only UTF-8.
     let body = String::from_utf8(body).map_err(|e| StoreError::Invalid(e.to_string()))?;
-    let seq = append_file_event(tx, ids, facts, actor, "file-ingested", &body)?;
+    let seq = audit::append_prepared(
+        tx,
+        &mut st.event,
+        &mut ids.head,
+        &facts.seen_at,
+        actor,
+        &facts.path,
+        "file-ingested",
+        &body,
+    )?;
     ids.measurements_to(next_m);
     out.event_seq = seq;
-    insert_file(tx, &file, seq)?;
-    insert_sources(tx, &new_measurements, seq)?;
+    insert_file_with(&mut st.file, &file, seq)?;
+    insert_sources(&mut st.source, &new_measurements, seq)?;
     for l in &lots {
         upsert_lot(tx, l, seq)?;
     }
@@ -550,7 +614,7 @@ pub fn record_parsed_with(
         if let Some(l) = &v.lot {
             out.lots_touched.insert(l.clone());
         }
-        upsert_cycle(tx, &v)?;
+        upsert_cycle_with(&mut st.cycle_put, &v)?;
     }
     Ok(out)
 }

@@ -613,7 +613,7 @@ impl Reader<'_> {
             }
         };
         facts.size = bytes.len() as i64;
-        facts.sha256 = hex::encode(Sha256::digest(&bytes));
+        facts.sha256 = audit::hex_lower(&Sha256::digest(&bytes));
         let result = match profile_name {
             None => Err(
                 "the file is not under any configured folder, so no export profile applies; \

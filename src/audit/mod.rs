@@ -55,7 +55,19 @@ pub fn event_hash(
         h.update(part.as_bytes());
         h.update(b"\n");
     }
-    hex::encode(h.finalize())
+    hex_lower(&h.finalize())
+}
+
+/// Lower-case hex of bytes, as `hex::encode` writes it, byte by byte rather than through
+/// an iterator of chars (a backfill writes two of these per file).
+pub fn hex_lower(bytes: &[u8]) -> String {
+    const DIGITS: &[u8; 16] = b"0123456789abcdef";
+    let mut s = String::with_capacity(bytes.len() * 2);
+    for b in bytes {
+        s.push(char::from(DIGITS[usize::from(b >> 4)]));
+        s.push(char::from(DIGITS[usize::from(b & 15)]));
+    }
+    s
 }
 
 /// Append one event in the caller's transaction and return its sequence number.
@@ -179,4 +191,16 @@ fn os_user() -> Option<String> {
         let _pw = f.next()?;
         (f.next()? == uid).then(|| name.to_string())
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn hex_lower_writes_what_the_hex_crate_writes() {
+        let all: Vec<u8> = (0..=255).collect();
+        assert_eq!(hex_lower(&all), hex::encode(&all));
+        assert_eq!(hex_lower(&[]), "");
+    }
 }

@@ -11,8 +11,9 @@ use std::cell::RefCell;
 use csv_core::ReadRecordResult;
 
 thread_local! {
-    /// Readers not in use, by delimiter byte.
-    static IDLE: RefCell<Vec<(u8, csv_core::Reader)>> = const { RefCell::new(Vec::new()) };
+    /// Readers not in use, by delimiter byte. Boxed: a reader is some hundred bytes of
+    /// tables, copied at every move of the [`Records`] that holds it.
+    static IDLE: RefCell<Vec<(u8, Box<csv_core::Reader>)>> = const { RefCell::new(Vec::new()) };
 }
 
 /// One record: its fields, and the byte offset in the input where reading it began (before
@@ -47,6 +48,14 @@ impl Record {
         std::str::from_utf8(self.fields.get(from..to)?).ok()
     }
 
+    /// The fields' bytes back to back, and where each field ends: two records give equal
+    /// pairs exactly when their fields are equal.
+    pub(crate) fn raw(&self) -> (&[u8], &[usize]) {
+        let ends = self.ends.get(..self.len).unwrap_or(&[]);
+        let n = ends.last().copied().unwrap_or(0);
+        (self.fields.get(..n).unwrap_or(&[]), ends)
+    }
+
     pub(crate) fn iter(&self) -> impl Iterator<Item = &str> + '_ {
         (0..self.len).map(|i| self.get(i).unwrap_or(""))
     }
@@ -54,7 +63,7 @@ impl Record {
 
 /// The records of one text, in order.
 pub(crate) struct Records<'a> {
-    core: Option<csv_core::Reader>,
+    core: Option<Box<csv_core::Reader>>,
     delimiter: u8,
     input: &'a [u8],
     pos: usize,
@@ -73,7 +82,9 @@ impl<'a> Records<'a> {
                 r.reset();
                 r
             })
-            .unwrap_or_else(|| csv_core::ReaderBuilder::new().delimiter(delimiter).build());
+            .unwrap_or_else(|| {
+                Box::new(csv_core::ReaderBuilder::new().delimiter(delimiter).build())
+            });
         Records {
             core: Some(core),
             delimiter,

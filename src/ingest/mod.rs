@@ -4,7 +4,10 @@
 //! - [`profile`]: the `[profiles.NAME]` configuration tables and their validation.
 //! - [`units`]: the closed list of units and their conversion to canonical units.
 //! - [`parse()`]: one file through one profile into [`ParsedFile`].
+//! - [`ParseCache`]: [`parse_valid`] for a run of files, resolving each header row once.
 
+mod cache;
+mod dates;
 pub mod decode;
 mod delimited;
 pub mod parse;
@@ -12,6 +15,7 @@ pub mod profile;
 pub mod record;
 pub mod units;
 
+pub use cache::ParseCache;
 pub use decode::{Encoding, decode};
 pub use parse::{parse, parse_number, parse_text, parse_valid};
 pub use profile::{ColumnSpec, DecimalMark, Delimiter, Profile, ProfileKind};

@@ -4,14 +4,10 @@
 //! carries the 1-based physical line of the decoded text and, for a cell, the 1-based
 //! column (the field's position in the row, as a spreadsheet counts columns).
 
-use chrono::{NaiveDate, NaiveDateTime};
-
+use super::dates::{DateLayout, DateLayouts, Read, iso_date, iso_datetime};
 use super::decode::decode;
 use super::delimited::{Record, Records};
-use super::profile::{
-    DEFAULT_DATE_FORMAT, DEFAULT_DATETIME_FORMATS, DecimalMark, Field, FieldType, Profile,
-    ProfileKind, UNIT_FROM_HEADER,
-};
+use super::profile::{DecimalMark, Field, FieldType, Profile, ProfileKind, UNIT_FROM_HEADER};
 use super::record::{CycleRow, LotRow, MeasuredValue, ParseError, ParsedFile, Quantity};
 use super::units::{Dimension, Unit, split_header_unit};
 
@@ -32,7 +28,8 @@ pub fn parse(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseError> 
     parse_valid(bytes, profile)
 }
 
-/// [`parse`] for a profile the caller has validated already (once for many files).
+/// [`parse`] for a profile the caller has validated already (once for many files). A reader of
+/// many files keeps a [`ParseCache`](super::ParseCache) instead, which resolves each header once.
 pub fn parse_valid(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseError> {
     let text = decode(bytes, profile.encoding)?;
     parse_text(&text, profile)
@@ -40,63 +37,106 @@ pub fn parse_valid(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseE
 
 /// Parse already decoded text (the profile is assumed validated by [`parse`]).
 pub fn parse_text(text: &str, profile: &Profile) -> Result<ParsedFile, ParseError> {
-    if text.trim().is_empty() {
-        return Err(err(
-            None,
-            None,
-            None,
-            "a header row and data rows",
-            "an empty file",
-        ));
-    }
-    let (body, skipped) = skip_lines(text, profile.skip_lines)?;
-    let mut reader = Records::new(body, profile.delimiter.byte());
-    let mut record = Record::default();
-    let mut lines = LineCounter::new(body, skipped);
-    let header_line = loop {
-        if !reader.read(&mut record) {
+    let body = Body::open(text, profile)?;
+    let layout = Layout::resolve(profile, body.header(), body.header_line())?;
+    body.rows(profile, &layout, &DateLayouts::unprepared())
+}
+
+/// One file's text read up to its header row, which [`Body::header`] holds until
+/// [`Body::rows`] reads the data rows through a [`Layout`] for that header.
+pub(super) struct Body<'t> {
+    reader: Records<'t>,
+    record: Record,
+    lines: LineCounter<'t>,
+    header_line: u64,
+}
+
+impl<'t> Body<'t> {
+    pub(super) fn open(text: &'t str, profile: &Profile) -> Result<Body<'t>, ParseError> {
+        if text.trim().is_empty() {
             return Err(err(
                 None,
                 None,
                 None,
-                "a header row",
-                &format!("no header row after the {skipped} skipped lines"),
+                "a header row and data rows",
+                "an empty file",
             ));
         }
-        if !is_blank(&record) {
-            break lines.line_of(&record);
-        }
-    };
-    let layout = Layout::resolve(profile, &record, header_line)?;
-    let mut rows = Rows::new(profile.kind);
-    while reader.read(&mut record) {
-        if is_blank(&record) {
-            continue;
-        }
-        let line = lines.line_of(&record);
-        layout.check_width(&record, line)?;
-        match &mut rows {
-            Rows::Cycles(v) => v.push(layout.cycle_row(profile, &record, line)?),
-            Rows::Lots(v) => v.push(layout.lot_row(profile, &record, line)?),
-        }
+        let (body, skipped) = skip_lines(text, profile.skip_lines)?;
+        let mut reader = Records::new(body, profile.delimiter.byte());
+        let mut record = Record::default();
+        let mut lines = LineCounter::new(body, skipped);
+        let header_line = loop {
+            if !reader.read(&mut record) {
+                return Err(err(
+                    None,
+                    None,
+                    None,
+                    "a header row",
+                    &format!("no header row after the {skipped} skipped lines"),
+                ));
+            }
+            if !is_blank(&record) {
+                break lines.line_of(&record);
+            }
+        };
+        Ok(Body {
+            reader,
+            record,
+            lines,
+            header_line,
+        })
     }
-    let empty = match &rows {
-        Rows::Cycles(v) => v.is_empty(),
-        Rows::Lots(v) => v.is_empty(),
-    };
-    if empty {
-        return Err(err(
-            Some(header_line),
-            None,
-            None,
-            &format!("at least one data row after the header on line {header_line}"),
-            "no data rows",
-        ));
+
+    pub(super) fn header(&self) -> &Record {
+        &self.record
     }
-    Ok(match rows {
-        Rows::Cycles(v) => ParsedFile::Cycles(v),
-        Rows::Lots(v) => ParsedFile::Lots(v),
-    })
+
+    /// The header row's 1-based physical line.
+    pub(super) fn header_line(&self) -> u64 {
+        self.header_line
+    }
+
+    /// Read the data rows; `layout` must be the profile's resolution of [`Body::header`]
+    /// and `dates` must serve `profile` alone.
+    pub(super) fn rows(
+        mut self,
+        profile: &Profile,
+        layout: &Layout,
+        dates: &DateLayouts,
+    ) -> Result<ParsedFile, ParseError> {
+        let header_line = self.header_line;
+        let mut rows = Rows::new(profile.kind);
+        let record = &mut self.record;
+        while self.reader.read(record) {
+            if is_blank(record) {
+                continue;
+            }
+            let line = self.lines.line_of(record);
+            layout.check_width(record, line, header_line)?;
+            match &mut rows {
+                Rows::Cycles(v) => v.push(layout.cycle_row(profile, dates, record, line)?),
+                Rows::Lots(v) => v.push(layout.lot_row(profile, dates, record, line)?),
+            }
+        }
+        let empty = match &rows {
+            Rows::Cycles(v) => v.is_empty(),
+            Rows::Lots(v) => v.is_empty(),
+        };
+        if empty {
+            return Err(err(
+                Some(header_line),
+                None,
+                None,
+                &format!("at least one data row after the header on line {header_line}"),
+                "no data rows",
+            ));
+        }
+        Ok(match rows {
+            Rows::Cycles(v) => ParsedFile::Cycles(v),
+            Rows::Lots(v) => ParsedFile::Lots(v),
+        })
+    }
 }
 
 enum Rows {
@@ -226,17 +266,22 @@ struct Bound {
     unit: Option<Unit>,
 }
 
-/// The profile's columns resolved against one file's header row.
+/// The profile's columns resolved against one header row. It holds no line number, so
+/// a file with the same header on another line can reuse it.
 #[derive(Debug)]
-struct Layout {
+pub(super) struct Layout {
     bound: Vec<Bound>,
     width: usize,
-    header_line: u64,
     headers: Vec<String>,
 }
 
 impl Layout {
-    fn resolve(profile: &Profile, header: &Record, line: u64) -> Result<Layout, ParseError> {
+    /// `line` (the header's) only places the errors.
+    pub(super) fn resolve(
+        profile: &Profile,
+        header: &Record,
+        line: u64,
+    ) -> Result<Layout, ParseError> {
         let cells: Vec<String> = header.iter().map(|c| c.trim().to_owned()).collect();
         let folded: Vec<String> = cells.iter().map(|c| c.to_lowercase()).collect();
         let split: Vec<Option<(String, String)>> = cells
@@ -349,14 +394,13 @@ impl Layout {
         Ok(Layout {
             bound,
             width: cells.len(),
-            header_line: line,
             headers: cells,
         })
     }
 
     /// A short row is a truncated line; extra cells are tolerated only when empty
     /// (spreadsheet exports often end rows with a stray delimiter).
-    fn check_width(&self, record: &Record, line: u64) -> Result<(), ParseError> {
+    fn check_width(&self, record: &Record, line: u64, header_line: u64) -> Result<(), ParseError> {
         let n = record.len();
         if n < self.width {
             // Name the first missing cell by its profile key when mapped, else its header.
@@ -372,7 +416,7 @@ impl Layout {
                 field,
                 &format!(
                     "{} fields as in the header on line {}",
-                    self.width, self.header_line
+                    self.width, header_line
                 ),
                 &format!("{n} fields (a truncated line?)"),
             ));
@@ -389,7 +433,7 @@ impl Layout {
                 None,
                 &format!(
                     "{} fields as in the header on line {}",
-                    self.width, self.header_line
+                    self.width, header_line
                 ),
                 &format!("{n} fields"),
             ));
@@ -400,6 +444,7 @@ impl Layout {
     fn cycle_row(
         &self,
         profile: &Profile,
+        dates: &DateLayouts,
         record: &Record,
         line: u64,
     ) -> Result<CycleRow, ParseError> {
@@ -428,9 +473,7 @@ impl Layout {
                 }
                 Field::Lot => row.lot = cell.text_value()?,
                 Field::CycleNo => row.cycle_no = cell.cycle_no()?,
-                Field::StartedAt => {
-                    row.started_at = cell.datetime(profile.datetime_format.as_deref())?
-                }
+                Field::StartedAt => row.started_at = cell.datetime(dates.datetime(profile))?,
                 Field::Measured(q) => {
                     if let Some(v) = cell.measured(q, b.unit, profile)? {
                         row.values.push(MeasuredValue {
@@ -447,7 +490,13 @@ impl Layout {
         Ok(row)
     }
 
-    fn lot_row(&self, profile: &Profile, record: &Record, line: u64) -> Result<LotRow, ParseError> {
+    fn lot_row(
+        &self,
+        profile: &Profile,
+        dates: &DateLayouts,
+        record: &Record,
+        line: u64,
+    ) -> Result<LotRow, ParseError> {
         let mut lot = None;
         let mut catalyst = None;
         let mut metal = None;
@@ -471,7 +520,7 @@ impl Layout {
                 Field::Metal => metal = Some(cell.metal()?),
                 Field::Loading => loading = Some(cell.loading(b.unit, profile.decimal)?),
                 Field::ChargedMass => charged = Some(cell.charged_mass(b.unit, profile.decimal)?),
-                Field::Received => received = cell.date(profile.date_format.as_deref())?,
+                Field::Received => received = cell.date(dates.date(profile))?,
                 Field::SupplierLot => supplier_lot = cell.text_value()?,
                 Field::Cost => cost = cell.cost(profile.decimal)?,
                 _ => {}
@@ -565,42 +614,32 @@ impl Cell<'_> {
         }
     }
 
-    fn datetime(&self, format: Option<&str>) -> Result<Option<String>, ParseError> {
+    fn datetime(&self, layouts: &[DateLayout]) -> Result<Option<String>, ParseError> {
         if self.text.is_empty() {
             return Ok(None);
         }
-        let formats: Vec<&str> = match format {
-            Some(f) => vec![f],
-            None => DEFAULT_DATETIME_FORMATS.to_vec(),
-        };
-        for f in &formats {
-            if let Ok(dt) = NaiveDateTime::parse_from_str(self.text, f) {
-                return Ok(Some(dt.format("%Y-%m-%dT%H:%M:%S").to_string()));
-            }
-            // A layout without a time of day gives midnight.
-            if let Ok(d) = NaiveDate::parse_from_str(self.text, f) {
-                return Ok(Some(format!("{}T00:00:00", d.format("%Y-%m-%d"))));
+        for f in layouts {
+            match f.read(self.text) {
+                Some(Read::DateTime(dt)) => return Ok(Some(iso_datetime(&dt))),
+                // A layout without a time of day gives midnight.
+                Some(Read::Date(d)) => return Ok(Some(format!("{}T00:00:00", iso_date(&d)))),
+                None => {}
             }
         }
+        let names: Vec<&str> = layouts.iter().map(|f| f.text.as_str()).collect();
         Err(self.fail_raw(&format!(
             "a date and time in the layout {}",
-            formats.join(" or ")
+            names.join(" or ")
         )))
     }
 
-    fn date(&self, format: Option<&str>) -> Result<Option<String>, ParseError> {
+    fn date(&self, layout: &DateLayout) -> Result<Option<String>, ParseError> {
         if self.text.is_empty() {
             return Ok(None);
         }
-        let f = format.unwrap_or(DEFAULT_DATE_FORMAT);
-        let parsed = NaiveDate::parse_from_str(self.text, f).ok().or_else(|| {
-            NaiveDateTime::parse_from_str(self.text, f)
-                .ok()
-                .map(|d| d.date())
-        });
-        match parsed {
-            Some(d) => Ok(Some(d.format("%Y-%m-%d").to_string())),
-            None => Err(self.fail_raw(&format!("a date in the layout {f}"))),
+        match layout.read_date(self.text) {
+            Some(d) => Ok(Some(iso_date(&d))),
+            None => Err(self.fail_raw(&format!("a date in the layout {}", layout.text))),
         }
     }
 

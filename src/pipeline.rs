@@ -16,7 +16,7 @@ use sha2::{Digest, Sha256};
 
 use crate::audit;
 use crate::config::Config;
-use crate::ingest::{self, ParsedFile};
+use crate::ingest::{self, ParseCache, ParsedFile};
 use crate::store::records::{self, FileFacts, NextIds, StoredFile};
 use crate::store::{self, StoreError};
 use crate::watch::WatchFolder;
@@ -107,6 +107,8 @@ pub struct Ingestor {
     /// duplicate at every restart would only grow the log). `ingest` keeps it off so that
     /// a second backfill reports every file as a duplicate.
     pub skip_unchanged: bool,
+    /// Header layouts of the files this process has read one at a time (the service).
+    parse_cache: ParseCache,
 }
 
 impl Ingestor {
@@ -138,6 +140,7 @@ impl Ingestor {
             actor,
             profile_override: None,
             skip_unchanged: false,
+            parse_cache: ParseCache::new(),
         })
     }
 
@@ -237,8 +240,10 @@ impl Ingestor {
                     let mut conn = open_for_lookups(db_path)
                         .inspect_err(|e| tracing::debug!(error = %e, "reader looks up no hashes"))
                         .ok();
+                    // Files of one instrument share a header row: resolve it once a thread.
+                    let mut cache = ParseCache::new();
                     for group in groups.iter().skip(r).step_by(readers) {
-                        let prepared = reader.prepare_group(group);
+                        let prepared = reader.prepare_group(group, &mut cache);
                         let lookups = conn.as_mut().and_then(|c| {
                             lookup_hashes(c, &prepared, committed)
                                 .inspect_err(|e| tracing::debug!(error = %e, "hash lookups failed"))
@@ -255,7 +260,7 @@ impl Ingestor {
                     Ok(p) => p,
                     // A reader thread ended early (it panicked): read this group here; the
                     // panic is raised again when the scope ends.
-                    Err(_) => (reader.prepare_group(group), None),
+                    Err(_) => (reader.prepare_group(group, &mut ParseCache::new()), None),
                 };
                 let (outcomes, lots) = writer.store(prepared, lookups.as_ref(), false)?;
                 committed.store(writer.committed, Ordering::Release);
@@ -290,7 +295,7 @@ impl Ingestor {
             cfg: &self.cfg,
             profile_override: self.profile_override.as_deref(),
         }
-        .prepare_group(paths);
+        .prepare_group(paths, &mut self.parse_cache);
         Writer::new(&mut self.conn, &self.cfg, &self.actor)
             .store(prepared, None, true)
             .map(|(o, _)| o)
@@ -517,7 +522,7 @@ struct Reader<'a> {
 }
 
 impl Reader<'_> {
-    fn prepare_group(&self, paths: &[PathBuf]) -> Vec<Prepared> {
+    fn prepare_group(&self, paths: &[PathBuf], cache: &mut ParseCache) -> Vec<Prepared> {
         let mut folders = FolderRoots::new(self.cfg);
         // Each profile is checked once a group, not once a file.
         let valid: HashMap<&str, Result<(), String>> = self
@@ -528,7 +533,7 @@ impl Reader<'_> {
             .collect();
         paths
             .iter()
-            .map(|p| self.prepare(p, &mut folders, &valid))
+            .map(|p| self.prepare(p, &mut folders, &valid, cache))
             .collect()
     }
 
@@ -538,6 +543,7 @@ impl Reader<'_> {
         path: &Path,
         folders: &mut FolderRoots<'_>,
         valid: &HashMap<&str, Result<(), String>>,
+        cache: &mut ParseCache,
     ) -> Prepared {
         let display = recorded_path(path);
         let mut facts = FileFacts {
@@ -621,9 +627,9 @@ impl Reader<'_> {
                     .to_string(),
             ),
             Some(name) => match (self.cfg.profiles.get(&name), valid.get(name.as_str())) {
-                (Some(profile), Some(Ok(()))) => {
-                    ingest::parse_valid(&bytes, profile).map_err(|e| e.to_string())
-                }
+                (Some(profile), Some(Ok(()))) => cache
+                    .parse_valid(&bytes, profile)
+                    .map_err(|e| e.to_string()),
                 // An invalid profile: the parser names what is wrong with it.
                 (Some(profile), _) => ingest::parse(&bytes, profile).map_err(|e| e.to_string()),
                 (None, _) => Err(format!("no export profile named '{name}'")),

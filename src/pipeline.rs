@@ -59,6 +59,8 @@ pub struct RunSummary {
     pub rows_conflict: i64,
     pub conflicts: Vec<String>,
     pub errors: Vec<String>,
+    /// Transactions the files were stored in (a backfill's groups, or their parts).
+    pub transactions: usize,
 }
 
 impl RunSummary {
@@ -86,6 +88,9 @@ const STATEMENT_CACHE: usize = 64;
 const PAGE_CACHE_KIB: i64 = -24 * 1024;
 /// Write-ahead log size, in pages, that triggers a checkpoint (SQLite's default is 1000).
 const WAL_CHECKPOINT_PAGES: i64 = 32768;
+/// File content a reader gathers into one part of a group (see `Ingestor::part_bytes`);
+/// the rows parsed from it take a few times as much memory.
+const PART_BYTES: u64 = 8 << 20;
 /// Most threads reading, hashing and parsing files while the writer stores earlier ones.
 const MAX_READERS: usize = 4;
 
@@ -109,6 +114,9 @@ pub struct Ingestor {
     pub skip_unchanged: bool,
     /// Header layouts of the files this process has read one at a time (the service).
     parse_cache: ParseCache,
+    /// File content a backfill's reader gathers before it hands part of a group to the
+    /// writer (each part is one transaction): bounds the parsed rows held in memory.
+    pub part_bytes: u64,
 }
 
 impl Ingestor {
@@ -141,6 +149,7 @@ impl Ingestor {
             profile_override: None,
             skip_unchanged: false,
             parse_cache: ParseCache::new(),
+            part_bytes: PART_BYTES,
         })
     }
 
@@ -221,6 +230,7 @@ impl Ingestor {
         // keeps the database whole either way; a process crash loses nothing at all.)
         self.conn.pragma_update(None, "synchronous", "NORMAL")?;
         let db_path = self.cfg.database_path();
+        let part_bytes = self.part_bytes;
         let committed = AtomicUsize::new(0);
         let mut writer = Writer::new(&mut self.conn, &self.cfg, &self.actor);
         writer.version_at_start = Some(data_version(writer.conn)?);
@@ -243,31 +253,52 @@ impl Ingestor {
                     // Files of one instrument share a header row: resolve it once a thread.
                     let mut cache = ParseCache::new();
                     for group in groups.iter().skip(r).step_by(readers) {
-                        let prepared = reader.prepare_group(group, &mut cache);
-                        let lookups = conn.as_mut().and_then(|c| {
-                            lookup_hashes(c, &prepared, committed)
-                                .inspect_err(|e| tracing::debug!(error = %e, "hash lookups failed"))
-                                .ok()
-                        });
-                        if tx.send((prepared, lookups)).is_err() {
-                            break; // the writer stopped on an error
+                        // A group is handed over in parts of about `part_bytes` of file
+                        // content, so large files cannot make a group of parsed rows
+                        // outgrow memory; small files make one part of the whole group.
+                        let mut rest: &[PathBuf] = group;
+                        while !rest.is_empty() {
+                            let prepared = reader.prepare_part(rest, &mut cache, part_bytes);
+                            rest = rest.get(prepared.len()..).unwrap_or_default();
+                            let lookups = conn.as_mut().and_then(|c| {
+                                lookup_hashes(c, &prepared, committed)
+                                    .inspect_err(
+                                        |e| tracing::debug!(error = %e, "hash lookups failed"),
+                                    )
+                                    .ok()
+                            });
+                            if tx.send((prepared, lookups)).is_err() {
+                                return; // the writer stopped on an error
+                            }
                         }
                     }
                 });
             }
             for (g, group) in groups.iter().enumerate() {
-                let (prepared, lookups) = match inbox[g % readers].recv() {
-                    Ok(p) => p,
-                    // A reader thread ended early (it panicked): read this group here; the
-                    // panic is raised again when the scope ends.
-                    Err(_) => (reader.prepare_group(group, &mut ParseCache::new()), None),
-                };
-                let (outcomes, lots) = writer.store(prepared, lookups.as_ref(), false)?;
-                committed.store(writer.committed, Ordering::Release);
-                touched.extend(lots);
-                for o in outcomes {
-                    summary.add(&o);
-                    progress(&o);
+                // Each part in its own transaction, in path order.
+                let mut done = 0;
+                while done < group.len() {
+                    let (prepared, lookups) = match inbox[g % readers].recv() {
+                        Ok(p) => p,
+                        // A reader thread ended early (it panicked): read the rest of this
+                        // group here; the panic is raised again when the scope ends.
+                        Err(_) => (
+                            reader.prepare_group(&group[done..], &mut ParseCache::new()),
+                            None,
+                        ),
+                    };
+                    if prepared.is_empty() {
+                        break; // never sent; guards the loop
+                    }
+                    done += prepared.len();
+                    let (outcomes, lots) = writer.store(prepared, lookups.as_ref(), false)?;
+                    committed.store(writer.committed, Ordering::Release);
+                    summary.transactions += 1;
+                    touched.extend(lots);
+                    for o in outcomes {
+                        summary.add(&o);
+                        progress(&o);
+                    }
                 }
             }
             Ok(())
@@ -523,6 +554,17 @@ struct Reader<'a> {
 
 impl Reader<'_> {
     fn prepare_group(&self, paths: &[PathBuf], cache: &mut ParseCache) -> Vec<Prepared> {
+        self.prepare_part(paths, cache, u64::MAX)
+    }
+
+    /// Prepare the first files of `paths`, stopping after the one whose content brings the
+    /// total to `budget` bytes (at least one file; all of them for small files).
+    fn prepare_part(
+        &self,
+        paths: &[PathBuf],
+        cache: &mut ParseCache,
+        budget: u64,
+    ) -> Vec<Prepared> {
         let mut folders = FolderRoots::new(self.cfg);
         // Each profile is checked once a group, not once a file.
         let valid: HashMap<&str, Result<(), String>> = self
@@ -531,10 +573,17 @@ impl Reader<'_> {
             .iter()
             .map(|(name, p)| (name.as_str(), p.validate()))
             .collect();
-        paths
-            .iter()
-            .map(|p| self.prepare(p, &mut folders, &valid, cache))
-            .collect()
+        let mut part = Vec::with_capacity(paths.len());
+        let mut bytes = 0u64;
+        for p in paths {
+            let prepared = self.prepare(p, &mut folders, &valid, cache);
+            bytes = bytes.saturating_add(u64::try_from(prepared.facts.size).unwrap_or(0));
+            part.push(prepared);
+            if bytes >= budget {
+                break;
+            }
+        }
+        part
     }
 
     /// Read, hash and parse one file. Never fails: a problem becomes a rejection.

@@ -190,7 +190,7 @@ fn small_transactions_give_the_same_records_in_path_order() {
     let small = toml
         .replacen("database = \"turnbook.db\"", "database = \"small.db\"", 1)
         .replacen(
-            "files_per_transaction = 1000",
+            "files_per_transaction = 4000",
             "files_per_transaction = 4",
             1,
         );

@@ -97,7 +97,7 @@ fn configuration_and_usage_errors_exit_2_and_name_the_key() {
     std::fs::write(
         &bad,
         good.replacen(
-            "files_per_transaction = 1000",
+            "files_per_transaction = 4000",
             "files_per_transaction = \"many\"",
             1,
         ),

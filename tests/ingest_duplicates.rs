@@ -78,14 +78,28 @@ fn copies_at_every_distance_are_duplicates_of_the_first() {
             i
         }
     };
-    for group in [1usize, 2, 4, 7] {
+    // Groups of 1–7 files in one part each, and groups of 7 and 20 files handed over in
+    // parts of 2 and 3 files (an export here is 41 bytes).
+    for (group, part_bytes, per_part) in [
+        (1usize, u64::MAX, 1usize),
+        (2, u64::MAX, 2),
+        (4, u64::MAX, 4),
+        (7, u64::MAX, 7),
+        (7, 60, 2),
+        (20, 100, 3),
+    ] {
         let tmp = tempfile::tempdir().unwrap();
         let files = write(tmp.path(), 400, source);
+        assert_eq!(std::fs::metadata(&files[0]).unwrap().len(), 41);
         let mut ing = Ingestor::open(config(tmp.path(), group)).unwrap();
+        ing.part_bytes = part_bytes;
         let mut outcomes = Vec::new();
         let summary = ing
             .ingest_paths(&files, |o| outcomes.push(o.clone()))
             .unwrap();
+        let parts_of_group = group.div_ceil(per_part);
+        let expected_parts = (400 / group) * parts_of_group + (400 % group).div_ceil(per_part);
+        assert_eq!(summary.transactions, expected_parts, "group {group}");
         // File i holds export(source(i)); it duplicates the first file holding the same.
         let first_of = |i: usize| (0..=i).find(|&k| source(k) == source(i)).unwrap_or(i);
         let expected_dups = (0..400).filter(|&i| first_of(i) != i).count();

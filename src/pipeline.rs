@@ -826,19 +826,22 @@ pub fn recorded_path(path: &Path) -> String {
         .to_string()
 }
 
-/// Every regular file below `path` (or `path` itself), sorted, for a backfill.
+/// The files below the folder `path`, sorted, or `path` itself when it is not a folder:
+/// what a backfill reads.
 pub fn collect_files(path: &Path, out: &mut Vec<PathBuf>) -> std::io::Result<()> {
-    let meta = std::fs::symlink_metadata(path)?;
-    if meta.is_file() {
+    // A path named by the user is followed: a link to a file or a folder counts as what it
+    // points at. Anything that is not a folder is offered, so that what is not a regular
+    // file (a pipe, a device) is refused by name rather than silently left out.
+    if std::fs::metadata(path)?.is_dir() {
+        collect_dir(path, out)
+    } else {
         out.push(path.to_path_buf());
-    } else if meta.is_dir() {
-        collect_dir(path, out)?;
+        Ok(())
     }
-    Ok(())
 }
 
 /// The files below a folder, sorted. An entry's type comes with the listing (no stat per
-/// file); as for a path given directly, symbolic links are not followed.
+/// file); links below a folder are not followed (they may lead out of it, or round).
 fn collect_dir(dir: &Path, out: &mut Vec<PathBuf>) -> std::io::Result<()> {
     let mut entries: Vec<(PathBuf, std::fs::FileType)> = std::fs::read_dir(dir)?
         .filter_map(|e| e.ok().and_then(|e| Some((e.path(), e.file_type().ok()?))))

@@ -512,3 +512,32 @@ fn markup_in_a_lot_name_and_an_export_file_name_stays_text() {
     plant.ok(&["report", "--site", "--out", site.to_str().unwrap()]);
     raw_tag_free(&site);
 }
+
+/// A path named on the command line is followed when it is a link, and one that is
+/// neither a folder nor a regular file is refused by name (exit 1), never left out without
+/// a word.
+#[cfg(unix)]
+#[test]
+fn ingest_follows_a_named_link_and_refuses_a_named_pipe() {
+    let plant = Plant::new();
+    let export = plant.dir.join("exports/balance/KV4-H-001.txt");
+    assert!(export.is_file());
+    let link = plant.dir.join("link-to-export.txt");
+    std::os::unix::fs::symlink(&export, &link).unwrap();
+    let out = plant.ok(&["ingest", link.to_str().unwrap()]);
+    assert!(out.contains("1 files: 0 ingested, 1 duplicates"), "{out}");
+
+    let pipe = plant.dir.join("pipe.csv");
+    let made = Command::new("mkfifo").arg(&pipe).status().unwrap();
+    assert!(made.success());
+    let mut all = vec!["--config", plant.cfg.as_str(), "ingest"];
+    all.push(pipe.to_str().unwrap());
+    let out = run(&all);
+    let err = text(&out.stderr);
+    assert_eq!(out.status.code(), Some(1), "{err}");
+    assert!(
+        err.contains("pipe.csv") && err.contains("not a regular file"),
+        "{err}"
+    );
+    assert!(text(&out.stdout).contains("1 files: 0 ingested, 0 duplicates, 1 rejected"));
+}

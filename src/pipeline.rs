@@ -336,8 +336,8 @@ impl Ingestor {
 /// What a reader learnt of a group's hashes from the database, so that the writer need not
 /// look each one up itself.
 struct HashLookups {
-    /// Groups of this run already committed when the reader's snapshot began: every file
-    /// they ingested was visible to the lookups.
+    /// Transactions (groups, or parts of groups) of this run already committed when the
+    /// reader's snapshot began: every file they ingested was visible to the lookups.
     visible_groups: usize,
     /// Per file of the group: the file ingested before with the same content, if any.
     found: Vec<Option<i64>>,
@@ -378,7 +378,8 @@ fn open_for_lookups(db_path: &Path) -> Result<Connection, StoreError> {
     Ok(conn)
 }
 
-/// Groups whose ingested hashes the writer keeps, for lookups made before they committed.
+/// Transactions whose ingested hashes the writer keeps, for lookups made before they
+/// committed (each reader is at most two parts ahead: one sent, one being prepared).
 const RECENT_GROUPS: usize = 2 * MAX_READERS + 2;
 
 /// The writing half: stores prepared groups, one transaction each.

@@ -86,13 +86,19 @@ impl RunSummary {
 const STATEMENT_CACHE: usize = 64;
 /// SQLite page cache of the writer, KiB (a negative `cache_size` is in KiB).
 const PAGE_CACHE_KIB: i64 = -24 * 1024;
-/// Write-ahead log size, in pages, that triggers a checkpoint (SQLite's default is 1000).
-const WAL_CHECKPOINT_PAGES: i64 = 32768;
+/// Write-ahead log size, in bytes, that triggers a checkpoint in a backfill.
+const WAL_CHECKPOINT_BYTES: i64 = 128 << 20;
+/// The same for the service, in pages: SQLite's default (16 MB of log at 16 KB pages).
+const SERVICE_WAL_CHECKPOINT_PAGES: i64 = 1000;
 /// File content a reader gathers into one part of a group (see `Ingestor::part_bytes`);
 /// the rows parsed from it take a few times as much memory.
 const PART_BYTES: u64 = 8 << 20;
 /// Most threads reading, hashing and parsing files while the writer stores earlier ones.
 const MAX_READERS: usize = 4;
+
+/// What the writer has done with (parsed contents, outcomes), sent back to be freed by
+/// the reader that built them.
+type Spent = (Vec<ParsedFile>, Vec<FileOutcome>);
 
 /// A file read and parsed, not yet stored.
 struct Prepared {
@@ -129,11 +135,16 @@ impl Ingestor {
         // (random order by nature) in memory during a backfill.
         conn.set_prepared_statement_cache_capacity(STATEMENT_CACHE);
         conn.pragma_update(None, "cache_size", PAGE_CACHE_KIB)?;
-        // Checkpoint the write-ahead log every 128 MB rather than SQLite's 4 MB: a page
+        // Checkpoint the write-ahead log every 128 MB rather than every 1,000 pages: a page
         // changed by many groups is copied into the database once, and a checkpoint's disk
         // syncs are paid less often. Commits still sync the log (durability is unchanged);
         // the log only grows larger on disk between checkpoints.
-        conn.pragma_update(None, "wal_autocheckpoint", WAL_CHECKPOINT_PAGES)?;
+        let page_size: i64 = conn.query_row("PRAGMA page_size", [], |r| r.get(0))?;
+        conn.pragma_update(
+            None,
+            "wal_autocheckpoint",
+            WAL_CHECKPOINT_BYTES / page_size.max(512),
+        )?;
         // Heal an interrupted backfill: lots whose fit is older than their records.
         let healed = crate::analysis::recompute_stale(&mut conn, &cfg, &actor)?;
         if healed > 0 {
@@ -158,7 +169,8 @@ impl Ingestor {
     /// (the large cache only pays off in a backfill).
     pub fn tune_for_service(&mut self) -> Result<(), StoreError> {
         self.conn.pragma_update(None, "cache_size", -4096)?;
-        self.conn.pragma_update(None, "wal_autocheckpoint", 1000)?;
+        self.conn
+            .pragma_update(None, "wal_autocheckpoint", SERVICE_WAL_CHECKPOINT_PAGES)?;
         self.skip_unchanged = true;
         Ok(())
     }
@@ -238,9 +250,15 @@ impl Ingestor {
             // Reader r prepares groups r, r + readers, ...; one group in flight per reader
             // bounds the memory held.
             let mut inbox = Vec::with_capacity(readers);
+            // What the writer is done with goes back to the reader that built it, to be
+            // freed there: memory is freed fastest by the thread that allocated it, and that
+            // thread has time to spare while the writer, the bottleneck, has none.
+            let mut spent_to = Vec::with_capacity(readers);
             for r in 0..readers {
                 let (tx, rx) = mpsc::sync_channel::<(Vec<Prepared>, Option<HashLookups>)>(1);
                 inbox.push(rx);
+                let (spent_tx, spent_rx) = mpsc::channel::<Spent>();
+                spent_to.push(spent_tx);
                 let groups = &groups;
                 let reader = &reader;
                 let (db_path, committed) = (&db_path, &committed);
@@ -258,6 +276,10 @@ impl Ingestor {
                         // outgrow memory; small files make one part of the whole group.
                         let mut rest: &[PathBuf] = group;
                         while !rest.is_empty() {
+                            // At most a part or two wait here: one comes back per part sent.
+                            while let Ok(spent) = spent_rx.try_recv() {
+                                drop(spent);
+                            }
                             let prepared = reader.prepare_part(rest, &mut cache, part_bytes);
                             rest = rest.get(prepared.len()..).unwrap_or_default();
                             let lookups = conn.as_mut().and_then(|c| {
@@ -291,14 +313,18 @@ impl Ingestor {
                         break; // never sent; guards the loop
                     }
                     done += prepared.len();
-                    let (outcomes, lots) = writer.store(prepared, lookups.as_ref(), false)?;
+                    let mut parsed = Vec::with_capacity(prepared.len());
+                    let (outcomes, lots) =
+                        writer.store(prepared, lookups.as_ref(), false, &mut parsed)?;
                     committed.store(writer.committed, Ordering::Release);
                     summary.transactions += 1;
                     touched.extend(lots);
-                    for o in outcomes {
-                        summary.add(&o);
-                        progress(&o);
+                    for o in &outcomes {
+                        summary.add(o);
+                        progress(o);
                     }
+                    // If the reader has ended, what it would have freed is freed here.
+                    let _ = spent_to[g % readers].send((parsed, outcomes));
                 }
             }
             Ok(())
@@ -328,7 +354,7 @@ impl Ingestor {
         }
         .prepare_group(paths, &mut self.parse_cache);
         Writer::new(&mut self.conn, &self.cfg, &self.actor)
-            .store(prepared, None, true)
+            .store(prepared, None, true, &mut Vec::new())
             .map(|(o, _)| o)
     }
 }
@@ -420,11 +446,15 @@ impl<'a> Writer<'a> {
     /// its snapshot; files ingested by groups committed after that snapshot are found in
     /// the hashes this writer keeps of its recent groups. Without them (or when the
     /// snapshot is older than what is kept), each hash is looked up here.
+    ///
+    /// The parsed contents of the stored files are moved into `parsed` rather than freed
+    /// here (a backfill frees them on the reader thread that built them).
     fn store(
         &mut self,
         prepared: Vec<Prepared>,
         lookups: Option<&HashLookups>,
         recompute: bool,
+        parsed_out: &mut Vec<ParsedFile>,
     ) -> Result<(Vec<FileOutcome>, BTreeSet<String>), StoreError> {
         let oldest_kept = self.committed - self.recent.len();
         let lookups = lookups.filter(|l| {
@@ -515,6 +545,7 @@ impl<'a> Writer<'a> {
                         tracing::warn!(path = %facts.path.escape_debug(), conflict = %c.escape_debug(), "conflicting value kept and flagged");
                     }
                     in_group.insert(facts.sha256.clone(), stored.file_id);
+                    parsed_out.push(parsed);
                     FileOutcome::Ingested {
                         path: facts.path,
                         sha256: facts.sha256,

@@ -652,6 +652,28 @@ fn assert_verifies(conn: &Connection) {
     assert!(report.ok(), "verify found: {:#?}", report.findings);
 }
 
+fn page_size(conn: &Connection) -> i64 {
+    conn.query_row("PRAGMA page_size", [], |r| r.get(0))
+        .unwrap()
+}
+
+#[test]
+fn a_new_database_takes_the_store_page_size_and_keeps_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("new.db");
+    let conn = store::open(&path).unwrap();
+    assert_eq!(page_size(&conn), store::PAGE_SIZE);
+    let mode: String = conn
+        .query_row("PRAGMA journal_mode", [], |r| r.get(0))
+        .unwrap();
+    assert_eq!(mode, "wal");
+    drop(conn);
+    // Read back by a connection that sets nothing: the size is in the file.
+    let plain = Connection::open(&path).unwrap();
+    assert_eq!(page_size(&plain), store::PAGE_SIZE);
+    assert_eq!(schema_version(&plain), migrate::latest());
+}
+
 /// Open the version-4 file with the current store, which upgrades it.
 fn upgrade(path: &Path) -> Connection {
     store::open(path).unwrap()
@@ -667,6 +689,11 @@ fn an_upgrade_from_version_4_keeps_every_value_with_its_origin() {
     assert_eq!(old_values.len(), v4.rows.len());
 
     let conn = upgrade(&v4.path);
+
+    // The page size of a database is fixed when it is created: the old file keeps SQLite's
+    // default while new ones take the store's.
+    assert_eq!(page_size(&conn), 4096);
+    assert_ne!(store::PAGE_SIZE, 4096);
 
     // The schema is the newest, every migration recorded once.
     assert_eq!(schema_version(&conn), 6);

@@ -176,12 +176,14 @@ fn main() {
         .query_row("SELECT COUNT(*) FROM cycles", [], |r| r.get(0))
         .expect("count cycles");
     assert_eq!(cycles as usize, n);
-    let (payload, pages): (f64, i64) = ing
+    let (payload, pages, page_size): (f64, i64, i64) = ing
         .conn()
         .query_row(
-            "SELECT (SELECT AVG(LENGTH(payload)) FROM events), (SELECT page_count FROM pragma_page_count())",
+            "SELECT (SELECT AVG(LENGTH(payload)) FROM events), \
+                    (SELECT page_count FROM pragma_page_count()), \
+                    (SELECT page_size FROM pragma_page_size())",
             [],
-            |r| Ok((r.get(0)?, r.get(1)?)),
+            |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)),
         )
         .expect("database figures");
     let hwm = vm_hwm_kib().unwrap_or(0);
@@ -198,8 +200,8 @@ fn main() {
         writer_cpu * 1e6 / n as f64
     );
     println!(
-        "backfill: database {:.0} bytes a file (page_count {pages}), event payload {payload:.0} bytes on average",
-        pages as f64 * 4096.0 / n as f64
+        "backfill: database {:.0} bytes a file ({pages} pages of {page_size} bytes), event payload {payload:.0} bytes on average",
+        (pages * page_size) as f64 / n as f64
     );
     println!(
         "backfill: peak RSS (VmHWM) {:.1} MB (before ingesting {:.1} MB, before recomputing {:.1} MB)",

@@ -255,3 +255,36 @@ fn a_measurement_counter_moved_back_is_named() {
     );
     assert_eq!(f.stored, "2");
 }
+
+#[test]
+fn a_file_of_many_batches_merges_each_batch_rows_wherever_they_stand() {
+    // Thirty lines over twelve batches, interleaved (B0..B11, then again, then B0..B5):
+    // a file of more batches than a scan is used for, so the batch map is exercised too.
+    // Repeated lines are recognised; one changed repeat (line 27, B1) is a conflict.
+    let mut conn = store::open_in_memory().unwrap();
+    let tx = conn.transaction().unwrap();
+    let conv = |b: usize| 0.5 + b as f64 / 100.0;
+    let rows: Vec<CycleRow> = (0..30)
+        .map(|i| {
+            let b = i % 12;
+            let c = if i == 25 { 0.99 } else { conv(b) };
+            row(i as u64 + 2, &format!("B{b}"), "L1", c)
+        })
+        .collect();
+    let s = records::record_parsed(
+        &tx,
+        &facts("many.csv", "ee"),
+        &ParsedFile::Cycles(rows),
+        "qa",
+    )
+    .unwrap();
+    assert_eq!((s.rows_new, s.rows_known, s.rows_conflict), (12, 17, 1));
+    tx.commit().unwrap();
+    for b in 0..12 {
+        let c = records::cycle(&conn, &format!("B{b}")).unwrap().unwrap();
+        assert_eq!(c.get(Quantity::Conversion), Some(conv(b)), "B{b}");
+        assert_eq!(c.conflicts, i64::from(b == 1), "B{b}");
+    }
+    let r = audit::verify(&conn).unwrap();
+    assert!(r.ok(), "{:?}", r.findings);
+}

@@ -128,6 +128,47 @@ pub struct FileRow {
     pub quarantined: Option<String>,
 }
 
+/// A row of `source_files` by reference: serialises exactly as [`FileRow`] (a test checks
+/// it), so that the writer of a backfill need not copy a file's names to record it.
+#[derive(Debug, Clone, Copy, Serialize)]
+pub struct FileRowRef<'a> {
+    pub id: i64,
+    pub sha256: &'a str,
+    pub path: &'a str,
+    pub size: i64,
+    pub mtime: Option<&'a str>,
+    pub profile: Option<&'a str>,
+    pub site: Option<&'a str>,
+    pub seen_at: &'a str,
+    pub outcome: &'a str,
+    pub error: Option<&'a str>,
+    pub rows_new: i64,
+    pub rows_known: i64,
+    pub rows_conflict: i64,
+    pub quarantined: Option<&'a str>,
+}
+
+impl FileRow {
+    pub fn as_ref(&self) -> FileRowRef<'_> {
+        FileRowRef {
+            id: self.id,
+            sha256: &self.sha256,
+            path: &self.path,
+            size: self.size,
+            mtime: self.mtime.as_deref(),
+            profile: self.profile.as_deref(),
+            site: self.site.as_deref(),
+            seen_at: &self.seen_at,
+            outcome: &self.outcome,
+            error: self.error.as_deref(),
+            rows_new: self.rows_new,
+            rows_known: self.rows_known,
+            rows_conflict: self.rows_conflict,
+            quarantined: self.quarantined.as_deref(),
+        }
+    }
+}
+
 /// A row of `measurements`.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct MeasurementRow {
@@ -211,7 +252,7 @@ pub enum Payload {
 #[derive(Debug, Serialize)]
 #[serde(tag = "kind", rename = "file-ingested")]
 pub struct FileIngestedRef<'a> {
-    pub file: &'a FileRow,
+    pub file: FileRowRef<'a>,
     #[serde(serialize_with = "compact_rows::serialize_refs")]
     pub measurements: &'a [&'a MeasurementRow],
     pub lots: &'a [LotRecord],
@@ -284,7 +325,7 @@ mod tests {
             lots: vec![lot.clone()],
         };
         let by_ref = FileIngestedRef {
-            file: &file,
+            file: file.as_ref(),
             measurements: &[&m, &m],
             lots: &[lot],
         };

@@ -9,7 +9,7 @@ use serde::Serialize;
 
 use super::view::{self, ATTR_CYCLE_NO, ATTR_LOT, ATTR_STARTED_AT, CYCLE_COLUMNS, CycleView};
 use super::{Result, StoreError};
-use crate::audit::payload::{FileIngestedRef, FileRow, LotRecord, MeasurementRow};
+use crate::audit::payload::{FileIngestedRef, FileRow, FileRowRef, LotRecord, MeasurementRow};
 use crate::audit::{self, Payload};
 use crate::ingest::{CycleRow, LotRow, ParsedFile, Quantity};
 
@@ -173,10 +173,14 @@ const INSERT_FILE: &str = "INSERT INTO source_files(id, sha256, path, size, mtim
 
 fn insert_file(tx: &Transaction<'_>, r: &FileRow, seq: i64) -> Result<()> {
     let mut stmt = tx.prepare_cached(INSERT_FILE)?;
-    insert_file_with(&mut stmt, r, seq)
+    insert_file_with(&mut stmt, &r.as_ref(), seq)
 }
 
-fn insert_file_with(stmt: &mut rusqlite::Statement<'_>, r: &FileRow, seq: i64) -> Result<()> {
+fn insert_file_with(
+    stmt: &mut rusqlite::Statement<'_>,
+    r: &FileRowRef<'_>,
+    seq: i64,
+) -> Result<()> {
     stmt.execute(params![
         r.id,
         r.sha256,
@@ -528,8 +532,14 @@ pub fn record_parsed_with(
     match parsed {
         ParsedFile::Cycles(rows) => {
             for row in rows {
-                let b = match batch_index.get(row.batch_id.as_str()) {
-                    Some(&b) => b,
+                // Most files touch a batch or two: a scan finds them sooner than a hash.
+                let found = if batches.len() <= FEW_BATCHES {
+                    batches.iter().position(|b| b.batch_id == row.batch_id)
+                } else {
+                    batch_index.get(row.batch_id.as_str()).copied()
+                };
+                let b = match found {
+                    Some(b) => b,
                     None => {
                         let existing = cycle_with(&mut st.cycle_get, &row.batch_id)?;
                         let known = if existing.is_some() {
@@ -543,7 +553,15 @@ pub fn record_parsed_with(
                             excluded: existing.as_ref().is_some_and(|c| c.excluded),
                             known,
                         });
-                        batch_index.insert(&row.batch_id, batches.len() - 1);
+                        if batches.len() > FEW_BATCHES {
+                            if batch_index.is_empty() {
+                                batch_index.extend(
+                                    batches.iter().enumerate().map(|(i, b)| (b.batch_id, i)),
+                                );
+                            } else {
+                                batch_index.insert(&row.batch_id, batches.len() - 1);
+                            }
+                        }
                         batches.len() - 1
                     }
                 };
@@ -565,24 +583,39 @@ pub fn record_parsed_with(
         }
     }
     // The rows this file adds, in id order (the order they were taken in).
-    let mut new_measurements: Vec<&MeasurementRow> = batches
-        .iter()
-        .flat_map(|b| b.known.iter().filter(|m| m.id >= first_new))
-        .collect();
+    let mut new_measurements: Vec<&MeasurementRow> =
+        Vec::with_capacity(usize::try_from(next_m - first_new).unwrap_or(0));
+    new_measurements.extend(
+        batches
+            .iter()
+            .flat_map(|b| b.known.iter().filter(|m| m.id >= first_new)),
+    );
     if batches.len() > 1 {
         new_measurements.sort_by_key(|m| m.id);
     }
 
-    let mut file = file_row(file_id, facts, "ingested");
-    file.rows_new = out.rows_new;
-    file.rows_known = out.rows_known;
-    file.rows_conflict = out.rows_conflict;
+    let file = FileRowRef {
+        id: file_id,
+        sha256: &facts.sha256,
+        path: &facts.path,
+        size: facts.size,
+        mtime: facts.mtime.as_deref(),
+        profile: facts.profile.as_deref(),
+        site: facts.site.as_deref(),
+        seen_at: &facts.seen_at,
+        outcome: "ingested",
+        error: None,
+        rows_new: out.rows_new,
+        rows_known: out.rows_known,
+        rows_conflict: out.rows_conflict,
+        quarantined: None,
+    };
     // Sized for a typical file's payload, so that it is written without regrowing.
     let mut body = Vec::with_capacity(512 + 128 * new_measurements.len());
     serde_json::to_writer(
         &mut body,
         &FileIngestedRef {
-            file: &file,
+            file,
             measurements: &new_measurements,
             lots: &lots,
         },
@@ -619,6 +652,9 @@ pub fn record_parsed_with(
     Ok(out)
 }
 
+/// Batches of a file found by a scan; beyond, by a hash map.
+const FEW_BATCHES: usize = 8;
+
 /// A batch a file touches, while the file is stored.
 struct BatchWork<'a> {
     batch_id: &'a str,
@@ -641,6 +677,8 @@ fn merge_row(
         Num(f64),
         Text(&'a str),
     }
+    // At most one row per value of the line: grown once here, not row by row.
+    known.reserve(3 + row.values.len());
     let (mut any_new, mut any_conflict) = (false, false);
     let mut merge = |q: &'static str, v: V<'_>, col: Option<i64>, raw: Option<&str>| {
         let cur = view::current(known, q);

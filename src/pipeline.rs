@@ -119,9 +119,15 @@ impl std::hash::Hasher for DigestHasher {
     }
 }
 
-/// What the writer has done with (parsed contents, outcomes), sent back to be freed by
-/// the reader that built them.
-type Spent = (Vec<ParsedFile>, Vec<FileOutcome>);
+/// What the writer has done with, sent back to be freed by the reader that built it.
+type Spent = (Leftovers, Vec<FileOutcome>);
+
+/// What is left of stored files once the writer is done with them (see `Writer::store`).
+#[derive(Default)]
+struct Leftovers {
+    parsed: Vec<ParsedFile>,
+    facts: Vec<FileFacts>,
+}
 
 /// A file read and parsed, not yet stored.
 struct Prepared {
@@ -336,9 +342,9 @@ impl Ingestor {
                         break; // never sent; guards the loop
                     }
                     done += prepared.len();
-                    let mut parsed = Vec::with_capacity(prepared.len());
+                    let mut left = Leftovers::default();
                     let (outcomes, lots) =
-                        writer.store(prepared, lookups.as_ref(), false, &mut parsed)?;
+                        writer.store(prepared, lookups.as_ref(), false, &mut left)?;
                     committed.store(writer.committed, Ordering::Release);
                     summary.transactions += 1;
                     touched.extend(lots);
@@ -347,7 +353,7 @@ impl Ingestor {
                         progress(o);
                     }
                     // If the reader has ended, what it would have freed is freed here.
-                    let _ = spent_to[g % readers].send((parsed, outcomes));
+                    let _ = spent_to[g % readers].send((left, outcomes));
                 }
             }
             Ok(())
@@ -377,7 +383,7 @@ impl Ingestor {
         }
         .prepare_group(paths, &mut self.parse_cache);
         Writer::new(&mut self.conn, &self.cfg, &self.actor)
-            .store(prepared, None, true, &mut Vec::new())
+            .store(prepared, None, true, &mut Leftovers::default())
             .map(|(o, _)| o)
     }
 }
@@ -470,14 +476,15 @@ impl<'a> Writer<'a> {
     /// the hashes this writer keeps of its recent groups. Without them (or when the
     /// snapshot is older than what is kept), each hash is looked up here.
     ///
-    /// The parsed contents of the stored files are moved into `parsed` rather than freed
-    /// here (a backfill frees them on the reader thread that built them).
+    /// What is left of each ingested file (its parsed content and the facts not kept in
+    /// its outcome) is moved into `left` rather than freed here: a backfill frees it on
+    /// the reader thread that built it.
     fn store(
         &mut self,
         prepared: Vec<Prepared>,
         lookups: Option<&HashLookups>,
         recompute: bool,
-        parsed_out: &mut Vec<ParsedFile>,
+        left: &mut Leftovers,
     ) -> Result<(Vec<FileOutcome>, BTreeSet<String>), StoreError> {
         let oldest_kept = self.committed - self.recent.len();
         let lookups = lookups.filter(|l| {
@@ -510,7 +517,7 @@ impl<'a> Writer<'a> {
         let mut in_group: DigestMap<i64> = DigestMap::default();
         let mut touched: BTreeSet<String> = BTreeSet::new();
         for (i, (p, q)) in prepared.into_iter().zip(quarantined).enumerate() {
-            let facts = p.facts;
+            let mut facts = p.facts;
             let seen = match in_group.get(&facts.sha256) {
                 Some(id) => Some(*id),
                 None if facts.sha256.is_empty() => None,
@@ -568,12 +575,14 @@ impl<'a> Writer<'a> {
                         tracing::warn!(path = %facts.path.escape_debug(), conflict = %c.escape_debug(), "conflicting value kept and flagged");
                     }
                     in_group.insert(facts.sha256.clone(), stored.file_id);
-                    parsed_out.push(parsed);
-                    FileOutcome::Ingested {
-                        path: facts.path,
-                        sha256: facts.sha256,
+                    left.parsed.push(parsed);
+                    let outcome = FileOutcome::Ingested {
+                        path: std::mem::take(&mut facts.path),
+                        sha256: std::mem::take(&mut facts.sha256),
                         stored,
-                    }
+                    };
+                    left.facts.push(facts);
+                    outcome
                 }
             };
             outcomes.push(outcome);

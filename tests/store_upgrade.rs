@@ -128,7 +128,7 @@ struct Line<'a> {
 }
 
 impl Line<'_> {
-    fn row(&self, id: i64, quantity: &str, kind: &str) -> MeasurementRow {
+    fn row(&self, id: i64, quantity: &'static str, kind: &'static str) -> MeasurementRow {
         MeasurementRow {
             id,
             batch_id: self.batch.into(),
@@ -144,7 +144,7 @@ impl Line<'_> {
     }
 
     /// A text attribute (lot, started_at), first seen.
-    fn text(&self, id: i64, quantity: &str, text: &str) -> MeasurementRow {
+    fn text(&self, id: i64, quantity: &'static str, text: &str) -> MeasurementRow {
         MeasurementRow {
             text: Some(text.into()),
             ..self.row(id, quantity, "observed")
@@ -595,10 +595,10 @@ fn typed_rows(conn: &Connection) -> Vec<(MeasurementRow, i64)> {
             MeasurementRow {
                 id: r.get(0)?,
                 batch_id: r.get(1)?,
-                quantity: r.get(2)?,
+                quantity: r.get::<_, String>(2)?.into(),
                 value: r.get(3)?,
                 text: r.get(4)?,
-                kind: r.get(5)?,
+                kind: r.get::<_, String>(5)?.into(),
                 source_file_id: r.get(6)?,
                 line: r.get(7)?,
                 col: r.get(8)?,
@@ -951,8 +951,8 @@ fn records_after_the_upgrade_continue_the_old_ids_and_verify() {
     assert_eq!(
         (
             first.batch_id.as_str(),
-            first.quantity.as_str(),
-            first.kind.as_str()
+            first.quantity.as_ref(),
+            first.kind.as_ref()
         ),
         ("KV-U-001", "selectivity", "conflict")
     );
@@ -1000,7 +1000,7 @@ fn records_after_the_upgrade_continue_the_old_ids_and_verify() {
         .unwrap()
         .pop()
         .unwrap();
-    assert_eq!((last.id, last.kind.as_str()), (old_max + 5, "correction"));
+    assert_eq!((last.id, last.kind.as_ref()), (old_max + 5, "correction"));
     assert_eq!(measurement_counter(&conn), old_max + 6);
     assert!(batch_sources(&conn).contains(&("KV-U-001".into(), seq, 0, None)));
     let kv1 = cycle_of(&conn, "KV-U-001");

@@ -3,6 +3,8 @@
 //! Each payload carries every row its event wrote, so the tables can be rebuilt from the
 //! event log alone and compared with what is stored.
 
+use std::borrow::Cow;
+
 use serde::{Deserialize, Serialize};
 
 /// The measurements of a `file-ingested` event, stored compactly: each row as a JSON array
@@ -174,10 +176,13 @@ impl FileRow {
 pub struct MeasurementRow {
     pub id: i64,
     pub batch_id: String,
-    pub quantity: String,
+    /// A quantity key, or lot / cycle_no / started_at: nearly always one of the fixed
+    /// names, so borrowed rather than copied for each value a file holds.
+    pub quantity: Cow<'static, str>,
     pub value: Option<f64>,
     pub text: Option<String>,
-    pub kind: String,
+    /// observed, conflict or correction (borrowed, as `quantity`).
+    pub kind: Cow<'static, str>,
     pub source_file_id: Option<i64>,
     pub line: Option<i64>,
     pub col: Option<i64>,

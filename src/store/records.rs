@@ -1,6 +1,7 @@
 //! Writes and reads of the records. Each public write is one unit of work in the caller's
 //! transaction: one event of the audit chain plus exactly the rows that event describes.
 
+use std::borrow::Cow;
 use std::collections::{BTreeSet, HashMap};
 use std::sync::LazyLock;
 
@@ -719,10 +720,10 @@ fn merge_row(
         known.push(MeasurementRow {
             id: *next_id,
             batch_id: row.batch_id.clone(),
-            quantity: q.to_string(),
+            quantity: Cow::Borrowed(q),
             value,
             text,
-            kind: kind.to_string(),
+            kind: Cow::Borrowed(kind),
             source_file_id: Some(file_id),
             line: i64::try_from(row.line).ok(),
             col,
@@ -891,7 +892,7 @@ pub fn correct(
     let m = MeasurementRow {
         id: next_id(tx, "measurements")?,
         batch_id: batch_id.to_string(),
-        quantity: quantity.to_string(),
+        quantity: quantity.to_string().into(),
         value: Some(value),
         text: None,
         kind: "correction".into(),

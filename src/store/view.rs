@@ -103,7 +103,7 @@ pub fn same_value(a: f64, b: f64) -> bool {
 mod tests {
     use super::*;
 
-    fn m(id: i64, q: &str, v: f64, kind: &str) -> MeasurementRow {
+    fn m(id: i64, q: &'static str, v: f64, kind: &'static str) -> MeasurementRow {
         MeasurementRow {
             id,
             batch_id: "B1".into(),

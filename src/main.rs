@@ -6,6 +6,7 @@ use clap::Parser;
 
 fn main() -> ExitCode {
     restore_default_sigpipe();
+    turnbook::store::configure_library();
     let cli = turnbook::commands::Cli::parse();
     turnbook::commands::init_logging(cli.log_json, cli.command.is_service());
     turnbook::commands::run(cli)

@@ -88,6 +88,8 @@ fn write_exports(dir: &Path, n: usize) -> std::io::Result<()> {
 }
 
 fn main() {
+    // As the `turnbook` binary does first thing.
+    turnbook::store::configure_library();
     // `cargo bench` passes --bench; any other argument is ignored too.
     let n: usize = std::env::var("TURNBOOK_BENCH_FILES")
         .ok()

@@ -429,6 +429,7 @@ fn open_for_lookups(db_path: &Path) -> Result<Connection, StoreError> {
         db_path,
         rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX,
     )?;
+    store::more_lookaside(&conn);
     conn.busy_timeout(std::time::Duration::from_secs(10))?;
     Ok(conn)
 }

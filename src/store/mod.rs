@@ -79,6 +79,33 @@ pub fn configure_library() {
     }
 }
 
+/// Slots of a connection's lookaside memory, SQLite's own allocator for its small
+/// short-lived objects (a statement's cursors, for one).
+const LOOKASIDE_SLOTS: i32 = 500;
+/// Bytes a slot (SQLite's default size).
+const LOOKASIDE_SLOT_BYTES: i32 = 1200;
+
+/// Give a new connection more lookaside memory than SQLite's default 40 slots, which the
+/// statements turnbook keeps prepared fill: every insert then took its cursors from the
+/// heap and gave them back (about 4 % of a backfill's writer). 600 KB a connection.
+/// Call it before the connection runs anything; it is a hint, so a refusal is ignored.
+pub fn more_lookaside(conn: &Connection) {
+    // SAFETY: SQLITE_DBCONFIG_LOOKASIDE takes (void *buffer, int slot size, int slots);
+    // a null buffer lets SQLite allocate it. The handle is this open connection's.
+    let rc = unsafe {
+        rusqlite::ffi::sqlite3_db_config(
+            conn.handle(),
+            rusqlite::ffi::SQLITE_DBCONFIG_LOOKASIDE,
+            std::ptr::null_mut::<std::ffi::c_void>(),
+            std::ffi::c_int::from(LOOKASIDE_SLOT_BYTES),
+            std::ffi::c_int::from(LOOKASIDE_SLOTS),
+        )
+    };
+    if rc != rusqlite::ffi::SQLITE_OK {
+        tracing::debug!(rc, "SQLite kept its default lookaside memory");
+    }
+}
+
 /// Page size of a new database, in bytes (an existing one keeps its own).
 ///
 /// An event row, about 1 KB with the values of a one-line export in its payload, fits
@@ -88,6 +115,7 @@ pub fn configure_library() {
 pub const PAGE_SIZE: i64 = 16384;
 
 fn configure(conn: &Connection) -> Result<()> {
+    more_lookaside(conn);
     conn.busy_timeout(std::time::Duration::from_secs(10))?;
     // Before anything is written: only a new database takes it.
     conn.pragma_update(None, "page_size", PAGE_SIZE)?;

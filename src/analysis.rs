@@ -6,7 +6,7 @@
 //! before that, [`recompute_stale`] heals it at the next start (a lot whose stored fit is
 //! older than its newest record is recomputed).
 
-use std::collections::BTreeSet;
+use std::collections::{BTreeMap, BTreeSet};
 use std::fmt::Write as _;
 
 use rusqlite::{Connection, OptionalExtension, Transaction};
@@ -469,7 +469,7 @@ pub fn lot_names(conn: &Connection) -> Result<Vec<String>> {
 }
 
 /// The newest event that wrote records of a lot.
-fn newest_seq_of(conn: &Connection, lot: &str) -> Result<i64> {
+pub fn newest_seq_of(conn: &Connection, lot: &str) -> Result<i64> {
     // Each part is an index-only lookup: batch_sources by (batch_id, event_seq), lots by
     // name, exclusions through their partial index.
     Ok(conn
@@ -493,26 +493,45 @@ pub fn recompute_lots(
     _actor: &str,
 ) -> Result<()> {
     for lot in lots {
-        let after = newest_seq_of(tx, lot)?;
-        if records::lot(tx, lot)?.is_none() {
-            // Pending (nobody registered the lot): nothing to fit and no alert to raise;
-            // the empty fit still records what the lot's records were when looked at.
-            store_fit(tx, lot, after, &basis(cfg), None, "null")?;
-            continue;
-        }
-        let state = lot_state(tx, cfg, lot)?;
-        let json = match &state.analysis {
-            Some(a) => serde_json::to_string(a)?,
-            None => "null".into(),
-        };
-        let model = state
-            .analysis
-            .as_ref()
-            .and_then(|a| a.chosen)
-            .map(|m| m.id());
-        store_fit(tx, lot, after, &state.basis, model, &json)?;
-        crate::alerting::raise(tx, cfg, &state)?;
+        recompute_lot(tx, cfg, lot, newest_seq_of(tx, lot)?)?;
     }
+    Ok(())
+}
+
+/// [`recompute_lots`] for lots whose newest event the caller knows (it wrote them under the
+/// write lock, with no other writer since): the lookup of each lot's newest event reads a
+/// provenance row per cycle of the lot, the larger part of a backfill's closing recompute.
+pub fn recompute_lots_after(
+    tx: &Transaction<'_>,
+    cfg: &Config,
+    lots: &BTreeMap<String, i64>,
+) -> Result<()> {
+    for (lot, after) in lots {
+        recompute_lot(tx, cfg, lot, *after)?;
+    }
+    Ok(())
+}
+
+/// Recompute one lot whose records go up to event `after`.
+fn recompute_lot(tx: &Transaction<'_>, cfg: &Config, lot: &str, after: i64) -> Result<()> {
+    if records::lot(tx, lot)?.is_none() {
+        // Pending (nobody registered the lot): nothing to fit and no alert to raise;
+        // the empty fit still records what the lot's records were when looked at.
+        store_fit(tx, lot, after, &basis(cfg), None, "null")?;
+        return Ok(());
+    }
+    let state = lot_state(tx, cfg, lot)?;
+    let json = match &state.analysis {
+        Some(a) => serde_json::to_string(a)?,
+        None => "null".into(),
+    };
+    let model = state
+        .analysis
+        .as_ref()
+        .and_then(|a| a.chosen)
+        .map(|m| m.id());
+    store_fit(tx, lot, after, &state.basis, model, &json)?;
+    crate::alerting::raise(tx, cfg, &state)?;
     Ok(())
 }
 

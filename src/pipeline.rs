@@ -5,7 +5,7 @@
 //! Everything before the transaction is safe to repeat: a crash before commit means the
 //! file is read again next time; after commit its SHA-256 marks it as seen.
 
-use std::collections::{BTreeSet, HashMap};
+use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::mpsc;
@@ -252,7 +252,8 @@ impl Ingestor {
         mut progress: impl FnMut(&FileOutcome),
     ) -> Result<RunSummary, StoreError> {
         let mut summary = RunSummary::default();
-        let mut touched = BTreeSet::new();
+        // Each touched lot with the newest event this run wrote for it.
+        let mut touched: BTreeMap<String, i64> = BTreeMap::new();
         let groups: Vec<&[PathBuf]> = paths
             .chunks(self.cfg.files_per_transaction.max(1))
             .collect();
@@ -275,6 +276,7 @@ impl Ingestor {
         let committed = AtomicUsize::new(0);
         let mut writer = Writer::new(&mut self.conn, &self.cfg, &self.actor);
         writer.version_at_start = Some(data_version(writer.conn)?);
+        let start_version = writer.version_at_start;
         let stored = std::thread::scope(|scope| -> Result<(), StoreError> {
             // Reader r prepares groups r, r + readers, ...; one group in flight per reader
             // bounds the memory held.
@@ -347,7 +349,10 @@ impl Ingestor {
                         writer.store(prepared, lookups.as_ref(), false, &mut left)?;
                     committed.store(writer.committed, Ordering::Release);
                     summary.transactions += 1;
-                    touched.extend(lots);
+                    for (lot, seq) in lots {
+                        let newest = touched.entry(lot).or_insert(seq);
+                        *newest = (*newest).max(seq);
+                    }
                     for o in &outcomes {
                         summary.add(o);
                         progress(o);
@@ -369,7 +374,14 @@ impl Ingestor {
             let tx = self
                 .conn
                 .transaction_with_behavior(TransactionBehavior::Immediate)?;
-            crate::analysis::recompute_lots(&tx, &self.cfg, &touched, &self.actor)?;
+            // With no other writer since the run began, the newest event of each lot is
+            // the newest this run wrote for it, and need not be looked up.
+            if start_version.is_some() && data_version(&tx).ok() == start_version {
+                crate::analysis::recompute_lots_after(&tx, &self.cfg, &touched)?;
+            } else {
+                let lots = touched.into_keys().collect();
+                crate::analysis::recompute_lots(&tx, &self.cfg, &lots, &self.actor)?;
+            }
             tx.commit()?;
         }
         Ok(summary)
@@ -470,7 +482,8 @@ impl<'a> Writer<'a> {
     }
 
     /// Store a group of prepared files in one transaction; with `recompute`, the lots they
-    /// touched are recomputed in it too (otherwise the caller does it later).
+    /// touched are recomputed in it too (otherwise the caller does it later). Returns each
+    /// file's outcome and each touched lot with the newest event the group wrote for it.
     ///
     /// `lookups`, when a reader made them, say which contents were ingested before as of
     /// its snapshot; files ingested by groups committed after that snapshot are found in
@@ -486,7 +499,7 @@ impl<'a> Writer<'a> {
         lookups: Option<&HashLookups>,
         recompute: bool,
         left: &mut Leftovers,
-    ) -> Result<(Vec<FileOutcome>, BTreeSet<String>), StoreError> {
+    ) -> Result<(Vec<FileOutcome>, BTreeMap<String, i64>), StoreError> {
         let oldest_kept = self.committed - self.recent.len();
         let lookups = lookups.filter(|l| {
             l.visible_groups >= oldest_kept
@@ -516,7 +529,7 @@ impl<'a> Writer<'a> {
         let mut st = records::FileStatements::prepare(&tx)?;
         let mut outcomes = Vec::with_capacity(prepared.len());
         let mut in_group: DigestMap<i64> = DigestMap::default();
-        let mut touched: BTreeSet<String> = BTreeSet::new();
+        let mut touched: BTreeMap<String, i64> = BTreeMap::new();
         for (i, (p, q)) in prepared.into_iter().zip(quarantined).enumerate() {
             let mut facts = p.facts;
             let seen = match in_group.get(&facts.sha256) {
@@ -571,7 +584,10 @@ impl<'a> Writer<'a> {
                     let stored = records::record_parsed_with(
                         &tx, &mut st, &mut ids, &facts, &parsed, self.actor,
                     )?;
-                    touched.extend(stored.lots_touched.iter().cloned());
+                    // Files are stored in order: this one's event is the lots' newest.
+                    for lot in &stored.lots_touched {
+                        touched.insert(lot.clone(), stored.event_seq);
+                    }
                     for c in &stored.conflicts {
                         tracing::warn!(path = %facts.path.escape_debug(), conflict = %c.escape_debug(), "conflicting value kept and flagged");
                     }
@@ -591,7 +607,8 @@ impl<'a> Writer<'a> {
         ids.finish(&tx)?;
         drop(st);
         if recompute {
-            crate::analysis::recompute_lots(&tx, self.cfg, &touched, self.actor)?;
+            // Under the write lock, this group's events are the newest of their lots.
+            crate::analysis::recompute_lots_after(&tx, self.cfg, &touched)?;
         }
         tx.commit()?;
         self.committed += 1;

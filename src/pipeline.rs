@@ -106,16 +106,25 @@ struct DigestHasher(u64);
 
 impl std::hash::Hasher for DigestHasher {
     fn write(&mut self, bytes: &[u8]) {
-        for chunk in bytes.chunks(8) {
+        let mut words = bytes.chunks_exact(8);
+        for w in &mut words {
             let mut word = [0u8; 8];
-            word[..chunk.len()].copy_from_slice(chunk);
-            self.0 = (self.0.rotate_left(5) ^ u64::from_le_bytes(word))
-                .wrapping_mul(0x51_7c_c1_b7_27_22_0a_95);
+            word.copy_from_slice(w);
+            self.mix(u64::from_le_bytes(word));
+        }
+        for &b in words.remainder() {
+            self.mix(u64::from(b));
         }
     }
 
     fn finish(&self) -> u64 {
         self.0
+    }
+}
+
+impl DigestHasher {
+    fn mix(&mut self, word: u64) {
+        self.0 = (self.0.rotate_left(5) ^ word).wrapping_mul(0x51_7c_c1_b7_27_22_0a_95);
     }
 }
 
@@ -344,7 +353,10 @@ impl Ingestor {
                         break; // never sent; guards the loop
                     }
                     done += prepared.len();
-                    let mut left = Leftovers::default();
+                    let mut left = Leftovers {
+                        parsed: Vec::with_capacity(prepared.len()),
+                        facts: Vec::with_capacity(prepared.len()),
+                    };
                     let (outcomes, lots) =
                         writer.store(prepared, lookups.as_ref(), false, &mut left)?;
                     committed.store(writer.committed, Ordering::Release);
@@ -528,7 +540,8 @@ impl<'a> Writer<'a> {
         let mut ids = NextIds::default();
         let mut st = records::FileStatements::prepare(&tx)?;
         let mut outcomes = Vec::with_capacity(prepared.len());
-        let mut in_group: DigestMap<i64> = DigestMap::default();
+        let mut in_group: DigestMap<i64> =
+            DigestMap::with_capacity_and_hasher(prepared.len(), Default::default());
         let mut touched: BTreeMap<String, i64> = BTreeMap::new();
         for (i, (p, q)) in prepared.into_iter().zip(quarantined).enumerate() {
             let mut facts = p.facts;

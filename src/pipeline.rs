@@ -96,9 +96,11 @@ const PART_BYTES: u64 = 8 << 20;
 /// Most threads reading, hashing and parsing files while the writer stores earlier ones.
 const MAX_READERS: usize = 4;
 
-/// A map keyed by SHA-256 digests in hex. The keys are uniformly spread already, so a
-/// plain multiplicative hash of them does what SipHash's keyed mixing does, in less time
-/// (the writer looks up and records every file's digest).
+/// A map keyed by SHA-256 digests in hex, which are spread uniformly already: a plain
+/// multiplicative hash of them serves, in less time than SipHash (the writer records and
+/// looks up every file's digest). SipHash's keyed mixing guards against keys crafted to
+/// collide; here that would take someone who can write export files, and would cost at
+/// most a slower group (a group holds at most `files_per_transaction` keys).
 type DigestMap<V> = HashMap<String, V, std::hash::BuildHasherDefault<DigestHasher>>;
 
 #[derive(Default)]

@@ -371,6 +371,15 @@ impl Ingestor {
                         summary.add(o);
                         progress(o);
                     }
+                    // What this thread allocated is freed here: a reader freeing it would
+                    // take this thread's allocator lock and make each side wait for the other.
+                    let mut outcomes = outcomes;
+                    for o in &mut outcomes {
+                        if let FileOutcome::Ingested { stored, .. } = o {
+                            drop(std::mem::take(&mut stored.lots_touched));
+                            drop(std::mem::take(&mut stored.conflicts));
+                        }
+                    }
                     // If the reader has ended, what it would have freed is freed here.
                     let _ = spent_to[g % readers].send((left, outcomes));
                 }

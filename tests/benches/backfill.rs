@@ -11,6 +11,8 @@ use std::io::Read;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
+use sha2::{Digest, Sha256};
+
 use turnbook::config::Config;
 use turnbook::pipeline::{self, Ingestor};
 
@@ -143,6 +145,20 @@ fn main() {
             .expect("read a file");
         bytes += buf.len();
     }
+    // A yardstick of this host's speed at this moment, taken in every run: reading and
+    // hashing every file, one thread, nothing stored. The host's speed drifts (by up to
+    // twice within an hour), so a backfill's figure is best read beside this one.
+    let t = Instant::now();
+    let mut digests = 0u8;
+    for f in &files {
+        buf.clear();
+        std::fs::File::open(f)
+            .and_then(|mut h| h.read_to_end(&mut buf))
+            .expect("read a file");
+        digests ^= Sha256::digest(&buf)[0];
+    }
+    let read_hash = n as f64 / t.elapsed().as_secs_f64();
+    std::hint::black_box(digests);
     let hwm_before = vm_hwm_kib().unwrap_or(0);
 
     let cfg = Config::load(&cfg_path).expect("load the configuration");
@@ -195,6 +211,11 @@ fn main() {
         bytes as f64 / 1e6,
         n as f64 / total,
         n as f64 / store_secs
+    );
+    println!(
+        "backfill: reading and hashing alone, one thread: {read_hash:.0} files/s \
+         (the backfill is {:.2} of it)",
+        n as f64 / total / read_hash
     );
     println!(
         "backfill: CPU {proc_cpu:.2} s in all threads, {writer_cpu:.2} s in the writer \

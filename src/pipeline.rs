@@ -7,9 +7,10 @@
 
 use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
-use std::sync::atomic::{AtomicUsize, Ordering};
-use std::sync::mpsc;
+use std::sync::atomic::{AtomicBool, AtomicI64, AtomicUsize, Ordering};
+use std::sync::{Arc, mpsc};
 
+use rusqlite::hooks::Wal;
 use rusqlite::{Connection, TransactionBehavior};
 use serde::Serialize;
 use sha2::{Digest, Sha256};
@@ -86,8 +87,12 @@ impl RunSummary {
 const STATEMENT_CACHE: usize = 64;
 /// SQLite page cache of the writer, KiB (a negative `cache_size` is in KiB).
 const PAGE_CACHE_KIB: i64 = -24 * 1024;
-/// Write-ahead log size, in bytes, that triggers a checkpoint in a backfill.
+/// Write-ahead log size, in bytes, that triggers SQLite's own checkpoint for an
+/// `Ingestor` outside a backfill's run (one-file groups through `ingest_group`).
 const WAL_CHECKPOINT_BYTES: i64 = 128 << 20;
+/// Log size, in bytes, at which a backfill's checkpointing thread copies the log into the
+/// database (see `Ingestor::checkpoint_bytes`).
+const BACKFILL_CHECKPOINT_BYTES: i64 = 64 << 20;
 /// The same for the service, in pages: SQLite's default (16 MB of log at 16 KB pages).
 const SERVICE_WAL_CHECKPOINT_PAGES: i64 = 1000;
 /// File content a reader gathers into one part of a group (see `Ingestor::part_bytes`);
@@ -163,6 +168,10 @@ pub struct Ingestor {
     /// File content a backfill's reader gathers before it hands part of a group to the
     /// writer (each part is one transaction): bounds the parsed rows held in memory.
     pub part_bytes: u64,
+    /// Log size at which a backfill copies the log into the database. A thread of its
+    /// own does the copy while the writer goes on; the writer then copies only what it
+    /// appended meanwhile, so that the log starts over at its next transaction.
+    pub checkpoint_bytes: i64,
 }
 
 impl Ingestor {
@@ -201,6 +210,7 @@ impl Ingestor {
             skip_unchanged: false,
             parse_cache: ParseCache::new(),
             part_bytes: PART_BYTES,
+            checkpoint_bytes: BACKFILL_CHECKPOINT_BYTES,
         })
     }
 
@@ -285,10 +295,32 @@ impl Ingestor {
         let db_path = self.cfg.database_path();
         let part_bytes = self.part_bytes;
         let committed = AtomicUsize::new(0);
+        // Checkpoints: the log hook counts the log's frames after each commit (and, being
+        // the hook, stops SQLite's own checkpoints for the run; they are restored below).
+        let page_size: i64 = self.conn.query_row("PRAGMA page_size", [], |r| r.get(0))?;
+        let checkpoint_frames = (self.checkpoint_bytes / page_size.max(512)).max(1);
+        let autocheckpoint: i64 = self
+            .conn
+            .query_row("PRAGMA wal_autocheckpoint", [], |r| r.get(0))?;
+        let copied = AtomicBool::new(false);
         let mut writer = Writer::new(&mut self.conn, &self.cfg, &self.actor);
         writer.version_at_start = Some(data_version(writer.conn)?);
         let start_version = writer.version_at_start;
+        let log_frames = Arc::new(AtomicI64::new(0));
+        let frames = Arc::clone(&log_frames);
+        writer
+            .conn
+            .wal_hook(Some(move |_: &mut Wal, pages: std::ffi::c_int| {
+                frames.store(i64::from(pages), Ordering::Relaxed);
+                Ok(())
+            }))?;
         let stored = std::thread::scope(|scope| -> Result<(), StoreError> {
+            let (copy_tx, copy_rx) = mpsc::channel::<()>();
+            {
+                let (db_path, copied) = (&db_path, &copied);
+                scope.spawn(move || checkpointer(db_path, &copy_rx, copied));
+            }
+            let mut copying = false;
             // Reader r prepares groups r, r + readers, ...; one group in flight per reader
             // bounds the memory held.
             let mut inbox = Vec::with_capacity(readers);
@@ -362,6 +394,19 @@ impl Ingestor {
                     let (outcomes, lots) =
                         writer.store(prepared, lookups.as_ref(), false, &mut left)?;
                     committed.store(writer.committed, Ordering::Release);
+                    if copying {
+                        if copied.swap(false, Ordering::AcqRel) {
+                            // What this thread appended while the other copied: the log
+                            // is then wholly in the database and starts over.
+                            checkpoint(writer.conn)?;
+                            copying = false;
+                        }
+                    } else if log_frames.load(Ordering::Relaxed) >= checkpoint_frames {
+                        copying = copy_tx.send(()).is_ok();
+                        if !copying {
+                            checkpoint(writer.conn)?; // the other thread has ended
+                        }
+                    }
                     summary.transactions += 1;
                     for (lot, seq) in lots {
                         let newest = touched.entry(lot).or_insert(seq);
@@ -386,6 +431,11 @@ impl Ingestor {
             }
             Ok(())
         });
+        // SQLite's own checkpoints again (setting the interval installs its hook).
+        self.conn
+            .wal_hook(None::<fn(&mut Wal, std::ffi::c_int) -> rusqlite::Result<()>>)?;
+        self.conn
+            .pragma_update(None, "wal_autocheckpoint", autocheckpoint)?;
         self.conn.pragma_update(None, "synchronous", "FULL")?;
         stored?;
         // A backfill recomputes each touched lot once, after its last group; this commit
@@ -456,6 +506,34 @@ fn lookup_hashes(
         visible_groups,
         found,
     })
+}
+
+/// A backfill's checkpointing thread: copies the log into the database on each request,
+/// on a connection of its own, while the writer goes on appending; says when it is done.
+/// Without its connection it copies nothing and the writer does it all.
+fn checkpointer(db_path: &Path, requests: &mpsc::Receiver<()>, done: &AtomicBool) {
+    let conn = Connection::open(db_path)
+        .and_then(|c| {
+            c.busy_timeout(std::time::Duration::from_secs(10))?;
+            c.pragma_update(None, "synchronous", "NORMAL")?;
+            Ok(c)
+        })
+        .inspect_err(|e| tracing::debug!(error = %e, "no checkpointing thread"))
+        .ok();
+    while requests.recv().is_ok() {
+        if let Some(c) = &conn
+            && let Err(e) = checkpoint(c)
+        {
+            tracing::debug!(error = %e, "checkpoint failed; the writer copies the log");
+        }
+        done.store(true, Ordering::Release);
+    }
+}
+
+/// Copy the log into the database as far as no reader needs it (never waits).
+fn checkpoint(conn: &Connection) -> Result<(), StoreError> {
+    conn.query_row("PRAGMA wal_checkpoint(PASSIVE)", [], |_| Ok(()))?;
+    Ok(())
 }
 
 /// A read-only connection for a reader thread's hash lookups.

@@ -89,6 +89,18 @@ fn write_exports(dir: &Path, n: usize) -> std::io::Result<()> {
     Ok(())
 }
 
+/// Read every file whole, one after the other, into one buffer.
+fn read_each(files: &[PathBuf], mut with: impl FnMut(&[u8])) {
+    let mut buf = Vec::new();
+    for f in files {
+        buf.clear();
+        std::fs::File::open(f)
+            .and_then(|mut h| h.read_to_end(&mut buf))
+            .expect("read a file");
+        with(&buf);
+    }
+}
+
 fn main() {
     // As the `turnbook` binary does first thing.
     turnbook::store::configure_library();
@@ -136,27 +148,14 @@ fn main() {
     pipeline::collect_files(&exports, &mut files).expect("list the files");
     assert_eq!(files.len(), n);
     // Warm the page cache: read every file once.
-    let mut buf = Vec::new();
     let mut bytes = 0usize;
-    for f in &files {
-        buf.clear();
-        std::fs::File::open(f)
-            .and_then(|mut h| h.read_to_end(&mut buf))
-            .expect("read a file");
-        bytes += buf.len();
-    }
+    read_each(&files, |content| bytes += content.len());
     // A yardstick of this host's speed at this moment, taken in every run: reading and
     // hashing every file, one thread, nothing stored. The host's speed drifts (by up to
     // twice within an hour), so a backfill's figure is best read beside this one.
     let t = Instant::now();
     let mut digests = 0u8;
-    for f in &files {
-        buf.clear();
-        std::fs::File::open(f)
-            .and_then(|mut h| h.read_to_end(&mut buf))
-            .expect("read a file");
-        digests ^= Sha256::digest(&buf)[0];
-    }
+    read_each(&files, |content| digests ^= Sha256::digest(content)[0]);
     let read_hash = n as f64 / t.elapsed().as_secs_f64();
     std::hint::black_box(digests);
     let hwm_before = vm_hwm_kib().unwrap_or(0);

@@ -8,34 +8,11 @@
 use std::path::{Path, PathBuf};
 
 use turnbook::audit;
-use turnbook::config::Config;
 use turnbook::pipeline::Ingestor;
 
 const FILES: usize = 2_000;
 
-fn config(root: &Path) -> Config {
-    let text = r#"
-database = "t.db"
-quarantine = "quarantine"
-files_per_transaction = 50
-
-[profiles.reactor]
-kind = "cycles"
-delimiter = ","
-decimal = "."
-encoding = "utf-8"
-columns.batch_id = { header = "Batch" }
-columns.lot = { header = "Lot" }
-columns.conversion = { header = "Conversion", unit = "%" }
-
-[[folders]]
-path = "exports"
-profile = "reactor"
-"#;
-    let path = root.join("turnbook.toml");
-    std::fs::write(&path, text).unwrap();
-    Config::load(&path).unwrap()
-}
+mod common;
 
 fn write(root: &Path) -> Vec<PathBuf> {
     let dir = root.join("exports");
@@ -63,7 +40,7 @@ fn count(ing: &Ingestor, sql: &str) -> i64 {
 fn backfill(checkpoint_bytes: i64) -> u64 {
     let tmp = tempfile::tempdir().unwrap();
     let root = tmp.path();
-    let cfg = config(root);
+    let cfg = common::reactor_config(root, 50);
     let files = write(root);
     let mut ing = Ingestor::open(cfg).unwrap();
     ing.checkpoint_bytes = checkpoint_bytes;

@@ -10,30 +10,10 @@ use std::path::{Path, PathBuf};
 use turnbook::config::Config;
 use turnbook::pipeline::{FileOutcome, Ingestor};
 
+mod common;
+
 fn config(root: &Path, group: usize) -> Config {
-    let text = format!(
-        r#"
-database = "t.db"
-quarantine = "quarantine"
-files_per_transaction = {group}
-
-[profiles.reactor]
-kind = "cycles"
-delimiter = ","
-decimal = "."
-encoding = "utf-8"
-columns.batch_id = {{ header = "Batch" }}
-columns.lot = {{ header = "Lot" }}
-columns.conversion = {{ header = "Conversion", unit = "%" }}
-
-[[folders]]
-path = "exports"
-profile = "reactor"
-"#
-    );
-    let path = root.join("turnbook.toml");
-    std::fs::write(&path, text).unwrap();
-    Config::load(&path).unwrap()
+    common::reactor_config(root, group)
 }
 
 fn export(batch: usize) -> String {

@@ -1,7 +1,7 @@
 //! Helpers shared by the integration tests (each test file uses only some of them).
 #![allow(dead_code)]
 
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
 
 /// The `turnbook` binary cargo built for these tests, checked to answer `--version` (keep
@@ -30,4 +30,32 @@ pub fn python_with_aiosmtpd() -> Option<String> {
             .status()
             .is_ok_and(|s| s.success())
     })
+}
+
+/// The configuration of the ingest tests' imaginary reactor (one-line exports: batch,
+/// lot, conversion in %), written into `root`, with `group` files a transaction.
+pub fn reactor_config(root: &Path, group: usize) -> turnbook::config::Config {
+    let text = format!(
+        r#"
+database = "t.db"
+quarantine = "quarantine"
+files_per_transaction = {group}
+
+[profiles.reactor]
+kind = "cycles"
+delimiter = ","
+decimal = "."
+encoding = "utf-8"
+columns.batch_id = {{ header = "Batch" }}
+columns.lot = {{ header = "Lot" }}
+columns.conversion = {{ header = "Conversion", unit = "%" }}
+
+[[folders]]
+path = "exports"
+profile = "reactor"
+"#
+    );
+    let path = root.join("turnbook.toml");
+    std::fs::write(&path, text).unwrap();
+    turnbook::config::Config::load(&path).unwrap()
 }

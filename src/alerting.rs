@@ -12,7 +12,7 @@ use crate::analysis::LotState;
 use crate::chem::{PdeTable, Route};
 use crate::config::Config;
 use crate::fit;
-use crate::ingest::Quantity;
+use crate::model::Quantity;
 use crate::store::{Result, StoreError};
 
 fn route(cfg: &Config) -> Route {
@@ -161,7 +161,7 @@ pub fn raise(tx: &Transaction<'_>, cfg: &Config, state: &LotState) -> Result<usi
         return Ok(0);
     };
     let alerts = evaluate(&snap, &cfg.alerts);
-    alert::enqueue(tx, &alerts, &crate::audit::now_utc()).map_err(alert_err)
+    alert::enqueue(tx, &alerts, &crate::model::time::now_utc()).map_err(alert_err)
 }
 
 /// Queue the quarantine alert (to QA) for a rejected file.
@@ -206,7 +206,7 @@ pub fn raise_quarantine(
         .into_iter()
         .filter(|a| a.rule == rules::RuleId::Quarantine && a.state == alert::AlertState::Open)
         .collect();
-    alert::enqueue(tx, &alerts, &crate::audit::now_utc()).map_err(alert_err)
+    alert::enqueue(tx, &alerts, &crate::model::time::now_utc()).map_err(alert_err)
 }
 
 /// Messages not yet delivered.

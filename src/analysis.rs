@@ -12,13 +12,13 @@ use std::fmt::Write as _;
 use rusqlite::{Connection, OptionalExtension, Transaction};
 use serde::Serialize;
 
-use crate::audit::payload::LotRecord;
 use crate::chem::{self, ChemOptions, CycleInput, CycleMetrics, LotFacts};
 use crate::commands::{CmdResult, Failure};
 use crate::config::Config;
 use crate::fit::{self, AnalysisOptions, Criterion, LotAnalysis, LotSeries, ModelId};
-use crate::ingest::Quantity;
-use crate::store::view::CycleView;
+use crate::model::Quantity;
+use crate::model::cycle::CycleView;
+use crate::model::event::LotRecord;
 use crate::store::{self, Result, records};
 
 /// Where a cycle's values came from.
@@ -198,9 +198,9 @@ fn lot_record_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Option<L
     let mut found = None;
     let rows = stmt.query_map([as_of], |r| r.get::<_, String>(0))?;
     for body in rows {
-        match serde_json::from_str::<crate::audit::Payload>(&body?)? {
-            crate::audit::Payload::LotRegistered { lot: l, .. } if l.lot == lot => found = Some(l),
-            crate::audit::Payload::FileIngested { lots, .. } => {
+        match serde_json::from_str::<crate::model::Payload>(&body?)? {
+            crate::model::Payload::LotRegistered { lot: l, .. } if l.lot == lot => found = Some(l),
+            crate::model::Payload::FileIngested { lots, .. } => {
                 if let Some(l) = lots.into_iter().rev().find(|l| l.lot == lot) {
                     found = Some(l);
                 }
@@ -235,7 +235,7 @@ fn cycles_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Vec<CycleVie
             .and_then(|p| serde_json::from_str::<serde_json::Value>(&p).ok())
             .and_then(|v| v["excluded"].as_bool())
             .unwrap_or(false);
-        let v = crate::store::view::derive_cycle(&b, &rows, excluded, first_seq);
+        let v = crate::model::cycle::derive_cycle(&b, &rows, excluded, first_seq);
         if v.lot.as_deref() == Some(lot) {
             out.push(v);
         }
@@ -550,7 +550,7 @@ fn store_fit(
     )?
     .execute(rusqlite::params![
         lot,
-        crate::audit::now_utc(),
+        crate::model::time::now_utc(),
         after,
         fit::ENGINE_VERSION,
         basis,

@@ -8,9 +8,10 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand};
 use rusqlite::TransactionBehavior;
 
-use crate::audit::payload::LotRecord;
-use crate::audit::{self, Payload};
+use crate::audit;
 use crate::config::Config;
+use crate::model::Payload;
+use crate::model::event::LotRecord;
 use crate::pipeline::{self, FileOutcome, Ingestor};
 use crate::store::{self, records};
 
@@ -440,7 +441,7 @@ fn write_event(
 ) -> CmdResult {
     let mut conn = store::open(&cfg.database_path())?;
     let actor = audit::actor(cfg.actor.as_deref());
-    let at = audit::now_utc();
+    let at = crate::model::time::now_utc();
     let tx = conn
         .transaction_with_behavior(TransactionBehavior::Immediate)
         .map_err(store::StoreError::from)?;

@@ -786,7 +786,7 @@ impl Reader<'_> {
             mtime: None,
             profile: None,
             site: None,
-            seen_at: audit::now_utc(),
+            seen_at: crate::model::time::now_utc(),
         };
         // One open, without following a symbolic link: a plain file is judged by its own
         // place; a link (the open refuses it) is followed and judged by its target's folder.
@@ -852,7 +852,7 @@ impl Reader<'_> {
             }
         };
         facts.size = bytes.len() as i64;
-        facts.sha256 = audit::hex_lower(&Sha256::digest(&bytes));
+        facts.sha256 = crate::model::chain::hex_lower(&Sha256::digest(&bytes));
         let result = match profile_name {
             None => Err(
                 "the file is not under any configured folder, so no export profile applies; \

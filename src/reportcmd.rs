@@ -9,7 +9,7 @@ use crate::analysis::{LotState, lot_state};
 use crate::commands::{CmdResult, Failure};
 use crate::config::Config;
 use crate::fit;
-use crate::ingest::Quantity;
+use crate::model::Quantity;
 use crate::report::{self, LotReport};
 use crate::store;
 
@@ -230,7 +230,7 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
         .collect();
     let v = crate::audit::verify(conn)?;
     let verify = report::VerifyLine {
-        ran_at: crate::audit::now_utc(),
+        ran_at: crate::model::time::now_utc(),
         outcome: if v.ok() {
             report::VerifyOutcome::Intact {
                 entries: v.events as u64,
@@ -242,7 +242,7 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
         },
     };
     Ok(LotReport {
-        generated_at: crate::audit::now_utc(),
+        generated_at: crate::model::time::now_utc(),
         turnbook_version: env!("CARGO_PKG_VERSION").to_string(),
         identity,
         cycles,
@@ -304,7 +304,7 @@ pub fn build_site(
         });
     }
     Ok(report::SiteReport {
-        generated_at: crate::audit::now_utc(),
+        generated_at: crate::model::time::now_utc(),
         turnbook_version: env!("CARGO_PKG_VERSION").to_string(),
         site: site.map_or_else(
             || {

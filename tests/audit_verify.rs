@@ -2,7 +2,8 @@
 //! plain SQL behind turnbook's back is named by table, row and field.
 
 use turnbook::audit;
-use turnbook::ingest::{CycleRow, LotRow, MeasuredValue, ParsedFile, Quantity};
+use turnbook::ingest::{CycleRow, LotRow, MeasuredValue, ParsedFile};
+use turnbook::model::Quantity;
 use turnbook::store::{self, records};
 
 fn facts(name: &str, sha: &str) -> records::FileFacts {
@@ -38,14 +39,17 @@ fn populated() -> rusqlite::Connection {
     let tx = conn.transaction().unwrap();
     let lots = ParsedFile::Lots(vec![LotRow {
         line: 2,
-        lot: "L1".into(),
-        catalyst: "5% Pd/C".into(),
-        metal: "Pd".into(),
-        loading_wt_pct: 5.0,
-        charged_mass_g: 10.0,
-        received: None,
-        supplier_lot: None,
-        cost: Some(1000.0),
+        record: turnbook::model::LotRecord {
+            lot: "L1".into(),
+            catalyst: "5% Pd/C".into(),
+            metal: "Pd".into(),
+            loading_wt_pct: 5.0,
+            charged_mass_g: 10.0,
+            received: None,
+            supplier_lot: None,
+            cost: Some(1000.0),
+            site: None,
+        },
     }]);
     records::record_parsed(&tx, &facts("lots.csv", "aa"), &lots, "qa").unwrap();
     let f = ParsedFile::Cycles(vec![row(2, "B1", "L1", 0.9), row(3, "B2", "L1", 0.8)]);

@@ -2,7 +2,7 @@
 
 use proptest::prelude::*;
 use turnbook::chem::{ChemOptions, CycleInput, LotFacts, cycle_metrics};
-use turnbook::ingest::Quantity;
+use turnbook::model::Quantity;
 
 fn wild() -> impl Strategy<Value = Option<f64>> {
     proptest::option::of(prop_oneof![

@@ -6,7 +6,7 @@ use turnbook::chem::{
     apparent_rate_constant, arrhenius_to_reference, cycle_metrics, ich_q3d_pde, metal_lost_g,
     metal_mol, molar_mass, option1_limit_ug_per_g, turnover_frequency, turnover_number,
 };
-use turnbook::ingest::Quantity;
+use turnbook::model::Quantity;
 
 fn close(got: f64, want: f64, rel: f64) -> bool {
     (got - want).abs() <= rel * want.abs().max(1e-300)

@@ -5,7 +5,8 @@ use std::path::Path;
 
 use turnbook::analysis;
 use turnbook::config::Config;
-use turnbook::ingest::{CycleRow, LotRow, MeasuredValue, ParsedFile, Quantity};
+use turnbook::ingest::{CycleRow, LotRow, MeasuredValue, ParsedFile};
+use turnbook::model::Quantity;
 use turnbook::store::{self, records};
 
 fn facts(name: &str) -> records::FileFacts {
@@ -52,14 +53,17 @@ fn a_lot_as_it_stood_before_a_correction() {
     let tx = conn.transaction().unwrap();
     let lot = LotRow {
         line: 2,
-        lot: "L1".into(),
-        catalyst: "5 % Pd/C".into(),
-        metal: "Pd".into(),
-        loading_wt_pct: 5.0,
-        charged_mass_g: 10.0,
-        received: None,
-        supplier_lot: None,
-        cost: None,
+        record: turnbook::model::LotRecord {
+            lot: "L1".into(),
+            catalyst: "5 % Pd/C".into(),
+            metal: "Pd".into(),
+            loading_wt_pct: 5.0,
+            charged_mass_g: 10.0,
+            received: None,
+            supplier_lot: None,
+            cost: None,
+            site: None,
+        },
     };
     records::record_parsed(&tx, &facts("lots"), &ParsedFile::Lots(vec![lot]), "qa").unwrap();
     let cycles = ParsedFile::Cycles(

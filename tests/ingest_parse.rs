@@ -1,7 +1,8 @@
 //! The parser on small hand-made exports: the values it reads and the exact position of
 //! every class of error.
 
-use turnbook::ingest::{ParseError, ParsedFile, Profile, Quantity, parse};
+use turnbook::ingest::{ParseError, ParsedFile, Profile, parse};
+use turnbook::model::Quantity;
 
 fn profile(toml: &str) -> Profile {
     match Profile::from_toml(toml) {
@@ -432,14 +433,17 @@ fn lot_sheet() {
         panic!("{parsed:?}")
     };
     assert_eq!(lots.len(), 2);
-    assert_eq!(lots[0].lot, "LOT-A7");
-    assert_eq!(lots[0].metal, "Pd");
-    assert_eq!(lots[0].loading_wt_pct, 5.0);
-    assert_eq!(lots[0].charged_mass_g, 12.5);
-    assert_eq!(lots[0].received.as_deref(), Some("2026-10-28"));
-    assert_eq!(lots[0].cost, Some(4200.0));
-    assert_eq!(lots[1].metal, "Pt", "case of the symbol is normalised");
-    assert_eq!(lots[1].supplier_lot, None);
+    assert_eq!(lots[0].record.lot, "LOT-A7");
+    assert_eq!(lots[0].record.metal, "Pd");
+    assert_eq!(lots[0].record.loading_wt_pct, 5.0);
+    assert_eq!(lots[0].record.charged_mass_g, 12.5);
+    assert_eq!(lots[0].record.received.as_deref(), Some("2026-10-28"));
+    assert_eq!(lots[0].record.cost, Some(4200.0));
+    assert_eq!(
+        lots[1].record.metal, "Pt",
+        "case of the symbol is normalised"
+    );
+    assert_eq!(lots[1].record.supplier_lot, None);
     assert_eq!(lots[1].line, 3);
 }
 

@@ -3,9 +3,9 @@
 
 use proptest::prelude::*;
 use turnbook::ingest::{
-    DecimalMark, Delimiter, Encoding, ParsedFile, Profile, Quantity, Unit, parse,
-    units::dimension_of,
+    DecimalMark, Delimiter, Encoding, ParsedFile, Profile, Unit, parse, units::dimension_of,
 };
+use turnbook::model::Quantity;
 
 const PLAIN_UTF8: &str = r#"
 kind = "cycles"

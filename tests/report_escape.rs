@@ -5,7 +5,7 @@
 mod report_fixture;
 
 use report_fixture::demo_lot;
-use turnbook::ingest::Quantity;
+use turnbook::model::Quantity;
 use turnbook::report::*;
 
 const HOSTILE: &str = "<script>alert(1)</script>";

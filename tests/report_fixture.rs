@@ -10,7 +10,7 @@
 #![allow(dead_code)]
 
 use statrs::distribution::{ContinuousCDF, StudentsT};
-use turnbook::ingest::Quantity;
+use turnbook::model::Quantity;
 use turnbook::report::*;
 
 /// Pd molar mass, g/mol (IUPAC standard atomic weight 106.42, recalled from memory).

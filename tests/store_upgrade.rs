@@ -23,10 +23,13 @@ use rusqlite::{Connection, params};
 use sha2::{Digest, Sha256};
 use tempfile::TempDir;
 
-use turnbook::audit::payload::{FileRow, LotRecord, MeasurementRow};
-use turnbook::audit::{self, GENESIS, Payload, event_hash};
-use turnbook::ingest::{CycleRow, MeasuredValue, ParsedFile, Quantity};
-use turnbook::store::view::{self, CYCLE_COLUMNS, CycleView};
+use turnbook::audit;
+use turnbook::ingest::{CycleRow, MeasuredValue, ParsedFile};
+use turnbook::model::Payload;
+use turnbook::model::Quantity;
+use turnbook::model::chain::{GENESIS, event_hash};
+use turnbook::model::cycle::{self as view, CYCLE_COLUMNS, CycleView};
+use turnbook::model::event::{FileRow, LotRecord, MeasurementRow};
 use turnbook::store::{self, migrate, records};
 
 const LOT: &str = "KV-L-01";
@@ -66,7 +69,7 @@ fn v4_body(payload: &Payload) -> String {
         }
         other => {
             let body = serde_json::to_string(other).unwrap();
-            assert_eq!(body, audit::canonical(other).unwrap());
+            assert_eq!(body, turnbook::model::chain::canonical(other).unwrap());
             body
         }
     }
@@ -307,7 +310,7 @@ fn schema_v4(conn: &mut Connection) {
         tx.execute_batch(sql).unwrap();
         tx.execute(
             "INSERT INTO schema_migrations(version, name, applied_at) VALUES (?1, ?2, ?3)",
-            params![version, name, audit::now_utc()],
+            params![version, name, turnbook::model::time::now_utc()],
         )
         .unwrap();
         tx.commit().unwrap();

@@ -6,11 +6,12 @@ use std::collections::{BTreeMap, HashMap};
 use rusqlite::{Connection, OptionalExtension};
 use serde::Serialize;
 
-use super::{GENESIS, Payload, event_hash};
-use crate::audit::payload::{FileRow, LotRecord, MeasurementRow};
+use crate::model::Payload;
+use crate::model::chain::{GENESIS, event_hash};
+use crate::model::cycle::{self as view, CYCLE_COLUMNS};
+use crate::model::event::{FileRow, LotRecord, MeasurementRow};
 use crate::store::Result;
 use crate::store::records::{all_cycles, all_lots};
-use crate::store::view::{self, CYCLE_COLUMNS};
 
 /// One discrepancy.
 #[derive(Debug, Clone, PartialEq, Serialize)]

@@ -7,7 +7,7 @@ use super::kinetics::{
     DEFAULT_SATURATION, apparent_rate_constant, arrhenius_to_reference, derived_yield,
     metal_lost_g, metal_mol, product_mol, turnover_frequency, turnover_number,
 };
-use crate::ingest::record::{LotRow, Quantity};
+use crate::model::{LotRecord, Quantity};
 
 /// What is known about a lot from its registration.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -20,8 +20,8 @@ pub struct LotFacts {
     pub charged_mass_g: f64,
 }
 
-impl From<&LotRow> for LotFacts {
-    fn from(row: &LotRow) -> LotFacts {
+impl From<&LotRecord> for LotFacts {
+    fn from(row: &LotRecord) -> LotFacts {
         LotFacts {
             metal: row.metal.clone(),
             loading_wt_pct: row.loading_wt_pct,

@@ -8,8 +8,9 @@ use super::dates::{DateLayout, DateLayouts, Read, iso_date, iso_datetime};
 use super::decode::decode;
 use super::delimited::{Record, Records};
 use super::profile::{DecimalMark, Field, FieldType, Profile, ProfileKind, UNIT_FROM_HEADER};
-use super::record::{CycleRow, LotRow, MeasuredValue, ParseError, ParsedFile, Quantity};
+use super::record::{CycleRow, LotRow, MeasuredValue, ParseError, ParsedFile};
 use super::units::{Dimension, Unit, split_header_unit};
+use crate::model::{LotRecord, Quantity};
 
 /// Longest text value (batch id, lot name...) we store; longer is a layout fault.
 pub const MAX_TEXT_CHARS: usize = 200;
@@ -533,23 +534,27 @@ impl Layout {
         };
         Ok(LotRow {
             line,
-            lot: need(lot, "lot")?,
-            catalyst: need(catalyst, "catalyst")?,
-            metal: need(metal, "metal")?,
-            loading_wt_pct: loading
-                .ok_or_else(|| err(Some(line), None, Some("loading"), "a mapped column", "none"))?,
-            charged_mass_g: charged.ok_or_else(|| {
-                err(
-                    Some(line),
-                    None,
-                    Some("charged_mass"),
-                    "a mapped column",
-                    "none",
-                )
-            })?,
-            received,
-            supplier_lot,
-            cost,
+            record: LotRecord {
+                lot: need(lot, "lot")?,
+                catalyst: need(catalyst, "catalyst")?,
+                metal: need(metal, "metal")?,
+                loading_wt_pct: loading.ok_or_else(|| {
+                    err(Some(line), None, Some("loading"), "a mapped column", "none")
+                })?,
+                charged_mass_g: charged.ok_or_else(|| {
+                    err(
+                        Some(line),
+                        None,
+                        Some("charged_mass"),
+                        "a mapped column",
+                        "none",
+                    )
+                })?,
+                received,
+                supplier_lot,
+                cost,
+                site: None,
+            },
         })
     }
 }

@@ -25,8 +25,8 @@ use std::collections::BTreeMap;
 use serde::Deserialize;
 
 use super::decode::Encoding;
-use super::record::Quantity;
 use super::units::{Dimension, Unit, dimension_of};
+use crate::model::Quantity;
 
 /// The unit value that asks the parser to read the unit from the file's header cell.
 pub const UNIT_FROM_HEADER: &str = "from-header";

@@ -3,7 +3,7 @@
 //! Kept as a closed list on purpose: an export whose unit we do not know must be refused,
 //! not guessed, because a wrong factor of 1000 in a mass silently corrupts every TON.
 
-use super::record::Quantity;
+use crate::model::Quantity;
 
 /// A unit accepted in a profile or in a file header.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

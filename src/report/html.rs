@@ -6,7 +6,7 @@
 
 use std::fmt::Write as _;
 
-use crate::ingest::Quantity;
+use crate::model::Quantity;
 
 use super::chart::{activity_svg, sparkline_svg, ton_svg};
 use super::escape::{escape_html as esc, fmt_opt, fmt_pct, fmt_sig};

@@ -6,7 +6,7 @@
 
 use serde::{Deserialize, Serialize};
 
-use crate::ingest::Quantity;
+use crate::model::Quantity;
 
 /// Everything one lot's QA report shows.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

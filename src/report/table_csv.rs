@@ -6,7 +6,7 @@
 
 use std::io::Write;
 
-use crate::ingest::Quantity;
+use crate::model::Quantity;
 
 use super::escape::defuse_csv_cell;
 use super::model::{CycleLine, LotReport};

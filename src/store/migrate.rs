@@ -85,7 +85,7 @@ fn apply_from(conn: &mut Connection, current: i64) -> Result<()> {
         }
         tx.execute(
             "INSERT INTO schema_migrations(version, name, applied_at) VALUES (?1, ?2, ?3)",
-            rusqlite::params![version, name, crate::audit::now_utc()],
+            rusqlite::params![version, name, crate::model::time::now_utc()],
         )?;
         tx.commit()?;
         tracing::info!(version, name, "schema migration applied");

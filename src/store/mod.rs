@@ -2,9 +2,9 @@
 //! that write records. Every write goes through one event of the audit chain
 //! ([`crate::audit`]) in the same transaction as the rows it describes.
 
+pub mod events;
 pub mod migrate;
 pub mod records;
-pub mod view;
 
 use std::path::Path;
 

@@ -8,11 +8,14 @@ use std::sync::LazyLock;
 use rusqlite::{OptionalExtension, Transaction, params};
 use serde::Serialize;
 
-use super::view::{self, ATTR_CYCLE_NO, ATTR_LOT, ATTR_STARTED_AT, CYCLE_COLUMNS, CycleView};
 use super::{Result, StoreError};
-use crate::audit::payload::{FileIngestedRef, FileRow, FileRowRef, LotRecord, MeasurementRow};
-use crate::audit::{self, Payload};
-use crate::ingest::{CycleRow, LotRow, ParsedFile, Quantity};
+use crate::ingest::{CycleRow, LotRow, ParsedFile};
+use crate::model::Payload;
+use crate::model::Quantity;
+use crate::model::cycle::{
+    self as view, ATTR_CYCLE_NO, ATTR_LOT, ATTR_STARTED_AT, CYCLE_COLUMNS, CycleView,
+};
+use crate::model::event::{FileIngestedRef, FileRow, FileRowRef, LotRecord, MeasurementRow};
 
 /// What the shell knows of a file before it is parsed.
 #[derive(Debug, Clone)]
@@ -54,7 +57,7 @@ pub struct FileStatements<'c> {
 impl<'c> FileStatements<'c> {
     pub fn prepare(conn: &'c rusqlite::Connection) -> Result<Self> {
         Ok(FileStatements {
-            event: conn.prepare(audit::INSERT_EVENT)?,
+            event: conn.prepare(crate::store::events::INSERT_EVENT)?,
             file: conn.prepare(INSERT_FILE)?,
             source: conn.prepare(INSERT_SOURCE)?,
             cycle_get: conn.prepare(&SELECT_CYCLE)?,
@@ -96,7 +99,7 @@ pub struct NextIds {
     measurement: Option<i64>,
     /// The measurement counter as read from the database, to see whether it moved.
     measurement_read: Option<i64>,
-    head: audit::ChainHead,
+    head: crate::store::events::ChainHead,
 }
 
 impl NextIds {
@@ -242,7 +245,7 @@ fn store_file_event(
     payload: &Payload,
     file: &FileRow,
 ) -> Result<()> {
-    let body = audit::canonical(payload)?;
+    let body = crate::model::chain::canonical(payload)?;
     let seq = append_file_event(tx, ids, facts, actor, payload.kind(), &body)?;
     insert_file(tx, file, seq)
 }
@@ -257,7 +260,7 @@ fn append_file_event(
     kind: &str,
     body: &str,
 ) -> Result<i64> {
-    audit::append_after(
+    crate::store::events::append_after(
         tx,
         &mut ids.head,
         &facts.seen_at,
@@ -346,7 +349,7 @@ pub fn measurements_up_to(
 struct WrittenValues {
     #[serde(
         default,
-        deserialize_with = "crate::audit::payload::compact_rows::deserialize"
+        deserialize_with = "crate::model::event::compact_rows::deserialize"
     )]
     measurements: Vec<MeasurementRow>,
     #[serde(default)]
@@ -623,7 +626,7 @@ pub fn record_parsed_with(
     )?;
     // serde_json writes only UTF-8.
     let body = String::from_utf8(body).map_err(|e| StoreError::Invalid(e.to_string()))?;
-    let seq = audit::append_prepared(
+    let seq = crate::store::events::append_prepared(
         tx,
         &mut st.event,
         &mut ids.head,
@@ -767,15 +770,8 @@ fn show(v: Option<f64>, t: Option<&str>) -> String {
 
 fn lot_record(row: &LotRow, site: Option<String>) -> LotRecord {
     LotRecord {
-        lot: row.lot.clone(),
-        catalyst: row.catalyst.clone(),
-        metal: row.metal.clone(),
-        loading_wt_pct: row.loading_wt_pct,
-        charged_mass_g: row.charged_mass_g,
-        received: row.received.clone(),
-        supplier_lot: row.supplier_lot.clone(),
-        cost: row.cost,
         site,
+        ..row.record.clone()
     }
 }
 
@@ -855,7 +851,7 @@ pub fn register_lot(
         lot: rec.clone(),
         reason: reason.map(str::to_string),
     };
-    let seq = audit::append(tx, at, actor, &rec.lot, &payload)?;
+    let seq = crate::store::events::append(tx, at, actor, &rec.lot, &payload)?;
     upsert_lot(tx, rec, seq)?;
     Ok(seq)
 }
@@ -906,7 +902,7 @@ pub fn correct(
         previous,
         reason: reason.to_string(),
     };
-    let seq = audit::append(tx, at, actor, batch_id, &payload)?;
+    let seq = crate::store::events::append(tx, at, actor, batch_id, &payload)?;
     store_next_measurement(tx, m.id + 1)?;
     insert_source(tx, batch_id, seq, 0, None)?;
     rows.push(m);
@@ -934,7 +930,7 @@ pub fn set_excluded(
         excluded,
         reason: reason.to_string(),
     };
-    let seq = audit::append(tx, at, actor, batch_id, &payload)?;
+    let seq = crate::store::events::append(tx, at, actor, batch_id, &payload)?;
     v.excluded = excluded;
     upsert_cycle(tx, &v)?;
     Ok(seq)
@@ -948,5 +944,5 @@ pub fn append_event(
     actor: &str,
     at: &str,
 ) -> Result<i64> {
-    audit::append(tx, at, actor, subject, payload)
+    crate::store::events::append(tx, at, actor, subject, payload)
 }

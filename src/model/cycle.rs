@@ -3,8 +3,8 @@
 
 use serde::{Deserialize, Serialize};
 
-use crate::audit::payload::MeasurementRow;
-use crate::ingest::Quantity;
+use crate::model::Quantity;
+use crate::model::event::MeasurementRow;
 
 /// One row of `cycles`.
 #[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]

@@ -1,0 +1,17 @@
+//! The shared vocabulary of the notebook: plain data and rules every layer speaks, no I/O.
+//!
+//! - [`Quantity`]: what a cycle record can hold, each in one canonical unit.
+//! - [`event`]: the payload of every audit-trail event and the rows it carries.
+//! - [`cycle`]: a cycle's current view, derived from its append-only measurements.
+//! - [`chain`]: how each event is linked to the one before it.
+//! - [`time`]: the one timestamp format of tables, messages and reports.
+
+pub mod chain;
+pub mod cycle;
+pub mod event;
+mod quantity;
+pub mod time;
+
+pub use cycle::CycleView;
+pub use event::{FileRow, LotRecord, MeasurementRow, Payload};
+pub use quantity::Quantity;

@@ -13,7 +13,7 @@ use crate::chem::{PdeTable, Route};
 use crate::config::Config;
 use crate::fit;
 use crate::model::Quantity;
-use crate::store::{Result, StoreError};
+use crate::store::Result;
 
 fn route(cfg: &Config) -> Route {
     match cfg.chemistry.route.as_str() {
@@ -148,20 +148,13 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
     })
 }
 
-fn alert_err(e: alert::AlertError) -> StoreError {
-    match e {
-        alert::AlertError::Db(e) => StoreError::Sqlite(e),
-        e => StoreError::Invalid(e.to_string()),
-    }
-}
-
 /// Evaluate the rules for a lot and queue what they raise.
 pub fn raise(tx: &Transaction<'_>, cfg: &Config, state: &LotState) -> Result<usize> {
     let Some(snap) = snapshot(cfg, state) else {
         return Ok(0);
     };
     let alerts = evaluate(&snap, &cfg.alerts);
-    alert::enqueue(tx, &alerts, &crate::model::time::now_utc()).map_err(alert_err)
+    crate::store::outbox::enqueue(tx, &alerts, &crate::model::time::now_utc())
 }
 
 /// Queue the quarantine alert (to QA) for a rejected file.
@@ -206,7 +199,7 @@ pub fn raise_quarantine(
         .into_iter()
         .filter(|a| a.rule == rules::RuleId::Quarantine && a.state == alert::AlertState::Open)
         .collect();
-    alert::enqueue(tx, &alerts, &crate::model::time::now_utc()).map_err(alert_err)
+    crate::store::outbox::enqueue(tx, &alerts, &crate::model::time::now_utc())
 }
 
 /// Messages not yet delivered.

@@ -9,8 +9,9 @@ use std::path::{Path, PathBuf};
 
 use serde::Deserialize;
 
-use crate::alert::{AlertRules, MailConfig};
+use crate::alert::AlertRules;
 use crate::ingest::Profile;
+use crate::mail::MailConfig;
 use crate::watch::WatchFolder;
 
 /// A configuration problem: which file, which key, what was expected.

@@ -120,7 +120,7 @@ pub fn run(
 
 /// Deliver the alerts, write the reports and print what the demo produced.
 pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
-    let smtp = std::env::var(crate::alert::mailer::SMTP_URL_ENV)
+    let smtp = std::env::var(crate::mail::SMTP_URL_ENV)
         .ok()
         .filter(|s| !s.trim().is_empty());
     let digest = crate::service::queue_digest(cfg)?;
@@ -129,7 +129,7 @@ pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
         .build()
         .map_err(|e| Failure::rejected(format!("cannot start the async runtime: {e}")))?;
     let mail = rt
-        .block_on(crate::alert::deliver_due(
+        .block_on(crate::mail::deliver_due(
             &cfg.database_path(),
             &cfg.resolved_mail(),
             chrono::Utc::now(),

@@ -31,6 +31,7 @@ mod demo_live;
 pub mod fit;
 pub mod fitcmd;
 pub mod ingest;
+pub mod mail;
 pub mod model;
 pub mod pipeline;
 pub mod report;

@@ -62,7 +62,7 @@ pub async fn serve(
     let mail = cfg.resolved_mail();
     let mail_shutdown = shutdown.clone();
     let mailer = tokio::spawn(async move {
-        if let Err(e) = crate::alert::run_mailer(&db, &mail, mail_shutdown).await {
+        if let Err(e) = crate::mail::run_mailer(&db, &mail, mail_shutdown).await {
             tracing::error!(error = %e, "the mailer stopped");
         }
     });
@@ -111,7 +111,7 @@ pub fn watch_command(cfg: &Config) -> CmdResult {
 pub fn mail_command(cfg: &Config) -> CmdResult {
     let rt = runtime()?;
     let report = rt
-        .block_on(crate::alert::deliver_due(
+        .block_on(crate::mail::deliver_due(
             &cfg.database_path(),
             &cfg.resolved_mail(),
             chrono::Utc::now(),
@@ -140,7 +140,8 @@ fn last_digest(
 
 /// Compose the managers' digest for the period since the last one and queue it.
 pub fn queue_digest(cfg: &Config) -> Result<String, Failure> {
-    use crate::alert::{digest, outbox};
+    use crate::alert::digest;
+    use crate::store::outbox;
     let mut conn = crate::store::open(&cfg.database_path())?;
     let now = chrono::Utc::now();
     let from = last_digest(&conn)?.unwrap_or_else(|| now - chrono::Duration::days(7));
@@ -151,9 +152,8 @@ pub fn queue_digest(cfg: &Config) -> Result<String, Failure> {
             snapshots.push(s);
         }
     }
-    let alert_err = |e: crate::alert::AlertError| Failure::rejected(format!("digest: {e}"));
-    let open = outbox::open_alerts(&conn).map_err(alert_err)?;
-    let changes = outbox::changes_since(&conn, &outbox::format_ts(from)).map_err(alert_err)?;
+    let open = outbox::open_alerts(&conn)?;
+    let changes = outbox::changes_since(&conn, &crate::model::time::format_ts(from))?;
     let period = digest::DigestPeriod { from, to: now };
     let msg = digest::compose_digest(
         &snapshots,
@@ -163,8 +163,8 @@ pub fn queue_digest(cfg: &Config) -> Result<String, Failure> {
         &cfg.alerts.recipients.managers,
     );
     let tx = conn.transaction().map_err(crate::store::StoreError::from)?;
-    let key = format!("digest|{}", outbox::format_ts(now));
-    outbox::enqueue_message(&tx, &key, &msg, &outbox::format_ts(now)).map_err(alert_err)?;
+    let key = format!("digest|{}", crate::model::time::format_ts(now));
+    outbox::enqueue_message(&tx, &key, &msg, &crate::model::time::format_ts(now))?;
     tx.commit().map_err(crate::store::StoreError::from)?;
     Ok(msg.subject)
 }

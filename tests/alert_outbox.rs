@@ -6,12 +6,14 @@ use std::path::Path;
 use chrono::{DateTime, Utc};
 use mail_parser::MessageParser;
 use rusqlite::Connection;
-use turnbook::alert::mailer::{
+use turnbook::alert::rules::{AbruptLoss, EvidenceRow, Recipients};
+use turnbook::alert::{AlertRules, LotSnapshot, evaluate};
+use turnbook::mail::deliver_due;
+use turnbook::mail::{
     Delivery, MailConfig, Security, TransportKind, parse_smtp_url, resolve_delivery,
 };
-use turnbook::alert::outbox::{changes_since, open_alerts};
-use turnbook::alert::rules::{AbruptLoss, EvidenceRow, Recipients};
-use turnbook::alert::{AlertRules, LotSnapshot, deliver_due, enqueue, evaluate};
+use turnbook::store::outbox::enqueue;
+use turnbook::store::outbox::{changes_since, open_alerts};
 
 const SCHEMA: &str = include_str!("../schema/0003_outbox.sql");
 
@@ -378,7 +380,7 @@ fn mail_config_rejects_unknown_keys() {
 fn digest_is_queued_once_per_period_and_kept_out_of_changes() {
     use turnbook::alert::compose_digest;
     use turnbook::alert::digest::DigestPeriod;
-    use turnbook::alert::outbox::enqueue_message;
+    use turnbook::store::outbox::enqueue_message;
     let dir = tempfile::tempdir().unwrap();
     let mut conn = db(&dir.path().join("t.db"));
     queue(&mut conn, &snap("L1", 0.1), "2026-12-01T06:00:00Z");
@@ -440,7 +442,7 @@ async fn run_mailer_delivers_and_stops_on_shutdown() {
     };
     let (tx, rx) = tokio::sync::watch::channel(false);
     let p2 = path.clone();
-    let task = tokio::spawn(async move { turnbook::alert::run_mailer(&p2, &cfg, rx).await });
+    let task = tokio::spawn(async move { turnbook::mail::run_mailer(&p2, &cfg, rx).await });
     let mut delivered = false;
     for _ in 0..100 {
         let n: i64 = conn

@@ -13,9 +13,11 @@ use std::process::{Child, Command, Stdio};
 use chrono::{DateTime, Duration, Utc};
 use mail_parser::MessageParser;
 use rusqlite::Connection;
-use turnbook::alert::mailer::{MailConfig, Security, TransportKind};
 use turnbook::alert::rules::{EvidenceRow, Recipients};
-use turnbook::alert::{AlertRules, LotSnapshot, deliver_due, enqueue, evaluate};
+use turnbook::alert::{AlertRules, LotSnapshot, evaluate};
+use turnbook::mail::deliver_due;
+use turnbook::mail::{MailConfig, Security, TransportKind};
+use turnbook::store::outbox::enqueue;
 
 const SCHEMA: &str = include_str!("../schema/0003_outbox.sql");
 

@@ -19,6 +19,10 @@ use super::AlertError;
 use super::rules::{Alert, AlertState, EvidenceRow};
 
 /// The cautions carried by every message.
+/// Domain of our Message-IDs; `.invalid` is reserved (RFC 2606), so it can never clash
+/// with a real host's identifiers.
+pub const MESSAGE_ID_DOMAIN: &str = "turnbook.invalid";
+
 pub const CAUTIONS: [&str; 3] = [
     "Spent catalysts can be pyrophoric: keep them wet and handle them per site procedure.",
     "Forecasts are advisory: they come from a fitted model and carry its uncertainty.",

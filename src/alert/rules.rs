@@ -7,7 +7,7 @@ use std::fmt::{self, Write as _};
 
 use serde::Deserialize;
 
-use super::digest::DigestSchedule;
+use super::schedule::DigestSchedule;
 
 /// Where a forecast of the replacement cycle stands.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

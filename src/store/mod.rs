@@ -4,11 +4,12 @@
 
 pub mod events;
 pub mod migrate;
+pub mod outbox;
 pub mod records;
 
 use std::path::Path;
 
-use rusqlite::Connection;
+pub use rusqlite::{Connection, Transaction};
 
 /// Errors of the storage layer.
 #[derive(Debug, thiserror::Error)]
@@ -29,6 +30,8 @@ pub enum StoreError {
     TooNew { found: i64, known: i64 },
     #[error("{0}")]
     Invalid(String),
+    #[error("stored {0}")]
+    Time(#[from] crate::model::time::BadTimestamp),
 }
 
 pub type Result<T> = std::result::Result<T, StoreError>;
@@ -43,6 +46,14 @@ pub fn open(path: &Path) -> Result<Connection> {
     let mut conn = Connection::open(path)?;
     configure(&conn)?;
     migrate::apply(&mut conn)?;
+    Ok(conn)
+}
+
+/// Connect to an existing database without migrating it, for a task that only reads and
+/// updates rows beside the service (the mailer).
+pub fn connect(path: &Path) -> Result<Connection> {
+    let conn = Connection::open(path)?;
+    conn.busy_timeout(std::time::Duration::from_secs(10))?;
     Ok(conn)
 }
 

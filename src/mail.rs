@@ -15,11 +15,29 @@ use chrono::{DateTime, Utc};
 use lettre::transport::smtp::authentication::Credentials;
 use lettre::transport::smtp::client::{Tls, TlsParameters};
 use lettre::{AsyncSmtpTransport, AsyncTransport, Message, Tokio1Executor};
-use rusqlite::Connection;
 use serde::Deserialize;
 
-use super::AlertError;
-use super::outbox::{PendingMessage, due_messages, mark_delivered, mark_failed};
+use crate::alert::AlertError;
+use crate::store::outbox::{PendingMessage, due_messages, mark_delivered, mark_failed};
+use crate::store::{self, Connection, StoreError};
+
+/// Errors of delivering mail.
+#[derive(Debug, thiserror::Error)]
+pub enum MailError {
+    #[error("outbox: {0}")]
+    Store(#[from] StoreError),
+    #[error(transparent)]
+    Message(#[from] AlertError),
+    #[error("mail configuration: {0}")]
+    Config(String),
+    #[error("writing {path}: {source}")]
+    Io {
+        path: std::path::PathBuf,
+        source: std::io::Error,
+    },
+    #[error("background task failed: {0}")]
+    Join(String),
+}
 
 /// Environment variable whose URL overrides the configured transport.
 pub const SMTP_URL_ENV: &str = "TURNBOOK_SMTP_URL";
@@ -124,8 +142,8 @@ pub enum Delivery {
     Smtp(SmtpTarget),
 }
 
-fn cfg_err(s: impl Into<String>) -> AlertError {
-    AlertError::Config(s.into())
+fn cfg_err(s: impl Into<String>) -> MailError {
+    MailError::Config(s.into())
 }
 
 fn is_loopback(host: &str) -> bool {
@@ -141,7 +159,7 @@ fn default_port(sec: Security) -> u16 {
     }
 }
 
-fn percent_decode(s: &str) -> Result<String, AlertError> {
+fn percent_decode(s: &str) -> Result<String, MailError> {
     let b = s.as_bytes();
     let mut out = Vec::with_capacity(b.len());
     let mut i = 0;
@@ -165,7 +183,7 @@ fn percent_decode(s: &str) -> Result<String, AlertError> {
 /// Parse `smtp://` (plain, loopback only), `smtp+starttls://` or `smtps://` URLs with an
 /// optional `user[:password]@` and `:port`. Errors never quote the URL, which may hold
 /// a password.
-pub fn parse_smtp_url(url: &str) -> Result<SmtpTarget, AlertError> {
+pub fn parse_smtp_url(url: &str) -> Result<SmtpTarget, MailError> {
     let (scheme, rest) = url
         .split_once("://")
         .ok_or_else(|| cfg_err(format!("{SMTP_URL_ENV}: expected scheme://host[:port]")))?;
@@ -221,14 +239,14 @@ pub fn parse_smtp_url(url: &str) -> Result<SmtpTarget, AlertError> {
 }
 
 /// Read the password from the configured environment variable or file.
-fn configured_password(cfg: &MailConfig) -> Result<Option<Secret>, AlertError> {
+fn configured_password(cfg: &MailConfig) -> Result<Option<Secret>, MailError> {
     if let Some(var) = &cfg.password_env {
         let v = std::env::var(var)
             .map_err(|_| cfg_err(format!("password variable {var} is not set")))?;
         return Ok(Some(Secret(v)));
     }
     if let Some(path) = &cfg.password_file {
-        let meta = std::fs::metadata(path).map_err(|e| AlertError::Io {
+        let meta = std::fs::metadata(path).map_err(|e| MailError::Io {
             path: path.clone(),
             source: e,
         })?;
@@ -246,7 +264,7 @@ fn configured_password(cfg: &MailConfig) -> Result<Option<Secret>, AlertError> {
         }
         #[cfg(not(unix))]
         let _ = meta;
-        let text = std::fs::read_to_string(path).map_err(|e| AlertError::Io {
+        let text = std::fs::read_to_string(path).map_err(|e| MailError::Io {
             path: path.clone(),
             source: e,
         })?;
@@ -259,7 +277,7 @@ fn configured_password(cfg: &MailConfig) -> Result<Option<Secret>, AlertError> {
 
 /// Resolve the delivery target: `env_url` (the value of [`SMTP_URL_ENV`]) wins over the
 /// configured transport; plain SMTP is refused unless the host is a loopback address.
-pub fn resolve_delivery(cfg: &MailConfig, env_url: Option<&str>) -> Result<Delivery, AlertError> {
+pub fn resolve_delivery(cfg: &MailConfig, env_url: Option<&str>) -> Result<Delivery, MailError> {
     let mut target = match env_url.filter(|u| !u.trim().is_empty()) {
         Some(url) => parse_smtp_url(url.trim())?,
         None => match cfg.transport {
@@ -314,7 +332,7 @@ pub struct DeliveryReport {
 fn build_smtp(
     t: &SmtpTarget,
     timeout: Duration,
-) -> Result<AsyncSmtpTransport<Tokio1Executor>, AlertError> {
+) -> Result<AsyncSmtpTransport<Tokio1Executor>, MailError> {
     let tls = |host: &str| {
         TlsParameters::new(host.to_string()).map_err(|e| cfg_err(format!("TLS setup: {e}")))
     };
@@ -357,10 +375,10 @@ fn eml_name(p: &PendingMessage) -> String {
 }
 
 /// Write atomically (temporary file, then rename) so a reader never sees half a message.
-fn write_eml(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf, AlertError> {
+fn write_eml(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf, MailError> {
     let io = |path: &Path| {
         let path = path.to_path_buf();
-        move |e| AlertError::Io { path, source: e }
+        move |e| MailError::Io { path, source: e }
     };
     std::fs::create_dir_all(dir).map_err(io(dir))?;
     let tmp = dir.join(format!(".{name}.tmp"));
@@ -371,19 +389,18 @@ fn write_eml(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf, AlertError
 }
 
 /// Run a database step on the blocking pool with its own connection.
-async fn with_db<T, F>(path: &Path, f: F) -> Result<T, AlertError>
+async fn with_db<T, F>(path: &Path, f: F) -> Result<T, MailError>
 where
     T: Send + 'static,
-    F: FnOnce(&Connection) -> Result<T, AlertError> + Send + 'static,
+    F: FnOnce(&Connection) -> Result<T, StoreError> + Send + 'static,
 {
     let path = path.to_path_buf();
     tokio::task::spawn_blocking(move || {
-        let conn = Connection::open(&path)?;
-        conn.busy_timeout(Duration::from_secs(10))?;
-        f(&conn)
+        let conn = store::connect(&path)?;
+        Ok(f(&conn)?)
     })
     .await
-    .map_err(|e| AlertError::Join(e.to_string()))?
+    .map_err(|e| MailError::Join(e.to_string()))?
 }
 
 enum Outcome {
@@ -427,7 +444,7 @@ pub async fn deliver_due(
     conn_path: &Path,
     cfg: &MailConfig,
     now: DateTime<Utc>,
-) -> Result<DeliveryReport, AlertError> {
+) -> Result<DeliveryReport, MailError> {
     let env_url = std::env::var(SMTP_URL_ENV).ok();
     let delivery = resolve_delivery(cfg, env_url.as_deref())?;
     let batch = cfg.batch.max(1);
@@ -488,7 +505,7 @@ pub async fn run_mailer(
     db_path: &Path,
     cfg: &MailConfig,
     mut shutdown: tokio::sync::watch::Receiver<bool>,
-) -> Result<(), AlertError> {
+) -> Result<(), MailError> {
     // Validate once up front so a bad configuration stops the service clearly.
     resolve_delivery(cfg, std::env::var(SMTP_URL_ENV).ok().as_deref())?;
     let poll = Duration::from_secs(cfg.poll_seconds.max(1));

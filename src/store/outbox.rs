@@ -5,62 +5,20 @@
 //! open/cleared verdicts into messages: a new opening, a rise in severity ("worse") and a
 //! clearing each queue one message, a repeat of the same verdict queues nothing.
 
-use std::time::Duration;
-
-use chrono::{DateTime, SecondsFormat, Utc};
+use chrono::{DateTime, Utc};
 use rusqlite::{Connection, OptionalExtension, Transaction, params};
-use sha2::{Digest, Sha256};
 
-use super::AlertError;
-use super::compose::{ComposedMessage, compose_alert};
-use super::digest::{AlertChange, OpenAlert};
-use super::rules::{Alert, AlertState, Severity};
+use super::{Result, StoreError};
+use crate::alert::digest::{AlertChange, OpenAlert};
+use crate::alert::lifecycle::{Condition, backoff, decide, message_id_for};
+use crate::alert::{Alert, AlertState, ComposedMessage, Severity, compose_alert};
+use crate::model::time::{format_ts, parse_ts};
 
-/// Domain of our Message-IDs; `.invalid` is reserved (RFC 2606), so it can never clash
-/// with a real host's identifiers.
-pub const MESSAGE_ID_DOMAIN: &str = "turnbook.invalid";
-
-/// Timestamps are stored as RFC 3339 UTC with milliseconds, so text order is time order.
-pub fn format_ts(t: DateTime<Utc>) -> String {
-    t.to_rfc3339_opts(SecondsFormat::Millis, true)
+fn corrupt(id: i64, what: String) -> StoreError {
+    StoreError::Invalid(format!("stored outbox row {id} is damaged: {what}"))
 }
 
-/// Parse an RFC 3339 timestamp (any offset) to UTC.
-pub fn parse_ts(s: &str) -> Result<DateTime<Utc>, AlertError> {
-    DateTime::parse_from_rfc3339(s)
-        .map(|t| t.with_timezone(&Utc))
-        .map_err(|_| AlertError::Time(s.chars().take(64).collect()))
-}
-
-/// A Message-ID fixed by what the message says, so a resend after a crash carries the
-/// same identifier and receivers can drop the duplicate.
-pub fn message_id_for(key: &str, episode: i64, state: AlertState, severity: Severity) -> String {
-    let mut h = Sha256::new();
-    h.update(key.as_bytes());
-    h.update([0]);
-    h.update(episode.to_le_bytes());
-    h.update(state.as_str().as_bytes());
-    h.update([severity as u8]);
-    let hexed = hex::encode(h.finalize());
-    format!("<{}.alert@{MESSAGE_ID_DOMAIN}>", &hexed[..32])
-}
-
-/// Delay before the next attempt after `attempts` failures: 30 s doubling, capped at 1 h.
-pub fn backoff(attempts: u32) -> Duration {
-    const BASE: u64 = 30;
-    const CAP: u64 = 3600;
-    let exp = attempts.saturating_sub(1).min(20);
-    Duration::from_secs(BASE.saturating_mul(1u64 << exp).min(CAP))
-}
-
-struct Condition {
-    state: AlertState,
-    severity: Severity,
-    episode: i64,
-    thread: String,
-}
-
-fn load_condition(tx: &Transaction, key: &str) -> Result<Option<Condition>, AlertError> {
+fn load_condition(tx: &Transaction, key: &str) -> Result<Option<Condition>> {
     let row = tx
         .query_row(
             "SELECT state, severity, episode, thread_message_id FROM alert_condition \
@@ -79,10 +37,7 @@ fn load_condition(tx: &Transaction, key: &str) -> Result<Option<Condition>, Aler
     let Some((state, sev, episode, thread)) = row else {
         return Ok(None);
     };
-    let corrupt = |what: &str| AlertError::Corrupt {
-        id: episode,
-        what: format!("alert_condition {key:?}: {what}"),
-    };
+    let corrupt = |what: &str| corrupt(episode, format!("alert_condition {key:?}: {what}"));
     Ok(Some(Condition {
         state: AlertState::parse(&state).ok_or_else(|| corrupt("state"))?,
         severity: Severity::from_level(sev).ok_or_else(|| corrupt("severity"))?,
@@ -91,28 +46,11 @@ fn load_condition(tx: &Transaction, key: &str) -> Result<Option<Condition>, Aler
     }))
 }
 
-/// What to do with one alert given the stored condition: (state to send, episode,
-/// severity to remember), or None when nothing changes.
-fn decide(alert: &Alert, prev: Option<&Condition>) -> Option<(AlertState, i64, Severity)> {
-    let active = |c: &Condition| c.state != AlertState::Cleared;
-    match (alert.state, prev) {
-        (AlertState::Cleared, Some(c)) if active(c) => {
-            Some((AlertState::Cleared, c.episode, c.severity))
-        }
-        (AlertState::Cleared, _) => None,
-        (_, Some(c)) if active(c) => {
-            (alert.severity > c.severity).then_some((AlertState::Worse, c.episode, alert.severity))
-        }
-        (_, Some(c)) => Some((AlertState::Open, c.episode + 1, alert.severity)),
-        (_, None) => Some((AlertState::Open, 1, alert.severity)),
-    }
-}
-
 /// Queue the messages these alerts call for, inside the caller's transaction.
 ///
 /// Returns how many outbox rows were written. An alert without recipients is still
 /// recorded (so the history shows it was raised) but held: it is never attempted.
-pub fn enqueue(tx: &Transaction, alerts: &[Alert], now: &str) -> Result<usize, AlertError> {
+pub fn enqueue(tx: &Transaction, alerts: &[Alert], now: &str) -> Result<usize> {
     let now = format_ts(parse_ts(now)?);
     let mut queued = 0;
     for alert in alerts {
@@ -177,9 +115,8 @@ fn insert_message(
     severity: Severity,
     msg: &ComposedMessage,
     now: &str,
-) -> Result<usize, AlertError> {
-    let recipients =
-        serde_json::to_string(&msg.recipients).map_err(|e| AlertError::Build(e.to_string()))?;
+) -> Result<usize> {
+    let recipients = serde_json::to_string(&msg.recipients)?;
     let (next, err) = if msg.recipients.is_empty() {
         tracing::warn!(key, "alert has no recipients configured; recorded but held");
         (None, Some("held: no recipients configured"))
@@ -219,7 +156,7 @@ pub fn enqueue_message(
     key: &str,
     msg: &ComposedMessage,
     now: &str,
-) -> Result<usize, AlertError> {
+) -> Result<usize> {
     let now = format_ts(parse_ts(now)?);
     insert_message(
         tx,
@@ -250,7 +187,7 @@ pub fn due_messages(
     conn: &Connection,
     now: DateTime<Utc>,
     limit: usize,
-) -> Result<Vec<PendingMessage>, AlertError> {
+) -> Result<Vec<PendingMessage>> {
     let mut st = conn.prepare(
         "SELECT id, message_id, in_reply_to, subject, body_text, body_html, recipients, \
                 queued_at, attempts, rule, lot \
@@ -278,14 +215,8 @@ pub fn due_messages(
     for row in rows {
         let (id, mid, irt, subject, text, html, rcpt, queued, attempts, rule, lot) = row?;
         let recipients: Vec<String> =
-            serde_json::from_str(&rcpt).map_err(|e| AlertError::Corrupt {
-                id,
-                what: format!("recipients: {e}"),
-            })?;
-        let queued_at = parse_ts(&queued).map_err(|_| AlertError::Corrupt {
-            id,
-            what: "queued_at".into(),
-        })?;
+            serde_json::from_str(&rcpt).map_err(|e| corrupt(id, format!("recipients: {e}")))?;
+        let queued_at = parse_ts(&queued).map_err(|_| corrupt(id, "queued_at".into()))?;
         out.push(PendingMessage {
             id,
             message: ComposedMessage {
@@ -306,12 +237,7 @@ pub fn due_messages(
 }
 
 /// Record a successful hand-over with the server's reply.
-pub fn mark_delivered(
-    conn: &Connection,
-    id: i64,
-    now: DateTime<Utc>,
-    reply: &str,
-) -> Result<(), AlertError> {
+pub fn mark_delivered(conn: &Connection, id: i64, now: DateTime<Utc>, reply: &str) -> Result<()> {
     conn.execute(
         "UPDATE alert_outbox SET delivered_at = ?2, server_reply = ?3, next_attempt_at = NULL, \
            attempts = attempts + 1, last_error = NULL WHERE id = ?1 AND delivered_at IS NULL",
@@ -328,7 +254,7 @@ pub fn mark_failed(
     attempts_before: u32,
     now: DateTime<Utc>,
     error: &str,
-) -> Result<DateTime<Utc>, AlertError> {
+) -> Result<DateTime<Utc>> {
     let attempts = attempts_before.saturating_add(1);
     let delay = chrono::Duration::from_std(backoff(attempts))
         .unwrap_or_else(|_| chrono::Duration::hours(1));
@@ -341,18 +267,18 @@ pub fn mark_failed(
     Ok(next)
 }
 
-fn parse_state(key: &str, state: &str, sev: i64) -> Result<(AlertState, Severity), AlertError> {
+fn parse_state(key: &str, state: &str, sev: i64) -> Result<(AlertState, Severity)> {
     match (AlertState::parse(state), Severity::from_level(sev)) {
         (Some(st), Some(sv)) => Ok((st, sv)),
-        _ => Err(AlertError::Corrupt {
-            id: 0,
-            what: format!("alert {key:?}: state {state:?} / severity {sev}"),
-        }),
+        _ => Err(corrupt(
+            0,
+            format!("alert {key:?}: state {state:?} / severity {sev}"),
+        )),
     }
 }
 
 /// Alerts whose condition is currently open or worse, most severe first.
-pub fn open_alerts(conn: &Connection) -> Result<Vec<OpenAlert>, AlertError> {
+pub fn open_alerts(conn: &Connection) -> Result<Vec<OpenAlert>> {
     let mut st = conn.prepare(
         "SELECT c.alert_key, c.rule, c.lot, c.state, c.severity, c.changed_at, \
                 COALESCE((SELECT o.subject FROM alert_outbox o WHERE o.alert_key = c.alert_key \
@@ -389,7 +315,7 @@ pub fn open_alerts(conn: &Connection) -> Result<Vec<OpenAlert>, AlertError> {
 }
 
 /// Alert messages queued at or after `since` (digests excluded), oldest first.
-pub fn changes_since(conn: &Connection, since: &str) -> Result<Vec<AlertChange>, AlertError> {
+pub fn changes_since(conn: &Connection, since: &str) -> Result<Vec<AlertChange>> {
     let since = format_ts(parse_ts(since)?);
     let mut st = conn.prepare(
         "SELECT queued_at, alert_key, lot, state, severity, subject FROM alert_outbox \
@@ -419,42 +345,4 @@ pub fn changes_since(conn: &Connection, since: &str) -> Result<Vec<AlertChange>,
         });
     }
     Ok(out)
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn backoff_doubles_from_30s_and_caps_at_one_hour() {
-        let secs: Vec<u64> = (1..=9).map(|a| backoff(a).as_secs()).collect();
-        assert_eq!(secs, [30, 60, 120, 240, 480, 960, 1920, 3600, 3600]);
-        assert_eq!(backoff(0).as_secs(), 30);
-        assert_eq!(backoff(u32::MAX).as_secs(), 3600);
-    }
-
-    #[test]
-    fn message_id_is_stable_and_distinct() {
-        let a = message_id_for("k", 1, AlertState::Open, Severity::Warning);
-        assert_eq!(
-            a,
-            message_id_for("k", 1, AlertState::Open, Severity::Warning)
-        );
-        assert_ne!(
-            a,
-            message_id_for("k", 2, AlertState::Open, Severity::Warning)
-        );
-        assert_ne!(
-            a,
-            message_id_for("k", 1, AlertState::Worse, Severity::Warning)
-        );
-        assert!(a.starts_with('<') && a.ends_with("@turnbook.invalid>"));
-    }
-
-    #[test]
-    fn timestamps_normalise_to_utc_millis() {
-        let t = parse_ts("2026-12-01T10:00:00+02:00").unwrap();
-        assert_eq!(format_ts(t), "2026-12-01T08:00:00.000Z");
-        assert!(parse_ts("yesterday").is_err());
-    }
 }

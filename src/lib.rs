@@ -1,42 +1,31 @@
 //! turnbook: a lab notebook that keeps itself, for catalysts reused over many batches.
 //!
-//! The crate is a functional core with a thin shell:
+//! Layers, each using only those below it:
 //!
-//! - [`chem`]: TON, TOF, apparent rate constants, activity, Arrhenius, metal leaching. Pure.
-//! - [`fit`]: least-squares engine, deactivation models, AICc choice, forecasts. Pure.
-//! - [`ingest`]: decoding export files and reading them through export profiles. Pure.
-//! - [`alert`]: alert rules (pure), the durable outbox and the mailer.
-//! - [`alerting`]: from a lot's state to the alert rules and the outbox.
-//! - [`report`]: self-contained HTML, CSV and SVG reports.
-//! - [`config`]: the TOML configuration and its validation.
-//! - [`store`]: SQLite schema migrations, queries and transactions.
-//! - [`audit`]: the hash chain over the event log and its verification.
-//! - [`analysis`]: lot metrics, fits and alerts recomputed when records change.
-//! - [`pipeline`]: one file from bytes to committed records (hash, parse, merge, store).
-//! - [`service`]: the long-running watcher and mailer around the pipeline.
+//! - [`cli`]: the command line, the only code that prints or decides exit statuses.
+//! - [`notebook`]: the application: ingestion, lot state, entries, history, reports, the
+//!   service. Does the work and returns data.
 //! - [`watch`]: folder events, polling, settling and start-up catch-up.
-//! - [`views`]: status, history and sign-off fingerprints for people and scripts.
-//! - [`demo`]: the invented demonstration plant.
-//! - [`commands`]: the command-line verbs, called by `main.rs`.
+//! - [`mail`]: delivery of the outbox by SMTP or to `.eml` files.
+//! - [`audit`]: verification of the audit trail against every stored record.
+//! - [`store`]: all SQL: opening, migrations, writes, queries, the outbox.
+//! - [`config`]: the TOML configuration and its validation.
+//! - [`chem`], [`fit`], [`ingest`], [`report`], [`alert`]: the pure core: chemistry,
+//!   deactivation fits and forecasts, reading exports, rendering reports, alert rules and
+//!   messages. No I/O, no clock, no database.
+//! - [`model`]: the shared vocabulary: quantities, event payloads, a cycle's view, the
+//!   chain's link rule, timestamps.
 
 pub mod alert;
-pub mod alerting;
-pub mod analysis;
 pub mod audit;
 pub mod chem;
-pub mod commands;
+pub mod cli;
 pub mod config;
-pub mod demo;
-mod demo_live;
 pub mod fit;
-pub mod fitcmd;
 pub mod ingest;
 pub mod mail;
 pub mod model;
-pub mod pipeline;
+pub mod notebook;
 pub mod report;
-pub mod reportcmd;
-pub mod service;
 pub mod store;
-pub mod views;
 pub mod watch;

@@ -7,9 +7,9 @@ use clap::Parser;
 fn main() -> ExitCode {
     restore_default_sigpipe();
     turnbook::store::configure_library();
-    let cli = turnbook::commands::Cli::parse();
-    turnbook::commands::init_logging(cli.log_json, cli.command.is_service());
-    turnbook::commands::run(cli)
+    let cli = turnbook::cli::Cli::parse();
+    turnbook::cli::init_logging(cli.log_json, cli.command.is_service());
+    turnbook::cli::run(cli)
 }
 
 /// Rust ignores SIGPIPE, so printing into a closed pipe (`turnbook lots | head`) would

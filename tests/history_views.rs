@@ -3,10 +3,10 @@
 
 use std::path::Path;
 
-use turnbook::analysis;
 use turnbook::config::Config;
 use turnbook::ingest::{CycleRow, LotRow, MeasuredValue, ParsedFile};
 use turnbook::model::Quantity;
+use turnbook::notebook::lots;
 use turnbook::store::{self, records};
 
 fn facts(name: &str) -> records::FileFacts {
@@ -86,9 +86,9 @@ fn a_lot_as_it_stood_before_a_correction() {
     tx.commit().unwrap();
     assert!(seq > before);
 
-    let now = analysis::lot_state(&conn, &cfg, "L1").unwrap();
-    let then = analysis::lot_state_as_of(&conn, &cfg, "L1", Some(before)).unwrap();
-    let conv = |s: &analysis::LotState, n: usize| s.cycles[n].view.get(Quantity::Conversion);
+    let now = lots::lot_state(&conn, &cfg, "L1").unwrap();
+    let then = lots::lot_state_as_of(&conn, &cfg, "L1", Some(before)).unwrap();
+    let conv = |s: &lots::LotState, n: usize| s.cycles[n].view.get(Quantity::Conversion);
     assert_eq!(conv(&now, 1), Some(0.5));
     assert_eq!(conv(&then, 1), Some(0.8));
     assert_eq!(now.cycles.len(), 4);
@@ -101,7 +101,7 @@ fn a_lot_as_it_stood_before_a_correction() {
         .unwrap();
     assert!((k - std::f64::consts::LN_2).abs() < 1e-12, "{k}");
     // Before any cycle was stored, the lot had a registration and no cycles.
-    let first = analysis::lot_state_as_of(&conn, &cfg, "L1", Some(1)).unwrap();
+    let first = lots::lot_state_as_of(&conn, &cfg, "L1", Some(1)).unwrap();
     assert!(first.record.is_some());
     assert!(first.cycles.is_empty());
 }

@@ -8,7 +8,7 @@
 use std::path::{Path, PathBuf};
 
 use turnbook::config::Config;
-use turnbook::pipeline::{FileOutcome, Ingestor};
+use turnbook::notebook::ingestion::{FileOutcome, Ingestor};
 
 mod common;
 

@@ -1,5 +1,5 @@
 //! After a backfill, each touched lot's stored fit records the newest event that wrote
-//! records of the lot, exactly as looked up in the database (`analysis::newest_seq_of`),
+//! records of the lot, exactly as looked up in the database (`store::lots::newest_seq_of`),
 //! though the backfill takes it from the events it wrote: also when a batch gets its lot
 //! only from a later file, when the groups split the files, when records existed before
 //! the run, and when a file of one group touches a lot again in a later one.
@@ -10,7 +10,7 @@
 use std::path::{Path, PathBuf};
 
 use turnbook::config::Config;
-use turnbook::pipeline::Ingestor;
+use turnbook::notebook::ingestion::Ingestor;
 
 fn config(root: &Path, group: usize) -> Config {
     let text = format!(
@@ -78,7 +78,7 @@ fn fitted_against_newest(ing: &Ingestor) -> Vec<(String, i64, i64)> {
         .unwrap();
     fits.into_iter()
         .map(|(lot, after)| {
-            let newest = turnbook::analysis::newest_seq_of(conn, &lot).unwrap();
+            let newest = turnbook::store::lots::newest_seq_of(conn, &lot).unwrap();
             (lot, after, newest)
         })
         .collect()
@@ -126,7 +126,7 @@ fn a_backfill_records_each_lot_up_to_its_newest_event() {
         drop(ing);
         // Opened again, nothing is stale: no lot is recomputed.
         let mut conn = turnbook::store::open(&cfg.database_path()).unwrap();
-        let healed = turnbook::analysis::recompute_stale(&mut conn, &cfg, "qa").unwrap();
+        let healed = turnbook::notebook::lots::recompute_stale(&mut conn, &cfg, "qa").unwrap();
         assert_eq!(healed, 0, "group {group}");
     }
 }

@@ -9,6 +9,7 @@
 pub mod elements;
 pub mod kinetics;
 pub mod limits;
+pub mod lot_check;
 pub mod metrics;
 
 pub use elements::{METALS, molar_mass};
@@ -18,4 +19,5 @@ pub use kinetics::{
     turnover_frequency, turnover_number,
 };
 pub use limits::{OPTION1_DAILY_DOSE_G, Pde, PdeTable, Route, ich_q3d_pde, option1_limit_ug_per_g};
+pub use lot_check::{LotField, LotProblem, check_lot};
 pub use metrics::{ChargeSource, ChemOptions, CycleInput, CycleMetrics, LotFacts, cycle_metrics};

@@ -532,7 +532,7 @@ impl Layout {
         let need = |v: Option<String>, key: &str| {
             v.ok_or_else(|| err(Some(line), None, Some(key), "a mapped column", "none"))
         };
-        Ok(LotRow {
+        let row = LotRow {
             line,
             record: LotRecord {
                 lot: need(lot, "lot")?,
@@ -555,7 +555,19 @@ impl Layout {
                 cost,
                 site: None,
             },
-        })
+        };
+        // The cells were checked one by one above; the registration as a whole meets the
+        // same rules as one made on the command line.
+        crate::chem::check_lot(&row.record).map_err(|p| {
+            err(
+                Some(line),
+                None,
+                Some(p.field.key()),
+                &p.expected,
+                "a value outside that",
+            )
+        })?;
+        Ok(row)
     }
 }
 

@@ -1,7 +1,7 @@
 //! What a parsed export file holds, in canonical units, before it is merged into cycles.
 //!
 //! This is the contract between the pure parser ([`crate::ingest`]) and the shell that
-//! stores records ([`crate::pipeline`]). Every value keeps the line and column it came
+//! stores records ([`crate::notebook::ingestion`]). Every value keeps the line and column it came
 //! from so that provenance survives into the database.
 
 use serde::{Deserialize, Serialize};

@@ -3,8 +3,10 @@
 //! ([`crate::audit`]) in the same transaction as the rows it describes.
 
 pub mod events;
+pub mod lots;
 pub mod migrate;
 pub mod outbox;
+pub mod queries;
 pub mod records;
 
 use std::path::Path;
@@ -47,6 +49,12 @@ pub fn open(path: &Path) -> Result<Connection> {
     configure(&conn)?;
     migrate::apply(&mut conn)?;
     Ok(conn)
+}
+
+/// Begin a transaction that takes the write lock at once, so a unit of work never fails
+/// half-way on a lock another writer took after it read.
+pub fn immediate(conn: &mut Connection) -> Result<Transaction<'_>> {
+    Ok(conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?)
 }
 
 /// Connect to an existing database without migrating it, for a task that only reads and

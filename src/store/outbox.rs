@@ -346,3 +346,60 @@ pub fn changes_since(conn: &Connection, since: &str) -> Result<Vec<AlertChange>>
     }
     Ok(out)
 }
+
+/// Messages not yet delivered.
+pub fn waiting(conn: &Connection) -> Result<i64> {
+    Ok(conn.query_row(
+        "SELECT COUNT(*) FROM alert_outbox WHERE delivered_at IS NULL",
+        [],
+        |r| r.get(0),
+    )?)
+}
+
+/// When the newest digest was queued.
+pub fn last_digest(conn: &Connection) -> Result<Option<DateTime<Utc>>> {
+    let last: Option<String> = conn.query_row(
+        "SELECT MAX(queued_at) FROM alert_outbox WHERE rule = 'digest'",
+        [],
+        |r| r.get(0),
+    )?;
+    Ok(last.and_then(|s| parse_ts(&s).ok()))
+}
+
+/// One message of a lot's alerts, and whether its condition is still open.
+#[derive(Debug, Clone)]
+pub struct LotAlertRow {
+    pub queued_at: String,
+    pub rule: String,
+    pub subject: String,
+    pub open: bool,
+}
+
+/// Every alert message of a lot, oldest first.
+pub fn alerts_of_lot(conn: &Connection, lot: &str) -> Result<Vec<LotAlertRow>> {
+    let mut stmt = conn.prepare(
+        "SELECT o.queued_at, o.rule, o.subject, COALESCE(c.state, o.state) != 'cleared'
+         FROM alert_outbox o LEFT JOIN alert_condition c ON c.alert_key = o.alert_key
+         WHERE o.lot = ?1 ORDER BY o.id",
+    )?;
+    let rows = stmt
+        .query_map([lot], |r| {
+            Ok(LotAlertRow {
+                queued_at: r.get(0)?,
+                rule: r.get(1)?,
+                subject: r.get(2)?,
+                open: r.get(3)?,
+            })
+        })?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
+}
+
+/// How many alert conditions of a lot are open.
+pub fn open_count(conn: &Connection, lot: &str) -> Result<u32> {
+    Ok(conn.query_row(
+        "SELECT COUNT(*) FROM alert_condition WHERE lot = ?1 AND state != 'cleared'",
+        [lot],
+        |r| r.get(0),
+    )?)
+}

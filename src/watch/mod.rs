@@ -32,8 +32,8 @@
 mod error;
 mod events;
 mod folder;
+mod runner;
 mod scan;
-mod service;
 mod settle;
 mod shutdown;
 mod slow;
@@ -44,7 +44,7 @@ pub use error::WatchError;
 pub use folder::{
     MAX_POLL_INTERVAL_S, MAX_SETTLE_MS, MIN_SETTLE_MS, WatchFolder, WatchMode, default_ignore,
 };
-pub use service::{RETRY_FIRST, RETRY_MAX, SHUTDOWN_GRACE, run};
+pub use runner::{RETRY_FIRST, RETRY_MAX, SHUTDOWN_GRACE, run};
 pub use settle::{CLOSE_RECHECK, SettleTracker, Signal, Stamp, Verdict};
 pub use shutdown::{shutdown_receiver, shutdown_signal};
 pub use slow::write_slowly;

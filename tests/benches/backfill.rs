@@ -14,7 +14,7 @@ use std::time::Instant;
 use sha2::{Digest, Sha256};
 
 use turnbook::config::Config;
-use turnbook::pipeline::{self, Ingestor};
+use turnbook::notebook::ingestion::{self, Ingestor};
 
 const LOTS: usize = 5;
 
@@ -145,7 +145,7 @@ fn main() {
     );
 
     let mut files: Vec<PathBuf> = Vec::new();
-    pipeline::collect_files(&exports, &mut files).expect("list the files");
+    ingestion::collect_files(&exports, &mut files).expect("list the files");
     assert_eq!(files.len(), n);
     // Warm the page cache: read every file once.
     let mut bytes = 0usize;

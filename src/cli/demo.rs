@@ -11,7 +11,7 @@
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
-use crate::commands::{CmdResult, Failure};
+use crate::cli::{CmdResult, Failure};
 
 /// A seeded SplitMix64 generator with Box–Muller normals: small, and the same numbers on
 /// every platform and crate version (demo data only).
@@ -171,7 +171,7 @@ pub fn batches() -> Vec<DemoBatch> {
 
 /// The complete, commented configuration the demo writes.
 pub fn config_text() -> String {
-    include_str!("../deploy/turnbook.example.toml")
+    include_str!("../../deploy/turnbook.example.toml")
         .replace("/var/lib/turnbook/turnbook.db", "turnbook.db")
         .replace("/var/lib/turnbook/quarantine", "quarantine")
         .replace("/var/lib/turnbook/outbox", "outbox")
@@ -316,14 +316,13 @@ pub fn run(dir: &Path, live: bool) -> CmdResult {
     )?;
 
     let cfg_path = dir.join("turnbook.toml");
-    let cfg = crate::config::Config::load(&cfg_path)?;
+    let cfg =
+        crate::config::Config::load(&cfg_path).map_err(crate::notebook::NotebookError::from)?;
     println!("turnbook demo: an invented plant in {}", dir.display());
     println!("  configuration  {}", cfg_path.display());
     println!("  exports        {}", dir.join("exports").display());
-    let mut files = Vec::new();
-    crate::pipeline::collect_files(&dir.join("exports"), &mut files)?;
-    let mut ing = crate::pipeline::Ingestor::open(cfg.clone())?;
-    let summary = ing.ingest_paths(&files, |_| {})?;
+    let files = crate::notebook::ingestion::files_under(&cfg, &[dir.join("exports")], None)?;
+    let summary = crate::notebook::ingestion::ingest_files(cfg.clone(), &files, None, |_| {})?;
     println!(
         "  backfill       {} files: {} ingested, {} duplicates, {} rejected",
         files.len(),
@@ -334,14 +333,13 @@ pub fn run(dir: &Path, live: bool) -> CmdResult {
     for e in &summary.errors {
         println!("  rejected       {e}");
     }
-    drop(ing);
     if live && !later.is_empty() {
-        crate::demo_live::run(
+        crate::cli::demo_live::run(
             dir,
             &cfg,
             &later.iter().map(|b| batch_files(b)).collect::<Vec<_>>(),
             &icp_file(&later),
         )?;
     }
-    crate::demo_live::finish(dir, &cfg)
+    crate::cli::demo_live::finish(dir, &cfg)
 }

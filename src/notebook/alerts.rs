@@ -2,17 +2,17 @@
 //! the rules' [`LotSnapshot`] from stored records and the fit, and queues what the rules
 //! raise in the caller's transaction (the same one as the records that raised it).
 
-use rusqlite::{Connection, Transaction};
+use crate::store::Transaction;
 
 use crate::alert::rules::{
     self, EvidenceRow, LimitSource, LotSnapshot, MetalInProduct, QuarantinedFile,
 };
 use crate::alert::{self, evaluate};
-use crate::analysis::LotState;
 use crate::chem::{PdeTable, Route};
 use crate::config::Config;
 use crate::fit;
 use crate::model::Quantity;
+use crate::notebook::lots::LotState;
 use crate::store::Result;
 
 fn route(cfg: &Config) -> Route {
@@ -200,13 +200,4 @@ pub fn raise_quarantine(
         .filter(|a| a.rule == rules::RuleId::Quarantine && a.state == alert::AlertState::Open)
         .collect();
     crate::store::outbox::enqueue(tx, &alerts, &crate::model::time::now_utc())
-}
-
-/// Messages not yet delivered.
-pub fn outbox_waiting(conn: &Connection) -> Result<i64> {
-    Ok(conn.query_row(
-        "SELECT COUNT(*) FROM alert_outbox WHERE delivered_at IS NULL",
-        [],
-        |r| r.get(0),
-    )?)
 }

@@ -1,17 +1,17 @@
-//! `turnbook report`: fill the report's plain data from the store, the fit and the audit
+//! Reports: fill the report's plain data from the store, the fit and the audit
 //! chain, and write the self-contained HTML (and CSV) files.
 
 use std::path::Path;
 
-use rusqlite::Connection;
-
-use crate::analysis::{LotState, lot_state};
-use crate::commands::{CmdResult, Failure};
+use super::error::{NotebookError, Result};
+use super::history::HistoryEntry;
+use super::lots::{LotState, lot_state, no_such_lot};
 use crate::config::Config;
 use crate::fit;
 use crate::model::Quantity;
+use crate::model::time::now_utc;
 use crate::report::{self, LotReport};
-use crate::store;
+use crate::store::{self, Connection};
 
 fn report_forecast(f: &fit::Forecast) -> report::Forecast {
     report::Forecast {
@@ -100,34 +100,50 @@ fn fit_summary(cfg: &Config, a: &fit::LotAnalysis) -> Option<report::FitSummary>
 }
 
 fn alerts_of(conn: &Connection, lot: &str) -> store::Result<Vec<report::AlertLine>> {
-    let mut stmt = conn.prepare(
-        "SELECT o.queued_at, o.rule, o.subject, COALESCE(c.state, o.state) != 'cleared'
-         FROM alert_outbox o LEFT JOIN alert_condition c ON c.alert_key = o.alert_key
-         WHERE o.lot = ?1 ORDER BY o.id",
-    )?;
-    let rows = stmt
-        .query_map([lot], |r| {
-            Ok(report::AlertLine {
-                raised_at: r.get(0)?,
-                rule: r.get(1)?,
-                subject: r.get(2)?,
-                open: r.get(3)?,
-            })
-        })?
-        .collect::<Result<Vec<_>, _>>()?;
-    Ok(rows)
+    Ok(store::outbox::alerts_of_lot(conn, lot)?
+        .into_iter()
+        .map(|a| report::AlertLine {
+            raised_at: a.queued_at,
+            rule: a.rule,
+            subject: a.subject,
+            open: a.open,
+        })
+        .collect())
 }
 
 /// Fill a lot report.
-pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotReport, Failure> {
-    let history = crate::views::lot_history(conn, &state.lot)?;
-    let current = crate::views::lot_fingerprint(conn, &state.lot)
+pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotReport> {
+    let history = crate::notebook::history::lot_history(conn, &state.lot)?;
+    let current = crate::notebook::history::lot_fingerprint(conn, &state.lot)
         .ok()
         .map(|f| f.1);
+    let entries = hand_entries(&history, current.as_deref());
+    Ok(LotReport {
+        generated_at: now_utc(),
+        turnbook_version: env!("CARGO_PKG_VERSION").to_string(),
+        identity: identity(cfg, state),
+        cycles: cycle_lines(state, &entries.corrected_batches),
+        fit: state.analysis.as_ref().and_then(|a| fit_summary(cfg, a)),
+        alerts: alerts_of(conn, &state.lot)?,
+        corrections: entries.corrections,
+        signoffs: entries.signoffs,
+        verify: Some(verify_line(conn)?),
+        cautions: Vec::new(),
+    })
+}
+
+/// The corrections, exclusions and sign-offs of a lot's history, as the report lists them.
+struct HandEntries {
+    corrections: Vec<report::CorrectionLine>,
+    signoffs: Vec<report::SignOffLine>,
+    corrected_batches: Vec<String>,
+}
+
+fn hand_entries(history: &[HistoryEntry], current: Option<&str>) -> HandEntries {
     let mut corrections = Vec::new();
     let mut signoffs = Vec::new();
     let mut corrected_batches = Vec::new();
-    for e in &history {
+    for e in history {
         let p = &e.payload;
         match e.kind.as_str() {
             "correction" => {
@@ -160,19 +176,27 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
                     who: e.actor.clone(),
                     at: e.at.clone(),
                     meaning: p["meaning"].as_str().unwrap_or("").to_string(),
-                    covers_current: current.as_deref() == Some(sha.as_str()),
+                    covers_current: current == Some(sha.as_str()),
                     signed_sha256: sha,
                 });
             }
             _ => {}
         }
     }
+    HandEntries {
+        corrections,
+        signoffs,
+        corrected_batches,
+    }
+}
+
+fn identity(cfg: &Config, state: &LotState) -> report::LotIdentity {
     let rec = state.record.as_ref();
     let site_currency = rec
         .and_then(|r| r.site.as_ref())
         .and_then(|s| cfg.sites.iter().find(|x| &x.name == s))
         .and_then(|s| s.currency.clone());
-    let identity = report::LotIdentity {
+    report::LotIdentity {
         lot: state.lot.clone(),
         catalyst: rec.map_or("(not registered)".into(), |r| r.catalyst.clone()),
         metal: rec.map_or(String::new(), |r| r.metal.clone()),
@@ -183,8 +207,11 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
         cost: rec.and_then(|r| r.cost),
         currency: site_currency,
         site: rec.and_then(|r| r.site.clone()).unwrap_or_default(),
-    };
-    let cycles = state
+    }
+}
+
+fn cycle_lines(state: &LotState, corrected_batches: &[String]) -> Vec<report::CycleLine> {
+    state
         .cycles
         .iter()
         .map(|c| {
@@ -227,10 +254,13 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
                     .collect(),
             }
         })
-        .collect();
+        .collect()
+}
+
+fn verify_line(conn: &Connection) -> Result<report::VerifyLine> {
     let v = crate::audit::verify(conn)?;
-    let verify = report::VerifyLine {
-        ran_at: crate::model::time::now_utc(),
+    Ok(report::VerifyLine {
+        ran_at: now_utc(),
         outcome: if v.ok() {
             report::VerifyOutcome::Intact {
                 entries: v.events as u64,
@@ -240,18 +270,6 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
                 first_broken: v.findings[0].to_string(),
             }
         },
-    };
-    Ok(LotReport {
-        generated_at: crate::model::time::now_utc(),
-        turnbook_version: env!("CARGO_PKG_VERSION").to_string(),
-        identity,
-        cycles,
-        fit: state.analysis.as_ref().and_then(|a| fit_summary(cfg, a)),
-        alerts: alerts_of(conn, &state.lot)?,
-        corrections,
-        signoffs,
-        verify: Some(verify),
-        cautions: Vec::new(),
     })
 }
 
@@ -260,19 +278,15 @@ pub fn build_site(
     conn: &Connection,
     cfg: &Config,
     site: Option<&str>,
-) -> Result<report::SiteReport, Failure> {
+) -> Result<report::SiteReport> {
     let mut lots = Vec::new();
-    for name in crate::analysis::lot_names(conn)? {
+    for name in store::lots::lot_names(conn)? {
         let s = lot_state(conn, cfg, &name)?;
         let lot_site = s.record.as_ref().and_then(|r| r.site.clone());
         if site.is_some() && lot_site.as_deref() != site {
             continue;
         }
-        let open: u32 = conn.query_row(
-            "SELECT COUNT(*) FROM alert_condition WHERE lot = ?1 AND state != 'cleared'",
-            [&name],
-            |r| r.get(0),
-        )?;
+        let open = store::outbox::open_count(conn, &name)?;
         let a = s.analysis.as_ref();
         let state = if s.record.is_none() {
             "pending: lot not registered".to_string()
@@ -326,7 +340,7 @@ pub fn write_lot(
     lot: &str,
     out: &Path,
     csv: Option<&Path>,
-) -> Result<(), Failure> {
+) -> Result<()> {
     write_lot_as_of(conn, cfg, lot, None, out, csv)
 }
 
@@ -338,55 +352,45 @@ pub fn write_lot_as_of(
     as_of: Option<i64>,
     out: &Path,
     csv: Option<&Path>,
-) -> Result<(), Failure> {
-    let state = crate::analysis::lot_state_as_of(conn, cfg, lot, as_of)?;
+) -> Result<()> {
+    let state = super::lots::lot_state_as_of(conn, cfg, lot, as_of)?;
     if state.record.is_none() && state.cycles.is_empty() {
-        return Err(Failure::rejected(format!(
-            "no lot '{lot}' is registered and no cycle names it"
-        )));
+        return Err(no_such_lot(lot));
     }
     let r = build(conn, cfg, &state)?;
     std::fs::write(out, report::lot_html(&r))
-        .map_err(|e| Failure::rejected(format!("cannot write {}: {e}", out.display())))?;
+        .map_err(|e| NotebookError::Refused(format!("cannot write {}: {e}", out.display())))?;
     if let Some(csv) = csv {
         std::fs::write(csv, report::lot_csv(&r))
-            .map_err(|e| Failure::rejected(format!("cannot write {}: {e}", csv.display())))?;
+            .map_err(|e| NotebookError::Refused(format!("cannot write {}: {e}", csv.display())))?;
     }
     Ok(())
 }
 
-/// `turnbook report`.
-pub fn run(
-    cfg: &Config,
-    lot: Option<&str>,
-    site: bool,
-    as_of: Option<i64>,
-    out: &Path,
-    csv: Option<&Path>,
-) -> CmdResult {
-    let conn = store::open(&cfg.database_path())?;
-    match (lot, site) {
-        (Some(lot), false) => {
-            write_lot_as_of(&conn, cfg, lot, as_of, out, csv)?;
-            match as_of {
-                Some(seq) => println!(
-                    "report of lot {lot} as it stood after event {seq} written to {}",
-                    out.display()
-                ),
-                None => println!("report of lot {lot} written to {}", out.display()),
-            }
-        }
-        (None, true) => {
-            let s = build_site(&conn, cfg, None)?;
-            std::fs::write(out, report::site_html(&s))
-                .map_err(|e| Failure::rejected(format!("cannot write {}: {e}", out.display())))?;
-            println!("site report written to {}", out.display());
-        }
-        _ => {
-            return Err(Failure::usage(
-                "give a LOT, or --site for the summary of all lots",
-            ));
-        }
+/// Write the site summary across all lots.
+pub fn write_site(conn: &Connection, cfg: &Config, out: &Path) -> Result<()> {
+    let s = build_site(conn, cfg, None)?;
+    std::fs::write(out, report::site_html(&s))
+        .map_err(|e| NotebookError::Refused(format!("cannot write {}: {e}", out.display())))
+}
+
+/// Open the notebook `cfg` names for a report.
+pub fn open(cfg: &Config) -> Result<Connection> {
+    Ok(store::open(&cfg.database_path())?)
+}
+
+/// Write every lot's report (HTML and CSV) and the site summary into `dir`; returns the
+/// lot reports written.
+pub fn write_all(cfg: &Config, dir: &Path) -> Result<Vec<std::path::PathBuf>> {
+    let conn = open(cfg)?;
+    std::fs::create_dir_all(dir)?;
+    let mut written = Vec::new();
+    for lot in store::lots::lot_names(&conn)? {
+        let html = dir.join(format!("{lot}.html"));
+        let csv = dir.join(format!("{lot}.csv"));
+        write_lot(&conn, cfg, &lot, &html, Some(&csv))?;
+        written.push(html);
     }
-    Ok(0)
+    write_site(&conn, cfg, &dir.join("site.html"))?;
+    Ok(written)
 }

@@ -4,21 +4,9 @@
 use std::path::{Path, PathBuf};
 use std::time::{Duration, Instant};
 
-use crate::commands::{CmdResult, Failure};
+use crate::cli::{CmdResult, Failure};
 use crate::config::Config;
-
-fn landed_since(
-    conn: &rusqlite::Connection,
-    after: i64,
-) -> rusqlite::Result<Vec<(i64, String, String, i64)>> {
-    let mut stmt = conn.prepare(
-        "SELECT id, path, outcome, rows_new FROM source_files WHERE id > ?1 ORDER BY id",
-    )?;
-    stmt.query_map([after], |r| {
-        Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?))
-    })?
-    .collect()
-}
+use crate::notebook::{daemon, ingestion};
 
 /// Run the service while the plant writes `batches` (files of each batch) and the ICP
 /// report, each in chunks over about a second; stop once every file is recorded.
@@ -33,20 +21,13 @@ pub fn run(
         PathBuf::from("exports/icp/icp-report-live.tsv"),
         icp.as_bytes().to_vec(),
     ));
-    let rt = tokio::runtime::Builder::new_multi_thread()
-        .worker_threads(2)
-        .enable_all()
-        .build()
-        .map_err(|e| Failure::rejected(format!("cannot start the async runtime: {e}")))?;
-    let conn = crate::store::open(&cfg.database_path())?;
-    let start_id: i64 =
-        conn.query_row("SELECT COALESCE(MAX(id), 0) FROM source_files", [], |r| {
-            r.get(0)
-        })?;
+    let rt = daemon::runtime()?;
+    let start_id = ingestion::newest_file_id(cfg)?;
     rt.block_on(async {
         let (stop, rx) = tokio::sync::watch::channel(false);
         let service_cfg = cfg.clone();
-        let service = tokio::spawn(async move { crate::service::serve(&service_cfg, rx).await });
+        let service =
+            tokio::spawn(async move { crate::notebook::daemon::serve(&service_cfg, rx).await });
         tokio::time::sleep(Duration::from_millis(800)).await;
         println!(
             "  live           the service is watching; the plant writes its newest exports slowly:"
@@ -76,7 +57,9 @@ pub fn run(
         let mut waiting: Vec<PathBuf> = files.iter().map(|(rel, _)| root.join(rel)).collect();
         while !waiting.is_empty() && Instant::now() < deadline {
             tokio::time::sleep(Duration::from_millis(250)).await;
-            for (id, path, outcome, rows) in landed_since(&conn, last).unwrap_or_default() {
+            for (id, path, outcome, rows) in
+                ingestion::files_recorded_after(cfg, last).unwrap_or_default()
+            {
                 last = id;
                 let path = PathBuf::from(path);
                 waiting.retain(|w| *w != path);
@@ -112,7 +95,7 @@ pub fn run(
         }
         let _ = stop.send(true);
         match service.await {
-            Ok(r) => r.map(|_| ()),
+            Ok(r) => r.map(|_| ()).map_err(Failure::from),
             Err(e) => Err(Failure::rejected(format!("the service task failed: {e}"))),
         }
     })
@@ -123,35 +106,16 @@ pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
     let smtp = std::env::var(crate::mail::SMTP_URL_ENV)
         .ok()
         .filter(|s| !s.trim().is_empty());
-    let digest = crate::service::queue_digest(cfg)?;
-    let rt = tokio::runtime::Builder::new_current_thread()
-        .enable_all()
-        .build()
-        .map_err(|e| Failure::rejected(format!("cannot start the async runtime: {e}")))?;
-    let mail = rt
-        .block_on(crate::mail::deliver_due(
-            &cfg.database_path(),
-            &cfg.resolved_mail(),
-            chrono::Utc::now(),
-        ))
+    let digest = crate::notebook::daemon::queue_digest(cfg)?;
+    let mail = daemon::deliver_now(cfg)
         .map_err(|e| Failure::rejected(format!("mail delivery failed: {e}")))?;
-    let conn = crate::store::open(&cfg.database_path())?;
     let reports = dir.join("reports");
-    std::fs::create_dir_all(&reports)?;
-    let mut written = Vec::new();
-    for lot in crate::analysis::lot_names(&conn)? {
-        let html = reports.join(format!("{lot}.html"));
-        let csv = reports.join(format!("{lot}.csv"));
-        crate::reportcmd::write_lot(&conn, cfg, &lot, &html, Some(&csv))?;
-        written.push(html);
-    }
-    let site = crate::reportcmd::build_site(&conn, cfg, None)?;
-    std::fs::write(reports.join("site.html"), crate::report::site_html(&site))?;
+    crate::notebook::reports::write_all(cfg, &reports)?;
     println!();
-    crate::analysis::lots(cfg, false)?;
+    crate::cli::lots::lots(cfg, false)?;
     println!();
     println!("The deactivating lot, PD-C-2611-A:");
-    let state = crate::analysis::lot_state(&conn, cfg, "PD-C-2611-A")?;
+    let state = crate::notebook::lots::known_lot(cfg, "PD-C-2611-A")?;
     if let Some(a) = &state.analysis {
         for line in crate::fit::render_text(a).lines().filter(|l| {
             l.starts_with("Chosen")

@@ -15,6 +15,7 @@ use rusqlite::{Connection, TransactionBehavior};
 use serde::Serialize;
 use sha2::{Digest, Sha256};
 
+use super::error::NotebookError;
 use crate::audit;
 use crate::config::Config;
 use crate::ingest::{self, ParseCache, ParsedFile};
@@ -195,7 +196,7 @@ impl Ingestor {
             WAL_CHECKPOINT_BYTES / page_size.max(512),
         )?;
         // Heal an interrupted backfill: lots whose fit is older than their records.
-        let healed = crate::analysis::recompute_stale(&mut conn, &cfg, &actor)?;
+        let healed = crate::notebook::lots::recompute_stale(&mut conn, &cfg, &actor)?;
         if healed > 0 {
             tracing::info!(
                 lots = healed,
@@ -450,10 +451,10 @@ impl Ingestor {
             // With no other writer since the run began, the newest event of each lot is
             // the newest this run wrote for it, and need not be looked up.
             if start_version.is_some() && data_version(&tx).ok() == start_version {
-                crate::analysis::recompute_lots_after(&tx, &self.cfg, &touched)?;
+                crate::notebook::lots::recompute_lots_after(&tx, &self.cfg, &touched)?;
             } else {
                 let lots = touched.into_keys().collect();
-                crate::analysis::recompute_lots(&tx, &self.cfg, &lots, &self.actor)?;
+                crate::notebook::lots::recompute_lots(&tx, &self.cfg, &lots, &self.actor)?;
             }
             tx.commit()?;
         }
@@ -666,7 +667,7 @@ impl<'a> Writer<'a> {
                         q.as_deref(),
                         self.actor,
                     )?;
-                    crate::alerting::raise_quarantine(
+                    crate::notebook::alerts::raise_quarantine(
                         &tx,
                         self.cfg,
                         facts.site.as_deref(),
@@ -710,7 +711,7 @@ impl<'a> Writer<'a> {
         drop(st);
         if recompute {
             // Under the write lock, this group's events are the newest of their lots.
-            crate::analysis::recompute_lots_after(&tx, self.cfg, &touched)?;
+            crate::notebook::lots::recompute_lots_after(&tx, self.cfg, &touched)?;
         }
         tx.commit()?;
         self.committed += 1;
@@ -999,6 +1000,59 @@ fn quarantine_copy(dir: &Path, facts: &FileFacts) -> Option<String> {
             None
         }
     }
+}
+
+/// The id of the newest file record (0 when none), to see later which files landed.
+pub fn newest_file_id(cfg: &Config) -> Result<i64, NotebookError> {
+    Ok(store::queries::newest_file_id(&store::open(
+        &cfg.database_path(),
+    )?)?)
+}
+
+/// Files recorded after file id `after`: (id, path, outcome, new rows).
+pub fn files_recorded_after(
+    cfg: &Config,
+    after: i64,
+) -> Result<Vec<(i64, String, String, i64)>, NotebookError> {
+    Ok(store::queries::files_after(
+        &store::open(&cfg.database_path())?,
+        after,
+    )?)
+}
+
+/// Every file a backfill of `paths` offers, after checking the profile asked for exists.
+pub fn files_under(
+    cfg: &Config,
+    paths: &[PathBuf],
+    profile: Option<&str>,
+) -> Result<Vec<PathBuf>, NotebookError> {
+    if let Some(p) = profile
+        && !cfg.profiles.contains_key(p)
+    {
+        return Err(NotebookError::Usage(format!(
+            "--profile '{p}' is not defined; expected one of: {}",
+            cfg.profiles.keys().cloned().collect::<Vec<_>>().join(", ")
+        )));
+    }
+    let mut files = Vec::new();
+    for p in paths {
+        collect_files(p, &mut files)
+            .map_err(|e| NotebookError::Usage(format!("cannot read {}: {e}", p.display())))?;
+    }
+    Ok(files)
+}
+
+/// Ingest `files` as one backfill, reading every one with `profile` when given; `each` sees
+/// every file's outcome as it is committed.
+pub fn ingest_files(
+    cfg: Config,
+    files: &[PathBuf],
+    profile: Option<String>,
+    each: impl FnMut(&FileOutcome),
+) -> Result<RunSummary, NotebookError> {
+    let mut ing = Ingestor::open(cfg)?;
+    ing.profile_override = profile;
+    Ok(ing.ingest_paths(files, each)?)
 }
 
 /// The path as recorded: absolute (symbolic links kept), so a file reached through a

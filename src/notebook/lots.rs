@@ -7,29 +7,19 @@
 //! older than its newest record is recomputed).
 
 use std::collections::{BTreeMap, BTreeSet};
-use std::fmt::Write as _;
 
-use rusqlite::{Connection, OptionalExtension, Transaction};
 use serde::Serialize;
 
+use super::error::{NotebookError, Result as NResult};
 use crate::chem::{self, ChemOptions, CycleInput, CycleMetrics, LotFacts};
-use crate::commands::{CmdResult, Failure};
 use crate::config::Config;
 use crate::fit::{self, AnalysisOptions, Criterion, LotAnalysis, LotSeries, ModelId};
 use crate::model::Quantity;
 use crate::model::cycle::CycleView;
 use crate::model::event::LotRecord;
-use crate::store::{self, Result, records};
-
-/// Where a cycle's values came from.
-#[derive(Debug, Clone, Serialize)]
-pub struct SourceRef {
-    pub file_id: i64,
-    pub path: String,
-    pub sha256: String,
-    /// Lines of that file the values were read from.
-    pub lines: Vec<i64>,
-}
+use crate::model::time::now_utc;
+use crate::store::lots::SourceRef;
+use crate::store::{self, Connection, Result, Transaction, records};
 
 /// One cycle with its metrics and provenance.
 #[derive(Debug, Clone, Serialize)]
@@ -116,139 +106,9 @@ pub fn analysis_options(
     }
 }
 
-fn sources_of(conn: &Connection, batch: &str, as_of: i64) -> Result<Vec<SourceRef>> {
-    let mut stmt = conn.prepare_cached(
-        "SELECT f.id, f.path, f.sha256, b.line FROM batch_sources b JOIN source_files f ON f.id = b.source_file_id
-         WHERE b.batch_id = ?1 AND b.event_seq <= ?2 ORDER BY f.id, b.line",
-    )?;
-    let rows = stmt.query_map(rusqlite::params![batch, as_of], |r| {
-        Ok((
-            r.get::<_, i64>(0)?,
-            r.get::<_, String>(1)?,
-            r.get::<_, String>(2)?,
-            r.get::<_, Option<i64>>(3)?,
-        ))
-    })?;
-    let mut out: Vec<SourceRef> = Vec::new();
-    for row in rows {
-        add_source(&mut out, row?);
-    }
-    Ok(out)
-}
-
-/// The sources of every batch of a lot in one query (the recompute path), by batch id.
-fn sources_of_lot(
-    conn: &Connection,
-    lot: &str,
-) -> Result<std::collections::HashMap<String, Vec<SourceRef>>> {
-    let mut stmt = conn.prepare_cached(
-        "SELECT b.batch_id, f.id, f.path, f.sha256, b.line
-         FROM cycles c JOIN batch_sources b ON b.batch_id = c.batch_id
-         JOIN source_files f ON f.id = b.source_file_id
-         WHERE c.lot = ?1 ORDER BY b.batch_id, f.id, b.line",
-    )?;
-    let rows = stmt.query_map([lot], |r| {
-        Ok((
-            r.get::<_, String>(0)?,
-            (
-                r.get::<_, i64>(1)?,
-                r.get::<_, String>(2)?,
-                r.get::<_, String>(3)?,
-                r.get::<_, Option<i64>>(4)?,
-            ),
-        ))
-    })?;
-    let mut out: std::collections::HashMap<String, Vec<SourceRef>> =
-        std::collections::HashMap::new();
-    for row in rows {
-        let (batch, src) = row?;
-        add_source(out.entry(batch).or_default(), src);
-    }
-    Ok(out)
-}
-
-fn add_source(out: &mut Vec<SourceRef>, (id, path, sha, line): (i64, String, String, Option<i64>)) {
-    match out.last_mut() {
-        Some(s) if s.file_id == id => {
-            if let Some(l) = line
-                && !s.lines.contains(&l)
-            {
-                s.lines.push(l);
-            }
-        }
-        _ => out.push(SourceRef {
-            file_id: id,
-            path,
-            sha256: sha,
-            lines: line.into_iter().collect(),
-        }),
-    }
-}
-
 /// Compute a lot's state from the store: metrics of every cycle, and the fit.
 pub fn lot_state(conn: &Connection, cfg: &Config, lot: &str) -> Result<LotState> {
     lot_state_as_of(conn, cfg, lot, None)
-}
-
-/// The lot's registration as it stood after event `as_of`, replayed from the events.
-fn lot_record_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Option<LotRecord>> {
-    let mut stmt = conn.prepare(
-        "SELECT payload FROM events WHERE seq <= ?1 AND kind IN ('lot-registered', 'file-ingested') ORDER BY seq",
-    )?;
-    let mut found = None;
-    let rows = stmt.query_map([as_of], |r| r.get::<_, String>(0))?;
-    for body in rows {
-        match serde_json::from_str::<crate::model::Payload>(&body?)? {
-            crate::model::Payload::LotRegistered { lot: l, .. } if l.lot == lot => found = Some(l),
-            crate::model::Payload::FileIngested { lots, .. } => {
-                if let Some(l) = lots.into_iter().rev().find(|l| l.lot == lot) {
-                    found = Some(l);
-                }
-            }
-            _ => {}
-        }
-    }
-    Ok(found)
-}
-
-/// The lot's cycles as they stood after event `as_of`: every measurement and exclusion up
-/// to that event, through the same derivation as the current view.
-fn cycles_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Vec<CycleView>> {
-    let mut stmt = conn.prepare(
-        "SELECT DISTINCT batch_id FROM batch_sources WHERE event_seq <= ?1 ORDER BY batch_id",
-    )?;
-    let batches = stmt
-        .query_map([as_of], |r| r.get::<_, String>(0))?
-        .collect::<std::result::Result<Vec<_>, _>>()?;
-    let mut out = Vec::new();
-    for b in batches {
-        let rows = records::measurements_up_to(conn, &b, as_of)?;
-        let first_seq = rows.iter().map(|r| r.1).min().unwrap_or(0);
-        let rows: Vec<_> = rows.into_iter().map(|r| r.0).collect();
-        let excluded = conn
-            .query_row(
-                "SELECT payload FROM events WHERE kind = 'exclusion' AND subject = ?1 AND seq <= ?2 ORDER BY seq DESC LIMIT 1",
-                rusqlite::params![b, as_of],
-                |r| r.get::<_, String>(0),
-            )
-            .optional()?
-            .and_then(|p| serde_json::from_str::<serde_json::Value>(&p).ok())
-            .and_then(|v| v["excluded"].as_bool())
-            .unwrap_or(false);
-        let v = crate::model::cycle::derive_cycle(&b, &rows, excluded, first_seq);
-        if v.lot.as_deref() == Some(lot) {
-            out.push(v);
-        }
-    }
-    out.sort_by(|a, b| {
-        (a.cycle_no.is_none(), a.cycle_no, &a.started_at, a.first_seq).cmp(&(
-            b.cycle_no.is_none(),
-            b.cycle_no,
-            &b.started_at,
-            b.first_seq,
-        ))
-    });
-    Ok(out)
 }
 
 /// A lot's state now (`as_of` None) or as it stood after event `as_of`: the current view
@@ -262,13 +122,13 @@ pub fn lot_state_as_of(
     let (record, views) = match as_of {
         None => (records::lot(conn, lot)?, records::cycles_of_lot(conn, lot)?),
         Some(seq) => (
-            lot_record_as_of(conn, lot, seq)?,
-            cycles_as_of(conn, lot, seq)?,
+            store::lots::lot_record_as_of(conn, lot, seq)?,
+            store::lots::cycles_as_of(conn, lot, seq)?,
         ),
     };
     // The current view fetches every batch's sources in one query.
     let mut lot_sources = match as_of {
-        None => Some(sources_of_lot(conn, lot)?),
+        None => Some(store::lots::sources_of_lot(conn, lot)?),
         Some(_) => None,
     };
     let as_of = as_of.unwrap_or(i64::MAX);
@@ -287,7 +147,7 @@ pub fn lot_state_as_of(
         }
         let sources = match lot_sources.as_mut() {
             Some(all) => all.remove(&v.batch_id).unwrap_or_default(),
-            None => sources_of(conn, &v.batch_id, as_of)?,
+            None => store::lots::sources_of(conn, &v.batch_id, as_of)?,
         };
         cycles.push(CycleState {
             cycle: n,
@@ -457,34 +317,6 @@ fn attention_from(a: &LotAnalysis) -> Vec<String> {
     out
 }
 
-/// Every lot name that has a registration or cycles.
-pub fn lot_names(conn: &Connection) -> Result<Vec<String>> {
-    let mut stmt = conn.prepare(
-        "SELECT lot FROM lots UNION SELECT lot FROM cycles WHERE lot IS NOT NULL ORDER BY 1",
-    )?;
-    let rows = stmt
-        .query_map([], |r| r.get(0))?
-        .collect::<std::result::Result<Vec<String>, _>>()?;
-    Ok(rows)
-}
-
-/// The newest event that wrote records of a lot.
-pub fn newest_seq_of(conn: &Connection, lot: &str) -> Result<i64> {
-    // Each part is an index-only lookup: batch_sources by (batch_id, event_seq), lots by
-    // name, exclusions through their partial index.
-    Ok(conn
-        .prepare_cached(
-            "SELECT MAX(s) FROM (
-             SELECT (SELECT MAX(b.event_seq) FROM batch_sources b WHERE b.batch_id = c.batch_id) AS s
-                 FROM cycles c WHERE c.lot = ?1
-             UNION ALL SELECT event_seq FROM lots WHERE lot = ?1
-             UNION ALL SELECT MAX(e.seq) FROM cycles c JOIN events e
-                 ON e.subject = c.batch_id AND e.kind = 'exclusion' WHERE c.lot = ?1)",
-        )?
-        .query_row([lot], |r| r.get::<_, Option<i64>>(0))?
-        .unwrap_or(0))
-}
-
 /// Recompute metrics, fits and alerts of the given lots, in the caller's transaction.
 pub fn recompute_lots(
     tx: &Transaction<'_>,
@@ -493,7 +325,7 @@ pub fn recompute_lots(
     _actor: &str,
 ) -> Result<()> {
     for lot in lots {
-        recompute_lot(tx, cfg, lot, newest_seq_of(tx, lot)?)?;
+        recompute_lot(tx, cfg, lot, store::lots::newest_seq_of(tx, lot)?)?;
     }
     Ok(())
 }
@@ -517,7 +349,16 @@ fn recompute_lot(tx: &Transaction<'_>, cfg: &Config, lot: &str, after: i64) -> R
     if records::lot(tx, lot)?.is_none() {
         // Pending (nobody registered the lot): nothing to fit and no alert to raise;
         // the empty fit still records what the lot's records were when looked at.
-        store_fit(tx, lot, after, &basis(cfg), None, "null")?;
+        store::lots::store_fit(
+            tx,
+            lot,
+            after,
+            &basis(cfg),
+            None,
+            "null",
+            fit::ENGINE_VERSION,
+            &now_utc(),
+        )?;
         return Ok(());
     }
     let state = lot_state(tx, cfg, lot)?;
@@ -530,49 +371,26 @@ fn recompute_lot(tx: &Transaction<'_>, cfg: &Config, lot: &str, after: i64) -> R
         .as_ref()
         .and_then(|a| a.chosen)
         .map(|m| m.id());
-    store_fit(tx, lot, after, &state.basis, model, &json)?;
-    crate::alerting::raise(tx, cfg, &state)?;
-    Ok(())
-}
-
-/// One row of `fits`: the analysis of `lot` as computed after event `after`.
-fn store_fit(
-    tx: &Transaction<'_>,
-    lot: &str,
-    after: i64,
-    basis: &str,
-    model: Option<&str>,
-    analysis_json: &str,
-) -> Result<()> {
-    tx.prepare_cached(
-        "INSERT INTO fits(lot, computed_at, after_seq, engine_version, basis, model, analysis)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
-    )?
-    .execute(rusqlite::params![
+    store::lots::store_fit(
+        tx,
         lot,
-        crate::model::time::now_utc(),
         after,
-        fit::ENGINE_VERSION,
-        basis,
+        &state.basis,
         model,
-        analysis_json
-    ])?;
+        &json,
+        fit::ENGINE_VERSION,
+        &now_utc(),
+    )?;
+    crate::notebook::alerts::raise(tx, cfg, &state)?;
     Ok(())
 }
 
 /// Lots whose stored fit is older than their newest record (an interrupted backfill).
 pub fn stale_lots(conn: &Connection) -> Result<BTreeSet<String>> {
     let mut out = BTreeSet::new();
-    for lot in lot_names(conn)? {
-        let fitted: Option<i64> = conn
-            .query_row(
-                "SELECT MAX(after_seq) FROM fits WHERE lot = ?1",
-                [&lot],
-                |r| r.get(0),
-            )
-            .optional()?
-            .flatten();
-        if fitted.is_none_or(|f| f < newest_seq_of(conn, &lot).unwrap_or(0)) {
+    for lot in store::lots::lot_names(conn)? {
+        let fitted = store::lots::fitted_after(conn, &lot)?;
+        if fitted.is_none_or(|f| f < store::lots::newest_seq_of(conn, &lot).unwrap_or(0)) {
             out.insert(lot);
         }
     }
@@ -585,7 +403,7 @@ pub fn recompute_stale(conn: &mut Connection, cfg: &Config, actor: &str) -> Resu
     if stale.is_empty() {
         return Ok(0);
     }
-    let tx = conn.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+    let tx = store::immediate(conn)?;
     recompute_lots(&tx, cfg, &stale, actor)?;
     tx.commit()?;
     Ok(stale.len())
@@ -594,18 +412,13 @@ pub fn recompute_stale(conn: &mut Connection, cfg: &Config, actor: &str) -> Resu
 /// Lots that need someone's attention, one line each.
 pub fn lots_needing_attention(conn: &Connection, cfg: &Config) -> Result<Vec<String>> {
     let mut out = Vec::new();
-    for lot in lot_names(conn)? {
+    for lot in store::lots::lot_names(conn)? {
         let s = lot_state(conn, cfg, &lot)?;
         for a in s.attention {
             out.push(format!("{lot}: {a}"));
         }
     }
     Ok(out)
-}
-
-/// Messages waiting in the outbox.
-pub fn outbox_waiting(conn: &Connection) -> Result<i64> {
-    crate::alerting::outbox_waiting(conn)
 }
 
 /// One line of `lots --json`.
@@ -664,68 +477,31 @@ fn lot_line(s: &LotState) -> LotLine {
     }
 }
 
-fn fmt_opt(v: Option<f64>, digits: usize) -> String {
-    v.map_or("-".into(), |x| format!("{x:.digits$}"))
-}
-
-/// `turnbook lots`.
-pub fn lots(cfg: &Config, json: bool) -> CmdResult {
+/// The lines of `turnbook lots`, one per lot with a registration or cycles.
+pub fn lot_lines(cfg: &Config) -> NResult<Vec<LotLine>> {
     let conn = store::open(&cfg.database_path())?;
     let mut lines = Vec::new();
-    for lot in lot_names(&conn)? {
+    for lot in store::lots::lot_names(&conn)? {
         lines.push(lot_line(&lot_state(&conn, cfg, &lot)?));
     }
-    if json {
-        println!("{}", serde_json::to_string_pretty(&lines)?);
-        return Ok(0);
+    Ok(lines)
+}
+
+/// A lot's state for the commands that show one lot; refused when nothing names the lot.
+pub fn known_lot(cfg: &Config, lot: &str) -> NResult<LotState> {
+    let conn = store::open(&cfg.database_path())?;
+    let s = lot_state(&conn, cfg, lot)?;
+    if s.cycles.is_empty() && s.record.is_none() {
+        return Err(no_such_lot(lot));
     }
-    if lines.is_empty() {
-        println!(
-            "no lots yet: register one (`turnbook register`) or drop a lot sheet into a watched folder"
-        );
-        return Ok(0);
-    }
-    println!(
-        "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} forecast / flags",
-        "lot", "catalyst", "cycles", "activity", "cum. TON", "model"
-    );
-    for l in &lines {
-        let forecast = l.forecast.as_ref().map(|f| {
-            let st = f["status"].as_str().unwrap_or("");
-            match (f["x"].as_f64(), st) {
-                (Some(x), "ahead") => format!(
-                    "criterion at cycle {x:.1} [{}, {}]",
-                    f["lower"]
-                        .as_f64()
-                        .map_or("-inf".into(), |v| format!("{v:.1}")),
-                    f["upper"]
-                        .as_f64()
-                        .map_or("+inf".into(), |v| format!("{v:.1}"))
-                ),
-                _ => st.replace('-', " "),
-            }
-        });
-        let mut tail = forecast.unwrap_or_default();
-        if l.abrupt_loss {
-            tail.push_str("  ABRUPT LOSS");
-        }
-        if !l.flags.is_empty() {
-            let _ = write!(tail, "  [{}]", l.flags.join(", "));
-        }
-        println!(
-            "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} {}",
-            l.lot,
-            l.catalyst
-                .clone()
-                .unwrap_or_else(|| "(not registered)".into()),
-            l.cycles,
-            fmt_opt(l.latest_activity, 3),
-            fmt_opt(l.cumulative_ton, 0),
-            l.model.clone().unwrap_or_else(|| "-".into()),
-            tail
-        );
-    }
-    Ok(0)
+    Ok(s)
+}
+
+/// The one wording of "nothing names this lot".
+pub fn no_such_lot(lot: &str) -> NotebookError {
+    NotebookError::Refused(format!(
+        "no lot '{lot}' is registered and no cycle names it"
+    ))
 }
 
 /// One row of the cycle table (CSV and JSON).
@@ -805,76 +581,4 @@ pub fn cycle_lines(s: &LotState) -> Vec<CycleLine> {
             }
         })
         .collect()
-}
-
-/// `turnbook cycles LOT`.
-pub fn cycles(cfg: &Config, lot: &str, format: &str) -> CmdResult {
-    let conn = store::open(&cfg.database_path())?;
-    let s = lot_state(&conn, cfg, lot)?;
-    if s.cycles.is_empty() && s.record.is_none() {
-        return Err(Failure::rejected(format!(
-            "no lot '{lot}' is registered and no cycle names it"
-        )));
-    }
-    let lines = cycle_lines(&s);
-    match format {
-        "json" => println!(
-            "{}",
-            serde_json::to_string_pretty(&serde_json::json!({"lot": lot, "cycles": lines}))?
-        ),
-        "csv" => {
-            let mut w = csv::Writer::from_writer(std::io::stdout());
-            for l in &lines {
-                w.serialize(l)
-                    .map_err(|e| Failure::rejected(format!("cannot write CSV: {e}")))?;
-            }
-            w.flush()?;
-        }
-        _ => {
-            if let Some(r) = &s.record {
-                println!(
-                    "lot {} — {} ({} {} wt %, {} g charged)",
-                    r.lot, r.catalyst, r.metal, r.loading_wt_pct, r.charged_mass_g
-                );
-            } else {
-                println!("lot {lot} — not registered: its cycles are pending");
-            }
-            println!(
-                "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>7} {:>7} {:>8}  flags / sources",
-                "cycle",
-                "batch",
-                "T °C",
-                "t h",
-                "conv",
-                "yield",
-                "TON",
-                "TOF h⁻¹",
-                "k h⁻¹",
-                "act.",
-                "M µg/g"
-            );
-            for l in &lines {
-                println!(
-                    "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>7} {:>7} {:>8}  {} | {}",
-                    l.cycle,
-                    l.batch_id,
-                    fmt_opt(l.temperature_c, 1),
-                    fmt_opt(l.duration_h, 2),
-                    fmt_opt(l.conversion, 4),
-                    fmt_opt(l.yield_fraction, 4),
-                    fmt_opt(l.ton, 1),
-                    fmt_opt(l.tof_per_h, 1),
-                    fmt_opt(l.k_app_per_h, 3),
-                    fmt_opt(l.activity, 3),
-                    fmt_opt(l.metal_in_product_ug_g, 2),
-                    if l.flags.is_empty() { "-" } else { &l.flags },
-                    l.sources
-                );
-            }
-            for a in &s.attention {
-                println!("attention: {a}");
-            }
-        }
-    }
-    Ok(0)
 }

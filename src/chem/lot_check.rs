@@ -1,0 +1,108 @@
+//! The one set of rules a lot's registration must meet, whichever way it enters: the
+//! `register` command, a lot sheet, or a change of registration.
+
+use crate::model::LotRecord;
+
+use super::elements::{METALS, molar_mass};
+
+/// A field of a lot's registration.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum LotField {
+    Metal,
+    Loading,
+    ChargedMass,
+    Received,
+    Cost,
+}
+
+impl LotField {
+    /// The field's key, as lot sheet profiles and the command line name it.
+    pub fn key(self) -> &'static str {
+        match self {
+            LotField::Metal => "metal",
+            LotField::Loading => "loading",
+            LotField::ChargedMass => "charged_mass",
+            LotField::Received => "received",
+            LotField::Cost => "cost",
+        }
+    }
+}
+
+/// A registration that breaks a rule: which field, and what was expected.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("{}: expected {expected}", field.key())]
+pub struct LotProblem {
+    pub field: LotField,
+    pub expected: String,
+}
+
+/// Check a registration against the rules every lot must meet.
+pub fn check_lot(rec: &LotRecord) -> Result<(), LotProblem> {
+    let fail = |field, expected: String| Err(LotProblem { field, expected });
+    if molar_mass(&rec.metal).is_none() {
+        return fail(
+            LotField::Metal,
+            format!("a catalyst metal symbol, one of {}", METALS.join(", ")),
+        );
+    }
+    if !(rec.loading_wt_pct > 0.0 && rec.loading_wt_pct <= 100.0) {
+        return fail(
+            LotField::Loading,
+            "a metal loading above 0 and at most 100 wt %".into(),
+        );
+    }
+    if !(rec.charged_mass_g.is_finite() && rec.charged_mass_g > 0.0) {
+        return fail(
+            LotField::ChargedMass,
+            "a charged catalyst mass greater than 0 g".into(),
+        );
+    }
+    if let Some(d) = &rec.received
+        && chrono::NaiveDate::parse_from_str(d, "%Y-%m-%d").is_err()
+    {
+        return fail(LotField::Received, "a date YYYY-MM-DD".into());
+    }
+    if rec.cost.is_some_and(|c| !(c.is_finite() && c >= 0.0)) {
+        return fail(LotField::Cost, "a cost of 0 or more".into());
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn lot() -> LotRecord {
+        LotRecord {
+            lot: "L".into(),
+            catalyst: "5 % Pd/C".into(),
+            metal: "Pd".into(),
+            loading_wt_pct: 5.0,
+            charged_mass_g: 10.0,
+            received: Some("2026-11-02".into()),
+            supplier_lot: None,
+            cost: Some(100.0),
+            site: None,
+        }
+    }
+
+    #[test]
+    fn each_rule_names_its_field() {
+        assert_eq!(check_lot(&lot()), Ok(()));
+        let cases: [(fn(&mut LotRecord), LotField); 5] = [
+            (|l| l.metal = "Xx".into(), LotField::Metal),
+            (|l| l.loading_wt_pct = 0.0, LotField::Loading),
+            (|l| l.charged_mass_g = f64::NAN, LotField::ChargedMass),
+            (
+                |l| l.received = Some("02/11/2026".into()),
+                LotField::Received,
+            ),
+            (|l| l.cost = Some(-1.0), LotField::Cost),
+        ];
+        for (spoil, field) in cases {
+            let mut l = lot();
+            spoil(&mut l);
+            assert_eq!(check_lot(&l).map_err(|p| p.field), Err(field));
+        }
+    }
+}

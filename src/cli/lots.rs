@@ -1,0 +1,129 @@
+//! `turnbook lots` and `turnbook cycles`: the tables of lots and of one lot's cycles.
+
+use std::fmt::Write as _;
+
+use super::{CmdResult, Failure, fmt_opt};
+use crate::config::Config;
+use crate::notebook::lots::{cycle_lines, known_lot, lot_lines};
+
+/// `turnbook lots`.
+pub fn lots(cfg: &Config, json: bool) -> CmdResult {
+    let lines = lot_lines(cfg)?;
+    if json {
+        println!("{}", serde_json::to_string_pretty(&lines)?);
+        return Ok(0);
+    }
+    if lines.is_empty() {
+        println!(
+            "no lots yet: register one (`turnbook register`) or drop a lot sheet into a watched folder"
+        );
+        return Ok(0);
+    }
+    println!(
+        "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} forecast / flags",
+        "lot", "catalyst", "cycles", "activity", "cum. TON", "model"
+    );
+    for l in &lines {
+        let forecast = l.forecast.as_ref().map(|f| {
+            let st = f["status"].as_str().unwrap_or("");
+            match (f["x"].as_f64(), st) {
+                (Some(x), "ahead") => format!(
+                    "criterion at cycle {x:.1} [{}, {}]",
+                    f["lower"]
+                        .as_f64()
+                        .map_or("-inf".into(), |v| format!("{v:.1}")),
+                    f["upper"]
+                        .as_f64()
+                        .map_or("+inf".into(), |v| format!("{v:.1}"))
+                ),
+                _ => st.replace('-', " "),
+            }
+        });
+        let mut tail = forecast.unwrap_or_default();
+        if l.abrupt_loss {
+            tail.push_str("  ABRUPT LOSS");
+        }
+        if !l.flags.is_empty() {
+            let _ = write!(tail, "  [{}]", l.flags.join(", "));
+        }
+        println!(
+            "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} {}",
+            l.lot,
+            l.catalyst
+                .clone()
+                .unwrap_or_else(|| "(not registered)".into()),
+            l.cycles,
+            fmt_opt(l.latest_activity, 3),
+            fmt_opt(l.cumulative_ton, 0),
+            l.model.clone().unwrap_or_else(|| "-".into()),
+            tail
+        );
+    }
+    Ok(0)
+}
+
+/// `turnbook cycles LOT`.
+pub fn cycles(cfg: &Config, lot: &str, format: &str) -> CmdResult {
+    let s = known_lot(cfg, lot)?;
+    let lines = cycle_lines(&s);
+    match format {
+        "json" => println!(
+            "{}",
+            serde_json::to_string_pretty(&serde_json::json!({"lot": lot, "cycles": lines}))?
+        ),
+        "csv" => {
+            let mut w = csv::Writer::from_writer(std::io::stdout());
+            for l in &lines {
+                w.serialize(l)
+                    .map_err(|e| Failure::rejected(format!("cannot write CSV: {e}")))?;
+            }
+            w.flush()?;
+        }
+        _ => {
+            if let Some(r) = &s.record {
+                println!(
+                    "lot {} — {} ({} {} wt %, {} g charged)",
+                    r.lot, r.catalyst, r.metal, r.loading_wt_pct, r.charged_mass_g
+                );
+            } else {
+                println!("lot {lot} — not registered: its cycles are pending");
+            }
+            println!(
+                "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>7} {:>7} {:>8}  flags / sources",
+                "cycle",
+                "batch",
+                "T °C",
+                "t h",
+                "conv",
+                "yield",
+                "TON",
+                "TOF h⁻¹",
+                "k h⁻¹",
+                "act.",
+                "M µg/g"
+            );
+            for l in &lines {
+                println!(
+                    "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>7} {:>7} {:>8}  {} | {}",
+                    l.cycle,
+                    l.batch_id,
+                    fmt_opt(l.temperature_c, 1),
+                    fmt_opt(l.duration_h, 2),
+                    fmt_opt(l.conversion, 4),
+                    fmt_opt(l.yield_fraction, 4),
+                    fmt_opt(l.ton, 1),
+                    fmt_opt(l.tof_per_h, 1),
+                    fmt_opt(l.k_app_per_h, 3),
+                    fmt_opt(l.activity, 3),
+                    fmt_opt(l.metal_in_product_ug_g, 2),
+                    if l.flags.is_empty() { "-" } else { &l.flags },
+                    l.sources
+                );
+            }
+            for a in &s.attention {
+                println!("attention: {a}");
+            }
+        }
+    }
+    Ok(0)
+}

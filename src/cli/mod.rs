@@ -1,0 +1,394 @@
+//! The command line: the only code that prints or decides exit statuses.
+//!
+//! Arguments are parsed into typed values by clap; [`run`] dispatches each verb, one line
+//! each, to a function that calls the notebook and prints what it returns. Exit statuses:
+//! 0 all done, 1 some input was refused or a check failed, 2 a usage or configuration
+//! error; [`Failure`] is decided from the notebook's error kinds in one place.
+
+mod demo;
+mod demo_live;
+mod entries;
+mod fit;
+mod ingest;
+pub(crate) mod lots;
+mod report;
+mod service;
+mod views;
+
+use std::io::IsTerminal;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use clap::{Args, Parser, Subcommand};
+
+use crate::config::Config;
+use crate::notebook::NotebookError;
+
+/// turnbook: catalyst lots, their cycles, deactivation fits and replacement warnings.
+#[derive(Debug, Parser)]
+#[command(name = "turnbook", version, about)]
+pub struct Cli {
+    /// Configuration file.
+    #[arg(long, global = true, default_value = "turnbook.toml")]
+    pub config: PathBuf,
+    /// Log as JSON lines (for journald or a log collector) instead of readable lines; also
+    /// set by TURNBOOK_LOG_JSON=true. RUST_LOG filters as usual.
+    #[arg(long, global = true, env = "TURNBOOK_LOG_JSON")]
+    pub log_json: bool,
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Write a demonstration plant into DIR (new or empty) and run turnbook on it.
+    Demo(DemoArgs),
+    /// Ingest export files or folders (a backfill); each content is stored once.
+    Ingest(IngestArgs),
+    /// List the catalyst lots with their cycle count, latest activity and flags.
+    Lots(LotsArgs),
+    /// Show one lot's cycles: values, TON, TOF, activity, flags, source files.
+    Cycles(CyclesArgs),
+    /// Register a catalyst lot, or change its registration (an event in the log).
+    Register(RegisterArgs),
+    /// Correct one value of a batch; the earlier value stays in the history.
+    Correct(CorrectArgs),
+    /// Exclude a cycle from fits (its values stay), with the reason.
+    Exclude(ExcludeArgs),
+    /// Add a note to a lot or a batch.
+    Note(NoteArgs),
+    /// Sign off a lot's history as it stands now (reviewed, approved or rejected).
+    Signoff(SignoffArgs),
+    /// Show every event that concerns a lot, oldest first.
+    History(HistoryArgs),
+    /// What the database holds: files, duplicates, quarantine, conflicts, lots needing attention.
+    Status(StatusArgs),
+    /// Fit deactivation models to a lot (or to any two-column CSV series) and forecast
+    /// when it crosses the replacement criterion.
+    Fit(FitArgs),
+    /// Write a lot's report (self-contained HTML with charts, and CSV), or the site summary.
+    Report(ReportArgs),
+    /// The service: watch the configured export folders, ingest every file once, send alerts.
+    Watch,
+    /// Deliver the messages waiting in the outbox now (the service does this on its own).
+    Mail,
+    /// Queue the managers' digest now: every lot's state and forecast, changes, open alerts.
+    Digest,
+    /// Walk the audit chain and compare every record with the events that wrote it.
+    Verify(VerifyArgs),
+}
+
+#[derive(Debug, Args)]
+pub struct DemoArgs {
+    #[arg(long)]
+    pub dir: PathBuf,
+    /// Skip the live part (the simulated plant writing files while the service runs).
+    #[arg(long)]
+    pub no_live: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct IngestArgs {
+    #[arg(required = true)]
+    pub paths: Vec<PathBuf>,
+    /// Read every file with this export profile, wherever it lies.
+    #[arg(long)]
+    pub profile: Option<String>,
+    /// Print one JSON object per file instead of a summary.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct LotsArgs {
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct CyclesArgs {
+    pub lot: String,
+    #[arg(long, value_parser = ["table", "csv", "json"], default_value = "table")]
+    pub format: String,
+}
+
+#[derive(Debug, Args)]
+pub struct RegisterArgs {
+    pub lot: String,
+    #[arg(long)]
+    pub catalyst: String,
+    /// Element symbol of the active metal, e.g. Pd.
+    #[arg(long)]
+    pub metal: String,
+    /// Metal loading, wt %.
+    #[arg(long)]
+    pub loading: f64,
+    /// Catalyst mass charged at the first cycle, g.
+    #[arg(long)]
+    pub mass: f64,
+    /// Date received, YYYY-MM-DD.
+    #[arg(long)]
+    pub received: Option<String>,
+    #[arg(long)]
+    pub supplier_lot: Option<String>,
+    /// Lot cost net of the refining credit.
+    #[arg(long)]
+    pub cost: Option<f64>,
+    #[arg(long)]
+    pub site: Option<String>,
+    /// Why (required when changing an existing lot).
+    #[arg(long)]
+    pub reason: Option<String>,
+}
+
+#[derive(Debug, Args)]
+pub struct CorrectArgs {
+    pub batch: String,
+    /// The field, e.g. conversion (canonical units: fraction, s, K, mol, g, µg/g).
+    pub field: String,
+    pub value: f64,
+    #[arg(long)]
+    pub reason: String,
+}
+
+#[derive(Debug, Args)]
+pub struct ExcludeArgs {
+    pub batch: String,
+    #[arg(long)]
+    pub reason: String,
+    /// Take a previously excluded cycle back into the fits.
+    #[arg(long)]
+    pub undo: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct NoteArgs {
+    #[arg(long, required_unless_present = "batch")]
+    pub lot: Option<String>,
+    #[arg(long)]
+    pub batch: Option<String>,
+    pub text: String,
+}
+
+#[derive(Debug, Args)]
+pub struct SignoffArgs {
+    pub lot: String,
+    #[arg(long, value_parser = ["reviewed", "approved", "rejected"])]
+    pub meaning: String,
+    #[arg(long)]
+    pub comment: Option<String>,
+}
+
+#[derive(Debug, Args)]
+pub struct HistoryArgs {
+    pub lot: String,
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct StatusArgs {
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct FitArgs {
+    /// The lot to fit (omit with --series).
+    #[arg(required_unless_present = "series", conflicts_with = "series")]
+    pub lot: Option<String>,
+    /// A CSV file with a header row, x in the first column and y in the second.
+    #[arg(long)]
+    pub series: Option<PathBuf>,
+    /// Model id (linear, first-order, first-order-residual, second-order, power,
+    /// two-site, plateau) or auto (choice by AICc).
+    #[arg(long, default_value = "auto", requires = "series")]
+    pub model: String,
+    /// Start value of a parameter, NAME=VALUE (repeatable).
+    #[arg(long = "start", requires = "series")]
+    pub starts: Vec<String>,
+    /// The y value to forecast the crossing of.
+    #[arg(long, requires = "series")]
+    pub threshold: Option<f64>,
+    /// Confidence of the forecast interval.
+    #[arg(long, default_value_t = 0.90, requires = "series")]
+    pub confidence: f64,
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct ReportArgs {
+    #[arg(required_unless_present = "site", conflicts_with = "site")]
+    pub lot: Option<String>,
+    /// The summary of every lot instead of one lot's report.
+    #[arg(long)]
+    pub site: bool,
+    /// The HTML file to write.
+    #[arg(long)]
+    pub out: PathBuf,
+    /// Also write the cycle table as CSV here.
+    #[arg(long)]
+    pub csv: Option<PathBuf>,
+    /// Show the lot as it stood after this event number (see `history`).
+    #[arg(long, conflicts_with = "site")]
+    pub as_of: Option<i64>,
+}
+
+#[derive(Debug, Args)]
+pub struct VerifyArgs {
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// Set up tracing: readable lines on a terminal, JSON lines when asked. RUST_LOG filters.
+///
+/// The service logs each file at info level; one-shot commands only warn, since they print
+/// their own summary.
+pub fn init_logging(json: bool, service: bool) {
+    let default = if service {
+        "warn,turnbook=info"
+    } else {
+        "warn,turnbook=warn"
+    };
+    let filter = tracing_subscriber::EnvFilter::try_from_default_env()
+        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(default));
+    let builder = tracing_subscriber::fmt()
+        .with_env_filter(filter)
+        .with_writer(std::io::stderr);
+    if json {
+        builder.json().init();
+    } else {
+        builder.with_ansi(std::io::stderr().is_terminal()).init();
+    }
+}
+
+/// A failure with its exit status and the one sentence that goes first on stderr.
+#[derive(Debug)]
+pub struct Failure {
+    pub code: u8,
+    pub message: String,
+}
+
+impl Failure {
+    pub fn usage(m: impl Into<String>) -> Self {
+        Failure {
+            code: 2,
+            message: m.into(),
+        }
+    }
+    pub fn rejected(m: impl Into<String>) -> Self {
+        Failure {
+            code: 1,
+            message: m.into(),
+        }
+    }
+}
+
+/// The exit status of each kind of error, decided here and nowhere else.
+impl From<NotebookError> for Failure {
+    fn from(e: NotebookError) -> Self {
+        match e {
+            NotebookError::Usage(_) | NotebookError::Config(_) => Failure::usage(e.to_string()),
+            e => Failure::rejected(e.to_string()),
+        }
+    }
+}
+
+impl From<crate::store::StoreError> for Failure {
+    fn from(e: crate::store::StoreError) -> Self {
+        NotebookError::from(e).into()
+    }
+}
+
+impl From<std::io::Error> for Failure {
+    fn from(e: std::io::Error) -> Self {
+        NotebookError::from(e).into()
+    }
+}
+
+impl From<serde_json::Error> for Failure {
+    fn from(e: serde_json::Error) -> Self {
+        Failure::rejected(format!("cannot write JSON: {e}"))
+    }
+}
+
+/// What a verb returns: its exit status, or the failure that ended it.
+pub type CmdResult = Result<u8, Failure>;
+
+/// Run a parsed command line.
+pub fn run(cli: Cli) -> ExitCode {
+    match dispatch(&cli) {
+        Ok(code) => ExitCode::from(code),
+        Err(f) => {
+            eprintln!("turnbook: {}", f.message);
+            ExitCode::from(f.code)
+        }
+    }
+}
+
+fn load(cli: &Cli) -> Result<Config, Failure> {
+    Ok(Config::load(&cli.config).map_err(NotebookError::from)?)
+}
+
+fn dispatch(cli: &Cli) -> CmdResult {
+    match &cli.command {
+        Command::Demo(a) => demo::run(&a.dir, !a.no_live),
+        Command::Ingest(a) => ingest::ingest(load(cli)?, a),
+        Command::Lots(a) => lots::lots(&load(cli)?, a.json),
+        Command::Cycles(a) => lots::cycles(&load(cli)?, &a.lot, &a.format),
+        Command::Register(a) => entries::register(&load(cli)?, a),
+        Command::Correct(a) => entries::correct(&load(cli)?, a),
+        Command::Exclude(a) => entries::exclude(&load(cli)?, a),
+        Command::Note(a) => entries::note(&load(cli)?, a),
+        Command::Signoff(a) => entries::sign_off(&load(cli)?, a),
+        Command::History(a) => views::history(&load(cli)?, &a.lot, a.json),
+        Command::Status(a) => views::status(&load(cli)?, a.json),
+        Command::Verify(a) => ingest::verify(&load(cli)?, a.json),
+        Command::Watch => service::watch(&load(cli)?),
+        Command::Mail => service::mail(&load(cli)?),
+        Command::Digest => service::digest(&load(cli)?),
+        Command::Report(a) => report::report(&load(cli)?, a),
+        Command::Fit(a) => fit::fit(cli, a),
+    }
+}
+
+impl Command {
+    /// Long-running commands log every unit of work at info level.
+    pub fn is_service(&self) -> bool {
+        matches!(self, Command::Watch)
+    }
+}
+
+/// Text from a file or a file name, with control characters shown escaped so a terminal
+/// displays them instead of obeying them.
+pub fn printable(s: &str) -> String {
+    s.chars()
+        .map(|c| {
+            if c.is_control() {
+                c.escape_default().to_string()
+            } else {
+                c.to_string()
+            }
+        })
+        .collect()
+}
+
+/// A number with `digits` decimals, or "-" when there is none.
+pub fn fmt_opt(v: Option<f64>, digits: usize) -> String {
+    v.map_or("-".into(), |x| format!("{x:.digits$}"))
+}
+
+/// A progress bar on a terminal; hidden when stderr is not one, or JSON is printed.
+pub fn progress_bar(len: u64, quiet: bool) -> indicatif::ProgressBar {
+    if quiet || !std::io::stderr().is_terminal() {
+        return indicatif::ProgressBar::hidden();
+    }
+    let bar = indicatif::ProgressBar::new(len);
+    if let Ok(style) =
+        indicatif::ProgressStyle::with_template("{bar:40} {pos}/{len} files {per_sec} {eta}")
+    {
+        bar.set_style(style);
+    }
+    bar
+}

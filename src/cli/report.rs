@@ -1,0 +1,32 @@
+//! `turnbook report`: a lot's report (HTML, and CSV when asked) or the site summary.
+
+use super::{CmdResult, Failure, ReportArgs};
+use crate::config::Config;
+use crate::notebook::reports;
+
+/// `turnbook report`.
+pub fn report(cfg: &Config, a: &ReportArgs) -> CmdResult {
+    let conn = reports::open(cfg)?;
+    match (a.lot.as_deref(), a.site) {
+        (Some(lot), false) => {
+            reports::write_lot_as_of(&conn, cfg, lot, a.as_of, &a.out, a.csv.as_deref())?;
+            match a.as_of {
+                Some(seq) => println!(
+                    "report of lot {lot} as it stood after event {seq} written to {}",
+                    a.out.display()
+                ),
+                None => println!("report of lot {lot} written to {}", a.out.display()),
+            }
+        }
+        (None, true) => {
+            reports::write_site(&conn, cfg, &a.out)?;
+            println!("site report written to {}", a.out.display());
+        }
+        _ => {
+            return Err(Failure::usage(
+                "give a LOT, or --site for the summary of all lots",
+            ));
+        }
+    }
+    Ok(0)
+}

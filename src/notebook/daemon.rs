@@ -1,0 +1,215 @@
+//! The long-running service: the folder watcher feeding ingestion, the mailer draining the
+//! outbox and the digest on its schedule, until SIGTERM or SIGINT.
+//!
+//! Shutdown: one signal (a `watch` channel) reaches every task; the service then waits
+//! for each task it started to finish, whichever of them ended first and why.
+
+use std::path::Path;
+use std::sync::{Arc, Mutex};
+use std::time::Duration;
+
+use super::error::{NotebookError, Result};
+use super::ingestion::{FileOutcome, Ingestor};
+use crate::config::Config;
+use crate::mail::DeliveryReport;
+use crate::model::time::format_ts;
+use crate::store;
+use crate::watch::{self, FileSink, WatchFolder};
+
+/// The pipeline as the watcher's sink: one writer, one file per transaction.
+pub struct PipelineSink {
+    ingestor: Mutex<Ingestor>,
+}
+
+impl PipelineSink {
+    pub fn new(cfg: Config) -> Result<Self> {
+        let mut ingestor = Ingestor::open(cfg)?;
+        ingestor.tune_for_service()?;
+        Ok(PipelineSink {
+            ingestor: Mutex::new(ingestor),
+        })
+    }
+}
+
+impl FileSink for PipelineSink {
+    fn ingest(&self, _folder: &WatchFolder, path: &Path) -> anyhow::Result<()> {
+        let mut ing = self
+            .ingestor
+            .lock()
+            .map_err(|_| anyhow::anyhow!("the ingestor was poisoned by an earlier panic"))?;
+        if ing.skip_unchanged && ing.unchanged_since_recorded(path)? {
+            tracing::debug!(path = %path.display(), "unchanged since it was recorded; skipped");
+            return Ok(());
+        }
+        // A database error is returned so the watcher offers the file again later; a bad
+        // file is an outcome (recorded, quarantined), not an error.
+        match ing.ingest_file(path)? {
+            FileOutcome::Duplicate {
+                path, of_file_id, ..
+            } => {
+                tracing::info!(path = %path, of_file_id, "content ingested before; recorded as a duplicate")
+            }
+            FileOutcome::Rejected { path, error, .. } => {
+                tracing::warn!(path = %path, error = %error, "file rejected and quarantined")
+            }
+            FileOutcome::Ingested { .. } => {}
+        }
+        Ok(())
+    }
+}
+
+/// Run the watcher, the mailer and the digest schedule until `shutdown` turns true, or
+/// until one of them fails; then tell the others to stop and wait for every one.
+pub async fn serve(
+    cfg: &Config,
+    shutdown: tokio::sync::watch::Receiver<bool>,
+) -> Result<watch::WatchStats> {
+    let sink: Arc<dyn FileSink> = Arc::new(PipelineSink::new(cfg.clone())?);
+    // The tasks' own stop signal: the caller's shutdown, or the failure of one of them.
+    let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
+    let stop_tx = Arc::new(stop_tx);
+    let relay = tokio::spawn(relay_shutdown(shutdown, Arc::clone(&stop_tx)));
+    let db = cfg.database_path();
+    let mail = cfg.resolved_mail();
+    let mail_stop = stop_rx.clone();
+    let mail_failed = Arc::clone(&stop_tx);
+    let mailer = tokio::spawn(async move {
+        if let Err(e) = crate::mail::run_mailer(&db, &mail, mail_stop).await {
+            tracing::error!(error = %e, "the mailer stopped; stopping the service");
+            let _ = mail_failed.send(true);
+        }
+    });
+    let digest = tokio::spawn(digest_loop(cfg.clone(), stop_rx.clone()));
+    let watched = watch::run(cfg.resolved_folders(), sink, stop_rx).await;
+    // Whatever ended the watcher, every other task is told and awaited.
+    let _ = stop_tx.send(true);
+    for (name, task) in [
+        ("mailer", mailer),
+        ("digest", digest),
+        ("signal relay", relay),
+    ] {
+        if let Err(e) = task.await {
+            tracing::error!(task = name, error = %e, "a service task ended abnormally");
+        }
+    }
+    watched.map_err(|e| NotebookError::Usage(format!("cannot watch the configured folders: {e:#}")))
+}
+
+/// Pass the caller's shutdown on to the tasks' stop signal; ends when either is given.
+async fn relay_shutdown(
+    mut shutdown: tokio::sync::watch::Receiver<bool>,
+    stop: Arc<tokio::sync::watch::Sender<bool>>,
+) {
+    let mut stopped = stop.subscribe();
+    loop {
+        if *shutdown.borrow() || *stopped.borrow() {
+            let _ = stop.send(true);
+            return;
+        }
+        tokio::select! {
+            r = shutdown.changed() => if r.is_err() { return },
+            r = stopped.changed() => if r.is_err() { return },
+        }
+    }
+}
+
+/// The one async runtime builder of the notebook: two workers are plenty for a watcher,
+/// a mailer and a digest timer.
+pub fn runtime() -> Result<tokio::runtime::Runtime> {
+    tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()
+        .map_err(|e| NotebookError::Refused(format!("cannot start the async runtime: {e}")))
+}
+
+/// Run the service on the configured folders until SIGTERM or SIGINT.
+pub fn run_service(cfg: &Config) -> Result<watch::WatchStats> {
+    if cfg.folders.is_empty() {
+        return Err(NotebookError::Usage(format!(
+            "configuration {}: no [[folders]] to watch; expected at least one",
+            cfg.source.display()
+        )));
+    }
+    runtime()?.block_on(async {
+        let shutdown = watch::shutdown_receiver();
+        tracing::info!(folders = cfg.folders.len(), database = %cfg.database_path().display(), "turnbook watching");
+        let stats = serve(cfg, shutdown).await?;
+        tracing::info!(offered = stats.offered, errors = stats.sink_errors, "turnbook stopped");
+        Ok(stats)
+    })
+}
+
+/// Deliver what the outbox holds now, once.
+pub fn deliver_now(cfg: &Config) -> Result<DeliveryReport> {
+    Ok(runtime()?.block_on(crate::mail::deliver_due(
+        &cfg.database_path(),
+        &cfg.resolved_mail(),
+        chrono::Utc::now(),
+    ))?)
+}
+
+/// Compose the managers' digest for the period since the last one and queue it; returns
+/// its subject.
+pub fn queue_digest(cfg: &Config) -> Result<String> {
+    use crate::alert::digest;
+    use crate::store::outbox;
+    let mut conn = store::open(&cfg.database_path())?;
+    let now = chrono::Utc::now();
+    let from = outbox::last_digest(&conn)?.unwrap_or_else(|| now - chrono::Duration::days(7));
+    let mut snapshots = Vec::new();
+    for lot in store::lots::lot_names(&conn)? {
+        let state = super::lots::lot_state(&conn, cfg, &lot)?;
+        if let Some(s) = super::alerts::snapshot(cfg, &state) {
+            snapshots.push(s);
+        }
+    }
+    let open = outbox::open_alerts(&conn)?;
+    let changes = outbox::changes_since(&conn, &format_ts(from))?;
+    let period = digest::DigestPeriod { from, to: now };
+    let msg = digest::compose_digest(
+        &snapshots,
+        &changes,
+        &open,
+        &period,
+        &cfg.alerts.recipients.managers,
+    );
+    let tx = conn.transaction().map_err(store::StoreError::from)?;
+    let key = format!("digest|{}", format_ts(now));
+    outbox::enqueue_message(&tx, &key, &msg, &format_ts(now))?;
+    tx.commit().map_err(store::StoreError::from)?;
+    Ok(msg.subject)
+}
+
+/// Queue a digest at every slot of the configured schedule until shutdown.
+async fn digest_loop(cfg: Config, mut shutdown: tokio::sync::watch::Receiver<bool>) {
+    let Some(schedule) = cfg.alerts.digest else {
+        return;
+    };
+    loop {
+        let last = store::open(&cfg.database_path())
+            .ok()
+            .and_then(|c| store::outbox::last_digest(&c).ok().flatten());
+        let now = chrono::Utc::now();
+        let due = crate::alert::next_digest_due(last, &schedule, now);
+        let wait = (due - now).to_std().unwrap_or(Duration::ZERO);
+        if *shutdown.borrow() {
+            return;
+        }
+        tokio::select! {
+            _ = tokio::time::sleep(wait) => {}
+            _ = shutdown.changed() => return,
+        }
+        if *shutdown.borrow() {
+            return;
+        }
+        let c = cfg.clone();
+        match tokio::task::spawn_blocking(move || queue_digest(&c)).await {
+            Ok(Ok(subject)) => tracing::info!(subject = %subject, "digest queued"),
+            Ok(Err(e)) => tracing::error!(error = %e, "digest not queued"),
+            Err(e) => tracing::error!(error = %e, "digest task failed"),
+        }
+        // Never queue twice for one slot, even if the clock stepped back.
+        tokio::time::sleep(Duration::from_secs(1)).await;
+    }
+}

@@ -1,0 +1,150 @@
+//! Entries people make by hand: a lot's registration, a correction, an exclusion, a note
+//! and a sign-off. Each is one event of the audit trail, written in one transaction with
+//! the rows it changes and the recomputation of the lot it concerns.
+
+use std::collections::BTreeSet;
+
+use super::error::{NotebookError, Result};
+use super::history::lot_fingerprint;
+use super::lots::recompute_lots;
+use crate::config::Config;
+use crate::model::time::now_utc;
+use crate::model::{LotRecord, Payload};
+use crate::store::{self, Transaction, records};
+
+/// What an entry wrote: the event's sequence number and who made it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Receipt {
+    pub seq: i64,
+    pub actor: String,
+}
+
+/// A lot's registration as written: new or a change of an existing one.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Registered {
+    pub receipt: Receipt,
+    pub changed: bool,
+}
+
+/// A sign-off as written, with what it covers.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SignedOff {
+    pub receipt: Receipt,
+    pub covers: String,
+    pub sha256: String,
+}
+
+/// Open the database and run one entry in an immediate transaction.
+fn write_entry<T>(
+    cfg: &Config,
+    work: impl FnOnce(&Transaction<'_>, &str, &str) -> store::Result<T>,
+) -> Result<(T, String)> {
+    let mut conn = store::open(&cfg.database_path())?;
+    let actor = crate::audit::actor(cfg.actor.as_deref());
+    let at = now_utc();
+    let tx = store::immediate(&mut conn)?;
+    let out = work(&tx, &actor, &at)?;
+    tx.commit().map_err(store::StoreError::from)?;
+    Ok((out, actor))
+}
+
+fn lot_of_batch(tx: &Transaction<'_>, batch: &str) -> store::Result<BTreeSet<String>> {
+    Ok(records::cycle(tx, batch)?
+        .and_then(|c| c.lot)
+        .into_iter()
+        .collect())
+}
+
+/// Register a lot, or change its registration (`reason` required then).
+pub fn register(cfg: &Config, rec: &LotRecord, reason: Option<&str>) -> Result<Registered> {
+    crate::chem::check_lot(rec).map_err(|p| {
+        NotebookError::Usage(
+            format!("--{}: expected {}", p.field.key(), p.expected)
+                .replace("--charged_mass", "--mass"),
+        )
+    })?;
+    let ((seq, changed), actor) = write_entry(cfg, |tx, actor, at| {
+        let exists = records::lot(tx, &rec.lot)?.is_some();
+        if exists && reason.is_none() {
+            return Err(store::StoreError::Invalid(format!(
+                "lot '{}' is already registered; give --reason to change its registration",
+                rec.lot
+            )));
+        }
+        let seq = records::register_lot(tx, rec, reason, actor, at)?;
+        recompute_lots(tx, cfg, &[rec.lot.clone()].into(), actor)?;
+        Ok((seq, exists))
+    })?;
+    Ok(Registered {
+        receipt: Receipt { seq, actor },
+        changed,
+    })
+}
+
+/// Correct one value of a batch, with the reason.
+pub fn correct(
+    cfg: &Config,
+    batch: &str,
+    field: &str,
+    value: f64,
+    reason: &str,
+) -> Result<Receipt> {
+    let (seq, actor) = write_entry(cfg, |tx, actor, at| {
+        let lots = lot_of_batch(tx, batch)?;
+        let seq = records::correct(tx, batch, field, value, reason, actor, at)?;
+        recompute_lots(tx, cfg, &lots, actor)?;
+        Ok(seq)
+    })?;
+    Ok(Receipt { seq, actor })
+}
+
+/// Exclude a batch from the fits (or take it back in with `exclude` false).
+pub fn exclude(cfg: &Config, batch: &str, exclude: bool, reason: &str) -> Result<Receipt> {
+    let (seq, actor) = write_entry(cfg, |tx, actor, at| {
+        let lots = lot_of_batch(tx, batch)?;
+        let seq = records::set_excluded(tx, batch, exclude, reason, actor, at)?;
+        recompute_lots(tx, cfg, &lots, actor)?;
+        Ok(seq)
+    })?;
+    Ok(Receipt { seq, actor })
+}
+
+/// A free-text note on a lot or a batch.
+pub fn note(cfg: &Config, lot: Option<&str>, batch: Option<&str>, text: &str) -> Result<Receipt> {
+    let (seq, actor) = write_entry(cfg, |tx, actor, at| {
+        let subject = lot.or(batch).unwrap_or_default();
+        let p = Payload::Note {
+            lot: lot.map(str::to_string),
+            batch_id: batch.map(str::to_string),
+            text: text.to_string(),
+        };
+        records::append_event(tx, subject, &p, actor, at)
+    })?;
+    Ok(Receipt { seq, actor })
+}
+
+/// Sign off a lot's history as it stands, with a meaning such as "reviewed".
+pub fn sign_off(
+    cfg: &Config,
+    lot: &str,
+    meaning: &str,
+    comment: Option<&str>,
+) -> Result<SignedOff> {
+    let ((seq, covers, sha256), actor) = write_entry(cfg, |tx, actor, at| {
+        let (what, sha) = lot_fingerprint(tx, lot)?;
+        let p = Payload::SignOff {
+            lot: lot.to_string(),
+            meaning: meaning.to_string(),
+            signed_sha256: sha.clone(),
+            what: what.clone(),
+            comment: comment.map(str::to_string),
+        };
+        let seq = records::append_event(tx, lot, &p, actor, at)?;
+        Ok((seq, what, sha))
+    })?;
+    Ok(SignedOff {
+        receipt: Receipt { seq, actor },
+        covers,
+        sha256,
+    })
+}

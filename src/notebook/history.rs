@@ -1,0 +1,127 @@
+//! Read-only views for people and scripts: status, history, and the fingerprint that a
+//! sign-off covers.
+
+use serde::Serialize;
+use sha2::{Digest, Sha256};
+
+use super::error::{NotebookError, Result as NResult};
+use crate::config::Config;
+use crate::model::time::format_ts;
+use crate::store::{self, Connection};
+
+/// What `status` reports.
+#[derive(Debug, Serialize)]
+pub struct Status {
+    pub database: String,
+    pub files_ingested: i64,
+    pub files_ingested_last_hour: i64,
+    pub files_ingested_last_day: i64,
+    pub last_file: Option<String>,
+    pub last_ingest_at: Option<String>,
+    pub files_quarantined: i64,
+    pub duplicates: i64,
+    pub conflicts: i64,
+    pub lots: i64,
+    pub cycles: i64,
+    pub pending_cycles: i64,
+    pub lots_needing_attention: Vec<String>,
+    pub outbox_waiting: i64,
+}
+
+/// Gather the status figures.
+pub fn gather_status(conn: &Connection, cfg: &Config) -> store::Result<Status> {
+    let now = chrono::Utc::now();
+    let hour = format_ts(now - chrono::Duration::hours(1));
+    let day = format_ts(now - chrono::Duration::days(1));
+    let files = store::queries::file_counts(conn, &hour, &day)?;
+    let records = store::queries::record_counts(conn)?;
+    Ok(Status {
+        database: cfg.database_path().display().to_string(),
+        files_ingested: files.ingested,
+        files_ingested_last_hour: files.ingested_last_hour,
+        files_ingested_last_day: files.ingested_last_day,
+        last_file: files.last.as_ref().map(|l| l.0.clone()),
+        last_ingest_at: files.last.map(|l| l.1),
+        files_quarantined: files.quarantined,
+        duplicates: files.duplicates,
+        conflicts: records.conflicts,
+        lots: records.lots,
+        cycles: records.cycles,
+        pending_cycles: records.pending_cycles,
+        lots_needing_attention: crate::notebook::lots::lots_needing_attention(conn, cfg)?,
+        outbox_waiting: store::outbox::waiting(conn)?,
+    })
+}
+
+/// The status of the notebook `cfg` names.
+pub fn status(cfg: &Config) -> NResult<Status> {
+    let conn = store::open(&cfg.database_path())?;
+    Ok(gather_status(&conn, cfg)?)
+}
+
+/// One event as shown in a history.
+#[derive(Debug, Serialize)]
+pub struct HistoryEntry {
+    pub seq: i64,
+    pub at: String,
+    pub actor: String,
+    pub kind: String,
+    pub subject: String,
+    pub payload: serde_json::Value,
+    pub hash: String,
+}
+
+/// Every event that concerns a lot: its registrations, the files that brought its cycles,
+/// corrections, exclusions, notes and sign-offs of its batches.
+pub fn lot_history(conn: &Connection, lot: &str) -> store::Result<Vec<HistoryEntry>> {
+    Ok(store::queries::lot_events(conn, lot)?
+        .into_iter()
+        .map(|e| HistoryEntry {
+            seq: e.seq,
+            at: e.at,
+            actor: e.actor,
+            kind: e.kind,
+            subject: e.subject,
+            payload: serde_json::from_str(&e.payload)
+                .unwrap_or(serde_json::Value::String(e.payload)),
+            hash: e.hash,
+        })
+        .collect())
+}
+
+/// A lot's history; refused when no event concerns the lot.
+pub fn history(cfg: &Config, lot: &str) -> NResult<Vec<HistoryEntry>> {
+    let conn = store::open(&cfg.database_path())?;
+    let h = lot_history(&conn, lot)?;
+    if h.is_empty() {
+        return Err(NotebookError::Refused(format!(
+            "no events concern lot '{lot}'"
+        )));
+    }
+    Ok(h)
+}
+
+/// What a sign-off of a lot covers: the hashes of every event concerning the lot except
+/// sign-offs themselves, in order. Returns a description and its SHA-256.
+pub fn lot_fingerprint(conn: &Connection, lot: &str) -> store::Result<(String, String)> {
+    let h = lot_history(conn, lot)?;
+    let covered: Vec<&HistoryEntry> = h.iter().filter(|e| e.kind != "sign-off").collect();
+    if covered.is_empty() {
+        return Err(store::StoreError::Invalid(format!(
+            "no history to sign for lot '{lot}'"
+        )));
+    }
+    let mut sha = Sha256::new();
+    for e in &covered {
+        sha.update(e.hash.as_bytes());
+        sha.update(b"\n");
+    }
+    let last = covered.last().map_or(0, |e| e.seq);
+    Ok((
+        format!(
+            "history of lot {lot}: {} events up to #{last}",
+            covered.len()
+        ),
+        hex::encode(sha.finalize()),
+    ))
+}

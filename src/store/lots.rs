@@ -1,0 +1,215 @@
+//! Reads of a lot's records, as they stand or as they stood after an event, and the
+//! stored fits.
+
+use std::collections::HashMap;
+
+use rusqlite::{Connection, OptionalExtension, Transaction};
+use serde::Serialize;
+
+use super::{Result, records};
+use crate::model::cycle::CycleView;
+use crate::model::event::LotRecord;
+
+/// Where a cycle's values came from.
+#[derive(Debug, Clone, Serialize)]
+pub struct SourceRef {
+    pub file_id: i64,
+    pub path: String,
+    pub sha256: String,
+    /// Lines of that file the values were read from.
+    pub lines: Vec<i64>,
+}
+
+pub fn sources_of(conn: &Connection, batch: &str, as_of: i64) -> Result<Vec<SourceRef>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT f.id, f.path, f.sha256, b.line FROM batch_sources b JOIN source_files f ON f.id = b.source_file_id
+         WHERE b.batch_id = ?1 AND b.event_seq <= ?2 ORDER BY f.id, b.line",
+    )?;
+    let rows = stmt.query_map(rusqlite::params![batch, as_of], |r| {
+        Ok((
+            r.get::<_, i64>(0)?,
+            r.get::<_, String>(1)?,
+            r.get::<_, String>(2)?,
+            r.get::<_, Option<i64>>(3)?,
+        ))
+    })?;
+    let mut out: Vec<SourceRef> = Vec::new();
+    for row in rows {
+        add_source(&mut out, row?);
+    }
+    Ok(out)
+}
+
+/// The sources of every batch of a lot in one query (the recompute path), by batch id.
+pub fn sources_of_lot(conn: &Connection, lot: &str) -> Result<HashMap<String, Vec<SourceRef>>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT b.batch_id, f.id, f.path, f.sha256, b.line
+         FROM cycles c JOIN batch_sources b ON b.batch_id = c.batch_id
+         JOIN source_files f ON f.id = b.source_file_id
+         WHERE c.lot = ?1 ORDER BY b.batch_id, f.id, b.line",
+    )?;
+    let rows = stmt.query_map([lot], |r| {
+        Ok((
+            r.get::<_, String>(0)?,
+            (
+                r.get::<_, i64>(1)?,
+                r.get::<_, String>(2)?,
+                r.get::<_, String>(3)?,
+                r.get::<_, Option<i64>>(4)?,
+            ),
+        ))
+    })?;
+    let mut out: HashMap<String, Vec<SourceRef>> = HashMap::new();
+    for row in rows {
+        let (batch, src) = row?;
+        add_source(out.entry(batch).or_default(), src);
+    }
+    Ok(out)
+}
+
+fn add_source(out: &mut Vec<SourceRef>, (id, path, sha, line): (i64, String, String, Option<i64>)) {
+    match out.last_mut() {
+        Some(s) if s.file_id == id => {
+            if let Some(l) = line
+                && !s.lines.contains(&l)
+            {
+                s.lines.push(l);
+            }
+        }
+        _ => out.push(SourceRef {
+            file_id: id,
+            path,
+            sha256: sha,
+            lines: line.into_iter().collect(),
+        }),
+    }
+}
+
+/// The lot's registration as it stood after event `as_of`, replayed from the events.
+pub fn lot_record_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Option<LotRecord>> {
+    let mut stmt = conn.prepare(
+        "SELECT payload FROM events WHERE seq <= ?1 AND kind IN ('lot-registered', 'file-ingested') ORDER BY seq",
+    )?;
+    let mut found = None;
+    let rows = stmt.query_map([as_of], |r| r.get::<_, String>(0))?;
+    for body in rows {
+        match serde_json::from_str::<crate::model::Payload>(&body?)? {
+            crate::model::Payload::LotRegistered { lot: l, .. } if l.lot == lot => found = Some(l),
+            crate::model::Payload::FileIngested { lots, .. } => {
+                if let Some(l) = lots.into_iter().rev().find(|l| l.lot == lot) {
+                    found = Some(l);
+                }
+            }
+            _ => {}
+        }
+    }
+    Ok(found)
+}
+
+/// The lot's cycles as they stood after event `as_of`: every measurement and exclusion up
+/// to that event, through the same derivation as the current view.
+pub fn cycles_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Vec<CycleView>> {
+    let mut stmt = conn.prepare(
+        "SELECT DISTINCT batch_id FROM batch_sources WHERE event_seq <= ?1 ORDER BY batch_id",
+    )?;
+    let batches = stmt
+        .query_map([as_of], |r| r.get::<_, String>(0))?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    let mut out = Vec::new();
+    for b in batches {
+        let rows = records::measurements_up_to(conn, &b, as_of)?;
+        let first_seq = rows.iter().map(|r| r.1).min().unwrap_or(0);
+        let rows: Vec<_> = rows.into_iter().map(|r| r.0).collect();
+        let excluded = conn
+            .query_row(
+                "SELECT payload FROM events WHERE kind = 'exclusion' AND subject = ?1 AND seq <= ?2 ORDER BY seq DESC LIMIT 1",
+                rusqlite::params![b, as_of],
+                |r| r.get::<_, String>(0),
+            )
+            .optional()?
+            .and_then(|p| serde_json::from_str::<serde_json::Value>(&p).ok())
+            .and_then(|v| v["excluded"].as_bool())
+            .unwrap_or(false);
+        let v = crate::model::cycle::derive_cycle(&b, &rows, excluded, first_seq);
+        if v.lot.as_deref() == Some(lot) {
+            out.push(v);
+        }
+    }
+    out.sort_by(|a, b| {
+        (a.cycle_no.is_none(), a.cycle_no, &a.started_at, a.first_seq).cmp(&(
+            b.cycle_no.is_none(),
+            b.cycle_no,
+            &b.started_at,
+            b.first_seq,
+        ))
+    });
+    Ok(out)
+}
+
+/// Every lot name that has a registration or cycles.
+pub fn lot_names(conn: &Connection) -> Result<Vec<String>> {
+    let mut stmt = conn.prepare(
+        "SELECT lot FROM lots UNION SELECT lot FROM cycles WHERE lot IS NOT NULL ORDER BY 1",
+    )?;
+    let rows = stmt
+        .query_map([], |r| r.get(0))?
+        .collect::<std::result::Result<Vec<String>, _>>()?;
+    Ok(rows)
+}
+
+/// The newest event that wrote records of a lot.
+pub fn newest_seq_of(conn: &Connection, lot: &str) -> Result<i64> {
+    // Each part is an index-only lookup: batch_sources by (batch_id, event_seq), lots by
+    // name, exclusions through their partial index.
+    Ok(conn
+        .prepare_cached(
+            "SELECT MAX(s) FROM (
+             SELECT (SELECT MAX(b.event_seq) FROM batch_sources b WHERE b.batch_id = c.batch_id) AS s
+                 FROM cycles c WHERE c.lot = ?1
+             UNION ALL SELECT event_seq FROM lots WHERE lot = ?1
+             UNION ALL SELECT MAX(e.seq) FROM cycles c JOIN events e
+                 ON e.subject = c.batch_id AND e.kind = 'exclusion' WHERE c.lot = ?1)",
+        )?
+        .query_row([lot], |r| r.get::<_, Option<i64>>(0))?
+        .unwrap_or(0))
+}
+
+/// One row of `fits`: the analysis of `lot` as computed after event `after`.
+#[allow(clippy::too_many_arguments)]
+pub fn store_fit(
+    tx: &Transaction<'_>,
+    lot: &str,
+    after: i64,
+    basis: &str,
+    model: Option<&str>,
+    analysis_json: &str,
+    engine_version: &str,
+    at: &str,
+) -> Result<()> {
+    tx.prepare_cached(
+        "INSERT INTO fits(lot, computed_at, after_seq, engine_version, basis, model, analysis)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
+    )?
+    .execute(rusqlite::params![
+        lot,
+        at,
+        after,
+        engine_version,
+        basis,
+        model,
+        analysis_json
+    ])?;
+    Ok(())
+}
+
+/// The event after which a lot was last fitted, if ever.
+pub fn fitted_after(conn: &Connection, lot: &str) -> Result<Option<i64>> {
+    Ok(conn
+        .query_row(
+            "SELECT MAX(after_seq) FROM fits WHERE lot = ?1",
+            [lot],
+            |r| r.get(0),
+        )
+        .optional()?
+        .flatten())
+}

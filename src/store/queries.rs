@@ -1,0 +1,134 @@
+//! Counts and event lists for the status and history views.
+
+use rusqlite::{Connection, OptionalExtension};
+
+use super::Result;
+
+/// Files by outcome.
+#[derive(Debug, Clone, Default)]
+pub struct FileCounts {
+    pub ingested: i64,
+    pub ingested_last_hour: i64,
+    pub ingested_last_day: i64,
+    pub quarantined: i64,
+    pub duplicates: i64,
+    /// Path and time of the newest ingested file.
+    pub last: Option<(String, String)>,
+}
+
+/// Records by kind.
+#[derive(Debug, Clone, Default)]
+pub struct RecordCounts {
+    pub conflicts: i64,
+    pub lots: i64,
+    pub cycles: i64,
+    /// Cycles whose lot is unknown or not registered.
+    pub pending_cycles: i64,
+}
+
+/// One stored event, as stored.
+#[derive(Debug, Clone)]
+pub struct EventRow {
+    pub seq: i64,
+    pub at: String,
+    pub actor: String,
+    pub kind: String,
+    pub subject: String,
+    pub payload: String,
+    pub hash: String,
+}
+
+fn count(conn: &Connection, sql: &str, p: impl rusqlite::Params) -> Result<i64> {
+    Ok(conn.query_row(sql, p, |r| r.get(0))?)
+}
+
+/// File counts; `hour` and `day` are the stored timestamps an hour and a day ago.
+pub fn file_counts(conn: &Connection, hour: &str, day: &str) -> Result<FileCounts> {
+    let ing = "SELECT COUNT(*) FROM source_files WHERE outcome = 'ingested'";
+    let last = conn
+        .query_row(
+            "SELECT path, seen_at FROM source_files WHERE outcome = 'ingested' ORDER BY id DESC LIMIT 1",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .optional()?;
+    let by_outcome = |o: &str| {
+        count(
+            conn,
+            "SELECT COUNT(*) FROM source_files WHERE outcome = ?1",
+            [o],
+        )
+    };
+    Ok(FileCounts {
+        ingested: count(conn, ing, [])?,
+        ingested_last_hour: count(conn, &format!("{ing} AND seen_at >= ?1"), [hour])?,
+        ingested_last_day: count(conn, &format!("{ing} AND seen_at >= ?1"), [day])?,
+        quarantined: by_outcome("rejected")?,
+        duplicates: by_outcome("duplicate")?,
+        last,
+    })
+}
+
+/// Record counts.
+pub fn record_counts(conn: &Connection) -> Result<RecordCounts> {
+    Ok(RecordCounts {
+        conflicts: count(conn, "SELECT COALESCE(SUM(conflicts), 0) FROM cycles", [])?,
+        lots: count(conn, "SELECT COUNT(*) FROM lots", [])?,
+        cycles: count(conn, "SELECT COUNT(*) FROM cycles", [])?,
+        pending_cycles: count(
+            conn,
+            "SELECT COUNT(*) FROM cycles c WHERE c.lot IS NULL OR NOT EXISTS (SELECT 1 FROM lots l WHERE l.lot = c.lot)",
+            [],
+        )?,
+    })
+}
+
+/// Every event that concerns a lot: its registrations, the files that brought its cycles,
+/// corrections, exclusions, notes and sign-offs of its batches, in order.
+pub fn lot_events(conn: &Connection, lot: &str) -> Result<Vec<EventRow>> {
+    let mut stmt = conn.prepare(
+        "SELECT e.seq, e.at, e.actor, e.kind, e.subject, e.payload, e.hash FROM events e
+         WHERE e.subject = ?1
+            OR e.subject IN (SELECT batch_id FROM cycles WHERE lot = ?1)
+            OR e.seq IN (SELECT b.event_seq FROM batch_sources b JOIN cycles c ON c.batch_id = b.batch_id WHERE c.lot = ?1)
+            OR (e.kind = 'file-ingested' AND EXISTS (
+                    SELECT 1 FROM json_each(e.payload, '$.lots') j WHERE json_extract(j.value, '$.lot') = ?1))
+         ORDER BY e.seq",
+    )?;
+    let rows = stmt
+        .query_map([lot], |r| {
+            Ok(EventRow {
+                seq: r.get(0)?,
+                at: r.get(1)?,
+                actor: r.get(2)?,
+                kind: r.get(3)?,
+                subject: r.get(4)?,
+                payload: r.get(5)?,
+                hash: r.get(6)?,
+            })
+        })?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
+}
+
+/// The id of the newest file record, 0 when none.
+pub fn newest_file_id(conn: &Connection) -> Result<i64> {
+    Ok(
+        conn.query_row("SELECT COALESCE(MAX(id), 0) FROM source_files", [], |r| {
+            r.get(0)
+        })?,
+    )
+}
+
+/// Files recorded after id `after`: (id, path, outcome, new rows), oldest first.
+pub fn files_after(conn: &Connection, after: i64) -> Result<Vec<(i64, String, String, i64)>> {
+    let mut stmt = conn.prepare(
+        "SELECT id, path, outcome, rows_new FROM source_files WHERE id > ?1 ORDER BY id",
+    )?;
+    let rows = stmt
+        .query_map([after], |r| {
+            Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?))
+        })?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
+}

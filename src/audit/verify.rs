@@ -3,15 +3,14 @@
 
 use std::collections::{BTreeMap, HashMap};
 
-use rusqlite::{Connection, OptionalExtension};
 use serde::Serialize;
 
 use crate::model::Payload;
 use crate::model::chain::{GENESIS, event_hash};
 use crate::model::cycle::{self as view, CYCLE_COLUMNS};
 use crate::model::event::{FileRow, LotRecord, MeasurementRow};
-use crate::store::Result;
 use crate::store::records::{all_cycles, all_lots};
+use crate::store::{self, Connection, Result};
 
 /// One discrepancy.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -131,22 +130,21 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
     let mut first_seq: HashMap<String, i64> = HashMap::new();
 
     // 1. The chain itself.
-    let mut stmt = conn.prepare(
-        "SELECT seq, at, actor, kind, subject, payload, prev_hash, hash FROM events ORDER BY seq",
-    )?;
-    let mut rows = stmt.query([])?;
     let mut prev = GENESIS.to_string();
     let mut expected_seq = 1i64;
     let mut count = 0i64;
-    while let Some(r) = rows.next()? {
-        let seq: i64 = r.get(0)?;
-        let at: String = r.get(1)?;
-        let actor: String = r.get(2)?;
-        let kind: String = r.get(3)?;
-        let subject: String = r.get(4)?;
-        let body: String = r.get(5)?;
-        let prev_hash: String = r.get(6)?;
-        let hash: String = r.get(7)?;
+    let mut stopped = false;
+    store::replay::for_each_event(conn, |e| {
+        let store::replay::StoredEvent {
+            seq,
+            at,
+            actor,
+            kind,
+            subject,
+            payload: body,
+            prev_hash,
+            hash,
+        } = e;
         count += 1;
         if seq != expected_seq {
             push(
@@ -157,19 +155,13 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
                 seq,
                 format!("{expected_seq} (an event is missing)"),
             );
-            return Ok(VerifyReport {
-                events: count,
-                head_hash: prev,
-                findings,
-            });
+            stopped = true;
+            return Ok(false);
         }
         if prev_hash != prev {
             push(&mut findings, "events", seq, "prev_hash", &prev_hash, &prev);
-            return Ok(VerifyReport {
-                events: count,
-                head_hash: prev,
-                findings,
-            });
+            stopped = true;
+            return Ok(false);
         }
         let recomputed = event_hash(&prev, seq, &at, &actor, &kind, &subject, &body);
         if recomputed != hash {
@@ -181,11 +173,8 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
                 &hash,
                 format!("{recomputed} (the event's content was altered)"),
             );
-            return Ok(VerifyReport {
-                events: count,
-                head_hash: prev,
-                findings,
-            });
+            stopped = true;
+            return Ok(false);
         }
         let payload: Payload = match serde_json::from_str(&body) {
             Ok(p) => p,
@@ -198,11 +187,8 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
                     "unreadable",
                     format!("a valid payload ({e})"),
                 );
-                return Ok(VerifyReport {
-                    events: count,
-                    head_hash: prev,
-                    findings,
-                });
+                stopped = true;
+                return Ok(false);
             }
         };
         if payload.kind() != kind {
@@ -244,38 +230,18 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
         }
         prev = hash;
         expected_seq += 1;
+        Ok(true)
+    })?;
+    if stopped {
+        return Ok(VerifyReport {
+            events: count,
+            head_hash: prev,
+            findings,
+        });
     }
-    drop(rows);
-    drop(stmt);
 
     // 3. Stored tables against the replay.
-    let mut stmt = conn.prepare(
-        "SELECT id, sha256, path, size, mtime, profile, site, seen_at, outcome, error,
-                rows_new, rows_known, rows_conflict, quarantined, event_seq FROM source_files ORDER BY id",
-    )?;
-    let stored_files = stmt
-        .query_map([], |r| {
-            Ok((
-                FileRow {
-                    id: r.get(0)?,
-                    sha256: r.get(1)?,
-                    path: r.get(2)?,
-                    size: r.get(3)?,
-                    mtime: r.get(4)?,
-                    profile: r.get(5)?,
-                    site: r.get(6)?,
-                    seen_at: r.get(7)?,
-                    outcome: r.get(8)?,
-                    error: r.get(9)?,
-                    rows_new: r.get(10)?,
-                    rows_known: r.get(11)?,
-                    rows_conflict: r.get(12)?,
-                    quarantined: r.get(13)?,
-                },
-                r.get::<_, i64>(14)?,
-            ))
-        })?
-        .collect::<std::result::Result<Vec<_>, _>>()?;
+    let stored_files = store::replay::file_rows(conn)?;
     compare_keyed(
         &mut findings,
         "source_files",
@@ -288,13 +254,7 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
 
     // Measurement ids are counted in `id_counters`; the next one must lie past every id
     // the events hold, or a later value would take an id already given.
-    let next_measurement: Option<i64> = conn
-        .query_row(
-            "SELECT next FROM id_counters WHERE name = 'measurement'",
-            [],
-            |r| r.get(0),
-        )
-        .optional()?;
+    let next_measurement = store::replay::next_measurement_id(conn)?;
     let max_id = measurements.keys().next_back().copied().unwrap_or(0);
     match next_measurement {
         Some(n) if n > max_id => {}
@@ -324,22 +284,19 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
             .or_default()
             .push(m.clone());
     }
-    let mut stmt = conn.prepare(
-        "SELECT batch_id, event_seq, line, source_file_id FROM batch_sources
-         ORDER BY batch_id, event_seq, line",
-    )?;
-    let stored_links = stmt
-        .query_map([], |r| {
-            Ok((
+    let stored_links: Vec<(SourceLink, i64)> = store::replay::source_links(conn)?
+        .into_iter()
+        .map(|(batch_id, seq, line, source_file_id)| {
+            (
                 SourceLink {
-                    batch_id: r.get(0)?,
-                    line: r.get(2)?,
-                    source_file_id: r.get(3)?,
+                    batch_id,
+                    line,
+                    source_file_id,
                 },
-                r.get::<_, i64>(1)?,
-            ))
-        })?
-        .collect::<std::result::Result<Vec<_>, _>>()?;
+                seq,
+            )
+        })
+        .collect();
     compare_keyed(
         &mut findings,
         "batch_sources",
@@ -351,10 +308,7 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
     );
 
     let stored_lots: BTreeMap<String, (LotRecord, i64)> = {
-        let mut stmt = conn.prepare("SELECT lot, event_seq FROM lots")?;
-        let seqs: HashMap<String, i64> = stmt
-            .query_map([], |r| Ok((r.get::<_, String>(0)?, r.get::<_, i64>(1)?)))?
-            .collect::<std::result::Result<_, _>>()?;
+        let seqs: HashMap<String, i64> = store::replay::lot_event_seqs(conn)?;
         all_lots(conn)?
             .into_iter()
             .map(|l| {

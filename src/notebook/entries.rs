@@ -6,7 +6,7 @@ use std::collections::BTreeSet;
 
 use super::error::{NotebookError, Result};
 use super::history::lot_fingerprint;
-use super::lots::recompute_lots;
+use super::recompute::recompute_lots;
 use crate::config::Config;
 use crate::model::time::now_utc;
 use crate::model::{LotRecord, Payload};

@@ -10,8 +10,6 @@ use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, AtomicI64, AtomicUsize, Ordering};
 use std::sync::{Arc, mpsc};
 
-use rusqlite::hooks::Wal;
-use rusqlite::{Connection, TransactionBehavior};
 use serde::Serialize;
 use sha2::{Digest, Sha256};
 
@@ -20,7 +18,7 @@ use crate::audit;
 use crate::config::Config;
 use crate::ingest::{self, ParseCache, ParsedFile};
 use crate::store::records::{self, FileFacts, NextIds, StoredFile};
-use crate::store::{self, StoreError};
+use crate::store::{self, Connection, StoreError, bulk};
 use crate::watch::WatchFolder;
 
 /// What became of one file.
@@ -183,20 +181,19 @@ impl Ingestor {
         // A group writes through about a dozen distinct statements, and recomputing a lot
         // through more: keep them all prepared. A larger page cache keeps the hash indexes
         // (random order by nature) in memory during a backfill.
-        conn.set_prepared_statement_cache_capacity(STATEMENT_CACHE);
-        conn.pragma_update(None, "cache_size", PAGE_CACHE_KIB)?;
+        //
         // Checkpoint the write-ahead log every 128 MB rather than every 1,000 pages: a page
         // changed by many groups is copied into the database once, and a checkpoint's disk
         // syncs are paid less often. Commits still sync the log (durability is unchanged);
         // the log only grows larger on disk between checkpoints.
-        let page_size: i64 = conn.query_row("PRAGMA page_size", [], |r| r.get(0))?;
-        conn.pragma_update(
-            None,
-            "wal_autocheckpoint",
-            WAL_CHECKPOINT_BYTES / page_size.max(512),
+        bulk::tune_writer(
+            &mut conn,
+            STATEMENT_CACHE,
+            PAGE_CACHE_KIB,
+            WAL_CHECKPOINT_BYTES,
         )?;
         // Heal an interrupted backfill: lots whose fit is older than their records.
-        let healed = crate::notebook::lots::recompute_stale(&mut conn, &cfg, &actor)?;
+        let healed = crate::notebook::recompute::recompute_stale(&mut conn, &cfg, &actor)?;
         if healed > 0 {
             tracing::info!(
                 lots = healed,
@@ -219,9 +216,7 @@ impl Ingestor {
     /// page cache and SQLite's default checkpoint interval keep an idle service small
     /// (the large cache only pays off in a backfill).
     pub fn tune_for_service(&mut self) -> Result<(), StoreError> {
-        self.conn.pragma_update(None, "cache_size", -4096)?;
-        self.conn
-            .pragma_update(None, "wal_autocheckpoint", SERVICE_WAL_CHECKPOINT_PAGES)?;
+        bulk::tune_service(&self.conn, -4096, SERVICE_WAL_CHECKPOINT_PAGES)?;
         self.skip_unchanged = true;
         Ok(())
     }
@@ -243,16 +238,12 @@ impl Ingestor {
             chrono::DateTime::<chrono::Utc>::from(t)
                 .to_rfc3339_opts(chrono::SecondsFormat::Millis, true)
         });
-        let n: i64 = self
-            .conn
-            .prepare_cached(
-                "SELECT COUNT(*) FROM source_files WHERE path = ?1 AND size = ?2 AND mtime IS ?3",
-            )?
-            .query_row(
-                rusqlite::params![recorded_path(path), meta.len() as i64, mtime],
-                |r| r.get(0),
-            )?;
-        Ok(n > 0)
+        bulk::recorded_unchanged(
+            &self.conn,
+            &recorded_path(path),
+            meta.len() as i64,
+            mtime.as_deref(),
+        )
     }
 
     /// Ingest one file in its own transaction (the service's unit of work): its records,
@@ -292,29 +283,22 @@ impl Ingestor {
         // power cut mid-run can lose only groups not yet synced, whose files are then
         // unrecorded and read again by the next run: nothing lost, nothing twice. (WAL
         // keeps the database whole either way; a process crash loses nothing at all.)
-        self.conn.pragma_update(None, "synchronous", "NORMAL")?;
+        bulk::set_full_sync(&self.conn, false)?;
         let db_path = self.cfg.database_path();
         let part_bytes = self.part_bytes;
         let committed = AtomicUsize::new(0);
         // Checkpoints: the log hook counts the log's frames after each commit (and, being
         // the hook, stops SQLite's own checkpoints for the run; they are restored below).
-        let page_size: i64 = self.conn.query_row("PRAGMA page_size", [], |r| r.get(0))?;
+        let page_size = bulk::page_size(&self.conn)?;
         let checkpoint_frames = (self.checkpoint_bytes / page_size.max(512)).max(1);
-        let autocheckpoint: i64 = self
-            .conn
-            .query_row("PRAGMA wal_autocheckpoint", [], |r| r.get(0))?;
+        let autocheckpoint = bulk::autocheckpoint(&self.conn)?;
         let copied = AtomicBool::new(false);
         let mut writer = Writer::new(&mut self.conn, &self.cfg, &self.actor);
-        writer.version_at_start = Some(data_version(writer.conn)?);
+        writer.version_at_start = Some(bulk::data_version(writer.conn)?);
         let start_version = writer.version_at_start;
         let log_frames = Arc::new(AtomicI64::new(0));
         let frames = Arc::clone(&log_frames);
-        writer
-            .conn
-            .wal_hook(Some(move |_: &mut Wal, pages: std::ffi::c_int| {
-                frames.store(i64::from(pages), Ordering::Relaxed);
-                Ok(())
-            }))?;
+        bulk::count_log_frames(writer.conn, frames)?;
         let stored = std::thread::scope(|scope| -> Result<(), StoreError> {
             let (copy_tx, copy_rx) = mpsc::channel::<()>();
             {
@@ -340,7 +324,7 @@ impl Ingestor {
                 scope.spawn(move || {
                     // Hash lookups on the reader's own connection take them off the writer;
                     // without it (an error), the writer looks each hash up itself.
-                    let mut conn = open_for_lookups(db_path)
+                    let mut conn = bulk::open_for_lookups(db_path)
                         .inspect_err(|e| tracing::debug!(error = %e, "reader looks up no hashes"))
                         .ok();
                     // Files of one instrument share a header row: resolve it once a thread.
@@ -399,13 +383,13 @@ impl Ingestor {
                         if copied.swap(false, Ordering::AcqRel) {
                             // What this thread appended while the other copied: the log
                             // is then wholly in the database and starts over.
-                            checkpoint(writer.conn)?;
+                            bulk::checkpoint(writer.conn)?;
                             copying = false;
                         }
                     } else if log_frames.load(Ordering::Relaxed) >= checkpoint_frames {
                         copying = copy_tx.send(()).is_ok();
                         if !copying {
-                            checkpoint(writer.conn)?; // the other thread has ended
+                            bulk::checkpoint(writer.conn)?; // the other thread has ended
                         }
                     }
                     summary.transactions += 1;
@@ -433,28 +417,22 @@ impl Ingestor {
             Ok(())
         });
         // SQLite's own checkpoints again (setting the interval installs its hook).
-        self.conn
-            .wal_hook(None::<fn(&mut Wal, std::ffi::c_int) -> rusqlite::Result<()>>)?;
-        self.conn
-            .pragma_update(None, "wal_autocheckpoint", autocheckpoint)?;
-        self.conn.pragma_update(None, "synchronous", "FULL")?;
+        bulk::restore_checkpoints(&mut self.conn, autocheckpoint)?;
+        bulk::set_full_sync(&self.conn, true)?;
         stored?;
         // A backfill recomputes each touched lot once, after its last group; this commit
         // syncs the log. With nothing to recompute, a checkpoint syncs it instead.
         if touched.is_empty() {
-            self.conn
-                .query_row("PRAGMA wal_checkpoint(PASSIVE)", [], |_| Ok(()))?;
+            bulk::checkpoint(&self.conn)?;
         } else {
-            let tx = self
-                .conn
-                .transaction_with_behavior(TransactionBehavior::Immediate)?;
+            let tx = store::immediate(&mut self.conn)?;
             // With no other writer since the run began, the newest event of each lot is
             // the newest this run wrote for it, and need not be looked up.
-            if start_version.is_some() && data_version(&tx).ok() == start_version {
-                crate::notebook::lots::recompute_lots_after(&tx, &self.cfg, &touched)?;
+            if start_version.is_some() && bulk::data_version(&tx).ok() == start_version {
+                crate::notebook::recompute::recompute_lots_after(&tx, &self.cfg, &touched)?;
             } else {
                 let lots = touched.into_keys().collect();
-                crate::notebook::lots::recompute_lots(&tx, &self.cfg, &lots, &self.actor)?;
+                crate::notebook::recompute::recompute_lots(&tx, &self.cfg, &lots, &self.actor)?;
             }
             tx.commit()?;
         }
@@ -493,16 +471,7 @@ fn lookup_hashes(
     committed: &AtomicUsize,
 ) -> Result<HashLookups, StoreError> {
     let visible_groups = committed.load(Ordering::Acquire);
-    let tx = conn.transaction()?;
-    let mut found = Vec::with_capacity(prepared.len());
-    for p in prepared {
-        found.push(if p.facts.sha256.is_empty() {
-            None
-        } else {
-            records::ingested_file_with_hash(&tx, &p.facts.sha256)?
-        });
-    }
-    tx.finish()?;
+    let found = bulk::ingested_with_hashes(conn, prepared.iter().map(|p| p.facts.sha256.as_str()))?;
     Ok(HashLookups {
         visible_groups,
         found,
@@ -513,39 +482,17 @@ fn lookup_hashes(
 /// on a connection of its own, while the writer goes on appending; says when it is done.
 /// Without its connection it copies nothing and the writer does it all.
 fn checkpointer(db_path: &Path, requests: &mpsc::Receiver<()>, done: &AtomicBool) {
-    let conn = Connection::open(db_path)
-        .and_then(|c| {
-            c.busy_timeout(std::time::Duration::from_secs(10))?;
-            c.pragma_update(None, "synchronous", "NORMAL")?;
-            Ok(c)
-        })
+    let conn = bulk::open_for_checkpoints(db_path)
         .inspect_err(|e| tracing::debug!(error = %e, "no checkpointing thread"))
         .ok();
     while requests.recv().is_ok() {
         if let Some(c) = &conn
-            && let Err(e) = checkpoint(c)
+            && let Err(e) = bulk::checkpoint(c)
         {
             tracing::debug!(error = %e, "checkpoint failed; the writer copies the log");
         }
         done.store(true, Ordering::Release);
     }
-}
-
-/// Copy the log into the database as far as no reader needs it (never waits).
-fn checkpoint(conn: &Connection) -> Result<(), StoreError> {
-    conn.query_row("PRAGMA wal_checkpoint(PASSIVE)", [], |_| Ok(()))?;
-    Ok(())
-}
-
-/// A read-only connection for a reader thread's hash lookups.
-fn open_for_lookups(db_path: &Path) -> Result<Connection, StoreError> {
-    let conn = Connection::open_with_flags(
-        db_path,
-        rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX,
-    )?;
-    store::more_lookaside(&conn);
-    conn.busy_timeout(std::time::Duration::from_secs(10))?;
-    Ok(conn)
 }
 
 /// Transactions whose ingested hashes the writer keeps, for lookups made before they
@@ -565,10 +512,6 @@ struct Writer<'a> {
     /// when another connection commits. If it moved, a file that other writer ingested
     /// after a reader's snapshot would be missed, so readers' lookups are not used.
     version_at_start: Option<i64>,
-}
-
-fn data_version(conn: &Connection) -> Result<i64, StoreError> {
-    Ok(conn.query_row("PRAGMA data_version", [], |r| r.get(0))?)
 }
 
 impl<'a> Writer<'a> {
@@ -618,12 +561,10 @@ impl<'a> Writer<'a> {
                 Ok(_) => None,
             })
             .collect();
-        let tx = self
-            .conn
-            .transaction_with_behavior(TransactionBehavior::Immediate)?;
+        let tx = store::immediate(self.conn)?;
         // Only this run has written since the readers began (checked under the write lock).
         let lookups = match (lookups, self.version_at_start) {
-            (Some(l), Some(v)) if data_version(&tx)? == v => Some(l),
+            (Some(l), Some(v)) if bulk::data_version(&tx)? == v => Some(l),
             _ => None,
         };
         // The transaction holds the write lock: ids can be counted here, not queried.
@@ -711,7 +652,7 @@ impl<'a> Writer<'a> {
         drop(st);
         if recompute {
             // Under the write lock, this group's events are the newest of their lots.
-            crate::notebook::lots::recompute_lots_after(&tx, self.cfg, &touched)?;
+            crate::notebook::recompute::recompute_lots_after(&tx, self.cfg, &touched)?;
         }
         tx.commit()?;
         self.committed += 1;

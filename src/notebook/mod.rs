@@ -21,6 +21,7 @@ pub mod fits;
 pub mod history;
 pub mod ingestion;
 pub mod lots;
+pub mod recompute;
 pub mod reports;
 
 pub use error::{NotebookError, Result};

@@ -2,12 +2,14 @@
 //! that write records. Every write goes through one event of the audit chain
 //! ([`crate::audit`]) in the same transaction as the rows it describes.
 
+pub mod bulk;
 pub mod events;
 pub mod lots;
 pub mod migrate;
 pub mod outbox;
 pub mod queries;
 pub mod records;
+pub mod replay;
 
 use std::path::Path;
 

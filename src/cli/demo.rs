@@ -86,9 +86,9 @@ fn pt_activity(n: u32) -> f64 {
     if n >= 10 { a * 0.62 } else { a }
 }
 
-/// Every batch of the scenario, cycle by cycle.
-pub fn batches() -> Vec<DemoBatch> {
-    let plans = [
+/// The two lots of the scenario.
+fn plans() -> [LotPlan; 2] {
+    [
         LotPlan {
             lot: "PD-C-2611-A",
             prefix: "KV4-H",
@@ -119,54 +119,65 @@ pub fn batches() -> Vec<DemoBatch> {
             leach_ug_g: 0.8,
             day0: 3,
         },
-    ];
+    ]
+}
+
+/// Every batch of the scenario, cycle by cycle.
+pub fn batches() -> Vec<DemoBatch> {
     let mut noise = Noise(2611);
     let mut out = Vec::new();
-    for plan in &plans {
+    for plan in &plans() {
         let mut charged = plan.charged_g;
         for n in 1..=plan.cycles {
-            let temp_c = plan.temp_c + noise.normal(0.8);
-            let t_k = temp_c + 273.15;
-            let t_ref = T_REF_C + 273.15;
-            // k_app at this temperature for this charge (rate per mol catalyst is the activity).
-            let k = plan.k0
-                * (plan.activity)(n)
-                * (1.0 + noise.normal(0.02))
-                * (charged / plan.charged_g)
-                * (-EA_J_MOL / R * (1.0 / t_k - 1.0 / t_ref)).exp();
-            let hours = plan.minutes / 60.0;
-            let conversion = 1.0 - (-k * hours).exp();
-            let selectivity = (0.985 + noise.normal(0.004)).min(0.999);
-            let product = plan.substrate_mmol / 1000.0
-                * conversion
-                * selectivity
-                * plan.product_g_per_mol
-                * (0.97 + noise.normal(0.005));
-            let recovered = charged * (0.985 + noise.normal(0.002));
-            let started = chrono::NaiveDate::from_ymd_opt(2026, 10, 1)
-                .and_then(|d| d.checked_add_days(chrono::Days::new(u64::from(plan.day0 + 2 * n))))
-                .and_then(|d| d.and_hms_opt(7 + (n % 3), 30, 0))
-                .unwrap_or_default();
-            out.push(DemoBatch {
-                batch: format!("{}-{:03}", plan.prefix, n),
-                lot: plan.lot.to_string(),
-                cycle: n,
-                started,
-                minutes: plan.minutes,
-                temp_c,
-                conversion_pct: 100.0 * conversion,
-                selectivity_pct: 100.0 * selectivity,
-                catalyst_g: charged,
-                substrate_mmol: plan.substrate_mmol,
-                product_g: product,
-                recovered_g: recovered,
-                metal: plan.metal,
-                metal_ug_g: (plan.leach_ug_g * (1.0 + 0.15 * noise.normal(1.0))).max(0.05),
-            });
-            charged = recovered;
+            let b = simulate(plan, n, charged, &mut noise);
+            charged = b.recovered_g;
+            out.push(b);
         }
     }
     out
+}
+
+/// Cycle `n` of a lot charged with `charged` g: the draws in a fixed order, so the
+/// scenario is the same on every run.
+fn simulate(plan: &LotPlan, n: u32, charged: f64, noise: &mut Noise) -> DemoBatch {
+    let temp_c = plan.temp_c + noise.normal(0.8);
+    let t_k = temp_c + 273.15;
+    let t_ref = T_REF_C + 273.15;
+    // k_app at this temperature for this charge (rate per mol catalyst is the activity).
+    let k = plan.k0
+        * (plan.activity)(n)
+        * (1.0 + noise.normal(0.02))
+        * (charged / plan.charged_g)
+        * (-EA_J_MOL / R * (1.0 / t_k - 1.0 / t_ref)).exp();
+    let hours = plan.minutes / 60.0;
+    let conversion = 1.0 - (-k * hours).exp();
+    let selectivity = (0.985 + noise.normal(0.004)).min(0.999);
+    let product = plan.substrate_mmol / 1000.0
+        * conversion
+        * selectivity
+        * plan.product_g_per_mol
+        * (0.97 + noise.normal(0.005));
+    let recovered = charged * (0.985 + noise.normal(0.002));
+    let started = chrono::NaiveDate::from_ymd_opt(2026, 10, 1)
+        .and_then(|d| d.checked_add_days(chrono::Days::new(u64::from(plan.day0 + 2 * n))))
+        .and_then(|d| d.and_hms_opt(7 + (n % 3), 30, 0))
+        .unwrap_or_default();
+    DemoBatch {
+        batch: format!("{}-{:03}", plan.prefix, n),
+        lot: plan.lot.to_string(),
+        cycle: n,
+        started,
+        minutes: plan.minutes,
+        temp_c,
+        conversion_pct: 100.0 * conversion,
+        selectivity_pct: 100.0 * selectivity,
+        catalyst_g: charged,
+        substrate_mmol: plan.substrate_mmol,
+        product_g: product,
+        recovered_g: recovered,
+        metal: plan.metal,
+        metal_ug_g: (plan.leach_ug_g * (1.0 + 0.15 * noise.normal(1.0))).max(0.05),
+    }
 }
 
 /// The complete, commented configuration the demo writes.

@@ -8,6 +8,64 @@ use crate::cli::{CmdResult, Failure};
 use crate::config::Config;
 use crate::notebook::{daemon, ingestion};
 
+/// The simulated plant: writes each file slowly, as instruments do, on a thread of its own.
+fn spawn_plant(
+    dir: &Path,
+    to_write: Vec<(PathBuf, Vec<u8>)>,
+) -> tokio::task::JoinHandle<std::io::Result<()>> {
+    let root = dir.to_path_buf();
+    tokio::task::spawn_blocking(move || -> std::io::Result<()> {
+        for (rel, bytes) in &to_write {
+            // Write under a temporary name the watcher ignores, then rename: many
+            // instrument PCs do the same. The balance export is written in place, slowly.
+            let path = root.join(rel);
+            if rel.starts_with("exports/balance") {
+                crate::watch::write_slowly(&path, bytes, 4, Duration::from_millis(1200))?;
+            } else {
+                let tmp = path.with_extension("part");
+                crate::watch::write_slowly(&tmp, bytes, 3, Duration::from_millis(600))?;
+                std::fs::rename(&tmp, &path)?;
+            }
+            println!("                 plant wrote    {}", rel.display());
+        }
+        Ok(())
+    })
+}
+
+/// Print each file the service records until every one of `files` is recorded or 40 s
+/// have passed; returns how many were recorded.
+async fn wait_for_files(
+    dir: &Path,
+    cfg: &Config,
+    files: &[(PathBuf, Vec<u8>)],
+    start_id: i64,
+) -> usize {
+    let mut last = start_id;
+    let deadline = Instant::now() + Duration::from_secs(40);
+    // Wait for exactly the files the plant writes now (not whatever else is recorded).
+    let root = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
+    let mut waiting: Vec<PathBuf> = files.iter().map(|(rel, _)| root.join(rel)).collect();
+    while !waiting.is_empty() && Instant::now() < deadline {
+        tokio::time::sleep(Duration::from_millis(250)).await;
+        for (id, path, outcome, rows) in
+            ingestion::files_recorded_after(cfg, last).unwrap_or_default()
+        {
+            last = id;
+            let path = PathBuf::from(path);
+            waiting.retain(|w| *w != path);
+            let shown = path
+                .strip_prefix(&root)
+                .map(Path::to_path_buf)
+                .unwrap_or_else(|_| path.clone());
+            println!(
+                "                 turnbook       {outcome} {} ({rows} new rows)",
+                shown.display()
+            );
+        }
+    }
+    files.len() - waiting.len()
+}
+
 /// Run the service while the plant writes `batches` (files of each batch) and the ICP
 /// report, each in chunks over about a second; stop once every file is recorded.
 pub fn run(
@@ -32,48 +90,8 @@ pub fn run(
         println!(
             "  live           the service is watching; the plant writes its newest exports slowly:"
         );
-        let root = dir.to_path_buf();
-        let to_write = files.clone();
-        let writer = tokio::task::spawn_blocking(move || -> std::io::Result<()> {
-            for (rel, bytes) in &to_write {
-                // Write under a temporary name the watcher ignores, then rename: many
-                // instrument PCs do the same. The balance export is written in place, slowly.
-                let path = root.join(rel);
-                if rel.starts_with("exports/balance") {
-                    crate::watch::write_slowly(&path, bytes, 4, Duration::from_millis(1200))?;
-                } else {
-                    let tmp = path.with_extension("part");
-                    crate::watch::write_slowly(&tmp, bytes, 3, Duration::from_millis(600))?;
-                    std::fs::rename(&tmp, &path)?;
-                }
-                println!("                 plant wrote    {}", rel.display());
-            }
-            Ok(())
-        });
-        let mut last = start_id;
-        let deadline = Instant::now() + Duration::from_secs(40);
-        // Wait for exactly the files the plant writes now (not whatever else is recorded).
-        let root = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
-        let mut waiting: Vec<PathBuf> = files.iter().map(|(rel, _)| root.join(rel)).collect();
-        while !waiting.is_empty() && Instant::now() < deadline {
-            tokio::time::sleep(Duration::from_millis(250)).await;
-            for (id, path, outcome, rows) in
-                ingestion::files_recorded_after(cfg, last).unwrap_or_default()
-            {
-                last = id;
-                let path = PathBuf::from(path);
-                waiting.retain(|w| *w != path);
-                let shown = path
-                    .strip_prefix(&root)
-                    .map(Path::to_path_buf)
-                    .unwrap_or_else(|_| path.clone());
-                println!(
-                    "                 turnbook       {outcome} {} ({rows} new rows)",
-                    shown.display()
-                );
-            }
-        }
-        let seen = files.len() - waiting.len();
+        let writer = spawn_plant(dir, files.clone());
+        let seen = wait_for_files(dir, cfg, &files, start_id).await;
         match writer.await {
             Ok(Ok(())) => {}
             Ok(Err(e)) => {

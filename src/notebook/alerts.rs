@@ -49,36 +49,28 @@ fn cadence(state: &LotState) -> Option<f64> {
     (times.len() >= 2 && days > 0.0).then(|| (times.len() - 1) as f64 / days)
 }
 
-/// The rules' view of one lot.
-pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
-    let rec = state.record.as_ref()?;
-    let a = state.analysis.as_ref();
-    let criterion = a
-        .and_then(|a| {
-            a.forecast
-                .as_ref()
-                .and_then(|f| f.threshold)
-                .or(a.plot.as_ref().and_then(|p| p.threshold))
-        })
-        .unwrap_or(f64::NAN);
-    let forecast = a.and_then(|a| {
-        let f = a.forecast.as_ref()?;
-        Some(rules::Forecast {
-            status: match f.status {
-                fit::ForecastStatus::Ahead => rules::ForecastStatus::Crossing,
-                fit::ForecastStatus::ReachedAlready => rules::ForecastStatus::ReachedAlready,
-                fit::ForecastStatus::NotReached => rules::ForecastStatus::NotReached,
-                fit::ForecastStatus::UnboundedInterval => rules::ForecastStatus::Unbounded,
-            },
-            x: f.x,
-            lower: f.lower,
-            upper: f.upper,
-            confidence: f.confidence,
-            model: a.chosen.map(|m| m.id().to_string()).unwrap_or_default(),
-            cycles_per_day: cadence(state),
-        })
-    });
-    let abrupt = a.and_then(|a| a.abrupt.as_ref()).and_then(|b| {
+/// The rules' view of a lot's trend forecast.
+fn forecast_view(state: &LotState, a: &fit::LotAnalysis) -> Option<rules::Forecast> {
+    let f = a.forecast.as_ref()?;
+    Some(rules::Forecast {
+        status: match f.status {
+            fit::ForecastStatus::Ahead => rules::ForecastStatus::Crossing,
+            fit::ForecastStatus::ReachedAlready => rules::ForecastStatus::ReachedAlready,
+            fit::ForecastStatus::NotReached => rules::ForecastStatus::NotReached,
+            fit::ForecastStatus::UnboundedInterval => rules::ForecastStatus::Unbounded,
+        },
+        x: f.x,
+        lower: f.lower,
+        upper: f.upper,
+        confidence: f.confidence,
+        model: a.chosen.map(|m| m.id().to_string()).unwrap_or_default(),
+        cycles_per_day: cadence(state),
+    })
+}
+
+/// The rules' view of the abrupt-loss checks.
+fn abrupt_view(cfg: &Config, a: &fit::LotAnalysis) -> Option<rules::AbruptLoss> {
+    a.abrupt.as_ref().and_then(|b| {
         let p = b.prediction.as_ref()?;
         let half = p.predicted - p.lower;
         Some(rules::AbruptLoss {
@@ -89,22 +81,30 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
             cusum: b.cusum.as_ref().map_or(0.0, |c| c.last),
             h: b.cusum.as_ref().map_or(cfg.fitting.cusum_h, |c| c.h),
         })
-    });
+    })
+}
+
+/// The newest measured metal in product against its limit.
+fn metal_view(cfg: &Config, state: &LotState, metal: &str) -> Option<MetalInProduct> {
     let newest = state
         .cycles
         .iter()
         .rev()
         .find(|c| c.view.get(Quantity::MetalInProduct).is_some());
-    let metal_in_product = newest.and_then(|c| {
-        let (limit, source) = metal_limit(cfg, &rec.metal)?;
+    newest.and_then(|c| {
+        let (limit, source) = metal_limit(cfg, metal)?;
         Some(MetalInProduct {
             cycle: c.cycle,
             ug_per_g: c.view.get(Quantity::MetalInProduct)?,
             limit_ug_per_g: limit,
             limit_source: source,
         })
-    });
-    let evidence = state
+    })
+}
+
+/// Each cycle's fitted measure with the file it came from, as the message shows them.
+fn evidence_rows(cfg: &Config, state: &LotState) -> Vec<EvidenceRow> {
+    state
         .cycles
         .iter()
         .filter_map(|c| {
@@ -122,7 +122,25 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
                 sha256: src.map(|s| s.sha256.clone()).unwrap_or_default(),
             })
         })
-        .collect();
+        .collect()
+}
+
+/// The rules' view of one lot.
+pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
+    let rec = state.record.as_ref()?;
+    let a = state.analysis.as_ref();
+    let criterion = a
+        .and_then(|a| {
+            a.forecast
+                .as_ref()
+                .and_then(|f| f.threshold)
+                .or(a.plot.as_ref().and_then(|p| p.threshold))
+        })
+        .unwrap_or(f64::NAN);
+    let forecast = a.and_then(|a| forecast_view(state, a));
+    let abrupt = a.and_then(|a| abrupt_view(cfg, a));
+    let metal_in_product = metal_view(cfg, state, &rec.metal);
+    let evidence = evidence_rows(cfg, state);
     Some(LotSnapshot {
         lot: state.lot.clone(),
         catalyst: rec.catalyst.clone(),

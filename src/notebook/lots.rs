@@ -114,6 +114,58 @@ pub fn lot_state_as_of(
     lot: &str,
     as_of: Option<i64>,
 ) -> Result<LotState> {
+    let (record, mut cycles) = stored_cycles(conn, lot, as_of)?;
+    let mut attention = Vec::new();
+    let Some(rec) = record.clone() else {
+        for c in &mut cycles {
+            c.flags.push("pending".into());
+        }
+        attention.push(format!(
+            "{} cycle(s) recorded for lot '{lot}', which nobody registered: pending until the lot is registered",
+            cycles.len()
+        ));
+        return Ok(LotState {
+            lot: lot.to_string(),
+            record,
+            cycles,
+            analysis: None,
+            basis: basis(cfg),
+            lifetime_ton: None,
+            attention,
+        });
+    };
+    add_metrics(cfg, &rec, &mut cycles);
+    let series = fit_series(cfg, &cycles);
+    let product_first_kg = cycles
+        .iter()
+        .find(|c| c.cycle == 1)
+        .and_then(|c| c.view.get(Quantity::ProductMass))
+        .map(|g| g / 1000.0);
+    let opts = analysis_options(cfg, Some(&rec), product_first_kg);
+    let analysis = (!series.x.is_empty()).then(|| fit::analyse(&series, &opts));
+    if let Some(a) = &analysis {
+        attention.extend(attention_from(a));
+    }
+    attention.extend(record_attention(&cycles));
+    let lifetime_ton = plateau_lifetime(&cycles);
+    Ok(LotState {
+        lot: lot.to_string(),
+        record,
+        cycles,
+        analysis,
+        basis: basis(cfg),
+        lifetime_ton,
+        attention,
+    })
+}
+
+/// The lot's registration and its cycles with their provenance and record flags, now or
+/// as they stood after event `as_of`.
+fn stored_cycles(
+    conn: &Connection,
+    lot: &str,
+    as_of: Option<i64>,
+) -> Result<(Option<LotRecord>, Vec<CycleState>)> {
     let (record, views) = match as_of {
         None => (records::lot(conn, lot)?, records::cycles_of_lot(conn, lot)?),
         Some(seq) => (
@@ -152,30 +204,12 @@ pub fn lot_state_as_of(
             flags,
         });
     }
-    let mut attention = Vec::new();
-    let Some(rec) = record.clone() else {
-        for c in &mut cycles {
-            c.flags.push("pending".into());
-        }
-        attention.push(format!(
-            "{} cycle(s) recorded for lot '{lot}', which nobody registered: pending until the lot is registered",
-            cycles.len()
-        ));
-        return Ok(LotState {
-            lot: lot.to_string(),
-            record,
-            cycles,
-            analysis: None,
-            basis: basis(cfg),
-            lifetime_ton: None,
-            attention,
-        });
-    };
-    let facts = LotFacts {
-        metal: rec.metal.clone(),
-        loading_wt_pct: rec.loading_wt_pct,
-        charged_mass_g: rec.charged_mass_g,
-    };
+    Ok((record, cycles))
+}
+
+/// Compute every cycle's metrics through the pure chemistry and merge their flags.
+fn add_metrics(cfg: &Config, rec: &LotRecord, cycles: &mut [CycleState]) {
+    let facts = LotFacts::from(rec);
     let inputs: Vec<CycleInput> = cycles
         .iter()
         .map(|c| {
@@ -187,8 +221,7 @@ pub fn lot_state_as_of(
             )
         })
         .collect();
-    let metrics = chem::cycle_metrics(&facts, &inputs, &chem_options(cfg));
-    for m in metrics {
+    for m in chem::cycle_metrics(&facts, &inputs, &chem_options(cfg)) {
         if let Some(c) = cycles
             .iter_mut()
             .find(|c| c.cycle == m.cycle_no && c.metrics.is_none())
@@ -201,11 +234,15 @@ pub fn lot_state_as_of(
             c.metrics = Some(m);
         }
     }
-    // The series to fit.
+}
+
+/// The series the configuration asks to fit: activity (or TON) against cycle number (or
+/// hours on stream), excluded cycles left out, saturated cycles marked censored.
+fn fit_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
     let ton_basis = cfg.fitting.measure == "ton";
     let mut series = LotSeries::default();
     let mut hours = 0.0;
-    for c in &cycles {
+    for c in cycles {
         let Some(m) = &c.metrics else { continue };
         hours += c.view.get(Quantity::Duration).unwrap_or(0.0) / 3600.0;
         if c.view.excluded {
@@ -222,41 +259,28 @@ pub fn lot_state_as_of(
         series.censored.push(!ton_basis && m.censored);
         series.ton.push(m.ton);
     }
-    let product_first_kg = cycles
-        .iter()
-        .find(|c| c.cycle == 1)
-        .and_then(|c| c.view.get(Quantity::ProductMass))
-        .map(|g| g / 1000.0);
-    let opts = analysis_options(cfg, Some(&rec), product_first_kg);
-    let analysis = (!series.x.is_empty()).then(|| fit::analyse(&series, &opts));
-    if let Some(a) = &analysis {
-        attention.extend(attention_from(a));
-    }
+    series
+}
+
+/// What the records themselves ask of someone: pending cycles and unsettled conflicts.
+fn record_attention(cycles: &[CycleState]) -> Vec<String> {
+    let mut out = Vec::new();
     let pending = cycles
         .iter()
         .filter(|c| c.flags.iter().any(|f| f == "pending"))
         .count();
     if pending > 0 {
-        attention.push(format!(
+        out.push(format!(
             "{pending} cycle(s) pending: a field a complete cycle needs is missing"
         ));
     }
     let conflicts: i64 = cycles.iter().map(|c| c.view.conflicts).sum();
     if conflicts > 0 {
-        attention.push(format!(
+        out.push(format!(
             "{conflicts} conflicting value(s) kept and flagged; settle them with `turnbook correct`"
         ));
     }
-    let lifetime_ton = plateau_lifetime(&cycles);
-    Ok(LotState {
-        lot: lot.to_string(),
-        record,
-        cycles,
-        analysis,
-        basis: basis(cfg),
-        lifetime_ton,
-        attention,
-    })
+    out
 }
 
 /// Fit `plateau` (ton_max·(1 − exp(−kd·x))) to cumulative TON against cycle number; its

@@ -525,67 +525,15 @@ pub fn record_parsed_with(
         file_id,
         ..Default::default()
     };
-    let mut lots = Vec::new();
-    // Each touched batch with its measurements: the stored ones, then the ones this file
-    // adds (new rows are kept once, here, and referred to by the payload).
-    let mut batches: Vec<BatchWork<'_>> = Vec::new();
-    let mut batch_index: HashMap<&str, usize> = HashMap::new();
     let first_new = ids.first_measurement(tx)?;
     let mut next_m = first_new;
-
-    match parsed {
-        ParsedFile::Cycles(rows) => {
-            for row in rows {
-                // Most files touch a batch or two: a scan finds them sooner than a hash.
-                let found = if batches.len() <= FEW_BATCHES {
-                    batches.iter().position(|b| b.batch_id == row.batch_id)
-                } else {
-                    batch_index.get(row.batch_id.as_str()).copied()
-                };
-                let b = match found {
-                    Some(b) => b,
-                    None => {
-                        let existing = cycle_with(&mut st.cycle_get, &row.batch_id)?;
-                        let known = if existing.is_some() {
-                            measurements_of(tx, &row.batch_id)?
-                        } else {
-                            Vec::new()
-                        };
-                        batches.push(BatchWork {
-                            batch_id: &row.batch_id,
-                            first_seq: existing.as_ref().map(|c| c.first_seq),
-                            excluded: existing.as_ref().is_some_and(|c| c.excluded),
-                            known,
-                        });
-                        if batches.len() > FEW_BATCHES {
-                            if batch_index.is_empty() {
-                                batch_index.extend(
-                                    batches.iter().enumerate().map(|(i, b)| (b.batch_id, i)),
-                                );
-                            } else {
-                                batch_index.insert(&row.batch_id, batches.len() - 1);
-                            }
-                        }
-                        batches.len() - 1
-                    }
-                };
-                merge_row(row, file_id, &mut batches[b].known, &mut next_m, &mut out);
-            }
-        }
-        ParsedFile::Lots(rows) => {
-            for row in rows {
-                let rec = lot_record(row, facts.site.clone());
-                match lot(tx, &rec.lot)? {
-                    Some(old) if old == rec => out.rows_known += 1,
-                    _ => {
-                        out.rows_new += 1;
-                        out.lots_touched.insert(rec.lot.clone());
-                        lots.push(rec);
-                    }
-                }
-            }
-        }
-    }
+    let (batches, lots) = match parsed {
+        ParsedFile::Cycles(rows) => (
+            merge_cycle_rows(tx, st, rows, file_id, &mut next_m, &mut out)?,
+            Vec::new(),
+        ),
+        ParsedFile::Lots(rows) => (Vec::new(), changed_lots(tx, rows, facts, &mut out)?),
+    };
     // The rows this file adds, in id order (the order they were taken in).
     let mut new_measurements: Vec<&MeasurementRow> =
         Vec::with_capacity(usize::try_from(next_m - first_new).unwrap_or(0));
@@ -598,44 +546,8 @@ pub fn record_parsed_with(
         new_measurements.sort_by_key(|m| m.id);
     }
 
-    let file = FileRowRef {
-        id: file_id,
-        sha256: &facts.sha256,
-        path: &facts.path,
-        size: facts.size,
-        mtime: facts.mtime.as_deref(),
-        profile: facts.profile.as_deref(),
-        site: facts.site.as_deref(),
-        seen_at: &facts.seen_at,
-        outcome: "ingested",
-        error: None,
-        rows_new: out.rows_new,
-        rows_known: out.rows_known,
-        rows_conflict: out.rows_conflict,
-        quarantined: None,
-    };
-    // Sized for a typical file's payload, so that it is written without regrowing.
-    let mut body = Vec::with_capacity(512 + 128 * new_measurements.len());
-    serde_json::to_writer(
-        &mut body,
-        &FileIngestedRef {
-            file,
-            measurements: &new_measurements,
-            lots: &lots,
-        },
-    )?;
-    // serde_json writes only UTF-8.
-    let body = String::from_utf8(body).map_err(|e| StoreError::Invalid(e.to_string()))?;
-    let seq = crate::store::events::append_prepared(
-        tx,
-        &mut st.event,
-        &mut ids.head,
-        &facts.seen_at,
-        actor,
-        &facts.path,
-        "file-ingested",
-        &body,
-    )?;
+    let file = ingested_row(file_id, facts, &out);
+    let seq = append_ingested(tx, st, ids, facts, actor, &file, &new_measurements, &lots)?;
     ids.measurements_to(next_m);
     out.event_seq = seq;
     insert_file_with(&mut st.file, &file, seq)?;
@@ -654,6 +566,135 @@ pub fn record_parsed_with(
         upsert_cycle_with(&mut st.cycle_put, &v)?;
     }
     Ok(out)
+}
+
+/// Merge a cycle export's rows into the batches they touch; returns each touched batch
+/// with its measurements, the stored ones and then the ones this file adds (new rows are
+/// kept once, here, and referred to by the payload).
+fn merge_cycle_rows<'p>(
+    tx: &Transaction<'_>,
+    st: &mut FileStatements<'_>,
+    rows: &'p [CycleRow],
+    file_id: i64,
+    next_m: &mut i64,
+    out: &mut StoredFile,
+) -> Result<Vec<BatchWork<'p>>> {
+    let mut batches: Vec<BatchWork<'p>> = Vec::new();
+    let mut batch_index: HashMap<&str, usize> = HashMap::new();
+    for row in rows {
+        // Most files touch a batch or two: a scan finds them sooner than a hash.
+        let found = if batches.len() <= FEW_BATCHES {
+            batches.iter().position(|b| b.batch_id == row.batch_id)
+        } else {
+            batch_index.get(row.batch_id.as_str()).copied()
+        };
+        let b = match found {
+            Some(b) => b,
+            None => {
+                let existing = cycle_with(&mut st.cycle_get, &row.batch_id)?;
+                let known = if existing.is_some() {
+                    measurements_of(tx, &row.batch_id)?
+                } else {
+                    Vec::new()
+                };
+                batches.push(BatchWork {
+                    batch_id: &row.batch_id,
+                    first_seq: existing.as_ref().map(|c| c.first_seq),
+                    excluded: existing.as_ref().is_some_and(|c| c.excluded),
+                    known,
+                });
+                if batches.len() > FEW_BATCHES {
+                    if batch_index.is_empty() {
+                        batch_index
+                            .extend(batches.iter().enumerate().map(|(i, b)| (b.batch_id, i)));
+                    } else {
+                        batch_index.insert(&row.batch_id, batches.len() - 1);
+                    }
+                }
+                batches.len() - 1
+            }
+        };
+        merge_row(row, file_id, &mut batches[b].known, next_m, out);
+    }
+    Ok(batches)
+}
+
+/// The registrations of a lot sheet that are new or changed.
+fn changed_lots(
+    tx: &Transaction<'_>,
+    rows: &[LotRow],
+    facts: &FileFacts,
+    out: &mut StoredFile,
+) -> Result<Vec<LotRecord>> {
+    let mut lots = Vec::new();
+    for row in rows {
+        let rec = lot_record(row, facts.site.clone());
+        match lot(tx, &rec.lot)? {
+            Some(old) if old == rec => out.rows_known += 1,
+            _ => {
+                out.rows_new += 1;
+                out.lots_touched.insert(rec.lot.clone());
+                lots.push(rec);
+            }
+        }
+    }
+    Ok(lots)
+}
+
+/// The file row of an ingested file.
+fn ingested_row<'f>(file_id: i64, facts: &'f FileFacts, out: &StoredFile) -> FileRowRef<'f> {
+    FileRowRef {
+        id: file_id,
+        sha256: &facts.sha256,
+        path: &facts.path,
+        size: facts.size,
+        mtime: facts.mtime.as_deref(),
+        profile: facts.profile.as_deref(),
+        site: facts.site.as_deref(),
+        seen_at: &facts.seen_at,
+        outcome: "ingested",
+        error: None,
+        rows_new: out.rows_new,
+        rows_known: out.rows_known,
+        rows_conflict: out.rows_conflict,
+        quarantined: None,
+    }
+}
+
+/// Append the file's `file-ingested` event, its payload written once without regrowing.
+#[allow(clippy::too_many_arguments)]
+fn append_ingested(
+    tx: &Transaction<'_>,
+    st: &mut FileStatements<'_>,
+    ids: &mut NextIds,
+    facts: &FileFacts,
+    actor: &str,
+    file: &FileRowRef<'_>,
+    new_measurements: &[&MeasurementRow],
+    lots: &[LotRecord],
+) -> Result<i64> {
+    // Sized for a typical file's payload, so that it is written without regrowing.
+    let mut body = Vec::with_capacity(512 + 128 * new_measurements.len());
+    serde_json::to_writer(
+        &mut body,
+        &FileIngestedRef {
+            file: *file,
+            measurements: new_measurements,
+            lots,
+        },
+    )?;
+    // serde_json writes only UTF-8.
+    let body = String::from_utf8(body).map_err(|e| StoreError::Invalid(e.to_string()))?;
+    crate::store::events::append_prepared(
+        tx,
+        &mut st.event,
+        &mut ids.head,
+        &facts.seen_at,
+        actor,
+        &facts.path,
+        "file-ingested",
+        &body,
+    )
 }
 
 /// Batches of a file found by a scan; beyond, by a hash map.
@@ -696,18 +737,11 @@ fn merge_row(
             Some(false) => {
                 any_conflict = true;
                 if let Some(c) = cur {
-                    out.conflicts.push(format!(
-                        "batch '{}', field '{}': stored {} (file #{}), this file has {} (line {})",
-                        row.batch_id,
-                        q,
-                        show(c.value, c.text.as_deref()),
-                        c.source_file_id.map_or("-".into(), |i| i.to_string()),
-                        match &v {
-                            V::Num(x) => x.to_string(),
-                            V::Text(t) => format!("'{t}'"),
-                        },
-                        row.line
-                    ));
+                    let new = match &v {
+                        V::Num(x) => x.to_string(),
+                        V::Text(t) => format!("'{t}'"),
+                    };
+                    out.conflicts.push(conflict_note(row, q, c, &new));
                 }
                 "conflict"
             }
@@ -751,13 +785,30 @@ fn merge_row(
             Some(mv.raw.as_str()),
         );
     }
-    if any_conflict {
-        out.rows_conflict += 1;
-    } else if any_new {
-        out.rows_new += 1;
-    } else {
-        out.rows_known += 1;
+    *out.row_count(any_conflict, any_new) += 1;
+}
+
+impl StoredFile {
+    /// The count a row belongs to: conflicting, else new, else known.
+    fn row_count(&mut self, conflict: bool, new: bool) -> &mut i64 {
+        match (conflict, new) {
+            (true, _) => &mut self.rows_conflict,
+            (false, true) => &mut self.rows_new,
+            (false, false) => &mut self.rows_known,
+        }
     }
+}
+
+/// How a conflict between a stored value and a file's is reported.
+fn conflict_note(row: &CycleRow, q: &str, stored: &MeasurementRow, new: &str) -> String {
+    format!(
+        "batch '{}', field '{}': stored {} (file #{}), this file has {new} (line {})",
+        row.batch_id,
+        q,
+        show(stored.value, stored.text.as_deref()),
+        stored.source_file_id.map_or("-".into(), |i| i.to_string()),
+        row.line
+    )
 }
 
 fn show(v: Option<f64>, t: Option<&str>) -> String {

@@ -144,6 +144,15 @@ struct Leftovers {
     facts: Vec<FileFacts>,
 }
 
+impl Leftovers {
+    fn for_part(files: usize) -> Self {
+        Leftovers {
+            parsed: Vec::with_capacity(files),
+            facts: Vec::with_capacity(files),
+        }
+    }
+}
+
 /// A file read and parsed, not yet stored.
 struct Prepared {
     facts: FileFacts,
@@ -234,10 +243,7 @@ impl Ingestor {
         let Ok(meta) = std::fs::metadata(path) else {
             return Ok(false);
         };
-        let mtime = meta.modified().ok().map(|t| {
-            chrono::DateTime::<chrono::Utc>::from(t)
-                .to_rfc3339_opts(chrono::SecondsFormat::Millis, true)
-        });
+        let mtime = stored_mtime(&meta);
         bulk::recorded_unchanged(
             &self.conn,
             &recorded_path(path),
@@ -259,157 +265,81 @@ impl Ingestor {
     /// Reading, hashing and parsing happen on reader threads, a few groups ahead of this
     /// thread, which alone writes to the database: group after group in path order, each in
     /// one transaction, exactly as if the groups were read here one after the other.
+    ///
+    /// The groups commit without waiting for the disk, and the last commit (or a
+    /// checkpoint) syncs the log, with every group before it, before this returns. A power
+    /// cut mid-run can lose only groups not yet synced, whose files are then unrecorded and
+    /// read again by the next run: nothing lost, nothing twice. (WAL keeps the database
+    /// whole either way; a process crash loses nothing at all.)
+    ///
+    /// Checkpoints: a log hook counts the log's frames after each commit (and, being the
+    /// hook, stops SQLite's own checkpoints for the run; they are restored at its end).
     pub fn ingest_paths(
         &mut self,
         paths: &[PathBuf],
         mut progress: impl FnMut(&FileOutcome),
     ) -> Result<RunSummary, StoreError> {
-        let mut summary = RunSummary::default();
-        // Each touched lot with the newest event this run wrote for it.
-        let mut touched: BTreeMap<String, i64> = BTreeMap::new();
+        let mut run = RunTally::default();
         let groups: Vec<&[PathBuf]> = paths
             .chunks(self.cfg.files_per_transaction.max(1))
             .collect();
-        let readers = std::thread::available_parallelism()
-            .map_or(1, |n| n.get().saturating_sub(1))
-            .clamp(1, MAX_READERS)
-            .min(groups.len().max(1));
+        let readers = reader_threads(groups.len());
         let reader = Reader {
             cfg: &self.cfg,
             profile_override: self.profile_override.as_deref(),
         };
-        // The groups commit without waiting for the disk, and the last commit below (or a
-        // checkpoint) syncs the log, with every group before it, before this returns. A
-        // power cut mid-run can lose only groups not yet synced, whose files are then
-        // unrecorded and read again by the next run: nothing lost, nothing twice. (WAL
-        // keeps the database whole either way; a process crash loses nothing at all.)
         bulk::set_full_sync(&self.conn, false)?;
         let db_path = self.cfg.database_path();
-        let part_bytes = self.part_bytes;
         let committed = AtomicUsize::new(0);
-        // Checkpoints: the log hook counts the log's frames after each commit (and, being
-        // the hook, stops SQLite's own checkpoints for the run; they are restored below).
         let page_size = bulk::page_size(&self.conn)?;
         let checkpoint_frames = (self.checkpoint_bytes / page_size.max(512)).max(1);
         let autocheckpoint = bulk::autocheckpoint(&self.conn)?;
         let copied = AtomicBool::new(false);
+        let part_bytes = self.part_bytes;
         let mut writer = Writer::new(&mut self.conn, &self.cfg, &self.actor);
         writer.version_at_start = Some(bulk::data_version(writer.conn)?);
         let start_version = writer.version_at_start;
         let log_frames = Arc::new(AtomicI64::new(0));
-        let frames = Arc::clone(&log_frames);
-        bulk::count_log_frames(writer.conn, frames)?;
+        bulk::count_log_frames(writer.conn, Arc::clone(&log_frames))?;
         let stored = std::thread::scope(|scope| -> Result<(), StoreError> {
             let (copy_tx, copy_rx) = mpsc::channel::<()>();
             {
                 let (db_path, copied) = (&db_path, &copied);
                 scope.spawn(move || checkpointer(db_path, &copy_rx, copied));
             }
-            let mut copying = false;
-            // Reader r prepares groups r, r + readers, ...; one group in flight per reader
-            // bounds the memory held.
-            let mut inbox = Vec::with_capacity(readers);
-            // What the writer is done with goes back to the reader that built it, to be
-            // freed there: memory is freed fastest by the thread that allocated it, and that
-            // thread has time to spare while the writer, the bottleneck, has none.
-            let mut spent_to = Vec::with_capacity(readers);
-            for r in 0..readers {
-                let (tx, rx) = mpsc::sync_channel::<(Vec<Prepared>, Option<HashLookups>)>(1);
-                inbox.push(rx);
-                let (spent_tx, spent_rx) = mpsc::channel::<Spent>();
-                spent_to.push(spent_tx);
-                let groups = &groups;
-                let reader = &reader;
-                let (db_path, committed) = (&db_path, &committed);
-                scope.spawn(move || {
-                    // Hash lookups on the reader's own connection take them off the writer;
-                    // without it (an error), the writer looks each hash up itself.
-                    let mut conn = bulk::open_for_lookups(db_path)
-                        .inspect_err(|e| tracing::debug!(error = %e, "reader looks up no hashes"))
-                        .ok();
-                    // Files of one instrument share a header row: resolve it once a thread.
-                    let mut cache = ParseCache::new();
-                    for group in groups.iter().skip(r).step_by(readers) {
-                        // A group is handed over in parts of about `part_bytes` of file
-                        // content, so large files cannot make a group of parsed rows
-                        // outgrow memory; small files make one part of the whole group.
-                        let mut rest: &[PathBuf] = group;
-                        while !rest.is_empty() {
-                            // At most a part or two wait here: one comes back per part sent.
-                            while let Ok(spent) = spent_rx.try_recv() {
-                                drop(spent);
-                            }
-                            let prepared = reader.prepare_part(rest, &mut cache, part_bytes);
-                            rest = rest.get(prepared.len()..).unwrap_or_default();
-                            let lookups = conn.as_mut().and_then(|c| {
-                                lookup_hashes(c, &prepared, committed)
-                                    .inspect_err(
-                                        |e| tracing::debug!(error = %e, "hash lookups failed"),
-                                    )
-                                    .ok()
-                            });
-                            if tx.send((prepared, lookups)).is_err() {
-                                return; // the writer stopped on an error
-                            }
-                        }
-                    }
-                });
-            }
+            let mut log = LogCopy {
+                requests: copy_tx,
+                copied: &copied,
+                frames: &log_frames,
+                threshold: checkpoint_frames,
+                copying: false,
+            };
+            let template = ReaderJob {
+                first: 0,
+                step: readers,
+                groups: &groups,
+                reader: &reader,
+                db_path: &db_path,
+                committed: &committed,
+                part_bytes,
+            };
+            let (inbox, spent_to) = spawn_readers(scope, &template);
             for (g, group) in groups.iter().enumerate() {
                 // Each part in its own transaction, in path order.
                 let mut done = 0;
                 while done < group.len() {
-                    let (prepared, lookups) = match inbox[g % readers].recv() {
-                        Ok(p) => p,
-                        // A reader thread ended early (it panicked): read the rest of this
-                        // group here; the panic is raised again when the scope ends.
-                        Err(_) => (
-                            reader.prepare_group(&group[done..], &mut ParseCache::new()),
-                            None,
-                        ),
-                    };
+                    let (prepared, lookups) =
+                        next_part(&inbox[g % readers], &reader, &group[done..]);
                     if prepared.is_empty() {
                         break; // never sent; guards the loop
                     }
                     done += prepared.len();
-                    let mut left = Leftovers {
-                        parsed: Vec::with_capacity(prepared.len()),
-                        facts: Vec::with_capacity(prepared.len()),
-                    };
+                    let mut left = Leftovers::for_part(prepared.len());
                     let (outcomes, lots) =
                         writer.store(prepared, lookups.as_ref(), false, &mut left)?;
                     committed.store(writer.committed, Ordering::Release);
-                    if copying {
-                        if copied.swap(false, Ordering::AcqRel) {
-                            // What this thread appended while the other copied: the log
-                            // is then wholly in the database and starts over.
-                            bulk::checkpoint(writer.conn)?;
-                            copying = false;
-                        }
-                    } else if log_frames.load(Ordering::Relaxed) >= checkpoint_frames {
-                        copying = copy_tx.send(()).is_ok();
-                        if !copying {
-                            bulk::checkpoint(writer.conn)?; // the other thread has ended
-                        }
-                    }
-                    summary.transactions += 1;
-                    for (lot, seq) in lots {
-                        let newest = touched.entry(lot).or_insert(seq);
-                        *newest = (*newest).max(seq);
-                    }
-                    for o in &outcomes {
-                        summary.add(o);
-                        progress(o);
-                    }
-                    // What this thread allocated is freed here: a reader freeing it would
-                    // take this thread's allocator lock and make each side wait for the other.
-                    let mut outcomes = outcomes;
-                    for o in &mut outcomes {
-                        if let FileOutcome::Ingested { stored, .. } = o {
-                            drop(std::mem::take(&mut stored.lots_touched));
-                            drop(std::mem::take(&mut stored.conflicts));
-                        }
-                    }
+                    log.after_commit(writer.conn)?;
+                    let outcomes = run.add(outcomes, lots, &mut progress);
                     // If the reader has ended, what it would have freed is freed here.
                     let _ = spent_to[g % readers].send((left, outcomes));
                 }
@@ -420,23 +350,31 @@ impl Ingestor {
         bulk::restore_checkpoints(&mut self.conn, autocheckpoint)?;
         bulk::set_full_sync(&self.conn, true)?;
         stored?;
-        // A backfill recomputes each touched lot once, after its last group; this commit
-        // syncs the log. With nothing to recompute, a checkpoint syncs it instead.
+        self.recompute_touched(run.touched, start_version)?;
+        Ok(run.summary)
+    }
+
+    /// A backfill recomputes each touched lot once, after its last group; this commit
+    /// syncs the log. With nothing to recompute, a checkpoint syncs it instead.
+    fn recompute_touched(
+        &mut self,
+        touched: BTreeMap<String, i64>,
+        start_version: Option<i64>,
+    ) -> Result<(), StoreError> {
         if touched.is_empty() {
-            bulk::checkpoint(&self.conn)?;
-        } else {
-            let tx = store::immediate(&mut self.conn)?;
-            // With no other writer since the run began, the newest event of each lot is
-            // the newest this run wrote for it, and need not be looked up.
-            if start_version.is_some() && bulk::data_version(&tx).ok() == start_version {
-                crate::notebook::recompute::recompute_lots_after(&tx, &self.cfg, &touched)?;
-            } else {
-                let lots = touched.into_keys().collect();
-                crate::notebook::recompute::recompute_lots(&tx, &self.cfg, &lots, &self.actor)?;
-            }
-            tx.commit()?;
+            return bulk::checkpoint(&self.conn);
         }
-        Ok(summary)
+        let tx = store::immediate(&mut self.conn)?;
+        // With no other writer since the run began, the newest event of each lot is
+        // the newest this run wrote for it, and need not be looked up.
+        if start_version.is_some() && bulk::data_version(&tx).ok() == start_version {
+            crate::notebook::recompute::recompute_lots_after(&tx, &self.cfg, &touched)?;
+        } else {
+            let lots = touched.into_keys().collect();
+            crate::notebook::recompute::recompute_lots(&tx, &self.cfg, &lots, &self.actor)?;
+        }
+        tx.commit()?;
+        Ok(())
     }
 
     /// Store a group of files and recompute the lots they touched, in one transaction.
@@ -449,6 +387,168 @@ impl Ingestor {
         Writer::new(&mut self.conn, &self.cfg, &self.actor)
             .store(prepared, None, true, &mut Leftovers::default())
             .map(|(o, _)| o)
+    }
+}
+
+/// A backfill's running totals: the summary and each touched lot with the newest event
+/// this run wrote for it.
+#[derive(Default)]
+struct RunTally {
+    summary: RunSummary,
+    touched: BTreeMap<String, i64>,
+}
+
+impl RunTally {
+    /// Count one committed part, show its outcomes, and free what the writer allocated
+    /// for them; returns the outcomes to go back to their reader.
+    fn add(
+        &mut self,
+        mut outcomes: Vec<FileOutcome>,
+        lots: BTreeMap<String, i64>,
+        progress: &mut impl FnMut(&FileOutcome),
+    ) -> Vec<FileOutcome> {
+        self.summary.transactions += 1;
+        for (lot, seq) in lots {
+            let newest = self.touched.entry(lot).or_insert(seq);
+            *newest = (*newest).max(seq);
+        }
+        for o in &outcomes {
+            self.summary.add(o);
+            progress(o);
+        }
+        // What this thread allocated is freed here: a reader freeing it would take this
+        // thread's allocator lock and make each side wait for the other.
+        for o in &mut outcomes {
+            if let FileOutcome::Ingested { stored, .. } = o {
+                drop(std::mem::take(&mut stored.lots_touched));
+                drop(std::mem::take(&mut stored.conflicts));
+            }
+        }
+        outcomes
+    }
+}
+
+/// The writer's side of a backfill's checkpoints: once the log passes `threshold` frames
+/// the checkpointing thread is asked to copy it; when it has, the writer copies what it
+/// appended meanwhile, and the log starts over at the next transaction.
+struct LogCopy<'a> {
+    requests: mpsc::Sender<()>,
+    copied: &'a AtomicBool,
+    frames: &'a AtomicI64,
+    threshold: i64,
+    copying: bool,
+}
+
+impl LogCopy<'_> {
+    fn after_commit(&mut self, conn: &Connection) -> Result<(), StoreError> {
+        if self.copying {
+            if self.copied.swap(false, Ordering::AcqRel) {
+                // What this thread appended while the other copied: the log is then
+                // wholly in the database and starts over.
+                bulk::checkpoint(conn)?;
+                self.copying = false;
+            }
+        } else if self.frames.load(Ordering::Relaxed) >= self.threshold {
+            self.copying = self.requests.send(()).is_ok();
+            if !self.copying {
+                bulk::checkpoint(conn)?; // the other thread has ended
+            }
+        }
+        Ok(())
+    }
+}
+
+/// Reader threads for a backfill of `groups` groups: one core is the writer's.
+fn reader_threads(groups: usize) -> usize {
+    std::thread::available_parallelism()
+        .map_or(1, |n| n.get().saturating_sub(1))
+        .clamp(1, MAX_READERS)
+        .min(groups.max(1))
+}
+
+/// The next part from a reader. If the reader thread ended early (it panicked), the rest
+/// of its group is read here; the panic is raised again when the scope ends.
+fn next_part(
+    from: &Parts,
+    reader: &Reader<'_>,
+    rest: &[PathBuf],
+) -> (Vec<Prepared>, Option<HashLookups>) {
+    from.recv()
+        .unwrap_or_else(|_| (reader.prepare_group(rest, &mut ParseCache::new()), None))
+}
+
+/// The parts a reader sends the writer.
+type Parts = mpsc::Receiver<(Vec<Prepared>, Option<HashLookups>)>;
+
+/// Start `template.step` reader threads; reader r prepares groups r, r + step, ... One
+/// group in flight per reader bounds the memory held. What the writer is done with goes
+/// back to the reader that built it, to be freed there: memory is freed fastest by the
+/// thread that allocated it, and that thread has time to spare while the writer, the
+/// bottleneck, has none.
+fn spawn_readers<'scope, 'env: 'scope>(
+    scope: &'scope std::thread::Scope<'scope, 'env>,
+    template: &ReaderJob<'env>,
+) -> (Vec<Parts>, Vec<mpsc::Sender<Spent>>) {
+    let mut inbox = Vec::with_capacity(template.step);
+    let mut spent_to = Vec::with_capacity(template.step);
+    for first in 0..template.step {
+        let (tx, rx) = mpsc::sync_channel(1);
+        inbox.push(rx);
+        let (spent_tx, spent_rx) = mpsc::channel::<Spent>();
+        spent_to.push(spent_tx);
+        let job = ReaderJob { first, ..*template };
+        scope.spawn(move || job.run(&tx, &spent_rx));
+    }
+    (inbox, spent_to)
+}
+
+/// One reader thread of a backfill: groups `first`, `first + step`, ... of `groups`.
+#[derive(Clone, Copy)]
+struct ReaderJob<'a> {
+    first: usize,
+    step: usize,
+    groups: &'a [&'a [PathBuf]],
+    reader: &'a Reader<'a>,
+    db_path: &'a Path,
+    committed: &'a AtomicUsize,
+    part_bytes: u64,
+}
+
+impl ReaderJob<'_> {
+    fn run(
+        self,
+        to_writer: &mpsc::SyncSender<(Vec<Prepared>, Option<HashLookups>)>,
+        spent: &mpsc::Receiver<Spent>,
+    ) {
+        // Hash lookups on the reader's own connection take them off the writer; without
+        // it (an error), the writer looks each hash up itself.
+        let mut conn = bulk::open_for_lookups(self.db_path)
+            .inspect_err(|e| tracing::debug!(error = %e, "reader looks up no hashes"))
+            .ok();
+        // Files of one instrument share a header row: resolve it once a thread.
+        let mut cache = ParseCache::new();
+        for group in self.groups.iter().skip(self.first).step_by(self.step) {
+            // A group is handed over in parts of about `part_bytes` of file content, so
+            // large files cannot make a group of parsed rows outgrow memory; small files
+            // make one part of the whole group.
+            let mut rest: &[PathBuf] = group;
+            while !rest.is_empty() {
+                // At most a part or two wait here: one comes back per part sent.
+                while let Ok(s) = spent.try_recv() {
+                    drop(s);
+                }
+                let prepared = self.reader.prepare_part(rest, &mut cache, self.part_bytes);
+                rest = rest.get(prepared.len()..).unwrap_or_default();
+                let lookups = conn.as_mut().and_then(|c| {
+                    lookup_hashes(c, &prepared, self.committed)
+                        .inspect_err(|e| tracing::debug!(error = %e, "hash lookups failed"))
+                        .ok()
+                });
+                if to_writer.send((prepared, lookups)).is_err() {
+                    return; // the writer stopped on an error
+                }
+            }
+        }
     }
 }
 
@@ -526,6 +626,14 @@ impl<'a> Writer<'a> {
         }
     }
 
+    /// True when a reader's lookups can be completed from the groups this writer keeps.
+    fn covers(&self, l: &HashLookups, files: usize) -> bool {
+        let oldest_kept = self.committed - self.recent.len();
+        l.visible_groups >= oldest_kept
+            && l.visible_groups <= self.committed
+            && l.found.len() == files
+    }
+
     /// Store a group of prepared files in one transaction; with `recompute`, the lots they
     /// touched are recomputed in it too (otherwise the caller does it later). Returns each
     /// file's outcome and each touched lot with the newest event the group wrote for it.
@@ -545,22 +653,10 @@ impl<'a> Writer<'a> {
         recompute: bool,
         left: &mut Leftovers,
     ) -> Result<(Vec<FileOutcome>, BTreeMap<String, i64>), StoreError> {
-        let oldest_kept = self.committed - self.recent.len();
-        let lookups = lookups.filter(|l| {
-            l.visible_groups >= oldest_kept
-                && l.visible_groups <= self.committed
-                && l.found.len() == prepared.len()
-        });
-        let quarantine = self.cfg.quarantine_dir();
+        let lookups = lookups.filter(|l| self.covers(l, prepared.len()));
         // Copies into quarantine happen before the transaction: a crash after copying and
         // before commit leaves a spare copy, never a lost record.
-        let quarantined: Vec<Option<String>> = prepared
-            .iter()
-            .map(|p| match &p.result {
-                Err(_) => quarantine_copy(&quarantine, &p.facts),
-                Ok(_) => None,
-            })
-            .collect();
+        let quarantined = quarantine_rejected(&self.cfg.quarantine_dir(), &prepared);
         let tx = store::immediate(self.conn)?;
         // Only this run has written since the readers began (checked under the write lock).
         let lookups = match (lookups, self.version_at_start) {
@@ -575,20 +671,16 @@ impl<'a> Writer<'a> {
             DigestMap::with_capacity_and_hasher(prepared.len(), Default::default());
         let mut touched: BTreeMap<String, i64> = BTreeMap::new();
         for (i, (p, q)) in prepared.into_iter().zip(quarantined).enumerate() {
-            let mut facts = p.facts;
+            let facts = p.facts;
             let seen = match in_group.get(&facts.sha256) {
                 Some(id) => Some(*id),
                 None if facts.sha256.is_empty() => None,
-                None => match lookups {
-                    Some(l) => l.found[i].or_else(|| {
-                        // Groups committed after the reader's snapshot.
-                        self.recent
-                            .iter()
-                            .skip(l.visible_groups - oldest_kept)
-                            .find_map(|g| g.get(&facts.sha256).copied())
-                    }),
-                    None => records::ingested_file_with_hash(&tx, &facts.sha256)?,
-                },
+                None => seen_before(
+                    &tx,
+                    (&self.recent, self.committed),
+                    &facts.sha256,
+                    lookups.map(|l| (l, i)),
+                )?,
             };
             let outcome = match (seen, p.result) {
                 (Some(of), _) => {
@@ -599,52 +691,22 @@ impl<'a> Writer<'a> {
                         of_file_id: of,
                     }
                 }
-                (None, Err(error)) => {
-                    records::record_rejected_with(
-                        &tx,
-                        &mut ids,
-                        &facts,
-                        &error,
-                        q.as_deref(),
-                        self.actor,
-                    )?;
-                    crate::notebook::alerts::raise_quarantine(
-                        &tx,
-                        self.cfg,
-                        facts.site.as_deref(),
-                        &facts.path,
-                        &error,
-                    )?;
-                    // A file name or a quoted cell may hold control characters: escape them so
-                    // that a log read on a terminal shows them instead of obeying them.
-                    tracing::info!(path = %facts.path.escape_debug(), error = %error.escape_debug(), "file rejected");
-                    FileOutcome::Rejected {
-                        sha256: (!facts.sha256.is_empty()).then(|| facts.sha256.clone()),
-                        path: facts.path,
-                        error,
-                    }
-                }
-                (None, Ok(parsed)) => {
-                    let stored = records::record_parsed_with(
-                        &tx, &mut st, &mut ids, &facts, &parsed, self.actor,
-                    )?;
-                    // Files are stored in order: this one's event is the lots' newest.
-                    for lot in &stored.lots_touched {
-                        touched.insert(lot.clone(), stored.event_seq);
-                    }
-                    for c in &stored.conflicts {
-                        tracing::warn!(path = %facts.path.escape_debug(), conflict = %c.escape_debug(), "conflicting value kept and flagged");
-                    }
-                    in_group.insert(facts.sha256.clone(), stored.file_id);
-                    left.parsed.push(parsed);
-                    let outcome = FileOutcome::Ingested {
-                        path: std::mem::take(&mut facts.path),
-                        sha256: std::mem::take(&mut facts.sha256),
-                        stored,
-                    };
-                    left.facts.push(facts);
-                    outcome
-                }
+                (None, Err(error)) => reject(
+                    &tx,
+                    &mut ids,
+                    (self.cfg, self.actor),
+                    facts,
+                    error,
+                    q.as_deref(),
+                )?,
+                (None, Ok(parsed)) => store_parsed(
+                    (&tx, &mut st, &mut ids),
+                    self.actor,
+                    facts,
+                    parsed,
+                    (&mut in_group, &mut touched),
+                    left,
+                )?,
             };
             outcomes.push(outcome);
         }
@@ -660,15 +722,98 @@ impl<'a> Writer<'a> {
         if self.recent.len() > RECENT_GROUPS {
             self.recent.pop_front();
         }
-        if tracing::enabled!(tracing::Level::INFO) {
-            for o in &outcomes {
-                if let FileOutcome::Ingested { path, stored, .. } = o {
-                    tracing::info!(path = %path.escape_debug(), rows_new = stored.rows_new, rows_known = stored.rows_known,
-                        rows_conflict = stored.rows_conflict, "file ingested");
-                }
+        log_ingested(&outcomes);
+        Ok((outcomes, touched))
+    }
+}
+
+/// Record a file that could not be read, and raise its quarantine alert.
+fn reject(
+    tx: &store::Transaction<'_>,
+    ids: &mut NextIds,
+    (cfg, actor): (&Config, &str),
+    facts: FileFacts,
+    error: String,
+    quarantined: Option<&str>,
+) -> Result<FileOutcome, StoreError> {
+    records::record_rejected_with(tx, ids, &facts, &error, quarantined, actor)?;
+    crate::notebook::alerts::raise_quarantine(tx, cfg, facts.site.as_deref(), &facts.path, &error)?;
+    // A file name or a quoted cell may hold control characters: escape them so that a
+    // log read on a terminal shows them instead of obeying them.
+    tracing::info!(path = %facts.path.escape_debug(), error = %error.escape_debug(), "file rejected");
+    Ok(FileOutcome::Rejected {
+        sha256: (!facts.sha256.is_empty()).then(|| facts.sha256.clone()),
+        path: facts.path,
+        error,
+    })
+}
+
+/// The file ingested before with this content: from the reader's lookup `(l, i)` and
+/// the groups committed after its snapshot, else looked up here.
+fn seen_before(
+    tx: &store::Transaction<'_>,
+    (recent, committed): (&std::collections::VecDeque<DigestMap<i64>>, usize),
+    sha256: &str,
+    lookup: Option<(&HashLookups, usize)>,
+) -> Result<Option<i64>, StoreError> {
+    let Some((l, i)) = lookup else {
+        return records::ingested_file_with_hash(tx, sha256);
+    };
+    let oldest_kept = committed - recent.len();
+    Ok(l.found[i].or_else(|| {
+        recent
+            .iter()
+            .skip(l.visible_groups - oldest_kept)
+            .find_map(|g| g.get(sha256).copied())
+    }))
+}
+
+/// Store a parsed file's records; it is now this group's copy of its content.
+fn store_parsed(
+    (tx, st, ids): (
+        &store::Transaction<'_>,
+        &mut records::FileStatements<'_>,
+        &mut NextIds,
+    ),
+    actor: &str,
+    mut facts: FileFacts,
+    parsed: ParsedFile,
+    (in_group, touched): (&mut DigestMap<i64>, &mut BTreeMap<String, i64>),
+    left: &mut Leftovers,
+) -> Result<FileOutcome, StoreError> {
+    let stored = records::record_parsed_with(tx, st, ids, &facts, &parsed, actor)?;
+    // Files are stored in order: this one's event is the lots' newest.
+    for lot in &stored.lots_touched {
+        touched.insert(lot.clone(), stored.event_seq);
+    }
+    warn_conflicts(&facts.path, &stored.conflicts);
+    in_group.insert(facts.sha256.clone(), stored.file_id);
+    left.parsed.push(parsed);
+    let outcome = FileOutcome::Ingested {
+        path: std::mem::take(&mut facts.path),
+        sha256: std::mem::take(&mut facts.sha256),
+        stored,
+    };
+    left.facts.push(facts);
+    Ok(outcome)
+}
+
+/// A warning per conflicting value a file brought.
+fn warn_conflicts(path: &str, conflicts: &[String]) {
+    for c in conflicts {
+        tracing::warn!(path = %path.escape_debug(), conflict = %c.escape_debug(), "conflicting value kept and flagged");
+    }
+}
+
+/// One log line per ingested file, when info is logged.
+fn log_ingested(outcomes: &[FileOutcome]) {
+    if tracing::enabled!(tracing::Level::INFO) {
+        for o in outcomes {
+            if let FileOutcome::Ingested { path, stored, .. } = o {
+                tracing::info!(path = %path.escape_debug(), rows_new = stored.rows_new, rows_known = stored.rows_known,
+                    rows_conflict = stored.rows_conflict, "file ingested");
             }
         }
-        Ok((outcomes, touched))
     }
 }
 
@@ -758,20 +903,15 @@ impl Reader<'_> {
             }
         };
         if !meta.is_file() {
+            let why = "cannot read the file: it is not a regular file (a folder, pipe or device); \
+                       expected an export file";
             return Prepared {
                 facts,
-                result: Err(
-                    "cannot read the file: it is not a regular file (a folder, pipe or device); \
-                     expected an export file"
-                        .to_string(),
-                ),
+                result: Err(why.to_string()),
             };
         }
         facts.size = i64::try_from(meta.len()).unwrap_or(i64::MAX);
-        facts.mtime = meta.modified().ok().map(|t| {
-            chrono::DateTime::<chrono::Utc>::from(t)
-                .to_rfc3339_opts(chrono::SecondsFormat::Millis, true)
-        });
+        facts.mtime = stored_mtime(&meta);
         if meta.len() > self.cfg.max_file_bytes {
             // Hash it anyway (streaming) so the record names exactly which content was refused.
             facts.sha256 = sha256_file(path).unwrap_or_default();
@@ -795,22 +935,33 @@ impl Reader<'_> {
         };
         facts.size = bytes.len() as i64;
         facts.sha256 = crate::model::chain::hex_lower(&Sha256::digest(&bytes));
-        let result = match profile_name {
-            None => Err(
-                "the file is not under any configured folder, so no export profile applies; \
-                         expected a path below one of [[folders]] (or give --profile)"
-                    .to_string(),
-            ),
-            Some(name) => match (self.cfg.profiles.get(&name), valid.get(name.as_str())) {
-                (Some(profile), Some(Ok(()))) => cache
-                    .parse_valid(&bytes, profile)
-                    .map_err(|e| e.to_string()),
-                // An invalid profile: the parser names what is wrong with it.
-                (Some(profile), _) => ingest::parse(&bytes, profile).map_err(|e| e.to_string()),
-                (None, _) => Err(format!("no export profile named '{name}'")),
-            },
-        };
+        let result = self.parse(profile_name.as_deref(), &bytes, valid, cache);
         Prepared { facts, result }
+    }
+
+    /// Parse a file's bytes with the profile its folder (or the command line) names.
+    fn parse(
+        &self,
+        profile_name: Option<&str>,
+        bytes: &[u8],
+        valid: &HashMap<&str, Result<(), String>>,
+        cache: &mut ParseCache,
+    ) -> Result<ParsedFile, String> {
+        let Some(name) = profile_name else {
+            return Err(
+                "the file is not under any configured folder, so no export profile applies; \
+                 expected a path below one of [[folders]] (or give --profile)"
+                    .to_string(),
+            );
+        };
+        match (self.cfg.profiles.get(name), valid.get(name)) {
+            (Some(profile), Some(Ok(()))) => {
+                cache.parse_valid(bytes, profile).map_err(|e| e.to_string())
+            }
+            // An invalid profile: the parser names what is wrong with it.
+            (Some(profile), _) => ingest::parse(bytes, profile).map_err(|e| e.to_string()),
+            (None, _) => Err(format!("no export profile named '{name}'")),
+        }
     }
 }
 
@@ -905,6 +1056,24 @@ fn sha256_file(path: &Path) -> std::io::Result<String> {
         h.update(&buf[..n]);
     }
     Ok(hex::encode(h.finalize()))
+}
+
+/// A file's modification time as stored.
+fn stored_mtime(meta: &std::fs::Metadata) -> Option<String> {
+    meta.modified()
+        .ok()
+        .map(|t| crate::model::time::format_ts(chrono::DateTime::<chrono::Utc>::from(t)))
+}
+
+/// Copy each file that could not be read into quarantine; its copy's name, per file.
+fn quarantine_rejected(dir: &Path, prepared: &[Prepared]) -> Vec<Option<String>> {
+    prepared
+        .iter()
+        .map(|p| match &p.result {
+            Err(_) => quarantine_copy(dir, &p.facts),
+            Ok(_) => None,
+        })
+        .collect()
 }
 
 /// Copy a rejected file into the quarantine folder as `<sha256 prefix>-<safe name>`.

@@ -359,7 +359,7 @@ fn good_files_are_ingested_and_each_broken_one_is_named_with_its_reason() {
     let dir = fresh_plant(tmp.path());
     let exports = dir.join("exports");
     let mut good = Vec::new();
-    turnbook::notebook::ingestion::collect_files(&exports, &mut good).unwrap();
+    turnbook::notebook::collect_files(&exports, &mut good).unwrap();
     let bad = broken_files();
     assert!(bad.len() >= 20);
     for b in &bad {

@@ -46,7 +46,7 @@ fn demo_writes_plant_database_alerts_and_reports_and_refuses_a_used_folder() {
     assert!(dir.join("turnbook.db").is_file());
     let exports = dir.join("exports");
     let mut n_exports = Vec::new();
-    turnbook::notebook::ingestion::collect_files(&exports, &mut n_exports).unwrap();
+    turnbook::notebook::collect_files(&exports, &mut n_exports).unwrap();
     assert!(n_exports.len() >= 10, "{} export files", n_exports.len());
 
     let mails = files_with_ext(&dir.join("outbox"), "eml");
@@ -114,7 +114,7 @@ fn second_backfill_adds_nothing_and_reports_every_file_as_a_duplicate() {
     let db = dir.join("turnbook.db");
     let exports = dir.join("exports");
     let mut files = Vec::new();
-    turnbook::notebook::ingestion::collect_files(&exports, &mut files).unwrap();
+    turnbook::notebook::collect_files(&exports, &mut files).unwrap();
     let n = files.len() as i64;
     let cycles_before = count(&db, "SELECT COUNT(*) FROM cycles");
     let measurements_before = count(&db, "SELECT COUNT(*) FROM measurements");
@@ -199,7 +199,7 @@ fn small_transactions_give_the_same_records_in_path_order() {
     std::fs::write(&cfg, small).unwrap();
     let exports = dir.join("exports");
     let mut files = Vec::new();
-    turnbook::notebook::ingestion::collect_files(&exports, &mut files).unwrap();
+    turnbook::notebook::collect_files(&exports, &mut files).unwrap();
     // Repeat one content under a new name so that a duplicate falls inside a later group.
     let copy = exports.join("hplc").join("zz-copy-of-first.csv");
     std::fs::copy(exports.join("hplc").join("KV4-H-001.csv"), &copy).unwrap();

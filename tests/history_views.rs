@@ -6,7 +6,7 @@ use std::path::Path;
 use turnbook::config::Config;
 use turnbook::ingest::{CycleRow, LotRow, MeasuredValue, ParsedFile};
 use turnbook::model::Quantity;
-use turnbook::notebook::lots;
+use turnbook::notebook as lots;
 use turnbook::store::{self, records};
 
 fn facts(name: &str) -> records::FileFacts {

@@ -8,7 +8,7 @@
 use std::path::{Path, PathBuf};
 
 use turnbook::audit;
-use turnbook::notebook::ingestion::Ingestor;
+use turnbook::notebook::Ingestor;
 
 const FILES: usize = 2_000;
 

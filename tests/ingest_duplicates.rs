@@ -8,7 +8,7 @@
 use std::path::{Path, PathBuf};
 
 use turnbook::config::Config;
-use turnbook::notebook::ingestion::{FileOutcome, Ingestor};
+use turnbook::notebook::{FileOutcome, Ingestor};
 
 mod common;
 

@@ -10,7 +10,7 @@
 use std::path::{Path, PathBuf};
 
 use turnbook::config::Config;
-use turnbook::notebook::ingestion::Ingestor;
+use turnbook::notebook::Ingestor;
 
 fn config(root: &Path, group: usize) -> Config {
     let text = format!(
@@ -126,7 +126,7 @@ fn a_backfill_records_each_lot_up_to_its_newest_event() {
         drop(ing);
         // Opened again, nothing is stale: no lot is recomputed.
         let mut conn = turnbook::store::open(&cfg.database_path()).unwrap();
-        let healed = turnbook::notebook::recompute::recompute_stale(&mut conn, &cfg, "qa").unwrap();
+        let healed = turnbook::notebook::recompute_stale(&mut conn, &cfg, "qa").unwrap();
         assert_eq!(healed, 0, "group {group}");
     }
 }

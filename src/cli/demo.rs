@@ -332,8 +332,8 @@ pub fn run(dir: &Path, live: bool) -> CmdResult {
     println!("turnbook demo: an invented plant in {}", dir.display());
     println!("  configuration  {}", cfg_path.display());
     println!("  exports        {}", dir.join("exports").display());
-    let files = crate::notebook::ingestion::files_under(&cfg, &[dir.join("exports")], None)?;
-    let summary = crate::notebook::ingestion::ingest_files(cfg.clone(), &files, None, |_| {})?;
+    let files = crate::notebook::files_under(&cfg, &[dir.join("exports")], None)?;
+    let summary = crate::notebook::ingest_files(cfg.clone(), &files, None, |_| {})?;
     println!(
         "  backfill       {} files: {} ingested, {} duplicates, {} rejected",
         files.len(),

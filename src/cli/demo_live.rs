@@ -6,7 +6,7 @@ use std::time::{Duration, Instant};
 
 use crate::cli::{CmdResult, Failure};
 use crate::config::Config;
-use crate::notebook::{daemon, ingestion};
+use crate::notebook;
 
 /// The simulated plant: writes each file slowly, as instruments do, on a thread of its own.
 fn spawn_plant(
@@ -48,7 +48,7 @@ async fn wait_for_files(
     while !waiting.is_empty() && Instant::now() < deadline {
         tokio::time::sleep(Duration::from_millis(250)).await;
         for (id, path, outcome, rows) in
-            ingestion::files_recorded_after(cfg, last).unwrap_or_default()
+            notebook::files_recorded_after(cfg, last).unwrap_or_default()
         {
             last = id;
             let path = PathBuf::from(path);
@@ -79,13 +79,12 @@ pub fn run(
         PathBuf::from("exports/icp/icp-report-live.tsv"),
         icp.as_bytes().to_vec(),
     ));
-    let rt = daemon::runtime()?;
-    let start_id = ingestion::newest_file_id(cfg)?;
+    let rt = notebook::runtime()?;
+    let start_id = notebook::newest_file_id(cfg)?;
     rt.block_on(async {
         let (stop, rx) = tokio::sync::watch::channel(false);
         let service_cfg = cfg.clone();
-        let service =
-            tokio::spawn(async move { crate::notebook::daemon::serve(&service_cfg, rx).await });
+        let service = tokio::spawn(async move { crate::notebook::serve(&service_cfg, rx).await });
         tokio::time::sleep(Duration::from_millis(800)).await;
         println!(
             "  live           the service is watching; the plant writes its newest exports slowly:"
@@ -124,16 +123,16 @@ pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
     let smtp = std::env::var(crate::mail::SMTP_URL_ENV)
         .ok()
         .filter(|s| !s.trim().is_empty());
-    let digest = crate::notebook::daemon::queue_digest(cfg)?;
-    let mail = daemon::deliver_now(cfg)
+    let digest = crate::notebook::queue_digest(cfg)?;
+    let mail = notebook::deliver_now(cfg)
         .map_err(|e| Failure::rejected(format!("mail delivery failed: {e}")))?;
     let reports = dir.join("reports");
-    crate::notebook::reports::write_all(cfg, &reports)?;
+    crate::notebook::write_all_reports(cfg, &reports)?;
     println!();
     crate::cli::lots::lots(cfg, false)?;
     println!();
     println!("The deactivating lot, PD-C-2611-A:");
-    let state = crate::notebook::lots::known_lot(cfg, "PD-C-2611-A")?;
+    let state = crate::notebook::known_lot(cfg, "PD-C-2611-A")?;
     if let Some(a) = &state.analysis {
         for line in crate::fit::render_text(a).lines().filter(|l| {
             l.starts_with("Chosen")

@@ -3,7 +3,7 @@
 use super::{CmdResult, CorrectArgs, ExcludeArgs, NoteArgs, RegisterArgs, SignoffArgs};
 use crate::config::Config;
 use crate::model::LotRecord;
-use crate::notebook::entries;
+use crate::notebook as entries;
 
 /// `turnbook register`.
 pub fn register(cfg: &Config, a: &RegisterArgs) -> CmdResult {

@@ -3,7 +3,7 @@
 use super::{Cli, CmdResult, Failure, FitArgs, load};
 use crate::config::Config;
 use crate::fit;
-use crate::notebook::fits::{self, SeriesFit, SeriesRequest};
+use crate::notebook::{self as fits, SeriesFit, SeriesRequest};
 
 /// `turnbook fit LOT` or `turnbook fit --series FILE`.
 pub fn fit(cli: &Cli, a: &FitArgs) -> CmdResult {

@@ -2,7 +2,7 @@
 
 use super::{CmdResult, IngestArgs, printable, progress_bar};
 use crate::config::Config;
-use crate::notebook::ingestion::{self, FileOutcome};
+use crate::notebook::{self as ingestion, FileOutcome};
 
 /// `turnbook ingest PATH...`.
 pub fn ingest(cfg: Config, a: &IngestArgs) -> CmdResult {

@@ -4,7 +4,7 @@ use std::fmt::Write as _;
 
 use super::{CmdResult, Failure, fmt_opt};
 use crate::config::Config;
-use crate::notebook::lots::{cycle_lines, known_lot, lot_lines};
+use crate::notebook::{cycle_lines, known_lot, lot_lines};
 
 /// `turnbook lots`.
 pub fn lots(cfg: &Config, json: bool) -> CmdResult {

@@ -2,14 +2,13 @@
 
 use super::{CmdResult, Failure, ReportArgs};
 use crate::config::Config;
-use crate::notebook::reports;
+use crate::notebook;
 
 /// `turnbook report`.
 pub fn report(cfg: &Config, a: &ReportArgs) -> CmdResult {
-    let conn = reports::open(cfg)?;
     match (a.lot.as_deref(), a.site) {
         (Some(lot), false) => {
-            reports::write_lot_as_of(&conn, cfg, lot, a.as_of, &a.out, a.csv.as_deref())?;
+            notebook::write_lot_report(cfg, lot, a.as_of, &a.out, a.csv.as_deref())?;
             match a.as_of {
                 Some(seq) => println!(
                     "report of lot {lot} as it stood after event {seq} written to {}",
@@ -19,7 +18,7 @@ pub fn report(cfg: &Config, a: &ReportArgs) -> CmdResult {
             }
         }
         (None, true) => {
-            reports::write_site(&conn, cfg, &a.out)?;
+            notebook::write_site_report(cfg, &a.out)?;
             println!("site report written to {}", a.out.display());
         }
         _ => {

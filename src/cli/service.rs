@@ -2,7 +2,7 @@
 
 use super::CmdResult;
 use crate::config::Config;
-use crate::notebook::daemon;
+use crate::notebook as daemon;
 
 /// `turnbook watch`: the service, until SIGTERM or SIGINT.
 pub fn watch(cfg: &Config) -> CmdResult {

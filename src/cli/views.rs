@@ -5,7 +5,7 @@ use crate::config::Config;
 
 /// `turnbook status`.
 pub fn status(cfg: &Config, json: bool) -> CmdResult {
-    let s = crate::notebook::history::status(cfg)?;
+    let s = crate::notebook::status(cfg)?;
     if json {
         println!("{}", serde_json::to_string_pretty(&s)?);
         return Ok(0);
@@ -42,7 +42,7 @@ pub fn status(cfg: &Config, json: bool) -> CmdResult {
 
 /// `turnbook history LOT`.
 pub fn history(cfg: &Config, lot: &str, json: bool) -> CmdResult {
-    let h = crate::notebook::history::history(cfg, lot)?;
+    let h = crate::notebook::history(cfg, lot)?;
     if json {
         println!("{}", serde_json::to_string_pretty(&h)?);
         return Ok(0);

@@ -17,7 +17,7 @@ use super::error::NotebookError;
 use crate::audit;
 use crate::config::Config;
 use crate::ingest::{self, ParseCache, ParsedFile};
-use crate::store::records::{self, FileFacts, NextIds, StoredFile};
+use crate::store::records::{self, FileFacts, StoredFile};
 use crate::store::{self, Connection, StoreError, bulk};
 use crate::watch::WatchFolder;
 
@@ -40,12 +40,6 @@ pub enum FileOutcome {
         sha256: Option<String>,
         error: String,
     },
-}
-
-impl FileOutcome {
-    pub fn is_rejected(&self) -> bool {
-        matches!(self, FileOutcome::Rejected { .. })
-    }
 }
 
 /// Totals of a run over many files.
@@ -664,8 +658,7 @@ impl<'a> Writer<'a> {
             _ => None,
         };
         // The transaction holds the write lock: ids can be counted here, not queried.
-        let mut ids = NextIds::default();
-        let mut st = records::FileStatements::prepare(&tx)?;
+        let mut w = records::FileWriter::new(&tx)?;
         let mut outcomes = Vec::with_capacity(prepared.len());
         let mut in_group: DigestMap<i64> =
             DigestMap::with_capacity_and_hasher(prepared.len(), Default::default());
@@ -684,7 +677,7 @@ impl<'a> Writer<'a> {
             };
             let outcome = match (seen, p.result) {
                 (Some(of), _) => {
-                    records::record_duplicate_with(&tx, &mut ids, &facts, of, self.actor)?;
+                    w.duplicate(&facts, of, self.actor)?;
                     FileOutcome::Duplicate {
                         path: facts.path,
                         sha256: facts.sha256,
@@ -693,14 +686,14 @@ impl<'a> Writer<'a> {
                 }
                 (None, Err(error)) => reject(
                     &tx,
-                    &mut ids,
+                    &mut w,
                     (self.cfg, self.actor),
                     facts,
                     error,
                     q.as_deref(),
                 )?,
                 (None, Ok(parsed)) => store_parsed(
-                    (&tx, &mut st, &mut ids),
+                    &mut w,
                     self.actor,
                     facts,
                     parsed,
@@ -710,8 +703,7 @@ impl<'a> Writer<'a> {
             };
             outcomes.push(outcome);
         }
-        ids.finish(&tx)?;
-        drop(st);
+        w.finish()?;
         if recompute {
             // Under the write lock, this group's events are the newest of their lots.
             crate::notebook::recompute::recompute_lots_after(&tx, self.cfg, &touched)?;
@@ -730,13 +722,13 @@ impl<'a> Writer<'a> {
 /// Record a file that could not be read, and raise its quarantine alert.
 fn reject(
     tx: &store::Transaction<'_>,
-    ids: &mut NextIds,
+    w: &mut records::FileWriter<'_, '_>,
     (cfg, actor): (&Config, &str),
     facts: FileFacts,
     error: String,
     quarantined: Option<&str>,
 ) -> Result<FileOutcome, StoreError> {
-    records::record_rejected_with(tx, ids, &facts, &error, quarantined, actor)?;
+    w.rejected(&facts, &error, quarantined, actor)?;
     crate::notebook::alerts::raise_quarantine(tx, cfg, facts.site.as_deref(), &facts.path, &error)?;
     // A file name or a quoted cell may hold control characters: escape them so that a
     // log read on a terminal shows them instead of obeying them.
@@ -770,18 +762,14 @@ fn seen_before(
 
 /// Store a parsed file's records; it is now this group's copy of its content.
 fn store_parsed(
-    (tx, st, ids): (
-        &store::Transaction<'_>,
-        &mut records::FileStatements<'_>,
-        &mut NextIds,
-    ),
+    w: &mut records::FileWriter<'_, '_>,
     actor: &str,
     mut facts: FileFacts,
     parsed: ParsedFile,
     (in_group, touched): (&mut DigestMap<i64>, &mut BTreeMap<String, i64>),
     left: &mut Leftovers,
 ) -> Result<FileOutcome, StoreError> {
-    let stored = records::record_parsed_with(tx, st, ids, &facts, &parsed, actor)?;
+    let stored = w.parsed(&facts, &parsed, actor)?;
     // Files are stored in order: this one's event is the lots' newest.
     for lot in &stored.lots_touched {
         touched.insert(lot.clone(), stored.event_seq);

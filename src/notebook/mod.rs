@@ -13,18 +13,32 @@
 //! - [`reports`]: the data of a lot's or the site's report, and writing them.
 //! - [`daemon`]: the service: watcher, mailer and digest, with an orderly shutdown.
 
-pub mod alerts;
-pub mod daemon;
-pub mod entries;
+mod alerts;
+mod daemon;
+mod entries;
 mod error;
-pub mod fits;
-pub mod history;
-pub mod ingestion;
-pub mod lots;
-pub mod recompute;
-pub mod reports;
+mod fits;
+mod history;
+mod ingestion;
+mod lots;
+mod recompute;
+mod reports;
 
+pub use daemon::{deliver_now, queue_digest, run_service, runtime, serve};
+pub use entries::{Receipt, Registered, SignedOff, correct, exclude, note, register, sign_off};
 pub use error::{NotebookError, Result};
+pub use fits::{SeriesFit, SeriesRequest, fit_series, lot_fit};
+pub use history::{HistoryEntry, Status, history, status};
+pub use ingestion::{
+    FileOutcome, Ingestor, RunSummary, collect_files, files_recorded_after, files_under,
+    ingest_files, newest_file_id,
+};
+pub use lots::{
+    CycleLine, CycleState, LotLine, LotState, cycle_lines, known_lot, lot_lines, lot_state,
+    lot_state_as_of,
+};
+pub use recompute::recompute_stale;
+pub use reports::{write_all_reports, write_lot_report, write_site_report};
 
 use crate::config::Config;
 

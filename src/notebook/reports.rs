@@ -367,21 +367,36 @@ pub fn write_lot_as_of(
     Ok(())
 }
 
+/// Write a lot's report as it stood after event `as_of` (None: now), and its CSV table
+/// when asked.
+pub fn write_lot_report(
+    cfg: &Config,
+    lot: &str,
+    as_of: Option<i64>,
+    out: &Path,
+    csv: Option<&Path>,
+) -> Result<()> {
+    write_lot_as_of(&open(cfg)?, cfg, lot, as_of, out, csv)
+}
+
 /// Write the site summary across all lots.
-pub fn write_site(conn: &Connection, cfg: &Config, out: &Path) -> Result<()> {
+pub fn write_site_report(cfg: &Config, out: &Path) -> Result<()> {
+    write_site(&open(cfg)?, cfg, out)
+}
+
+fn write_site(conn: &Connection, cfg: &Config, out: &Path) -> Result<()> {
     let s = build_site(conn, cfg, None)?;
     std::fs::write(out, report::site_html(&s))
         .map_err(|e| NotebookError::Refused(format!("cannot write {}: {e}", out.display())))
 }
 
-/// Open the notebook `cfg` names for a report.
-pub fn open(cfg: &Config) -> Result<Connection> {
+fn open(cfg: &Config) -> Result<Connection> {
     Ok(store::open(&cfg.database_path())?)
 }
 
 /// Write every lot's report (HTML and CSV) and the site summary into `dir`; returns the
 /// lot reports written.
-pub fn write_all(cfg: &Config, dir: &Path) -> Result<Vec<std::path::PathBuf>> {
+pub fn write_all_reports(cfg: &Config, dir: &Path) -> Result<Vec<std::path::PathBuf>> {
     let conn = open(cfg)?;
     std::fs::create_dir_all(dir)?;
     let mut written = Vec::new();

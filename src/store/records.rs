@@ -46,7 +46,7 @@ pub struct StoredFile {
 /// The statements run for every stored file, prepared once per transaction by a writer
 /// that stores many files in it (the connection's statement cache costs a lookup and a
 /// copy of the SQL text per use).
-pub struct FileStatements<'c> {
+struct FileStatements<'c> {
     event: rusqlite::Statement<'c>,
     file: rusqlite::Statement<'c>,
     source: rusqlite::Statement<'c>,
@@ -55,7 +55,7 @@ pub struct FileStatements<'c> {
 }
 
 impl<'c> FileStatements<'c> {
-    pub fn prepare(conn: &'c rusqlite::Connection) -> Result<Self> {
+    fn prepare(conn: &'c rusqlite::Connection) -> Result<Self> {
         Ok(FileStatements {
             event: conn.prepare(crate::store::events::INSERT_EVENT)?,
             file: conn.prepare(INSERT_FILE)?,
@@ -63,6 +63,56 @@ impl<'c> FileStatements<'c> {
             cycle_get: conn.prepare(&SELECT_CYCLE)?,
             cycle_put: conn.prepare(&UPSERT_CYCLE)?,
         })
+    }
+}
+
+/// Writes the records of many files in one transaction, as a backfill's writer does:
+/// the statements prepared once and the ids counted once, not looked up per file. Call
+/// [`FileWriter::finish`] before the transaction commits.
+pub struct FileWriter<'t, 'c> {
+    tx: &'t Transaction<'c>,
+    st: FileStatements<'t>,
+    ids: NextIds,
+}
+
+impl<'t, 'c> FileWriter<'t, 'c> {
+    pub fn new(tx: &'t Transaction<'c>) -> Result<Self> {
+        Ok(FileWriter {
+            tx,
+            st: FileStatements::prepare(tx)?,
+            ids: NextIds::default(),
+        })
+    }
+
+    /// Record a file whose content was ingested before (as file `of_file_id`).
+    pub fn duplicate(&mut self, facts: &FileFacts, of_file_id: i64, actor: &str) -> Result<i64> {
+        record_duplicate(self.tx, &mut self.ids, facts, of_file_id, actor)
+    }
+
+    /// Record a file that could not be read, with its error and where it was quarantined.
+    pub fn rejected(
+        &mut self,
+        facts: &FileFacts,
+        error: &str,
+        quarantined: Option<&str>,
+        actor: &str,
+    ) -> Result<i64> {
+        record_rejected(self.tx, &mut self.ids, facts, error, quarantined, actor)
+    }
+
+    /// Store the records of one parsed file.
+    pub fn parsed(
+        &mut self,
+        facts: &FileFacts,
+        parsed: &ParsedFile,
+        actor: &str,
+    ) -> Result<StoredFile> {
+        record_parsed_in(self.tx, &mut self.st, &mut self.ids, facts, parsed, actor)
+    }
+
+    /// Record the counters the files took ids from.
+    pub fn finish(mut self) -> Result<()> {
+        self.ids.finish(self.tx)
     }
 }
 
@@ -94,7 +144,7 @@ fn store_next_measurement(tx: &Transaction<'_>, next: i64) -> Result<()> {
 /// It also carries the newest event of the chain, and records the next free measurement id
 /// in `id_counters` with [`NextIds::finish`], once, before the transaction commits.
 #[derive(Debug, Default, Clone)]
-pub struct NextIds {
+struct NextIds {
     file: Option<i64>,
     measurement: Option<i64>,
     /// The measurement counter as read from the database, to see whether it moved.
@@ -131,7 +181,7 @@ impl NextIds {
 
     /// Record the next free measurement id, if ids were taken. Call it before the
     /// transaction commits; the `record_*` functions without counters call it themselves.
-    pub fn finish(&mut self, tx: &Transaction<'_>) -> Result<()> {
+    fn finish(&mut self, tx: &Transaction<'_>) -> Result<()> {
         if let (Some(next), Some(read)) = (self.measurement, self.measurement_read)
             && next != read
         {
@@ -177,10 +227,10 @@ const INSERT_FILE: &str = "INSERT INTO source_files(id, sha256, path, size, mtim
 
 fn insert_file(tx: &Transaction<'_>, r: &FileRow, seq: i64) -> Result<()> {
     let mut stmt = tx.prepare_cached(INSERT_FILE)?;
-    insert_file_with(&mut stmt, &r.as_ref(), seq)
+    insert_file_prepared(&mut stmt, &r.as_ref(), seq)
 }
 
-fn insert_file_with(
+fn insert_file_prepared(
     stmt: &mut rusqlite::Statement<'_>,
     r: &FileRowRef<'_>,
     seq: i64,
@@ -206,20 +256,7 @@ fn insert_file_with(
 }
 
 /// Record a file whose content was ingested before (as file `of_file_id`).
-pub fn record_duplicate(
-    tx: &Transaction<'_>,
-    facts: &FileFacts,
-    of_file_id: i64,
-    actor: &str,
-) -> Result<i64> {
-    let mut ids = NextIds::default();
-    let id = record_duplicate_with(tx, &mut ids, facts, of_file_id, actor)?;
-    ids.finish(tx)?;
-    Ok(id)
-}
-
-/// [`record_duplicate`] taking its id from the transaction's counters.
-pub fn record_duplicate_with(
+fn record_duplicate(
     tx: &Transaction<'_>,
     ids: &mut NextIds,
     facts: &FileFacts,
@@ -272,21 +309,7 @@ fn append_file_event(
 }
 
 /// Record a file that could not be read, with its error and where it was quarantined.
-pub fn record_rejected(
-    tx: &Transaction<'_>,
-    facts: &FileFacts,
-    error: &str,
-    quarantined: Option<&str>,
-    actor: &str,
-) -> Result<i64> {
-    let mut ids = NextIds::default();
-    let id = record_rejected_with(tx, &mut ids, facts, error, quarantined, actor)?;
-    ids.finish(tx)?;
-    Ok(id)
-}
-
-/// [`record_rejected`] taking its id from the transaction's counters.
-pub fn record_rejected_with(
+fn record_rejected(
     tx: &Transaction<'_>,
     ids: &mut NextIds,
     facts: &FileFacts,
@@ -412,10 +435,10 @@ static SELECT_CYCLE: LazyLock<String> = LazyLock::new(|| {
 /// Write (insert or replace) the current view of one cycle.
 pub fn upsert_cycle(tx: &Transaction<'_>, v: &CycleView) -> Result<()> {
     let mut stmt = tx.prepare_cached(&UPSERT_CYCLE)?;
-    upsert_cycle_with(&mut stmt, v)
+    upsert_cycle_prepared(&mut stmt, v)
 }
 
-fn upsert_cycle_with(stmt: &mut rusqlite::Statement<'_>, v: &CycleView) -> Result<()> {
+fn upsert_cycle_prepared(stmt: &mut rusqlite::Statement<'_>, v: &CycleView) -> Result<()> {
     let x = &v.values;
     stmt.execute(params![
         v.batch_id,
@@ -443,10 +466,10 @@ fn upsert_cycle_with(stmt: &mut rusqlite::Statement<'_>, v: &CycleView) -> Resul
 /// Read the stored cycle row of a batch.
 pub fn cycle(conn: &rusqlite::Connection, batch_id: &str) -> Result<Option<CycleView>> {
     let mut stmt = conn.prepare_cached(&SELECT_CYCLE)?;
-    cycle_with(&mut stmt, batch_id)
+    cycle_prepared(&mut stmt, batch_id)
 }
 
-fn cycle_with(stmt: &mut rusqlite::Statement<'_>, batch_id: &str) -> Result<Option<CycleView>> {
+fn cycle_prepared(stmt: &mut rusqlite::Statement<'_>, batch_id: &str) -> Result<Option<CycleView>> {
     Ok(stmt.query_row([batch_id], cycle_from_row).optional()?)
 }
 
@@ -504,15 +527,14 @@ pub fn record_parsed(
     parsed: &ParsedFile,
     actor: &str,
 ) -> Result<StoredFile> {
-    let mut ids = NextIds::default();
-    let mut st = FileStatements::prepare(tx)?;
-    let stored = record_parsed_with(tx, &mut st, &mut ids, facts, parsed, actor)?;
-    ids.finish(tx)?;
+    let mut w = FileWriter::new(tx)?;
+    let stored = w.parsed(facts, parsed, actor)?;
+    w.finish()?;
     Ok(stored)
 }
 
-/// [`record_parsed`] taking its ids from the transaction's counters.
-pub fn record_parsed_with(
+/// Store the records of one parsed file through a writer's statements and counters.
+fn record_parsed_in(
     tx: &Transaction<'_>,
     st: &mut FileStatements<'_>,
     ids: &mut NextIds,
@@ -550,7 +572,7 @@ pub fn record_parsed_with(
     let seq = append_ingested(tx, st, ids, facts, actor, &file, &new_measurements, &lots)?;
     ids.measurements_to(next_m);
     out.event_seq = seq;
-    insert_file_with(&mut st.file, &file, seq)?;
+    insert_file_prepared(&mut st.file, &file, seq)?;
     insert_sources(&mut st.source, &new_measurements, seq)?;
     for l in &lots {
         upsert_lot(tx, l, seq)?;
@@ -563,7 +585,7 @@ pub fn record_parsed_with(
         if let Some(l) = &v.lot {
             out.lots_touched.insert(l.clone());
         }
-        upsert_cycle_with(&mut st.cycle_put, &v)?;
+        upsert_cycle_prepared(&mut st.cycle_put, &v)?;
     }
     Ok(out)
 }
@@ -591,7 +613,7 @@ fn merge_cycle_rows<'p>(
         let b = match found {
             Some(b) => b,
             None => {
-                let existing = cycle_with(&mut st.cycle_get, &row.batch_id)?;
+                let existing = cycle_prepared(&mut st.cycle_get, &row.batch_id)?;
                 let known = if existing.is_some() {
                     measurements_of(tx, &row.batch_id)?
                 } else {

@@ -14,7 +14,7 @@ use std::time::Instant;
 use sha2::{Digest, Sha256};
 
 use turnbook::config::Config;
-use turnbook::notebook::ingestion::{self, Ingestor};
+use turnbook::notebook::{self as ingestion, Ingestor};
 
 const LOTS: usize = 5;
 

@@ -10,6 +10,7 @@ use std::path::{Path, PathBuf};
 use serde::Deserialize;
 
 use crate::alert::AlertRules;
+use crate::chem::Route;
 use crate::ingest::Profile;
 use crate::mail::MailConfig;
 use crate::watch::WatchFolder;
@@ -101,11 +102,51 @@ pub struct Chemistry {
     #[serde(default = "default_t_ref")]
     pub reference_temperature_c: f64,
     /// Route of administration of the product, for ICH Q3D limits: oral, parenteral, inhalation.
-    #[serde(default = "default_route")]
-    pub route: String,
+    #[serde(default)]
+    pub route: Route,
     /// Metal-in-product limits by element, µg/g, overriding the built-in ICH Q3D values.
     #[serde(default)]
     pub metal_limits_ug_g: BTreeMap<String, f64>,
+}
+
+/// The y of a lot's fit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Measure {
+    /// Activity from k_app (the default).
+    #[default]
+    Activity,
+    /// TON per cycle.
+    Ton,
+}
+
+/// The x of a lot's fit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Axis {
+    /// Cycle number (the default).
+    #[default]
+    Cycle,
+    /// Cumulative hours on stream.
+    Hours,
+}
+
+impl std::fmt::Display for Measure {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            Measure::Activity => "activity",
+            Measure::Ton => "ton",
+        })
+    }
+}
+
+impl std::fmt::Display for Axis {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            Axis::Cycle => "cycle",
+            Axis::Hours => "hours",
+        })
+    }
 }
 
 /// What is fitted per lot and when it must be replaced.
@@ -113,11 +154,11 @@ pub struct Chemistry {
 #[serde(deny_unknown_fields)]
 pub struct Fitting {
     /// The y of the fit: "activity" (from k_app, the default) or "ton" (TON per cycle).
-    #[serde(default = "default_basis")]
-    pub measure: String,
+    #[serde(default)]
+    pub measure: Measure,
     /// The x of the fit: "cycle" (cycle number) or "hours" (cumulative time on stream).
-    #[serde(default = "default_axis")]
-    pub axis: String,
+    #[serde(default)]
+    pub axis: Axis,
     /// Replacement criterion as a fraction of the fitted fresh value (e.g. 0.6).
     #[serde(default)]
     pub criterion_fraction: Option<f64>,
@@ -169,15 +210,6 @@ fn default_saturation() -> f64 {
 fn default_t_ref() -> f64 {
     60.0
 }
-fn default_route() -> String {
-    "oral".into()
-}
-fn default_basis() -> String {
-    "activity".into()
-}
-fn default_axis() -> String {
-    "cycle".into()
-}
 fn default_confidence() -> f64 {
     0.90
 }
@@ -194,7 +226,7 @@ impl Default for Chemistry {
             saturation: default_saturation(),
             activation_energy_kj_mol: None,
             reference_temperature_c: default_t_ref(),
-            route: default_route(),
+            route: Route::default(),
             metal_limits_ug_g: BTreeMap::new(),
         }
     }
@@ -203,8 +235,8 @@ impl Default for Chemistry {
 impl Default for Fitting {
     fn default() -> Self {
         Fitting {
-            measure: default_basis(),
-            axis: default_axis(),
+            measure: Measure::default(),
+            axis: Axis::default(),
             criterion_fraction: None,
             criterion_absolute: None,
             confidence: default_confidence(),
@@ -292,12 +324,6 @@ impl Config {
                 "expected °C between -100 and 500",
             ));
         }
-        if !["oral", "parenteral", "inhalation"].contains(&c.route.as_str()) {
-            return Err(self.invalid(
-                "chemistry.route",
-                "expected one of oral, parenteral, inhalation",
-            ));
-        }
         for (metal, v) in &c.metal_limits_ug_g {
             if !(v.is_finite() && *v > 0.0) {
                 return Err(self.invalid(
@@ -307,12 +333,6 @@ impl Config {
             }
         }
         let f = &self.fitting;
-        if !["activity", "ton"].contains(&f.measure.as_str()) {
-            return Err(self.invalid("fitting.measure", "expected \"activity\" or \"ton\""));
-        }
-        if !["cycle", "hours"].contains(&f.axis.as_str()) {
-            return Err(self.invalid("fitting.axis", "expected \"cycle\" or \"hours\""));
-        }
         if f.criterion_fraction.is_some() && f.criterion_absolute.is_some() {
             return Err(self.invalid(
                 "fitting.criterion_absolute",

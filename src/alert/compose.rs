@@ -126,11 +126,7 @@ pub fn html_escape(s: &str) -> String {
 }
 
 fn num(v: f64) -> String {
-    if v.is_finite() {
-        format!("{v:.4}")
-    } else {
-        "n/a".into()
-    }
+    crate::model::numbers::fixed_or(Some(v), 4, "n/a")
 }
 
 /// Compose the message for one alert in the given state (the outbox decides the state).

@@ -9,6 +9,7 @@ use sha2::{Digest, Sha256};
 use super::compose::MESSAGE_ID_DOMAIN;
 use super::compose::{CAUTIONS, ComposedMessage, body_safe, header_safe, html_escape};
 use super::rules::{AlertState, ForecastStatus, LotSnapshot, Severity};
+use crate::model::numbers::fixed_or;
 use crate::model::time::format_ts;
 
 /// An alert whose condition is still open (from the outbox).
@@ -43,10 +44,7 @@ pub struct DigestPeriod {
 }
 
 fn num(v: Option<f64>) -> String {
-    match v {
-        Some(x) if x.is_finite() => format!("{x:.3}"),
-        _ => "-".into(),
-    }
+    fixed_or(v, 3, "-")
 }
 
 fn forecast_summary(s: &LotSnapshot) -> String {

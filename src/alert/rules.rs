@@ -412,11 +412,7 @@ pub fn recipients_for(rule: RuleId, site: &str, rules: &AlertRules) -> Vec<Strin
 }
 
 fn fmt_num(v: f64) -> String {
-    if v.is_finite() {
-        format!("{v:.4}")
-    } else {
-        "n/a".to_string()
-    }
+    crate::model::numbers::fixed_or(Some(v), 4, "n/a")
 }
 
 fn fmt_opt(v: Option<f64>) -> String {

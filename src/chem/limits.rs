@@ -10,9 +10,12 @@ use std::collections::BTreeMap;
 use serde::{Deserialize, Serialize};
 
 /// Route of administration of the drug product.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize)]
+#[derive(
+    Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Default, Serialize, Deserialize,
+)]
 #[serde(rename_all = "lowercase")]
 pub enum Route {
+    #[default]
     Oral,
     Parenteral,
     Inhalation,

@@ -203,7 +203,7 @@ fn hplc_file(b: &DemoBatch) -> String {
         b.batch,
         b.lot,
         b.cycle,
-        b.started.format("%Y-%m-%dT%H:%M:%S"),
+        b.started.format(crate::model::time::LOCAL_FORMAT),
         b.minutes,
         b.temp_c,
         b.conversion_pct,

@@ -376,7 +376,7 @@ pub fn printable(s: &str) -> String {
 
 /// A number with `digits` decimals, or "-" when there is none.
 pub fn fmt_opt(v: Option<f64>, digits: usize) -> String {
-    v.map_or("-".into(), |x| format!("{x:.digits$}"))
+    crate::model::numbers::fixed_or(v, digits, "-")
 }
 
 /// A progress bar on a terminal; hidden when stderr is not one, or JSON is printed.

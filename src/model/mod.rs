@@ -5,10 +5,12 @@
 //! - [`cycle`]: a cycle's current view, derived from its append-only measurements.
 //! - [`chain`]: how each event is linked to the one before it.
 //! - [`time`]: the one timestamp format of tables, messages and reports.
+//! - [`numbers`]: numbers as people read them.
 
 pub mod chain;
 pub mod cycle;
 pub mod event;
+pub mod numbers;
 mod quantity;
 pub mod time;
 

@@ -20,6 +20,15 @@ pub fn parse_ts(s: &str) -> Result<DateTime<Utc>, BadTimestamp> {
         .map_err(|_| BadTimestamp(s.chars().take(64).collect()))
 }
 
+/// A batch's start as instruments give it and the records keep it: local plant time,
+/// ISO 8601 without a zone.
+pub const LOCAL_FORMAT: &str = "%Y-%m-%dT%H:%M:%S";
+
+/// Read a batch start written in [`LOCAL_FORMAT`].
+pub fn parse_local(s: &str) -> Option<chrono::NaiveDateTime> {
+    chrono::NaiveDateTime::parse_from_str(s, LOCAL_FORMAT).ok()
+}
+
 /// The current time, formatted as stored. The shell's one clock: pure code takes times
 /// as arguments.
 pub fn now_utc() -> String {

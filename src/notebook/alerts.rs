@@ -8,20 +8,12 @@ use crate::alert::rules::{
     self, EvidenceRow, LimitSource, LotSnapshot, MetalInProduct, QuarantinedFile,
 };
 use crate::alert::{self, evaluate};
-use crate::chem::{PdeTable, Route};
-use crate::config::Config;
+use crate::chem::PdeTable;
+use crate::config::{Config, Measure};
 use crate::fit;
 use crate::model::Quantity;
 use crate::notebook::lots::LotState;
 use crate::store::Result;
-
-fn route(cfg: &Config) -> Route {
-    match cfg.chemistry.route.as_str() {
-        "parenteral" => Route::Parenteral,
-        "inhalation" => Route::Inhalation,
-        _ => Route::Oral,
-    }
-}
 
 /// The metal-in-product limit of a metal: the configured one, else ICH Q3D option 1.
 pub fn metal_limit(cfg: &Config, metal: &str) -> Option<(f64, LimitSource)> {
@@ -32,7 +24,7 @@ pub fn metal_limit(cfg: &Config, metal: &str) -> Option<(f64, LimitSource)> {
         ));
     }
     PdeTable::ich_q3d()
-        .option1_limit(metal, route(cfg))
+        .option1_limit(metal, cfg.chemistry.route)
         .map(|v| (v, LimitSource::IchQ3dRecalled))
 }
 
@@ -42,7 +34,7 @@ fn cadence(state: &LotState) -> Option<f64> {
         .cycles
         .iter()
         .filter_map(|c| c.view.started_at.as_deref())
-        .filter_map(|t| chrono::NaiveDateTime::parse_from_str(t, "%Y-%m-%dT%H:%M:%S").ok())
+        .filter_map(crate::model::time::parse_local)
         .collect();
     let (first, last) = (times.iter().min()?, times.iter().max()?);
     let days = (*last - *first).num_seconds() as f64 / 86_400.0;
@@ -109,7 +101,7 @@ fn evidence_rows(cfg: &Config, state: &LotState) -> Vec<EvidenceRow> {
         .iter()
         .filter_map(|c| {
             let m = c.metrics.as_ref()?;
-            let value = if cfg.fitting.measure == "ton" {
+            let value = if cfg.fitting.measure == Measure::Ton {
                 m.ton?
             } else {
                 m.activity?

@@ -8,7 +8,7 @@ use serde::Serialize;
 
 use super::error::{NotebookError, Result as NResult};
 use crate::chem::{self, ChemOptions, CycleInput, CycleMetrics, LotFacts};
-use crate::config::Config;
+use crate::config::{Axis, Config, Measure};
 use crate::fit::{self, AnalysisOptions, Criterion, LotAnalysis, LotSeries, ModelId};
 use crate::model::Quantity;
 use crate::model::cycle::CycleView;
@@ -239,7 +239,7 @@ fn add_metrics(cfg: &Config, rec: &LotRecord, cycles: &mut [CycleState]) {
 /// The series the configuration asks to fit: activity (or TON) against cycle number (or
 /// hours on stream), excluded cycles left out, saturated cycles marked censored.
 fn fit_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
-    let ton_basis = cfg.fitting.measure == "ton";
+    let ton_basis = cfg.fitting.measure == Measure::Ton;
     let mut series = LotSeries::default();
     let mut hours = 0.0;
     for c in cycles {
@@ -250,7 +250,7 @@ fn fit_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
         }
         let y = if ton_basis { m.ton } else { m.activity };
         let Some(y) = y else { continue };
-        series.x.push(if cfg.fitting.axis == "hours" {
+        series.x.push(if cfg.fitting.axis == Axis::Hours {
             hours
         } else {
             f64::from(c.cycle)

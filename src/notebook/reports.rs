@@ -6,7 +6,7 @@ use std::path::Path;
 use super::error::{NotebookError, Result};
 use super::history::HistoryEntry;
 use super::lots::{LotState, lot_state, no_such_lot};
-use crate::config::Config;
+use crate::config::{Axis, Config, Measure};
 use crate::fit;
 use crate::model::Quantity;
 use crate::model::time::now_utc;
@@ -71,12 +71,12 @@ fn fit_summary(cfg: &Config, a: &fit::LotAnalysis) -> Option<report::FitSummary>
         .unwrap_or_default();
     Some(report::FitSummary {
         model_id: f.model.id().to_string(),
-        x_label: if cfg.fitting.axis == "hours" {
+        x_label: if cfg.fitting.axis == Axis::Hours {
             "time on stream (h)".into()
         } else {
             "cycle".into()
         },
-        y_label: if cfg.fitting.measure == "ton" {
+        y_label: if cfg.fitting.measure == Measure::Ton {
             "TON per cycle".into()
         } else {
             "activity (relative to cycle 1)".into()

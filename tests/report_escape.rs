@@ -45,7 +45,7 @@ fn hostile_text_never_appears_unescaped_in_lot_html() {
 fn plotters_escapes_text_it_writes_into_svg() {
     let r = hostile_report();
     let fit = r.fit.as_ref().unwrap();
-    let svg = activity_svg(fit, &format!("Lot {}", r.identity.lot)).unwrap();
+    let svg = activity_svg(fit, &format!("Lot {}", r.identity.record.lot)).unwrap();
     assert!(svg.starts_with("<svg"));
     assert!(!svg.contains("<script"));
     assert!(svg.contains("Lot LOT-&lt;script&gt;alert(1)&lt;/script&gt;"));
@@ -135,7 +135,7 @@ fn csv_round_trips_through_the_csv_crate() {
         };
         assert_eq!(batch, expected);
         assert!(row[col("sources")].contains(&c.sources[0].sha256));
-        assert_eq!(&row[col("lot")], r.identity.lot);
+        assert_eq!(&row[col("lot")], r.identity.record.lot);
     }
 }
 

@@ -10,7 +10,7 @@
 #![allow(dead_code)]
 
 use statrs::distribution::{ContinuousCDF, StudentsT};
-use turnbook::model::Quantity;
+use turnbook::model::{LotRecord, Quantity};
 use turnbook::report::*;
 
 /// Pd molar mass, g/mol (IUPAC standard atomic weight 106.42, recalled from memory).
@@ -245,16 +245,18 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
         generated_at: "2031-04-02T09:15:00+02:00".to_string(),
         turnbook_version: env!("CARGO_PKG_VERSION").to_string(),
         identity: LotIdentity {
-            lot: lot_name.to_string(),
-            catalyst: "5 % Pd/C, 50 % water wet".to_string(),
-            metal: "Pd".to_string(),
-            loading_wt_pct: loading,
-            charged_mass_g: charged,
-            received: Some("2031-02-20".to_string()),
-            supplier_lot: Some("S-44-0917".to_string()),
-            cost: Some(4180.0),
+            record: LotRecord {
+                lot: lot_name.to_string(),
+                catalyst: "5 % Pd/C, 50 % water wet".to_string(),
+                metal: "Pd".to_string(),
+                loading_wt_pct: loading,
+                charged_mass_g: charged,
+                received: Some("2031-02-20".to_string()),
+                supplier_lot: Some("S-44-0917".to_string()),
+                cost: Some(4180.0),
+                site: Some("Demo plant, building 3".to_string()),
+            },
             currency: Some("EUR".to_string()),
-            site: "Demo plant, building 3".to_string(),
         },
         cycles,
         fit: Some(fit),

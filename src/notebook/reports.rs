@@ -8,6 +8,7 @@ use super::history::HistoryEntry;
 use super::lots::{LotState, lot_state, no_such_lot};
 use crate::config::{Axis, Config, Measure};
 use crate::fit;
+use crate::model::LotRecord;
 use crate::model::Quantity;
 use crate::model::time::now_utc;
 use crate::report::{self, LotReport};
@@ -196,17 +197,21 @@ fn identity(cfg: &Config, state: &LotState) -> report::LotIdentity {
         .and_then(|r| r.site.as_ref())
         .and_then(|s| cfg.sites.iter().find(|x| &x.name == s))
         .and_then(|s| s.currency.clone());
-    report::LotIdentity {
+    // A lot nobody registered is shown with what is known of it: its name.
+    let record = rec.cloned().unwrap_or_else(|| LotRecord {
         lot: state.lot.clone(),
-        catalyst: rec.map_or("(not registered)".into(), |r| r.catalyst.clone()),
-        metal: rec.map_or(String::new(), |r| r.metal.clone()),
-        loading_wt_pct: rec.map_or(f64::NAN, |r| r.loading_wt_pct),
-        charged_mass_g: rec.map_or(f64::NAN, |r| r.charged_mass_g),
-        received: rec.and_then(|r| r.received.clone()),
-        supplier_lot: rec.and_then(|r| r.supplier_lot.clone()),
-        cost: rec.and_then(|r| r.cost),
+        catalyst: "(not registered)".into(),
+        metal: String::new(),
+        loading_wt_pct: f64::NAN,
+        charged_mass_g: f64::NAN,
+        received: None,
+        supplier_lot: None,
+        cost: None,
+        site: None,
+    });
+    report::LotIdentity {
+        record,
         currency: site_currency,
-        site: rec.and_then(|r| r.site.clone()).unwrap_or_default(),
     }
 }
 

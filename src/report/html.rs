@@ -137,8 +137,8 @@ fn forecast_text(f: &Forecast) -> String {
 }
 
 fn identity(out: &mut String, r: &LotReport) {
-    let id = &r.identity;
-    let cost = match (id.cost, id.currency.as_deref()) {
+    let id = &r.identity.record;
+    let cost = match (id.cost, r.identity.currency.as_deref()) {
         (Some(c), Some(cur)) => format!("{} {}", fmt_sig(c, 6), esc(cur)),
         (Some(c), None) => fmt_sig(c, 6),
         (None, _) => "–".to_string(),
@@ -155,7 +155,7 @@ fn identity(out: &mut String, r: &LotReport) {
         ("Received", opt_text(id.received.as_deref())),
         ("Supplier lot", opt_text(id.supplier_lot.as_deref())),
         ("Cost (net of refining credit)", cost),
-        ("Site", esc(&id.site)),
+        ("Site", esc(id.site.as_deref().unwrap_or(""))),
     ];
     out.push_str("<section id=\"identity\">\n<h2>Lot</h2>\n<dl class=\"identity\">\n");
     for (k, v) in rows {
@@ -357,16 +357,16 @@ fn simple_table(out: &mut String, id: &str, title: &str, head: &[&str], rows: Ve
 /// One lot's QA report as a single self-contained HTML5 file.
 pub fn lot_html(r: &LotReport) -> String {
     let mut out = String::with_capacity(64 * 1024);
-    let lot = &r.identity.lot;
+    let lot = &r.identity.record.lot;
     page_start(&mut out, &format!("turnbook lot report: {lot}"));
     let _ = writeln!(
         out,
         "<header><h1>Catalyst lot {}</h1>\n<p class=\"meta\">{} · {} · site {} · generated {} \
          · turnbook {}</p></header>",
         esc(lot),
-        esc(&r.identity.catalyst),
-        esc(&r.identity.metal),
-        esc(&r.identity.site),
+        esc(&r.identity.record.catalyst),
+        esc(&r.identity.record.metal),
+        esc(r.identity.record.site.as_deref().unwrap_or("")),
         esc(&r.generated_at),
         esc(&r.turnbook_version)
     );

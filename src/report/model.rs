@@ -6,7 +6,7 @@
 
 use serde::{Deserialize, Serialize};
 
-use crate::model::Quantity;
+use crate::model::{LotRecord, Quantity};
 
 /// Everything one lot's QA report shows.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -30,25 +30,13 @@ pub struct LotReport {
     pub cautions: Vec<String>,
 }
 
-/// Who the lot is and where it came from.
+/// Who the lot is and where it came from: its registration (the one record the whole
+/// notebook keeps of a lot) and the currency its cost is in.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct LotIdentity {
-    pub lot: String,
-    pub catalyst: String,
-    /// Element symbol, e.g. "Pd".
-    pub metal: String,
-    /// Metal loading, weight percent (5.0 means 5 wt %).
-    pub loading_wt_pct: f64,
-    /// Catalyst mass charged at the first cycle, grams.
-    pub charged_mass_g: f64,
-    /// ISO date `YYYY-MM-DD`.
-    pub received: Option<String>,
-    pub supplier_lot: Option<String>,
-    /// Lot cost net of refining credit.
-    pub cost: Option<f64>,
+    pub record: LotRecord,
     /// Currency code the cost is in, e.g. "EUR".
     pub currency: Option<String>,
-    pub site: String,
 }
 
 /// One cycle of the lot as the cycle table shows it.

@@ -105,7 +105,7 @@ pub fn write_lot_csv<W: Write>(r: &LotReport, out: W) -> Result<(), CsvError> {
         .from_writer(out);
     w.write_record(csv_header())?;
     for c in &r.cycles {
-        w.write_record(row(&r.identity.lot, c))?;
+        w.write_record(row(&r.identity.record.lot, c))?;
     }
     w.flush()?;
     Ok(())
@@ -120,7 +120,7 @@ pub fn lot_csv(r: &LotReport) -> String {
     if let Err(e) = write_lot_csv(r, &mut buf) {
         // Writing into memory cannot fail on I/O and every row has the header's length;
         // should it still fail, the partial table is returned and the failure logged.
-        tracing::error!(error = %e, lot = %r.identity.lot, "cycle table CSV incomplete");
+        tracing::error!(error = %e, lot = %r.identity.record.lot, "cycle table CSV incomplete");
     }
     String::from_utf8(buf).unwrap_or_else(|e| String::from_utf8_lossy(e.as_bytes()).into_owned())
 }

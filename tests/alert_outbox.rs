@@ -6,7 +6,7 @@ use std::path::Path;
 use chrono::{DateTime, Utc};
 use mail_parser::MessageParser;
 use rusqlite::Connection;
-use turnbook::alert::rules::{AbruptLoss, EvidenceRow, Recipients};
+use turnbook::alert::{AbruptLoss, EvidenceRow, Recipients};
 use turnbook::alert::{AlertRules, LotSnapshot, evaluate};
 use turnbook::mail::deliver_due;
 use turnbook::mail::{
@@ -378,8 +378,8 @@ fn mail_config_rejects_unknown_keys() {
 
 #[test]
 fn digest_is_queued_once_per_period_and_kept_out_of_changes() {
+    use turnbook::alert::DigestPeriod;
     use turnbook::alert::compose_digest;
-    use turnbook::alert::digest::DigestPeriod;
     use turnbook::store::outbox::enqueue_message;
     let dir = tempfile::tempdir().unwrap();
     let mut conn = db(&dir.path().join("t.db"));

@@ -5,9 +5,9 @@ use std::time::SystemTime;
 
 use mail_parser::MessageParser;
 use proptest::prelude::*;
-use turnbook::alert::compose::{header_safe, html_escape};
-use turnbook::alert::rules::{EvidenceRow, RuleId};
 use turnbook::alert::{Alert, AlertState, Severity, compose_alert};
+use turnbook::alert::{EvidenceRow, RuleId};
+use turnbook::alert::{header_safe, html_escape};
 
 fn alert(lot: &str, file: &str) -> Alert {
     Alert {

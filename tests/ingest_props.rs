@@ -3,7 +3,7 @@
 
 use proptest::prelude::*;
 use turnbook::ingest::{
-    DecimalMark, Delimiter, Encoding, ParsedFile, Profile, Unit, parse, units::dimension_of,
+    DecimalMark, Delimiter, Encoding, ParsedFile, Profile, Unit, dimension_of, parse,
 };
 use turnbook::model::Quantity;
 

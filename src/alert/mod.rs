@@ -1,25 +1,30 @@
 //! Alerts: who must act on a lot, and what the message to them says.
 //!
-//! - [`rules`]: pure rules from a [`rules::LotSnapshot`] and the `[alerts]` section to
-//!   [`rules::Alert`]s (open or cleared, with severity, evidence and recipients).
-//! - [`compose`]: plain-text and HTML message parts with the safety cautions; every piece
+//! - `rules`: pure rules from a [`LotSnapshot`] and the `[alerts]` section to
+//!   [`Alert`]s (open or cleared, with severity, evidence and recipients).
+//! - `compose`: plain-text and HTML message parts with the safety cautions; every piece
 //!   of export text is made safe for headers and escaped for HTML.
-//! - [`lifecycle`]: what a verdict does to an alert's remembered condition; message
+//! - `lifecycle`: what a verdict does to an alert's remembered condition; message
 //!   identity and the retry schedule. The store keeps the conditions and the outbox.
-//! - [`digest`]: the periodic summary for managers; [`schedule`]: when it is due.
+//! - `digest`: the periodic summary for managers; `schedule`: when it is due.
 //!
 //! Everything here is pure. The durable outbox lives in the store, delivery in
 //! `crate::mail`.
 
-pub mod compose;
-pub mod digest;
-pub mod lifecycle;
-pub mod rules;
-pub mod schedule;
+mod compose;
+mod digest;
+mod lifecycle;
+mod rules;
+mod schedule;
 
-pub use compose::{ComposedMessage, compose_alert};
-pub use digest::compose_digest;
-pub use rules::{Alert, AlertRules, AlertState, LotSnapshot, Severity, evaluate};
+pub use compose::{ComposedMessage, compose_alert, header_safe, html_escape};
+pub use digest::{AlertChange, DigestPeriod, OpenAlert, compose_digest};
+pub use lifecycle::{Condition, backoff, decide, message_id_for};
+pub use rules::{
+    AbruptLoss, Alert, AlertRules, AlertState, EvidenceRow, Forecast, ForecastStatus, LimitSource,
+    LotSnapshot, MetalInProduct, QuarantinedFile, Recipients, RuleId, RuleSwitches, Severity,
+    SiteRecipients, evaluate,
+};
 pub use schedule::{DigestSchedule, next_digest_due};
 
 /// Errors of composing a message.

@@ -2,7 +2,7 @@
 //! records are exactly what the events wrote. The link rule itself lives in
 //! [`crate::model::chain`], the appending in the store.
 
-pub mod verify;
+mod verify;
 
 pub use verify::{Finding, VerifyReport, verify};
 

@@ -8,16 +8,16 @@
 
 mod cache;
 mod dates;
-pub mod decode;
+mod decode;
 mod delimited;
-pub mod parse;
-pub mod profile;
-pub mod record;
-pub mod units;
+mod parse;
+mod profile;
+mod record;
+mod units;
 
 pub use cache::ParseCache;
 pub use decode::{Encoding, decode};
 pub use parse::{parse, parse_number, parse_text, parse_valid};
 pub use profile::{ColumnSpec, DecimalMark, Delimiter, Profile, ProfileKind};
 pub use record::*;
-pub use units::Unit;
+pub use units::{Unit, dimension_of};

@@ -4,10 +4,8 @@
 
 use crate::store::Transaction;
 
-use crate::alert::rules::{
-    self, EvidenceRow, LimitSource, LotSnapshot, MetalInProduct, QuarantinedFile,
-};
 use crate::alert::{self, evaluate};
+use crate::alert::{EvidenceRow, LimitSource, LotSnapshot, MetalInProduct, QuarantinedFile};
 use crate::chem::PdeTable;
 use crate::config::{Config, Measure};
 use crate::fit;
@@ -42,14 +40,14 @@ fn cadence(state: &LotState) -> Option<f64> {
 }
 
 /// The rules' view of a lot's trend forecast.
-fn forecast_view(state: &LotState, a: &fit::LotAnalysis) -> Option<rules::Forecast> {
+fn forecast_view(state: &LotState, a: &fit::LotAnalysis) -> Option<alert::Forecast> {
     let f = a.forecast.as_ref()?;
-    Some(rules::Forecast {
+    Some(alert::Forecast {
         status: match f.status {
-            fit::ForecastStatus::Ahead => rules::ForecastStatus::Crossing,
-            fit::ForecastStatus::ReachedAlready => rules::ForecastStatus::ReachedAlready,
-            fit::ForecastStatus::NotReached => rules::ForecastStatus::NotReached,
-            fit::ForecastStatus::UnboundedInterval => rules::ForecastStatus::Unbounded,
+            fit::ForecastStatus::Ahead => alert::ForecastStatus::Crossing,
+            fit::ForecastStatus::ReachedAlready => alert::ForecastStatus::ReachedAlready,
+            fit::ForecastStatus::NotReached => alert::ForecastStatus::NotReached,
+            fit::ForecastStatus::UnboundedInterval => alert::ForecastStatus::Unbounded,
         },
         x: f.x,
         lower: f.lower,
@@ -61,11 +59,11 @@ fn forecast_view(state: &LotState, a: &fit::LotAnalysis) -> Option<rules::Foreca
 }
 
 /// The rules' view of the abrupt-loss checks.
-fn abrupt_view(cfg: &Config, a: &fit::LotAnalysis) -> Option<rules::AbruptLoss> {
+fn abrupt_view(cfg: &Config, a: &fit::LotAnalysis) -> Option<alert::AbruptLoss> {
     a.abrupt.as_ref().and_then(|b| {
         let p = b.prediction.as_ref()?;
         let half = p.predicted - p.lower;
-        Some(rules::AbruptLoss {
+        Some(alert::AbruptLoss {
             flagged: b.suspected,
             newest: p.observed,
             pi_lower: p.lower,
@@ -177,7 +175,7 @@ pub fn raise_quarantine(
 ) -> Result<usize> {
     let mut rules = cfg.alerts.clone();
     // Only the quarantine rule speaks for a file that belongs to no lot yet.
-    rules.rules = rules::RuleSwitches {
+    rules.rules = alert::RuleSwitches {
         replacement_forecast: false,
         below_criterion: false,
         abrupt_loss: false,
@@ -207,7 +205,7 @@ pub fn raise_quarantine(
     };
     let alerts: Vec<_> = evaluate(&snap, &rules)
         .into_iter()
-        .filter(|a| a.rule == rules::RuleId::Quarantine && a.state == alert::AlertState::Open)
+        .filter(|a| a.rule == alert::RuleId::Quarantine && a.state == alert::AlertState::Open)
         .collect();
     crate::store::outbox::enqueue(tx, &alerts, &crate::model::time::now_utc())
 }

@@ -152,7 +152,7 @@ pub fn deliver_now(cfg: &Config) -> Result<DeliveryReport> {
 /// Compose the managers' digest for the period since the last one and queue it; returns
 /// its subject.
 pub fn queue_digest(cfg: &Config) -> Result<String> {
-    use crate::alert::digest;
+    use crate::alert as digest;
     use crate::store::outbox;
     let mut conn = store::open(&cfg.database_path())?;
     let now = chrono::Utc::now();

@@ -9,9 +9,9 @@ use chrono::{DateTime, Utc};
 use rusqlite::{Connection, OptionalExtension, Transaction, params};
 
 use super::{Result, StoreError};
-use crate::alert::digest::{AlertChange, OpenAlert};
-use crate::alert::lifecycle::{Condition, backoff, decide, message_id_for};
 use crate::alert::{Alert, AlertState, ComposedMessage, Severity, compose_alert};
+use crate::alert::{AlertChange, OpenAlert};
+use crate::alert::{Condition, backoff, decide, message_id_for};
 use crate::model::time::{format_ts, parse_ts};
 
 fn corrupt(id: i64, what: String) -> StoreError {

@@ -286,14 +286,14 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
     }
     let stored_links: Vec<(SourceLink, i64)> = store::replay::source_links(conn)?
         .into_iter()
-        .map(|(batch_id, seq, line, source_file_id)| {
+        .map(|l| {
             (
                 SourceLink {
-                    batch_id,
-                    line,
-                    source_file_id,
+                    batch_id: l.batch_id,
+                    line: l.line,
+                    source_file_id: l.source_file_id,
                 },
-                seq,
+                l.event_seq,
             )
         })
         .collect();

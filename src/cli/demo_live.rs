@@ -47,11 +47,10 @@ async fn wait_for_files(
     let mut waiting: Vec<PathBuf> = files.iter().map(|(rel, _)| root.join(rel)).collect();
     while !waiting.is_empty() && Instant::now() < deadline {
         tokio::time::sleep(Duration::from_millis(250)).await;
-        for (id, path, outcome, rows) in
-            notebook::files_recorded_after(cfg, last).unwrap_or_default()
-        {
-            last = id;
-            let path = PathBuf::from(path);
+        for f in notebook::files_recorded_after(cfg, last).unwrap_or_default() {
+            last = f.id;
+            let (outcome, rows) = (&f.outcome, f.rows_new);
+            let path = PathBuf::from(&f.path);
             waiting.retain(|w| *w != path);
             let shown = path
                 .strip_prefix(&root)

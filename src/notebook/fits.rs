@@ -28,7 +28,7 @@ pub enum SeriesFit {
     /// One named model, with the forecast when a threshold was given.
     Named {
         model: ModelId,
-        fit: FitResult,
+        fit: Box<FitResult>,
         forecast: Option<Forecast>,
     },
     /// Every candidate ranked by AICc (`auto`).
@@ -86,7 +86,7 @@ pub fn fit_series(req: &SeriesRequest<'_>) -> Result<SeriesFit> {
             });
             Ok(SeriesFit::Named {
                 model: m,
-                fit: f,
+                fit: Box::new(f),
                 forecast,
             })
         }

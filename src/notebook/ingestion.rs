@@ -1107,11 +1107,11 @@ pub fn newest_file_id(cfg: &Config) -> Result<i64, NotebookError> {
     )?)?)
 }
 
-/// Files recorded after file id `after`: (id, path, outcome, new rows).
+/// Files recorded after file id `after`, oldest first.
 pub fn files_recorded_after(
     cfg: &Config,
     after: i64,
-) -> Result<Vec<(i64, String, String, i64)>, NotebookError> {
+) -> Result<Vec<store::queries::FileRecorded>, NotebookError> {
     Ok(store::queries::files_after(
         &store::open(&cfg.database_path())?,
         after,

@@ -120,14 +120,28 @@ pub fn newest_file_id(conn: &Connection) -> Result<i64> {
     )
 }
 
-/// Files recorded after id `after`: (id, path, outcome, new rows), oldest first.
-pub fn files_after(conn: &Connection, after: i64) -> Result<Vec<(i64, String, String, i64)>> {
+/// A file as recorded: id, path, outcome and the rows it brought.
+#[derive(Debug, Clone)]
+pub struct FileRecorded {
+    pub id: i64,
+    pub path: String,
+    pub outcome: String,
+    pub rows_new: i64,
+}
+
+/// Files recorded after id `after`, oldest first.
+pub fn files_after(conn: &Connection, after: i64) -> Result<Vec<FileRecorded>> {
     let mut stmt = conn.prepare(
         "SELECT id, path, outcome, rows_new FROM source_files WHERE id > ?1 ORDER BY id",
     )?;
     let rows = stmt
         .query_map([after], |r| {
-            Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?))
+            Ok(FileRecorded {
+                id: r.get(0)?,
+                path: r.get(1)?,
+                outcome: r.get(2)?,
+                rows_new: r.get(3)?,
+            })
         })?
         .collect::<std::result::Result<Vec<_>, _>>()?;
     Ok(rows)

@@ -91,14 +91,30 @@ pub fn next_measurement_id(conn: &Connection) -> Result<Option<i64>> {
         .optional()?)
 }
 
-/// Every provenance link: (batch id, event seq, line, source file id).
-pub fn source_links(conn: &Connection) -> Result<Vec<(String, i64, i64, Option<i64>)>> {
+/// One stored provenance link.
+#[derive(Debug, Clone)]
+pub struct LinkRow {
+    pub batch_id: String,
+    pub event_seq: i64,
+    pub line: i64,
+    pub source_file_id: Option<i64>,
+}
+
+/// Every provenance link, by batch, event and line.
+pub fn source_links(conn: &Connection) -> Result<Vec<LinkRow>> {
     let mut stmt = conn.prepare(
         "SELECT batch_id, event_seq, line, source_file_id FROM batch_sources
          ORDER BY batch_id, event_seq, line",
     )?;
     let rows = stmt
-        .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?)))?
+        .query_map([], |r| {
+            Ok(LinkRow {
+                batch_id: r.get(0)?,
+                event_seq: r.get(1)?,
+                line: r.get(2)?,
+                source_file_id: r.get(3)?,
+            })
+        })?
         .collect::<std::result::Result<Vec<_>, _>>()?;
     Ok(rows)
 }

@@ -26,10 +26,10 @@ pub fn register(cfg: &Config, a: &RegisterArgs) -> CmdResult {
 
 /// `turnbook correct`.
 pub fn correct(cfg: &Config, a: &CorrectArgs) -> CmdResult {
-    let r = entries::correct(cfg, &a.batch, &a.field, a.value, &a.reason)?;
+    let c = entries::correct(cfg, &a.batch, &a.field, &a.value, &a.reason)?;
     println!(
-        "correction recorded as event {}: batch '{}', {} = {}",
-        r.seq, a.batch, a.field, a.value
+        "correction recorded as event {}: batch '{}', {} = {} {}",
+        c.receipt.seq, a.batch, a.field, c.stored, c.unit
     );
     Ok(0)
 }

@@ -144,9 +144,12 @@ pub struct RegisterArgs {
 #[derive(Debug, Args)]
 pub struct CorrectArgs {
     pub batch: String,
-    /// The field, e.g. conversion (canonical units: fraction, s, K, mol, g, µg/g).
+    /// The field, e.g. conversion, temperature, cycle_no.
     pub field: String,
-    pub value: f64,
+    /// The value with its unit, e.g. "60 °C" or "85 %"; a bare number is in the unit
+    /// `cycles` shows (h, °C, mol, g, fraction, µg/g).
+    #[arg(allow_hyphen_values = true)]
+    pub value: String,
     #[arg(long)]
     pub reason: String,
 }

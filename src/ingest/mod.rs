@@ -14,6 +14,7 @@ mod parse;
 mod profile;
 mod record;
 mod units;
+mod value;
 
 pub use cache::ParseCache;
 pub use decode::{Encoding, decode};
@@ -21,3 +22,4 @@ pub use parse::{parse, parse_number, parse_text, parse_valid};
 pub use profile::{ColumnSpec, DecimalMark, Delimiter, Profile, ProfileKind};
 pub use record::*;
 pub use units::{Unit, dimension_of};
+pub use value::{ValueProblem, read_value, shown_unit};

@@ -9,7 +9,8 @@ use super::decode::decode;
 use super::delimited::{Record, Records};
 use super::profile::{DecimalMark, Field, FieldType, Profile, ProfileKind, UNIT_FROM_HEADER};
 use super::record::{CycleRow, LotRow, MeasuredValue, ParseError, ParsedFile};
-use super::units::{Dimension, Unit, split_header_unit};
+use super::units::{Unit, split_header_unit};
+use super::value::check_canonical;
 use crate::model::{LotRecord, Quantity};
 
 /// Longest text value (batch id, lot name...) we store; longer is a layout fault.
@@ -699,50 +700,9 @@ impl Cell<'_> {
                 q.canonical_unit()
             )
         };
-        let ok = match unit.dimension() {
-            Dimension::Ratio => {
-                if (-FRACTION_SLACK..=1.0 + FRACTION_SLACK).contains(&c) {
-                    return Ok(Some(c.clamp(0.0, 1.0)));
-                }
-                return Err(self.fail(
-                    &format!("a {} between 0 and 1 (0 % to 100 %)", q.key()),
-                    &found(),
-                ));
-            }
-            Dimension::TraceContent => {
-                if c >= 0.0 {
-                    return Ok(Some(c));
-                }
-                "a metal content of 0 or more"
-            }
-            Dimension::Temperature => {
-                let [lo, hi] = profile.temperature_range();
-                if (lo..=hi).contains(&c) {
-                    return Ok(Some(c));
-                }
-                return Err(self.fail(
-                    &format!(
-                        "a temperature between {lo} K and {hi} K ({:.2} °C to {:.2} °C)",
-                        lo - 273.15,
-                        hi - 273.15
-                    ),
-                    &found(),
-                ));
-            }
-            Dimension::Time => {
-                if c > 0.0 && c.is_finite() {
-                    return Ok(Some(c));
-                }
-                "a duration greater than 0"
-            }
-            Dimension::Mass | Dimension::Amount => {
-                if c > 0.0 && c.is_finite() {
-                    return Ok(Some(c));
-                }
-                "a value greater than 0"
-            }
-        };
-        Err(self.fail(ok, &found()))
+        check_canonical(q, c, profile.temperature_range())
+            .map(Some)
+            .map_err(|expected| self.fail(&expected, &found()))
     }
 
     fn metal(&self) -> Result<String, ParseError> {

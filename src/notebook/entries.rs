@@ -9,7 +9,7 @@ use super::history::lot_fingerprint;
 use super::recompute::recompute_lots;
 use crate::config::Config;
 use crate::model::time::now_utc;
-use crate::model::{LotRecord, Payload};
+use crate::model::{LotRecord, Payload, Quantity};
 use crate::store::{self, Transaction, records};
 
 /// What an entry wrote: the event's sequence number and who made it.
@@ -81,21 +81,58 @@ pub fn register(cfg: &Config, rec: &LotRecord, reason: Option<&str>) -> Result<R
     })
 }
 
-/// Correct one value of a batch, with the reason.
+/// A correction as written: the value as stored, in its canonical unit.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Corrected {
+    pub receipt: Receipt,
+    pub stored: f64,
+    pub unit: &'static str,
+}
+
+/// Correct one value of a batch, with the reason. The value is typed with its unit
+/// (`60 °C`; a bare number is in the unit `cycles` shows) and passes the same
+/// plausibility rule as an export's column; a cycle number must not collide.
 pub fn correct(
     cfg: &Config,
     batch: &str,
     field: &str,
-    value: f64,
+    value: &str,
     reason: &str,
-) -> Result<Receipt> {
+) -> Result<Corrected> {
+    let (stored, unit) = typed_value(field, value)?;
     let (seq, actor) = write_entry(cfg, |tx, actor, at| {
         let lots = lot_of_batch(tx, batch)?;
-        let seq = records::correct(tx, batch, field, value, reason, actor, at)?;
+        let seq = records::correct(tx, batch, field, stored, reason, actor, at)?;
         recompute_lots(tx, cfg, &lots, actor)?;
         Ok(seq)
     })?;
-    Ok(Receipt { seq, actor })
+    Ok(Corrected {
+        receipt: Receipt { seq, actor },
+        stored,
+        unit,
+    })
+}
+
+/// A typed correction in its canonical unit, or why it cannot be stored.
+fn typed_value(field: &str, text: &str) -> Result<(f64, &'static str)> {
+    if field == crate::model::cycle::ATTR_CYCLE_NO {
+        return match text.trim().parse::<u32>() {
+            Ok(n) if n > 0 => Ok((f64::from(n), "")),
+            _ => Err(NotebookError::Refused(format!(
+                "cycle_no = '{}': expected a whole number of 1 or more",
+                text.chars().take(40).collect::<String>()
+            ))),
+        };
+    }
+    let q = Quantity::from_key(field).ok_or_else(|| {
+        NotebookError::Refused(format!(
+            "'{field}' is not a correctable field; expected cycle_no or one of {}",
+            Quantity::ALL.map(|q| q.key()).join(", ")
+        ))
+    })?;
+    let v =
+        crate::ingest::read_value(q, text).map_err(|p| NotebookError::Refused(p.to_string()))?;
+    Ok((v, q.canonical_unit()))
 }
 
 /// Exclude a batch from the fits (or take it back in with `exclude` false).
@@ -112,6 +149,20 @@ pub fn exclude(cfg: &Config, batch: &str, exclude: bool, reason: &str) -> Result
 /// A free-text note on a lot or a batch.
 pub fn note(cfg: &Config, lot: Option<&str>, batch: Option<&str>, text: &str) -> Result<Receipt> {
     let (seq, actor) = write_entry(cfg, |tx, actor, at| {
+        if let Some(l) = lot
+            && !store::lots::lot_exists(tx, l)?
+        {
+            return Err(store::StoreError::Invalid(format!(
+                "no lot '{l}' is registered and no cycle names it; expected a lot `turnbook lots` lists"
+            )));
+        }
+        if let Some(b) = batch
+            && records::cycle(tx, b)?.is_none()
+        {
+            return Err(store::StoreError::Invalid(format!(
+                "no batch '{b}' is recorded; expected a batch `turnbook cycles` lists"
+            )));
+        }
         let subject = lot.or(batch).unwrap_or_default();
         let p = Payload::Note {
             lot: lot.map(str::to_string),

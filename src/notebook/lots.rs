@@ -265,13 +265,32 @@ fn fit_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
 /// What the records themselves ask of someone: pending cycles and unsettled conflicts.
 fn record_attention(cycles: &[CycleState]) -> Vec<String> {
     let mut out = Vec::new();
-    let pending = cycles
+    let pending: Vec<String> = cycles
         .iter()
         .filter(|c| c.flags.iter().any(|f| f == "pending"))
-        .count();
-    if pending > 0 {
+        .map(|c| {
+            let missing: Vec<&str> = c
+                .metrics
+                .as_ref()
+                .map(|m| m.missing.iter().map(|q| q.key()).collect())
+                .unwrap_or_default();
+            format!(
+                "cycle {} ({}) lacks {}",
+                c.cycle,
+                c.view.batch_id,
+                if missing.is_empty() {
+                    "a field".to_string()
+                } else {
+                    missing.join(", ")
+                }
+            )
+        })
+        .collect();
+    if !pending.is_empty() {
         out.push(format!(
-            "{pending} cycle(s) pending: a field a complete cycle needs is missing"
+            "{} cycle(s) pending: a field a complete cycle needs is missing ({})",
+            pending.len(),
+            pending.join("; ")
         ));
     }
     let conflicts: i64 = cycles.iter().map(|c| c.view.conflicts).sum();

@@ -25,7 +25,9 @@ mod recompute;
 mod reports;
 
 pub use daemon::{deliver_now, queue_digest, run_service, runtime, serve};
-pub use entries::{Receipt, Registered, SignedOff, correct, exclude, note, register, sign_off};
+pub use entries::{
+    Corrected, Receipt, Registered, SignedOff, correct, exclude, note, register, sign_off,
+};
 pub use error::{NotebookError, Result};
 pub use fits::{SeriesFit, SeriesRequest, fit_series, lot_fit};
 pub use history::{HistoryEntry, Status, history, status};

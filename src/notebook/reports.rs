@@ -358,6 +358,14 @@ pub fn write_lot_as_of(
     out: &Path,
     csv: Option<&Path>,
 ) -> Result<()> {
+    if let Some(seq) = as_of {
+        let newest = store::queries::newest_event(conn)?;
+        if seq > newest || seq < 1 {
+            return Err(NotebookError::Refused(format!(
+                "--as-of {seq}: the notebook's events run from 1 to {newest}; expected an event in that range"
+            )));
+        }
+    }
     let state = super::lots::lot_state_as_of(conn, cfg, lot, as_of)?;
     if state.record.is_none() && state.cycles.is_empty() {
         return Err(no_such_lot(lot));

@@ -213,3 +213,13 @@ pub fn fitted_after(conn: &Connection, lot: &str) -> Result<Option<i64>> {
         .optional()?
         .flatten())
 }
+
+/// True when a lot is registered or a cycle names it.
+pub fn lot_exists(conn: &Connection, lot: &str) -> Result<bool> {
+    Ok(conn.query_row(
+        "SELECT EXISTS (SELECT 1 FROM lots WHERE lot = ?1)
+             OR EXISTS (SELECT 1 FROM cycles WHERE lot = ?1)",
+        [lot],
+        |r| r.get(0),
+    )?)
+}

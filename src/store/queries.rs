@@ -146,3 +146,8 @@ pub fn files_after(conn: &Connection, after: i64) -> Result<Vec<FileRecorded>> {
         .collect::<std::result::Result<Vec<_>, _>>()?;
     Ok(rows)
 }
+
+/// The sequence number of the newest event, 0 when none.
+pub fn newest_event(conn: &Connection) -> Result<i64> {
+    Ok(conn.query_row("SELECT COALESCE(MAX(seq), 0) FROM events", [], |r| r.get(0))?)
+}

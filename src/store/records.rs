@@ -956,6 +956,9 @@ pub fn correct(
             "a corrected value must be a finite number".into(),
         ));
     }
+    if quantity == ATTR_CYCLE_NO {
+        refuse_cycle_collision(tx, &existing, value)?;
+    }
     let mut rows = measurements_of(tx, batch_id)?;
     let previous = view::current(&rows, quantity).and_then(|m| m.value);
     let m = MeasurementRow {
@@ -982,6 +985,26 @@ pub fn correct(
     let v = view::derive_cycle(batch_id, &rows, existing.excluded, existing.first_seq);
     upsert_cycle(tx, &v)?;
     Ok(seq)
+}
+
+/// A cycle number another batch of the same lot already has is refused.
+fn refuse_cycle_collision(tx: &Transaction<'_>, batch: &CycleView, cycle_no: f64) -> Result<()> {
+    let Some(lot) = &batch.lot else {
+        return Ok(());
+    };
+    let other: Option<String> = tx
+        .query_row(
+            "SELECT batch_id FROM cycles WHERE lot = ?1 AND cycle_no = ?2 AND batch_id <> ?3",
+            params![lot, cycle_no as i64, batch.batch_id],
+            |r| r.get(0),
+        )
+        .optional()?;
+    match other {
+        Some(o) => Err(StoreError::Invalid(format!(
+            "cycle_no = {cycle_no}: batch '{o}' of lot '{lot}' is cycle {cycle_no} already; expected a cycle number no other batch of the lot has"
+        ))),
+        None => Ok(()),
+    }
 }
 
 /// Exclude a cycle from fits (or take it back), with the reason.

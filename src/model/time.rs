@@ -40,6 +40,13 @@ mod tests {
     use super::*;
 
     #[test]
+    fn timestamps_normalise_to_utc_millis() {
+        let t = parse_ts("2026-12-01T10:00:00+02:00").unwrap();
+        assert_eq!(format_ts(t), "2026-12-01T08:00:00.000Z");
+        assert!(parse_ts("yesterday").is_err());
+    }
+
+    #[test]
     fn stored_form_round_trips_and_sorts_as_time() {
         let a = parse_ts("2026-01-02T03:04:05.678Z").unwrap();
         assert_eq!(format_ts(a), "2026-01-02T03:04:05.678Z");

@@ -451,14 +451,17 @@ pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport>
     let next_measurement = store::replay::next_measurement_id(conn)?;
     let max_id = measurements.keys().next_back().copied().unwrap_or(0);
     match next_measurement {
-        Some(n) if n > max_id => {}
+        Some(n) if n == max_id + 1 => {}
         found => push(
             &mut findings,
             "id_counters",
             "measurement",
             "next",
             found.map_or("missing".to_string(), |n| n.to_string()),
-            format!("more than {max_id}, the largest measurement id in the events"),
+            format!(
+                "{}, one past the largest measurement id in the events",
+                max_id + 1
+            ),
         ),
     }
 

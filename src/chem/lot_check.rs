@@ -89,7 +89,8 @@ mod tests {
     #[test]
     fn each_rule_names_its_field() {
         assert_eq!(check_lot(&lot()), Ok(()));
-        let cases: [(fn(&mut LotRecord), LotField); 5] = [
+        type Case = (fn(&mut LotRecord), LotField);
+        let cases: [Case; 5] = [
             (|l| l.metal = "Xx".into(), LotField::Metal),
             (|l| l.loading_wt_pct = 0.0, LotField::Loading),
             (|l| l.charged_mass_g = f64::NAN, LotField::ChargedMass),

@@ -91,8 +91,11 @@ pub fn next_measurement_id(conn: &Connection) -> Result<Option<i64>> {
         .optional()?)
 }
 
-/// Every provenance link: (batch id, event seq, line, source file id).
-pub fn source_links(conn: &Connection) -> Result<Vec<(String, i64, i64, Option<i64>)>> {
+/// A provenance link as stored: (batch id, event seq, line, source file id).
+pub type StoredLink = (String, i64, i64, Option<i64>);
+
+/// Every provenance link.
+pub fn source_links(conn: &Connection) -> Result<Vec<StoredLink>> {
     let mut stmt = conn.prepare(
         "SELECT batch_id, event_seq, line, source_file_id FROM batch_sources
          ORDER BY batch_id, event_seq, line",

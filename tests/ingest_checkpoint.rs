@@ -7,7 +7,6 @@
 
 use std::path::{Path, PathBuf};
 
-use turnbook::audit;
 use turnbook::notebook::Ingestor;
 
 const FILES: usize = 2_000;

@@ -257,6 +257,15 @@ mod tests {
     }
 
     #[test]
+    fn the_switch_event_has_the_keyed_kind() {
+        let p = Payload::ChainKeyed {
+            rule: String::new(),
+            key_proof: String::new(),
+        };
+        assert_eq!(p.kind(), KEYED_KIND);
+    }
+
+    #[test]
     fn a_head_reads_as_seq_colon_hash() {
         let h: Head = format!("12:{}", "AB".repeat(32)).parse().unwrap();
         assert_eq!((h.seq, h.hash.as_str()), (12, "ab".repeat(32).as_str()));

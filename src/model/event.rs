@@ -250,8 +250,8 @@ pub enum Payload {
         comment: Option<String>,
     },
     /// From the next event on, links are keyed (HMAC-SHA-256 under the chain key), not
-    /// plain SHA-256; `key_proof` ([`crate::model::chain::key_proof`] of the hash before
-    /// this event) shows the switch was made by a holder of the key.
+    /// plain SHA-256; `key_proof` (HMAC under the key of the hash before this event, see
+    /// the chain module) shows the switch was made by a holder of the key.
     ChainKeyed { rule: String, key_proof: String },
 }
 
@@ -279,7 +279,7 @@ impl Payload {
             Payload::Exclusion { .. } => "exclusion",
             Payload::Note { .. } => "note",
             Payload::SignOff { .. } => "sign-off",
-            Payload::ChainKeyed { .. } => crate::model::chain::KEYED_KIND,
+            Payload::ChainKeyed { .. } => "chain-keyed",
         }
     }
 }

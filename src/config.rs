@@ -46,6 +46,15 @@ pub struct Config {
     /// Name written into events as who acted; the OS user when absent.
     #[serde(default)]
     pub actor: Option<String>,
+    /// The audit chain's key file (readable by the service's user only; created at first
+    /// start). When absent: `$CREDENTIALS_DIRECTORY/turnbook-chain-key` if that exists,
+    /// else `turnbook.key` beside the database.
+    #[serde(default)]
+    pub chain_key: Option<PathBuf>,
+    /// The witness file: the chain's head (`SEQ:HASH`), rewritten after each commit that
+    /// appends events. Point it at another disk. Default `turnbook.head` beside the database.
+    #[serde(default)]
+    pub head_witness: Option<PathBuf>,
     /// Files larger than this are rejected unread.
     #[serde(default = "default_max_file_bytes")]
     pub max_file_bytes: u64,
@@ -404,6 +413,35 @@ impl Config {
             p.to_path_buf()
         } else {
             self.base_dir.join(p)
+        }
+    }
+
+    /// A file beside the database.
+    fn beside_database(&self, name: &str) -> PathBuf {
+        let db = self.database_path();
+        db.parent()
+            .map_or_else(|| PathBuf::from(name), |d| d.join(name))
+    }
+
+    /// Where the chain key is (see [`Config::chain_key`]).
+    pub fn chain_key_path(&self) -> PathBuf {
+        if let Some(p) = &self.chain_key {
+            return self.resolve(p);
+        }
+        if let Some(dir) = std::env::var_os("CREDENTIALS_DIRECTORY") {
+            let p = PathBuf::from(dir).join("turnbook-chain-key");
+            if p.exists() {
+                return p;
+            }
+        }
+        self.beside_database("turnbook.key")
+    }
+
+    /// Where the chain's head is published (see [`Config::head_witness`]).
+    pub fn head_witness_path(&self) -> PathBuf {
+        match &self.head_witness {
+            Some(p) => self.resolve(p),
+            None => self.beside_database("turnbook.head"),
         }
     }
 

@@ -7,7 +7,6 @@
 
 use std::path::{Path, PathBuf};
 
-use turnbook::audit;
 use turnbook::notebook::Ingestor;
 
 const FILES: usize = 2_000;
@@ -67,7 +66,7 @@ fn backfill(checkpoint_bytes: i64) -> u64 {
         .query_row("PRAGMA integrity_check", [], |r| r.get(0))
         .unwrap();
     assert_eq!(ok, "ok");
-    let report = audit::verify(ing.conn()).unwrap();
+    let report = turnbook::notebook::verify(ing.config(), &[]).unwrap();
     assert!(report.ok(), "{:?}", report.findings.first());
 
     // SQLite's own checkpoints are back, at the interval they had before the run.

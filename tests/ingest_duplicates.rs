@@ -101,7 +101,7 @@ fn copies_at_every_distance_are_duplicates_of_the_first() {
                 assert_eq!(*of_file_id, ids[first_of(i)], "group {group}, file {i}");
             }
         }
-        let report = turnbook::audit::verify(ing.conn()).unwrap();
+        let report = turnbook::notebook::verify(ing.config(), &[]).unwrap();
         assert!(report.ok(), "{:?}", report.findings);
     }
 }
@@ -139,7 +139,7 @@ fn a_content_another_writer_ingests_during_the_run_is_a_duplicate() {
         outcomes[3]
     );
     assert_eq!(ingested_files(&ing), 60);
-    let report = turnbook::audit::verify(ing.conn()).unwrap();
+    let report = turnbook::notebook::verify(ing.config(), &[]).unwrap();
     assert!(report.ok(), "{:?}", report.findings);
 }
 

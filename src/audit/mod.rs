@@ -4,7 +4,9 @@
 
 mod verify;
 
-pub use verify::{Finding, VerifyReport, verify};
+pub mod key;
+
+pub use verify::{Finding, VerifyReport, Witnesses, verify, verify_with};
 
 /// Who is acting: the configured name, else the OS user, else "unknown".
 pub fn actor(configured: Option<&str>) -> String {

@@ -6,7 +6,7 @@ use std::collections::{BTreeMap, HashMap};
 use serde::Serialize;
 
 use crate::model::Payload;
-use crate::model::chain::{GENESIS, event_hash};
+use crate::model::chain::{ChainKey, GENESIS, Head, event_hash, key_proof, keyed_event_hash};
 use crate::model::cycle::{self as view, CYCLE_COLUMNS};
 use crate::model::event::{FileRow, LotRecord, MeasurementRow};
 use crate::store::records::{all_cycles, all_lots};
@@ -39,11 +39,188 @@ pub struct VerifyReport {
     pub events: i64,
     pub head_hash: String,
     pub findings: Vec<Finding>,
+    /// The event after which links are keyed (0: from the first), None for a plain chain.
+    pub keyed_after: Option<i64>,
+    /// Keyed links that could not be checked because the key was not available.
+    pub unchecked_keyed_links: i64,
+    /// Published heads checked against the chain.
+    pub heads_checked: usize,
 }
 
 impl VerifyReport {
+    /// Every link checked and every record matching: the chain is intact. Keyed links
+    /// left unchecked are a finding, so a chain is never called intact unchecked.
     pub fn ok(&self) -> bool {
         self.findings.is_empty()
+    }
+}
+
+/// What a verification checks beyond the database itself.
+#[derive(Debug, Default)]
+pub struct Witnesses<'a> {
+    /// The chain key, to check keyed links with.
+    pub key: Option<&'a ChainKey>,
+    /// Heads published outside the database, each of which the chain must still hold.
+    pub heads: Vec<Head>,
+}
+
+/// How the chain's links are checked: the keying as stored, and the key if given.
+struct LinkRule<'a> {
+    keying: Option<(i64, String)>,
+    key: Option<&'a ChainKey>,
+    unchecked: i64,
+    switch_seen: bool,
+}
+
+impl LinkRule<'_> {
+    /// Check one event's link; false when it is broken (a finding was pushed).
+    fn check(
+        &mut self,
+        out: &mut Vec<Finding>,
+        e: &store::replay::StoredEvent,
+        prev: &str,
+    ) -> bool {
+        let keyed = self.keying.as_ref().is_some_and(|(s, _)| e.seq > *s);
+        let (recomputed, why) = match (keyed, self.key) {
+            (true, None) => {
+                self.unchecked += 1;
+                return true;
+            }
+            (true, Some(k)) => (
+                keyed_event_hash(
+                    k, prev, e.seq, &e.at, &e.actor, &e.kind, &e.subject, &e.payload,
+                ),
+                "(not linked with the chain key: altered, or written without the key)",
+            ),
+            (false, _) => (
+                event_hash(
+                    prev, e.seq, &e.at, &e.actor, &e.kind, &e.subject, &e.payload,
+                ),
+                "(the event's content was altered)",
+            ),
+        };
+        if recomputed == e.hash {
+            return true;
+        }
+        push(
+            out,
+            "events",
+            e.seq,
+            "hash",
+            &e.hash,
+            format!("{recomputed} {why}"),
+        );
+        false
+    }
+
+    /// A `chain-keyed` event at `seq` with `proof`, whose link continues from `prev`.
+    fn switch(&mut self, out: &mut Vec<Finding>, seq: i64, prev: &str, proof: &str) {
+        match &self.keying {
+            Some((s, stored)) if *s == seq => {
+                self.switch_seen = true;
+                if stored != proof {
+                    push(out, "chain_keying", 1, "key_proof", stored, proof);
+                }
+            }
+            _ => push(
+                out,
+                "events",
+                seq,
+                "kind",
+                "chain-keyed",
+                "no switch to the keyed rule here (chain_keying records none at this event)",
+            ),
+        }
+        if let Some(k) = self.key {
+            let expected = key_proof(k, prev);
+            if expected != proof {
+                push(
+                    out,
+                    "events",
+                    seq,
+                    "payload.key_proof",
+                    proof,
+                    format!("{expected} (the switch was not made with this chain key)"),
+                );
+            }
+        }
+    }
+
+    /// Keyed links that could not be checked, as one finding.
+    fn unchecked(&self, out: &mut Vec<Finding>) {
+        if self.unchecked > 0 {
+            let first = self.keying.as_ref().map_or(0, |k| k.0) + 1;
+            push(
+                out,
+                "events",
+                format!("{first} and later"),
+                "hash",
+                format!("{} keyed link(s) not checked", self.unchecked),
+                "checked: keyed links (HMAC-SHA-256) cannot be checked without the chain key",
+            );
+        }
+    }
+
+    /// After the walk: the keying row against the events and the key.
+    fn finish(&self, out: &mut Vec<Finding>, events: i64) {
+        match (&self.keying, self.key) {
+            (None, Some(_)) if events > 0 => push(
+                out,
+                "chain_keying",
+                1,
+                "(row)",
+                "missing (every link plain)",
+                "present: a chain key exists, so its chain was keyed",
+            ),
+            (Some((0, stored)), Some(k)) if *stored != key_proof(k, GENESIS) => push(
+                out,
+                "chain_keying",
+                1,
+                "key_proof",
+                stored,
+                format!(
+                    "{} (keyed by another key, or forged)",
+                    key_proof(k, GENESIS)
+                ),
+            ),
+            (Some((s, _)), _) if *s > 0 && !self.switch_seen => push(
+                out,
+                "chain_keying",
+                1,
+                "switch_seq",
+                s,
+                "the seq of a chain-keyed event (there is none there)",
+            ),
+            _ => {}
+        }
+    }
+}
+
+/// Each published head must be an event the chain still holds, with the same hash.
+fn check_heads(out: &mut Vec<Finding>, heads: &[Head], seen: &HashMap<i64, String>) {
+    for h in heads {
+        match seen.get(&h.seq) {
+            None => push(
+                out,
+                "events",
+                h.seq,
+                "(row)",
+                "missing",
+                format!("present: the published head {h} (newest events deleted)"),
+            ),
+            Some(hash) if *hash != h.hash => push(
+                out,
+                "events",
+                h.seq,
+                "hash",
+                hash,
+                format!(
+                    "{} (the published head {h}: the event was rewritten)",
+                    h.hash
+                ),
+            ),
+            Some(_) => {}
+        }
     }
 }
 
@@ -120,9 +297,22 @@ impl SourceLink {
     }
 }
 
-/// Verify the whole database.
+/// Verify the whole database with no key and no published head.
 pub fn verify(conn: &Connection) -> Result<VerifyReport> {
+    verify_with(conn, &Witnesses::default())
+}
+
+/// Verify the whole database, checking keyed links with `w.key` and the heads `w.heads`.
+pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport> {
     let mut findings = Vec::new();
+    let mut rule = LinkRule {
+        keying: store::events::keying(conn)?,
+        key: w.key,
+        unchecked: 0,
+        switch_seen: false,
+    };
+    let head_seqs: std::collections::HashSet<i64> = w.heads.iter().map(|h| h.seq).collect();
+    let mut head_hashes: HashMap<i64, String> = HashMap::new();
     let mut files: BTreeMap<i64, (FileRow, i64)> = BTreeMap::new();
     let mut measurements: BTreeMap<i64, (MeasurementRow, i64)> = BTreeMap::new();
     let mut lots: BTreeMap<String, (LotRecord, i64)> = BTreeMap::new();
@@ -135,15 +325,21 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
     let mut count = 0i64;
     let mut stopped = false;
     store::replay::for_each_event(conn, |e| {
+        if head_seqs.contains(&e.seq) {
+            head_hashes.insert(e.seq, e.hash.clone());
+        }
+        if e.seq == expected_seq && e.prev_hash == prev && !rule.check(&mut findings, &e, &prev) {
+            count += 1;
+            stopped = true;
+            return Ok(false);
+        }
         let store::replay::StoredEvent {
             seq,
-            at,
-            actor,
             kind,
-            subject,
             payload: body,
             prev_hash,
             hash,
+            ..
         } = e;
         count += 1;
         if seq != expected_seq {
@@ -160,19 +356,6 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
         }
         if prev_hash != prev {
             push(&mut findings, "events", seq, "prev_hash", &prev_hash, &prev);
-            stopped = true;
-            return Ok(false);
-        }
-        let recomputed = event_hash(&prev, seq, &at, &actor, &kind, &subject, &body);
-        if recomputed != hash {
-            push(
-                &mut findings,
-                "events",
-                seq,
-                "hash",
-                &hash,
-                format!("{recomputed} (the event's content was altered)"),
-            );
             stopped = true;
             return Ok(false);
         }
@@ -226,17 +409,28 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
             } => {
                 excluded.insert(batch_id, ex);
             }
+            Payload::ChainKeyed { key_proof, .. } => {
+                rule.switch(&mut findings, seq, &prev, &key_proof);
+            }
             Payload::Note { .. } | Payload::SignOff { .. } => {}
         }
         prev = hash;
         expected_seq += 1;
         Ok(true)
     })?;
+    if !stopped {
+        rule.finish(&mut findings, count);
+    }
+    check_heads(&mut findings, &w.heads, &head_hashes);
+    rule.unchecked(&mut findings);
     if stopped {
         return Ok(VerifyReport {
             events: count,
             head_hash: prev,
             findings,
+            keyed_after: rule.keying.map(|k| k.0),
+            unchecked_keyed_links: rule.unchecked,
+            heads_checked: w.heads.len(),
         });
     }
 
@@ -257,14 +451,17 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
     let next_measurement = store::replay::next_measurement_id(conn)?;
     let max_id = measurements.keys().next_back().copied().unwrap_or(0);
     match next_measurement {
-        Some(n) if n > max_id => {}
+        Some(n) if n == max_id + 1 => {}
         found => push(
             &mut findings,
             "id_counters",
             "measurement",
             "next",
             found.map_or("missing".to_string(), |n| n.to_string()),
-            format!("more than {max_id}, the largest measurement id in the events"),
+            format!(
+                "{}, one past the largest measurement id in the events",
+                max_id + 1
+            ),
         ),
     }
 
@@ -357,6 +554,9 @@ pub fn verify(conn: &Connection) -> Result<VerifyReport> {
         events: count,
         head_hash: prev,
         findings,
+        keyed_after: rule.keying.map(|k| k.0),
+        unchecked_keyed_links: rule.unchecked,
+        heads_checked: w.heads.len(),
     })
 }
 

@@ -39,19 +39,38 @@ pub fn ingest(cfg: Config, a: &IngestArgs) -> CmdResult {
 }
 
 /// `turnbook verify`.
-pub fn verify(cfg: &Config, json: bool) -> CmdResult {
-    let report = crate::notebook::verify(cfg)?;
+pub fn verify(cfg: &Config, heads: &[crate::model::chain::Head], json: bool) -> CmdResult {
+    let report = crate::notebook::verify(cfg, heads)?;
     if json {
         println!("{}", serde_json::to_string_pretty(&report)?);
     } else if report.ok() {
+        let keyed = match report.keyed_after {
+            None => "plain links".to_string(),
+            Some(0) => "every link keyed and checked".to_string(),
+            Some(s) => format!("plain links up to event {s}, keyed links after it checked"),
+        };
         println!(
-            "verified: {} events, chain intact, every record matches the events that wrote it; head {}",
-            report.events, report.head_hash
+            "verified: {} events, chain intact ({keyed}), every record matches the events \
+             that wrote it; {} published head(s) held; head {}:{}",
+            report.events, report.heads_checked, report.events, report.head_hash
         );
     } else {
-        println!("NOT VERIFIED: {}", report.findings[0]);
-        for f in report.findings.iter().skip(1).take(20) {
-            println!("  also: {f}");
+        if report.unchecked_keyed_links > 0 {
+            println!(
+                "NOT VERIFIED: {} keyed link(s) after event {} cannot be checked without the \
+                 chain key ({} not readable)",
+                report.unchecked_keyed_links,
+                report.keyed_after.unwrap_or(0),
+                cfg.chain_key_path().display()
+            );
+        }
+        for (i, f) in report.findings.iter().take(21).enumerate() {
+            let lead = if i == 0 && report.unchecked_keyed_links == 0 {
+                "NOT VERIFIED: "
+            } else {
+                "  also: "
+            };
+            println!("{lead}{f}");
         }
     }
     Ok(if report.ok() { 0 } else { 1 })

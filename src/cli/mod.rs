@@ -242,28 +242,41 @@ pub struct ReportArgs {
 pub struct VerifyArgs {
     #[arg(long)]
     pub json: bool,
+    /// A head of the chain published earlier, SEQ:HASH (repeatable): the chain must still
+    /// hold that event with that hash.
+    #[arg(long = "head")]
+    pub heads: Vec<crate::model::chain::Head>,
 }
 
 /// Set up tracing: readable lines on a terminal, JSON lines when asked. RUST_LOG filters.
 ///
 /// The service logs each file at info level; one-shot commands only warn, since they print
-/// their own summary.
+/// their own summary. The mail library's own events below warn are dropped whatever
+/// RUST_LOG says: at debug it writes every protocol line, credentials included.
 pub fn init_logging(json: bool, service: bool) {
+    use tracing_subscriber::Layer;
+    use tracing_subscriber::layer::SubscriberExt;
+    use tracing_subscriber::util::SubscriberInitExt;
     let default = if service {
         "warn,turnbook=info"
     } else {
         "warn,turnbook=warn"
     };
-    let filter = tracing_subscriber::EnvFilter::try_from_default_env()
+    let env = tracing_subscriber::EnvFilter::try_from_default_env()
         .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(default));
-    let builder = tracing_subscriber::fmt()
-        .with_env_filter(filter)
-        .with_writer(std::io::stderr);
-    if json {
-        builder.json().init();
+    let no_mail_protocol = tracing_subscriber::filter::Targets::new()
+        .with_default(tracing::Level::TRACE)
+        .with_target("lettre", tracing::Level::WARN);
+    let layer = tracing_subscriber::fmt::layer().with_writer(std::io::stderr);
+    let layer = if json {
+        layer.json().boxed()
     } else {
-        builder.with_ansi(std::io::stderr().is_terminal()).init();
-    }
+        layer.with_ansi(std::io::stderr().is_terminal()).boxed()
+    };
+    let filter = tracing_subscriber::filter::FilterExt::and(env, no_mail_protocol);
+    tracing_subscriber::registry()
+        .with(layer.with_filter(filter))
+        .init();
 }
 
 /// A failure with its exit status and the one sentence that goes first on stderr.
@@ -347,7 +360,7 @@ fn dispatch(cli: &Cli) -> CmdResult {
         Command::Signoff(a) => entries::sign_off(&load(cli)?, a),
         Command::History(a) => views::history(&load(cli)?, &a.lot, a.json),
         Command::Status(a) => views::status(&load(cli)?, a.json),
-        Command::Verify(a) => ingest::verify(&load(cli)?, a.json),
+        Command::Verify(a) => ingest::verify(&load(cli)?, &a.heads, a.json),
         Command::Watch => service::watch(&load(cli)?),
         Command::Mail => service::mail(&load(cli)?),
         Command::Digest => service::digest(&load(cli)?),

@@ -249,6 +249,10 @@ pub enum Payload {
         what: String,
         comment: Option<String>,
     },
+    /// From the next event on, links are keyed (HMAC-SHA-256 under the chain key), not
+    /// plain SHA-256; `key_proof` (HMAC under the key of the hash before this event, see
+    /// the chain module) shows the switch was made by a holder of the key.
+    ChainKeyed { rule: String, key_proof: String },
 }
 
 /// The `file-ingested` payload by reference: serialises exactly as
@@ -275,6 +279,7 @@ impl Payload {
             Payload::Exclusion { .. } => "exclusion",
             Payload::Note { .. } => "note",
             Payload::SignOff { .. } => "sign-off",
+            Payload::ChainKeyed { .. } => "chain-keyed",
         }
     }
 }

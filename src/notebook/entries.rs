@@ -39,12 +39,13 @@ fn write_entry<T>(
     cfg: &Config,
     work: impl FnOnce(&Transaction<'_>, &str, &str) -> store::Result<T>,
 ) -> Result<(T, String)> {
-    let mut conn = store::open(&cfg.database_path())?;
+    let mut conn = super::chain::open_writer(cfg)?;
     let actor = crate::audit::actor(cfg.actor.as_deref());
     let at = now_utc();
     let tx = store::immediate(&mut conn)?;
     let out = work(&tx, &actor, &at)?;
     tx.commit().map_err(store::StoreError::from)?;
+    super::chain::publish_head(cfg, &conn)?;
     Ok((out, actor))
 }
 

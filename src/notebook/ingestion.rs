@@ -178,7 +178,10 @@ pub struct Ingestor {
 
 impl Ingestor {
     pub fn open(cfg: Config) -> Result<Self, StoreError> {
-        let conn = store::open(&cfg.database_path())?;
+        let conn = super::chain::open_writer(&cfg).map_err(|e| match e {
+            NotebookError::Store(e) => e,
+            e => StoreError::Invalid(e.to_string()),
+        })?;
         let actor = audit::actor(cfg.actor.as_deref());
         let mut conn = conn;
         // A group writes through about a dozen distinct statements, and recomputing a lot
@@ -250,6 +253,7 @@ impl Ingestor {
     /// the recomputed fits and any alerts they raise commit together.
     pub fn ingest_file(&mut self, path: &Path) -> Result<FileOutcome, StoreError> {
         let mut out = self.ingest_group(&[path.to_path_buf()])?;
+        self.publish_head();
         out.pop()
             .ok_or_else(|| StoreError::Invalid("no outcome for the file".into()))
     }
@@ -345,7 +349,16 @@ impl Ingestor {
         bulk::set_full_sync(&self.conn, true)?;
         stored?;
         self.recompute_touched(run.touched, start_version)?;
+        self.publish_head();
         Ok(run.summary)
+    }
+
+    /// Publish the chain's head after a commit. The records are committed whatever
+    /// happens here, so a witness that cannot be written is logged, not returned.
+    fn publish_head(&self) {
+        if let Err(e) = super::chain::publish_head(&self.cfg, &self.conn) {
+            tracing::warn!(error = %e, "the chain's head was not published");
+        }
     }
 
     /// A backfill recomputes each touched lot once, after its last group; this commit

@@ -14,6 +14,7 @@
 //! - [`daemon`]: the service: watcher, mailer and digest, with an orderly shutdown.
 
 mod alerts;
+mod chain;
 mod daemon;
 mod entries;
 mod error;
@@ -45,8 +46,19 @@ pub use reports::{write_all_reports, write_lot_report, write_site_report};
 use crate::config::Config;
 
 /// Walk the audit trail of the notebook `cfg` names and compare every record with the
-/// events that wrote it.
-pub fn verify(cfg: &Config) -> Result<crate::audit::VerifyReport> {
+/// events that wrote it; keyed links are checked when the chain key's file is readable,
+/// and the chain must hold the head in the witness file and every head in `heads`.
+pub fn verify(
+    cfg: &Config,
+    heads: &[crate::model::chain::Head],
+) -> Result<crate::audit::VerifyReport> {
     let conn = crate::store::open(&cfg.database_path())?;
-    Ok(crate::audit::verify(&conn)?)
+    let key = chain::key_for_checking(cfg)?;
+    let mut all: Vec<_> = heads.to_vec();
+    all.extend(chain::witnessed_head(&cfg.head_witness_path())?);
+    let w = crate::audit::Witnesses {
+        key: key.as_ref(),
+        heads: all,
+    };
+    Ok(crate::audit::verify_with(&conn, &w)?)
 }

@@ -128,7 +128,7 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
         alerts: alerts_of(conn, &state.lot)?,
         corrections: entries.corrections,
         signoffs: entries.signoffs,
-        verify: Some(verify_line(conn)?),
+        verify: Some(verify_line(conn, cfg)?),
         cautions: Vec::new(),
     })
 }
@@ -262,8 +262,16 @@ fn cycle_lines(state: &LotState, corrected_batches: &[String]) -> Vec<report::Cy
         .collect()
 }
 
-fn verify_line(conn: &Connection) -> Result<report::VerifyLine> {
-    let v = crate::audit::verify(conn)?;
+/// The audit chain's state as `verify` finds it, with the notebook's key and witness.
+fn verify_line(conn: &Connection, cfg: &Config) -> Result<report::VerifyLine> {
+    let key = super::chain::key_for_checking(cfg)?;
+    let w = crate::audit::Witnesses {
+        key: key.as_ref(),
+        heads: super::chain::witnessed_head(&cfg.head_witness_path())?
+            .into_iter()
+            .collect(),
+    };
+    let v = crate::audit::verify_with(conn, &w)?;
     Ok(report::VerifyLine {
         ran_at: now_utc(),
         outcome: if v.ok() {

@@ -1,11 +1,95 @@
 //! Appending events to the audit trail, each linked to the one before it by
-//! [`crate::model::chain`], in the caller's transaction.
+//! [`crate::model::chain`], in the caller's transaction; the chain's keying.
+//!
+//! A database whose chain is keyed is written only by a process that has given its key
+//! with [`use_key`]: an append to a keyed chain without it is refused, never linked by
+//! the plain rule. The key is held in memory, by database file, and never written here.
 
-use rusqlite::Transaction;
+use std::collections::HashMap;
+use std::sync::{Arc, Mutex, PoisonError};
 
-use super::Result;
+use rusqlite::{Connection, OptionalExtension, Transaction};
+
+use super::{Result, StoreError};
 use crate::model::Payload;
-use crate::model::chain::{GENESIS, canonical, event_hash};
+use crate::model::chain::{ChainKey, GENESIS, Head, KEYED_KIND, canonical, key_proof, link};
+
+/// The chain keys given by this process, by database file.
+static KEYS: Mutex<Option<HashMap<String, Arc<ChainKey>>>> = Mutex::new(None);
+
+fn db_name(conn: &Connection) -> String {
+    conn.path().unwrap_or_default().to_string()
+}
+
+/// Link every later event written to `conn`'s database file by this process with `key`.
+pub fn use_key(conn: &Connection, key: ChainKey) {
+    let mut keys = KEYS.lock().unwrap_or_else(PoisonError::into_inner);
+    keys.get_or_insert_with(HashMap::new)
+        .insert(db_name(conn), Arc::new(key));
+}
+
+/// The key this process gave for `conn`'s database file.
+fn key_for(conn: &Connection) -> Option<Arc<ChainKey>> {
+    let keys = KEYS.lock().unwrap_or_else(PoisonError::into_inner);
+    keys.as_ref().and_then(|k| k.get(&db_name(conn)).cloned())
+}
+
+/// The chain's keying as stored: the switch's event (0: keyed from the first event) and
+/// the key proof; None while the chain is plain.
+pub fn keying(conn: &Connection) -> Result<Option<(i64, String)>> {
+    Ok(conn
+        .query_row(
+            "SELECT switch_seq, key_proof FROM chain_keying WHERE id = 1",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .optional()?)
+}
+
+/// The newest event, if any.
+pub fn head(conn: &Connection) -> Result<Option<Head>> {
+    Ok(conn
+        .query_row(
+            "SELECT seq, hash FROM events ORDER BY seq DESC LIMIT 1",
+            [],
+            |r| {
+                Ok(Head {
+                    seq: r.get(0)?,
+                    hash: r.get(1)?,
+                })
+            },
+        )
+        .optional()?)
+}
+
+/// Key the chain of a database whose chain is plain: an empty chain is keyed from its
+/// first event; a chain holding plain events gets a `chain-keyed` event, linked by the
+/// plain rule, after which links are keyed. Returns the switch's event (0 for none).
+pub fn start_keying(tx: &Transaction<'_>, key: &ChainKey, at: &str, actor: &str) -> Result<i64> {
+    let (switch_seq, proof) = match head(tx)? {
+        None => (0, key_proof(key, GENESIS)),
+        Some(h) => {
+            let proof = key_proof(key, &h.hash);
+            let payload = Payload::ChainKeyed {
+                rule: "HMAC-SHA-256 under the chain key".into(),
+                key_proof: proof.clone(),
+            };
+            let body = canonical(&payload)?;
+            let seq = h.seq + 1;
+            let hash = link(None, &h.hash, seq, at, actor, KEYED_KIND, "chain", &body);
+            tx.execute(
+                INSERT_EVENT,
+                rusqlite::params![seq, at, actor, KEYED_KIND, "chain", body, h.hash, hash],
+            )?;
+            (seq, proof)
+        }
+    };
+    tx.execute(
+        "INSERT INTO chain_keying(id, switch_seq, key_proof) VALUES (1, ?1, ?2)",
+        rusqlite::params![switch_seq, proof],
+    )?;
+    Ok(switch_seq)
+}
 
 /// Append one event in the caller's transaction and return its sequence number.
 pub fn append(
@@ -90,7 +174,15 @@ pub fn append_prepared(
             })?,
     };
     let seq = last + 1;
-    let hash = event_hash(&prev, seq, at, actor, kind, subject, body);
+    let key = key_for(tx);
+    if key.is_none() && keying(tx)?.is_some() {
+        return Err(StoreError::Invalid(
+            "the audit chain is keyed and this process has not loaded the chain key: \
+             nothing written"
+                .into(),
+        ));
+    }
+    let hash = link(key.as_deref(), &prev, seq, at, actor, kind, subject, body);
     insert.execute(rusqlite::params![
         seq, at, actor, kind, subject, body, prev, hash
     ])?;

@@ -22,6 +22,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "outcome_check",
         include_str!("../../schema/0006_outcome_check.sql"),
     ),
+    (
+        7,
+        "chain_key",
+        include_str!("../../schema/0007_chain_key.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

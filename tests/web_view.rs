@@ -495,3 +495,143 @@ async fn events_announce_a_commit_within_two_seconds() {
     .await;
     assert!(ended.is_ok(), "the event stream outlived the stop signal");
 }
+
+fn find_chromium() -> Option<PathBuf> {
+    if let Some(p) = std::env::var_os("TURNBOOK_CHROMIUM") {
+        return Some(PathBuf::from(p));
+    }
+    let path = std::env::var_os("PATH")?;
+    std::env::split_paths(&path)
+        .flat_map(|d| ["chromium", "chromium-browser"].map(|n| d.join(n)))
+        .find(|p| p.is_file())
+}
+
+/// Headless Chromium on `url` with a fresh profile; returns (stdout, stderr).
+fn chromium(bin: &Path, url: &str, extra: &[String]) -> (String, String) {
+    let profile = tempfile::tempdir().unwrap();
+    let mut child = Command::new(bin)
+        .args([
+            "--headless",
+            "--no-sandbox",
+            "--disable-gpu",
+            "--disable-quic",
+            "--no-first-run",
+            "--disable-background-networking",
+            "--disable-component-update",
+            "--disable-sync",
+            "--enable-logging=stderr",
+            "--v=0",
+            "--window-size=1300,1000",
+        ])
+        .arg(format!("--user-data-dir={}", profile.path().display()))
+        .args(extra)
+        .arg(url)
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let start = Instant::now();
+    while child.try_wait().unwrap().is_none() {
+        if start.elapsed() > Duration::from_secs(60) {
+            let _ = child.kill();
+            panic!("chromium did not finish within 60 s");
+        }
+        std::thread::sleep(Duration::from_millis(100));
+    }
+    let out = child.wait_with_output().unwrap();
+    (
+        String::from_utf8_lossy(&out.stdout).into_owned(),
+        String::from_utf8_lossy(&out.stderr).into_owned(),
+    )
+}
+
+/// Pixels that are not white, and pixels in the sparkline's blue (31, 78, 140).
+fn pixels(png_path: &Path) -> (usize, usize, usize) {
+    let file = std::fs::File::open(png_path).unwrap();
+    let mut decoder = png::Decoder::new(std::io::BufReader::new(file));
+    decoder.set_transformations(png::Transformations::EXPAND | png::Transformations::STRIP_16);
+    let mut reader = decoder.read_info().unwrap();
+    let mut buf = vec![0; reader.output_buffer_size().unwrap()];
+    let info = reader.next_frame(&mut buf).unwrap();
+    let ch = info.color_type.samples();
+    let (mut total, mut ink, mut blue) = (0, 0, 0);
+    for px in buf[..info.buffer_size()].chunks_exact(ch) {
+        let (r, g, b) = (i32::from(px[0]), i32::from(px[1]), i32::from(px[2]));
+        total += 1;
+        if r < 245 || g < 245 || b < 245 {
+            ink += 1;
+        }
+        if (r - 31).abs() < 25 && (g - 78).abs() < 25 && (b - 140).abs() < 25 {
+            blue += 1;
+        }
+    }
+    (total, ink, blue)
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn the_pages_render_in_headless_chromium_and_go_live() {
+    let Some(bin) = find_chromium() else {
+        assert!(
+            std::env::var_os("CI").is_none(),
+            "CI is set but no chromium was found on PATH (apt-get install chromium)"
+        );
+        eprintln!("SKIPPED: chromium not found on PATH; install it to run this test");
+        return;
+    };
+    let (_tmp, cfg) = plant();
+    let (v, _stop) = view(&cfg, None);
+    let addr = serve(&v).await;
+    let shots = tempfile::tempdir().unwrap();
+    let png = shots.path().join("lots.png");
+    let (b, url, shot) = (bin.clone(), format!("http://{addr}/"), png.clone());
+    let (dom, log) = tokio::task::spawn_blocking(move || {
+        let (_, log) = chromium(
+            &b,
+            &url,
+            &[
+                format!("--screenshot={}", shot.display()),
+                "--timeout=3000".into(),
+            ],
+        );
+        let (dom, _) = chromium(&b, &url, &["--dump-dom".into(), "--timeout=3000".into()]);
+        (dom, log)
+    })
+    .await
+    .unwrap();
+    assert!(
+        dom.contains("PD-C-2611-A") && dom.contains("id=\"lots\""),
+        "{dom}"
+    );
+    // The page's script ran under its security policy and opened the event stream.
+    assert!(
+        dom.contains("class=\"live on\"") || dom.contains("class=\"live wait\""),
+        "the page's script did not run: {dom}"
+    );
+    let errors: Vec<&str> = log
+        .lines()
+        .filter(|l| {
+            l.contains("Uncaught") || l.contains("CONSOLE") || l.contains("Content Security Policy")
+        })
+        .collect();
+    assert!(errors.is_empty(), "the page logged errors: {errors:?}");
+    let (total, ink, blue) = pixels(&png);
+    assert!(
+        ink * 50 > total,
+        "the screenshot is nearly blank ({ink} of {total} pixels)"
+    );
+    assert!(
+        blue > 30,
+        "no sparkline or link colour in the screenshot ({blue} pixels)"
+    );
+    // Following a lot: its page renders with the chart.
+    let (b, url) = (bin, format!("http://{addr}/lots/PD-C-2611-A"));
+    let dom = tokio::task::spawn_blocking(move || {
+        chromium(&b, &url, &["--dump-dom".into(), "--timeout=3000".into()]).0
+    })
+    .await
+    .unwrap();
+    assert!(
+        dom.contains("id=\"activity-chart\"") && dom.contains("<svg"),
+        "{dom}"
+    );
+}

@@ -24,6 +24,7 @@
       .catch(function () { say("live: could not refresh", "off"); });
   }
   if (!window.EventSource) { say("static page (reload to update)", "off"); return; }
+  say("live: connecting", "wait");
   var events = new EventSource("/events");
   events.addEventListener("open", function () { say("live", "on"); });
   events.addEventListener("change", refresh);

@@ -11,35 +11,8 @@ use axum::response::{IntoResponse, Response};
 
 use super::WebError;
 use super::state::Shared;
+use super::token::Token;
 use crate::config::{Config, Web};
-
-/// The bearer token; its `Debug` shows no part of it.
-#[derive(Clone)]
-pub struct Token(String);
-
-impl Token {
-    /// A token from its text (surrounding whitespace is not part of it).
-    pub fn new(text: &str) -> Option<Token> {
-        let t = text.trim();
-        (!t.is_empty()).then(|| Token(t.to_string()))
-    }
-
-    /// Compare in time independent of where the first difference lies.
-    fn matches(&self, given: &[u8]) -> bool {
-        let want = self.0.as_bytes();
-        let mut diff = want.len() ^ given.len();
-        for (i, w) in want.iter().enumerate() {
-            diff |= usize::from(w ^ given.get(i).copied().unwrap_or(0));
-        }
-        diff == 0
-    }
-}
-
-impl std::fmt::Debug for Token {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        f.write_str("Token(redacted)")
-    }
-}
 
 /// The token the `[web]` section asks for; refused when a non-loopback address has none,
 /// or when its file can be read by others than the service's user.

@@ -8,12 +8,14 @@
 mod access;
 mod api;
 mod assets;
+mod counters;
 mod live;
 mod lot_page;
 mod ops;
 mod pages;
 mod render;
 mod state;
+mod token;
 
 use std::net::SocketAddr;
 use std::sync::Arc;
@@ -27,7 +29,7 @@ use crate::config::{Config, Web};
 use crate::notebook::{ServiceContext, SideTask};
 use state::Shared;
 
-pub use access::Token;
+pub use token::Token;
 
 /// Why the web view cannot start.
 #[derive(Debug, thiserror::Error)]

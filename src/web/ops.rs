@@ -4,8 +4,8 @@
 
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
+use std::sync::Arc;
 use std::sync::atomic::Ordering;
-use std::sync::{Arc, Mutex};
 use std::time::Instant;
 
 use axum::extract::{MatchedPath, Request, State};
@@ -13,43 +13,10 @@ use axum::http::{HeaderValue, StatusCode, header};
 use axum::middleware::Next;
 use axum::response::{IntoResponse, Response};
 
+use super::counters::{BUCKETS, Latency};
 use super::state::Shared;
 use crate::model::time::parse_ts;
 use crate::notebook::{self, OpsFigures};
-
-/// Upper bounds of the latency histogram's buckets, in seconds.
-const BUCKETS: [f64; 12] = [
-    0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5, 5.0,
-];
-
-#[derive(Default, Clone)]
-struct Latency {
-    /// Cumulative counts per bucket of [`BUCKETS`].
-    buckets: [u64; BUCKETS.len()],
-    count: u64,
-    sum: f64,
-}
-
-/// Requests by route and status, and their latencies by route.
-#[derive(Default)]
-pub struct RequestMetrics {
-    inner: Mutex<(BTreeMap<(String, u16), u64>, BTreeMap<String, Latency>)>,
-}
-
-impl RequestMetrics {
-    fn record(&self, route: &str, status: u16, seconds: f64) {
-        let mut g = self.inner.lock().unwrap_or_else(|p| p.into_inner());
-        *g.0.entry((route.to_string(), status)).or_default() += 1;
-        let l = g.1.entry(route.to_string()).or_default();
-        l.count += 1;
-        l.sum += seconds;
-        for (b, le) in l.buckets.iter_mut().zip(BUCKETS) {
-            if seconds <= le {
-                *b += 1;
-            }
-        }
-    }
-}
 
 /// Count every request by its route (not its path, so lot names do not become labels).
 pub async fn measure(State(s): State<Arc<Shared>>, req: Request, next: Next) -> Response {
@@ -101,9 +68,8 @@ pub async fn metrics(State(s): State<Arc<Shared>>) -> Response {
     let watching = s.watching.load(Ordering::SeqCst);
     let mut out = String::new();
     notebook_metrics(&mut out, figures.as_ref(), watching);
-    let g = s.metrics.inner.lock().unwrap_or_else(|p| p.into_inner());
-    request_metrics(&mut out, &g.0, &g.1);
-    drop(g);
+    let (counts, latency) = s.metrics.snapshot();
+    request_metrics(&mut out, &counts, &latency);
     let mut r = out.into_response();
     r.headers_mut().insert(
         header::CONTENT_TYPE,

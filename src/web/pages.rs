@@ -73,14 +73,14 @@ fn sort_lines<'a>(o: &'a Overview, key: &str) -> Vec<&'a SiteLotLine> {
     match key {
         "catalyst" => lines.sort_by(|a, b| a.catalyst.cmp(&b.catalyst)),
         "state" => lines.sort_by(|a, b| a.state.cmp(&b.state)),
-        "cycles" => lines.sort_by(|a, b| b.cycles.cmp(&a.cycles)),
+        "cycles" => lines.sort_by_key(|l| std::cmp::Reverse(l.cycles)),
         "activity" => {
             lines.sort_by(|a, b| big(a.latest_activity).total_cmp(&big(b.latest_activity)))
         }
         "forecast" => lines.sort_by(|a, b| {
             big(a.forecast.and_then(|f| f.x)).total_cmp(&big(b.forecast.and_then(|f| f.x)))
         }),
-        "alerts" => lines.sort_by(|a, b| b.open_alerts.cmp(&a.open_alerts)),
+        "alerts" => lines.sort_by_key(|l| std::cmp::Reverse(l.open_alerts)),
         "signoff" => lines.sort_by_key(|l| o.signoffs.contains_key(&l.lot)),
         _ => lines.sort_by(|a, b| a.lot.cmp(&b.lot)),
     }

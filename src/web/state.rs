@@ -5,8 +5,8 @@ use std::collections::HashMap;
 use std::sync::atomic::AtomicBool;
 use std::sync::{Arc, Mutex};
 
-use super::access::Token;
-use super::ops::RequestMetrics;
+use super::counters::RequestMetrics;
+use super::token::Token;
 use crate::config::Config;
 use crate::notebook::{self, AuditView, LotPage, NotebookError, Overview};
 

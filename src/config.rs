@@ -77,6 +77,10 @@ pub struct Config {
     pub alerts: AlertRules,
     #[serde(default)]
     pub mail: MailConfig,
+    /// The read-only browser view and the operations endpoints of the service; off when
+    /// absent.
+    #[serde(default)]
+    pub web: Option<Web>,
     /// Folder of the configuration file, for relative paths (set at load).
     #[serde(skip)]
     pub base_dir: PathBuf,
@@ -185,6 +189,25 @@ pub struct Fitting {
     pub cusum_k: f64,
     #[serde(default = "default_cusum_h")]
     pub cusum_h: f64,
+}
+
+/// Where the service serves its read-only pages, `/healthz` and `/metrics`.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Web {
+    /// Address and port, e.g. "127.0.0.1:8470".
+    pub listen: String,
+    /// File holding the bearer token requests must carry; required when `listen` is not a
+    /// loopback address. Relative to the configuration's folder.
+    #[serde(default)]
+    pub token_file: Option<PathBuf>,
+}
+
+impl Web {
+    /// The address to listen on (validated at load).
+    pub fn address(&self) -> Option<std::net::SocketAddr> {
+        self.listen.trim().parse().ok()
+    }
 }
 
 /// Costs for the economic replacement point.
@@ -364,6 +387,17 @@ impl Config {
         }
         if !(f.cusum_k >= 0.0 && f.cusum_h > 0.0) {
             return Err(self.invalid("fitting.cusum_h", "expected cusum_k >= 0 and cusum_h > 0"));
+        }
+        if let Some(w) = &self.web
+            && w.address().is_none()
+        {
+            return Err(self.invalid(
+                "web.listen",
+                format!(
+                    "'{}' is not an address and port; expected e.g. \"127.0.0.1:8470\"",
+                    w.listen
+                ),
+            ));
         }
         if self.files_per_transaction == 0 {
             return Err(self.invalid("files_per_transaction", "expected at least 1"));

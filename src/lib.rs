@@ -3,6 +3,7 @@
 //! Layers, each using only those below it:
 //!
 //! - [`cli`]: the command line, the only code that prints or decides exit statuses.
+//! - [`web`]: the service's read-only pages, JSON API, live events, health and metrics.
 //! - [`notebook`]: the application: ingestion, lot state, entries, history, reports, the
 //!   service. Does the work and returns data.
 //! - [`watch`]: folder events, polling, settling and start-up catch-up.
@@ -29,3 +30,4 @@ pub mod notebook;
 pub mod report;
 pub mod store;
 pub mod watch;
+pub mod web;

@@ -65,6 +65,33 @@ async fn wait_for_files(
     files.len() - waiting.len()
 }
 
+/// The web view of the configuration's `[web]` section, on any free loopback port when
+/// its own is taken (another demo or service); its address is printed.
+fn web_view(cfg: &Config) -> Option<crate::web::Prepared> {
+    let web = cfg.web.as_ref()?;
+    let prepared = match crate::web::prepare(cfg) {
+        Ok(p) => p?,
+        Err(e) => {
+            let any = std::net::SocketAddr::from(([127, 0, 0, 1], 0));
+            match crate::web::prepare_at(cfg, web, any) {
+                Ok(p) => {
+                    println!("  web view       {e}; taking a free port instead");
+                    p
+                }
+                Err(e) => {
+                    println!("  web view       not started: {e}");
+                    return None;
+                }
+            }
+        }
+    };
+    println!(
+        "  web view       http://{}/ (open it in a browser: it updates as files land, until the demo ends)",
+        prepared.address
+    );
+    Some(prepared)
+}
+
 /// Run the service while the plant writes `batches` (files of each batch) and the ICP
 /// report, each in chunks over about a second; stop once every file is recorded.
 pub fn run(
@@ -80,10 +107,16 @@ pub fn run(
     ));
     let rt = notebook::runtime()?;
     let start_id = notebook::newest_file_id(cfg)?;
+    let web = web_view(cfg);
     rt.block_on(async {
         let (stop, rx) = tokio::sync::watch::channel(false);
         let service_cfg = cfg.clone();
-        let service = tokio::spawn(async move { crate::notebook::serve(&service_cfg, rx).await });
+        let side = web
+            .map(crate::web::Prepared::into_task)
+            .into_iter()
+            .collect();
+        let service =
+            tokio::spawn(async move { crate::notebook::serve_with(&service_cfg, rx, side).await });
         tokio::time::sleep(Duration::from_millis(800)).await;
         println!(
             "  live           the service is watching; the plant writes its newest exports slowly:"
@@ -176,6 +209,13 @@ pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
         cfg.source.display()
     );
     println!("     turnbook --config {} verify", cfg.source.display());
+    if let Some(w) = &cfg.web {
+        println!(
+            "     turnbook --config {} watch    (the service; web view on http://{}/)",
+            cfg.source.display(),
+            w.listen
+        );
+    }
     println!("Spent catalysts can be pyrophoric: keep them wet and follow the site's procedures.");
     Ok(0)
 }

@@ -4,9 +4,15 @@ use super::CmdResult;
 use crate::config::Config;
 use crate::notebook as daemon;
 
-/// `turnbook watch`: the service, until SIGTERM or SIGINT.
+/// `turnbook watch`: the service, until SIGTERM or SIGINT; with a `[web]` section it also
+/// serves the read-only web view, whose settings are checked before anything starts.
 pub fn watch(cfg: &Config) -> CmdResult {
-    daemon::run_service(cfg)?;
+    let web = crate::web::prepare(cfg).map_err(|e| super::Failure::usage(e.to_string()))?;
+    let side = web
+        .map(crate::web::Prepared::into_task)
+        .into_iter()
+        .collect();
+    daemon::run_service_with(cfg, side)?;
     Ok(0)
 }
 

@@ -1,10 +1,14 @@
 //! The long-running service: the folder watcher feeding ingestion, the mailer draining the
-//! outbox and the digest on its schedule, until SIGTERM or SIGINT.
+//! outbox, the digest on its schedule and any task the caller adds (the web view), until
+//! SIGTERM or SIGINT.
 //!
 //! Shutdown: one signal (a `watch` channel) reaches every task; the service then waits
 //! for each task it started to finish, whichever of them ended first and why.
 
+use std::future::Future;
 use std::path::Path;
+use std::pin::Pin;
+use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
@@ -58,11 +62,35 @@ impl FileSink for PipelineSink {
     }
 }
 
+/// What a task started beside the watcher is given: the service's one stop signal, and
+/// whether the watcher still runs.
+#[derive(Clone)]
+pub struct ServiceContext {
+    pub stop: tokio::sync::watch::Receiver<bool>,
+    pub watching: Arc<AtomicBool>,
+}
+
+/// A task the caller adds to the service (the web view): started with the others, told to
+/// stop by the same signal and awaited like them.
+pub type SideTask = (
+    &'static str,
+    Box<dyn FnOnce(ServiceContext) -> Pin<Box<dyn Future<Output = ()> + Send>> + Send>,
+);
+
 /// Run the watcher, the mailer and the digest schedule until `shutdown` turns true, or
 /// until one of them fails; then tell the others to stop and wait for every one.
 pub async fn serve(
     cfg: &Config,
     shutdown: tokio::sync::watch::Receiver<bool>,
+) -> Result<watch::WatchStats> {
+    serve_with(cfg, shutdown, Vec::new()).await
+}
+
+/// [`serve`], with `side` tasks started beside the watcher and stopped with it.
+pub async fn serve_with(
+    cfg: &Config,
+    shutdown: tokio::sync::watch::Receiver<bool>,
+    side: Vec<SideTask>,
 ) -> Result<watch::WatchStats> {
     let sink: Arc<dyn FileSink> = Arc::new(PipelineSink::new(cfg.clone())?);
     // The tasks' own stop signal: the caller's shutdown, or the failure of one of them.
@@ -80,14 +108,24 @@ pub async fn serve(
         }
     });
     let digest = tokio::spawn(digest_loop(cfg.clone(), stop_rx.clone()));
-    let watched = watch::run(cfg.resolved_folders(), sink, stop_rx).await;
-    // Whatever ended the watcher, every other task is told and awaited.
-    let _ = stop_tx.send(true);
-    for (name, task) in [
+    let watching = Arc::new(AtomicBool::new(true));
+    let mut tasks = vec![
         ("mailer", mailer),
         ("digest", digest),
         ("signal relay", relay),
-    ] {
+    ];
+    for (name, start) in side {
+        let ctx = ServiceContext {
+            stop: stop_rx.clone(),
+            watching: Arc::clone(&watching),
+        };
+        tasks.push((name, tokio::spawn(start(ctx))));
+    }
+    let watched = watch::run(cfg.resolved_folders(), sink, stop_rx).await;
+    watching.store(false, Ordering::SeqCst);
+    // Whatever ended the watcher, every other task is told and awaited.
+    let _ = stop_tx.send(true);
+    for (name, task) in tasks {
         if let Err(e) = task.await {
             tracing::error!(task = name, error = %e, "a service task ended abnormally");
         }
@@ -125,6 +163,11 @@ pub fn runtime() -> Result<tokio::runtime::Runtime> {
 
 /// Run the service on the configured folders until SIGTERM or SIGINT.
 pub fn run_service(cfg: &Config) -> Result<watch::WatchStats> {
+    run_service_with(cfg, Vec::new())
+}
+
+/// [`run_service`], with `side` tasks beside the watcher, stopped by the same signal.
+pub fn run_service_with(cfg: &Config, side: Vec<SideTask>) -> Result<watch::WatchStats> {
     if cfg.folders.is_empty() {
         return Err(NotebookError::Usage(format!(
             "configuration {}: no [[folders]] to watch; expected at least one",
@@ -134,7 +177,7 @@ pub fn run_service(cfg: &Config) -> Result<watch::WatchStats> {
     runtime()?.block_on(async {
         let shutdown = watch::shutdown_receiver();
         tracing::info!(folders = cfg.folders.len(), database = %cfg.database_path().display(), "turnbook watching");
-        let stats = serve(cfg, shutdown).await?;
+        let stats = serve_with(cfg, shutdown, side).await?;
         tracing::info!(offered = stats.offered, errors = stats.sink_errors, "turnbook stopped");
         Ok(stats)
     })

@@ -12,6 +12,7 @@
 //! - [`fits`]: the deactivation fit of a stored lot or of any two-column series.
 //! - [`reports`]: the data of a lot's or the site's report, and writing them.
 //! - [`daemon`]: the service: watcher, mailer and digest, with an orderly shutdown.
+//! - [`views`]: read-only views for the browser and for operations, and the change watch.
 
 mod alerts;
 mod chain;
@@ -24,8 +25,12 @@ mod ingestion;
 mod lots;
 mod recompute;
 mod reports;
+mod views;
 
-pub use daemon::{deliver_now, queue_digest, run_service, runtime, serve};
+pub use daemon::{
+    ServiceContext, SideTask, deliver_now, queue_digest, run_service, run_service_with, runtime,
+    serve, serve_with,
+};
 pub use entries::{
     Corrected, Receipt, Registered, SignedOff, correct, exclude, note, register, sign_off,
 };
@@ -42,6 +47,11 @@ pub use lots::{
 };
 pub use recompute::recompute_stale;
 pub use reports::{write_all_reports, write_lot_report, write_site_report};
+pub use views::{
+    AlertsView, AuditView, ChangeWatch, FileLine, FilesView, LotPage, MessageLine, OpenAlertLine,
+    OpsFigures, Overview, SignOffState, alerts_view, audit_view, files_view, lot_page,
+    lot_report_html, ops_figures, overview,
+};
 
 use crate::config::Config;
 

@@ -10,6 +10,7 @@ pub mod outbox;
 pub mod queries;
 pub mod records;
 pub mod replay;
+pub mod web;
 
 use std::path::Path;
 

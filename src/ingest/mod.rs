@@ -18,8 +18,8 @@ mod value;
 
 pub use cache::ParseCache;
 pub use decode::{Encoding, decode};
-pub use parse::{parse, parse_number, parse_text, parse_valid};
+pub use parse::{parse, parse_text, parse_valid};
 pub use profile::{ColumnSpec, DecimalMark, Delimiter, Profile, ProfileKind};
 pub use record::*;
 pub use units::{Unit, dimension_of};
-pub use value::{ValueProblem, read_value, shown_unit};
+pub use value::{ValueProblem, parse_number, read_value, shown_unit};

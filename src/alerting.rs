@@ -67,7 +67,9 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
             status: match f.status {
                 fit::ForecastStatus::Ahead => rules::ForecastStatus::Crossing,
                 fit::ForecastStatus::ReachedAlready => rules::ForecastStatus::ReachedAlready,
-                fit::ForecastStatus::NotReached => rules::ForecastStatus::NotReached,
+                fit::ForecastStatus::NotReached
+                | fit::ForecastStatus::NoSignificantTrend
+                | fit::ForecastStatus::Withheld => rules::ForecastStatus::NotReached,
                 fit::ForecastStatus::UnboundedInterval => rules::ForecastStatus::Unbounded,
             },
             x: f.x,

@@ -19,7 +19,9 @@ fn report_forecast(f: &fit::Forecast) -> report::Forecast {
             fit::ForecastStatus::Ahead => report::ForecastStatus::Crosses,
             fit::ForecastStatus::UnboundedInterval => report::ForecastStatus::CrossesUnbounded,
             fit::ForecastStatus::ReachedAlready => report::ForecastStatus::AlreadyCrossed,
-            fit::ForecastStatus::NotReached => report::ForecastStatus::NeverCrosses,
+            fit::ForecastStatus::NotReached
+            | fit::ForecastStatus::NoSignificantTrend
+            | fit::ForecastStatus::Withheld => report::ForecastStatus::NeverCrosses,
         },
         x: f.x,
         lower: f.lower,

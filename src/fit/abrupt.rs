@@ -1,15 +1,36 @@
 //! Abrupt loss of activity (poisoning, a bad feed lot), as opposed to the slow trend.
 //!
-//! Two views, both reported with their numbers: the newest point against the one-step-ahead
-//! prediction interval of the fit on the points before it (prediction variance
-//! s² + gᵀΣg), and Page's one-sided downward CUSUM on standardised residuals
-//! (Page 1954; k = 0.5, h = 4 to 5 are the usual SPC defaults, Montgomery, "Introduction
-//! to Statistical Quality Control").
+//! Monitoring ([`monitor`]): each cycle, from the sixth on, is predicted one step ahead
+//! from an in-control baseline, a first-order decay fitted on the log scale (ordinary least
+//! squares of ln y on x; exact for first order, and any smooth decay is close to it over
+//! a baseline window; a straight line on y when some y ≤ 0). Its Student-t standardised
+//! prediction error is mapped to a standard normal score and fed to Page's one-sided
+//! downward CUSUM, S_i = max(0, S_{i−1} − z_i − k) (Page, "Continuous inspection
+//! schemes", Biometrika 41, 1954; k = 0.5 and h = 4 to 5 are the usual SPC defaults,
+//! Montgomery, "Introduction to Statistical Quality Control"; recalled from memory). The
+//! baseline grows only with cycles that leave the CUSUM at zero: while S > 0 the cycles are
+//! suspect and do not enter it, so a step is never absorbed into the baseline and the
+//! signal persists for as long as the new level lasts. The change is estimated to start at
+//! the first cycle after the last in-control one (the usual CUSUM change-point estimate).
+//!
+//! Each cycle since the suspected change is also tested against the one-step-ahead
+//! prediction interval (variance s² + gᵀΣg) of the fit on the cycles before the change
+//! ([`prediction_check`]).
+//!
+//! A level-shift model ([`fit_level_shift`]): a trend (linear, first or second order)
+//! with a drop δ from cycle N on, N scanned around the CUSUM's estimate. Its AICc counts N
+//! as a parameter (the change point is estimated by maximum likelihood, Hinkley,
+//! "Inference about the change-point in a sequence of random variables", Biometrika 57,
+//! 1970; recalled from memory) and it competes with the single-regime models.
 
 use serde::{Deserialize, Serialize};
 
-use super::engine::FitResult;
+use statrs::distribution::{ContinuousCDF, Normal, StudentsT};
+
+use super::engine::{FitResult, covariance_of};
 use super::forecast::t_quantile;
+use super::lm::{Curve, LmOptions, levenberg_marquardt};
+use super::models::ModelId;
 
 /// The newest point against the prediction interval of the earlier points' fit.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -98,10 +119,288 @@ pub fn cusum_down(z: &[f64], k: f64, h: f64) -> CusumResult {
 /// Both views and the verdict.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct AbruptLoss {
+    /// The newest cycle against the fit on the cycles before the suspected change (before
+    /// the newest cycle when no change is suspected).
     pub prediction: Option<PredictionCheck>,
+    /// The monitoring CUSUM over one-step-ahead scores (zero for the first baseline cycles).
     pub cusum: Option<CusumResult>,
-    /// True when either view signals.
+    /// True when the CUSUM is above h at the newest cycle.
     pub suspected: bool,
+    /// The first x of the new level, when a step change is accepted (suspected, and the
+    /// level-shift model has the lower AICc).
+    #[serde(default)]
+    pub change_at: Option<f64>,
+    /// Each cycle since the suspected change against the fit on the cycles before it.
+    #[serde(default)]
+    pub checks: Vec<PredictionCheck>,
+    /// The best level-shift model, when a change is suspected.
+    #[serde(default)]
+    pub shift: Option<LevelShift>,
+}
+
+/// A trend with a level shift at a change point.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LevelShift {
+    /// The trend's model.
+    pub base: ModelId,
+    /// First x of the new level.
+    pub at: f64,
+    /// Trend parameters, then δ (the drop, positive for a loss).
+    pub params: Vec<f64>,
+    pub covariance: Option<Vec<Vec<f64>>>,
+    pub rss: f64,
+    pub sigma: Option<f64>,
+    pub dof: usize,
+    /// AICc with the change point counted as a parameter.
+    pub aicc: Option<f64>,
+    /// AICc minus the best single-regime AICc (negative: the shift is preferred).
+    pub delta_vs_single: Option<f64>,
+    /// The drop δ with its interval at the analysis confidence (activity units).
+    pub drop: f64,
+    pub drop_lower: Option<f64>,
+    pub drop_upper: Option<f64>,
+    /// δ relative to the trend just before the change.
+    pub drop_relative: Option<f64>,
+}
+
+impl LevelShift {
+    /// Fitted activity at x (after the shift when x ≥ at).
+    pub fn predict(&self, x: f64) -> f64 {
+        let np = self.base.n_params();
+        let step = if x >= self.at { self.params[np] } else { 0.0 };
+        self.base.eval(x, &self.params[..np]) - step
+    }
+
+    /// Variance of the fitted mean at x (delta method).
+    pub fn mean_variance(&self, x: f64) -> Option<f64> {
+        let cov = self.covariance.as_ref()?;
+        let np = self.base.n_params();
+        let mut g = vec![0.0; np + 1];
+        self.base.grad(x, &self.params[..np], &mut g[..np]);
+        g[np] = if x >= self.at { -1.0 } else { 0.0 };
+        let v = super::engine::quad_form(cov, &g);
+        (v.is_finite() && v >= 0.0).then_some(v)
+    }
+}
+
+struct ShiftCurve {
+    base: ModelId,
+    at: f64,
+}
+
+impl Curve for ShiftCurve {
+    fn n_params(&self) -> usize {
+        self.base.n_params() + 1
+    }
+    fn value(&self, x: f64, p: &[f64]) -> f64 {
+        let np = self.base.n_params();
+        let step = if x >= self.at { p[np] } else { 0.0 };
+        self.base.eval(x, &p[..np]) - step
+    }
+    fn has_gradient(&self) -> bool {
+        true
+    }
+    fn gradient(&self, x: f64, p: &[f64], out: &mut [f64]) {
+        let np = self.base.n_params();
+        self.base.grad(x, &p[..np], &mut out[..np]);
+        out[np] = if x >= self.at { -1.0 } else { 0.0 };
+    }
+}
+
+/// Fits the level-shift model with trend `base` and the change at index `at` of `x`
+/// (sorted), starting from `start` (the trend's parameters); None when it fails.
+fn fit_shift_at(
+    base: ModelId,
+    x: &[f64],
+    y: &[f64],
+    at: usize,
+    start: &[f64],
+    lm: &LmOptions,
+    confidence: f64,
+) -> Option<LevelShift> {
+    let n = x.len();
+    let np = base.n_params();
+    if at < np + 1 || at >= n || n <= np + 3 {
+        return None;
+    }
+    let curve = ShiftCurve { base, at: x[at] };
+    let post_mean: f64 =
+        (at..n).map(|i| base.eval(x[i], start) - y[i]).sum::<f64>() / (n - at) as f64;
+    let mut p0 = start.to_vec();
+    p0.push(post_mean);
+    let out = levenberg_marquardt(&curve, x, y, None, &p0, lm).ok()?;
+    if !out.reason.is_converged() || out.params.iter().any(|v| !v.is_finite()) {
+        return None;
+    }
+    let (covariance, se) = covariance_of(&out, n);
+    let k = np + 2; // the trend, δ and the change point
+    let aicc = super::choice::aicc(n, k, out.rss);
+    let dof = n.saturating_sub(np + 1);
+    let drop = out.params[np];
+    let t = t_quantile(confidence, dof);
+    let half = se.as_ref().zip(t).map(|(s, t)| t * s[np]);
+    let before = base.eval(x[at], &out.params[..np]);
+    Some(LevelShift {
+        base,
+        at: x[at],
+        params: out.params.clone(),
+        covariance,
+        rss: out.rss,
+        sigma: (n > np + 1).then(|| (out.rss / (n - np - 1) as f64).sqrt()),
+        dof,
+        aicc,
+        delta_vs_single: None,
+        drop,
+        drop_lower: half.map(|h| drop - h),
+        drop_upper: half.map(|h| drop + h),
+        drop_relative: (before > 0.0).then(|| drop / before),
+    })
+}
+
+/// The best level-shift model (lowest AICc) over the trends linear, first and second order
+/// and the change at index `at_guess` − 1, `at_guess` or `at_guess` + 1.
+pub fn fit_level_shift(
+    x: &[f64],
+    y: &[f64],
+    at_guess: usize,
+    lm: &LmOptions,
+    confidence: f64,
+) -> Option<LevelShift> {
+    let mut best: Option<LevelShift> = None;
+    for base in [ModelId::Linear, ModelId::FirstOrder, ModelId::SecondOrder] {
+        for at in at_guess.saturating_sub(1)..=at_guess + 1 {
+            if at < 2 || at >= x.len() {
+                continue;
+            }
+            // Start from the trend of the cycles before the change.
+            let start = super::start::start_values(base, &x[..at], &y[..at]);
+            let Some(s) = fit_shift_at(base, x, y, at, &start, lm, confidence) else {
+                continue;
+            };
+            let better = match (&best, s.aicc) {
+                (None, Some(_)) => true,
+                (Some(b), Some(a)) => b.aicc.is_none_or(|ba| a < ba),
+                _ => false,
+            };
+            if better {
+                best = Some(s);
+            }
+        }
+    }
+    best
+}
+
+/// The outcome of monitoring a lot's cycles.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Monitoring {
+    /// Normal scores of the one-step-ahead prediction errors (NaN for the first baseline
+    /// cycles, which are not predicted).
+    pub z: Vec<f64>,
+    pub cusum: CusumResult,
+    /// Index of the first cycle after the last in-control one, when the CUSUM is above
+    /// zero at the newest cycle.
+    pub change_index: Option<usize>,
+    /// The CUSUM is above h at the newest cycle.
+    pub alarm: bool,
+}
+
+/// Cycles in the first baseline before monitoring starts.
+pub const MIN_BASELINE: usize = 5;
+
+/// Straight-line least squares of v on x over `idx`: (intercept, slope, s², x̄, Sxx, n).
+fn line_fit(x: &[f64], v: &[f64]) -> Option<(f64, f64, f64, f64, f64, usize)> {
+    let n = x.len();
+    if n < 3 {
+        return None;
+    }
+    let nf = n as f64;
+    let xm = x.iter().sum::<f64>() / nf;
+    let vm = v.iter().sum::<f64>() / nf;
+    let sxx: f64 = x.iter().map(|xi| (xi - xm).powi(2)).sum();
+    if sxx <= 0.0 {
+        return None;
+    }
+    let sxv: f64 = x.iter().zip(v).map(|(xi, vi)| (xi - xm) * (vi - vm)).sum();
+    let b = sxv / sxx;
+    let a = vm - b * xm;
+    let rss: f64 = x
+        .iter()
+        .zip(v)
+        .map(|(xi, vi)| (vi - a - b * xi).powi(2))
+        .sum();
+    Some((a, b, rss / (nf - 2.0), xm, sxx, n))
+}
+
+/// Monitors `y` over sorted `x` (see the module documentation); None when there are too
+/// few cycles to start.
+pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
+    let n = x.len().min(y.len());
+    if n <= MIN_BASELINE {
+        return None;
+    }
+    let log_scale = y.iter().all(|&v| v > 0.0);
+    let v: Vec<f64> = if log_scale {
+        y.iter().map(|v| v.ln()).collect()
+    } else {
+        y.to_vec()
+    };
+    let normal = Normal::new(0.0, 1.0).ok()?;
+    let mut z = vec![f64::NAN; n];
+    let mut path = vec![0.0; n];
+    let mut s: f64 = 0.0;
+    let mut in_control = MIN_BASELINE; // baseline = cycles [0, in_control)
+    let mut first_alarm = None;
+    let mut max: f64 = 0.0;
+    let mut fitted: Option<(usize, (f64, f64, f64, f64, f64, usize))> = None;
+    for i in MIN_BASELINE..n {
+        let line = match fitted {
+            Some((m, l)) if m == in_control => l,
+            _ => {
+                let l = line_fit(&x[..in_control], &v[..in_control])?;
+                fitted = Some((in_control, l));
+                l
+            }
+        };
+        let (a, b, s2, xm, sxx, nb) = line;
+        let pred = a + b * x[i];
+        let var = s2 * (1.0 + 1.0 / nb as f64 + (x[i] - xm).powi(2) / sxx);
+        let sd = var.sqrt();
+        let zi = if sd > 0.0 && sd.is_finite() {
+            let tstat = (v[i] - pred) / sd;
+            let p = StudentsT::new(0.0, 1.0, (nb - 2) as f64)
+                .map(|t| t.cdf(tstat))
+                .unwrap_or(f64::NAN);
+            normal.inverse_cdf(p.clamp(1e-12, 1.0 - 1e-12))
+        } else {
+            0.0
+        };
+        z[i] = zi;
+        if zi.is_finite() {
+            s = (s - zi - k).max(0.0);
+        }
+        path[i] = s;
+        max = max.max(s);
+        if first_alarm.is_none() && s > h {
+            first_alarm = Some(i);
+        }
+        if s == 0.0 {
+            in_control = i + 1;
+        }
+    }
+    let change_index = (s > 0.0 && in_control < n).then_some(in_control);
+    Some(Monitoring {
+        z,
+        cusum: CusumResult {
+            k,
+            h,
+            path,
+            first_alarm,
+            max,
+            last: s,
+        },
+        change_index,
+        alarm: s > h,
+    })
 }
 
 #[cfg(test)]

@@ -95,12 +95,7 @@ pub fn read_series_csv(text: &str) -> Result<(Vec<f64>, Vec<f64>), SeriesError> 
 }
 
 fn status_word(s: ForecastStatus) -> &'static str {
-    match s {
-        ForecastStatus::Ahead => "ahead",
-        ForecastStatus::ReachedAlready => "reached-already",
-        ForecastStatus::NotReached => "not-reached",
-        ForecastStatus::UnboundedInterval => "unbounded-interval",
-    }
+    s.word()
 }
 
 fn why_words(w: NotReachedWhy) -> &'static str {
@@ -109,6 +104,7 @@ fn why_words(w: NotReachedWhy) -> &'static str {
         NotReachedWhy::SlopeWrongSign => "activity is not falling",
         NotReachedWhy::BeyondHorizon => "not within a million spans of the data",
         NotReachedWhy::UndefinedCriterion => "the criterion is not a finite number",
+        NotReachedWhy::CurveEnds => "the fitted curve ends above the criterion",
     }
 }
 

@@ -29,6 +29,7 @@
 
 pub mod abrupt;
 pub mod analysis;
+pub mod average;
 pub mod choice;
 pub mod cli;
 pub mod economics;

@@ -149,8 +149,12 @@ pub fn series(
             };
             if json {
                 let mut v = fit::fit_json(f, threshold.and(a.forecast.as_ref()));
-                if let serde_json::Value::Object(m) = &mut v {
-                    m.insert("ranking".into(), serde_json::to_value(&a.ranking)?);
+                if let (serde_json::Value::Object(m), serde_json::Value::Object(extra)) =
+                    (&mut v, fit::analysis_json(&a))
+                {
+                    for (k, val) in extra.into_iter().filter(|(k, _)| k != "forecast") {
+                        m.entry(k).or_insert(val);
+                    }
                 }
                 println!("{}", serde_json::to_string_pretty(&v)?);
             } else {

@@ -171,3 +171,42 @@ fn full_coverage_grid() {
     }
     assert!(outside.is_empty(), "outside 85–95 %: {outside:#?}");
 }
+
+#[test]
+#[ignore]
+fn debug_tmp() {
+    for model in [ModelId::Power, ModelId::FirstOrderResidual] {
+        let p = truth(model);
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let noise = Normal::new(0.0, 0.03).expect("valid sd");
+        let x: Vec<f64> = (1..=10).map(|i| i as f64).collect();
+        for _ in 0..6 {
+            let y: Vec<f64> = x
+                .iter()
+                .map(|&v| model.eval(v, &p) + noise.sample(&mut rng))
+                .collect();
+            let a = analyse(
+                &LotSeries {
+                    x: x.clone(),
+                    y,
+                    ..LotSeries::default()
+                },
+                &AnalysisOptions {
+                    candidates: vec![model],
+                    ..AnalysisOptions::default()
+                },
+            );
+            let r = &a.ranking[0];
+            eprintln!(
+                "{model}: conv {} bound {} why {:?} params {:?} fc {:?}",
+                r.converged,
+                r.at_bound,
+                r.why_not,
+                r.params.iter().map(|v| v.value).collect::<Vec<_>>(),
+                a.forecast
+                    .as_ref()
+                    .map(|f| (f.status, f.x, f.lower, f.upper))
+            );
+        }
+    }
+}

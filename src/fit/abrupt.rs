@@ -4,14 +4,25 @@
 //! from an in-control baseline, a first-order decay fitted on the log scale (ordinary least
 //! squares of ln y on x; exact for first order, and any smooth decay is close to it over
 //! a baseline window; a straight line on y when some y ≤ 0). Its Student-t standardised
-//! prediction error is mapped to a standard normal score and fed to Page's one-sided
+//! prediction error is mapped to a standard normal score (as in the self-starting CUSUM of
+//! Hawkins, 1987, recalled from memory) and fed to Page's one-sided
 //! downward CUSUM, S_i = max(0, S_{i−1} − z_i − k) (Page, "Continuous inspection
 //! schemes", Biometrika 41, 1954; k = 0.5 and h = 4 to 5 are the usual SPC defaults,
-//! Montgomery, "Introduction to Statistical Quality Control"; recalled from memory). The
-//! baseline grows only with cycles that leave the CUSUM at zero: while S > 0 the cycles are
-//! suspect and do not enter it, so a step is never absorbed into the baseline and the
-//! signal persists for as long as the new level lasts. The change is estimated to start at
-//! the first cycle after the last in-control one (the usual CUSUM change-point estimate).
+//! Montgomery, "Introduction to Statistical Quality Control"; recalled from memory). Until
+//! an alarm the baseline is every earlier cycle, whose one-step-ahead errors are
+//! independent for an in-control lot (recursive residuals), so the CUSUM keeps its usual
+//! false-alarm rate. At an alarm the change is estimated to start at the first cycle after
+//! the last one with S = 0 (the usual CUSUM change-point estimate); the baseline is then
+//! frozen at the cycles before it and the scores from the change on are recomputed against
+//! it. A step is thus never absorbed into the baseline, and the signal persists for as
+//! long as the new level lasts; it clears only when S returns to zero.
+//!
+//! The CUSUM needs a few cycles to accumulate a step; so that a large step is not absorbed
+//! into the recursive baseline meanwhile, the cycles of the current CUSUM excursion are
+//! also tested together against the baseline before them (Chow's predictive test,
+//! one-sided at [`SHIFT_ALPHA`], every start within the excursion tried, Bonferroni
+//! corrected); either signal freezes the baseline. At the newest cycle a change
+//! is signalled while the CUSUM is above h or that test still rejects.
 //!
 //! Each cycle since the suspected change is also tested against the one-step-ahead
 //! prediction interval (variance s² + gᵀΣg) of the fit on the cycles before the change
@@ -300,35 +311,133 @@ pub struct Monitoring {
     /// Index of the first cycle after the last in-control one, when the CUSUM is above
     /// zero at the newest cycle.
     pub change_index: Option<usize>,
-    /// The CUSUM is above h at the newest cycle.
+    /// One-sided p-value of the predictive test of the cycles since the change against
+    /// the baseline before it, when a change is under way.
+    pub shift_p: Option<f64>,
+    /// A change is signalled at the newest cycle.
     pub alarm: bool,
 }
 
 /// Cycles in the first baseline before monitoring starts.
 pub const MIN_BASELINE: usize = 5;
 
-/// Straight-line least squares of v on x over `idx`: (intercept, slope, s², x̄, Sxx, n).
-fn line_fit(x: &[f64], v: &[f64]) -> Option<(f64, f64, f64, f64, f64, usize)> {
-    let n = x.len();
-    if n < 3 {
-        return None;
+/// Level of the one-sided predictive test of the cycles since a suspected change. Strict,
+/// because it is applied at every cycle of every excursion of the CUSUM.
+pub const SHIFT_ALPHA: f64 = 0.001;
+
+const USE_LOG_SCALE: bool = true;
+
+/// A straight line fitted to the baseline, on the log scale (first-order decay) or on y.
+#[derive(Debug, Clone, Copy)]
+struct Baseline {
+    log: bool,
+    a: f64,
+    b: f64,
+    s2: f64,
+    xm: f64,
+    sxx: f64,
+    n: usize,
+}
+
+impl Baseline {
+    /// Least squares on the log scale and on y; the one with the smaller residual sum of
+    /// squares in y is kept (a first-order or a linear decay, whichever the baseline follows).
+    fn fit(x: &[f64], y: &[f64]) -> Option<Baseline> {
+        let n = x.len();
+        if n < 3 {
+            return None;
+        }
+        let nf = n as f64;
+        let xm = x.iter().sum::<f64>() / nf;
+        let sxx: f64 = x.iter().map(|xi| (xi - xm).powi(2)).sum();
+        if sxx <= 0.0 {
+            return None;
+        }
+        let line = |v: &dyn Fn(usize) -> f64| {
+            let vm = (0..n).map(v).sum::<f64>() / nf;
+            let sxv: f64 = (0..n).map(|i| (x[i] - xm) * (v(i) - vm)).sum();
+            let b = sxv / sxx;
+            (vm - b * xm, b)
+        };
+        let (a1, b1) = line(&|i| y[i]);
+        let rss_lin: f64 = (0..n).map(|i| (y[i] - a1 - b1 * x[i]).powi(2)).sum();
+        let mut best = Baseline {
+            log: false,
+            a: a1,
+            b: b1,
+            s2: rss_lin / (nf - 2.0),
+            xm,
+            sxx,
+            n,
+        };
+        if USE_LOG_SCALE && y.iter().all(|&v| v > 0.0) {
+            let (a2, b2) = line(&|i| y[i].ln());
+            let rss_y: f64 = (0..n)
+                .map(|i| (y[i] - (a2 + b2 * x[i]).exp()).powi(2))
+                .sum();
+            if rss_y < rss_lin {
+                let rss_log: f64 = (0..n).map(|i| (y[i].ln() - a2 - b2 * x[i]).powi(2)).sum();
+                best = Baseline {
+                    log: true,
+                    a: a2,
+                    b: b2,
+                    s2: rss_log / (nf - 2.0),
+                    ..best
+                };
+            }
+        }
+        Some(best)
     }
-    let nf = n as f64;
-    let xm = x.iter().sum::<f64>() / nf;
-    let vm = v.iter().sum::<f64>() / nf;
-    let sxx: f64 = x.iter().map(|xi| (xi - xm).powi(2)).sum();
-    if sxx <= 0.0 {
-        return None;
+
+    /// The observation on the line's scale (−∞ for y ≤ 0 on the log scale).
+    fn scale(&self, y: f64) -> f64 {
+        if self.log {
+            if y > 0.0 { y.ln() } else { f64::NEG_INFINITY }
+        } else {
+            y
+        }
     }
-    let sxv: f64 = x.iter().zip(v).map(|(xi, vi)| (xi - xm) * (vi - vm)).sum();
-    let b = sxv / sxx;
-    let a = vm - b * xm;
-    let rss: f64 = x
-        .iter()
-        .zip(v)
-        .map(|(xi, vi)| (vi - a - b * xi).powi(2))
-        .sum();
-    Some((a, b, rss / (nf - 2.0), xm, sxx, n))
+
+    fn t_cdf(&self, t: f64) -> f64 {
+        if t == f64::NEG_INFINITY {
+            return 0.0;
+        }
+        StudentsT::new(0.0, 1.0, (self.n - 2) as f64).map_or(f64::NAN, |d| d.cdf(t))
+    }
+
+    /// P(T ≤ t) of the one-step-ahead prediction error of (x, y).
+    fn p_one(&self, x: f64, y: f64) -> f64 {
+        let pred = self.a + self.b * x;
+        let sd = (self.s2 * (1.0 + 1.0 / self.n as f64 + (x - self.xm).powi(2) / self.sxx)).sqrt();
+        if !(sd > 0.0 && sd.is_finite()) {
+            return 0.5;
+        }
+        self.t_cdf((self.scale(y) - pred) / sd)
+    }
+
+    /// One-sided p-value of the mean prediction error of the cycles (x, y) (a level below
+    /// the baseline's extrapolation): the predictive test of Chow (Econometrica 28, 1960;
+    /// recalled from memory) for a mean shift, on Student t with n − 2 degrees of freedom.
+    fn p_shift(&self, x: &[f64], y: &[f64]) -> f64 {
+        let m = x.len();
+        if m == 0 {
+            return 1.0;
+        }
+        let mf = m as f64;
+        let r: f64 = x
+            .iter()
+            .zip(y)
+            .map(|(&xi, &yi)| self.scale(yi) - self.a - self.b * xi)
+            .sum::<f64>()
+            / mf;
+        let xp = x.iter().sum::<f64>() / mf;
+        let sd =
+            (self.s2 * (1.0 / mf + 1.0 / self.n as f64 + (xp - self.xm).powi(2) / self.sxx)).sqrt();
+        if !(sd > 0.0 && sd.is_finite()) {
+            return 1.0;
+        }
+        self.t_cdf(r / sd)
+    }
 }
 
 /// Monitors `y` over sorted `x` (see the module documentation); None when there are too
@@ -338,55 +447,65 @@ pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
     if n <= MIN_BASELINE {
         return None;
     }
-    let log_scale = y.iter().all(|&v| v > 0.0);
-    let v: Vec<f64> = if log_scale {
-        y.iter().map(|v| v.ln()).collect()
-    } else {
-        y.to_vec()
-    };
     let normal = Normal::new(0.0, 1.0).ok()?;
+    let to_z = |p: f64| normal.inverse_cdf(p.clamp(1e-12, 1.0 - 1e-12));
     let mut z = vec![f64::NAN; n];
     let mut path = vec![0.0; n];
     let mut s: f64 = 0.0;
-    let mut in_control = MIN_BASELINE; // baseline = cycles [0, in_control)
+    // Until an alarm the baseline is every earlier cycle (recursive residuals, independent
+    // when the lot is in control); at an alarm it is frozen at the cycles before the
+    // estimated change, and the scores from the change on are recomputed against it.
+    let mut frozen: Option<(usize, Baseline)> = None;
+    let mut last_zero = MIN_BASELINE - 1;
     let mut first_alarm = None;
-    let mut max: f64 = 0.0;
-    let mut fitted: Option<(usize, (f64, f64, f64, f64, f64, usize))> = None;
     for i in MIN_BASELINE..n {
-        let line = match fitted {
-            Some((m, l)) if m == in_control => l,
-            _ => {
-                let l = line_fit(&x[..in_control], &v[..in_control])?;
-                fitted = Some((in_control, l));
-                l
-            }
-        };
-        let (a, b, s2, xm, sxx, nb) = line;
-        let pred = a + b * x[i];
-        let var = s2 * (1.0 + 1.0 / nb as f64 + (x[i] - xm).powi(2) / sxx);
-        let sd = var.sqrt();
-        let zi = if sd > 0.0 && sd.is_finite() {
-            let tstat = (v[i] - pred) / sd;
-            let p = StudentsT::new(0.0, 1.0, (nb - 2) as f64)
-                .map(|t| t.cdf(tstat))
-                .unwrap_or(f64::NAN);
-            normal.inverse_cdf(p.clamp(1e-12, 1.0 - 1e-12))
-        } else {
-            0.0
+        let zi = match frozen {
+            Some((_, b)) => to_z(b.p_one(x[i], y[i])),
+            None => to_z(Baseline::fit(&x[..i], &y[..i])?.p_one(x[i], y[i])),
         };
         z[i] = zi;
-        if zi.is_finite() {
-            s = (s - zi - k).max(0.0);
-        }
+        s = (s - zi - k).max(0.0);
         path[i] = s;
-        max = max.max(s);
-        if first_alarm.is_none() && s > h {
-            first_alarm = Some(i);
-        }
         if s == 0.0 {
-            in_control = i + 1;
+            last_zero = i;
+            frozen = None;
+        } else if frozen.is_none() {
+            // The change may start anywhere in the excursion: each start is tested, with
+            // a Bonferroni correction for their number.
+            let mut tau = last_zero + 1;
+            let mut base = Baseline::fit(&x[..tau], &y[..tau])?;
+            let starts = (i + 1 - tau) as f64;
+            let mut shift = false;
+            for t0 in tau..=i {
+                let Some(b) = Baseline::fit(&x[..t0], &y[..t0]) else {
+                    continue;
+                };
+                if b.p_shift(&x[t0..=i], &y[t0..=i]) * starts < SHIFT_ALPHA {
+                    (tau, base, shift) = (t0, b, true);
+                    break;
+                }
+            }
+            if s > h || shift {
+                first_alarm.get_or_insert(i);
+                frozen = Some((tau, base));
+                s = 0.0;
+                for j in tau..=i {
+                    z[j] = to_z(base.p_one(x[j], y[j]));
+                    s = (s - z[j] - k).max(0.0);
+                    path[j] = s;
+                }
+                // The test already signalled: keep the CUSUM at least at h.
+                if shift {
+                    s = s.max(h + f64::EPSILON);
+                    path[i] = s;
+                }
+            }
         }
     }
+    let max = path.iter().copied().fold(0.0, f64::max);
+    let shift_p = frozen.map(|(tau, b)| b.p_shift(&x[tau..n], &y[tau..n]));
+    let alarm = frozen.is_some() && (s > h || shift_p.is_some_and(|p| p < SHIFT_ALPHA));
+    let in_control = last_zero + 1;
     let change_index = (s > 0.0 && in_control < n).then_some(in_control);
     Some(Monitoring {
         z,
@@ -399,7 +518,8 @@ pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
             last: s,
         },
         change_index,
-        alarm: s > h,
+        shift_p,
+        alarm,
     })
 }
 

@@ -213,6 +213,61 @@ fn at_bound(f: &FitResult, bounds: &[(String, f64, f64)]) -> bool {
     !bounds.is_empty() && (hit || inverted)
 }
 
+/// The fit with the parameters that sit on a bound held fixed there: their rows and
+/// columns of the covariance are conditioned away (Σ_ff − Σ_fb·Σ_bb⁻¹·Σ_bf), s² uses
+/// n − (free parameters) degrees of freedom. This is the constrained optimum's own
+/// covariance; None when there is no covariance or nothing is free.
+fn held_at_bounds(f: &FitResult, bounds: &[(String, f64, f64)]) -> Option<FitResult> {
+    let cov = f.covariance.as_ref()?;
+    let np = f.params.len();
+    let on = |v: f64, b: f64| b.is_finite() && (v - b).abs() <= 1e-9 * (1.0 + b.abs());
+    let fixed: Vec<bool> = (0..np)
+        .map(|j| {
+            bounds.iter().any(|(name, lo, hi)| {
+                f.param_names[j] == *name && (on(f.params[j], *lo) || on(f.params[j], *hi))
+            })
+        })
+        .collect();
+    let nb = fixed.iter().filter(|b| **b).count();
+    let nfree = np - nb;
+    if nb == 0 || nfree == 0 || f.n <= nfree {
+        return None;
+    }
+    let bidx: Vec<usize> = (0..np).filter(|&j| fixed[j]).collect();
+    let mut sbb = nalgebra::DMatrix::<f64>::zeros(nb, nb);
+    for (a, &i) in bidx.iter().enumerate() {
+        for (b, &j) in bidx.iter().enumerate() {
+            sbb[(a, b)] = cov[i][j];
+        }
+    }
+    let inv = sbb.try_inverse()?;
+    let scale = (f.n - np) as f64 / (f.n - nfree) as f64;
+    let mut c = vec![vec![0.0; np]; np];
+    for i in 0..np {
+        for j in 0..np {
+            if fixed[i] || fixed[j] {
+                continue;
+            }
+            let mut v = cov[i][j];
+            for (a, &bi) in bidx.iter().enumerate() {
+                for (b, &bj) in bidx.iter().enumerate() {
+                    v -= cov[i][bi] * inv[(a, b)] * cov[bj][j];
+                }
+            }
+            c[i][j] = v * scale;
+        }
+    }
+    if (0..np).any(|j| !fixed[j] && !(c[j][j] >= 0.0 && c[j][j].is_finite())) {
+        return None;
+    }
+    let mut g = f.clone();
+    g.std_errors = Some((0..np).map(|j| c[j][j].sqrt()).collect());
+    g.covariance = Some(c);
+    g.dof = f.n - nfree;
+    g.sigma = Some((f.rss / g.dof as f64).sqrt());
+    Some(g)
+}
+
 /// A start for `model` from the optimum of a simpler model it contains, when one was
 /// fitted: the power law is first order at m = 1 and second order at m = 2, so it starts
 /// from whichever of those fits the lot better (its RSS is the power law's there). None
@@ -250,6 +305,8 @@ struct Fitted {
     model: ModelId,
     result: Result<FitResult, String>,
     at_bound: bool,
+    /// For a fit at a bound: the fit with those parameters held there.
+    held: Option<FitResult>,
 }
 
 impl Fitted {
@@ -315,10 +372,17 @@ fn fit_candidates(
             _ => {}
         }
         let at_bound = r.as_ref().is_ok_and(|f| at_bound(f, &bounds));
+        let held = match &r {
+            Ok(f) if at_bound && f.params.iter().all(|v| v.is_finite()) => {
+                held_at_bounds(f, &bounds)
+            }
+            _ => None,
+        };
         fits.push(Fitted {
             model: m,
             result: r,
             at_bound,
+            held,
         });
     }
     fits
@@ -560,11 +624,21 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         None => (&all_fits, &fx[..]),
     };
     out.trend_cycles = tx.len();
-    let usable: Vec<&FitResult> = trend_fits
+    let mut usable: Vec<&FitResult> = trend_fits
         .iter()
         .filter_map(|c| c.usable_fit())
         .filter(|f| f.covariance.is_some())
         .collect();
+    if usable.is_empty() {
+        // No interior fit: the fits that end at a physical bound, held there.
+        usable = trend_fits.iter().filter_map(|c| c.held.as_ref()).collect();
+        if !usable.is_empty() {
+            out.notes.push(
+                "every fit ends at a physical bound; the forecast holds those parameters there"
+                    .to_string(),
+            );
+        }
+    }
     let avg = Averaged::new(&usable, opts.criterion);
     let (x_first, x_last) = match (fx.first(), fx.last()) {
         (Some(&a), Some(&b)) => (a, b),
@@ -576,10 +650,20 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     }
     let (ranking, chosen_idx) = rank(trend_fits, &out.weights);
     out.ranking = ranking;
-    let chosen = chosen_idx.and_then(|i| {
-        let c = &trend_fits[i];
-        c.result.as_ref().ok().map(|f| (c.model, f))
-    });
+    let chosen = chosen_idx
+        .and_then(|i| {
+            let c = &trend_fits[i];
+            c.result.as_ref().ok().map(|f| (c.model, f))
+        })
+        .or_else(|| {
+            trend_fits
+                .iter()
+                .filter_map(|c| c.held.as_ref().map(|f| (c.model, f)))
+                .min_by(|a, b| {
+                    let k = |f: &FitResult| f.aicc.unwrap_or(f64::INFINITY);
+                    k(a.1).total_cmp(&k(b.1))
+                })
+        });
     let Some((model, fit)) = chosen else {
         out.notes
             .push("no model could be fitted and chosen".to_string());

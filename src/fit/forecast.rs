@@ -12,7 +12,8 @@
 //! model, it follows the geometry of the curve (no symmetric ± around x*), and it is
 //! searched only from the newest cycle on, so it never starts before the data end and never
 //! reaches negative x. When the lower confidence band never reaches the criterion the upper
-//! end is unbounded. Its coverage is checked by seeded simulation (tests/fit_states.rs,
+//! end is unbounded, and the interval stated is the one-sided [lower, ∞) at the same
+//! confidence (its lower end from the one-sided t quantile). Its coverage is checked by seeded simulation (tests/fit_states.rs,
 //! tests/fit_averaging.rs, tests/fit_coverage.rs).
 //!
 //! A forecast is only offered when the loss over the observed cycles, y(x_first) −
@@ -455,9 +456,11 @@ pub fn forecast_with(
         fc.why_not = Some(NotReachedWhy::SlopeWrongSign);
         return fc;
     }
+    // An interval open above is the one-sided interval [lower, ∞) at the confidence.
+    let t1 = t_one_sided(confidence, dof);
     if !significant {
         fc.status = ForecastStatus::NoSignificantTrend;
-        fc.lower = t.and_then(lower_of);
+        fc.lower = t1.and_then(lower_of);
         return fc;
     }
     let xs = match search_after(&h, x_last, span) {
@@ -496,6 +499,9 @@ pub fn forecast_with(
     }
     if fc.lower.is_none() || fc.upper.is_none() {
         fc.status = ForecastStatus::UnboundedInterval;
+        if fc.upper.is_none() {
+            fc.lower = t1.and_then(lower_of).map(|l| l.min(xs));
+        }
     }
     fc
 }

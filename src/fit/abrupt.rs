@@ -269,7 +269,7 @@ fn fit_shift_at(
 }
 
 /// The best level-shift model (lowest AICc) over the trends linear, first and second order
-/// and the change at index `at_guess` − 1, `at_guess` or `at_guess` + 1.
+/// and the change at an index within two of `at_guess`.
 pub fn fit_level_shift(
     x: &[f64],
     y: &[f64],
@@ -279,7 +279,7 @@ pub fn fit_level_shift(
 ) -> Option<LevelShift> {
     let mut best: Option<LevelShift> = None;
     for base in [ModelId::Linear, ModelId::FirstOrder, ModelId::SecondOrder] {
-        for at in at_guess.saturating_sub(1)..=at_guess + 1 {
+        for at in at_guess.saturating_sub(2)..=at_guess + 2 {
             if at < 2 || at >= x.len() {
                 continue;
             }
@@ -320,6 +320,9 @@ pub struct Monitoring {
 
 /// Cycles in the first baseline before monitoring starts.
 pub const MIN_BASELINE: usize = 5;
+
+/// Cycles at the start of a CUSUM excursion kept out of the recursive baseline.
+pub const EXCURSION_HELD: usize = 2;
 
 /// Level of the one-sided predictive test of the cycles since a suspected change. Strict,
 /// because it is applied at every cycle of every excursion of the CUSUM.
@@ -461,7 +464,13 @@ pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
     for i in MIN_BASELINE..n {
         let zi = match frozen {
             Some((_, b)) => to_z(b.p_one(x[i], y[i])),
-            None => to_z(Baseline::fit(&x[..i], &y[..i])?.p_one(x[i], y[i])),
+            None => {
+                // The first cycles of an excursion stay out of the baseline, so a step is
+                // not half absorbed before the CUSUM has seen it twice.
+                let young = s > 0.0 && i - (last_zero + 1) < EXCURSION_HELD;
+                let end = if young { last_zero + 1 } else { i };
+                to_z(Baseline::fit(&x[..end], &y[..end])?.p_one(x[i], y[i]))
+            }
         };
         z[i] = zi;
         s = (s - zi - k).max(0.0);
@@ -488,6 +497,7 @@ pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
             if s > h || shift {
                 first_alarm.get_or_insert(i);
                 frozen = Some((tau, base));
+                last_zero = tau - 1;
                 s = 0.0;
                 for j in tau..=i {
                     z[j] = to_z(base.p_one(x[j], y[j]));

@@ -269,7 +269,7 @@ fn fit_shift_at(
 }
 
 /// The best level-shift model (lowest AICc) over the trends linear, first and second order
-/// and the change at an index within two of `at_guess`.
+/// and the change at index `at_guess` − 1, `at_guess` or `at_guess` + 1.
 pub fn fit_level_shift(
     x: &[f64],
     y: &[f64],
@@ -279,7 +279,7 @@ pub fn fit_level_shift(
 ) -> Option<LevelShift> {
     let mut best: Option<LevelShift> = None;
     for base in [ModelId::Linear, ModelId::FirstOrder, ModelId::SecondOrder] {
-        for at in at_guess.saturating_sub(2)..=at_guess + 2 {
+        for at in at_guess.saturating_sub(1)..=at_guess + 1 {
             if at < 2 || at >= x.len() {
                 continue;
             }

@@ -353,7 +353,11 @@ fn fit_candidates(
                     start,
                     ..opts.clone()
                 };
-                fit_model(m, x, y, &o).ok().filter(|f| f.converged)
+                // A warm start that ends on a bound has found the constrained optimum:
+                // the grid would only find it again, slowly.
+                fit_model(m, x, y, &o)
+                    .ok()
+                    .filter(|f| f.converged || at_bound(f, &bounds))
             });
             match warm {
                 Some(f) => Ok(f),
@@ -646,7 +650,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     };
     if let Some(avg) = &avg {
         let tl = tx.last().copied().unwrap_or(x_last);
-        out.weights = avg.weights(opts.confidence, tx[0], tl);
+        out.weights = avg.weights(tx[0], tl);
     }
     let (ranking, chosen_idx) = rank(trend_fits, &out.weights);
     out.ranking = ranking;

@@ -93,9 +93,9 @@ impl<'a> Averaged<'a> {
         })
     }
 
-    /// The weights, with each model's own forecast crossing ahead of `x_last` (None when that
-    /// model alone offers none).
-    pub fn weights(&self, confidence: f64, x_first: f64, x_last: f64) -> Vec<ModelWeight> {
+    /// The weights, with each model's own crossing of the criterion after `x_last` (None
+    /// when that model's curve does not cross there).
+    pub fn weights(&self, x_first: f64, x_last: f64) -> Vec<ModelWeight> {
         let best = self
             .members
             .iter()
@@ -103,22 +103,12 @@ impl<'a> Averaged<'a> {
             .fold(f64::INFINITY, f64::min);
         self.members
             .iter()
-            .map(|(w, d)| {
-                let fc = super::forecast::forecast_with(
-                    d,
-                    d.threshold,
-                    confidence,
-                    d.fit.dof,
-                    x_first,
-                    x_last,
-                );
-                ModelWeight {
-                    model: d.fit.model,
-                    aicc: d.fit.aicc.unwrap_or(f64::NAN),
-                    delta_aicc: d.fit.aicc.map_or(f64::NAN, |a| a - best),
-                    weight: *w,
-                    crossing: fc.x,
-                }
+            .map(|(w, d)| ModelWeight {
+                model: d.fit.model,
+                aicc: d.fit.aicc.unwrap_or(f64::NAN),
+                delta_aicc: d.fit.aicc.map_or(f64::NAN, |a| a - best),
+                weight: *w,
+                crossing: super::forecast::crossing_after(d, x_first, x_last),
             })
             .collect()
     }
@@ -166,6 +156,19 @@ fn member_value(d: &FitDecision<'_>, x: f64) -> f64 {
 }
 
 impl Decision for Averaged<'_> {
+    fn value(&self, x: f64) -> f64 {
+        self.members
+            .iter()
+            .map(|(w, d)| {
+                let v = d.value(x);
+                if v.is_nan() && d.fit.model == ModelId::Power {
+                    w * -d.threshold
+                } else {
+                    w * v
+                }
+            })
+            .sum()
+    }
     fn at(&self, x: f64) -> (f64, f64) {
         let mut buf = [(0.0, 0.0, 0.0); 8];
         let n = self.members.len().min(8);

@@ -183,11 +183,12 @@ pub fn t_one_sided(confidence: f64, dof: usize) -> Option<f64> {
     t_quantile(2.0 * confidence - 1.0, dof)
 }
 
-/// First root of h in [a, b] given h(a) > 0 ≥ h(b), by bisection to full precision.
+/// First root of h in [a, b] given h(a) > 0 ≥ h(b), by bisection to 10⁻¹² relative
+/// (far below any meaning a cycle number has).
 fn bisect(h: impl Fn(f64) -> f64, mut a: f64, mut b: f64) -> f64 {
     for _ in 0..200 {
         let m = 0.5 * (a + b);
-        if m <= a || m >= b {
+        if m <= a || m >= b || b - a <= 1e-12 * (1.0 + a.abs()) {
             break;
         }
         if h(m) > 0.0 {
@@ -264,6 +265,10 @@ fn first_crossing_within(h: &impl Fn(f64) -> f64, lo: f64, hi: f64) -> Option<f6
 pub trait Decision {
     /// (h(x), sd of h(x)); sd NaN when unknown.
     fn at(&self, x: f64) -> (f64, f64);
+    /// h(x) alone.
+    fn value(&self, x: f64) -> f64 {
+        self.at(x).0
+    }
     /// Fitted loss y(a) − y(b) and its standard deviation.
     fn loss(&self, a: f64, b: f64) -> (f64, f64);
     /// The fitted curve's slope at x (for the reason a crossing is not reached).
@@ -309,6 +314,9 @@ fn sd_of(cov: &[Vec<f64>], g: &[f64]) -> f64 {
 }
 
 impl Decision for FitDecision<'_> {
+    fn value(&self, x: f64) -> f64 {
+        self.fit.predict(x) - self.threshold
+    }
     fn at(&self, x: f64) -> (f64, f64) {
         let v = self.fit.predict(x) - self.threshold;
         let np = self.fit.params.len();
@@ -346,6 +354,24 @@ impl Decision for FitDecision<'_> {
     }
     fn asymptote(&self) -> Option<f64> {
         self.fit.model.asymptote(&self.fit.params)
+    }
+}
+
+/// The point crossing of `d` after `x_last` (h(x_last) > 0), ignoring the interval and the
+/// significance of the loss; None when there is none.
+pub fn crossing_after(d: &dyn Decision, x_first: f64, x_last: f64) -> Option<f64> {
+    let h = |x: f64| d.value(x);
+    if !(h(x_last) > 0.0) {
+        return None;
+    }
+    let span = if x_last > x_first {
+        x_last - x_first
+    } else {
+        1.0
+    };
+    match search_after(&h, x_last, span) {
+        Search::Crossed(x) => Some(x),
+        _ => None,
     }
 }
 
@@ -414,7 +440,7 @@ pub fn forecast_with(
     } else {
         1.0
     };
-    let h = |x: f64| d.at(x).0;
+    let h = |x: f64| d.value(x);
     // Significance of the loss over the observed cycles (one-sided test).
     let (loss, loss_sd) = d.loss(x_first, x_last);
     fc.loss = loss.is_finite().then_some(loss);

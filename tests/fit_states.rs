@@ -53,8 +53,9 @@ fn flat_lots_get_no_crossing_ahead() {
     }
     eprintln!("flat lots: ahead {ahead}, ahead within 10 cycles {ahead_soon}, no trend {no_trend}");
     assert_eq!(ahead_soon, 0);
+    // A one-sided test at 90 % calls about 10 % of stable lots falling and 10 % rising.
     assert!(
-        no_trend >= 850,
+        no_trend >= 750,
         "no significant trend in only {no_trend} of 1000"
     );
 }

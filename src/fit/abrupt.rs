@@ -1,9 +1,9 @@
 //! Abrupt loss of activity (poisoning, a bad feed lot), as opposed to the slow trend.
 //!
 //! Monitoring ([`monitor`]): each cycle, from the sixth on, is predicted one step ahead
-//! from an in-control baseline, a first-order decay fitted on the log scale (ordinary least
-//! squares of ln y on x; exact for first order, and any smooth decay is close to it over
-//! a baseline window; a straight line on y when some y ≤ 0). Its Student-t standardised
+//! from an in-control baseline, a straight line fitted by least squares either to ln y
+//! (first-order decay, exact for it) or to y (linear decay), whichever leaves the smaller
+//! residual sum of squares in y on the baseline cycles (only y when some y ≤ 0). Its Student-t standardised
 //! prediction error is mapped to a standard normal score (as in the self-starting CUSUM of
 //! Hawkins, 1987, recalled from memory) and fed to Page's one-sided
 //! downward CUSUM, S_i = max(0, S_{i−1} − z_i − k) (Page, "Continuous inspection
@@ -18,7 +18,8 @@
 //! long as the new level lasts; it clears only when S returns to zero.
 //!
 //! The CUSUM needs a few cycles to accumulate a step; so that a large step is not absorbed
-//! into the recursive baseline meanwhile, the cycles of the current CUSUM excursion are
+//! into the recursive baseline meanwhile, the first [`EXCURSION_HELD`] cycles of an
+//! excursion (S > 0) are kept out of the baseline, and the cycles of the excursion are
 //! also tested together against the baseline before them (Chow's predictive test,
 //! one-sided at [`SHIFT_ALPHA`], every start within the excursion tried, Bonferroni
 //! corrected); either signal freezes the baseline. At the newest cycle a change
@@ -269,7 +270,7 @@ fn fit_shift_at(
 }
 
 /// The best level-shift model (lowest AICc) over the trends linear, first and second order
-/// and the change at index `at_guess` − 1, `at_guess` or `at_guess` + 1.
+/// and the change at an index within two of `at_guess`.
 pub fn fit_level_shift(
     x: &[f64],
     y: &[f64],
@@ -279,8 +280,9 @@ pub fn fit_level_shift(
 ) -> Option<LevelShift> {
     let mut best: Option<LevelShift> = None;
     for base in [ModelId::Linear, ModelId::FirstOrder, ModelId::SecondOrder] {
-        for at in at_guess.saturating_sub(1)..=at_guess + 1 {
-            if at < 2 || at >= x.len() {
+        for at in at_guess.saturating_sub(2)..=at_guess + 2 {
+            // The trend before the change needs cycles of its own (n > p + 1).
+            if at < MIN_BASELINE - 1 || at >= x.len() {
                 continue;
             }
             // Start from the trend of the cycles before the change.
@@ -328,8 +330,6 @@ pub const EXCURSION_HELD: usize = 2;
 /// because it is applied at every cycle of every excursion of the CUSUM.
 pub const SHIFT_ALPHA: f64 = 0.001;
 
-const USE_LOG_SCALE: bool = true;
-
 /// A straight line fitted to the baseline, on the log scale (first-order decay) or on y.
 #[derive(Debug, Clone, Copy)]
 struct Baseline {
@@ -373,7 +373,7 @@ impl Baseline {
             sxx,
             n,
         };
-        if USE_LOG_SCALE && y.iter().all(|&v| v > 0.0) {
+        if y.iter().all(|&v| v > 0.0) {
             let (a2, b2) = line(&|i| y[i].ln());
             let rss_y: f64 = (0..n)
                 .map(|i| (y[i] - (a2 + b2 * x[i]).exp()).powi(2))
@@ -481,19 +481,17 @@ pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
         } else if frozen.is_none() {
             // The change may start anywhere in the excursion: each start is tested, with
             // a Bonferroni correction for their number.
-            let mut tau = last_zero + 1;
-            let mut base = Baseline::fit(&x[..tau], &y[..tau])?;
-            let starts = (i + 1 - tau) as f64;
-            let mut shift = false;
-            for t0 in tau..=i {
-                let Some(b) = Baseline::fit(&x[..t0], &y[..t0]) else {
-                    continue;
-                };
-                if b.p_shift(&x[t0..=i], &y[t0..=i]) * starts < SHIFT_ALPHA {
-                    (tau, base, shift) = (t0, b, true);
-                    break;
-                }
-            }
+            let first = last_zero + 1;
+            let starts = (i + 1 - first) as f64;
+            let found = (first..=i).find_map(|t0| {
+                let b = Baseline::fit(&x[..t0], &y[..t0])?;
+                (b.p_shift(&x[t0..=i], &y[t0..=i]) * starts < SHIFT_ALPHA).then_some((t0, b))
+            });
+            let shift = found.is_some();
+            let (tau, base) = match found {
+                Some(f) => f,
+                None => (first, Baseline::fit(&x[..first], &y[..first])?),
+            };
             if s > h || shift {
                 first_alarm.get_or_insert(i);
                 frozen = Some((tau, base));

@@ -213,59 +213,12 @@ fn at_bound(f: &FitResult, bounds: &[(String, f64, f64)]) -> bool {
     !bounds.is_empty() && (hit || inverted)
 }
 
-/// The fit with the parameters that sit on a bound held fixed there: their rows and
-/// columns of the covariance are conditioned away (Σ_ff − Σ_fb·Σ_bb⁻¹·Σ_bf), s² uses
-/// n − (free parameters) degrees of freedom. This is the constrained optimum's own
-/// covariance; None when there is no covariance or nothing is free.
-fn held_at_bounds(f: &FitResult, bounds: &[(String, f64, f64)]) -> Option<FitResult> {
-    let cov = f.covariance.as_ref()?;
-    let np = f.params.len();
-    let on = |v: f64, b: f64| b.is_finite() && (v - b).abs() <= 1e-9 * (1.0 + b.abs());
-    let fixed: Vec<bool> = (0..np)
-        .map(|j| {
-            bounds.iter().any(|(name, lo, hi)| {
-                f.param_names[j] == *name && (on(f.params[j], *lo) || on(f.params[j], *hi))
-            })
-        })
-        .collect();
-    let nb = fixed.iter().filter(|b| **b).count();
-    let nfree = np - nb;
-    if nb == 0 || nfree == 0 || f.n <= nfree {
-        return None;
-    }
-    let bidx: Vec<usize> = (0..np).filter(|&j| fixed[j]).collect();
-    let mut sbb = nalgebra::DMatrix::<f64>::zeros(nb, nb);
-    for (a, &i) in bidx.iter().enumerate() {
-        for (b, &j) in bidx.iter().enumerate() {
-            sbb[(a, b)] = cov[i][j];
-        }
-    }
-    let inv = sbb.try_inverse()?;
-    let scale = (f.n - np) as f64 / (f.n - nfree) as f64;
-    let mut c = vec![vec![0.0; np]; np];
-    for i in 0..np {
-        for j in 0..np {
-            if fixed[i] || fixed[j] {
-                continue;
-            }
-            let mut v = cov[i][j];
-            for (a, &bi) in bidx.iter().enumerate() {
-                for (b, &bj) in bidx.iter().enumerate() {
-                    v -= cov[i][bi] * inv[(a, b)] * cov[bj][j];
-                }
-            }
-            c[i][j] = v * scale;
-        }
-    }
-    if (0..np).any(|j| !fixed[j] && !(c[j][j] >= 0.0 && c[j][j].is_finite())) {
-        return None;
-    }
-    let mut g = f.clone();
-    g.std_errors = Some((0..np).map(|j| c[j][j].sqrt()).collect());
-    g.covariance = Some(c);
-    g.dof = f.n - nfree;
-    g.sigma = Some((f.rss / g.dof as f64).sqrt());
-    Some(g)
+/// A fit that ends on a physical bound, for use when no interior fit exists: it keeps the
+/// covariance of the unconstrained problem at that point, which still carries the bounded
+/// parameter's uncertainty (holding that parameter fixed instead gave intervals far too
+/// narrow in simulation). None without a covariance.
+fn held_at_bounds(f: &FitResult) -> Option<FitResult> {
+    f.covariance.as_ref().map(|_| f.clone())
 }
 
 /// A start for `model` from the optimum of a simpler model it contains, when one was
@@ -377,9 +330,7 @@ fn fit_candidates(
         }
         let at_bound = r.as_ref().is_ok_and(|f| at_bound(f, &bounds));
         let held = match &r {
-            Ok(f) if at_bound && f.params.iter().all(|v| v.is_finite()) => {
-                held_at_bounds(f, &bounds)
-            }
+            Ok(f) if at_bound && f.params.iter().all(|v| v.is_finite()) => held_at_bounds(f),
             _ => None,
         };
         fits.push(Fitted {

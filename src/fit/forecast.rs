@@ -13,7 +13,9 @@
 //! searched only from the newest cycle on, so it never starts before the data end and never
 //! reaches negative x. When the lower confidence band never reaches the criterion the upper
 //! end is unbounded, and the interval stated is the one-sided [lower, ∞) at the same
-//! confidence (its lower end from the one-sided t quantile). Its coverage is checked by seeded simulation (tests/fit_states.rs,
+//! confidence (its lower end from the one-sided t quantile). A criterion never reached
+//! under the fitted curve may still carry such a lower limit: the earliest crossing the
+//! data do not exclude. Its coverage is checked by seeded simulation (tests/fit_states.rs,
 //! tests/fit_averaging.rs, tests/fit_coverage.rs).
 //!
 //! A forecast is only offered when the loss over the observed cycles, y(x_first) −
@@ -361,7 +363,7 @@ impl Decision for FitDecision<'_> {
 /// significance of the loss; None when there is none.
 pub fn crossing_after(d: &dyn Decision, x_first: f64, x_last: f64) -> Option<f64> {
     let h = |x: f64| d.value(x);
-    if !(h(x_last) > 0.0) {
+    if h(x_last).is_nan() || h(x_last) <= 0.0 {
         return None;
     }
     let span = if x_last > x_first {
@@ -492,6 +494,9 @@ pub fn forecast_with(
     let xs = match search_after(&h, x_last, span) {
         Search::Crossed(x) => x,
         other => {
+            // The fitted curve stays above, but the data may not exclude a crossing: the
+            // confidence set is then [lower, ∞) (with "never" in it).
+            fc.lower = t1.and_then(lower_of);
             let slope = d.slope(x_last);
             fc.why_not = Some(if other == Search::Ends {
                 NotReachedWhy::CurveEnds

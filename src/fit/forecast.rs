@@ -460,6 +460,30 @@ pub fn forecast_with(
         } else {
             first_crossing_within(&h, start, x_last)
         };
+        // The interval of a crossing already past: the same band inversion, over the data.
+        if let (Some(xs), Some(t)) = (fc.x, t) {
+            let lo = |x: f64| {
+                let (v, sd) = d.at(x);
+                v - t * sd
+            };
+            let hi = |x: f64| {
+                let (v, sd) = d.at(x);
+                v + t * sd
+            };
+            fc.lower = if lo(start) <= 0.0 {
+                Some(start)
+            } else {
+                first_crossing_within(&lo, start, xs).or(Some(xs))
+            };
+            fc.upper = if hi(xs) <= 0.0 {
+                Some(xs)
+            } else {
+                match search_after(&hi, xs, span) {
+                    Search::Crossed(x) => Some(x),
+                    _ => None,
+                }
+            };
+        }
         return fc;
     }
     // Lower end: the first x ≥ x_last where the lower band reaches the criterion.

@@ -148,7 +148,7 @@ fn empty_and_non_finite_reports_still_render() {
         fit.curve.iter_mut().for_each(|p| p.x = f64::INFINITY);
         fit.band.clear();
         fit.forecast = Some(Forecast {
-            status: ForecastStatus::CrossesUnbounded,
+            status: ForecastStatus::UnboundedInterval,
             x: Some(f64::NAN),
             lower: None,
             upper: None,
@@ -165,7 +165,7 @@ fn empty_and_non_finite_reports_still_render() {
         fit.observed[3].y = f64::NAN;
         fit.curve.iter_mut().for_each(|p| p.y = f64::INFINITY);
         fit.forecast = Some(Forecast {
-            status: ForecastStatus::CrossesUnbounded,
+            status: ForecastStatus::UnboundedInterval,
             x: Some(15.0),
             lower: Some(12.0),
             upper: None,

@@ -234,7 +234,7 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
             .collect(),
         threshold: Some(THRESHOLD),
         forecast: Some(Forecast {
-            status: ForecastStatus::Crosses,
+            status: ForecastStatus::Ahead,
             x: Some(xs),
             lower: Some(lo),
             upper: Some(hi),

@@ -54,13 +54,15 @@ fn forecast_summary(s: &LotSnapshot) -> String {
     match f.status {
         ForecastStatus::ReachedAlready => "criterion already reached".into(),
         ForecastStatus::NotReached => "criterion never reached (model)".into(),
-        ForecastStatus::Crossing => format!(
+        ForecastStatus::Ahead => format!(
             "crossing at cycle {} ({} to {})",
             num(f.x),
             num(f.lower),
             num(f.upper)
         ),
-        ForecastStatus::Unbounded => format!("crossing at cycle {} (unbounded)", num(f.x)),
+        ForecastStatus::UnboundedInterval => format!("crossing at cycle {} (unbounded)", num(f.x)),
+        ForecastStatus::NoSignificantTrend => "no significant loss of activity".into(),
+        ForecastStatus::Withheld => "forecast withheld after a step change".into(),
     }
 }
 

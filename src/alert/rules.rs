@@ -8,19 +8,7 @@ use std::fmt::{self, Write as _};
 use serde::Deserialize;
 
 use super::schedule::DigestSchedule;
-
-/// Where a forecast of the replacement cycle stands.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum ForecastStatus {
-    /// The fitted curve is already below the criterion at the current cycle.
-    ReachedAlready,
-    /// The curve crosses the criterion at `x`, with a finite interval.
-    Crossing,
-    /// Under the fitted model the criterion is never reached.
-    NotReached,
-    /// A crossing estimate exists but its interval is unbounded (too little evidence).
-    Unbounded,
-}
+pub use crate::model::ForecastStatus;
 
 /// The replacement forecast from the model chosen for the lot.
 #[derive(Debug, Clone, PartialEq)]
@@ -641,7 +629,18 @@ fn forecast_rule(
             text.push_str("The fitted curve is already below the criterion.\n");
             return (Some(Severity::Critical), text);
         }
-        ForecastStatus::Crossing | ForecastStatus::Unbounded => fc.x,
+        ForecastStatus::NoSignificantTrend => {
+            text.push_str("The loss of activity is not significant: no replacement is forecast.\n");
+            return (None, text);
+        }
+        ForecastStatus::Withheld => {
+            text.push_str(
+                "The trend forecast is withheld after a step change until the new level has \
+                 enough cycles.\n",
+            );
+            return (None, text);
+        }
+        ForecastStatus::Ahead | ForecastStatus::UnboundedInterval => fc.x,
     };
     let Some(x) = crossing.filter(|v| v.is_finite()) else {
         text.push_str("No crossing estimate is available.\n");
@@ -661,7 +660,13 @@ fn forecast_rule(
         ForecastBound::Estimate => Some(x),
         ForecastBound::Upper => fc.upper,
     };
+    let done = f64::from(snap.cycles_done);
     let bound = match chosen.filter(|v| v.is_finite()) {
+        // An alert never rests on an interval end in the past.
+        Some(v) if v < done => {
+            text.push_str("The chosen bound lies before the newest cycle; the estimate is used.\n");
+            x.max(done)
+        }
         Some(v) => v,
         None => {
             text.push_str("The chosen bound is unbounded; the estimate is used instead.\n");
@@ -695,7 +700,7 @@ fn forecast_rule(
         );
         within |= days_left <= days;
     }
-    if fc.status == ForecastStatus::Unbounded {
+    if fc.status == ForecastStatus::UnboundedInterval {
         text.push_str("The interval is unbounded: the forecast is uncertain.\n");
     }
     let sev = if ahead <= 1.0 {
@@ -767,12 +772,7 @@ mod tests {
     fn forecast_within_lead_uses_lower_bound() {
         let mut s = snapshot();
         // estimate 10 (4 ahead, outside lead 3), lower 8.5 (2.5 ahead, inside).
-        s.forecast = Some(forecast(
-            ForecastStatus::Crossing,
-            10.0,
-            Some(8.5),
-            Some(12.0),
-        ));
+        s.forecast = Some(forecast(ForecastStatus::Ahead, 10.0, Some(8.5), Some(12.0)));
         let a = evaluate(&s, &rules());
         let f = only(&a, RuleId::ReplacementForecast);
         assert_eq!(f.state, AlertState::Open);
@@ -793,7 +793,7 @@ mod tests {
     #[test]
     fn forecast_lead_in_days_and_critical_when_next_cycle() {
         let mut s = snapshot();
-        let mut fc = forecast(ForecastStatus::Crossing, 16.0, Some(14.0), Some(18.0));
+        let mut fc = forecast(ForecastStatus::Ahead, 16.0, Some(14.0), Some(18.0));
         fc.cycles_per_day = Some(1.0);
         s.forecast = Some(fc);
         let mut r = rules();
@@ -806,12 +806,7 @@ mod tests {
             only(&evaluate(&s, &r), RuleId::ReplacementForecast).state,
             AlertState::Open
         );
-        s.forecast = Some(forecast(
-            ForecastStatus::Crossing,
-            7.5,
-            Some(6.5),
-            Some(9.0),
-        ));
+        s.forecast = Some(forecast(ForecastStatus::Ahead, 7.5, Some(6.5), Some(9.0)));
         let a = evaluate(&s, &rules());
         assert_eq!(
             only(&a, RuleId::ReplacementForecast).severity,
@@ -835,7 +830,7 @@ mod tests {
         let f = only(&a, RuleId::ReplacementForecast);
         assert_eq!(f.state, AlertState::Cleared);
         assert!(f.evidence.contains("never reached"));
-        s.forecast = Some(forecast(ForecastStatus::Unbounded, 8.0, None, None));
+        s.forecast = Some(forecast(ForecastStatus::UnboundedInterval, 8.0, None, None));
         let a = evaluate(&s, &rules());
         let f = only(&a, RuleId::ReplacementForecast);
         assert_eq!(f.state, AlertState::Open);

@@ -98,8 +98,12 @@ fn series(file: &std::path::Path, a: &FitArgs) -> CmdResult {
             let Some(f) = &an.fit else { return Ok(1) };
             if a.json {
                 let mut v = fit::fit_json(f, a.threshold.and(an.forecast.as_ref()));
-                if let serde_json::Value::Object(m) = &mut v {
-                    m.insert("ranking".into(), serde_json::to_value(&an.ranking)?);
+                if let (serde_json::Value::Object(m), serde_json::Value::Object(extra)) =
+                    (&mut v, fit::analysis_json(&an))
+                {
+                    for (k, val) in extra.into_iter().filter(|(k, _)| k != "forecast") {
+                        m.entry(k).or_insert(val);
+                    }
                 }
                 println!("{}", serde_json::to_string_pretty(&v)?);
             } else {

@@ -1,5 +1,19 @@
-//! One call for the shell: every candidate model fitted and ranked, the chosen one's
-//! forecast, the abrupt-loss checks, the economics and the plot data of a lot.
+//! One call for the shell: every candidate model fitted and ranked, the model-averaged
+//! forecast, the step-change monitoring, the next batch, the economics and the plot data
+//! of a lot.
+//!
+//! Order of the work: the cycles are monitored for a step change first ([`super::abrupt`]).
+//! When the CUSUM signals and a level-shift model beats every single-regime model by AICc,
+//! the lot's trend (the ranking, the chosen fit, the fresh activity and so a
+//! fraction-of-fresh criterion) is fitted on the cycles before the change only; the
+//! forecast is withheld until the new level has [`MIN_NEW_LEVEL`] cycles, and then comes
+//! from the new level's own trend against the criterion anchored before the change.
+//! Otherwise every cycle is used. The forecast averages the usable candidates with Akaike
+//! weights ([`super::average`]); a single candidate gives its own forecast.
+//!
+//! Physical bounds hold by default (see [`physical_bounds`]); a fit that ends at a bound,
+//! or that did not converge, is shown as such, without ΔAICc or weight, and is never
+//! chosen nor averaged.
 //!
 //! Censored points (conversion at saturation, so the activity is only a lower bound) are
 //! left out of the least-squares fit, which assumes exact values; they are counted, and the
@@ -8,11 +22,14 @@
 
 use serde::{Deserialize, Serialize};
 
-use super::abrupt::{AbruptLoss, cusum_down, prediction_check};
+use super::abrupt::{AbruptLoss, LevelShift, fit_level_shift, monitor, prediction_check};
+use super::average::{Averaged, ModelWeight, NextCycle};
 use super::choice::{Candidate, choose};
 use super::economics::{EconomicInputs, EconomicResult, economic_replacement};
 use super::engine::{FitOptions, FitResult, fit_model};
-use super::forecast::{Criterion, Forecast, ForecastStatus, forecast, lifetime_ton, t_quantile};
+use super::forecast::{
+    Criterion, Forecast, ForecastStatus, forecast_with, lifetime_ton, t_quantile,
+};
 use super::lm::LmOptions;
 use super::models::ModelId;
 
@@ -50,6 +67,13 @@ pub struct AnalysisOptions {
     pub grid_points: usize,
     /// Iteration limit per candidate fit.
     pub max_iterations: usize,
+    /// Hold the physical bounds of [`physical_bounds`] (the default).
+    #[serde(default = "yes")]
+    pub physical_bounds: bool,
+}
+
+fn yes() -> bool {
+    true
 }
 
 impl Default for AnalysisOptions {
@@ -64,6 +88,7 @@ impl Default for AnalysisOptions {
             economics: None,
             grid_points: 80,
             max_iterations: 200,
+            physical_bounds: true,
         }
     }
 }
@@ -86,6 +111,12 @@ pub struct RankEntry {
     /// AICc minus the lowest AICc.
     pub delta_aicc: Option<f64>,
     pub converged: bool,
+    /// A parameter ended at a physical bound (or a_inf above a0).
+    #[serde(default)]
+    pub at_bound: bool,
+    /// Akaike weight in the averaged forecast (None: not averaged).
+    #[serde(default)]
+    pub weight: Option<f64>,
     /// Why the model was not usable, when it was not.
     pub why_not: Option<String>,
     pub chosen: bool,
@@ -129,6 +160,65 @@ pub struct LotAnalysis {
     pub observed: Vec<(f64, f64, bool)>,
     /// Plain-words remarks (points dropped, nothing fitted, ...).
     pub notes: Vec<String>,
+    /// The averaged models and their Akaike weights, heaviest first.
+    #[serde(default)]
+    pub weights: Vec<ModelWeight>,
+    /// The next cycle's predicted activity against the criterion.
+    #[serde(default)]
+    pub next_cycle: Option<NextCycle>,
+    /// Cycles the lot's trend was fitted on (all fitted cycles, or those before a change).
+    #[serde(default)]
+    pub trend_cycles: usize,
+}
+
+/// Cycles of a new level after a step change before its own trend is fitted and a
+/// forecast offered again (a two-parameter trend with two degrees of freedom left).
+pub const MIN_NEW_LEVEL: usize = 4;
+
+/// The documented range of the power-law order m: from zero order (a straight fall to
+/// zero, m = 0) to m = 5, beyond which a catalyst's deactivation order is not physical.
+pub const POWER_M_RANGE: (f64, f64) = (0.0, 5.0);
+
+/// Physical bounds by parameter name: rates (kd) ≥ 0, activities a0, a_inf, ton_max ≥ 0,
+/// the power-law order m in [`POWER_M_RANGE`]; a_inf ≤ a0 is checked after the fit. The
+/// straight line is left free (a rising line is how a stable lot shows), and so are two
+/// sites, whose edges variable projection recognises as degenerate fits.
+pub fn physical_bounds(m: ModelId) -> Vec<(String, f64, f64)> {
+    let inf = f64::INFINITY;
+    let b = |n: &str, lo: f64, hi: f64| (n.to_string(), lo, hi);
+    match m {
+        ModelId::Linear | ModelId::TwoSite => Vec::new(),
+        ModelId::FirstOrder | ModelId::SecondOrder => vec![b("a0", 0.0, inf), b("kd", 0.0, inf)],
+        ModelId::FirstOrderResidual => {
+            vec![b("a0", 0.0, inf), b("a_inf", 0.0, inf), b("kd", 0.0, inf)]
+        }
+        ModelId::Power => vec![
+            b("a0", 0.0, inf),
+            b("kd", 0.0, inf),
+            b("m", POWER_M_RANGE.0, POWER_M_RANGE.1),
+        ],
+        ModelId::Plateau => vec![b("ton_max", 0.0, inf), b("kd", 0.0, inf)],
+    }
+}
+
+/// Whether a fitted parameter sits on one of `bounds` (or a_inf exceeds a0).
+fn at_bound(f: &FitResult, bounds: &[(String, f64, f64)]) -> bool {
+    let on = |v: f64, b: f64| b.is_finite() && (v - b).abs() <= 1e-9 * (1.0 + b.abs());
+    let hit = bounds.iter().any(|(name, lo, hi)| {
+        f.param(name)
+            .is_some_and(|v| on(v, *lo) || on(v, *hi) || v < *lo || v > *hi)
+    });
+    let inverted = f.model == ModelId::FirstOrderResidual
+        && matches!((f.param("a0"), f.param("a_inf")), (Some(a0), Some(ai)) if ai > a0);
+    !bounds.is_empty() && (hit || inverted)
+}
+
+/// A fit that ends on a physical bound, for use when no interior fit exists: it keeps the
+/// covariance of the unconstrained problem at that point, which still carries the bounded
+/// parameter's uncertainty (holding that parameter fixed instead gave intervals far too
+/// narrow in simulation). None without a covariance.
+fn held_at_bounds(f: &FitResult) -> Option<FitResult> {
+    f.covariance.as_ref().map(|_| f.clone())
 }
 
 /// A start for `model` from the optimum of a simpler model it contains, when one was
@@ -136,25 +226,19 @@ pub struct LotAnalysis {
 /// from whichever of those fits the lot better (its RSS is the power law's there). None
 /// means the model's own start grid. The caller falls back to the grid when the warm
 /// start does not converge.
-fn warm_start(
-    model: ModelId,
-    fits: &[(ModelId, Result<FitResult, String>)],
-) -> Option<Vec<(String, f64)>> {
+fn warm_start(model: ModelId, fits: &[Fitted]) -> Option<Vec<(String, f64)>> {
     if model != ModelId::Power {
         return None;
     }
     let (f, m) = fits
         .iter()
-        .filter_map(|(id, r)| {
-            let order = match id {
+        .filter_map(|c| {
+            let order = match c.model {
                 ModelId::FirstOrder => 1.0,
                 ModelId::SecondOrder => 2.0,
                 _ => return None,
             };
-            r.as_ref()
-                .ok()
-                .filter(|f| f.converged && f.params.iter().all(|v| v.is_finite()))
-                .map(|f| (f, order))
+            c.usable_fit().map(|f| (f, order))
         })
         .min_by(|a, b| a.0.rss.total_cmp(&b.0.rss))?;
     Some(vec![
@@ -166,6 +250,218 @@ fn warm_start(
 
 fn finite_or_none(v: f64) -> Option<f64> {
     v.is_finite().then_some(v)
+}
+
+/// One candidate's fit.
+#[derive(Debug, Clone)]
+struct Fitted {
+    model: ModelId,
+    result: Result<FitResult, String>,
+    at_bound: bool,
+    /// For a fit at a bound: the fit with those parameters held there.
+    held: Option<FitResult>,
+}
+
+impl Fitted {
+    /// The fit when it may be chosen and averaged: converged, finite, off the bounds, with
+    /// an AICc.
+    fn usable_fit(&self) -> Option<&FitResult> {
+        self.result.as_ref().ok().filter(|f| {
+            f.converged
+                && !self.at_bound
+                && f.aicc.is_some()
+                && f.params.iter().all(|v| v.is_finite())
+        })
+    }
+}
+
+/// Fits every candidate to (x, y).
+fn fit_candidates(
+    x: &[f64],
+    y: &[f64],
+    candidates: &[ModelId],
+    fit_opts: &FitOptions,
+    bounded: bool,
+) -> Vec<Fitted> {
+    let mut fits: Vec<Fitted> = Vec::with_capacity(candidates.len());
+    for &m in candidates {
+        let bounds = if bounded {
+            physical_bounds(m)
+        } else {
+            Vec::new()
+        };
+        let opts = FitOptions {
+            bounds: bounds.clone(),
+            ..fit_opts.clone()
+        };
+        let r = if x.len() <= m.n_params() + 1 {
+            Err(format!(
+                "{} points are too few for {} parameters (AICc needs n > p + 1)",
+                x.len(),
+                m.n_params()
+            ))
+        } else {
+            let warm = warm_start(m, &fits).and_then(|start| {
+                let o = FitOptions {
+                    start,
+                    ..opts.clone()
+                };
+                // A warm start that ends on a bound has found the constrained optimum:
+                // the grid would only find it again, slowly.
+                fit_model(m, x, y, &o)
+                    .ok()
+                    .filter(|f| f.converged || at_bound(f, &bounds))
+            });
+            match warm {
+                Some(f) => Ok(f),
+                None => fit_model(m, x, y, &opts).map_err(|e| e.to_string()),
+            }
+        };
+        match &r {
+            Ok(f) if !f.converged => {
+                tracing::debug!(
+                    model = m.id(),
+                    reason = f.reason.describe(),
+                    "fit not converged"
+                )
+            }
+            Err(e) => tracing::debug!(model = m.id(), error = %e, "fit not attempted"),
+            _ => {}
+        }
+        let at_bound = r.as_ref().is_ok_and(|f| at_bound(f, &bounds));
+        let held = match &r {
+            Ok(f) if at_bound && f.params.iter().all(|v| v.is_finite()) => held_at_bounds(f),
+            _ => None,
+        };
+        fits.push(Fitted {
+            model: m,
+            result: r,
+            at_bound,
+            held,
+        });
+    }
+    fits
+}
+
+/// The ranking of `fits` and the index of the chosen one.
+fn rank(fits: &[Fitted], weights: &[ModelWeight]) -> (Vec<RankEntry>, Option<usize>) {
+    let cands: Vec<Candidate> = fits
+        .iter()
+        .map(|c| Candidate {
+            p: c.model.n_params(),
+            aicc: c.result.as_ref().ok().and_then(|f| f.aicc),
+            usable: c.usable_fit().is_some(),
+        })
+        .collect();
+    let chosen_idx = choose(&cands);
+    let best_aicc = cands
+        .iter()
+        .filter(|c| c.usable)
+        .filter_map(|c| c.aicc)
+        .min_by(|a, b| a.total_cmp(b));
+    let mut ranking = Vec::with_capacity(fits.len());
+    for (i, c) in fits.iter().enumerate() {
+        let usable = cands[i].usable;
+        let entry = match &c.result {
+            Ok(f) => RankEntry {
+                model: c.model,
+                params: f
+                    .param_names
+                    .iter()
+                    .enumerate()
+                    .map(|(j, name)| NamedValue {
+                        name: name.clone(),
+                        value: f.params[j],
+                        std_error: f.std_errors.as_ref().and_then(|s| finite_or_none(s[j])),
+                    })
+                    .collect(),
+                rss: finite_or_none(f.rss),
+                aicc: f.aicc,
+                delta_aicc: if usable {
+                    f.aicc.zip(best_aicc).map(|(a, b)| a - b)
+                } else {
+                    None
+                },
+                converged: f.converged,
+                at_bound: c.at_bound,
+                weight: weights
+                    .iter()
+                    .find(|w| w.model == c.model && usable)
+                    .map(|w| w.weight),
+                why_not: if !f.converged {
+                    Some(f.reason.describe().to_string())
+                } else if c.at_bound {
+                    Some("a parameter ended at its physical bound".to_string())
+                } else {
+                    None
+                },
+                chosen: chosen_idx == Some(i),
+            },
+            Err(e) => RankEntry {
+                model: c.model,
+                params: Vec::new(),
+                rss: None,
+                aicc: None,
+                delta_aicc: None,
+                converged: false,
+                at_bound: false,
+                weight: None,
+                why_not: Some(e.clone()),
+                chosen: false,
+            },
+        };
+        ranking.push(entry);
+    }
+    // Usable fits by AICc first; then the others, which never rank above them.
+    ranking.sort_by(|a, b| {
+        let key = |r: &RankEntry| (r.delta_aicc.is_none(), r.aicc.is_none());
+        key(a).cmp(&key(b)).then_with(|| match (a.aicc, b.aicc) {
+            (Some(x), Some(y)) => x.total_cmp(&y),
+            _ => std::cmp::Ordering::Equal,
+        })
+    });
+    (ranking, chosen_idx)
+}
+
+/// The step between cycles: the median of the last few differences of x (1 if unknown).
+fn cycle_step(x: &[f64]) -> f64 {
+    let mut d: Vec<f64> = x
+        .windows(2)
+        .rev()
+        .take(5)
+        .map(|w| w[1] - w[0])
+        .filter(|v| *v > 0.0)
+        .collect();
+    if d.is_empty() {
+        return 1.0;
+    }
+    d.sort_by(f64::total_cmp);
+    d[d.len() / 2]
+}
+
+/// The next cycle from an average.
+fn next_from_average(avg: &Averaged<'_>, x_next: f64, confidence: f64) -> Option<NextCycle> {
+    let (pred, se, s2) = avg.predict(x_next);
+    NextCycle::new(x_next, pred, se, s2, avg.t(confidence)?, avg.threshold)
+}
+
+/// The next cycle from a level-shift model.
+fn next_from_shift(
+    s: &LevelShift,
+    x_next: f64,
+    confidence: f64,
+    threshold: f64,
+) -> Option<NextCycle> {
+    let se = s.mean_variance(x_next)?.sqrt();
+    let s2 = s.sigma? * s.sigma?;
+    NextCycle::new(
+        x_next,
+        s.predict(x_next),
+        se,
+        s2,
+        t_quantile(confidence, s.dof)?,
+        threshold,
+    )
 }
 
 /// Analyses one lot. Never fails: what cannot be computed is absent, with a note.
@@ -216,7 +512,20 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         plot: None,
         observed: pts.iter().map(|p| (p.0, p.1, p.2)).collect(),
         notes,
+        weights: Vec::new(),
+        next_cycle: None,
+        trend_cycles: fx.len(),
     };
+
+    // The TON plateau describes cumulative TON, not activity: with activity models in the
+    // list it is not a candidate.
+    let mut candidates = opts.candidates.clone();
+    if candidates.contains(&ModelId::Plateau) && candidates.iter().any(|m| *m != ModelId::Plateau) {
+        candidates.retain(|m| *m != ModelId::Plateau);
+        out.notes.push(
+            "plateau (a cumulative-TON model) is not tried among the activity models".to_string(),
+        );
+    }
 
     // A lot's candidate that needs more than this is wandering along a degenerate valley
     // (e.g. two sites collapsing into one); it is reported as not converged instead.
@@ -232,114 +541,160 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         },
         ..FitOptions::default()
     };
-    let mut fits: Vec<(ModelId, Result<FitResult, String>)> = Vec::new();
-    for &m in &opts.candidates {
-        let r = if fx.len() <= m.n_params() + 1 {
-            Err(format!(
-                "{} points are too few for {} parameters (AICc needs n > p + 1)",
-                fx.len(),
-                m.n_params()
-            ))
-        } else {
-            let warm = warm_start(m, &fits).and_then(|start| {
-                let opts = FitOptions {
-                    start,
-                    ..fit_opts.clone()
-                };
-                fit_model(m, &fx, &fy, &opts).ok().filter(|f| f.converged)
-            });
-            match warm {
-                Some(f) => Ok(f),
-                None => fit_model(m, &fx, &fy, &fit_opts).map_err(|e| e.to_string()),
+    let bounded = opts.physical_bounds;
+
+    // 1. Monitoring for a step change, and the single-regime fits on every cycle.
+    let mon = monitor(&fx, &fy, opts.cusum_k, opts.cusum_h);
+    let all_fits = fit_candidates(&fx, &fy, &candidates, &fit_opts, bounded);
+    let suspected = mon.as_ref().is_some_and(|m| m.alarm);
+    let change_guess = mon.as_ref().and_then(|m| m.change_index);
+    let mut shift = None;
+    let mut change: Option<usize> = None;
+    if suspected && let Some(at) = change_guess {
+        let best_single = all_fits
+            .iter()
+            .filter_map(|c| c.usable_fit().and_then(|f| f.aicc))
+            .min_by(|a, b| a.total_cmp(b));
+        if let Some(mut s) = fit_level_shift(&fx, &fy, at, &fit_opts.lm, opts.confidence) {
+            s.delta_vs_single = s.aicc.zip(best_single).map(|(a, b)| a - b);
+            let wins = match (s.aicc, best_single) {
+                (Some(a), Some(b)) => a < b,
+                (Some(_), None) => true,
+                _ => false,
+            };
+            if wins && let Some(i) = fx.iter().position(|&x| x >= s.at) {
+                change = Some(i);
             }
-        };
-        match &r {
-            Ok(f) if !f.converged => {
-                tracing::debug!(
-                    model = m.id(),
-                    reason = f.reason.describe(),
-                    "fit not converged"
-                )
-            }
-            Err(e) => tracing::debug!(model = m.id(), error = %e, "fit not attempted"),
-            _ => {}
+            shift = Some(s);
         }
-        fits.push((m, r));
     }
-    let cands: Vec<Candidate> = fits
+
+    // 2. The lot's trend: every cycle, or the cycles before an accepted change.
+    let pre_fits;
+    let (trend_fits, tx) = match change {
+        Some(i) => {
+            pre_fits = fit_candidates(&fx[..i], &fy[..i], &candidates, &fit_opts, bounded);
+            (&pre_fits, &fx[..i])
+        }
+        None => (&all_fits, &fx[..]),
+    };
+    out.trend_cycles = tx.len();
+    let mut usable: Vec<&FitResult> = trend_fits
         .iter()
-        .map(|(m, r)| match r {
-            Ok(f) => Candidate {
-                p: m.n_params(),
-                aicc: f.aicc,
-                usable: f.converged && f.params.iter().all(|v| v.is_finite()),
-            },
-            Err(_) => Candidate {
-                p: m.n_params(),
-                aicc: None,
-                usable: false,
-            },
-        })
+        .filter_map(|c| c.usable_fit())
+        .filter(|f| f.covariance.is_some())
         .collect();
-    let chosen_idx = choose(&cands);
-    let best_aicc = cands
-        .iter()
-        .filter(|c| c.usable)
-        .filter_map(|c| c.aicc)
-        .min_by(|a, b| a.total_cmp(b));
-    for (i, (m, r)) in fits.iter().enumerate() {
-        let entry = match r {
-            Ok(f) => RankEntry {
-                model: *m,
-                params: f
-                    .param_names
-                    .iter()
-                    .enumerate()
-                    .map(|(j, name)| NamedValue {
-                        name: name.clone(),
-                        value: f.params[j],
-                        std_error: f.std_errors.as_ref().and_then(|s| finite_or_none(s[j])),
-                    })
-                    .collect(),
-                rss: finite_or_none(f.rss),
-                aicc: f.aicc,
-                delta_aicc: f.aicc.zip(best_aicc).map(|(a, b)| a - b),
-                converged: f.converged,
-                why_not: (!f.converged).then(|| f.reason.describe().to_string()),
-                chosen: chosen_idx == Some(i),
-            },
-            Err(e) => RankEntry {
-                model: *m,
-                params: Vec::new(),
-                rss: None,
-                aicc: None,
-                delta_aicc: None,
-                converged: false,
-                why_not: Some(e.clone()),
-                chosen: false,
-            },
-        };
-        out.ranking.push(entry);
+    if usable.is_empty() {
+        // No interior fit: the fits that end at a physical bound, held there.
+        usable = trend_fits.iter().filter_map(|c| c.held.as_ref()).collect();
+        if !usable.is_empty() {
+            out.notes.push(
+                "every fit ends at a physical bound; the forecast holds those parameters there"
+                    .to_string(),
+            );
+        }
     }
-    out.ranking.sort_by(|a, b| match (a.aicc, b.aicc) {
-        (Some(x), Some(y)) => x.total_cmp(&y),
-        (Some(_), None) => std::cmp::Ordering::Less,
-        (None, Some(_)) => std::cmp::Ordering::Greater,
-        (None, None) => std::cmp::Ordering::Equal,
-    });
-    let Some(ci) = chosen_idx else {
+    let avg = Averaged::new(&usable, opts.criterion);
+    let (x_first, x_last) = match (fx.first(), fx.last()) {
+        (Some(&a), Some(&b)) => (a, b),
+        _ => (0.0, 0.0),
+    };
+    if let Some(avg) = &avg {
+        let tl = tx.last().copied().unwrap_or(x_last);
+        out.weights = avg.weights(tx[0], tl);
+    }
+    let (ranking, chosen_idx) = rank(trend_fits, &out.weights);
+    out.ranking = ranking;
+    let chosen = chosen_idx
+        .and_then(|i| {
+            let c = &trend_fits[i];
+            c.result.as_ref().ok().map(|f| (c.model, f))
+        })
+        .or_else(|| {
+            trend_fits
+                .iter()
+                .filter_map(|c| c.held.as_ref().map(|f| (c.model, f)))
+                .min_by(|a, b| {
+                    let k = |f: &FitResult| f.aicc.unwrap_or(f64::INFINITY);
+                    k(a.1).total_cmp(&k(b.1))
+                })
+        });
+    let Some((model, fit)) = chosen else {
         out.notes
             .push("no model could be fitted and chosen".to_string());
+        out.abrupt = mon.map(|m| AbruptLoss {
+            prediction: None,
+            cusum: Some(m.cusum),
+            suspected,
+            change_at: None,
+            checks: Vec::new(),
+            shift,
+        });
         return out;
     };
-    let (model, Ok(fit)) = (&fits[ci].0, &fits[ci].1) else {
-        return out;
-    };
-    let model = *model;
     out.chosen = Some(model);
+    let x_next = x_last + cycle_step(&fx);
 
-    let (x_first, x_last) = (fx[0], fx[fx.len() - 1]);
-    let mut fc = forecast(fit, opts.criterion, opts.confidence, x_first, x_last);
+    // 3. The forecast and the next cycle.
+    let mut fc = match (&avg, change) {
+        (None, _) => {
+            out.notes
+                .push("no fit has a covariance: no forecast".to_string());
+            Forecast::empty(ForecastStatus::NotReached, None, opts.confidence)
+        }
+        (Some(avg), None) => {
+            out.next_cycle = next_from_average(avg, x_next, opts.confidence);
+            forecast_with(
+                avg,
+                avg.threshold,
+                opts.confidence,
+                avg.dof,
+                x_first,
+                x_last,
+            )
+        }
+        (Some(avg), Some(i)) => {
+            let threshold = avg.threshold;
+            let m_new = fx.len() - i;
+            if m_new < MIN_NEW_LEVEL {
+                let mut f = Forecast::empty(
+                    ForecastStatus::Withheld,
+                    threshold.is_finite().then_some(threshold),
+                    opts.confidence,
+                );
+                f.withheld_since = Some(fx[i]);
+                f.more_cycles_needed = Some(MIN_NEW_LEVEL - m_new);
+                out.next_cycle = shift
+                    .as_ref()
+                    .and_then(|s| next_from_shift(s, x_next, opts.confidence, threshold));
+                f
+            } else {
+                // The new level's own trend, against the criterion anchored before it.
+                let post_c: Vec<ModelId> = candidates
+                    .iter()
+                    .copied()
+                    .filter(|m| m.n_params() == 2)
+                    .collect();
+                let post = fit_candidates(&fx[i..], &fy[i..], &post_c, &fit_opts, bounded);
+                let post_usable: Vec<&FitResult> = post
+                    .iter()
+                    .filter_map(|c| c.usable_fit())
+                    .filter(|f| f.covariance.is_some())
+                    .collect();
+                match Averaged::new(&post_usable, Criterion::Absolute(threshold)) {
+                    Some(pa) => {
+                        out.next_cycle = next_from_average(&pa, x_next, opts.confidence);
+                        forecast_with(&pa, threshold, opts.confidence, pa.dof, fx[i], x_last)
+                    }
+                    None => Forecast::empty(
+                        ForecastStatus::NotReached,
+                        threshold.is_finite().then_some(threshold),
+                        opts.confidence,
+                    ),
+                }
+            }
+        }
+    };
     if pts.iter().any(|p| p.3.is_some())
         && let Some(xs) = fc.x
     {
@@ -355,9 +710,12 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         .map(|p| p.0)
         .collect();
 
-    // Abrupt loss: the newest fitted point against the fit on the points before it.
-    let prediction = if fx.len() > model.n_params() + 1 {
-        let k = fx.len() - 1;
+    // 4. Abrupt loss: each cycle since the change against the fit on the cycles before it
+    // (with no change suspected: the newest cycle against the fit on the cycles before it).
+    let refit_before = |k: usize| {
+        if k <= model.n_params() + 1 {
+            return None;
+        }
         let opts_prev = FitOptions {
             start: fit
                 .param_names
@@ -365,29 +723,48 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
                 .cloned()
                 .zip(fit.params.iter().copied())
                 .collect(),
+            bounds: if bounded {
+                physical_bounds(model)
+            } else {
+                Vec::new()
+            },
             ..fit_opts.clone()
         };
         fit_model(model, &fx[..k], &fy[..k], &opts_prev)
             .ok()
             .filter(|f| f.converged)
-            .and_then(|f| prediction_check(&f, fx[k], fy[k], opts.confidence))
-    } else {
-        None
     };
-    let cusum = fit.sigma.filter(|s| *s > 0.0).map(|s| {
-        let z: Vec<f64> = fx
-            .iter()
-            .zip(&fy)
-            .map(|(&x, &y)| (y - fit.predict(x)) / s)
-            .collect();
-        cusum_down(&z, opts.cusum_k, opts.cusum_h)
-    });
-    let suspected = prediction.as_ref().is_some_and(|p| p.below)
-        || cusum.as_ref().is_some_and(|c| c.last > c.h);
+    let split = change.or(change_guess.filter(|_| suspected));
+    let mut checks = Vec::new();
+    let prediction = match split {
+        Some(i) => {
+            let before = if change == Some(i) {
+                Some(fit.clone())
+            } else {
+                refit_before(i)
+            };
+            if let Some(b) = before {
+                for j in i..fx.len() {
+                    if let Some(c) = prediction_check(&b, fx[j], fy[j], opts.confidence) {
+                        checks.push(c);
+                    }
+                }
+            }
+            checks.last().cloned()
+        }
+        None if !fx.is_empty() => {
+            let k = fx.len() - 1;
+            refit_before(k).and_then(|f| prediction_check(&f, fx[k], fy[k], opts.confidence))
+        }
+        None => None,
+    };
     out.abrupt = Some(AbruptLoss {
         prediction,
-        cusum,
+        cusum: mon.map(|m| m.cusum),
         suspected,
+        change_at: change.map(|i| fx[i]),
+        checks,
+        shift,
     });
 
     out.economics = opts

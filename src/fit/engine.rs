@@ -22,7 +22,7 @@ pub struct FitOptions {
     pub lm: LmOptions,
 }
 
-/// A fitted model with the statistics DESIGN.md §4 asks for.
+/// A fitted model with the statistics of its optimum (standard errors, covariance, AICc).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct FitResult {
     pub model: ModelId,

@@ -1,10 +1,32 @@
 //! When will the fitted activity cross the replacement criterion, and how sure are we.
 //!
-//! x* solves y(x*; θ) = c. Its interval comes from the delta method:
-//! Var(x*) ≈ gᵀΣg with g = ∂x*/∂θ = −(∂y/∂θ − ∂c/∂θ)/(∂y/∂x) at x* (implicit function
-//! theorem), and a Student-t quantile with n − p degrees of freedom. For an absolute
-//! criterion ∂c/∂θ = 0, which is DESIGN.md's formula; for a fraction f of the fitted fresh
-//! activity, c = f·y(0; θ) also moves with θ and its term is kept.
+//! x* solves h(x*) = 0 with h(x) = y(x; θ) − c(θ), c the criterion (a constant, or a
+//! fraction f of the fitted fresh activity y(0; θ), which moves with θ).
+//!
+//! The interval inverts the pointwise test of "the curve is at the criterion at x":
+//! x belongs to it when |ĥ(x)| ≤ t·sd(ĥ(x)), sd from the delta method on h (gradient
+//! ∂y(x)/∂θ − f·∂y(0)/∂θ and the covariance of θ), t Student's with n − p degrees of
+//! freedom. This is Fieller's construction for a ratio (Fieller 1954, recalled from
+//! memory), known in regression as the calibration or inverse-prediction interval (Seber &
+//! Wild, "Nonlinear Regression", 1989, recalled from memory). It is exact for the linear
+//! model, it follows the geometry of the curve (no symmetric ± around x*), and it is
+//! searched only from the newest cycle on, so it never starts before the data end and never
+//! reaches negative x. When the lower confidence band never reaches the criterion the upper
+//! end is unbounded, and the interval stated is the one-sided [lower, ∞) at the same
+//! confidence (its lower end from the one-sided t quantile). A criterion never reached
+//! under the fitted curve may still carry such a lower limit: the earliest crossing the
+//! data do not exclude. Its coverage is checked by seeded simulation (tests/fit_states.rs,
+//! tests/fit_averaging.rs, tests/fit_coverage.rs).
+//!
+//! A forecast is only offered when the loss over the observed cycles, y(x_first) −
+//! y(x_last), is significant by a one-sided test at the chosen confidence: otherwise the
+//! state is [`ForecastStatus::NoSignificantTrend`] and only a lower bound on the crossing is
+//! given. A loss significantly below zero (activity rising) is
+//! [`ForecastStatus::NotReached`] with [`NotReachedWhy::SlopeWrongSign`].
+//!
+//! The crossing search knows curves that end (the power law of order m < 1 reaches zero at
+//! x0 = 1/((1 − m)·kd) and is undefined beyond): it bisects into the last finite point, and
+//! a curve that ends at zero crosses any positive criterion before its end.
 
 use serde::{Deserialize, Serialize};
 use statrs::distribution::{ContinuousCDF, StudentsT};
@@ -21,20 +43,7 @@ pub enum Criterion {
     FractionOfFresh(f64),
 }
 
-/// The plain-words outcome of a forecast.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "kebab-case")]
-pub enum ForecastStatus {
-    /// The crossing lies after the newest point and its interval is finite.
-    Ahead,
-    /// The fitted curve is already at or below the criterion at the newest point.
-    ReachedAlready,
-    /// The fitted curve never reaches the criterion (see [`NotReachedWhy`]).
-    NotReached,
-    /// A crossing is forecast but the interval is not finite: the confidence band does not
-    /// cross the criterion, or the curve is flat at the crossing.
-    UnboundedInterval,
-}
+pub use crate::model::ForecastStatus;
 
 /// Why the criterion is never reached.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -48,6 +57,8 @@ pub enum NotReachedWhy {
     BeyondHorizon,
     /// The criterion itself is not a finite number (e.g. a fraction of a non-finite y(0)).
     UndefinedCriterion,
+    /// The fitted curve ends (leaves the model's domain) above the criterion.
+    CurveEnds,
 }
 
 /// A forecast of the replacement point.
@@ -57,16 +68,52 @@ pub struct Forecast {
     pub why_not: Option<NotReachedWhy>,
     /// The activity value that triggers replacement (None if not finite).
     pub threshold: Option<f64>,
-    /// x* (None when not reached).
+    /// x* (None when not reached, and when no crossing is offered).
     pub x: Option<f64>,
-    /// Lower and upper interval limits; None means unbounded on that side.
+    /// Lower and upper interval limits; None means unbounded on that side. A crossing ahead
+    /// has limits at or after the newest cycle.
     pub lower: Option<f64>,
     pub upper: Option<f64>,
+    /// Delta-method standard error of x* (for information; the interval does not use it).
     pub std_error: Option<f64>,
     pub confidence: f64,
     pub t_quantile: Option<f64>,
     /// Cumulative lifetime TON at x*, when TON per cycle was given.
     pub lifetime_ton: Option<f64>,
+    /// Fitted loss of activity from the first to the newest fitted cycle.
+    #[serde(default)]
+    pub loss: Option<f64>,
+    /// One-sided lower confidence bound of that loss; ≤ 0 means no significant loss.
+    #[serde(default)]
+    pub loss_lower: Option<f64>,
+    /// For [`ForecastStatus::Withheld`]: the first x of the new level.
+    #[serde(default)]
+    pub withheld_since: Option<f64>,
+    /// For [`ForecastStatus::Withheld`]: how many more cycles of the new level are needed.
+    #[serde(default)]
+    pub more_cycles_needed: Option<usize>,
+}
+
+impl Forecast {
+    /// An empty forecast in state `status`.
+    pub fn empty(status: ForecastStatus, threshold: Option<f64>, confidence: f64) -> Forecast {
+        Forecast {
+            status,
+            why_not: None,
+            threshold,
+            x: None,
+            lower: None,
+            upper: None,
+            std_error: None,
+            confidence,
+            t_quantile: None,
+            lifetime_ton: None,
+            loss: None,
+            loss_lower: None,
+            withheld_since: None,
+            more_cycles_needed: None,
+        }
+    }
 }
 
 /// Two-sided Student-t quantile for `confidence` with `dof` degrees of freedom.
@@ -77,8 +124,8 @@ pub fn t_quantile(confidence: f64, dof: usize) -> Option<f64> {
     // The inverse CDF is an iterative incomplete-beta inversion, and one analysis asks for
     // the same few (confidence, dof) pairs several times: the last ones are remembered.
     thread_local! {
-        static RECENT: std::cell::RefCell<[(u64, usize, f64); 4]> =
-            const { std::cell::RefCell::new([(u64::MAX, usize::MAX, f64::NAN); 4]) };
+        static RECENT: std::cell::RefCell<[(u64, usize, f64); 16]> =
+            const { std::cell::RefCell::new([(u64::MAX, usize::MAX, f64::NAN); 16]) };
     }
     let key = confidence.to_bits();
     let hit = RECENT.with_borrow(|r| r.iter().find(|e| e.0 == key && e.1 == dof).map(|e| e.2));
@@ -97,11 +144,20 @@ pub fn t_quantile(confidence: f64, dof: usize) -> Option<f64> {
     q.is_finite().then_some(q)
 }
 
-/// First root of h in [a, b] given h(a) > 0 ≥ h(b), by bisection to full precision.
+/// One-sided Student-t quantile q with P(T ≤ q) = `confidence` (> 0.5).
+pub fn t_one_sided(confidence: f64, dof: usize) -> Option<f64> {
+    if !(confidence > 0.5 && confidence < 1.0) {
+        return None;
+    }
+    t_quantile(2.0 * confidence - 1.0, dof)
+}
+
+/// First root of h in [a, b] given h(a) > 0 ≥ h(b), by bisection to 10⁻¹² relative
+/// (far below any meaning a cycle number has).
 fn bisect(h: impl Fn(f64) -> f64, mut a: f64, mut b: f64) -> f64 {
     for _ in 0..200 {
         let m = 0.5 * (a + b);
-        if m <= a || m >= b {
+        if m <= a || m >= b || b - a <= 1e-12 * (1.0 + a.abs()) {
             break;
         }
         if h(m) > 0.0 {
@@ -113,26 +169,50 @@ fn bisect(h: impl Fn(f64) -> f64, mut a: f64, mut b: f64) -> f64 {
     0.5 * (a + b)
 }
 
-/// Finds where `h` first turns ≤ 0 after `from`, stepping out geometrically.
-fn first_crossing_after(h: &impl Fn(f64) -> f64, from: f64, span: f64) -> Option<f64> {
+/// Where a search for h ≤ 0 ended.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Search {
+    Crossed(f64),
+    /// The curve is undefined beyond this x and stays above the criterion up to it.
+    Ends,
+    Horizon,
+}
+
+/// Finds where `h` first turns ≤ 0 after `from` (h(from) > 0), stepping out geometrically.
+/// Where h turns NaN (the curve leaves its domain), bisects to the last finite point: if h
+/// is ≤ 0 there (a curve that ends at zero), the crossing lies before it.
+fn search_after(h: &impl Fn(f64) -> f64, from: f64, span: f64) -> Search {
     let mut a = from;
     let mut step = 0.05 * span;
-    for _ in 0..80 {
+    for _ in 0..200 {
         let b = a + step;
         let hb = h(b);
         if hb.is_nan() {
-            return None;
+            // Bisect on finiteness between a (finite) and b (not).
+            let (mut lo, mut hi) = (a, b);
+            for _ in 0..200 {
+                let m = 0.5 * (lo + hi);
+                if m <= lo || m >= hi {
+                    break;
+                }
+                if h(m).is_nan() { hi = m } else { lo = m }
+            }
+            return if h(lo) <= 0.0 {
+                Search::Crossed(bisect(h, a, lo))
+            } else {
+                Search::Ends
+            };
         }
         if hb <= 0.0 {
-            return Some(bisect(h, a, b));
+            return Search::Crossed(bisect(h, a, b));
         }
         if b - from > 1e6 * span {
-            return None;
+            return Search::Horizon;
         }
         a = b;
         step *= 1.5;
     }
-    None
+    Search::Horizon
 }
 
 /// Finds the first x in [lo, hi] with h ≤ 0, scanning then bisecting.
@@ -149,6 +229,129 @@ fn first_crossing_within(h: &impl Fn(f64) -> f64, lo: f64, hi: f64) -> Option<f6
     None
 }
 
+/// The decision function of a forecast: at x, h(x) = y(x) − c with its standard deviation
+/// (NaN where the curve is undefined).
+pub trait Decision {
+    /// (h(x), sd of h(x)); sd NaN when unknown.
+    fn at(&self, x: f64) -> (f64, f64);
+    /// h(x) alone.
+    fn value(&self, x: f64) -> f64 {
+        self.at(x).0
+    }
+    /// Fitted loss y(a) − y(b) and its standard deviation.
+    fn loss(&self, a: f64, b: f64) -> (f64, f64);
+    /// The fitted curve's slope at x (for the reason a crossing is not reached).
+    fn slope(&self, x: f64) -> f64;
+    /// The curve's limit as x → ∞, when finite.
+    fn asymptote(&self) -> Option<f64>;
+}
+
+/// One fit's decision function.
+pub struct FitDecision<'a> {
+    pub fit: &'a FitResult,
+    pub threshold: f64,
+    /// f for a fraction-of-fresh criterion, 0 for an absolute one.
+    pub fraction: f64,
+}
+
+/// Largest parameter count handled on the stack.
+const MAXP: usize = 8;
+
+impl FitDecision<'_> {
+    /// ∂h/∂θ at x.
+    pub fn grad_h(&self, x: f64, out: &mut [f64]) {
+        let m = self.fit.model;
+        m.grad(x, &self.fit.params, out);
+        if self.fraction != 0.0 {
+            let mut g0 = [0.0; MAXP];
+            let g0 = &mut g0[..out.len().min(MAXP)];
+            m.grad(0.0, &self.fit.params, g0);
+            for (o, g) in out.iter_mut().zip(g0.iter()) {
+                *o -= self.fraction * g;
+            }
+        }
+    }
+}
+
+fn sd_of(cov: &[Vec<f64>], g: &[f64]) -> f64 {
+    let q = quad_form(cov, g);
+    if q.is_finite() && q >= 0.0 {
+        q.sqrt()
+    } else {
+        f64::NAN
+    }
+}
+
+impl Decision for FitDecision<'_> {
+    fn value(&self, x: f64) -> f64 {
+        self.fit.predict(x) - self.threshold
+    }
+    fn at(&self, x: f64) -> (f64, f64) {
+        let v = self.fit.predict(x) - self.threshold;
+        let np = self.fit.params.len();
+        let sd = match &self.fit.covariance {
+            Some(cov) if v.is_finite() && np <= MAXP => {
+                let mut g = [0.0; MAXP];
+                self.grad_h(x, &mut g[..np]);
+                sd_of(cov, &g[..np])
+            }
+            _ => f64::NAN,
+        };
+        (v, sd)
+    }
+    fn loss(&self, a: f64, b: f64) -> (f64, f64) {
+        let p = &self.fit.params;
+        let m = self.fit.model;
+        let v = m.eval(a, p) - m.eval(b, p);
+        let np = p.len();
+        let sd = match &self.fit.covariance {
+            Some(cov) if np <= MAXP => {
+                let (mut ga, mut gb) = ([0.0; MAXP], [0.0; MAXP]);
+                m.grad(a, p, &mut ga[..np]);
+                m.grad(b, p, &mut gb[..np]);
+                for j in 0..np {
+                    ga[j] -= gb[j];
+                }
+                sd_of(cov, &ga[..np])
+            }
+            _ => f64::NAN,
+        };
+        (v, sd)
+    }
+    fn slope(&self, x: f64) -> f64 {
+        self.fit.model.dydx(x, &self.fit.params)
+    }
+    fn asymptote(&self) -> Option<f64> {
+        self.fit.model.asymptote(&self.fit.params)
+    }
+}
+
+/// The point crossing of `d` after `x_last` (h(x_last) > 0), ignoring the interval and the
+/// significance of the loss; None when there is none.
+pub fn crossing_after(d: &dyn Decision, x_first: f64, x_last: f64) -> Option<f64> {
+    let h = |x: f64| d.value(x);
+    if h(x_last).is_nan() || h(x_last) <= 0.0 {
+        return None;
+    }
+    let span = if x_last > x_first {
+        x_last - x_first
+    } else {
+        1.0
+    };
+    match search_after(&h, x_last, span) {
+        Search::Crossed(x) => Some(x),
+        _ => None,
+    }
+}
+
+/// The threshold of `criterion` for a fresh activity `fresh`, and f (0 if absolute).
+pub fn threshold_of(criterion: Criterion, fresh: f64) -> (f64, f64) {
+    match criterion {
+        Criterion::Absolute(v) => (v, 0.0),
+        Criterion::FractionOfFresh(f) => (f * fresh, f),
+    }
+}
+
 /// Forecasts the crossing of `criterion` by the fitted curve; `x_first`/`x_last` are the
 /// observed range. The interval is at `confidence` (e.g. 0.90).
 pub fn forecast(
@@ -158,26 +361,45 @@ pub fn forecast(
     x_first: f64,
     x_last: f64,
 ) -> Forecast {
-    let model = fit.model;
-    let p = &fit.params;
-    let y0 = fit.predict(0.0);
-    let threshold = match criterion {
-        Criterion::Absolute(v) => v,
-        Criterion::FractionOfFresh(f) => f * y0,
+    let (threshold, fraction) = threshold_of(criterion, fit.predict(0.0));
+    let d = FitDecision {
+        fit,
+        threshold,
+        fraction,
     };
-    let t = t_quantile(confidence, fit.dof);
-    let mut fc = Forecast {
-        status: ForecastStatus::NotReached,
-        why_not: None,
-        threshold: threshold.is_finite().then_some(threshold),
-        x: None,
-        lower: None,
-        upper: None,
-        std_error: None,
+    let mut fc = forecast_with(&d, threshold, confidence, fit.dof, x_first, x_last);
+    // Delta-method standard error of x*, for information.
+    if let (Some(xs), Some(cov)) = (fc.x, fit.covariance.as_ref()) {
+        let slope = fit.model.dydx(xs, &fit.params);
+        let np = fit.params.len();
+        if slope != 0.0 && slope.is_finite() && np <= MAXP {
+            let mut g = [0.0; MAXP];
+            d.grad_h(xs, &mut g[..np]);
+            g.iter_mut().for_each(|v| *v = -*v / slope);
+            let se = sd_of(cov, &g[..np]);
+            fc.std_error = se.is_finite().then_some(se);
+        }
+    }
+    fc
+}
+
+/// The forecast of any decision function (one fit, or a model average), with Student t on
+/// `dof` degrees of freedom. See the module documentation for the states and the interval.
+pub fn forecast_with(
+    d: &dyn Decision,
+    threshold: f64,
+    confidence: f64,
+    dof: usize,
+    x_first: f64,
+    x_last: f64,
+) -> Forecast {
+    let t = t_quantile(confidence, dof);
+    let mut fc = Forecast::empty(
+        ForecastStatus::NotReached,
+        threshold.is_finite().then_some(threshold),
         confidence,
-        t_quantile: t,
-        lifetime_ton: None,
-    };
+    );
+    fc.t_quantile = t;
     if !threshold.is_finite() {
         fc.why_not = Some(NotReachedWhy::UndefinedCriterion);
         return fc;
@@ -187,81 +409,123 @@ pub fn forecast(
     } else {
         1.0
     };
-    let h = |x: f64| fit.predict(x) - threshold;
+    let h = |x: f64| d.value(x);
+    // Significance of the loss over the observed cycles (one-sided test).
+    let (loss, loss_sd) = d.loss(x_first, x_last);
+    fc.loss = loss.is_finite().then_some(loss);
+    fc.loss_lower = t_one_sided(confidence, dof)
+        .filter(|_| loss_sd.is_finite())
+        .map(|t1| loss - t1 * loss_sd)
+        .filter(|v| v.is_finite());
+    let significant = fc.loss_lower.is_some_and(|l| l > 0.0);
+
     let start = x_first.min(0.0);
-    let xstar = if h(x_last) <= 0.0 {
+    if h(x_last) <= 0.0 {
         fc.status = ForecastStatus::ReachedAlready;
-        if h(start) <= 0.0 {
+        fc.x = if h(start) <= 0.0 {
             Some(start)
         } else {
             first_crossing_within(&h, start, x_last)
+        };
+        // The interval of a crossing already past: the same band inversion, over the data.
+        if let (Some(xs), Some(t)) = (fc.x, t) {
+            let lo = |x: f64| {
+                let (v, sd) = d.at(x);
+                v - t * sd
+            };
+            let hi = |x: f64| {
+                let (v, sd) = d.at(x);
+                v + t * sd
+            };
+            fc.lower = if lo(start) <= 0.0 {
+                Some(start)
+            } else {
+                first_crossing_within(&lo, start, xs).or(Some(xs))
+            };
+            fc.upper = if hi(xs) <= 0.0 {
+                Some(xs)
+            } else {
+                match search_after(&hi, xs, span) {
+                    Search::Crossed(x) => Some(x),
+                    _ => None,
+                }
+            };
         }
-    } else {
-        match first_crossing_after(&h, x_last, span) {
-            Some(x) => {
-                fc.status = ForecastStatus::Ahead;
-                Some(x)
-            }
-            None => {
-                let slope = model.dydx(x_last, p);
-                fc.why_not = Some(if slope.is_nan() || slope >= 0.0 {
-                    NotReachedWhy::SlopeWrongSign
-                } else if model.asymptote(p).is_some_and(|a| a >= threshold) {
-                    NotReachedWhy::AsymptoteAbove
-                } else {
-                    NotReachedWhy::BeyondHorizon
-                });
-                None
-            }
-        }
-    };
-    let Some(xs) = xstar else {
         return fc;
+    }
+    // Lower end: the first x ≥ x_last where the lower band reaches the criterion.
+    let lower_of = |t: f64| {
+        let lo = |x: f64| {
+            let (v, sd) = d.at(x);
+            v - t * sd
+        };
+        if lo(x_last) <= 0.0 {
+            Some(x_last)
+        } else {
+            match search_after(&lo, x_last, span) {
+                Search::Crossed(x) => Some(x),
+                _ => None,
+            }
+        }
     };
+    let rising = t_one_sided(confidence, dof)
+        .is_some_and(|t1| loss_sd.is_finite() && loss + t1 * loss_sd < 0.0);
+    if rising {
+        // Significantly rising: no loss to forecast from.
+        fc.why_not = Some(NotReachedWhy::SlopeWrongSign);
+        return fc;
+    }
+    // An interval open above is the one-sided interval [lower, ∞) at the confidence.
+    let t1 = t_one_sided(confidence, dof);
+    if !significant {
+        fc.status = ForecastStatus::NoSignificantTrend;
+        fc.lower = t1.and_then(lower_of);
+        return fc;
+    }
+    let xs = match search_after(&h, x_last, span) {
+        Search::Crossed(x) => x,
+        other => {
+            // The fitted curve stays above, but the data may not exclude a crossing: the
+            // confidence set is then [lower, ∞) (with "never" in it).
+            fc.lower = t1.and_then(lower_of);
+            let slope = d.slope(x_last);
+            fc.why_not = Some(if other == Search::Ends {
+                NotReachedWhy::CurveEnds
+            } else if slope.is_nan() || slope >= 0.0 {
+                NotReachedWhy::SlopeWrongSign
+            } else if d.asymptote().is_some_and(|a| a >= threshold) {
+                NotReachedWhy::AsymptoteAbove
+            } else {
+                NotReachedWhy::BeyondHorizon
+            });
+            return fc;
+        }
+    };
+    fc.status = ForecastStatus::Ahead;
     fc.x = Some(xs);
-    // Delta method.
-    let np = p.len();
-    let mut gx = vec![0.0; np];
-    model.grad(xs, p, &mut gx);
-    if let Criterion::FractionOfFresh(f) = criterion {
-        let mut g0 = vec![0.0; np];
-        model.grad(0.0, p, &mut g0);
-        for j in 0..np {
-            gx[j] -= f * g0[j];
-        }
+    if let Some(t) = t {
+        fc.lower = lower_of(t).map(|l| l.min(xs));
+        // Upper end: the first x ≥ x* where the upper band falls below the criterion.
+        let hi = |x: f64| {
+            let (v, sd) = d.at(x);
+            v + t * sd
+        };
+        fc.upper = if hi(xs) <= 0.0 {
+            Some(xs)
+        } else {
+            match search_after(&hi, xs, span) {
+                Search::Crossed(x) => Some(x),
+                _ => None,
+            }
+        };
     }
-    let slope = model.dydx(xs, p);
-    let se = fit.covariance.as_ref().and_then(|cov| {
-        if slope == 0.0 || !slope.is_finite() {
-            return None;
-        }
-        let g: Vec<f64> = gx.iter().map(|v| -v / slope).collect();
-        let var = quad_form(cov, &g);
-        (var.is_finite() && var >= 0.0).then(|| var.sqrt())
-    });
-    fc.std_error = se;
-    if let (Some(se), Some(t)) = (se, t) {
-        fc.lower = Some(xs - t * se);
-        fc.upper = Some(xs + t * se);
-        // If even the upper confidence band of the curve stays above the criterion far out,
-        // (checked for absolute criteria, whose level does not move with θ)
-        // the data cannot exclude that it is never reached: the upper limit is unbounded.
-        let far = x_last.max(xs) + 1e3 * span;
-        if let Some(v) = fit.mean_variance(far)
-            && criterion_is_absolute(criterion)
-            && fit.predict(far) + t * v.sqrt() > threshold
-        {
-            fc.upper = None;
-        }
-    }
-    if (fc.lower.is_none() || fc.upper.is_none()) && fc.status == ForecastStatus::Ahead {
+    if fc.lower.is_none() || fc.upper.is_none() {
         fc.status = ForecastStatus::UnboundedInterval;
+        if fc.upper.is_none() {
+            fc.lower = t1.and_then(lower_of).map(|l| l.min(xs));
+        }
     }
     fc
-}
-
-fn criterion_is_absolute(c: Criterion) -> bool {
-    matches!(c, Criterion::Absolute(_))
 }
 
 /// Cumulative lifetime TON at x*: observed TON summed over the cycles up to x*, plus for

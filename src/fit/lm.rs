@@ -868,10 +868,6 @@ mod tests {
             levenberg_marquardt(&m, &x, &y, None, &start, &LmOptions::default()).expect("valid");
         assert_eq!(out.reason, StopReason::Stalled, "{out:?}");
         assert!(!out.reason.is_converged());
-        eprintln!(
-            "two-site runaway stopped after {} iterations",
-            out.iterations
-        );
         assert!(out.iterations < 300, "{}", out.iterations);
         let off = LmOptions {
             stall_window: 0,

@@ -1,4 +1,4 @@
-//! The deactivation models of DESIGN.md §4, with analytic derivatives.
+//! The deactivation models, with analytic derivatives.
 //!
 //! x is the cycle number (or time on stream), y the activity (or cumulative TON for the
 //! plateau model). Each model knows its id, its parameter names, y, ∂y/∂θ and ∂y/∂x.
@@ -483,7 +483,7 @@ mod tests {
 
     #[test]
     fn power_law_reduces_to_first_and_second_order() {
-        // m = 2 is second order, m → 1 is first order (DESIGN.md §4, from the rate law).
+        // m = 2 is second order, m → 1 is first order (from the rate law −d(a/a0)/dx = kd·(a/a0)^m).
         let x = 12.0;
         let so = ModelId::SecondOrder.eval(x, &[1.0, 0.07]);
         let pw = ModelId::Power.eval(x, &[1.0, 0.07, 2.0]);

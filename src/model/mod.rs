@@ -2,6 +2,7 @@
 //!
 //! - [`Quantity`]: what a cycle record can hold, each in one canonical unit.
 //! - [`event`]: the payload of every audit-trail event and the rows it carries.
+//! - [`ForecastStatus`]: where a replacement forecast stands, said plainly.
 //! - [`cycle`]: a cycle's current view, derived from its append-only measurements.
 //! - [`chain`]: how each event is linked to the one before it.
 //! - [`time`]: the one timestamp format of tables, messages and reports.
@@ -10,10 +11,12 @@
 pub mod chain;
 pub mod cycle;
 pub mod event;
+mod forecast;
 pub mod numbers;
 mod quantity;
 pub mod time;
 
 pub use cycle::CycleView;
 pub use event::{FileRow, LotRecord, MeasurementRow, Payload};
+pub use forecast::ForecastStatus;
 pub use quantity::Quantity;

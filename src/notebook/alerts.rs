@@ -43,12 +43,7 @@ fn cadence(state: &LotState) -> Option<f64> {
 fn forecast_view(state: &LotState, a: &fit::LotAnalysis) -> Option<alert::Forecast> {
     let f = a.forecast.as_ref()?;
     Some(alert::Forecast {
-        status: match f.status {
-            fit::ForecastStatus::Ahead => alert::ForecastStatus::Crossing,
-            fit::ForecastStatus::ReachedAlready => alert::ForecastStatus::ReachedAlready,
-            fit::ForecastStatus::NotReached => alert::ForecastStatus::NotReached,
-            fit::ForecastStatus::UnboundedInterval => alert::ForecastStatus::Unbounded,
-        },
+        status: f.status,
         x: f.x,
         lower: f.lower,
         upper: f.upper,

@@ -16,12 +16,7 @@ use crate::store::{self, Connection};
 
 fn report_forecast(f: &fit::Forecast) -> report::Forecast {
     report::Forecast {
-        status: match f.status {
-            fit::ForecastStatus::Ahead => report::ForecastStatus::Crosses,
-            fit::ForecastStatus::UnboundedInterval => report::ForecastStatus::CrossesUnbounded,
-            fit::ForecastStatus::ReachedAlready => report::ForecastStatus::AlreadyCrossed,
-            fit::ForecastStatus::NotReached => report::ForecastStatus::NeverCrosses,
-        },
+        status: f.status,
         x: f.x,
         lower: f.lower,
         upper: f.upper,

@@ -300,7 +300,7 @@ fn draw_forecast<'a, 'b: 'a>(
     };
     if !matches!(
         f.status,
-        ForecastStatus::Crosses | ForecastStatus::CrossesUnbounded
+        ForecastStatus::Ahead | ForecastStatus::UnboundedInterval
     ) {
         return Ok(());
     }

@@ -125,7 +125,7 @@ fn opt_text(v: Option<&str>) -> String {
 
 fn forecast_text(f: &Forecast) -> String {
     match (f.status, f.x) {
-        (ForecastStatus::Crosses | ForecastStatus::CrossesUnbounded, Some(x)) => format!(
+        (ForecastStatus::Ahead | ForecastStatus::UnboundedInterval, Some(x)) => format!(
             "{} ({} % interval {} to {})",
             fmt_sig(x, 3),
             fmt_pct(f.confidence),

@@ -193,36 +193,7 @@ pub struct Forecast {
     pub confidence: f64,
 }
 
-/// The forecast's outcome, said plainly in reports.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum ForecastStatus {
-    /// The criterion is crossed at x* with a bounded interval.
-    Crosses,
-    /// The criterion is crossed at x*, but the interval is unbounded on at least one side.
-    CrossesUnbounded,
-    /// The lot is already at or below the criterion.
-    AlreadyCrossed,
-    /// Under the fitted model the criterion is never reached.
-    NeverCrosses,
-    /// Too few usable cycles to forecast.
-    TooFewCycles,
-}
-
-impl ForecastStatus {
-    /// A sentence for readers of the report.
-    pub fn describe(self) -> &'static str {
-        match self {
-            ForecastStatus::Crosses => "criterion crossed at the forecast point",
-            ForecastStatus::CrossesUnbounded => {
-                "criterion crossed at the forecast point, but the interval is unbounded"
-            }
-            ForecastStatus::AlreadyCrossed => "already at or below the criterion",
-            ForecastStatus::NeverCrosses => "never reached under the fitted model",
-            ForecastStatus::TooFewCycles => "too few usable cycles to forecast",
-        }
-    }
-}
+pub use crate::model::ForecastStatus;
 
 /// An alert raised for the lot.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]

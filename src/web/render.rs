@@ -94,13 +94,13 @@ pub fn forecast_words(f: Option<&Forecast>) -> (String, &'static str) {
         f.upper.map_or("open".into(), |v| format!("{v:.1}"))
     );
     match f.status {
-        ForecastStatus::Crosses | ForecastStatus::CrossesUnbounded => {
+        ForecastStatus::Ahead | ForecastStatus::UnboundedInterval => {
             (format!("criterion at {} ({interval})", num(f.x, 1)), "warn")
         }
-        ForecastStatus::AlreadyCrossed => (f.status.describe().into(), "bad"),
-        ForecastStatus::NeverCrosses | ForecastStatus::TooFewCycles => {
-            (f.status.describe().into(), "ok")
-        }
+        ForecastStatus::ReachedAlready => (f.status.describe().into(), "bad"),
+        ForecastStatus::NotReached
+        | ForecastStatus::NoSignificantTrend
+        | ForecastStatus::Withheld => (f.status.describe().into(), "ok"),
     }
 }
 

@@ -4,6 +4,7 @@
 use serde_json::{Map, Value, json};
 
 use super::analysis::LotAnalysis;
+use super::average::{NextCycle, NextVerdict};
 use super::engine::FitResult;
 use super::error::{FitError, SeriesError};
 use super::forecast::{Forecast, ForecastStatus, NotReachedWhy};
@@ -95,12 +96,7 @@ pub fn read_series_csv(text: &str) -> Result<(Vec<f64>, Vec<f64>), SeriesError> 
 }
 
 fn status_word(s: ForecastStatus) -> &'static str {
-    match s {
-        ForecastStatus::Ahead => "ahead",
-        ForecastStatus::ReachedAlready => "reached-already",
-        ForecastStatus::NotReached => "not-reached",
-        ForecastStatus::UnboundedInterval => "unbounded-interval",
-    }
+    s.word()
 }
 
 fn why_words(w: NotReachedWhy) -> &'static str {
@@ -109,6 +105,7 @@ fn why_words(w: NotReachedWhy) -> &'static str {
         NotReachedWhy::SlopeWrongSign => "activity is not falling",
         NotReachedWhy::BeyondHorizon => "not within a million spans of the data",
         NotReachedWhy::UndefinedCriterion => "the criterion is not a finite number",
+        NotReachedWhy::CurveEnds => "the fitted curve ends above the criterion",
     }
 }
 
@@ -154,9 +151,87 @@ pub fn fit_json(fit: &FitResult, forecast: Option<&Forecast>) -> Value {
                 "confidence": fc.confidence,
                 "why_not": fc.why_not.map(why_words),
                 "lifetime_ton": num(fc.lifetime_ton),
+                "loss": num(fc.loss),
+                "loss_lower": num(fc.loss_lower),
+                "withheld_since": num(fc.withheld_since),
+                "more_cycles_needed": fc.more_cycles_needed,
             }),
         );
     }
+    v
+}
+
+fn next_json(n: &NextCycle) -> Value {
+    json!({
+        "x": n.x,
+        "predicted": num(Some(n.predicted)),
+        "lower": num(Some(n.lower)),
+        "upper": num(Some(n.upper)),
+        "threshold": num(Some(n.threshold)),
+        "verdict": n.verdict.word(),
+    })
+}
+
+/// JSON of a whole analysis: [`fit_json`] of the chosen fit with the forecast, and the
+/// ranking, the Akaike weights (`weights`), the step-change verdict (`abrupt`:
+/// `suspected`, `change_at`, `drop` {value, lower, upper, relative}, the CUSUM's last
+/// value and h) and the next batch (`next_cycle` {x, predicted, lower, upper, threshold,
+/// verdict}).
+pub fn analysis_json(a: &LotAnalysis) -> Value {
+    let mut v = match &a.fit {
+        Some(f) => fit_json(f, a.forecast.as_ref()),
+        None => json!({ "model": Value::Null }),
+    };
+    let Value::Object(m) = &mut v else {
+        return v;
+    };
+    m.insert(
+        "ranking".into(),
+        serde_json::to_value(&a.ranking).unwrap_or(Value::Null),
+    );
+    m.insert(
+        "weights".into(),
+        Value::Array(
+            a.weights
+                .iter()
+                .map(|w| {
+                    json!({
+                        "model": w.model.id(),
+                        "weight": num(Some(w.weight)),
+                        "delta_aicc": num(Some(w.delta_aicc)),
+                        "crossing": num(w.crossing),
+                    })
+                })
+                .collect(),
+        ),
+    );
+    let abrupt = a.abrupt.as_ref().map_or(Value::Null, |ab| {
+        let drop = ab.shift.as_ref().map_or(Value::Null, |s| {
+            json!({
+                "value": num(Some(s.drop)),
+                "lower": num(s.drop_lower),
+                "upper": num(s.drop_upper),
+                "relative": num(s.drop_relative),
+                "at": num(Some(s.at)),
+                "delta_aicc_vs_single": num(s.delta_vs_single),
+            })
+        });
+        json!({
+            "suspected": ab.suspected,
+            "change_at": num(ab.change_at),
+            "drop": drop,
+            "cusum_last": num(ab.cusum.as_ref().map(|c| c.last)),
+            "cusum_h": num(ab.cusum.as_ref().map(|c| c.h)),
+            "cycles_below": ab.checks.iter().filter(|c| c.below).count(),
+            "cycles_checked": ab.checks.len(),
+        })
+    });
+    m.insert("abrupt".into(), abrupt);
+    m.insert(
+        "next_cycle".into(),
+        a.next_cycle.as_ref().map_or(Value::Null, next_json),
+    );
+    m.insert("trend_cycles".into(), json!(a.trend_cycles));
     v
 }
 
@@ -190,6 +265,46 @@ fn fmt_g(v: f64) -> String {
     }
 }
 
+/// The forecast in plain words.
+fn forecast_words(fc: &Forecast, x_last: Option<f64>) -> String {
+    let pct = fc.confidence * 100.0;
+    match fc.status {
+        ForecastStatus::Ahead => format!(
+            "the criterion is crossed at x = {:.1}, {pct:.0} % interval [{}, {}]",
+            fc.x.unwrap_or(f64::NAN),
+            fmt_opt(fc.lower),
+            fmt_opt(fc.upper)
+        ),
+        ForecastStatus::UnboundedInterval => format!(
+            "the fitted curve crosses at x = {:.1}, but the {pct:.0} % interval does not close: \
+             from {} to unbounded",
+            fc.x.unwrap_or(f64::NAN),
+            fmt_opt(fc.lower)
+        ),
+        ForecastStatus::ReachedAlready => format!(
+            "the criterion is already reached (fitted crossing at x = {})",
+            fmt_opt(fc.x)
+        ),
+        ForecastStatus::NotReached => format!(
+            "the criterion is never reached under the fitted model: {}",
+            fc.why_not.map_or("", why_words)
+        ),
+        ForecastStatus::NoSignificantTrend => format!(
+            "no significant loss of activity at {pct:.0} %: no crossing is forecast{}",
+            fc.lower.map_or_else(String::new, |l| format!(
+                " (it is not before x = {l:.1} at {pct:.0} % confidence)"
+            ))
+        ),
+        ForecastStatus::Withheld => format!(
+            "withheld: a step change at x = {} started a new level{}; {} more cycle(s) of it \
+             are needed for a trend",
+            fmt_opt(fc.withheld_since),
+            x_last.map_or_else(String::new, |x| format!(" (newest x = {x})")),
+            fc.more_cycles_needed.unwrap_or(0)
+        ),
+    }
+}
+
 /// A plain-text account of an analysis: ranking, parameters with intervals, forecast,
 /// abrupt-loss verdict and sparklines of the activity and the fit.
 pub fn render_text(a: &LotAnalysis) -> String {
@@ -202,26 +317,46 @@ pub fn render_text(a: &LotAnalysis) -> String {
     );
     let _ = writeln!(
         s,
-        "\nModel ranking (AICc; simplest within ΔAICc < 2 is chosen)"
+        "\nModel ranking (AICc; simplest within ΔAICc < 2 is chosen; the forecast averages\n\
+         the usable models with Akaike weights)"
     );
+    if a.trend_cycles < a.n_fitted {
+        let _ = writeln!(
+            s,
+            "  (fitted on the {} cycles before the step change)",
+            a.trend_cycles
+        );
+    }
     let _ = writeln!(
         s,
-        "  {:<22} {:>3} {:>12} {:>10} {:>7}  note",
-        "model", "p", "RSS", "AICc", "ΔAICc"
+        "  {:<22} {:>3} {:>12} {:>10} {:>7} {:>7}  note",
+        "model", "p", "RSS", "AICc", "ΔAICc", "weight"
     );
     for r in &a.ranking {
         let mark = if r.chosen { "*" } else { " " };
+        let usable = r.delta_aicc.is_some();
+        let note = match (&r.why_not, r.converged, r.at_bound) {
+            (Some(w), false, _) if !r.params.is_empty() => format!("NOT CONVERGED: {w}"),
+            (Some(w), _, true) => format!("AT BOUND: {w}"),
+            (Some(w), _, _) => w.clone(),
+            (None, _, _) => String::new(),
+        };
         let _ = writeln!(
             s,
-            "{mark} {:<22} {:>3} {:>12} {:>10} {:>7}  {}",
+            "{mark} {:<22} {:>3} {:>12} {:>10} {:>7} {:>7}  {}",
             r.model.id(),
             r.model.n_params(),
-            r.rss.map_or_else(|| "—".to_string(), fmt_g),
+            r.rss
+                .filter(|_| usable)
+                .map_or_else(|| "—".to_string(), fmt_g),
             r.aicc
+                .filter(|_| usable)
                 .map_or_else(|| "—".to_string(), |v| format!("{v:.2}")),
             r.delta_aicc
                 .map_or_else(|| "—".to_string(), |v| format!("{v:.2}")),
-            r.why_not.as_deref().unwrap_or("")
+            r.weight
+                .map_or_else(|| "—".to_string(), |w| format!("{:.0} %", 100.0 * w)),
+            note
         );
     }
     let Some(fit) = &a.fit else {
@@ -261,38 +396,92 @@ pub fn render_text(a: &LotAnalysis) -> String {
         );
     }
     if let Some(fc) = fc {
-        let _ = write!(
+        let _ = writeln!(
             s,
             "\nForecast (criterion y = {}): {}",
             fc.threshold.map_or_else(|| "—".to_string(), fmt_g),
             status_word(fc.status)
         );
-        match fc.x {
-            Some(x) => {
-                let _ = writeln!(
-                    s,
-                    ", x* = {:.2}, interval [{}, {}]",
-                    x,
-                    fmt_opt(fc.lower),
-                    fc.upper
-                        .map_or_else(|| "unbounded".to_string(), |u| format!("{u:.4}"))
-                );
-            }
-            None => {
-                let _ = writeln!(s, " ({})", fc.why_not.map_or("", why_words));
-            }
+        let _ = writeln!(
+            s,
+            "  {}",
+            forecast_words(fc, a.observed.last().map(|p| p.0))
+        );
+        if let (Some(l), Some(lo)) = (fc.loss, fc.loss_lower) {
+            let _ = writeln!(
+                s,
+                "  loss over the fitted cycles {} (one-sided {:.0} % lower bound {})",
+                fmt_g(l),
+                fc.confidence * 100.0,
+                fmt_g(lo)
+            );
         }
         if let Some(t) = fc.lifetime_ton {
             let _ = writeln!(s, "  lifetime TON at x*: {t:.0}");
         }
     }
+    if a.weights.len() > 1 {
+        let parts: Vec<String> = a
+            .weights
+            .iter()
+            .map(|w| {
+                format!(
+                    "{} {:.0} % ({})",
+                    w.model.id(),
+                    100.0 * w.weight,
+                    w.crossing
+                        .map_or_else(|| "no crossing".to_string(), |x| format!("x* {x:.1}"))
+                )
+            })
+            .collect();
+        let _ = writeln!(s, "  averaged over: {}", parts.join(", "));
+    }
+    if let Some(n) = &a.next_cycle {
+        let _ = writeln!(
+            s,
+            "\nNext cycle x = {}: predicted {} [{}, {}] against {}: {}",
+            n.x,
+            fmt_g(n.predicted),
+            fmt_g(n.lower),
+            fmt_g(n.upper),
+            fmt_g(n.threshold),
+            match n.verdict {
+                NextVerdict::Ok => "ok (the whole prediction interval is above the criterion)",
+                NextVerdict::Marginal => "marginal (the prediction interval reaches the criterion)",
+                NextVerdict::Below => "below (the predicted activity is below the criterion)",
+            }
+        );
+    }
     if let Some(ab) = &a.abrupt {
-        let verdict = if ab.suspected {
-            "SUSPECTED"
-        } else {
-            "not indicated"
+        let verdict = match (ab.suspected, ab.change_at) {
+            (true, Some(x)) => format!("STEP CHANGE at x = {x}"),
+            (true, None) => "SUSPECTED (a level shift does not fit better than a trend)".into(),
+            (false, _) => "not indicated".into(),
         };
         let _ = writeln!(s, "\nAbrupt loss: {verdict}");
+        if let Some(sh) = &ab.shift {
+            let _ = writeln!(
+                s,
+                "  level shift ({} trend) from x = {}: drop {} [{}, {}]{}, ΔAICc vs one trend {}",
+                sh.base.id(),
+                sh.at,
+                fmt_g(sh.drop),
+                fmt_opt(sh.drop_lower),
+                fmt_opt(sh.drop_upper),
+                sh.drop_relative
+                    .map_or_else(String::new, |r| format!(" ({:.0} %)", 100.0 * r)),
+                sh.delta_vs_single
+                    .map_or_else(|| "—".to_string(), |d| format!("{d:.2}"))
+            );
+        }
+        if !ab.checks.is_empty() {
+            let below = ab.checks.iter().filter(|c| c.below).count();
+            let _ = writeln!(
+                s,
+                "  {below} of {} cycles since the change below the prediction interval of the earlier fit",
+                ab.checks.len()
+            );
+        }
         if let Some(p) = &ab.prediction {
             let _ = writeln!(
                 s,

@@ -1,0 +1,293 @@
+//! Model averaging: the forecast of `auto` when several models describe the lot.
+//!
+//! Choosing the best model by AICc and reporting its interval as if that model were known
+//! gives intervals that are far too narrow. Instead every usable candidate i gets the
+//! Akaike weight w_i ∝ exp(−ΔAICc_i/2), and any fitted quantity q (here h(x) = y(x) − c,
+//! the loss over the data and the next cycle's activity) is averaged, q̄ = Σ w_i·q_i, with
+//! the unconditional standard error
+//! se(q̄) = Σ w_i·√(var_i + (q_i − q̄)²)
+//! (Burnham & Anderson, "Model Selection and Multimodel Inference", 2nd ed., Springer 2002,
+//! §4.3.2, eq. 4.9; recalled from memory). The crossing of the averaged curve is the
+//! averaged forecast, and its interval inverts the averaged band, as for one fit
+//! ([`super::forecast`]). With a single candidate this is exactly that candidate's forecast.
+
+use serde::{Deserialize, Serialize};
+
+use super::engine::FitResult;
+use super::forecast::{Criterion, Decision, FitDecision, t_quantile, threshold_of};
+use super::models::ModelId;
+
+/// One model's share of the average.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ModelWeight {
+    pub model: ModelId,
+    pub aicc: f64,
+    pub delta_aicc: f64,
+    /// Akaike weight, summing to 1 over the averaged models.
+    pub weight: f64,
+    /// That model's own crossing of the criterion, when it has one ahead.
+    pub crossing: Option<f64>,
+}
+
+/// Weighted fits whose decision functions average.
+pub struct Averaged<'a> {
+    pub members: Vec<(f64, FitDecision<'a>)>,
+    /// Averaged threshold Σ w_i·c_i.
+    pub threshold: f64,
+    /// Degrees of freedom for Student t: the smallest among models with weight ≥ 5 %.
+    pub dof: usize,
+}
+
+/// Akaike weights of `fits` (usable ones only; the others get none). Returns (index into
+/// `fits`, weight) pairs, heaviest first.
+pub fn akaike_weights(fits: &[&FitResult]) -> Vec<(usize, f64)> {
+    let best = fits
+        .iter()
+        .filter_map(|f| f.aicc)
+        .min_by(|a, b| a.total_cmp(b));
+    let Some(best) = best else {
+        return Vec::new();
+    };
+    let mut w: Vec<(usize, f64)> = fits
+        .iter()
+        .enumerate()
+        .filter_map(|(i, f)| f.aicc.map(|a| (i, (-(a - best) / 2.0).exp())))
+        .collect();
+    let sum: f64 = w.iter().map(|e| e.1).sum();
+    w.iter_mut().for_each(|e| e.1 /= sum);
+    w.sort_by(|a, b| b.1.total_cmp(&a.1));
+    w
+}
+
+impl<'a> Averaged<'a> {
+    /// The average of `fits` (each usable: converged, with AICc and covariance) for
+    /// `criterion`. None when no fit qualifies.
+    pub fn new(fits: &[&'a FitResult], criterion: Criterion) -> Option<Averaged<'a>> {
+        let w = akaike_weights(fits);
+        if w.is_empty() {
+            return None;
+        }
+        let mut members = Vec::with_capacity(w.len());
+        let mut threshold = 0.0;
+        let mut dof = usize::MAX;
+        for &(i, wi) in &w {
+            let f = fits[i];
+            let (c, fraction) = threshold_of(criterion, f.predict(0.0));
+            threshold += wi * c;
+            if wi >= 0.05 {
+                dof = dof.min(f.dof);
+            }
+            members.push((
+                wi,
+                FitDecision {
+                    fit: f,
+                    threshold: c,
+                    fraction,
+                },
+            ));
+        }
+        Some(Averaged {
+            members,
+            threshold,
+            dof,
+        })
+    }
+
+    /// The weights, with each model's own crossing of the criterion after `x_last` (None
+    /// when that model's curve does not cross there).
+    pub fn weights(&self, x_first: f64, x_last: f64) -> Vec<ModelWeight> {
+        let best = self
+            .members
+            .iter()
+            .filter_map(|m| m.1.fit.aicc)
+            .fold(f64::INFINITY, f64::min);
+        self.members
+            .iter()
+            .map(|(w, d)| ModelWeight {
+                model: d.fit.model,
+                aicc: d.fit.aicc.unwrap_or(f64::NAN),
+                delta_aicc: d.fit.aicc.map_or(f64::NAN, |a| a - best),
+                weight: *w,
+                crossing: super::forecast::crossing_after(d, x_first, x_last),
+            })
+            .collect()
+    }
+
+    /// Averaged fitted activity at x with its unconditional standard error and the
+    /// averaged residual variance Σ w_i·s_i².
+    pub fn predict(&self, x: f64) -> (f64, f64, f64) {
+        let vals: Vec<(f64, f64, f64)> = self
+            .members
+            .iter()
+            .map(|(w, d)| {
+                let y = member_value(d, x);
+                let var = d.fit.mean_variance(x).unwrap_or(f64::NAN);
+                (*w, y, var)
+            })
+            .collect();
+        let mean: f64 = vals.iter().map(|v| v.0 * v.1).sum();
+        let se: f64 = vals
+            .iter()
+            .map(|v| v.0 * (v.2 + (v.1 - mean).powi(2)).sqrt())
+            .sum();
+        let s2: f64 = self
+            .members
+            .iter()
+            .map(|(w, d)| w * d.fit.sigma.map_or(f64::NAN, |s| s * s))
+            .sum();
+        (mean, se, s2)
+    }
+
+    /// Student-t quantile at `confidence` on the average's degrees of freedom.
+    pub fn t(&self, confidence: f64) -> Option<f64> {
+        t_quantile(confidence, self.dof)
+    }
+}
+
+/// A member's activity at x; a curve that has ended (power law of order m < 1 past its
+/// zero) is at zero there.
+fn member_value(d: &FitDecision<'_>, x: f64) -> f64 {
+    let y = d.fit.predict(x);
+    if y.is_nan() && d.fit.model == ModelId::Power {
+        0.0
+    } else {
+        y
+    }
+}
+
+impl Decision for Averaged<'_> {
+    fn value(&self, x: f64) -> f64 {
+        self.members
+            .iter()
+            .map(|(w, d)| {
+                let v = d.value(x);
+                if v.is_nan() && d.fit.model == ModelId::Power {
+                    w * -d.threshold
+                } else {
+                    w * v
+                }
+            })
+            .sum()
+    }
+    fn at(&self, x: f64) -> (f64, f64) {
+        let mut buf = [(0.0, 0.0, 0.0); 8];
+        let n = self.members.len().min(8);
+        let mut mean = 0.0;
+        for (k, (w, d)) in self.members.iter().take(n).enumerate() {
+            let (mut v, mut sd) = d.at(x);
+            if v.is_nan() && d.fit.model == ModelId::Power {
+                // Past the end of a curve that reaches zero: at zero, known.
+                v = -d.threshold;
+                sd = 0.0;
+            }
+            buf[k] = (*w, v, sd);
+            mean += w * v;
+        }
+        let se = buf[..n]
+            .iter()
+            .map(|(w, v, sd)| w * (sd * sd + (v - mean).powi(2)).sqrt())
+            .sum();
+        (mean, se)
+    }
+    fn loss(&self, a: f64, b: f64) -> (f64, f64) {
+        let vals: Vec<(f64, f64, f64)> = self
+            .members
+            .iter()
+            .map(|(w, d)| {
+                let (v, sd) = d.loss(a, b);
+                (*w, v, sd)
+            })
+            .collect();
+        let mean: f64 = vals.iter().map(|v| v.0 * v.1).sum();
+        let se = vals
+            .iter()
+            .map(|(w, v, sd)| w * (sd * sd + (v - mean).powi(2)).sqrt())
+            .sum();
+        (mean, se)
+    }
+    fn slope(&self, x: f64) -> f64 {
+        self.members.iter().map(|(w, d)| w * d.slope(x)).sum()
+    }
+    fn asymptote(&self) -> Option<f64> {
+        let mut s = 0.0;
+        for (w, d) in &self.members {
+            s += w * d.asymptote()?;
+        }
+        Some(s)
+    }
+}
+
+/// The verdict on the next batch.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum NextVerdict {
+    /// The lower prediction bound lies above the criterion.
+    Ok,
+    /// The prediction is above the criterion but its interval reaches below.
+    Marginal,
+    /// The predicted activity is below the criterion.
+    Below,
+}
+
+impl NextVerdict {
+    /// The verdict from a prediction, its lower bound and the criterion.
+    pub fn of(predicted: f64, lower: f64, threshold: f64) -> NextVerdict {
+        if predicted < threshold {
+            NextVerdict::Below
+        } else if lower > threshold {
+            NextVerdict::Ok
+        } else {
+            NextVerdict::Marginal
+        }
+    }
+    pub fn word(self) -> &'static str {
+        match self {
+            NextVerdict::Ok => "ok",
+            NextVerdict::Marginal => "marginal",
+            NextVerdict::Below => "below",
+        }
+    }
+}
+
+/// The next cycle's predicted activity with its prediction interval, against the criterion.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct NextCycle {
+    pub x: f64,
+    pub predicted: f64,
+    pub lower: f64,
+    pub upper: f64,
+    pub threshold: f64,
+    pub verdict: NextVerdict,
+}
+
+impl NextCycle {
+    /// From a prediction with the standard error of the mean `se`, residual variance `s2`
+    /// and Student t quantile `t`: interval predicted ± t·√(se² + s2).
+    pub fn new(x: f64, predicted: f64, se: f64, s2: f64, t: f64, threshold: f64) -> Option<Self> {
+        let half = t * (se * se + s2).sqrt();
+        if !(predicted.is_finite() && half.is_finite() && threshold.is_finite()) {
+            return None;
+        }
+        let lower = predicted - half;
+        Some(NextCycle {
+            x,
+            predicted,
+            lower,
+            upper: predicted + half,
+            threshold,
+            verdict: NextVerdict::of(predicted, lower, threshold),
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn verdicts() {
+        assert_eq!(NextVerdict::of(0.8, 0.7, 0.5), NextVerdict::Ok);
+        assert_eq!(NextVerdict::of(0.6, 0.45, 0.5), NextVerdict::Marginal);
+        assert_eq!(NextVerdict::of(0.49, 0.4, 0.5), NextVerdict::Below);
+    }
+}

@@ -1,0 +1,189 @@
+//! Coverage of the 90 % forecast interval, by seeded simulation from known truth, for `auto`
+//! (the Akaike-weighted average over every activity model) and for the true model named
+//! alone. Truths (a0 = 1, replacement at half the fresh activity, true crossing at cycle
+//! 25): first order, second order, power law of order 1.5 and first order with residual
+//! activity; Gaussian noise of sd 0.03 and 0.05; n = 6, 10 and 20 cycles.
+//!
+//! A trial covers when the interval the analysis states contains the true crossing: for a
+//! crossing ahead [lower, upper]; for an unbounded interval or no significant trend
+//! [lower, ∞) when a lower bound is stated, and so for a criterion not reached under the
+//! fitted curve when the data do not exclude a crossing from some lower limit on; every
+//! other state (withheld, reached already, no limit stated) does not cover.
+//!
+//! The CI runs a representative subset; the whole grid is `#[ignore]`d (run it with
+//! `cargo test --release --test fit_averaging -- --ignored --nocapture`).
+
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
+use rand_distr::{Distribution, Normal};
+use turnbook::fit::{
+    AnalysisOptions, Criterion, ForecastStatus, LotAnalysis, LotSeries, ModelId, analyse,
+};
+
+const X_TRUE: f64 = 25.0;
+
+/// True parameters giving y(25) = 0.5·y(0) with y(0) = 1.
+fn truth(model: ModelId) -> Vec<f64> {
+    match model {
+        ModelId::FirstOrder => vec![1.0, 2f64.ln() / X_TRUE],
+        ModelId::SecondOrder => vec![1.0, 1.0 / X_TRUE],
+        // (1 + 0.5·kd·25)^(−2) = 0.5 ⇒ kd = (√2 − 1)/12.5.
+        ModelId::Power => vec![1.0, (2f64.sqrt() - 1.0) / (0.5 * X_TRUE), 1.5],
+        // 0.3 + 0.7·exp(−25·kd) = 0.5 ⇒ kd = ln(3.5)/25.
+        ModelId::FirstOrderResidual => vec![1.0, 0.3, 3.5f64.ln() / X_TRUE],
+        _ => unreachable!("not a simulated truth"),
+    }
+}
+
+fn covers(a: &LotAnalysis) -> bool {
+    let Some(fc) = &a.forecast else {
+        return false;
+    };
+    match fc.status {
+        ForecastStatus::Ahead => {
+            fc.lower.is_some_and(|l| l <= X_TRUE) && fc.upper.is_some_and(|u| X_TRUE <= u)
+        }
+        ForecastStatus::UnboundedInterval
+        | ForecastStatus::NoSignificantTrend
+        | ForecastStatus::NotReached => {
+            fc.lower.is_some_and(|l| l <= X_TRUE) && fc.upper.is_none_or(|u| X_TRUE <= u)
+        }
+        _ => false,
+    }
+}
+
+/// (coverage, share of trials in each state: ahead, unbounded, no-significant-trend, other).
+fn coverage(
+    model: ModelId,
+    auto: bool,
+    sd: f64,
+    n: usize,
+    trials: usize,
+    seed: u64,
+) -> (f64, [f64; 4]) {
+    let p = truth(model);
+    assert!((model.eval(X_TRUE, &p) - 0.5).abs() < 1e-12);
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let noise = Normal::new(0.0, sd).expect("valid sd");
+    let x: Vec<f64> = (1..=n).map(|i| i as f64).collect();
+    let opts = AnalysisOptions {
+        criterion: Criterion::FractionOfFresh(0.5),
+        confidence: 0.90,
+        candidates: if auto {
+            ModelId::ACTIVITY.to_vec()
+        } else {
+            vec![model]
+        },
+        grid_points: 2,
+        ..AnalysisOptions::default()
+    };
+    let mut covered = 0;
+    let mut states = [0usize; 4];
+    for _ in 0..trials {
+        let y: Vec<f64> = x
+            .iter()
+            .map(|&v| model.eval(v, &p) + noise.sample(&mut rng))
+            .collect();
+        let a = analyse(
+            &LotSeries {
+                x: x.clone(),
+                y,
+                ..LotSeries::default()
+            },
+            &opts,
+        );
+        if covers(&a) {
+            covered += 1;
+        }
+        let k = match a.forecast.as_ref().map(|f| f.status) {
+            Some(ForecastStatus::Ahead) => 0,
+            Some(ForecastStatus::UnboundedInterval) => 1,
+            Some(ForecastStatus::NoSignificantTrend) => 2,
+            _ => 3,
+        };
+        states[k] += 1;
+    }
+    let t = trials as f64;
+    (covered as f64 / t, states.map(|s| s as f64 / t))
+}
+
+fn report(model: ModelId, auto: bool, sd: f64, n: usize, trials: usize, seed: u64) -> f64 {
+    let (c, s) = coverage(model, auto, sd, n, trials, seed);
+    eprintln!(
+        "{:<22} {:<5} sd {sd:.2} n {n:>2}: coverage {c:.3}  (ahead {:.2}, unbounded {:.2}, no-trend {:.2}, other {:.2})",
+        model.id(),
+        if auto { "auto" } else { "named" },
+        s[0],
+        s[1],
+        s[2],
+        s[3]
+    );
+    c
+}
+
+// With 300 trials the binomial sd of a 90 % coverage is 1.7 points: 85–95 % is about
+// three sd either side.
+const CI_TRIALS: usize = 300;
+
+#[test]
+fn auto_covers_first_order_n6() {
+    let c = report(ModelId::FirstOrder, true, 0.05, 6, CI_TRIALS, 101);
+    assert!((0.85..=0.95).contains(&c), "coverage {c}");
+}
+
+#[test]
+fn auto_covers_second_order_n20() {
+    let c = report(ModelId::SecondOrder, true, 0.03, 20, CI_TRIALS, 102);
+    assert!((0.85..=0.95).contains(&c), "coverage {c}");
+}
+
+#[test]
+fn auto_covers_residual_activity_n20() {
+    let c = report(ModelId::FirstOrderResidual, true, 0.03, 20, CI_TRIALS, 103);
+    assert!((0.85..=0.95).contains(&c), "coverage {c}");
+}
+
+#[test]
+fn named_power_covers_n20() {
+    let c = report(ModelId::Power, false, 0.03, 20, CI_TRIALS, 104);
+    assert!((0.85..=0.95).contains(&c), "coverage {c}");
+}
+
+#[test]
+fn named_second_order_covers_n10() {
+    let c = report(ModelId::SecondOrder, false, 0.05, 10, CI_TRIALS, 105);
+    assert!((0.85..=0.95).contains(&c), "coverage {c}");
+}
+
+#[test]
+#[ignore = "the whole grid: minutes in a release build"]
+fn full_coverage_grid() {
+    let mut outside = Vec::new();
+    let mut seed = 1000;
+    for model in [
+        ModelId::FirstOrder,
+        ModelId::SecondOrder,
+        ModelId::Power,
+        ModelId::FirstOrderResidual,
+    ] {
+        for sd in [0.03, 0.05] {
+            for n in [6, 10, 20] {
+                for auto in [false, true] {
+                    seed += 1;
+                    let c = report(model, auto, sd, n, 1000, seed);
+                    // Held to 85–95 %: every cell at n = 20, and first and second order
+                    // named at every n. The other cells are printed: at n = 6 and 10 the
+                    // average's interval is mostly open above and covers 94–98 %, and the
+                    // residual-activity model named alone covers 70–81 % (its asymptote is
+                    // not identified by so few cycles).
+                    let held = n == 20
+                        || (!auto && matches!(model, ModelId::FirstOrder | ModelId::SecondOrder));
+                    if held && !(0.85..=0.95).contains(&c) {
+                        outside.push(format!("{} auto={auto} sd={sd} n={n}: {c}", model.id()));
+                    }
+                }
+            }
+        }
+    }
+    assert!(outside.is_empty(), "outside 85–95 %: {outside:#?}");
+}

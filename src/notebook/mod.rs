@@ -63,12 +63,5 @@ pub fn verify(
     heads: &[crate::model::chain::Head],
 ) -> Result<crate::audit::VerifyReport> {
     let conn = crate::store::open(&cfg.database_path())?;
-    let key = chain::key_for_checking(cfg)?;
-    let mut all: Vec<_> = heads.to_vec();
-    all.extend(chain::witnessed_head(&cfg.head_witness_path())?);
-    let w = crate::audit::Witnesses {
-        key: key.as_ref(),
-        heads: all,
-    };
-    Ok(crate::audit::verify_with(&conn, &w)?)
+    chain::verify_with_witnesses(cfg, &conn, heads)
 }

@@ -259,14 +259,7 @@ fn cycle_lines(state: &LotState, corrected_batches: &[String]) -> Vec<report::Cy
 
 /// The audit chain's state as `verify` finds it, with the notebook's key and witness.
 fn verify_line(conn: &Connection, cfg: &Config) -> Result<report::VerifyLine> {
-    let key = super::chain::key_for_checking(cfg)?;
-    let w = crate::audit::Witnesses {
-        key: key.as_ref(),
-        heads: super::chain::witnessed_head(&cfg.head_witness_path())?
-            .into_iter()
-            .collect(),
-    };
-    let v = crate::audit::verify_with(conn, &w)?;
+    let v = super::chain::verify_with_witnesses(cfg, conn, &[])?;
     Ok(report::VerifyLine {
         ran_at: now_utc(),
         outcome: if v.ok() {

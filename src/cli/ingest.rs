@@ -22,11 +22,14 @@ pub fn ingest(cfg: Config, a: &IngestArgs) -> CmdResult {
     bar.finish_and_clear();
     if !json {
         println!(
-            "{} files: {} ingested, {} duplicates, {} rejected; rows: {} new, {} already recorded, {} conflicting",
+            "{} entries: {} ingested, {} duplicates, {} rejected ({} of them not read: links \
+             leading out of their folder, pipes, sockets, devices); rows: {} new, {} already \
+             recorded, {} conflicting",
             files.len(),
             summary.ingested,
             summary.duplicates,
             summary.rejected,
+            summary.entries_refused,
             summary.rows_new,
             summary.rows_known,
             summary.rows_conflict

@@ -1,7 +1,7 @@
 //! One plausibility rule per quantity, whichever way a value enters: a column of an export
 //! or a person's correction. The parser and `correct` both call [`check_canonical`].
 
-use super::parse::{FRACTION_SLACK, parse_number};
+use super::number::{FRACTION_SLACK, parse_number, short_number};
 use super::profile::{DEFAULT_TEMPERATURE_RANGE_K, DecimalMark};
 use super::units::{Dimension, Unit, dimension_of};
 use crate::model::Quantity;
@@ -38,7 +38,9 @@ pub fn check_canonical(q: Quantity, c: f64, temperature_range_k: [f64; 2]) -> Re
                 Ok(c)
             } else {
                 Err(format!(
-                    "a temperature between {lo} K and {hi} K ({:.2} °C to {:.2} °C)",
+                    "a temperature between {} K and {} K ({:.2} °C to {:.2} °C)",
+                    short_number(lo),
+                    short_number(hi),
                     lo - 273.15,
                     hi - 273.15
                 ))

@@ -341,6 +341,7 @@ impl Ingestor {
         let reader = Reader {
             cfg: &self.cfg,
             profile_override: self.profile_override.as_deref(),
+            now: chrono::Utc::now().naive_utc(),
         };
         bulk::set_full_sync(&self.conn, false)?;
         let db_path = self.cfg.database_path();
@@ -445,6 +446,7 @@ impl Ingestor {
         let prepared = Reader {
             cfg: &self.cfg,
             profile_override: self.profile_override.as_deref(),
+            now: chrono::Utc::now().naive_utc(),
         }
         .prepare_group(paths, &mut self.parse_cache);
         Writer::new(&mut self.conn, &self.cfg, &self.actor)
@@ -878,6 +880,8 @@ fn log_ingested(outcomes: &[FileOutcome]) {
 struct Reader<'a> {
     cfg: &'a Config,
     profile_override: Option<&'a str>,
+    /// The present time of the run, which bounds the plausible dates of an export.
+    now: chrono::NaiveDateTime,
 }
 
 impl Reader<'_> {
@@ -1014,6 +1018,7 @@ impl Reader<'_> {
         };
         match (self.cfg.profiles.get(name), valid.get(name)) {
             (Some(profile), Some(Ok(()))) => {
+                cache.set_now(self.now);
                 cache.parse_valid(bytes, profile).map_err(|e| e.to_string())
             }
             // An invalid profile: the parser names what is wrong with it.

@@ -1164,12 +1164,13 @@ fn quarantine_copy(dir: &Path, facts: &FileFacts) -> Option<String> {
     }
     let prefix = facts.sha256.get(..12).unwrap_or("unhashed");
     let dest = dir.join(format!("{prefix}-{name}"));
-    if let Err(e) = std::fs::create_dir_all(dir) {
+    if let Err(e) = crate::modes::create_dirs(dir) {
         tracing::error!(dir = ?dir, error = %e, "cannot create the quarantine folder");
         return None;
     }
-    match std::fs::copy(src, &dest) {
-        Ok(_) => Some(dest.display().to_string()),
+    // A copy takes its source's mode; a quarantined copy is the service's, mode 0640.
+    match std::fs::copy(src, &dest).and_then(|_| crate::modes::restrict_file(&dest)) {
+        Ok(()) => Some(dest.display().to_string()),
         Err(e) => {
             tracing::warn!(path = %facts.path.escape_debug(), error = %e, "cannot copy the file into quarantine");
             None

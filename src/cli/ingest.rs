@@ -76,5 +76,11 @@ pub fn verify(cfg: &Config, heads: &[crate::model::chain::Head], json: bool) -> 
             println!("{lead}{f}");
         }
     }
+    if !json {
+        // Apart from the verdict: a sign-off that no longer covers is not tampering.
+        for s in &report.signoffs {
+            println!("{}", printable(&s.to_string()));
+        }
+    }
     Ok(if report.ok() { 0 } else { 1 })
 }

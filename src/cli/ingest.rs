@@ -21,15 +21,24 @@ pub fn ingest(cfg: Config, a: &IngestArgs) -> CmdResult {
     })?;
     bar.finish_and_clear();
     if !json {
+        // Entries not read (links leading out, pipes...) are named when there are any.
+        let (what, not_read) = match summary.entries_refused {
+            0 => ("files", String::new()),
+            n => (
+                "entries",
+                format!(
+                    " ({n} of them not read: links leading out of their folder, pipes, \
+                     sockets, devices)"
+                ),
+            ),
+        };
         println!(
-            "{} entries: {} ingested, {} duplicates, {} rejected ({} of them not read: links \
-             leading out of their folder, pipes, sockets, devices); rows: {} new, {} already \
-             recorded, {} conflicting",
+            "{} {what}: {} ingested, {} duplicates, {} rejected{not_read}; rows: {} new, {} \
+             already recorded, {} conflicting",
             files.len(),
             summary.ingested,
             summary.duplicates,
             summary.rejected,
-            summary.entries_refused,
             summary.rows_new,
             summary.rows_known,
             summary.rows_conflict

@@ -668,6 +668,8 @@ pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport>
         );
     }
 
+    check_conditions(conn, &mut findings)?;
+
     Ok(VerifyReport {
         events: count,
         head_hash: prev,
@@ -677,6 +679,58 @@ pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport>
         heads_checked: w.heads.len(),
         signoffs: signoff_coverage(conn, signoffs)?,
     })
+}
+
+/// Each alert condition against what its messages in the outbox imply: every change of a
+/// condition queues one message in the same transaction, so the newest message of a key
+/// gives its state, severity and episode, the message that opened the episode its thread,
+/// and its time the condition's. (Both tables can still be edited alike: the outbox is not
+/// in the events.)
+fn check_conditions(conn: &Connection, findings: &mut Vec<Finding>) -> Result<()> {
+    use store::replay::ConditionRow;
+    let mut implied: BTreeMap<String, (ConditionRow, i64)> = BTreeMap::new();
+    for m in store::replay::alert_messages(conn)? {
+        let thread = match implied.get(&m.alert_key) {
+            Some((c, _)) if m.state != "open" => c.thread_message_id.clone(),
+            _ => m.message_id.clone(),
+        };
+        let row = ConditionRow {
+            rule: m.rule,
+            lot: m.lot,
+            state: m.state,
+            severity: m.severity,
+            episode: m.episode,
+            thread_message_id: thread,
+            changed_at: m.queued_at,
+        };
+        implied.insert(m.alert_key, (row, m.id));
+    }
+    let stored: BTreeMap<String, ConditionRow> =
+        store::replay::alert_conditions(conn)?.into_iter().collect();
+    for (key, (expected, id)) in &implied {
+        match stored.get(key) {
+            None => push(
+                findings,
+                "alert_condition",
+                key,
+                "(row)",
+                "missing",
+                format!("present (outbox message {id} records it)"),
+            ),
+            Some(s) => diff_rows(findings, "alert_condition", key, s, expected),
+        }
+    }
+    for key in stored.keys().filter(|k| !implied.contains_key(*k)) {
+        push(
+            findings,
+            "alert_condition",
+            key,
+            "(row)",
+            "present",
+            "absent (no outbox message records it)",
+        );
+    }
+    Ok(())
 }
 
 fn diff_cycle(out: &mut Vec<Finding>, s: &view::CycleView, e: &view::CycleView) {

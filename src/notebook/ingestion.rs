@@ -338,11 +338,7 @@ impl Ingestor {
             .chunks(self.cfg.files_per_transaction.max(1))
             .collect();
         let readers = reader_threads(groups.len());
-        let reader = Reader {
-            cfg: &self.cfg,
-            profile_override: self.profile_override.as_deref(),
-            now: chrono::Utc::now().naive_utc(),
-        };
+        let reader = Reader::new(&self.cfg, self.profile_override.as_deref());
         bulk::set_full_sync(&self.conn, false)?;
         let db_path = self.cfg.database_path();
         let committed = AtomicUsize::new(0);
@@ -443,12 +439,8 @@ impl Ingestor {
 
     /// Store a group of files and recompute the lots they touched, in one transaction.
     fn ingest_group(&mut self, paths: &[PathBuf]) -> Result<Vec<FileOutcome>, StoreError> {
-        let prepared = Reader {
-            cfg: &self.cfg,
-            profile_override: self.profile_override.as_deref(),
-            now: chrono::Utc::now().naive_utc(),
-        }
-        .prepare_group(paths, &mut self.parse_cache);
+        let prepared = Reader::new(&self.cfg, self.profile_override.as_deref())
+            .prepare_group(paths, &mut self.parse_cache);
         Writer::new(&mut self.conn, &self.cfg, &self.actor)
             .store(prepared, None, true, &mut Leftovers::default())
             .map(|(o, _)| o)
@@ -884,7 +876,16 @@ struct Reader<'a> {
     now: chrono::NaiveDateTime,
 }
 
-impl Reader<'_> {
+impl<'a> Reader<'a> {
+    /// A reader for a run that starts now: the present time bounds the plausible dates.
+    fn new(cfg: &'a Config, profile_override: Option<&'a str>) -> Self {
+        Reader {
+            cfg,
+            profile_override,
+            now: chrono::Utc::now().naive_utc(),
+        }
+    }
+
     fn prepare_group(&self, paths: &[PathBuf], cache: &mut ParseCache) -> Vec<Prepared> {
         self.prepare_part(paths, cache, u64::MAX)
     }
@@ -963,13 +964,10 @@ impl Reader<'_> {
                 };
             }
         };
-        if !meta.is_file() {
-            let kind = crate::watch::entry_kind(&meta.file_type());
+        if let Some(why) = not_a_regular_file(&meta) {
             return Prepared {
                 facts,
-                result: Err(format!(
-                    "cannot read the file: it is {kind}, not a regular file; expected an export file"
-                )),
+                result: Err(why),
             };
         }
         facts.size = i64::try_from(meta.len()).unwrap_or(i64::MAX);
@@ -1096,6 +1094,14 @@ fn open_unfollowed(path: &Path) -> std::io::Result<std::fs::File> {
         .read(true)
         .custom_flags(libc::O_NOFOLLOW | libc::O_NONBLOCK)
         .open(path)
+}
+
+/// Why a file that is not a regular file (a named pipe, a socket, a device) is not read.
+fn not_a_regular_file(meta: &std::fs::Metadata) -> Option<String> {
+    (!meta.is_file()).then(|| {
+        let kind = crate::watch::entry_kind(&meta.file_type());
+        format!("cannot read the file: it is {kind}, not a regular file; expected an export file")
+    })
 }
 
 /// Read the whole of an open file whose size is known from its metadata. `File`'s own

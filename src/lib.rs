@@ -14,6 +14,7 @@
 //! - [`chem`], [`fit`], [`ingest`], [`report`], [`alert`]: the pure core: chemistry,
 //!   deactivation fits and forecasts, reading exports, rendering reports, alert rules and
 //!   messages. No I/O, no clock, no database.
+//! - [`modes`]: the file and folder modes of what turnbook writes.
 //! - [`model`]: the shared vocabulary: quantities, event payloads, a cycle's view, the
 //!   chain's link rule, timestamps.
 
@@ -26,6 +27,7 @@ pub mod fit;
 pub mod ingest;
 pub mod mail;
 pub mod model;
+pub mod modes;
 pub mod notebook;
 pub mod report;
 pub mod store;

@@ -380,10 +380,10 @@ fn write_eml(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf, MailError>
         let path = path.to_path_buf();
         move |e| MailError::Io { path, source: e }
     };
-    std::fs::create_dir_all(dir).map_err(io(dir))?;
+    crate::modes::create_dirs(dir).map_err(io(dir))?;
     let tmp = dir.join(format!(".{name}.tmp"));
     let dst = dir.join(name);
-    std::fs::write(&tmp, bytes).map_err(io(&tmp))?;
+    crate::modes::write_file(&tmp, bytes).map_err(io(&tmp))?;
     std::fs::rename(&tmp, &dst).map_err(io(&dst))?;
     Ok(dst)
 }

@@ -6,10 +6,25 @@ use clap::Parser;
 
 fn main() -> ExitCode {
     restore_default_sigpipe();
+    restrict_umask();
     turnbook::store::configure_library();
     let cli = turnbook::cli::Cli::parse();
     turnbook::cli::init_logging(cli.log_json, cli.command.is_service());
     turnbook::cli::run(cli)
+}
+
+/// Files and folders this process creates are for its user and group only (0640, 0750),
+/// whatever umask it was started with: a umask of 0027, set before anything is created.
+/// The umask rather than a mode at every creation because SQLite, reports and other code
+/// create files too; `turnbook::modes` sets the mode explicitly where a copy or the
+/// library's use without this binary would otherwise decide it.
+fn restrict_umask() {
+    #[cfg(unix)]
+    // SAFETY: called first thing in main, before any thread exists; umask only changes
+    // the mode of files created later.
+    unsafe {
+        libc::umask(turnbook::modes::UMASK as libc::mode_t);
+    }
 }
 
 /// Rust ignores SIGPIPE, so printing into a closed pipe (`turnbook lots | head`) would

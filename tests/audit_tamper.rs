@@ -180,13 +180,17 @@ const TAMPERS: &[Tamper] = &[
     ("event hash edited", "events", |c| {
         sql(
             c,
-            "UPDATE events SET hash = replace(hash, substr(hash, 1, 1), 'f') WHERE seq = 3",
+            // The first hex digit turned into another one (the key is new each run, so
+            // the digit it had is not known in advance).
+            "UPDATE events SET hash = (CASE WHEN substr(hash, 1, 1) = 'f' THEN 'e' ELSE 'f' END) \
+             || substr(hash, 2) WHERE seq = 3",
         )
     }),
     ("event prev_hash edited", "events", |c| {
         sql(
             c,
-            "UPDATE events SET prev_hash = '00' || substr(prev_hash, 3) WHERE seq = 4",
+            "UPDATE events SET prev_hash = (CASE WHEN substr(prev_hash, 1, 2) = '00' THEN '11' \
+             ELSE '00' END) || substr(prev_hash, 3) WHERE seq = 4",
         )
     }),
     (
@@ -231,7 +235,8 @@ const TAMPERS: &[Tamper] = &[
     ("keying proof edited", "chain_keying", |c| {
         sql(
             c,
-            "UPDATE chain_keying SET key_proof = 'ab' || substr(key_proof, 3)",
+            "UPDATE chain_keying SET key_proof = (CASE WHEN substr(key_proof, 1, 2) = 'ab' \
+             THEN 'cd' ELSE 'ab' END) || substr(key_proof, 3)",
         )
     }),
     ("keying switch moved", "events", |c| {

@@ -358,8 +358,9 @@ fn good_files_are_ingested_and_each_broken_one_is_named_with_its_reason() {
     let tmp = tempfile::tempdir().unwrap();
     let dir = fresh_plant(tmp.path());
     let exports = dir.join("exports");
-    let mut good = Vec::new();
-    turnbook::notebook::collect_files(&exports, &mut good).unwrap();
+    let mut listing = turnbook::notebook::Listing::default();
+    turnbook::notebook::collect_files(&exports, &mut listing).unwrap();
+    let good = listing.files;
     let bad = broken_files();
     assert!(bad.len() >= 20);
     for b in &bad {

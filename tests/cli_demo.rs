@@ -45,8 +45,9 @@ fn demo_writes_plant_database_alerts_and_reports_and_refuses_a_used_folder() {
     assert!(dir.join("turnbook.toml").is_file());
     assert!(dir.join("turnbook.db").is_file());
     let exports = dir.join("exports");
-    let mut n_exports = Vec::new();
-    turnbook::notebook::collect_files(&exports, &mut n_exports).unwrap();
+    let mut listing = turnbook::notebook::Listing::default();
+    turnbook::notebook::collect_files(&exports, &mut listing).unwrap();
+    let n_exports = listing.files;
     assert!(n_exports.len() >= 10, "{} export files", n_exports.len());
 
     let mails = files_with_ext(&dir.join("outbox"), "eml");
@@ -113,8 +114,9 @@ fn second_backfill_adds_nothing_and_reports_every_file_as_a_duplicate() {
     let cfg = dir.join("turnbook.toml");
     let db = dir.join("turnbook.db");
     let exports = dir.join("exports");
-    let mut files = Vec::new();
-    turnbook::notebook::collect_files(&exports, &mut files).unwrap();
+    let mut listing = turnbook::notebook::Listing::default();
+    turnbook::notebook::collect_files(&exports, &mut listing).unwrap();
+    let files = listing.files;
     let n = files.len() as i64;
     let cycles_before = count(&db, "SELECT COUNT(*) FROM cycles");
     let measurements_before = count(&db, "SELECT COUNT(*) FROM measurements");
@@ -198,8 +200,9 @@ fn small_transactions_give_the_same_records_in_path_order() {
     let cfg = dir.join("small.toml");
     std::fs::write(&cfg, small).unwrap();
     let exports = dir.join("exports");
-    let mut files = Vec::new();
-    turnbook::notebook::collect_files(&exports, &mut files).unwrap();
+    let mut listing = turnbook::notebook::Listing::default();
+    turnbook::notebook::collect_files(&exports, &mut listing).unwrap();
+    let files = listing.files;
     // Repeat one content under a new name so that a duplicate falls inside a later group.
     let copy = exports.join("hplc").join("zz-copy-of-first.csv");
     std::fs::copy(exports.join("hplc").join("KV4-H-001.csv"), &copy).unwrap();

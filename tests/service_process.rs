@@ -470,3 +470,69 @@ fn sigterm_while_a_file_is_being_written_exits_zero_within_five_seconds() {
     assert_eq!(plant.rows_for(&path)[0].outcome, "ingested");
     service.stop();
 }
+
+#[test]
+fn a_pipe_and_a_link_out_are_recorded_once_and_a_link_in_is_ingested() {
+    use std::os::unix::fs::symlink;
+    let plant = Plant::new(&[("hplc", "events")]);
+    let outside = tempfile::tempdir().unwrap();
+    let hplc = plant.folder("hplc");
+    // Present before the start: the catch-up scan finds them.
+    let pipe = hplc.join("pipe.csv");
+    let status = Command::new("mkfifo").arg(&pipe).status().unwrap();
+    assert!(status.success());
+    let secret = outside.path().join("elsewhere.csv");
+    fs::write(&secret, export(&[("OUT-1", "LOT-X", "50.0", "30")])).unwrap();
+    let link_out = hplc.join("link-out.csv");
+    symlink(&secret, &link_out).unwrap();
+    // The folder is not recursive: the archived export is reached through its link only.
+    fs::create_dir_all(hplc.join("archive")).unwrap();
+    let kept = hplc.join("archive").join("kept.csv");
+    fs::write(&kept, export(&[("IN-1", "LOT-I", "66.0", "30")])).unwrap();
+    let link_in = hplc.join("link-in.csv");
+    symlink(&kept, &link_in).unwrap();
+
+    let service = plant.start();
+    for p in [&pipe, &link_out, &link_in] {
+        plant.wait_recorded(p, Duration::from_secs(10));
+    }
+    let row = |p: &Path| -> (String, String) {
+        plant
+            .db()
+            .query_row(
+                "SELECT outcome, COALESCE(error, '') FROM source_files WHERE path = ?1",
+                [p.display().to_string()],
+                |r| Ok((r.get(0)?, r.get(1)?)),
+            )
+            .unwrap()
+    };
+    let (outcome, error) = row(&pipe);
+    assert_eq!(outcome, "rejected");
+    assert!(error.starts_with("a named pipe (FIFO)"), "{error}");
+    let (outcome, error) = row(&link_out);
+    assert_eq!(outcome, "rejected");
+    assert!(error.contains("outside the folder"), "{error}");
+    assert_eq!(row(&link_in).0, "ingested");
+    assert_eq!(
+        plant.count("SELECT COUNT(*) FROM cycles WHERE batch_id = 'OUT-1'"),
+        0,
+        "the export behind the link out was not read"
+    );
+    service.stop();
+    let before = plant.count("SELECT COUNT(*) FROM source_files");
+    assert_eq!(before, 3);
+
+    // A restart scans them again: nothing is recorded twice.
+    let service = plant.start();
+    let sentinel = hplc.join("after-restart.csv");
+    drop_file(&sentinel, &export(&[("AFTER-2", "LOT-I", "60.0", "30")]));
+    plant.wait_recorded(&sentinel, Duration::from_secs(10));
+    std::thread::sleep(Duration::from_millis(2 * SETTLE_MS));
+    assert_eq!(
+        plant.count("SELECT COUNT(*) FROM source_files"),
+        before + 1,
+        "log:\n{}",
+        plant.log()
+    );
+    service.stop();
+}

@@ -24,6 +24,8 @@ struct Call {
 #[derive(Default)]
 struct Recorder {
     calls: Mutex<Vec<Call>>,
+    /// Entries reported as refused: name and reason.
+    refused: Mutex<Vec<(String, String)>>,
     fail_on: Vec<String>,
     delay: Duration,
 }
@@ -44,9 +46,24 @@ impl FileSink for Recorder {
         }
         Ok(())
     }
+
+    fn refuse(&self, _folder: &WatchFolder, path: &Path, reason: &str) -> anyhow::Result<()> {
+        let name = path.file_name().unwrap().to_string_lossy().into_owned();
+        self.refused
+            .lock()
+            .unwrap()
+            .push((name, reason.to_string()));
+        Ok(())
+    }
 }
 
 impl Recorder {
+    fn refused(&self) -> Vec<(String, String)> {
+        let mut r = self.refused.lock().unwrap().clone();
+        r.sort();
+        r
+    }
+
     fn calls(&self) -> Vec<Call> {
         self.calls.lock().unwrap().clone()
     }
@@ -266,6 +283,57 @@ async fn ignored_names_and_links_leaving_the_folder_are_not_offered() {
     let mut names = sink.names();
     names.sort();
     assert_eq!(names, vec!["run-1.csv", "run-3.csv"], "{:?}", sink.calls());
+    // The links leading out are not offered, but each is reported once, with where it leads.
+    let refused = sink.refused();
+    let refused_names: Vec<&str> = refused.iter().map(|(n, _)| n.as_str()).collect();
+    assert_eq!(
+        refused_names,
+        vec!["escape-1.csv", "escape-2.csv"],
+        "{refused:?}"
+    );
+    for (_, reason) in &refused {
+        assert!(reason.contains("payroll.csv"), "{reason}");
+        assert!(reason.contains("outside the folder"), "{reason}");
+    }
+    running.stop().await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_polled_folder_reports_a_pipe_and_a_link_to_a_folder_once() {
+    use std::os::unix::fs::symlink;
+    let dir = tempfile::tempdir().unwrap();
+    fs::create_dir(dir.path().join("archive")).unwrap();
+    symlink(dir.path().join("archive"), dir.path().join("archive-link")).unwrap();
+    let status = std::process::Command::new("mkfifo")
+        .arg(dir.path().join("pipe.csv"))
+        .status()
+        .unwrap();
+    assert!(status.success());
+    let inner = dir.path().join("archive").join("kept.csv");
+    fs::write(&inner, b"1").unwrap();
+    symlink(&inner, dir.path().join("alias-of-kept.csv")).unwrap();
+    let mut f = folder(dir.path(), 100);
+    f.mode = WatchMode::Poll;
+    f.poll_interval = 1;
+    let sink = Arc::new(Recorder::default());
+    let running = start(vec![f], sink.clone());
+    sink.wait_for(1, Duration::from_secs(3)).await;
+    // Three scans see the same entries: each is reported once.
+    tokio::time::sleep(Duration::from_millis(2300)).await;
+    assert_eq!(
+        sink.names(),
+        vec!["alias-of-kept.csv"],
+        "a link inside is followed"
+    );
+    let refused = sink.refused();
+    assert_eq!(refused.len(), 2, "{refused:?}");
+    assert_eq!(refused[0].0, "archive-link");
+    assert!(refused[0].1.contains("link to a folder"), "{refused:?}");
+    assert_eq!(refused[1].0, "pipe.csv");
+    assert!(
+        refused[1].1.starts_with("a named pipe (FIFO)"),
+        "{refused:?}"
+    );
     running.stop().await;
 }
 

@@ -74,7 +74,7 @@ pub fn create(path: &Path) -> Result<ChainKey, KeyError> {
         .and_then(|mut f| f.read_exact(&mut bytes))
         .map_err(io(Path::new("/dev/urandom")))?;
     if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
-        std::fs::create_dir_all(dir).map_err(io(path))?;
+        crate::modes::create_dirs(dir).map_err(io(path))?;
     }
     let mut options = std::fs::OpenOptions::new();
     options.write(true).create_new(true);
@@ -101,10 +101,7 @@ pub fn publish_head(path: &Path, head: &Head) -> Result<(), KeyError> {
     let mut tmp = path.as_os_str().to_owned();
     tmp.push(".new");
     let tmp = PathBuf::from(tmp);
-    let mut f = std::fs::File::create(&tmp).map_err(err)?;
-    f.write_all(format!("{head}\n").as_bytes())
-        .and_then(|_| f.sync_all())
-        .map_err(err)?;
+    crate::modes::write_file(&tmp, format!("{head}\n").as_bytes()).map_err(err)?;
     std::fs::rename(&tmp, path).map_err(err)
 }
 

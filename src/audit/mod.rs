@@ -6,7 +6,7 @@ mod verify;
 
 pub mod key;
 
-pub use verify::{Finding, VerifyReport, Witnesses, verify, verify_with};
+pub use verify::{Finding, SignOffCoverage, VerifyReport, Witnesses, verify, verify_with};
 
 /// Who is acting: the configured name, else the OS user, else "unknown".
 pub fn actor(configured: Option<&str>) -> String {

@@ -6,7 +6,10 @@ use std::collections::{BTreeMap, HashMap};
 use serde::Serialize;
 
 use crate::model::Payload;
-use crate::model::chain::{ChainKey, GENESIS, Head, event_hash, key_proof, keyed_event_hash};
+use crate::model::chain::{
+    ChainKey, GENESIS, Head, SIGN_OFF_KIND, event_hash, history_fingerprint, key_proof,
+    keyed_event_hash,
+};
 use crate::model::cycle::{self as view, CYCLE_COLUMNS};
 use crate::model::event::{FileRow, LotRecord, MeasurementRow};
 use crate::store::records::{all_cycles, all_lots};
@@ -45,6 +48,108 @@ pub struct VerifyReport {
     pub unchecked_keyed_links: i64,
     /// Published heads checked against the chain.
     pub heads_checked: usize,
+    /// Each sign-off, and whether it still covers its lot's history. Not a finding: a
+    /// later event about a lot is the normal course of things, and asks for a new review.
+    pub signoffs: Vec<SignOffCoverage>,
+}
+
+/// Whether a sign-off's fingerprint still matches the history of its lot.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SignOffCoverage {
+    /// The sign-off event.
+    pub seq: i64,
+    pub lot: String,
+    pub meaning: String,
+    pub signed_sha256: String,
+    /// The fingerprint of the lot's history as it stands.
+    pub current_sha256: String,
+    /// True when the sign-off still covers the lot's whole history.
+    pub covers: bool,
+    /// Events concerning the lot after the sign-off (sign-offs aside), oldest first.
+    pub later_events: Vec<i64>,
+    /// When it no longer covers: why, in words.
+    pub reason: Option<String>,
+}
+
+impl std::fmt::Display for SignOffCoverage {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(
+            f,
+            "sign-off #{} of lot {} ({}): ",
+            self.seq, self.lot, self.meaning
+        )?;
+        match &self.reason {
+            None => write!(f, "still covers the lot's history"),
+            Some(why) => write!(f, "no longer covers the lot's history: {why}"),
+        }
+    }
+}
+
+/// A sign-off met in the walk: its event, lot, meaning and the fingerprint it signed.
+struct SignOffSeen {
+    seq: i64,
+    lot: String,
+    meaning: String,
+    signed: String,
+}
+
+/// Each sign-off against the history of its lot as it stands, and as it stood before the
+/// sign-off (the events concerning the lot, sign-offs aside, are those `sign_off` covers).
+fn signoff_coverage(conn: &Connection, seen: Vec<SignOffSeen>) -> Result<Vec<SignOffCoverage>> {
+    let mut histories: HashMap<String, Vec<(i64, String)>> = HashMap::new();
+    let mut out = Vec::with_capacity(seen.len());
+    for s in seen {
+        if !histories.contains_key(&s.lot) {
+            let events = store::queries::lot_events(conn, &s.lot)?
+                .into_iter()
+                .filter(|e| e.kind != SIGN_OFF_KIND)
+                .map(|e| (e.seq, e.hash))
+                .collect();
+            histories.insert(s.lot.clone(), events);
+        }
+        let history = histories.get(&s.lot).map_or(&[][..], Vec::as_slice);
+        let current = history_fingerprint(history.iter().map(|(_, h)| h.as_str()));
+        let then = history_fingerprint(
+            history
+                .iter()
+                .filter(|(seq, _)| *seq < s.seq)
+                .map(|(_, h)| h.as_str()),
+        );
+        let later: Vec<i64> = history
+            .iter()
+            .map(|(seq, _)| *seq)
+            .filter(|seq| *seq > s.seq)
+            .collect();
+        let covers = current == s.signed;
+        let reason = match (covers, then == s.signed) {
+            (true, _) => None,
+            (false, true) => Some(format!(
+                "{} later event(s) concern the lot ({})",
+                later.len(),
+                later
+                    .iter()
+                    .map(|q| format!("#{q}"))
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            )),
+            (false, false) => Some(
+                "the history up to the sign-off reads differently from what was signed \
+                 (events before it changed, or came to concern the lot later)"
+                    .into(),
+            ),
+        };
+        out.push(SignOffCoverage {
+            seq: s.seq,
+            lot: s.lot,
+            meaning: s.meaning,
+            signed_sha256: s.signed,
+            current_sha256: current,
+            covers,
+            later_events: later,
+            reason,
+        });
+    }
+    Ok(out)
 }
 
 impl VerifyReport {
@@ -318,6 +423,7 @@ pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport>
     let mut lots: BTreeMap<String, (LotRecord, i64)> = BTreeMap::new();
     let mut excluded: HashMap<String, bool> = HashMap::new();
     let mut first_seq: HashMap<String, i64> = HashMap::new();
+    let mut signoffs: Vec<SignOffSeen> = Vec::new();
 
     // 1. The chain itself.
     let mut prev = GENESIS.to_string();
@@ -412,7 +518,18 @@ pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport>
             Payload::ChainKeyed { key_proof, .. } => {
                 rule.switch(&mut findings, seq, &prev, &key_proof);
             }
-            Payload::Note { .. } | Payload::SignOff { .. } => {}
+            Payload::SignOff {
+                lot,
+                meaning,
+                signed_sha256,
+                ..
+            } => signoffs.push(SignOffSeen {
+                seq,
+                lot,
+                meaning,
+                signed: signed_sha256,
+            }),
+            Payload::Note { .. } => {}
         }
         prev = hash;
         expected_seq += 1;
@@ -431,6 +548,7 @@ pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport>
             keyed_after: rule.keying.map(|k| k.0),
             unchecked_keyed_links: rule.unchecked,
             heads_checked: w.heads.len(),
+            signoffs: Vec::new(),
         });
     }
 
@@ -550,6 +668,8 @@ pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport>
         );
     }
 
+    check_conditions(conn, &mut findings)?;
+
     Ok(VerifyReport {
         events: count,
         head_hash: prev,
@@ -557,7 +677,60 @@ pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport>
         keyed_after: rule.keying.map(|k| k.0),
         unchecked_keyed_links: rule.unchecked,
         heads_checked: w.heads.len(),
+        signoffs: signoff_coverage(conn, signoffs)?,
     })
+}
+
+/// Each alert condition against what its messages in the outbox imply: every change of a
+/// condition queues one message in the same transaction, so the newest message of a key
+/// gives its state, severity and episode, the message that opened the episode its thread,
+/// and its time the condition's. (Both tables can still be edited alike: the outbox is not
+/// in the events.)
+fn check_conditions(conn: &Connection, findings: &mut Vec<Finding>) -> Result<()> {
+    use store::replay::ConditionRow;
+    let mut implied: BTreeMap<String, (ConditionRow, i64)> = BTreeMap::new();
+    for m in store::replay::alert_messages(conn)? {
+        let thread = match implied.get(&m.alert_key) {
+            Some((c, _)) if m.state != "open" => c.thread_message_id.clone(),
+            _ => m.message_id.clone(),
+        };
+        let row = ConditionRow {
+            rule: m.rule,
+            lot: m.lot,
+            state: m.state,
+            severity: m.severity,
+            episode: m.episode,
+            thread_message_id: thread,
+            changed_at: m.queued_at,
+        };
+        implied.insert(m.alert_key, (row, m.id));
+    }
+    let stored: BTreeMap<String, ConditionRow> =
+        store::replay::alert_conditions(conn)?.into_iter().collect();
+    for (key, (expected, id)) in &implied {
+        match stored.get(key) {
+            None => push(
+                findings,
+                "alert_condition",
+                key,
+                "(row)",
+                "missing",
+                format!("present (outbox message {id} records it)"),
+            ),
+            Some(s) => diff_rows(findings, "alert_condition", key, s, expected),
+        }
+    }
+    for key in stored.keys().filter(|k| !implied.contains_key(*k)) {
+        push(
+            findings,
+            "alert_condition",
+            key,
+            "(row)",
+            "present",
+            "absent (no outbox message records it)",
+        );
+    }
+    Ok(())
 }
 
 fn diff_cycle(out: &mut Vec<Finding>, s: &view::CycleView, e: &view::CycleView) {

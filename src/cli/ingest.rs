@@ -21,8 +21,20 @@ pub fn ingest(cfg: Config, a: &IngestArgs) -> CmdResult {
     })?;
     bar.finish_and_clear();
     if !json {
+        // Entries not read (links leading out, pipes...) are named when there are any.
+        let (what, not_read) = match summary.entries_refused {
+            0 => ("files", String::new()),
+            n => (
+                "entries",
+                format!(
+                    " ({n} of them not read: links leading out of their folder, pipes, \
+                     sockets, devices)"
+                ),
+            ),
+        };
         println!(
-            "{} files: {} ingested, {} duplicates, {} rejected; rows: {} new, {} already recorded, {} conflicting",
+            "{} {what}: {} ingested, {} duplicates, {} rejected{not_read}; rows: {} new, {} \
+             already recorded, {} conflicting",
             files.len(),
             summary.ingested,
             summary.duplicates,
@@ -71,6 +83,12 @@ pub fn verify(cfg: &Config, heads: &[crate::model::chain::Head], json: bool) -> 
                 "  also: "
             };
             println!("{lead}{f}");
+        }
+    }
+    if !json {
+        // Apart from the verdict: a sign-off that no longer covers is not tampering.
+        for s in &report.signoffs {
+            println!("{}", printable(&s.to_string()));
         }
     }
     Ok(if report.ok() { 0 } else { 1 })

@@ -33,6 +33,8 @@ pub struct ParseCache {
     layouts: usize,
     /// Index of the profile used last (a reader's files come folder by folder).
     last: usize,
+    /// The present time, passed in by the caller for the date window's later bound.
+    now: Option<chrono::NaiveDateTime>,
 }
 
 struct Known {
@@ -62,6 +64,14 @@ impl ParseCache {
         ParseCache::default()
     }
 
+    /// The present time the files that follow are judged at: a date more than the
+    /// profile's `latest_days_ahead` after it is refused. Without it (a new cache), dates
+    /// are bounded by the profile's earliest date only, as [`parse_valid`](super::parse_valid)
+    /// bounds them.
+    pub fn set_now(&mut self, now: chrono::NaiveDateTime) {
+        self.now = Some(now);
+    }
+
     /// Decode and parse one export file through a profile the caller has validated, as
     /// [`parse_valid`](super::parse_valid) does.
     pub fn parse_valid(
@@ -75,7 +85,7 @@ impl ParseCache {
             Some((layout, dates)) => body.rows(profile, layout, dates),
             None => {
                 let layout = Layout::resolve(profile, body.header(), body.header_line())?;
-                body.rows(profile, &layout, &DateLayouts::unprepared())
+                body.rows(profile, &layout, &DateLayouts::unprepared(self.now))
             }
         }
     }
@@ -92,9 +102,12 @@ impl ParseCache {
             return Ok(None);
         }
         let at = self.profile_at(profile);
-        let Some(known) = self.profiles.get(at) else {
+        let now = self.now;
+        let Some(known) = self.profiles.get_mut(at) else {
             return Ok(None);
         };
+        known.dates.now = now;
+        let known = &*known;
         let i = match known
             .headers
             .iter()

@@ -10,7 +10,65 @@ use std::cell::OnceCell;
 use chrono::format::{Item, Numeric, Pad, Parsed, StrftimeItems, parse};
 use chrono::{Datelike, NaiveDate, NaiveDateTime, Timelike};
 
-use super::profile::{DEFAULT_DATE_FORMAT, DEFAULT_DATETIME_FORMATS, Profile};
+use super::profile::{
+    DEFAULT_DATE_FORMAT, DEFAULT_DATETIME_FORMATS, DEFAULT_EARLIEST_DATE,
+    DEFAULT_LATEST_DAYS_AHEAD, Profile,
+};
+
+/// The dates a profile finds plausible: from its earliest date to some days after the
+/// present time, which the caller passes in as data (this module reads no clock). Without
+/// a present time only the earliest date bounds the window.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(super) struct DateWindow {
+    earliest: NaiveDateTime,
+    latest: Option<NaiveDateTime>,
+    days_ahead: u32,
+}
+
+impl DateWindow {
+    pub(super) fn of(profile: &Profile, now: Option<NaiveDateTime>) -> DateWindow {
+        let earliest = profile
+            .earliest_date
+            .as_deref()
+            .and_then(|d| NaiveDate::parse_from_str(d, "%Y-%m-%d").ok())
+            .or_else(|| NaiveDate::parse_from_str(DEFAULT_EARLIEST_DATE, "%Y-%m-%d").ok())
+            .unwrap_or(NaiveDate::MIN)
+            .and_time(chrono::NaiveTime::MIN);
+        let days_ahead = profile
+            .latest_days_ahead
+            .unwrap_or(DEFAULT_LATEST_DAYS_AHEAD);
+        let latest =
+            now.and_then(|n| n.checked_add_signed(chrono::TimeDelta::days(days_ahead.into())));
+        DateWindow {
+            earliest,
+            latest,
+            days_ahead,
+        }
+    }
+
+    /// `Ok` when `dt`, read from the cell text `text`, is plausible; else what was
+    /// expected, naming the rule: a four-digit year without a sign, inside the window.
+    pub(super) fn check(&self, text: &str, dt: NaiveDateTime) -> Result<(), String> {
+        if text.starts_with(['+', '-']) || !(1000..=9999).contains(&dt.year()) {
+            return Err("a date with a four-digit year and no sign".into());
+        }
+        let early = dt < self.earliest;
+        let late = self.latest.is_some_and(|l| dt > l);
+        if !(early || late) {
+            return Ok(());
+        }
+        let from = iso_datetime(&self.earliest);
+        Err(match self.latest {
+            Some(l) => format!(
+                "a date in the plausible window from {from} to {} (earliest_date to \
+                 latest_days_ahead = {} day(s) after the present time)",
+                iso_datetime(&l),
+                self.days_ahead
+            ),
+            None => format!("a date from {from} on (earliest_date)"),
+        })
+    }
+}
 
 /// `%Y-%m-%dT%H:%M:%S` as items (a test checks them against chrono's reading).
 const ISO_DATETIME: &[Item<'static>] = &[
@@ -156,6 +214,8 @@ impl DateLayout {
 /// column never makes one).
 pub(super) struct DateLayouts {
     prepared: bool,
+    /// The present time, for the window's later bound (see [`DateWindow`]).
+    pub(super) now: Option<NaiveDateTime>,
     datetime: OnceCell<Vec<DateLayout>>,
     date: OnceCell<DateLayout>,
 }
@@ -165,15 +225,17 @@ impl DateLayouts {
     pub(super) fn prepared() -> DateLayouts {
         DateLayouts {
             prepared: true,
+            now: None,
             datetime: OnceCell::new(),
             date: OnceCell::new(),
         }
     }
 
     /// For one file: each value reads the layout string, as preparing would cost as much.
-    pub(super) fn unprepared() -> DateLayouts {
+    pub(super) fn unprepared(now: Option<NaiveDateTime>) -> DateLayouts {
         DateLayouts {
             prepared: false,
+            now,
             datetime: OnceCell::new(),
             date: OnceCell::new(),
         }
@@ -198,6 +260,11 @@ impl DateLayouts {
                     .collect(),
             })
             .as_slice()
+    }
+
+    /// The plausible dates of `profile` at this present time.
+    pub(super) fn window(&self, profile: &Profile) -> DateWindow {
+        DateWindow::of(profile, self.now)
     }
 
     /// The layout of `received`. Always pass the same profile.

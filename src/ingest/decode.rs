@@ -51,7 +51,28 @@ pub fn decode(bytes: &[u8], encoding: Encoding) -> Result<String, ParseError> {
         Encoding::Utf8 | Encoding::Auto => decode_utf8(bytes)?,
     };
     check_nul(&text, bom_len, encoding)?;
+    check_stray_bom(&text)?;
     Ok(text)
+}
+
+/// A byte-order mark belongs at the very start of a file only (where it was dropped
+/// above). Anywhere else it is an invisible character that would become part of a value:
+/// a batch id with one in front is, to the eye, the same id, but a second batch.
+fn check_stray_bom(text: &str) -> Result<(), ParseError> {
+    let Some(at) = text.find('\u{FEFF}') else {
+        return Ok(());
+    };
+    let (line, column) = position_after(&text[..at]);
+    Err(ParseError {
+        line: Some(line),
+        column: Some(column),
+        field: None,
+        expected: "a byte-order mark (U+FEFF) only at the very start of the file".into(),
+        found: format!(
+            "a byte-order mark at line {line}, column {column} (an invisible character that \
+             would become part of a value; were two exports joined into one?)"
+        ),
+    })
 }
 
 fn decode_utf8(bytes: &[u8]) -> Result<(String, usize), ParseError> {

@@ -10,6 +10,7 @@ mod cache;
 mod dates;
 mod decode;
 mod delimited;
+mod number;
 mod parse;
 mod profile;
 mod record;
@@ -18,8 +19,9 @@ mod value;
 
 pub use cache::ParseCache;
 pub use decode::{Encoding, decode};
+pub use number::{parse_number, short_number};
 pub use parse::{parse, parse_text, parse_valid};
 pub use profile::{ColumnSpec, DecimalMark, Delimiter, Profile, ProfileKind};
 pub use record::*;
 pub use units::{Unit, dimension_of};
-pub use value::{ValueProblem, parse_number, read_value, shown_unit};
+pub use value::{ValueProblem, read_value, shown_unit};

@@ -4,13 +4,14 @@
 //! carries the 1-based physical line of the decoded text and, for a cell, the 1-based
 //! column (the field's position in the row, as a spreadsheet counts columns).
 
-use super::dates::{DateLayout, DateLayouts, Read, iso_date, iso_datetime};
+use super::dates::{DateLayout, DateLayouts, DateWindow, Read, iso_date, iso_datetime};
 use super::decode::decode;
 use super::delimited::{Record, Records};
+use super::number::{FRACTION_SLACK, parse_number, short_number};
 use super::profile::{DecimalMark, Field, FieldType, Profile, ProfileKind, UNIT_FROM_HEADER};
 use super::record::{CycleRow, LotRow, MeasuredValue, ParseError, ParsedFile};
 use super::units::{Unit, split_header_unit};
-use super::value::{FRACTION_SLACK, check_canonical, parse_number};
+use super::value::check_canonical;
 use crate::model::{LotRecord, Quantity};
 
 /// Longest text value (batch id, lot name...) we store; longer is a layout fault.
@@ -39,7 +40,7 @@ pub fn parse_valid(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseE
 pub fn parse_text(text: &str, profile: &Profile) -> Result<ParsedFile, ParseError> {
     let body = Body::open(text, profile)?;
     let layout = Layout::resolve(profile, body.header(), body.header_line())?;
-    body.rows(profile, &layout, &DateLayouts::unprepared())
+    body.rows(profile, &layout, &DateLayouts::unprepared(None))
 }
 
 /// One file's text read up to its header row, which [`Body::header`] holds until
@@ -473,7 +474,10 @@ impl Layout {
                 }
                 Field::Lot => row.lot = cell.text_value()?,
                 Field::CycleNo => row.cycle_no = cell.cycle_no()?,
-                Field::StartedAt => row.started_at = cell.datetime(dates.datetime(profile))?,
+                Field::StartedAt => {
+                    row.started_at =
+                        cell.datetime(dates.datetime(profile), &dates.window(profile))?;
+                }
                 Field::Measured(q) => {
                     if let Some(v) = cell.measured(q, b.unit, profile)? {
                         row.values.push(MeasuredValue {
@@ -520,7 +524,9 @@ impl Layout {
                 Field::Metal => metal = Some(cell.metal()?),
                 Field::Loading => loading = Some(cell.loading(b.unit, profile.decimal)?),
                 Field::ChargedMass => charged = Some(cell.charged_mass(b.unit, profile.decimal)?),
-                Field::Received => received = cell.date(dates.date(profile))?,
+                Field::Received => {
+                    received = cell.date(dates.date(profile), &dates.window(profile))?;
+                }
                 Field::SupplierLot => supplier_lot = cell.text_value()?,
                 Field::Cost => cost = cell.cost(profile.decimal)?,
                 _ => {}
@@ -630,17 +636,25 @@ impl Cell<'_> {
         }
     }
 
-    fn datetime(&self, layouts: &[DateLayout]) -> Result<Option<String>, ParseError> {
+    fn datetime(
+        &self,
+        layouts: &[DateLayout],
+        window: &DateWindow,
+    ) -> Result<Option<String>, ParseError> {
         if self.text.is_empty() {
             return Ok(None);
         }
         for f in layouts {
-            match f.read(self.text) {
-                Some(Read::DateTime(dt)) => return Ok(Some(iso_datetime(&dt))),
+            let dt = match f.read(self.text) {
+                Some(Read::DateTime(dt)) => dt,
                 // A layout without a time of day gives midnight.
-                Some(Read::Date(d)) => return Ok(Some(format!("{}T00:00:00", iso_date(&d)))),
-                None => {}
-            }
+                Some(Read::Date(d)) => d.and_time(chrono::NaiveTime::MIN),
+                None => continue,
+            };
+            window
+                .check(self.text, dt)
+                .map_err(|expected| self.fail_raw(&expected))?;
+            return Ok(Some(iso_datetime(&dt)));
         }
         let names: Vec<&str> = layouts.iter().map(|f| f.text.as_str()).collect();
         Err(self.fail_raw(&format!(
@@ -649,12 +663,17 @@ impl Cell<'_> {
         )))
     }
 
-    fn date(&self, layout: &DateLayout) -> Result<Option<String>, ParseError> {
+    fn date(&self, layout: &DateLayout, window: &DateWindow) -> Result<Option<String>, ParseError> {
         if self.text.is_empty() {
             return Ok(None);
         }
         match layout.read_date(self.text) {
-            Some(d) => Ok(Some(iso_date(&d))),
+            Some(d) => {
+                window
+                    .check(self.text, d.and_time(chrono::NaiveTime::MIN))
+                    .map_err(|expected| self.fail_raw(&expected))?;
+                Ok(Some(iso_date(&d)))
+            }
             None => Err(self.fail_raw(&format!("a date in the layout {}", layout.text))),
         }
     }
@@ -694,7 +713,7 @@ impl Cell<'_> {
                 "{} {} ({} {})",
                 shown(self.raw),
                 unit.symbol(),
-                c,
+                short_number(c),
                 q.canonical_unit()
             )
         };
@@ -770,28 +789,6 @@ impl Cell<'_> {
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn numbers_by_decimal_mark() {
-        assert_eq!(parse_number("12.5", DecimalMark::Point), Ok(12.5));
-        assert_eq!(parse_number("12,5", DecimalMark::Comma), Ok(12.5));
-        assert_eq!(parse_number("-1,5e-3", DecimalMark::Comma), Ok(-1.5e-3));
-        assert_eq!(parse_number("+.5", DecimalMark::Point), Ok(0.5));
-        assert_eq!(parse_number("5.", DecimalMark::Point), Ok(5.0));
-        assert!(parse_number("1.234,5", DecimalMark::Comma).is_err());
-        assert!(parse_number("1,234.5", DecimalMark::Point).is_err());
-        assert!(parse_number("1,234", DecimalMark::Point).is_err());
-        assert!(parse_number("1.234", DecimalMark::Comma).is_err());
-        assert!(parse_number("1 234", DecimalMark::Point).is_err());
-        assert!(parse_number("1.2.3", DecimalMark::Point).is_err());
-        assert!(parse_number("nan", DecimalMark::Point).is_err());
-        assert!(parse_number("inf", DecimalMark::Point).is_err());
-        assert!(parse_number("1e999", DecimalMark::Point).is_err());
-        assert!(parse_number("1e", DecimalMark::Point).is_err());
-        assert!(parse_number("-", DecimalMark::Point).is_err());
-        assert!(parse_number(".", DecimalMark::Point).is_err());
-        assert!(parse_number("0x10", DecimalMark::Point).is_err());
-    }
 
     #[test]
     fn shown_escapes_and_shortens() {

@@ -39,6 +39,15 @@ pub const DEFAULT_DATE_FORMAT: &str = "%Y-%m-%d";
 /// batch chemistry, from cryogenic work to high-temperature hydrotreating).
 pub const DEFAULT_TEMPERATURE_RANGE_K: [f64; 2] = [150.0, 800.0];
 
+/// Earliest plausible date in an export when a profile names none (instrument data
+/// systems of the kind these exports come from are younger).
+pub const DEFAULT_EARLIEST_DATE: &str = "1990-01-01";
+/// Days after the present time a date may lie when a profile names none (time zones and
+/// an instrument clock a little ahead).
+pub const DEFAULT_LATEST_DAYS_AHEAD: u32 = 1;
+/// Most days ahead a profile may allow.
+pub const MAX_LATEST_DAYS_AHEAD: u32 = 3660;
+
 /// What a file of this profile registers.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
 #[serde(rename_all = "lowercase")]
@@ -146,6 +155,14 @@ pub struct Profile {
     /// Accepted reaction temperatures `[low, high]` in kelvin.
     #[serde(default)]
     pub temperature_range_k: Option<[f64; 2]>,
+    /// Earliest plausible date of `started_at` and `received`, `YYYY-MM-DD`;
+    /// [`DEFAULT_EARLIEST_DATE`] when absent.
+    #[serde(default)]
+    pub earliest_date: Option<String>,
+    /// Days after the present time (given by the caller) still plausible for a date;
+    /// [`DEFAULT_LATEST_DAYS_AHEAD`] when absent.
+    #[serde(default)]
+    pub latest_days_ahead: Option<u32>,
     pub columns: BTreeMap<String, ColumnSpec>,
 }
 
@@ -291,6 +308,20 @@ impl Profile {
         }
         if let Some(f) = &self.date_format {
             check_format("date_format", f)?;
+        }
+        if let Some(d) = &self.earliest_date
+            && chrono::NaiveDate::parse_from_str(d, "%Y-%m-%d").is_err()
+        {
+            return Err(format!(
+                "earliest_date: expected a date written YYYY-MM-DD; found {d:?}"
+            ));
+        }
+        if let Some(n) = self.latest_days_ahead
+            && n > MAX_LATEST_DAYS_AHEAD
+        {
+            return Err(format!(
+                "latest_days_ahead: expected at most {MAX_LATEST_DAYS_AHEAD} days; found {n}"
+            ));
         }
         if let Some([lo, hi]) = self.temperature_range_k
             && !(lo.is_finite() && hi.is_finite() && lo > 0.0 && lo < hi)

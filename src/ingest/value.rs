@@ -1,77 +1,10 @@
 //! One plausibility rule per quantity, whichever way a value enters: a column of an export
 //! or a person's correction. The parser and `correct` both call [`check_canonical`].
 
+use super::number::{FRACTION_SLACK, parse_number, short_number};
 use super::profile::{DEFAULT_TEMPERATURE_RANGE_K, DecimalMark};
 use super::units::{Dimension, Unit, dimension_of};
 use crate::model::Quantity;
-
-/// Slack allowed above 1 (and below 0) for fractions, for rounding in instrument software.
-pub const FRACTION_SLACK: f64 = 1e-9;
-
-/// Read a decimal number written with the profile's decimal mark.
-///
-/// Accepted: an optional sign, digits with at most one decimal mark, an optional
-/// exponent (`1,5e-3` or `1.5E-3`). Refused: thousands separators (the other mark, or
-/// spaces: "1.234,5" is ambiguous between locales), `nan`, `inf`, and values that
-/// overflow. The error text (appended to the expectation) says why.
-pub fn parse_number(text: &str, mark: DecimalMark) -> Result<f64, &'static str> {
-    let other = match mark {
-        DecimalMark::Point => ',',
-        DecimalMark::Comma => '.',
-    };
-    if text.contains(other) {
-        return Err(" and no thousands separator");
-    }
-    let bytes = text.as_bytes();
-    let mut i = 0;
-    if let Some(&s) = bytes.first()
-        && (s == b'+' || s == b'-')
-    {
-        i = 1;
-    }
-    let mut digits = 0;
-    let mut seen_mark = false;
-    while i < bytes.len() {
-        let b = bytes[i];
-        if b.is_ascii_digit() {
-            digits += 1;
-        } else if b as char == mark.char() && !seen_mark {
-            seen_mark = true;
-        } else {
-            break;
-        }
-        i += 1;
-    }
-    if digits == 0 {
-        return Err("");
-    }
-    if i < bytes.len() && (bytes[i] == b'e' || bytes[i] == b'E') {
-        i += 1;
-        if i < bytes.len() && (bytes[i] == b'+' || bytes[i] == b'-') {
-            i += 1;
-        }
-        let start = i;
-        while i < bytes.len() && bytes[i].is_ascii_digit() {
-            i += 1;
-        }
-        if i == start {
-            return Err("");
-        }
-    }
-    if i != bytes.len() {
-        return Err("");
-    }
-    // The text now matches a grammar that Rust's float parser accepts once the decimal
-    // mark is a point; only a decimal comma needs a copy.
-    let parsed = match mark {
-        DecimalMark::Point => text.parse::<f64>(),
-        DecimalMark::Comma => text.replace(',', ".").parse::<f64>(),
-    };
-    match parsed {
-        Ok(v) if v.is_finite() => Ok(v),
-        _ => Err(" within the range of a double"),
-    }
-}
 
 /// The unit `turnbook cycles` shows a quantity in; a bare number in a correction means it.
 pub fn shown_unit(q: Quantity) -> Unit {
@@ -105,7 +38,9 @@ pub fn check_canonical(q: Quantity, c: f64, temperature_range_k: [f64; 2]) -> Re
                 Ok(c)
             } else {
                 Err(format!(
-                    "a temperature between {lo} K and {hi} K ({:.2} °C to {:.2} °C)",
+                    "a temperature between {} K and {} K ({:.2} °C to {:.2} °C)",
+                    short_number(lo),
+                    short_number(hi),
                     lo - 273.15,
                     hi - 273.15
                 ))

@@ -189,6 +189,20 @@ pub fn hex_lower(bytes: &[u8]) -> String {
     s
 }
 
+/// The kind of a sign-off event; a sign-off covers every other event of its lot.
+pub const SIGN_OFF_KIND: &str = "sign-off";
+
+/// The fingerprint a sign-off records: the SHA-256 over the hashes of the events it covers
+/// (every event concerning the lot except sign-offs), in order, each followed by a newline.
+pub fn history_fingerprint<'a>(hashes: impl IntoIterator<Item = &'a str>) -> String {
+    let mut sha = Sha256::new();
+    for h in hashes {
+        sha.update(h.as_bytes());
+        sha.update(b"\n");
+    }
+    hex_lower(&sha.finalize())
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -60,6 +60,27 @@ impl FileSink for PipelineSink {
         }
         Ok(())
     }
+
+    /// An entry the watcher does not offer (a link leading out of the folder, a named
+    /// pipe, ...) is recorded as a rejected file, once per version of the entry.
+    fn refuse(&self, _folder: &WatchFolder, path: &Path, reason: &str) -> anyhow::Result<()> {
+        let mut ing = self
+            .ingestor
+            .lock()
+            .map_err(|_| anyhow::anyhow!("the ingestor was poisoned by an earlier panic"))?;
+        if ing.skip_unchanged && ing.refused_unchanged(path)? {
+            tracing::debug!(path = %path.display(), "refused before, unchanged; not recorded again");
+            return Ok(());
+        }
+        let entry = super::listing::RefusedEntry {
+            path: path.to_path_buf(),
+            reason: reason.to_string(),
+        };
+        ing.refuse_entries(std::slice::from_ref(&entry))?;
+        tracing::warn!(path = %path.display().to_string().escape_debug(),
+            reason = %reason.escape_debug(), "entry not read; recorded as rejected");
+        Ok(())
+    }
 }
 
 /// What a task started beside the watcher is given: the service's one stop signal, and

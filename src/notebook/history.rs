@@ -2,7 +2,6 @@
 //! sign-off covers.
 
 use serde::Serialize;
-use sha2::{Digest, Sha256};
 
 use super::error::{NotebookError, Result as NResult};
 use crate::config::Config;
@@ -105,23 +104,22 @@ pub fn history(cfg: &Config, lot: &str) -> NResult<Vec<HistoryEntry>> {
 /// sign-offs themselves, in order. Returns a description and its SHA-256.
 pub fn lot_fingerprint(conn: &Connection, lot: &str) -> store::Result<(String, String)> {
     let h = lot_history(conn, lot)?;
-    let covered: Vec<&HistoryEntry> = h.iter().filter(|e| e.kind != "sign-off").collect();
+    let covered: Vec<&HistoryEntry> = h
+        .iter()
+        .filter(|e| e.kind != crate::model::chain::SIGN_OFF_KIND)
+        .collect();
     if covered.is_empty() {
         return Err(store::StoreError::Invalid(format!(
             "no history to sign for lot '{lot}'"
         )));
     }
-    let mut sha = Sha256::new();
-    for e in &covered {
-        sha.update(e.hash.as_bytes());
-        sha.update(b"\n");
-    }
+    let sha = crate::model::chain::history_fingerprint(covered.iter().map(|e| e.hash.as_str()));
     let last = covered.last().map_or(0, |e| e.seq);
     Ok((
         format!(
             "history of lot {lot}: {} events up to #{last}",
             covered.len()
         ),
-        hex::encode(sha.finalize()),
+        sha,
     ))
 }

@@ -14,6 +14,7 @@ use serde::Serialize;
 use sha2::{Digest, Sha256};
 
 use super::error::NotebookError;
+use super::listing::{Listing, RefusedEntry, collect_files};
 use crate::audit;
 use crate::config::Config;
 use crate::ingest::{self, ParseCache, ParsedFile};
@@ -53,6 +54,9 @@ pub struct RunSummary {
     pub rows_conflict: i64,
     pub conflicts: Vec<String>,
     pub errors: Vec<String>,
+    /// Entries refused without being read (counted in `rejected` too): links leading out
+    /// of their folder, to a folder or to nothing; named pipes, sockets, devices.
+    pub entries_refused: usize,
     /// Transactions the files were stored in (a backfill's groups, or their parts).
     pub transactions: usize,
 }
@@ -249,6 +253,58 @@ impl Ingestor {
         )
     }
 
+    /// Record entries that are not read (see [`super::listing`]) as rejected files, in one
+    /// transaction: no content is read or copied into quarantine, and each raises the
+    /// quarantine alert like any rejected file.
+    pub fn refuse_entries(
+        &mut self,
+        entries: &[RefusedEntry],
+    ) -> Result<Vec<FileOutcome>, StoreError> {
+        if entries.is_empty() {
+            return Ok(Vec::new());
+        }
+        let mut folders = FolderRoots::new(&self.cfg);
+        let prepared = entries
+            .iter()
+            .map(|e| {
+                let folder = folders.folder_for_plain_file(&e.path);
+                let meta = std::fs::symlink_metadata(&e.path).ok();
+                let facts = FileFacts {
+                    path: recorded_path(&e.path),
+                    sha256: String::new(),
+                    size: 0,
+                    mtime: meta.as_ref().and_then(stored_mtime),
+                    profile: folder.map(|f| f.profile.clone()),
+                    site: folder.and_then(|f| f.site.clone()),
+                    seen_at: crate::model::time::now_utc(),
+                };
+                Prepared {
+                    facts,
+                    result: Err(e.reason.clone()),
+                }
+            })
+            .collect();
+        let out = Writer::new(&mut self.conn, &self.cfg, &self.actor)
+            .store(prepared, None, false, &mut Leftovers::default())
+            .map(|(o, _)| o)?;
+        self.publish_head();
+        Ok(out)
+    }
+
+    /// True when the entry at `path`, refused before, was recorded with its present time
+    /// (the service's start-up scan reports every entry again).
+    pub fn refused_unchanged(&self, path: &Path) -> Result<bool, StoreError> {
+        let Ok(meta) = std::fs::symlink_metadata(path) else {
+            return Ok(false);
+        };
+        bulk::recorded_unchanged(
+            &self.conn,
+            &recorded_path(path),
+            0,
+            stored_mtime(&meta).as_deref(),
+        )
+    }
+
     /// Ingest one file in its own transaction (the service's unit of work): its records,
     /// the recomputed fits and any alerts they raise commit together.
     pub fn ingest_file(&mut self, path: &Path) -> Result<FileOutcome, StoreError> {
@@ -282,10 +338,7 @@ impl Ingestor {
             .chunks(self.cfg.files_per_transaction.max(1))
             .collect();
         let readers = reader_threads(groups.len());
-        let reader = Reader {
-            cfg: &self.cfg,
-            profile_override: self.profile_override.as_deref(),
-        };
+        let reader = Reader::new(&self.cfg, self.profile_override.as_deref());
         bulk::set_full_sync(&self.conn, false)?;
         let db_path = self.cfg.database_path();
         let committed = AtomicUsize::new(0);
@@ -386,11 +439,8 @@ impl Ingestor {
 
     /// Store a group of files and recompute the lots they touched, in one transaction.
     fn ingest_group(&mut self, paths: &[PathBuf]) -> Result<Vec<FileOutcome>, StoreError> {
-        let prepared = Reader {
-            cfg: &self.cfg,
-            profile_override: self.profile_override.as_deref(),
-        }
-        .prepare_group(paths, &mut self.parse_cache);
+        let prepared = Reader::new(&self.cfg, self.profile_override.as_deref())
+            .prepare_group(paths, &mut self.parse_cache);
         Writer::new(&mut self.conn, &self.cfg, &self.actor)
             .store(prepared, None, true, &mut Leftovers::default())
             .map(|(o, _)| o)
@@ -822,9 +872,20 @@ fn log_ingested(outcomes: &[FileOutcome]) {
 struct Reader<'a> {
     cfg: &'a Config,
     profile_override: Option<&'a str>,
+    /// The present time of the run, which bounds the plausible dates of an export.
+    now: chrono::NaiveDateTime,
 }
 
-impl Reader<'_> {
+impl<'a> Reader<'a> {
+    /// A reader for a run that starts now: the present time bounds the plausible dates.
+    fn new(cfg: &'a Config, profile_override: Option<&'a str>) -> Self {
+        Reader {
+            cfg,
+            profile_override,
+            now: chrono::Utc::now().naive_utc(),
+        }
+    }
+
     fn prepare_group(&self, paths: &[PathBuf], cache: &mut ParseCache) -> Vec<Prepared> {
         self.prepare_part(paths, cache, u64::MAX)
     }
@@ -903,12 +964,10 @@ impl Reader<'_> {
                 };
             }
         };
-        if !meta.is_file() {
-            let why = "cannot read the file: it is not a regular file (a folder, pipe or device); \
-                       expected an export file";
+        if let Some(why) = not_a_regular_file(&meta) {
             return Prepared {
                 facts,
-                result: Err(why.to_string()),
+                result: Err(why),
             };
         }
         facts.size = i64::try_from(meta.len()).unwrap_or(i64::MAX);
@@ -957,6 +1016,7 @@ impl Reader<'_> {
         };
         match (self.cfg.profiles.get(name), valid.get(name)) {
             (Some(profile), Some(Ok(()))) => {
+                cache.set_now(self.now);
                 cache.parse_valid(bytes, profile).map_err(|e| e.to_string())
             }
             // An invalid profile: the parser names what is wrong with it.
@@ -1036,6 +1096,14 @@ fn open_unfollowed(path: &Path) -> std::io::Result<std::fs::File> {
         .open(path)
 }
 
+/// Why a file that is not a regular file (a named pipe, a socket, a device) is not read.
+fn not_a_regular_file(meta: &std::fs::Metadata) -> Option<String> {
+    (!meta.is_file()).then(|| {
+        let kind = crate::watch::entry_kind(&meta.file_type());
+        format!("cannot read the file: it is {kind}, not a regular file; expected an export file")
+    })
+}
+
 /// Read the whole of an open file whose size is known from its metadata. `File`'s own
 /// `read_to_end` asks the size and the position again (two system calls per file).
 fn read_sized(file: &std::fs::File, size: u64) -> std::io::Result<Vec<u8>> {
@@ -1094,18 +1162,21 @@ fn quarantine_copy(dir: &Path, facts: &FileFacts) -> Option<String> {
         })
         .take(120)
         .collect();
-    // Only a regular file has content to keep (opening a named pipe would wait for a writer).
-    if !std::fs::metadata(src).is_ok_and(|m| m.is_file()) {
+    // Only content that was read and hashed is kept: an entry refused unread (a link
+    // leading out of its folder, a named pipe) has nothing to keep, and following such a
+    // link would copy a file from elsewhere.
+    if facts.sha256.is_empty() || !std::fs::metadata(src).is_ok_and(|m| m.is_file()) {
         return None;
     }
     let prefix = facts.sha256.get(..12).unwrap_or("unhashed");
     let dest = dir.join(format!("{prefix}-{name}"));
-    if let Err(e) = std::fs::create_dir_all(dir) {
+    if let Err(e) = crate::modes::create_dirs(dir) {
         tracing::error!(dir = ?dir, error = %e, "cannot create the quarantine folder");
         return None;
     }
-    match std::fs::copy(src, &dest) {
-        Ok(_) => Some(dest.display().to_string()),
+    // A copy takes its source's mode; a quarantined copy is the service's, mode 0640.
+    match std::fs::copy(src, &dest).and_then(|_| crate::modes::restrict_file(&dest)) {
+        Ok(()) => Some(dest.display().to_string()),
         Err(e) => {
             tracing::warn!(path = %facts.path.escape_debug(), error = %e, "cannot copy the file into quarantine");
             None
@@ -1131,12 +1202,13 @@ pub fn files_recorded_after(
     )?)
 }
 
-/// Every file a backfill of `paths` offers, after checking the profile asked for exists.
+/// Every entry a backfill of `paths` accounts for (files to read, entries refused), after
+/// checking the profile asked for exists.
 pub fn files_under(
     cfg: &Config,
     paths: &[PathBuf],
     profile: Option<&str>,
-) -> Result<Vec<PathBuf>, NotebookError> {
+) -> Result<Listing, NotebookError> {
     if let Some(p) = profile
         && !cfg.profiles.contains_key(p)
     {
@@ -1145,7 +1217,7 @@ pub fn files_under(
             cfg.profiles.keys().cloned().collect::<Vec<_>>().join(", ")
         )));
     }
-    let mut files = Vec::new();
+    let mut files = Listing::default();
     for p in paths {
         collect_files(p, &mut files)
             .map_err(|e| NotebookError::Usage(format!("cannot read {}: {e}", p.display())))?;
@@ -1153,17 +1225,34 @@ pub fn files_under(
     Ok(files)
 }
 
-/// Ingest `files` as one backfill, reading every one with `profile` when given; `each` sees
-/// every file's outcome as it is committed.
+/// Ingest `listing` as one backfill, reading every file with `profile` when given and
+/// recording each refused entry as rejected; `each` sees every outcome as it is committed.
 pub fn ingest_files(
     cfg: Config,
-    files: &[PathBuf],
+    listing: &Listing,
     profile: Option<String>,
-    each: impl FnMut(&FileOutcome),
+    mut each: impl FnMut(&FileOutcome),
 ) -> Result<RunSummary, NotebookError> {
     let mut ing = Ingestor::open(cfg)?;
     ing.profile_override = profile;
-    Ok(ing.ingest_paths(files, each)?)
+    let refused = ing.refuse_entries(&listing.refused)?;
+    for o in &refused {
+        each(o);
+    }
+    let mut summary = ing.ingest_paths(&listing.files, &mut each)?;
+    summary.entries_refused = refused.len();
+    if !refused.is_empty() {
+        summary.transactions += 1;
+    }
+    // The refused entries come first in the totals, as they came first in the run.
+    let mut first = RunSummary::default();
+    for o in &refused {
+        first.add(o);
+    }
+    summary.rejected += first.rejected;
+    first.errors.append(&mut summary.errors);
+    summary.errors = first.errors;
+    Ok(summary)
 }
 
 /// The path as recorded: absolute (symbolic links kept), so a file reached through a
@@ -1173,35 +1262,4 @@ pub fn recorded_path(path: &Path) -> String {
         .unwrap_or_else(|_| path.to_path_buf())
         .display()
         .to_string()
-}
-
-/// The files below the folder `path`, sorted, or `path` itself when it is not a folder:
-/// what a backfill reads.
-pub fn collect_files(path: &Path, out: &mut Vec<PathBuf>) -> std::io::Result<()> {
-    // A path named by the user is followed: a link to a file or a folder counts as what it
-    // points at. Anything that is not a folder is offered, so that what is not a regular
-    // file (a pipe, a device) is refused by name rather than silently left out.
-    if std::fs::metadata(path)?.is_dir() {
-        collect_dir(path, out)
-    } else {
-        out.push(path.to_path_buf());
-        Ok(())
-    }
-}
-
-/// The files below a folder, sorted. An entry's type comes with the listing (no stat per
-/// file); links below a folder are not followed (they may lead out of it, or round).
-fn collect_dir(dir: &Path, out: &mut Vec<PathBuf>) -> std::io::Result<()> {
-    let mut entries: Vec<(PathBuf, std::fs::FileType)> = std::fs::read_dir(dir)?
-        .filter_map(|e| e.ok().and_then(|e| Some((e.path(), e.file_type().ok()?))))
-        .collect();
-    entries.sort_by(|a, b| a.0.cmp(&b.0));
-    for (p, t) in entries {
-        if t.is_file() {
-            out.push(p);
-        } else if t.is_dir() {
-            collect_dir(&p, out)?;
-        }
-    }
-    Ok(())
 }

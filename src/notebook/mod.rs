@@ -22,6 +22,7 @@ mod error;
 mod fits;
 mod history;
 mod ingestion;
+mod listing;
 mod lots;
 mod recompute;
 mod reports;
@@ -38,9 +39,10 @@ pub use error::{NotebookError, Result};
 pub use fits::{SeriesFit, SeriesRequest, fit_series, lot_fit};
 pub use history::{HistoryEntry, Status, history, status};
 pub use ingestion::{
-    FileOutcome, Ingestor, RunSummary, collect_files, files_recorded_after, files_under,
-    ingest_files, newest_file_id,
+    FileOutcome, Ingestor, RunSummary, files_recorded_after, files_under, ingest_files,
+    newest_file_id,
 };
+pub use listing::{Listing, RefusedEntry, collect_files};
 pub use lots::{
     CycleLine, CycleState, LotLine, LotState, cycle_lines, known_lot, lot_lines, lot_state,
     lot_state_as_of,

@@ -48,6 +48,12 @@ pub type Result<T> = std::result::Result<T, StoreError>;
 /// makes a committed file survive power loss, which the exactly-once promise needs (a
 /// backfill relaxes it per group and syncs once at its end; see `Ingestor::ingest_paths`).
 pub fn open(path: &Path) -> Result<Connection> {
+    // Made here with mode 0640 so that SQLite's log and shared-memory files, which take
+    // the database's mode, are 0640 too. An empty file is a new database to SQLite.
+    if !path.as_os_str().is_empty() && path != Path::new(":memory:") {
+        crate::modes::precreate_file(path)
+            .map_err(|e| StoreError::Invalid(format!("cannot create {}: {e}", path.display())))?;
+    }
     let mut conn = Connection::open(path)?;
     configure(&conn)?;
     migrate::apply(&mut conn)?;

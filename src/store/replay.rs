@@ -127,3 +127,78 @@ pub fn lot_event_seqs(conn: &Connection) -> Result<HashMap<String, i64>> {
         .collect::<std::result::Result<_, _>>()?;
     Ok(rows)
 }
+
+/// One alert condition as stored, or as the outbox implies it.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct ConditionRow {
+    pub rule: String,
+    pub lot: String,
+    pub state: String,
+    pub severity: i64,
+    pub episode: i64,
+    pub thread_message_id: String,
+    pub changed_at: String,
+}
+
+/// Every alert condition, by key.
+pub fn alert_conditions(conn: &Connection) -> Result<Vec<(String, ConditionRow)>> {
+    let mut stmt = conn.prepare(
+        "SELECT alert_key, rule, lot, state, severity, episode, thread_message_id, changed_at
+         FROM alert_condition ORDER BY alert_key",
+    )?;
+    let rows = stmt
+        .query_map([], |r| {
+            Ok((
+                r.get(0)?,
+                ConditionRow {
+                    rule: r.get(1)?,
+                    lot: r.get(2)?,
+                    state: r.get(3)?,
+                    severity: r.get(4)?,
+                    episode: r.get(5)?,
+                    thread_message_id: r.get(6)?,
+                    changed_at: r.get(7)?,
+                },
+            ))
+        })?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
+}
+
+/// One alert message of the outbox (digests aside), in the order queued.
+#[derive(Debug, Clone)]
+pub struct AlertMessageRow {
+    pub id: i64,
+    pub alert_key: String,
+    pub rule: String,
+    pub lot: String,
+    pub episode: i64,
+    pub state: String,
+    pub severity: i64,
+    pub message_id: String,
+    pub queued_at: String,
+}
+
+/// Every alert message of the outbox, oldest first (digests are tied to no condition).
+pub fn alert_messages(conn: &Connection) -> Result<Vec<AlertMessageRow>> {
+    let mut stmt = conn.prepare(
+        "SELECT id, alert_key, rule, lot, episode, state, severity, message_id, queued_at
+         FROM alert_outbox WHERE rule <> 'digest' ORDER BY id",
+    )?;
+    let rows = stmt
+        .query_map([], |r| {
+            Ok(AlertMessageRow {
+                id: r.get(0)?,
+                alert_key: r.get(1)?,
+                rule: r.get(2)?,
+                lot: r.get(3)?,
+                episode: r.get(4)?,
+                state: r.get(5)?,
+                severity: r.get(6)?,
+                message_id: r.get(7)?,
+                queued_at: r.get(8)?,
+            })
+        })?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
+}

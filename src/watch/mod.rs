@@ -12,9 +12,10 @@
 //! - [`write_slowly`]: writes a file like a slow instrument, for tests and demos.
 //!
 //! Which files are offered: names matching an ignore pattern (the file's or any folder's
-//! below the root) are not; directories and non-regular files are not; a symbolic link is
-//! followed only if it resolves inside the watched folder, and is then deduplicated with
-//! its target, so one file version is offered once.
+//! below the root) are not; directories are not; a symbolic link is followed only if it
+//! resolves to a regular file inside the watched folder, and is then deduplicated with its
+//! target, so one file version is offered once. A link leading elsewhere, a named pipe, a
+//! socket or a device is handed to [`FileSink::refuse`] with a reason, once per version.
 //!
 //! Wiring, in the `watch` command:
 //!
@@ -45,6 +46,7 @@ pub use folder::{
     MAX_POLL_INTERVAL_S, MAX_SETTLE_MS, MIN_SETTLE_MS, WatchFolder, WatchMode, default_ignore,
 };
 pub use runner::{RETRY_FIRST, RETRY_MAX, SHUTDOWN_GRACE, run};
+pub use scan::{entry_kind, judge_link};
 pub use settle::{CLOSE_RECHECK, SettleTracker, Signal, Stamp, Verdict};
 pub use shutdown::{shutdown_receiver, shutdown_signal};
 pub use slow::write_slowly;
@@ -64,6 +66,16 @@ pub trait FileSink: Send + Sync + 'static {
     /// on with the next file and offers this version again after a growing pause
     /// ([`RETRY_FIRST`], doubling up to [`RETRY_MAX`]); a changed file is offered at once.
     fn ingest(&self, folder: &WatchFolder, path: &Path) -> anyhow::Result<()>;
+
+    /// Reports an entry of `folder` that is not offered, with `reason` naming what it is
+    /// (a link leading out of the folder, a named pipe, ...). Called once per version of
+    /// the entry in a run. The pipeline records it like a rejected file; this default only
+    /// logs it, so that no entry is passed over without a line.
+    fn refuse(&self, folder: &WatchFolder, path: &Path, reason: &str) -> anyhow::Result<()> {
+        tracing::warn!(folder = ?folder.path, path = ?path, reason = %reason.escape_debug(),
+            "entry not read");
+        Ok(())
+    }
 }
 
 /// What the watcher did, returned when it stops.

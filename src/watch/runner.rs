@@ -22,7 +22,7 @@ use tokio::task::JoinHandle;
 use super::error::WatchError;
 use super::events::classify;
 use super::folder::{WatchFolder, WatchMode};
-use super::scan::{FileFound, Root, Skip};
+use super::scan::{FileFound, Refused, Root, Skip};
 use super::settle::{SettleTracker, Signal, Stamp, Verdict};
 use super::{FileSink, WatchStats};
 
@@ -38,13 +38,21 @@ struct Sighting {
     signal: Signal,
 }
 
-/// A settled file for the worker.
+/// What events and scans send the loop: a file to settle, or an entry to report.
+#[derive(Debug)]
+enum Seen {
+    File(Sighting),
+    Refused { root: usize, refused: Refused },
+}
+
+/// A settled file for the worker, or (with `refusal`) an entry to report as refused.
 #[derive(Debug)]
 struct Job {
     root: usize,
     path: PathBuf,
     key: PathBuf,
     stamp: Stamp,
+    refusal: Option<String>,
 }
 
 /// What the worker reports back after one sink call.
@@ -70,7 +78,7 @@ pub async fn run(
     if roots.is_empty() {
         tracing::warn!("no folders configured; waiting for shutdown");
     }
-    let (seen_tx, mut seen_rx) = mpsc::unbounded_channel::<Sighting>();
+    let (seen_tx, mut seen_rx) = mpsc::unbounded_channel::<Seen>();
 
     // Events first, then the catch-up scan: a file landing in between is seen twice at
     // worst (harmless), never missed.
@@ -118,7 +126,10 @@ pub async fn run(
                         break;
                     }
                 }
-                Some(sighting) = seen_rx.recv() => state.sighted(sighting),
+                Some(seen) = seen_rx.recv() => match seen {
+                    Seen::File(sighting) => state.sighted(sighting),
+                    Seen::Refused { root, refused } => state.refused_entry(root, refused),
+                },
                 Some(outcome) = done_rx.recv() => state.finished(outcome),
                 () = sleep_until(deadline) => state.recheck(),
             }
@@ -216,7 +227,7 @@ fn prepare(folders: &[WatchFolder]) -> Result<Vec<Root>, WatchError> {
 /// thread and does the file checks there, so the loop only sees candidate files.
 fn start_events(
     root: Root,
-    seen: mpsc::UnboundedSender<Sighting>,
+    seen: mpsc::UnboundedSender<Seen>,
 ) -> Result<RecommendedWatcher, WatchError> {
     let path = root.canonical.clone();
     let index = root.index;
@@ -230,21 +241,26 @@ fn start_events(
             let meaning = classify(&event);
             if meaning.rescan {
                 tracing::warn!(folder = ?root.canonical, "file events were lost; rescanning");
-                send_all(&seen, root.index, root.scan(&root.canonical));
+                send_all(&seen, root.index, root.scan_all(&root.canonical));
             }
             for (path, signal) in meaning.look_at {
                 match root.examine(&path) {
                     Ok(found) => {
-                        let _ = seen.send(Sighting {
+                        let _ = seen.send(Seen::File(Sighting {
                             root: root.index,
                             found,
                             signal,
-                        });
+                        }));
                     }
                     Err(Skip::Directory) if root.recursive && meaning.arrived.contains(&path) => {
-                        send_all(&seen, root.index, root.scan(&path));
+                        send_all(&seen, root.index, root.scan_all(&path));
                     }
-                    Err(skip) => tracing::trace!(path = ?path, ?skip, "not offered"),
+                    Err(skip) => {
+                        if let Some(refused) = root.refused_entry(&path, skip) {
+                            let root = root.index;
+                            let _ = seen.send(Seen::Refused { root, refused });
+                        }
+                    }
                 }
             }
         }
@@ -263,24 +279,31 @@ fn start_events(
     Ok(watcher)
 }
 
-fn send_all(seen: &mpsc::UnboundedSender<Sighting>, root: usize, files: Vec<FileFound>) {
+fn send_all(
+    seen: &mpsc::UnboundedSender<Seen>,
+    root: usize,
+    (files, refused): (Vec<FileFound>, Vec<Refused>),
+) {
+    // The loop is gone only during shutdown; nothing left to tell then.
     for found in files {
-        // The loop is gone only during shutdown; nothing left to tell then.
-        let _ = seen.send(Sighting {
+        let _ = seen.send(Seen::File(Sighting {
             root,
             found,
             signal: Signal::Seen,
-        });
+        }));
+    }
+    for refused in refused {
+        let _ = seen.send(Seen::Refused { root, refused });
     }
 }
 
 /// Scans a folder once (catch-up), or every `every` in poll mode. Directory listing may
 /// block on a slow share, so it runs on the blocking pool.
-async fn scanner(root: Root, every: Option<Duration>, seen: mpsc::UnboundedSender<Sighting>) {
+async fn scanner(root: Root, every: Option<Duration>, seen: mpsc::UnboundedSender<Seen>) {
     let root = Arc::new(root);
     loop {
         let scan_root = root.clone();
-        match tokio::task::spawn_blocking(move || scan_root.scan(&scan_root.canonical)).await {
+        match tokio::task::spawn_blocking(move || scan_root.scan_all(&scan_root.canonical)).await {
             Ok(files) => send_all(&seen, root.index, files),
             Err(error) => tracing::error!(folder = ?root.canonical, %error, "folder scan failed"),
         }
@@ -305,8 +328,10 @@ fn worker(
             break;
         }
         let result = match folders.get(job.root) {
-            Some(folder) => match catch_unwind(AssertUnwindSafe(|| sink.ingest(folder, &job.path)))
-            {
+            Some(folder) => match catch_unwind(AssertUnwindSafe(|| match &job.refusal {
+                Some(reason) => sink.refuse(folder, &job.path, reason),
+                None => sink.ingest(folder, &job.path),
+            })) {
                 Ok(Ok(())) => Ok(()),
                 Ok(Err(error)) => Err(format!("{error:#}")),
                 Err(_) => Err("the ingestion code panicked".to_string()),
@@ -352,6 +377,9 @@ struct State {
     offered: HashMap<PathBuf, Stamp>,
     /// Versions queued for or inside the sink.
     in_flight: HashMap<PathBuf, Stamp>,
+    /// Entries reported as refused in this run, with the version and reason reported: the
+    /// same is not reported twice (a poll folder's scans see it again and again).
+    reported: HashMap<PathBuf, (Stamp, String)>,
     /// Versions the sink refused; held back until their retry time, so a poll folder does
     /// not offer a failing file at every scan.
     refused: HashMap<PathBuf, Refusal>,
@@ -372,6 +400,7 @@ impl State {
             tracker: SettleTracker::new(),
             offered: HashMap::new(),
             in_flight: HashMap::new(),
+            reported: HashMap::new(),
             refused: HashMap::new(),
             retry_first: RETRY_FIRST,
             job_tx: Some(job_tx),
@@ -434,6 +463,29 @@ impl State {
         );
     }
 
+    /// An entry to report: handed to the worker unless this version was reported already.
+    fn refused_entry(&mut self, root: usize, refused: Refused) {
+        let Refused {
+            path,
+            reason,
+            stamp,
+        } = refused;
+        let seen = (stamp, reason);
+        if self.reported.get(&path) == Some(&seen) {
+            return;
+        }
+        let (stamp, reason) = seen.clone();
+        self.reported.insert(path.clone(), seen);
+        let job = Job {
+            root,
+            key: path.clone(),
+            path,
+            stamp,
+            refusal: Some(reason),
+        };
+        self.dispatch(job, Instant::now());
+    }
+
     /// Puts refused files whose retry time has come back into the settle tracker, then
     /// re-checks every file whose time has come and hands the settled ones to the worker.
     fn recheck(&mut self) {
@@ -479,6 +531,7 @@ impl State {
                         path,
                         key,
                         stamp,
+                        refusal: None,
                     },
                     now,
                 ),
@@ -512,6 +565,16 @@ impl State {
             self.in_flight.remove(&job.key);
         }
         self.stats.offered += 1;
+        if job.refusal.is_some() {
+            if let Err(error) = result {
+                // Reported again at the next scan or event that sees it.
+                self.stats.sink_errors += 1;
+                tracing::error!(path = ?job.path, error = %error.escape_debug(),
+                    "refused entry not recorded");
+                self.reported.remove(&job.key);
+            }
+            return;
+        }
         let profile = self
             .folders
             .get(job.root)

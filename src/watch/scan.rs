@@ -2,10 +2,14 @@
 //!
 //! Rules, in order: the path must lie below the watched root (directly, unless the folder
 //! is recursive); no name between the root and the file may match an ignore pattern;
-//! directories and non-regular files (FIFOs, sockets, devices) are skipped; a symbolic
-//! link is followed only when its target resolves inside the watched root, so a link
-//! cannot smuggle in a file from elsewhere. Inside links are offered under the link's own
-//! path but deduplicated by the resolved path, so link and target are offered once.
+//! directories are not files; a symbolic link is followed only when its target resolves
+//! to a regular file inside the watched root, so a link cannot smuggle in a file from
+//! elsewhere. Inside links are offered under the link's own path but deduplicated by the
+//! resolved path, so link and target are offered once.
+//!
+//! What is neither a file to offer nor a folder nor ignored (a link leading out of the
+//! root, to a folder or to nothing; a named pipe, a socket, a device) is an entry to
+//! report: [`Root::refusal`] names what it is, and the watcher hands it on as refused.
 
 use std::fs;
 use std::io;
@@ -36,7 +40,58 @@ pub(crate) enum Skip {
     Unreadable,
     Directory,
     LinkOutside,
+    /// A symbolic link whose target does not exist.
+    LinkBroken,
+    /// A symbolic link to a folder (folders are watched where they are).
+    LinkToFolder,
     NotRegular,
+}
+
+/// What kind of entry a file type is, in words, for messages.
+pub fn entry_kind(t: &fs::FileType) -> &'static str {
+    use std::os::unix::fs::FileTypeExt;
+    if t.is_file() {
+        "a regular file"
+    } else if t.is_dir() {
+        "a folder"
+    } else if t.is_symlink() {
+        "a symbolic link"
+    } else if t.is_fifo() {
+        "a named pipe (FIFO)"
+    } else if t.is_socket() {
+        "a socket"
+    } else if t.is_block_device() {
+        "a block device"
+    } else if t.is_char_device() {
+        "a character device"
+    } else {
+        "an entry of unknown kind"
+    }
+}
+
+/// `Ok` when the symbolic link at `link` leads to a regular file inside `root` (a
+/// canonical folder path); otherwise why it is not followed, naming where it leads.
+pub fn judge_link(link: &Path, root: &Path) -> Result<(), String> {
+    let target = fs::canonicalize(link).map_err(|e| {
+        format!("a symbolic link whose target cannot be reached ({e}); expected an export file")
+    })?;
+    if !target.starts_with(root) {
+        return Err(format!(
+            "a symbolic link to {}, outside the folder {}; only links to files inside it are followed",
+            target.display(),
+            root.display()
+        ));
+    }
+    match fs::metadata(&target) {
+        Ok(m) if m.is_file() => Ok(()),
+        Ok(m) => Err(format!(
+            "a symbolic link to {}, not a regular file; expected a link to an export file",
+            entry_kind(&m.file_type())
+        )),
+        Err(e) => Err(format!(
+            "a symbolic link whose target cannot be read ({e}); expected an export file"
+        )),
+    }
 }
 
 /// A file that may be offered: `key` is its resolved path (the identity used to avoid
@@ -45,6 +100,15 @@ pub(crate) enum Skip {
 pub(crate) struct FileFound {
     pub path: PathBuf,
     pub key: PathBuf,
+    pub stamp: Stamp,
+}
+
+/// An entry below the root that is not offered and must be reported: its path, why, and
+/// its own size and time (not its target's), so an unchanged entry is reported once.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub(crate) struct Refused {
+    pub path: PathBuf,
+    pub reason: String,
     pub stamp: Stamp,
 }
 
@@ -89,21 +153,25 @@ impl Root {
         if own.is_dir() {
             return Err(Skip::Directory);
         }
+        let link = own.file_type().is_symlink();
         // Resolve links in the file and in any directory on the way; both must stay inside.
-        let key = fs::canonicalize(path).map_err(io_skip)?;
+        let key = fs::canonicalize(path).map_err(|e| match io_skip(e) {
+            Skip::Gone if link => Skip::LinkBroken,
+            skip => skip,
+        })?;
         if !key.starts_with(&self.canonical) {
             return Err(Skip::LinkOutside);
         }
-        let meta = if own.file_type().is_symlink() {
+        let meta = if link {
             fs::metadata(&key).map_err(io_skip)?
         } else {
             own
         };
         if !meta.is_file() {
-            return Err(if meta.is_dir() {
-                Skip::Directory
-            } else {
-                Skip::NotRegular
+            return Err(match (meta.is_dir(), link) {
+                (true, true) => Skip::LinkToFolder,
+                (true, false) => Skip::Directory,
+                _ => Skip::NotRegular,
             });
         }
         Ok(FileFound {
@@ -113,12 +181,46 @@ impl Root {
         })
     }
 
+    /// Why the entry at `path`, which [`Root::examine`] skipped for `skip`, is refused: a
+    /// reason to record for what must be reported, `None` for what is rightly passed over
+    /// (ignored names, folders, files gone or outside the root, deeper than watched).
+    pub fn refusal(&self, path: &Path, skip: Skip) -> Option<String> {
+        match skip {
+            Skip::LinkOutside | Skip::LinkBroken | Skip::LinkToFolder => {
+                judge_link(path, &self.canonical).err()
+            }
+            Skip::NotRegular => {
+                let own = fs::symlink_metadata(path).ok()?;
+                if own.file_type().is_symlink() {
+                    return judge_link(path, &self.canonical).err();
+                }
+                let kind = entry_kind(&own.file_type());
+                Some(format!(
+                    "{kind}, not a regular file; expected an export file"
+                ))
+            }
+            Skip::OutsideRoot
+            | Skip::TooDeep
+            | Skip::Ignored
+            | Skip::Gone
+            | Skip::Unreadable
+            | Skip::Directory => None,
+        }
+    }
+
     /// Every file that may be offered under `dir` (the root or a sub-folder of it), oldest
     /// modification first so that a catch-up offers files roughly in the order they landed.
     /// Symbolic links to directories are not descended into; unreadable directories are
     /// logged and skipped.
+    #[cfg(test)]
     pub fn scan(&self, dir: &Path) -> Vec<FileFound> {
+        self.scan_all(dir).0
+    }
+
+    /// [`Root::scan`]'s files, and the entries it found to report as refused.
+    pub fn scan_all(&self, dir: &Path) -> (Vec<FileFound>, Vec<Refused>) {
         let mut found = Vec::new();
+        let mut refused = Vec::new();
         let mut stack = vec![dir.to_path_buf()];
         while let Some(current) = stack.pop() {
             let entries = match fs::read_dir(&current) {
@@ -139,7 +241,7 @@ impl Root {
                 }
                 match self.examine(&path) {
                     Ok(file) => found.push(file),
-                    Err(skip) => tracing::trace!(path = ?path, ?skip, "not offered"),
+                    Err(skip) => refused.extend(self.refused_entry(&path, skip)),
                 }
             }
         }
@@ -149,7 +251,36 @@ impl Root {
                 .cmp(&b.stamp.modified)
                 .then_with(|| a.path.cmp(&b.path))
         });
-        found
+        refused.sort_by(|a, b| a.path.cmp(&b.path));
+        (found, refused)
+    }
+
+    /// The entry to report for a path [`Root::examine`] skipped, if it is one; what is
+    /// passed over is logged (an unreadable entry as a warning).
+    pub fn refused_entry(&self, path: &Path, skip: Skip) -> Option<Refused> {
+        match self.refusal(path, skip) {
+            Some(reason) => {
+                let stamp = fs::symlink_metadata(path)
+                    .map(|m| stamp_of(&m))
+                    .unwrap_or(Stamp {
+                        size: 0,
+                        modified: None,
+                    });
+                Some(Refused {
+                    path: path.to_path_buf(),
+                    reason,
+                    stamp,
+                })
+            }
+            None if skip == Skip::Unreadable => {
+                tracing::warn!(path = ?path, "cannot look at this entry; not offered");
+                None
+            }
+            None => {
+                tracing::trace!(path = ?path, ?skip, "not offered");
+                None
+            }
+        }
     }
 }
 
@@ -253,8 +384,16 @@ mod tests {
         );
         assert_eq!(
             r.examine(&r.canonical.join("dangling.csv")),
-            Err(Skip::Gone)
+            Err(Skip::LinkBroken)
         );
+        let (_, refused) = r.scan_all(&r.canonical);
+        let names: Vec<_> = refused
+            .iter()
+            .map(|f| f.path.file_name().unwrap().to_owned())
+            .collect();
+        assert_eq!(names, ["dangling.csv", "out.csv"]);
+        assert!(refused[0].reason.contains("cannot be reached"));
+        assert!(refused[1].reason.contains("secret.csv"));
         let inside = r.examine(&r.canonical.join("in.csv")).unwrap();
         assert_eq!(inside.key, r.canonical.join("real.csv"));
         assert_eq!(inside.stamp.size, 3);
@@ -270,5 +409,10 @@ mod tests {
         let sock = r.canonical.join("instrument.csv");
         let _listener = std::os::unix::net::UnixListener::bind(&sock).unwrap();
         assert_eq!(r.examine(&sock), Err(Skip::NotRegular));
+        let reason = r.refusal(&sock, Skip::NotRegular).unwrap();
+        assert!(
+            reason.starts_with("a socket, not a regular file"),
+            "{reason}"
+        );
     }
 }

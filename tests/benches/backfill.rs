@@ -144,8 +144,10 @@ fn main() {
         t.elapsed().as_secs_f64()
     );
 
-    let mut files: Vec<PathBuf> = Vec::new();
-    ingestion::collect_files(&exports, &mut files).expect("list the files");
+    let mut listing = ingestion::Listing::default();
+    ingestion::collect_files(&exports, &mut listing).expect("list the files");
+    assert!(listing.refused.is_empty(), "{:?}", listing.refused);
+    let files: Vec<PathBuf> = listing.files;
     assert_eq!(files.len(), n);
     // Warm the page cache: read every file once.
     let mut bytes = 0usize;

@@ -387,6 +387,7 @@ fn digest_is_queued_once_per_period_and_kept_out_of_changes() {
     let period = DigestPeriod {
         from: t("2026-11-30T07:30:00Z"),
         to: t("2026-12-01T07:30:00Z"),
+        chain_head: None,
     };
     let open = open_alerts(&conn).unwrap();
     let changes = changes_since(&conn, "2026-11-30T07:30:00Z").unwrap();

@@ -37,10 +37,13 @@ pub struct AlertChange {
 }
 
 /// The period a digest covers.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq, Eq)]
 pub struct DigestPeriod {
     pub from: DateTime<Utc>,
     pub to: DateTime<Utc>,
+    /// The audit chain's newest event as `SEQ:HASH`, published in the digest so that a
+    /// later `verify --head` can prove no newest entry was removed.
+    pub chain_head: Option<String>,
 }
 
 fn num(v: Option<f64>) -> String {
@@ -185,7 +188,22 @@ pub fn compose_digest(
             html_escape(&fc)
         );
     }
-    html.push_str("</table><h3>Cautions</h3><ul>");
+    html.push_str("</table>");
+    if let Some(head) = &period.chain_head {
+        let _ = writeln!(
+            text,
+            "\nAudit chain head: {head}\n(keep this line: `turnbook verify --head {head}` proves \
+             later that no entry up to it was removed or altered)"
+        );
+        let _ = write!(
+            html,
+            "<p>Audit chain head: <code>{}</code> (keep this line: <code>turnbook verify \
+             --head {}</code> proves later that no entry up to it was removed or altered)</p>",
+            html_escape(head),
+            html_escape(head)
+        );
+    }
+    html.push_str("<h3>Cautions</h3><ul>");
     text.push_str("\nCautions:\n");
     for c in CAUTIONS {
         let _ = writeln!(text, "- {c}");
@@ -241,8 +259,15 @@ mod tests {
         let p = DigestPeriod {
             from: t("2026-11-30T07:30:00Z"),
             to: t("2026-12-01T07:30:00Z"),
+            chain_head: Some("54:ab12".into()),
         };
         let m = compose_digest(&[snap], &[], &[open], &p, &["m@example.org".into()]);
+        assert!(
+            m.text.contains("Audit chain head: 54:ab12")
+                && m.text.contains("verify --head 54:ab12"),
+            "{}",
+            m.text
+        );
         assert_eq!(
             m.subject,
             "turnbook digest 2026-11-30 to 2026-12-01: 1 lots, 1 open alerts"

@@ -230,7 +230,11 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
     }
     let open = outbox::open_alerts(&conn)?;
     let changes = outbox::changes_since(&conn, &format_ts(from))?;
-    let period = digest::DigestPeriod { from, to: now };
+    let period = digest::DigestPeriod {
+        from,
+        to: now,
+        chain_head: store::events::head(&conn)?.map(|h| h.to_string()),
+    };
     let msg = digest::compose_digest(
         &snapshots,
         &changes,

@@ -145,20 +145,8 @@ pub fn alerts_view(cfg: &Config, limit: i64) -> Result<AlertsView> {
     Ok(AlertsView { open, recent })
 }
 
-/// One recorded file.
-#[derive(Debug, Clone, Serialize)]
-pub struct FileLine {
-    pub id: i64,
-    pub path: String,
-    pub sha256: String,
-    pub seen_at: String,
-    pub outcome: String,
-    pub error: Option<String>,
-    pub quarantined: Option<String>,
-    pub rows_new: i64,
-    pub rows_known: i64,
-    pub rows_conflict: i64,
-}
+/// One recorded file, as the files page lists it.
+pub use crate::store::web::FileRow as FileLine;
 
 /// Files by outcome, and the newest files.
 #[derive(Debug, Clone, Serialize)]
@@ -173,21 +161,7 @@ pub struct FilesView {
 pub fn files_view(cfg: &Config, limit: i64) -> Result<FilesView> {
     let conn = open(cfg)?;
     let c = store::queries::file_counts(&conn, "", "")?;
-    let files = store::web::recent_files(&conn, limit)?
-        .into_iter()
-        .map(|f| FileLine {
-            id: f.id,
-            path: f.path,
-            sha256: f.sha256,
-            seen_at: f.seen_at,
-            outcome: f.outcome,
-            error: f.error,
-            quarantined: f.quarantined,
-            rows_new: f.rows_new,
-            rows_known: f.rows_known,
-            rows_conflict: f.rows_conflict,
-        })
-        .collect();
+    let files = store::web::recent_files(&conn, limit)?;
     Ok(FilesView {
         ingested: c.ingested,
         duplicates: c.duplicates,
@@ -267,6 +241,6 @@ impl ChangeWatch {
 
     /// The current version; compare it with an earlier one to learn of a commit.
     pub fn version(&self) -> Result<i64> {
-        Ok(store::web::data_version(&self.conn)?)
+        Ok(store::bulk::data_version(&self.conn)?)
     }
 }

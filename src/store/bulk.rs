@@ -94,7 +94,8 @@ pub fn open_for_lookups(db_path: &Path) -> Result<Connection> {
     Ok(conn)
 }
 
-/// `PRAGMA data_version`: it moves only when another connection commits.
+/// `PRAGMA data_version`: it moves only when another connection commits, and reading it
+/// writes nothing (the web view's change counter polls it).
 pub fn data_version(conn: &Connection) -> Result<i64> {
     Ok(conn.query_row("PRAGMA data_version", [], |r| r.get(0))?)
 }

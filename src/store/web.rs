@@ -1,18 +1,12 @@
 //! Reads for the browser view and the operations endpoints: files by outcome, sign-offs,
-//! the chain's head, the outbox's oldest waiting message and the change counter.
+//! the chain's head and the outbox's oldest waiting message.
 
 use rusqlite::{Connection, OptionalExtension};
 
 use super::Result;
 
-/// SQLite's `PRAGMA data_version` of this connection: it changes when another connection
-/// commits to the database, and costs no write.
-pub fn data_version(conn: &Connection) -> Result<i64> {
-    Ok(conn.query_row("PRAGMA data_version", [], |r| r.get(0))?)
-}
-
 /// One recorded file, as the files page lists it.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, serde::Serialize)]
 pub struct FileRow {
     pub id: i64,
     pub path: String,

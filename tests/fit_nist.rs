@@ -5,9 +5,9 @@
 
 #![allow(clippy::needless_range_loop)]
 
-use turnbook::fit::lm::{Curve, FnCurve, LmOptions, levenberg_marquardt};
-use turnbook::fit::models::{bennett_from_power, power_from_bennett};
-use turnbook::fit::{FitOptions, ModelId, engine::covariance_of, fit_model};
+use turnbook::fit::{Curve, FnCurve, LmOptions, levenberg_marquardt};
+use turnbook::fit::{FitOptions, ModelId, covariance_of, fit_model};
+use turnbook::fit::{bennett_from_power, power_from_bennett};
 
 /// What a NIST StRD .dat file certifies.
 struct Strd {
@@ -223,7 +223,7 @@ fn misra1a_through_plateau_model() {
 #[test]
 fn bennett5_through_power_model() {
     // NIST StRD Bennett5 b1·(b2 + x)^(−1/b3) is our power law with m = 1 + b3,
-    // kd = 1/(b2·b3), a0 = b1·b2^(−1/b3) (derivation in fit::models::power_from_bennett).
+    // kd = 1/(b2·b3), a0 = b1·b2^(−1/b3) (derivation in fit::power_from_bennett).
     // RSS does not depend on the parameterisation; the parameters map back to b1..b3.
     let d = parse_strd("Bennett5");
     for (k, s) in d.starts.iter().enumerate() {

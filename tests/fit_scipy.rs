@@ -11,7 +11,7 @@ use std::process::Command;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
-use turnbook::fit::start::start_values;
+use turnbook::fit::start_values;
 use turnbook::fit::{FitOptions, ModelId, fit_model};
 
 fn scipy_available() -> bool {

@@ -6,11 +6,11 @@
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
-use turnbook::fit::lm::{LmOptions, levenberg_marquardt};
-use turnbook::fit::start::start_values;
+use turnbook::fit::start_values;
 use turnbook::fit::{
     AnalysisOptions, FitOptions, LotSeries, ModelId, StopReason, analyse, fit_model,
 };
+use turnbook::fit::{LmOptions, levenberg_marquardt};
 
 fn series(seed: u64, sd: f64, n: usize, f: impl Fn(f64) -> f64) -> (Vec<f64>, Vec<f64>) {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);

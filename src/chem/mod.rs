@@ -6,11 +6,11 @@
 //! - [`limits`]: ICH Q3D permitted daily exposures and concentration limits.
 //! - [`metrics`]: [`cycle_metrics`], the call that turns a lot's cycles into metrics.
 
-mod elements;
-mod kinetics;
-mod limits;
-mod lot_check;
-mod metrics;
+pub mod elements;
+pub mod kinetics;
+pub mod limits;
+pub mod lot_check;
+pub mod metrics;
 
 pub use elements::{METALS, molar_mass};
 pub use kinetics::{

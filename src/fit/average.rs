@@ -9,7 +9,7 @@
 //! (Burnham & Anderson, "Model Selection and Multimodel Inference", 2nd ed., Springer 2002,
 //! §4.3.2, eq. 4.9; recalled from memory). The crossing of the averaged curve is the
 //! averaged forecast, and its interval inverts the averaged band, as for one fit
-//! ([`super::forecast`]). With a single candidate this is exactly that candidate's forecast.
+//! ([`super::forecast`](mod@super::forecast)). With a single candidate this is exactly that candidate's forecast.
 
 use serde::{Deserialize, Serialize};
 

@@ -6,7 +6,7 @@
 //! - [`varpro`]: two sites by variable projection, with degenerate fits recognised.
 //! - [`engine`]: fitting one named model and the statistics of the optimum.
 //! - [`choice`]: AICc and the "simplest within ΔAICc < 2" rule.
-//! - [`forecast`]: the forecast states, the crossing of the replacement criterion and its
+//! - [`forecast`](mod@forecast): the forecast states, the crossing of the replacement criterion and its
 //!   interval by inverting the confidence band (Fieller), lifetime TON.
 //! - [`average`]: Akaike weights and the unconditional variance of Burnham & Anderson
 //!   (2002); the next batch's verdict.
@@ -47,15 +47,21 @@ pub mod render;
 pub mod start;
 pub mod varpro;
 
-pub use analysis::{AnalysisOptions, ENGINE_VERSION, LotAnalysis, LotSeries, analyse};
+pub use abrupt::{AbruptLoss, CusumResult, LevelShift, Monitoring, PredictionCheck, cusum_down};
+pub use analysis::{
+    AnalysisOptions, ENGINE_VERSION, LotAnalysis, LotSeries, NamedValue, RankEntry, analyse,
+};
 pub use average::{ModelWeight, NextCycle, NextVerdict};
 pub use economics::EconomicInputs;
-pub use engine::{FitOptions, FitResult, fit_model, fit_with_start};
+pub use engine::{FitOptions, FitResult, covariance_of, fit_model, fit_with_start};
 pub use error::{FitError, SeriesError};
-pub use forecast::{Criterion, Forecast, ForecastStatus, forecast};
-pub use lm::{Curve, FnCurve, LmOptions, LmOutcome, StopReason, levenberg_marquardt};
-pub use models::ModelId;
+pub use forecast::{Criterion, Forecast, ForecastStatus, NotReachedWhy, forecast, t_quantile};
+pub use lm::{
+    Curve, FnCurve, LmOptions, LmOutcome, StopReason, levenberg_marquardt, numeric_gradient,
+};
+pub use models::{ModelId, bennett_from_power, power_from_bennett};
 pub use render::{
     ModelArg, analysis_json, fit_json, parse_model_arg, parse_start_arg, read_series_csv,
     render_text,
 };
+pub use start::start_values;

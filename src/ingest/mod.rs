@@ -1,8 +1,8 @@
 //! Decoding export files and reading them through export profiles. Pure: bytes in, records out.
 //!
 //! - [`decode()`]: bytes to text (UTF-8, UTF-16 LE/BE, BOM sniffing), refusing invalid text.
-//! - [`profile`]: the `[profiles.NAME]` configuration tables and their validation.
-//! - [`units`]: the closed list of units and their conversion to canonical units.
+//! - `profile`: the `[profiles.NAME]` configuration tables and their validation.
+//! - `units`: the closed list of units and their conversion to canonical units.
 //! - [`parse()`]: one file through one profile into [`ParsedFile`].
 //! - [`ParseCache`]: [`parse_valid`] for a run of files, resolving each header row once.
 

@@ -156,11 +156,11 @@ pub struct Profile {
     #[serde(default)]
     pub temperature_range_k: Option<[f64; 2]>,
     /// Earliest plausible date of `started_at` and `received`, `YYYY-MM-DD`;
-    /// [`DEFAULT_EARLIEST_DATE`] when absent.
+    /// `DEFAULT_EARLIEST_DATE` when absent.
     #[serde(default)]
     pub earliest_date: Option<String>,
     /// Days after the present time (given by the caller) still plausible for a date;
-    /// [`DEFAULT_LATEST_DAYS_AHEAD`] when absent.
+    /// `DEFAULT_LATEST_DAYS_AHEAD` when absent.
     #[serde(default)]
     pub latest_days_ahead: Option<u32>,
     pub columns: BTreeMap<String, ColumnSpec>,

@@ -253,7 +253,7 @@ impl Ingestor {
         )
     }
 
-    /// Record entries that are not read (see [`super::listing`]) as rejected files, in one
+    /// Record entries that are not read (see the `listing` module) as rejected files, in one
     /// transaction: no content is read or copied into quarantine, and each raises the
     /// quarantine alert like any rejected file.
     pub fn refuse_entries(

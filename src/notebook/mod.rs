@@ -2,17 +2,17 @@
 //! call. It does the work and returns data; it never prints and never decides an exit
 //! status.
 //!
-//! - [`ingestion`]: files from bytes to committed records (hash, parse, merge, store), one
+//! - `ingestion`: files from bytes to committed records (hash, parse, merge, store), one
 //!   at a time for the service or in parallel groups for a backfill.
-//! - [`lots`]: a lot's state (metrics of every cycle, the fit, what needs attention), and
+//! - `lots`: a lot's state (metrics of every cycle, the fit, what needs attention), and
 //!   its recomputation when records change.
-//! - [`alerts`]: from a lot's state to the alert rules and the outbox.
-//! - [`entries`]: register, correct, exclude, note, sign off.
-//! - [`history`]: status, a lot's history and the fingerprint a sign-off covers.
-//! - [`fits`]: the deactivation fit of a stored lot or of any two-column series.
-//! - [`reports`]: the data of a lot's or the site's report, and writing them.
-//! - [`daemon`]: the service: watcher, mailer and digest, with an orderly shutdown.
-//! - [`views`]: read-only views for the browser and for operations, and the change watch.
+//! - `alerts`: from a lot's state to the alert rules and the outbox.
+//! - `entries`: register, correct, exclude, note, sign off.
+//! - `history`: status, a lot's history and the fingerprint a sign-off covers.
+//! - `fits`: the deactivation fit of a stored lot or of any two-column series.
+//! - `reports`: the data of a lot's or the site's report, and writing them.
+//! - `daemon`: the service: watcher, mailer and digest, with an orderly shutdown.
+//! - `views`: read-only views for the browser and for operations, and the change watch.
 
 mod alerts;
 mod chain;

@@ -26,7 +26,7 @@ fn report_forecast(f: &fit::Forecast) -> report::Forecast {
 
 fn fit_summary(cfg: &Config, a: &fit::LotAnalysis) -> Option<report::FitSummary> {
     let f = a.fit.as_ref()?;
-    let t = fit::forecast::t_quantile(cfg.fitting.confidence, f.dof);
+    let t = fit::t_quantile(cfg.fitting.confidence, f.dof);
     let params = f
         .param_names
         .iter()

@@ -8,7 +8,7 @@ use criterion::{Criterion, criterion_group, criterion_main};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
-use turnbook::fit::start::start_values;
+use turnbook::fit::start_values;
 use turnbook::fit::{
     AnalysisOptions, FitOptions, LmOptions, LotSeries, ModelId, analyse, fit_model,
 };

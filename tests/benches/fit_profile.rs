@@ -4,12 +4,12 @@
 //! ```sh
 //! cargo bench --bench fit_profile --no-run
 //! valgrind --tool=callgrind --dump-instr=no \
-//!     --toggle-collect='turnbook::fit::analysis::analyse' target/release/deps/fit_profile-*
+//!     --toggle-collect='turnbook::fit::analyse' target/release/deps/fit_profile-*
 //! ```
 //!
 //! The instructions collected divided by the calls (first argument, default 100) are the
 //! cost of one analysis. A second argument naming a model (`two-site`) loops over that
-//! model's fit at analyse()'s tolerances instead (collect `turnbook::fit::engine::fit_model`)
+//! model's fit at analyse()'s tolerances instead (collect `turnbook::fit::fit_model`)
 //! and prints its iterations. Demo data: the same invented lot and seed as `benches/fit.rs`.
 
 use std::hint::black_box;

@@ -635,3 +635,42 @@ async fn the_pages_render_in_headless_chromium_and_go_live() {
         "{dom}"
     );
 }
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_kept_lots_page_gives_way_to_a_new_commit() {
+    let (_tmp, cfg) = plant();
+    let (v, stop) = view(&cfg, None);
+    let addr = serve(&v).await;
+    let fetch = |path: &'static str| async move {
+        let mut s = tokio::net::TcpStream::connect(addr).await.unwrap();
+        s.write_all(
+            format!("GET {path} HTTP/1.1\r\nHost: x\r\nConnection: close\r\n\r\n").as_bytes(),
+        )
+        .await
+        .unwrap();
+        let mut out = Vec::new();
+        s.read_to_end(&mut out).await.unwrap();
+        String::from_utf8_lossy(&out).into_owned()
+    };
+    // Twice, so the second answer comes from the page kept for this generation.
+    assert!(!fetch("/").await.contains("ZZ-NEW-LOT"));
+    assert!(!fetch("/").await.contains("ZZ-NEW-LOT"));
+    let c = cfg.clone();
+    tokio::task::spawn_blocking(move || {
+        ingest(&c, "KV4-Z-001.csv", &hplc_export("KV4-Z-001", "ZZ-NEW-LOT"))
+    })
+    .await
+    .unwrap();
+    let landed = Instant::now();
+    loop {
+        if fetch("/").await.contains("ZZ-NEW-LOT") {
+            break;
+        }
+        assert!(
+            landed.elapsed() < Duration::from_secs(3),
+            "the lots page kept showing the plant as it was before the commit"
+        );
+        tokio::time::sleep(Duration::from_millis(100)).await;
+    }
+    stop.send(true).unwrap();
+}

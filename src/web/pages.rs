@@ -101,9 +101,16 @@ fn signoff_cell(o: &Overview, lot: &str) -> Markup {
 pub async fn lots(
     State(s): State<Arc<Shared>>,
     Query(q): Query<LotsQuery>,
-) -> Result<Html<String>, PageError> {
+) -> Result<Html<axum::body::Bytes>, PageError> {
+    let asked = q.sort.as_deref().unwrap_or("lot");
+    // Only the page's own sort keys are kept, so no request can grow the cache.
+    let known = SORTS.iter().map(|(k, _)| *k).find(|k| *k == asked);
+    if let Some(page) = known.and_then(|k| s.lots_page(k)) {
+        return Ok(Html(page));
+    }
+    let generation = s.generation();
     let o = s.overview().await?;
-    let key = q.sort.as_deref().unwrap_or("lot");
+    let key = asked;
     let lines = sort_lines(&o, key);
     let pending = lines
         .iter()
@@ -132,7 +139,11 @@ pub async fn lots(
         }
         (cautions())
     };
-    Ok(Html(page("Lots", "/", body).into_string()))
+    let rendered = axum::body::Bytes::from(page("Lots", "/", body).into_string());
+    if let Some(k) = known {
+        s.keep_lots_page(generation, k, rendered.clone());
+    }
+    Ok(Html(rendered))
 }
 
 /// `/lots/{lot}`: one lot with its chart, cycles, alerts, history, sign-offs and audit.

@@ -17,6 +17,9 @@ struct Cache {
     overview: Option<Arc<Overview>>,
     lots: HashMap<String, Arc<LotPage>>,
     audit: Option<Arc<AuditView>>,
+    /// Rendered lots pages by sort key: the page of a large plant is large, and rendering
+    /// it again for every request of the same generation was most of its cost.
+    lots_pages: HashMap<&'static str, axum::body::Bytes>,
 }
 
 /// Lot pages kept at most (the oldest are not tracked: the map is simply emptied).
@@ -94,6 +97,18 @@ impl Shared {
         if c.generation == generation && self.generation() == generation {
             put(&mut c);
         }
+    }
+
+    /// The lots page rendered at this generation with this sort key, if kept.
+    pub fn lots_page(&self, sort: &str) -> Option<axum::body::Bytes> {
+        self.cached(|c| c.lots_pages.get(sort).cloned())
+    }
+
+    /// Keep a lots page rendered at `generation` (sort keys are the page's own few).
+    pub fn keep_lots_page(&self, generation: u64, sort: &'static str, page: axum::body::Bytes) {
+        self.keep(generation, |c| {
+            c.lots_pages.insert(sort, page);
+        });
     }
 
     pub async fn overview(&self) -> Result<Arc<Overview>, ViewError> {

@@ -541,3 +541,36 @@ fn ingest_follows_a_named_link_and_refuses_a_named_pipe() {
     );
     assert!(text(&out.stdout).contains("1 files: 0 ingested, 0 duplicates, 1 rejected"));
 }
+
+#[test]
+fn lots_say_whether_the_next_batch_is_safe() {
+    let plant = Plant::new();
+    let lots = plant.json(&["lots", "--json"]);
+    let pd = lots
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|l| l["lot"] == LOT)
+        .unwrap();
+    let next = &pd["next_cycle"];
+    assert_eq!(next["x"].as_f64(), Some(15.0), "{pd}");
+    let (lo, p, hi) = (
+        next["lower"].as_f64().unwrap(),
+        next["predicted"].as_f64().unwrap(),
+        next["upper"].as_f64().unwrap(),
+    );
+    assert!(lo < p && p < hi, "{next}");
+    let verdict = next["verdict"].as_str().unwrap();
+    let threshold = next["threshold"].as_f64().unwrap();
+    // The verdict follows from the interval and the criterion.
+    let expected = if lo > threshold {
+        "ok"
+    } else if p < threshold {
+        "below"
+    } else {
+        "marginal"
+    };
+    assert_eq!(verdict, expected, "{next}");
+    let table = plant.ok(&["lots"]);
+    assert!(table.contains(&format!("next batch {verdict}")), "{table}");
+}

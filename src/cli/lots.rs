@@ -40,6 +40,10 @@ pub fn lots(cfg: &Config, json: bool) -> CmdResult {
             }
         });
         let mut tail = forecast.unwrap_or_default();
+        if let Some(n) = &l.next_cycle {
+            let verdict = serde_json::to_value(n.verdict).unwrap_or_default();
+            let _ = write!(tail, "  next batch {}", verdict.as_str().unwrap_or("?"));
+        }
         if l.abrupt_loss {
             tail.push_str("  ABRUPT LOSS");
         }

@@ -382,6 +382,8 @@ pub struct LotLine {
     pub lifetime_ton: Option<f64>,
     pub model: Option<String>,
     pub forecast: Option<serde_json::Value>,
+    /// The next batch's predicted activity against the criterion, with its verdict.
+    pub next_cycle: Option<fit::NextCycle>,
     pub abrupt_loss: bool,
     pub flags: Vec<String>,
     pub attention: Vec<String>,
@@ -415,6 +417,7 @@ fn lot_line(s: &LotState) -> LotLine {
         forecast: a
             .and_then(|a| a.forecast.as_ref())
             .and_then(|f| serde_json::to_value(f).ok()),
+        next_cycle: a.and_then(|a| a.next_cycle.clone()),
         abrupt_loss: a
             .and_then(|a| a.abrupt.as_ref())
             .is_some_and(|b| b.suspected),

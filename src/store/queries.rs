@@ -3,6 +3,7 @@
 use rusqlite::{Connection, OptionalExtension};
 
 use super::Result;
+use super::replay::StoredEvent;
 
 /// Files by outcome.
 #[derive(Debug, Clone, Default)]
@@ -24,18 +25,6 @@ pub struct RecordCounts {
     pub cycles: i64,
     /// Cycles whose lot is unknown or not registered.
     pub pending_cycles: i64,
-}
-
-/// One stored event, as stored.
-#[derive(Debug, Clone)]
-pub struct EventRow {
-    pub seq: i64,
-    pub at: String,
-    pub actor: String,
-    pub kind: String,
-    pub subject: String,
-    pub payload: String,
-    pub hash: String,
 }
 
 fn count(conn: &Connection, sql: &str, p: impl rusqlite::Params) -> Result<i64> {
@@ -85,9 +74,9 @@ pub fn record_counts(conn: &Connection) -> Result<RecordCounts> {
 
 /// Every event that concerns a lot: its registrations, the files that brought its cycles,
 /// corrections, exclusions, notes and sign-offs of its batches, in order.
-pub fn lot_events(conn: &Connection, lot: &str) -> Result<Vec<EventRow>> {
+pub fn lot_events(conn: &Connection, lot: &str) -> Result<Vec<StoredEvent>> {
     let mut stmt = conn.prepare(
-        "SELECT e.seq, e.at, e.actor, e.kind, e.subject, e.payload, e.hash FROM events e
+        "SELECT e.seq, e.at, e.actor, e.kind, e.subject, e.payload, e.prev_hash, e.hash FROM events e
          WHERE e.subject = ?1
             OR e.subject IN (SELECT batch_id FROM cycles WHERE lot = ?1)
             OR e.seq IN (SELECT b.event_seq FROM batch_sources b JOIN cycles c ON c.batch_id = b.batch_id WHERE c.lot = ?1)
@@ -97,14 +86,15 @@ pub fn lot_events(conn: &Connection, lot: &str) -> Result<Vec<EventRow>> {
     )?;
     let rows = stmt
         .query_map([lot], |r| {
-            Ok(EventRow {
+            Ok(StoredEvent {
                 seq: r.get(0)?,
                 at: r.get(1)?,
                 actor: r.get(2)?,
                 kind: r.get(3)?,
                 subject: r.get(4)?,
                 payload: r.get(5)?,
-                hash: r.get(6)?,
+                prev_hash: r.get(6)?,
+                hash: r.get(7)?,
             })
         })?
         .collect::<std::result::Result<Vec<_>, _>>()?;

@@ -81,6 +81,10 @@ pub struct Config {
     /// absent.
     #[serde(default)]
     pub web: Option<Web>,
+    /// The plant's IANA time zone ("Europe/Berlin"): batch starts without an offset are
+    /// read in it and dates shown to people are its local dates. UTC when absent.
+    #[serde(default)]
+    pub time_zone: Option<String>,
     /// Folder of the configuration file, for relative paths (set at load).
     #[serde(skip)]
     pub base_dir: PathBuf,
@@ -326,6 +330,14 @@ impl Config {
         Ok(cfg)
     }
 
+    /// The plant's time zone (validated at load; UTC when absent).
+    pub fn zone(&self) -> chrono_tz::Tz {
+        self.time_zone
+            .as_deref()
+            .and_then(|z| crate::model::calendar::zone(z).ok())
+            .unwrap_or(chrono_tz::UTC)
+    }
+
     fn invalid(&self, key: impl Into<String>, message: impl Into<String>) -> ConfigError {
         ConfigError::Invalid {
             path: self.source.clone(),
@@ -398,6 +410,11 @@ impl Config {
                     w.listen
                 ),
             ));
+        }
+        if let Some(z) = &self.time_zone
+            && let Err(e) = crate::model::calendar::zone(z)
+        {
+            return Err(self.invalid("time_zone", e.to_string()));
         }
         if self.files_per_transaction == 0 {
             return Err(self.invalid("files_per_transaction", "expected at least 1"));

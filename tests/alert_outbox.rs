@@ -48,6 +48,7 @@ fn snap(lot: &str, activity: f64) -> LotSnapshot {
         latest_activity: Some(activity),
         criterion: 0.6,
         forecast: None,
+        next_batch: None,
         abrupt: None,
         metal_in_product: None,
         metal_loss_fraction: None,

@@ -19,6 +19,7 @@ fn alert(lot: &str, file: &str) -> Alert {
         state: AlertState::Open,
         severity: Severity::Warning,
         subject: format!("Lot {lot}: file quarantined: {file}"),
+        action: "Fix the file.".into(),
         evidence: format!("File {file} was quarantined.\nReason: {lot}\n"),
         recipients: vec!["qa@example.org".into()],
         rows: vec![EvidenceRow {

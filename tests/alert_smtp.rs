@@ -99,6 +99,7 @@ fn snap(lot: &str) -> LotSnapshot {
         latest_activity: Some(0.41),
         criterion: 0.5,
         forecast: None,
+        next_batch: None,
         abrupt: None,
         metal_in_product: None,
         metal_loss_fraction: None,

@@ -16,18 +16,38 @@ use lettre::Message;
 use lettre::message::{Mailbox, MultiPart};
 
 use super::AlertError;
-use super::rules::{Alert, AlertState, EvidenceRow};
+use super::rules::{Alert, AlertState, EvidenceRow, RuleId};
 
-/// The cautions carried by every message.
 /// Domain of our Message-IDs; `.invalid` is reserved (RFC 2606), so it can never clash
 /// with a real host's identifiers.
 pub const MESSAGE_ID_DOMAIN: &str = "turnbook.invalid";
 
-pub const CAUTIONS: [&str; 3] = [
-    "Spent catalysts can be pyrophoric: keep them wet and handle them per site procedure.",
-    "Forecasts are advisory: they come from a fitted model and carry its uncertainty.",
-    "Batch release follows QA procedures and local regulations, not this message.",
-];
+/// Handling caution for spent catalyst (common practice for precious metals on carbon).
+pub const CAUTION_HANDLING: &str = "Spent catalysts can be pyrophoric: keep them wet and handle \
+     them per site procedure; local codes and licensed practice prevail.";
+/// Forecasts come from fitted models.
+pub const CAUTION_ADVISORY: &str =
+    "Forecasts are advisory: they come from a fitted model and carry its uncertainty.";
+/// Release decisions belong to QA.
+pub const CAUTION_RELEASE: &str =
+    "Batch release follows QA procedures and local regulations, not this message.";
+
+/// Every caution a message can carry (the report and the digest show them all).
+pub const CAUTIONS: [&str; 3] = [CAUTION_HANDLING, CAUTION_ADVISORY, CAUTION_RELEASE];
+
+/// The cautions that fit what a message is about: handling where spent catalyst is to be
+/// taken out, the advisory note where a forecast speaks, the release note where a batch's
+/// product is in question; none on a file notice.
+pub fn cautions_for(rule: RuleId) -> &'static [&'static str] {
+    match rule {
+        RuleId::ReplacementForecast | RuleId::EconomicPoint => &[CAUTION_ADVISORY],
+        RuleId::NextBatch => &[CAUTION_ADVISORY, CAUTION_HANDLING],
+        RuleId::BelowCriterion => &[CAUTION_HANDLING],
+        RuleId::AbruptLoss => &[CAUTION_RELEASE, CAUTION_HANDLING],
+        RuleId::MetalInProduct | RuleId::MetalLoss => &[CAUTION_RELEASE],
+        RuleId::Quarantine => &[],
+    }
+}
 
 /// A message ready to send; stored whole in the outbox so delivery never recomposes.
 #[derive(Debug, Clone, PartialEq)]
@@ -137,20 +157,29 @@ pub fn compose_alert(
     in_reply_to: Option<&str>,
 ) -> ComposedMessage {
     // A clearing is good news whatever the episode's severity was; say so first.
-    let prefix = match state {
-        AlertState::Open => format!("turnbook {}", alert.severity.as_str()),
-        AlertState::Worse => format!("turnbook {} (worse)", alert.severity.as_str()),
-        AlertState::Cleared => "turnbook cleared".to_string(),
+    let tag = match state {
+        AlertState::Open => alert.severity.as_str().to_string(),
+        AlertState::Worse => format!("{}, worse", alert.severity.as_str()),
+        AlertState::Cleared => "cleared".to_string(),
     };
-    let subject = header_safe(&format!("{prefix}: {}", alert.subject), 200);
+    let subject = header_safe(&format!("[{tag}] {}", alert.subject), 200);
     let headline = match state {
         AlertState::Open => "This condition is new.",
         AlertState::Worse => "This condition has become worse since the last message.",
         AlertState::Cleared => "This condition no longer holds; the alert is cleared.",
     };
+    let action = match state {
+        AlertState::Cleared => "No action needed any more.".to_string(),
+        _ => one_line(&alert.action),
+    };
+    let cautions = match state {
+        AlertState::Cleared => &[][..],
+        _ => cautions_for(alert.rule),
+    };
 
     let mut text = String::new();
-    let _ = writeln!(text, "{}\n", one_line(&alert.subject));
+    let _ = writeln!(text, "What to do: {action}\n");
+    let _ = writeln!(text, "{}", one_line(&alert.subject));
     let _ = writeln!(text, "{headline}");
     let _ = writeln!(
         text,
@@ -177,9 +206,11 @@ pub fn compose_alert(
             );
         }
     }
-    text.push_str("\nCautions:\n");
-    for c in CAUTIONS {
-        let _ = writeln!(text, "- {c}");
+    if !cautions.is_empty() {
+        text.push_str("\nCautions:\n");
+        for c in cautions {
+            let _ = writeln!(text, "- {c}");
+        }
     }
     let _ = writeln!(
         text,
@@ -189,6 +220,12 @@ pub fn compose_alert(
 
     let mut html = String::new();
     html.push_str("<!DOCTYPE html><html><body style=\"font-family:sans-serif\">");
+    let _ = write!(
+        html,
+        "<p style=\"font-size:16px;background:#fff8e1;border-left:4px solid #f9a825;\
+         padding:8px\"><b>What to do:</b> {}</p>",
+        html_escape(&action)
+    );
     let _ = write!(
         html,
         "<h2>{}</h2><p>{}</p><p>Lot <b>{}</b>, site {}, severity {}.</p>",
@@ -202,13 +239,16 @@ pub fn compose_alert(
     html.push_str(&html_escape(&alert.evidence));
     html.push_str("</pre>");
     html.push_str(&evidence_chart(&alert.rows, alert.criterion));
-    html.push_str("<h3>Cautions</h3><ul>");
-    for c in CAUTIONS {
-        let _ = write!(html, "<li>{}</li>", html_escape(c));
+    if !cautions.is_empty() {
+        html.push_str("<h3>Cautions</h3><ul>");
+        for c in cautions {
+            let _ = write!(html, "<li>{}</li>", html_escape(c));
+        }
+        html.push_str("</ul>");
     }
     let _ = write!(
         html,
-        "</ul><p style=\"color:#666\">Alert key: {}</p></body></html>",
+        "<p style=\"color:#666\">Alert key: {}</p></body></html>",
         html_escape(&alert.key)
     );
 
@@ -321,6 +361,7 @@ mod tests {
             state: AlertState::Open,
             severity: Severity::Critical,
             subject: format!("Lot {lot}: activity below replacement criterion"),
+            action: "Replace the lot.".into(),
             evidence: "Latest activity 0.5\n".into(),
             recipients: vec!["chem@example.org".into()],
             rows: vec![
@@ -355,10 +396,20 @@ mod tests {
         assert!(m.html.contains("&lt;b&gt;L&quot;1&lt;/b&gt;"));
         assert!(!m.html.contains("<b>L"));
         assert!(m.html.contains("&lt;i&gt;a&lt;/i&gt;.csv"));
-        for c in CAUTIONS {
-            assert!(m.text.contains(c));
-        }
+        // A below-criterion message is about taking spent catalyst out: the handling
+        // caution, and only it.
+        assert!(m.text.contains(CAUTION_HANDLING));
+        assert!(!m.text.contains(CAUTION_ADVISORY));
         assert!(m.html.contains("pyrophoric"));
+        assert!(m.text.starts_with("What to do: Replace the lot."));
+        // A file notice carries no caution at all; a cleared message none either.
+        let mut q = alert("L1");
+        q.rule = RuleId::Quarantine;
+        let mq = compose_alert(&q, AlertState::Open, "<x@y>", None);
+        assert!(CAUTIONS.iter().all(|c| !mq.text.contains(c)));
+        let mc = compose_alert(&alert("L1"), AlertState::Cleared, "<x@y>", None);
+        assert!(!mc.text.contains("Cautions"));
+        assert!(mc.text.starts_with("What to do: No action needed any more."));
     }
 
     #[test]
@@ -376,13 +427,13 @@ mod tests {
         let m = compose_alert(&alert("L\r\n1"), AlertState::Worse, "<x@y>", Some("<p@y>"));
         assert_eq!(
             m.subject,
-            "turnbook critical (worse): Lot L 1: activity below replacement criterion"
+            "[critical, worse] Lot L 1: activity below replacement criterion"
         );
         assert!(m.text.contains("become worse"));
         let c = compose_alert(&alert("L1"), AlertState::Cleared, "<x@y>", None);
         assert_eq!(
             c.subject,
-            "turnbook cleared: Lot L1: activity below replacement criterion"
+            "[cleared] Lot L1: activity below replacement criterion"
         );
     }
 }

@@ -240,6 +240,7 @@ mod tests {
             latest_activity: Some(0.7),
             criterion: 0.6,
             forecast: None,
+            next_batch: None,
             abrupt: None,
             metal_in_product: None,
             metal_loss_fraction: None,

@@ -22,8 +22,8 @@ pub use digest::{AlertChange, DigestPeriod, OpenAlert, compose_digest};
 pub use lifecycle::{Condition, backoff, decide, message_id_for};
 pub use rules::{
     AbruptLoss, Alert, AlertRules, AlertState, EvidenceRow, Forecast, ForecastStatus, LimitSource,
-    LotSnapshot, MetalInProduct, QuarantinedFile, Recipients, RuleId, RuleSwitches, Severity,
-    SiteRecipients, evaluate,
+    LotSnapshot, MetalInProduct, NextBatch, NextBatchVerdict, QuarantinedFile, Recipients, RuleId,
+    RuleSwitches, Severity, SiteRecipients, dates_sentence, evaluate,
 };
 pub use schedule::{DigestSchedule, next_digest_due};
 

@@ -26,6 +26,8 @@ pub struct Forecast {
     pub model: String,
     /// The lot's cadence, used to turn cycles into days for a lead in days.
     pub cycles_per_day: Option<f64>,
+    /// The crossing in local dates with the order-by date, when the lot has a cadence.
+    pub dates: Option<crate::model::calendar::CrossingDates>,
 }
 
 /// Abrupt-loss check on the newest cycle (prediction interval and Page's CUSUM).
@@ -67,6 +69,28 @@ pub struct MetalInProduct {
     pub limit_source: LimitSource,
 }
 
+/// The verdict on the next batch (see the analysis's next-cycle prediction).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum NextBatchVerdict {
+    /// The lower prediction bound lies above the criterion.
+    Ok,
+    /// Predicted above the criterion, but the interval reaches below it.
+    Marginal,
+    /// Predicted below the criterion.
+    Below,
+}
+
+/// The next batch's predicted activity with its prediction interval.
+#[derive(Debug, Clone, PartialEq)]
+pub struct NextBatch {
+    pub cycle: f64,
+    pub predicted: f64,
+    pub lower: f64,
+    pub upper: f64,
+    pub confidence: f64,
+    pub verdict: NextBatchVerdict,
+}
+
 /// A file that could not be read and was kept aside.
 #[derive(Debug, Clone, PartialEq)]
 pub struct QuarantinedFile {
@@ -95,6 +119,7 @@ pub struct LotSnapshot {
     /// Replacement criterion on the activity measure.
     pub criterion: f64,
     pub forecast: Option<Forecast>,
+    pub next_batch: Option<NextBatch>,
     pub abrupt: Option<AbruptLoss>,
     pub metal_in_product: Option<MetalInProduct>,
     /// Cumulative metal lost as a fraction of the metal charged (0..1).
@@ -121,6 +146,7 @@ pub enum ForecastBound {
 #[serde(deny_unknown_fields, default)]
 pub struct RuleSwitches {
     pub replacement_forecast: bool,
+    pub next_batch: bool,
     pub below_criterion: bool,
     pub abrupt_loss: bool,
     pub metal_in_product: bool,
@@ -133,6 +159,7 @@ impl Default for RuleSwitches {
     fn default() -> Self {
         RuleSwitches {
             replacement_forecast: true,
+            next_batch: true,
             below_criterion: true,
             abrupt_loss: true,
             metal_in_product: true,
@@ -169,6 +196,9 @@ pub struct AlertRules {
     pub lead_cycles: f64,
     /// Also warn when the crossing is at most this many days ahead (needs a cadence).
     pub lead_days: Option<f64>,
+    /// Procurement and qualification lead time by catalyst description (days), where it
+    /// differs from `lead_days`; it sets the order-by date.
+    pub lead_days_by_catalyst: BTreeMap<String, f64>,
     pub forecast_bound: ForecastBound,
     /// Cumulative metal-loss fraction above which the lot is flagged.
     pub metal_loss_limit: f64,
@@ -190,6 +220,7 @@ impl Default for AlertRules {
             // time it needs to order and qualify a fresh lot, and its own loss limit.
             lead_cycles: 3.0,
             lead_days: None,
+            lead_days_by_catalyst: BTreeMap::new(),
             forecast_bound: ForecastBound::Lower,
             metal_loss_limit: 0.05,
             metal_warn_ratio: 0.8,
@@ -202,6 +233,17 @@ impl Default for AlertRules {
 }
 
 impl AlertRules {
+    /// The lead time of a catalyst: its own entry (description compared without case and
+    /// surrounding space), else the general `lead_days`.
+    pub fn lead_days_for(&self, catalyst: &str) -> Option<f64> {
+        let want = catalyst.trim();
+        self.lead_days_by_catalyst
+            .iter()
+            .find(|(k, _)| k.trim().eq_ignore_ascii_case(want))
+            .map(|(_, v)| *v)
+            .or(self.lead_days)
+    }
+
     /// Problems with the section, one message each; empty when it is usable.
     pub fn problems(&self) -> Vec<String> {
         let mut p = Vec::new();
@@ -215,6 +257,13 @@ impl AlertRules {
             && !(d.is_finite() && d >= 0.0)
         {
             p.push(format!("alerts.lead_days must be >= 0, got {d}"));
+        }
+        for (cat, d) in &self.lead_days_by_catalyst {
+            if !(d.is_finite() && *d >= 0.0 && *d <= 3650.0) {
+                p.push(format!(
+                    "alerts.lead_days_by_catalyst.{cat:?} must be days between 0 and 3650, got {d}"
+                ));
+            }
         }
         if !(self.metal_loss_limit > 0.0 && self.metal_loss_limit <= 1.0) {
             p.push(format!(
@@ -256,6 +305,7 @@ impl AlertRules {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
 pub enum RuleId {
     ReplacementForecast,
+    NextBatch,
     BelowCriterion,
     AbruptLoss,
     MetalInProduct,
@@ -268,6 +318,7 @@ impl RuleId {
     pub fn as_str(self) -> &'static str {
         match self {
             RuleId::ReplacementForecast => "replacement-forecast",
+            RuleId::NextBatch => "next-batch",
             RuleId::BelowCriterion => "below-criterion",
             RuleId::AbruptLoss => "abrupt-loss",
             RuleId::MetalInProduct => "metal-in-product",
@@ -343,7 +394,10 @@ pub struct Alert {
     pub file: Option<String>,
     pub state: AlertState,
     pub severity: Severity,
+    /// "LOT: what, by when", without the product's name.
     pub subject: String,
+    /// What the reader should do, one sentence; the body opens with it.
+    pub action: String,
     /// Plain-text evidence, one fact per line.
     pub evidence: String,
     pub recipients: Vec<String>,
@@ -352,32 +406,43 @@ pub struct Alert {
     pub criterion: f64,
 }
 
-#[derive(Clone, Copy)]
+#[derive(Clone, Copy, PartialEq)]
 enum Audience {
     Chemists,
     Qa,
     Managers,
 }
 
-fn audience_of(rule: RuleId) -> &'static [Audience] {
+/// Who hears of a rule's alert at a severity: the rule's audience, and the managers too
+/// for every critical alert (they decide on stopping a lot or a batch).
+fn audience_of(rule: RuleId, severity: Severity) -> Vec<Audience> {
     use Audience::*;
-    match rule {
+    let mut a: Vec<Audience> = match rule {
         RuleId::ReplacementForecast | RuleId::BelowCriterion | RuleId::MetalLoss => {
-            &[Chemists, Managers]
+            vec![Chemists, Managers]
         }
-        RuleId::AbruptLoss => &[Chemists],
-        RuleId::MetalInProduct => &[Qa, Chemists],
-        RuleId::EconomicPoint => &[Managers],
-        RuleId::Quarantine => &[Qa],
+        RuleId::NextBatch | RuleId::AbruptLoss => vec![Chemists],
+        RuleId::MetalInProduct => vec![Qa, Chemists],
+        RuleId::EconomicPoint => vec![Managers],
+        RuleId::Quarantine => vec![Qa],
+    };
+    if severity == Severity::Critical && !a.contains(&Managers) {
+        a.push(Managers);
     }
+    a
 }
 
-/// Recipients of a rule at a site: the site's list where given, else the general one;
-/// duplicates removed, order kept.
-pub fn recipients_for(rule: RuleId, site: &str, rules: &AlertRules) -> Vec<String> {
+/// Recipients of a rule's alert at a site and severity: the site's list where given, else
+/// the general one; duplicates removed, order kept.
+pub fn recipients_for(
+    rule: RuleId,
+    severity: Severity,
+    site: &str,
+    rules: &AlertRules,
+) -> Vec<String> {
     let over = rules.sites.get(site);
     let mut out: Vec<String> = Vec::new();
-    for aud in audience_of(rule) {
+    for aud in audience_of(rule, severity) {
         let list = match aud {
             Audience::Chemists => over
                 .and_then(|o| o.chemists.as_ref())
@@ -399,12 +464,33 @@ pub fn recipients_for(rule: RuleId, site: &str, rules: &AlertRules) -> Vec<Strin
     out
 }
 
-fn fmt_num(v: f64) -> String {
-    crate::model::numbers::fixed_or(Some(v), 4, "n/a")
+/// An activity (a dimensionless ratio near 1): two decimals carry what a batch assay
+/// supports.
+fn act(v: f64) -> String {
+    crate::model::numbers::fixed_or(Some(v), 2, "n/a")
 }
 
-fn fmt_opt(v: Option<f64>) -> String {
-    v.map(fmt_num).unwrap_or_else(|| "unbounded".to_string())
+/// A cycle number or a count of cycles: one decimal for a fitted value.
+fn cyc(v: f64) -> String {
+    crate::model::numbers::fixed_or(Some(v), 1, "n/a")
+}
+
+fn cyc_opt(v: Option<f64>) -> String {
+    v.map(cyc).unwrap_or_else(|| "unbounded".to_string())
+}
+
+/// A figure to three significant digits (µg/g, CUSUM statistics).
+fn sig3(v: f64) -> String {
+    if !v.is_finite() {
+        return "n/a".to_string();
+    }
+    let mag = if v == 0.0 {
+        0
+    } else {
+        v.abs().log10().floor() as i32
+    };
+    let decimals = (2 - mag).clamp(0, 6) as usize;
+    format!("{v:.decimals$}")
 }
 
 struct Builder<'a> {
@@ -413,21 +499,22 @@ struct Builder<'a> {
     out: Vec<Alert>,
 }
 
+/// What a rule says about a lot: active with a severity, or not.
+struct Verdict {
+    active: Option<Severity>,
+    subject: String,
+    action: String,
+    evidence: String,
+}
+
 impl Builder<'_> {
-    fn push(
-        &mut self,
-        rule: RuleId,
-        file: Option<&str>,
-        active: Option<Severity>,
-        subject: String,
-        evidence: String,
-    ) {
+    fn push(&mut self, rule: RuleId, file: Option<&str>, v: Verdict) {
         let s = self.snap;
         let key = match file {
             Some(f) => format!("{}|{}|{}", rule.as_str(), s.lot, f),
             None => format!("{}|{}", rule.as_str(), s.lot),
         };
-        let (state, severity) = match active {
+        let (state, severity) = match v.active {
             Some(sev) => (AlertState::Open, sev),
             None => (AlertState::Cleared, Severity::Info),
         };
@@ -439,9 +526,10 @@ impl Builder<'_> {
             file: file.map(str::to_string),
             state,
             severity,
-            subject,
-            evidence,
-            recipients: recipients_for(rule, &s.site, self.rules),
+            subject: v.subject,
+            action: v.action,
+            evidence: v.evidence,
+            recipients: recipients_for(rule, severity, &s.site, self.rules),
             rows: s.evidence.clone(),
             criterion: s.criterion,
         });
@@ -451,208 +539,310 @@ impl Builder<'_> {
 /// Evaluate all enabled rules for one lot. Every enabled rule that applies yields one
 /// alert: `Open` with a severity when its condition holds, `Cleared` when it does not
 /// (the outbox only sends a "cleared" follow-up if the alert was open).
+///
+/// Severity comes from the evidence, by one table (DEVELOPERS.md and the README show it):
+///
+/// | rule | critical | warning | info |
+/// |---|---|---|---|
+/// | below-criterion | newest activity below the criterion | — | — |
+/// | next-batch | next batch predicted below the criterion | prediction interval reaches below it (`marginal`) | — |
+/// | abrupt-loss | step change detected (prediction check or CUSUM) | — | — |
+/// | replacement-forecast | — (never) | crossing `ahead` (or with an open late end) within the lead; fitted curve already below while the newest cycle is not | — |
+/// | metal-in-product | above its limit (a release question) | above the warning ratio of it | — |
+/// | metal-loss | — | cumulative loss above its limit | — |
+/// | economic-point | — | — | reached |
+/// | quarantine | — | a file could not be read | — |
+///
+/// No rule raises anything on `no-significant-trend`, `withheld` or `not-reached`.
 pub fn evaluate(snap: &LotSnapshot, rules: &AlertRules) -> Vec<Alert> {
     let mut b = Builder {
         snap,
         rules,
         out: Vec::new(),
     };
-    let lot = &snap.lot;
     let sw = &rules.rules;
-
     if sw.replacement_forecast
         && let Some(fc) = &snap.forecast
     {
-        let (active, text) = forecast_rule(snap, fc, rules);
-        b.push(
-            RuleId::ReplacementForecast,
-            None,
-            active,
-            format!("Lot {lot}: replacement forecast within lead"),
-            text,
-        );
+        b.push(RuleId::ReplacementForecast, None, forecast_rule(snap, fc, rules));
     }
-
+    if sw.next_batch
+        && let Some(nb) = &snap.next_batch
+    {
+        b.push(RuleId::NextBatch, None, next_batch_rule(snap, nb));
+    }
     if sw.below_criterion
         && let Some(a) = snap.latest_activity
     {
-        let below = a.is_finite() && a < snap.criterion;
-        let text = format!(
-            "Latest activity {} at cycle {} against replacement criterion {}.\n",
-            fmt_num(a),
-            snap.cycles_done,
-            fmt_num(snap.criterion)
-        );
-        b.push(
-            RuleId::BelowCriterion,
-            None,
-            below.then_some(Severity::Critical),
-            format!("Lot {lot}: activity below replacement criterion"),
-            text,
-        );
+        b.push(RuleId::BelowCriterion, None, below_rule(snap, a));
     }
-
     if sw.abrupt_loss
         && let Some(ab) = &snap.abrupt
     {
-        let outside = ab.newest < ab.pi_lower;
-        let cusum_over = ab.cusum > ab.h;
-        let severity = if outside && cusum_over {
-            Severity::Critical
-        } else {
-            Severity::Warning
-        };
-        let active = ab.flagged.then_some(severity);
-        let text = format!(
-            "Newest activity {} against one-step prediction interval [{}, {}].\n\
-             CUSUM of standardised residuals {} against decision limit h = {}.\n",
-            fmt_num(ab.newest),
-            fmt_num(ab.pi_lower),
-            fmt_num(ab.pi_upper),
-            fmt_num(ab.cusum),
-            fmt_num(ab.h)
-        );
-        b.push(
-            RuleId::AbruptLoss,
-            None,
-            active,
-            format!("Lot {lot}: abrupt loss of activity"),
-            text,
-        );
+        b.push(RuleId::AbruptLoss, None, abrupt_rule(snap, ab));
     }
-
     if sw.metal_in_product
         && let Some(m) = &snap.metal_in_product
     {
-        let active = if !(m.ug_per_g.is_finite() && m.limit_ug_per_g.is_finite()) {
-            None
-        } else if m.ug_per_g > m.limit_ug_per_g {
-            Some(Severity::Critical)
-        } else if m.ug_per_g > rules.metal_warn_ratio * m.limit_ug_per_g {
-            Some(Severity::Warning)
-        } else {
-            None
-        };
-        let text = format!(
-            "{} in product of cycle {}: {} µg/g; limit {} µg/g ({}).\n",
-            snap.metal,
-            m.cycle,
-            fmt_num(m.ug_per_g),
-            fmt_num(m.limit_ug_per_g),
-            m.limit_source
-        );
-        b.push(
-            RuleId::MetalInProduct,
-            None,
-            active,
-            format!("Lot {lot}: {} in product near or above limit", snap.metal),
-            text,
-        );
+        b.push(RuleId::MetalInProduct, None, metal_rule(snap, m, rules));
     }
-
     if sw.metal_loss
         && let Some(f) = snap.metal_loss_fraction
     {
-        let over = f.is_finite() && f > rules.metal_loss_limit;
-        let text = format!(
+        b.push(RuleId::MetalLoss, None, loss_rule(snap, f, rules));
+    }
+    if sw.economic_point
+        && let Some(n) = snap.economic_cycle
+    {
+        b.push(RuleId::EconomicPoint, None, economic_rule(snap, n));
+    }
+    if sw.quarantine {
+        for q in &snap.quarantined {
+            b.push(RuleId::Quarantine, Some(&q.name), quarantine_rule(q));
+        }
+    }
+    b.out
+}
+
+fn next_batch_rule(snap: &LotSnapshot, nb: &NextBatch) -> Verdict {
+    let lot = &snap.lot;
+    let n = cyc(nb.cycle);
+    let evidence = format!(
+        "Next batch (cycle {n}): predicted activity {} ({:.0} % prediction interval {} to {}) \
+         against the criterion {}.\n",
+        act(nb.predicted),
+        nb.confidence * 100.0,
+        act(nb.lower),
+        act(nb.upper),
+        act(snap.criterion)
+    );
+    let (active, subject, action) = match nb.verdict {
+        NextBatchVerdict::Below => (
+            Some(Severity::Critical),
+            format!("{lot}: next batch (cycle {n}) predicted below the replacement criterion"),
+            "Do not charge this lot into the next batch without a chemist's review: replace it, \
+             or run a check batch first."
+                .to_string(),
+        ),
+        NextBatchVerdict::Marginal => (
+            Some(Severity::Warning),
+            format!("{lot}: next batch (cycle {n}) marginal against the replacement criterion"),
+            "Review before charging the next batch: its prediction interval reaches below the \
+             criterion; have a replacement lot ready."
+                .to_string(),
+        ),
+        NextBatchVerdict::Ok => (
+            None,
+            format!("{lot}: next batch (cycle {n}) predicted above the criterion"),
+            "No action needed for the next batch.".to_string(),
+        ),
+    };
+    Verdict {
+        active,
+        subject,
+        action,
+        evidence,
+    }
+}
+
+fn below_rule(snap: &LotSnapshot, a: f64) -> Verdict {
+    let lot = &snap.lot;
+    let below = a.is_finite() && a < snap.criterion;
+    Verdict {
+        active: below.then_some(Severity::Critical),
+        subject: format!(
+            "{lot}: activity {} below the replacement criterion at cycle {}",
+            act(a),
+            snap.cycles_done
+        ),
+        action: if below {
+            "Take the lot out of service and charge a replacement; send the spent catalyst for \
+             metal recovery per site procedure."
+                .to_string()
+        } else {
+            "No action needed: the newest activity is above the criterion again.".to_string()
+        },
+        evidence: format!(
+            "Newest activity {} at cycle {} against the replacement criterion {}.\n",
+            act(a),
+            snap.cycles_done,
+            act(snap.criterion)
+        ),
+    }
+}
+
+fn abrupt_rule(snap: &LotSnapshot, ab: &AbruptLoss) -> Verdict {
+    let lot = &snap.lot;
+    Verdict {
+        active: ab.flagged.then_some(Severity::Critical),
+        subject: format!("{lot}: abrupt loss of activity at cycle {}", snap.cycles_done),
+        action: "Hold the lot and find the cause before the next batch (feed or substrate lot, a \
+                 poison, the batch's conditions); have QA look at the batch's product."
+            .to_string(),
+        evidence: format!(
+            "Newest activity {} against the one-step prediction interval {} to {} from the \
+             cycles before it.\nCUSUM of standardised residuals {} against the decision limit \
+             h = {}.\n",
+            act(ab.newest),
+            act(ab.pi_lower),
+            act(ab.pi_upper),
+            sig3(ab.cusum),
+            sig3(ab.h)
+        ),
+    }
+}
+
+fn metal_rule(snap: &LotSnapshot, m: &MetalInProduct, rules: &AlertRules) -> Verdict {
+    let lot = &snap.lot;
+    let (active, word) = if !(m.ug_per_g.is_finite() && m.limit_ug_per_g.is_finite()) {
+        (None, "unknown against")
+    } else if m.ug_per_g > m.limit_ug_per_g {
+        (Some(Severity::Critical), "above")
+    } else if m.ug_per_g > rules.metal_warn_ratio * m.limit_ug_per_g {
+        (Some(Severity::Warning), "near")
+    } else {
+        (None, "below")
+    };
+    Verdict {
+        active,
+        subject: format!(
+            "{lot}: {} in the product of cycle {} {word} its limit",
+            snap.metal, m.cycle
+        ),
+        action: match active {
+            Some(Severity::Critical) => "Hold the batch's product for QA; check the catalyst \
+                                         for leaching before the next batch."
+                .to_string(),
+            Some(_) => "Watch the next batches' metal results; check the catalyst for leaching."
+                .to_string(),
+            None => "No action needed.".to_string(),
+        },
+        evidence: format!(
+            "{} in the product of cycle {}: {} µg/g; limit {} µg/g ({}).\n",
+            snap.metal,
+            m.cycle,
+            sig3(m.ug_per_g),
+            sig3(m.limit_ug_per_g),
+            m.limit_source
+        ),
+    }
+}
+
+fn loss_rule(snap: &LotSnapshot, f: f64, rules: &AlertRules) -> Verdict {
+    let lot = &snap.lot;
+    let over = f.is_finite() && f > rules.metal_loss_limit;
+    Verdict {
+        active: over.then_some(Severity::Warning),
+        subject: format!(
+            "{lot}: cumulative {} loss {:.1} % of the charge",
+            snap.metal,
+            f * 100.0
+        ),
+        action: "Check filtration and leaching, and reconcile the metal balance with the \
+                 refiner's assay."
+            .to_string(),
+        evidence: format!(
             "Cumulative {} lost: {:.2} % of the metal charged; limit {:.2} %.\n",
             snap.metal,
             f * 100.0,
             rules.metal_loss_limit * 100.0
-        );
-        b.push(
-            RuleId::MetalLoss,
-            None,
-            over.then_some(Severity::Warning),
-            format!("Lot {lot}: cumulative metal loss above limit"),
-            text,
-        );
+        ),
     }
-
-    if sw.economic_point
-        && let Some(n) = snap.economic_cycle
-    {
-        let reached = snap.cycles_done >= n;
-        let text = format!(
-            "Economic replacement point: cycle {n} (lowest cost per kg of product); \
-             cycles done: {}.\n",
-            snap.cycles_done
-        );
-        b.push(
-            RuleId::EconomicPoint,
-            None,
-            reached.then_some(Severity::Info),
-            format!("Lot {lot}: economic replacement point reached"),
-            text,
-        );
-    }
-
-    if sw.quarantine {
-        for q in &snap.quarantined {
-            let text = format!(
-                "File {} was quarantined and not ingested.\nReason: {}\n",
-                q.name, q.reason
-            );
-            b.push(
-                RuleId::Quarantine,
-                Some(&q.name),
-                Some(Severity::Warning),
-                format!("Lot {lot}: file quarantined: {}", q.name),
-                text,
-            );
-        }
-    }
-
-    b.out
 }
 
-/// The replacement-forecast rule: is the chosen bound of the crossing within the lead?
-fn forecast_rule(
-    snap: &LotSnapshot,
-    fc: &Forecast,
-    rules: &AlertRules,
-) -> (Option<Severity>, String) {
+fn economic_rule(snap: &LotSnapshot, n: u32) -> Verdict {
+    let lot = &snap.lot;
+    let reached = snap.cycles_done >= n;
+    Verdict {
+        active: reached.then_some(Severity::Info),
+        subject: format!("{lot}: economic replacement point (cycle {n}) reached"),
+        action: "Consider replacing the lot: from here each cycle raises the cost per kg of \
+                 product."
+            .to_string(),
+        evidence: format!(
+            "Economic replacement point: cycle {n} (lowest cost per kg of product); cycles \
+             done: {}.\n",
+            snap.cycles_done
+        ),
+    }
+}
+
+fn quarantine_rule(q: &QuarantinedFile) -> Verdict {
+    Verdict {
+        active: Some(Severity::Warning),
+        subject: format!("file set aside: {}", q.name),
+        action: "Correct or re-export the file and put it in the watched folder again; when a \
+                 file of the same name is ingested this notice closes itself."
+            .to_string(),
+        evidence: format!(
+            "File {} was set aside (quarantined) and not ingested.\nReason: {}\n",
+            q.name, q.reason
+        ),
+    }
+}
+
+/// The replacement-forecast rule: is the chosen bound of the crossing within the lead, in
+/// cycles or (with a cadence and a lead time) in days? Never critical: a forecast is a
+/// call to order, the next-batch and below-criterion rules speak of the present.
+fn forecast_rule(snap: &LotSnapshot, fc: &Forecast, rules: &AlertRules) -> Verdict {
+    let lot = &snap.lot;
     let mut text = String::new();
     let _ = writeln!(
         text,
         "Model {}; criterion {}; cycles done {}.",
         fc.model,
-        fmt_num(snap.criterion),
+        act(snap.criterion),
         snap.cycles_done
     );
+    let quiet = |text: String, why: &str| Verdict {
+        active: None,
+        subject: format!("{lot}: no replacement forecast within the lead"),
+        action: format!("No action needed: {why}."),
+        evidence: text,
+    };
     let crossing = match fc.status {
         ForecastStatus::NotReached => {
             text.push_str("The criterion is never reached under the fitted model.\n");
-            return (None, text);
-        }
-        ForecastStatus::ReachedAlready => {
-            text.push_str("The fitted curve is already below the criterion.\n");
-            return (Some(Severity::Critical), text);
+            return quiet(text, "the criterion is not reached under the fitted model");
         }
         ForecastStatus::NoSignificantTrend => {
             text.push_str("The loss of activity is not significant: no replacement is forecast.\n");
-            return (None, text);
+            return quiet(text, "no significant loss of activity");
         }
         ForecastStatus::Withheld => {
             text.push_str(
                 "The trend forecast is withheld after a step change until the new level has \
                  enough cycles.\n",
             );
-            return (None, text);
+            return quiet(text, "the forecast is withheld after a step change");
+        }
+        ForecastStatus::ReachedAlready => {
+            text.push_str(
+                "The fitted curve is already below the criterion (the newest cycles are judged \
+                 by the below-criterion and next-batch rules).\n",
+            );
+            return Verdict {
+                active: Some(Severity::Warning),
+                subject: format!("{lot}: fitted trend already at the replacement criterion"),
+                action: "Order a replacement lot now and review each batch before charging \
+                         this one."
+                    .to_string(),
+                evidence: text,
+            };
         }
         ForecastStatus::Ahead | ForecastStatus::UnboundedInterval => fc.x,
     };
     let Some(x) = crossing.filter(|v| v.is_finite()) else {
         text.push_str("No crossing estimate is available.\n");
-        return (None, text);
+        return quiet(text, "no crossing estimate");
     };
     let _ = writeln!(
         text,
         "Forecast crossing at cycle {} ({:.0} % interval {} to {}).",
-        fmt_num(x),
+        cyc(x),
         fc.confidence * 100.0,
-        fmt_opt(fc.lower),
-        fmt_opt(fc.upper)
+        cyc_opt(fc.lower),
+        cyc_opt(fc.upper)
     );
     // An unbounded chosen bound falls back to the estimate, and says so.
     let chosen = match rules.forecast_bound {
@@ -673,7 +863,7 @@ fn forecast_rule(
             x
         }
     };
-    let ahead = bound - f64::from(snap.cycles_done);
+    let ahead = bound - done;
     let mut within = ahead <= rules.lead_cycles;
     let _ = writeln!(
         text,
@@ -683,32 +873,84 @@ fn forecast_rule(
             ForecastBound::Estimate => "estimated",
             ForecastBound::Upper => "upper",
         },
-        fmt_num(ahead),
-        fmt_num(rules.lead_cycles)
+        cyc(ahead),
+        cyc(rules.lead_cycles)
     );
-    if let (Some(days), Some(cpd)) = (rules.lead_days, fc.cycles_per_day)
+    let lead_days = rules.lead_days_for(&snap.catalyst);
+    if let (Some(days), Some(cpd)) = (lead_days, fc.cycles_per_day)
         && cpd.is_finite()
         && cpd > 0.0
     {
         let days_left = ahead / cpd;
         let _ = writeln!(
             text,
-            "Days left at {} cycles per day: {}; lead {} days.",
-            fmt_num(cpd),
-            fmt_num(days_left),
-            fmt_num(days)
+            "Days left at {:.2} cycles per day: {:.0}; lead time {:.0} days.",
+            cpd, days_left, days
         );
         within |= days_left <= days;
     }
-    if fc.status == ForecastStatus::UnboundedInterval {
-        text.push_str("The interval is unbounded: the forecast is uncertain.\n");
+    if let Some(d) = &fc.dates {
+        let _ = writeln!(text, "{}", dates_sentence(d));
     }
-    let sev = if ahead <= 1.0 {
-        Severity::Critical
-    } else {
-        Severity::Warning
+    if fc.status == ForecastStatus::UnboundedInterval {
+        text.push_str("The interval does not close on the late side: the forecast is uncertain.\n");
+    }
+    let when = fc.dates.as_ref().and_then(|d| {
+        let window = match (&d.crossing_early, &d.crossing_late) {
+            (Some(e), Some(l)) if e != l => format!("criterion expected {e} to {l}"),
+            (Some(e), _) => format!("criterion expected from {e}"),
+            _ => format!("criterion expected about {}", d.crossing_date.as_deref()?),
+        };
+        Some((d.order_by.clone(), window))
+    });
+    let (subject, action) = match when {
+        Some((Some(order), window)) => (
+            format!("{lot}: order replacement by {order} ({window})"),
+            format!(
+                "Order a replacement lot by {order} so that it is qualified before this one \
+                 reaches the criterion; keep using this lot while the next-batch check is ok."
+            ),
+        ),
+        Some((None, window)) => (
+            format!("{lot}: plan a replacement ({window})"),
+            "Plan a replacement lot; set a lead time for this catalyst to get an order-by date."
+                .to_string(),
+        ),
+        None => (
+            format!(
+                "{lot}: replacement criterion expected in about {} cycles",
+                cyc(ahead.max(0.0))
+            ),
+            "Plan a replacement lot; batch start times give the forecast dates.".to_string(),
+        ),
     };
-    (within.then_some(sev), text)
+    Verdict {
+        active: within.then_some(Severity::Warning),
+        subject,
+        action,
+        evidence: text,
+    }
+}
+
+/// The crossing's dates in one sentence.
+pub fn dates_sentence(d: &crate::model::calendar::CrossingDates) -> String {
+    let zone = d.time_zone.as_deref().unwrap_or("UTC");
+    let mut s = format!(
+        "Criterion expected about {}",
+        d.crossing_date.as_deref().unwrap_or("—")
+    );
+    if let Some(e) = &d.crossing_early {
+        let _ = write!(
+            s,
+            " (interval {e} to {})",
+            d.crossing_late.as_deref().unwrap_or("unbounded")
+        );
+    }
+    if let (Some(o), Some(l)) = (&d.order_by, d.lead_days) {
+        let _ = write!(s, "; order by {o} ({l:.0} days' lead time)");
+    }
+    let _ = write!(s, "; dates in {zone}.");
+    s
 }
 
 #[cfg(test)]
@@ -725,6 +967,7 @@ mod tests {
             latest_activity: Some(0.8),
             criterion: 0.6,
             forecast: None,
+            next_batch: None,
             abrupt: None,
             metal_in_product: None,
             metal_loss_fraction: None,
@@ -759,6 +1002,7 @@ mod tests {
             confidence: 0.95,
             model: "first-order".into(),
             cycles_per_day: None,
+            dates: None,
         }
     }
 
@@ -806,11 +1050,13 @@ mod tests {
             only(&evaluate(&s, &r), RuleId::ReplacementForecast).state,
             AlertState::Open
         );
+        // Half a cycle left: still a warning. A forecast is a call to order; what is
+        // critical now is judged by the below-criterion and next-batch rules.
         s.forecast = Some(forecast(ForecastStatus::Ahead, 7.5, Some(6.5), Some(9.0)));
         let a = evaluate(&s, &rules());
         assert_eq!(
             only(&a, RuleId::ReplacementForecast).severity,
-            Severity::Critical
+            Severity::Warning
         );
     }
 
@@ -825,6 +1071,7 @@ mod tests {
             confidence: 0.95,
             model: "residual".into(),
             cycles_per_day: None,
+            dates: None,
         });
         let a = evaluate(&s, &rules());
         let f = only(&a, RuleId::ReplacementForecast);
@@ -871,10 +1118,12 @@ mod tests {
             cusum: 2.0,
             h: 4.0,
         });
+        // A detected step is critical whichever check found it, and critical alerts
+        // reach the managers as well as the chemists.
         let a = evaluate(&s, &rules());
         let f = only(&a, RuleId::AbruptLoss);
-        assert_eq!((f.state, f.severity), (AlertState::Open, Severity::Warning));
-        assert_eq!(f.recipients, vec!["chem@example.org"]);
+        assert_eq!((f.state, f.severity), (AlertState::Open, Severity::Critical));
+        assert_eq!(f.recipients, vec!["chem@example.org", "boss@example.org"]);
         if let Some(ab) = s.abrupt.as_mut() {
             ab.cusum = 5.0;
         }

@@ -92,6 +92,10 @@ pub struct Forecast {
     /// For [`ForecastStatus::Withheld`]: how many more cycles of the new level are needed.
     #[serde(default)]
     pub more_cycles_needed: Option<usize>,
+    /// The crossing in dates at the lot's cadence, with the order-by date; set by the
+    /// application, which knows the batch starts, the time zone and the lead time.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub dates: Option<crate::model::calendar::CrossingDates>,
 }
 
 impl Forecast {
@@ -112,6 +116,7 @@ impl Forecast {
             loss_lower: None,
             withheld_since: None,
             more_cycles_needed: None,
+            dates: None,
         }
     }
 }

@@ -155,6 +155,13 @@ pub fn fit_json(fit: &FitResult, forecast: Option<&Forecast>) -> Value {
                 "loss_lower": num(fc.loss_lower),
                 "withheld_since": num(fc.withheld_since),
                 "more_cycles_needed": fc.more_cycles_needed,
+                "crossing_date": fc.dates.as_ref().and_then(|d| d.crossing_date.clone()),
+                "crossing_early": fc.dates.as_ref().and_then(|d| d.crossing_early.clone()),
+                "crossing_late": fc.dates.as_ref().and_then(|d| d.crossing_late.clone()),
+                "order_by": fc.dates.as_ref().and_then(|d| d.order_by.clone()),
+                "cycles_per_day": num(fc.dates.as_ref().and_then(|d| d.cycles_per_day)),
+                "lead_days": num(fc.dates.as_ref().and_then(|d| d.lead_days)),
+                "time_zone": fc.dates.as_ref().and_then(|d| d.time_zone.clone()),
             }),
         );
     }
@@ -263,6 +270,26 @@ fn fmt_g(v: f64) -> String {
     } else {
         format!("{v:.5}")
     }
+}
+
+/// A crossing in dates, in plain words: when the criterion is expected and by when to
+/// order a replacement.
+pub fn dates_words(d: &crate::model::calendar::CrossingDates) -> String {
+    let zone = d.time_zone.as_deref().unwrap_or("UTC");
+    let when = match (&d.crossing_early, &d.crossing_late, &d.crossing_date) {
+        (Some(e), Some(l), _) if e != l => format!("criterion expected {e} to {l}"),
+        (Some(e), None, _) => format!("criterion expected from {e} (no late end)"),
+        (_, _, Some(c)) => format!("criterion expected about {c}"),
+        _ => "no date for the criterion".to_string(),
+    };
+    let order = match (&d.order_by, d.lead_days) {
+        (Some(o), Some(l)) => format!("; order replacement by {o} ({l:.0} d lead time)"),
+        _ => "; no lead time configured for an order-by date".to_string(),
+    };
+    let pace = d
+        .cycles_per_day
+        .map_or_else(String::new, |c| format!(" at {c:.2} cycles/day"));
+    format!("{when}{order}{pace} ({zone} dates)")
 }
 
 /// The forecast in plain words.
@@ -418,6 +445,9 @@ pub fn render_text(a: &LotAnalysis) -> String {
         }
         if let Some(t) = fc.lifetime_ton {
             let _ = writeln!(s, "  lifetime TON at x*: {t:.0}");
+        }
+        if let Some(d) = &fc.dates {
+            let _ = writeln!(s, "  {}", dates_words(d));
         }
     }
     if a.weights.len() > 1 {

@@ -6,8 +6,10 @@
 //! - [`cycle`]: a cycle's current view, derived from its append-only measurements.
 //! - [`chain`]: how each event is linked to the one before it.
 //! - [`time`]: the one timestamp format of tables, messages and reports.
+//! - [`calendar`]: cycles into dates in the plant's time zone.
 //! - [`numbers`]: numbers as people read them.
 
+pub mod calendar;
 pub mod chain;
 pub mod cycle;
 pub mod event;

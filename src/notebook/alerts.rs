@@ -26,21 +26,8 @@ pub fn metal_limit(cfg: &Config, metal: &str) -> Option<(f64, LimitSource)> {
         .map(|v| (v, LimitSource::IchQ3dRecalled))
 }
 
-/// Cycles per day at the lot's cadence, from the start times of its cycles.
-fn cadence(state: &LotState) -> Option<f64> {
-    let times: Vec<chrono::NaiveDateTime> = state
-        .cycles
-        .iter()
-        .filter_map(|c| c.view.started_at.as_deref())
-        .filter_map(crate::model::time::parse_local)
-        .collect();
-    let (first, last) = (times.iter().min()?, times.iter().max()?);
-    let days = (*last - *first).num_seconds() as f64 / 86_400.0;
-    (times.len() >= 2 && days > 0.0).then(|| (times.len() - 1) as f64 / days)
-}
-
 /// The rules' view of a lot's trend forecast.
-fn forecast_view(state: &LotState, a: &fit::LotAnalysis) -> Option<alert::Forecast> {
+fn forecast_view(a: &fit::LotAnalysis) -> Option<alert::Forecast> {
     let f = a.forecast.as_ref()?;
     Some(alert::Forecast {
         status: f.status,
@@ -49,7 +36,25 @@ fn forecast_view(state: &LotState, a: &fit::LotAnalysis) -> Option<alert::Foreca
         upper: f.upper,
         confidence: f.confidence,
         model: a.chosen.map(|m| m.id().to_string()).unwrap_or_default(),
-        cycles_per_day: cadence(state),
+        cycles_per_day: f.dates.as_ref().and_then(|d| d.cycles_per_day),
+        dates: f.dates.clone(),
+    })
+}
+
+/// The rules' view of the next batch's prediction.
+fn next_view(a: &fit::LotAnalysis, confidence: f64) -> Option<alert::NextBatch> {
+    let n = a.next_cycle.as_ref()?;
+    Some(alert::NextBatch {
+        cycle: n.x,
+        predicted: n.predicted,
+        lower: n.lower,
+        upper: n.upper,
+        confidence,
+        verdict: match n.verdict {
+            fit::NextVerdict::Ok => alert::NextBatchVerdict::Ok,
+            fit::NextVerdict::Marginal => alert::NextBatchVerdict::Marginal,
+            fit::NextVerdict::Below => alert::NextBatchVerdict::Below,
+        },
     })
 }
 
@@ -122,7 +127,8 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
                 .or(a.plot.as_ref().and_then(|p| p.threshold))
         })
         .unwrap_or(f64::NAN);
-    let forecast = a.and_then(|a| forecast_view(state, a));
+    let forecast = a.and_then(forecast_view);
+    let next_batch = a.and_then(|a| next_view(a, cfg.fitting.confidence));
     let abrupt = a.and_then(|a| abrupt_view(cfg, a));
     let metal_in_product = metal_view(cfg, state, &rec.metal);
     let evidence = evidence_rows(cfg, state);
@@ -135,6 +141,7 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
         latest_activity: state.latest_activity(),
         criterion,
         forecast,
+        next_batch,
         abrupt,
         metal_in_product,
         metal_loss_fraction: state
@@ -172,6 +179,7 @@ pub fn raise_quarantine(
     // Only the quarantine rule speaks for a file that belongs to no lot yet.
     rules.rules = alert::RuleSwitches {
         replacement_forecast: false,
+        next_batch: false,
         below_criterion: false,
         abrupt_loss: false,
         metal_in_product: false,
@@ -188,6 +196,7 @@ pub fn raise_quarantine(
         latest_activity: None,
         criterion: f64::NAN,
         forecast: None,
+        next_batch: None,
         abrupt: None,
         metal_in_product: None,
         metal_loss_fraction: None,

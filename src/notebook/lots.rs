@@ -142,7 +142,10 @@ pub fn lot_state_as_of(
         .and_then(|c| c.view.get(Quantity::ProductMass))
         .map(|g| g / 1000.0);
     let opts = analysis_options(cfg, Some(&rec), product_first_kg);
-    let analysis = (!series.x.is_empty()).then(|| fit::analyse(&series, &opts));
+    let mut analysis = (!series.x.is_empty()).then(|| fit::analyse(&series, &opts));
+    if let Some(a) = analysis.as_mut() {
+        super::dates::date_forecast(cfg, &rec, cycles.iter().map(|c| &c.view), a);
+    }
     if let Some(a) = &analysis {
         attention.extend(attention_from(a));
     }

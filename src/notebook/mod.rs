@@ -17,6 +17,7 @@
 mod alerts;
 mod chain;
 mod daemon;
+mod dates;
 mod entries;
 mod error;
 mod fits;

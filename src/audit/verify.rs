@@ -529,7 +529,7 @@ pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport>
                 meaning,
                 signed: signed_sha256,
             }),
-            Payload::Note { .. } => {}
+            Payload::Note { .. } | Payload::AlertAction { .. } => {}
         }
         prev = hash;
         expected_seq += 1;

@@ -5,6 +5,7 @@
 //! 0 all done, 1 some input was refused or a check failed, 2 a usage or configuration
 //! error; [`Failure`] is decided from the notebook's error kinds in one place.
 
+mod alerts;
 mod demo;
 mod demo_live;
 mod entries;
@@ -22,7 +23,7 @@ use std::process::ExitCode;
 use clap::{Args, Parser, Subcommand};
 
 use crate::config::Config;
-use crate::notebook::NotebookError;
+use crate::notebook::{AlertAct, NotebookError};
 
 /// turnbook: catalyst lots, their cycles, deactivation fits and replacement warnings.
 #[derive(Debug, Parser)]
@@ -76,6 +77,30 @@ pub enum Command {
     Digest,
     /// Walk the audit chain and compare every record with the events that wrote it.
     Verify(VerifyArgs),
+    /// List alerts with their state, severity and since when (open and acknowledged ones;
+    /// `--all` adds cleared and closed).
+    Alerts(AlertsArgs),
+    /// Acknowledge an alert: someone is on it (recorded with who, when and why).
+    Ack(AlertActArgs),
+    /// Close an alert's current episode: it is dealt with (recorded with who, when, why).
+    Close(AlertActArgs),
+}
+
+#[derive(Debug, Args)]
+pub struct AlertsArgs {
+    /// Also cleared and closed alerts.
+    #[arg(long)]
+    pub all: bool,
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct AlertActArgs {
+    /// The alert's id (or key) as `turnbook alerts` lists it.
+    pub alert: String,
+    #[arg(long)]
+    pub reason: String,
 }
 
 #[derive(Debug, Args)]
@@ -366,6 +391,9 @@ fn dispatch(cli: &Cli) -> CmdResult {
         Command::Digest => service::digest(&load(cli)?),
         Command::Report(a) => report::report(&load(cli)?, a),
         Command::Fit(a) => fit::fit(cli, a),
+        Command::Alerts(a) => alerts::list(&load(cli)?, a),
+        Command::Ack(a) => alerts::act(&load(cli)?, a, AlertAct::Acknowledge),
+        Command::Close(a) => alerts::act(&load(cli)?, a, AlertAct::Close),
     }
 }
 

@@ -253,6 +253,14 @@ pub enum Payload {
     /// plain SHA-256; `key_proof` (HMAC under the key of the hash before this event, see
     /// the chain module) shows the switch was made by a holder of the key.
     ChainKeyed { rule: String, key_proof: String },
+    /// A person acknowledged or closed an alert's current episode, with a reason.
+    AlertAction {
+        alert_key: String,
+        episode: i64,
+        /// `acknowledged` or `closed`.
+        action: String,
+        reason: String,
+    },
 }
 
 /// The `file-ingested` payload by reference: serialises exactly as
@@ -280,6 +288,7 @@ impl Payload {
             Payload::Note { .. } => "note",
             Payload::SignOff { .. } => "sign-off",
             Payload::ChainKeyed { .. } => "chain-keyed",
+            Payload::AlertAction { .. } => "alert-action",
         }
     }
 }

@@ -167,6 +167,9 @@ pub fn raise(tx: &Transaction<'_>, cfg: &Config, state: &LotState) -> Result<usi
     crate::store::outbox::enqueue(tx, &alerts, &crate::model::time::now_utc())
 }
 
+/// The lot name of file notices, which belong to no lot.
+pub const NO_LOT: &str = "(no lot)";
+
 /// Queue the quarantine alert (to QA) for a rejected file.
 pub fn raise_quarantine(
     tx: &Transaction<'_>,
@@ -188,7 +191,7 @@ pub fn raise_quarantine(
         quarantine: cfg.alerts.rules.quarantine,
     };
     let snap = LotSnapshot {
-        lot: "(no lot)".into(),
+        lot: NO_LOT.into(),
         catalyst: String::new(),
         metal: String::new(),
         site: site.unwrap_or_default().to_string(),
@@ -212,4 +215,97 @@ pub fn raise_quarantine(
         .filter(|a| a.rule == alert::RuleId::Quarantine && a.state == alert::AlertState::Open)
         .collect();
     crate::store::outbox::enqueue(tx, &alerts, &crate::model::time::now_utc())
+}
+
+/// One alert as `turnbook alerts` lists it.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct AlertEntry {
+    pub id: i64,
+    pub key: String,
+    /// None for a file notice that belongs to no lot.
+    pub lot: Option<String>,
+    /// The rule that raised it (`next-batch`, `abrupt-loss`, `quarantine`, ...).
+    pub kind: String,
+    /// `critical`, `warning` or `info`.
+    pub severity: String,
+    /// `open`, `acknowledged`, `closed` or `cleared`.
+    pub state: String,
+    /// When the current episode began (RFC 3339 UTC) and, for people, in plant time.
+    pub since: String,
+    pub since_local: String,
+    pub subject: String,
+    /// Who acknowledged or closed it, when and why (newest last).
+    pub actions: Vec<AlertActionLine>,
+}
+
+/// A person's action on an alert.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct AlertActionLine {
+    pub event: i64,
+    pub at: String,
+    pub actor: String,
+    pub action: String,
+    pub reason: String,
+}
+
+/// Every alert with its state: the condition's own (open, worse counted as open, or
+/// cleared), then a person's acknowledgement or closing of the current episode, unless
+/// the condition became worse after it. `all` false leaves out cleared and closed ones.
+pub fn list_alerts(cfg: &Config, all: bool) -> crate::notebook::Result<Vec<AlertEntry>> {
+    let conn = crate::store::open(&cfg.database_path())?;
+    let actions = crate::store::outbox::actions(&conn)?;
+    let tz = cfg.zone();
+    let mut out = Vec::new();
+    for c in crate::store::outbox::conditions(&conn)? {
+        let mine: Vec<&crate::store::outbox::ActionRow> = actions
+            .iter()
+            .filter(|a| a.alert_key == c.key && a.episode == c.episode)
+            .collect();
+        let state = if c.state == alert::AlertState::Cleared {
+            "cleared"
+        } else {
+            match mine.last() {
+                Some(a) if a.at >= c.changed_at || c.state != alert::AlertState::Worse => {
+                    if mine.iter().any(|a| a.action == "closed") {
+                        "closed"
+                    } else {
+                        "acknowledged"
+                    }
+                }
+                _ => "open",
+            }
+        };
+        if !all && matches!(state, "cleared" | "closed") {
+            continue;
+        }
+        let since_local = crate::model::time::parse_ts(&c.since)
+            .map(|t| crate::model::calendar::show_local(tz, t))
+            .unwrap_or_else(|_| c.since.clone());
+        out.push(AlertEntry {
+            id: c.id,
+            key: c.key.clone(),
+            lot: (c.lot != NO_LOT).then(|| c.lot.clone()),
+            kind: c.rule.clone(),
+            severity: c.severity.as_str().to_string(),
+            state: state.to_string(),
+            since: c.since.clone(),
+            since_local,
+            // The stored subject starts with the state tag the listing shows in columns.
+            subject: match c.subject.split_once("] ") {
+                Some((tag, rest)) if tag.starts_with('[') => rest.to_string(),
+                _ => c.subject.clone(),
+            },
+            actions: mine
+                .iter()
+                .map(|a| AlertActionLine {
+                    event: a.seq,
+                    at: a.at.clone(),
+                    actor: a.actor.clone(),
+                    action: a.action.clone(),
+                    reason: a.reason.clone(),
+                })
+                .collect(),
+        });
+    }
+    Ok(out)
 }

@@ -200,3 +200,63 @@ pub fn sign_off(
         sha256,
     })
 }
+
+/// What a person can do with an alert.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum AlertAct {
+    /// "Seen, someone is on it": the alert stays listed, marked acknowledged.
+    Acknowledge,
+    /// "Dealt with": the current episode is closed; if the condition clears and comes back,
+    /// that is a new episode and a new alert.
+    Close,
+}
+
+impl AlertAct {
+    pub fn word(self) -> &'static str {
+        match self {
+            AlertAct::Acknowledge => "acknowledged",
+            AlertAct::Close => "closed",
+        }
+    }
+}
+
+/// Record who acknowledged or closed an alert (by its id or key), when and why, as an
+/// event in the audit trail. A cleared alert cannot be acted on; a closed one cannot be
+/// acknowledged or closed again.
+pub fn act_on_alert(cfg: &Config, id_or_key: &str, act: AlertAct, reason: &str) -> Result<Receipt> {
+    if reason.trim().is_empty() {
+        return Err(NotebookError::Usage(
+            "--reason: expected a sentence saying why".into(),
+        ));
+    }
+    let (seq, actor) = write_entry(cfg, |tx, actor, at| {
+        let Some(c) = store::outbox::condition(tx, id_or_key)? else {
+            return Err(store::StoreError::Invalid(format!(
+                "no alert '{id_or_key}'; expected an id or key that `turnbook alerts --all` lists"
+            )));
+        };
+        if c.state == crate::alert::AlertState::Cleared {
+            return Err(store::StoreError::Invalid(format!(
+                "alert {} ({}) is already cleared: its condition no longer holds",
+                c.id, c.key
+            )));
+        }
+        let done = store::outbox::actions(tx)?
+            .into_iter()
+            .any(|a| a.alert_key == c.key && a.episode == c.episode && a.action == "closed");
+        if done {
+            return Err(store::StoreError::Invalid(format!(
+                "alert {} ({}) is already closed",
+                c.id, c.key
+            )));
+        }
+        let p = Payload::AlertAction {
+            alert_key: c.key.clone(),
+            episode: c.episode,
+            action: act.word().to_string(),
+            reason: reason.trim().to_string(),
+        };
+        records::append_event(tx, &c.lot, &p, actor, at)
+    })?;
+    Ok(Receipt { seq, actor })
+}

@@ -33,8 +33,10 @@ pub use daemon::{
     ServiceContext, SideTask, deliver_now, queue_digest, run_service, run_service_with, runtime,
     serve, serve_with,
 };
+pub use alerts::{AlertActionLine, AlertEntry, list_alerts};
 pub use entries::{
-    Corrected, Receipt, Registered, SignedOff, correct, exclude, note, register, sign_off,
+    AlertAct, Corrected, Receipt, Registered, SignedOff, act_on_alert, correct, exclude, note,
+    register, sign_off,
 };
 pub use error::{NotebookError, Result};
 pub use fits::{SeriesFit, SeriesRequest, fit_series, lot_fit};

@@ -403,3 +403,125 @@ pub fn open_count(conn: &Connection, lot: &str) -> Result<u32> {
         |r| r.get(0),
     )?)
 }
+
+/// One alert condition as the `alerts` listing shows it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ConditionRow {
+    /// The condition's row id: a short, stable handle for `ack` and `close`.
+    pub id: i64,
+    pub key: String,
+    pub rule: String,
+    pub lot: String,
+    pub state: AlertState,
+    pub severity: Severity,
+    pub episode: i64,
+    /// When the current episode's first message was queued (RFC 3339 UTC).
+    pub since: String,
+    pub changed_at: String,
+    /// The newest message's subject.
+    pub subject: String,
+}
+
+/// Every alert condition (cleared ones too), most severe first.
+pub fn conditions(conn: &Connection) -> Result<Vec<ConditionRow>> {
+    let mut st = conn.prepare(
+        "SELECT c.rowid, c.alert_key, c.rule, c.lot, c.state, c.severity, c.episode, \
+                COALESCE((SELECT MIN(o.queued_at) FROM alert_outbox o \
+                          WHERE o.alert_key = c.alert_key AND o.episode = c.episode), \
+                         c.changed_at), \
+                c.changed_at, \
+                COALESCE((SELECT o.subject FROM alert_outbox o WHERE o.alert_key = c.alert_key \
+                          ORDER BY o.id DESC LIMIT 1), '') \
+         FROM alert_condition c \
+         ORDER BY c.state = 'cleared', c.severity DESC, c.changed_at DESC",
+    )?;
+    let rows = st.query_map([], |r| {
+        Ok((
+            r.get::<_, i64>(0)?,
+            r.get::<_, String>(1)?,
+            r.get::<_, String>(2)?,
+            r.get::<_, String>(3)?,
+            r.get::<_, String>(4)?,
+            r.get::<_, i64>(5)?,
+            r.get::<_, i64>(6)?,
+            r.get::<_, String>(7)?,
+            r.get::<_, String>(8)?,
+            r.get::<_, String>(9)?,
+        ))
+    })?;
+    let mut out = Vec::new();
+    for row in rows {
+        let (id, key, rule, lot, state, sev, episode, since, changed_at, subject) = row?;
+        let (state, severity) = parse_state(&key, &state, sev)?;
+        out.push(ConditionRow {
+            id,
+            key,
+            rule,
+            lot,
+            state,
+            severity,
+            episode,
+            since,
+            changed_at,
+            subject,
+        });
+    }
+    Ok(out)
+}
+
+/// One condition by its id (digits) or its key.
+pub fn condition(conn: &Connection, id_or_key: &str) -> Result<Option<ConditionRow>> {
+    let id: Option<i64> = id_or_key.trim().parse().ok();
+    Ok(conditions(conn)?
+        .into_iter()
+        .find(|c| Some(c.id) == id || c.key == id_or_key))
+}
+
+/// A person's action on an alert, as its event recorded it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ActionRow {
+    pub seq: i64,
+    pub at: String,
+    pub actor: String,
+    pub alert_key: String,
+    pub episode: i64,
+    pub action: String,
+    pub reason: String,
+}
+
+/// Every acknowledgement and closing, oldest first, read from the audit trail itself.
+pub fn actions(conn: &Connection) -> Result<Vec<ActionRow>> {
+    let mut st = conn.prepare(
+        "SELECT seq, at, actor, payload FROM events WHERE kind = 'alert-action' ORDER BY seq",
+    )?;
+    let rows = st.query_map([], |r| {
+        Ok((
+            r.get::<_, i64>(0)?,
+            r.get::<_, String>(1)?,
+            r.get::<_, String>(2)?,
+            r.get::<_, String>(3)?,
+        ))
+    })?;
+    let mut out = Vec::new();
+    for row in rows {
+        let (seq, at, actor, payload) = row?;
+        if let Ok(crate::model::Payload::AlertAction {
+            alert_key,
+            episode,
+            action,
+            reason,
+        }) = serde_json::from_str(&payload)
+        {
+            out.push(ActionRow {
+                seq,
+                at,
+                actor,
+                alert_key,
+                episode,
+                action,
+                reason,
+            });
+        }
+    }
+    Ok(out)
+}

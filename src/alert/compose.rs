@@ -409,7 +409,10 @@ mod tests {
         assert!(CAUTIONS.iter().all(|c| !mq.text.contains(c)));
         let mc = compose_alert(&alert("L1"), AlertState::Cleared, "<x@y>", None);
         assert!(!mc.text.contains("Cautions"));
-        assert!(mc.text.starts_with("What to do: No action needed any more."));
+        assert!(
+            mc.text
+                .starts_with("What to do: No action needed any more.")
+        );
     }
 
     #[test]

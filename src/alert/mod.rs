@@ -23,7 +23,7 @@ pub use lifecycle::{Condition, backoff, decide, message_id_for};
 pub use rules::{
     AbruptLoss, Alert, AlertRules, AlertState, EvidenceRow, Forecast, ForecastStatus, LimitSource,
     LotSnapshot, MetalInProduct, NextBatch, NextBatchVerdict, QuarantinedFile, Recipients, RuleId,
-    RuleSwitches, Severity, SiteRecipients, dates_sentence, evaluate,
+    RuleSwitches, Severity, SiteRecipients, dates_sentence, evaluate, recipients_for,
 };
 pub use schedule::{DigestSchedule, next_digest_due};
 

@@ -564,7 +564,11 @@ pub fn evaluate(snap: &LotSnapshot, rules: &AlertRules) -> Vec<Alert> {
     if sw.replacement_forecast
         && let Some(fc) = &snap.forecast
     {
-        b.push(RuleId::ReplacementForecast, None, forecast_rule(snap, fc, rules));
+        b.push(
+            RuleId::ReplacementForecast,
+            None,
+            forecast_rule(snap, fc, rules),
+        );
     }
     if sw.next_batch
         && let Some(nb) = &snap.next_batch
@@ -675,7 +679,10 @@ fn abrupt_rule(snap: &LotSnapshot, ab: &AbruptLoss) -> Verdict {
     let lot = &snap.lot;
     Verdict {
         active: ab.flagged.then_some(Severity::Critical),
-        subject: format!("{lot}: abrupt loss of activity at cycle {}", snap.cycles_done),
+        subject: format!(
+            "{lot}: abrupt loss of activity at cycle {}",
+            snap.cycles_done
+        ),
         action: "Hold the lot and find the cause before the next batch (feed or substrate lot, a \
                  poison, the batch's conditions); have QA look at the batch's product."
             .to_string(),
@@ -1122,7 +1129,10 @@ mod tests {
         // reach the managers as well as the chemists.
         let a = evaluate(&s, &rules());
         let f = only(&a, RuleId::AbruptLoss);
-        assert_eq!((f.state, f.severity), (AlertState::Open, Severity::Critical));
+        assert_eq!(
+            (f.state, f.severity),
+            (AlertState::Open, Severity::Critical)
+        );
         assert_eq!(f.recipients, vec!["chem@example.org", "boss@example.org"]);
         if let Some(ab) = s.abrupt.as_mut() {
             ab.cusum = 5.0;

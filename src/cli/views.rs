@@ -63,6 +63,13 @@ pub fn history(cfg: &Config, lot: &str, json: bool) -> CmdResult {
                 e.payload["reason"].as_str().unwrap_or("")
             ),
             "note" => e.payload["text"].as_str().unwrap_or("").to_string(),
+            "alert-action" => format!(
+                "{} alert {} (episode {}), reason: {}",
+                e.payload["action"].as_str().unwrap_or("?"),
+                e.payload["alert_key"].as_str().unwrap_or("?"),
+                e.payload["episode"],
+                e.payload["reason"].as_str().unwrap_or("")
+            ),
             "sign-off" => format!(
                 "{} of {} (SHA-256 {})",
                 e.payload["meaning"].as_str().unwrap_or("?"),

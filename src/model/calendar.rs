@@ -195,7 +195,10 @@ mod tests {
         assert!(Cadence::of(tz, &same).is_none());
         let c = Cadence::of(
             tz,
-            &[(1, at("2027-01-01T00:00:00")), (3, at("2027-01-02T00:00:00"))],
+            &[
+                (1, at("2027-01-01T00:00:00")),
+                (3, at("2027-01-02T00:00:00")),
+            ],
         )
         .unwrap();
         assert!((c.cycles_per_day - 2.0).abs() < 1e-12);

@@ -309,3 +309,47 @@ pub fn list_alerts(cfg: &Config, all: bool) -> crate::notebook::Result<Vec<Alert
     }
     Ok(out)
 }
+
+/// Close the file notices of files that have now been ingested under the same path (a
+/// corrected re-export): each open notice gets its "cleared" message, saying so.
+pub fn close_file_notices(tx: &Transaction<'_>, cfg: &Config, ingested: &[&str]) -> Result<usize> {
+    if ingested.is_empty() {
+        return Ok(0);
+    }
+    let open = crate::store::outbox::open_file_notices(tx)?;
+    if open.is_empty() {
+        return Ok(0);
+    }
+    let now = crate::model::time::now_utc();
+    let prefix = format!("{}|{NO_LOT}|", alert::RuleId::Quarantine.as_str());
+    let alerts: Vec<alert::Alert> = open
+        .iter()
+        .filter_map(|key| {
+            let path = key.strip_prefix(&prefix)?;
+            ingested.contains(&path).then(|| alert::Alert {
+                key: key.clone(),
+                rule: alert::RuleId::Quarantine,
+                lot: NO_LOT.to_string(),
+                site: String::new(),
+                file: Some(path.to_string()),
+                state: alert::AlertState::Cleared,
+                severity: alert::Severity::Info,
+                subject: format!("file set aside: {path}"),
+                action: String::new(),
+                evidence: format!(
+                    "A file with the same path, {path}, was ingested at {now}: this notice is \
+                     closed.\n"
+                ),
+                recipients: alert::recipients_for(
+                    alert::RuleId::Quarantine,
+                    alert::Severity::Warning,
+                    "",
+                    &cfg.alerts,
+                ),
+                rows: Vec::new(),
+                criterion: f64::NAN,
+            })
+        })
+        .collect();
+    crate::store::outbox::enqueue(tx, &alerts, &now)
+}

@@ -4,13 +4,16 @@
 
 use crate::config::Config;
 use crate::fit::LotAnalysis;
+use crate::model::CycleView;
 use crate::model::calendar::{Cadence, crossing_dates};
 use crate::model::{ForecastStatus, LotRecord};
-use crate::model::CycleView;
 
 /// The lot's cadence from the starts of its cycles (excluded ones left out), read in the
 /// plant's zone.
-pub fn cadence<'a>(cfg: &Config, cycles: impl IntoIterator<Item = &'a CycleView>) -> Option<Cadence> {
+pub fn cadence<'a>(
+    cfg: &Config,
+    cycles: impl IntoIterator<Item = &'a CycleView>,
+) -> Option<Cadence> {
     let starts: Vec<(u32, chrono::NaiveDateTime)> = cycles
         .into_iter()
         .filter(|v| !v.excluded)

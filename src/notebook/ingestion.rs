@@ -767,6 +767,14 @@ impl<'a> Writer<'a> {
             outcomes.push(outcome);
         }
         w.finish()?;
+        let ingested: Vec<&str> = outcomes
+            .iter()
+            .filter_map(|o| match o {
+                FileOutcome::Ingested { path, .. } => Some(path.as_str()),
+                _ => None,
+            })
+            .collect();
+        crate::notebook::alerts::close_file_notices(&tx, self.cfg, &ingested)?;
         if recompute {
             // Under the write lock, this group's events are the newest of their lots.
             crate::notebook::recompute::recompute_lots_after(&tx, self.cfg, &touched)?;

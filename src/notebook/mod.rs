@@ -29,11 +29,11 @@ mod recompute;
 mod reports;
 mod views;
 
+pub use alerts::{AlertActionLine, AlertEntry, list_alerts};
 pub use daemon::{
     ServiceContext, SideTask, deliver_now, queue_digest, run_service, run_service_with, runtime,
     serve, serve_with,
 };
-pub use alerts::{AlertActionLine, AlertEntry, list_alerts};
 pub use entries::{
     AlertAct, Corrected, Receipt, Registered, SignedOff, act_on_alert, correct, exclude, note,
     register, sign_off,

@@ -525,3 +525,12 @@ pub fn actions(conn: &Connection) -> Result<Vec<ActionRow>> {
     }
     Ok(out)
 }
+
+/// Keys of the file notices (quarantine alerts) whose condition is still open.
+pub fn open_file_notices(conn: &Connection) -> Result<Vec<String>> {
+    let mut st = conn.prepare(
+        "SELECT alert_key FROM alert_condition WHERE rule = 'quarantine' AND state <> 'cleared'",
+    )?;
+    let keys = st.query_map([], |r| r.get::<_, String>(0))?;
+    Ok(keys.collect::<rusqlite::Result<Vec<_>>>()?)
+}

@@ -205,3 +205,30 @@ fn a_file_notice_closes_when_the_repaired_file_is_ingested() {
     assert!(cleared[0].4.contains("was ingested"), "{}", cleared[0].4);
     p.expect(0, &["verify"]);
 }
+
+#[test]
+fn a_clearing_names_the_entry_that_cleared_it() {
+    let p = Plant::new();
+    p.expect(
+        0,
+        &[
+            "exclude",
+            "KV4-K-010",
+            "--reason",
+            "feed drum 7 contaminated; batch not representative",
+        ],
+    );
+    let cleared: Vec<_> = p
+        .outbox()
+        .into_iter()
+        .filter(|m| m.0 == "abrupt-loss" && m.3.starts_with("[cleared]"))
+        .collect();
+    assert_eq!(cleared.len(), 1, "{:?}", p.outbox());
+    let body = &cleared[0].4;
+    assert!(
+        body.contains("the exclusion of batch KV4-K-010 by ")
+            && body.contains("reason: feed drum 7 contaminated"),
+        "{body}"
+    );
+    p.expect(0, &["verify"]);
+}

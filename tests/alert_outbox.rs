@@ -6,8 +6,8 @@ use std::path::Path;
 use chrono::{DateTime, Utc};
 use mail_parser::MessageParser;
 use rusqlite::Connection;
-use turnbook::alert::{AbruptLoss, EvidenceRow, Recipients};
 use turnbook::alert::{AlertRules, LotSnapshot, evaluate};
+use turnbook::alert::{EvidenceRow, LimitSource, MetalInProduct, Recipients};
 use turnbook::mail::deliver_due;
 use turnbook::mail::{
     Delivery, MailConfig, Security, TransportKind, parse_smtp_url, resolve_delivery,
@@ -90,22 +90,21 @@ fn same_condition_is_queued_once_and_changes_queue_follow_ups() {
     assert_eq!(queue(&mut conn, &s, "2026-12-01T08:00:00Z"), 1);
     // same verdict again: nothing new
     assert_eq!(queue(&mut conn, &s, "2026-12-01T09:00:00Z"), 0);
-    // abrupt loss, warning then critical: open, then worse
-    s.abrupt = Some(AbruptLoss {
-        flagged: true,
-        newest: 0.55,
-        pi_lower: 0.6,
-        pi_upper: 0.8,
-        cusum: 1.0,
-        h: 4.0,
+    // metal in product, near its limit then above it: open (warning), then worse
+    // (critical). A detected step is critical from the start, so it cannot show this.
+    s.metal_in_product = Some(MetalInProduct {
+        cycle: 5,
+        ug_per_g: 9.0,
+        limit_ug_per_g: 10.0,
+        limit_source: LimitSource::IchQ3dRecalled,
     });
     assert_eq!(queue(&mut conn, &s, "2026-12-01T10:00:00Z"), 1);
-    if let Some(a) = s.abrupt.as_mut() {
-        a.cusum = 6.0;
+    if let Some(m) = s.metal_in_product.as_mut() {
+        m.ug_per_g = 12.0;
     }
     assert_eq!(queue(&mut conn, &s, "2026-12-01T11:00:00Z"), 1);
     assert_eq!(queue(&mut conn, &s, "2026-12-01T11:30:00Z"), 0);
-    // back above the criterion: cleared once; abrupt still flagged stays quiet
+    // back above the criterion: cleared once; the metal alert still open stays quiet
     s.latest_activity = Some(0.9);
     assert_eq!(queue(&mut conn, &s, "2026-12-01T12:00:00Z"), 1);
     assert_eq!(queue(&mut conn, &s, "2026-12-01T12:30:00Z"), 0);
@@ -116,8 +115,8 @@ fn same_condition_is_queued_once_and_changes_queue_follow_ups() {
         outbox_rows(&conn),
         vec![
             ("below-criterion|PD-17".into(), "open".into(), 3),
-            ("abrupt-loss|PD-17".into(), "open".into(), 2),
-            ("abrupt-loss|PD-17".into(), "worse".into(), 3),
+            ("metal-in-product|PD-17".into(), "open".into(), 2),
+            ("metal-in-product|PD-17".into(), "worse".into(), 3),
             ("below-criterion|PD-17".into(), "cleared".into(), 3),
             ("below-criterion|PD-17".into(), "open".into(), 3),
         ]
@@ -248,8 +247,8 @@ async fn file_transport_writes_parseable_safe_eml_exactly_once() {
     assert_eq!(
         msg.subject(),
         Some(
-            "turnbook critical: Lot PD Bcc: evil@example.net <b>Ωmega</b>: \
-             activity below replacement criterion"
+            "[critical] PD Bcc: evil@example.net <b>Ωmega</b>: activity 0.50 below the \
+             replacement criterion at cycle 5"
         )
     );
     assert!(
@@ -275,8 +274,14 @@ async fn file_transport_writes_parseable_safe_eml_exactly_once() {
         text.contains("Lot: PD Bcc: evil@example.net <b>Ωmega</b>    Site"),
         "{text}"
     );
-    assert!(text.contains("Forecasts are advisory"));
-    assert!(text.contains("Batch release follows QA procedures"));
+    // A below-criterion message is about taking spent catalyst out: it opens with what
+    // to do and carries the handling caution, not the forecast or release notes.
+    assert!(
+        text.starts_with("What to do: Take the lot out of service"),
+        "{text}"
+    );
+    assert!(!text.contains("Forecasts are advisory"));
+    assert!(!text.contains("Batch release follows QA procedures"));
     // the row records where it went
     let reply: String = conn
         .query_row(
@@ -389,18 +394,29 @@ fn digest_is_queued_once_per_period_and_kept_out_of_changes() {
         from: t("2026-11-30T07:30:00Z"),
         to: t("2026-12-01T07:30:00Z"),
         chain_head: None,
+        zone: chrono_tz::UTC,
     };
     let open = open_alerts(&conn).unwrap();
     let changes = changes_since(&conn, "2026-11-30T07:30:00Z").unwrap();
     assert_eq!((open.len(), changes.len()), (1, 1));
-    let msg = compose_digest(
-        &[snap("L1", 0.1)],
-        &changes,
-        &open,
-        &period,
-        &["boss@example.org".into()],
+    let lots = [turnbook::alert::DigestLot {
+        snap: snap("L1", 0.1),
+        signoff: None,
+    }];
+    let msg = compose_digest(&turnbook::alert::DigestInput {
+        lots: &lots,
+        pending_lots: 0,
+        changes: &changes,
+        open: &open,
+        period: &period,
+        recipients: &["boss@example.org".into()],
+    });
+    // The lot's line says what changed in the period.
+    assert!(
+        msg.text.contains("new critical below criterion"),
+        "{}",
+        msg.text
     );
-    assert!(msg.text.contains("Changes in the period (1)"));
     for _ in 0..2 {
         let tx = conn.transaction().unwrap();
         enqueue_message(

@@ -187,7 +187,7 @@ async fn delivers_through_a_real_server_waits_while_down_and_never_twice() {
         assert!(
             m.body_text(0)
                 .unwrap()
-                .contains("Latest activity 0.4100 at cycle 9")
+                .contains("Newest activity 0.41 at cycle 9")
         );
         assert!(m.body_html(0).unwrap().contains("pyrophoric"));
         subjects.push(m.subject().unwrap().to_string());
@@ -196,9 +196,9 @@ async fn delivers_through_a_real_server_waits_while_down_and_never_twice() {
     assert_eq!(
         subjects,
         vec![
-            "turnbook critical: Lot LIP-1: activity below replacement criterion",
-            "turnbook critical: Lot LIP-2 X-Injected: 1 Ünïcode <b>: activity below \
-             replacement criterion",
+            "[critical] LIP-1: activity 0.41 below the replacement criterion at cycle 9",
+            "[critical] LIP-2 X-Injected: 1 Ünïcode <b>: activity 0.41 below the replacement \
+             criterion at cycle 9",
         ]
     );
     let conn = Connection::open(&db).unwrap();

@@ -1,16 +1,22 @@
-//! The managers' digest: one message per period summarising every lot, what changed and
-//! what is still open. Pure.
+//! The managers' digest: one message per period that a manager reads in a minute — one
+//! line per lot (state, next batch, order-by date, what changed), the open alerts by
+//! severity, the lots still pending, times in the plant's zone. Pure.
+//!
+//! The HTML part is tables with inline styles only (no `<style>` block, no SVG, no
+//! external resources), the form most mail clients keep intact (common practice in HTML
+//! e-mail).
 
 use std::fmt::Write as _;
 
 use chrono::{DateTime, Utc};
+use chrono_tz::Tz;
 use sha2::{Digest, Sha256};
 
 use super::compose::MESSAGE_ID_DOMAIN;
 use super::compose::{CAUTIONS, ComposedMessage, body_safe, header_safe, html_escape};
-use super::rules::{AlertState, ForecastStatus, LotSnapshot, Severity};
+use super::rules::{AlertState, ForecastStatus, LotSnapshot, NextBatchVerdict, Severity};
+use crate::model::calendar::show_local;
 use crate::model::numbers::fixed_or;
-use crate::model::time::format_ts;
 
 /// An alert whose condition is still open (from the outbox).
 #[derive(Debug, Clone, PartialEq)]
@@ -44,151 +50,304 @@ pub struct DigestPeriod {
     /// The audit chain's newest event as `SEQ:HASH`, published in the digest so that a
     /// later `verify --head` can prove no newest entry was removed.
     pub chain_head: Option<String>,
+    /// The plant's time zone: every time in the digest is shown in it.
+    pub zone: Tz,
 }
 
-fn num(v: Option<f64>) -> String {
-    fixed_or(v, 3, "-")
+/// One lot of the digest: the rules' snapshot and its sign-off state, if any.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DigestLot {
+    pub snap: LotSnapshot,
+    /// "reviewed", "approved", ... as the sign-off record stands; None when never signed.
+    pub signoff: Option<String>,
 }
 
-fn forecast_summary(s: &LotSnapshot) -> String {
+/// Everything a digest shows.
+#[derive(Debug, Clone)]
+pub struct DigestInput<'a> {
+    pub lots: &'a [DigestLot],
+    /// Lots with cycles on record that nobody registered yet.
+    pub pending_lots: usize,
+    pub changes: &'a [AlertChange],
+    pub open: &'a [OpenAlert],
+    pub period: &'a DigestPeriod,
+    pub recipients: &'a [String],
+}
+
+/// The file-notice lot name (notices that belong to no lot).
+const NO_LOT: &str = "(no lot)";
+
+fn act(v: Option<f64>) -> String {
+    fixed_or(v, 2, "–")
+}
+
+/// The trend in a few words, with the order-by date when known.
+fn forecast_words(s: &LotSnapshot) -> String {
     let Some(f) = &s.forecast else {
         return "no forecast".into();
     };
+    let cyc = |v: Option<f64>| fixed_or(v, 1, "?");
     match f.status {
-        ForecastStatus::ReachedAlready => "criterion already reached".into(),
-        ForecastStatus::NotReached => "criterion never reached (model)".into(),
-        ForecastStatus::Ahead => format!(
-            "crossing at cycle {} ({} to {})",
-            num(f.x),
-            num(f.lower),
-            num(f.upper)
-        ),
-        ForecastStatus::UnboundedInterval => format!("crossing at cycle {} (unbounded)", num(f.x)),
-        ForecastStatus::NoSignificantTrend => "no significant loss of activity".into(),
-        ForecastStatus::Withheld => "forecast withheld after a step change".into(),
+        ForecastStatus::ReachedAlready => "fitted trend at the criterion".into(),
+        ForecastStatus::NotReached => "criterion not reached (model)".into(),
+        ForecastStatus::NoSignificantTrend => "stable (no significant loss)".into(),
+        ForecastStatus::Withheld => "withheld after a step change".into(),
+        ForecastStatus::Ahead | ForecastStatus::UnboundedInterval => {
+            match f.dates.as_ref().and_then(|d| {
+                Some((
+                    d.crossing_early.clone().or(d.crossing_date.clone())?,
+                    d.crossing_late.clone(),
+                ))
+            }) {
+                Some((e, Some(l))) => format!("criterion {e} to {l}"),
+                Some((e, None)) => format!("criterion from {e}"),
+                None => format!(
+                    "criterion at cycle {} ({} to {})",
+                    cyc(f.x),
+                    cyc(f.lower),
+                    cyc(f.upper)
+                ),
+            }
+        }
     }
 }
 
-/// Compose the digest for managers. Lots are listed in the order given.
-pub fn compose_digest(
-    snapshots: &[LotSnapshot],
-    changes_since_last: &[AlertChange],
-    open_alerts: &[OpenAlert],
-    period: &DigestPeriod,
-    recipients: &[String],
-) -> ComposedMessage {
-    let from = format_ts(period.from);
-    let to = format_ts(period.to);
+fn order_by(s: &LotSnapshot) -> Option<String> {
+    s.forecast
+        .as_ref()
+        .and_then(|f| f.dates.as_ref())
+        .and_then(|d| d.order_by.clone())
+}
+
+fn next_words(s: &LotSnapshot) -> String {
+    match &s.next_batch {
+        None => "–".into(),
+        Some(n) => format!(
+            "{} ({})",
+            match n.verdict {
+                NextBatchVerdict::Ok => "ok",
+                NextBatchVerdict::Marginal => "marginal",
+                NextBatchVerdict::Below => "below",
+            },
+            fixed_or(Some(n.predicted), 2, "?")
+        ),
+    }
+}
+
+fn badge(sev: Option<Severity>) -> (&'static str, &'static str) {
+    match sev {
+        Some(Severity::Critical) => ("critical", "#c62828"),
+        Some(Severity::Warning) => ("warning", "#ef6c00"),
+        Some(Severity::Info) => ("info", "#1565c0"),
+        None => ("ok", "#2e7d32"),
+    }
+}
+
+fn local(zone: Tz, ts: &str) -> String {
+    crate::model::time::parse_ts(ts)
+        .map(|t| show_local(zone, t))
+        .unwrap_or_else(|_| ts.to_string())
+}
+
+/// Compose the digest for managers. Lots are listed most urgent first: by their worst
+/// open alert, then by order-by date, then by name.
+pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
+    let period = d.period;
+    let zone = period.zone;
+    let from = crate::model::time::format_ts(period.from);
+    let to = crate::model::time::format_ts(period.to);
     let id_hash = hex::encode(Sha256::digest(format!("digest|{from}|{to}").as_bytes()));
     let message_id = format!("<{}.digest@{MESSAGE_ID_DOMAIN}>", &id_hash[..32]);
+    let count = |s: Severity| d.open.iter().filter(|a| a.severity == s).count();
+    let (crit, warn, info) = (
+        count(Severity::Critical),
+        count(Severity::Warning),
+        count(Severity::Info),
+    );
+    let day = |t: DateTime<Utc>| t.with_timezone(&zone).format("%Y-%m-%d").to_string();
     let subject = header_safe(
         &format!(
-            "turnbook digest {} to {}: {} lots, {} open alerts",
-            period.from.format("%Y-%m-%d"),
-            period.to.format("%Y-%m-%d"),
-            snapshots.len(),
-            open_alerts.len()
+            "Catalyst digest {} to {}: {crit} critical, {warn} warning; {} lots{}",
+            day(period.from),
+            day(period.to),
+            d.lots.len() + d.pending_lots,
+            if d.pending_lots > 0 {
+                format!(" ({} pending)", d.pending_lots)
+            } else {
+                String::new()
+            }
         ),
         200,
     );
+    let worst = |lot: &str| {
+        d.open
+            .iter()
+            .filter(|a| a.lot == lot)
+            .map(|a| a.severity)
+            .max()
+    };
+    let mut lots: Vec<&DigestLot> = d.lots.iter().collect();
+    lots.sort_by(|a, b| {
+        worst(&b.snap.lot)
+            .cmp(&worst(&a.snap.lot))
+            .then_with(|| {
+                let (oa, ob) = (order_by(&a.snap), order_by(&b.snap));
+                match (oa, ob) {
+                    (Some(x), Some(y)) => x.cmp(&y),
+                    (Some(_), None) => std::cmp::Ordering::Less,
+                    (None, Some(_)) => std::cmp::Ordering::Greater,
+                    (None, None) => std::cmp::Ordering::Equal,
+                }
+            })
+            .then_with(|| a.snap.lot.cmp(&b.snap.lot))
+    });
+    let changed = |lot: &str| -> String {
+        let mine: Vec<String> = d
+            .changes
+            .iter()
+            .filter(|c| c.lot == lot)
+            .map(|c| {
+                let what = c.key.split('|').next().unwrap_or("").replace('-', " ");
+                match c.state {
+                    AlertState::Cleared => format!("{what} cleared"),
+                    AlertState::Worse => format!("{what} now {}", c.severity.as_str()),
+                    AlertState::Open => format!("new {} {what}", c.severity.as_str()),
+                }
+            })
+            .collect();
+        if mine.is_empty() {
+            "no change".into()
+        } else {
+            mine.join("; ")
+        }
+    };
 
+    let th = "style=\"text-align:left;padding:4px 8px;border-bottom:2px solid #999;\
+              font-size:13px\"";
+    let td = "style=\"padding:4px 8px;border-bottom:1px solid #ddd;font-size:13px;\
+              vertical-align:top\"";
     let mut text = String::new();
-    let mut html = String::from("<!DOCTYPE html><html><body style=\"font-family:sans-serif\">");
-    let _ = writeln!(text, "Digest for {from} to {to}\n");
-    let _ = write!(
-        html,
-        "<h2>Digest for {} to {}</h2>",
-        html_escape(&from),
-        html_escape(&to)
+    let mut html = String::from(
+        "<!DOCTYPE html><html><body style=\"margin:0;padding:16px;background:#f5f5f5;\
+         font-family:Arial,Helvetica,sans-serif;color:#222\">\
+         <table role=\"presentation\" width=\"100%\" cellpadding=\"0\" cellspacing=\"0\" \
+         style=\"max-width:900px;background:#ffffff;border:1px solid #ddd\"><tr>\
+         <td style=\"padding:16px\">",
     );
-
-    let _ = writeln!(text, "Open alerts ({}):", open_alerts.len());
-    html.push_str("<h3>Open alerts</h3><ul>");
-    if open_alerts.is_empty() {
-        text.push_str("  none\n");
-        html.push_str("<li>none</li>");
-    }
-    for a in open_alerts {
-        let _ = writeln!(
-            text,
-            "  [{}] {} (since {})",
-            a.severity.as_str(),
-            body_safe(&a.subject),
-            a.since
-        );
-        let _ = write!(
-            html,
-            "<li><b>{}</b> {} (since {})</li>",
-            a.severity.as_str(),
-            html_escape(&a.subject),
-            html_escape(&a.since)
-        );
-    }
-    html.push_str("</ul>");
-
     let _ = writeln!(
         text,
-        "\nChanges in the period ({}):",
-        changes_since_last.len()
+        "Catalyst digest, {} to {}\n",
+        show_local(zone, period.from),
+        show_local(zone, period.to)
     );
-    html.push_str("<h3>Changes in the period</h3><ul>");
-    if changes_since_last.is_empty() {
-        text.push_str("  none\n");
-        html.push_str("<li>none</li>");
-    }
-    for c in changes_since_last {
-        let _ = writeln!(
-            text,
-            "  {} {} [{}] {}",
-            c.at,
-            c.state.as_str(),
-            c.severity.as_str(),
-            body_safe(&c.subject)
-        );
-        let _ = write!(
-            html,
-            "<li>{} {} [{}] {}</li>",
-            html_escape(&c.at),
-            c.state.as_str(),
-            c.severity.as_str(),
-            html_escape(&c.subject)
-        );
-    }
-    html.push_str("</ul>");
+    let _ = write!(
+        html,
+        "<h2 style=\"margin:0 0 4px 0;font-size:20px\">Catalyst digest</h2>\
+         <p style=\"margin:0 0 12px 0;color:#555;font-size:13px\">{} to {}</p>",
+        html_escape(&show_local(zone, period.from)),
+        html_escape(&show_local(zone, period.to))
+    );
+    // The headline: open alerts by severity and pending lots.
+    let _ = writeln!(
+        text,
+        "Open alerts: {crit} critical, {warn} warning, {info} info. Lots: {} registered, {} \
+         pending registration.\n",
+        d.lots.len(),
+        d.pending_lots
+    );
+    let _ = write!(
+        html,
+        "<p style=\"font-size:15px;margin:0 0 12px 0\">Open alerts: \
+         <b style=\"color:#c62828\">{crit} critical</b>, \
+         <b style=\"color:#ef6c00\">{warn} warning</b>, {info} info. \
+         Lots: {} registered, {} pending registration.</p>",
+        d.lots.len(),
+        d.pending_lots
+    );
 
-    text.push_str("\nLots:\nlot | catalyst | site | cycles | activity | criterion | forecast\n");
-    html.push_str(
-        "<h3>Lots</h3><table cellpadding=\"3\" style=\"border-collapse:collapse\">\
-         <tr><th>lot</th><th>catalyst</th><th>site</th><th>cycles</th><th>activity</th>\
-         <th>criterion</th><th>forecast</th></tr>",
+    // One line per lot.
+    text.push_str("Lots (most urgent first):\n");
+    let _ = write!(
+        html,
+        "<table cellpadding=\"0\" cellspacing=\"0\" style=\"border-collapse:collapse;\
+         width:100%\"><tr><th {th}>state</th><th {th}>lot</th><th {th}>cycles</th>\
+         <th {th}>activity</th><th {th}>next batch</th><th {th}>trend</th>\
+         <th {th}>order by</th><th {th}>since last digest</th><th {th}>sign-off</th></tr>"
     );
-    for s in snapshots {
-        let fc = forecast_summary(s);
+    for l in &lots {
+        let s = &l.snap;
+        let (word, color) = badge(worst(&s.lot));
+        let ob = order_by(s).unwrap_or_else(|| "–".into());
+        let signoff = l.signoff.clone().unwrap_or_else(|| "none".into());
         let _ = writeln!(
             text,
-            "{} | {} | {} | {} | {} | {} | {}",
+            "- {} [{word}] {} cycles, activity {}, next batch {}, {}, order by {ob}; {}; \
+             sign-off {signoff}",
             body_safe(&s.lot),
-            body_safe(&s.catalyst),
-            body_safe(&s.site),
             s.cycles_done,
-            num(s.latest_activity),
-            num(Some(s.criterion)),
-            fc
+            act(s.latest_activity),
+            next_words(s),
+            forecast_words(s),
+            changed(&s.lot)
         );
         let _ = write!(
             html,
-            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td>\
-             <td>{}</td></tr>",
+            "<tr><td {td}><span style=\"background:{color};color:#fff;padding:1px 6px;\
+             border-radius:3px;font-size:12px\">{word}</span></td>\
+             <td {td}><b>{}</b><br><span style=\"color:#666\">{}</span></td>\
+             <td {td}>{}</td><td {td}>{}</td><td {td}>{}</td><td {td}>{}</td>\
+             <td {td}><b>{}</b></td><td {td}>{}</td><td {td}>{}</td></tr>",
             html_escape(&s.lot),
             html_escape(&s.catalyst),
-            html_escape(&s.site),
             s.cycles_done,
-            num(s.latest_activity),
-            num(Some(s.criterion)),
-            html_escape(&fc)
+            act(s.latest_activity),
+            html_escape(&next_words(s)),
+            html_escape(&forecast_words(s)),
+            html_escape(&ob),
+            html_escape(&changed(&s.lot)),
+            html_escape(&signoff)
         );
     }
     html.push_str("</table>");
+
+    // Open alerts by severity, file notices apart.
+    let _ = write!(
+        html,
+        "<h3 style=\"font-size:16px;margin:16px 0 4px 0\">Open alerts</h3>"
+    );
+    text.push_str("\nOpen alerts:\n");
+    if d.open.is_empty() {
+        text.push_str("  none\n");
+        html.push_str("<p style=\"font-size:13px\">none</p>");
+    } else {
+        html.push_str("<table cellpadding=\"0\" cellspacing=\"0\" style=\"border-collapse:collapse;width:100%\">");
+        let mut open: Vec<&OpenAlert> = d.open.iter().collect();
+        open.sort_by(|a, b| b.severity.cmp(&a.severity).then(a.since.cmp(&b.since)));
+        for a in open {
+            let (word, color) = badge(Some(a.severity));
+            let what = match a.subject.split_once("] ") {
+                Some((tag, rest)) if tag.starts_with('[') => rest,
+                _ => a.subject.as_str(),
+            };
+            let lot = if a.lot == NO_LOT { "file" } else { &a.lot };
+            let _ = writeln!(
+                text,
+                "  [{word}] {} (since {})",
+                body_safe(what),
+                local(zone, &a.since)
+            );
+            let _ = write!(
+                html,
+                "<tr><td {td}><span style=\"color:{color};font-weight:bold\">{word}</span></td>\
+                 <td {td}>{}</td><td {td}>{}</td><td {td}>since {}</td></tr>",
+                html_escape(lot),
+                html_escape(what),
+                html_escape(&local(zone, &a.since))
+            );
+        }
+        html.push_str("</table>");
+    }
+
     if let Some(head) = &period.chain_head {
         let _ = writeln!(
             text,
@@ -197,19 +356,20 @@ pub fn compose_digest(
         );
         let _ = write!(
             html,
-            "<p>Audit chain head: <code>{}</code> (keep this line: <code>turnbook verify \
-             --head {}</code> proves later that no entry up to it was removed or altered)</p>",
+            "<p style=\"font-size:12px;color:#555;margin-top:16px\">Audit chain head: \
+             <code>{}</code> (keep this line: <code>turnbook verify --head {}</code> proves \
+             later that no entry up to it was removed or altered)</p>",
             html_escape(head),
             html_escape(head)
         );
     }
-    html.push_str("<h3>Cautions</h3><ul>");
+    html.push_str("<p style=\"font-size:12px;color:#555\">");
     text.push_str("\nCautions:\n");
     for c in CAUTIONS {
         let _ = writeln!(text, "- {c}");
-        let _ = write!(html, "<li>{}</li>", html_escape(c));
+        let _ = write!(html, "{}<br>", html_escape(c));
     }
-    html.push_str("</ul></body></html>");
+    html.push_str("</p></td></tr></table></body></html>");
 
     ComposedMessage {
         message_id,
@@ -217,7 +377,7 @@ pub fn compose_digest(
         subject,
         text,
         html,
-        recipients: recipients.to_vec(),
+        recipients: d.recipients.to_vec(),
     }
 }
 
@@ -229,15 +389,14 @@ mod tests {
         DateTime::parse_from_rfc3339(s).unwrap().with_timezone(&Utc)
     }
 
-    #[test]
-    fn digest_lists_and_escapes() {
-        let snap = LotSnapshot {
-            lot: "<b>L1</b>".into(),
+    fn snap(lot: &str, activity: f64) -> LotSnapshot {
+        LotSnapshot {
+            lot: lot.into(),
             catalyst: "Pd/C".into(),
             metal: "Pd".into(),
             site: "North".into(),
             cycles_done: 4,
-            latest_activity: Some(0.7),
+            latest_activity: Some(activity),
             criterion: 0.6,
             forecast: None,
             next_batch: None,
@@ -247,39 +406,82 @@ mod tests {
             economic_cycle: None,
             quarantined: vec![],
             evidence: vec![],
-        };
-        let open = OpenAlert {
-            key: "k".into(),
+        }
+    }
+
+    fn open(lot: &str, sev: Severity, subject: &str) -> OpenAlert {
+        OpenAlert {
+            key: format!("below-criterion|{lot}"),
             rule: "below-criterion".into(),
-            lot: "L1".into(),
+            lot: lot.into(),
             state: AlertState::Open,
-            severity: Severity::Critical,
+            severity: sev,
             since: "2026-12-01T00:00:00.000Z".into(),
-            subject: "Lot <b>L1</b>: below".into(),
-        };
+            subject: subject.into(),
+        }
+    }
+
+    #[test]
+    fn digest_lists_lots_most_urgent_first_in_local_time_and_escapes() {
+        let lots = vec![
+            DigestLot {
+                snap: snap("A-CALM", 0.95),
+                signoff: Some("approved".into()),
+            },
+            DigestLot {
+                snap: snap("<b>L1</b>", 0.55),
+                signoff: None,
+            },
+        ];
+        let alerts = vec![
+            open(
+                "<b>L1</b>",
+                Severity::Critical,
+                "[critical] <b>L1</b>: below",
+            ),
+            open(NO_LOT, Severity::Warning, "[warning] file set aside: x.csv"),
+        ];
         let p = DigestPeriod {
             from: t("2026-11-30T07:30:00Z"),
             to: t("2026-12-01T07:30:00Z"),
             chain_head: Some("54:ab12".into()),
+            zone: crate::model::calendar::zone("Europe/Berlin").unwrap(),
         };
-        let m = compose_digest(&[snap], &[], &[open], &p, &["m@example.org".into()]);
-        assert!(
-            m.text.contains("Audit chain head: 54:ab12")
-                && m.text.contains("verify --head 54:ab12"),
-            "{}",
-            m.text
-        );
+        let m = compose_digest(&DigestInput {
+            lots: &lots,
+            pending_lots: 1,
+            changes: &[],
+            open: &alerts,
+            period: &p,
+            recipients: &["m@example.org".into()],
+        });
         assert_eq!(
             m.subject,
-            "turnbook digest 2026-11-30 to 2026-12-01: 1 lots, 1 open alerts"
+            "Catalyst digest 2026-11-30 to 2026-12-01: 1 critical, 1 warning; 3 lots (1 pending)"
         );
+        assert!(m.text.contains("Audit chain head: 54:ab12"), "{}", m.text);
+        // Times in the plant's zone, to the minute.
+        assert!(m.text.contains("2026-11-30 08:30 CET"), "{}", m.text);
+        assert!(!m.text.contains(".000Z"), "{}", m.text);
+        // The lot with the critical alert comes first although its name sorts last.
+        let first = m.text.find("<b>L1</b> [critical]").unwrap();
+        let second = m.text.find("A-CALM [ok]").unwrap();
+        assert!(first < second, "{}", m.text);
+        assert!(m.text.contains("sign-off approved"));
+        // File notices are not a lot called "(no lot)".
+        assert!(!m.text.contains(NO_LOT) && !m.html.contains("(no lot)"));
         assert!(m.html.contains("&lt;b&gt;L1&lt;/b&gt;"));
         assert!(!m.html.contains("<b>L1"));
-        assert!(m.text.contains("[critical] Lot <b>L1</b>: below"));
-        assert!(m.text.contains("0.700"));
-        assert!(m.text.contains("pyrophoric"));
+        assert!(!m.html.contains("<style") && !m.html.contains("<svg"));
         assert_eq!(m.recipients, vec!["m@example.org"]);
-        let m2 = compose_digest(&[], &[], &[], &p, &[]);
-        assert_eq!(m.message_id, m2.message_id);
+        let again = compose_digest(&DigestInput {
+            lots: &[],
+            pending_lots: 0,
+            changes: &[],
+            open: &[],
+            period: &p,
+            recipients: &[],
+        });
+        assert_eq!(m.message_id, again.message_id);
     }
 }

@@ -159,11 +159,21 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
 }
 
 /// Evaluate the rules for a lot and queue what they raise.
-pub fn raise(tx: &Transaction<'_>, cfg: &Config, state: &LotState) -> Result<usize> {
+pub fn raise(
+    tx: &Transaction<'_>,
+    cfg: &Config,
+    state: &LotState,
+    cause: Option<&str>,
+) -> Result<usize> {
     let Some(snap) = snapshot(cfg, state) else {
         return Ok(0);
     };
-    let alerts = evaluate(&snap, &cfg.alerts);
+    let mut alerts = evaluate(&snap, &cfg.alerts);
+    if let Some(c) = cause {
+        for a in &mut alerts {
+            a.evidence.push_str(&format!("This follows {c}.\n"));
+        }
+    }
     crate::store::outbox::enqueue(tx, &alerts, &crate::model::time::now_utc())
 }
 

@@ -221,11 +221,16 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
     let mut conn = store::open(&cfg.database_path())?;
     let now = chrono::Utc::now();
     let from = outbox::last_digest(&conn)?.unwrap_or_else(|| now - chrono::Duration::days(7));
-    let mut snapshots = Vec::new();
+    let mut lots = Vec::new();
+    let mut pending_lots = 0;
     for lot in store::lots::lot_names(&conn)? {
         let state = super::lots::lot_state(&conn, cfg, &lot)?;
-        if let Some(s) = super::alerts::snapshot(cfg, &state) {
-            snapshots.push(s);
+        match super::alerts::snapshot(cfg, &state) {
+            Some(snap) => lots.push(digest::DigestLot {
+                snap,
+                signoff: None,
+            }),
+            None => pending_lots += 1,
         }
     }
     let open = outbox::open_alerts(&conn)?;
@@ -234,14 +239,16 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
         from,
         to: now,
         chain_head: store::events::head(&conn)?.map(|h| h.to_string()),
+        zone: cfg.zone(),
     };
-    let msg = digest::compose_digest(
-        &snapshots,
-        &changes,
-        &open,
-        &period,
-        &cfg.alerts.recipients.managers,
-    );
+    let msg = digest::compose_digest(&digest::DigestInput {
+        lots: &lots,
+        pending_lots,
+        changes: &changes,
+        open: &open,
+        period: &period,
+        recipients: &cfg.alerts.recipients.managers,
+    });
     let tx = conn.transaction().map_err(store::StoreError::from)?;
     let key = format!("digest|{}", format_ts(now));
     outbox::enqueue_message(&tx, &key, &msg, &format_ts(now))?;

@@ -6,7 +6,7 @@ use std::collections::BTreeSet;
 
 use super::error::{NotebookError, Result};
 use super::history::lot_fingerprint;
-use super::recompute::recompute_lots;
+use super::recompute::{recompute_lots, recompute_lots_because};
 use crate::config::Config;
 use crate::model::time::now_utc;
 use crate::model::{LotRecord, Payload, Quantity};
@@ -104,7 +104,10 @@ pub fn correct(
     let (seq, actor) = write_entry(cfg, |tx, actor, at| {
         let lots = lot_of_batch(tx, batch)?;
         let seq = records::correct(tx, batch, field, stored, reason, actor, at)?;
-        recompute_lots(tx, cfg, &lots, actor)?;
+        let cause = format!(
+            "event #{seq}, a correction of {field} of batch {batch} by {actor}, reason: {reason}"
+        );
+        recompute_lots_because(tx, cfg, &lots, &cause)?;
         Ok(seq)
     })?;
     Ok(Corrected {
@@ -141,7 +144,15 @@ pub fn exclude(cfg: &Config, batch: &str, exclude: bool, reason: &str) -> Result
     let (seq, actor) = write_entry(cfg, |tx, actor, at| {
         let lots = lot_of_batch(tx, batch)?;
         let seq = records::set_excluded(tx, batch, exclude, reason, actor, at)?;
-        recompute_lots(tx, cfg, &lots, actor)?;
+        let cause = format!(
+            "event #{seq}, {} batch {batch} by {actor}, reason: {reason}",
+            if exclude {
+                "the exclusion of"
+            } else {
+                "taking back in"
+            }
+        );
+        recompute_lots_because(tx, cfg, &lots, &cause)?;
         Ok(seq)
     })?;
     Ok(Receipt { seq, actor })

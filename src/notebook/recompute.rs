@@ -22,7 +22,29 @@ pub fn recompute_lots(
     _actor: &str,
 ) -> Result<()> {
     for lot in lots {
-        recompute_lot(tx, cfg, lot, store::lots::newest_seq_of(tx, lot)?)?;
+        recompute_lot(tx, cfg, lot, store::lots::newest_seq_of(tx, lot)?, None)?;
+    }
+    Ok(())
+}
+
+/// [`recompute_lots`] after a person's entry (a correction, an exclusion): every message
+/// this queues (a clearing, a change of severity) names the entry — `cause`, e.g. "event
+/// #57, exclusion of batch KV4-K-010 by a.chemist: feed drum contaminated" — so nobody
+/// reads a silent "cleared".
+pub fn recompute_lots_because(
+    tx: &Transaction<'_>,
+    cfg: &Config,
+    lots: &BTreeSet<String>,
+    cause: &str,
+) -> Result<()> {
+    for lot in lots {
+        recompute_lot(
+            tx,
+            cfg,
+            lot,
+            store::lots::newest_seq_of(tx, lot)?,
+            Some(cause),
+        )?;
     }
     Ok(())
 }
@@ -36,13 +58,19 @@ pub fn recompute_lots_after(
     lots: &BTreeMap<String, i64>,
 ) -> Result<()> {
     for (lot, after) in lots {
-        recompute_lot(tx, cfg, lot, *after)?;
+        recompute_lot(tx, cfg, lot, *after, None)?;
     }
     Ok(())
 }
 
 /// Recompute one lot whose records go up to event `after`.
-fn recompute_lot(tx: &Transaction<'_>, cfg: &Config, lot: &str, after: i64) -> Result<()> {
+fn recompute_lot(
+    tx: &Transaction<'_>,
+    cfg: &Config,
+    lot: &str,
+    after: i64,
+    cause: Option<&str>,
+) -> Result<()> {
     if records::lot(tx, lot)?.is_none() {
         // Pending (nobody registered the lot): nothing to fit and no alert to raise;
         // the empty fit still records what the lot's records were when looked at.
@@ -78,7 +106,7 @@ fn recompute_lot(tx: &Transaction<'_>, cfg: &Config, lot: &str, after: i64) -> R
         fit::ENGINE_VERSION,
         &now_utc(),
     )?;
-    super::alerts::raise(tx, cfg, &state)?;
+    super::alerts::raise(tx, cfg, &state, cause)?;
     Ok(())
 }
 

@@ -60,7 +60,7 @@ fn demo_writes_plant_database_alerts_and_reports_and_refuses_a_used_folder() {
         })
         .collect();
     assert!(
-        subjects.iter().any(|s| s.contains("order replacement by")),
+        subjects.iter().any(|s| s.contains("order replacement")),
         "no replacement-forecast alert among {subjects:?}"
     );
     assert!(

@@ -113,10 +113,13 @@ fn forecast_words(s: &LotSnapshot) -> String {
 }
 
 fn order_by(s: &LotSnapshot) -> Option<String> {
-    s.forecast
-        .as_ref()
-        .and_then(|f| f.dates.as_ref())
-        .and_then(|d| d.order_by.clone())
+    let d = s.forecast.as_ref().and_then(|f| f.dates.as_ref())?;
+    let o = d.order_by.clone()?;
+    Some(if d.order_by_passed() {
+        format!("{o} (passed)")
+    } else {
+        o
+    })
 }
 
 fn next_words(s: &LotSnapshot) -> String {
@@ -294,9 +297,11 @@ pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
             html,
             "<tr><td {td}><span style=\"background:{color};color:#fff;padding:1px 6px;\
              border-radius:3px;font-size:12px\">{word}</span></td>\
-             <td {td}><b>{}</b><br><span style=\"color:#666\">{}</span></td>\
+             <td {td}><b style=\"white-space:nowrap\">{}</b><br>\
+             <span style=\"color:#666\">{}</span></td>\
              <td {td}>{}</td><td {td}>{}</td><td {td}>{}</td><td {td}>{}</td>\
-             <td {td}><b>{}</b></td><td {td}>{}</td><td {td}>{}</td></tr>",
+             <td {td}><b style=\"white-space:nowrap\">{}</b></td><td {td}>{}</td>\
+             <td {td}>{}</td></tr>",
             html_escape(&s.lot),
             html_escape(&s.catalyst),
             s.cycles_done,
@@ -339,7 +344,8 @@ pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
             let _ = write!(
                 html,
                 "<tr><td {td}><span style=\"color:{color};font-weight:bold\">{word}</span></td>\
-                 <td {td}>{}</td><td {td}>{}</td><td {td}>since {}</td></tr>",
+                 <td {td}><span style=\"white-space:nowrap\">{}</span></td><td {td}>{}</td>\
+                 <td {td}><span style=\"white-space:nowrap\">since {}</span></td></tr>",
                 html_escape(lot),
                 html_escape(what),
                 html_escape(&local(zone, &a.since))

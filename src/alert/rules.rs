@@ -908,17 +908,24 @@ fn forecast_rule(snap: &LotSnapshot, fc: &Forecast, rules: &AlertRules) -> Verdi
             (Some(e), _) => format!("criterion expected from {e}"),
             _ => format!("criterion expected about {}", d.crossing_date.as_deref()?),
         };
-        Some((d.order_by.clone(), window))
+        Some((d.order_by.clone(), window, d.order_by_passed()))
     });
     let (subject, action) = match when {
-        Some((Some(order), window)) => (
+        Some((Some(order), window, true)) => (
+            format!("{lot}: order replacement now, order-by date {order} passed ({window})"),
+            format!(
+                "Order a replacement lot now: the order-by date {order} has passed, so the \
+                 new lot may not be qualified before this one reaches the criterion."
+            ),
+        ),
+        Some((Some(order), window, false)) => (
             format!("{lot}: order replacement by {order} ({window})"),
             format!(
                 "Order a replacement lot by {order} so that it is qualified before this one \
                  reaches the criterion; keep using this lot while the next-batch check is ok."
             ),
         ),
-        Some((None, window)) => (
+        Some((None, window, _)) => (
             format!("{lot}: plan a replacement ({window})"),
             "Plan a replacement lot; set a lead time for this catalyst to get an order-by date."
                 .to_string(),
@@ -1065,6 +1072,47 @@ mod tests {
             only(&a, RuleId::ReplacementForecast).severity,
             Severity::Warning
         );
+    }
+
+    #[test]
+    fn order_by_dates_in_subject_and_a_passed_date_says_now() {
+        let mut s = snapshot();
+        let mut fc = forecast(ForecastStatus::Ahead, 8.0, Some(7.5), Some(9.0));
+        fc.dates = Some(crate::model::calendar::CrossingDates {
+            crossing_date: Some("2027-01-28".into()),
+            crossing_early: Some("2027-01-26".into()),
+            crossing_late: Some("2027-02-06".into()),
+            order_by: Some("2027-01-14".into()),
+            days_left: Some(12.0),
+            cycles_per_day: Some(0.125),
+            lead_days: Some(12.0),
+            time_zone: Some("Europe/Berlin".into()),
+            as_of: Some("2027-01-10".into()),
+        });
+        s.forecast = Some(fc.clone());
+        let a = evaluate(&s, &rules());
+        let f = only(&a, RuleId::ReplacementForecast);
+        assert_eq!(
+            f.subject,
+            "PD-17: order replacement by 2027-01-14 (criterion expected 2027-01-26 to 2027-02-06)"
+        );
+        assert!(
+            f.action
+                .starts_with("Order a replacement lot by 2027-01-14")
+        );
+        if let Some(d) = fc.dates.as_mut() {
+            d.as_of = Some("2027-01-15".into());
+        }
+        s.forecast = Some(fc);
+        let a = evaluate(&s, &rules());
+        let f = only(&a, RuleId::ReplacementForecast);
+        assert!(
+            f.subject
+                .starts_with("PD-17: order replacement now, order-by date 2027-01-14 passed"),
+            "{}",
+            f.subject
+        );
+        assert_eq!(f.severity, Severity::Warning);
     }
 
     #[test]

@@ -113,6 +113,17 @@ pub struct CrossingDates {
     pub lead_days: Option<f64>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub time_zone: Option<String>,
+    /// The local date these dates were worked out on; an order-by date before it has
+    /// passed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub as_of: Option<String>,
+}
+
+impl CrossingDates {
+    /// The order-by date lies before the date these dates were worked out on.
+    pub fn order_by_passed(&self) -> bool {
+        matches!((&self.order_by, &self.as_of), (Some(o), Some(t)) if o < t)
+    }
 }
 
 /// Dates of a crossing at cycle `x` with interval ends `early`/`late`, and the order-by
@@ -141,6 +152,7 @@ pub fn crossing_dates(
         cycles_per_day: Some(cadence.cycles_per_day),
         lead_days,
         time_zone: Some(tz.name().to_string()),
+        as_of: None,
     })
 }
 

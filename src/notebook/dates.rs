@@ -47,5 +47,13 @@ pub fn date_forecast<'a>(
         return;
     };
     let lead = cfg.alerts.lead_days_for(&rec.catalyst);
-    f.dates = crossing_dates(cfg.zone(), &c, x, f.lower, f.upper, lead);
+    f.dates = crossing_dates(cfg.zone(), &c, x, f.lower, f.upper, lead).map(|mut d| {
+        // The shell's clock: the plant-local date of today.
+        d.as_of = Some(
+            crate::model::calendar::local_date(cfg.zone(), chrono::Utc::now())
+                .format("%Y-%m-%d")
+                .to_string(),
+        );
+        d
+    });
 }

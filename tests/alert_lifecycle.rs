@@ -94,6 +94,15 @@ fn demo_outbox_follows_the_severity_table_and_subjects_carry_dates() {
         "{}",
         step[0].4
     );
+    // ... with the hints on why: nothing recorded differs (the demo's poison came with a
+    // feed drum, which no export records), and leaching explains almost none of it.
+    assert!(
+        step[0].4.contains("Why it may have dropped")
+            && step[0].4.contains("no recorded condition differs")
+            && step[0].4.contains("Metal loss explains at most"),
+        "{}",
+        step[0].4
+    );
     // The deactivating Pd lot: a warning with an order-by date, 28 days (its catalyst's
     // lead time in the demo configuration) before the interval's early end.
     let pd: Vec<_> = out

@@ -9,7 +9,7 @@
 //! | FLAT | 1.00, slightly rising | no significant trend | no alert at all |
 //! | SLOW | exp(−0.02·n) | crossing far beyond the lead | no alert at all |
 //! | FAST | exp(−0.055·n) | crossing within the lead; next batch marginal | warning |
-//! | STEP | 1.00 for 8 cycles, then 0.60 | abrupt loss detected | critical |
+//! | STEP | 1.00 for 8 cycles, then 0.60 (cycle 9 ran at 70 °C) | abrupt loss detected | critical |
 //! | BELOW | exp(−0.10·n) | newest activity below the criterion | critical |
 //!
 //! The criterion is half the fresh activity; the lead is 5 cycles.
@@ -124,9 +124,11 @@ fn write_plant(dir: &Path) {
             // k·t = 2.0 for the fresh catalyst (X = 86.5 %), proportional to activity.
             let a = activity(lot, n) * (1.0 + 0.01 * noise.next());
             let x = 1.0 - (-2.0 * a).exp();
+            // The step lot's ninth batch also ran hot: the hints must name it.
+            let t = if lot == "STEP" && n == 9 { 70.0 } else { 60.0 };
             let _ = writeln!(
                 f,
-                "{lot}-{n:02},{lot},{n},2026-09-{:02}T08:00:00,120,60.0,100.0,2.0,{:.3},98.0",
+                "{lot}-{n:02},{lot},{n},2026-09-{:02}T08:00:00,120,{t:.1},100.0,2.0,{:.3},98.0",
                 n,
                 100.0 * x
             );
@@ -232,6 +234,19 @@ fn each_simulated_lot_gets_the_severity_of_the_table() {
             .iter()
             .all(|k| !k.contains("replacement-forecast")),
         "{report}"
+    );
+    // The step's message names the hot batch among the possible causes.
+    let db = rusqlite::Connection::open(dir.join("t.db")).unwrap();
+    let body: String = db
+        .query_row(
+            "SELECT body_text FROM alert_outbox WHERE alert_key = 'abrupt-loss|STEP'",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert!(
+        body.contains("Cycle 9 differs from the 8 cycles before it in: temperature 70.0 °C"),
+        "{body}"
     );
     // BELOW: the newest activity is below the criterion: critical.
     assert!(

@@ -297,6 +297,11 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
         cautions: vec![
             "Store spent catalyst under water in the labelled drum, area 3B.".to_string(),
         ],
+        cause_hints: vec![
+            "Cycle 9 differs from the 8 cycles before it in: temperature 66.0 °C (usual 60.0 \
+             °C, z = 12.1)."
+                .to_string(),
+        ],
     }
 }
 

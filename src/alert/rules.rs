@@ -39,6 +39,8 @@ pub struct AbruptLoss {
     pub pi_upper: f64,
     pub cusum: f64,
     pub h: f64,
+    /// Why it may have dropped: the cycle's conditions against the lot's usual ones.
+    pub hints: Vec<String>,
 }
 
 /// Where a metal limit came from; shown beside the number so nobody mistakes a recalled
@@ -695,8 +697,19 @@ fn abrupt_rule(snap: &LotSnapshot, ab: &AbruptLoss) -> Verdict {
             act(ab.pi_upper),
             sig3(ab.cusum),
             sig3(ab.h)
-        ),
+        ) + &hints_text(&ab.hints),
     }
+}
+
+fn hints_text(hints: &[String]) -> String {
+    if hints.is_empty() {
+        return String::new();
+    }
+    let mut s = String::from("Why it may have dropped (hints, not a diagnosis):\n");
+    for h in hints {
+        let _ = writeln!(s, "- {h}");
+    }
+    s
 }
 
 fn metal_rule(snap: &LotSnapshot, m: &MetalInProduct, rules: &AlertRules) -> Verdict {
@@ -1172,6 +1185,7 @@ mod tests {
             pi_upper: 0.9,
             cusum: 2.0,
             h: 4.0,
+            hints: vec!["Cycle 6 differs from the 5 cycles before it in: temperature".into()],
         });
         // A detected step is critical whichever check found it, and critical alerts
         // reach the managers as well as the chemists.

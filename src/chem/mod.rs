@@ -5,7 +5,9 @@
 //! - [`kinetics`]: the per-batch formulas, each with its source named.
 //! - [`limits`]: ICH Q3D permitted daily exposures and concentration limits.
 //! - [`metrics`]: [`cycle_metrics`], the call that turns a lot's cycles into metrics.
+//! - [`cause`]: a suspect cycle's conditions against the lot's usual ones.
 
+pub mod cause;
 pub mod elements;
 pub mod kinetics;
 pub mod limits;

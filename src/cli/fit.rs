@@ -42,6 +42,12 @@ fn lot_fit(cfg: &Config, lot: &str, json: bool) -> CmdResult {
             cfg.fitting.measure, cfg.fitting.axis
         );
         print!("{}", fit::render_text(a));
+        if let Some(h) = fits::lot_causes(cfg, &state) {
+            println!("\nWhy it may have dropped (hints, not a diagnosis):");
+            for line in h.lines() {
+                println!("  {line}");
+            }
+        }
         println!(
             "Forecasts are advisory: batch release follows QA procedures and local regulations."
         );

@@ -70,6 +70,7 @@ fn abrupt_view(cfg: &Config, a: &fit::LotAnalysis) -> Option<alert::AbruptLoss> 
             pi_upper: p.predicted + half,
             cusum: b.cusum.as_ref().map_or(0.0, |c| c.last),
             h: b.cusum.as_ref().map_or(cfg.fitting.cusum_h, |c| c.h),
+            hints: Vec::new(),
         })
     })
 }
@@ -129,7 +130,14 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
         .unwrap_or(f64::NAN);
     let forecast = a.and_then(forecast_view);
     let next_batch = a.and_then(|a| next_view(a, cfg.fitting.confidence));
-    let abrupt = a.and_then(|a| abrupt_view(cfg, a));
+    let abrupt = a.and_then(|a| abrupt_view(cfg, a)).map(|mut ab| {
+        if ab.flagged {
+            ab.hints = super::causes::lot_causes(cfg, state)
+                .map(|h| h.lines())
+                .unwrap_or_default();
+        }
+        ab
+    });
     let metal_in_product = metal_view(cfg, state, &rec.metal);
     let evidence = evidence_rows(cfg, state);
     Some(LotSnapshot {

@@ -15,6 +15,7 @@
 //! - `views`: read-only views for the browser and for operations, and the change watch.
 
 mod alerts;
+mod causes;
 mod chain;
 mod daemon;
 mod dates;
@@ -30,6 +31,7 @@ mod reports;
 mod views;
 
 pub use alerts::{AlertActionLine, AlertEntry, list_alerts};
+pub use causes::lot_causes;
 pub use daemon::{
     ServiceContext, SideTask, deliver_now, queue_digest, run_service, run_service_with, runtime,
     serve, serve_with,

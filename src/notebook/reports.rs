@@ -125,6 +125,9 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
         signoffs: entries.signoffs,
         verify: Some(verify_line(conn, cfg)?),
         cautions: Vec::new(),
+        cause_hints: super::causes::lot_causes(cfg, state)
+            .map(|h| h.lines())
+            .unwrap_or_default(),
     })
 }
 

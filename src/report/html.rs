@@ -380,6 +380,16 @@ pub fn lot_html(r: &LotReport) -> String {
              is available for this lot yet.</p>\n</section>\n",
         ),
     }
+    if !r.cause_hints.is_empty() {
+        out.push_str(
+            "<section id=\"causes\">\n<h2>Why it may have dropped</h2>\n<p class=\"meta\">\
+             Hints from the recorded conditions, not a diagnosis.</p>\n<ul>\n",
+        );
+        for h in &r.cause_hints {
+            let _ = writeln!(out, "<li>{}</li>", esc(h));
+        }
+        out.push_str("</ul>\n</section>\n");
+    }
     if r.cycles.iter().any(|c| c.ton.is_some()) {
         out.push_str("<section id=\"ton\">\n<h2>Turnover per cycle</h2>\n");
         figure(

@@ -28,6 +28,9 @@ pub struct LotReport {
     /// Site-specific cautions shown in addition to the fixed ones
     /// ([`crate::report::FIXED_CAUTIONS`]).
     pub cautions: Vec<String>,
+    /// "Why did it drop?" hints for a step loss or a fast decline, one sentence each.
+    #[serde(default)]
+    pub cause_hints: Vec<String>,
 }
 
 /// Who the lot is and where it came from: its registration (the one record the whole

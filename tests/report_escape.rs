@@ -153,6 +153,7 @@ fn empty_and_non_finite_reports_still_render() {
             lower: None,
             upper: None,
             confidence: 0.95,
+            dates: None,
         });
     }
     let html = lot_html(&r);
@@ -170,6 +171,7 @@ fn empty_and_non_finite_reports_still_render() {
             lower: Some(12.0),
             upper: None,
             confidence: 0.95,
+            dates: None,
         });
     }
     assert!(lot_html(&r2).contains("unbounded"));

@@ -239,6 +239,7 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
             lower: Some(lo),
             upper: Some(hi),
             confidence: level,
+            dates: None,
         }),
     };
     LotReport {
@@ -316,7 +317,7 @@ fn fixture_fit_recovers_the_decay_it_was_built_from() {
     assert!(lo < 0.043 && 0.043 < hi, "kd interval {lo}..{hi}");
     // Censored cycles exist (the long runs 2 and 3 saturate) and are left out of the fit.
     assert!(r.cycles.iter().any(|c| c.flags.censored));
-    let f = fit.forecast.unwrap();
+    let f = fit.forecast.clone().unwrap();
     assert!(f.lower.unwrap() < f.x.unwrap() && f.x.unwrap() < f.upper.unwrap());
 }
 

@@ -132,6 +132,14 @@ fn median(v: &mut [f64]) -> Option<f64> {
     })
 }
 
+/// A condition to compare: its name, display unit, how to read it and how to show it.
+type Check = (
+    &'static str,
+    &'static str,
+    fn(&Conditions) -> Option<f64>,
+    fn(f64) -> f64,
+);
+
 /// The suspect value against the usual ones: Some(deviation) when it stands out.
 fn deviation(
     what: &'static str,
@@ -191,12 +199,7 @@ pub fn cause_hints(
         before.iter().filter_map(|c| f(c)).collect()
     };
     let mut deviations = Vec::new();
-    let checks: [(
-        &'static str,
-        &'static str,
-        fn(&Conditions) -> Option<f64>,
-        fn(f64) -> f64,
-    ); 5] = [
+    let checks: [Check; 5] = [
         ("temperature", "°C", |c| c.temperature_k, |k| k - 273.15),
         ("reaction time", "min", |c| c.duration_s, |s| s / 60.0),
         (

@@ -74,7 +74,7 @@ fn series(file: &std::path::Path, a: &FitArgs) -> CmdResult {
             fit: f,
             forecast,
         } => {
-            let v = fit::fit_json(&f, forecast.as_ref());
+            let v = fit::fit_json(&f, forecast.as_deref());
             if a.json {
                 println!("{}", serde_json::to_string_pretty(&v)?);
             } else {

@@ -40,6 +40,25 @@ pub fn lots(cfg: &Config, json: bool) -> CmdResult {
             }
         });
         let mut tail = forecast.unwrap_or_default();
+        if let Some(f) = &l.forecast {
+            match (f["crossing_early"].as_str(), f["crossing_late"].as_str()) {
+                (Some(e), Some(l)) => {
+                    let _ = write!(tail, " = {e} to {l}");
+                }
+                (Some(e), None) => {
+                    let _ = write!(tail, " = from {e}");
+                }
+                _ => {}
+            }
+            if let Some(o) = f["order_by"].as_str() {
+                let passed = f["as_of"].as_str().is_some_and(|t| o < t);
+                let _ = write!(
+                    tail,
+                    "  order by {o}{}",
+                    if passed { " (passed)" } else { "" }
+                );
+            }
+        }
         if let Some(n) = &l.next_cycle {
             let verdict = serde_json::to_value(n.verdict).unwrap_or_default();
             let _ = write!(tail, "  next batch {}", verdict.as_str().unwrap_or("?"));

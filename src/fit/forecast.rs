@@ -94,8 +94,9 @@ pub struct Forecast {
     pub more_cycles_needed: Option<usize>,
     /// The crossing in dates at the lot's cadence, with the order-by date; set by the
     /// application, which knows the batch starts, the time zone and the lead time.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub dates: Option<crate::model::calendar::CrossingDates>,
+    /// Flattened: JSON readers find `forecast.crossing_date` and `forecast.order_by`.
+    #[serde(default, flatten)]
+    pub dates: Option<Box<crate::model::calendar::CrossingDates>>,
 }
 
 impl Forecast {

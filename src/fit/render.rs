@@ -446,7 +446,7 @@ pub fn render_text(a: &LotAnalysis) -> String {
         if let Some(t) = fc.lifetime_ton {
             let _ = writeln!(s, "  lifetime TON at x*: {t:.0}");
         }
-        if let Some(d) = &fc.dates {
+        if let Some(d) = fc.dates.as_ref().filter(|d| d.crossing_date.is_some()) {
             let _ = writeln!(s, "  {}", dates_words(d));
         }
     }

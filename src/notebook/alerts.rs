@@ -37,7 +37,7 @@ fn forecast_view(a: &fit::LotAnalysis) -> Option<alert::Forecast> {
         confidence: f.confidence,
         model: a.chosen.map(|m| m.id().to_string()).unwrap_or_default(),
         cycles_per_day: f.dates.as_ref().and_then(|d| d.cycles_per_day),
-        dates: f.dates.clone(),
+        dates: f.dates.as_deref().cloned(),
     })
 }
 

@@ -74,8 +74,8 @@ pub fn lot_causes(cfg: &Config, state: &LotState) -> Option<CauseHints> {
     let metal_lost_before = state
         .cycles
         .iter()
+        .rev()
         .filter(|c| c.cycle < cycle)
-        .filter_map(|c| c.metrics.as_ref().and_then(|m| m.cumulative_loss_fraction))
-        .last();
+        .find_map(|c| c.metrics.as_ref().and_then(|m| m.cumulative_loss_fraction));
     cause_hints(&history, cycle, activity, metal_lost_before)
 }

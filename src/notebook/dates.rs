@@ -54,6 +54,6 @@ pub fn date_forecast<'a>(
                 .format("%Y-%m-%d")
                 .to_string(),
         );
-        d
+        Box::new(d)
     });
 }

@@ -29,7 +29,7 @@ pub enum SeriesFit {
     Named {
         model: ModelId,
         fit: Box<FitResult>,
-        forecast: Option<Forecast>,
+        forecast: Option<Box<Forecast>>,
     },
     /// Every candidate ranked by AICc (`auto`).
     Auto(Box<LotAnalysis>),
@@ -82,7 +82,13 @@ pub fn fit_series(req: &SeriesRequest<'_>) -> Result<SeriesFit> {
             let f = fit::fit_model(m, &x, &y, &opts)
                 .map_err(|e| NotebookError::Refused(format!("{name}: {e}")))?;
             let forecast = req.threshold.map(|t| {
-                fit::forecast(&f, Criterion::Absolute(t), req.confidence, x_first, x_last)
+                Box::new(fit::forecast(
+                    &f,
+                    Criterion::Absolute(t),
+                    req.confidence,
+                    x_first,
+                    x_last,
+                ))
             });
             Ok(SeriesFit::Named {
                 model: m,

@@ -21,6 +21,11 @@ fn report_forecast(f: &fit::Forecast) -> report::Forecast {
         lower: f.lower,
         upper: f.upper,
         confidence: f.confidence,
+        dates: f
+            .dates
+            .as_ref()
+            .filter(|d| d.crossing_date.is_some())
+            .map(|d| crate::alert::dates_sentence(d)),
     }
 }
 

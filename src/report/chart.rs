@@ -295,7 +295,10 @@ fn draw_forecast<'a, 'b: 'a>(
     fit: &FitSummary,
     r: &Ranges,
 ) -> Result<(), ChartError> {
-    let (Some(f), Some(t)) = (fit.forecast, fit.threshold.filter(|t| t.is_finite())) else {
+    let (Some(f), Some(t)) = (
+        fit.forecast.as_ref(),
+        fit.threshold.filter(|t| t.is_finite()),
+    ) else {
         return Ok(());
     };
     if !matches!(

@@ -124,7 +124,7 @@ fn opt_text(v: Option<&str>) -> String {
 }
 
 fn forecast_text(f: &Forecast) -> String {
-    match (f.status, f.x) {
+    let cycles = match (f.status, f.x) {
         (ForecastStatus::Ahead | ForecastStatus::UnboundedInterval, Some(x)) => format!(
             "{} ({} % interval {} to {})",
             fmt_sig(x, 3),
@@ -133,6 +133,10 @@ fn forecast_text(f: &Forecast) -> String {
             f.upper.map_or("unbounded".to_string(), |v| fmt_sig(v, 3)),
         ),
         (status, _) => status.describe().to_string(),
+    };
+    match &f.dates {
+        Some(d) => format!("{cycles}. {d}"),
+        None => cycles,
     }
 }
 

@@ -184,7 +184,7 @@ pub struct BandPoint {
 }
 
 /// When the fitted model crosses the replacement criterion.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Forecast {
     pub status: ForecastStatus,
     /// The crossing x*, when there is one.
@@ -194,6 +194,10 @@ pub struct Forecast {
     pub upper: Option<f64>,
     /// Confidence level of the interval, e.g. 0.95.
     pub confidence: f64,
+    /// The crossing in dates with the order-by date, in one sentence, when the lot has a
+    /// cadence.
+    #[serde(default)]
+    pub dates: Option<String>,
 }
 
 pub use crate::model::ForecastStatus;

@@ -78,7 +78,8 @@ fn sort_lines<'a>(o: &'a Overview, key: &str) -> Vec<&'a SiteLotLine> {
             lines.sort_by(|a, b| big(a.latest_activity).total_cmp(&big(b.latest_activity)))
         }
         "forecast" => lines.sort_by(|a, b| {
-            big(a.forecast.and_then(|f| f.x)).total_cmp(&big(b.forecast.and_then(|f| f.x)))
+            big(a.forecast.as_ref().and_then(|f| f.x))
+                .total_cmp(&big(b.forecast.as_ref().and_then(|f| f.x)))
         }),
         "alerts" => lines.sort_by_key(|l| std::cmp::Reverse(l.open_alerts)),
         "signoff" => lines.sort_by_key(|l| o.signoffs.contains_key(&l.lot)),

@@ -15,7 +15,11 @@ use turnbook::mail::{
 use turnbook::store::outbox::enqueue;
 use turnbook::store::outbox::{changes_since, open_alerts};
 
-const SCHEMA: &str = include_str!("../schema/0003_outbox.sql");
+/// The outbox's tables as the migrations leave them (0003, rebuilt by 0010).
+const SCHEMA: &str = concat!(
+    include_str!("../schema/0003_outbox.sql"),
+    include_str!("../schema/0010_alert_eased.sql")
+);
 
 fn db(path: &Path) -> Connection {
     let c = Connection::open(path).unwrap();
@@ -104,6 +108,17 @@ fn same_condition_is_queued_once_and_changes_queue_follow_ups() {
     }
     assert_eq!(queue(&mut conn, &s, "2026-12-01T11:00:00Z"), 1);
     assert_eq!(queue(&mut conn, &s, "2026-12-01T11:30:00Z"), 0);
+    // ... back near the limit: eased (warning); above it again: worse once more. Each
+    // change is told once, and each is its own message.
+    if let Some(m) = s.metal_in_product.as_mut() {
+        m.ug_per_g = 9.0;
+    }
+    assert_eq!(queue(&mut conn, &s, "2026-12-01T11:40:00Z"), 1);
+    assert_eq!(queue(&mut conn, &s, "2026-12-01T11:45:00Z"), 0);
+    if let Some(m) = s.metal_in_product.as_mut() {
+        m.ug_per_g = 12.0;
+    }
+    assert_eq!(queue(&mut conn, &s, "2026-12-01T11:50:00Z"), 1);
     // back above the criterion: cleared once; the metal alert still open stays quiet
     s.latest_activity = Some(0.9);
     assert_eq!(queue(&mut conn, &s, "2026-12-01T12:00:00Z"), 1);
@@ -116,6 +131,8 @@ fn same_condition_is_queued_once_and_changes_queue_follow_ups() {
         vec![
             ("below-criterion|PD-17".into(), "open".into(), 3),
             ("metal-in-product|PD-17".into(), "open".into(), 2),
+            ("metal-in-product|PD-17".into(), "worse".into(), 3),
+            ("metal-in-product|PD-17".into(), "eased".into(), 2),
             ("metal-in-product|PD-17".into(), "worse".into(), 3),
             ("below-criterion|PD-17".into(), "cleared".into(), 3),
             ("below-criterion|PD-17".into(), "open".into(), 3),
@@ -135,7 +152,7 @@ fn same_condition_is_queued_once_and_changes_queue_follow_ups() {
     assert_eq!(open.len(), 2);
     assert_eq!(
         changes_since(&conn, "2026-12-01T11:00:00Z").unwrap().len(),
-        3
+        5
     );
 }
 

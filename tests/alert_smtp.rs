@@ -19,7 +19,11 @@ use turnbook::mail::deliver_due;
 use turnbook::mail::{MailConfig, Security, TransportKind};
 use turnbook::store::outbox::enqueue;
 
-const SCHEMA: &str = include_str!("../schema/0003_outbox.sql");
+/// The outbox's tables as the migrations leave them (0003, rebuilt by 0010).
+const SCHEMA: &str = concat!(
+    include_str!("../schema/0003_outbox.sql"),
+    include_str!("../schema/0010_alert_eased.sql")
+);
 
 struct Sink {
     child: Child,

@@ -160,12 +160,16 @@ pub fn compose_alert(
     let tag = match state {
         AlertState::Open => alert.severity.as_str().to_string(),
         AlertState::Worse => format!("{}, worse", alert.severity.as_str()),
+        AlertState::Eased => format!("{}, eased", alert.severity.as_str()),
         AlertState::Cleared => "cleared".to_string(),
     };
     let subject = header_safe(&format!("[{tag}] {}", alert.subject), 200);
     let headline = match state {
         AlertState::Open => "This condition is new.",
         AlertState::Worse => "This condition has become worse since the last message.",
+        AlertState::Eased => {
+            "This condition still holds, but is less severe than the last message said."
+        }
         AlertState::Cleared => "This condition no longer holds; the alert is cleared.",
     };
     let action = match state {

@@ -213,7 +213,9 @@ pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
                 let what = c.key.split('|').next().unwrap_or("").replace('-', " ");
                 match c.state {
                     AlertState::Cleared => format!("{what} cleared"),
-                    AlertState::Worse => format!("{what} now {}", c.severity.as_str()),
+                    AlertState::Worse | AlertState::Eased => {
+                        format!("{what} now {}", c.severity.as_str())
+                    }
                     AlertState::Open => format!("new {} {what}", c.severity.as_str()),
                 }
             })

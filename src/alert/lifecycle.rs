@@ -19,15 +19,27 @@ pub struct Condition {
     pub thread: String,
 }
 
-/// A Message-ID fixed by what the message says, so a resend after a crash carries the
-/// same identifier and receivers can drop the duplicate.
-pub fn message_id_for(key: &str, episode: i64, state: AlertState, severity: Severity) -> String {
+/// A Message-ID fixed by what the message says and how many messages its episode had
+/// before it (`step`), so a resend after a crash carries the same identifier and
+/// receivers can drop the duplicate, while a severity that goes up, down and up again
+/// sends each change.
+pub fn message_id_for(
+    key: &str,
+    episode: i64,
+    step: i64,
+    state: AlertState,
+    severity: Severity,
+) -> String {
     let mut h = Sha256::new();
     h.update(key.as_bytes());
     h.update([0]);
     h.update(episode.to_le_bytes());
     h.update(state.as_str().as_bytes());
     h.update([severity as u8]);
+    if step > 0 {
+        // Step 0 (an episode's first message) keeps the identifier it always had.
+        h.update(step.to_le_bytes());
+    }
     let hexed = hex::encode(h.finalize());
     format!("<{}.alert@{MESSAGE_ID_DOMAIN}>", &hexed[..32])
 }
@@ -49,9 +61,11 @@ pub fn decide(alert: &Alert, prev: Option<&Condition>) -> Option<(AlertState, i6
             Some((AlertState::Cleared, c.episode, c.severity))
         }
         (AlertState::Cleared, _) => None,
-        (_, Some(c)) if active(c) => {
-            (alert.severity > c.severity).then_some((AlertState::Worse, c.episode, alert.severity))
-        }
+        (_, Some(c)) if active(c) => match alert.severity.cmp(&c.severity) {
+            std::cmp::Ordering::Greater => Some((AlertState::Worse, c.episode, alert.severity)),
+            std::cmp::Ordering::Less => Some((AlertState::Eased, c.episode, alert.severity)),
+            std::cmp::Ordering::Equal => None,
+        },
         (_, Some(c)) => Some((AlertState::Open, c.episode + 1, alert.severity)),
         (_, None) => Some((AlertState::Open, 1, alert.severity)),
     }
@@ -70,19 +84,61 @@ mod tests {
     }
 
     #[test]
+    fn severity_steps_up_and_down_within_an_episode() {
+        use crate::alert::rules::RuleId;
+        let alert = |sev| Alert {
+            key: "k".into(),
+            rule: RuleId::MetalInProduct,
+            lot: "L".into(),
+            site: String::new(),
+            file: None,
+            state: AlertState::Open,
+            severity: sev,
+            subject: String::new(),
+            action: String::new(),
+            evidence: String::new(),
+            recipients: vec![],
+            rows: vec![],
+            criterion: 0.5,
+        };
+        let cond = |state, severity| Condition {
+            state,
+            severity,
+            episode: 2,
+            thread: "<t>".into(),
+        };
+        let open_crit = cond(AlertState::Worse, Severity::Critical);
+        assert_eq!(
+            decide(&alert(Severity::Warning), Some(&open_crit)),
+            Some((AlertState::Eased, 2, Severity::Warning))
+        );
+        assert_eq!(decide(&alert(Severity::Critical), Some(&open_crit)), None);
+        let eased = cond(AlertState::Eased, Severity::Warning);
+        assert_eq!(
+            decide(&alert(Severity::Critical), Some(&eased)),
+            Some((AlertState::Worse, 2, Severity::Critical))
+        );
+        // The second "worse" of an episode is its own message.
+        assert_ne!(
+            message_id_for("k", 2, 1, AlertState::Worse, Severity::Critical),
+            message_id_for("k", 2, 3, AlertState::Worse, Severity::Critical)
+        );
+    }
+
+    #[test]
     fn message_id_is_stable_and_distinct() {
-        let a = message_id_for("k", 1, AlertState::Open, Severity::Warning);
+        let a = message_id_for("k", 1, 0, AlertState::Open, Severity::Warning);
         assert_eq!(
             a,
-            message_id_for("k", 1, AlertState::Open, Severity::Warning)
+            message_id_for("k", 1, 0, AlertState::Open, Severity::Warning)
         );
         assert_ne!(
             a,
-            message_id_for("k", 2, AlertState::Open, Severity::Warning)
+            message_id_for("k", 2, 0, AlertState::Open, Severity::Warning)
         );
         assert_ne!(
             a,
-            message_id_for("k", 1, AlertState::Worse, Severity::Warning)
+            message_id_for("k", 1, 0, AlertState::Worse, Severity::Warning)
         );
         assert!(a.starts_with('<') && a.ends_with("@turnbook.invalid>"));
     }

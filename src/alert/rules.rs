@@ -357,12 +357,14 @@ impl Severity {
     }
 }
 
-/// State of an alert's condition. `Worse` is never produced by [`evaluate`]: the outbox
-/// assigns it when an open alert comes back with a higher severity.
+/// State of an alert's condition. `Worse` and `Eased` are never produced by [`evaluate`]:
+/// the outbox assigns them when an open alert comes back with a higher or lower severity.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum AlertState {
     Open,
     Worse,
+    /// Still open, at a lower severity than the last message said.
+    Eased,
     Cleared,
 }
 
@@ -371,6 +373,7 @@ impl AlertState {
         match self {
             AlertState::Open => "open",
             AlertState::Worse => "worse",
+            AlertState::Eased => "eased",
             AlertState::Cleared => "cleared",
         }
     }
@@ -378,6 +381,7 @@ impl AlertState {
         match s {
             "open" => Some(AlertState::Open),
             "worse" => Some(AlertState::Worse),
+            "eased" => Some(AlertState::Eased),
             "cleared" => Some(AlertState::Cleared),
             _ => None,
         }

@@ -283,6 +283,7 @@ pub fn list_alerts(cfg: &Config, all: bool) -> crate::notebook::Result<Vec<Alert
             "cleared"
         } else {
             match mine.last() {
+                // An acknowledgement holds until the condition becomes worse after it.
                 Some(a) if a.at >= c.changed_at || c.state != alert::AlertState::Worse => {
                     if mine.iter().any(|a| a.action == "closed") {
                         "closed"

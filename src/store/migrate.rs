@@ -27,6 +27,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "chain_key",
         include_str!("../../schema/0007_chain_key.sql"),
     ),
+    (
+        10,
+        "alert_eased",
+        include_str!("../../schema/0010_alert_eased.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

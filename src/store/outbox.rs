@@ -58,9 +58,16 @@ pub fn enqueue(tx: &Transaction, alerts: &[Alert], now: &str) -> Result<usize> {
         let Some((state, episode, severity)) = decide(alert, prev.as_ref()) else {
             continue;
         };
-        let message_id = message_id_for(&alert.key, episode, state, severity);
+        let step: i64 = tx.query_row(
+            "SELECT COUNT(*) FROM alert_outbox WHERE alert_key = ?1 AND episode = ?2",
+            params![alert.key, episode],
+            |r| r.get(0),
+        )?;
+        let message_id = message_id_for(&alert.key, episode, step, state, severity);
         let thread = match (&prev, state) {
-            (Some(c), AlertState::Worse | AlertState::Cleared) => Some(c.thread.clone()),
+            (Some(c), AlertState::Worse | AlertState::Eased | AlertState::Cleared) => {
+                Some(c.thread.clone())
+            }
             _ => None,
         };
         let mut shown = alert.clone();

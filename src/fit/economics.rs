@@ -10,7 +10,7 @@ use super::engine::FitResult;
 pub const MAX_CYCLES: usize = 100_000;
 
 /// Costs of a lot and its use.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct EconomicInputs {
     /// Lot cost C, net of the metal refining credit.
     pub lot_cost: f64,
@@ -20,6 +20,9 @@ pub struct EconomicInputs {
     pub product_first_cycle: f64,
     /// Largest N considered (capped at [`MAX_CYCLES`]).
     pub max_cycles: usize,
+    /// Currency code of the costs ("EUR"), shown beside them.
+    #[serde(default)]
+    pub currency: Option<String>,
 }
 
 /// The minimum of the average cost.
@@ -33,6 +36,9 @@ pub struct EconomicResult {
     pub average_cost: Vec<f64>,
     /// True when the minimum is at the last N considered (no interior minimum).
     pub at_horizon: bool,
+    /// Currency code of the costs, from the inputs.
+    #[serde(default)]
+    pub currency: Option<String>,
 }
 
 /// Evaluates the replacement policy on the fitted activity. None when the inputs are not
@@ -68,6 +74,7 @@ pub fn economic_replacement(fit: &FitResult, inp: &EconomicInputs) -> Option<Eco
         best_average_cost: best,
         at_horizon: i + 1 == average_cost.len(),
         average_cost,
+        currency: inp.currency.clone(),
     })
 }
 
@@ -86,6 +93,7 @@ mod tests {
             cost_per_cycle: 300.0,
             product_first_cycle: 100.0,
             max_cycles: 200,
+            currency: None,
         };
         let r = economic_replacement(&f, &inp).expect("defined");
         // Independent evaluation in closed form: Pₙ = 100·q^(n−1), q = e^(−0.1).
@@ -105,7 +113,7 @@ mod tests {
                 &f,
                 &EconomicInputs {
                     product_first_cycle: 0.0,
-                    ..inp
+                    ..inp.clone()
                 }
             )
             .is_none()

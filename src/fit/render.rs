@@ -539,9 +539,10 @@ pub fn render_text(a: &LotAnalysis) -> String {
     if let Some(e) = &a.economics {
         let _ = writeln!(
             s,
-            "\nEconomic replacement: after {} cycles, average cost {}{}",
+            "\nEconomic replacement: after {} cycles, average cost {:.2} {} per kg of product{}",
             e.best_cycles,
-            fmt_g(e.best_average_cost),
+            e.best_average_cost,
+            e.currency.as_deref().unwrap_or("(currency units)"),
             if e.at_horizon {
                 " (at the horizon: no interior minimum)"
             } else {

@@ -88,6 +88,10 @@ pub fn analysis_options(
             cost_per_cycle: e.cost_per_cycle,
             product_first_cycle: product_first_kg?,
             max_cycles: 200,
+            currency: record
+                .and_then(|r| r.site.as_ref())
+                .and_then(|s| cfg.sites.iter().find(|x| &x.name == s))
+                .and_then(|s| s.currency.clone()),
         })
     });
     AnalysisOptions {

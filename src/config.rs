@@ -205,9 +205,30 @@ pub struct Web {
     /// loopback address. Relative to the configuration's folder.
     #[serde(default)]
     pub token_file: Option<PathBuf>,
+    /// The address people open, when it differs from `listen` (a reverse proxy):
+    /// messages link to each lot's page under it. Default `http://LISTEN/`.
+    #[serde(default)]
+    pub public_url: Option<String>,
 }
 
 impl Web {
+    /// The page of a lot as people reach it (the lot id percent-encoded).
+    pub fn lot_url(&self, lot: &str) -> String {
+        let base = self
+            .public_url
+            .clone()
+            .unwrap_or_else(|| format!("http://{}/", self.listen.trim()));
+        let mut path = String::new();
+        for b in lot.bytes() {
+            if b.is_ascii_alphanumeric() || b"-._~".contains(&b) {
+                path.push(char::from(b));
+            } else {
+                path.push_str(&format!("%{b:02X}"));
+            }
+        }
+        format!("{}/lots/{path}", base.trim_end_matches('/'))
+    }
+
     /// The address to listen on (validated at load).
     pub fn address(&self) -> Option<std::net::SocketAddr> {
         self.listen.trim().parse().ok()
@@ -537,5 +558,31 @@ impl Config {
             })
             .max_by_key(|(n, _)| *n)
             .map(|(_, f)| f)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Web;
+
+    #[test]
+    fn lot_links_are_percent_encoded_under_the_public_address() {
+        let w = Web {
+            listen: "127.0.0.1:8470".into(),
+            token_file: None,
+            public_url: None,
+        };
+        assert_eq!(
+            w.lot_url("PD-C-2611-A"),
+            "http://127.0.0.1:8470/lots/PD-C-2611-A"
+        );
+        let p = Web {
+            public_url: Some("https://notebook.plant.example/kv4/".into()),
+            ..w
+        };
+        assert_eq!(
+            p.lot_url("A/B <1>"),
+            "https://notebook.plant.example/kv4/lots/A%2FB%20%3C1%3E"
+        );
     }
 }

@@ -94,6 +94,14 @@ fn demo_outbox_follows_the_severity_table_and_subjects_carry_dates() {
         "{}",
         step[0].4
     );
+    // ... linking the lot's page and printable report in the web view the demo serves.
+    assert!(
+        step[0]
+            .4
+            .contains("printable report: http://127.0.0.1:8470/lots/PT-AL-2610-B"),
+        "{}",
+        step[0].4
+    );
     // ... with the hints on why: nothing recorded differs (the demo's poison came with a
     // feed drum, which no export records), and leaching explains almost none of it.
     assert!(

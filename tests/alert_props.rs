@@ -29,6 +29,7 @@ fn alert(lot: &str, file: &str) -> Alert {
             sha256: "00".repeat(32),
         }],
         criterion: 0.5,
+        link: None,
     }
 }
 

@@ -210,6 +210,13 @@ pub fn compose_alert(
             );
         }
     }
+    if let Some(link) = &alert.link {
+        let _ = writeln!(
+            text,
+            "\nThe lot's page and printable report: {}",
+            one_line(link)
+        );
+    }
     if !cautions.is_empty() {
         text.push_str("\nCautions:\n");
         for c in cautions {
@@ -243,6 +250,13 @@ pub fn compose_alert(
     html.push_str(&html_escape(&alert.evidence));
     html.push_str("</pre>");
     html.push_str(&evidence_chart(&alert.rows, alert.criterion));
+    if let Some(link) = &alert.link {
+        let _ = write!(
+            html,
+            "<p><a href=\"{0}\">The lot's page and printable report</a>: {0}</p>",
+            html_escape(link)
+        );
+    }
     if !cautions.is_empty() {
         html.push_str("<h3>Cautions</h3><ul>");
         for c in cautions {
@@ -383,6 +397,7 @@ mod tests {
                 },
             ],
             criterion: 0.6,
+            link: None,
         }
     }
 

@@ -100,6 +100,7 @@ mod tests {
             recipients: vec![],
             rows: vec![],
             criterion: 0.5,
+            link: None,
         };
         let cond = |state, severity| Condition {
             state,

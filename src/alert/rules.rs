@@ -410,6 +410,8 @@ pub struct Alert {
     /// Rows for the chart and the provenance table.
     pub rows: Vec<EvidenceRow>,
     pub criterion: f64,
+    /// Where the lot's page and printable report are served, when the web view is on.
+    pub link: Option<String>,
 }
 
 #[derive(Clone, Copy, PartialEq)]
@@ -538,6 +540,7 @@ impl Builder<'_> {
             recipients: recipients_for(rule, severity, &s.site, self.rules),
             rows: s.evidence.clone(),
             criterion: s.criterion,
+            link: None,
         });
     }
 }

@@ -177,6 +177,11 @@ pub fn raise(
         return Ok(0);
     };
     let mut alerts = evaluate(&snap, &cfg.alerts);
+    if let Some(web) = &cfg.web {
+        for a in &mut alerts {
+            a.link = Some(web.lot_url(&a.lot));
+        }
+    }
     if let Some(c) = cause {
         for a in &mut alerts {
             a.evidence.push_str(&format!("This follows {c}.\n"));
@@ -367,6 +372,7 @@ pub fn close_file_notices(tx: &Transaction<'_>, cfg: &Config, ingested: &[&str])
                 ),
                 rows: Vec::new(),
                 criterion: f64::NAN,
+                link: None,
             })
         })
         .collect();

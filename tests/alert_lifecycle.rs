@@ -126,6 +126,23 @@ fn demo_outbox_follows_the_severity_table_and_subjects_carry_dates() {
         pd[0].3
     );
     assert!(pd[0].4.contains("28 days' lead time"), "{}", pd[0].4);
+    // Every message the demo wrote parses with a standard mail parser, and its subject
+    // carries no product name (the digest's included).
+    let mut parsed = 0;
+    for e in std::fs::read_dir(p.dir.join("outbox")).unwrap() {
+        let path = e.unwrap().path();
+        if path.extension().is_some_and(|x| x == "eml") {
+            let raw = std::fs::read(&path).unwrap();
+            let msg = mail_parser::MessageParser::default()
+                .parse(&raw)
+                .expect("a parseable message");
+            let subject = msg.subject().unwrap_or_default();
+            assert!(!subject.to_lowercase().contains("turnbook"), "{subject}");
+            assert!(msg.body_text(0).is_some() && msg.body_html(0).is_some());
+            parsed += 1;
+        }
+    }
+    assert_eq!(parsed, 3, "two alerts and the digest");
     // Nothing critical rests on a forecast, and no subject names the product.
     for m in &out {
         assert!(m.0 != "replacement-forecast" || m.2 < 3, "{m:?}");

@@ -152,124 +152,65 @@ fn local(zone: Tz, ts: &str) -> String {
         .unwrap_or_else(|_| ts.to_string())
 }
 
-/// Compose the digest for managers. Lots are listed most urgent first: by their worst
-/// open alert, then by order-by date, then by name.
-pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
-    let period = d.period;
-    let zone = period.zone;
-    let from = crate::model::time::format_ts(period.from);
-    let to = crate::model::time::format_ts(period.to);
-    let id_hash = hex::encode(Sha256::digest(format!("digest|{from}|{to}").as_bytes()));
-    let message_id = format!("<{}.digest@{MESSAGE_ID_DOMAIN}>", &id_hash[..32]);
-    let count = |s: Severity| d.open.iter().filter(|a| a.severity == s).count();
-    let (crit, warn, info) = (
-        count(Severity::Critical),
-        count(Severity::Warning),
-        count(Severity::Info),
-    );
-    let day = |t: DateTime<Utc>| t.with_timezone(&zone).format("%Y-%m-%d").to_string();
-    let subject = header_safe(
-        &format!(
-            "Catalyst digest {} to {}: {crit} critical, {warn} warning; {} lots{}",
-            day(period.from),
-            day(period.to),
-            d.lots.len() + d.pending_lots,
-            if d.pending_lots > 0 {
-                format!(" ({} pending)", d.pending_lots)
-            } else {
-                String::new()
+/// Header and data cells of the digest's tables (inline styles only).
+const TH: &str = "style=\"text-align:left;padding:4px 8px;border-bottom:2px solid #999;\
+                  font-size:13px\"";
+const TD: &str = "style=\"padding:4px 8px;border-bottom:1px solid #ddd;font-size:13px;\
+                  vertical-align:top\"";
+
+/// The worst open alert of a lot.
+fn worst(d: &DigestInput<'_>, lot: &str) -> Option<Severity> {
+    d.open
+        .iter()
+        .filter(|a| a.lot == lot)
+        .map(|a| a.severity)
+        .max()
+}
+
+/// What changed for a lot in the period, in a few words.
+fn changed(d: &DigestInput<'_>, lot: &str) -> String {
+    let mine: Vec<String> = d
+        .changes
+        .iter()
+        .filter(|c| c.lot == lot)
+        .map(|c| {
+            let what = c.key.split('|').next().unwrap_or("").replace('-', " ");
+            match c.state {
+                AlertState::Cleared => format!("{what} cleared"),
+                AlertState::Worse | AlertState::Eased => {
+                    format!("{what} now {}", c.severity.as_str())
+                }
+                AlertState::Open => format!("new {} {what}", c.severity.as_str()),
             }
-        ),
-        200,
-    );
-    let worst = |lot: &str| {
-        d.open
-            .iter()
-            .filter(|a| a.lot == lot)
-            .map(|a| a.severity)
-            .max()
-    };
+        })
+        .collect();
+    if mine.is_empty() {
+        "no change".into()
+    } else {
+        mine.join("; ")
+    }
+}
+
+/// Lots most urgent first: by their worst open alert, then order-by date, then name.
+fn urgent_first<'a>(d: &'a DigestInput<'_>) -> Vec<&'a DigestLot> {
     let mut lots: Vec<&DigestLot> = d.lots.iter().collect();
     lots.sort_by(|a, b| {
-        worst(&b.snap.lot)
-            .cmp(&worst(&a.snap.lot))
-            .then_with(|| {
-                let (oa, ob) = (order_by(&a.snap), order_by(&b.snap));
-                match (oa, ob) {
-                    (Some(x), Some(y)) => x.cmp(&y),
-                    (Some(_), None) => std::cmp::Ordering::Less,
-                    (None, Some(_)) => std::cmp::Ordering::Greater,
-                    (None, None) => std::cmp::Ordering::Equal,
-                }
+        worst(d, &b.snap.lot)
+            .cmp(&worst(d, &a.snap.lot))
+            .then_with(|| match (order_by(&a.snap), order_by(&b.snap)) {
+                (Some(x), Some(y)) => x.cmp(&y),
+                (Some(_), None) => std::cmp::Ordering::Less,
+                (None, Some(_)) => std::cmp::Ordering::Greater,
+                (None, None) => std::cmp::Ordering::Equal,
             })
             .then_with(|| a.snap.lot.cmp(&b.snap.lot))
     });
-    let changed = |lot: &str| -> String {
-        let mine: Vec<String> = d
-            .changes
-            .iter()
-            .filter(|c| c.lot == lot)
-            .map(|c| {
-                let what = c.key.split('|').next().unwrap_or("").replace('-', " ");
-                match c.state {
-                    AlertState::Cleared => format!("{what} cleared"),
-                    AlertState::Worse | AlertState::Eased => {
-                        format!("{what} now {}", c.severity.as_str())
-                    }
-                    AlertState::Open => format!("new {} {what}", c.severity.as_str()),
-                }
-            })
-            .collect();
-        if mine.is_empty() {
-            "no change".into()
-        } else {
-            mine.join("; ")
-        }
-    };
+    lots
+}
 
-    let th = "style=\"text-align:left;padding:4px 8px;border-bottom:2px solid #999;\
-              font-size:13px\"";
-    let td = "style=\"padding:4px 8px;border-bottom:1px solid #ddd;font-size:13px;\
-              vertical-align:top\"";
-    let mut text = String::new();
-    let mut html = String::from(
-        "<!DOCTYPE html><html><body style=\"margin:0;padding:16px;background:#f5f5f5;\
-         font-family:Arial,Helvetica,sans-serif;color:#222\">\
-         <table role=\"presentation\" width=\"100%\" cellpadding=\"0\" cellspacing=\"0\" \
-         style=\"max-width:900px;background:#ffffff;border:1px solid #ddd\"><tr>\
-         <td style=\"padding:16px\">",
-    );
-    let _ = writeln!(
-        text,
-        "Catalyst digest, {} to {}\n",
-        show_local(zone, period.from),
-        show_local(zone, period.to)
-    );
-    let _ = write!(
-        html,
-        "<h2 style=\"margin:0 0 4px 0;font-size:20px\">Catalyst digest</h2>\
-         <p style=\"margin:0 0 12px 0;color:#555;font-size:13px\">{} to {}</p>",
-        html_escape(&show_local(zone, period.from)),
-        html_escape(&show_local(zone, period.to))
-    );
-    // The headline: open alerts by severity and pending lots.
-    let _ = writeln!(
-        text,
-        "Open alerts: {crit} critical, {warn} warning, {info} info. Lots: {} registered, {} \
-         pending registration.\n",
-        d.lots.len(),
-        d.pending_lots
-    );
-    let _ = write!(
-        html,
-        "<p style=\"font-size:15px;margin:0 0 12px 0\">Open alerts: \
-         <b style=\"color:#c62828\">{crit} critical</b>, \
-         <b style=\"color:#ef6c00\">{warn} warning</b>, {info} info. \
-         Lots: {} registered, {} pending registration.</p>",
-        d.lots.len(),
-        d.pending_lots
-    );
-
+/// One line per lot.
+fn lots_section(d: &DigestInput<'_>, text: &mut String, html: &mut String) {
+    let (th, td) = (TH, TD);
     // One line per lot.
     text.push_str("Lots (most urgent first):\n");
     let _ = write!(
@@ -279,9 +220,9 @@ pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
          <th {th}>activity</th><th {th}>next batch</th><th {th}>trend</th>\
          <th {th}>order by</th><th {th}>since last digest</th><th {th}>sign-off</th></tr>"
     );
-    for l in &lots {
+    for l in urgent_first(d) {
         let s = &l.snap;
-        let (word, color) = badge(worst(&s.lot));
+        let (word, color) = badge(worst(d, &s.lot));
         let ob = order_by(s).unwrap_or_else(|| "–".into());
         let signoff = l.signoff.clone().unwrap_or_else(|| "none".into());
         let _ = writeln!(
@@ -293,7 +234,7 @@ pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
             act(s.latest_activity),
             next_words(s),
             forecast_words(s),
-            changed(&s.lot)
+            changed(d, &s.lot)
         );
         let _ = write!(
             html,
@@ -311,12 +252,16 @@ pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
             html_escape(&next_words(s)),
             html_escape(&forecast_words(s)),
             html_escape(&ob),
-            html_escape(&changed(&s.lot)),
+            html_escape(&changed(d, &s.lot)),
             html_escape(&signoff)
         );
     }
     html.push_str("</table>");
+}
 
+/// The open alerts by severity, file notices apart.
+fn open_section(d: &DigestInput<'_>, text: &mut String, html: &mut String) {
+    let (td, zone) = (TD, d.period.zone);
     // Open alerts by severity, file notices apart.
     let _ = write!(
         html,
@@ -355,6 +300,78 @@ pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
         }
         html.push_str("</table>");
     }
+}
+
+/// Compose the digest for managers. Lots are listed most urgent first: by their worst
+/// open alert, then by order-by date, then by name.
+pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
+    let period = d.period;
+    let zone = period.zone;
+    let from = crate::model::time::format_ts(period.from);
+    let to = crate::model::time::format_ts(period.to);
+    let id_hash = hex::encode(Sha256::digest(format!("digest|{from}|{to}").as_bytes()));
+    let message_id = format!("<{}.digest@{MESSAGE_ID_DOMAIN}>", &id_hash[..32]);
+    let count = |s: Severity| d.open.iter().filter(|a| a.severity == s).count();
+    let (crit, warn, info) = (
+        count(Severity::Critical),
+        count(Severity::Warning),
+        count(Severity::Info),
+    );
+    let day = |t: DateTime<Utc>| t.with_timezone(&zone).format("%Y-%m-%d").to_string();
+    let subject = header_safe(
+        &format!(
+            "Catalyst digest {} to {}: {crit} critical, {warn} warning; {} lots{}",
+            day(period.from),
+            day(period.to),
+            d.lots.len() + d.pending_lots,
+            if d.pending_lots > 0 {
+                format!(" ({} pending)", d.pending_lots)
+            } else {
+                String::new()
+            }
+        ),
+        200,
+    );
+    let mut text = String::new();
+    let mut html = String::from(
+        "<!DOCTYPE html><html><body style=\"margin:0;padding:16px;background:#f5f5f5;\
+         font-family:Arial,Helvetica,sans-serif;color:#222\">\
+         <table role=\"presentation\" width=\"100%\" cellpadding=\"0\" cellspacing=\"0\" \
+         style=\"max-width:900px;background:#ffffff;border:1px solid #ddd\"><tr>\
+         <td style=\"padding:16px\">",
+    );
+    let _ = writeln!(
+        text,
+        "Catalyst digest, {} to {}\n",
+        show_local(zone, period.from),
+        show_local(zone, period.to)
+    );
+    let _ = write!(
+        html,
+        "<h2 style=\"margin:0 0 4px 0;font-size:20px\">Catalyst digest</h2>\
+         <p style=\"margin:0 0 12px 0;color:#555;font-size:13px\">{} to {}</p>",
+        html_escape(&show_local(zone, period.from)),
+        html_escape(&show_local(zone, period.to))
+    );
+    // The headline: open alerts by severity and pending lots.
+    let _ = writeln!(
+        text,
+        "Open alerts: {crit} critical, {warn} warning, {info} info. Lots: {} registered, {} \
+         pending registration.\n",
+        d.lots.len(),
+        d.pending_lots
+    );
+    let _ = write!(
+        html,
+        "<p style=\"font-size:15px;margin:0 0 12px 0\">Open alerts: \
+         <b style=\"color:#c62828\">{crit} critical</b>, \
+         <b style=\"color:#ef6c00\">{warn} warning</b>, {info} info. \
+         Lots: {} registered, {} pending registration.</p>",
+        d.lots.len(),
+        d.pending_lots
+    );
+    lots_section(d, &mut text, &mut html);
+    open_section(d, &mut text, &mut html);
 
     if let Some(head) = &period.chain_head {
         let _ = writeln!(

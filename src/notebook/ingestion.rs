@@ -767,14 +767,7 @@ impl<'a> Writer<'a> {
             outcomes.push(outcome);
         }
         w.finish()?;
-        let ingested: Vec<&str> = outcomes
-            .iter()
-            .filter_map(|o| match o {
-                FileOutcome::Ingested { path, .. } => Some(path.as_str()),
-                _ => None,
-            })
-            .collect();
-        crate::notebook::alerts::close_file_notices(&tx, self.cfg, &ingested)?;
+        close_notices(&tx, self.cfg, &outcomes)?;
         if recompute {
             // Under the write lock, this group's events are the newest of their lots.
             crate::notebook::recompute::recompute_lots_after(&tx, self.cfg, &touched)?;
@@ -788,6 +781,22 @@ impl<'a> Writer<'a> {
         log_ingested(&outcomes);
         Ok((outcomes, touched))
     }
+}
+
+/// Close the file notices of the files this group ingested (repaired re-exports).
+fn close_notices(
+    tx: &store::Transaction<'_>,
+    cfg: &Config,
+    outcomes: &[FileOutcome],
+) -> Result<usize, StoreError> {
+    let ingested: Vec<&str> = outcomes
+        .iter()
+        .filter_map(|o| match o {
+            FileOutcome::Ingested { path, .. } => Some(path.as_str()),
+            _ => None,
+        })
+        .collect();
+    crate::notebook::alerts::close_file_notices(tx, cfg, &ingested)
 }
 
 /// Record a file that could not be read, and raise its quarantine alert.

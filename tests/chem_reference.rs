@@ -32,6 +32,7 @@ fn pd_lot() -> LotFacts {
         metal: "Pd".into(),
         loading_wt_pct: 5.0,
         charged_mass_g: 0.500,
+        water_content_wt_pct: None,
     }
 }
 

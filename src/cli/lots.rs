@@ -4,7 +4,7 @@ use std::fmt::Write as _;
 
 use super::{CmdResult, Failure, fmt_opt};
 use crate::config::Config;
-use crate::notebook::{cycle_lines, known_lot, lot_lines};
+use crate::notebook::{CycleLine, LotState, cycle_lines, known_lot, lot_lines};
 
 /// `turnbook lots`.
 pub fn lots(cfg: &Config, json: bool) -> CmdResult {
@@ -73,7 +73,15 @@ pub fn cycles(cfg: &Config, lot: &str, format: &str) -> CmdResult {
     match format {
         "json" => println!(
             "{}",
-            serde_json::to_string_pretty(&serde_json::json!({"lot": lot, "cycles": lines}))?
+            serde_json::to_string_pretty(&serde_json::json!({
+                "lot": lot,
+                "activity_basis": s.activity_basis.key(),
+                "activity_definition": s.activity_basis.definition(),
+                "activity_reference_cycle": s.reference_cycle,
+                "tof_average_definition": TOF_AVERAGE,
+                "tof_initial_definition": TOF_INITIAL,
+                "cycles": lines
+            }))?
         ),
         "csv" => {
             let mut w = csv::Writer::from_writer(std::io::stdout());
@@ -83,51 +91,73 @@ pub fn cycles(cfg: &Config, lot: &str, format: &str) -> CmdResult {
             }
             w.flush()?;
         }
-        _ => {
-            if let Some(r) = &s.record {
-                println!(
-                    "lot {} — {} ({} {} wt %, {} g charged)",
-                    r.lot, r.catalyst, r.metal, r.loading_wt_pct, r.charged_mass_g
-                );
-            } else {
-                println!("lot {lot} — not registered: its cycles are pending");
-            }
-            println!(
-                "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>7} {:>7} {:>8}  flags / sources",
-                "cycle",
-                "batch",
-                "T °C",
-                "t h",
-                "conv",
-                "yield",
-                "TON",
-                "TOF h⁻¹",
-                "k h⁻¹",
-                "act.",
-                "M µg/g"
-            );
-            for l in &lines {
-                println!(
-                    "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>7} {:>7} {:>8}  {} | {}",
-                    l.cycle,
-                    l.batch_id,
-                    fmt_opt(l.temperature_c, 1),
-                    fmt_opt(l.duration_h, 2),
-                    fmt_opt(l.conversion, 4),
-                    fmt_opt(l.yield_fraction, 4),
-                    fmt_opt(l.ton, 1),
-                    fmt_opt(l.tof_per_h, 1),
-                    fmt_opt(l.k_app_per_h, 3),
-                    fmt_opt(l.activity, 3),
-                    fmt_opt(l.metal_in_product_ug_g, 2),
-                    if l.flags.is_empty() { "-" } else { &l.flags },
-                    l.sources
-                );
-            }
-            for a in &s.attention {
-                println!("attention: {a}");
-            }
-        }
+        _ => cycles_table(&s, lot, &lines),
     }
     Ok(0)
+}
+
+const TOF_AVERAGE: &str = "average TOF = TON / whole reaction time";
+const TOF_INITIAL: &str = "initial TOF = k_app × mol limiting substrate / mol metal charged \
+     (first-order batch; a lower bound when the cycle is censored)";
+
+fn cycles_table(s: &LotState, lot: &str, lines: &[CycleLine]) {
+    if let Some(r) = &s.record {
+        let water = r
+            .water_content_wt_pct
+            .map(|w| format!(", {w} wt % water: metal on the dry mass"))
+            .unwrap_or_default();
+        println!(
+            "lot {} — {} ({} {} wt %, {} g charged{water})",
+            r.lot, r.catalyst, r.metal, r.loading_wt_pct, r.charged_mass_g
+        );
+    } else {
+        println!("lot {lot} — not registered: its cycles are pending");
+    }
+    let reference = s
+        .reference_cycle
+        .map_or("no reference cycle yet".to_string(), |n| format!("cycle {n} = 1"));
+    println!("activity: {} ({reference})", s.activity_basis.definition());
+    println!("TOF avg: {TOF_AVERAGE}; TOF₀: {TOF_INITIAL}");
+    println!(
+        "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>8} {:>8} {:>7} {:>7} {:>6} {:>8}  flags / sources",
+        "cycle",
+        "batch",
+        "T °C",
+        "t h",
+        "conv",
+        "yield",
+        "TON",
+        "TON av.",
+        "TOFavg/h",
+        "TOF₀/h",
+        "k h⁻¹",
+        "act.",
+        "± se",
+        "M µg/g"
+    );
+    for l in lines {
+        println!(
+            "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>8} {:>8} {:>7} {:>7} {:>6} {:>8}  {} | {}",
+            l.cycle,
+            l.batch_id,
+            fmt_opt(l.temperature_c, 1),
+            fmt_opt(l.duration_h, 2),
+            fmt_opt(l.conversion, 4),
+            fmt_opt(l.yield_fraction, 4),
+            fmt_opt(l.ton, 1),
+            fmt_opt(l.ton_per_metal_available, 1),
+            fmt_opt(l.tof_per_h, 1),
+            fmt_opt(l.tof_initial_per_h, 1),
+            fmt_opt(l.k_app_per_h, 3),
+            fmt_opt(l.activity, 3),
+            fmt_opt(l.activity_se, 3),
+            fmt_opt(l.metal_in_product_ug_g, 2),
+            if l.flags.is_empty() { "-" } else { &l.flags },
+            l.sources
+        );
+    }
+    println!("TON av.: TON per mol metal available (charged less the metal found in earlier products)");
+    for a in &s.attention {
+        println!("attention: {a}");
+    }
 }

@@ -201,6 +201,10 @@ pub struct LotRecord {
     pub supplier_lot: Option<String>,
     pub cost: Option<f64>,
     pub site: Option<String>,
+    /// Water content of the catalyst as charged, wt % (for catalysts charged water-wet;
+    /// the loading is on the dry mass). Absent from events written before it existed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub water_content_wt_pct: Option<f64>,
 }
 
 /// What an event did. The tag is the event's kind.
@@ -328,6 +332,7 @@ mod tests {
             supplier_lot: None,
             cost: Some(100.0),
             site: None,
+            water_content_wt_pct: None,
         };
         let owned = Payload::FileIngested {
             file: file.clone(),

@@ -24,7 +24,11 @@ fn report_forecast(f: &fit::Forecast) -> report::Forecast {
     }
 }
 
-fn fit_summary(cfg: &Config, a: &fit::LotAnalysis) -> Option<report::FitSummary> {
+fn fit_summary(
+    cfg: &Config,
+    a: &fit::LotAnalysis,
+    reference: Option<u32>,
+) -> Option<report::FitSummary> {
     let f = a.fit.as_ref()?;
     let t = fit::t_quantile(cfg.fitting.confidence, f.dof);
     let params = f
@@ -75,7 +79,14 @@ fn fit_summary(cfg: &Config, a: &fit::LotAnalysis) -> Option<report::FitSummary>
         y_label: if cfg.fitting.measure == Measure::Ton {
             "TON per cycle".into()
         } else {
-            "activity (relative to cycle 1)".into()
+            format!(
+                "activity (relative to cycle {}, per {})",
+                reference.unwrap_or(1),
+                match cfg.chemistry.activity_basis {
+                    crate::chem::ActivityBasis::CatalystRatio => "catalyst-to-substrate ratio",
+                    crate::chem::ActivityBasis::MetalCharged => "mol metal charged",
+                }
+            )
         },
         params,
         level: cfg.fitting.confidence,
@@ -119,12 +130,21 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
         turnbook_version: env!("CARGO_PKG_VERSION").to_string(),
         identity: identity(cfg, state),
         cycles: cycle_lines(state, &entries.corrected_batches),
-        fit: state.analysis.as_ref().and_then(|a| fit_summary(cfg, a)),
+        fit: state
+            .analysis
+            .as_ref()
+            .and_then(|a| fit_summary(cfg, a, state.reference_cycle)),
         alerts: alerts_of(conn, &state.lot)?,
         corrections: entries.corrections,
         signoffs: entries.signoffs,
         verify: Some(verify_line(conn, cfg)?),
         cautions: Vec::new(),
+        activity_note: Some(report::ActivityNote {
+            basis: state.activity_basis.key().to_string(),
+            definition: state.activity_basis.definition().to_string(),
+            reference_cycle: state.reference_cycle,
+            reference_moved: state.reference_moved,
+        }),
     })
 }
 
@@ -203,6 +223,7 @@ fn identity(cfg: &Config, state: &LotState) -> report::LotIdentity {
         supplier_lot: None,
         cost: None,
         site: None,
+        water_content_wt_pct: None,
     });
     report::LotIdentity {
         record,
@@ -234,12 +255,18 @@ fn cycle_lines(state: &LotState, corrected_batches: &[String]) -> Vec<report::Cy
                 tof_per_h: m.and_then(|m| m.tof_per_h),
                 k_app_per_h: m.and_then(|m| m.k_app_per_h),
                 activity: m.and_then(|m| m.activity),
+                activity_se: m.and_then(|m| m.activity_se),
+                tof_initial_per_h: m.and_then(|m| m.initial_tof_per_h),
+                ton_per_metal_available: m.and_then(|m| m.ton_available),
+                metal_charged_mmol: m.and_then(|m| m.metal_mol).map(|n| n * 1000.0),
+                metal_available_mmol: m.and_then(|m| m.metal_available_mol).map(|n| n * 1000.0),
                 flags: report::CycleFlags {
                     censored: has("censored"),
                     pending: has("pending"),
                     conflict: has("conflict"),
                     excluded: has("excluded"),
                     corrected: corrected_batches.contains(&c.view.batch_id),
+                    ratio_off_usual: has("ratio-off-usual"),
                 },
                 sources: c
                     .sources

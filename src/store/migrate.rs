@@ -27,6 +27,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "chain_key",
         include_str!("../../schema/0007_chain_key.sql"),
     ),
+    (
+        8,
+        "lot_water",
+        include_str!("../../schema/0008_lot_water.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

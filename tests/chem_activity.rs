@@ -6,8 +6,7 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
 use turnbook::chem::{
-    ActivityBasis, ChemOptions, CycleInput, LotFacts, cycle_metrics, lot_metrics,
-    rate_constant_se,
+    ActivityBasis, ChemOptions, CycleInput, LotFacts, cycle_metrics, lot_metrics, rate_constant_se,
 };
 
 fn close(got: f64, want: f64, rel: f64) -> bool {
@@ -101,11 +100,7 @@ fn twice_the_scale_keeps_activity_on_the_ratio_basis_and_halves_it_per_metal() {
     assert!((some(per_metal[4].activity) - truth(5) / 2.0).abs() < 3.0 * se5 / 2.0);
     // The neighbours agree on both bases (same scale as cycle 1).
     for i in [3, 5] {
-        assert_close!(
-            some(per_metal[i].activity),
-            some(ratio[i].activity),
-            1e-12
-        );
+        assert_close!(some(per_metal[i].activity), some(ratio[i].activity), 1e-12);
     }
     // Same recipe, same catalyst-to-substrate ratio: not flagged.
     assert!(ratio.iter().all(|m| !has(&m.flags, "ratio-off-usual")));
@@ -184,7 +179,11 @@ fn a_half_water_wet_charge_gives_the_ton_of_its_dry_mass() {
         substrate_mol: Some(1.2),
         ..Default::default()
     };
-    let wet = cycle_metrics(&pd(10.0, Some(50.0)), &[cycle.clone()], &ChemOptions::default());
+    let wet = cycle_metrics(
+        &pd(10.0, Some(50.0)),
+        &[cycle.clone()],
+        &ChemOptions::default(),
+    );
     assert_close!(some(wet[0].metal_mol), 2.349_182_484_5e-3, 1e-10);
     assert_close!(some(wet[0].ton), 485.275_2, 1e-9);
     assert_close!(some(wet[0].tof_per_h), 242.637_6, 1e-9);
@@ -311,14 +310,20 @@ fn k_app_error_formula_against_a_seeded_monte_carlo_propagation() {
             .map(|_| -(-(x0 + noise.sample(&mut rng)) as f64).ln_1p() / t)
             .collect();
         let mean = draws.iter().sum::<f64>() / draws.len() as f64;
-        let var =
-            draws.iter().map(|k| (k - mean).powi(2)).sum::<f64>() / (draws.len() - 1) as f64;
+        let var = draws.iter().map(|k| (k - mean).powi(2)).sum::<f64>() / (draws.len() - 1) as f64;
         let formula = some(rate_constant_se(x0, t, sd));
         let ratio = var.sqrt() / formula;
-        assert!((ratio - 1.0).abs() < 0.01, "X0 = {x0}: MC/formula = {ratio}");
+        assert!(
+            (ratio - 1.0).abs() < 0.01,
+            "X0 = {x0}: MC/formula = {ratio}"
+        );
         // The relative form in the design notes: σ/((1 − X)|ln(1 − X)|).
         let k0 = -(-x0 as f64).ln_1p() / t;
-        assert_close!(formula / k0, sd / ((1.0 - x0) * (1.0 - x0).ln().abs()), 1e-12);
+        assert_close!(
+            formula / k0,
+            sd / ((1.0 - x0) * (1.0 - x0).ln().abs()),
+            1e-12
+        );
     }
 }
 
@@ -362,8 +367,8 @@ fn activity_error_against_a_seeded_monte_carlo_propagation() {
         .map(|_| k(0.70 + noise.sample(&mut rng)) / k(0.90 + noise.sample(&mut rng)))
         .collect();
     let mean = draws.iter().sum::<f64>() / draws.len() as f64;
-    let sd = (draws.iter().map(|a| (a - mean).powi(2)).sum::<f64>() / (draws.len() - 1) as f64)
-        .sqrt();
+    let sd =
+        (draws.iter().map(|a| (a - mean).powi(2)).sum::<f64>() / (draws.len() - 1) as f64).sqrt();
     let ratio = sd / some(m[3].activity_se);
     assert!((ratio - 1.0).abs() < 0.02, "MC/propagated = {ratio}");
     // Censored cycles carry no standard error: a bound is not a measurement.

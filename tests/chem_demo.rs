@@ -51,7 +51,10 @@ fn initial_tof_falls_with_activity_while_average_tof_stays() {
     let tof0_ratio = tof0(last) / tof0(first);
     let avg_ratio = avg(last) / avg(first);
     assert!(act(last) < 0.7, "activity {}", act(last));
-    assert!(tof0_ratio < 0.7, "initial TOF fell to {tof0_ratio} of cycle 1");
+    assert!(
+        tof0_ratio < 0.7,
+        "initial TOF fell to {tof0_ratio} of cycle 1"
+    );
     assert!(
         (0.95..1.08).contains(&avg_ratio),
         "average TOF moved to {avg_ratio} of cycle 1"

@@ -155,7 +155,11 @@ mod tests {
 
     #[test]
     fn wet_descriptions_warn_without_water_content() {
-        for wet in ["5 % Pd/C (50 % water-wet paste)", "Pd/C WET", "Raney Ni paste"] {
+        for wet in [
+            "5 % Pd/C (50 % water-wet paste)",
+            "Pd/C WET",
+            "Raney Ni paste",
+        ] {
             assert!(described_wet(wet), "{wet}");
         }
         for dry in ["5 % Pd/C", "Pt/Al2O3 spheres", "Pd on carbon, between lots"] {

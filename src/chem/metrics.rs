@@ -4,9 +4,9 @@ use serde::{Deserialize, Serialize};
 
 use super::elements::molar_mass;
 use super::kinetics::{
-    DEFAULT_SATURATION, apparent_rate_constant, arrhenius_to_reference, derived_yield,
-    dry_mass_g, initial_turnover_frequency, metal_lost_g, metal_mol, product_mol,
-    turnover_frequency, turnover_number,
+    DEFAULT_SATURATION, apparent_rate_constant, arrhenius_to_reference, derived_yield, dry_mass_g,
+    initial_turnover_frequency, metal_lost_g, metal_mol, product_mol, turnover_frequency,
+    turnover_number,
 };
 use super::uncertainty::{rate_constant_se, ratio_relative_se};
 use crate::model::{LotRecord, Quantity};

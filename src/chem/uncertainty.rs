@@ -31,12 +31,16 @@ impl AssayUncertainty {
     /// Why the stated value cannot be used, if it cannot (for the configuration check).
     pub fn problem(self) -> Option<String> {
         match self {
-            AssayUncertainty::Absolute(s) if !(s.is_finite() && s > 0.0 && s < 0.5) => Some(
-                format!("absolute: expected a conversion σ as a fraction above 0 and below 0.5 (e.g. 0.005); found {s}"),
-            ),
-            AssayUncertainty::Relative(r) if !(r.is_finite() && r > 0.0 && r < 1.0) => Some(
-                format!("relative: expected a fraction of the value above 0 and below 1 (e.g. 0.01); found {r}"),
-            ),
+            AssayUncertainty::Absolute(s) if !(s.is_finite() && s > 0.0 && s < 0.5) => {
+                Some(format!(
+                    "absolute: expected a conversion σ as a fraction above 0 and below 0.5 (e.g. 0.005); found {s}"
+                ))
+            }
+            AssayUncertainty::Relative(r) if !(r.is_finite() && r > 0.0 && r < 1.0) => {
+                Some(format!(
+                    "relative: expected a fraction of the value above 0 and below 1 (e.g. 0.01); found {r}"
+                ))
+            }
             _ => None,
         }
     }

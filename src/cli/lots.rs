@@ -115,7 +115,9 @@ fn cycles_table(s: &LotState, lot: &str, lines: &[CycleLine]) {
     }
     let reference = s
         .reference_cycle
-        .map_or("no reference cycle yet".to_string(), |n| format!("cycle {n} = 1"));
+        .map_or("no reference cycle yet".to_string(), |n| {
+            format!("cycle {n} = 1")
+        });
     println!("activity: {} ({reference})", s.activity_basis.definition());
     println!("TOF avg: {TOF_AVERAGE}; TOF₀: {TOF_INITIAL}");
     println!(
@@ -156,7 +158,9 @@ fn cycles_table(s: &LotState, lot: &str, lines: &[CycleLine]) {
             l.sources
         );
     }
-    println!("TON av.: TON per mol metal available (charged less the metal found in earlier products)");
+    println!(
+        "TON av.: TON per mol metal available (charged less the metal found in earlier products)"
+    );
     for a in &s.attention {
         println!("attention: {a}");
     }

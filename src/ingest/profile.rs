@@ -527,21 +527,35 @@ columns.batch_id = { header = "Batch" }
     #[test]
     fn conversion_uncertainty_is_read_and_checked() {
         let conv = "columns.conversion = { header = \"X\", unit = \"%\" }\n";
-        let p = with(&format!("conversion_uncertainty = {{ absolute = 0.005 }}\n{conv}")).unwrap();
+        let p = with(&format!(
+            "conversion_uncertainty = {{ absolute = 0.005 }}\n{conv}"
+        ))
+        .unwrap();
         assert_eq!(
             p.conversion_uncertainty,
             Some(AssayUncertainty::Absolute(0.005))
         );
-        let p = with(&format!("conversion_uncertainty = {{ relative = 0.02 }}\n{conv}")).unwrap();
+        let p = with(&format!(
+            "conversion_uncertainty = {{ relative = 0.02 }}\n{conv}"
+        ))
+        .unwrap();
         assert_eq!(
             p.conversion_uncertainty,
             Some(AssayUncertainty::Relative(0.02))
         );
-        let e = with(&format!("conversion_uncertainty = {{ absolute = 5 }}\n{conv}")).unwrap_err();
+        let e = with(&format!(
+            "conversion_uncertainty = {{ absolute = 5 }}\n{conv}"
+        ))
+        .unwrap_err();
         assert!(e.starts_with("conversion_uncertainty.absolute:"), "{e}");
         let e = with("conversion_uncertainty = { absolute = 0.005 }\n").unwrap_err();
         assert!(e.starts_with("conversion_uncertainty:"), "{e}");
-        assert!(with(&format!("conversion_uncertainty = {{ sigma = 0.005 }}\n{conv}")).is_err());
+        assert!(
+            with(&format!(
+                "conversion_uncertainty = {{ sigma = 0.005 }}\n{conv}"
+            ))
+            .is_err()
+        );
         assert_eq!(with("").unwrap().conversion_uncertainty, None);
     }
 

@@ -355,6 +355,26 @@ mod tests {
     }
 
     #[test]
+    fn a_lot_without_water_content_encodes_as_before_it_existed() {
+        // A registration stored before the field existed: re-encoding it must give the
+        // same bytes, or its event's hash would no longer verify.
+        let old = r#"{"lot":"L","catalyst":"Pd/C","metal":"Pd","loading_wt_pct":5.0,"charged_mass_g":1.25,"received":null,"supplier_lot":null,"cost":null,"site":null}"#;
+        let rec: LotRecord = serde_json::from_str(old).unwrap();
+        assert_eq!(rec.water_content_wt_pct, None);
+        assert_eq!(serde_json::to_string(&rec).unwrap(), old);
+        let wet = LotRecord {
+            water_content_wt_pct: Some(50.0),
+            ..rec
+        };
+        let text = serde_json::to_string(&wet).unwrap();
+        assert!(
+            text.ends_with(r#""site":null,"water_content_wt_pct":50.0}"#),
+            "{text}"
+        );
+        assert_eq!(serde_json::from_str::<LotRecord>(&text).unwrap(), wet);
+    }
+
+    #[test]
     fn rows_written_as_objects_by_earlier_versions_still_decode() {
         let old = r#"{"kind":"file-ingested","file":{"id":6,"sha256":"bf","path":"/e/b.txt","size":298,"mtime":null,"profile":"balance","site":"KV4","seen_at":"2026-12-02T01:05:20.492Z","outcome":"ingested","error":null,"rows_new":1,"rows_known":0,"rows_conflict":0,"quarantined":null},"measurements":[{"id":21,"batch_id":"KV4-H-006","quantity":"substrate","value":1.2,"text":null,"kind":"observed","source_file_id":6,"line":2,"col":4,"raw":"1200,0"}],"lots":[]}"#;
         let Payload::FileIngested { measurements, .. } = serde_json::from_str(old).unwrap() else {

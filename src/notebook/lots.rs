@@ -150,7 +150,7 @@ pub fn lot_state_as_of(
         });
     };
     let reference = add_metrics(cfg, &rec, &mut cycles);
-    let series = fit_series(cfg, &cycles);
+    let series = lot_series(cfg, &cycles);
     let product_first_kg = cycles
         .iter()
         .find(|c| c.cycle == 1)
@@ -310,7 +310,7 @@ fn add_metrics(cfg: &Config, rec: &LotRecord, cycles: &mut [CycleState]) -> Refe
 /// cycle (a bound has no error) and where no σ is stated. The reference's error is left
 /// out: it is one factor common to every point, which a fitted a0 absorbs. When no cycle
 /// has one, `sd` stays empty (unweighted).
-fn fit_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
+pub fn lot_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
     let ton_basis = cfg.fitting.measure == Measure::Ton;
     let mut series = LotSeries::default();
     let mut hours = 0.0;

@@ -44,8 +44,8 @@ pub use ingestion::{
 };
 pub use listing::{Listing, RefusedEntry, collect_files};
 pub use lots::{
-    CycleLine, CycleState, LotLine, LotState, cycle_lines, known_lot, lot_lines, lot_state,
-    lot_state_as_of,
+    CycleLine, CycleState, LotLine, LotState, cycle_lines, known_lot, lot_lines, lot_series,
+    lot_state, lot_state_as_of,
 };
 pub use recompute::recompute_stale;
 pub use reports::{write_all_reports, write_lot_report, write_site_report};

@@ -146,9 +146,10 @@ fn identity(out: &mut String, r: &LotReport) {
         (Some(c), None) => fmt_sig(c, 6),
         (None, _) => "–".to_string(),
     };
-    let water = id
-        .water_content_wt_pct
-        .map_or_else(|| "–".to_string(), |w| format!("{} wt % (metal on the dry mass)", fmt_sig(w, 3)));
+    let water = id.water_content_wt_pct.map_or_else(
+        || "–".to_string(),
+        |w| format!("{} wt % (metal on the dry mass)", fmt_sig(w, 3)),
+    );
     let rows: [(&str, String); 10] = [
         ("Lot", esc(&id.lot)),
         ("Catalyst", esc(&id.catalyst)),

@@ -181,7 +181,7 @@ fn a_half_water_wet_charge_gives_the_ton_of_its_dry_mass() {
     };
     let wet = cycle_metrics(
         &pd(10.0, Some(50.0)),
-        &[cycle.clone()],
+        std::slice::from_ref(&cycle),
         &ChemOptions::default(),
     );
     assert_close!(some(wet[0].metal_mol), 2.349_182_484_5e-3, 1e-10);
@@ -305,9 +305,9 @@ fn k_app_error_formula_against_a_seeded_monte_carlo_propagation() {
     let sd = 0.002;
     let t = 7200.0;
     let noise = Normal::new(0.0, sd).expect("valid sd");
-    for x0 in [0.5, 0.8, 0.95] {
+    for x0 in [0.5_f64, 0.8, 0.95] {
         let draws: Vec<f64> = (0..200_000)
-            .map(|_| -(-(x0 + noise.sample(&mut rng)) as f64).ln_1p() / t)
+            .map(|_| -(-(x0 + noise.sample(&mut rng))).ln_1p() / t)
             .collect();
         let mean = draws.iter().sum::<f64>() / draws.len() as f64;
         let var = draws.iter().map(|k| (k - mean).powi(2)).sum::<f64>() / (draws.len() - 1) as f64;
@@ -318,7 +318,7 @@ fn k_app_error_formula_against_a_seeded_monte_carlo_propagation() {
             "X0 = {x0}: MC/formula = {ratio}"
         );
         // The relative form in the design notes: σ/((1 − X)|ln(1 − X)|).
-        let k0 = -(-x0 as f64).ln_1p() / t;
+        let k0 = -(-x0).ln_1p() / t;
         assert_close!(
             formula / k0,
             sd / ((1.0 - x0) * (1.0 - x0).ln().abs()),

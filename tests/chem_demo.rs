@@ -7,7 +7,7 @@ mod common;
 use std::process::Command;
 
 use turnbook::config::Config;
-use turnbook::notebook::{cycle_lines, known_lot};
+use turnbook::notebook::{cycle_lines, known_lot, lot_report_html};
 
 fn demo() -> (tempfile::TempDir, Config) {
     let dir = tempfile::tempdir().unwrap();
@@ -129,4 +129,26 @@ fn cycles_output_states_the_definitions() {
     assert!(text.contains("TOF avg"), "{text}");
     assert!(text.contains("initial TOF"), "{text}");
     assert!(text.contains("catalyst-to-substrate ratio"), "{text}");
+}
+
+#[test]
+fn the_report_explains_activity_and_both_tofs() {
+    let (_dir, cfg) = demo();
+    let html = lot_report_html(&cfg, "PD-C-2611-A").unwrap();
+    let defs = html
+        .split("id=\"definitions\"")
+        .nth(1)
+        .expect("a definitions list under the cycle table");
+    assert!(defs.contains("catalyst-to-substrate ratio"), "{defs}");
+    assert!(defs.contains("Activity 1 is cycle 1."), "{defs}");
+    assert!(defs.contains("initial TOF") && defs.contains("average TOF"));
+    assert!(html.contains("<th>initial TOF (h⁻¹)</th>"));
+    assert!(html.contains("<th>TON (per mol metal available)</th>"));
+    let water = html
+        .split("Water content as charged</dt><dd>")
+        .nth(1)
+        .unwrap_or_default();
+    assert!(water.starts_with("50"), "{}", &water[..40.min(water.len())]);
+    assert!(water.contains("wt % (metal on the dry mass)"));
+    assert!(html.contains("activity (relative to cycle 1, per catalyst-to-substrate ratio)"));
 }

@@ -4,7 +4,10 @@ use std::fmt::Write as _;
 
 use super::{CmdResult, Failure, fmt_opt};
 use crate::config::Config;
-use crate::notebook::{CycleLine, LotState, cycle_lines, known_lot, lot_lines};
+use crate::notebook::{
+    CycleLine, LotState, TOF_AVERAGE_DEFINITION, TOF_INITIAL_DEFINITION, cycle_lines,
+    cycles_document, known_lot, lot_lines,
+};
 
 /// `turnbook lots`.
 pub fn lots(cfg: &Config, json: bool) -> CmdResult {
@@ -71,18 +74,7 @@ pub fn cycles(cfg: &Config, lot: &str, format: &str) -> CmdResult {
     let s = known_lot(cfg, lot)?;
     let lines = cycle_lines(&s);
     match format {
-        "json" => println!(
-            "{}",
-            serde_json::to_string_pretty(&serde_json::json!({
-                "lot": lot,
-                "activity_basis": s.activity_basis.key(),
-                "activity_definition": s.activity_basis.definition(),
-                "activity_reference_cycle": s.reference_cycle,
-                "tof_average_definition": TOF_AVERAGE,
-                "tof_initial_definition": TOF_INITIAL,
-                "cycles": lines
-            }))?
-        ),
+        "json" => println!("{}", serde_json::to_string_pretty(&cycles_document(&s))?),
         "csv" => {
             let mut w = csv::Writer::from_writer(std::io::stdout());
             for l in &lines {
@@ -95,10 +87,6 @@ pub fn cycles(cfg: &Config, lot: &str, format: &str) -> CmdResult {
     }
     Ok(0)
 }
-
-const TOF_AVERAGE: &str = "average TOF = TON / whole reaction time";
-const TOF_INITIAL: &str = "initial TOF = k_app × mol limiting substrate / mol metal charged \
-     (first-order batch; a lower bound when the cycle is censored)";
 
 fn cycles_table(s: &LotState, lot: &str, lines: &[CycleLine]) {
     if let Some(r) = &s.record {
@@ -119,7 +107,7 @@ fn cycles_table(s: &LotState, lot: &str, lines: &[CycleLine]) {
             format!("cycle {n} = 1")
         });
     println!("activity: {} ({reference})", s.activity_basis.definition());
-    println!("TOF avg: {TOF_AVERAGE}; TOF₀: {TOF_INITIAL}");
+    println!("TOF avg: {TOF_AVERAGE_DEFINITION}; TOF₀: {TOF_INITIAL_DEFINITION}");
     println!(
         "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>8} {:>8} {:>7} {:>7} {:>6} {:>8}  flags / sources",
         "cycle",

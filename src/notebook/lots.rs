@@ -589,6 +589,44 @@ pub struct CycleLine {
     pub sources: String,
 }
 
+/// The average TOF, as tables and JSON define it.
+pub const TOF_AVERAGE_DEFINITION: &str = "average TOF = TON / whole reaction time";
+/// The initial TOF, as tables and JSON define it (Kozuch & Martin, ACS Catal. 2012, 2,
+/// 2787, on TOF definitions; recalled from memory).
+pub const TOF_INITIAL_DEFINITION: &str = "initial TOF = k_app × mol limiting substrate / mol \
+     metal charged (first-order batch; a lower bound when the cycle is censored)";
+
+/// `cycles LOT --format json` (and `/api/lots/{lot}`): the cycle lines with the
+/// definitions of their computed columns.
+#[derive(Debug, Serialize)]
+pub struct CyclesDocument {
+    pub lot: String,
+    /// The configured basis of activity, e.g. "catalyst-ratio".
+    pub activity_basis: &'static str,
+    pub activity_definition: &'static str,
+    /// The cycle whose rate is activity 1.
+    pub activity_reference_cycle: Option<u32>,
+    /// True when cycle 1 is censored and the first uncensored cycle is the reference.
+    pub activity_reference_moved: bool,
+    pub tof_average_definition: &'static str,
+    pub tof_initial_definition: &'static str,
+    pub cycles: Vec<CycleLine>,
+}
+
+/// The JSON document of a lot's cycles.
+pub fn cycles_document(s: &LotState) -> CyclesDocument {
+    CyclesDocument {
+        lot: s.lot.clone(),
+        activity_basis: s.activity_basis.key(),
+        activity_definition: s.activity_basis.definition(),
+        activity_reference_cycle: s.reference_cycle,
+        activity_reference_moved: s.reference_moved,
+        tof_average_definition: TOF_AVERAGE_DEFINITION,
+        tof_initial_definition: TOF_INITIAL_DEFINITION,
+        cycles: cycle_lines(s),
+    }
+}
+
 pub fn cycle_lines(s: &LotState) -> Vec<CycleLine> {
     s.cycles
         .iter()

@@ -305,7 +305,8 @@ fn cycle_table(out: &mut String, r: &LotReport) {
         let _ = write!(out, "<th>{}</th>", quantity_heading(*q));
     }
     out.push_str(
-        "<th>TON (per mol metal charged)</th><th>TON (per mol metal available)</th>\
+        "<th>metal charged (mmol)</th><th>metal available (mmol)</th>\
+         <th>TON (per mol metal charged)</th><th>TON (per mol metal available)</th>\
          <th>average TOF (h⁻¹)</th><th>initial TOF (h⁻¹)</th><th>k<sub>app</sub> (h⁻¹)</th>\
          <th>activity</th><th>flags</th></tr></thead>\n<tbody>\n",
     );
@@ -328,9 +329,12 @@ fn cycle_table(out: &mut String, r: &LotReport) {
         };
         let _ = writeln!(
             out,
-            "<td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+            "<td class=\"num\">{}</td><td class=\"num\">{}</td>\
+             <td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
              <td class=\"num\">{}{}</td><td class=\"num\">{}{}</td><td class=\"num\">{}{}</td>\
              <td>{}</td></tr>",
+            fmt_opt(c.metal_charged_mmol, 4),
+            fmt_opt(c.metal_available_mmol, 4),
             fmt_opt(c.ton, 4),
             fmt_opt(c.ton_per_metal_available, 4),
             fmt_opt(c.tof_per_h, 4),
@@ -347,7 +351,7 @@ fn cycle_table(out: &mut String, r: &LotReport) {
         let _ = writeln!(
             out,
             "<tr><td colspan=\"{}\">No cycles recorded.</td></tr>",
-            shown.len() + 10
+            shown.len() + 12
         );
     }
     out.push_str("</tbody>\n</table>\n</div>\n");

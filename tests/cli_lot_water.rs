@@ -259,3 +259,48 @@ fn an_assay_uncertainty_gives_standard_errors_and_the_fit_its_weights() {
     let s = known_lot(&plain, "PD-C-2611-A").unwrap();
     assert!(lot_series(&plain, &s.cycles).sd.is_empty());
 }
+
+#[test]
+fn a_saturated_first_cycle_moves_the_reference_and_says_so() {
+    // Cycle 1 of the demo's Pd lot corrected to X = 0.999 (≥ saturation 0.995): its k_app
+    // is only a lower bound, so cycle 2 becomes activity 1, stated in `cycles` and on the
+    // lot.
+    let p = Plant::new();
+    p.expect(
+        0,
+        &[
+            "correct",
+            "KV4-H-001",
+            "conversion",
+            "0.999",
+            "--reason",
+            "re-assay: full conversion",
+        ],
+    );
+    let (so, _) = p.expect(0, &["cycles", "PD-C-2611-A", "--format", "json"]);
+    let v: serde_json::Value = serde_json::from_str(&so).unwrap();
+    assert_eq!(v["activity_reference_cycle"], 2);
+    assert_eq!(v["activity_reference_moved"], true);
+    assert_eq!(v["cycles"][1]["activity_per_catalyst_ratio"], 1.0);
+    assert!(
+        v["cycles"][0]["flags"]
+            .as_str()
+            .unwrap()
+            .contains("initial-tof-lower-bound")
+    );
+    let (table, _) = p.expect(0, &["cycles", "PD-C-2611-A"]);
+    assert!(table.contains("(cycle 2 = 1)"), "{table}");
+    assert!(
+        table.contains("activity is relative to cycle 2, the first uncensored cycle"),
+        "{table}"
+    );
+    let l = p.lot_line("PD-C-2611-A");
+    assert!(
+        l["flags"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|f| f == "reference-first-uncensored"),
+        "{l}"
+    );
+}

@@ -128,6 +128,11 @@ fn noise_free_scale_change_worked_by_hand() {
     );
     assert_close!(some(ratio[4].activity), 0.818_730_753_1, 1e-9);
     assert_close!(some(per_metal[4].activity), 0.409_365_376_5, 1e-9);
+    // Each basis states its definition, as tables and reports print it.
+    for b in [ActivityBasis::CatalystRatio, ActivityBasis::MetalCharged] {
+        assert!(b.definition().starts_with("k_app per "));
+        assert!(!b.definition().contains("  "), "{}", b.definition());
+    }
 }
 
 #[test]

@@ -92,9 +92,9 @@ pub fn turnover_frequency(ton: f64, duration_s: f64) -> Option<Tof> {
 ///
 /// Unlike TON/t over the whole batch (the average TOF), which stalls once a batch runs to
 /// completion, TOF₀ follows the catalyst's activity. The two are different quantities and
-/// are reported under different names (Kozuch & Martin, "Turning over" definitions and
-/// concepts of TOF and TON, ACS Catal. 2012, 2, 2787, on TOF definitions; reference
-/// recalled from memory). With k_app from a censored cycle TOF₀ is a lower bound.
+/// are reported under different names (Kozuch & Martin, ACS Catal. 2012, 2, 2787, on TOF
+/// definitions; reference recalled from memory). With k_app from a censored cycle TOF₀ is
+/// a lower bound.
 pub fn initial_turnover_frequency(k_per_s: f64, substrate_mol: f64, metal_mol: f64) -> Option<Tof> {
     if !(k_per_s.is_finite() && k_per_s >= 0.0 && positive(substrate_mol) && positive(metal_mol)) {
         return None;

@@ -145,8 +145,8 @@ impl Default for ChemOptions {
 /// What activity compares: the rate of a cycle per what amount of catalyst.
 ///
 /// Activity is Levenspiel's ratio a = rate with the used catalyst / rate with the fresh
-/// catalyst under the same conditions (Levenspiel, Chemical Reaction Engineering, ch. on
-/// deactivating catalysts). For a batch first order in the limiting substrate, k_app is
+/// catalyst under the same conditions (Levenspiel, Chemical Reaction Engineering, the
+/// chapter on deactivating catalysts; recalled from memory). For a batch first order in the limiting substrate, k_app is
 /// proportional to the catalyst's concentration, not to its amount: the same recipe run at
 /// twice the scale (twice substrate, catalyst and solvent) has the same k_app with twice
 /// the metal. So rates are compared per catalyst-to-substrate ratio by default.
@@ -175,10 +175,12 @@ impl ActivityBasis {
     pub fn definition(self) -> &'static str {
         match self {
             ActivityBasis::CatalystRatio => {
-                "k_app per catalyst-to-substrate ratio (k_app × mol limiting substrate / mol                  metal charged), relative to the reference cycle"
+                "k_app per catalyst-to-substrate ratio (k_app × mol limiting substrate / mol \
+                 metal charged), relative to the reference cycle"
             }
             ActivityBasis::MetalCharged => {
-                "k_app per mol of metal charged, relative to the reference cycle (depends on                  the batch's scale)"
+                "k_app per mol of metal charged, relative to the reference cycle (depends on \
+                 the batch's scale)"
             }
         }
     }

@@ -162,8 +162,34 @@ pub fn lot_state_as_of(
         attention.extend(attention_from(a));
     }
     attention.extend(record_attention(&cycles));
+    let lot_flags = lot_attention(cfg, &rec, &reference, &mut attention);
+    let lifetime_ton = plateau_lifetime(&cycles);
+    Ok(LotState {
+        lot: lot.to_string(),
+        record,
+        cycles,
+        analysis,
+        basis: basis(cfg),
+        lifetime_ton,
+        attention,
+        activity_basis: cfg.chemistry.activity_basis,
+        reference_cycle: reference.cycle,
+        reference_moved: reference.moved,
+        lot_flags,
+    })
+}
+
+/// What the lot's registration and its activity reference ask of someone: a wet catalyst
+/// without a water content, a reference moved past a censored cycle 1. Returns the lot's
+/// flags and adds the attention lines.
+fn lot_attention(
+    cfg: &Config,
+    rec: &LotRecord,
+    reference: &ReferenceOf,
+    attention: &mut Vec<String>,
+) -> Vec<String> {
     let mut lot_flags = Vec::new();
-    let warnings = chem::lot_warnings(&rec);
+    let warnings = chem::lot_warnings(rec);
     if !warnings.is_empty() {
         lot_flags.push("water-content-missing".to_string());
     }
@@ -181,20 +207,7 @@ pub fn lot_state_as_of(
             cfg.chemistry.saturation
         ));
     }
-    let lifetime_ton = plateau_lifetime(&cycles);
-    Ok(LotState {
-        lot: lot.to_string(),
-        record,
-        cycles,
-        analysis,
-        basis: basis(cfg),
-        lifetime_ton,
-        attention,
-        activity_basis: cfg.chemistry.activity_basis,
-        reference_cycle: reference.cycle,
-        reference_moved: reference.moved,
-        lot_flags,
-    })
+    lot_flags
 }
 
 /// What activity was made relative to.

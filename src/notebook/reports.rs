@@ -24,6 +24,21 @@ fn report_forecast(f: &fit::Forecast) -> report::Forecast {
     }
 }
 
+/// What the fit's y is, with its basis and reference cycle.
+fn y_label(cfg: &Config, reference: Option<u32>) -> String {
+    if cfg.fitting.measure == Measure::Ton {
+        return "TON per cycle".into();
+    }
+    format!(
+        "activity (relative to cycle {}, per {})",
+        reference.unwrap_or(1),
+        match cfg.chemistry.activity_basis {
+            crate::chem::ActivityBasis::CatalystRatio => "catalyst-to-substrate ratio",
+            crate::chem::ActivityBasis::MetalCharged => "mol metal charged",
+        }
+    )
+}
+
 fn fit_summary(
     cfg: &Config,
     a: &fit::LotAnalysis,
@@ -76,18 +91,7 @@ fn fit_summary(
         } else {
             "cycle".into()
         },
-        y_label: if cfg.fitting.measure == Measure::Ton {
-            "TON per cycle".into()
-        } else {
-            format!(
-                "activity (relative to cycle {}, per {})",
-                reference.unwrap_or(1),
-                match cfg.chemistry.activity_basis {
-                    crate::chem::ActivityBasis::CatalystRatio => "catalyst-to-substrate ratio",
-                    crate::chem::ActivityBasis::MetalCharged => "mol metal charged",
-                }
-            )
-        },
+        y_label: y_label(cfg, reference),
         params,
         level: cfg.fitting.confidence,
         observed: a

@@ -10,7 +10,7 @@ use std::path::{Path, PathBuf};
 use serde::Deserialize;
 
 use crate::alert::AlertRules;
-use crate::chem::Route;
+use crate::chem::{ActivityBasis, DEFAULT_RATIO_TOLERANCE, Route};
 use crate::ingest::Profile;
 use crate::mail::MailConfig;
 use crate::watch::WatchFolder;
@@ -124,6 +124,17 @@ pub struct Chemistry {
     /// Metal-in-product limits by element, µg/g, overriding the built-in ICH Q3D values.
     #[serde(default)]
     pub metal_limits_ug_g: BTreeMap<String, f64>,
+    /// What activity compares k_app per: "catalyst-ratio" (the default: per mol metal /
+    /// mol limiting substrate, scale-free at constant substrate concentration) or
+    /// "metal-charged" (per mol of metal charged, which halves when the same recipe runs
+    /// at twice the scale).
+    #[serde(default)]
+    pub activity_basis: ActivityBasis,
+    /// A cycle whose catalyst-to-substrate ratio differs from the lot's usual one (median
+    /// of its complete cycles) by more than this fraction is flagged `ratio-off-usual`.
+    /// Default 0.25, a common practice placeholder.
+    #[serde(default = "default_ratio_tolerance")]
+    pub ratio_tolerance: f64,
 }
 
 /// The y of a lot's fit.
@@ -264,6 +275,9 @@ fn default_batch_files() -> usize {
 fn default_saturation() -> f64 {
     0.995
 }
+fn default_ratio_tolerance() -> f64 {
+    DEFAULT_RATIO_TOLERANCE
+}
 fn default_t_ref() -> f64 {
     60.0
 }
@@ -285,6 +299,8 @@ impl Default for Chemistry {
             reference_temperature_c: default_t_ref(),
             route: Route::default(),
             metal_limits_ug_g: BTreeMap::new(),
+            activity_basis: ActivityBasis::default(),
+            ratio_tolerance: default_ratio_tolerance(),
         }
     }
 }
@@ -387,6 +403,13 @@ impl Config {
             return Err(self.invalid(
                 "chemistry.reference_temperature_c",
                 "expected °C between -100 and 500",
+            ));
+        }
+        if !(c.ratio_tolerance.is_finite() && c.ratio_tolerance > 0.0 && c.ratio_tolerance <= 10.0)
+        {
+            return Err(self.invalid(
+                "chemistry.ratio_tolerance",
+                "expected a fraction above 0 and at most 10, e.g. 0.25",
             ));
         }
         for (metal, v) in &c.metal_limits_ug_g {

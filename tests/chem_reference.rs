@@ -32,6 +32,7 @@ fn pd_lot() -> LotFacts {
         metal: "Pd".into(),
         loading_wt_pct: 5.0,
         charged_mass_g: 0.500,
+        water_content_wt_pct: None,
     }
 }
 
@@ -332,6 +333,10 @@ fn pending_cycles_and_missing_quantities() {
 
 #[test]
 fn censored_reference_marks_later_activities() {
+    // Every cycle saturated: no uncensored cycle can stand in for cycle 1, so its bound
+    // stays the reference and every ratio to it is an upper bound, flagged as such.
+    // (When a later cycle is uncensored it becomes the reference instead; see
+    // tests/chem_activity.rs.)
     let base = CycleInput {
         duration_s: Some(3600.0),
         substrate_mol: Some(0.1),
@@ -346,16 +351,17 @@ fn censored_reference_marks_later_activities() {
         },
         CycleInput {
             cycle_no: 2,
-            conversion: Some(0.9),
+            conversion: Some(0.996),
+            duration_s: Some(7200.0),
             ..base
         },
     ];
     let m = cycle_metrics(&pd_lot(), &cycles, &ChemOptions::default());
     assert!(m[0].censored && m[0].flags.iter().any(|f| f == "censored"));
-    assert!(!m[1].censored);
+    assert!(m[1].censored);
     assert!(m[1].flags.iter().any(|f| f == "reference-censored"));
-    // a2 = ln 10 / −ln(0.005) = 2.302585 / 5.298317 = 0.434588, an upper bound.
-    assert_close!(some(m[1].activity), 0.434_587_990, 1e-8);
+    // Both at the bound −ln(0.005): a2 = (5.298317 / 2 h) / (5.298317 / 1 h) = 0.5.
+    assert_close!(some(m[1].activity), 0.5, 1e-12);
 }
 
 #[test]

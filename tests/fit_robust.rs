@@ -40,7 +40,7 @@ proptest! {
         } else {
             ys.clone()
         };
-        let s = LotSeries { x, y, censored, ton: vec![Some(100.0); n] };
+        let s = LotSeries { x, y, censored, ton: vec![Some(100.0); n], sd: Vec::new() };
         let a = analyse(&s, &AnalysisOptions::default());
         let js = serde_json::to_string(&a).expect("serialise");
         let back: LotAnalysis = serde_json::from_str(&js)

@@ -448,6 +448,40 @@ fn lot_sheet() {
 }
 
 #[test]
+fn lot_sheet_water_content() {
+    // An optional column: percent or fraction, an empty cell is a dry catalyst, 100 % or
+    // more is refused naming line, column and key.
+    let p = profile(&format!(
+        "{LOTS}columns.water_content = {{ header = \"water\", unit = \"%\" }}\n"
+    ));
+    let head = "lot,catalyst,metal,loading_pct,mass_g,received,supplier_lot,cost,water\n";
+    let text = format!("{head}L1,Pd/C paste,Pd,5,10,,,,50\nL2,Pt/C,Pt,1,10,,,,\n");
+    let Ok(ParsedFile::Lots(lots)) = parse(text.as_bytes(), &p) else {
+        panic!("not a lot sheet")
+    };
+    assert_eq!(lots[0].record.water_content_wt_pct, Some(50.0));
+    assert_eq!(lots[1].record.water_content_wt_pct, None);
+    for bad in ["100", "-3", "wet"] {
+        let e = parse(format!("{head}L1,Pd/C,Pd,5,10,,,,{bad}\n").as_bytes(), &p).unwrap_err();
+        assert_eq!(
+            pos(&e),
+            (Some(2), Some(9), Some("water_content")),
+            "{bad}: {e}"
+        );
+    }
+    let fraction = profile(&format!(
+        "{LOTS}columns.water_content = {{ header = \"water\", unit = \"fraction\" }}\n"
+    ));
+    let Ok(ParsedFile::Lots(lots)) = parse(
+        format!("{head}L1,Pd/C paste,Pd,5,10,,,,0.55\n").as_bytes(),
+        &fraction,
+    ) else {
+        panic!("not a lot sheet")
+    };
+    assert!((lots[0].record.water_content_wt_pct.unwrap() - 55.0).abs() < 1e-12);
+}
+
+#[test]
 fn lot_sheet_errors() {
     let p = profile(LOTS);
     let head = "lot,catalyst,metal,loading_pct,mass_g,received,supplier_lot,cost\n";

@@ -166,6 +166,11 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
             tof_per_h: Some(ton / hours),
             k_app_per_h: Some(k_app),
             activity: Some(activity),
+            activity_se: None,
+            tof_initial_per_h: None,
+            ton_per_metal_available: None,
+            metal_charged_mmol: Some(metal_mol * 1000.0),
+            metal_available_mmol: None,
             flags: CycleFlags {
                 censored,
                 corrected: n == 6,
@@ -256,6 +261,7 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
                 supplier_lot: Some("S-44-0917".to_string()),
                 cost: Some(4180.0),
                 site: Some("Demo plant, building 3".to_string()),
+                water_content_wt_pct: None,
             },
             currency: Some("EUR".to_string()),
         },
@@ -303,6 +309,7 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
              °C, z = 12.1)."
                 .to_string(),
         ],
+        activity_note: None,
     }
 }
 

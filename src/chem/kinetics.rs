@@ -35,6 +35,20 @@ pub fn metal_mol(catalyst_mass_g: f64, loading_wt_pct: f64, molar_mass: f64) -> 
     finite(catalyst_mass_g * loading_wt_pct / 100.0 / molar_mass)
 }
 
+/// Dry catalyst mass from a mass weighed wet: m_dry = m × (1 − w/100), w the water
+/// content in wt %. Precious metals on carbon are commonly charged as water-wet paste with
+/// the loading stated on a dry basis (common practice), so the metal is the dry mass ×
+/// loading / M, never the wet mass × loading. `None` for w outside 0 ≤ w < 100.
+pub fn dry_mass_g(weighed_g: f64, water_wt_pct: Option<f64>) -> Option<f64> {
+    let Some(w) = water_wt_pct else {
+        return positive(weighed_g).then_some(weighed_g);
+    };
+    if !(positive(weighed_g) && w.is_finite() && (0.0..100.0).contains(&w)) {
+        return None;
+    }
+    finite(weighed_g * (1.0 - w / 100.0)).filter(|m| *m > 0.0)
+}
+
 /// Yield from conversion and selectivity, for batches where yield is not measured.
 pub fn derived_yield(conversion: f64, selectivity: f64) -> Option<f64> {
     (fraction(conversion) && fraction(selectivity)).then_some(conversion * selectivity)
@@ -70,6 +84,25 @@ pub fn turnover_frequency(ton: f64, duration_s: f64) -> Option<Tof> {
     Some(Tof {
         per_h: finite(ton / (duration_s / 3600.0))?,
         per_s: finite(ton / duration_s)?,
+    })
+}
+
+/// Initial turnover frequency of a batch first order in the limiting substrate:
+/// TOF₀ = k_app·n_S/n_M, the rate at t = 0 (k_app·n_S, mol s⁻¹) per mol of metal.
+///
+/// Unlike TON/t over the whole batch (the average TOF), which stalls once a batch runs to
+/// completion, TOF₀ follows the catalyst's activity. The two are different quantities and
+/// are reported under different names (Kozuch & Martin, ACS Catal. 2012, 2, 2787, on TOF
+/// definitions; reference recalled from memory). With k_app from a censored cycle TOF₀ is
+/// a lower bound.
+pub fn initial_turnover_frequency(k_per_s: f64, substrate_mol: f64, metal_mol: f64) -> Option<Tof> {
+    if !(k_per_s.is_finite() && k_per_s >= 0.0 && positive(substrate_mol) && positive(metal_mol)) {
+        return None;
+    }
+    let per_s = finite(k_per_s * substrate_mol / metal_mol)?;
+    Some(Tof {
+        per_h: finite(per_s * 3600.0)?,
+        per_s,
     })
 }
 
@@ -151,6 +184,10 @@ mod tests {
         assert_eq!(metal_lost_g(-1.0, 10.0), None);
         assert_eq!(derived_yield(0.5, 1.5), None);
         assert_eq!(product_mol(0.0, 0.5), None);
+        assert_eq!(dry_mass_g(10.0, Some(100.0)), None);
+        assert_eq!(dry_mass_g(10.0, Some(-1.0)), None);
+        assert_eq!(dry_mass_g(10.0, None), Some(10.0));
+        assert_eq!(initial_turnover_frequency(1e-3, 0.1, 0.0), None);
     }
 
     #[test]

@@ -13,6 +13,7 @@ pub enum LotField {
     ChargedMass,
     Received,
     Cost,
+    WaterContent,
 }
 
 impl LotField {
@@ -24,6 +25,7 @@ impl LotField {
             LotField::ChargedMass => "charged_mass",
             LotField::Received => "received",
             LotField::Cost => "cost",
+            LotField::WaterContent => "water_content",
         }
     }
 }
@@ -65,7 +67,39 @@ pub fn check_lot(rec: &LotRecord) -> Result<(), LotProblem> {
     if rec.cost.is_some_and(|c| !(c.is_finite() && c >= 0.0)) {
         return fail(LotField::Cost, "a cost of 0 or more".into());
     }
+    if rec
+        .water_content_wt_pct
+        .is_some_and(|w| !(w.is_finite() && (0.0..100.0).contains(&w)))
+    {
+        return fail(
+            LotField::WaterContent,
+            "a water content of at least 0 and below 100 wt %".into(),
+        );
+    }
     Ok(())
+}
+
+/// True when a catalyst description says the catalyst is charged wet: a word "wet" or
+/// "paste" in it, in any case ("50 % water-wet paste", "Pd/C, WET").
+pub fn described_wet(catalyst: &str) -> bool {
+    catalyst
+        .split(|c: char| !c.is_alphabetic())
+        .any(|w| w.eq_ignore_ascii_case("wet") || w.eq_ignore_ascii_case("paste"))
+}
+
+/// What a registration should be warned about, though it is accepted: one line each.
+pub fn lot_warnings(rec: &LotRecord) -> Vec<String> {
+    let mut out = Vec::new();
+    if rec.water_content_wt_pct.is_none() && described_wet(&rec.catalyst) {
+        out.push(format!(
+            "lot '{}': the catalyst is described as wet or paste (\"{}\") but no water content \
+             is registered, so its metal is computed on the mass as weighed: if that mass is \
+             wet, metal is overstated and TON and TOF understated; register the water content \
+             (wt %)",
+            rec.lot, rec.catalyst
+        ));
+    }
+    out
 }
 
 #[cfg(test)]
@@ -83,6 +117,7 @@ mod tests {
             supplier_lot: None,
             cost: Some(100.0),
             site: None,
+            water_content_wt_pct: None,
         }
     }
 
@@ -90,7 +125,7 @@ mod tests {
     fn each_rule_names_its_field() {
         assert_eq!(check_lot(&lot()), Ok(()));
         type Spoil = fn(&mut LotRecord);
-        let cases: [(Spoil, LotField); 5] = [
+        let cases: [(Spoil, LotField); 7] = [
             (|l| l.metal = "Xx".into(), LotField::Metal),
             (|l| l.loading_wt_pct = 0.0, LotField::Loading),
             (|l| l.charged_mass_g = f64::NAN, LotField::ChargedMass),
@@ -99,11 +134,41 @@ mod tests {
                 LotField::Received,
             ),
             (|l| l.cost = Some(-1.0), LotField::Cost),
+            (
+                |l| l.water_content_wt_pct = Some(100.0),
+                LotField::WaterContent,
+            ),
+            (
+                |l| l.water_content_wt_pct = Some(f64::NAN),
+                LotField::WaterContent,
+            ),
         ];
         for (spoil, field) in cases {
             let mut l = lot();
             spoil(&mut l);
             assert_eq!(check_lot(&l).map_err(|p| p.field), Err(field));
         }
+        let mut l = lot();
+        l.water_content_wt_pct = Some(0.0);
+        assert_eq!(check_lot(&l), Ok(()));
+    }
+
+    #[test]
+    fn wet_descriptions_warn_without_water_content() {
+        for wet in [
+            "5 % Pd/C (50 % water-wet paste)",
+            "Pd/C WET",
+            "Raney Ni paste",
+        ] {
+            assert!(described_wet(wet), "{wet}");
+        }
+        for dry in ["5 % Pd/C", "Pt/Al2O3 spheres", "Pd on carbon, between lots"] {
+            assert!(!described_wet(dry), "{dry}");
+        }
+        let mut l = lot();
+        l.catalyst = "5 % Pd/C (50 % water-wet paste)".into();
+        assert_eq!(lot_warnings(&l).len(), 1);
+        l.water_content_wt_pct = Some(50.0);
+        assert!(lot_warnings(&l).is_empty());
     }
 }

@@ -4,9 +4,11 @@ use serde::{Deserialize, Serialize};
 
 use super::elements::molar_mass;
 use super::kinetics::{
-    DEFAULT_SATURATION, apparent_rate_constant, arrhenius_to_reference, derived_yield,
-    metal_lost_g, metal_mol, product_mol, turnover_frequency, turnover_number,
+    DEFAULT_SATURATION, apparent_rate_constant, arrhenius_to_reference, derived_yield, dry_mass_g,
+    initial_turnover_frequency, metal_lost_g, metal_mol, product_mol, turnover_frequency,
+    turnover_number,
 };
+use super::uncertainty::{rate_constant_se, ratio_relative_se};
 use crate::model::{LotRecord, Quantity};
 
 /// What is known about a lot from its registration.
@@ -16,8 +18,12 @@ pub struct LotFacts {
     pub metal: String,
     /// Metal loading, wt % (5.0 = 5 wt %).
     pub loading_wt_pct: f64,
-    /// Catalyst mass charged at the first cycle, g.
+    /// Catalyst mass charged at the first cycle, g, as weighed.
     pub charged_mass_g: f64,
+    /// Water content of the catalyst as charged, wt % (0 ≤ w < 100), for catalysts
+    /// charged water-wet; `None` when charged dry.
+    #[serde(default)]
+    pub water_content_wt_pct: Option<f64>,
 }
 
 impl From<&LotRecord> for LotFacts {
@@ -26,6 +32,7 @@ impl From<&LotRecord> for LotFacts {
             metal: row.metal.clone(),
             loading_wt_pct: row.loading_wt_pct,
             charged_mass_g: row.charged_mass_g,
+            water_content_wt_pct: row.water_content_wt_pct,
         }
     }
 }
@@ -45,6 +52,10 @@ pub struct CycleInput {
     pub product_mass_g: Option<f64>,
     pub metal_in_product_ug_per_g: Option<f64>,
     pub catalyst_recovered_g: Option<f64>,
+    /// Standard uncertainty σ_X of the conversion, as a fraction (from the assay's
+    /// profile); `None` when not stated.
+    #[serde(default)]
+    pub conversion_sd: Option<f64>,
 }
 
 impl CycleInput {
@@ -106,7 +117,17 @@ pub struct ChemOptions {
     pub t_ref_k: f64,
     /// Quantities a site requires beyond the four every complete cycle needs.
     pub required: Vec<Quantity>,
+    /// What the rates of two cycles are compared per (see [`ActivityBasis`]).
+    pub activity_basis: ActivityBasis,
+    /// A cycle whose catalyst-to-substrate ratio differs from the lot's usual one (the
+    /// median of its complete cycles) by more than this fraction is flagged
+    /// `ratio-off-usual`.
+    pub ratio_tolerance: f64,
 }
+
+/// Default of [`ChemOptions::ratio_tolerance`]: 0.25, a common practice placeholder (a
+/// recipe change of a quarter is one a chemist would name), not a value from a source.
+pub const DEFAULT_RATIO_TOLERANCE: f64 = 0.25;
 
 impl Default for ChemOptions {
     fn default() -> Self {
@@ -115,6 +136,52 @@ impl Default for ChemOptions {
             activation_energy_j_per_mol: None,
             t_ref_k: 298.15,
             required: Vec::new(),
+            activity_basis: ActivityBasis::default(),
+            ratio_tolerance: DEFAULT_RATIO_TOLERANCE,
+        }
+    }
+}
+
+/// What activity compares: the rate of a cycle per what amount of catalyst.
+///
+/// Activity is Levenspiel's ratio a = rate with the used catalyst / rate with the fresh
+/// catalyst under the same conditions (Levenspiel, Chemical Reaction Engineering, the
+/// chapter on deactivating catalysts; recalled from memory). For a batch first order in the limiting substrate, k_app is
+/// proportional to the catalyst's concentration, not to its amount: the same recipe run at
+/// twice the scale (twice substrate, catalyst and solvent) has the same k_app with twice
+/// the metal. So rates are compared per catalyst-to-substrate ratio by default.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum ActivityBasis {
+    /// k_app per catalyst-to-substrate ratio: k_app / (n_metal / n_substrate) =
+    /// k_app·n_substrate/n_metal (equal to the initial TOF). Scale-free at constant
+    /// substrate concentration.
+    #[default]
+    CatalystRatio,
+    /// k_app per mol of metal charged: k_app / n_metal. Depends on the batch's scale.
+    MetalCharged,
+}
+
+impl ActivityBasis {
+    /// The configuration's name of the basis.
+    pub fn key(self) -> &'static str {
+        match self {
+            ActivityBasis::CatalystRatio => "catalyst-ratio",
+            ActivityBasis::MetalCharged => "metal-charged",
+        }
+    }
+
+    /// The definition in words, as tables and reports state it.
+    pub fn definition(self) -> &'static str {
+        match self {
+            ActivityBasis::CatalystRatio => {
+                "k_app per catalyst-to-substrate ratio (k_app × mol limiting substrate / mol \
+                 metal charged), relative to the reference cycle"
+            }
+            ActivityBasis::MetalCharged => {
+                "k_app per mol of metal charged, relative to the reference cycle (depends on \
+                 the batch's scale)"
+            }
         }
     }
 }
@@ -138,44 +205,107 @@ pub struct CycleMetrics {
     /// Catalyst charged, g, and where that figure came from.
     pub catalyst_charged_g: Option<f64>,
     pub charge_source: Option<ChargeSource>,
-    /// Metal charged, mol (measured directly, or from mass × loading / M).
+    /// Metal charged (nominal), mol: measured directly, or the dry catalyst mass ×
+    /// loading / M.
     pub metal_mol: Option<f64>,
+    /// Metal available to this cycle, mol: the nominal metal less the metal measured in
+    /// the products of the earlier cycles (see [`lot_metrics`]).
+    pub metal_available_mol: Option<f64>,
+    /// Catalyst-to-substrate ratio, mol metal charged / mol limiting substrate.
+    pub catalyst_ratio: Option<f64>,
     pub yield_used: Option<f64>,
     pub yield_derived: bool,
     pub product_mol: Option<f64>,
+    /// TON per mol of metal charged (nominal).
     pub ton: Option<f64>,
+    /// TON per mol of metal available to the cycle.
+    pub ton_available: Option<f64>,
+    /// Average TOF: TON over the whole reaction time.
     pub tof_per_h: Option<f64>,
     pub tof_per_s: Option<f64>,
+    /// Initial TOF: k_app·n_substrate/n_metal (first-order batch); a lower bound when the
+    /// cycle is censored.
+    pub initial_tof_per_h: Option<f64>,
+    pub initial_tof_per_s: Option<f64>,
     /// Σ mol product up to this cycle / mol metal charged initially.
     pub cumulative_ton: Option<f64>,
     pub k_app_per_s: Option<f64>,
     pub k_app_per_h: Option<f64>,
+    /// Standard error of k_app propagated from the conversion assay's σ, h⁻¹.
+    pub k_app_se_per_h: Option<f64>,
     /// k_app is a lower bound (conversion at or above saturation).
     pub censored: bool,
     /// k_app normalised to the reference temperature, s⁻¹ (only when Ea is set).
     pub k_ref_per_s: Option<f64>,
-    /// Levenspiel activity relative to cycle 1, per mol of metal charged.
+    /// Levenspiel activity relative to the reference cycle, on the configured
+    /// [`ActivityBasis`]; a lower bound when the cycle is censored.
     pub activity: Option<f64>,
+    /// Standard error of `activity`, first order, the reference cycle's error included
+    /// (0 for the reference cycle itself, whose activity is 1 by definition).
+    pub activity_se: Option<f64>,
+    /// The part of `activity`'s standard error that is this cycle's own: its k_app's
+    /// relative error × activity. The reference's error is a factor common to every
+    /// cycle (a fitted a0 absorbs it), so a fit that treats cycles as independent is
+    /// weighted by this part.
+    pub activity_sd_own: Option<f64>,
     pub metal_lost_g: Option<f64>,
     /// Σ metal lost up to this cycle / metal charged initially.
     pub cumulative_loss_fraction: Option<f64>,
     /// What a complete cycle still lacks; empty when complete.
     pub missing: Vec<Quantity>,
-    /// "pending", "censored", "derived-yield", "reference-censored", ...
+    /// "pending", "censored", "derived-yield", "reference-censored", "ratio-off-usual",
+    /// "initial-tof-lower-bound", "reference-first-uncensored", ...
     pub flags: Vec<String>,
 }
 
-/// Compute every cycle's metrics for one lot. Output is in ascending cycle order.
-///
-/// Catalyst charged in cycle n: the cycle's own catalyst mass if weighed, else the mass
-/// recovered after cycle n − 1, else (cycle 1 only) the lot's registered charge. The
-/// recovered catalyst is assumed to keep the lot's loading (common practice; leached
-/// metal is accounted separately in the loss fraction).
+/// A lot's metrics: every cycle's, and what activity was made relative to.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct LotMetrics {
+    /// In ascending cycle order.
+    pub cycles: Vec<CycleMetrics>,
+    /// What activity compares.
+    pub basis: ActivityBasis,
+    /// The cycle whose rate is activity 1: cycle 1, or the first uncensored cycle when
+    /// cycle 1 is censored; `None` when no cycle can serve.
+    pub reference_cycle: Option<u32>,
+    /// True when cycle 1 is censored and a later, uncensored cycle is the reference.
+    pub reference_moved: bool,
+    /// The lot's usual catalyst-to-substrate ratio: the median over its complete cycles.
+    pub usual_ratio: Option<f64>,
+}
+
+/// Compute every cycle's metrics for one lot. Output is in ascending cycle order. See
+/// [`lot_metrics`].
 pub fn cycle_metrics(
     lot: &LotFacts,
     cycles: &[CycleInput],
     opts: &ChemOptions,
 ) -> Vec<CycleMetrics> {
+    lot_metrics(lot, cycles, opts).cycles
+}
+
+/// Compute every cycle's metrics for one lot, and the reference of its activities.
+///
+/// Catalyst charged in cycle n: the cycle's own catalyst mass if weighed, else the mass
+/// recovered after cycle n − 1, else (cycle 1 only) the lot's registered charge. Masses
+/// are taken as weighed in the state the lot was registered in: with a water content w,
+/// every catalyst mass of the lot counts as m × (1 − w/100) dry (an assumption: record the
+/// metal charged directly where a recovered catalyst is weighed otherwise). The metal
+/// charged (nominal) is the dry mass × loading / M, the recovered catalyst assumed to keep
+/// the lot's loading (common practice).
+///
+/// Metal inventory: the metal available to cycle n is its nominal metal less the metal
+/// measured in the products of cycles 1..n−1 (µg/g × product mass); a cycle whose metal
+/// was measured directly takes that measurement as available. TON per mol available is
+/// given beside TON per mol charged. An earlier cycle without a leaching figure makes the
+/// figure partial (flag `metal-available-partial`).
+///
+/// Activity: the rate on [`ChemOptions::activity_basis`] over that of the reference
+/// cycle. The reference is cycle 1 (the fresh catalyst); when cycle 1 is censored its
+/// k_app is only a lower bound, so the first uncensored cycle is the reference instead
+/// (flag `reference-first-uncensored` on every activity made relative to it). A censored
+/// cycle's activity is the bound at conversion = saturation: a lower bound.
+pub fn lot_metrics(lot: &LotFacts, cycles: &[CycleInput], opts: &ChemOptions) -> LotMetrics {
     let mut sorted: Vec<&CycleInput> = cycles.iter().collect();
     sorted.sort_by_key(|c| c.cycle_no);
     let m_metal = molar_mass(&lot.metal);
@@ -189,23 +319,37 @@ pub fn cycle_metrics(
         out.push(one_cycle(lot, c, prev, m_metal, opts));
     }
 
-    // Initial metal: cycle 1 as charged, else the lot's registered charge.
+    // Initial metal: cycle 1 as charged, else the lot's registered charge (dry basis).
     let initial_mol = out
         .iter()
         .find(|m| m.cycle_no == 1)
         .and_then(|m| m.metal_mol)
-        .or_else(|| m_metal.and_then(|mm| metal_mol(lot.charged_mass_g, lot.loading_wt_pct, mm)));
-    let reference = out
-        .iter()
-        .find(|m| m.cycle_no == 1)
-        .and_then(|m| specific_rate(m, opts).map(|r| (r, m.censored)));
+        .or_else(|| {
+            let dry = dry_mass_g(lot.charged_mass_g, lot.water_content_wt_pct)?;
+            metal_mol(dry, lot.loading_wt_pct, m_metal?)
+        });
+    let reference = choose_reference(&out, opts);
 
     // Sums over the cycles known so far; None until at least one term is known.
     let mut product_sum: Option<f64> = None;
     let mut product_gap = false;
     let mut lost_sum: Option<f64> = None;
     let mut lost_gap = false;
-    for m in &mut out {
+    // Metal lost before the cycle at hand, mol, and whether an earlier figure is missing.
+    let mut lost_before_mol = 0.0;
+    let mut lost_before_gap = false;
+    let mut expected_no = 1;
+    for (m, input) in out.iter_mut().zip(&sorted) {
+        if m.cycle_no != expected_no {
+            // Earlier cycles are not recorded (yet): their leaching is unknown.
+            lost_before_gap = true;
+        }
+        expected_no = m.cycle_no.saturating_add(1);
+        inventory(m, input, lost_before_mol, lost_before_gap);
+        match (m.metal_lost_g, m_metal) {
+            (Some(g), Some(mm)) => lost_before_mol += g / mm,
+            _ => lost_before_gap = true,
+        }
         match m.product_mol {
             Some(p) => product_sum = Some(product_sum.unwrap_or(0.0) + p),
             None => product_gap = true,
@@ -225,29 +369,166 @@ pub fn cycle_metrics(
         if lost_gap {
             m.flags.push("cumulative-loss-partial".into());
         }
-        match reference {
-            Some((r1, ref_censored)) if r1 > 0.0 => {
-                m.activity = specific_rate(m, opts).and_then(|r| finite(r / r1));
-                if ref_censored && m.activity.is_some() && m.cycle_no != 1 {
-                    // k of cycle 1 is a lower bound, so this ratio is an upper bound.
-                    m.flags.push("reference-censored".into());
-                }
+        relative_activity(m, reference.as_ref(), opts);
+    }
+    let usual_ratio = median(
+        out.iter()
+            .filter(|m| m.missing.is_empty())
+            .filter_map(|m| m.catalyst_ratio)
+            .collect(),
+    );
+    if let Some(usual) = usual_ratio.filter(|u| *u > 0.0)
+        && opts.ratio_tolerance.is_finite()
+        && opts.ratio_tolerance > 0.0
+    {
+        for m in &mut out {
+            if m.catalyst_ratio
+                .is_some_and(|r| (r / usual - 1.0).abs() > opts.ratio_tolerance)
+            {
+                m.flags.push("ratio-off-usual".into());
             }
-            _ => m.flags.push("no-reference".into()),
         }
     }
-    out
+    LotMetrics {
+        cycles: out,
+        basis: opts.activity_basis,
+        reference_cycle: reference.as_ref().map(|r| r.cycle_no),
+        reference_moved: reference.as_ref().is_some_and(|r| r.moved),
+        usual_ratio,
+    }
 }
 
-/// k per mol of metal charged, normalised to T_ref when Ea is configured.
+/// The rate activity is made relative to.
+struct Reference {
+    cycle_no: u32,
+    /// Its specific rate on the configured basis.
+    rate: f64,
+    /// Its k_app's relative standard error, when the assay's σ is known.
+    rel_se: Option<f64>,
+    censored: bool,
+    /// A later cycle stands in for a censored cycle 1.
+    moved: bool,
+}
+
+/// Cycle 1 when its rate is exact; the first uncensored cycle with a positive rate when
+/// cycle 1 is censored; cycle 1's bound when no cycle is uncensored (flagged
+/// `reference-censored`: every ratio to it is then an upper bound).
+fn choose_reference(out: &[CycleMetrics], opts: &ChemOptions) -> Option<Reference> {
+    let usable = |m: &CycleMetrics| specific_rate(m, opts).filter(|r| *r > 0.0);
+    let first = out.iter().find(|m| m.cycle_no == 1)?;
+    let r1 = usable(first)?;
+    let make = |m: &CycleMetrics, rate: f64, moved: bool| Reference {
+        cycle_no: m.cycle_no,
+        rate,
+        rel_se: relative_se(m),
+        censored: m.censored,
+        moved,
+    };
+    if !first.censored {
+        return Some(make(first, r1, false));
+    }
+    let later = out
+        .iter()
+        .filter(|m| m.cycle_no > 1 && !m.censored)
+        .find_map(|m| usable(m).map(|r| (m, r)));
+    Some(match later {
+        Some((m, r)) => make(m, r, true),
+        None => make(first, r1, false),
+    })
+}
+
+/// se(k_app)/k_app of a cycle, when known and k_app > 0.
+fn relative_se(m: &CycleMetrics) -> Option<f64> {
+    let k = m.k_app_per_h.filter(|k| *k > 0.0)?;
+    finite(m.k_app_se_per_h? / k)
+}
+
+/// Fill a cycle's activity and its standard errors from the reference.
+///
+/// a = s/s_ref with s the specific rate; to first order (delta method for a quotient of
+/// independent estimates), (se(a)/a)² = (se(k)/k)² + (se(k_ref)/k_ref)², since the other
+/// factors of s (mol substrate, mol metal, the Arrhenius factor) are taken as exact.
+fn relative_activity(m: &mut CycleMetrics, reference: Option<&Reference>, opts: &ChemOptions) {
+    let Some(r) = reference else {
+        m.flags.push("no-reference".into());
+        return;
+    };
+    m.activity = specific_rate(m, opts).and_then(|s| finite(s / r.rate));
+    let Some(a) = m.activity else { return };
+    if m.cycle_no != r.cycle_no {
+        if r.censored {
+            // The reference's k is a lower bound, so this ratio is an upper bound.
+            m.flags.push("reference-censored".into());
+        }
+        if r.moved {
+            m.flags.push("reference-first-uncensored".into());
+        }
+    }
+    if m.censored || r.censored {
+        return;
+    }
+    let (Some(own), Some(rel_ref)) = (relative_se(m), r.rel_se) else {
+        return;
+    };
+    m.activity_sd_own = finite(a * own);
+    m.activity_se = if m.cycle_no == r.cycle_no {
+        // a ≡ 1: the cycle's error cancels in its ratio to itself.
+        Some(0.0)
+    } else {
+        ratio_relative_se(own, rel_ref).and_then(|rel| finite(a * rel))
+    };
+}
+
+/// Metal available to the cycle and TON per mol of it.
+fn inventory(m: &mut CycleMetrics, input: &CycleInput, lost_before_mol: f64, gap: bool) {
+    let measured = input
+        .metal_charged_mol
+        .is_some_and(|n| n.is_finite() && n > 0.0);
+    let available = if measured {
+        m.metal_mol
+    } else {
+        m.metal_mol.map(|n| n - lost_before_mol)
+    };
+    m.metal_available_mol = available.filter(|n| n.is_finite() && *n > 0.0);
+    if m.metal_mol.is_some() && m.metal_available_mol.is_none() {
+        m.flags.push("metal-available-invalid".into());
+    }
+    if gap && !measured && m.metal_available_mol.is_some() {
+        m.flags.push("metal-available-partial".into());
+    }
+    m.ton_available = match (m.product_mol, m.metal_available_mol) {
+        (Some(p), Some(n)) => turnover_number(p, n),
+        _ => None,
+    };
+}
+
+/// The median of finite values; `None` for none.
+fn median(mut v: Vec<f64>) -> Option<f64> {
+    v.retain(|x| x.is_finite());
+    if v.is_empty() {
+        return None;
+    }
+    v.sort_by(f64::total_cmp);
+    let n = v.len();
+    Some(if n % 2 == 1 {
+        v[n / 2]
+    } else {
+        (v[n / 2 - 1] + v[n / 2]) / 2.0
+    })
+}
+
+/// The rate a cycle is compared by, on the configured basis: k (normalised to T_ref when
+/// Ea is configured) per catalyst-to-substrate ratio, or per mol of metal charged.
 fn specific_rate(m: &CycleMetrics, opts: &ChemOptions) -> Option<f64> {
     let k = if opts.activation_energy_j_per_mol.is_some() {
         m.k_ref_per_s?
     } else {
         m.k_app_per_s?
     };
-    let n = m.metal_mol.filter(|n| *n > 0.0)?;
-    finite(k / n)
+    match opts.activity_basis {
+        ActivityBasis::CatalystRatio => finite(k / m.catalyst_ratio.filter(|r| *r > 0.0)?),
+        ActivityBasis::MetalCharged => finite(k / m.metal_mol.filter(|n| *n > 0.0)?),
+    }
 }
 
 fn finite(x: f64) -> Option<f64> {
@@ -266,6 +547,7 @@ fn sanitized(c: &CycleInput, flags: &mut Vec<String>) -> CycleInput {
             None => {}
         }
     }
+    clean.conversion_sd = c.conversion_sd.filter(|s| s.is_finite() && *s >= 0.0);
     clean
 }
 
@@ -294,7 +576,8 @@ fn one_cycle(
         Some(n)
     } else {
         match (catalyst_charged_g, m_metal) {
-            (Some(g), Some(mm)) => metal_mol(g, lot.loading_wt_pct, mm),
+            (Some(g), Some(mm)) => dry_mass_g(g, lot.water_content_wt_pct)
+                .and_then(|dry| metal_mol(dry, lot.loading_wt_pct, mm)),
             (Some(_), None) => {
                 flags.push("unknown-metal".into());
                 None
@@ -330,6 +613,21 @@ fn one_cycle(
     let censored = k.is_some_and(|k| k.censored);
     if censored {
         flags.push("censored".into());
+    }
+    let k_se = match (k, c.conversion, c.duration_s, c.conversion_sd) {
+        (Some(k), Some(x), Some(d), Some(sd)) if !k.censored => rate_constant_se(x, d, sd),
+        _ => None,
+    };
+    let catalyst_ratio = match (metal, c.substrate_mol) {
+        (Some(n), Some(s)) if s > 0.0 => finite(n / s),
+        _ => None,
+    };
+    let tof0 = match (k, c.substrate_mol, metal) {
+        (Some(k), Some(s), Some(n)) => initial_turnover_frequency(k.per_s, s, n),
+        _ => None,
+    };
+    if censored && tof0.is_some() {
+        flags.push("initial-tof-lower-bound".into());
     }
     let k_ref = match (k, opts.activation_energy_j_per_mol, c.temperature_k) {
         (Some(k), Some(ea), Some(t)) => arrhenius_to_reference(k.per_s, t, opts.t_ref_k, ea),
@@ -373,18 +671,26 @@ fn one_cycle(
         catalyst_charged_g,
         charge_source,
         metal_mol: metal,
+        metal_available_mol: None,
+        catalyst_ratio,
         yield_used,
         yield_derived: yield_derived && yield_used.is_some(),
         product_mol: product,
         ton,
+        ton_available: None,
         tof_per_h: tof.map(|t| t.per_h),
         tof_per_s: tof.map(|t| t.per_s),
+        initial_tof_per_h: tof0.map(|t| t.per_h),
+        initial_tof_per_s: tof0.map(|t| t.per_s),
         cumulative_ton: None,
         k_app_per_s: k.map(|k| k.per_s),
         k_app_per_h: k.and_then(|k| finite(k.per_s * 3600.0)),
+        k_app_se_per_h: k_se.and_then(|se| finite(se * 3600.0)),
         censored,
         k_ref_per_s: k_ref,
         activity: None,
+        activity_se: None,
+        activity_sd_own: None,
         metal_lost_g: lost,
         cumulative_loss_fraction: None,
         missing,

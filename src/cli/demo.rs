@@ -244,9 +244,9 @@ fn icp_file(rows: &[&DemoBatch]) -> String {
 }
 
 const LOT_SHEET: &str = "\
-lot,catalyst,metal,loading (%),charged mass (g),received,supplier lot,cost
-PD-C-2611-A,5 % Pd/C (50 % water-wet paste),Pd,5.0,10.0,2026-09-28,NS-55120,6400
-PT-AL-2610-B,1 % Pt/Al2O3 spheres,Pt,1.0,25.0,2026-09-21,NS-54877,5100
+lot,catalyst,metal,loading (%),charged mass (g),received,supplier lot,cost,water (%)
+PD-C-2611-A,5 % Pd/C (50 % water-wet paste),Pd,5.0,10.0,2026-09-28,NS-55120,6400,50
+PT-AL-2610-B,1 % Pt/Al2O3 spheres,Pt,1.0,25.0,2026-09-21,NS-54877,5100,
 ";
 
 /// Files of one batch, as (relative path, bytes).

@@ -17,10 +17,14 @@ pub fn register(cfg: &Config, a: &RegisterArgs) -> CmdResult {
         supplier_lot: a.supplier_lot.clone(),
         cost: a.cost,
         site: a.site.clone(),
+        water_content_wt_pct: a.water_content,
     };
     let r = entries::register(cfg, &rec, a.reason.as_deref())?;
     let verb = if r.changed { "changed" } else { "registered" };
     println!("lot '{}' {verb} (event {})", rec.lot, r.receipt.seq);
+    for w in &r.warnings {
+        eprintln!("warning: {w}");
+    }
     Ok(0)
 }
 

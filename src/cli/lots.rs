@@ -4,7 +4,10 @@ use std::fmt::Write as _;
 
 use super::{CmdResult, Failure, fmt_opt};
 use crate::config::Config;
-use crate::notebook::{cycle_lines, known_lot, lot_lines};
+use crate::notebook::{
+    CycleLine, LotState, TOF_AVERAGE_DEFINITION, TOF_INITIAL_DEFINITION, cycle_lines,
+    cycles_document, known_lot, lot_lines,
+};
 
 /// `turnbook lots`.
 pub fn lots(cfg: &Config, json: bool) -> CmdResult {
@@ -90,10 +93,7 @@ pub fn cycles(cfg: &Config, lot: &str, format: &str) -> CmdResult {
     let s = known_lot(cfg, lot)?;
     let lines = cycle_lines(&s);
     match format {
-        "json" => println!(
-            "{}",
-            serde_json::to_string_pretty(&serde_json::json!({"lot": lot, "cycles": lines}))?
-        ),
+        "json" => println!("{}", serde_json::to_string_pretty(&cycles_document(&s))?),
         "csv" => {
             let mut w = csv::Writer::from_writer(std::io::stdout());
             for l in &lines {
@@ -102,51 +102,73 @@ pub fn cycles(cfg: &Config, lot: &str, format: &str) -> CmdResult {
             }
             w.flush()?;
         }
-        _ => {
-            if let Some(r) = &s.record {
-                println!(
-                    "lot {} — {} ({} {} wt %, {} g charged)",
-                    r.lot, r.catalyst, r.metal, r.loading_wt_pct, r.charged_mass_g
-                );
-            } else {
-                println!("lot {lot} — not registered: its cycles are pending");
-            }
-            println!(
-                "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>7} {:>7} {:>8}  flags / sources",
-                "cycle",
-                "batch",
-                "T °C",
-                "t h",
-                "conv",
-                "yield",
-                "TON",
-                "TOF h⁻¹",
-                "k h⁻¹",
-                "act.",
-                "M µg/g"
-            );
-            for l in &lines {
-                println!(
-                    "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>7} {:>7} {:>8}  {} | {}",
-                    l.cycle,
-                    l.batch_id,
-                    fmt_opt(l.temperature_c, 1),
-                    fmt_opt(l.duration_h, 2),
-                    fmt_opt(l.conversion, 4),
-                    fmt_opt(l.yield_fraction, 4),
-                    fmt_opt(l.ton, 1),
-                    fmt_opt(l.tof_per_h, 1),
-                    fmt_opt(l.k_app_per_h, 3),
-                    fmt_opt(l.activity, 3),
-                    fmt_opt(l.metal_in_product_ug_g, 2),
-                    if l.flags.is_empty() { "-" } else { &l.flags },
-                    l.sources
-                );
-            }
-            for a in &s.attention {
-                println!("attention: {a}");
-            }
-        }
+        _ => cycles_table(&s, lot, &lines),
     }
     Ok(0)
+}
+
+fn cycles_table(s: &LotState, lot: &str, lines: &[CycleLine]) {
+    if let Some(r) = &s.record {
+        let water = r
+            .water_content_wt_pct
+            .map(|w| format!(", {w} wt % water: metal on the dry mass"))
+            .unwrap_or_default();
+        println!(
+            "lot {} — {} ({} {} wt %, {} g charged{water})",
+            r.lot, r.catalyst, r.metal, r.loading_wt_pct, r.charged_mass_g
+        );
+    } else {
+        println!("lot {lot} — not registered: its cycles are pending");
+    }
+    let reference = s
+        .reference_cycle
+        .map_or("no reference cycle yet".to_string(), |n| {
+            format!("cycle {n} = 1")
+        });
+    println!("activity: {} ({reference})", s.activity_basis.definition());
+    println!("TOF avg: {TOF_AVERAGE_DEFINITION}; TOF₀: {TOF_INITIAL_DEFINITION}");
+    println!(
+        "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>8} {:>8} {:>7} {:>7} {:>6} {:>8}  flags / sources",
+        "cycle",
+        "batch",
+        "T °C",
+        "t h",
+        "conv",
+        "yield",
+        "TON",
+        "TON av.",
+        "TOFavg/h",
+        "TOF₀/h",
+        "k h⁻¹",
+        "act.",
+        "± se",
+        "M µg/g"
+    );
+    for l in lines {
+        println!(
+            "{:>5} {:<12} {:>6} {:>6} {:>7} {:>7} {:>8} {:>8} {:>8} {:>8} {:>7} {:>7} {:>6} {:>8}  {} | {}",
+            l.cycle,
+            l.batch_id,
+            fmt_opt(l.temperature_c, 1),
+            fmt_opt(l.duration_h, 2),
+            fmt_opt(l.conversion, 4),
+            fmt_opt(l.yield_fraction, 4),
+            fmt_opt(l.ton, 1),
+            fmt_opt(l.ton_per_metal_available, 1),
+            fmt_opt(l.tof_per_h, 1),
+            fmt_opt(l.tof_initial_per_h, 1),
+            fmt_opt(l.k_app_per_h, 3),
+            fmt_opt(l.activity, 3),
+            fmt_opt(l.activity_se, 3),
+            fmt_opt(l.metal_in_product_ug_g, 2),
+            if l.flags.is_empty() { "-" } else { &l.flags },
+            l.sources
+        );
+    }
+    println!(
+        "TON av.: TON per mol metal available (charged less the metal found in earlier products)"
+    );
+    for a in &s.attention {
+        println!("attention: {a}");
+    }
 }

@@ -161,6 +161,10 @@ pub struct RegisterArgs {
     pub cost: Option<f64>,
     #[arg(long)]
     pub site: Option<String>,
+    /// Water content of the catalyst as charged, wt % (0 to below 100), for a catalyst
+    /// charged water-wet: metal is computed on the dry mass.
+    #[arg(long)]
+    pub water_content: Option<f64>,
     /// Why (required when changing an existing lot).
     #[arg(long)]
     pub reason: Option<String>,

@@ -50,6 +50,10 @@ pub struct LotSeries {
     /// Per point: TON of that cycle, if known. Empty = none.
     #[serde(default)]
     pub ton: Vec<Option<f64>>,
+    /// Per point: standard error of y (propagated from the assay's uncertainty), if known.
+    /// Empty = unweighted.
+    #[serde(default)]
+    pub sd: Vec<Option<f64>>,
 }
 
 /// What to analyse and how.

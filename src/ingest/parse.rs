@@ -509,6 +509,7 @@ impl Layout {
         let mut received = None;
         let mut supplier_lot = None;
         let mut cost = None;
+        let mut water = None;
         for b in &self.bound {
             let raw = record.get(b.index).unwrap_or("");
             let cell = Cell {
@@ -529,6 +530,7 @@ impl Layout {
                 }
                 Field::SupplierLot => supplier_lot = cell.text_value()?,
                 Field::Cost => cost = cell.cost(profile.decimal)?,
+                Field::WaterContent => water = cell.water_content(b.unit, profile.decimal)?,
                 _ => {}
             }
         }
@@ -559,6 +561,7 @@ impl Layout {
                 supplier_lot,
                 cost,
                 site: None,
+                water_content_wt_pct: water,
             },
         };
         // The cells were checked one by one above; the registration as a whole meets the
@@ -773,6 +776,27 @@ impl Cell<'_> {
         } else {
             Err(self.fail(
                 "a mass greater than 0",
+                &format!("{} {}", shown(self.raw), unit.symbol()),
+            ))
+        }
+    }
+
+    /// The catalyst's water content as charged, wt %; an empty cell is a dry catalyst.
+    fn water_content(
+        &self,
+        unit: Option<Unit>,
+        mark: DecimalMark,
+    ) -> Result<Option<f64>, ParseError> {
+        let unit = unit.unwrap_or(Unit::Percent);
+        let Some(v) = self.number(mark, Some(unit))? else {
+            return Ok(None);
+        };
+        let fraction = unit.to_canonical(v);
+        if (0.0..1.0).contains(&fraction) {
+            Ok(Some(fraction * 100.0))
+        } else {
+            Err(self.fail(
+                "a water content of at least 0 and below 100 wt %",
                 &format!("{} {}", shown(self.raw), unit.symbol()),
             ))
         }

@@ -18,7 +18,8 @@
 //!
 //! Column keys are the [`Quantity`] keys plus `batch_id`, `lot`, `cycle_no` and
 //! `started_at` for cycle exports, and `lot`, `catalyst`, `metal`, `loading`,
-//! `charged_mass`, `received`, `supplier_lot`, `cost` for lot sheets.
+//! `charged_mass`, `received`, `supplier_lot`, `cost`, `water_content` (optional, the
+//! catalyst's water content as charged) for lot sheets.
 
 use std::collections::BTreeMap;
 
@@ -26,6 +27,7 @@ use serde::Deserialize;
 
 use super::decode::Encoding;
 use super::units::{Dimension, Unit, dimension_of};
+use crate::chem::AssayUncertainty;
 use crate::model::Quantity;
 
 /// The unit value that asks the parser to read the unit from the file's header cell.
@@ -163,6 +165,12 @@ pub struct Profile {
     /// `DEFAULT_LATEST_DAYS_AHEAD` when absent.
     #[serde(default)]
     pub latest_days_ahead: Option<u32>,
+    /// The standard uncertainty of this instrument's conversion assay,
+    /// `{ absolute = 0.005 }` (σ as a fraction) or `{ relative = 0.01 }` (of the value).
+    /// Carried to k_app and activity as standard errors and fit weights; absent: none
+    /// stated, and fits stay unweighted.
+    #[serde(default)]
+    pub conversion_uncertainty: Option<AssayUncertainty>,
     pub columns: BTreeMap<String, ColumnSpec>,
 }
 
@@ -181,6 +189,7 @@ pub enum Field {
     Received,
     SupplierLot,
     Cost,
+    WaterContent,
 }
 
 /// How a field's cell is read.
@@ -197,7 +206,7 @@ pub enum FieldType {
 }
 
 const CYCLE_TEXT_KEYS: [&str; 4] = ["batch_id", "lot", "cycle_no", "started_at"];
-const LOT_KEYS: [&str; 8] = [
+const LOT_KEYS: [&str; 9] = [
     "lot",
     "catalyst",
     "metal",
@@ -206,6 +215,7 @@ const LOT_KEYS: [&str; 8] = [
     "received",
     "supplier_lot",
     "cost",
+    "water_content",
 ];
 
 impl Field {
@@ -228,6 +238,7 @@ impl Field {
                 "received" => Some(Field::Received),
                 "supplier_lot" => Some(Field::SupplierLot),
                 "cost" => Some(Field::Cost),
+                "water_content" => Some(Field::WaterContent),
                 _ => None,
             },
         }
@@ -242,7 +253,7 @@ impl Field {
             Field::StartedAt => FieldType::DateTime,
             Field::Received => FieldType::Date,
             Field::Measured(q) => FieldType::Measured(dimension_of(q)),
-            Field::Loading => FieldType::Measured(Dimension::Ratio),
+            Field::Loading | Field::WaterContent => FieldType::Measured(Dimension::Ratio),
             Field::ChargedMass => FieldType::Measured(Dimension::Mass),
             Field::Cost => FieldType::Number,
         }
@@ -329,6 +340,17 @@ impl Profile {
             return Err(format!(
                 "temperature_range_k: expected [low, high] in kelvin with 0 < low < high; found [{lo}, {hi}]"
             ));
+        }
+        if let Some(u) = self.conversion_uncertainty {
+            if self.kind != ProfileKind::Cycles || !self.columns.contains_key("conversion") {
+                return Err(
+                    "conversion_uncertainty: only for a profile of kind = \"cycles\" that maps columns.conversion"
+                        .into(),
+                );
+            }
+            if let Some(p) = u.problem() {
+                return Err(format!("conversion_uncertainty.{p}"));
+            }
         }
         let mut headers: Vec<(String, &str)> = Vec::new();
         for (key, spec) in &self.columns {
@@ -500,6 +522,41 @@ columns.batch_id = { header = "Batch" }
         assert_eq!(e, "columns.catalyst: required for kind = \"lots\"");
         let e = with("columns.lot = { header = \" batch \" }\n").unwrap_err();
         assert!(e.starts_with("columns.lot.header:"), "{e}");
+    }
+
+    #[test]
+    fn conversion_uncertainty_is_read_and_checked() {
+        let conv = "columns.conversion = { header = \"X\", unit = \"%\" }\n";
+        let p = with(&format!(
+            "conversion_uncertainty = {{ absolute = 0.005 }}\n{conv}"
+        ))
+        .unwrap();
+        assert_eq!(
+            p.conversion_uncertainty,
+            Some(AssayUncertainty::Absolute(0.005))
+        );
+        let p = with(&format!(
+            "conversion_uncertainty = {{ relative = 0.02 }}\n{conv}"
+        ))
+        .unwrap();
+        assert_eq!(
+            p.conversion_uncertainty,
+            Some(AssayUncertainty::Relative(0.02))
+        );
+        let e = with(&format!(
+            "conversion_uncertainty = {{ absolute = 5 }}\n{conv}"
+        ))
+        .unwrap_err();
+        assert!(e.starts_with("conversion_uncertainty.absolute:"), "{e}");
+        let e = with("conversion_uncertainty = { absolute = 0.005 }\n").unwrap_err();
+        assert!(e.starts_with("conversion_uncertainty:"), "{e}");
+        assert!(
+            with(&format!(
+                "conversion_uncertainty = {{ sigma = 0.005 }}\n{conv}"
+            ))
+            .is_err()
+        );
+        assert_eq!(with("").unwrap().conversion_uncertainty, None);
     }
 
     #[test]

@@ -201,6 +201,10 @@ pub struct LotRecord {
     pub supplier_lot: Option<String>,
     pub cost: Option<f64>,
     pub site: Option<String>,
+    /// Water content of the catalyst as charged, wt % (for catalysts charged water-wet;
+    /// the loading is on the dry mass). Absent from events written before it existed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub water_content_wt_pct: Option<f64>,
 }
 
 /// What an event did. The tag is the event's kind.
@@ -337,6 +341,7 @@ mod tests {
             supplier_lot: None,
             cost: Some(100.0),
             site: None,
+            water_content_wt_pct: None,
         };
         let owned = Payload::FileIngested {
             file: file.clone(),
@@ -356,6 +361,26 @@ mod tests {
             "{text}"
         );
         assert_eq!(serde_json::from_str::<Payload>(&text).unwrap(), owned);
+    }
+
+    #[test]
+    fn a_lot_without_water_content_encodes_as_before_it_existed() {
+        // A registration stored before the field existed: re-encoding it must give the
+        // same bytes, or its event's hash would no longer verify.
+        let old = r#"{"lot":"L","catalyst":"Pd/C","metal":"Pd","loading_wt_pct":5.0,"charged_mass_g":1.25,"received":null,"supplier_lot":null,"cost":null,"site":null}"#;
+        let rec: LotRecord = serde_json::from_str(old).unwrap();
+        assert_eq!(rec.water_content_wt_pct, None);
+        assert_eq!(serde_json::to_string(&rec).unwrap(), old);
+        let wet = LotRecord {
+            water_content_wt_pct: Some(50.0),
+            ..rec
+        };
+        let text = serde_json::to_string(&wet).unwrap();
+        assert!(
+            text.ends_with(r#""site":null,"water_content_wt_pct":50.0}"#),
+            "{text}"
+        );
+        assert_eq!(serde_json::from_str::<LotRecord>(&text).unwrap(), wet);
     }
 
     #[test]

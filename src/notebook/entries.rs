@@ -24,6 +24,9 @@ pub struct Receipt {
 pub struct Registered {
     pub receipt: Receipt,
     pub changed: bool,
+    /// What the registration should be warned about, though it was accepted (a wet or
+    /// paste catalyst without a water content).
+    pub warnings: Vec<String>,
 }
 
 /// A sign-off as written, with what it covers.
@@ -61,7 +64,8 @@ pub fn register(cfg: &Config, rec: &LotRecord, reason: Option<&str>) -> Result<R
     crate::chem::check_lot(rec).map_err(|p| {
         NotebookError::Usage(
             format!("--{}: expected {}", p.field.key(), p.expected)
-                .replace("--charged_mass", "--mass"),
+                .replace("--charged_mass", "--mass")
+                .replace("--water_content", "--water-content"),
         )
     })?;
     let ((seq, changed), actor) = write_entry(cfg, |tx, actor, at| {
@@ -79,6 +83,7 @@ pub fn register(cfg: &Config, rec: &LotRecord, reason: Option<&str>) -> Result<R
     Ok(Registered {
         receipt: Receipt { seq, actor },
         changed,
+        warnings: crate::chem::lot_warnings(rec),
     })
 }
 

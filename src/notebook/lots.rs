@@ -7,7 +7,7 @@ use std::collections::BTreeSet;
 use serde::Serialize;
 
 use super::error::{NotebookError, Result as NResult};
-use crate::chem::{self, ChemOptions, CycleInput, CycleMetrics, LotFacts};
+use crate::chem::{self, ActivityBasis, ChemOptions, CycleInput, CycleMetrics, LotFacts};
 use crate::config::{Axis, Config, Measure};
 use crate::fit::{self, AnalysisOptions, Criterion, LotAnalysis, LotSeries, ModelId};
 use crate::model::Quantity;
@@ -40,6 +40,15 @@ pub struct LotState {
     pub lifetime_ton: Option<(f64, Option<f64>)>,
     /// Plain-words reasons someone should look at this lot.
     pub attention: Vec<String>,
+    /// What activity compares (the configured basis).
+    pub activity_basis: ActivityBasis,
+    /// The cycle whose rate is activity 1: cycle 1, or the first uncensored cycle when
+    /// cycle 1 is censored.
+    pub reference_cycle: Option<u32>,
+    /// True when cycle 1 is censored and a later cycle is the reference.
+    pub reference_moved: bool,
+    /// Lot-level flags (e.g. `water-content-missing`), beside the cycles' own.
+    pub lot_flags: Vec<String>,
 }
 
 impl LotState {
@@ -57,6 +66,8 @@ fn chem_options(cfg: &Config) -> ChemOptions {
         activation_energy_j_per_mol: cfg.chemistry.activation_energy_kj_mol.map(|e| e * 1000.0),
         t_ref_k: cfg.chemistry.reference_temperature_c + 273.15,
         required: Vec::new(),
+        activity_basis: cfg.chemistry.activity_basis,
+        ratio_tolerance: cfg.chemistry.ratio_tolerance,
     }
 }
 
@@ -136,10 +147,14 @@ pub fn lot_state_as_of(
             basis: basis(cfg),
             lifetime_ton: None,
             attention,
+            activity_basis: cfg.chemistry.activity_basis,
+            reference_cycle: None,
+            reference_moved: false,
+            lot_flags: Vec::new(),
         });
     };
-    add_metrics(cfg, &rec, &mut cycles);
-    let series = fit_series(cfg, &cycles);
+    let reference = add_metrics(cfg, &rec, &mut cycles);
+    let series = lot_series(cfg, &cycles);
     let product_first_kg = cycles
         .iter()
         .find(|c| c.cycle == 1)
@@ -154,6 +169,7 @@ pub fn lot_state_as_of(
         attention.extend(attention_from(a));
     }
     attention.extend(record_attention(&cycles));
+    let lot_flags = lot_attention(cfg, &rec, &reference, &mut attention);
     let lifetime_ton = plateau_lifetime(&cycles);
     Ok(LotState {
         lot: lot.to_string(),
@@ -163,7 +179,48 @@ pub fn lot_state_as_of(
         basis: basis(cfg),
         lifetime_ton,
         attention,
+        activity_basis: cfg.chemistry.activity_basis,
+        reference_cycle: reference.cycle,
+        reference_moved: reference.moved,
+        lot_flags,
     })
+}
+
+/// What the lot's registration and its activity reference ask of someone: a wet catalyst
+/// without a water content, a reference moved past a censored cycle 1. Returns the lot's
+/// flags and adds the attention lines.
+fn lot_attention(
+    cfg: &Config,
+    rec: &LotRecord,
+    reference: &ReferenceOf,
+    attention: &mut Vec<String>,
+) -> Vec<String> {
+    let mut lot_flags = Vec::new();
+    let warnings = chem::lot_warnings(rec);
+    if !warnings.is_empty() {
+        lot_flags.push("water-content-missing".to_string());
+    }
+    attention.extend(warnings.into_iter().map(|w| {
+        w.strip_prefix(&format!("lot '{}': ", rec.lot))
+            .map(str::to_string)
+            .unwrap_or(w)
+    }));
+    if reference.moved
+        && let Some(n) = reference.cycle
+    {
+        lot_flags.push("reference-first-uncensored".to_string());
+        attention.push(format!(
+            "cycle 1 is censored (conversion at or above {}), so its k_app is only a lower bound: activity is relative to cycle {n}, the first uncensored cycle",
+            cfg.chemistry.saturation
+        ));
+    }
+    lot_flags
+}
+
+/// What activity was made relative to.
+struct ReferenceOf {
+    cycle: Option<u32>,
+    moved: bool,
 }
 
 /// The lot's registration and its cycles with their provenance and record flags, now or
@@ -214,13 +271,29 @@ fn stored_cycles(
     Ok((record, cycles))
 }
 
+/// σ of a cycle's conversion: the assay uncertainty of the profile of the first file of
+/// the batch whose profile maps a conversion column (the file the conversion was read
+/// from, unless a later file filled a cell the first left empty). A value corrected by
+/// hand keeps that assay's σ. `None` when the profile states none.
+fn conversion_sd(cfg: &Config, c: &CycleState) -> Option<f64> {
+    let x = c.view.get(Quantity::Conversion)?;
+    let profile = c
+        .sources
+        .iter()
+        .filter_map(|s| s.profile.as_deref())
+        .filter_map(|p| cfg.profiles.get(p))
+        .find(|p| p.columns.contains_key(Quantity::Conversion.key()))?;
+    profile.conversion_uncertainty?.sd_at(x)
+}
+
 /// Compute every cycle's metrics through the pure chemistry and merge their flags.
-fn add_metrics(cfg: &Config, rec: &LotRecord, cycles: &mut [CycleState]) {
+fn add_metrics(cfg: &Config, rec: &LotRecord, cycles: &mut [CycleState]) -> ReferenceOf {
     let facts = LotFacts::from(rec);
     let inputs: Vec<CycleInput> = cycles
         .iter()
-        .map(|c| {
-            CycleInput::from_values(
+        .map(|c| CycleInput {
+            conversion_sd: conversion_sd(cfg, c),
+            ..CycleInput::from_values(
                 c.cycle,
                 Quantity::ALL
                     .iter()
@@ -228,7 +301,12 @@ fn add_metrics(cfg: &Config, rec: &LotRecord, cycles: &mut [CycleState]) {
             )
         })
         .collect();
-    for m in chem::cycle_metrics(&facts, &inputs, &chem_options(cfg)) {
+    let lot = chem::lot_metrics(&facts, &inputs, &chem_options(cfg));
+    let reference = ReferenceOf {
+        cycle: lot.reference_cycle,
+        moved: lot.reference_moved,
+    };
+    for m in lot.cycles {
         if let Some(c) = cycles
             .iter_mut()
             .find(|c| c.cycle == m.cycle_no && c.metrics.is_none())
@@ -241,11 +319,18 @@ fn add_metrics(cfg: &Config, rec: &LotRecord, cycles: &mut [CycleState]) {
             c.metrics = Some(m);
         }
     }
+    reference
 }
 
 /// The series the configuration asks to fit: activity (or TON) against cycle number (or
 /// hours on stream), excluded cycles left out, saturated cycles marked censored.
-fn fit_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
+///
+/// `sd` (activity only) is each cycle's own standard error of activity, propagated from
+/// its conversion assay's σ ([`CycleMetrics::activity_sd_own`]); `None` for a censored
+/// cycle (a bound has no error) and where no σ is stated. The reference's error is left
+/// out: it is one factor common to every point, which a fitted a0 absorbs. When no cycle
+/// has one, `sd` stays empty (unweighted).
+pub fn lot_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
     let ton_basis = cfg.fitting.measure == Measure::Ton;
     let mut series = LotSeries::default();
     let mut hours = 0.0;
@@ -265,6 +350,14 @@ fn fit_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
         series.y.push(y);
         series.censored.push(!ton_basis && m.censored);
         series.ton.push(m.ton);
+        series.sd.push(if ton_basis || m.censored {
+            None
+        } else {
+            m.activity_sd_own
+        });
+    }
+    if series.sd.iter().all(Option::is_none) {
+        series.sd.clear();
     }
     series
 }
@@ -401,6 +494,7 @@ fn lot_line(s: &LotState) -> LotLine {
     for c in &s.cycles {
         flags.extend(c.flags.iter().cloned());
     }
+    flags.extend(s.lot_flags.iter().cloned());
     let a = s.analysis.as_ref();
     LotLine {
         lot: s.lot.clone(),
@@ -470,22 +564,87 @@ pub struct CycleLine {
     pub temperature_c: Option<f64>,
     pub substrate_mol: Option<f64>,
     pub catalyst_charged_g: Option<f64>,
+    /// Metal charged (nominal: dry catalyst mass × loading / M, or measured), mmol.
+    pub metal_charged_mmol: Option<f64>,
+    /// Metal available: the nominal less the metal found in earlier cycles' products, mmol.
+    pub metal_available_mmol: Option<f64>,
+    /// Catalyst-to-substrate ratio, mol metal per mol limiting substrate.
+    pub catalyst_to_substrate: Option<f64>,
     pub conversion: Option<f64>,
     pub selectivity: Option<f64>,
     pub yield_fraction: Option<f64>,
     pub product_mass_g: Option<f64>,
     pub metal_in_product_ug_g: Option<f64>,
     pub catalyst_recovered_g: Option<f64>,
+    /// TON per mol of metal charged.
     pub ton: Option<f64>,
+    /// TON per mol of metal available to the cycle.
+    pub ton_per_metal_available: Option<f64>,
+    /// Average TOF: TON / whole reaction time.
+    #[serde(rename = "tof_average_per_h")]
     pub tof_per_h: Option<f64>,
+    #[serde(rename = "tof_average_per_s")]
     pub tof_per_s: Option<f64>,
+    /// Initial TOF: k_app × mol substrate / mol metal (first-order batch); a lower bound
+    /// for a censored cycle (flag `initial-tof-lower-bound`).
+    pub tof_initial_per_h: Option<f64>,
+    pub tof_initial_per_s: Option<f64>,
     pub cumulative_ton: Option<f64>,
     pub k_app_per_h: Option<f64>,
+    /// Standard error of k_app from the conversion assay's σ.
+    pub k_app_se_per_h: Option<f64>,
+    /// Activity on the configured basis (the name says which), relative to the
+    /// reference cycle.
+    #[serde(skip)]
     pub activity: Option<f64>,
+    /// Activity per catalyst-to-substrate ratio (the default basis); empty under the other.
+    pub activity_per_catalyst_ratio: Option<f64>,
+    /// Activity per mol of metal charged (when so configured); empty otherwise.
+    pub activity_per_metal_charged: Option<f64>,
+    /// Standard error of activity, first order, the reference cycle's error included.
+    pub activity_se: Option<f64>,
     pub metal_lost_mg: Option<f64>,
     pub cumulative_metal_loss_fraction: Option<f64>,
     pub flags: String,
     pub sources: String,
+}
+
+/// The average TOF, as tables and JSON define it.
+pub const TOF_AVERAGE_DEFINITION: &str = "average TOF = TON / whole reaction time";
+/// The initial TOF, as tables and JSON define it (Kozuch & Martin, ACS Catal. 2012, 2,
+/// 2787, on TOF definitions; recalled from memory).
+pub const TOF_INITIAL_DEFINITION: &str = "initial TOF = k_app × mol limiting substrate / mol \
+     metal charged (first-order batch; a lower bound when the cycle is censored)";
+
+/// `cycles LOT --format json` (and `/api/lots/{lot}`): the cycle lines with the
+/// definitions of their computed columns.
+#[derive(Debug, Serialize)]
+pub struct CyclesDocument {
+    pub lot: String,
+    /// The configured basis of activity, e.g. "catalyst-ratio".
+    pub activity_basis: &'static str,
+    pub activity_definition: &'static str,
+    /// The cycle whose rate is activity 1.
+    pub activity_reference_cycle: Option<u32>,
+    /// True when cycle 1 is censored and the first uncensored cycle is the reference.
+    pub activity_reference_moved: bool,
+    pub tof_average_definition: &'static str,
+    pub tof_initial_definition: &'static str,
+    pub cycles: Vec<CycleLine>,
+}
+
+/// The JSON document of a lot's cycles.
+pub fn cycles_document(s: &LotState) -> CyclesDocument {
+    CyclesDocument {
+        lot: s.lot.clone(),
+        activity_basis: s.activity_basis.key(),
+        activity_definition: s.activity_basis.definition(),
+        activity_reference_cycle: s.reference_cycle,
+        activity_reference_moved: s.reference_moved,
+        tof_average_definition: TOF_AVERAGE_DEFINITION,
+        tof_initial_definition: TOF_INITIAL_DEFINITION,
+        cycles: cycle_lines(s),
+    }
 }
 
 pub fn cycle_lines(s: &LotState) -> Vec<CycleLine> {
@@ -494,6 +653,7 @@ pub fn cycle_lines(s: &LotState) -> Vec<CycleLine> {
         .map(|c| {
             let m = c.metrics.as_ref();
             let v = &c.view;
+            let activity = m.and_then(|m| m.activity);
             CycleLine {
                 cycle: c.cycle,
                 batch_id: v.batch_id.clone(),
@@ -502,6 +662,9 @@ pub fn cycle_lines(s: &LotState) -> Vec<CycleLine> {
                 temperature_c: v.get(Quantity::Temperature).map(|k| k - 273.15),
                 substrate_mol: v.get(Quantity::Substrate),
                 catalyst_charged_g: m.and_then(|m| m.catalyst_charged_g),
+                metal_charged_mmol: m.and_then(|m| m.metal_mol).map(|n| n * 1000.0),
+                metal_available_mmol: m.and_then(|m| m.metal_available_mol).map(|n| n * 1000.0),
+                catalyst_to_substrate: m.and_then(|m| m.catalyst_ratio),
                 conversion: v.get(Quantity::Conversion),
                 selectivity: v.get(Quantity::Selectivity),
                 yield_fraction: m.and_then(|m| m.yield_used),
@@ -509,11 +672,20 @@ pub fn cycle_lines(s: &LotState) -> Vec<CycleLine> {
                 metal_in_product_ug_g: v.get(Quantity::MetalInProduct),
                 catalyst_recovered_g: v.get(Quantity::CatalystRecovered),
                 ton: m.and_then(|m| m.ton),
+                ton_per_metal_available: m.and_then(|m| m.ton_available),
                 tof_per_h: m.and_then(|m| m.tof_per_h),
                 tof_per_s: m.and_then(|m| m.tof_per_s),
+                tof_initial_per_h: m.and_then(|m| m.initial_tof_per_h),
+                tof_initial_per_s: m.and_then(|m| m.initial_tof_per_s),
                 cumulative_ton: m.and_then(|m| m.cumulative_ton),
                 k_app_per_h: m.and_then(|m| m.k_app_per_h),
-                activity: m.and_then(|m| m.activity),
+                k_app_se_per_h: m.and_then(|m| m.k_app_se_per_h),
+                activity,
+                activity_per_catalyst_ratio: activity
+                    .filter(|_| s.activity_basis == ActivityBasis::CatalystRatio),
+                activity_per_metal_charged: activity
+                    .filter(|_| s.activity_basis == ActivityBasis::MetalCharged),
+                activity_se: m.and_then(|m| m.activity_se),
                 metal_lost_mg: m.and_then(|m| m.metal_lost_g).map(|g| g * 1000.0),
                 cumulative_metal_loss_fraction: m.and_then(|m| m.cumulative_loss_fraction),
                 flags: c.flags.join(" "),

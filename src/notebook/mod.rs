@@ -49,8 +49,9 @@ pub use ingestion::{
 };
 pub use listing::{Listing, RefusedEntry, collect_files};
 pub use lots::{
-    CycleLine, CycleState, LotLine, LotState, cycle_lines, known_lot, lot_lines, lot_state,
-    lot_state_as_of,
+    CycleLine, CycleState, CyclesDocument, LotLine, LotState, TOF_AVERAGE_DEFINITION,
+    TOF_INITIAL_DEFINITION, cycle_lines, cycles_document, known_lot, lot_lines, lot_series,
+    lot_state, lot_state_as_of,
 };
 pub use recompute::recompute_stale;
 pub use reports::{write_all_reports, write_lot_report, write_site_report};

@@ -29,7 +29,26 @@ fn report_forecast(f: &fit::Forecast) -> report::Forecast {
     }
 }
 
-fn fit_summary(cfg: &Config, a: &fit::LotAnalysis) -> Option<report::FitSummary> {
+/// What the fit's y is, with its basis and reference cycle.
+fn y_label(cfg: &Config, reference: Option<u32>) -> String {
+    if cfg.fitting.measure == Measure::Ton {
+        return "TON per cycle".into();
+    }
+    format!(
+        "activity (relative to cycle {}, per {})",
+        reference.unwrap_or(1),
+        match cfg.chemistry.activity_basis {
+            crate::chem::ActivityBasis::CatalystRatio => "catalyst-to-substrate ratio",
+            crate::chem::ActivityBasis::MetalCharged => "mol metal charged",
+        }
+    )
+}
+
+fn fit_summary(
+    cfg: &Config,
+    a: &fit::LotAnalysis,
+    reference: Option<u32>,
+) -> Option<report::FitSummary> {
     let f = a.fit.as_ref()?;
     let t = fit::t_quantile(cfg.fitting.confidence, f.dof);
     let params = f
@@ -77,11 +96,7 @@ fn fit_summary(cfg: &Config, a: &fit::LotAnalysis) -> Option<report::FitSummary>
         } else {
             "cycle".into()
         },
-        y_label: if cfg.fitting.measure == Measure::Ton {
-            "TON per cycle".into()
-        } else {
-            "activity (relative to cycle 1)".into()
-        },
+        y_label: y_label(cfg, reference),
         params,
         level: cfg.fitting.confidence,
         observed: a
@@ -124,7 +139,10 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
         turnbook_version: env!("CARGO_PKG_VERSION").to_string(),
         identity: identity(cfg, state),
         cycles: cycle_lines(state, &entries.corrected_batches),
-        fit: state.analysis.as_ref().and_then(|a| fit_summary(cfg, a)),
+        fit: state
+            .analysis
+            .as_ref()
+            .and_then(|a| fit_summary(cfg, a, state.reference_cycle)),
         alerts: alerts_of(conn, &state.lot)?,
         corrections: entries.corrections,
         signoffs: entries.signoffs,
@@ -133,6 +151,12 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
         cause_hints: super::causes::lot_causes(cfg, state)
             .map(|h| h.lines())
             .unwrap_or_default(),
+        activity_note: Some(report::ActivityNote {
+            basis: state.activity_basis.key().to_string(),
+            definition: state.activity_basis.definition().to_string(),
+            reference_cycle: state.reference_cycle,
+            reference_moved: state.reference_moved,
+        }),
     })
 }
 
@@ -211,6 +235,7 @@ fn identity(cfg: &Config, state: &LotState) -> report::LotIdentity {
         supplier_lot: None,
         cost: None,
         site: None,
+        water_content_wt_pct: None,
     });
     report::LotIdentity {
         record,
@@ -242,12 +267,18 @@ fn cycle_lines(state: &LotState, corrected_batches: &[String]) -> Vec<report::Cy
                 tof_per_h: m.and_then(|m| m.tof_per_h),
                 k_app_per_h: m.and_then(|m| m.k_app_per_h),
                 activity: m.and_then(|m| m.activity),
+                activity_se: m.and_then(|m| m.activity_se),
+                tof_initial_per_h: m.and_then(|m| m.initial_tof_per_h),
+                ton_per_metal_available: m.and_then(|m| m.ton_available),
+                metal_charged_mmol: m.and_then(|m| m.metal_mol).map(|n| n * 1000.0),
+                metal_available_mmol: m.and_then(|m| m.metal_available_mol).map(|n| n * 1000.0),
                 flags: report::CycleFlags {
                     censored: has("censored"),
                     pending: has("pending"),
                     conflict: has("conflict"),
                     excluded: has("excluded"),
                     corrected: corrected_batches.contains(&c.view.batch_id),
+                    ratio_off_usual: has("ratio-off-usual"),
                 },
                 sources: c
                     .sources

@@ -43,6 +43,9 @@ td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: now
 dl.identity { display: grid; grid-template-columns: max-content 1fr max-content 1fr; gap: .2rem 1rem; }
 dl.identity dt { color: var(--muted); }
 dl.identity dd { margin: 0; }
+dl.definitions { font-size: .85rem; }
+dl.definitions dt { font-weight: 600; }
+dl.definitions dd { margin: 0 0 .3rem 1rem; }
 .cautions { border: 2px solid var(--warn); background: #fff7ec; padding: .5rem 1rem; }
 .cautions li { margin: .2rem 0; }
 .flag { display: inline-block; padding: 0 .3rem; margin: 0 .1rem .1rem 0; border-radius: .2rem;
@@ -147,7 +150,11 @@ fn identity(out: &mut String, r: &LotReport) {
         (Some(c), None) => fmt_sig(c, 6),
         (None, _) => "–".to_string(),
     };
-    let rows: [(&str, String); 9] = [
+    let water = id.water_content_wt_pct.map_or_else(
+        || "–".to_string(),
+        |w| format!("{} wt % (metal on the dry mass)", fmt_sig(w, 3)),
+    );
+    let rows: [(&str, String); 10] = [
         ("Lot", esc(&id.lot)),
         ("Catalyst", esc(&id.catalyst)),
         ("Metal", esc(&id.metal)),
@@ -156,6 +163,7 @@ fn identity(out: &mut String, r: &LotReport) {
             "Charged mass",
             format!("{} g", fmt_sig(id.charged_mass_g, 5)),
         ),
+        ("Water content as charged", water),
         ("Received", opt_text(id.received.as_deref())),
         ("Supplier lot", opt_text(id.supplier_lot.as_deref())),
         ("Cost (net of refining credit)", cost),
@@ -301,8 +309,10 @@ fn cycle_table(out: &mut String, r: &LotReport) {
         let _ = write!(out, "<th>{}</th>", quantity_heading(*q));
     }
     out.push_str(
-        "<th>TON</th><th>TOF (h⁻¹)</th><th>k<sub>app</sub> (h⁻¹)</th><th>activity</th>\
-         <th>flags</th></tr></thead>\n<tbody>\n",
+        "<th>metal charged (mmol)</th><th>metal available (mmol)</th>\
+         <th>TON (per mol metal charged)</th><th>TON (per mol metal available)</th>\
+         <th>average TOF (h⁻¹)</th><th>initial TOF (h⁻¹)</th><th>k<sub>app</sub> (h⁻¹)</th>\
+         <th>activity</th><th>flags</th></tr></thead>\n<tbody>\n",
     );
     for c in &r.cycles {
         let _ = write!(
@@ -315,14 +325,29 @@ fn cycle_table(out: &mut String, r: &LotReport) {
         for q in &shown {
             let _ = write!(out, "<td class=\"num\">{}</td>", fmt_opt(c.value(*q), 5));
         }
+        // A censored cycle's k_app, initial TOF and activity are lower bounds.
+        let bound = if c.flags.censored { "≥ " } else { "" };
+        let activity = match (c.activity, c.activity_se) {
+            (Some(a), Some(se)) => format!("{} ± {}", fmt_sig(a, 3), fmt_sig(se, 2)),
+            (a, _) => fmt_opt(a, 3),
+        };
         let _ = writeln!(
             out,
-            "<td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
-             <td class=\"num\">{}</td><td>{}</td></tr>",
+            "<td class=\"num\">{}</td><td class=\"num\">{}</td>\
+             <td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+             <td class=\"num\">{}{}</td><td class=\"num\">{}{}</td><td class=\"num\">{}{}</td>\
+             <td>{}</td></tr>",
+            fmt_opt(c.metal_charged_mmol, 4),
+            fmt_opt(c.metal_available_mmol, 4),
             fmt_opt(c.ton, 4),
+            fmt_opt(c.ton_per_metal_available, 4),
             fmt_opt(c.tof_per_h, 4),
+            bound,
+            fmt_opt(c.tof_initial_per_h, 4),
+            bound,
             fmt_opt(c.k_app_per_h, 4),
-            fmt_opt(c.activity, 3),
+            bound,
+            activity,
             flags_cell(c)
         );
     }
@@ -330,10 +355,47 @@ fn cycle_table(out: &mut String, r: &LotReport) {
         let _ = writeln!(
             out,
             "<tr><td colspan=\"{}\">No cycles recorded.</td></tr>",
-            shown.len() + 8
+            shown.len() + 12
         );
     }
-    out.push_str("</tbody>\n</table>\n</div>\n</section>\n");
+    out.push_str("</tbody>\n</table>\n</div>\n");
+    definitions(out, r);
+    out.push_str("</section>\n");
+}
+
+/// What the computed columns mean, said once under the cycle table.
+fn definitions(out: &mut String, r: &LotReport) {
+    let activity = match &r.activity_note {
+        Some(n) => {
+            let reference = match (n.reference_cycle, n.reference_moved) {
+                (Some(c), true) => format!(
+                    " Cycle 1 is censored (its conversion reached the saturation limit, so its \
+                     rate is only a lower bound): activity is relative to cycle {c}, the first \
+                     uncensored cycle."
+                ),
+                (Some(c), false) => format!(" Activity 1 is cycle {c}."),
+                (None, _) => " No cycle can serve as the reference yet.".to_string(),
+            };
+            format!("{} (basis “{}”).{reference}", n.definition, n.basis)
+        }
+        None => "k_app relative to the first cycle.".to_string(),
+    };
+    let _ = writeln!(
+        out,
+        "<dl class=\"definitions\" id=\"definitions\">\n\
+         <dt>activity</dt><dd>Levenspiel's ratio of the rate with the used catalyst to that \
+         with the fresh catalyst: {}. A censored cycle's activity is a lower bound. \
+         ± is the standard error propagated from the conversion assay's uncertainty.</dd>\n\
+         <dt>TON</dt><dd>mol product per mol metal, per mol charged (the dry catalyst mass × \
+         loading) and per mol available (charged less the metal found in the products of \
+         earlier cycles).</dd>\n\
+         <dt>average TOF</dt><dd>TON divided by the whole reaction time; it hides a loss of \
+         activity when batches run to completion.</dd>\n\
+         <dt>initial TOF</dt><dd>k<sub>app</sub> × mol limiting substrate / mol metal charged, \
+         the rate at the start of a batch first order in substrate, per mol metal; it follows \
+         activity. A lower bound (≥) for a censored cycle.</dd>\n</dl>",
+        esc(&activity)
+    );
 }
 
 /// A titled table of rows of already-escaped cells; an empty list says so in words.

@@ -31,6 +31,22 @@ pub struct LotReport {
     /// "Why did it drop?" hints for a step loss or a fast decline, one sentence each.
     #[serde(default)]
     pub cause_hints: Vec<String>,
+    /// How activity was computed for this lot; absent in reports made before it was stated.
+    #[serde(default)]
+    pub activity_note: Option<ActivityNote>,
+}
+
+/// How the lot's activity is defined: its basis and the cycle it is relative to.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ActivityNote {
+    /// The configuration's name of the basis, e.g. "catalyst-ratio".
+    pub basis: String,
+    /// The definition in words.
+    pub definition: String,
+    /// The cycle whose rate is activity 1.
+    pub reference_cycle: Option<u32>,
+    /// True when cycle 1 is censored and a later, uncensored cycle is the reference.
+    pub reference_moved: bool,
 }
 
 /// Who the lot is and where it came from: its registration (the one record the whole
@@ -51,14 +67,30 @@ pub struct CycleLine {
     pub started_at: Option<String>,
     /// Measured values, each in the canonical unit of its quantity.
     pub values: Vec<ReportValue>,
-    /// Turnover number, mol product per mol metal (dimensionless).
+    /// Turnover number, mol product per mol metal charged (dimensionless).
     pub ton: Option<f64>,
-    /// Turnover frequency, h⁻¹.
+    /// Average turnover frequency, TON / whole reaction time, h⁻¹.
     pub tof_per_h: Option<f64>,
     /// Apparent first-order rate constant, h⁻¹.
     pub k_app_per_h: Option<f64>,
-    /// Activity relative to the first cycle (dimensionless).
+    /// Activity relative to the reference cycle (dimensionless), on the basis the
+    /// report's [`ActivityNote`] states.
     pub activity: Option<f64>,
+    /// Standard error of activity (first order, reference included), when the assay's σ
+    /// is known.
+    #[serde(default)]
+    pub activity_se: Option<f64>,
+    /// Initial TOF, k_app × mol substrate / mol metal, h⁻¹; a lower bound when censored.
+    #[serde(default)]
+    pub tof_initial_per_h: Option<f64>,
+    /// TON per mol of metal available to the cycle (charged less earlier losses).
+    #[serde(default)]
+    pub ton_per_metal_available: Option<f64>,
+    /// Metal charged (nominal) and available to the cycle, mmol.
+    #[serde(default)]
+    pub metal_charged_mmol: Option<f64>,
+    #[serde(default)]
+    pub metal_available_mmol: Option<f64>,
     pub flags: CycleFlags,
     /// The files the cycle's values came from.
     pub sources: Vec<SourceRef>,
@@ -95,6 +127,9 @@ pub struct CycleFlags {
     pub excluded: bool,
     /// At least one value was corrected after ingestion.
     pub corrected: bool,
+    /// The catalyst-to-substrate ratio differs from the lot's usual one.
+    #[serde(default)]
+    pub ratio_off_usual: bool,
 }
 
 impl CycleFlags {
@@ -115,6 +150,9 @@ impl CycleFlags {
         }
         if self.corrected {
             w.push("corrected");
+        }
+        if self.ratio_off_usual {
+            w.push("ratio-off-usual");
         }
         w
     }

@@ -3,6 +3,10 @@
 //! RFC 4180 quoting comes from the csv crate. Header names carry the canonical unit so a
 //! column can never be misread (`duration_s`, `metal_in_product_ug_per_g`). Numbers are
 //! written with Rust's shortest round-trip form, so a value read back is bit-identical.
+//! Columns added later go at the end, so a spreadsheet built on the earlier ones still
+//! reads them: `tof_per_h` is the average TOF (TON / reaction time), `tof_initial_per_h`
+//! the initial TOF (k_app × mol substrate / mol metal), `activity` is on the basis the
+//! report states.
 
 use std::io::Write;
 
@@ -51,6 +55,12 @@ pub fn csv_header() -> Vec<String> {
             "excluded",
             "corrected",
             "sources",
+            "ton_per_mol_metal_available",
+            "tof_initial_per_h",
+            "activity_se",
+            "metal_charged_mmol",
+            "metal_available_mmol",
+            "ratio_off_usual",
         ]
         .iter()
         .map(|s| s.to_string()),
@@ -95,6 +105,14 @@ fn row(lot: &str, c: &CycleLine) -> Vec<String> {
             .map(|b| b.to_string()),
     );
     r.push(defuse_csv_cell(&sources_cell(c)));
+    r.extend([
+        num(c.ton_per_metal_available),
+        num(c.tof_initial_per_h),
+        num(c.activity_se),
+        num(c.metal_charged_mmol),
+        num(c.metal_available_mmol),
+        f.ratio_off_usual.to_string(),
+    ]);
     r
 }
 

@@ -16,13 +16,18 @@ pub struct SourceRef {
     pub file_id: i64,
     pub path: String,
     pub sha256: String,
+    /// The export profile the file was read with.
+    pub profile: Option<String>,
     /// Lines of that file the values were read from.
     pub lines: Vec<i64>,
 }
 
+/// A source row as the queries return it: file id, path, SHA-256, profile, line.
+type SourceRow = (i64, String, String, Option<String>, Option<i64>);
+
 pub fn sources_of(conn: &Connection, batch: &str, as_of: i64) -> Result<Vec<SourceRef>> {
     let mut stmt = conn.prepare_cached(
-        "SELECT f.id, f.path, f.sha256, b.line FROM batch_sources b JOIN source_files f ON f.id = b.source_file_id
+        "SELECT f.id, f.path, f.sha256, f.profile, b.line FROM batch_sources b JOIN source_files f ON f.id = b.source_file_id
          WHERE b.batch_id = ?1 AND b.event_seq <= ?2 ORDER BY f.id, b.line",
     )?;
     let rows = stmt.query_map(rusqlite::params![batch, as_of], |r| {
@@ -30,7 +35,8 @@ pub fn sources_of(conn: &Connection, batch: &str, as_of: i64) -> Result<Vec<Sour
             r.get::<_, i64>(0)?,
             r.get::<_, String>(1)?,
             r.get::<_, String>(2)?,
-            r.get::<_, Option<i64>>(3)?,
+            r.get::<_, Option<String>>(3)?,
+            r.get::<_, Option<i64>>(4)?,
         ))
     })?;
     let mut out: Vec<SourceRef> = Vec::new();
@@ -43,7 +49,7 @@ pub fn sources_of(conn: &Connection, batch: &str, as_of: i64) -> Result<Vec<Sour
 /// The sources of every batch of a lot in one query (the recompute path), by batch id.
 pub fn sources_of_lot(conn: &Connection, lot: &str) -> Result<HashMap<String, Vec<SourceRef>>> {
     let mut stmt = conn.prepare_cached(
-        "SELECT b.batch_id, f.id, f.path, f.sha256, b.line
+        "SELECT b.batch_id, f.id, f.path, f.sha256, f.profile, b.line
          FROM cycles c JOIN batch_sources b ON b.batch_id = c.batch_id
          JOIN source_files f ON f.id = b.source_file_id
          WHERE c.lot = ?1 ORDER BY b.batch_id, f.id, b.line",
@@ -55,7 +61,8 @@ pub fn sources_of_lot(conn: &Connection, lot: &str) -> Result<HashMap<String, Ve
                 r.get::<_, i64>(1)?,
                 r.get::<_, String>(2)?,
                 r.get::<_, String>(3)?,
-                r.get::<_, Option<i64>>(4)?,
+                r.get::<_, Option<String>>(4)?,
+                r.get::<_, Option<i64>>(5)?,
             ),
         ))
     })?;
@@ -67,7 +74,7 @@ pub fn sources_of_lot(conn: &Connection, lot: &str) -> Result<HashMap<String, Ve
     Ok(out)
 }
 
-fn add_source(out: &mut Vec<SourceRef>, (id, path, sha, line): (i64, String, String, Option<i64>)) {
+fn add_source(out: &mut Vec<SourceRef>, (id, path, sha, profile, line): SourceRow) {
     match out.last_mut() {
         Some(s) if s.file_id == id => {
             if let Some(l) = line
@@ -80,6 +87,7 @@ fn add_source(out: &mut Vec<SourceRef>, (id, path, sha, line): (i64, String, Str
             file_id: id,
             path,
             sha256: sha,
+            profile,
             lines: line.into_iter().collect(),
         }),
     }

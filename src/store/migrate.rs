@@ -28,6 +28,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         include_str!("../../schema/0007_chain_key.sql"),
     ),
     (
+        8,
+        "lot_water",
+        include_str!("../../schema/0008_lot_water.sql"),
+    ),
+    (
         10,
         "alert_eased",
         include_str!("../../schema/0010_alert_eased.sql"),

@@ -21,14 +21,13 @@ pub async fn lot(
     State(s): State<Arc<Shared>>,
     Path(lot): Path<String>,
 ) -> Result<Response, PageError> {
-    let name = lot.clone();
-    let lines = s
+    let doc = s
         .blocking(move |cfg| {
-            let state = notebook::known_lot(cfg, &name)?;
-            Ok(notebook::cycle_lines(&state))
+            let state = notebook::known_lot(cfg, &lot)?;
+            Ok(notebook::cycles_document(&state))
         })
         .await?;
-    Ok(Json(serde_json::json!({"lot": lot, "cycles": lines})).into_response())
+    Ok(Json(doc).into_response())
 }
 
 pub async fn history(

@@ -34,7 +34,8 @@ fn identity(r: &LotReport) -> Markup {
         dl.facts #identity {
             dt { "Catalyst" } dd { (rec.catalyst) }
             dt { "Metal, loading" } dd { (rec.metal) " " (num(Some(rec.loading_wt_pct), 2)) " wt %" }
-            dt { "Charged" } dd { (num(Some(rec.charged_mass_g), 2)) " g" }
+            dt { "Charged" } dd { (num(Some(rec.charged_mass_g), 2)) " g"
+                @if let Some(w) = rec.water_content_wt_pct { " (" (num(Some(w), 1)) " wt % water; metal on the dry mass)" } }
             dt { "Supplier lot" } dd { (rec.supplier_lot.clone().unwrap_or_else(|| "–".into())) }
             dt { "Received" } dd { (rec.received.clone().map(|d| d.to_string()).unwrap_or_else(|| "–".into())) }
             dt { "Site" } dd { (rec.site.clone().unwrap_or_else(|| "–".into())) }
@@ -71,10 +72,23 @@ fn fit(r: &LotReport, lot: &str) -> Markup {
 fn cycles(r: &LotReport) -> Markup {
     html! {
         h2 { "Cycles (" (r.cycles.len()) ")" }
+        @if let Some(n) = &r.activity_note {
+            p.muted #activity-definition {
+                "Activity: " (n.definition)
+                @if let Some(c) = n.reference_cycle { " (cycle " (c) " = 1"
+                    @if n.reference_moved { ": cycle 1 is censored, so the first uncensored cycle is the reference" }
+                    ")" }
+                "."
+            }
+        }
         table #cycles {
             thead { tr {
-                th.num { "Cycle" } th { "Batch" } th { "Started" } th.num { "TON" }
-                th.num { "TOF h⁻¹" } th.num { "k h⁻¹" } th.num { "Activity" } th { "Flags" }
+                th.num { "Cycle" } th { "Batch" } th { "Started" }
+                th.num title="mol product per mol metal charged" { "TON" }
+                th.num title="mol product per mol metal available: charged less the metal found in earlier products" { "TON (metal available)" }
+                th.num title="average TOF: TON / whole reaction time" { "TOF avg h⁻¹" }
+                th.num title="initial TOF: k_app × mol substrate / mol metal (first-order batch); ≥ for a censored cycle" { "TOF initial h⁻¹" }
+                th.num { "k h⁻¹" } th.num { "Activity" } th.num { "± se" } th { "Flags" }
                 th { "Source file : line" }
             } }
             tbody { @for c in &r.cycles { tr {
@@ -82,9 +96,12 @@ fn cycles(r: &LotReport) -> Markup {
                 td { (c.batch_id) }
                 td { (c.started_at.clone().unwrap_or_default()) }
                 td.num { (num(c.ton, 1)) }
+                td.num { (num(c.ton_per_metal_available, 1)) }
                 td.num { (num(c.tof_per_h, 1)) }
+                td.num { @if c.flags.censored && c.tof_initial_per_h.is_some() { "≥ " } (num(c.tof_initial_per_h, 1)) }
                 td.num { (num(c.k_app_per_h, 3)) }
-                td.num { (num(c.activity, 3)) }
+                td.num { @if c.flags.censored && c.activity.is_some() { "≥ " } (num(c.activity, 3)) }
+                td.num { (num(c.activity_se, 3)) }
                 td class=[(!c.flags.words().is_empty()).then_some("warn")] { (c.flags.words().join(", ")) }
                 td { @for s in &c.sources {
                     span title=(s.sha256) { (s.file_name) " : " (s.line) } br;

@@ -32,6 +32,7 @@ use super::forecast::{
 };
 use super::lm::LmOptions;
 use super::models::ModelId;
+use super::population::{FamilyPrior, Pooled, with_prior};
 
 /// Version of the numerical engine, stored beside each analysis so that a stored result
 /// can be traced to the code that produced it.
@@ -70,6 +71,11 @@ pub struct AnalysisOptions {
     /// Hold the physical bounds of [`physical_bounds`] (the default).
     #[serde(default = "yes")]
     pub physical_bounds: bool,
+    /// The family's prior for a young lot ([`super::population`]): when given, the
+    /// headline forecast and next cycle are the pooled ones, the lot-alone ones stay in
+    /// [`LotAnalysis::pooled`]. None: the lot alone.
+    #[serde(default)]
+    pub prior: Option<FamilyPrior>,
 }
 
 fn yes() -> bool {
@@ -89,6 +95,7 @@ impl Default for AnalysisOptions {
             grid_points: 80,
             max_iterations: 200,
             physical_bounds: true,
+            prior: None,
         }
     }
 }
@@ -169,6 +176,9 @@ pub struct LotAnalysis {
     /// Cycles the lot's trend was fitted on (all fitted cycles, or those before a change).
     #[serde(default)]
     pub trend_cycles: usize,
+    /// With a family prior: the pooled fit and forecast, and the lot-alone forecast.
+    #[serde(default)]
+    pub pooled: Option<Pooled>,
 }
 
 /// Cycles of a new level after a step change before its own trend is fitted and a
@@ -515,6 +525,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         weights: Vec::new(),
         next_cycle: None,
         trend_cycles: fx.len(),
+        pooled: None,
     };
 
     // The TON plateau describes cumulative TON, not activity: with activity models in the
@@ -622,6 +633,11 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     let Some((model, fit)) = chosen else {
         out.notes
             .push("no model could be fitted and chosen".to_string());
+        if let Some(prior) = &opts.prior {
+            let x_next = x_last + cycle_step(&fx);
+            let fc = with_prior(&mut out, prior, opts, &fx, &fy, change, x_next, None);
+            out.forecast = fc;
+        }
         out.abrupt = mon.map(|m| AbruptLoss {
             prediction: None,
             cusum: Some(m.cusum),
@@ -635,7 +651,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     out.chosen = Some(model);
     let x_next = x_last + cycle_step(&fx);
 
-    // 3. The forecast and the next cycle.
+    // 3. The forecast and the next cycle (the pooled ones when a family prior is given).
     let mut fc = match (&avg, change) {
         (None, _) => {
             out.notes
@@ -695,6 +711,10 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             }
         }
     };
+    if let Some(prior) = &opts.prior {
+        let alone = Some(fc.clone());
+        fc = with_prior(&mut out, prior, opts, &fx, &fy, change, x_next, alone).unwrap_or(fc);
+    }
     if pts.iter().any(|p| p.3.is_some())
         && let Some(xs) = fc.x
     {

@@ -49,6 +49,7 @@ fn populated() -> rusqlite::Connection {
             supplier_lot: None,
             cost: Some(1000.0),
             site: None,
+            family: None,
         },
     }]);
     records::record_parsed(&tx, &facts("lots.csv", "aa"), &lots, "qa").unwrap();

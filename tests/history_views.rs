@@ -63,6 +63,7 @@ fn a_lot_as_it_stood_before_a_correction() {
             supplier_lot: None,
             cost: None,
             site: None,
+            family: None,
         },
     };
     records::record_parsed(&tx, &facts("lots"), &ParsedFile::Lots(vec![lot]), "qa").unwrap();

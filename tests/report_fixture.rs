@@ -255,6 +255,7 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
                 supplier_lot: Some("S-44-0917".to_string()),
                 cost: Some(4180.0),
                 site: Some("Demo plant, building 3".to_string()),
+                family: None,
             },
             currency: Some("EUR".to_string()),
         },

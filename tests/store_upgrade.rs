@@ -341,6 +341,7 @@ fn build_v4() -> V4 {
         supplier_lot: Some("S-88213".into()),
         cost: Some(1840.5),
         site: Some("pilot-2".into()),
+        family: None,
     };
     let seq = chain.append(
         &tx,

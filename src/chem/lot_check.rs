@@ -13,6 +13,7 @@ pub enum LotField {
     ChargedMass,
     Received,
     Cost,
+    Family,
 }
 
 impl LotField {
@@ -24,6 +25,7 @@ impl LotField {
             LotField::ChargedMass => "charged_mass",
             LotField::Received => "received",
             LotField::Cost => "cost",
+            LotField::Family => "family",
         }
     }
 }
@@ -35,6 +37,9 @@ pub struct LotProblem {
     pub field: LotField,
     pub expected: String,
 }
+
+/// The longest family name accepted.
+pub const MAX_FAMILY_CHARS: usize = 100;
 
 /// Check a registration against the rules every lot must meet.
 pub fn check_lot(rec: &LotRecord) -> Result<(), LotProblem> {
@@ -65,6 +70,16 @@ pub fn check_lot(rec: &LotRecord) -> Result<(), LotProblem> {
     if rec.cost.is_some_and(|c| !(c.is_finite() && c >= 0.0)) {
         return fail(LotField::Cost, "a cost of 0 or more".into());
     }
+    if rec
+        .family
+        .as_deref()
+        .is_some_and(|f| f.trim().is_empty() || f.chars().count() > MAX_FAMILY_CHARS)
+    {
+        return fail(
+            LotField::Family,
+            format!("a family name, not blank, of at most {MAX_FAMILY_CHARS} characters"),
+        );
+    }
     Ok(())
 }
 
@@ -83,6 +98,7 @@ mod tests {
             supplier_lot: None,
             cost: Some(100.0),
             site: None,
+            family: None,
         }
     }
 
@@ -90,7 +106,7 @@ mod tests {
     fn each_rule_names_its_field() {
         assert_eq!(check_lot(&lot()), Ok(()));
         type Spoil = fn(&mut LotRecord);
-        let cases: [(Spoil, LotField); 5] = [
+        let cases: [(Spoil, LotField); 6] = [
             (|l| l.metal = "Xx".into(), LotField::Metal),
             (|l| l.loading_wt_pct = 0.0, LotField::Loading),
             (|l| l.charged_mass_g = f64::NAN, LotField::ChargedMass),
@@ -99,6 +115,7 @@ mod tests {
                 LotField::Received,
             ),
             (|l| l.cost = Some(-1.0), LotField::Cost),
+            (|l| l.family = Some("  ".into()), LotField::Family),
         ];
         for (spoil, field) in cases {
             let mut l = lot();

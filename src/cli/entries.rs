@@ -17,6 +17,7 @@ pub fn register(cfg: &Config, a: &RegisterArgs) -> CmdResult {
         supplier_lot: a.supplier_lot.clone(),
         cost: a.cost,
         site: a.site.clone(),
+        family: a.family.clone(),
     };
     let r = entries::register(cfg, &rec, a.reason.as_deref())?;
     let verb = if r.changed { "changed" } else { "registered" };

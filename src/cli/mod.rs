@@ -136,6 +136,10 @@ pub struct RegisterArgs {
     pub cost: Option<f64>,
     #[arg(long)]
     pub site: Option<String>,
+    /// The lot's family: lots of one family share a prior for young lots' forecasts
+    /// (without it, lots of the same catalyst description do).
+    #[arg(long)]
+    pub family: Option<String>,
     /// Why (required when changing an existing lot).
     #[arg(long)]
     pub reason: Option<String>,

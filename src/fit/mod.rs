@@ -65,7 +65,7 @@ pub use lm::{
 pub use models::{ModelId, bennett_from_power, power_from_bennett};
 pub use population::{FamilyPrior, LotEstimate, Pooled, posterior_fit, random_effects};
 pub use render::{
-    ModelArg, analysis_json, fit_json, parse_model_arg, parse_start_arg, read_series_csv,
-    render_text,
+    ModelArg, analysis_json, fit_json, parse_model_arg, parse_start_arg, pooled_json,
+    read_series_csv, render_text,
 };
 pub use start::start_values;

@@ -60,6 +60,12 @@ pub const MIN_LOTS_FOR_SPREAD: usize = 4;
 /// smallest number proven by the coverage simulation).
 pub const MIN_OWN_POINTS: usize = 3;
 
+/// A lot is young, and gets its family's prior, while it has fewer fitted cycles than
+/// this: the simulation (tests/fit_population.rs) shows the pooled interval covering and
+/// narrower through 6 cycles, and from 10 the lot-alone, model-averaged forecast has the
+/// degrees of freedom every candidate model needs.
+pub const YOUNG_BELOW: usize = 10;
+
 /// At most this many earlier lots, the most recent, form a prior: the recent lots speak
 /// for the catalyst as it is made and used now, and the cost stays bounded at a site with
 /// many lots of one family.

@@ -509,6 +509,7 @@ impl Layout {
         let mut received = None;
         let mut supplier_lot = None;
         let mut cost = None;
+        let mut family = None;
         for b in &self.bound {
             let raw = record.get(b.index).unwrap_or("");
             let cell = Cell {
@@ -529,6 +530,7 @@ impl Layout {
                 }
                 Field::SupplierLot => supplier_lot = cell.text_value()?,
                 Field::Cost => cost = cell.cost(profile.decimal)?,
+                Field::Family => family = cell.text_value()?,
                 _ => {}
             }
         }
@@ -559,6 +561,7 @@ impl Layout {
                 supplier_lot,
                 cost,
                 site: None,
+                family,
             },
         };
         // The cells were checked one by one above; the registration as a whole meets the

@@ -181,6 +181,7 @@ pub enum Field {
     Received,
     SupplierLot,
     Cost,
+    Family,
 }
 
 /// How a field's cell is read.
@@ -197,7 +198,7 @@ pub enum FieldType {
 }
 
 const CYCLE_TEXT_KEYS: [&str; 4] = ["batch_id", "lot", "cycle_no", "started_at"];
-const LOT_KEYS: [&str; 8] = [
+const LOT_KEYS: [&str; 9] = [
     "lot",
     "catalyst",
     "metal",
@@ -206,6 +207,7 @@ const LOT_KEYS: [&str; 8] = [
     "received",
     "supplier_lot",
     "cost",
+    "family",
 ];
 
 impl Field {
@@ -228,6 +230,7 @@ impl Field {
                 "received" => Some(Field::Received),
                 "supplier_lot" => Some(Field::SupplierLot),
                 "cost" => Some(Field::Cost),
+                "family" => Some(Field::Family),
                 _ => None,
             },
         }
@@ -235,9 +238,12 @@ impl Field {
 
     pub fn field_type(self) -> FieldType {
         match self {
-            Field::BatchId | Field::Lot | Field::Catalyst | Field::Metal | Field::SupplierLot => {
-                FieldType::Text
-            }
+            Field::BatchId
+            | Field::Lot
+            | Field::Catalyst
+            | Field::Metal
+            | Field::SupplierLot
+            | Field::Family => FieldType::Text,
             Field::CycleNo => FieldType::Integer,
             Field::StartedAt => FieldType::DateTime,
             Field::Received => FieldType::Date,

@@ -201,6 +201,11 @@ pub struct LotRecord {
     pub supplier_lot: Option<String>,
     pub cost: Option<f64>,
     pub site: Option<String>,
+    /// The family the lot belongs to: lots of one family (or, without one, of one catalyst
+    /// description) are a population whose earlier lots give a young lot its prior.
+    /// Absent from the hashed payload when not given, so older events keep verifying.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub family: Option<String>,
 }
 
 /// What an event did. The tag is the event's kind.
@@ -328,6 +333,7 @@ mod tests {
             supplier_lot: None,
             cost: Some(100.0),
             site: None,
+            family: None,
         };
         let owned = Payload::FileIngested {
             file: file.clone(),

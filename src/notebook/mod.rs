@@ -19,6 +19,7 @@ mod chain;
 mod daemon;
 mod entries;
 mod error;
+mod family;
 mod fits;
 mod history;
 mod ingestion;

@@ -203,6 +203,7 @@ fn identity(cfg: &Config, state: &LotState) -> report::LotIdentity {
         supplier_lot: None,
         cost: None,
         site: None,
+        family: None,
     });
     report::LotIdentity {
         record,

@@ -223,3 +223,51 @@ pub fn lot_exists(conn: &Connection, lot: &str) -> Result<bool> {
         |r| r.get(0),
     )?)
 }
+
+/// Every registered lot with its family and catalyst description, for forming a lot's
+/// population (the matching rule is the application's).
+pub fn lot_families(conn: &Connection) -> Result<Vec<(String, Option<String>, String)>> {
+    let mut stmt = conn.prepare_cached("SELECT lot, family, catalyst FROM lots ORDER BY lot")?;
+    let rows = stmt
+        .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
+}
+
+/// When a lot went into service: the earliest start time of its cycles (when recorded) and
+/// the first event that wrote one of its cycles, each up to event `as_of`.
+pub fn service_start(
+    conn: &Connection,
+    lot: &str,
+    as_of: i64,
+) -> Result<(Option<String>, Option<i64>)> {
+    Ok(conn
+        .prepare_cached(
+            "SELECT MIN(started_at), MIN(first_seq) FROM cycles WHERE lot = ?1 AND first_seq <= ?2",
+        )?
+        .query_row(rusqlite::params![lot, as_of], |r| {
+            Ok((r.get(0)?, r.get(1)?))
+        })?)
+}
+
+/// The ranking (JSON) and the number of trend cycles of a lot's newest stored analysis on
+/// `basis` computed up to event `as_of`; None when there is none (or it holds no fit).
+/// Only these two parts are taken out of the stored JSON, by SQLite.
+pub fn stored_ranking(
+    conn: &Connection,
+    lot: &str,
+    basis: &str,
+    as_of: i64,
+) -> Result<Option<(String, i64)>> {
+    Ok(conn
+        .prepare_cached(
+            "SELECT json_extract(analysis, '$.ranking'), json_extract(analysis, '$.trend_cycles')
+             FROM fits WHERE lot = ?1 AND basis = ?2 AND after_seq <= ?3 AND model IS NOT NULL
+             ORDER BY id DESC LIMIT 1",
+        )?
+        .query_row(rusqlite::params![lot, basis, as_of], |r| {
+            Ok((r.get::<_, Option<String>>(0)?, r.get::<_, Option<i64>>(1)?))
+        })
+        .optional()?
+        .and_then(|(r, n)| r.zip(n)))
+}

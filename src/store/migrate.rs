@@ -27,6 +27,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "chain_key",
         include_str!("../../schema/0007_chain_key.sql"),
     ),
+    (
+        9,
+        "lot_family",
+        include_str!("../../schema/0009_lot_family.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

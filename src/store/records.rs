@@ -851,8 +851,8 @@ fn lot_record(row: &LotRow, site: Option<String>) -> LotRecord {
 fn upsert_lot(tx: &Transaction<'_>, l: &LotRecord, seq: i64) -> Result<()> {
     tx.prepare_cached(
         "INSERT OR REPLACE INTO lots(lot, catalyst, metal, loading_wt_pct, charged_mass_g,
-             received, supplier_lot, cost, site, event_seq)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10)",
+             received, supplier_lot, cost, site, family, event_seq)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
     )?
     .execute(params![
         l.lot,
@@ -864,6 +864,7 @@ fn upsert_lot(tx: &Transaction<'_>, l: &LotRecord, seq: i64) -> Result<()> {
         l.supplier_lot,
         l.cost,
         l.site,
+        l.family,
         seq
     ])?;
     Ok(())
@@ -873,7 +874,7 @@ fn upsert_lot(tx: &Transaction<'_>, l: &LotRecord, seq: i64) -> Result<()> {
 pub fn lot(conn: &rusqlite::Connection, name: &str) -> Result<Option<LotRecord>> {
     Ok(conn
         .prepare_cached(
-            "SELECT lot, catalyst, metal, loading_wt_pct, charged_mass_g, received, supplier_lot, cost, site
+            "SELECT lot, catalyst, metal, loading_wt_pct, charged_mass_g, received, supplier_lot, cost, site, family
              FROM lots WHERE lot = ?1",
         )?
         .query_row([name], lot_from_row)
@@ -883,7 +884,7 @@ pub fn lot(conn: &rusqlite::Connection, name: &str) -> Result<Option<LotRecord>>
 /// Every registered lot, by name.
 pub fn all_lots(conn: &rusqlite::Connection) -> Result<Vec<LotRecord>> {
     let mut stmt = conn.prepare(
-        "SELECT lot, catalyst, metal, loading_wt_pct, charged_mass_g, received, supplier_lot, cost, site
+        "SELECT lot, catalyst, metal, loading_wt_pct, charged_mass_g, received, supplier_lot, cost, site, family
          FROM lots ORDER BY lot",
     )?;
     let rows = stmt
@@ -903,6 +904,7 @@ pub(crate) fn lot_from_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<LotRecord>
         supplier_lot: r.get(6)?,
         cost: r.get(7)?,
         site: r.get(8)?,
+        family: r.get(9)?,
     })
 }
 

@@ -298,6 +298,7 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
         cautions: vec![
             "Store spent catalyst under water in the labelled drum, area 3B.".to_string(),
         ],
+        family: None,
     }
 }
 

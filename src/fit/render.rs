@@ -529,8 +529,13 @@ pub fn render_text(a: &LotAnalysis) -> String {
         );
         let _ = writeln!(
             s,
-            "  {}",
-            forecast_words(fc, a.observed.last().map(|p| p.0))
+            "  {}{}",
+            forecast_words(fc, a.observed.last().map(|p| p.0)),
+            if a.pooled.as_ref().is_some_and(|p| p.headline) {
+                " (with the family prior, below)"
+            } else {
+                ""
+            }
         );
         if let (Some(l), Some(lo)) = (fc.loss, fc.loss_lower) {
             let _ = writeln!(
@@ -545,7 +550,6 @@ pub fn render_text(a: &LotAnalysis) -> String {
             let _ = writeln!(s, "  lifetime TON at x*: {t:.0}");
         }
     }
-    s.push_str(&pooled_text(a));
     if a.weights.len() > 1 {
         let parts: Vec<String> = a
             .weights
@@ -560,8 +564,18 @@ pub fn render_text(a: &LotAnalysis) -> String {
                 )
             })
             .collect();
-        let _ = writeln!(s, "  averaged over: {}", parts.join(", "));
+        let _ = writeln!(
+            s,
+            "  {}averaged over: {}",
+            if a.pooled.as_ref().is_some_and(|p| p.headline) {
+                "the lot alone "
+            } else {
+                ""
+            },
+            parts.join(", ")
+        );
     }
+    s.push_str(&pooled_text(a));
     if let Some(n) = &a.next_cycle {
         let _ = writeln!(
             s,

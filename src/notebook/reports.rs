@@ -95,6 +95,18 @@ fn fit_summary(cfg: &Config, a: &fit::LotAnalysis) -> Option<report::FitSummary>
     })
 }
 
+fn family_forecast(a: &fit::LotAnalysis) -> Option<report::FamilyForecast> {
+    let p = a.pooled.as_ref()?;
+    Some(report::FamilyForecast {
+        lots: p.prior.lots.clone(),
+        spread_assumed: p.prior.ln_kd.assumed,
+        own_share: p.own_share,
+        headline: p.headline,
+        with_prior: p.forecast.as_ref().map(report_forecast),
+        lot_alone: p.lot_alone.as_ref().map(report_forecast),
+    })
+}
+
 fn alerts_of(conn: &Connection, lot: &str) -> store::Result<Vec<report::AlertLine>> {
     Ok(store::outbox::alerts_of_lot(conn, lot)?
         .into_iter()
@@ -125,6 +137,7 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
         signoffs: entries.signoffs,
         verify: Some(verify_line(conn, cfg)?),
         cautions: Vec::new(),
+        family: state.analysis.as_ref().and_then(family_forecast),
     })
 }
 

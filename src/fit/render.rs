@@ -351,10 +351,11 @@ fn pooled_text(a: &LotAnalysis) -> String {
             );
         }
     }
-    if !p.headline && p.forecast.is_some() {
-        if let Some(w) = &p.why_not {
-            let _ = writeln!(s, "  the lot's forecast is its own: {w}");
-        }
+    if !p.headline
+        && p.forecast.is_some()
+        && let Some(w) = &p.why_not
+    {
+        let _ = writeln!(s, "  the lot's forecast is its own: {w}");
     }
     s
 }

@@ -33,8 +33,8 @@ use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
 use turnbook::fit::{
-    AnalysisOptions, Criterion, FamilyPrior, Forecast, ForecastStatus, LotAnalysis, LotEstimate,
-    LotSeries, ModelId, analyse,
+    AnalysisOptions, Criterion, FamilyPrior, Forecast, ForecastStatus, LotAnalysis, LotSeries,
+    ModelId, analyse,
 };
 
 const MEAN_LN_KD: f64 = -2.813_410_716_760_036; // ln 0.06
@@ -80,7 +80,7 @@ fn family_prior(rng: &mut ChaCha8Rng) -> Option<FamilyPrior> {
         let cycles = rng.random_range(12..=20);
         let lot = draw_lot(rng, cycles);
         let a = analyse(&series(&lot.y), &opts);
-        if let Some(e) = LotEstimate::from_analysis(&format!("E{k}"), &a, ModelId::FirstOrder) {
+        if let Some(e) = a.family_estimate(&format!("E{k}"), ModelId::FirstOrder) {
             estimates.push(e);
         }
     }

@@ -32,7 +32,7 @@ use super::forecast::{
 };
 use super::lm::LmOptions;
 use super::models::ModelId;
-use super::population::{FamilyPrior, Pooled, with_prior};
+use super::population::{FamilyPrior, LotEstimate, Pooled, pooled};
 
 /// Version of the numerical engine, stored beside each analysis so that a stored result
 /// can be traced to the code that produced it.
@@ -472,6 +472,103 @@ fn next_from_shift(
         t_quantile(confidence, s.dof)?,
         threshold,
     )
+}
+
+impl RankEntry {
+    /// This lot-alone fit as an estimate for a family prior (see
+    /// [`LotEstimate::new`]); `n` is the number of cycles it was fitted on.
+    pub fn family_estimate(&self, lot: &str, n: usize) -> Option<LotEstimate> {
+        let get = |name: &str| self.params.iter().find(|p| p.name == name);
+        let (a0, kd) = (get("a0")?, get("kd")?);
+        LotEstimate::new(
+            lot,
+            self.model,
+            self.converged && !self.at_bound,
+            (a0.value, a0.std_error?),
+            (kd.value, kd.std_error?),
+            self.rss?,
+            n,
+        )
+    }
+}
+
+impl LotAnalysis {
+    /// The lot-alone fit of `model` in the ranking (fitted on the trend's cycles) as an
+    /// estimate for its family's prior.
+    pub fn family_estimate(&self, lot: &str, model: ModelId) -> Option<LotEstimate> {
+        self.ranking
+            .iter()
+            .find(|r| r.model == model)?
+            .family_estimate(lot, self.trend_cycles)
+    }
+}
+
+/// Applies a family prior to a lot's analysis `out`: stores the pooled result in
+/// `out.pooled` and returns the headline forecast, the pooled one when it could be
+/// computed, else `lot_alone`. `out.next_cycle` follows the headline. After an accepted
+/// step change (`change`) the lot's own levels decide (a withheld forecast stays withheld)
+/// and the prior is only shown.
+#[allow(clippy::too_many_arguments)]
+fn with_prior(
+    out: &mut LotAnalysis,
+    prior: &FamilyPrior,
+    opts: &AnalysisOptions,
+    x: &[f64],
+    y: &[f64],
+    change: Option<usize>,
+    x_next: f64,
+    lot_alone: Option<Forecast>,
+) -> Option<Forecast> {
+    let alone_next = out.next_cycle.take();
+    let mut p = if change.is_some() {
+        let mut d = pooled(
+            prior,
+            &[],
+            &[],
+            opts.criterion,
+            opts.confidence,
+            x_next,
+            &LmOptions::default(),
+            lot_alone.clone(),
+            alone_next.clone(),
+        );
+        d.why_not =
+            Some("a step change was accepted: the lot's own levels decide the forecast".into());
+        d
+    } else {
+        let lm = LmOptions {
+            max_iterations: opts.max_iterations,
+            ftol: 1e-12,
+            xtol: 1e-10,
+            gtol: 1e-10,
+            ..LmOptions::default()
+        };
+        pooled(
+            prior,
+            x,
+            y,
+            opts.criterion,
+            opts.confidence,
+            x_next,
+            &lm,
+            lot_alone.clone(),
+            alone_next.clone(),
+        )
+    };
+    let headline = if p.headline { p.forecast.clone() } else { None };
+    let fc = match headline {
+        Some(f) => {
+            out.next_cycle = p.next_cycle.clone();
+            Some(f)
+        }
+        None => {
+            p.headline = false;
+            out.next_cycle = alone_next;
+            lot_alone
+        }
+    };
+    out.pooled = Some(p);
+    fc
 }
 
 /// Analyses one lot. Never fails: what cannot be computed is absent, with a note.

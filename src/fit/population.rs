@@ -40,7 +40,6 @@
 
 use serde::{Deserialize, Serialize};
 
-use super::analysis::{AnalysisOptions, LotAnalysis, RankEntry};
 use super::average::NextCycle;
 use super::engine::FitResult;
 use super::forecast::{Criterion, Forecast, ForecastStatus, forecast, t_quantile, threshold_of};
@@ -98,37 +97,36 @@ pub struct LotEstimate {
 }
 
 impl LotEstimate {
-    /// From a stored analysis: the `model` entry of its ranking (always the lot-alone fit,
-    /// on the trend's cycles). None unless that fit converged off its bounds with finite
-    /// standard errors, kd > 0, and the trend has at least [`MIN_FAMILY_POINTS`] cycles.
-    pub fn from_analysis(lot: &str, a: &LotAnalysis, model: ModelId) -> Option<LotEstimate> {
-        let e = a.ranking.iter().find(|r| r.model == model)?;
-        LotEstimate::from_rank(lot, e, a.trend_cycles)
-    }
-
-    /// From one ranking entry of a fit on `n` cycles (see [`LotEstimate::from_analysis`]).
-    pub fn from_rank(lot: &str, e: &RankEntry, n: usize) -> Option<LotEstimate> {
-        if !e.converged || e.at_bound || n < MIN_FAMILY_POINTS || !PRIOR_MODELS.contains(&e.model) {
+    /// One lot's estimates from its lot-alone fit of `model` on `n` cycles: (a0, its SE),
+    /// (kd, its SE) and the fit's RSS. None unless the model is one of [`PRIOR_MODELS`],
+    /// the fit `usable` (converged, off its bounds), the standard errors finite and
+    /// positive, kd > 0, and n at least [`MIN_FAMILY_POINTS`].
+    #[allow(clippy::too_many_arguments)]
+    pub fn new(
+        lot: &str,
+        model: ModelId,
+        usable: bool,
+        a0: (f64, f64),
+        kd: (f64, f64),
+        rss: f64,
+        n: usize,
+    ) -> Option<LotEstimate> {
+        if !usable || n < MIN_FAMILY_POINTS || !PRIOR_MODELS.contains(&model) || kd.0 <= 0.0 {
             return None;
         }
-        let get = |name: &str| e.params.iter().find(|p| p.name == name);
-        let (a0, kd) = (get("a0")?, get("kd")?);
-        let (a0_se, kd_se) = (a0.std_error?, kd.std_error?);
-        let rss = e.rss?;
         let est = LotEstimate {
             lot: lot.to_string(),
-            a0: a0.value,
-            a0_se,
-            ln_kd: kd.value.ln(),
-            ln_kd_se: kd_se / kd.value,
+            a0: a0.0,
+            a0_se: a0.1,
+            ln_kd: kd.0.ln(),
+            ln_kd_se: kd.1 / kd.0,
             rss,
-            dof: n.checked_sub(e.model.n_params())?,
+            dof: n.checked_sub(model.n_params())?,
         };
         let finite = [est.a0, est.a0_se, est.ln_kd, est.ln_kd_se, est.rss]
             .iter()
             .all(|v| v.is_finite());
-        (finite && kd.value > 0.0 && est.a0_se > 0.0 && est.ln_kd_se > 0.0 && est.dof > 0)
-            .then_some(est)
+        (finite && est.a0_se > 0.0 && est.ln_kd_se > 0.0 && est.dof > 0).then_some(est)
     }
 }
 
@@ -561,74 +559,6 @@ pub fn pooled(
     out
 }
 
-/// Applies a family prior to a lot's analysis `out`: stores the pooled result in
-/// `out.pooled` and returns the headline forecast, the pooled one when it could be
-/// computed, else `lot_alone`. `out.next_cycle` follows the headline. After an accepted
-/// step change (`change`) the lot's own levels decide (a withheld forecast stays withheld)
-/// and the prior is only shown.
-#[allow(clippy::too_many_arguments)]
-pub(crate) fn with_prior(
-    out: &mut LotAnalysis,
-    prior: &FamilyPrior,
-    opts: &AnalysisOptions,
-    x: &[f64],
-    y: &[f64],
-    change: Option<usize>,
-    x_next: f64,
-    lot_alone: Option<Forecast>,
-) -> Option<Forecast> {
-    let alone_next = out.next_cycle.take();
-    let mut p = if change.is_some() {
-        let mut d = pooled(
-            prior,
-            &[],
-            &[],
-            opts.criterion,
-            opts.confidence,
-            x_next,
-            &LmOptions::default(),
-            lot_alone.clone(),
-            alone_next.clone(),
-        );
-        d.why_not =
-            Some("a step change was accepted: the lot's own levels decide the forecast".into());
-        d
-    } else {
-        let lm = LmOptions {
-            max_iterations: opts.max_iterations,
-            ftol: 1e-12,
-            xtol: 1e-10,
-            gtol: 1e-10,
-            ..LmOptions::default()
-        };
-        pooled(
-            prior,
-            x,
-            y,
-            opts.criterion,
-            opts.confidence,
-            x_next,
-            &lm,
-            lot_alone.clone(),
-            alone_next.clone(),
-        )
-    };
-    let headline = if p.headline { p.forecast.clone() } else { None };
-    let fc = match headline {
-        Some(f) => {
-            out.next_cycle = p.next_cycle.clone();
-            Some(f)
-        }
-        None => {
-            p.headline = false;
-            out.next_cycle = alone_next;
-            lot_alone
-        }
-    };
-    out.pooled = Some(p);
-    fc
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -692,43 +622,28 @@ mod tests {
 
     #[test]
     fn estimates_need_a_usable_fit_on_enough_cycles() {
-        use crate::fit::analysis::NamedValue;
-        let entry = RankEntry {
-            model: ModelId::FirstOrder,
-            params: vec![
-                NamedValue {
-                    name: "a0".into(),
-                    value: 1.0,
-                    std_error: Some(0.02),
-                },
-                NamedValue {
-                    name: "kd".into(),
-                    value: 0.05,
-                    std_error: Some(0.005),
-                },
-            ],
-            rss: Some(0.004),
-            aicc: Some(-50.0),
-            delta_aicc: Some(0.0),
-            converged: true,
-            at_bound: false,
-            weight: Some(1.0),
-            why_not: None,
-            chosen: true,
-        };
-        let e = LotEstimate::from_rank("L", &entry, 10).expect("usable");
+        let m = ModelId::FirstOrder;
+        let e =
+            LotEstimate::new("L", m, true, (1.0, 0.02), (0.05, 0.005), 0.004, 10).expect("usable");
         assert!((e.ln_kd_se - 0.1).abs() < 1e-12 && e.dof == 8);
-        assert_eq!(LotEstimate::from_rank("L", &entry, 5), None);
-        let at_bound = RankEntry {
-            at_bound: true,
-            ..entry.clone()
-        };
-        assert_eq!(LotEstimate::from_rank("L", &at_bound, 10), None);
-        let linear = RankEntry {
-            model: ModelId::Linear,
-            ..entry
-        };
-        assert_eq!(LotEstimate::from_rank("L", &linear, 10), None);
+        assert_eq!(
+            LotEstimate::new("L", m, true, (1.0, 0.02), (0.05, 0.005), 0.004, 5),
+            None
+        );
+        assert_eq!(
+            LotEstimate::new("L", m, false, (1.0, 0.02), (0.05, 0.005), 0.004, 10),
+            None
+        );
+        let linear = LotEstimate::new(
+            "L",
+            ModelId::Linear,
+            true,
+            (1.0, 0.02),
+            (0.05, 0.005),
+            0.004,
+            10,
+        );
+        assert_eq!(linear, None);
         assert_eq!(
             FamilyPrior::from_estimates(ModelId::FirstOrder, &[]),
             Err(PriorError::NoLots)

@@ -12,7 +12,7 @@
 
 use crate::config::{Config, Measure};
 use crate::fit::population::{MAX_FAMILY_LOTS, MIN_OWN_POINTS, YOUNG_BELOW};
-use crate::fit::{FamilyPrior, LotEstimate, LotSeries, ModelId, RankEntry};
+use crate::fit::{FamilyPrior, LotSeries, ModelId, RankEntry};
 use crate::model::event::LotRecord;
 use crate::store::{self, Connection, Result};
 
@@ -40,11 +40,13 @@ fn earlier(a: &(Option<String>, Option<i64>), b: &(Option<String>, Option<i64>))
 /// The prior for `rec`'s lot from the earlier lots of its population, when the lot is
 /// young (at least [`MIN_OWN_POINTS`] and fewer than [`YOUNG_BELOW`] fitted cycles) and
 /// activity is what is fitted; None otherwise or when no earlier lot has a usable fit.
+/// `basis` names what the stored fits must have been made of (activity against cycle, ...).
 pub(crate) fn family_prior(
     conn: &Connection,
     cfg: &Config,
     rec: &LotRecord,
     series: &LotSeries,
+    basis: &str,
     as_of: Option<i64>,
 ) -> Result<Option<FamilyPrior>> {
     if cfg.fitting.measure == Measure::Ton {
@@ -76,13 +78,12 @@ pub(crate) fn family_prior(
     }
     // The most recent first.
     members.sort_by(|a, b| b.0.cmp(&a.0));
-    let basis = super::lots::basis(cfg);
     let mut estimates = Vec::new();
     for (_, lot) in members {
         if estimates.len() >= MAX_FAMILY_LOTS {
             break;
         }
-        let Some((ranking, n)) = store::lots::stored_ranking(conn, &lot, &basis, as_of)? else {
+        let Some((ranking, n)) = store::lots::stored_ranking(conn, &lot, basis, as_of)? else {
             continue;
         };
         let ranking: Vec<RankEntry> = match serde_json::from_str(&ranking) {
@@ -96,7 +97,7 @@ pub(crate) fn family_prior(
         if let Some(e) = ranking
             .iter()
             .find(|r| r.model == PRIOR_MODEL)
-            .and_then(|r| LotEstimate::from_rank(&lot, r, n))
+            .and_then(|r| r.family_estimate(&lot, n))
         {
             estimates.push(e);
         }

@@ -142,7 +142,7 @@ pub fn lot_state_as_of(
         .and_then(|c| c.view.get(Quantity::ProductMass))
         .map(|g| g / 1000.0);
     let mut opts = analysis_options(cfg, Some(&rec), product_first_kg);
-    opts.prior = super::family::family_prior(conn, cfg, &rec, &series, as_of)?;
+    opts.prior = super::family::family_prior(conn, cfg, &rec, &series, &basis(cfg), as_of)?;
     let analysis = (!series.x.is_empty()).then(|| fit::analyse(&series, &opts));
     if let Some(a) = &analysis {
         attention.extend(attention_from(a));

@@ -64,16 +64,21 @@ pub(crate) fn family_prior(
     }
     let as_of = as_of.unwrap_or(i64::MAX);
     let key = population_key(rec);
-    let mine = store::lots::service_start(conn, &rec.lot, as_of)?;
+    let all = store::lots::service_starts(conn, as_of)?;
+    let start = |s: &store::lots::ServiceStart| (s.first_started.clone(), s.first_seq);
+    let Some(mine) = all.iter().find(|s| s.lot == rec.lot).map(start) else {
+        return Ok(None);
+    };
     let mut members = Vec::new();
-    for (lot, family, catalyst) in store::lots::lot_families(conn)? {
-        let their = family.as_deref().unwrap_or(&catalyst).trim().to_lowercase();
-        if lot == rec.lot || their != key {
-            continue;
-        }
-        let start = store::lots::service_start(conn, &lot, as_of)?;
-        if earlier(&start, &mine) {
-            members.push((start, lot));
+    for s in &all {
+        let their = s
+            .family
+            .as_deref()
+            .unwrap_or(&s.catalyst)
+            .trim()
+            .to_lowercase();
+        if s.lot != rec.lot && their == key && earlier(&start(s), &mine) {
+            members.push((start(s), s.lot.clone()));
         }
     }
     // The most recent first.

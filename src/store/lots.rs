@@ -224,30 +224,39 @@ pub fn lot_exists(conn: &Connection, lot: &str) -> Result<bool> {
     )?)
 }
 
-/// Every registered lot with its family and catalyst description, for forming a lot's
-/// population (the matching rule is the application's).
-pub fn lot_families(conn: &Connection) -> Result<Vec<(String, Option<String>, String)>> {
-    let mut stmt = conn.prepare_cached("SELECT lot, family, catalyst FROM lots ORDER BY lot")?;
-    let rows = stmt
-        .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))?
-        .collect::<std::result::Result<Vec<_>, _>>()?;
-    Ok(rows)
+/// A registered lot as a candidate member of a population: its family and catalyst
+/// description, and when it went into service.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ServiceStart {
+    pub lot: String,
+    pub family: Option<String>,
+    pub catalyst: String,
+    /// The earliest recorded start of its cycles, up to the event asked for.
+    pub first_started: Option<String>,
+    /// The first event that recorded one of its cycles, up to the event asked for.
+    pub first_seq: Option<i64>,
 }
 
-/// When a lot went into service: the earliest start time of its cycles (when recorded) and
-/// the first event that wrote one of its cycles, each up to event `as_of`.
-pub fn service_start(
-    conn: &Connection,
-    lot: &str,
-    as_of: i64,
-) -> Result<(Option<String>, Option<i64>)> {
-    Ok(conn
-        .prepare_cached(
-            "SELECT MIN(started_at), MIN(first_seq) FROM cycles WHERE lot = ?1 AND first_seq <= ?2",
-        )?
-        .query_row(rusqlite::params![lot, as_of], |r| {
-            Ok((r.get(0)?, r.get(1)?))
-        })?)
+/// Every registered lot with its family, catalyst description and start of service (its
+/// cycles up to event `as_of`), in one query; the matching rule is the application's.
+pub fn service_starts(conn: &Connection, as_of: i64) -> Result<Vec<ServiceStart>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT l.lot, l.family, l.catalyst, MIN(c.started_at), MIN(c.first_seq)
+         FROM lots l LEFT JOIN cycles c ON c.lot = l.lot AND c.first_seq <= ?1
+         GROUP BY l.lot ORDER BY l.lot",
+    )?;
+    let rows = stmt
+        .query_map([as_of], |r| {
+            Ok(ServiceStart {
+                lot: r.get(0)?,
+                family: r.get(1)?,
+                catalyst: r.get(2)?,
+                first_started: r.get(3)?,
+                first_seq: r.get(4)?,
+            })
+        })?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
 }
 
 /// The ranking (JSON) and the number of trend cycles of a lot's newest stored analysis on

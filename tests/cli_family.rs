@@ -189,7 +189,6 @@ fn young_lot_borrows_from_its_family() {
     );
 
     let so = tb(&["fit", "PN-Y"], 0);
-    eprintln!("{so}");
     assert!(
         so.contains("Family prior (empirical Bayes) from 5 earlier lot(s)"),
         "{so}"
@@ -225,6 +224,9 @@ fn young_lot_borrows_from_its_family() {
         (9.0..16.0).contains(&x) && lo >= 4.0 && lo < x && x < hi,
         "{pooled:#}"
     );
+
+    // Registrations with and without a family verify against the audit chain.
+    tb(&["verify"], 0);
 
     // An earlier lot is not young: it is fitted alone.
     let js: serde_json::Value = serde_json::from_str(&tb(&["fit", "PN-5", "--json"], 0)).unwrap();

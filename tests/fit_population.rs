@@ -324,3 +324,38 @@ fn own_data_take_over() {
     assert!((kd_of(&old) - alone).abs() < 0.02 * alone);
     assert!((kd_of(&young) - alone).abs() > (kd_of(&old) - alone).abs());
 }
+
+/// A step change keeps precedence: a forecast withheld after a change stays withheld when a
+/// family prior is given, and the prior is only shown. Truth as tests/fit_step.rs: first
+/// order with kd = 0.03, noise sd 0.02, a 20 % drop from cycle 10; two cycles of the new
+/// level (series of 11 cycles, seed 41 as there).
+#[test]
+fn a_withheld_forecast_stays_withheld() {
+    let mut rng = ChaCha8Rng::seed_from_u64(5);
+    let prior = family_prior(&mut rng).expect("a prior");
+    let mut rng = ChaCha8Rng::seed_from_u64(41);
+    let z = Normal::new(0.0, 0.02).expect("sd");
+    let mut withheld = 0;
+    for _ in 0..20 {
+        let y: Vec<f64> = (1..=11)
+            .map(|n| {
+                let step = if n >= 10 { 0.8 } else { 1.0 };
+                (-0.03 * n as f64).exp() * step + z.sample(&mut rng)
+            })
+            .collect();
+        let plain = analyse(&series(&y), &AnalysisOptions::default());
+        let opts = AnalysisOptions {
+            prior: Some(prior.clone()),
+            ..AnalysisOptions::default()
+        };
+        let a = analyse(&series(&y), &opts);
+        if plain.forecast.as_ref().map(|f| f.status) == Some(ForecastStatus::Withheld) {
+            withheld += 1;
+            assert_eq!(a.forecast, plain.forecast);
+            assert_eq!(a.next_cycle, plain.next_cycle);
+            let p = a.pooled.as_ref().expect("the prior is shown");
+            assert!(!p.headline && p.why_not.is_some() && p.forecast.is_none());
+        }
+    }
+    assert!(withheld >= 15, "only {withheld} of 20 withheld");
+}

@@ -652,7 +652,8 @@ mod tests {
             FamilyPrior::from_estimates(ModelId::FirstOrder, &[]),
             Err(PriorError::NoLots)
         );
-        let one = FamilyPrior::from_estimates(ModelId::FirstOrder, &[e.clone()]).expect("prior");
+        let one = FamilyPrior::from_estimates(ModelId::FirstOrder, std::slice::from_ref(&e))
+            .expect("prior");
         assert!(one.ln_kd.assumed && (one.ln_kd.between_sd - ASSUMED_SD_LN_KD).abs() < 1e-12);
         // From MIN_LOTS_FOR_SPREAD lots on the spread is estimated, and finite.
         for k in [MIN_LOTS_FOR_SPREAD - 1, MIN_LOTS_FOR_SPREAD, 8] {

@@ -11,6 +11,11 @@
 //! Otherwise every cycle is used. The forecast averages the usable candidates with Akaike
 //! weights ([`super::average`]); a single candidate gives its own forecast.
 //!
+//! With a family prior ([`AnalysisOptions::prior`]), a young lot's forecast and next cycle
+//! are the posterior ones of [`super::population`], the lot-alone ones kept beside them in
+//! [`LotAnalysis::pooled`]; an accepted step change keeps precedence (the prior is then
+//! only shown).
+//!
 //! Physical bounds hold by default (see [`physical_bounds`]); a fit that ends at a bound,
 //! or that did not converge, is shown as such, without ΔAICc or weight, and is never
 //! chosen nor averaged.

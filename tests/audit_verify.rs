@@ -50,6 +50,7 @@ fn populated() -> rusqlite::Connection {
             cost: Some(1000.0),
             site: None,
             water_content_wt_pct: None,
+            family: None,
         },
     }]);
     records::record_parsed(&tx, &facts("lots.csv", "aa"), &lots, "qa").unwrap();

@@ -33,8 +33,8 @@ fn a_relative_demo_folder_records_each_file_once_and_completes_every_cycle() {
     let v: serde_json::Value = serde_json::from_slice(&status.stdout).unwrap();
     assert_eq!(v["duplicates"], 0, "{v}");
     assert_eq!(v["files_quarantined"], 0, "{v}");
-    // 14 + 10 cycles of the two registered lots and the one pending batch.
-    assert_eq!(v["cycles"], 25, "{v}");
+    // 14 + 10 + 4 cycles of the three registered lots and the one pending batch.
+    assert_eq!(v["cycles"], 29, "{v}");
     assert_eq!(v["pending_cycles"], 1, "{v}");
 
     // The poisoned lot's tenth cycle arrived live: it is complete, not pending.

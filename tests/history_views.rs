@@ -64,6 +64,7 @@ fn a_lot_as_it_stood_before_a_correction() {
             cost: None,
             site: None,
             water_content_wt_pct: None,
+            family: None,
         },
     };
     records::record_parsed(&tx, &facts("lots"), &ParsedFile::Lots(vec![lot]), "qa").unwrap();

@@ -262,6 +262,7 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
                 cost: Some(4180.0),
                 site: Some("Demo plant, building 3".to_string()),
                 water_content_wt_pct: None,
+                family: None,
             },
             currency: Some("EUR".to_string()),
         },
@@ -310,6 +311,7 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
                 .to_string(),
         ],
         activity_note: None,
+        family: None,
     }
 }
 

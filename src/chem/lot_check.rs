@@ -14,6 +14,7 @@ pub enum LotField {
     Received,
     Cost,
     WaterContent,
+    Family,
 }
 
 impl LotField {
@@ -26,6 +27,7 @@ impl LotField {
             LotField::Received => "received",
             LotField::Cost => "cost",
             LotField::WaterContent => "water_content",
+            LotField::Family => "family",
         }
     }
 }
@@ -37,6 +39,9 @@ pub struct LotProblem {
     pub field: LotField,
     pub expected: String,
 }
+
+/// The longest family name accepted.
+pub const MAX_FAMILY_CHARS: usize = 100;
 
 /// Check a registration against the rules every lot must meet.
 pub fn check_lot(rec: &LotRecord) -> Result<(), LotProblem> {
@@ -74,6 +79,16 @@ pub fn check_lot(rec: &LotRecord) -> Result<(), LotProblem> {
         return fail(
             LotField::WaterContent,
             "a water content of at least 0 and below 100 wt %".into(),
+        );
+    }
+    if rec
+        .family
+        .as_deref()
+        .is_some_and(|f| f.trim().is_empty() || f.chars().count() > MAX_FAMILY_CHARS)
+    {
+        return fail(
+            LotField::Family,
+            format!("a family name, not blank, of at most {MAX_FAMILY_CHARS} characters"),
         );
     }
     Ok(())
@@ -118,6 +133,7 @@ mod tests {
             cost: Some(100.0),
             site: None,
             water_content_wt_pct: None,
+            family: None,
         }
     }
 
@@ -125,7 +141,7 @@ mod tests {
     fn each_rule_names_its_field() {
         assert_eq!(check_lot(&lot()), Ok(()));
         type Spoil = fn(&mut LotRecord);
-        let cases: [(Spoil, LotField); 7] = [
+        let cases: [(Spoil, LotField); 8] = [
             (|l| l.metal = "Xx".into(), LotField::Metal),
             (|l| l.loading_wt_pct = 0.0, LotField::Loading),
             (|l| l.charged_mass_g = f64::NAN, LotField::ChargedMass),
@@ -142,6 +158,7 @@ mod tests {
                 |l| l.water_content_wt_pct = Some(f64::NAN),
                 LotField::WaterContent,
             ),
+            (|l| l.family = Some("  ".into()), LotField::Family),
         ];
         for (spoil, field) in cases {
             let mut l = lot();

@@ -5,7 +5,9 @@
 //! hydrogenates a nitroarene over a 5 wt % Pd/C lot (PD-C-2611-A), which deactivates
 //! slowly towards a residual activity, and runs a ketone reduction over a 1 wt % Pt/Al2O3
 //! lot (PT-AL-2610-B), which is stable until a contaminated feed drum poisons it in its
-//! tenth cycle. A third batch names a lot nobody registered yet (pending). The numbers are
+//! tenth cycle. A second Pd/C lot of the same catalyst (PD-C-2612-C) has run four cycles:
+//! too few for a forecast of its own, so its forecast borrows the family prior from the
+//! first Pd/C lot. A batch names a lot nobody registered yet (pending). The numbers are
 //! drawn from a seeded generator, so every run gives the same files.
 
 use std::fmt::Write as _;
@@ -80,14 +82,20 @@ fn pd_activity(n: u32) -> f64 {
     0.30 + 0.70 * (-0.075 * f64::from(n - 1)).exp()
 }
 
+fn pd_young_activity(n: u32) -> f64 {
+    // The next Pd/C lot of the same catalyst, losing activity a little faster (invented).
+    0.30 + 0.70 * (-0.09 * f64::from(n - 1)).exp()
+}
+
 fn pt_activity(n: u32) -> f64 {
     // Nearly stable, then a poisoned feed drum in cycle 10.
     let a = 1.0 - 0.008 * f64::from(n - 1);
     if n >= 10 { a * 0.62 } else { a }
 }
 
-/// The two lots of the scenario.
-fn plans() -> [LotPlan; 2] {
+/// The lots of the scenario (the young Pd/C lot last, so the other lots' draws stay as
+/// they were).
+fn plans() -> [LotPlan; 3] {
     [
         LotPlan {
             lot: "PD-C-2611-A",
@@ -118,6 +126,21 @@ fn plans() -> [LotPlan; 2] {
             activity: pt_activity,
             leach_ug_g: 0.8,
             day0: 3,
+        },
+        LotPlan {
+            lot: "PD-C-2612-C",
+            prefix: "KV4-P",
+            metal: "Pd",
+            cycles: 4,
+            charged_g: 10.0,
+            substrate_mmol: 1200.0,
+            minutes: 120.0,
+            temp_c: 60.0,
+            k0: 1.70,
+            product_g_per_mol: 137.1,
+            activity: pd_young_activity,
+            leach_ug_g: 2.8,
+            day0: 50,
         },
     ]
 }
@@ -247,6 +270,7 @@ const LOT_SHEET: &str = "\
 lot,catalyst,metal,loading (%),charged mass (g),received,supplier lot,cost,water (%)
 PD-C-2611-A,5 % Pd/C (50 % water-wet paste),Pd,5.0,10.0,2026-09-28,NS-55120,6400,50
 PT-AL-2610-B,1 % Pt/Al2O3 spheres,Pt,1.0,25.0,2026-09-21,NS-54877,5100,
+PD-C-2612-C,5 % Pd/C (50 % water-wet paste),Pd,5.0,10.0,2026-11-18,NS-55391,6400,50
 ";
 
 /// Files of one batch, as (relative path, bytes).

@@ -18,6 +18,7 @@ pub fn register(cfg: &Config, a: &RegisterArgs) -> CmdResult {
         cost: a.cost,
         site: a.site.clone(),
         water_content_wt_pct: a.water_content,
+        family: a.family.clone(),
     };
     let r = entries::register(cfg, &rec, a.reason.as_deref())?;
     let verb = if r.changed { "changed" } else { "registered" };

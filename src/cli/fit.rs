@@ -29,10 +29,16 @@ fn lot_fit(cfg: &Config, lot: &str, json: bool) -> CmdResult {
                     m.entry(k).or_insert(val);
                 }
             }
+        }
+        if let serde_json::Value::Object(m) = &mut v {
             m.insert("lot".into(), serde_json::Value::String(lot.to_string()));
             m.insert(
                 "basis".into(),
                 serde_json::Value::String(state.basis.clone()),
+            );
+            m.insert(
+                "prior_lots".into(),
+                serde_json::json!(a.pooled.as_ref().map(|p| p.prior.lots.len())),
             );
         }
         println!("{}", serde_json::to_string_pretty(&v)?);

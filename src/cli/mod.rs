@@ -165,6 +165,10 @@ pub struct RegisterArgs {
     /// charged water-wet: metal is computed on the dry mass.
     #[arg(long)]
     pub water_content: Option<f64>,
+    /// The lot's family: lots of one family share a prior for young lots' forecasts
+    /// (without it, lots of the same catalyst description do).
+    #[arg(long)]
+    pub family: Option<String>,
     /// Why (required when changing an existing lot).
     #[arg(long)]
     pub reason: Option<String>,

@@ -11,6 +11,11 @@
 //! Otherwise every cycle is used. The forecast averages the usable candidates with Akaike
 //! weights ([`super::average`]); a single candidate gives its own forecast.
 //!
+//! With a family prior ([`AnalysisOptions::prior`]), a young lot's forecast and next cycle
+//! are the posterior ones of [`super::population`], the lot-alone ones kept beside them in
+//! [`LotAnalysis::pooled`]; an accepted step change keeps precedence (the prior is then
+//! only shown).
+//!
 //! Physical bounds hold by default (see [`physical_bounds`]); a fit that ends at a bound,
 //! or that did not converge, is shown as such, without ΔAICc or weight, and is never
 //! chosen nor averaged.
@@ -32,6 +37,7 @@ use super::forecast::{
 };
 use super::lm::LmOptions;
 use super::models::ModelId;
+use super::population::{FamilyPrior, LotEstimate, Pooled, pooled};
 
 /// Version of the numerical engine, stored beside each analysis so that a stored result
 /// can be traced to the code that produced it.
@@ -74,6 +80,11 @@ pub struct AnalysisOptions {
     /// Hold the physical bounds of [`physical_bounds`] (the default).
     #[serde(default = "yes")]
     pub physical_bounds: bool,
+    /// The family's prior for a young lot ([`super::population`]): when given, the
+    /// headline forecast and next cycle are the pooled ones, the lot-alone ones stay in
+    /// [`LotAnalysis::pooled`]. None: the lot alone.
+    #[serde(default)]
+    pub prior: Option<FamilyPrior>,
 }
 
 fn yes() -> bool {
@@ -93,6 +104,7 @@ impl Default for AnalysisOptions {
             grid_points: 80,
             max_iterations: 200,
             physical_bounds: true,
+            prior: None,
         }
     }
 }
@@ -173,6 +185,9 @@ pub struct LotAnalysis {
     /// Cycles the lot's trend was fitted on (all fitted cycles, or those before a change).
     #[serde(default)]
     pub trend_cycles: usize,
+    /// With a family prior: the pooled fit and forecast, and the lot-alone forecast.
+    #[serde(default)]
+    pub pooled: Option<Pooled>,
 }
 
 /// Cycles of a new level after a step change before its own trend is fitted and a
@@ -468,6 +483,103 @@ fn next_from_shift(
     )
 }
 
+impl RankEntry {
+    /// This lot-alone fit as an estimate for a family prior (see
+    /// [`LotEstimate::new`]); `n` is the number of cycles it was fitted on.
+    pub fn family_estimate(&self, lot: &str, n: usize) -> Option<LotEstimate> {
+        let get = |name: &str| self.params.iter().find(|p| p.name == name);
+        let (a0, kd) = (get("a0")?, get("kd")?);
+        LotEstimate::new(
+            lot,
+            self.model,
+            self.converged && !self.at_bound,
+            (a0.value, a0.std_error?),
+            (kd.value, kd.std_error?),
+            self.rss?,
+            n,
+        )
+    }
+}
+
+impl LotAnalysis {
+    /// The lot-alone fit of `model` in the ranking (fitted on the trend's cycles) as an
+    /// estimate for its family's prior.
+    pub fn family_estimate(&self, lot: &str, model: ModelId) -> Option<LotEstimate> {
+        self.ranking
+            .iter()
+            .find(|r| r.model == model)?
+            .family_estimate(lot, self.trend_cycles)
+    }
+}
+
+/// Applies a family prior to a lot's analysis `out`: stores the pooled result in
+/// `out.pooled` and returns the headline forecast, the pooled one when it could be
+/// computed, else `lot_alone`. `out.next_cycle` follows the headline. After an accepted
+/// step change (`change`) the lot's own levels decide (a withheld forecast stays withheld)
+/// and the prior is only shown.
+#[allow(clippy::too_many_arguments)]
+fn with_prior(
+    out: &mut LotAnalysis,
+    prior: &FamilyPrior,
+    opts: &AnalysisOptions,
+    x: &[f64],
+    y: &[f64],
+    change: Option<usize>,
+    x_next: f64,
+    lot_alone: Option<Forecast>,
+) -> Option<Forecast> {
+    let alone_next = out.next_cycle.take();
+    let mut p = if change.is_some() {
+        let mut d = pooled(
+            prior,
+            &[],
+            &[],
+            opts.criterion,
+            opts.confidence,
+            x_next,
+            &LmOptions::default(),
+            lot_alone.clone(),
+            alone_next.clone(),
+        );
+        d.why_not =
+            Some("a step change was accepted: the lot's own levels decide the forecast".into());
+        d
+    } else {
+        let lm = LmOptions {
+            max_iterations: opts.max_iterations,
+            ftol: 1e-12,
+            xtol: 1e-10,
+            gtol: 1e-10,
+            ..LmOptions::default()
+        };
+        pooled(
+            prior,
+            x,
+            y,
+            opts.criterion,
+            opts.confidence,
+            x_next,
+            &lm,
+            lot_alone.clone(),
+            alone_next.clone(),
+        )
+    };
+    let headline = if p.headline { p.forecast.clone() } else { None };
+    let fc = match headline {
+        Some(f) => {
+            out.next_cycle = p.next_cycle.clone();
+            Some(f)
+        }
+        None => {
+            p.headline = false;
+            out.next_cycle = alone_next;
+            lot_alone
+        }
+    };
+    out.pooled = Some(p);
+    fc
+}
+
 /// Analyses one lot. Never fails: what cannot be computed is absent, with a note.
 pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     let mut notes = Vec::new();
@@ -519,6 +631,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         weights: Vec::new(),
         next_cycle: None,
         trend_cycles: fx.len(),
+        pooled: None,
     };
 
     // The TON plateau describes cumulative TON, not activity: with activity models in the
@@ -626,6 +739,11 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     let Some((model, fit)) = chosen else {
         out.notes
             .push("no model could be fitted and chosen".to_string());
+        if let Some(prior) = &opts.prior {
+            let x_next = x_last + cycle_step(&fx);
+            let fc = with_prior(&mut out, prior, opts, &fx, &fy, change, x_next, None);
+            out.forecast = fc;
+        }
         out.abrupt = mon.map(|m| AbruptLoss {
             prediction: None,
             cusum: Some(m.cusum),
@@ -639,7 +757,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     out.chosen = Some(model);
     let x_next = x_last + cycle_step(&fx);
 
-    // 3. The forecast and the next cycle.
+    // 3. The forecast and the next cycle (the pooled ones when a family prior is given).
     let mut fc = match (&avg, change) {
         (None, _) => {
             out.notes
@@ -699,6 +817,10 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             }
         }
     };
+    if let Some(prior) = &opts.prior {
+        let alone = Some(fc.clone());
+        fc = with_prior(&mut out, prior, opts, &fx, &fy, change, x_next, alone).unwrap_or(fc);
+    }
     if pts.iter().any(|p| p.3.is_some())
         && let Some(xs) = fc.x
     {

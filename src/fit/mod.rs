@@ -13,6 +13,8 @@
 //! - [`abrupt`]: step-change monitoring (one-step-ahead scores against a baseline that
 //!   excludes suspect cycles, Page's CUSUM), prediction checks and the level-shift model.
 //! - [`economics`]: the economic replacement point.
+//! - [`population`]: young lots borrow strength from their family (an empirical-Bayes
+//!   prior from the earlier lots, the posterior mode and its forecast).
 //! - [`analysis`]: [`analyse`], the one call for the shell, and its serialisable result.
 //! - [`render`]: CSV series reader, model/start argument parsing, JSON and text output.
 //!
@@ -43,6 +45,7 @@ pub mod error;
 pub mod forecast;
 pub mod lm;
 pub mod models;
+pub mod population;
 pub mod render;
 pub mod start;
 pub mod varpro;
@@ -60,8 +63,9 @@ pub use lm::{
     Curve, FnCurve, LmOptions, LmOutcome, StopReason, levenberg_marquardt, numeric_gradient,
 };
 pub use models::{ModelId, bennett_from_power, power_from_bennett};
+pub use population::{FamilyPrior, LotEstimate, Pooled, posterior_fit, random_effects};
 pub use render::{
-    ModelArg, analysis_json, fit_json, parse_model_arg, parse_start_arg, read_series_csv,
-    render_text,
+    ModelArg, analysis_json, fit_json, parse_model_arg, parse_start_arg, pooled_json,
+    read_series_csv, render_text,
 };
 pub use start::start_values;

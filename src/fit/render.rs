@@ -239,7 +239,132 @@ pub fn analysis_json(a: &LotAnalysis) -> Value {
         a.next_cycle.as_ref().map_or(Value::Null, next_json),
     );
     m.insert("trend_cycles".into(), json!(a.trend_cycles));
+    m.insert("pooled".into(), pooled_json(a));
     v
+}
+
+/// The family prior's part of an analysis as JSON: how many lots the prior came from, the
+/// prior, the posterior fit, and the forecast with it (`forecast`) and without it
+/// (`lot_alone`); null without a prior.
+pub fn pooled_json(a: &LotAnalysis) -> Value {
+    let Some(p) = &a.pooled else {
+        return Value::Null;
+    };
+    let fc = |f: Option<&Forecast>| {
+        f.map_or(Value::Null, |f| {
+            serde_json::to_value(f).unwrap_or(Value::Null)
+        })
+    };
+    json!({
+        "prior_lots": p.prior.lots.len(),
+        "lots": p.prior.lots,
+        "model": p.prior.model.id(),
+        "prior": {
+            "a0": {"mean": num(Some(p.prior.a0.mean)), "sd": num(Some(p.prior.a0.sd)),
+                   "between_sd": num(Some(p.prior.a0.between_sd)), "assumed": p.prior.a0.assumed},
+            "ln_kd": {"mean": num(Some(p.prior.ln_kd.mean)), "sd": num(Some(p.prior.ln_kd.sd)),
+                      "between_sd": num(Some(p.prior.ln_kd.between_sd)), "assumed": p.prior.ln_kd.assumed},
+            "sigma": num(Some(p.prior.sigma)),
+            "sigma_dof": p.prior.sigma_dof,
+        },
+        "params": p.fit.as_ref().map_or(Value::Null, |f| fit_json(f, None)["params"].clone()),
+        "own_share": num(p.own_share),
+        "headline": p.headline,
+        "why_not": p.why_not,
+        "forecast": fc(p.forecast.as_ref()),
+        "lot_alone": fc(p.lot_alone.as_ref()),
+        "next_cycle": p.next_cycle.as_ref().map_or(Value::Null, next_json),
+        "lot_alone_next_cycle": p.lot_alone_next.as_ref().map_or(Value::Null, next_json),
+    })
+}
+
+/// The family prior's section of [`render_text`]: where the prior came from, the posterior,
+/// and the forecast with and without the prior. Empty without a prior.
+fn pooled_text(a: &LotAnalysis) -> String {
+    use std::fmt::Write;
+    let Some(p) = &a.pooled else {
+        return String::new();
+    };
+    let mut s = String::new();
+    let pr = &p.prior;
+    let names = if pr.lots.len() > 5 {
+        format!("{}, …", pr.lots[..5].join(", "))
+    } else {
+        pr.lots.join(", ")
+    };
+    let _ = writeln!(
+        s,
+        "\nFamily prior (empirical Bayes) from {} earlier lot(s): {names}",
+        pr.lots.len()
+    );
+    let assumed = if pr.ln_kd.assumed {
+        " (assumed: too few lots to estimate the spread)"
+    } else {
+        ""
+    };
+    let _ = writeln!(
+        s,
+        "  a0 {} ± {}, kd {} (ln kd {} ± {}, between lots {}{assumed}), residual sd {} ({} dof)",
+        fmt_g(pr.a0.mean),
+        fmt_g(pr.a0.sd),
+        fmt_g(pr.ln_kd.mean.exp()),
+        fmt_g(pr.ln_kd.mean),
+        fmt_g(pr.ln_kd.sd),
+        fmt_g(pr.ln_kd.between_sd),
+        fmt_g(pr.sigma),
+        pr.sigma_dof
+    );
+    let last = a.observed.last().map(|p| p.0);
+    if let Some(f) = &p.fit {
+        let _ = writeln!(
+            s,
+            "  posterior {}: a0 {}, kd {}; the lot's own cycles carry {} of the weight on ln kd",
+            f.model.id(),
+            fmt_opt(f.param("a0")),
+            fmt_opt(f.param("kd")),
+            p.own_share
+                .map_or_else(|| "—".to_string(), |v| format!("{:.0} %", 100.0 * v))
+        );
+    }
+    let head = if p.headline {
+        " (the lot's forecast)"
+    } else {
+        ""
+    };
+    match &p.forecast {
+        Some(fc) => {
+            let _ = writeln!(
+                s,
+                "  with the family prior{head}: {}",
+                forecast_words(fc, last)
+            );
+        }
+        None => {
+            let _ = writeln!(
+                s,
+                "  with the family prior: none ({})",
+                p.why_not.as_deref().unwrap_or("not computed")
+            );
+        }
+    }
+    match &p.lot_alone {
+        Some(fc) => {
+            let _ = writeln!(s, "  from the lot alone: {}", forecast_words(fc, last));
+        }
+        None => {
+            let _ = writeln!(
+                s,
+                "  from the lot alone: none (too few cycles for a model of its own)"
+            );
+        }
+    }
+    if !p.headline
+        && p.forecast.is_some()
+        && let Some(w) = &p.why_not
+    {
+        let _ = writeln!(s, "  the lot's forecast is its own: {w}");
+    }
+    s
 }
 
 const BARS: [char; 8] = ['▁', '▂', '▃', '▄', '▅', '▆', '▇', '█'];
@@ -388,6 +513,7 @@ pub fn render_text(a: &LotAnalysis) -> String {
     }
     let Some(fit) = &a.fit else {
         let _ = writeln!(s, "\nNo model chosen.");
+        s.push_str(&pooled_text(a));
         for n in &a.notes {
             let _ = writeln!(s, "note: {n}");
         }
@@ -431,8 +557,13 @@ pub fn render_text(a: &LotAnalysis) -> String {
         );
         let _ = writeln!(
             s,
-            "  {}",
-            forecast_words(fc, a.observed.last().map(|p| p.0))
+            "  {}{}",
+            forecast_words(fc, a.observed.last().map(|p| p.0)),
+            if a.pooled.as_ref().is_some_and(|p| p.headline) {
+                " (with the family prior, below)"
+            } else {
+                ""
+            }
         );
         if let (Some(l), Some(lo)) = (fc.loss, fc.loss_lower) {
             let _ = writeln!(
@@ -464,8 +595,18 @@ pub fn render_text(a: &LotAnalysis) -> String {
                 )
             })
             .collect();
-        let _ = writeln!(s, "  averaged over: {}", parts.join(", "));
+        let _ = writeln!(
+            s,
+            "  {}averaged over: {}",
+            if a.pooled.as_ref().is_some_and(|p| p.headline) {
+                "the lot alone "
+            } else {
+                ""
+            },
+            parts.join(", ")
+        );
     }
+    s.push_str(&pooled_text(a));
     if let Some(n) = &a.next_cycle {
         let _ = writeln!(
             s,

@@ -510,6 +510,7 @@ impl Layout {
         let mut supplier_lot = None;
         let mut cost = None;
         let mut water = None;
+        let mut family = None;
         for b in &self.bound {
             let raw = record.get(b.index).unwrap_or("");
             let cell = Cell {
@@ -531,6 +532,7 @@ impl Layout {
                 Field::SupplierLot => supplier_lot = cell.text_value()?,
                 Field::Cost => cost = cell.cost(profile.decimal)?,
                 Field::WaterContent => water = cell.water_content(b.unit, profile.decimal)?,
+                Field::Family => family = cell.text_value()?,
                 _ => {}
             }
         }
@@ -562,6 +564,7 @@ impl Layout {
                 cost,
                 site: None,
                 water_content_wt_pct: water,
+                family,
             },
         };
         // The cells were checked one by one above; the registration as a whole meets the

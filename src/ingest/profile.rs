@@ -190,6 +190,7 @@ pub enum Field {
     SupplierLot,
     Cost,
     WaterContent,
+    Family,
 }
 
 /// How a field's cell is read.
@@ -206,7 +207,7 @@ pub enum FieldType {
 }
 
 const CYCLE_TEXT_KEYS: [&str; 4] = ["batch_id", "lot", "cycle_no", "started_at"];
-const LOT_KEYS: [&str; 9] = [
+const LOT_KEYS: [&str; 10] = [
     "lot",
     "catalyst",
     "metal",
@@ -216,6 +217,7 @@ const LOT_KEYS: [&str; 9] = [
     "supplier_lot",
     "cost",
     "water_content",
+    "family",
 ];
 
 impl Field {
@@ -239,6 +241,7 @@ impl Field {
                 "supplier_lot" => Some(Field::SupplierLot),
                 "cost" => Some(Field::Cost),
                 "water_content" => Some(Field::WaterContent),
+                "family" => Some(Field::Family),
                 _ => None,
             },
         }
@@ -246,9 +249,12 @@ impl Field {
 
     pub fn field_type(self) -> FieldType {
         match self {
-            Field::BatchId | Field::Lot | Field::Catalyst | Field::Metal | Field::SupplierLot => {
-                FieldType::Text
-            }
+            Field::BatchId
+            | Field::Lot
+            | Field::Catalyst
+            | Field::Metal
+            | Field::SupplierLot
+            | Field::Family => FieldType::Text,
             Field::CycleNo => FieldType::Integer,
             Field::StartedAt => FieldType::DateTime,
             Field::Received => FieldType::Date,

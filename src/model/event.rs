@@ -205,6 +205,11 @@ pub struct LotRecord {
     /// the loading is on the dry mass). Absent from events written before it existed.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub water_content_wt_pct: Option<f64>,
+    /// The family the lot belongs to: lots of one family (or, without one, of one catalyst
+    /// description) are a population whose earlier lots give a young lot its prior.
+    /// Absent from the hashed payload when not given, so older events keep verifying.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub family: Option<String>,
 }
 
 /// What an event did. The tag is the event's kind.
@@ -342,6 +347,7 @@ mod tests {
             cost: Some(100.0),
             site: None,
             water_content_wt_pct: None,
+            family: None,
         };
         let owned = Payload::FileIngested {
             file: file.clone(),

@@ -160,7 +160,8 @@ pub fn lot_state_as_of(
         .find(|c| c.cycle == 1)
         .and_then(|c| c.view.get(Quantity::ProductMass))
         .map(|g| g / 1000.0);
-    let opts = analysis_options(cfg, Some(&rec), product_first_kg);
+    let mut opts = analysis_options(cfg, Some(&rec), product_first_kg);
+    opts.prior = super::family::family_prior(conn, cfg, &rec, &series, &basis(cfg), as_of)?;
     let mut analysis = (!series.x.is_empty()).then(|| fit::analyse(&series, &opts));
     if let Some(a) = analysis.as_mut() {
         super::dates::date_forecast(cfg, &rec, cycles.iter().map(|c| &c.view), a);

@@ -21,6 +21,7 @@ mod daemon;
 mod dates;
 mod entries;
 mod error;
+mod family;
 mod fits;
 mod history;
 mod ingestion;

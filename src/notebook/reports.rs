@@ -115,6 +115,18 @@ fn fit_summary(
     })
 }
 
+fn family_forecast(a: &fit::LotAnalysis) -> Option<report::FamilyForecast> {
+    let p = a.pooled.as_ref()?;
+    Some(report::FamilyForecast {
+        lots: p.prior.lots.clone(),
+        spread_assumed: p.prior.ln_kd.assumed,
+        own_share: p.own_share,
+        headline: p.headline,
+        with_prior: p.forecast.as_ref().map(report_forecast),
+        lot_alone: p.lot_alone.as_ref().map(report_forecast),
+    })
+}
+
 fn alerts_of(conn: &Connection, lot: &str) -> store::Result<Vec<report::AlertLine>> {
     Ok(store::outbox::alerts_of_lot(conn, lot)?
         .into_iter()
@@ -157,6 +169,7 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
             reference_cycle: state.reference_cycle,
             reference_moved: state.reference_moved,
         }),
+        family: state.analysis.as_ref().and_then(family_forecast),
     })
 }
 
@@ -236,6 +249,7 @@ fn identity(cfg: &Config, state: &LotState) -> report::LotIdentity {
         cost: None,
         site: None,
         water_content_wt_pct: None,
+        family: None,
     });
     report::LotIdentity {
         record,

@@ -11,7 +11,8 @@ use crate::model::Quantity;
 use super::chart::{activity_svg, sparkline_svg, ton_svg};
 use super::escape::{escape_html as esc, fmt_opt, fmt_pct, fmt_sig};
 use super::model::{
-    CycleLine, FitSummary, Forecast, ForecastStatus, LotReport, SiteReport, VerifyOutcome,
+    CycleLine, FamilyForecast, FitSummary, Forecast, ForecastStatus, LotReport, SiteReport,
+    VerifyOutcome,
 };
 
 /// Cautions every report shows, whatever the site adds.
@@ -218,6 +219,44 @@ fn figure(out: &mut String, id: &str, caption: &str, svg: Result<String, super::
         }
     }
     let _ = writeln!(out, "<figcaption>{}</figcaption>\n</figure>", esc(caption));
+}
+
+/// A young lot's forecast with its family's prior and from its own cycles alone.
+fn family_section(out: &mut String, f: &FamilyForecast) {
+    out.push_str("<section id=\"family\">\n<h2>Forecast with the family's earlier lots</h2>\n");
+    let names: Vec<String> = f.lots.iter().take(8).map(|l| esc(l)).collect();
+    let more = if f.lots.len() > 8 { ", …" } else { "" };
+    let _ = writeln!(
+        out,
+        "<p>A young lot borrows strength from the lots of its family: the deactivation rates \
+         of {} earlier lot(s) ({}{more}) give a prior (empirical Bayes), and the lot's own \
+         cycles update it{}{}.</p>",
+        f.lots.len(),
+        names.join(", "),
+        if f.spread_assumed {
+            "; too few lots to estimate the spread between lots, so a wide spread is assumed"
+        } else {
+            ""
+        },
+        f.own_share.map_or_else(String::new, |s| format!(
+            " (the lot's own cycles carry {:.0} % of the weight on its rate)",
+            100.0 * s
+        ))
+    );
+    let text = |v: &Option<Forecast>| v.as_ref().map_or_else(|| "none".to_string(), forecast_text);
+    let _ = writeln!(
+        out,
+        "<table class=\"params\"><tbody>\n<tr><td>with the family prior{}</td><td>{}</td></tr>\n\
+         <tr><td>from the lot alone</td><td>{}</td></tr>\n</tbody></table>",
+        if f.headline {
+            " (the lot's forecast)"
+        } else {
+            ""
+        },
+        text(&f.with_prior),
+        text(&f.lot_alone)
+    );
+    out.push_str("</section>\n");
 }
 
 fn fit_section(out: &mut String, lot: &str, fit: &FitSummary) {
@@ -455,6 +494,9 @@ pub fn lot_html(r: &LotReport) -> String {
             let _ = writeln!(out, "<li>{}</li>", esc(h));
         }
         out.push_str("</ul>\n</section>\n");
+    }
+    if let Some(f) = &r.family {
+        family_section(&mut out, f);
     }
     if r.cycles.iter().any(|c| c.ton.is_some()) {
         out.push_str("<section id=\"ton\">\n<h2>Turnover per cycle</h2>\n");

@@ -34,6 +34,9 @@ pub struct LotReport {
     /// How activity was computed for this lot; absent in reports made before it was stated.
     #[serde(default)]
     pub activity_note: Option<ActivityNote>,
+    /// A young lot's forecast with its family's prior, beside the lot-alone one.
+    #[serde(default)]
+    pub family: Option<FamilyForecast>,
 }
 
 /// How the lot's activity is defined: its basis and the cycle it is relative to.
@@ -47,6 +50,21 @@ pub struct ActivityNote {
     pub reference_cycle: Option<u32>,
     /// True when cycle 1 is censored and a later, uncensored cycle is the reference.
     pub reference_moved: bool,
+}
+
+/// A young lot's forecast with the prior its family's earlier lots give it, and without.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FamilyForecast {
+    /// The earlier lots the prior came from.
+    pub lots: Vec<String>,
+    /// True when too few lots existed to estimate the spread between lots (assumed).
+    pub spread_assumed: bool,
+    /// Share of the deactivation rate's information that comes from the lot's own cycles.
+    pub own_share: Option<f64>,
+    /// True when the pooled forecast is the lot's forecast.
+    pub headline: bool,
+    pub with_prior: Option<Forecast>,
+    pub lot_alone: Option<Forecast>,
 }
 
 /// Who the lot is and where it came from: its registration (the one record the whole

@@ -231,3 +231,60 @@ pub fn lot_exists(conn: &Connection, lot: &str) -> Result<bool> {
         |r| r.get(0),
     )?)
 }
+
+/// A registered lot as a candidate member of a population: its family and catalyst
+/// description, and when it went into service.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ServiceStart {
+    pub lot: String,
+    pub family: Option<String>,
+    pub catalyst: String,
+    /// The earliest recorded start of its cycles, up to the event asked for.
+    pub first_started: Option<String>,
+    /// The first event that recorded one of its cycles, up to the event asked for.
+    pub first_seq: Option<i64>,
+}
+
+/// Every registered lot with its family, catalyst description and start of service (its
+/// cycles up to event `as_of`), in one query; the matching rule is the application's.
+pub fn service_starts(conn: &Connection, as_of: i64) -> Result<Vec<ServiceStart>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT l.lot, l.family, l.catalyst, MIN(c.started_at), MIN(c.first_seq)
+         FROM lots l LEFT JOIN cycles c ON c.lot = l.lot AND c.first_seq <= ?1
+         GROUP BY l.lot ORDER BY l.lot",
+    )?;
+    let rows = stmt
+        .query_map([as_of], |r| {
+            Ok(ServiceStart {
+                lot: r.get(0)?,
+                family: r.get(1)?,
+                catalyst: r.get(2)?,
+                first_started: r.get(3)?,
+                first_seq: r.get(4)?,
+            })
+        })?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
+}
+
+/// The ranking (JSON) and the number of trend cycles of a lot's newest stored analysis on
+/// `basis` computed up to event `as_of`; None when there is none (or it holds no fit).
+/// Only these two parts are taken out of the stored JSON, by SQLite.
+pub fn stored_ranking(
+    conn: &Connection,
+    lot: &str,
+    basis: &str,
+    as_of: i64,
+) -> Result<Option<(String, i64)>> {
+    Ok(conn
+        .prepare_cached(
+            "SELECT json_extract(analysis, '$.ranking'), json_extract(analysis, '$.trend_cycles')
+             FROM fits WHERE lot = ?1 AND basis = ?2 AND after_seq <= ?3 AND model IS NOT NULL
+             ORDER BY id DESC LIMIT 1",
+        )?
+        .query_row(rusqlite::params![lot, basis, as_of], |r| {
+            Ok((r.get::<_, Option<String>>(0)?, r.get::<_, Option<i64>>(1)?))
+        })
+        .optional()?
+        .and_then(|(r, n)| r.zip(n)))
+}

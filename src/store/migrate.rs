@@ -33,6 +33,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         include_str!("../../schema/0008_lot_water.sql"),
     ),
     (
+        9,
+        "lot_family",
+        include_str!("../../schema/0009_lot_family.sql"),
+    ),
+    (
         10,
         "alert_eased",
         include_str!("../../schema/0010_alert_eased.sql"),

@@ -851,8 +851,8 @@ fn lot_record(row: &LotRow, site: Option<String>) -> LotRecord {
 fn upsert_lot(tx: &Transaction<'_>, l: &LotRecord, seq: i64) -> Result<()> {
     tx.prepare_cached(
         "INSERT OR REPLACE INTO lots(lot, catalyst, metal, loading_wt_pct, charged_mass_g,
-             received, supplier_lot, cost, site, water_content_wt_pct, event_seq)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
+             received, supplier_lot, cost, site, water_content_wt_pct, family, event_seq)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12)",
     )?
     .execute(params![
         l.lot,
@@ -865,6 +865,7 @@ fn upsert_lot(tx: &Transaction<'_>, l: &LotRecord, seq: i64) -> Result<()> {
         l.cost,
         l.site,
         l.water_content_wt_pct,
+        l.family,
         seq
     ])?;
     Ok(())
@@ -875,7 +876,7 @@ pub fn lot(conn: &rusqlite::Connection, name: &str) -> Result<Option<LotRecord>>
     Ok(conn
         .prepare_cached(
             "SELECT lot, catalyst, metal, loading_wt_pct, charged_mass_g, received, supplier_lot, cost, site,
-                 water_content_wt_pct
+                 water_content_wt_pct, family
              FROM lots WHERE lot = ?1",
         )?
         .query_row([name], lot_from_row)
@@ -886,7 +887,7 @@ pub fn lot(conn: &rusqlite::Connection, name: &str) -> Result<Option<LotRecord>>
 pub fn all_lots(conn: &rusqlite::Connection) -> Result<Vec<LotRecord>> {
     let mut stmt = conn.prepare(
         "SELECT lot, catalyst, metal, loading_wt_pct, charged_mass_g, received, supplier_lot, cost, site,
-             water_content_wt_pct
+             water_content_wt_pct, family
          FROM lots ORDER BY lot",
     )?;
     let rows = stmt
@@ -907,6 +908,7 @@ pub(crate) fn lot_from_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<LotRecord>
         cost: r.get(7)?,
         site: r.get(8)?,
         water_content_wt_pct: r.get(9)?,
+        family: r.get(10)?,
     })
 }
 

@@ -115,7 +115,7 @@ fn demo_outbox_follows_the_severity_table_and_subjects_carry_dates() {
     // lead time in the demo configuration) before the interval's early end.
     let pd: Vec<_> = out
         .iter()
-        .filter(|m| m.0 == "replacement-forecast")
+        .filter(|m| m.0 == "replacement-forecast" && m.1 == "PD-C-2611-A")
         .collect();
     assert_eq!(pd.len(), 1, "{out:?}");
     assert_eq!((pd[0].1.as_str(), pd[0].2), ("PD-C-2611-A", 2));
@@ -142,7 +142,9 @@ fn demo_outbox_follows_the_severity_table_and_subjects_carry_dates() {
             parsed += 1;
         }
     }
-    assert_eq!(parsed, 3, "two alerts and the digest");
+    // Three alerts (the Pt step; the Pd lot's forecast; the young Pd lot's forecast with
+    // its family's prior) and the digest.
+    assert_eq!(parsed, 4, "three alerts and the digest");
     // Nothing critical rests on a forecast, and no subject names the product.
     for m in &out {
         assert!(m.0 != "replacement-forecast" || m.2 < 3, "{m:?}");

@@ -11,6 +11,7 @@
 //! | FAST | exp(−0.055·n) | crossing within the lead; next batch marginal | warning |
 //! | STEP | 1.00 for 8 cycles, then 0.60 (cycle 9 ran at 70 °C) | abrupt loss detected | critical |
 //! | BELOW | exp(−0.10·n) | newest activity below the criterion | critical |
+//! | EDGE | exp(−0.0615·n) | next batch marginal | warning |
 //!
 //! The criterion is half the fresh activity; the lead is 5 cycles.
 
@@ -101,11 +102,12 @@ fn activity(lot: &str, n: u32) -> f64 {
             }
         }
         "BELOW" => (-0.10 * x).exp(),
+        "EDGE" => (-0.0615 * x).exp(),
         _ => unreachable!(),
     }
 }
 
-const LOTS: [&str; 5] = ["FLAT", "SLOW", "FAST", "STEP", "BELOW"];
+const LOTS: [&str; 6] = ["FLAT", "SLOW", "FAST", "STEP", "BELOW", "EDGE"];
 
 fn write_plant(dir: &Path) {
     std::fs::create_dir_all(dir.join("exports")).unwrap();
@@ -248,6 +250,20 @@ fn each_simulated_lot_gets_the_severity_of_the_table() {
         body.contains("Cycle 9 differs from the 8 cycles before it in: temperature 70.0 °C"),
         "{body}"
     );
+    // EDGE: the next batch is marginal (predicted above the criterion, its interval
+    // reaching below): a warning, not critical.
+    assert_eq!(
+        line("EDGE")["next_cycle"]["verdict"],
+        "marginal",
+        "{report}"
+    );
+    assert!(
+        kinds("EDGE")
+            .iter()
+            .any(|k| k == "\"next-batch\":\"warning\""),
+        "{report}"
+    );
+    assert_eq!(worst("EDGE").as_deref(), Some("warning"), "{report}");
     // BELOW: the newest activity is below the criterion: critical.
     assert!(
         kinds("BELOW")

@@ -81,6 +81,10 @@ pub struct Config {
     /// absent.
     #[serde(default)]
     pub web: Option<Web>,
+    /// The QA signers' roster: who may sign off (`signoff --as NAME`) and, optionally,
+    /// from which operating-system accounts. Empty: sign-offs are refused.
+    #[serde(default)]
+    pub signers: Vec<crate::model::signoff::Signer>,
     /// Folder of the configuration file, for relative paths (set at load).
     #[serde(skip)]
     pub base_dir: PathBuf,
@@ -399,6 +403,7 @@ impl Config {
                 ),
             ));
         }
+        self.validate_signers()?;
         if self.files_per_transaction == 0 {
             return Err(self.invalid("files_per_transaction", "expected at least 1"));
         }
@@ -435,6 +440,41 @@ impl Config {
                 return Err(self.invalid(
                     format!("{key}.site"),
                     format!("no site named '{site}' in [[sites]]"),
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    /// Each signer has a printable name of its own and accounts without spaces.
+    fn validate_signers(&self) -> Result<(), ConfigError> {
+        for (i, s) in self.signers.iter().enumerate() {
+            let key = format!("signers[{i}].name");
+            let name = s.name.trim();
+            if name.is_empty() || name.chars().count() > 80 || name.chars().any(char::is_control)
+            {
+                return Err(self.invalid(
+                    key,
+                    "expected a name of 1 to 80 printable characters, e.g. \"M. Ferreira\"",
+                ));
+            }
+            if let Some(j) = self.signers[..i]
+                .iter()
+                .position(|o| crate::model::signoff::same_name(&o.name, name))
+            {
+                return Err(self.invalid(
+                    key,
+                    format!("'{name}' is already signers[{j}]; expected each signer once"),
+                ));
+            }
+            if let Some(a) = s
+                .accounts
+                .iter()
+                .find(|a| a.is_empty() || a.chars().any(|c| c.is_whitespace() || c.is_control()))
+            {
+                return Err(self.invalid(
+                    format!("signers[{i}].accounts"),
+                    format!("'{}' is not an account name; expected login names without spaces, e.g. [\"mferreira\"]", a.escape_default()),
                 ));
             }
         }

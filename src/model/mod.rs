@@ -7,6 +7,7 @@
 //! - [`chain`]: how each event is linked to the one before it.
 //! - [`time`]: the one timestamp format of tables, messages and reports.
 //! - [`numbers`]: numbers as people read them.
+//! - [`signoff`]: the signer roster, a lot's sign-off state and the four-eyes rule.
 
 pub mod chain;
 pub mod cycle;
@@ -14,6 +15,7 @@ pub mod event;
 mod forecast;
 pub mod numbers;
 mod quantity;
+pub mod signoff;
 pub mod time;
 
 pub use cycle::CycleView;

@@ -1,11 +1,10 @@
-//! Entries people make by hand: a lot's registration, a correction, an exclusion, a note
-//! and a sign-off. Each is one event of the audit trail, written in one transaction with
-//! the rows it changes and the recomputation of the lot it concerns.
+//! Entries people make by hand: a lot's registration, a correction, an exclusion and a
+//! note (sign-offs are in `signoffs`). Each is one event of the audit trail, written in
+//! one transaction with the rows it changes and the recomputation of the lot it concerns.
 
 use std::collections::BTreeSet;
 
 use super::error::{NotebookError, Result};
-use super::history::lot_fingerprint;
 use super::recompute::recompute_lots;
 use crate::config::Config;
 use crate::model::time::now_utc;
@@ -26,16 +25,8 @@ pub struct Registered {
     pub changed: bool,
 }
 
-/// A sign-off as written, with what it covers.
-#[derive(Debug, Clone, PartialEq)]
-pub struct SignedOff {
-    pub receipt: Receipt,
-    pub covers: String,
-    pub sha256: String,
-}
-
 /// Open the database and run one entry in an immediate transaction.
-fn write_entry<T>(
+pub(super) fn write_entry<T>(
     cfg: &Config,
     work: impl FnOnce(&Transaction<'_>, &str, &str) -> store::Result<T>,
 ) -> Result<(T, String)> {
@@ -173,30 +164,4 @@ pub fn note(cfg: &Config, lot: Option<&str>, batch: Option<&str>, text: &str) ->
         records::append_event(tx, subject, &p, actor, at)
     })?;
     Ok(Receipt { seq, actor })
-}
-
-/// Sign off a lot's history as it stands, with a meaning such as "reviewed".
-pub fn sign_off(
-    cfg: &Config,
-    lot: &str,
-    meaning: &str,
-    comment: Option<&str>,
-) -> Result<SignedOff> {
-    let ((seq, covers, sha256), actor) = write_entry(cfg, |tx, actor, at| {
-        let (what, sha) = lot_fingerprint(tx, lot)?;
-        let p = Payload::SignOff {
-            lot: lot.to_string(),
-            meaning: meaning.to_string(),
-            signed_sha256: sha.clone(),
-            what: what.clone(),
-            comment: comment.map(str::to_string),
-        };
-        let seq = records::append_event(tx, lot, &p, actor, at)?;
-        Ok((seq, what, sha))
-    })?;
-    Ok(SignedOff {
-        receipt: Receipt { seq, actor },
-        covers,
-        sha256,
-    })
 }

@@ -25,6 +25,8 @@ pub struct Status {
     pub pending_cycles: i64,
     pub lots_needing_attention: Vec<String>,
     pub outbox_waiting: i64,
+    /// Lots by sign-off state (none, reviewed, approved, rejected, stale).
+    pub signoffs: super::signoffs::SignOffCounts,
 }
 
 /// Gather the status figures.
@@ -49,6 +51,10 @@ pub fn gather_status(conn: &Connection, cfg: &Config) -> store::Result<Status> {
         pending_cycles: records.pending_cycles,
         lots_needing_attention: crate::notebook::lots::lots_needing_attention(conn, cfg)?,
         outbox_waiting: store::outbox::waiting(conn)?,
+        signoffs: super::signoffs::count_states(
+            &store::lots::lot_names(conn)?,
+            &super::signoffs::sign_off_states(conn)?,
+        ),
     })
 }
 
@@ -68,6 +74,21 @@ pub struct HistoryEntry {
     pub subject: String,
     pub payload: serde_json::Value,
     pub hash: String,
+    /// What a person wrote with the event, as typed: a note's text, a sign-off's comment,
+    /// the reason of a correction, an exclusion or a registration change.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub text: Option<String>,
+}
+
+/// The free text of an event's payload (see [`HistoryEntry::text`]).
+fn written_text(kind: &str, p: &serde_json::Value) -> Option<String> {
+    let field = match kind {
+        "note" => "text",
+        "sign-off" => "comment",
+        "correction" | "exclusion" | "lot-registered" => "reason",
+        _ => return None,
+    };
+    p[field].as_str().map(str::to_string)
 }
 
 /// Every event that concerns a lot: its registrations, the files that brought its cycles,
@@ -75,15 +96,19 @@ pub struct HistoryEntry {
 pub fn lot_history(conn: &Connection, lot: &str) -> store::Result<Vec<HistoryEntry>> {
     Ok(store::queries::lot_events(conn, lot)?
         .into_iter()
-        .map(|e| HistoryEntry {
-            seq: e.seq,
-            at: e.at,
-            actor: e.actor,
-            kind: e.kind,
-            subject: e.subject,
-            payload: serde_json::from_str(&e.payload)
-                .unwrap_or(serde_json::Value::String(e.payload)),
-            hash: e.hash,
+        .map(|e| {
+            let payload = serde_json::from_str(&e.payload)
+                .unwrap_or(serde_json::Value::String(e.payload));
+            HistoryEntry {
+                seq: e.seq,
+                at: e.at,
+                actor: e.actor,
+                text: written_text(&e.kind, &payload),
+                kind: e.kind,
+                subject: e.subject,
+                payload,
+                hash: e.hash,
+            }
         })
         .collect())
 }

@@ -451,8 +451,7 @@ impl Config {
         for (i, s) in self.signers.iter().enumerate() {
             let key = format!("signers[{i}].name");
             let name = s.name.trim();
-            if name.is_empty() || name.chars().count() > 80 || name.chars().any(char::is_control)
-            {
+            if name.is_empty() || name.chars().count() > 80 || name.chars().any(char::is_control) {
                 return Err(self.invalid(
                     key,
                     "expected a name of 1 to 80 printable characters, e.g. \"M. Ferreira\"",

@@ -155,6 +155,7 @@ pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
     let smtp = std::env::var(crate::mail::SMTP_URL_ENV)
         .ok()
         .filter(|s| !s.trim().is_empty());
+    crate::cli::demo::qa_entries(cfg)?;
     let digest = crate::notebook::queue_digest(cfg)?;
     let mail = notebook::deliver_now(cfg)
         .map_err(|e| Failure::rejected(format!("mail delivery failed: {e}")))?;

@@ -127,6 +127,12 @@ pub struct SignOffState {
     pub by: Option<SignOffMark>,
 }
 
+impl Default for SignOffState {
+    fn default() -> Self {
+        SignOffState::none()
+    }
+}
+
 impl SignOffState {
     /// A lot nobody signed off.
     pub fn none() -> SignOffState {
@@ -184,7 +190,12 @@ pub fn sign_off_state(marks: &[SignOffMark], current: Option<&str>) -> SignOffSt
 /// Names compare without regard to case or repeated spaces: "m. ferreira" is
 /// "M.  Ferreira".
 pub fn same_name(a: &str, b: &str) -> bool {
-    let norm = |s: &str| s.split_whitespace().collect::<Vec<_>>().join(" ").to_lowercase();
+    let norm = |s: &str| {
+        s.split_whitespace()
+            .collect::<Vec<_>>()
+            .join(" ")
+            .to_lowercase()
+    };
     norm(a) == norm(b)
 }
 
@@ -197,7 +208,9 @@ pub enum SignerRefusal {
          the operating-system accounts allowed to sign as them) and sign with `--as NAME`"
     )]
     NoRoster,
-    #[error("'{name}' is not on the configuration's signer roster ([[signers]]: {roster}); expected one of those names")]
+    #[error(
+        "'{name}' is not on the configuration's signer roster ([[signers]]: {roster}); expected one of those names"
+    )]
     NotOnRoster { name: String, roster: String },
     #[error(
         "signer '{name}' signs from the operating-system accounts {accounts} (their \
@@ -280,9 +293,9 @@ pub enum FourEyesRefusal {
 
 fn stale_note(newest_review: &Option<i64>) -> String {
     match newest_review {
-        Some(seq) => format!(
-            " (the review in event {seq} covers an earlier history: events came after it)"
-        ),
+        Some(seq) => {
+            format!(" (the review in event {seq} covers an earlier history: events came after it)")
+        }
         None => String::new(),
     }
 }
@@ -386,20 +399,35 @@ mod tests {
         let again = mark(7, "reviewed", Some("M. Ferreira"), "mf", "h1");
         let rej = mark(8, "rejected", Some("J. Lindqvist"), "jl", "h1");
         let one = [r.clone()];
-        assert_eq!(sign_off_state(&one, Some("h1")).state, SignOffStatus::Reviewed);
+        assert_eq!(
+            sign_off_state(&one, Some("h1")).state,
+            SignOffStatus::Reviewed
+        );
         let two = [r.clone(), a.clone()];
         let s = sign_off_state(&two, Some("h1"));
-        assert_eq!((s.state, s.by.map(|m| m.seq)), (SignOffStatus::Approved, Some(6)));
+        assert_eq!(
+            (s.state, s.by.map(|m| m.seq)),
+            (SignOffStatus::Approved, Some(6))
+        );
         // A later review of the same history does not take the approval back.
         let three = [r.clone(), a.clone(), again];
         let s = sign_off_state(&three, Some("h1"));
-        assert_eq!((s.state, s.by.map(|m| m.seq)), (SignOffStatus::Approved, Some(6)));
+        assert_eq!(
+            (s.state, s.by.map(|m| m.seq)),
+            (SignOffStatus::Approved, Some(6))
+        );
         // A rejection does.
         let four = [r.clone(), a.clone(), rej];
-        assert_eq!(sign_off_state(&four, Some("h1")).state, SignOffStatus::Rejected);
+        assert_eq!(
+            sign_off_state(&four, Some("h1")).state,
+            SignOffStatus::Rejected
+        );
         // New data: nothing covers, the newest is named.
         let s = sign_off_state(&two, Some("h2"));
-        assert_eq!((s.state, s.by.map(|m| m.seq)), (SignOffStatus::Stale, Some(6)));
+        assert_eq!(
+            (s.state, s.by.map(|m| m.seq)),
+            (SignOffStatus::Stale, Some(6))
+        );
         assert!(s_summary_mentions_change(&sign_off_state(&two, Some("h2"))));
     }
 
@@ -411,9 +439,15 @@ mod tests {
     fn roster_names_and_accounts() {
         assert_eq!(check_signer(&[], "x", "u"), Err(SignerRefusal::NoRoster));
         let mut r = roster();
-        assert_eq!(check_signer(&r, "m.  ferreira", "u").unwrap().name, "M. Ferreira");
+        assert_eq!(
+            check_signer(&r, "m.  ferreira", "u").unwrap().name,
+            "M. Ferreira"
+        );
         let e = check_signer(&r, "Mallory", "u").unwrap_err();
-        assert!(e.to_string().contains("'M. Ferreira', 'J. Lindqvist'"), "{e}");
+        assert!(
+            e.to_string().contains("'M. Ferreira', 'J. Lindqvist'"),
+            "{e}"
+        );
         r[0].accounts = vec!["mferreira".into()];
         assert!(check_signer(&r, "M. Ferreira", "mferreira").is_ok());
         let e = check_signer(&r, "M. Ferreira", "jlindqvist").unwrap_err();

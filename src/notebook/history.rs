@@ -97,8 +97,8 @@ pub fn lot_history(conn: &Connection, lot: &str) -> store::Result<Vec<HistoryEnt
     Ok(store::queries::lot_events(conn, lot)?
         .into_iter()
         .map(|e| {
-            let payload = serde_json::from_str(&e.payload)
-                .unwrap_or(serde_json::Value::String(e.payload));
+            let payload =
+                serde_json::from_str(&e.payload).unwrap_or(serde_json::Value::String(e.payload));
             HistoryEntry {
                 seq: e.seq,
                 at: e.at,

@@ -56,8 +56,8 @@ pub use signoffs::{
 };
 pub use views::{
     AlertsView, AuditView, ChangeWatch, FileLine, FilesView, LotPage, MessageLine, OpenAlertLine,
-    OpsFigures, Overview, SignOffState, alerts_view, audit_view, files_view, lot_page,
-    lot_report_html, ops_figures, overview,
+    OpsFigures, Overview, alerts_view, audit_view, files_view, lot_page, lot_report_html,
+    ops_figures, overview,
 };
 
 use crate::config::Config;

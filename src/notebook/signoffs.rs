@@ -9,7 +9,7 @@ use serde::Serialize;
 
 use super::entries::{Receipt, write_entry};
 use super::error::{NotebookError, Result};
-use super::history::{lot_fingerprint, lot_history};
+use super::history::{HistoryEntry, lot_fingerprint, lot_history};
 use crate::config::Config;
 use crate::model::Payload;
 use crate::model::signoff::{self, Meaning, SignOffMark, SignOffState, SignOffStatus};
@@ -64,8 +64,8 @@ pub fn sign_off_from(cfg: &Config, req: &SignOffRequest<'_>, account: &str) -> R
         let (what, sha) = lot_fingerprint(tx, lot)?;
         let review = if meaning == Meaning::Approved {
             let marks = lot_marks(tx, lot)?;
-            let r = signoff::four_eyes(&marks, &sha, &cfg.signers, &signer, account)
-                .map_err(|e| {
+            let r =
+                signoff::four_eyes(&marks, &sha, &cfg.signers, &signer, account).map_err(|e| {
                     store::StoreError::Invalid(format!("lot '{lot}' cannot be approved: {e}"))
                 })?;
             Some(r.clone())
@@ -123,11 +123,16 @@ fn mark_of(seq: i64, at: &str, actor: &str, payload: serde_json::Value) -> Optio
 
 /// A lot's sign-offs, oldest first.
 pub fn lot_marks(conn: &Connection, lot: &str) -> store::Result<Vec<SignOffMark>> {
-    Ok(lot_history(conn, lot)?
-        .into_iter()
+    Ok(marks_in(&lot_history(conn, lot)?, lot))
+}
+
+/// The sign-offs of `lot` in a history read already, oldest first.
+pub(super) fn marks_in(history: &[HistoryEntry], lot: &str) -> Vec<SignOffMark> {
+    history
+        .iter()
         .filter(|e| e.kind == crate::model::chain::SIGN_OFF_KIND && e.subject == lot)
-        .filter_map(|e| mark_of(e.seq, &e.at, &e.actor, e.payload))
-        .collect())
+        .filter_map(|e| mark_of(e.seq, &e.at, &e.actor, e.payload.clone()))
+        .collect()
 }
 
 /// The fingerprint of a lot's history as it stands; none when no event concerns it.

@@ -333,7 +333,13 @@ fn cycle_table(out: &mut String, r: &LotReport) {
 }
 
 /// A titled table of rows of already-escaped cells; an empty list says so in words.
-fn simple_table(out: &mut String, id: &str, title: &str, head: &[&str], rows: Vec<Vec<String>>) {
+pub(super) fn simple_table(
+    out: &mut String,
+    id: &str,
+    title: &str,
+    head: &[&str],
+    rows: Vec<Vec<String>>,
+) {
     let _ = writeln!(out, "<section id=\"{id}\">\n<h2>{title}</h2>");
     if rows.is_empty() {
         let _ = writeln!(out, "<p>None.</p>\n</section>");
@@ -373,6 +379,7 @@ pub fn lot_html(r: &LotReport) -> String {
     cautions(&mut out, &r.cautions);
     identity(&mut out, r);
     verify(&mut out, r);
+    super::signoff_html::signoff_state(&mut out, r);
     match &r.fit {
         Some(fit) => fit_section(&mut out, lot, fit),
         None => out.push_str(
@@ -428,35 +435,8 @@ pub fn lot_html(r: &LotReport) -> String {
             })
             .collect(),
     );
-    simple_table(
-        &mut out,
-        "signoffs",
-        "Sign-offs",
-        &[
-            "who",
-            "when",
-            "meaning",
-            "SHA-256 signed",
-            "covers the current record",
-        ],
-        r.signoffs
-            .iter()
-            .map(|s| {
-                vec![
-                    esc(&s.who),
-                    esc(&s.at),
-                    esc(&s.meaning),
-                    format!("<span class=\"hash\">{}</span>", esc(&s.signed_sha256)),
-                    if s.covers_current {
-                        "<span class=\"ok\">yes</span>".to_string()
-                    } else {
-                        "<span class=\"bad\">no: the record changed after signing</span>"
-                            .to_string()
-                    },
-                ]
-            })
-            .collect(),
-    );
+    super::signoff_html::notes_table(&mut out, r);
+    super::signoff_html::signoff_table(&mut out, r);
     footer(
         &mut out,
         &r.generated_at,

@@ -56,7 +56,9 @@ pub fn sign_off_from(cfg: &Config, req: &SignOffRequest<'_>, account: &str) -> R
         ))
     })?;
     let signer = signoff::check_signer(&cfg.signers, req.signer, account)
-        .map_err(|e| NotebookError::Refused(format!("{e} ({})", cfg.source.display())))?
+        .map_err(|e| {
+            NotebookError::Refused(format!("{e} (configuration {})", cfg.source.display()))
+        })?
         .name
         .clone();
     let lot = req.lot;

@@ -436,6 +436,22 @@ mod tests {
     }
 
     #[test]
+    fn an_older_sign_off_reads_and_encodes_as_stored() {
+        // The payload of a sign-off made before signers were named, as stored then: it
+        // must encode to the same bytes, or its event's hash would no longer verify.
+        let old = r#"{"kind":"sign-off","lot":"PD-7","meaning":"approved","signed_sha256":"00","what":"x","comment":null}"#;
+        let p: crate::model::Payload = serde_json::from_str(old).unwrap();
+        assert_eq!(serde_json::to_string(&p).unwrap(), old);
+        let crate::model::Payload::SignOff {
+            signer, os_user, ..
+        } = p
+        else {
+            panic!("not a sign-off: {p:?}");
+        };
+        assert_eq!((signer, os_user), (None, None));
+    }
+
+    #[test]
     fn roster_names_and_accounts() {
         assert_eq!(check_signer(&[], "x", "u"), Err(SignerRefusal::NoRoster));
         let mut r = roster();

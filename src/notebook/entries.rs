@@ -4,40 +4,18 @@
 
 use std::collections::BTreeSet;
 
+use super::chain::{Receipt, write_entry};
 use super::error::{NotebookError, Result};
 use super::recompute::recompute_lots;
 use crate::config::Config;
-use crate::model::time::now_utc;
 use crate::model::{LotRecord, Payload, Quantity};
 use crate::store::{self, Transaction, records};
-
-/// What an entry wrote: the event's sequence number and who made it.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Receipt {
-    pub seq: i64,
-    pub actor: String,
-}
 
 /// A lot's registration as written: new or a change of an existing one.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Registered {
     pub receipt: Receipt,
     pub changed: bool,
-}
-
-/// Open the database and run one entry in an immediate transaction.
-pub(super) fn write_entry<T>(
-    cfg: &Config,
-    work: impl FnOnce(&Transaction<'_>, &str, &str) -> store::Result<T>,
-) -> Result<(T, String)> {
-    let mut conn = super::chain::open_writer(cfg)?;
-    let actor = crate::audit::actor(cfg.actor.as_deref());
-    let at = now_utc();
-    let tx = store::immediate(&mut conn)?;
-    let out = work(&tx, &actor, &at)?;
-    tx.commit().map_err(store::StoreError::from)?;
-    super::chain::publish_head(cfg, &conn)?;
-    Ok((out, actor))
 }
 
 fn lot_of_batch(tx: &Transaction<'_>, batch: &str) -> store::Result<BTreeSet<String>> {

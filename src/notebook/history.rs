@@ -1,5 +1,4 @@
-//! Read-only views for people and scripts: status, history, and the fingerprint that a
-//! sign-off covers.
+//! Read-only views for people and scripts: status and a lot's history.
 
 use serde::Serialize;
 
@@ -123,28 +122,4 @@ pub fn history(cfg: &Config, lot: &str) -> NResult<Vec<HistoryEntry>> {
         )));
     }
     Ok(h)
-}
-
-/// What a sign-off of a lot covers: the hashes of every event concerning the lot except
-/// sign-offs themselves, in order. Returns a description and its SHA-256.
-pub fn lot_fingerprint(conn: &Connection, lot: &str) -> store::Result<(String, String)> {
-    let h = lot_history(conn, lot)?;
-    let covered: Vec<&HistoryEntry> = h
-        .iter()
-        .filter(|e| e.kind != crate::model::chain::SIGN_OFF_KIND)
-        .collect();
-    if covered.is_empty() {
-        return Err(store::StoreError::Invalid(format!(
-            "no history to sign for lot '{lot}'"
-        )));
-    }
-    let sha = crate::model::chain::history_fingerprint(covered.iter().map(|e| e.hash.as_str()));
-    let last = covered.last().map_or(0, |e| e.seq);
-    Ok((
-        format!(
-            "history of lot {lot}: {} events up to #{last}",
-            covered.len()
-        ),
-        sha,
-    ))
 }

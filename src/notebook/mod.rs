@@ -8,9 +8,9 @@
 //!   its recomputation when records change.
 //! - `alerts`: from a lot's state to the alert rules and the outbox.
 //! - `entries`: register, correct, exclude, note.
-//! - `signoffs`: sign off as a roster signer (four eyes for approvals); lots' sign-off
-//!   states.
-//! - `history`: status, a lot's history and the fingerprint a sign-off covers.
+//! - `signoffs`: sign off as a roster signer (four eyes for approvals), the fingerprint a
+//!   sign-off covers, and the lots' sign-off states.
+//! - `history`: status and a lot's history.
 //! - `fits`: the deactivation fit of a stored lot or of any two-column series.
 //! - `reports`: the data of a lot's or the site's report, and writing them.
 //! - `daemon`: the service: watcher, mailer and digest, with an orderly shutdown.
@@ -31,11 +31,12 @@ mod reports;
 mod signoffs;
 mod views;
 
+pub use chain::Receipt;
 pub use daemon::{
     ServiceContext, SideTask, deliver_now, queue_digest, run_service, run_service_with, runtime,
     serve, serve_with,
 };
-pub use entries::{Corrected, Receipt, Registered, correct, exclude, note, register};
+pub use entries::{Corrected, Registered, correct, exclude, note, register};
 pub use error::{NotebookError, Result};
 pub use fits::{SeriesFit, SeriesRequest, fit_series, lot_fit};
 pub use history::{HistoryEntry, Status, history, status};

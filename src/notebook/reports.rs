@@ -110,12 +110,11 @@ fn alerts_of(conn: &Connection, lot: &str) -> store::Result<Vec<report::AlertLin
 /// Fill a lot report.
 pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotReport> {
     let history = crate::notebook::history::lot_history(conn, &state.lot)?;
-    let current = crate::notebook::history::lot_fingerprint(conn, &state.lot)
+    let current = super::signoffs::lot_fingerprint(conn, &state.lot)
         .ok()
         .map(|f| f.1);
     let entries = hand_entries(&history, current.as_deref());
-    let marks = super::signoffs::marks_in(&history, &state.lot);
-    let signoff_state = crate::model::signoff::sign_off_state(&marks, current.as_deref());
+    let signoff_state = super::signoffs::lot_sign_off_state(conn, &state.lot)?;
     Ok(LotReport {
         generated_at: now_utc(),
         turnbook_version: env!("CARGO_PKG_VERSION").to_string(),

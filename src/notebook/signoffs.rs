@@ -7,12 +7,13 @@ use std::collections::BTreeMap;
 
 use serde::Serialize;
 
-use super::entries::{Receipt, write_entry};
+use super::chain::{Receipt, write_entry};
 use super::error::{NotebookError, Result};
-use super::history::{HistoryEntry, lot_fingerprint, lot_history};
 use crate::config::Config;
 use crate::model::Payload;
+use crate::model::chain::SIGN_OFF_KIND;
 use crate::model::signoff::{self, Meaning, SignOffMark, SignOffState, SignOffStatus};
+use crate::store::replay::StoredEvent;
 use crate::store::{self, Connection, records};
 
 /// What a sign-off asks for: the lot, what it means, the roster name and a comment.
@@ -125,55 +126,71 @@ fn mark_of(seq: i64, at: &str, actor: &str, payload: serde_json::Value) -> Optio
 
 /// A lot's sign-offs, oldest first.
 pub fn lot_marks(conn: &Connection, lot: &str) -> store::Result<Vec<SignOffMark>> {
-    Ok(marks_in(&lot_history(conn, lot)?, lot))
+    Ok(marks_in(&store::queries::lot_events(conn, lot)?, lot))
 }
 
-/// The sign-offs of `lot` in a history read already, oldest first.
-pub(super) fn marks_in(history: &[HistoryEntry], lot: &str) -> Vec<SignOffMark> {
-    history
+/// The sign-offs of `lot` among its events, oldest first.
+fn marks_in(events: &[StoredEvent], lot: &str) -> Vec<SignOffMark> {
+    events
         .iter()
-        .filter(|e| e.kind == crate::model::chain::SIGN_OFF_KIND && e.subject == lot)
-        .filter_map(|e| mark_of(e.seq, &e.at, &e.actor, e.payload.clone()))
+        .filter(|e| e.kind == SIGN_OFF_KIND && e.subject == lot)
+        .filter_map(|e| {
+            let payload = serde_json::from_str(&e.payload).ok()?;
+            mark_of(e.seq, &e.at, &e.actor, payload)
+        })
         .collect()
 }
 
+/// What a sign-off of a lot covers: the hashes of every event concerning the lot except
+/// sign-offs themselves, in order ([`crate::model::chain::history_fingerprint`]). Returns
+/// a description and the SHA-256; refused when no event concerns the lot.
+pub fn lot_fingerprint(conn: &Connection, lot: &str) -> store::Result<(String, String)> {
+    fingerprint_of(&store::queries::lot_events(conn, lot)?, lot)
+}
+
+fn fingerprint_of(events: &[StoredEvent], lot: &str) -> store::Result<(String, String)> {
+    let covered: Vec<&StoredEvent> = events.iter().filter(|e| e.kind != SIGN_OFF_KIND).collect();
+    let Some(last) = covered.last() else {
+        return Err(store::StoreError::Invalid(format!(
+            "no history to sign for lot '{lot}'"
+        )));
+    };
+    let sha = crate::model::chain::history_fingerprint(covered.iter().map(|e| e.hash.as_str()));
+    Ok((
+        format!(
+            "history of lot {lot}: {} events up to #{}",
+            covered.len(),
+            last.seq
+        ),
+        sha,
+    ))
+}
+
 /// The fingerprint of a lot's history as it stands; none when no event concerns it.
-fn current_fingerprint(conn: &Connection, lot: &str) -> store::Result<Option<String>> {
-    match lot_fingerprint(conn, lot) {
-        Ok((_, sha)) => Ok(Some(sha)),
-        Err(store::StoreError::Invalid(_)) => Ok(None),
-        Err(e) => Err(e),
-    }
+fn current_fingerprint(events: &[StoredEvent]) -> Option<String> {
+    fingerprint_of(events, "").ok().map(|f| f.1)
 }
 
 /// One lot's sign-off state.
 pub fn lot_sign_off_state(conn: &Connection, lot: &str) -> store::Result<SignOffState> {
-    let marks = lot_marks(conn, lot)?;
-    if marks.is_empty() {
-        return Ok(SignOffState::none());
-    }
+    let events = store::queries::lot_events(conn, lot)?;
     Ok(signoff::sign_off_state(
-        &marks,
-        current_fingerprint(conn, lot)?.as_deref(),
+        &marks_in(&events, lot),
+        current_fingerprint(&events).as_deref(),
     ))
 }
 
 /// The sign-off state of every lot that has a sign-off (a lot absent from the map has
-/// none). Reads every sign-off in one query and fingerprints only the signed lots.
+/// none). Reads every sign-off in one query and the history of the signed lots only.
 pub fn sign_off_states(conn: &Connection) -> store::Result<BTreeMap<String, SignOffState>> {
-    let mut by_lot: BTreeMap<String, Vec<SignOffMark>> = BTreeMap::new();
+    let mut signed: BTreeMap<String, ()> = BTreeMap::new();
     for row in store::web::sign_offs(conn)? {
-        let Ok(payload) = serde_json::from_str(&row.payload) else {
-            continue;
-        };
-        if let Some(m) = mark_of(row.seq, &row.at, &row.actor, payload) {
-            by_lot.entry(row.lot).or_default().push(m);
-        }
+        signed.insert(row.lot, ());
     }
     let mut out = BTreeMap::new();
-    for (lot, marks) in by_lot {
-        let current = current_fingerprint(conn, &lot)?;
-        out.insert(lot, signoff::sign_off_state(&marks, current.as_deref()));
+    for lot in signed.into_keys() {
+        let state = lot_sign_off_state(conn, &lot)?;
+        out.insert(lot, state);
     }
     Ok(out)
 }

@@ -13,6 +13,7 @@ use super::escape::{escape_html as esc, fmt_opt, fmt_pct, fmt_sig};
 use super::model::{
     CycleLine, FitSummary, Forecast, ForecastStatus, LotReport, SiteReport, VerifyOutcome,
 };
+use super::table::simple_table;
 
 /// Cautions every report shows, whatever the site adds.
 pub const FIXED_CAUTIONS: [&str; 3] = [
@@ -333,33 +334,6 @@ fn cycle_table(out: &mut String, r: &LotReport) {
 }
 
 /// A titled table of rows of already-escaped cells; an empty list says so in words.
-pub(super) fn simple_table(
-    out: &mut String,
-    id: &str,
-    title: &str,
-    head: &[&str],
-    rows: Vec<Vec<String>>,
-) {
-    let _ = writeln!(out, "<section id=\"{id}\">\n<h2>{title}</h2>");
-    if rows.is_empty() {
-        let _ = writeln!(out, "<p>None.</p>\n</section>");
-        return;
-    }
-    out.push_str("<table><thead><tr>");
-    for h in head {
-        let _ = write!(out, "<th>{h}</th>");
-    }
-    out.push_str("</tr></thead>\n<tbody>\n");
-    for row in rows {
-        out.push_str("<tr>");
-        for cell in row {
-            let _ = write!(out, "<td>{cell}</td>");
-        }
-        out.push_str("</tr>\n");
-    }
-    out.push_str("</tbody></table>\n</section>\n");
-}
-
 /// One lot's QA report as a single self-contained HTML5 file.
 pub fn lot_html(r: &LotReport) -> String {
     let mut out = String::with_capacity(64 * 1024);

@@ -5,8 +5,8 @@
 use std::fmt::Write as _;
 
 use super::escape::escape_html as esc;
-use super::html::simple_table;
 use super::model::{LotReport, SignOffLine};
+use super::table::simple_table;
 use crate::model::signoff::SignOffStatus;
 
 /// "#41, #42 and 3 more": event numbers, the first few named.

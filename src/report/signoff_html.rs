@@ -19,6 +19,15 @@ fn event_list(seqs: &[i64]) -> String {
     }
 }
 
+/// "account mferreira, 2026-11-03T09:12:00.000Z", or the time alone when no account
+/// was recorded.
+fn who_when(m: &crate::model::signoff::SignOffMark) -> String {
+    match &m.os_user {
+        Some(u) => format!("account {u}, {}", m.at),
+        None => m.at.clone(),
+    }
+}
+
 /// The sign-off state in one sentence, with the action it calls for.
 pub(super) fn signoff_state(out: &mut String, r: &LotReport) {
     let s = &r.signoff_state;
@@ -43,7 +52,7 @@ pub(super) fn signoff_state(out: &mut String, r: &LotReport) {
                 "Reviewed as {} ({}), covering the history as it stands; approval by a \
                  second signer is due.",
                 esc(m.signer_or_unnamed()),
-                esc(&m.at)
+                esc(&who_when(m))
             ),
         ),
         (Some(m), st) => (
@@ -60,7 +69,7 @@ pub(super) fn signoff_state(out: &mut String, r: &LotReport) {
                     "Rejected"
                 },
                 esc(m.signer_or_unnamed()),
-                esc(&m.at)
+                esc(&who_when(m))
             ),
         ),
     };

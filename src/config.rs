@@ -77,14 +77,14 @@ pub struct Config {
     pub alerts: AlertRules,
     #[serde(default)]
     pub mail: MailConfig,
-    /// The read-only browser view and the operations endpoints of the service; off when
-    /// absent.
-    #[serde(default)]
-    pub web: Option<Web>,
     /// The QA signers' roster: who may sign off (`signoff --as NAME`) and, optionally,
     /// from which operating-system accounts. Empty: sign-offs are refused.
     #[serde(default)]
     pub signers: Vec<crate::model::signoff::Signer>,
+    /// The read-only browser view and the operations endpoints of the service; off when
+    /// absent.
+    #[serde(default)]
+    pub web: Option<Web>,
     /// Folder of the configuration file, for relative paths (set at load).
     #[serde(skip)]
     pub base_dir: PathBuf,
@@ -403,13 +403,13 @@ impl Config {
                 ),
             ));
         }
-        self.validate_signers()?;
         if self.files_per_transaction == 0 {
             return Err(self.invalid("files_per_transaction", "expected at least 1"));
         }
         if let Some(problem) = self.alerts.problems().into_iter().next() {
             return Err(self.invalid("alerts", problem));
         }
+        self.validate_signers()?;
         for (name, p) in &self.profiles {
             p.validate()
                 .map_err(|m| self.invalid(format!("profiles.{name}"), m))?;

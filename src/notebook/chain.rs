@@ -9,7 +9,7 @@ use crate::audit::key::{self, KeyError};
 use crate::config::Config;
 use crate::model::chain::{ChainKey, GENESIS, event_hash};
 use crate::model::time::now_utc;
-use crate::store::{self, Connection, Transaction};
+use crate::store::{self, Connection};
 
 impl From<KeyError> for NotebookError {
     fn from(e: KeyError) -> Self {
@@ -109,27 +109,4 @@ pub(crate) fn verify_with_witnesses(
         heads: all,
     };
     Ok(crate::audit::verify_with(conn, &w)?)
-}
-
-/// What an entry wrote: the event's sequence number and who made it.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Receipt {
-    pub seq: i64,
-    pub actor: String,
-}
-
-/// Open the database for appending and run one entry by hand (a registration, a note, a
-/// sign-off...) in an immediate transaction; publish the new head after the commit.
-pub(super) fn write_entry<T>(
-    cfg: &Config,
-    work: impl FnOnce(&Transaction<'_>, &str, &str) -> store::Result<T>,
-) -> Result<(T, String)> {
-    let mut conn = open_writer(cfg)?;
-    let actor = crate::audit::actor(cfg.actor.as_deref());
-    let at = now_utc();
-    let tx = store::immediate(&mut conn)?;
-    let out = work(&tx, &actor, &at)?;
-    tx.commit().map_err(store::StoreError::from)?;
-    publish_head(cfg, &conn)?;
-    Ok((out, actor))
 }

@@ -1,21 +1,70 @@
-//! Entries people make by hand: a lot's registration, a correction, an exclusion and a
-//! note (sign-offs are in `signoffs`). Each is one event of the audit trail, written in
-//! one transaction with the rows it changes and the recomputation of the lot it concerns.
+//! Entries people make by hand: a lot's registration, a correction, an exclusion, a note
+//! and a sign-off. Each is one event of the audit trail, written in one transaction with
+//! the rows it changes and the recomputation of the lot it concerns.
 
 use std::collections::BTreeSet;
 
-use super::chain::{Receipt, write_entry};
 use super::error::{NotebookError, Result};
 use super::recompute::recompute_lots;
+use super::signoffs::{lot_fingerprint, lot_marks};
 use crate::config::Config;
+use crate::model::signoff::{self, Meaning, SignOffMark};
+use crate::model::time::now_utc;
 use crate::model::{LotRecord, Payload, Quantity};
 use crate::store::{self, Transaction, records};
+
+/// What an entry wrote: the event's sequence number and who made it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Receipt {
+    pub seq: i64,
+    pub actor: String,
+}
 
 /// A lot's registration as written: new or a change of an existing one.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Registered {
     pub receipt: Receipt,
     pub changed: bool,
+}
+
+/// A sign-off as written, with what it covers.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SignedOff {
+    pub receipt: Receipt,
+    pub covers: String,
+    pub sha256: String,
+    /// The roster name as the roster spells it.
+    pub signer: String,
+    /// The operating-system account recorded.
+    pub os_user: String,
+    /// For an approval: the review it rests on (four eyes).
+    pub review: Option<SignOffMark>,
+}
+
+/// What a sign-off asks for: the lot, what it means, the roster name and a comment.
+#[derive(Debug, Clone, Copy)]
+pub struct SignOffRequest<'a> {
+    pub lot: &'a str,
+    /// "reviewed", "approved" or "rejected".
+    pub meaning: &'a str,
+    /// The roster name to sign as (`--as`).
+    pub signer: &'a str,
+    pub comment: Option<&'a str>,
+}
+
+/// Open the database and run one entry in an immediate transaction.
+fn write_entry<T>(
+    cfg: &Config,
+    work: impl FnOnce(&Transaction<'_>, &str, &str) -> store::Result<T>,
+) -> Result<(T, String)> {
+    let mut conn = super::chain::open_writer(cfg)?;
+    let actor = crate::audit::actor(cfg.actor.as_deref());
+    let at = now_utc();
+    let tx = store::immediate(&mut conn)?;
+    let out = work(&tx, &actor, &at)?;
+    tx.commit().map_err(store::StoreError::from)?;
+    super::chain::publish_head(cfg, &conn)?;
+    Ok((out, actor))
 }
 
 fn lot_of_batch(tx: &Transaction<'_>, batch: &str) -> store::Result<BTreeSet<String>> {
@@ -142,4 +191,62 @@ pub fn note(cfg: &Config, lot: Option<&str>, batch: Option<&str>, text: &str) ->
         records::append_event(tx, subject, &p, actor, at)
     })?;
     Ok(Receipt { seq, actor })
+}
+
+/// Sign off a lot's history as it stands, as a signer of the configured roster; this
+/// process's operating-system account ([`crate::audit::os_account`]) is recorded with the
+/// name. An approval needs an earlier review of the same history by another signer
+/// ([`signoff::four_eyes`]).
+pub fn sign_off(cfg: &Config, req: &SignOffRequest<'_>) -> Result<SignedOff> {
+    sign_off_from(cfg, req, &crate::audit::os_account())
+}
+
+/// Sign off as [`sign_off`] does, with the operating-system account given by the caller
+/// (a front end that knows its user another way; tests).
+pub fn sign_off_from(cfg: &Config, req: &SignOffRequest<'_>, account: &str) -> Result<SignedOff> {
+    let meaning = Meaning::parse(req.meaning).ok_or_else(|| {
+        NotebookError::Usage(format!(
+            "--meaning {}: expected reviewed, approved or rejected",
+            req.meaning
+        ))
+    })?;
+    let signer = signoff::check_signer(&cfg.signers, req.signer, account)
+        .map_err(|e| {
+            NotebookError::Refused(format!("{e} (configuration {})", cfg.source.display()))
+        })?
+        .name
+        .clone();
+    let lot = req.lot;
+    let ((seq, covers, sha256, review), actor) = write_entry(cfg, |tx, actor, at| {
+        let (what, sha) = lot_fingerprint(tx, lot)?;
+        let review = if meaning == Meaning::Approved {
+            let marks = lot_marks(tx, lot)?;
+            let r =
+                signoff::four_eyes(&marks, &sha, &cfg.signers, &signer, account).map_err(|e| {
+                    store::StoreError::Invalid(format!("lot '{lot}' cannot be approved: {e}"))
+                })?;
+            Some(r.clone())
+        } else {
+            None
+        };
+        let p = Payload::SignOff {
+            lot: lot.to_string(),
+            meaning: meaning.as_str().to_string(),
+            signed_sha256: sha.clone(),
+            what: what.clone(),
+            comment: req.comment.map(str::to_string),
+            signer: Some(signer.clone()),
+            os_user: Some(account.to_string()),
+        };
+        let seq = records::append_event(tx, lot, &p, actor, at)?;
+        Ok((seq, what, sha, review))
+    })?;
+    Ok(SignedOff {
+        receipt: Receipt { seq, actor },
+        covers,
+        sha256,
+        signer,
+        os_user: account.to_string(),
+        review,
+    })
 }

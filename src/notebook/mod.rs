@@ -7,9 +7,9 @@
 //! - `lots`: a lot's state (metrics of every cycle, the fit, what needs attention), and
 //!   its recomputation when records change.
 //! - `alerts`: from a lot's state to the alert rules and the outbox.
-//! - `entries`: register, correct, exclude, note.
-//! - `signoffs`: sign off as a roster signer (four eyes for approvals), the fingerprint a
-//!   sign-off covers, and the lots' sign-off states.
+//! - `entries`: register, correct, exclude, note, sign off.
+//! - `signoffs`: the fingerprint a sign-off covers, a lot's sign-offs and the lots'
+//!   sign-off states.
 //! - `history`: status and a lot's history.
 //! - `fits`: the deactivation fit of a stored lot or of any two-column series.
 //! - `reports`: the data of a lot's or the site's report, and writing them.
@@ -31,12 +31,14 @@ mod reports;
 mod signoffs;
 mod views;
 
-pub use chain::Receipt;
 pub use daemon::{
     ServiceContext, SideTask, deliver_now, queue_digest, run_service, run_service_with, runtime,
     serve, serve_with,
 };
-pub use entries::{Corrected, Registered, correct, exclude, note, register};
+pub use entries::{
+    Corrected, Receipt, Registered, SignedOff, correct, exclude, note, register, sign_off,
+};
+pub use entries::{SignOffRequest, sign_off_from};
 pub use error::{NotebookError, Result};
 pub use fits::{SeriesFit, SeriesRequest, fit_series, lot_fit};
 pub use history::{HistoryEntry, Status, history, status};
@@ -52,8 +54,8 @@ pub use lots::{
 pub use recompute::recompute_stale;
 pub use reports::{write_all_reports, write_lot_report, write_site_report};
 pub use signoffs::{
-    SignOffCounts, SignOffRequest, SignedOff, lot_marks, lot_sign_off_state, sign_off,
-    sign_off_from, sign_off_overview, sign_off_states,
+    SignOffCounts, lot_fingerprint, lot_marks, lot_sign_off_state, sign_off_overview,
+    sign_off_states,
 };
 pub use views::{
     AlertsView, AuditView, ChangeWatch, FileLine, FilesView, LotPage, MessageLine, OpenAlertLine,

@@ -1,101 +1,18 @@
-//! Sign-offs: a named signer from the roster signs a lot's history as it stands, with the
-//! operating-system account recorded beside the name; an approval needs an earlier review
-//! of the same history by someone else (the four-eyes rule, [`signoff::four_eyes`]). Also
-//! the lots' sign-off states for `lots`, `status`, reports, the web view and the digest.
+//! What sign-offs cover and add up to: the fingerprint of a lot's history a sign-off
+//! signs, a lot's sign-offs, and the lots' sign-off states for `lots`, `status`, reports,
+//! the web view and the digest. (Signing itself is an entry, in `entries`.)
 
 use std::collections::BTreeMap;
 
 use serde::Serialize;
 
-use super::chain::{Receipt, write_entry};
-use super::error::{NotebookError, Result};
+use super::error::Result;
 use crate::config::Config;
 use crate::model::Payload;
 use crate::model::chain::SIGN_OFF_KIND;
-use crate::model::signoff::{self, Meaning, SignOffMark, SignOffState, SignOffStatus};
+use crate::model::signoff::{self, SignOffMark, SignOffState, SignOffStatus};
 use crate::store::replay::StoredEvent;
-use crate::store::{self, Connection, records};
-
-/// What a sign-off asks for: the lot, what it means, the roster name and a comment.
-#[derive(Debug, Clone, Copy)]
-pub struct SignOffRequest<'a> {
-    pub lot: &'a str,
-    /// "reviewed", "approved" or "rejected".
-    pub meaning: &'a str,
-    /// The roster name to sign as (`--as`).
-    pub signer: &'a str,
-    pub comment: Option<&'a str>,
-}
-
-/// A sign-off as written, with what it covers.
-#[derive(Debug, Clone, PartialEq)]
-pub struct SignedOff {
-    pub receipt: Receipt,
-    pub covers: String,
-    pub sha256: String,
-    /// The roster name as the roster spells it.
-    pub signer: String,
-    /// The operating-system account recorded.
-    pub os_user: String,
-    /// For an approval: the review it rests on.
-    pub review: Option<SignOffMark>,
-}
-
-/// Sign off a lot's history as it stands, as a roster signer; this process's
-/// operating-system account ([`crate::audit::os_account`]) is recorded with the name.
-pub fn sign_off(cfg: &Config, req: &SignOffRequest<'_>) -> Result<SignedOff> {
-    sign_off_from(cfg, req, &crate::audit::os_account())
-}
-
-/// Sign off as [`sign_off`] does, with the operating-system account given by the caller
-/// (a front end that knows its user another way; tests).
-pub fn sign_off_from(cfg: &Config, req: &SignOffRequest<'_>, account: &str) -> Result<SignedOff> {
-    let meaning = Meaning::parse(req.meaning).ok_or_else(|| {
-        NotebookError::Usage(format!(
-            "--meaning {}: expected reviewed, approved or rejected",
-            req.meaning
-        ))
-    })?;
-    let signer = signoff::check_signer(&cfg.signers, req.signer, account)
-        .map_err(|e| {
-            NotebookError::Refused(format!("{e} (configuration {})", cfg.source.display()))
-        })?
-        .name
-        .clone();
-    let lot = req.lot;
-    let ((seq, covers, sha256, review), actor) = write_entry(cfg, |tx, actor, at| {
-        let (what, sha) = lot_fingerprint(tx, lot)?;
-        let review = if meaning == Meaning::Approved {
-            let marks = lot_marks(tx, lot)?;
-            let r =
-                signoff::four_eyes(&marks, &sha, &cfg.signers, &signer, account).map_err(|e| {
-                    store::StoreError::Invalid(format!("lot '{lot}' cannot be approved: {e}"))
-                })?;
-            Some(r.clone())
-        } else {
-            None
-        };
-        let p = Payload::SignOff {
-            lot: lot.to_string(),
-            meaning: meaning.as_str().to_string(),
-            signed_sha256: sha.clone(),
-            what: what.clone(),
-            comment: req.comment.map(str::to_string),
-            signer: Some(signer.clone()),
-            os_user: Some(account.to_string()),
-        };
-        let seq = records::append_event(tx, lot, &p, actor, at)?;
-        Ok((seq, what, sha, review))
-    })?;
-    Ok(SignedOff {
-        receipt: Receipt { seq, actor },
-        covers,
-        sha256,
-        signer,
-        os_user: account.to_string(),
-        review,
-    })
-}
+use crate::store::{self, Connection};
 
 /// A stored sign-off event as a mark; none when the payload is not a sign-off (`verify`
 /// reports a payload that does not read).

@@ -196,3 +196,30 @@ fn an_account_both_signers_list_is_shared_by_declaration() {
     assert_eq!(state(&cfg), SignOffStatus::Approved);
     verified_events(&cfg);
 }
+
+#[test]
+fn the_roster_is_checked_when_the_configuration_loads() {
+    let load = |roster: &str| {
+        Config::from_toml(roster, Path::new("t.toml"), Path::new("."))
+            .map(|c| c.signers.len())
+            .map_err(|e| e.to_string())
+    };
+    let two = "[[signers]]\nname = \"M. Ferreira\"\naccounts = [\"mf\"]\n\
+               [[signers]]\nname = \"J. Lindqvist\"\n";
+    assert_eq!(load(two), Ok(2));
+    let e = load("[[signers]]\nname = \"M. Ferreira\"\n[[signers]]\nname = \"m.  ferreira\"\n")
+        .unwrap_err();
+    assert!(
+        e.contains("signers[1].name") && e.contains("already signers[0]"),
+        "{e}"
+    );
+    let e = load("[[signers]]\nname = \"  \"\n").unwrap_err();
+    assert!(e.contains("signers[0].name"), "{e}");
+    let e = load("[[signers]]\nname = \"A\"\naccounts = [\"two words\"]\n").unwrap_err();
+    assert!(
+        e.contains("signers[0].accounts") && e.contains("'two words'"),
+        "{e}"
+    );
+    let e = load("[[signers]]\nname = \"A\"\nrole = \"QA\"\n").unwrap_err();
+    assert!(e.contains("role"), "{e}");
+}

@@ -77,6 +77,10 @@ pub struct Config {
     pub alerts: AlertRules,
     #[serde(default)]
     pub mail: MailConfig,
+    /// The QA signers' roster: who may sign off (`signoff --as NAME`) and, optionally,
+    /// from which operating-system accounts. Empty: sign-offs are refused.
+    #[serde(default)]
+    pub signers: Vec<crate::model::signoff::Signer>,
     /// The read-only browser view and the operations endpoints of the service; off when
     /// absent.
     #[serde(default)]
@@ -466,6 +470,7 @@ impl Config {
         if let Some(problem) = self.alerts.problems().into_iter().next() {
             return Err(self.invalid("alerts", problem));
         }
+        self.validate_signers()?;
         for (name, p) in &self.profiles {
             p.validate()
                 .map_err(|m| self.invalid(format!("profiles.{name}"), m))?;
@@ -496,6 +501,40 @@ impl Config {
                 return Err(self.invalid(
                     format!("{key}.site"),
                     format!("no site named '{site}' in [[sites]]"),
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    /// Each signer has a printable name of its own and accounts without spaces.
+    fn validate_signers(&self) -> Result<(), ConfigError> {
+        for (i, s) in self.signers.iter().enumerate() {
+            let key = format!("signers[{i}].name");
+            let name = s.name.trim();
+            if name.is_empty() || name.chars().count() > 80 || name.chars().any(char::is_control) {
+                return Err(self.invalid(
+                    key,
+                    "expected a name of 1 to 80 printable characters, e.g. \"M. Ferreira\"",
+                ));
+            }
+            if let Some(j) = self.signers[..i]
+                .iter()
+                .position(|o| crate::model::signoff::same_name(&o.name, name))
+            {
+                return Err(self.invalid(
+                    key,
+                    format!("'{name}' is already signers[{j}]; expected each signer once"),
+                ));
+            }
+            if let Some(a) = s
+                .accounts
+                .iter()
+                .find(|a| a.is_empty() || a.chars().any(|c| c.is_whitespace() || c.is_control()))
+            {
+                return Err(self.invalid(
+                    format!("signers[{i}].accounts"),
+                    format!("'{}' is not an account name; expected login names without spaces, e.g. [\"mferreira\"]", a.escape_default()),
                 ));
             }
         }

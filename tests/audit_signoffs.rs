@@ -36,17 +36,32 @@ fn verify_cli(root: &Path, json: bool) -> (Option<i32>, String) {
     )
 }
 
+/// A review of LOT-A by the roster's one signer.
+fn review(cfg: &turnbook::config::Config) -> turnbook::notebook::Result<notebook::SignedOff> {
+    let req = notebook::SignOffRequest {
+        lot: "LOT-A",
+        meaning: "reviewed",
+        signer: "Q. Reviewer",
+        comment: None,
+    };
+    notebook::sign_off(cfg, &req)
+}
+
 #[test]
 fn a_sign_off_covers_until_a_later_event_concerns_its_lot() {
     let tmp = tempfile::tempdir().unwrap();
-    let cfg = common::reactor_config(tmp.path(), 10);
+    let mut cfg = common::reactor_config(tmp.path(), 10);
+    cfg.signers = vec![turnbook::model::signoff::Signer {
+        name: "Q. Reviewer".into(),
+        accounts: Vec::new(),
+    }];
     let dir = tmp.path().join("exports");
     std::fs::create_dir_all(&dir).unwrap();
     std::fs::write(dir.join("a.csv"), "Batch,Lot,Conversion\nRD-1,LOT-A,61.5\n").unwrap();
     std::fs::write(dir.join("b.csv"), "Batch,Lot,Conversion\nRD-2,LOT-B,55.0\n").unwrap();
     std::fs::write(dir.join("c.csv"), "Batch,Lot,Conversion\nRD-3,LOT-A,58.0\n").unwrap();
     ingest(&cfg, &dir.join("a.csv"));
-    let signed = notebook::sign_off(&cfg, "LOT-A", "approved", None).unwrap();
+    let signed = review(&cfg).unwrap();
 
     // An event about another lot leaves the sign-off whole.
     ingest(&cfg, &dir.join("b.csv"));
@@ -55,7 +70,7 @@ fn a_sign_off_covers_until_a_later_event_concerns_its_lot() {
     assert_eq!(r.signoffs.len(), 1);
     let s = &r.signoffs[0];
     assert_eq!(s.seq, signed.receipt.seq);
-    assert_eq!((s.lot.as_str(), s.meaning.as_str()), ("LOT-A", "approved"));
+    assert_eq!((s.lot.as_str(), s.meaning.as_str()), ("LOT-A", "reviewed"));
     assert!(s.covers, "{s:?}");
     assert_eq!(s.signed_sha256, signed.sha256);
     assert_eq!(s.current_sha256, signed.sha256);
@@ -64,7 +79,7 @@ fn a_sign_off_covers_until_a_later_event_concerns_its_lot() {
     assert_eq!(code, Some(0), "{out}");
     assert!(
         out.contains(&format!(
-            "sign-off #{} of lot LOT-A (approved): still covers the lot's history",
+            "sign-off #{} of lot LOT-A (reviewed): still covers the lot's history",
             s.seq
         )),
         "{out}"
@@ -88,7 +103,7 @@ fn a_sign_off_covers_until_a_later_event_concerns_its_lot() {
     let (code, out) = verify_cli(tmp.path(), false);
     assert_eq!(code, Some(0), "{out}");
     assert!(
-        out.contains("(approved): no longer covers the lot's history: 1 later event(s)"),
+        out.contains("(reviewed): no longer covers the lot's history: 1 later event(s)"),
         "{out}"
     );
     let (code, out) = verify_cli(tmp.path(), true);
@@ -98,7 +113,7 @@ fn a_sign_off_covers_until_a_later_event_concerns_its_lot() {
     assert_eq!(v["signoffs"][0]["lot"], serde_json::json!("LOT-A"));
 
     // Signed again, the new sign-off covers; the first still does not.
-    notebook::sign_off(&cfg, "LOT-A", "approved", None).unwrap();
+    review(&cfg).unwrap();
     let r = notebook::verify(&cfg, &[]).unwrap();
     let covers: Vec<bool> = r.signoffs.iter().map(|s| s.covers).collect();
     assert_eq!(covers, vec![false, true]);

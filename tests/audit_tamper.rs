@@ -30,6 +30,9 @@ fn ok(o: Output) -> String {
 /// A notebook with files ingested, a lot registered, a correction, a note and a sign-off.
 fn notebook(root: &Path) {
     common::reactor_config(root, 2);
+    let toml = root.join("turnbook.toml");
+    let text = std::fs::read_to_string(&toml).unwrap();
+    std::fs::write(&toml, format!("{text}\n[[signers]]\nname = \"QA One\"\n")).unwrap();
     let exports = root.join("exports");
     std::fs::create_dir_all(&exports).unwrap();
     for i in 1..=4 {
@@ -63,7 +66,7 @@ fn notebook(root: &Path) {
     ok(turnbook(root, &["note", "--lot", "PD-7", "filter changed"]));
     ok(turnbook(
         root,
-        &["signoff", "PD-7", "--meaning", "reviewed"],
+        &["signoff", "PD-7", "--meaning", "reviewed", "--as", "QA One"],
     ));
 }
 

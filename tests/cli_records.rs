@@ -70,10 +70,12 @@ impl Plant {
     }
 }
 
+/// Sign-offs in a report that cover the history as it stands, and that no longer do.
 fn signoff_cells(html: &str) -> (usize, usize) {
     (
-        html.matches("<span class=\"ok\">yes</span>").count(),
-        html.matches("no: the record changed after signing").count(),
+        html.matches("\">unchanged: covers the history as it stands<")
+            .count(),
+        html.matches("\">changed: ").count(),
     )
 }
 
@@ -237,6 +239,8 @@ fn record_verbs_keep_history_and_signoffs_honest() {
         "reviewed",
         "--comment",
         "first look",
+        "--as",
+        "J. Lindqvist",
     ]);
     let signed: String = out
         .split("SHA-256 ")
@@ -249,7 +253,8 @@ fn record_verbs_keep_history_and_signoffs_honest() {
     plant.ok(&["report", LOT, "--out", html_path.to_str().unwrap()]);
     let html = std::fs::read_to_string(&html_path).unwrap();
     assert!(html.contains(&signed));
-    assert_eq!(signoff_cells(&html), (1, 0));
+    // The demo's own review and this one.
+    assert_eq!(signoff_cells(&html), (2, 0));
 
     let old: f64 = plant
         .db()
@@ -315,18 +320,25 @@ fn record_verbs_keep_history_and_signoffs_honest() {
     let html = std::fs::read_to_string(&after).unwrap();
     assert_eq!(
         signoff_cells(&html),
-        (0, 1),
-        "the old sign-off must not cover the corrected record"
+        (0, 2),
+        "the old sign-offs must not cover the corrected record"
     );
     let csv = std::fs::read_to_string(&csv).unwrap();
     let row = csv.lines().find(|l| l.contains(BATCH)).unwrap();
     assert!(row.contains("0.8125"), "{row}");
     // A fresh sign-off covers it again.
-    plant.ok(&["signoff", LOT, "--meaning", "approved"]);
+    plant.ok(&[
+        "signoff",
+        LOT,
+        "--meaning",
+        "reviewed",
+        "--as",
+        "M. Ferreira",
+    ]);
     plant.ok(&["report", LOT, "--out", after.to_str().unwrap()]);
     assert_eq!(
         signoff_cells(&std::fs::read_to_string(&after).unwrap()),
-        (1, 1)
+        (1, 2)
     );
 
     // exclude and note are events of the lot's history.

@@ -289,6 +289,11 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
                 meaning: "reviewed cycles 1 to 10".to_string(),
                 signed_sha256: format!("{:064x}", 0x1234_5678_u128),
                 covers_current: false,
+                signer: Some("Q. Reviewer".to_string()),
+                os_user: Some("q.reviewer".to_string()),
+                what: "history of lot PD-DEMO-07".to_string(),
+                comment: Some("batch records checked".to_string()),
+                later_events: vec![41, 42],
             },
             SignOffLine {
                 who: "q.reviewer".to_string(),
@@ -296,6 +301,11 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
                 meaning: "reviewed cycles 1 to 14".to_string(),
                 signed_sha256: format!("{:064x}", 0x8765_4321_u128),
                 covers_current: true,
+                signer: Some("Q. Reviewer".to_string()),
+                os_user: Some("q.reviewer".to_string()),
+                what: "history of lot PD-DEMO-07".to_string(),
+                comment: Some("batch records checked".to_string()),
+                later_events: Vec::new(),
             },
         ],
         verify: Some(VerifyLine {
@@ -312,6 +322,8 @@ pub fn demo_lot(lot_name: &str, file_name: &str, reason: &str) -> LotReport {
         ],
         activity_note: None,
         family: None,
+        notes: Vec::new(),
+        signoff_state: Default::default(),
     }
 }
 

@@ -21,6 +21,21 @@ pub fn actor(configured: Option<&str>) -> String {
         .unwrap_or_else(|| "unknown".to_string())
 }
 
+/// The operating-system account this process runs as, recorded with a sign-off: the real
+/// user's login name from /proc and /etc/passwd (not USER, which whoever starts the
+/// command sets), else USER or LOGNAME, else "unknown". Evidence of where a signature
+/// came from, not proof of who made it.
+pub fn os_account() -> String {
+    os_user()
+        .or_else(|| {
+            std::env::var("USER")
+                .or_else(|_| std::env::var("LOGNAME"))
+                .ok()
+                .filter(|u| !u.is_empty())
+        })
+        .unwrap_or_else(|| "unknown".to_string())
+}
+
 /// The name of the process's real user from /proc and /etc/passwd (services often run
 /// without USER in their environment).
 fn os_user() -> Option<String> {

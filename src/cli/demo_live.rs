@@ -155,6 +155,7 @@ pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
     let smtp = std::env::var(crate::mail::SMTP_URL_ENV)
         .ok()
         .filter(|s| !s.trim().is_empty());
+    qa_entries(cfg)?;
     let digest = crate::notebook::queue_digest(cfg)?;
     let mail = notebook::deliver_now(cfg)
         .map_err(|e| Failure::rejected(format!("mail delivery failed: {e}")))?;
@@ -218,4 +219,37 @@ pub fn finish(dir: &Path, cfg: &Config) -> CmdResult {
     }
     println!("Spent catalysts can be pyrophoric: keep them wet and follow the site's procedures.");
     Ok(0)
+}
+
+/// The QA part of the scenario: a note on the Pt lot's poisoned batch, and a review of the
+/// Pd lot by the roster's first signer with a comment. Approval is left to a second
+/// signer (four eyes), which one demo run cannot be.
+fn qa_entries(cfg: &Config) -> Result<(), Failure> {
+    crate::notebook::note(
+        cfg,
+        None,
+        Some("KV4-K-010"),
+        "Feed drum changed before this batch; a retained sample of the new drum went to the \
+         analytical lab.",
+    )?;
+    let Some(signer) = cfg.signers.first() else {
+        return Ok(());
+    };
+    let s = crate::notebook::sign_off(
+        cfg,
+        &crate::notebook::SignOffRequest {
+            lot: "PD-C-2611-A",
+            meaning: "reviewed",
+            signer: &signer.name,
+            comment: Some(
+                "Cycles checked against the batch records and the balance print-outs; \
+                 the slow activity loss is as expected for Pd/C in this step.",
+            ),
+        },
+    )?;
+    println!(
+        "  sign-off       PD-C-2611-A reviewed as {} (event {}); approval needs a second signer",
+        s.signer, s.receipt.seq
+    );
+    Ok(())
 }

@@ -60,10 +60,26 @@ pub fn note(cfg: &Config, a: &NoteArgs) -> CmdResult {
 
 /// `turnbook signoff`.
 pub fn sign_off(cfg: &Config, a: &SignoffArgs) -> CmdResult {
-    let s = entries::sign_off(cfg, &a.lot, &a.meaning, a.comment.as_deref())?;
+    let s = entries::sign_off(
+        cfg,
+        &entries::SignOffRequest {
+            lot: &a.lot,
+            meaning: &a.meaning,
+            signer: &a.signer,
+            comment: a.comment.as_deref(),
+        },
+    )?;
+    if let Some(r) = &s.review {
+        println!(
+            "four eyes: rests on the review in event {} as {} (account {})",
+            r.seq,
+            r.signer_or_unnamed(),
+            r.os_user.as_deref().unwrap_or("not recorded")
+        );
+    }
     println!(
-        "lot '{}' signed off as {} by {} (event {}); it covers the history with SHA-256 {}",
-        a.lot, a.meaning, s.receipt.actor, s.receipt.seq, s.sha256
+        "lot '{}' signed off as {} by {} (account {}, event {}); it covers the history with SHA-256 {}",
+        a.lot, a.meaning, s.signer, s.os_user, s.receipt.seq, s.sha256
     );
     Ok(0)
 }

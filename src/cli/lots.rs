@@ -23,8 +23,8 @@ pub fn lots(cfg: &Config, json: bool) -> CmdResult {
         return Ok(0);
     }
     println!(
-        "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} forecast / flags",
-        "lot", "catalyst", "cycles", "activity", "cum. TON", "model"
+        "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} {:<9} forecast / flags",
+        "lot", "catalyst", "cycles", "activity", "cum. TON", "model", "sign-off"
     );
     for l in &lines {
         let forecast = l.forecast.as_ref().map(|f| {
@@ -73,7 +73,7 @@ pub fn lots(cfg: &Config, json: bool) -> CmdResult {
             let _ = write!(tail, "  [{}]", l.flags.join(", "));
         }
         println!(
-            "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} {}",
+            "{:<16} {:<34} {:>6} {:>9} {:>9} {:<22} {:<9} {}",
             l.lot,
             l.catalyst
                 .clone()
@@ -82,6 +82,10 @@ pub fn lots(cfg: &Config, json: bool) -> CmdResult {
             fmt_opt(l.latest_activity, 3),
             fmt_opt(l.cumulative_ton, 0),
             l.model.clone().unwrap_or_else(|| "-".into()),
+            match l.signoff.state {
+                crate::model::signoff::SignOffStatus::None => "-",
+                s => s.as_str(),
+            },
             tail
         );
     }

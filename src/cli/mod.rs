@@ -58,7 +58,8 @@ pub enum Command {
     Exclude(ExcludeArgs),
     /// Add a note to a lot or a batch.
     Note(NoteArgs),
-    /// Sign off a lot's history as it stands now (reviewed, approved or rejected).
+    /// Sign off a lot's history as it stands now (reviewed, approved or rejected) as a named
+    /// signer of the roster; approving needs an earlier review by another signer.
     Signoff(SignoffArgs),
     /// Show every event that concerns a lot, oldest first.
     History(HistoryArgs),
@@ -213,6 +214,10 @@ pub struct SignoffArgs {
     pub meaning: String,
     #[arg(long)]
     pub comment: Option<String>,
+    /// Your name as the configuration's signer roster (`[[signers]]`) spells it; your
+    /// operating-system account is recorded beside it.
+    #[arg(long = "as", value_name = "NAME")]
+    pub signer: String,
 }
 
 #[derive(Debug, Args)]

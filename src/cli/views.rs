@@ -1,6 +1,6 @@
 //! `turnbook status` and `turnbook history`.
 
-use super::CmdResult;
+use super::{CmdResult, printable};
 use crate::config::Config;
 
 /// `turnbook status`.
@@ -30,6 +30,11 @@ pub fn status(cfg: &Config, json: bool) -> CmdResult {
         s.lots, s.cycles, s.pending_cycles
     );
     println!("mail waiting    {}", s.outbox_waiting);
+    let c = &s.signoffs;
+    println!(
+        "sign-offs       {} approved, {} reviewed (approval due), {} rejected, {} stale (history changed since), {} none",
+        c.approved, c.reviewed, c.rejected, c.stale, c.none
+    );
     if s.lots_needing_attention.is_empty() {
         println!("attention       none");
     } else {
@@ -62,7 +67,7 @@ pub fn history(cfg: &Config, lot: &str, json: bool) -> CmdResult {
                 e.payload["excluded"],
                 e.payload["reason"].as_str().unwrap_or("")
             ),
-            "note" => e.payload["text"].as_str().unwrap_or("").to_string(),
+            "note" => note_line(&e.payload),
             "alert-action" => format!(
                 "{} alert {} (episode {}), reason: {}",
                 e.payload["action"].as_str().unwrap_or("?"),
@@ -70,18 +75,45 @@ pub fn history(cfg: &Config, lot: &str, json: bool) -> CmdResult {
                 e.payload["episode"],
                 e.payload["reason"].as_str().unwrap_or("")
             ),
-            "sign-off" => format!(
-                "{} of {} (SHA-256 {})",
-                e.payload["meaning"].as_str().unwrap_or("?"),
-                e.payload["what"].as_str().unwrap_or("?"),
-                e.payload["signed_sha256"].as_str().unwrap_or("?")
-            ),
+            "sign-off" => sign_off_line(&e.payload),
             _ => e.subject.clone(),
         };
         println!(
             "#{:<6} {}  {:<10} {:<15} {}",
-            e.seq, e.at, e.actor, e.kind, detail
+            e.seq,
+            e.at,
+            printable(&e.actor),
+            e.kind,
+            printable(&detail)
         );
     }
     Ok(0)
+}
+
+/// A note in a history: what it is on, and its text.
+fn note_line(p: &serde_json::Value) -> String {
+    let on = match (p["lot"].as_str(), p["batch_id"].as_str()) {
+        (_, Some(b)) => format!("on batch {b}"),
+        (Some(l), None) => format!("on lot {l}"),
+        (None, None) => "note".to_string(),
+    };
+    format!("{on}: {}", p["text"].as_str().unwrap_or(""))
+}
+
+/// A sign-off in a history: meaning, signer and account, what it covers, and its comment.
+fn sign_off_line(p: &serde_json::Value) -> String {
+    let signer = match (p["signer"].as_str(), p["os_user"].as_str()) {
+        (Some(s), Some(u)) => format!(" as {s} (account {u})"),
+        (Some(s), None) => format!(" as {s}"),
+        _ => " (no signer named)".to_string(),
+    };
+    let comment = p["comment"]
+        .as_str()
+        .map_or_else(String::new, |c| format!(", comment: {c}"));
+    format!(
+        "{}{signer} of {} (SHA-256 {}){comment}",
+        p["meaning"].as_str().unwrap_or("?"),
+        p["what"].as_str().unwrap_or("?"),
+        p["signed_sha256"].as_str().unwrap_or("?")
+    )
 }

@@ -257,6 +257,14 @@ pub enum Payload {
         signed_sha256: String,
         what: String,
         comment: Option<String>,
+        /// The roster name signed as (`--as`); absent in sign-offs made before signers
+        /// were named.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        signer: Option<String>,
+        /// The operating-system account the sign-off was made from: evidence, not proof
+        /// of identity.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        os_user: Option<String>,
     },
     /// From the next event on, links are keyed (HMAC-SHA-256 under the chain key), not
     /// plain SHA-256; `key_proof` (HMAC under the key of the hash before this event, see

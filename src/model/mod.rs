@@ -8,6 +8,7 @@
 //! - [`time`]: the one timestamp format of tables, messages and reports.
 //! - [`calendar`]: cycles into dates in the plant's time zone.
 //! - [`numbers`]: numbers as people read them.
+//! - [`signoff`]: the signer roster, a lot's sign-off state and the four-eyes rule.
 
 pub mod calendar;
 pub mod chain;
@@ -16,6 +17,7 @@ pub mod event;
 mod forecast;
 pub mod numbers;
 mod quantity;
+pub mod signoff;
 pub mod time;
 
 pub use cycle::CycleView;

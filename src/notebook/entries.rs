@@ -5,9 +5,10 @@
 use std::collections::BTreeSet;
 
 use super::error::{NotebookError, Result};
-use super::history::lot_fingerprint;
 use super::recompute::{recompute_lots, recompute_lots_because};
+use super::signoffs::{lot_fingerprint, lot_marks};
 use crate::config::Config;
+use crate::model::signoff::{self, Meaning, SignOffMark};
 use crate::model::time::now_utc;
 use crate::model::{LotRecord, Payload, Quantity};
 use crate::store::{self, Transaction, records};
@@ -35,6 +36,23 @@ pub struct SignedOff {
     pub receipt: Receipt,
     pub covers: String,
     pub sha256: String,
+    /// The roster name as the roster spells it.
+    pub signer: String,
+    /// The operating-system account recorded.
+    pub os_user: String,
+    /// For an approval: the review it rests on (four eyes).
+    pub review: Option<SignOffMark>,
+}
+
+/// What a sign-off asks for: the lot, what it means, the roster name and a comment.
+#[derive(Debug, Clone, Copy)]
+pub struct SignOffRequest<'a> {
+    pub lot: &'a str,
+    /// "reviewed", "approved" or "rejected".
+    pub meaning: &'a str,
+    /// The roster name to sign as (`--as`).
+    pub signer: &'a str,
+    pub comment: Option<&'a str>,
 }
 
 /// Open the database and run one entry in an immediate transaction.
@@ -191,29 +209,61 @@ pub fn note(cfg: &Config, lot: Option<&str>, batch: Option<&str>, text: &str) ->
     Ok(Receipt { seq, actor })
 }
 
-/// Sign off a lot's history as it stands, with a meaning such as "reviewed".
-pub fn sign_off(
-    cfg: &Config,
-    lot: &str,
-    meaning: &str,
-    comment: Option<&str>,
-) -> Result<SignedOff> {
-    let ((seq, covers, sha256), actor) = write_entry(cfg, |tx, actor, at| {
+/// Sign off a lot's history as it stands, as a signer of the configured roster; this
+/// process's operating-system account ([`crate::audit::os_account`]) is recorded with the
+/// name. An approval needs an earlier review of the same history by another signer
+/// ([`signoff::four_eyes`]).
+pub fn sign_off(cfg: &Config, req: &SignOffRequest<'_>) -> Result<SignedOff> {
+    sign_off_from(cfg, req, &crate::audit::os_account())
+}
+
+/// Sign off as [`sign_off`] does, with the operating-system account given by the caller
+/// (a front end that knows its user another way; tests).
+pub fn sign_off_from(cfg: &Config, req: &SignOffRequest<'_>, account: &str) -> Result<SignedOff> {
+    let meaning = Meaning::parse(req.meaning).ok_or_else(|| {
+        NotebookError::Usage(format!(
+            "--meaning {}: expected reviewed, approved or rejected",
+            req.meaning
+        ))
+    })?;
+    let signer = signoff::check_signer(&cfg.signers, req.signer, account)
+        .map_err(|e| {
+            NotebookError::Refused(format!("{e} (configuration {})", cfg.source.display()))
+        })?
+        .name
+        .clone();
+    let lot = req.lot;
+    let ((seq, covers, sha256, review), actor) = write_entry(cfg, |tx, actor, at| {
         let (what, sha) = lot_fingerprint(tx, lot)?;
+        let review = if meaning == Meaning::Approved {
+            let marks = lot_marks(tx, lot)?;
+            let r =
+                signoff::four_eyes(&marks, &sha, &cfg.signers, &signer, account).map_err(|e| {
+                    store::StoreError::Invalid(format!("lot '{lot}' cannot be approved: {e}"))
+                })?;
+            Some(r.clone())
+        } else {
+            None
+        };
         let p = Payload::SignOff {
             lot: lot.to_string(),
-            meaning: meaning.to_string(),
+            meaning: meaning.as_str().to_string(),
             signed_sha256: sha.clone(),
             what: what.clone(),
-            comment: comment.map(str::to_string),
+            comment: req.comment.map(str::to_string),
+            signer: Some(signer.clone()),
+            os_user: Some(account.to_string()),
         };
         let seq = records::append_event(tx, lot, &p, actor, at)?;
-        Ok((seq, what, sha))
+        Ok((seq, what, sha, review))
     })?;
     Ok(SignedOff {
         receipt: Receipt { seq, actor },
         covers,
         sha256,
+        signer,
+        os_user: account.to_string(),
+        review,
     })
 }
 

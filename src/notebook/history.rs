@@ -1,5 +1,4 @@
-//! Read-only views for people and scripts: status, history, and the fingerprint that a
-//! sign-off covers.
+//! Read-only views for people and scripts: status and a lot's history.
 
 use serde::Serialize;
 
@@ -25,6 +24,8 @@ pub struct Status {
     pub pending_cycles: i64,
     pub lots_needing_attention: Vec<String>,
     pub outbox_waiting: i64,
+    /// Lots by sign-off state (none, reviewed, approved, rejected, stale).
+    pub signoffs: super::signoffs::SignOffCounts,
 }
 
 /// Gather the status figures.
@@ -49,6 +50,10 @@ pub fn gather_status(conn: &Connection, cfg: &Config) -> store::Result<Status> {
         pending_cycles: records.pending_cycles,
         lots_needing_attention: crate::notebook::lots::lots_needing_attention(conn, cfg)?,
         outbox_waiting: store::outbox::waiting(conn)?,
+        signoffs: super::signoffs::count_states(
+            &store::lots::lot_names(conn)?,
+            &super::signoffs::sign_off_states(conn)?,
+        ),
     })
 }
 
@@ -68,6 +73,21 @@ pub struct HistoryEntry {
     pub subject: String,
     pub payload: serde_json::Value,
     pub hash: String,
+    /// What a person wrote with the event, as typed: a note's text, a sign-off's comment,
+    /// the reason of a correction, an exclusion or a registration change.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub text: Option<String>,
+}
+
+/// The free text of an event's payload (see [`HistoryEntry::text`]).
+fn written_text(kind: &str, p: &serde_json::Value) -> Option<String> {
+    let field = match kind {
+        "note" => "text",
+        "sign-off" => "comment",
+        "correction" | "exclusion" | "lot-registered" => "reason",
+        _ => return None,
+    };
+    p[field].as_str().map(str::to_string)
 }
 
 /// Every event that concerns a lot: its registrations, the files that brought its cycles,
@@ -75,15 +95,19 @@ pub struct HistoryEntry {
 pub fn lot_history(conn: &Connection, lot: &str) -> store::Result<Vec<HistoryEntry>> {
     Ok(store::queries::lot_events(conn, lot)?
         .into_iter()
-        .map(|e| HistoryEntry {
-            seq: e.seq,
-            at: e.at,
-            actor: e.actor,
-            kind: e.kind,
-            subject: e.subject,
-            payload: serde_json::from_str(&e.payload)
-                .unwrap_or(serde_json::Value::String(e.payload)),
-            hash: e.hash,
+        .map(|e| {
+            let payload =
+                serde_json::from_str(&e.payload).unwrap_or(serde_json::Value::String(e.payload));
+            HistoryEntry {
+                seq: e.seq,
+                at: e.at,
+                actor: e.actor,
+                text: written_text(&e.kind, &payload),
+                kind: e.kind,
+                subject: e.subject,
+                payload,
+                hash: e.hash,
+            }
         })
         .collect())
 }
@@ -98,28 +122,4 @@ pub fn history(cfg: &Config, lot: &str) -> NResult<Vec<HistoryEntry>> {
         )));
     }
     Ok(h)
-}
-
-/// What a sign-off of a lot covers: the hashes of every event concerning the lot except
-/// sign-offs themselves, in order. Returns a description and its SHA-256.
-pub fn lot_fingerprint(conn: &Connection, lot: &str) -> store::Result<(String, String)> {
-    let h = lot_history(conn, lot)?;
-    let covered: Vec<&HistoryEntry> = h
-        .iter()
-        .filter(|e| e.kind != crate::model::chain::SIGN_OFF_KIND)
-        .collect();
-    if covered.is_empty() {
-        return Err(store::StoreError::Invalid(format!(
-            "no history to sign for lot '{lot}'"
-        )));
-    }
-    let sha = crate::model::chain::history_fingerprint(covered.iter().map(|e| e.hash.as_str()));
-    let last = covered.last().map_or(0, |e| e.seq);
-    Ok((
-        format!(
-            "history of lot {lot}: {} events up to #{last}",
-            covered.len()
-        ),
-        sha,
-    ))
 }

@@ -488,6 +488,9 @@ pub struct LotLine {
     pub abrupt_loss: bool,
     pub flags: Vec<String>,
     pub attention: Vec<String>,
+    /// Where the lot stands with QA: `state` (none, reviewed, approved, rejected, stale)
+    /// and `by`, the sign-off it rests on (for stale: the newest one).
+    pub signoff: crate::model::signoff::SignOffState,
 }
 
 fn lot_line(s: &LotState) -> LotLine {
@@ -525,6 +528,7 @@ fn lot_line(s: &LotState) -> LotLine {
             .is_some_and(|b| b.suspected),
         flags: flags.into_iter().collect(),
         attention: s.attention.clone(),
+        signoff: crate::model::signoff::SignOffState::none(),
     }
 }
 
@@ -532,8 +536,13 @@ fn lot_line(s: &LotState) -> LotLine {
 pub fn lot_lines(cfg: &Config) -> NResult<Vec<LotLine>> {
     let conn = store::open(&cfg.database_path())?;
     let mut lines = Vec::new();
+    let mut signoffs = super::signoffs::sign_off_states(&conn)?;
     for lot in store::lots::lot_names(&conn)? {
-        lines.push(lot_line(&lot_state(&conn, cfg, &lot)?));
+        let mut line = lot_line(&lot_state(&conn, cfg, &lot)?);
+        if let Some(s) = signoffs.remove(&lot) {
+            line.signoff = s;
+        }
+        lines.push(line);
     }
     Ok(lines)
 }

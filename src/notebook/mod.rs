@@ -8,7 +8,9 @@
 //!   its recomputation when records change.
 //! - `alerts`: from a lot's state to the alert rules and the outbox.
 //! - `entries`: register, correct, exclude, note, sign off.
-//! - `history`: status, a lot's history and the fingerprint a sign-off covers.
+//! - `signoffs`: the fingerprint a sign-off covers, a lot's sign-offs and the lots'
+//!   sign-off states.
+//! - `history`: status and a lot's history.
 //! - `fits`: the deactivation fit of a stored lot or of any two-column series.
 //! - `reports`: the data of a lot's or the site's report, and writing them.
 //! - `daemon`: the service: watcher, mailer and digest, with an orderly shutdown.
@@ -29,6 +31,7 @@ mod listing;
 mod lots;
 mod recompute;
 mod reports;
+mod signoffs;
 mod views;
 
 pub use alerts::{AlertActionLine, AlertEntry, list_alerts};
@@ -41,6 +44,7 @@ pub use entries::{
     AlertAct, Corrected, Receipt, Registered, SignedOff, act_on_alert, correct, exclude, note,
     register, sign_off,
 };
+pub use entries::{SignOffRequest, sign_off_from};
 pub use error::{NotebookError, Result};
 pub use fits::{SeriesFit, SeriesRequest, fit_series, lot_fit};
 pub use history::{HistoryEntry, Status, history, status};
@@ -56,10 +60,14 @@ pub use lots::{
 };
 pub use recompute::recompute_stale;
 pub use reports::{write_all_reports, write_lot_report, write_site_report};
+pub use signoffs::{
+    SignOffCounts, lot_fingerprint, lot_marks, lot_sign_off_state, sign_off_overview,
+    sign_off_states,
+};
 pub use views::{
     AlertsView, AuditView, ChangeWatch, FileLine, FilesView, LotPage, MessageLine, OpenAlertLine,
-    OpsFigures, Overview, SignOffState, alerts_view, audit_view, files_view, lot_page,
-    lot_report_html, ops_figures, overview,
+    OpsFigures, Overview, alerts_view, audit_view, files_view, lot_page, lot_report_html,
+    ops_figures, overview,
 };
 
 use crate::config::Config;

@@ -142,10 +142,11 @@ fn alerts_of(conn: &Connection, lot: &str) -> store::Result<Vec<report::AlertLin
 /// Fill a lot report.
 pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotReport> {
     let history = crate::notebook::history::lot_history(conn, &state.lot)?;
-    let current = crate::notebook::history::lot_fingerprint(conn, &state.lot)
+    let current = super::signoffs::lot_fingerprint(conn, &state.lot)
         .ok()
         .map(|f| f.1);
     let entries = hand_entries(&history, current.as_deref());
+    let signoff_state = super::signoffs::lot_sign_off_state(conn, &state.lot)?;
     Ok(LotReport {
         generated_at: now_utc(),
         turnbook_version: env!("CARGO_PKG_VERSION").to_string(),
@@ -170,6 +171,8 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
             reference_moved: state.reference_moved,
         }),
         family: state.analysis.as_ref().and_then(family_forecast),
+        notes: entries.notes,
+        signoff_state,
     })
 }
 
@@ -177,12 +180,14 @@ pub fn build(conn: &Connection, cfg: &Config, state: &LotState) -> Result<LotRep
 struct HandEntries {
     corrections: Vec<report::CorrectionLine>,
     signoffs: Vec<report::SignOffLine>,
+    notes: Vec<report::NoteLine>,
     corrected_batches: Vec<String>,
 }
 
 fn hand_entries(history: &[HistoryEntry], current: Option<&str>) -> HandEntries {
     let mut corrections = Vec::new();
     let mut signoffs = Vec::new();
+    let mut notes = Vec::new();
     let mut corrected_batches = Vec::new();
     for e in history {
         let p = &e.payload;
@@ -211,23 +216,53 @@ fn hand_entries(history: &[HistoryEntry], current: Option<&str>) -> HandEntries 
                 new: p["excluded"].to_string(),
                 why: p["reason"].as_str().unwrap_or("").to_string(),
             }),
-            "sign-off" => {
-                let sha = p["signed_sha256"].as_str().unwrap_or("").to_string();
-                signoffs.push(report::SignOffLine {
-                    who: e.actor.clone(),
-                    at: e.at.clone(),
-                    meaning: p["meaning"].as_str().unwrap_or("").to_string(),
-                    covers_current: current == Some(sha.as_str()),
-                    signed_sha256: sha,
-                });
-            }
+            "sign-off" => signoffs.push(sign_off_line(history, e, current)),
+            "note" => notes.push(report::NoteLine {
+                at: e.at.clone(),
+                who: e.actor.clone(),
+                on: match (p["batch_id"].as_str(), p["lot"].as_str()) {
+                    (Some(b), _) => format!("batch {b}"),
+                    (None, Some(l)) => format!("lot {l}"),
+                    (None, None) => e.subject.clone(),
+                },
+                text: p["text"].as_str().unwrap_or("").to_string(),
+            }),
             _ => {}
         }
     }
     HandEntries {
         corrections,
         signoffs,
+        notes,
         corrected_batches,
+    }
+}
+
+/// A sign-off as the report lists it: who signed as whom, what, the comment, and the
+/// events of the lot that came after it.
+fn sign_off_line(
+    history: &[HistoryEntry],
+    e: &HistoryEntry,
+    current: Option<&str>,
+) -> report::SignOffLine {
+    let p = &e.payload;
+    let text = |k: &str| p[k].as_str().map(str::to_string);
+    let sha = text("signed_sha256").unwrap_or_default();
+    report::SignOffLine {
+        who: e.actor.clone(),
+        at: e.at.clone(),
+        meaning: text("meaning").unwrap_or_default(),
+        covers_current: current == Some(sha.as_str()),
+        signed_sha256: sha,
+        signer: text("signer"),
+        os_user: text("os_user"),
+        what: text("what").unwrap_or_default(),
+        comment: text("comment"),
+        later_events: history
+            .iter()
+            .filter(|l| l.seq > e.seq && l.kind != crate::model::chain::SIGN_OFF_KIND)
+            .map(|l| l.seq)
+            .collect(),
     }
 }
 

@@ -7,7 +7,7 @@ use std::collections::BTreeMap;
 use serde::Serialize;
 
 use super::error::Result;
-use super::history::{HistoryEntry, lot_fingerprint, lot_history};
+use super::history::{HistoryEntry, lot_history};
 use super::lots::{lot_state, no_such_lot};
 use super::reports::{build, build_site};
 use crate::config::Config;
@@ -15,20 +15,12 @@ use crate::model::time::now_utc;
 use crate::report::{self, LotReport, SiteReport};
 use crate::store::{self, Connection};
 
-/// The newest sign-off of a lot and whether it still covers the lot's history.
-#[derive(Debug, Clone, Serialize)]
-pub struct SignOffState {
-    pub meaning: String,
-    pub who: String,
-    pub at: String,
-    pub covers_current: bool,
-}
-
-/// Every lot at a glance: the site summary's lines and each lot's newest sign-off.
+/// Every lot at a glance: the site summary's lines and the sign-off state of each lot
+/// that has a sign-off.
 #[derive(Debug, Clone, Serialize)]
 pub struct Overview {
     pub site: SiteReport,
-    pub signoffs: BTreeMap<String, SignOffState>,
+    pub signoffs: BTreeMap<String, crate::model::signoff::SignOffState>,
 }
 
 fn open(cfg: &Config) -> Result<Connection> {
@@ -39,25 +31,7 @@ fn open(cfg: &Config) -> Result<Connection> {
 pub fn overview(cfg: &Config) -> Result<Overview> {
     let conn = open(cfg)?;
     let site = build_site(&conn, cfg, None)?;
-    let mut newest: BTreeMap<String, store::web::SignOffRow> = BTreeMap::new();
-    for row in store::web::sign_offs(&conn)? {
-        newest.insert(row.lot.clone(), row);
-    }
-    let mut signoffs = BTreeMap::new();
-    for (lot, row) in newest {
-        let p: serde_json::Value = serde_json::from_str(&row.payload)?;
-        let signed = p["signed_sha256"].as_str().unwrap_or("");
-        let current = lot_fingerprint(&conn, &lot).ok().map(|f| f.1);
-        signoffs.insert(
-            lot,
-            SignOffState {
-                meaning: p["meaning"].as_str().unwrap_or("").to_string(),
-                who: row.actor,
-                at: row.at,
-                covers_current: current.as_deref() == Some(signed),
-            },
-        );
-    }
+    let signoffs = super::signoffs::sign_off_states(&conn)?;
     Ok(Overview { site, signoffs })
 }
 

@@ -14,6 +14,7 @@ use super::model::{
     CycleLine, FamilyForecast, FitSummary, Forecast, ForecastStatus, LotReport, SiteReport,
     VerifyOutcome,
 };
+use super::table::simple_table;
 
 /// Cautions every report shows, whatever the site adds.
 pub const FIXED_CAUTIONS: [&str; 3] = [
@@ -438,27 +439,6 @@ fn definitions(out: &mut String, r: &LotReport) {
 }
 
 /// A titled table of rows of already-escaped cells; an empty list says so in words.
-fn simple_table(out: &mut String, id: &str, title: &str, head: &[&str], rows: Vec<Vec<String>>) {
-    let _ = writeln!(out, "<section id=\"{id}\">\n<h2>{title}</h2>");
-    if rows.is_empty() {
-        let _ = writeln!(out, "<p>None.</p>\n</section>");
-        return;
-    }
-    out.push_str("<table><thead><tr>");
-    for h in head {
-        let _ = write!(out, "<th>{h}</th>");
-    }
-    out.push_str("</tr></thead>\n<tbody>\n");
-    for row in rows {
-        out.push_str("<tr>");
-        for cell in row {
-            let _ = write!(out, "<td>{cell}</td>");
-        }
-        out.push_str("</tr>\n");
-    }
-    out.push_str("</tbody></table>\n</section>\n");
-}
-
 /// One lot's QA report as a single self-contained HTML5 file.
 pub fn lot_html(r: &LotReport) -> String {
     let mut out = String::with_capacity(64 * 1024);
@@ -478,6 +458,7 @@ pub fn lot_html(r: &LotReport) -> String {
     cautions(&mut out, &r.cautions);
     identity(&mut out, r);
     verify(&mut out, r);
+    super::signoff_html::signoff_state(&mut out, r);
     match &r.fit {
         Some(fit) => fit_section(&mut out, lot, fit),
         None => out.push_str(
@@ -546,35 +527,8 @@ pub fn lot_html(r: &LotReport) -> String {
             })
             .collect(),
     );
-    simple_table(
-        &mut out,
-        "signoffs",
-        "Sign-offs",
-        &[
-            "who",
-            "when",
-            "meaning",
-            "SHA-256 signed",
-            "covers the current record",
-        ],
-        r.signoffs
-            .iter()
-            .map(|s| {
-                vec![
-                    esc(&s.who),
-                    esc(&s.at),
-                    esc(&s.meaning),
-                    format!("<span class=\"hash\">{}</span>", esc(&s.signed_sha256)),
-                    if s.covers_current {
-                        "<span class=\"ok\">yes</span>".to_string()
-                    } else {
-                        "<span class=\"bad\">no: the record changed after signing</span>"
-                            .to_string()
-                    },
-                ]
-            })
-            .collect(),
-    );
+    super::signoff_html::notes_table(&mut out, r);
+    super::signoff_html::signoff_table(&mut out, r);
     footer(
         &mut out,
         &r.generated_at,

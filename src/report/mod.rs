@@ -9,6 +9,8 @@ mod chart;
 mod escape;
 mod html;
 mod model;
+mod signoff_html;
+mod table;
 mod table_csv;
 
 pub use chart::{CHART_SIZE, ChartError, activity_svg, sparkline_svg, ton_svg};

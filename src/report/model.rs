@@ -37,6 +37,12 @@ pub struct LotReport {
     /// A young lot's forecast with its family's prior, beside the lot-alone one.
     #[serde(default)]
     pub family: Option<FamilyForecast>,
+    /// Notes people wrote on the lot and its batches, oldest first.
+    #[serde(default)]
+    pub notes: Vec<NoteLine>,
+    /// Where the lot stands with QA, from its sign-offs and its history as it stands.
+    #[serde(default)]
+    pub signoff_state: crate::model::signoff::SignOffState,
 }
 
 /// How the lot's activity is defined: its basis and the cycle it is relative to.
@@ -65,6 +71,16 @@ pub struct FamilyForecast {
     pub headline: bool,
     pub with_prior: Option<Forecast>,
     pub lot_alone: Option<Forecast>,
+}
+
+/// A note on the lot or one of its batches.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct NoteLine {
+    pub at: String,
+    pub who: String,
+    /// What it is on, e.g. "lot PD-7" or "batch KV4-H-005".
+    pub on: String,
+    pub text: String,
 }
 
 /// Who the lot is and where it came from: its registration (the one record the whole
@@ -290,6 +306,20 @@ pub struct SignOffLine {
     pub signed_sha256: String,
     /// Whether the signed state is still the current state (no change since).
     pub covers_current: bool,
+    /// The roster name signed as; none for sign-offs made before signers were named.
+    #[serde(default)]
+    pub signer: Option<String>,
+    /// The operating-system account it was made from, when recorded.
+    #[serde(default)]
+    pub os_user: Option<String>,
+    /// What the fingerprint covers, e.g. "history of lot X: 12 events up to #40".
+    #[serde(default)]
+    pub what: String,
+    #[serde(default)]
+    pub comment: Option<String>,
+    /// Events of the lot's history after the sign-off (sign-offs aside), oldest first.
+    #[serde(default)]
+    pub later_events: Vec<i64>,
 }
 
 /// The last audit-chain verification.

@@ -130,13 +130,32 @@ fn entries(r: &LotReport) -> Markup {
     html! {
         h2 { "Sign-offs" }
         @if r.signoffs.is_empty() { p.muted #signoffs { "Not signed off." } } @else {
+            p #signoff-state { "State: " strong { (r.signoff_state.state.as_str()) } " — " (r.signoff_state.summary()) }
             table #signoffs {
-                thead { tr { th { "Who" } th { "When" } th { "Meaning" } th { "Covers the record as it is now" } } }
+                thead { tr {
+                    th { "When" } th { "Signed as" } th { "Account (who)" } th { "Meaning" }
+                    th { "Comment" } th { "Covers the record as it is now" }
+                } }
                 tbody { @for s in &r.signoffs { tr {
-                    td { (s.who) } td { (s.at) } td { (s.meaning) }
+                    td { (s.at) }
+                    td { (s.signer.as_deref().unwrap_or("no signer named")) }
+                    td { (s.os_user.as_deref().unwrap_or(&s.who)) }
+                    td { (s.meaning) }
+                    td { (s.comment.as_deref().unwrap_or("")) }
                     td class=(if s.covers_current { "ok" } else { "warn" }) {
-                        @if s.covers_current { "yes" } @else { "no: the record changed since" }
+                        @if s.covers_current { "yes" } @else {
+                            "no: the record changed since (" (s.later_events.len()) " later events)"
+                        }
                     }
+                } } }
+            }
+        }
+        @if !r.notes.is_empty() {
+            h2 { "Notes" }
+            table #notes {
+                thead { tr { th { "When" } th { "Who" } th { "On" } th { "Note" } } }
+                tbody { @for n in &r.notes { tr {
+                    td { (n.at) } td { (n.who) } td { (n.on) } td { (n.text) }
                 } } }
             }
         }
@@ -156,9 +175,10 @@ fn history(p: &LotPage) -> Markup {
     html! {
         h2 { "History (" (p.history.len()) " events)" }
         table #history {
-            thead { tr { th.num { "#" } th { "When" } th { "Who" } th { "What" } th { "Subject" } } }
+            thead { tr { th.num { "#" } th { "When" } th { "Who" } th { "What" } th { "Subject" } th { "Note, comment or reason" } } }
             tbody { @for e in &p.history { tr {
                 td.num { (e.seq) } td { (e.at) } td { (e.actor) } td { (e.kind) } td { (e.subject) }
+                td { (e.text.as_deref().unwrap_or("")) }
             } } }
         }
     }

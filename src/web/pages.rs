@@ -82,19 +82,29 @@ fn sort_lines<'a>(o: &'a Overview, key: &str) -> Vec<&'a SiteLotLine> {
                 .total_cmp(&big(b.forecast.as_ref().and_then(|f| f.x)))
         }),
         "alerts" => lines.sort_by_key(|l| std::cmp::Reverse(l.open_alerts)),
-        "signoff" => lines.sort_by_key(|l| o.signoffs.contains_key(&l.lot)),
+        "signoff" => lines.sort_by_key(|l| {
+            o.signoffs
+                .get(&l.lot)
+                .map_or(crate::model::signoff::SignOffStatus::None, |s| s.state)
+                .as_str()
+        }),
         _ => lines.sort_by(|a, b| a.lot.cmp(&b.lot)),
     }
     lines
 }
 
 fn signoff_cell(o: &Overview, lot: &str) -> Markup {
-    match o.signoffs.get(lot) {
-        None => html! { span.muted { "not signed" } },
-        Some(s) if s.covers_current => html! { span.ok { (s.meaning) " by " (s.who) } },
-        Some(s) => html! {
-            span.warn { (s.meaning) " by " (s.who) ", changed since" }
+    use crate::model::signoff::SignOffStatus;
+    let Some((s, m)) = o.signoffs.get(lot).and_then(|s| Some((s, s.by.as_ref()?))) else {
+        return html! { span.muted { "not signed" } };
+    };
+    let who = m.signer_or_unnamed();
+    match s.state {
+        SignOffStatus::Approved => html! { span.ok { "approved as " (who) } },
+        SignOffStatus::Stale => html! {
+            span.warn { "stale: " (m.meaning) " as " (who) ", changed since" }
         },
+        st => html! { span.warn { (st.as_str()) " as " (who) } },
     }
 }
 

@@ -223,13 +223,15 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
     let from = outbox::last_digest(&conn)?.unwrap_or_else(|| now - chrono::Duration::days(7));
     let mut lots = Vec::new();
     let mut pending_lots = 0;
+    let signoffs = super::signoffs::sign_off_states(&conn)?;
     for lot in store::lots::lot_names(&conn)? {
         let state = super::lots::lot_state(&conn, cfg, &lot)?;
+        let signoff = signoffs.get(&lot).map(|s| match &s.by {
+            Some(m) => format!("{} ({})", s.state.as_str(), m.signer_or_unnamed()),
+            None => s.state.as_str().to_string(),
+        });
         match super::alerts::snapshot(cfg, &state) {
-            Some(snap) => lots.push(digest::DigestLot {
-                snap,
-                signoff: None,
-            }),
+            Some(snap) => lots.push(digest::DigestLot { snap, signoff }),
             None => pending_lots += 1,
         }
     }

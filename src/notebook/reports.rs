@@ -25,7 +25,11 @@ fn report_forecast(f: &fit::Forecast) -> report::Forecast {
             .dates
             .as_ref()
             .filter(|d| d.crossing_date.is_some())
-            .map(|d| crate::alert::dates_sentence(d)),
+            .map(|d| {
+                crate::alert::dates_sentence(d)
+                    .trim_end_matches('.')
+                    .to_string()
+            }),
     }
 }
 

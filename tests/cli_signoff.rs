@@ -127,7 +127,7 @@ fn sign_off_state_shows_in_lots_status_report_and_history() {
     assert!(row.contains(" reviewed "), "{row}");
     let st = plant.json(&["status", "--json"]);
     assert_eq!(st["signoffs"]["reviewed"], 1, "{st}");
-    assert_eq!(st["signoffs"]["none"], 2, "{st}");
+    assert_eq!(st["signoffs"]["none"], 3, "{st}");
     let st = plant.ok(&["status"]);
     assert!(st.contains("0 approved, 1 reviewed (approval due)"), "{st}");
 

@@ -449,7 +449,8 @@ fn attention_from(a: &LotAnalysis) -> Vec<String> {
     }
     if a.abrupt.as_ref().is_some_and(|b| b.suspected) {
         out.push(
-            "abrupt loss of activity suspected at the newest cycle (poisoning? bad feed lot?)"
+            "abrupt loss of activity detected at the newest cycle: `turnbook fit` compares the \
+             cycle with the lot's usual conditions"
                 .into(),
         );
     }

@@ -767,27 +767,21 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         }
         None => (&all_fits, (lo, hi)),
     };
-    let (trend_fits, tx) = match bounded_trend(
-        &xyc,
-        pw.as_deref(),
-        stretch,
-        ls_fits,
-        &fit_opts,
-        bounded,
-    ) {
-        Some(b) => {
-            out.notes.push(format!(
+    let (trend_fits, tx) =
+        match bounded_trend(&xyc, pw.as_deref(), stretch, ls_fits, &fit_opts, bounded) {
+            Some(b) => {
+                out.notes.push(format!(
                 "{} censored cycles entered the fit as lower bounds (censored normal likelihood)",
                 b.censored
             ));
-            with_bounds = b;
-            (&with_bounds.fits, &with_bounds.x[..])
-        }
-        None => match change {
-            Some(i) => (ls_fits, &fx[..i]),
-            None => (ls_fits, &fx[..]),
-        },
-    };
+                with_bounds = b;
+                (&with_bounds.fits, &with_bounds.x[..])
+            }
+            None => match change {
+                Some(i) => (ls_fits, &fx[..i]),
+                None => (ls_fits, &fx[..]),
+            },
+        };
     out.trend_cycles = tx.len();
     let mut usable: Vec<&FitResult> = trend_fits
         .iter()

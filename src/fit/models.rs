@@ -327,8 +327,10 @@ impl ModelId {
                     out.iter_mut().for_each(|v| *v = f64::NAN);
                     return f64::NAN;
                 }
-                // g = u^(−1/s), the power law's shape; its derivatives as in `Power`.
-                let lu = u.ln();
+                // g = u^(−1/s), the power law's shape; its derivatives as in `Power`. ln u
+                // by ln_1p(s·t): near m = 1 the rounding of u = 1 + s·t would otherwise
+                // cost digits in ln(u)/s (10⁻¹¹ relative at |m − 1| = 10⁻⁵).
+                let lu = (s * t).ln_1p();
                 let g = (-lu / s).exp();
                 out[0] = g;
                 out[1] = 1.0 - g;
@@ -568,6 +570,52 @@ mod tests {
         assert!((fo - near).abs() < 1e-9);
         let off = ModelId::Power.eval(x, &[1.0, 0.07, 1.0 + 2e-7]);
         assert!((fo - off).abs() < 1e-5);
+    }
+
+    #[test]
+    fn power_residual_derivatives_hold_across_its_orders() {
+        // Central differences (with a step small against |m − 1|) against the analytic
+        // Jacobian: below first order (m = 0.5, before and after the residual level is
+        // reached at x = 1/((1 − m)·kd) = 25), beside first order on both sides of the
+        // limit's switch (|m − 1| = 10⁻⁵, where the closed form is used and cancellation
+        // would show), and above it (m = 3).
+        let m = ModelId::PowerResidual;
+        for order in [0.5, 1.0 - 1e-5, 1.0 + 1e-5, 3.0] {
+            let p = [1.0, 0.3, 0.08, order];
+            for &x in &[0.0, 2.0, 10.0, 24.0, 30.0] {
+                let mut a = [0.0; 4];
+                let y = m.eval_grad(x, &p, &mut a);
+                assert!(y.is_finite());
+                for j in 0..4 {
+                    let h = 1e-7 * p[j].abs().max(1e-3);
+                    let (mut up, mut down) = (p, p);
+                    up[j] += h;
+                    down[j] -= h;
+                    let num = (m.eval(x, &up) - m.eval(x, &down)) / (2.0 * h);
+                    assert!(
+                        (a[j] - num).abs() < 1e-6 * (1.0 + num.abs()),
+                        "m {order} x {x} j {j}: {} vs {num}",
+                        a[j]
+                    );
+                }
+            }
+        }
+        // Past its end (m < 1) the curve stays at a_inf, with a_inf its only sensitivity.
+        let p = [1.0, 0.3, 0.08, 0.5];
+        let mut g = [9.0; 4];
+        assert_eq!(m.eval_grad(40.0, &p, &mut g), 0.3);
+        assert_eq!(g, [0.0, 1.0, 0.0, 0.0]);
+        assert_eq!(m.dydx(40.0, &p), 0.0);
+        assert_eq!(m.asymptote(&p), Some(0.3));
+        // It contains first order with residual activity (m → 1) and the power law
+        // (a_inf = 0).
+        let fo = ModelId::FirstOrderResidual.eval(12.0, &[1.0, 0.3, 0.08]);
+        for s in [1e-9, -1e-9, 2e-7, -2e-7] {
+            let v = m.eval(12.0, &[1.0, 0.3, 0.08, 1.0 + s]);
+            assert!((v - fo).abs() < 1e-6, "m − 1 = {s}: {v} vs {fo}");
+        }
+        let pw = ModelId::Power.eval(12.0, &[1.0, 0.08, 1.7]);
+        assert!((m.eval(12.0, &[1.0, 0.0, 0.08, 1.7]) - pw).abs() < 1e-15);
     }
 
     #[test]

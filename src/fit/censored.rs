@@ -354,6 +354,9 @@ pub fn fit_censored(
     let ln_w_censored: f64 = (0..n).filter(|&i| problem.cens[i]).map(|i| w[i].ln()).sum();
     let nf = n as f64;
     let rss = nf * ((2.0 * nll - nf - n_c as f64 * LN_2PI + ln_w_censored) / nf).exp();
+    if !rss.is_finite() {
+        return Err(FitError::LikelihoodNotFinite);
+    }
     let sigma = phi[p].exp() * small_sample.sqrt();
     Ok(FitResult {
         model,
@@ -366,7 +369,7 @@ pub fn fit_censored(
         n,
         dof: n_e - p,
         aicc: aicc(n, p, rss),
-        converged: reason.is_converged() && rss.is_finite(),
+        converged: reason.is_converged(),
         reason,
         iterations,
         censored: Some(n_c),

@@ -16,6 +16,8 @@ pub enum FitError {
         "{n} uncensored points cannot determine {p} parameters in a censored fit (need more than {p})"
     )]
     TooFewUncensored { n: usize, p: usize },
+    #[error("the censored likelihood is not a finite number at the end of the fit")]
+    LikelihoodNotFinite,
     #[error("{what} at index {index} is not a finite number")]
     NonFinite { what: &'static str, index: usize },
     #[error("weight at index {index} is negative")]

@@ -2,15 +2,16 @@
 //! dropping the saturated cycles, or fitting their bounds as if exact, does not?
 //!
 //! Seeded simulation from known truth (invented values). A lot decays first order,
-//! a(x) = exp(−kd·x) with kd = 0.1 per cycle over 12 cycles. Each batch is first order in
+//! a(x) = exp(−kd·x) with kd = 0.05 per cycle over 12 cycles. Each batch is first order in
 //! its substrate, so its conversion is X = 1 − exp(−k·t) with k = k_fresh·a(x) and
-//! k_fresh·t = 7.5; the assay reads X with normal noise of sd σ_X = 0.002. The activity
-//! computed from a reading is −ln(1 − X)/(k_fresh·t) (k_app over the fresh catalyst's,
-//! Levenspiel), with the standard error propagated from the assay,
-//! σ_X/((1 − X)·k_fresh·t) (first-order error propagation of k = −ln(1 − X)/t). A reading at
-//! or above the saturation limit X_sat = 0.99 gives only the bound computed at X_sat and no
-//! standard error. The first four cycles (X ≥ 0.9935) always saturate and the fifth
-//! (X = 0.9894) about two times in five: about 37 % of the cycles, the early, most active
+//! k_fresh·t = −ln(1 − X_sat)·exp(4.5·kd) = 5.767; the assay reads X with normal noise of sd
+//! σ_X = 0.005 (the assay error of the issue's example). The activity computed from a
+//! reading is −ln(1 − X)/(k_fresh·t) (k_app over the fresh catalyst's, Levenspiel), with the
+//! standard error propagated from the assay, σ_X/((1 − X)·k_fresh·t) (first-order error
+//! propagation of k = −ln(1 − X)/t). A reading at or above the saturation limit
+//! X_sat = 0.99 gives only the bound computed at X_sat and no standard error. Cycle 1
+//! saturates with probability 0.88, cycles 2 to 8 with 0.82, 0.73, 0.59, 0.41, 0.22, 0.08
+//! and 0.01 (normal tail, scipy.stats.norm): 31 % of the cycles, the early, most active
 //! ones.
 //!
 //! Each series is analysed three ways, the first-order model named, weighted by the
@@ -18,7 +19,7 @@
 //! cycles dropped, and their bounds fitted as exact values (with the standard error the
 //! propagation gives at X_sat). The mean fitted kd over the series is compared with the
 //! truth. The CI runs 500 series; the grid over noise and rate is `#[ignore]`d (run it with
-//! `cargo test --release --test fit_censored -- --ignored --nocapture`).
+//! `cargo test --test fit_censored -- --ignored --nocapture`, half a minute in debug).
 
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
@@ -37,10 +38,11 @@ struct Scenario {
 }
 
 const BASE: Scenario = Scenario {
-    kd: 0.1,
+    kd: 0.05,
     cycles: 12,
-    k_t: 7.5,
-    sigma_x: 0.002,
+    // −ln(1 − 0.99)·exp(4.5·0.05).
+    k_t: 5.767159235842399,
+    sigma_x: 0.005,
     saturation: 0.99,
 };
 
@@ -52,7 +54,8 @@ struct Outcome {
     dropped: (f64, f64),
     as_exact: (f64, f64),
     share_censored: f64,
-    failed: usize,
+    /// Series without a converged fit, each way.
+    failed: [usize; 3],
 }
 
 fn mean_and_se(v: &[f64]) -> (f64, f64) {
@@ -79,7 +82,7 @@ fn simulate(sc: Scenario, series: usize, seed: u64) -> Outcome {
     let sd_at_bound = sc.sigma_x / ((1.0 - sc.saturation) * sc.k_t);
     let x: Vec<f64> = (1..=sc.cycles).map(|i| i as f64).collect();
     let (mut c, mut d, mut e) = (Vec::new(), Vec::new(), Vec::new());
-    let (mut n_cens, mut failed) = (0, 0);
+    let (mut n_cens, mut failed) = (0, [0; 3]);
     for _ in 0..series {
         let mut y = Vec::with_capacity(sc.cycles);
         let mut sd = Vec::with_capacity(sc.cycles);
@@ -118,17 +121,12 @@ fn simulate(sc: Scenario, series: usize, seed: u64) -> Outcome {
             sd: sd.iter().map(|s| s.or(Some(sd_at_bound))).collect(),
             ..LotSeries::default()
         };
-        match (
-            fitted_kd(&with_bounds),
-            fitted_kd(&dropped),
-            fitted_kd(&as_exact),
-        ) {
-            (Some(a), Some(b), Some(g)) => {
-                c.push(a);
-                d.push(b);
-                e.push(g);
+        let ways = [&with_bounds, &dropped, &as_exact];
+        for (k, (s, into)) in ways.into_iter().zip([&mut c, &mut d, &mut e]).enumerate() {
+            match fitted_kd(s) {
+                Some(v) => into.push(v),
+                None => failed[k] += 1,
             }
-            _ => failed += 1,
         }
     }
     Outcome {
@@ -143,7 +141,7 @@ fn simulate(sc: Scenario, series: usize, seed: u64) -> Outcome {
 fn report(sc: Scenario, o: &Outcome) {
     eprintln!(
         "kd {:.3} σ_X {:.4} k·t {:.1}: censored {:.1} % of cycles; mean kd: censored fit {:.4} (±{:.4}), \
-         dropped {:.4} (±{:.4}), as exact {:.4} (±{:.4}); {} series failed",
+         dropped {:.4} (±{:.4}), as exact {:.4} (±{:.4}); series without a fit {:?}",
         sc.kd,
         sc.sigma_x,
         sc.k_t,
@@ -158,14 +156,20 @@ fn report(sc: Scenario, o: &Outcome) {
     );
 }
 
+// Measured (500 series, seed 16; truth kd = 0.05, 30.9 % of the cycles censored): mean kd
+// of the censored fit 0.0483 ± 0.0004 (−3.4 %), of the saturated cycles dropped
+// 0.0434 ± 0.0004 (−13 %), of the bounds fitted as exact 0.0385 ± 0.0004 (−23 %; 4 series
+// without a converged fit, whose kd ran to zero, left out, so the true bias is larger).
+// Before the weights were taken at the fitted values (weights from the observed readings)
+// the censored fit gave −7.0 % here.
 #[test]
 fn censored_fit_recovers_the_rate_where_dropping_or_exact_bounds_do_not() {
     let o = simulate(BASE, 500, 16);
     report(BASE, &o);
     let rel = |m: f64| (m - BASE.kd) / BASE.kd;
-    assert_eq!(o.failed, 0);
+    assert_eq!(o.failed[0], 0);
     assert!(
-        (0.30..=0.42).contains(&o.share_censored),
+        (0.28..=0.36).contains(&o.share_censored),
         "{}",
         o.share_censored
     );
@@ -180,8 +184,19 @@ fn censored_fit_recovers_the_rate_where_dropping_or_exact_bounds_do_not() {
     }
 }
 
+// Measured (1,000 series per cell; mean kd of the censored fit / dropped / as exact):
+//   kd 0.05: σ_X 0.001 0.0499 / 0.0496 / 0.0178; 0.002 0.0500 / 0.0488 / 0.0320;
+//            0.005 0.0486 / 0.0432 / 0.0387
+//   kd 0.1:  σ_X 0.001 0.1000 / 0.1000 / 0.0655; 0.002 0.1001 / 0.0999 / 0.0724;
+//            0.005 0.0999 / 0.0983 / 0.0809
+//   kd 0.2:  σ_X 0.001 0.2000 / 0.2000 / 0.1980; 0.002 0.2000 / 0.2000 / 0.1979;
+//            0.005 0.2002 / 0.1999 / 0.1953
+// The censored fit stays within 3 % everywhere. Fitting the bounds as exact is always
+// biased low; dropping the saturated cycles is biased where the assay error is large
+// against the distance of the early cycles from the limit (−14 % at kd 0.05, σ_X 0.005),
+// and nearly unbiased otherwise, at the cost of the information the bounds carry.
 #[test]
-#[ignore = "the grid over noise and rate: about a minute in a debug build"]
+#[ignore = "the grid over noise and rate: half a minute in a debug build"]
 fn censored_fit_grid() {
     let mut outside = Vec::new();
     let mut seed = 100;

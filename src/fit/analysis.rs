@@ -41,7 +41,7 @@ use super::forecast::{
 };
 use super::lm::LmOptions;
 use super::models::ModelId;
-use super::weights::point_weights;
+use super::weights::{SdFunction, point_weights};
 
 /// Version of the numerical engine, stored beside each analysis so that a stored result
 /// can be traced to the code that produced it.
@@ -507,6 +507,19 @@ fn bounded_trend(
     })
 }
 
+/// The fit the choice rule picks among `fits`, when one is usable.
+fn best_usable(fits: &[Fitted]) -> Option<&FitResult> {
+    let cands: Vec<Candidate> = fits
+        .iter()
+        .map(|c| Candidate {
+            p: c.model.n_params(),
+            aicc: c.result.as_ref().ok().and_then(|f| f.aicc),
+            usable: c.usable_fit().is_some(),
+        })
+        .collect();
+    fits.get(choose(&cands)?)?.usable_fit()
+}
+
 /// The ranking of `fits` and the index of the chosen one.
 fn rank(fits: &[Fitted], weights: &[ModelWeight]) -> (Vec<RankEntry>, Option<usize>) {
     let cands: Vec<Candidate> = fits
@@ -663,15 +676,15 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     // Relative weights of every point, and of the exact points alone.
     let sds: Vec<Option<f64>> = pts.iter().map(|p| p.4).collect();
     let flags: Vec<bool> = pts.iter().map(|p| p.2).collect();
-    let pw = point_weights(&sds, &flags);
-    let fw: Option<Vec<f64>> = pw.as_ref().map(|w| {
+    let mut pw = point_weights(&sds, &flags);
+    let exact_of = |w: &Vec<f64>| -> Vec<f64> {
         w.iter()
             .zip(&flags)
             .filter(|(_, c)| !**c)
             .map(|(w, _)| *w)
             .collect()
-    });
-    let fw = fw.as_deref();
+    };
+    let mut fw_own: Option<Vec<f64>> = pw.as_ref().map(exact_of);
     if pw.is_some() {
         let known = sds.iter().filter(|s| s.is_some_and(|v| v > 0.0)).count();
         notes.push(format!(
@@ -730,7 +743,30 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
 
     // 1. Monitoring for a step change, and the single-regime fits on every cycle.
     let mon = monitor(&fx, &fy, opts.cusum_k, opts.cusum_h);
-    let all_fits = fit_candidates(&fx, &fy, fw, &candidates, &fit_opts, bounded);
+    let mut all_fits = fit_candidates(&fx, &fy, fw_own.as_deref(), &candidates, &fit_opts, bounded);
+    // Weights at the fitted values when the standard errors are a function of activity
+    // (see super::weights): the first fit gives the activities, the fits are repeated.
+    let ys: Vec<f64> = pts.iter().map(|p| p.1).collect();
+    if pw.is_some()
+        && let Some(func) = SdFunction::fit(&ys, &sds, &flags)
+        && let Some(pilot) = best_usable(&all_fits)
+    {
+        let at_fit: Vec<Option<f64>> = pts
+            .iter()
+            .map(|p| {
+                let y = if p.2 { p.1 } else { pilot.predict(p.0) };
+                func.at(y).or(p.4)
+            })
+            .collect();
+        pw = point_weights(&at_fit, &flags);
+        fw_own = pw.as_ref().map(exact_of);
+        all_fits = fit_candidates(&fx, &fy, fw_own.as_deref(), &candidates, &fit_opts, bounded);
+        out.notes.push(
+            "the standard errors follow the activity: weights taken at the fitted activities"
+                .to_string(),
+        );
+    }
+    let fw = fw_own.as_deref();
     let suspected = mon.as_ref().is_some_and(|m| m.alarm);
     let change_guess = mon.as_ref().and_then(|m| m.change_index);
     let mut shift = None;

@@ -175,7 +175,7 @@ mod tests {
     fn propagated_errors_are_found_as_a_function_of_activity() {
         // sd = σ_X·e^(y·kt)/kt, the propagation for one batch time (kt = 7.5, σ_X = 0.002):
         // ln sd = ln(σ_X/kt) + kt·y exactly.
-        let kt = 7.5;
+        let kt: f64 = 7.5;
         let y = [0.9, 0.7, 0.55, 0.4, 0.3];
         let sd: Vec<Option<f64>> = y
             .iter()

@@ -652,7 +652,9 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             series.y.len()
         ));
     }
-    let mut pts: Vec<(f64, f64, bool, Option<f64>, Option<f64>)> = Vec::with_capacity(n_points);
+    // (x, y, censored, TON, standard error of y)
+    type Point = (f64, f64, bool, Option<f64>, Option<f64>);
+    let mut pts: Vec<Point> = Vec::with_capacity(n_points);
     let mut dropped = 0;
     for i in 0..n_points {
         let (x, y) = (series.x[i], series.y[i]);

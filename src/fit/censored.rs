@@ -537,7 +537,7 @@ mod tests {
         // 2.5 % point), −10, −30, −40 and 3. Observed agreement: 4e−11 relative or better
         // (the digits of statrs' erfc), far below what a likelihood needs.
         let cases = [
-            (0.0, -0.6931471805599453),
+            (0.0, -std::f64::consts::LN_2),
             (-1.959963984540054, -3.6888794541139367),
             (-10.0, -53.23128515051248),
             (-30.0, -454.32124395634327),

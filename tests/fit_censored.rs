@@ -75,39 +75,52 @@ fn fitted_kd(series: &LotSeries) -> Option<f64> {
     a.fit.filter(|f| f.converged).and_then(|f| f.param("kd"))
 }
 
-fn simulate(sc: Scenario, series: usize, seed: u64) -> Outcome {
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+/// One simulated lot: activities from noisy conversion readings, the saturated ones as
+/// bounds without a standard error.
+fn lot(sc: Scenario, rng: &mut ChaCha8Rng) -> LotSeries {
     let noise = Normal::new(0.0, sc.sigma_x).expect("valid sd");
     let bound = -(1.0 - sc.saturation).ln() / sc.k_t;
-    let sd_at_bound = sc.sigma_x / ((1.0 - sc.saturation) * sc.k_t);
     let x: Vec<f64> = (1..=sc.cycles).map(|i| i as f64).collect();
+    let mut y = Vec::with_capacity(sc.cycles);
+    let mut sd = Vec::with_capacity(sc.cycles);
+    let mut censored = Vec::with_capacity(sc.cycles);
+    for &xi in &x {
+        let k_t = sc.k_t * (-sc.kd * xi).exp();
+        let reading = 1.0 - (-k_t).exp() + noise.sample(rng);
+        if reading >= sc.saturation {
+            y.push(bound);
+            sd.push(None);
+            censored.push(true);
+        } else {
+            y.push(-(1.0 - reading).ln() / sc.k_t);
+            sd.push(Some(sc.sigma_x / ((1.0 - reading) * sc.k_t)));
+            censored.push(false);
+        }
+    }
+    LotSeries {
+        x,
+        y,
+        censored,
+        sd,
+        ..LotSeries::default()
+    }
+}
+
+fn simulate(sc: Scenario, series: usize, seed: u64) -> Outcome {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let sd_at_bound = sc.sigma_x / ((1.0 - sc.saturation) * sc.k_t);
     let (mut c, mut d, mut e) = (Vec::new(), Vec::new(), Vec::new());
     let (mut n_cens, mut failed) = (0, [0; 3]);
     for _ in 0..series {
-        let mut y = Vec::with_capacity(sc.cycles);
-        let mut sd = Vec::with_capacity(sc.cycles);
-        let mut cens = Vec::with_capacity(sc.cycles);
-        for &xi in &x {
-            let k_t = sc.k_t * (-sc.kd * xi).exp();
-            let reading = 1.0 - (-k_t).exp() + noise.sample(&mut rng);
-            if reading >= sc.saturation {
-                y.push(bound);
-                sd.push(None);
-                cens.push(true);
-            } else {
-                y.push(-(1.0 - reading).ln() / sc.k_t);
-                sd.push(Some(sc.sigma_x / ((1.0 - reading) * sc.k_t)));
-                cens.push(false);
-            }
-        }
+        let with_bounds = lot(sc, &mut rng);
+        let LotSeries {
+            x,
+            y,
+            censored: cens,
+            sd,
+            ..
+        } = with_bounds.clone();
         n_cens += cens.iter().filter(|v| **v).count();
-        let with_bounds = LotSeries {
-            x: x.clone(),
-            y: y.clone(),
-            censored: cens.clone(),
-            sd: sd.clone(),
-            ..LotSeries::default()
-        };
         let keep: Vec<usize> = (0..sc.cycles).filter(|&i| !cens[i]).collect();
         let dropped = LotSeries {
             x: keep.iter().map(|&i| x[i]).collect(),
@@ -221,4 +234,42 @@ fn censored_fit_grid() {
         outside.is_empty(),
         "censored fit off by 5 % or more: {outside:#?}"
     );
+}
+
+// Measured: 0.872 of 500 lots (seed 17); 0.876 of 2,000 (seed 18), a little below the
+// nominal 90 %, from the fit's remaining 3 % bias in kd at this assay error.
+#[test]
+fn censored_forecast_interval_covers_the_true_crossing() {
+    // The criterion "half the fresh activity" is crossed at x* = ln 2/kd = 13.86, two
+    // cycles after the data end. A trial covers when the stated interval contains x*
+    // ([lower, upper], or [lower, ∞) when the upper end does not close).
+    let x_true = 2f64.ln() / BASE.kd;
+    let mut rng = ChaCha8Rng::seed_from_u64(17);
+    let opts = AnalysisOptions {
+        candidates: vec![ModelId::FirstOrder],
+        grid_points: 2,
+        ..AnalysisOptions::default()
+    };
+    let trials = 500;
+    let (mut covered, mut with_bounds) = (0, 0);
+    for _ in 0..trials {
+        let a = analyse(&lot(BASE, &mut rng), &opts);
+        // A lot none of whose cycles saturated (probability 0.0015) is least squares.
+        if a.fit.as_ref().is_some_and(|f| f.censored.is_some()) {
+            with_bounds += 1;
+        }
+        if let Some(fc) = &a.forecast
+            && fc.lower.is_some_and(|l| l <= x_true)
+            && fc.upper.is_none_or(|u| x_true <= u)
+        {
+            covered += 1;
+        }
+    }
+    let c = covered as f64 / trials as f64;
+    eprintln!(
+        "censored fit: 90 % forecast interval covers x* in {c:.3} of {trials} lots \
+         ({with_bounds} fitted with bounds)"
+    );
+    assert!(with_bounds >= trials - 5);
+    assert!((0.85..=0.95).contains(&c), "coverage {c}");
 }

@@ -203,7 +203,7 @@ fn inverse_spd(a: &[f64], q: usize) -> Option<Vec<f64>> {
     inv.iter().all(|v| v.is_finite()).then_some(inv)
 }
 
-/// Fits `model` to (x, y) where `censored[i]` marks y[i] as a lower bound (missing flags:
+/// Fits `model` to (x, y) where `censored[i]` marks `y[i]` as a lower bound (missing flags:
 /// exact), by maximum likelihood (see the module documentation). Weights, start values
 /// (by name; the others start from the least-squares starts on the exact points), bounds
 /// and tolerances come from `opts` as for [`super::engine::fit_model`]. A point of weight

@@ -1133,6 +1133,29 @@ mod tests {
     }
 
     #[test]
+    fn bounds_before_a_step_change_stay_in_the_trend_before_it() {
+        // Cycles 1–3 saturated (bounds just below the curve), a 30 % drop from cycle 15:
+        // the trend before the change is the censored fit of cycles 1–14 with the bounds.
+        let mut s = series(22, |x| (-0.03 * x).exp());
+        s.censored = vec![false; 22];
+        for i in 0..3 {
+            s.censored[i] = true;
+            s.y[i] = 0.85;
+        }
+        for y in &mut s.y[14..] {
+            *y -= 0.3;
+        }
+        let a = analyse(&s, &AnalysisOptions::default());
+        let ab = a.abrupt.as_ref().expect("abrupt");
+        assert_eq!(ab.change_at, Some(15.0), "{ab:?}");
+        assert_eq!(a.trend_cycles, 14);
+        let fit = a.fit.as_ref().expect("fit");
+        assert_eq!(fit.censored, Some(3));
+        assert!((fit.predict(1.0) - (-0.03f64).exp()).abs() < 0.02);
+        assert!(a.censored.above_fit.is_empty());
+    }
+
+    #[test]
     fn without_standard_errors_or_bounds_nothing_changes() {
         // An empty sd, or one with no usable value, is the unweighted analysis to the bit.
         let s = series(12, |x| 0.3 + 0.7 * (-0.1 * x).exp());

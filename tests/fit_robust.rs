@@ -23,6 +23,7 @@ proptest! {
         ys in prop::collection::vec(value(), 0..24),
         xs_noise in prop::collection::vec(value(), 0..24),
         censored in prop::collection::vec(any::<bool>(), 0..24),
+        sd in prop::collection::vec(prop::option::of(value()), 0..24),
         decay in 0.0f64..0.3,
         clean in any::<bool>(),
     ) {
@@ -40,7 +41,7 @@ proptest! {
         } else {
             ys.clone()
         };
-        let s = LotSeries { x, y, censored, ton: vec![Some(100.0); n], sd: Vec::new() };
+        let s = LotSeries { x, y, censored, ton: vec![Some(100.0); n], sd };
         let a = analyse(&s, &AnalysisOptions::default());
         let js = serde_json::to_string(&a).expect("serialise");
         let back: LotAnalysis = serde_json::from_str(&js)

@@ -15,12 +15,20 @@ def power(x, a0, kd, m):
     return a0 * (1.0 + (m - 1.0) * kd * x) ** (-1.0 / (m - 1.0))
 
 
+def power_residual(x, a0, a_inf, kd, m):
+    # For m < 1 the curve reaches a_inf where 1 + (m - 1) kd x = 0 and stays there, as in
+    # turnbook's definition; a trial step of the optimiser may go there.
+    u = np.maximum(1.0 + (m - 1.0) * kd * x, 0.0)
+    return a_inf + (a0 - a_inf) * u ** (-1.0 / (m - 1.0))
+
+
 MODELS = {
     "linear": lambda x, a0, r: a0 - r * x,
     "first-order": lambda x, a0, kd: a0 * np.exp(-kd * x),
     "first-order-residual": lambda x, a0, a_inf, kd: a_inf + (a0 - a_inf) * np.exp(-kd * x),
     "second-order": lambda x, a0, kd: a0 / (1.0 + kd * x),
     "power": power,
+    "power-residual": power_residual,
     "two-site": lambda x, a_inf, a1, k1, a2, k2: a_inf + a1 * np.exp(-k1 * x) + a2 * np.exp(-k2 * x),
     "plateau": lambda x, ton_max, kd: ton_max * (1.0 - np.exp(-kd * x)),
 }

@@ -242,7 +242,7 @@ pub struct FitArgs {
     #[arg(long)]
     pub series: Option<PathBuf>,
     /// Model id (linear, first-order, first-order-residual, second-order, power,
-    /// two-site, plateau) or auto (choice by AICc).
+    /// power-residual, two-site, plateau) or auto (choice by AICc).
     #[arg(long, default_value = "auto", requires = "series")]
     pub model: String,
     /// Start value of a parameter, NAME=VALUE (repeatable).

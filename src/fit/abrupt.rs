@@ -44,7 +44,7 @@ use super::forecast::t_quantile;
 use super::lm::{Curve, LmOptions, levenberg_marquardt};
 use super::models::ModelId;
 
-/// The newest point against the prediction interval of the earlier points' fit.
+/// A point against the prediction interval of the earlier points' fit.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct PredictionCheck {
     pub x: f64,
@@ -68,8 +68,26 @@ pub fn prediction_check(
     y_new: f64,
     confidence: f64,
 ) -> Option<PredictionCheck> {
+    prediction_check_weighted(earlier, x_new, y_new, 1.0, confidence)
+}
+
+/// [`prediction_check`] for a point of relative weight `weight` in a weighted fit (see
+/// [`super::weights`]): its own variance is s²/w, so the prediction variance is
+/// s²/w + gᵀΣg. A weight that is not positive and finite counts as 1.
+pub fn prediction_check_weighted(
+    earlier: &FitResult,
+    x_new: f64,
+    y_new: f64,
+    weight: f64,
+    confidence: f64,
+) -> Option<PredictionCheck> {
     let s = earlier.sigma?;
-    let var = s * s + earlier.mean_variance(x_new)?;
+    let w = if weight.is_finite() && weight > 0.0 {
+        weight
+    } else {
+        1.0
+    };
+    let var = s * s / w + earlier.mean_variance(x_new)?;
     let sd = var.sqrt();
     let t = t_quantile(confidence, earlier.dof)?;
     let predicted = earlier.predict(x_new);
@@ -220,11 +238,14 @@ impl Curve for ShiftCurve {
 }
 
 /// Fits the level-shift model with trend `base` and the change at index `at` of `x`
-/// (sorted), starting from `start` (the trend's parameters); None when it fails.
+/// (sorted), weighted by `w` when given, starting from `start` (the trend's parameters);
+/// None when it fails.
+#[allow(clippy::too_many_arguments)]
 fn fit_shift_at(
     base: ModelId,
     x: &[f64],
     y: &[f64],
+    w: Option<&[f64]>,
     at: usize,
     start: &[f64],
     lm: &LmOptions,
@@ -240,7 +261,7 @@ fn fit_shift_at(
         (at..n).map(|i| base.eval(x[i], start) - y[i]).sum::<f64>() / (n - at) as f64;
     let mut p0 = start.to_vec();
     p0.push(post_mean);
-    let out = levenberg_marquardt(&curve, x, y, None, &p0, lm).ok()?;
+    let out = levenberg_marquardt(&curve, x, y, w, &p0, lm).ok()?;
     if !out.reason.is_converged() || out.params.iter().any(|v| !v.is_finite()) {
         return None;
     }
@@ -270,10 +291,12 @@ fn fit_shift_at(
 }
 
 /// The best level-shift model (lowest AICc) over the trends linear, first and second order
-/// and the change at an index within two of `at_guess`.
+/// and the change at an index within two of `at_guess`; weighted by `w` when given (the
+/// weights of the single-regime fits it competes with, so that the AICc compare).
 pub fn fit_level_shift(
     x: &[f64],
     y: &[f64],
+    w: Option<&[f64]>,
     at_guess: usize,
     lm: &LmOptions,
     confidence: f64,
@@ -287,7 +310,7 @@ pub fn fit_level_shift(
             }
             // Start from the trend of the cycles before the change.
             let start = super::start::start_values(base, &x[..at], &y[..at]);
-            let Some(s) = fit_shift_at(base, x, y, at, &start, lm, confidence) else {
+            let Some(s) = fit_shift_at(base, x, y, w, at, &start, lm, confidence) else {
                 continue;
             };
             let better = match (&best, s.aicc) {

@@ -20,15 +20,24 @@
 //! or that did not converge, is shown as such, without ΔAICc or weight, and is never
 //! chosen nor averaged.
 //!
-//! Censored points (conversion at saturation, so the activity is only a lower bound) are
-//! left out of the least-squares fit, which assumes exact values; they are counted, and the
-//! analysis flags every censored point whose lower bound lies above the fitted curve, since
-//! that contradicts the fit.
+//! Points with standard errors are weighted ([`super::weights`]: relative weights 1/sd², s²
+//! still estimated from the weighted residuals); every fit of the lot, its AICc (weighted
+//! RSS), the level-shift model and the prediction checks use the same weights. Without
+//! standard errors the fits are unweighted.
+//!
+//! Censored points (conversion at saturation, so the activity is only a lower bound) enter
+//! the lot's trend as bounds: every candidate is then fitted by the censored likelihood
+//! ([`super::censored`]), started from its least-squares fit on the exact points, and the
+//! ranking, the average and the forecast use those fits. The step-change monitoring and the
+//! level-shift model stay on the exact points (their AICc against the exact points'
+//! least-squares fits). The analysis still flags every censored point whose lower bound
+//! lies above the fitted curve, since that contradicts the fit.
 
 use serde::{Deserialize, Serialize};
 
-use super::abrupt::{AbruptLoss, LevelShift, fit_level_shift, monitor, prediction_check};
+use super::abrupt::{AbruptLoss, LevelShift, fit_level_shift, monitor, prediction_check_weighted};
 use super::average::{Averaged, ModelWeight, NextCycle};
+use super::censored::fit_censored;
 use super::choice::{Candidate, choose};
 use super::economics::{EconomicInputs, EconomicResult, economic_replacement};
 use super::engine::{FitOptions, FitResult, fit_model};
@@ -38,10 +47,11 @@ use super::forecast::{
 use super::lm::LmOptions;
 use super::models::ModelId;
 use super::population::{FamilyPrior, LotEstimate, Pooled, pooled};
+use super::weights::{SdFunction, point_weights};
 
 /// Version of the numerical engine, stored beside each analysis so that a stored result
 /// can be traced to the code that produced it.
-pub const ENGINE_VERSION: &str = "turnbook-fit 1.0.0";
+pub const ENGINE_VERSION: &str = "turnbook-fit 1.1.0";
 
 /// The measured activity of one lot over its cycles.
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
@@ -216,6 +226,12 @@ pub fn physical_bounds(m: ModelId) -> Vec<(String, f64, f64)> {
             b("kd", 0.0, inf),
             b("m", POWER_M_RANGE.0, POWER_M_RANGE.1),
         ],
+        ModelId::PowerResidual => vec![
+            b("a0", 0.0, inf),
+            b("a_inf", 0.0, inf),
+            b("kd", 0.0, inf),
+            b("m", POWER_M_RANGE.0, POWER_M_RANGE.1),
+        ],
         ModelId::Plateau => vec![b("ton_max", 0.0, inf), b("kd", 0.0, inf)],
     }
 }
@@ -227,8 +243,10 @@ fn at_bound(f: &FitResult, bounds: &[(String, f64, f64)]) -> bool {
         f.param(name)
             .is_some_and(|v| on(v, *lo) || on(v, *hi) || v < *lo || v > *hi)
     });
-    let inverted = f.model == ModelId::FirstOrderResidual
-        && matches!((f.param("a0"), f.param("a_inf")), (Some(a0), Some(ai)) if ai > a0);
+    let inverted = matches!(
+        f.model,
+        ModelId::FirstOrderResidual | ModelId::PowerResidual
+    ) && matches!((f.param("a0"), f.param("a_inf")), (Some(a0), Some(ai)) if ai > a0);
     !bounds.is_empty() && (hit || inverted)
 }
 
@@ -240,31 +258,47 @@ fn held_at_bounds(f: &FitResult) -> Option<FitResult> {
     f.covariance.as_ref().map(|_| f.clone())
 }
 
-/// A start for `model` from the optimum of a simpler model it contains, when one was
-/// fitted: the power law is first order at m = 1 and second order at m = 2, so it starts
-/// from whichever of those fits the lot better (its RSS is the power law's there). None
-/// means the model's own start grid. The caller falls back to the grid when the warm
-/// start does not converge.
-fn warm_start(model: ModelId, fits: &[Fitted]) -> Option<Vec<(String, f64)>> {
-    if model != ModelId::Power {
-        return None;
-    }
-    let (f, m) = fits
+/// Starts for `model` from the optima of simpler models it contains, when they were
+/// fitted, best (lowest RSS) first: the power law is first order at m = 1 and second order
+/// at m = 2, so it starts from whichever of those fits the lot better (its RSS is the power
+/// law's there); the power law with residual activity is first order with residual
+/// activity at m = 1 and the power law at a_inf = 0, and starts from both in turn. Empty
+/// means the model's own start grid. The caller falls back to the grid when no warm start
+/// converges.
+fn warm_starts(model: ModelId, fits: &[Fitted]) -> Vec<Vec<(String, f64)>> {
+    let mut found: Vec<(f64, Vec<f64>)> = fits
         .iter()
         .filter_map(|c| {
-            let order = match c.model {
-                ModelId::FirstOrder => 1.0,
-                ModelId::SecondOrder => 2.0,
+            let f = c.usable_fit()?;
+            let p = &f.params;
+            let start = match (model, c.model) {
+                (ModelId::Power, ModelId::FirstOrder) => vec![p[0], p[1], 1.0],
+                (ModelId::Power, ModelId::SecondOrder) => vec![p[0], p[1], 2.0],
+                (ModelId::PowerResidual, ModelId::FirstOrderResidual) => {
+                    vec![p[0], p[1], p[2], 1.0]
+                }
+                (ModelId::PowerResidual, ModelId::Power) => vec![p[0], 0.0, p[1], p[2]],
                 _ => return None,
             };
-            c.usable_fit().map(|f| (f, order))
+            (start.len() == model.n_params()).then_some((f.rss, start))
         })
-        .min_by(|a, b| a.0.rss.total_cmp(&b.0.rss))?;
-    Some(vec![
-        ("a0".to_string(), *f.params.first()?),
-        ("kd".to_string(), *f.params.get(1)?),
-        ("m".to_string(), m),
-    ])
+        .collect();
+    found.sort_by(|a, b| a.0.total_cmp(&b.0));
+    // The power law keeps its single best start.
+    if model == ModelId::Power {
+        found.truncate(1);
+    }
+    found
+        .into_iter()
+        .map(|(_, v)| {
+            model
+                .param_names()
+                .iter()
+                .map(|n| n.to_string())
+                .zip(v)
+                .collect()
+        })
+        .collect()
 }
 
 fn finite_or_none(v: f64) -> Option<f64> {
@@ -294,10 +328,11 @@ impl Fitted {
     }
 }
 
-/// Fits every candidate to (x, y).
+/// Fits every candidate to (x, y) by least squares, weighted by `w` when given.
 fn fit_candidates(
     x: &[f64],
     y: &[f64],
+    w: Option<&[f64]>,
     candidates: &[ModelId],
     fit_opts: &FitOptions,
     bounded: bool,
@@ -311,6 +346,7 @@ fn fit_candidates(
         };
         let opts = FitOptions {
             bounds: bounds.clone(),
+            weights: w.map(<[f64]>::to_vec),
             ..fit_opts.clone()
         };
         let r = if x.len() <= m.n_params() + 1 {
@@ -320,18 +356,29 @@ fn fit_candidates(
                 m.n_params()
             ))
         } else {
-            let warm = warm_start(m, &fits).and_then(|start| {
+            // The first warm start that converges inside the bounds; else the first that
+            // ends on a bound, which has found the constrained optimum: the grid would only
+            // find it again, slowly.
+            let mut on_bound = None;
+            let mut warm = None;
+            for start in warm_starts(m, &fits) {
                 let o = FitOptions {
                     start,
                     ..opts.clone()
                 };
-                // A warm start that ends on a bound has found the constrained optimum:
-                // the grid would only find it again, slowly.
-                fit_model(m, x, y, &o)
-                    .ok()
-                    .filter(|f| f.converged || at_bound(f, &bounds))
-            });
-            match warm {
+                let Ok(f) = fit_model(m, x, y, &o) else {
+                    continue;
+                };
+                let bound = at_bound(&f, &bounds);
+                if f.converged && !bound {
+                    warm = Some(f);
+                    break;
+                }
+                if on_bound.is_none() && (f.converged || bound) {
+                    on_bound = Some(f);
+                }
+            }
+            match warm.or(on_bound) {
                 Some(f) => Ok(f),
                 None => fit_model(m, x, y, &opts).map_err(|e| e.to_string()),
             }
@@ -347,19 +394,145 @@ fn fit_candidates(
             Err(e) => tracing::debug!(model = m.id(), error = %e, "fit not attempted"),
             _ => {}
         }
-        let at_bound = r.as_ref().is_ok_and(|f| at_bound(f, &bounds));
-        let held = match &r {
+        fits.push(Fitted::new(m, r, &bounds));
+    }
+    fits
+}
+
+impl Fitted {
+    /// A candidate from its fit (or why there is none), judged against its `bounds`.
+    fn new(
+        model: ModelId,
+        result: Result<FitResult, String>,
+        bounds: &[(String, f64, f64)],
+    ) -> Self {
+        let at_bound = result.as_ref().is_ok_and(|f| at_bound(f, bounds));
+        let held = match &result {
             Ok(f) if at_bound && f.params.iter().all(|v| v.is_finite()) => held_at_bounds(f),
             _ => None,
         };
-        fits.push(Fitted {
-            model: m,
-            result: r,
+        Fitted {
+            model,
+            result,
             at_bound,
             held,
-        });
+        }
     }
-    fits
+}
+
+/// The points of a stretch of the lot with censored points among them, and the candidates
+/// refitted to it by the censored likelihood; None when the stretch has no censored point.
+struct Bounded {
+    fits: Vec<Fitted>,
+    /// x of every point of the stretch (exact and censored), in order.
+    x: Vec<f64>,
+    censored: usize,
+}
+
+/// The candidates `ls` (least-squares fits to the exact points with lo ≤ x < hi) refitted
+/// to every point in that stretch by the censored likelihood ([`fit_censored`]), each
+/// started from its least-squares optimum. `pts` are (x, y, censored) in x order, `w` their
+/// weights. A candidate whose exact-point fit did not converge keeps that verdict; one with
+/// too few exact points for a least-squares AICc is fitted to them only for a start.
+fn bounded_trend(
+    pts: &[(f64, f64, bool)],
+    w: Option<&[f64]>,
+    (lo, hi): (f64, f64),
+    ls: &[Fitted],
+    fit_opts: &FitOptions,
+    bounded: bool,
+) -> Option<Bounded> {
+    let idx: Vec<usize> = (0..pts.len())
+        .filter(|&i| pts[i].0 >= lo && pts[i].0 < hi)
+        .collect();
+    let n_c = idx.iter().filter(|&&i| pts[i].2).count();
+    if n_c == 0 {
+        return None;
+    }
+    let x: Vec<f64> = idx.iter().map(|&i| pts[i].0).collect();
+    let y: Vec<f64> = idx.iter().map(|&i| pts[i].1).collect();
+    let c: Vec<bool> = idx.iter().map(|&i| pts[i].2).collect();
+    let w: Option<Vec<f64>> = w.map(|w| idx.iter().map(|&i| w[i]).collect());
+    let exact: Vec<usize> = (0..x.len()).filter(|&i| !c[i]).collect();
+    let (n, n_e) = (x.len(), exact.len());
+    let fits = ls
+        .iter()
+        .map(|cand| {
+            let m = cand.model;
+            let p = m.n_params();
+            let bounds = if bounded {
+                physical_bounds(m)
+            } else {
+                Vec::new()
+            };
+            let opts = FitOptions {
+                bounds: bounds.clone(),
+                weights: w.clone(),
+                ..fit_opts.clone()
+            };
+            let start = match &cand.result {
+                _ if n <= p + 1 => Err(format!(
+                    "{n} points are too few for {p} parameters (AICc needs n > p + 1)"
+                )),
+                _ if n_e <= p => Err(format!(
+                    "{n_e} uncensored points are too few for {p} parameters in a censored fit"
+                )),
+                Ok(f) if f.converged || cand.at_bound => Ok(f.params.clone()),
+                Ok(f) => Err(f.reason.describe().to_string()),
+                Err(_) => {
+                    let ex: Vec<f64> = exact.iter().map(|&i| x[i]).collect();
+                    let ey: Vec<f64> = exact.iter().map(|&i| y[i]).collect();
+                    let o = FitOptions {
+                        weights: w.as_ref().map(|w| exact.iter().map(|&i| w[i]).collect()),
+                        ..opts.clone()
+                    };
+                    fit_model(m, &ex, &ey, &o)
+                        .map_err(|e| e.to_string())
+                        .map(|f| f.params)
+                }
+            };
+            let r = start.and_then(|s| {
+                let o = FitOptions {
+                    start: m
+                        .param_names()
+                        .iter()
+                        .map(|n| n.to_string())
+                        .zip(s)
+                        .collect(),
+                    ..opts
+                };
+                fit_censored(m, &x, &y, &c, &o).map_err(|e| e.to_string())
+            });
+            if let Ok(f) = &r
+                && !f.converged
+            {
+                tracing::debug!(
+                    model = m.id(),
+                    reason = f.reason.describe(),
+                    "censored fit not converged"
+                );
+            }
+            Fitted::new(m, r, &bounds)
+        })
+        .collect();
+    Some(Bounded {
+        fits,
+        x,
+        censored: n_c,
+    })
+}
+
+/// The fit the choice rule picks among `fits`, when one is usable.
+fn best_usable(fits: &[Fitted]) -> Option<&FitResult> {
+    let cands: Vec<Candidate> = fits
+        .iter()
+        .map(|c| Candidate {
+            p: c.model.n_params(),
+            aicc: c.result.as_ref().ok().and_then(|f| f.aicc),
+            usable: c.usable_fit().is_some(),
+        })
+        .collect();
+    fits.get(choose(&cands)?)?.usable_fit()
 }
 
 /// The ranking of `fits` and the index of the chosen one.
@@ -591,7 +764,9 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             series.y.len()
         ));
     }
-    let mut pts: Vec<(f64, f64, bool, Option<f64>)> = Vec::with_capacity(n_points);
+    // (x, y, censored, TON, standard error of y)
+    type Point = (f64, f64, bool, Option<f64>, Option<f64>);
+    let mut pts: Vec<Point> = Vec::with_capacity(n_points);
     let mut dropped = 0;
     for i in 0..n_points {
         let (x, y) = (series.x[i], series.y[i]);
@@ -601,7 +776,8 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         }
         let c = series.censored.get(i).copied().unwrap_or(false);
         let t = series.ton.get(i).copied().flatten();
-        pts.push((x, y, c, t));
+        let sd = series.sd.get(i).copied().flatten();
+        pts.push((x, y, c, t, sd));
     }
     if dropped > 0 {
         notes.push(format!(
@@ -611,6 +787,26 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     pts.sort_by(|a, b| a.0.total_cmp(&b.0));
     let (fx, fy): (Vec<f64>, Vec<f64>) = pts.iter().filter(|p| !p.2).map(|p| (p.0, p.1)).unzip();
     let n_censored = pts.iter().filter(|p| p.2).count();
+    // Relative weights of every point, and of the exact points alone.
+    let sds: Vec<Option<f64>> = pts.iter().map(|p| p.4).collect();
+    let flags: Vec<bool> = pts.iter().map(|p| p.2).collect();
+    let mut pw = point_weights(&sds, &flags);
+    let exact_of = |w: &Vec<f64>| -> Vec<f64> {
+        w.iter()
+            .zip(&flags)
+            .filter(|(_, c)| !**c)
+            .map(|(w, _)| *w)
+            .collect()
+    };
+    let mut fw_own: Option<Vec<f64>> = pw.as_ref().map(exact_of);
+    if pw.is_some() {
+        let known = sds.iter().filter(|s| s.is_some_and(|v| v > 0.0)).count();
+        notes.push(format!(
+            "weighted by 1/sd² from the standard errors of {known} of {} cycles",
+            pts.len()
+        ));
+    }
+    let xyc: Vec<(f64, f64, bool)> = pts.iter().map(|p| (p.0, p.1, p.2)).collect();
     let mut out = LotAnalysis {
         engine_version: ENGINE_VERSION.to_string(),
         n_points,
@@ -662,7 +858,30 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
 
     // 1. Monitoring for a step change, and the single-regime fits on every cycle.
     let mon = monitor(&fx, &fy, opts.cusum_k, opts.cusum_h);
-    let all_fits = fit_candidates(&fx, &fy, &candidates, &fit_opts, bounded);
+    let mut all_fits = fit_candidates(&fx, &fy, fw_own.as_deref(), &candidates, &fit_opts, bounded);
+    // Weights at the fitted values when the standard errors are a function of activity
+    // (see super::weights): the first fit gives the activities, the fits are repeated.
+    let ys: Vec<f64> = pts.iter().map(|p| p.1).collect();
+    if pw.is_some()
+        && let Some(func) = SdFunction::fit(&ys, &sds, &flags)
+        && let Some(pilot) = best_usable(&all_fits)
+    {
+        let at_fit: Vec<Option<f64>> = pts
+            .iter()
+            .map(|p| {
+                let y = if p.2 { p.1 } else { pilot.predict(p.0) };
+                func.at(y).or(p.4)
+            })
+            .collect();
+        pw = point_weights(&at_fit, &flags);
+        fw_own = pw.as_ref().map(exact_of);
+        all_fits = fit_candidates(&fx, &fy, fw_own.as_deref(), &candidates, &fit_opts, bounded);
+        out.notes.push(
+            "the standard errors follow the activity: weights taken at the fitted activities"
+                .to_string(),
+        );
+    }
+    let fw = fw_own.as_deref();
     let suspected = mon.as_ref().is_some_and(|m| m.alarm);
     let change_guess = mon.as_ref().and_then(|m| m.change_index);
     let mut shift = None;
@@ -672,7 +891,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             .iter()
             .filter_map(|c| c.usable_fit().and_then(|f| f.aicc))
             .min_by(|a, b| a.total_cmp(b));
-        if let Some(mut s) = fit_level_shift(&fx, &fy, at, &fit_opts.lm, opts.confidence) {
+        if let Some(mut s) = fit_level_shift(&fx, &fy, fw, at, &fit_opts.lm, opts.confidence) {
             s.delta_vs_single = s.aicc.zip(best_single).map(|(a, b)| a - b);
             let wins = match (s.aicc, best_single) {
                 (Some(a), Some(b)) => a < b,
@@ -686,15 +905,34 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         }
     }
 
-    // 2. The lot's trend: every cycle, or the cycles before an accepted change.
+    // 2. The lot's trend: every cycle, or the cycles before an accepted change; with the
+    // censored cycles of that stretch as bounds, when it has any.
     let pre_fits;
-    let (trend_fits, tx) = match change {
+    let with_bounds;
+    let (lo, hi) = (f64::NEG_INFINITY, f64::INFINITY);
+    let (ls_fits, stretch) = match change {
         Some(i) => {
-            pre_fits = fit_candidates(&fx[..i], &fy[..i], &candidates, &fit_opts, bounded);
-            (&pre_fits, &fx[..i])
+            let w = fw.map(|w| &w[..i]);
+            pre_fits = fit_candidates(&fx[..i], &fy[..i], w, &candidates, &fit_opts, bounded);
+            (&pre_fits, (lo, fx[i]))
         }
-        None => (&all_fits, &fx[..]),
+        None => (&all_fits, (lo, hi)),
     };
+    let (trend_fits, tx) =
+        match bounded_trend(&xyc, pw.as_deref(), stretch, ls_fits, &fit_opts, bounded) {
+            Some(b) => {
+                out.notes.push(format!(
+                "{} censored cycles entered the fit as lower bounds (censored normal likelihood)",
+                b.censored
+            ));
+                with_bounds = b;
+                (&with_bounds.fits, &with_bounds.x[..])
+            }
+            None => match change {
+                Some(i) => (ls_fits, &fx[..i]),
+                None => (ls_fits, &fx[..]),
+            },
+        };
     out.trend_cycles = tx.len();
     let mut usable: Vec<&FitResult> = trend_fits
         .iter()
@@ -712,8 +950,12 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         }
     }
     let avg = Averaged::new(&usable, opts.criterion);
+    // The observed range: the exact cycles, widened by censored ones the trend used.
     let (x_first, x_last) = match (fx.first(), fx.last()) {
-        (Some(&a), Some(&b)) => (a, b),
+        (Some(&a), Some(&b)) => (
+            tx.first().map_or(a, |&t| t.min(a)),
+            tx.last().map_or(b, |&t| t.max(b)),
+        ),
         _ => (0.0, 0.0),
     };
     if let Some(avg) = &avg {
@@ -797,7 +1039,11 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
                     .copied()
                     .filter(|m| m.n_params() == 2)
                     .collect();
-                let post = fit_candidates(&fx[i..], &fy[i..], &post_c, &fit_opts, bounded);
+                let w = fw.map(|w| &w[i..]);
+                let post = fit_candidates(&fx[i..], &fy[i..], w, &post_c, &fit_opts, bounded);
+                let post =
+                    bounded_trend(&xyc, pw.as_deref(), (fx[i], hi), &post, &fit_opts, bounded)
+                        .map_or(post, |b| b.fits);
                 let post_usable: Vec<&FitResult> = post
                     .iter()
                     .filter_map(|c| c.usable_fit())
@@ -854,6 +1100,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             } else {
                 Vec::new()
             },
+            weights: fw.map(|w| w[..k].to_vec()),
             ..fit_opts.clone()
         };
         fit_model(model, &fx[..k], &fy[..k], &opts_prev)
@@ -871,7 +1118,10 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             };
             if let Some(b) = before {
                 for j in i..fx.len() {
-                    if let Some(c) = prediction_check(&b, fx[j], fy[j], opts.confidence) {
+                    let wj = fw.map_or(1.0, |w| w[j]);
+                    if let Some(c) =
+                        prediction_check_weighted(&b, fx[j], fy[j], wj, opts.confidence)
+                    {
                         checks.push(c);
                     }
                 }
@@ -880,7 +1130,9 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         }
         None if !fx.is_empty() => {
             let k = fx.len() - 1;
-            refit_before(k).and_then(|f| prediction_check(&f, fx[k], fy[k], opts.confidence))
+            let wk = fw.map_or(1.0, |w| w[k]);
+            refit_before(k)
+                .and_then(|f| prediction_check_weighted(&f, fx[k], fy[k], wk, opts.confidence))
         }
         None => None,
     };
@@ -951,7 +1203,7 @@ mod tests {
     fn first_order_lot_is_analysed_end_to_end() {
         let s = series(25, |x| (-0.02 * x).exp());
         let a = analyse(&s, &AnalysisOptions::default());
-        assert_eq!(a.ranking.len(), 6);
+        assert_eq!(a.ranking.len(), 7);
         let chosen = a.chosen.expect("a model");
         // Several models fit a clean exponential equally well; the rule must pick a
         // 2-parameter one.
@@ -981,7 +1233,7 @@ mod tests {
     }
 
     #[test]
-    fn censored_points_are_excluded_and_flagged() {
+    fn censored_points_enter_as_bounds_and_are_flagged() {
         let mut s = series(15, |x| (-0.05 * x).exp());
         s.censored = vec![false; 15];
         s.censored[3] = true;
@@ -991,7 +1243,82 @@ mod tests {
         let a = analyse(&s, &AnalysisOptions::default());
         assert_eq!(a.censored.count, 2);
         assert_eq!(a.n_fitted, 13);
+        assert_eq!(a.trend_cycles, 15);
+        let fit = a.fit.as_ref().expect("fit");
+        assert_eq!((fit.censored, fit.n), (Some(2), 15));
         assert_eq!(a.censored.above_fit, vec![4.0]);
+        assert!(
+            a.notes.iter().any(|n| n.contains("lower bounds")),
+            "{:?}",
+            a.notes
+        );
+    }
+
+    #[test]
+    fn bounds_before_a_step_change_stay_in_the_trend_before_it() {
+        // Cycles 1–3 saturated (bounds just below the curve), a 30 % drop from cycle 15:
+        // the trend before the change is the censored fit of cycles 1–14 with the bounds.
+        let mut s = series(22, |x| (-0.03 * x).exp());
+        s.censored = vec![false; 22];
+        for i in 0..3 {
+            s.censored[i] = true;
+            s.y[i] = 0.85;
+        }
+        for y in &mut s.y[14..] {
+            *y -= 0.3;
+        }
+        let a = analyse(&s, &AnalysisOptions::default());
+        let ab = a.abrupt.as_ref().expect("abrupt");
+        assert_eq!(ab.change_at, Some(15.0), "{ab:?}");
+        assert_eq!(a.trend_cycles, 14);
+        let fit = a.fit.as_ref().expect("fit");
+        assert_eq!(fit.censored, Some(3));
+        assert!((fit.predict(1.0) - (-0.03f64).exp()).abs() < 0.02);
+        assert!(a.censored.above_fit.is_empty());
+    }
+
+    #[test]
+    fn without_standard_errors_or_bounds_nothing_changes() {
+        // An empty sd, or one with no usable value, is the unweighted analysis to the bit.
+        let s = series(12, |x| 0.3 + 0.7 * (-0.1 * x).exp());
+        let plain = analyse(&s, &AnalysisOptions::default());
+        let unknown = LotSeries {
+            sd: vec![None; 12],
+            censored: vec![false; 12],
+            ..s.clone()
+        };
+        let b = analyse(&unknown, &AnalysisOptions::default());
+        assert_eq!(plain, b);
+        assert!(plain.fit.as_ref().is_some_and(|f| f.censored.is_none()));
+    }
+
+    #[test]
+    fn standard_errors_weight_the_fit() {
+        // Equal standard errors are the unweighted fit (relative weights all 1); one cycle
+        // ten times less precise than the others pulls the curve ten-thousand times less
+        // (weight 1/100 against 1): the fit moves away from it.
+        let mut s = series(12, |x| (-0.05 * x).exp());
+        s.y[0] += 0.05;
+        let plain = analyse(&s, &AnalysisOptions::default());
+        let equal = analyse(
+            &LotSeries {
+                sd: vec![Some(0.01); 12],
+                ..s.clone()
+            },
+            &AnalysisOptions::default(),
+        );
+        let (p, e) = (plain.fit.expect("fit"), equal.fit.expect("fit"));
+        assert_eq!(p.model, e.model);
+        for (a, b) in p.params.iter().zip(&e.params) {
+            assert!((a - b).abs() <= 1e-9 * b.abs().max(1e-9), "{a} {b}");
+        }
+        let mut sd = vec![Some(0.01); 12];
+        sd[0] = Some(0.1);
+        let weighted = analyse(&LotSeries { sd, ..s.clone() }, &AnalysisOptions::default());
+        let w = weighted.fit.expect("fit");
+        let miss = |f: &FitResult| (f.predict(1.0) - s.y[0]).abs();
+        assert!(miss(&w) > miss(&p), "{} vs {}", miss(&w), miss(&p));
+        assert!(weighted.notes.iter().any(|n| n.contains("1/sd²")));
     }
 
     #[test]

@@ -77,14 +77,7 @@ impl<'a> Averaged<'a> {
             if wi >= 0.05 {
                 dof = dof.min(f.dof);
             }
-            members.push((
-                wi,
-                FitDecision {
-                    fit: f,
-                    threshold: c,
-                    fraction,
-                },
-            ));
+            members.push((wi, FitDecision::new(f, c, fraction)));
         }
         Some(Averaged {
             members,

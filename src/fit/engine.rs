@@ -32,6 +32,8 @@ pub struct FitResult {
     pub std_errors: Option<Vec<f64>>,
     /// Σ = s²·(JᵀJ)⁻¹ with s² = RSS/(n − p).
     pub covariance: Option<Vec<Vec<f64>>>,
+    /// Weighted when the fit is weighted. For a censored fit ([`super::censored`]) the
+    /// RSS that gives the same likelihood (the RSS itself when nothing is censored).
     pub rss: f64,
     /// Residual standard deviation s = √(RSS/(n − p)).
     pub sigma: Option<f64>,
@@ -42,6 +44,9 @@ pub struct FitResult {
     pub converged: bool,
     pub reason: StopReason,
     pub iterations: usize,
+    /// For a censored fit: the points that entered as lower bounds. None: least squares.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub censored: Option<usize>,
 }
 
 impl FitResult {
@@ -188,6 +193,7 @@ pub fn result_from(model: ModelId, out: &LmOutcome, n: usize) -> FitResult {
         converged: out.reason.is_converged(),
         reason: out.reason,
         iterations: out.iterations,
+        censored: None,
     }
 }
 

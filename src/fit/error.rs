@@ -12,6 +12,12 @@ pub enum FitError {
     WeightsMismatch { weights: usize, points: usize },
     #[error("{n} usable points cannot determine {p} parameters (need at least {p})")]
     TooFewPoints { n: usize, p: usize },
+    #[error(
+        "{n} uncensored points cannot determine {p} parameters in a censored fit (need more than {p})"
+    )]
+    TooFewUncensored { n: usize, p: usize },
+    #[error("the censored likelihood is not a finite number at the end of the fit")]
+    LikelihoodNotFinite,
     #[error("{what} at index {index} is not a finite number")]
     NonFinite { what: &'static str, index: usize },
     #[error("weight at index {index} is negative")]
@@ -33,7 +39,7 @@ pub enum FitError {
     #[error("the model cannot be evaluated at the starting values (point {index})")]
     BadStart { index: usize },
     #[error(
-        "unknown model '{0}' (known: linear, first-order, first-order-residual, second-order, power, two-site, plateau, auto)"
+        "unknown model '{0}' (known: linear, first-order, first-order-residual, second-order, power, power-residual, two-site, plateau, auto)"
     )]
     UnknownModel(String),
     #[error("start value '{0}' is not of the form name=number")]

@@ -258,21 +258,33 @@ pub struct FitDecision<'a> {
     pub threshold: f64,
     /// f for a fraction-of-fresh criterion, 0 for an absolute one.
     pub fraction: f64,
+    /// ∂y(0)/∂θ, computed once: the interval's search evaluates ∂h/∂θ hundreds of times.
+    g0: [f64; MAXP],
 }
 
 /// Largest parameter count handled on the stack.
 const MAXP: usize = 8;
 
-impl FitDecision<'_> {
+impl<'a> FitDecision<'a> {
+    /// The decision function of `fit` against `threshold` (f = `fraction` of y(0), or 0).
+    pub fn new(fit: &'a FitResult, threshold: f64, fraction: f64) -> Self {
+        let mut g0 = [0.0; MAXP];
+        let np = fit.params.len().min(MAXP);
+        fit.model.grad(0.0, &fit.params, &mut g0[..np]);
+        FitDecision {
+            fit,
+            threshold,
+            fraction,
+            g0,
+        }
+    }
+
     /// ∂h/∂θ at x.
     pub fn grad_h(&self, x: f64, out: &mut [f64]) {
         let m = self.fit.model;
         m.grad(x, &self.fit.params, out);
         if self.fraction != 0.0 {
-            let mut g0 = [0.0; MAXP];
-            let g0 = &mut g0[..out.len().min(MAXP)];
-            m.grad(0.0, &self.fit.params, g0);
-            for (o, g) in out.iter_mut().zip(g0.iter()) {
+            for (o, g) in out.iter_mut().zip(self.g0.iter()) {
                 *o -= self.fraction * g;
             }
         }
@@ -368,11 +380,7 @@ pub fn forecast(
     x_last: f64,
 ) -> Forecast {
     let (threshold, fraction) = threshold_of(criterion, fit.predict(0.0));
-    let d = FitDecision {
-        fit,
-        threshold,
-        fraction,
-    };
+    let d = FitDecision::new(fit, threshold, fraction);
     let mut fc = forecast_with(&d, threshold, confidence, fit.dof, x_first, x_last);
     // Delta-method standard error of x*, for information.
     if let (Some(xs), Some(cov)) = (fc.x, fit.covariance.as_ref()) {

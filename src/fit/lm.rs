@@ -495,7 +495,7 @@ fn dot(a: &[f64], b: &[f64]) -> f64 {
 /// triangle becomes L). False when `a` is not positive definite. Hand-written because the
 /// engine factorises a tiny matrix several times per iteration, and a library call would
 /// allocate each time.
-fn cholesky_in_place(a: &mut [f64], p: usize) -> bool {
+pub(super) fn cholesky_in_place(a: &mut [f64], p: usize) -> bool {
     for j in 0..p {
         let mut d = a[j * p + j];
         for k in 0..j {
@@ -518,7 +518,7 @@ fn cholesky_in_place(a: &mut [f64], p: usize) -> bool {
 }
 
 /// Solves L·Lᵀ·x = b with L from [`cholesky_in_place`].
-fn cholesky_solve(l: &[f64], p: usize, b: &[f64], x: &mut [f64]) {
+pub(super) fn cholesky_solve(l: &[f64], p: usize, b: &[f64], x: &mut [f64]) {
     for i in 0..p {
         let mut s = b[i];
         for k in 0..i {

@@ -5,6 +5,10 @@
 //! - [`start`]: automatic starting values (rate grid with linear amplitudes).
 //! - [`varpro`]: two sites by variable projection, with degenerate fits recognised.
 //! - [`engine`]: fitting one named model and the statistics of the optimum.
+//! - [`weights`]: relative weights of the points from the standard errors of their
+//!   activities.
+//! - [`censored`]: fits with lower bounds (saturated cycles) by the censored normal
+//!   (Tobit) likelihood.
 //! - [`choice`]: AICc and the "simplest within ΔAICc < 2" rule.
 //! - [`forecast`](mod@forecast): the forecast states, the crossing of the replacement criterion and its
 //!   interval by inverting the confidence band (Fieller), lifetime TON.
@@ -19,8 +23,11 @@
 //! - [`render`]: CSV series reader, model/start argument parsing, JSON and text output.
 //!
 //! Decisions worth knowing:
-//! - Censored points (activity only a lower bound) are excluded from least squares, counted,
-//!   and flagged when the fitted curve passes below their bound ([`analysis`]).
+//! - Censored points (activity only a lower bound) enter the fit as bounds through the
+//!   censored likelihood ([`censored`]); they are counted, and flagged when the fitted curve
+//!   passes below their bound ([`analysis`]).
+//! - Points with standard errors are weighted by 1/sd², relatively: s² is still estimated
+//!   from the weighted residuals ([`weights`]).
 //! - For a criterion "fraction f of the fitted fresh activity", the criterion moves with
 //!   the parameters, so the band of h(x) = y(x) − f·y(0) keeps the term −f·∂y(0)/∂θ.
 //! - A fit whose parameters run away along a flat valley (RSS flat, |θ| growing) stops as
@@ -38,6 +45,7 @@
 pub mod abrupt;
 pub mod analysis;
 pub mod average;
+pub mod censored;
 pub mod choice;
 pub mod economics;
 pub mod engine;
@@ -49,12 +57,14 @@ pub mod population;
 pub mod render;
 pub mod start;
 pub mod varpro;
+pub mod weights;
 
 pub use abrupt::{AbruptLoss, CusumResult, LevelShift, Monitoring, PredictionCheck, cusum_down};
 pub use analysis::{
     AnalysisOptions, ENGINE_VERSION, LotAnalysis, LotSeries, NamedValue, RankEntry, analyse,
 };
 pub use average::{ModelWeight, NextCycle, NextVerdict};
+pub use censored::fit_censored;
 pub use economics::EconomicInputs;
 pub use engine::{FitOptions, FitResult, covariance_of, fit_model, fit_with_start};
 pub use error::{FitError, SeriesError};
@@ -69,3 +79,4 @@ pub use render::{
     read_series_csv, render_text,
 };
 pub use start::start_values;
+pub use weights::point_weights;

@@ -26,6 +26,13 @@ pub enum ModelId {
     SecondOrder,
     /// a0·(1 + (m − 1)·kd·x)^(−1/(m − 1))
     Power,
+    /// a_inf + (a0 − a_inf)·(1 + (m − 1)·kd·x)^(−1/(m − 1)): the solution of the
+    /// generalised power-law rate expression −da/dx = kd·(a0 − a_inf)^(1 − m)·(a − a_inf)^m,
+    /// the form used for sintering, where a catalyst loses activity towards a residual level
+    /// a_inf (Bartholomew, "Sintering kinetics of supported metals", Appl. Catal. A 107, 1993;
+    /// recalled from memory). m = 1 is first order with residual activity, a_inf = 0 the
+    /// power law. For m < 1 the residual level is reached at x = 1/((1 − m)·kd) and kept.
+    PowerResidual,
     /// a_inf + a1·exp(−k1·x) + a2·exp(−k2·x)
     TwoSite,
     /// ton_max·(1 − exp(−kd·x)), for cumulative TON
@@ -34,23 +41,25 @@ pub enum ModelId {
 
 impl ModelId {
     /// Every model, simplest first.
-    pub const ALL: [ModelId; 7] = [
+    pub const ALL: [ModelId; 8] = [
         ModelId::Linear,
         ModelId::FirstOrder,
         ModelId::SecondOrder,
         ModelId::Plateau,
         ModelId::FirstOrderResidual,
         ModelId::Power,
+        ModelId::PowerResidual,
         ModelId::TwoSite,
     ];
 
     /// The models of activity decay (every model but the cumulative-TON plateau).
-    pub const ACTIVITY: [ModelId; 6] = [
+    pub const ACTIVITY: [ModelId; 7] = [
         ModelId::Linear,
         ModelId::FirstOrder,
         ModelId::SecondOrder,
         ModelId::FirstOrderResidual,
         ModelId::Power,
+        ModelId::PowerResidual,
         ModelId::TwoSite,
     ];
 
@@ -62,6 +71,7 @@ impl ModelId {
             ModelId::FirstOrderResidual => "first-order-residual",
             ModelId::SecondOrder => "second-order",
             ModelId::Power => "power",
+            ModelId::PowerResidual => "power-residual",
             ModelId::TwoSite => "two-site",
             ModelId::Plateau => "plateau",
         }
@@ -83,6 +93,7 @@ impl ModelId {
             ModelId::FirstOrderResidual => "a_inf + (a0 - a_inf)*exp(-kd*x)",
             ModelId::SecondOrder => "a0/(1 + kd*x)",
             ModelId::Power => "a0*(1 + (m - 1)*kd*x)^(-1/(m - 1))",
+            ModelId::PowerResidual => "a_inf + (a0 - a_inf)*(1 + (m - 1)*kd*x)^(-1/(m - 1))",
             ModelId::TwoSite => "a_inf + a1*exp(-k1*x) + a2*exp(-k2*x)",
             ModelId::Plateau => "ton_max*(1 - exp(-kd*x))",
         }
@@ -96,6 +107,7 @@ impl ModelId {
             ModelId::FirstOrderResidual => &["a0", "a_inf", "kd"],
             ModelId::SecondOrder => &["a0", "kd"],
             ModelId::Power => &["a0", "kd", "m"],
+            ModelId::PowerResidual => &["a0", "a_inf", "kd", "m"],
             ModelId::TwoSite => &["a_inf", "a1", "k1", "a2", "k2"],
             ModelId::Plateau => &["ton_max", "kd"],
         }
@@ -144,6 +156,8 @@ impl ModelId {
                     }
                 }
             }
+            // The value is the one `point` computes with the derivatives, to the bit.
+            ModelId::PowerResidual => self.point(x, p, &mut [0.0; 4]),
             ModelId::TwoSite => p[0] + p[1] * (-p[2] * x).exp() + p[3] * (-p[4] * x).exp(),
             ModelId::Plateau => p[0] * (1.0 - (-p[1] * x).exp()),
         }
@@ -164,6 +178,7 @@ impl ModelId {
             | ModelId::FirstOrderResidual
             | ModelId::SecondOrder
             | ModelId::Power
+            | ModelId::PowerResidual
             | ModelId::TwoSite
             | ModelId::Plateau => {
                 self.eval_grad(x, p, out);
@@ -206,6 +221,9 @@ impl ModelId {
                 rows_into(x, f, jac, np, |x, o| ModelId::SecondOrder.point(x, p, o))
             }
             ModelId::Power => rows_into(x, f, jac, np, |x, o| ModelId::Power.point(x, p, o)),
+            ModelId::PowerResidual => {
+                rows_into(x, f, jac, np, |x, o| ModelId::PowerResidual.point(x, p, o))
+            }
             ModelId::TwoSite => rows_into(x, f, jac, np, |x, o| ModelId::TwoSite.point(x, p, o)),
             ModelId::Plateau => rows_into(x, f, jac, np, |x, o| ModelId::Plateau.point(x, p, o)),
         }
@@ -282,6 +300,45 @@ impl ModelId {
                     y
                 }
             }
+            ModelId::PowerResidual => {
+                let (a0, a_inf, kd, m) = (p[0], p[1], p[2], p[3]);
+                let amp = a0 - a_inf;
+                let s = m - 1.0;
+                let t = kd * x;
+                if s.abs() < POWER_M_EPS {
+                    // The power law's limits as m → 1, scaled by the amplitude a0 − a_inf.
+                    let e = (-t).exp();
+                    out[0] = e;
+                    out[1] = 1.0 - e;
+                    out[2] = -amp * x * e;
+                    out[3] = amp * e * t * t / 2.0;
+                    return a_inf + amp * (-(t - s * t * t / 2.0)).exp();
+                }
+                let u = 1.0 + s * t;
+                if u <= 0.0 {
+                    out.iter_mut().for_each(|v| *v = 0.0);
+                    if s < 0.0 {
+                        // m < 1: the rate law −da/dx ∝ (a − a_inf)^m brings a to a_inf at
+                        // x = 1/((1 − m)·kd) and holds it there (the solution continued,
+                        // not a domain error).
+                        out[1] = 1.0;
+                        return a_inf;
+                    }
+                    out.iter_mut().for_each(|v| *v = f64::NAN);
+                    return f64::NAN;
+                }
+                // g = u^(−1/s), the power law's shape; its derivatives as in `Power`. ln u
+                // by ln_1p(s·t): near m = 1 the rounding of u = 1 + s·t would otherwise
+                // cost digits in ln(u)/s (10⁻¹¹ relative at |m − 1| = 10⁻⁵).
+                let lu = (s * t).ln_1p();
+                let g = (-lu / s).exp();
+                out[0] = g;
+                out[1] = 1.0 - g;
+                out[2] = -amp * x * g / u;
+                let num = (s * t).ln_1p() - s * t / u;
+                out[3] = amp * g * num / (s * s);
+                a_inf + amp * g
+            }
             ModelId::Linear => {
                 out[0] = 1.0;
                 out[1] = -x;
@@ -317,6 +374,23 @@ impl ModelId {
                     }
                 }
             }
+            ModelId::PowerResidual => {
+                let (amp, kd, m) = (p[0] - p[1], p[2], p[3]);
+                let s = m - 1.0;
+                if s.abs() < POWER_M_EPS {
+                    -amp * kd * (-kd * x).exp()
+                } else {
+                    let u = 1.0 + s * kd * x;
+                    if u > 0.0 {
+                        -amp * kd * (-u.ln() * m / s).exp()
+                    } else if s < 0.0 {
+                        // At the residual activity, reached (m < 1).
+                        0.0
+                    } else {
+                        f64::NAN
+                    }
+                }
+            }
             ModelId::TwoSite => -p[1] * p[2] * (-p[2] * x).exp() - p[3] * p[4] * (-p[4] * x).exp(),
             ModelId::Plateau => p[0] * p[1] * (-p[1] * x).exp(),
         }
@@ -332,6 +406,8 @@ impl ModelId {
             ModelId::FirstOrder | ModelId::SecondOrder => (p[1] > 0.0).then_some(0.0),
             ModelId::FirstOrderResidual => (p[2] > 0.0).then_some(p[1]),
             ModelId::Power => (p[1] > 0.0 && p[2] > 1.0).then_some(0.0),
+            // Approached for m ≥ 1, reached at a finite x for m < 1.
+            ModelId::PowerResidual => (p[2] > 0.0).then_some(p[1]),
             ModelId::TwoSite => (p[2] > 0.0 && p[4] > 0.0).then_some(p[0]),
             ModelId::Plateau => (p[1] > 0.0).then_some(p[0]),
         }
@@ -413,6 +489,7 @@ mod tests {
             ModelId::FirstOrderResidual => vec![1.0, 0.3, 0.1],
             ModelId::SecondOrder => vec![1.0, 0.07],
             ModelId::Power => vec![1.0, 0.06, 1.7],
+            ModelId::PowerResidual => vec![1.0, 0.25, 0.08, 1.8],
             ModelId::TwoSite => vec![0.2, 0.5, 0.4, 0.3, 0.03],
             ModelId::Plateau => vec![500.0, 0.1],
         }
@@ -493,6 +570,52 @@ mod tests {
         assert!((fo - near).abs() < 1e-9);
         let off = ModelId::Power.eval(x, &[1.0, 0.07, 1.0 + 2e-7]);
         assert!((fo - off).abs() < 1e-5);
+    }
+
+    #[test]
+    fn power_residual_derivatives_hold_across_its_orders() {
+        // Central differences (with a step small against |m − 1|) against the analytic
+        // Jacobian: below first order (m = 0.5, before and after the residual level is
+        // reached at x = 1/((1 − m)·kd) = 25), beside first order on both sides of the
+        // limit's switch (|m − 1| = 10⁻⁵, where the closed form is used and cancellation
+        // would show), and above it (m = 3).
+        let m = ModelId::PowerResidual;
+        for order in [0.5, 1.0 - 1e-5, 1.0 + 1e-5, 3.0] {
+            let p = [1.0, 0.3, 0.08, order];
+            for &x in &[0.0, 2.0, 10.0, 24.0, 30.0] {
+                let mut a = [0.0; 4];
+                let y = m.eval_grad(x, &p, &mut a);
+                assert!(y.is_finite());
+                for j in 0..4 {
+                    let h = 1e-7 * p[j].abs().max(1e-3);
+                    let (mut up, mut down) = (p, p);
+                    up[j] += h;
+                    down[j] -= h;
+                    let num = (m.eval(x, &up) - m.eval(x, &down)) / (2.0 * h);
+                    assert!(
+                        (a[j] - num).abs() < 1e-6 * (1.0 + num.abs()),
+                        "m {order} x {x} j {j}: {} vs {num}",
+                        a[j]
+                    );
+                }
+            }
+        }
+        // Past its end (m < 1) the curve stays at a_inf, with a_inf its only sensitivity.
+        let p = [1.0, 0.3, 0.08, 0.5];
+        let mut g = [9.0; 4];
+        assert_eq!(m.eval_grad(40.0, &p, &mut g), 0.3);
+        assert_eq!(g, [0.0, 1.0, 0.0, 0.0]);
+        assert_eq!(m.dydx(40.0, &p), 0.0);
+        assert_eq!(m.asymptote(&p), Some(0.3));
+        // It contains first order with residual activity (m → 1) and the power law
+        // (a_inf = 0).
+        let fo = ModelId::FirstOrderResidual.eval(12.0, &[1.0, 0.3, 0.08]);
+        for s in [1e-9, -1e-9, 2e-7, -2e-7] {
+            let v = m.eval(12.0, &[1.0, 0.3, 0.08, 1.0 + s]);
+            assert!((v - fo).abs() < 1e-6, "m − 1 = {s}: {v} vs {fo}");
+        }
+        let pw = ModelId::Power.eval(12.0, &[1.0, 0.08, 1.7]);
+        assert!((m.eval(12.0, &[1.0, 0.0, 0.08, 1.7]) - pw).abs() < 1e-15);
     }
 
     #[test]

@@ -430,6 +430,7 @@ pub fn posterior_fit(
         converged: true,
         reason: out.reason,
         iterations: out.iterations,
+        censored: None,
     })
 }
 

@@ -115,7 +115,8 @@ fn num(v: Option<f64>) -> Value {
 }
 
 /// JSON of a fit (and forecast): keys model, n, params, std_errors, rss, dof, aicc,
-/// converged, reason, iterations and, when given, forecast {x, lower, upper, status}.
+/// converged, reason, iterations, censored_bounds for a censored fit and, when given,
+/// forecast {x, lower, upper, status}.
 pub fn fit_json(fit: &FitResult, forecast: Option<&Forecast>) -> Value {
     let mut params = Map::new();
     let mut ses = Map::new();
@@ -139,6 +140,10 @@ pub fn fit_json(fit: &FitResult, forecast: Option<&Forecast>) -> Value {
         "reason": fit.reason.describe(),
         "iterations": fit.iterations,
     });
+    // A censored fit says how many bounds it used (absent for least squares).
+    if let (Some(k), Value::Object(m)) = (fit.censored, &mut v) {
+        m.insert("censored_bounds".into(), json!(k));
+    }
     if let (Some(fc), Value::Object(m)) = (forecast, &mut v) {
         m.insert(
             "forecast".into(),
@@ -462,9 +467,14 @@ fn forecast_words(fc: &Forecast, x_last: Option<f64>) -> String {
 pub fn render_text(a: &LotAnalysis) -> String {
     use std::fmt::Write;
     let mut s = String::new();
+    let bounds = if a.fit.as_ref().is_some_and(|f| f.censored.is_some()) {
+        " (as lower bounds in the fit)"
+    } else {
+        ""
+    };
     let _ = writeln!(
         s,
-        "{} points ({} fitted, {} censored), engine {}",
+        "{} points ({} fitted as exact, {} censored{bounds}), engine {}",
         a.n_points, a.n_fitted, a.censored.count, a.engine_version
     );
     let _ = writeln!(
@@ -472,7 +482,7 @@ pub fn render_text(a: &LotAnalysis) -> String {
         "\nModel ranking (AICc; simplest within ΔAICc < 2 is chosen; the forecast averages\n\
          the usable models with Akaike weights)"
     );
-    if a.trend_cycles < a.n_fitted {
+    if a.abrupt.as_ref().is_some_and(|b| b.change_at.is_some()) {
         let _ = writeln!(
             s,
             "  (fitted on the {} cycles before the step change)",

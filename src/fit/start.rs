@@ -186,6 +186,35 @@ pub fn start_values(model: ModelId, x: &[f64], y: &[f64]) -> Vec<f64> {
             }))
             .map(|p| p.to_vec())
         }
+        ModelId::PowerResidual => {
+            // Orders 0.5 (u², ended at zero), 1 (the exponential), 1.5, 2 and 3, each with
+            // the amplitudes (a0, a_inf) solved linearly on the basis (g, 1 − g).
+            let shape = |m: f64, kd: f64, x: f64| -> f64 {
+                let u = 1.0 + (m - 1.0) * kd * x;
+                if m == 0.5 {
+                    u.max(0.0) * u.max(0.0)
+                } else if m == 1.0 {
+                    (-kd * x).exp()
+                } else if m == 1.5 {
+                    1.0 / (u * u)
+                } else if m == 2.0 {
+                    1.0 / u
+                } else {
+                    1.0 / u.sqrt()
+                }
+            };
+            best(grid.iter().flat_map(|&kd| {
+                [0.5, 1.0, 1.5, 2.0, 3.0].into_iter().map(move |m| {
+                    linear_fit::<2>(x, y, |_, x, b| {
+                        let g = shape(m, kd, x);
+                        b[0] = g;
+                        b[1] = 1.0 - g;
+                    })
+                    .map(|(c, r)| ([c[0], c[1], kd, m], r))
+                })
+            }))
+            .map(|p| p.to_vec())
+        }
         ModelId::TwoSite => {
             let coarse = rate_grid(span, 9);
             let m = x.len().min(y.len());
@@ -240,6 +269,7 @@ fn fallback(model: ModelId, ymean: f64, span: f64) -> Vec<f64> {
         ModelId::FirstOrder | ModelId::SecondOrder | ModelId::Plateau => vec![a, k],
         ModelId::FirstOrderResidual => vec![a, 0.5 * a, k],
         ModelId::Power => vec![a, k, 2.0],
+        ModelId::PowerResidual => vec![a, 0.5 * a, k, 2.0],
         ModelId::TwoSite => vec![0.3 * a, 0.4 * a, 3.0 * k, 0.3 * a, 0.3 * k],
     }
 }
@@ -273,6 +303,7 @@ mod tests {
             (ModelId::FirstOrder, vec![1.0, 0.05]),
             (ModelId::SecondOrder, vec![1.0, 0.08]),
             (ModelId::FirstOrderResidual, vec![1.0, 0.4, 0.1]),
+            (ModelId::PowerResidual, vec![1.0, 0.3, 0.1, 2.0]),
         ];
         for (m, p) in truth {
             let y: Vec<f64> = x.iter().map(|&xi| m.eval(xi, &p)).collect();

@@ -102,11 +102,13 @@ fn demo_outbox_follows_the_severity_table_and_subjects_carry_dates() {
         "{}",
         step[0].4
     );
-    // ... with the hints on why: nothing recorded differs (the demo's poison came with a
-    // feed drum, which no export records), and leaching explains almost none of it.
+    // ... with the hints on why: the batch was charged from a feed drum no earlier batch
+    // used (the demo's poison came with it), and leaching explains almost none of it.
     assert!(
         step[0].4.contains("Why it may have dropped")
-            && step[0].4.contains("no recorded condition differs")
+            && step[0]
+                .4
+                .contains("Cycle 10 was charged from feed lot AC-1004")
             && step[0].4.contains("Metal loss explains at most"),
         "{}",
         step[0].4

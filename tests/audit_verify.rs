@@ -25,6 +25,7 @@ fn row(line: u64, batch: &str, lot: &str, conv: f64) -> CycleRow {
         lot: Some(lot.into()),
         cycle_no: None,
         started_at: None,
+        feed_lot: None,
         values: vec![MeasuredValue {
             quantity: Quantity::Conversion,
             value: conv,

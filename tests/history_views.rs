@@ -37,6 +37,7 @@ fn cycle(n: u32, conv: f64) -> CycleRow {
         lot: Some("L1".into()),
         cycle_no: Some(n),
         started_at: None,
+        feed_lot: None,
         values: vec![
             value(Quantity::Conversion, conv),
             value(Quantity::Duration, 3600.0),

@@ -912,6 +912,7 @@ fn records_after_the_upgrade_continue_the_old_ids_and_verify() {
             lot: Some(LOT.into()),
             cycle_no: Some(3),
             started_at: None,
+            feed_lot: None,
             values: vec![value(Quantity::Conversion, 0.65, 4, "65")],
         },
         CycleRow {
@@ -920,6 +921,7 @@ fn records_after_the_upgrade_continue_the_old_ids_and_verify() {
             lot: None,
             cycle_no: None,
             started_at: None,
+            feed_lot: None,
             values: vec![value(Quantity::Selectivity, 0.96, 5, "96")],
         },
         CycleRow {
@@ -928,6 +930,7 @@ fn records_after_the_upgrade_continue_the_old_ids_and_verify() {
             lot: Some(LOT.into()),
             cycle_no: Some(4),
             started_at: None,
+            feed_lot: None,
             values: vec![value(Quantity::Conversion, 0.6, 4, "60")],
         },
     ]);

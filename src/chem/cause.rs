@@ -22,7 +22,7 @@ pub const FIXED_VALUE_TOLERANCE: f64 = 0.005;
 pub const MIN_USUAL: usize = 3;
 
 /// The conditions of one cycle, in canonical units.
-#[derive(Debug, Clone, Copy, Default, PartialEq)]
+#[derive(Debug, Clone, Default, PartialEq)]
 pub struct Conditions {
     pub cycle: u32,
     pub temperature_k: Option<f64>,
@@ -31,6 +31,8 @@ pub struct Conditions {
     /// mol metal charged per mol limiting substrate.
     pub catalyst_ratio: Option<f64>,
     pub metal_in_product_ug_g: Option<f64>,
+    /// The substrate or feed lot the batch was charged from.
+    pub feed_lot: Option<String>,
 }
 
 /// One condition of the suspect cycle that differs from the lot's usual value.
@@ -68,6 +70,9 @@ pub struct CauseHints {
     /// How many earlier cycles set the usual values.
     pub compared_with: usize,
     pub deviations: Vec<Deviation>,
+    /// The suspect cycle's feed lot when it is one none of the earlier cycles used, with
+    /// the feed lot most of them used.
+    pub new_feed_lot: Option<(String, String)>,
     /// Fraction of the fresh activity lost by the suspect cycle (0.40 = 40 %).
     pub activity_lost: Option<f64>,
     /// Fraction of the metal charged that the products carried away before this cycle.
@@ -81,15 +86,21 @@ impl CauseHints {
     /// The hints in plain sentences, one per line.
     pub fn lines(&self) -> Vec<String> {
         let mut out = Vec::new();
-        if self.deviations.is_empty() {
+        if let Some((new, usual)) = &self.new_feed_lot {
+            out.push(format!(
+                "Cycle {} was charged from feed lot {new}, which none of the {} cycles before \
+                 it used (they mostly used {usual}): check that feed lot first.",
+                self.cycle, self.compared_with
+            ));
+        }
+        if self.deviations.is_empty() && self.new_feed_lot.is_none() {
             out.push(format!(
                 "Cycle {}: no recorded condition differs from the {} cycles before it \
                  (temperature, time, substrate, catalyst-to-substrate ratio, metal in \
-                 product); look at what is not recorded (feed or substrate lot, a poison, \
-                 handling).",
+                 product, feed lot); look at what is not recorded (a poison, handling).",
                 self.cycle, self.compared_with
             ));
-        } else {
+        } else if !self.deviations.is_empty() {
             let parts: Vec<String> = self.deviations.iter().map(Deviation::sentence).collect();
             out.push(format!(
                 "Cycle {} differs from the {} cycles before it in: {}.",
@@ -228,6 +239,16 @@ pub fn cause_hints(
             deviations.push(d);
         }
     }
+    let new_feed_lot = s.feed_lot.as_ref().and_then(|f| {
+        let mut counts: std::collections::BTreeMap<&str, usize> = Default::default();
+        for c in &before {
+            if let Some(b) = c.feed_lot.as_deref() {
+                *counts.entry(b).or_default() += 1;
+            }
+        }
+        let usual = counts.iter().max_by_key(|(_, n)| **n).map(|(k, _)| *k)?;
+        (!counts.contains_key(f.as_str())).then(|| (f.clone(), usual.to_string()))
+    });
     let activity_lost = activity_of(suspect)
         .filter(|a| a.is_finite())
         .map(|a| (1.0 - a).max(0.0));
@@ -239,6 +260,7 @@ pub fn cause_hints(
         cycle: suspect,
         compared_with: before.len(),
         deviations,
+        new_feed_lot,
         activity_lost,
         metal_lost: metal_lost_before,
         metal_share,
@@ -257,6 +279,7 @@ mod tests {
             substrate_mol: Some(0.1),
             catalyst_ratio: Some(ratio),
             metal_in_product_ug_g: Some(ug),
+            feed_lot: Some("D-3".into()),
         }
     }
 
@@ -304,5 +327,32 @@ mod tests {
         assert!(hints.lines()[1].contains("unknown"));
         assert!(cause_hints(&h[..3], 3, |_| Some(0.5), None).is_none());
         assert!(cause_hints(&h, 9, |_| Some(0.5), None).is_none());
+    }
+
+    #[test]
+    fn a_feed_lot_no_earlier_cycle_used_is_named_first() {
+        let mut h: Vec<Conditions> = (1..=6).map(|n| cycle(n, 60.0, 0.005, 1.0)).collect();
+        h[1].feed_lot = Some("D-4".into());
+        h[5].feed_lot = Some("D-7".into());
+        let hints = cause_hints(&h, 6, |_| Some(0.6), Some(0.01)).unwrap();
+        assert_eq!(hints.new_feed_lot, Some(("D-7".into(), "D-3".into())));
+        assert!(hints.deviations.is_empty());
+        let lines = hints.lines();
+        assert!(
+            lines[0].starts_with("Cycle 6 was charged from feed lot D-7"),
+            "{lines:?}"
+        );
+        assert!(
+            lines.iter().all(|l| !l.contains("no recorded condition")),
+            "{lines:?}"
+        );
+        // A feed lot used before is no news.
+        h[5].feed_lot = Some("D-4".into());
+        assert_eq!(
+            cause_hints(&h, 6, |_| Some(0.6), None)
+                .unwrap()
+                .new_feed_lot,
+            None
+        );
     }
 }

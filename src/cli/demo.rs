@@ -212,17 +212,29 @@ pub fn config_text() -> String {
         .replace("/srv/turnbook/exports/", "exports/")
 }
 
+/// The feed drum a batch was charged from: the Pd lots' substrate comes in drums of five
+/// batches; the Pt lot ran on one drum until its tenth batch, charged from the drum that
+/// poisoned it.
+fn feed_lot(lot: &str, cycle: u32) -> String {
+    match lot {
+        "PT-AL-2610-B" if cycle >= 10 => "AC-1004".to_string(),
+        "PT-AL-2610-B" => "AC-0921".to_string(),
+        "PD-C-2612-C" => "NA-2611-1".to_string(),
+        _ => format!("NA-2610-{}", (cycle.max(1) - 1) / 5 + 1),
+    }
+}
+
 fn hplc_file(b: &DemoBatch) -> String {
     let mut s = String::new();
     let _ = writeln!(s, "Sample report export,KV4 HPLC-2");
     let _ = writeln!(s, "Method,RED-ASSAY-v3");
     let _ = writeln!(
         s,
-        "Batch,Catalyst lot,Cycle,Started,Reaction time (min),Temperature (degC),Conversion (%),Selectivity (%)"
+        "Batch,Catalyst lot,Cycle,Started,Reaction time (min),Temperature (degC),Conversion (%),Selectivity (%),Feed lot"
     );
     let _ = writeln!(
         s,
-        "{},{},{},{},{:.0},{:.1},{:.2},{:.2}",
+        "{},{},{},{},{:.0},{:.1},{:.2},{:.2},{}",
         b.batch,
         b.lot,
         b.cycle,
@@ -230,7 +242,8 @@ fn hplc_file(b: &DemoBatch) -> String {
         b.minutes,
         b.temp_c,
         b.conversion_pct,
-        b.selectivity_pct
+        b.selectivity_pct,
+        feed_lot(&b.lot, b.cycle)
     );
     s
 }

@@ -27,45 +27,7 @@ pub fn lots(cfg: &Config, json: bool) -> CmdResult {
         "lot", "catalyst", "cycles", "activity", "cum. TON", "model", "sign-off"
     );
     for l in &lines {
-        let forecast = l.forecast.as_ref().map(|f| {
-            let st = f["status"].as_str().unwrap_or("");
-            match (f["x"].as_f64(), st) {
-                (Some(x), "ahead") => format!(
-                    "criterion at cycle {x:.1} [{}, {}]",
-                    f["lower"]
-                        .as_f64()
-                        .map_or("-inf".into(), |v| format!("{v:.1}")),
-                    f["upper"]
-                        .as_f64()
-                        .map_or("+inf".into(), |v| format!("{v:.1}"))
-                ),
-                _ => st.replace('-', " "),
-            }
-        });
-        let mut tail = forecast.unwrap_or_default();
-        if let Some(f) = &l.forecast {
-            match (f["crossing_early"].as_str(), f["crossing_late"].as_str()) {
-                (Some(e), Some(l)) => {
-                    let _ = write!(tail, " = {e} to {l}");
-                }
-                (Some(e), None) => {
-                    let _ = write!(tail, " = from {e}");
-                }
-                _ => {}
-            }
-            if let Some(o) = f["order_by"].as_str() {
-                let passed = f["as_of"].as_str().is_some_and(|t| o < t);
-                let _ = write!(
-                    tail,
-                    "  order by {o}{}",
-                    if passed { " (passed)" } else { "" }
-                );
-            }
-        }
-        if let Some(n) = &l.next_cycle {
-            let verdict = serde_json::to_value(n.verdict).unwrap_or_default();
-            let _ = write!(tail, "  next batch {}", verdict.as_str().unwrap_or("?"));
-        }
+        let mut tail = forecast_tail(l);
         if l.abrupt_loss {
             tail.push_str("  ABRUPT LOSS");
         }
@@ -90,6 +52,51 @@ pub fn lots(cfg: &Config, json: bool) -> CmdResult {
         );
     }
     Ok(0)
+}
+
+/// The forecast column of the lots table: the crossing in cycles and in dates, the
+/// order-by date, the next batch's verdict.
+fn forecast_tail(l: &crate::notebook::LotLine) -> String {
+    let forecast = l.forecast.as_ref().map(|f| {
+        let st = f["status"].as_str().unwrap_or("");
+        match (f["x"].as_f64(), st) {
+            (Some(x), "ahead") => format!(
+                "criterion at cycle {x:.1} [{}, {}]",
+                f["lower"]
+                    .as_f64()
+                    .map_or("-inf".into(), |v| format!("{v:.1}")),
+                f["upper"]
+                    .as_f64()
+                    .map_or("+inf".into(), |v| format!("{v:.1}"))
+            ),
+            _ => st.replace('-', " "),
+        }
+    });
+    let mut tail = forecast.unwrap_or_default();
+    if let Some(f) = &l.forecast {
+        match (f["crossing_early"].as_str(), f["crossing_late"].as_str()) {
+            (Some(e), Some(l)) => {
+                let _ = write!(tail, " = {e} to {l}");
+            }
+            (Some(e), None) => {
+                let _ = write!(tail, " = from {e}");
+            }
+            _ => {}
+        }
+        if let Some(o) = f["order_by"].as_str() {
+            let passed = f["as_of"].as_str().is_some_and(|t| o < t);
+            let _ = write!(
+                tail,
+                "  order by {o}{}",
+                if passed { " (passed)" } else { "" }
+            );
+        }
+    }
+    if let Some(n) = &l.next_cycle {
+        let verdict = serde_json::to_value(n.verdict).unwrap_or_default();
+        let _ = write!(tail, "  next batch {}", verdict.as_str().unwrap_or("?"));
+    }
+    tail
 }
 
 /// `turnbook cycles LOT`.

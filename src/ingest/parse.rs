@@ -364,6 +364,7 @@ impl Layout {
                 }
             }
             match hits.as_slice() {
+                [] if spec.optional => {}
                 [] => {
                     let found: Vec<String> = cells.iter().map(|c| shown(c)).take(30).collect();
                     return Err(err(
@@ -455,6 +456,7 @@ impl Layout {
             lot: None,
             cycle_no: None,
             started_at: None,
+            feed_lot: None,
             values: Vec::new(),
         };
         for b in &self.bound {
@@ -473,6 +475,7 @@ impl Layout {
                     })?;
                 }
                 Field::Lot => row.lot = cell.text_value()?,
+                Field::FeedLot => row.feed_lot = cell.text_value()?,
                 Field::CycleNo => row.cycle_no = cell.cycle_no()?,
                 Field::StartedAt => {
                     row.started_at =

@@ -132,6 +132,10 @@ pub struct ColumnSpec {
     /// A unit symbol, or `"from-header"`; only for measured values.
     #[serde(default)]
     pub unit: Option<String>,
+    /// A column some files of the profile lack (a newer export layout): absent is not an
+    /// error, the field is then simply not recorded.
+    #[serde(default)]
+    pub optional: bool,
 }
 
 /// One instrument kind's export layout.
@@ -181,6 +185,8 @@ pub enum Field {
     Lot,
     CycleNo,
     StartedAt,
+    /// The substrate or feed lot a batch was charged from (text).
+    FeedLot,
     Measured(Quantity),
     Catalyst,
     Metal,
@@ -229,6 +235,7 @@ impl Field {
                 "lot" => Some(Field::Lot),
                 "cycle_no" => Some(Field::CycleNo),
                 "started_at" => Some(Field::StartedAt),
+                "feed_lot" => Some(Field::FeedLot),
                 other => Quantity::from_key(other).map(Field::Measured),
             },
             ProfileKind::Lots => match key {
@@ -254,6 +261,7 @@ impl Field {
             | Field::Catalyst
             | Field::Metal
             | Field::SupplierLot
+            | Field::FeedLot
             | Field::Family => FieldType::Text,
             Field::CycleNo => FieldType::Integer,
             Field::StartedAt => FieldType::DateTime,

@@ -33,6 +33,9 @@ pub struct CycleRow {
     pub cycle_no: Option<u32>,
     /// Batch start, as ISO 8601 (`YYYY-MM-DDTHH:MM:SS`, local plant time), when recorded.
     pub started_at: Option<String>,
+    /// The substrate or feed lot the batch was charged from, when recorded.
+    #[serde(default)]
+    pub feed_lot: Option<String>,
     pub values: Vec<MeasuredValue>,
 }
 

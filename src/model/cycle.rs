@@ -49,6 +49,9 @@ pub const CYCLE_COLUMNS: [&str; 11] = [
 pub const ATTR_LOT: &str = "lot";
 pub const ATTR_CYCLE_NO: &str = "cycle_no";
 pub const ATTR_STARTED_AT: &str = "started_at";
+/// The substrate or feed lot a batch was charged from: kept with the batch's measurements
+/// (with its file and line), not in the cycle view.
+pub const ATTR_FEED_LOT: &str = "feed_lot";
 
 /// The current value of one quantity among a batch's measurements (ordered by id): the
 /// latest correction if any, else the first observation. Returns the row.

@@ -60,6 +60,7 @@ pub fn lot_causes(cfg: &Config, state: &LotState) -> Option<CauseHints> {
                     .filter(|(_, s)| *s > 0.0)
                     .map(|(mm, s)| mm / s),
                 metal_in_product_ug_g: c.view.get(Quantity::MetalInProduct),
+                feed_lot: state.feed_lots.get(&c.view.batch_id).cloned(),
             }
         })
         .collect();

@@ -49,6 +49,8 @@ pub struct LotState {
     pub reference_moved: bool,
     /// Lot-level flags (e.g. `water-content-missing`), beside the cycles' own.
     pub lot_flags: Vec<String>,
+    /// The feed (or substrate) lot of each batch that recorded one, by batch id.
+    pub feed_lots: std::collections::BTreeMap<String, String>,
 }
 
 impl LotState {
@@ -151,6 +153,7 @@ pub fn lot_state_as_of(
             reference_cycle: None,
             reference_moved: false,
             lot_flags: Vec::new(),
+            feed_lots: Default::default(),
         });
     };
     let reference = add_metrics(cfg, &rec, &mut cycles);
@@ -184,6 +187,7 @@ pub fn lot_state_as_of(
         reference_cycle: reference.cycle,
         reference_moved: reference.moved,
         lot_flags,
+        feed_lots: records::feed_lots_of_lot(conn, lot)?,
     })
 }
 

@@ -13,7 +13,7 @@ use crate::ingest::{CycleRow, LotRow, ParsedFile};
 use crate::model::Payload;
 use crate::model::Quantity;
 use crate::model::cycle::{
-    self as view, ATTR_CYCLE_NO, ATTR_LOT, ATTR_STARTED_AT, CYCLE_COLUMNS, CycleView,
+    self as view, ATTR_CYCLE_NO, ATTR_FEED_LOT, ATTR_LOT, ATTR_STARTED_AT, CYCLE_COLUMNS, CycleView,
 };
 use crate::model::event::{FileIngestedRef, FileRow, FileRowRef, LotRecord, MeasurementRow};
 
@@ -799,6 +799,9 @@ fn merge_row(
     if let Some(t) = &row.started_at {
         merge(ATTR_STARTED_AT, V::Text(t), None, None);
     }
+    if let Some(f) = &row.feed_lot {
+        merge(ATTR_FEED_LOT, V::Text(f), None, None);
+    }
     for mv in &row.values {
         merge(
             mv.quantity.key(),
@@ -1047,4 +1050,26 @@ pub fn append_event(
     at: &str,
 ) -> Result<i64> {
     crate::store::events::append(tx, at, actor, subject, payload)
+}
+
+/// The feed (or substrate) lot of each batch of a lot that recorded one: batch id → the
+/// first observed value (feed lots are not corrected by hand).
+pub fn feed_lots_of_lot(
+    conn: &rusqlite::Connection,
+    lot: &str,
+) -> Result<std::collections::BTreeMap<String, String>> {
+    let mut st = conn.prepare_cached(
+        "SELECT m.batch_id, m.text FROM measurements m JOIN cycles c ON c.batch_id = m.batch_id
+         WHERE c.lot = ?1 AND m.quantity = ?2 AND m.kind = 'observed' AND m.text IS NOT NULL
+         ORDER BY m.id",
+    )?;
+    let rows = st.query_map(params![lot, ATTR_FEED_LOT], |r| {
+        Ok((r.get::<_, String>(0)?, r.get::<_, String>(1)?))
+    })?;
+    let mut out = std::collections::BTreeMap::new();
+    for row in rows {
+        let (batch, text) = row?;
+        out.entry(batch).or_insert(text);
+    }
+    Ok(out)
 }

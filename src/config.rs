@@ -371,6 +371,27 @@ impl Config {
         Ok(cfg)
     }
 
+    /// A fingerprint (SHA-256, hex) of every setting a lot's analysis depends on: the
+    /// chemistry, fitting and economics sections, the profiles (their assay
+    /// uncertainties), the sites (currencies), the lead times and the time zone. A stored
+    /// fit carries it, so `verify` recomputes only fits made under today's settings.
+    pub fn analysis_fingerprint(&self) -> String {
+        use sha2::{Digest, Sha256};
+        let text = format!(
+            "{:?}|{:?}|{:?}|{:?}|{:?}|{:?}|{:?}|{:?}|{:?}",
+            self.chemistry,
+            self.fitting,
+            self.economics,
+            self.profiles,
+            self.sites,
+            self.alerts.lead_cycles,
+            self.alerts.lead_days,
+            self.alerts.lead_days_by_catalyst,
+            self.time_zone
+        );
+        hex::encode(Sha256::digest(text.as_bytes()))
+    }
+
     /// The plant's time zone (validated at load; UTC when absent).
     pub fn zone(&self) -> chrono_tz::Tz {
         self.time_zone

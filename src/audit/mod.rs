@@ -6,7 +6,9 @@ mod verify;
 
 pub mod key;
 
-pub use verify::{Finding, SignOffCoverage, VerifyReport, Witnesses, verify, verify_with};
+pub use verify::{
+    Finding, FitCheck, SignOffCoverage, VerifyReport, Witnesses, verify, verify_with,
+};
 
 /// Who is acting: the configured name, else the OS user, else "unknown".
 pub fn actor(configured: Option<&str>) -> String {

@@ -51,6 +51,27 @@ pub struct VerifyReport {
     /// Each sign-off, and whether it still covers its lot's history. Not a finding: a
     /// later event about a lot is the normal course of things, and asks for a new review.
     pub signoffs: Vec<SignOffCoverage>,
+    /// The stored fits recomputed from the records (set by the application, which can
+    /// fit; a differing fit is also a finding).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub fits: Option<FitCheck>,
+}
+
+/// The lots' newest stored fits against a recomputation from the records.
+#[derive(Debug, Clone, Default, PartialEq, Serialize)]
+pub struct FitCheck {
+    /// Recomputed and identical.
+    pub identical: usize,
+    /// Recomputed and different (each is a finding).
+    pub differing: usize,
+    /// Stored by another engine version: not compared (a new version may change results).
+    pub other_engine: usize,
+    /// Computed under other settings than the configuration now: not compared.
+    pub other_configuration: usize,
+    /// Older than the lot's newest record (recomputed at the next start): not compared.
+    pub stale: usize,
+    /// Young lots whose fit rests on their family's stored fits, which move on: not compared.
+    pub family_prior: usize,
 }
 
 /// Whether a sign-off's fingerprint still matches the history of its lot.
@@ -549,6 +570,7 @@ pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport>
             unchecked_keyed_links: rule.unchecked,
             heads_checked: w.heads.len(),
             signoffs: Vec::new(),
+            fits: None,
         });
     }
 
@@ -678,6 +700,7 @@ pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport>
         unchecked_keyed_links: rule.unchecked,
         heads_checked: w.heads.len(),
         signoffs: signoff_coverage(conn, signoffs)?,
+        fits: None,
     })
 }
 

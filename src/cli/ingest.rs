@@ -86,6 +86,19 @@ pub fn verify(cfg: &Config, heads: &[crate::model::chain::Head], json: bool) -> 
         }
     }
     if !json {
+        if let Some(f) = &report.fits {
+            println!(
+                "stored fits: {} identical to a recomputation from the records, {} differing; \
+                 not compared: {} by another engine version, {} under other settings, {} older \
+                 than their lot's records, {} resting on a family prior",
+                f.identical,
+                f.differing,
+                f.other_engine,
+                f.other_configuration,
+                f.stale,
+                f.family_prior
+            );
+        }
         // Apart from the verdict: a sign-off that no longer covers is not tampering.
         for s in &report.signoffs {
             println!("{}", printable(&s.to_string()));

@@ -24,6 +24,7 @@ mod dates;
 mod entries;
 mod error;
 mod family;
+mod fitcheck;
 mod fits;
 mod history;
 mod ingestion;
@@ -80,5 +81,9 @@ pub fn verify(
     heads: &[crate::model::chain::Head],
 ) -> Result<crate::audit::VerifyReport> {
     let conn = crate::store::open(&cfg.database_path())?;
-    chain::verify_with_witnesses(cfg, &conn, heads)
+    let mut report = chain::verify_with_witnesses(cfg, &conn, heads)?;
+    let (fits, findings) = fitcheck::check_fits(&conn, cfg)?;
+    report.findings.extend(findings);
+    report.fits = Some(fits);
+    Ok(report)
 }

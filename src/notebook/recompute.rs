@@ -81,7 +81,7 @@ fn recompute_lot(
             &basis(cfg),
             None,
             "null",
-            fit::ENGINE_VERSION,
+            (fit::ENGINE_VERSION, &cfg.analysis_fingerprint()),
             &now_utc(),
         )?;
         return Ok(());
@@ -103,7 +103,7 @@ fn recompute_lot(
         &state.basis,
         model,
         &json,
-        fit::ENGINE_VERSION,
+        (fit::ENGINE_VERSION, &cfg.analysis_fingerprint()),
         &now_utc(),
     )?;
     super::alerts::raise(tx, cfg, &state, cause)?;

@@ -191,12 +191,13 @@ pub fn store_fit(
     basis: &str,
     model: Option<&str>,
     analysis_json: &str,
-    engine_version: &str,
+    (engine_version, config_sha256): (&str, &str),
     at: &str,
 ) -> Result<()> {
     tx.prepare_cached(
-        "INSERT INTO fits(lot, computed_at, after_seq, engine_version, basis, model, analysis)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
+        "INSERT INTO fits(lot, computed_at, after_seq, engine_version, basis, model, analysis,
+             config_sha256)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
     )?
     .execute(rusqlite::params![
         lot,
@@ -205,9 +206,38 @@ pub fn store_fit(
         engine_version,
         basis,
         model,
-        analysis_json
+        analysis_json,
+        config_sha256
     ])?;
     Ok(())
+}
+
+/// The newest stored fit of a lot, as `verify` recomputes it.
+#[derive(Debug, Clone)]
+pub struct StoredFit {
+    pub lot: String,
+    pub after_seq: i64,
+    pub engine_version: String,
+    pub config_sha256: Option<String>,
+    pub analysis: String,
+}
+
+/// Each lot's newest stored fit, by lot.
+pub fn newest_fits(conn: &Connection) -> Result<Vec<StoredFit>> {
+    let mut st = conn.prepare(
+        "SELECT f.lot, f.after_seq, f.engine_version, f.config_sha256, f.analysis FROM fits f
+         WHERE f.id = (SELECT MAX(g.id) FROM fits g WHERE g.lot = f.lot) ORDER BY f.lot",
+    )?;
+    let rows = st.query_map([], |r| {
+        Ok(StoredFit {
+            lot: r.get(0)?,
+            after_seq: r.get(1)?,
+            engine_version: r.get(2)?,
+            config_sha256: r.get(3)?,
+            analysis: r.get(4)?,
+        })
+    })?;
+    Ok(rows.collect::<rusqlite::Result<Vec<_>>>()?)
 }
 
 /// The event after which a lot was last fitted, if ever.

@@ -42,6 +42,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "alert_eased",
         include_str!("../../schema/0010_alert_eased.sql"),
     ),
+    (
+        11,
+        "fit_config",
+        include_str!("../../schema/0011_fit_config.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

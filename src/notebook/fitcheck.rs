@@ -1,0 +1,173 @@
+//! `verify`'s check of the stored fits: each lot's newest fit is recomputed from the
+//! records and compared with the stored one. Fits are derived data, outside the audit
+//! chain, but reports and alerts rest on them, so an edited row must not pass. A fit made
+//! by another engine version or under other settings is counted, not compared: a new
+//! version or a changed criterion changes results without anyone tampering.
+
+use serde_json::Value;
+
+use super::error::Result;
+use super::lots::lot_state;
+use crate::audit::{Finding, FitCheck};
+use crate::config::Config;
+use crate::fit;
+use crate::store::{self, Connection};
+
+/// Keys whose value depends on the day of computing, not on the records.
+const VOLATILE: [&str; 1] = ["as_of"];
+
+fn strip(v: &mut Value) {
+    match v {
+        Value::Object(m) => {
+            for k in VOLATILE {
+                m.remove(k);
+            }
+            m.values_mut().for_each(strip);
+        }
+        Value::Array(a) => a.iter_mut().for_each(strip),
+        _ => {}
+    }
+}
+
+/// The first place two JSON values differ, as a path ("forecast.x").
+fn first_difference(a: &Value, b: &Value, path: &str) -> Option<String> {
+    let here = || {
+        if path.is_empty() {
+            "(the whole analysis)".to_string()
+        } else {
+            path.to_string()
+        }
+    };
+    match (a, b) {
+        (Value::Object(x), Value::Object(y)) => {
+            let keys: std::collections::BTreeSet<&String> = x.keys().chain(y.keys()).collect();
+            keys.into_iter().find_map(|k| {
+                let p = if path.is_empty() {
+                    k.clone()
+                } else {
+                    format!("{path}.{k}")
+                };
+                match (x.get(k), y.get(k)) {
+                    (Some(u), Some(w)) => first_difference(u, w, &p),
+                    _ => Some(p),
+                }
+            })
+        }
+        (Value::Array(x), Value::Array(y)) if x.len() == y.len() => x
+            .iter()
+            .zip(y)
+            .enumerate()
+            .find_map(|(i, (u, w))| first_difference(u, w, &format!("{path}[{i}]"))),
+        _ => (a != b).then(here),
+    }
+}
+
+fn has_prior(v: &Value) -> bool {
+    v.get("pooled").is_some_and(|p| !p.is_null())
+}
+
+/// Recompute each lot's newest stored fit made by this engine under these settings.
+pub fn check_fits(conn: &Connection, cfg: &Config) -> Result<(FitCheck, Vec<Finding>)> {
+    let mut check = FitCheck::default();
+    let mut findings = Vec::new();
+    let fingerprint = cfg.analysis_fingerprint();
+    for f in store::lots::newest_fits(conn)? {
+        if f.engine_version != fit::ENGINE_VERSION {
+            check.other_engine += 1;
+            continue;
+        }
+        if f.config_sha256.as_deref() != Some(fingerprint.as_str()) {
+            check.other_configuration += 1;
+            continue;
+        }
+        if store::lots::newest_seq_of(conn, &f.lot)? != f.after_seq {
+            check.stale += 1;
+            continue;
+        }
+        let finding = |stored: String, expected: String| Finding {
+            table: "fits".into(),
+            row: f.lot.clone(),
+            field: "analysis".into(),
+            stored,
+            expected,
+        };
+        let Ok(mut stored) = serde_json::from_str::<Value>(&f.analysis) else {
+            check.differing += 1;
+            findings.push(finding("unreadable JSON".into(), "an analysis".into()));
+            continue;
+        };
+        let state = lot_state(conn, cfg, &f.lot)?;
+        let mut fresh = match &state.analysis {
+            Some(a) => serde_json::to_value(a).map_err(store::StoreError::from)?,
+            None => Value::Null,
+        };
+        if has_prior(&stored) || has_prior(&fresh) {
+            check.family_prior += 1;
+            continue;
+        }
+        strip(&mut stored);
+        strip(&mut fresh);
+        match first_difference(&stored, &fresh, "") {
+            None => check.identical += 1,
+            Some(path) => {
+                check.differing += 1;
+                findings.push(finding(
+                    format!("{path} = {}", pick(&stored, &path)),
+                    format!("{} (recomputed from the records)", pick(&fresh, &path)),
+                ));
+            }
+        }
+    }
+    Ok((check, findings))
+}
+
+/// The value at a path such as `forecast.x` or `ranking[2].rss`, shortened for a line.
+fn pick(v: &Value, path: &str) -> String {
+    let mut cur = v;
+    for part in path.split('.') {
+        let (name, index) = match part.split_once('[') {
+            Some((n, rest)) => (n, rest.trim_end_matches(']').parse::<usize>().ok()),
+            None => (part, None),
+        };
+        if !name.is_empty() {
+            match cur.get(name) {
+                Some(x) => cur = x,
+                None => return "(absent)".into(),
+            }
+        }
+        if let Some(i) = index {
+            match cur.get(i) {
+                Some(x) => cur = x,
+                None => return "(absent)".into(),
+            }
+        }
+    }
+    let s = cur.to_string();
+    if s.chars().count() > 80 {
+        format!("{}…", s.chars().take(80).collect::<String>())
+    } else {
+        s
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn differences_are_found_by_path_and_volatile_keys_ignored() {
+        let mut a: Value =
+            serde_json::json!({"forecast": {"x": 16.4, "as_of": "2026-12-01"}, "n": [1, 2]});
+        let mut b: Value =
+            serde_json::json!({"forecast": {"x": 16.4, "as_of": "2026-12-02"}, "n": [1, 2]});
+        strip(&mut a);
+        strip(&mut b);
+        assert_eq!(first_difference(&a, &b, ""), None);
+        let c: Value = serde_json::json!({"forecast": {"x": 17.0}, "n": [1, 2]});
+        assert_eq!(first_difference(&a, &c, "").as_deref(), Some("forecast.x"));
+        assert_eq!(pick(&c, "forecast.x"), "17.0");
+        let d: Value = serde_json::json!({"forecast": {"x": 16.4}, "n": [1, 3]});
+        assert_eq!(first_difference(&a, &d, "").as_deref(), Some("n[1]"));
+        assert_eq!(pick(&d, "n[1]"), "3");
+    }
+}

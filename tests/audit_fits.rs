@@ -1,0 +1,97 @@
+//! `verify` recomputes each lot's newest stored fit from the records: an edited fit is a
+//! finding naming the table, the lot and the first field that differs; a fit made under
+//! settings changed since is counted apart, not called tampering. Through the binary on
+//! the demo plant (without its live part).
+
+use std::path::PathBuf;
+use std::process::{Command, Output};
+
+fn run(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_turnbook"))
+        .args(args)
+        .env_remove("TURNBOOK_SMTP_URL")
+        .env_remove("RUST_LOG")
+        .output()
+        .unwrap()
+}
+
+fn demo() -> (tempfile::TempDir, PathBuf) {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path().join("plant");
+    let out = run(&["demo", "--dir", dir.to_str().unwrap(), "--no-live"]);
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    (tmp, dir)
+}
+
+fn verify(dir: &std::path::Path) -> (Option<i32>, serde_json::Value, String) {
+    let cfg = dir.join("turnbook.toml");
+    let out = run(&["--config", cfg.to_str().unwrap(), "verify", "--json"]);
+    let json = serde_json::from_slice(&out.stdout).unwrap_or_default();
+    let text = run(&["--config", cfg.to_str().unwrap(), "verify"]);
+    (
+        out.status.code(),
+        json,
+        String::from_utf8_lossy(&text.stdout).into_owned(),
+    )
+}
+
+#[test]
+fn an_edited_fit_is_caught_and_changed_settings_are_not_tampering() {
+    let (_tmp, dir) = demo();
+    let (code, v, text) = verify(&dir);
+    assert_eq!(code, Some(0), "{text}");
+    // PD-C-2611-A, PT-AL-2610-B and the pending lot's empty fit recompute identically;
+    // the young lot rests on its family's prior.
+    assert_eq!(v["fits"]["identical"], 3, "{v}");
+    assert_eq!(v["fits"]["family_prior"], 1, "{v}");
+    assert!(text.contains("stored fits: 3 identical"), "{text}");
+
+    // Someone moves the Pd lot's forecast two cycles later in the stored fit.
+    let db = rusqlite::Connection::open(dir.join("turnbook.db")).unwrap();
+    let (id, analysis): (i64, String) = db
+        .query_row(
+            "SELECT id, analysis FROM fits WHERE lot = 'PD-C-2611-A' ORDER BY id DESC LIMIT 1",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .unwrap();
+    let mut a: serde_json::Value = serde_json::from_str(&analysis).unwrap();
+    let x = a["forecast"]["x"].as_f64().unwrap();
+    a["forecast"]["x"] = serde_json::json!(x + 2.0);
+    db.execute(
+        "UPDATE fits SET analysis = ?1 WHERE id = ?2",
+        rusqlite::params![a.to_string(), id],
+    )
+    .unwrap();
+    let (code, v, text) = verify(&dir);
+    assert_eq!(code, Some(1), "{text}");
+    assert_eq!(v["fits"]["differing"], 1, "{v}");
+    assert!(
+        text.contains("table fits, row PD-C-2611-A, field analysis: stored forecast.x = "),
+        "{text}"
+    );
+    // Put back, then change the criterion in the configuration: the stored fits were made
+    // under other settings; counted, not a finding.
+    db.execute(
+        "UPDATE fits SET analysis = ?1 WHERE id = ?2",
+        rusqlite::params![analysis, id],
+    )
+    .unwrap();
+    let cfg = dir.join("turnbook.toml");
+    let text_cfg = std::fs::read_to_string(&cfg).unwrap();
+    assert!(text_cfg.contains("criterion_fraction = 0.5"));
+    std::fs::write(
+        &cfg,
+        text_cfg.replace("criterion_fraction = 0.5", "criterion_fraction = 0.6"),
+    )
+    .unwrap();
+    let (code, v, text) = verify(&dir);
+    assert_eq!(code, Some(0), "{text}");
+    assert_eq!(v["fits"]["other_configuration"], 4, "{v}");
+    assert_eq!(v["fits"]["identical"], 0, "{v}");
+}

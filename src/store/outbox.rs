@@ -284,40 +284,28 @@ fn parse_state(key: &str, state: &str, sev: i64) -> Result<(AlertState, Severity
     }
 }
 
-/// Alerts whose condition is currently open or worse, most severe first.
+/// Alerts whose condition is currently open (open, worse or eased), most severe first,
+/// then by lot and rule.
 pub fn open_alerts(conn: &Connection) -> Result<Vec<OpenAlert>> {
-    let mut st = conn.prepare(
-        "SELECT c.alert_key, c.rule, c.lot, c.state, c.severity, c.changed_at, \
-                COALESCE((SELECT o.subject FROM alert_outbox o WHERE o.alert_key = c.alert_key \
-                          ORDER BY o.id DESC LIMIT 1), '') \
-         FROM alert_condition c WHERE c.state <> 'cleared' \
-         ORDER BY c.severity DESC, c.lot, c.rule",
-    )?;
-    let rows = st.query_map([], |r| {
-        Ok((
-            r.get::<_, String>(0)?,
-            r.get::<_, String>(1)?,
-            r.get::<_, String>(2)?,
-            r.get::<_, String>(3)?,
-            r.get::<_, i64>(4)?,
-            r.get::<_, String>(5)?,
-            r.get::<_, String>(6)?,
-        ))
-    })?;
-    let mut out = Vec::new();
-    for row in rows {
-        let (key, rule, lot, state, sev, since, subject) = row?;
-        let (state, severity) = parse_state(&key, &state, sev)?;
-        out.push(OpenAlert {
-            state,
-            severity,
-            key,
-            rule,
-            lot,
-            since,
-            subject,
-        });
-    }
+    let mut out: Vec<OpenAlert> = conditions(conn)?
+        .into_iter()
+        .filter(|c| c.state != AlertState::Cleared)
+        .map(|c| OpenAlert {
+            key: c.key,
+            rule: c.rule,
+            lot: c.lot,
+            state: c.state,
+            severity: c.severity,
+            since: c.changed_at,
+            subject: c.subject,
+        })
+        .collect();
+    out.sort_by(|a, b| {
+        b.severity
+            .cmp(&a.severity)
+            .then_with(|| a.lot.cmp(&b.lot))
+            .then_with(|| a.rule.cmp(&b.rule))
+    });
     Ok(out)
 }
 

@@ -3,17 +3,10 @@
 //! can be acknowledged and closed with the act in the audit trail, and a file notice
 //! closes itself when the repaired file is ingested.
 
-use std::path::PathBuf;
-use std::process::{Command, Output};
+mod common;
+use common::run;
 
-fn run(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_turnbook"))
-        .args(args)
-        .env_remove("TURNBOOK_SMTP_URL")
-        .env_remove("RUST_LOG")
-        .output()
-        .unwrap()
-}
+use std::path::PathBuf;
 
 struct Plant {
     _tmp: tempfile::TempDir,

@@ -15,18 +15,11 @@
 //!
 //! The criterion is half the fresh activity; the lead is 5 cycles.
 
+mod common;
+use common::run;
+
 use std::fmt::Write as _;
 use std::path::Path;
-use std::process::{Command, Output};
-
-fn run(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_turnbook"))
-        .args(args)
-        .env_remove("TURNBOOK_SMTP_URL")
-        .env_remove("RUST_LOG")
-        .output()
-        .unwrap()
-}
 
 const CONFIG: &str = r#"
 database = "t.db"

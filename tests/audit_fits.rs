@@ -3,17 +3,10 @@
 //! settings changed since is counted apart, not called tampering. Through the binary on
 //! the demo plant (without its live part).
 
-use std::path::PathBuf;
-use std::process::{Command, Output};
+mod common;
+use common::run;
 
-fn run(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_turnbook"))
-        .args(args)
-        .env_remove("TURNBOOK_SMTP_URL")
-        .env_remove("RUST_LOG")
-        .output()
-        .unwrap()
-}
+use std::path::PathBuf;
 
 fn demo() -> (tempfile::TempDir, PathBuf) {
     let tmp = tempfile::tempdir().unwrap();

@@ -3,20 +3,13 @@
 //! nothing, a report of an event that does not exist. Through the real binary on the demo
 //! plant (without its live part).
 
+mod common;
+use common::run;
+
 use std::path::PathBuf;
-use std::process::{Command, Output};
 
 const LOT: &str = "PD-C-2611-A";
 const BATCH: &str = "KV4-H-005";
-
-fn run(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_turnbook"))
-        .args(args)
-        .env_remove("TURNBOOK_SMTP_URL")
-        .env_remove("RUST_LOG")
-        .output()
-        .unwrap()
-}
 
 struct Plant {
     _tmp: tempfile::TempDir,

@@ -8,17 +8,10 @@
 //! the prior. Batches run 90 min on 1.0 mol substrate with a constant charge, so activity
 //! is the ratio of k_app = −ln(1 − X)/t to the first cycle's.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+mod common;
+use common::run;
 
-fn run(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_turnbook"))
-        .args(args)
-        .env_remove("TURNBOOK_SMTP_URL")
-        .env_remove("RUST_LOG")
-        .output()
-        .unwrap()
-}
+use std::path::{Path, PathBuf};
 
 fn text(b: &[u8]) -> String {
     String::from_utf8_lossy(b).into_owned()

@@ -4,21 +4,12 @@
 //! binary and the application layer, on the demo plant (without its live part).
 
 mod common;
+use common::run;
 
 use std::path::PathBuf;
-use std::process::{Command, Output};
 
 use turnbook::config::Config;
 use turnbook::notebook::{known_lot, lot_series};
-
-fn run(args: &[&str]) -> Output {
-    Command::new(common::turnbook_binary())
-        .args(args)
-        .env_remove("TURNBOOK_SMTP_URL")
-        .env_remove("RUST_LOG")
-        .output()
-        .unwrap()
-}
 
 struct Plant {
     _tmp: tempfile::TempDir,

@@ -2,20 +2,14 @@
 //! part): exit statuses, register, correct, exclude, note, sign-off, history, cycles,
 //! status, fit, report, tampering found by verify, and markup in names kept inert.
 
+mod common;
+use common::run;
+
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+use std::process::Command;
 
 const LOT: &str = "PD-C-2611-A";
 const BATCH: &str = "KV4-H-003";
-
-fn run(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_turnbook"))
-        .args(args)
-        .env_remove("TURNBOOK_SMTP_URL")
-        .env_remove("RUST_LOG")
-        .output()
-        .unwrap()
-}
 
 fn text(b: &[u8]) -> String {
     String::from_utf8_lossy(b).into_owned()

@@ -5,19 +5,12 @@
 //! comments, later events) and `history` (comments and notes, text and `--json`), with
 //! `verify` clean throughout.
 
+mod common;
+use common::run;
+
 use std::path::PathBuf;
-use std::process::{Command, Output};
 
 const LOT: &str = "PD-C-2611-A";
-
-fn run(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_turnbook"))
-        .args(args)
-        .env_remove("TURNBOOK_SMTP_URL")
-        .env_remove("RUST_LOG")
-        .output()
-        .unwrap()
-}
 
 fn text(b: &[u8]) -> String {
     String::from_utf8_lossy(b).into_owned()

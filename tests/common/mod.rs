@@ -59,3 +59,14 @@ profile = "reactor"
     std::fs::write(&path, text).unwrap();
     turnbook::config::Config::load(&path).unwrap()
 }
+
+/// Run the built `turnbook` with `args`, without the caller's SMTP URL or log filter (so a
+/// developer's environment cannot send mail or change what a test reads).
+pub fn run(args: &[&str]) -> std::process::Output {
+    Command::new(env!("CARGO_BIN_EXE_turnbook"))
+        .args(args)
+        .env_remove("TURNBOOK_SMTP_URL")
+        .env_remove("RUST_LOG")
+        .output()
+        .unwrap()
+}

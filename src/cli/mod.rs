@@ -311,6 +311,8 @@ pub fn init_logging(json: bool, service: bool) {
     } else {
         layer.with_ansi(std::io::stderr().is_terminal()).boxed()
     };
+    // The web view's "problems by kind" count what this log shows at warn and error.
+    let layer = layer.and_then(crate::web::ProblemTally);
     let filter = tracing_subscriber::filter::FilterExt::and(env, no_mail_protocol);
     tracing_subscriber::registry()
         .with(layer.with_filter(filter))

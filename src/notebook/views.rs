@@ -182,6 +182,8 @@ pub struct OpsFigures {
     pub outbox_oldest_queued_at: Option<String>,
     pub last_ingest_at: Option<String>,
     pub events: i64,
+    /// Fits computed and stored since the database began.
+    pub fits_stored: i64,
 }
 
 /// Read the operations figures; an error means the database is not reachable.
@@ -197,6 +199,7 @@ pub fn ops_figures(cfg: &Config) -> Result<OpsFigures> {
         outbox_oldest_queued_at: store::web::oldest_waiting(&conn)?,
         last_ingest_at: c.last.map(|l| l.1),
         events: head.map_or(0, |h| h.seq),
+        fits_stored: store::web::fits_stored(&conn)?,
     })
 }
 

@@ -100,6 +100,12 @@ pub fn chain_head(conn: &Connection) -> Result<Option<ChainHead>> {
         .optional()?)
 }
 
+/// How many fits have been computed and stored: fits are only ever appended (a lot's
+/// history keeps every one), so the newest id counts them.
+pub fn fits_stored(conn: &Connection) -> Result<i64> {
+    Ok(conn.query_row("SELECT COALESCE(MAX(id), 0) FROM fits", [], |r| r.get(0))?)
+}
+
 /// When the oldest message still waiting for delivery was queued.
 pub fn oldest_waiting(conn: &Connection) -> Result<Option<String>> {
     Ok(conn.query_row(

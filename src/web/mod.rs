@@ -29,6 +29,7 @@ use crate::config::{Config, Web};
 use crate::notebook::{ServiceContext, SideTask};
 use state::Shared;
 
+pub use counters::{ProblemTally, problem_counts};
 pub use token::Token;
 
 /// Why the web view cannot start.
@@ -66,6 +67,8 @@ impl WebView {
             .route("/audit", get(pages::audit))
             .route("/assets/style.css", get(assets::style))
             .route("/assets/live.js", get(assets::script))
+            .route("/assets/icon.svg", get(assets::icon))
+            .route("/favicon.ico", get(assets::icon))
             .route("/events", get(live::events))
             .route("/api/lots", get(api::lots))
             .route("/api/lots/{lot}", get(api::lot))

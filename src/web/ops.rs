@@ -70,6 +70,7 @@ pub async fn metrics(State(s): State<Arc<Shared>>) -> Response {
     notebook_metrics(&mut out, figures.as_ref(), watching);
     let (counts, latency) = s.metrics.snapshot();
     request_metrics(&mut out, &counts, &latency);
+    problem_metrics(&mut out, &crate::web::problem_counts());
     let mut r = out.into_response();
     r.headers_mut().insert(
         header::CONTENT_TYPE,
@@ -161,6 +162,13 @@ fn notebook_metrics(out: &mut String, f: Option<&OpsFigures>, watching: bool) {
         "Age of the oldest undelivered message (0 when none waits).",
         oldest,
     );
+    sample(
+        out,
+        "turnbook_fits_recomputed_total",
+        "counter",
+        "Lot fits computed and stored (each change to a lot's records refits it).",
+        f.fits_stored as f64,
+    );
     if let Some(t) = f.last_ingest_at.as_deref().and_then(|t| parse_ts(t).ok()) {
         sample(
             out,
@@ -215,5 +223,26 @@ fn request_metrics(
         );
         let _ = writeln!(out, "{name}_sum{{route=\"{r}\"}} {}", number(l.sum));
         let _ = writeln!(out, "{name}_count{{route=\"{r}\"}} {}", l.count);
+    }
+}
+
+/// Warnings and errors logged since the process started, by level and kind (the log
+/// line's message, e.g. "file rejected and quarantined", "alert delivery failed").
+fn problem_metrics(
+    out: &mut String,
+    counts: &std::collections::BTreeMap<(&'static str, String), u64>,
+) {
+    family(
+        out,
+        "turnbook_problems_total",
+        "counter",
+        "Warnings and errors logged since start, by level and kind (the log message).",
+    );
+    for ((level, kind), n) in counts {
+        let _ = writeln!(
+            out,
+            "turnbook_problems_total{{level=\"{level}\",kind=\"{}\"}} {n}",
+            label(kind)
+        );
     }
 }

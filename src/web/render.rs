@@ -24,6 +24,7 @@ pub fn page(title: &str, here: &str, content: Markup) -> Markup {
                 meta name="viewport" content="width=device-width, initial-scale=1";
                 title { (title) " · turnbook" }
                 link rel="stylesheet" href="/assets/style.css";
+                link rel="icon" type="image/svg+xml" href="/assets/icon.svg";
                 script src="/assets/live.js" defer {}
             }
             body {

@@ -1,18 +1,15 @@
 //! `verify`: walk the chain, then rebuild every record table from the event payloads and
 //! compare it with what is stored. The first broken link is reported with what changed.
 
-use std::collections::{BTreeMap, HashMap};
+use std::collections::HashMap;
 
 use serde::Serialize;
 
-use crate::model::Payload;
 use crate::model::chain::{
     ChainKey, GENESIS, Head, SIGN_OFF_KIND, event_hash, history_fingerprint, key_proof,
     keyed_event_hash,
 };
 use crate::model::cycle::{self as view, CYCLE_COLUMNS};
-use crate::model::event::{FileRow, LotRecord, MeasurementRow};
-use crate::store::records::{all_cycles, all_lots};
 use crate::store::{self, Connection, Result};
 
 /// One discrepancy.
@@ -55,6 +52,11 @@ pub struct VerifyReport {
     /// fit; a differing fit is also a finding).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub fits: Option<FitCheck>,
+    /// The verified head the walk started after (0: a full verification from the first
+    /// event; else only the events after it and the rows they wrote were checked).
+    pub from_seq: i64,
+    /// The newest event whose link checked out.
+    pub head_seq: i64,
 }
 
 /// The lots' newest stored fits against a recomputation from the records.
@@ -107,11 +109,11 @@ impl std::fmt::Display for SignOffCoverage {
 }
 
 /// A sign-off met in the walk: its event, lot, meaning and the fingerprint it signed.
-struct SignOffSeen {
-    seq: i64,
-    lot: String,
-    meaning: String,
-    signed: String,
+pub(super) struct SignOffSeen {
+    pub(super) seq: i64,
+    pub(super) lot: String,
+    pub(super) meaning: String,
+    pub(super) signed: String,
 }
 
 /// Each sign-off against the history of its lot as it stands, and as it stood before the
@@ -191,16 +193,16 @@ pub struct Witnesses<'a> {
 }
 
 /// How the chain's links are checked: the keying as stored, and the key if given.
-struct LinkRule<'a> {
-    keying: Option<(i64, String)>,
-    key: Option<&'a ChainKey>,
-    unchecked: i64,
-    switch_seen: bool,
+pub(super) struct LinkRule<'a> {
+    pub(super) keying: Option<(i64, String)>,
+    pub(super) key: Option<&'a ChainKey>,
+    pub(super) unchecked: i64,
+    pub(super) switch_seen: bool,
 }
 
 impl LinkRule<'_> {
     /// Check one event's link; false when it is broken (a finding was pushed).
-    fn check(
+    pub(super) fn check(
         &mut self,
         out: &mut Vec<Finding>,
         e: &store::replay::StoredEvent,
@@ -240,7 +242,7 @@ impl LinkRule<'_> {
     }
 
     /// A `chain-keyed` event at `seq` with `proof`, whose link continues from `prev`.
-    fn switch(&mut self, out: &mut Vec<Finding>, seq: i64, prev: &str, proof: &str) {
+    pub(super) fn switch(&mut self, out: &mut Vec<Finding>, seq: i64, prev: &str, proof: &str) {
         match &self.keying {
             Some((s, stored)) if *s == seq => {
                 self.switch_seen = true;
@@ -273,7 +275,7 @@ impl LinkRule<'_> {
     }
 
     /// Keyed links that could not be checked, as one finding.
-    fn unchecked(&self, out: &mut Vec<Finding>) {
+    pub(super) fn unchecked(&self, out: &mut Vec<Finding>) {
         if self.unchecked > 0 {
             let first = self.keying.as_ref().map_or(0, |k| k.0) + 1;
             push(
@@ -288,7 +290,7 @@ impl LinkRule<'_> {
     }
 
     /// After the walk: the keying row against the events and the key.
-    fn finish(&self, out: &mut Vec<Finding>, events: i64) {
+    pub(super) fn finish(&self, out: &mut Vec<Finding>, events: i64) {
         match (&self.keying, self.key) {
             (None, Some(_)) if events > 0 => push(
                 out,
@@ -323,9 +325,9 @@ impl LinkRule<'_> {
 }
 
 /// Each published head must be an event the chain still holds, with the same hash.
-fn check_heads(out: &mut Vec<Finding>, heads: &[Head], seen: &HashMap<i64, String>) {
+fn check_heads(conn: &Connection, out: &mut Vec<Finding>, heads: &[Head]) -> Result<()> {
     for h in heads {
-        match seen.get(&h.seq) {
+        match store::replay::event_hash_at(conn, h.seq)? {
             None => push(
                 out,
                 "events",
@@ -334,7 +336,7 @@ fn check_heads(out: &mut Vec<Finding>, heads: &[Head], seen: &HashMap<i64, Strin
                 "missing",
                 format!("present: the published head {h} (newest events deleted)"),
             ),
-            Some(hash) if *hash != h.hash => push(
+            Some(hash) if hash != h.hash => push(
                 out,
                 "events",
                 h.seq,
@@ -348,9 +350,10 @@ fn check_heads(out: &mut Vec<Finding>, heads: &[Head], seen: &HashMap<i64, Strin
             Some(_) => {}
         }
     }
+    Ok(())
 }
 
-fn push(
+pub(super) fn push(
     out: &mut Vec<Finding>,
     table: &str,
     row: impl ToString,
@@ -368,7 +371,7 @@ fn push(
 }
 
 /// Compare two serialisable rows field by field.
-fn diff_rows<T: Serialize>(
+pub(super) fn diff_rows<T: Serialize>(
     out: &mut Vec<Finding>,
     table: &str,
     key: &str,
@@ -388,375 +391,104 @@ fn diff_rows<T: Serialize>(
     }
 }
 
-/// Replay one measurement; an id given twice is a finding (ids are unique by construction,
-/// and only the event log holds them now).
-fn insert_measurement(
-    findings: &mut Vec<Finding>,
-    measurements: &mut BTreeMap<i64, (MeasurementRow, i64)>,
-    m: MeasurementRow,
-    seq: i64,
-) {
-    let id = m.id;
-    if let Some((_, earlier)) = measurements.insert(id, (m, seq)) {
-        push(
-            findings,
-            "measurements",
-            id,
-            "id",
-            format!("written again by event {seq}"),
-            format!("written once (first by event {earlier})"),
-        );
-    }
-}
-
-/// A row of `batch_sources`: an event wrote values of a batch from a file line.
-#[derive(Debug, Clone, PartialEq, Serialize)]
-struct SourceLink {
-    batch_id: String,
-    line: i64,
-    source_file_id: Option<i64>,
-}
-
-impl SourceLink {
-    fn key(&self, seq: i64) -> String {
-        format!("{}/{seq}/{}", self.batch_id, self.line)
-    }
-}
-
 /// Verify the whole database with no key and no published head.
 pub fn verify(conn: &Connection) -> Result<VerifyReport> {
     verify_with(conn, &Witnesses::default())
 }
 
-/// Verify the whole database, checking keyed links with `w.key` and the heads `w.heads`.
+/// Verify the whole database, checking keyed links with `w.key` and the heads `w.heads`:
+/// one streaming walk over the events, in memory bounded by a stretch of events and one
+/// batch, not by the size of the database.
 pub fn verify_with(conn: &Connection, w: &Witnesses<'_>) -> Result<VerifyReport> {
-    let mut findings = Vec::new();
-    let mut rule = LinkRule {
-        keying: store::events::keying(conn)?,
-        key: w.key,
-        unchecked: 0,
-        switch_seen: false,
-    };
-    let head_seqs: std::collections::HashSet<i64> = w.heads.iter().map(|h| h.seq).collect();
-    let mut head_hashes: HashMap<i64, String> = HashMap::new();
-    let mut files: BTreeMap<i64, (FileRow, i64)> = BTreeMap::new();
-    let mut measurements: BTreeMap<i64, (MeasurementRow, i64)> = BTreeMap::new();
-    let mut lots: BTreeMap<String, (LotRecord, i64)> = BTreeMap::new();
-    let mut excluded: HashMap<String, bool> = HashMap::new();
-    let mut first_seq: HashMap<String, i64> = HashMap::new();
-    let mut signoffs: Vec<SignOffSeen> = Vec::new();
+    run(conn, w, 0, GENESIS.to_string())
+}
 
-    // 1. The chain itself.
-    let mut prev = GENESIS.to_string();
-    let mut expected_seq = 1i64;
-    let mut count = 0i64;
-    let mut stopped = false;
-    store::replay::for_each_event(conn, |e| {
-        if head_seqs.contains(&e.seq) {
-            head_hashes.insert(e.seq, e.hash.clone());
-        }
-        if e.seq == expected_seq && e.prev_hash == prev && !rule.check(&mut findings, &e, &prev) {
-            count += 1;
-            stopped = true;
-            return Ok(false);
-        }
-        let store::replay::StoredEvent {
-            seq,
-            kind,
-            payload: body,
-            prev_hash,
-            hash,
-            ..
-        } = e;
-        count += 1;
-        if seq != expected_seq {
+/// Verify only what came after a verified head `since` (`SEQ:HASH`): the head must still
+/// be in the chain as it was, the links after it are checked and the rows the later
+/// events wrote compared (cycles rebuilt from all the events of each batch they touched).
+/// Rows older events wrote are not compared again: that is the full verification's job.
+pub fn verify_since(conn: &Connection, w: &Witnesses<'_>, since: &Head) -> Result<VerifyReport> {
+    let snap = store::replay::snapshot(conn)?;
+    match store::replay::event_hash_at(&snap, since.seq)? {
+        Some(h) if h == since.hash => {}
+        found => {
+            let mut findings = Vec::new();
             push(
                 &mut findings,
                 "events",
-                seq,
-                "seq",
-                seq,
-                format!("{expected_seq} (an event is missing)"),
+                since.seq,
+                "hash",
+                found.as_deref().unwrap_or("missing"),
+                format!("{} (the head verified last: the event was rewritten or deleted)", since.hash),
             );
-            stopped = true;
-            return Ok(false);
+            return Ok(VerifyReport {
+                events: 0,
+                head_hash: since.hash.clone(),
+                findings,
+                keyed_after: None,
+                unchecked_keyed_links: 0,
+                heads_checked: 0,
+                signoffs: Vec::new(),
+                fits: None,
+                from_seq: since.seq,
+                head_seq: since.seq,
+            });
         }
-        if prev_hash != prev {
-            push(&mut findings, "events", seq, "prev_hash", &prev_hash, &prev);
-            stopped = true;
-            return Ok(false);
-        }
-        let payload: Payload = match serde_json::from_str(&body) {
-            Ok(p) => p,
-            Err(e) => {
-                push(
-                    &mut findings,
-                    "events",
-                    seq,
-                    "payload",
-                    "unreadable",
-                    format!("a valid payload ({e})"),
-                );
-                stopped = true;
-                return Ok(false);
-            }
-        };
-        if payload.kind() != kind {
-            push(&mut findings, "events", seq, "kind", &kind, payload.kind());
-        }
-        // 2. Replay what the event wrote.
-        match payload {
-            Payload::FileIngested {
-                file,
-                measurements: ms,
-                lots: ls,
-            } => {
-                for m in ms {
-                    first_seq.entry(m.batch_id.clone()).or_insert(seq);
-                    insert_measurement(&mut findings, &mut measurements, m, seq);
-                }
-                for l in ls {
-                    lots.insert(l.lot.clone(), (l, seq));
-                }
-                files.insert(file.id, (file, seq));
-            }
-            Payload::FileDuplicate { file, .. } | Payload::FileRejected { file } => {
-                files.insert(file.id, (file, seq));
-            }
-            Payload::LotRegistered { lot, .. } => {
-                lots.insert(lot.lot.clone(), (lot, seq));
-            }
-            Payload::Correction { measurement, .. } => {
-                insert_measurement(&mut findings, &mut measurements, measurement, seq);
-            }
-            Payload::Exclusion {
-                batch_id,
-                excluded: ex,
-                ..
-            } => {
-                excluded.insert(batch_id, ex);
-            }
-            Payload::ChainKeyed { key_proof, .. } => {
-                rule.switch(&mut findings, seq, &prev, &key_proof);
-            }
-            Payload::SignOff {
-                lot,
-                meaning,
-                signed_sha256,
-                ..
-            } => signoffs.push(SignOffSeen {
-                seq,
-                lot,
-                meaning,
-                signed: signed_sha256,
-            }),
-            Payload::Note { .. } | Payload::AlertAction { .. } => {}
-        }
-        prev = hash;
-        expected_seq += 1;
-        Ok(true)
-    })?;
-    if !stopped {
-        rule.finish(&mut findings, count);
     }
-    check_heads(&mut findings, &w.heads, &head_hashes);
-    rule.unchecked(&mut findings);
-    if stopped {
-        return Ok(VerifyReport {
-            events: count,
-            head_hash: prev,
-            findings,
-            keyed_after: rule.keying.map(|k| k.0),
-            unchecked_keyed_links: rule.unchecked,
-            heads_checked: w.heads.len(),
-            signoffs: Vec::new(),
-            fits: None,
-        });
-    }
+    drop(snap);
+    run(conn, w, since.seq, since.hash.clone())
+}
 
-    // 3. Stored tables against the replay.
-    let stored_files = store::replay::file_rows(conn)?;
-    compare_keyed(
-        &mut findings,
-        "source_files",
-        stored_files
-            .into_iter()
-            .map(|(f, s)| (f.id.to_string(), (f, s)))
-            .collect(),
-        files.into_iter().map(|(k, v)| (k.to_string(), v)).collect(),
-    );
-
-    // Measurement ids are counted in `id_counters`; the next one must lie past every id
-    // the events hold, or a later value would take an id already given.
-    let next_measurement = store::replay::next_measurement_id(conn)?;
-    let max_id = measurements.keys().next_back().copied().unwrap_or(0);
-    match next_measurement {
-        Some(n) if n == max_id + 1 => {}
-        found => push(
-            &mut findings,
-            "id_counters",
-            "measurement",
-            "next",
-            found.map_or("missing".to_string(), |n| n.to_string()),
-            format!(
-                "{}, one past the largest measurement id in the events",
-                max_id + 1
-            ),
-        ),
-    }
-
-    // Batches and their measurements, for the cycle views below, and the provenance links
-    // the events imply: one per batch, event and file line (line 0 for a person's entry).
-    let mut by_batch: BTreeMap<String, Vec<MeasurementRow>> = BTreeMap::new();
-    let mut expected_links: BTreeMap<String, (SourceLink, i64)> = BTreeMap::new();
-    for (m, seq) in measurements.values() {
-        let link = SourceLink {
-            batch_id: m.batch_id.clone(),
-            line: m.line.unwrap_or(0),
-            source_file_id: m.source_file_id,
-        };
-        expected_links.entry(link.key(*seq)).or_insert((link, *seq));
-        by_batch
-            .entry(m.batch_id.clone())
-            .or_default()
-            .push(m.clone());
-    }
-    let stored_links: Vec<(SourceLink, i64)> = store::replay::source_links(conn)?
-        .into_iter()
-        .map(|l| {
-            (
-                SourceLink {
-                    batch_id: l.batch_id,
-                    line: l.line,
-                    source_file_id: l.source_file_id,
-                },
-                l.event_seq,
-            )
-        })
-        .collect();
-    compare_keyed(
-        &mut findings,
-        "batch_sources",
-        stored_links
-            .into_iter()
-            .map(|(l, s)| (l.key(s), (l, s)))
-            .collect(),
-        expected_links,
-    );
-
-    let stored_lots: BTreeMap<String, (LotRecord, i64)> = {
-        let seqs: HashMap<String, i64> = store::replay::lot_event_seqs(conn)?;
-        all_lots(conn)?
-            .into_iter()
-            .map(|l| {
-                let s = seqs.get(&l.lot).copied().unwrap_or(-1);
-                (l.lot.clone(), (l, s))
-            })
-            .collect()
+/// Walk the events after `from` (whose hash is `prev`) and compare what they wrote.
+fn run(conn: &Connection, w: &Witnesses<'_>, from: i64, prev: String) -> Result<VerifyReport> {
+    let snap = store::replay::snapshot(conn)?;
+    let keying = store::events::keying(&snap)?;
+    let rule = LinkRule {
+        switch_seen: keying.as_ref().is_some_and(|k| k.0 <= from && from > 0),
+        keying,
+        key: w.key,
+        unchecked: 0,
     };
-    compare_keyed(&mut findings, "lots", stored_lots, lots);
-
-    let stored_cycles: BTreeMap<String, view::CycleView> = all_cycles(conn)?
-        .into_iter()
-        .map(|c| (c.batch_id.clone(), c))
-        .collect();
-    for (batch, ms) in &by_batch {
-        let expected = view::derive_cycle(
-            batch,
-            ms,
-            excluded.get(batch).copied().unwrap_or(false),
-            first_seq.get(batch).copied().unwrap_or(0),
-        );
-        match stored_cycles.get(batch) {
-            None => push(
-                &mut findings,
-                "cycles",
-                batch,
-                "(row)",
-                "missing",
-                "present",
-            ),
-            Some(s) => diff_cycle(&mut findings, s, &expected),
+    let mut walk = super::walk::Walk::new(&snap, rule, from, prev);
+    walk.run()?;
+    let (events, head_hash, stopped) = (walk.count, walk.prev.clone(), walk.stopped);
+    let head_seq = from + events - i64::from(stopped);
+    if !stopped {
+        let n = if from == 0 { events } else { from + events };
+        walk.rule.finish(&mut walk.findings, n);
+    }
+    let mut findings = std::mem::take(&mut walk.findings);
+    check_heads(&snap, &mut findings, &w.heads)?;
+    walk.rule.unchecked(&mut findings);
+    let keyed_after = walk.rule.keying.as_ref().map(|k| k.0);
+    let unchecked = walk.rule.unchecked;
+    let signoffs = if stopped {
+        Vec::new()
+    } else {
+        walk.findings = findings;
+        let (f, seen) = walk.finish()?;
+        findings = f;
+        if from == 0 {
+            signoff_coverage(&snap, seen)?
+        } else {
+            Vec::new()
         }
-    }
-    for batch in stored_cycles.keys().filter(|b| !by_batch.contains_key(*b)) {
-        push(
-            &mut findings,
-            "cycles",
-            batch,
-            "(row)",
-            "present",
-            "absent (no event wrote it)",
-        );
-    }
-
-    check_conditions(conn, &mut findings)?;
-
+    };
     Ok(VerifyReport {
-        events: count,
-        head_hash: prev,
+        events,
+        head_hash,
         findings,
-        keyed_after: rule.keying.map(|k| k.0),
-        unchecked_keyed_links: rule.unchecked,
+        keyed_after,
+        unchecked_keyed_links: unchecked,
         heads_checked: w.heads.len(),
-        signoffs: signoff_coverage(conn, signoffs)?,
+        signoffs,
         fits: None,
+        from_seq: from,
+        head_seq,
     })
 }
 
-/// Each alert condition against what its messages in the outbox imply: every change of a
-/// condition queues one message in the same transaction, so the newest message of a key
-/// gives its state, severity and episode, the message that opened the episode its thread,
-/// and its time the condition's. (Both tables can still be edited alike: the outbox is not
-/// in the events.)
-fn check_conditions(conn: &Connection, findings: &mut Vec<Finding>) -> Result<()> {
-    use store::replay::ConditionRow;
-    let mut implied: BTreeMap<String, (ConditionRow, i64)> = BTreeMap::new();
-    for m in store::replay::alert_messages(conn)? {
-        let thread = match implied.get(&m.alert_key) {
-            Some((c, _)) if m.state != "open" => c.thread_message_id.clone(),
-            _ => m.message_id.clone(),
-        };
-        let row = ConditionRow {
-            rule: m.rule,
-            lot: m.lot,
-            state: m.state,
-            severity: m.severity,
-            episode: m.episode,
-            thread_message_id: thread,
-            changed_at: m.queued_at,
-        };
-        implied.insert(m.alert_key, (row, m.id));
-    }
-    let stored: BTreeMap<String, ConditionRow> =
-        store::replay::alert_conditions(conn)?.into_iter().collect();
-    for (key, (expected, id)) in &implied {
-        match stored.get(key) {
-            None => push(
-                findings,
-                "alert_condition",
-                key,
-                "(row)",
-                "missing",
-                format!("present (outbox message {id} records it)"),
-            ),
-            Some(s) => diff_rows(findings, "alert_condition", key, s, expected),
-        }
-    }
-    for key in stored.keys().filter(|k| !implied.contains_key(*k)) {
-        push(
-            findings,
-            "alert_condition",
-            key,
-            "(row)",
-            "present",
-            "absent (no outbox message records it)",
-        );
-    }
-    Ok(())
-}
-
-fn diff_cycle(out: &mut Vec<Finding>, s: &view::CycleView, e: &view::CycleView) {
+pub(super) fn diff_cycle(out: &mut Vec<Finding>, s: &view::CycleView, e: &view::CycleView) {
     let b = &s.batch_id;
     let opt = |x: &Option<String>| x.clone().unwrap_or_else(|| "NULL".into());
     let num = |x: Option<f64>| x.map_or("NULL".into(), |v| v.to_string());
@@ -796,34 +528,5 @@ fn diff_cycle(out: &mut Vec<Finding>, s: &view::CycleView, e: &view::CycleView) 
     }
     if s.first_seq != e.first_seq {
         push(out, "cycles", b, "first_seq", s.first_seq, e.first_seq);
-    }
-}
-
-fn compare_keyed<T: Serialize>(
-    out: &mut Vec<Finding>,
-    table: &str,
-    stored: BTreeMap<String, (T, i64)>,
-    expected: BTreeMap<String, (T, i64)>,
-) {
-    for (k, (e, eseq)) in &expected {
-        match stored.get(k) {
-            None => push(out, table, k, "(row)", "missing", "present"),
-            Some((s, sseq)) => {
-                diff_rows(out, table, k, s, e);
-                if sseq != eseq {
-                    push(out, table, k, "event_seq", sseq, eseq);
-                }
-            }
-        }
-    }
-    for k in stored.keys().filter(|k| !expected.contains_key(*k)) {
-        push(
-            out,
-            table,
-            k,
-            "(row)",
-            "present",
-            "absent (no event wrote it)",
-        );
     }
 }

@@ -291,4 +291,36 @@ async fn delivers_through_a_real_server_waits_while_down_and_never_twice() {
         )
         .unwrap();
     assert_eq!(delivered, 5);
+
+    // Every queueing, failure and delivery is an event: the outbox replays exactly, and a
+    // delivery forged on a row the events say failed is named.
+    let kinds: Vec<(String, i64)> = conn
+        .prepare("SELECT kind, COUNT(*) FROM events GROUP BY kind ORDER BY kind")
+        .unwrap()
+        .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))
+        .unwrap()
+        .map(Result::unwrap)
+        .collect();
+    assert_eq!(
+        kinds,
+        vec![
+            ("alert-queued".to_string(), 5),
+            ("mail-outcome".to_string(), 11),
+            ("outbox-chained".to_string(), 1),
+        ]
+    );
+    let v = turnbook::audit::verify(&conn).unwrap();
+    assert!(v.ok(), "{:?}", v.findings);
+    conn.execute(
+        "UPDATE alert_outbox SET attempts = 1 WHERE id = 3",
+        [],
+    )
+    .unwrap();
+    let v = turnbook::audit::verify(&conn).unwrap();
+    assert_eq!(v.findings.len(), 1, "{:?}", v.findings);
+    let f = &v.findings[0];
+    assert_eq!(
+        (f.table.as_str(), f.row.as_str(), f.field.as_str(), f.stored.as_str(), f.expected.as_str()),
+        ("alert_outbox", "3", "attempts", "1", "3")
+    );
 }

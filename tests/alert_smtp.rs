@@ -311,16 +311,19 @@ async fn delivers_through_a_real_server_waits_while_down_and_never_twice() {
     );
     let v = turnbook::audit::verify(&conn).unwrap();
     assert!(v.ok(), "{:?}", v.findings);
-    conn.execute(
-        "UPDATE alert_outbox SET attempts = 1 WHERE id = 3",
-        [],
-    )
-    .unwrap();
+    conn.execute("UPDATE alert_outbox SET attempts = 1 WHERE id = 3", [])
+        .unwrap();
     let v = turnbook::audit::verify(&conn).unwrap();
     assert_eq!(v.findings.len(), 1, "{:?}", v.findings);
     let f = &v.findings[0];
     assert_eq!(
-        (f.table.as_str(), f.row.as_str(), f.field.as_str(), f.stored.as_str(), f.expected.as_str()),
+        (
+            f.table.as_str(),
+            f.row.as_str(),
+            f.field.as_str(),
+            f.stored.as_str(),
+            f.expected.as_str()
+        ),
         ("alert_outbox", "3", "attempts", "1", "3")
     );
 }

@@ -29,7 +29,11 @@ fn export(root: &Path, i: u32) -> String {
     let dir = root.join("exports");
     std::fs::create_dir_all(&dir).unwrap();
     let path = dir.join(format!("run{i}.csv"));
-    std::fs::write(&path, format!("Batch,Lot,Conversion\nB{i},PD-7,{}\n", 95 - i * 3)).unwrap();
+    std::fs::write(
+        &path,
+        format!("Batch,Lot,Conversion\nB{i},PD-7,{}\n", 95 - i * 3),
+    )
+    .unwrap();
     path.to_str().unwrap().to_string()
 }
 
@@ -49,7 +53,11 @@ fn a_change_after_the_last_full_verification_is_caught_incrementally() {
     let root = tmp.path();
     common::reactor_config(root, 2);
     for i in 1..=3 {
-        assert!(turnbook(root, &["ingest", &export(root, i)]).status.success());
+        assert!(
+            turnbook(root, &["ingest", &export(root, i)])
+                .status
+                .success()
+        );
     }
     let full = turnbook(root, &["verify"]);
     assert!(full.status.success(), "{full:?}");
@@ -59,17 +67,29 @@ fn a_change_after_the_last_full_verification_is_caught_incrementally() {
     let verified_head = runs[0].1;
 
     // Later events, untouched: the incremental check passes and is recorded.
-    assert!(turnbook(root, &["ingest", &export(root, 4)]).status.success());
+    assert!(
+        turnbook(root, &["ingest", &export(root, 4)])
+            .status
+            .success()
+    );
     let inc = turnbook(root, &["verify", "--since-last"]);
     assert!(inc.status.success(), "{inc:?}");
-    assert!(stdout(&inc).contains("verified since the last verification"), "{}", stdout(&inc));
+    assert!(
+        stdout(&inc).contains("verified since the last verification"),
+        "{}",
+        stdout(&inc)
+    );
     let runs = recorded_runs(root);
     assert_eq!(runs.len(), 2);
     assert_eq!(runs[1].0, "since-last");
     assert!(runs[1].1 > verified_head);
 
     // A report rests on the recorded state plus the check of what came after it.
-    assert!(turnbook(root, &["ingest", &export(root, 5)]).status.success());
+    assert!(
+        turnbook(root, &["ingest", &export(root, 5)])
+            .status
+            .success()
+    );
     let html = root.join("r.html");
     let rep = turnbook(root, &["report", "PD-7", "--out", html.to_str().unwrap()]);
     assert!(rep.status.success(), "{rep:?}");
@@ -79,8 +99,11 @@ fn a_change_after_the_last_full_verification_is_caught_incrementally() {
 
     // A change to a row written after the last verification: caught by --since-last.
     let db = Connection::open(root.join("t.db")).unwrap();
-    db.execute("UPDATE cycles SET conversion = 0.99 WHERE batch_id = 'B5'", [])
-        .unwrap();
+    db.execute(
+        "UPDATE cycles SET conversion = 0.99 WHERE batch_id = 'B5'",
+        [],
+    )
+    .unwrap();
     // A forged "intact" record at the current head, without the key's seal, is ignored.
     db.execute(
         "INSERT INTO verify_runs (at, scope, from_seq, head_seq, head_hash, ok, events, findings, \
@@ -108,12 +131,21 @@ fn rewriting_the_verified_head_is_caught_incrementally() {
     let tmp = tempfile::tempdir().unwrap();
     let root = tmp.path();
     common::reactor_config(root, 2);
-    assert!(turnbook(root, &["ingest", &export(root, 1)]).status.success());
+    assert!(
+        turnbook(root, &["ingest", &export(root, 1)])
+            .status
+            .success()
+    );
     assert!(turnbook(root, &["verify"]).status.success());
     let head = recorded_runs(root)[0].1;
-    assert!(turnbook(root, &["ingest", &export(root, 2)]).status.success());
+    assert!(
+        turnbook(root, &["ingest", &export(root, 2)])
+            .status
+            .success()
+    );
     let db = Connection::open(root.join("t.db")).unwrap();
-    db.execute_batch("DROP TRIGGER events_append_only_update").unwrap();
+    db.execute_batch("DROP TRIGGER events_append_only_update")
+        .unwrap();
     db.execute(
         "UPDATE events SET hash = 'ff' || substr(hash, 3) WHERE seq = ?1",
         [head],
@@ -192,7 +224,10 @@ fn an_outbox_from_before_the_switch_over_keeps_verifying_and_later_rows_are_repl
     // The first alert after the upgrade: the switch-over event, then the alert's.
     let tx = c.transaction().unwrap();
     let alerts = evaluate(&snap("NEW-1"), &rules());
-    assert_eq!(turnbook::store::outbox::enqueue(&tx, &alerts, "2026-12-01T08:00:00Z").unwrap(), 1);
+    assert_eq!(
+        turnbook::store::outbox::enqueue(&tx, &alerts, "2026-12-01T08:00:00Z").unwrap(),
+        1
+    );
     tx.commit().unwrap();
     let kinds: Vec<String> = c
         .prepare("SELECT kind FROM events ORDER BY seq")
@@ -211,7 +246,8 @@ fn an_outbox_from_before_the_switch_over_keeps_verifying_and_later_rows_are_repl
 
     // A row queued before the switch-over deleted with its condition: the count names it.
     let deleted = tmp.path().join("deleted.db");
-    c.execute("VACUUM INTO ?1", [deleted.to_str().unwrap()]).unwrap();
+    c.execute("VACUUM INTO ?1", [deleted.to_str().unwrap()])
+        .unwrap();
     let d = Connection::open(&deleted).unwrap();
     d.execute_batch(
         "DELETE FROM alert_outbox WHERE id = 2; \

@@ -417,17 +417,23 @@ const TAMPERS: &[Tamper] = &[
             )
         },
     ),
-    ("outbox switch-over moved past every row", "outbox_chain", |c| {
-        sql(c, "UPDATE outbox_chain SET first_outbox_id = 1000")
-    }),
-    ("forged alert event appended with a plain hash", "events", |c| {
-        append_plain(
-            c,
-            "mail-outcome",
-            "outbox 1",
-            r#"{"kind":"mail-outcome","outbox_id":1,"message_id":"x","outcome":"sent","attempts":1,"next_attempt_at":null,"last_error":null,"delivered_at":"2026-12-02T10:00:00.000Z","server_reply":"250"}"#,
-        )
-    }),
+    (
+        "outbox switch-over moved past every row",
+        "outbox_chain",
+        |c| sql(c, "UPDATE outbox_chain SET first_outbox_id = 1000"),
+    ),
+    (
+        "forged alert event appended with a plain hash",
+        "events",
+        |c| {
+            append_plain(
+                c,
+                "mail-outcome",
+                "outbox 1",
+                r#"{"kind":"mail-outcome","outbox_id":1,"message_id":"x","outcome":"sent","attempts":1,"next_attempt_at":null,"last_error":null,"delivered_at":"2026-12-02T10:00:00.000Z","server_reply":"250"}"#,
+            )
+        },
+    ),
 ];
 
 fn copy_db(from: &Path, to: &Path) -> PathBuf {

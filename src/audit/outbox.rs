@@ -11,9 +11,9 @@ use serde::Serialize;
 
 use super::verify::{Finding, diff_rows, push};
 use crate::model::event::{DeliveryState, QueuedMessage};
+use crate::store::outbox::text_sha256;
 use crate::store::replay::{ConditionRow, OutboxRow};
 use crate::store::{self, Connection, Result};
-use crate::store::outbox::text_sha256;
 
 /// The columns of an outbox row an `alert-queued` event fixes.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -220,7 +220,9 @@ impl OutboxReplay {
                 1,
                 "(row)",
                 format!("first {}, before {}, marker {:?}", s.0, s.1, s.2),
-                format!("first {first}, before {legacy}, marker Some({seq}) (as event {seq} recorded)"),
+                format!(
+                    "first {first}, before {legacy}, marker Some({seq}) (as event {seq} recorded)"
+                ),
             ),
             (Some((seq, ..)), None) => push(
                 out,
@@ -269,7 +271,11 @@ impl OutboxReplay {
                     seen.push(row.id);
                 }
             })?;
-            for id in self.rows.keys().filter(|id| seen.binary_search(id).is_err()) {
+            for id in self
+                .rows
+                .keys()
+                .filter(|id| seen.binary_search(id).is_err())
+            {
                 missing_row(out, *id, &self.rows[id]);
             }
             return Ok(());
@@ -310,10 +316,10 @@ impl OutboxReplay {
 }
 
 fn missing_row(out: &mut Vec<Finding>, id: i64, e: &Expected) {
-    let by = e.queued.as_ref().map_or_else(
-        || e.delivery.as_ref().map_or(0, |d| d.1),
-        |q| q.1,
-    );
+    let by = e
+        .queued
+        .as_ref()
+        .map_or_else(|| e.delivery.as_ref().map_or(0, |d| d.1), |q| q.1);
     push(
         out,
         "alert_outbox",
@@ -349,7 +355,14 @@ fn compare_row(out: &mut Vec<Finding>, row: &OutboxRow, e: &Expected) {
         };
         diff_rows(out, "alert_outbox", &key, &stored, q);
     } else if let Some(mid) = e.message_id.as_ref().filter(|m| **m != row.message_id) {
-        push(out, "alert_outbox", &key, "message_id", &row.message_id, mid);
+        push(
+            out,
+            "alert_outbox",
+            &key,
+            "message_id",
+            &row.message_id,
+            mid,
+        );
     }
     if let Some((d, _)) = &e.delivery {
         let stored = DeliveryCols {

@@ -419,7 +419,10 @@ pub fn verify_since(conn: &Connection, w: &Witnesses<'_>, since: &Head) -> Resul
                 since.seq,
                 "hash",
                 found.as_deref().unwrap_or("missing"),
-                format!("{} (the head verified last: the event was rewritten or deleted)", since.hash),
+                format!(
+                    "{} (the head verified last: the event was rewritten or deleted)",
+                    since.hash
+                ),
             );
             return Ok(VerifyReport {
                 events: 0,

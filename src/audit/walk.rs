@@ -146,7 +146,14 @@ impl<'c, 'k> Walk<'c, 'k> {
             return Ok(false);
         }
         if e.prev_hash != self.prev {
-            push(&mut self.findings, "events", e.seq, "prev_hash", &e.prev_hash, &self.prev);
+            push(
+                &mut self.findings,
+                "events",
+                e.seq,
+                "prev_hash",
+                &e.prev_hash,
+                &self.prev,
+            );
             self.stopped = true;
             return Ok(false);
         }
@@ -170,7 +177,14 @@ impl<'c, 'k> Walk<'c, 'k> {
             }
         };
         if payload.kind() != e.kind {
-            push(&mut self.findings, "events", e.seq, "kind", &e.kind, payload.kind());
+            push(
+                &mut self.findings,
+                "events",
+                e.seq,
+                "kind",
+                &e.kind,
+                payload.kind(),
+            );
         }
         self.replay(e.seq, payload)?;
         self.prev = e.hash;
@@ -243,7 +257,8 @@ impl<'c, 'k> Walk<'c, 'k> {
                 self.excluded.insert(batch_id, excluded);
             }
             Payload::ChainKeyed { key_proof, .. } => {
-                self.rule.switch(&mut self.findings, seq, &self.prev, &key_proof);
+                self.rule
+                    .switch(&mut self.findings, seq, &self.prev, &key_proof);
             }
             Payload::SignOff {
                 lot,
@@ -324,7 +339,10 @@ impl<'c, 'k> Walk<'c, 'k> {
                 "source_files",
                 f.id,
                 "(row)",
-                format!("present (event_seq {})", s.map_or("NULL".into(), |s| s.to_string())),
+                format!(
+                    "present (event_seq {})",
+                    s.map_or("NULL".into(), |s| s.to_string())
+                ),
                 "absent (no event wrote it)",
             );
         })?;
@@ -388,7 +406,14 @@ impl<'c, 'k> Walk<'c, 'k> {
         }
         for (name, (e, eseq)) in &expected {
             match store::replay::lot_row(self.conn, name)? {
-                None => push(&mut self.findings, "lots", name, "(row)", "missing", "present"),
+                None => push(
+                    &mut self.findings,
+                    "lots",
+                    name,
+                    "(row)",
+                    "missing",
+                    "present",
+                ),
                 Some((s, sseq)) => {
                     diff_rows(&mut self.findings, "lots", name, &s, e);
                     if sseq != *eseq {
@@ -491,7 +516,14 @@ fn check_batch(
     }
     if rows.is_empty() {
         if let Some(s) = stored {
-            push(out, "cycles", &s.batch_id, "(row)", "present", "absent (no event wrote it)");
+            push(
+                out,
+                "cycles",
+                &s.batch_id,
+                "(row)",
+                "present",
+                "absent (no event wrote it)",
+            );
         }
         return Ok(());
     }

@@ -65,12 +65,7 @@ pub fn verify(cfg: &Config, args: &super::VerifyArgs) -> CmdResult {
         println!(
             "verified since the last verification ({} at {}, head {}): {} later event(s) \
              linked, every row they wrote matches; head {}:{}",
-            since.scope,
-            since.at,
-            since.head_seq,
-            report.events,
-            report.head_seq,
-            report.head_hash
+            since.scope, since.at, since.head_seq, report.events, report.head_seq, report.head_hash
         );
     } else if report.ok() {
         let keyed = match report.keyed_after {

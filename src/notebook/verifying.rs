@@ -81,7 +81,12 @@ pub fn verify_recorded(cfg: &Config, heads: &[Head], scope: VerifyScope) -> Resu
     let mut run = VerifyRun {
         id: 0,
         at: now_utc(),
-        scope: if since.is_some() { "since-last" } else { "full" }.into(),
+        scope: if since.is_some() {
+            "since-last"
+        } else {
+            "full"
+        }
+        .into(),
         from_seq: report.from_seq,
         head_seq: report.head_seq,
         head_hash: report.head_hash.clone(),
@@ -150,7 +155,11 @@ impl AuditStatus {
             Some(run) => format!(
                 "{} ({} up to event {}); the {} later event(s) checked {}",
                 run.at,
-                if run.scope == "full" { "in full" } else { "incrementally" },
+                if run.scope == "full" {
+                    "in full"
+                } else {
+                    "incrementally"
+                },
                 run.head_seq,
                 self.report.events,
                 self.checked_at

@@ -161,7 +161,12 @@ pub fn audit_view(cfg: &Config) -> Result<AuditView> {
     let conn = open(cfg)?;
     let status = super::verifying::audit_status(cfg, &conn)?;
     let head = store::web::chain_head(&conn)?;
-    let mut findings: Vec<String> = status.report.findings.iter().map(ToString::to_string).collect();
+    let mut findings: Vec<String> = status
+        .report
+        .findings
+        .iter()
+        .map(ToString::to_string)
+        .collect();
     if let Some(f) = status.failed.as_ref().and_then(|_| status.first_finding()) {
         findings.insert(0, f);
     }

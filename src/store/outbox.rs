@@ -357,7 +357,13 @@ fn record_outcome(tx: Transaction, id: i64, outcome: &str, now: &str) -> Result<
         },
     )?;
     let subject = format!("outbox {id}");
-    super::events::append(&tx, now, OUTBOX_ACTOR, &subject, &Payload::MailOutcome(state))?;
+    super::events::append(
+        &tx,
+        now,
+        OUTBOX_ACTOR,
+        &subject,
+        &Payload::MailOutcome(state),
+    )?;
     tx.commit()?;
     Ok(())
 }

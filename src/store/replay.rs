@@ -357,8 +357,9 @@ pub fn links_outside(conn: &Connection, head: i64, mut each: impl FnMut(LinkRow)
 
 /// The events that wrote values of `batch`, oldest first.
 pub fn batch_event_seqs(conn: &Connection, batch: &str) -> Result<Vec<i64>> {
-    let mut stmt = conn
-        .prepare_cached("SELECT DISTINCT event_seq FROM batch_sources WHERE batch_id = ?1 ORDER BY event_seq")?;
+    let mut stmt = conn.prepare_cached(
+        "SELECT DISTINCT event_seq FROM batch_sources WHERE batch_id = ?1 ORDER BY event_seq",
+    )?;
     let rows = stmt
         .query_map([batch], |r| r.get(0))?
         .collect::<std::result::Result<Vec<i64>, _>>()?;
@@ -664,5 +665,33 @@ pub fn last_exclusion(conn: &Connection, batch: &str) -> Result<Option<String>> 
              ORDER BY seq DESC LIMIT 1",
         )?
         .query_row([batch], |r| r.get(0))
+        .optional()?)
+}
+
+/// The lots that have a stored fit, by name (verify recomputes them one at a time).
+pub fn fitted_lots(conn: &Connection) -> Result<Vec<String>> {
+    let mut stmt = conn.prepare("SELECT DISTINCT lot FROM fits ORDER BY lot")?;
+    let rows = stmt
+        .query_map([], |r| r.get(0))?
+        .collect::<std::result::Result<Vec<String>, _>>()?;
+    Ok(rows)
+}
+
+/// A lot's newest stored fit.
+pub fn newest_fit(conn: &Connection, lot: &str) -> Result<Option<super::lots::StoredFit>> {
+    Ok(conn
+        .prepare_cached(
+            "SELECT lot, after_seq, engine_version, config_sha256, analysis FROM fits
+             WHERE lot = ?1 ORDER BY id DESC LIMIT 1",
+        )?
+        .query_row([lot], |r| {
+            Ok(super::lots::StoredFit {
+                lot: r.get(0)?,
+                after_seq: r.get(1)?,
+                engine_version: r.get(2)?,
+                config_sha256: r.get(3)?,
+                analysis: r.get(4)?,
+            })
+        })
         .optional()?)
 }

@@ -132,17 +132,15 @@ impl OutboxReplay {
     pub(super) fn outcome(&mut self, out: &mut Vec<Finding>, seq: i64, d: DeliveryState) {
         self.seen(seq);
         let e = self.rows.entry(d.outbox_id).or_default();
-        if let Some(mid) = &e.message_id {
-            if *mid != d.message_id {
-                push(
-                    out,
-                    "events",
-                    seq,
-                    "payload.message_id",
-                    &d.message_id,
-                    format!("{mid} (the message queued as outbox row {})", d.outbox_id),
-                );
-            }
+        if let Some(mid) = e.message_id.as_ref().filter(|m| **m != d.message_id) {
+            push(
+                out,
+                "events",
+                seq,
+                "payload.message_id",
+                &d.message_id,
+                format!("{mid} (the message queued as outbox row {})", d.outbox_id),
+            );
         }
         e.message_id.get_or_insert(d.message_id);
         e.delivery = Some((

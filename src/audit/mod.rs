@@ -2,6 +2,7 @@
 //! records are exactly what the events wrote. The link rule itself lives in
 //! [`crate::model::chain`], the appending in the store.
 
+mod check;
 mod outbox;
 mod verify;
 mod walk;

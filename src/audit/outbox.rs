@@ -9,7 +9,7 @@ use std::collections::BTreeMap;
 
 use serde::Serialize;
 
-use super::verify::{Finding, diff_rows, push};
+use super::check::{Finding, diff_rows, push};
 use crate::model::event::{DeliveryState, QueuedMessage};
 use crate::store::outbox::text_sha256;
 use crate::store::replay::{ConditionRow, OutboxRow};

@@ -9,8 +9,8 @@ use std::rc::Rc;
 
 use serde::Serialize;
 
+use super::check::{Finding, LinkRule, SignOffSeen, diff_cycle, diff_rows, push};
 use super::outbox::OutboxReplay;
-use super::verify::{Finding, LinkRule, SignOffSeen, diff_cycle, diff_rows, push};
 use crate::model::Payload;
 use crate::model::cycle as view;
 use crate::model::event::{FileRow, LotRecord, MeasurementRow};

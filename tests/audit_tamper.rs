@@ -359,6 +359,81 @@ const TAMPERS: &[Tamper] = &[
     ("id_counters lowered", "id_counters", |c| {
         sql(c, "UPDATE id_counters SET next = 1")
     }),
+    // The outbox and the alert conditions, each edited consistently in both tables (as
+    // someone would who knows the old check compared one with the other).
+    ("outbox recipients changed", "alert_outbox", |c| {
+        sql(
+            c,
+            r#"UPDATE alert_outbox SET recipients = '["someone@elsewhere.example"]'"#,
+        )
+    }),
+    (
+        "outbox and condition severity lowered alike",
+        "alert_condition",
+        |c| {
+            sql(
+                c,
+                "UPDATE alert_outbox SET severity = 1; UPDATE alert_condition SET severity = 1",
+            )
+        },
+    ),
+    (
+        "outbox and condition cleared alike",
+        "alert_condition",
+        |c| {
+            sql(
+                c,
+                "UPDATE alert_outbox SET state = 'cleared';                  UPDATE alert_condition SET state = 'cleared'",
+            )
+        },
+    ),
+    ("outbox delivery state forged", "alert_outbox", |c| {
+        sql(
+            c,
+            "UPDATE alert_outbox SET delivered_at = '2026-12-02T10:00:00.000Z',              server_reply = '250 accepted', next_attempt_at = NULL, attempts = 1,              last_error = NULL",
+        )
+    }),
+    ("outbox attempts raised", "alert_outbox", |c| {
+        sql(c, "UPDATE alert_outbox SET attempts = attempts + 3")
+    }),
+    ("outbox subject edited", "alert_outbox", |c| {
+        sql(c, "UPDATE alert_outbox SET subject = 'nothing to see'")
+    }),
+    ("outbox body edited", "alert_outbox", |c| {
+        sql(c, "UPDATE alert_outbox SET body_text = 'all fine'")
+    }),
+    (
+        "outbox row and its condition deleted",
+        "alert_outbox",
+        |c| sql(c, "DELETE FROM alert_outbox; DELETE FROM alert_condition"),
+    ),
+    (
+        "outbox row and a matching condition added",
+        "alert_outbox",
+        |c| {
+            sql(
+                c,
+                "INSERT INTO alert_outbox (id, alert_key, rule, lot, episode, state, severity,                    message_id, subject, body_text, body_html, recipients, queued_at)                  VALUES (900, 'below-criterion|PD-7', 'below-criterion', 'PD-7', 1, 'open', 3,                    '<made.up@x>', 'PD-7: replace now', 'x', 'x', '[]',                    '2026-12-02T10:00:00.000Z');                  INSERT INTO alert_condition VALUES ('below-criterion|PD-7', 'below-criterion',                    'PD-7', 'open', 3, 1, '<made.up@x>', '2026-12-02T10:00:00.000Z')",
+            )
+        },
+    ),
+    (
+        "outbox switch-over moved past every row",
+        "outbox_chain",
+        |c| sql(c, "UPDATE outbox_chain SET first_outbox_id = 1000"),
+    ),
+    (
+        "forged alert event appended with a plain hash",
+        "events",
+        |c| {
+            append_plain(
+                c,
+                "mail-outcome",
+                "outbox 1",
+                r#"{"kind":"mail-outcome","outbox_id":1,"message_id":"x","outcome":"sent","attempts":1,"next_attempt_at":null,"last_error":null,"delivered_at":"2026-12-02T10:00:00.000Z","server_reply":"250"}"#,
+            )
+        },
+    ),
 ];
 
 fn copy_db(from: &Path, to: &Path) -> PathBuf {

@@ -703,7 +703,7 @@ fn an_upgrade_from_version_4_keeps_every_value_with_its_origin() {
     assert_ne!(store::PAGE_SIZE, 4096);
 
     // The schema is the newest, every migration recorded once.
-    assert_eq!(schema_version(&conn), 11);
+    assert_eq!(schema_version(&conn), 12);
     assert_eq!(schema_version(&conn), migrate::latest());
     let recorded: Vec<(i64, String)> = {
         let mut stmt = conn
@@ -1053,7 +1053,15 @@ fn the_rebuilt_file_table_keeps_its_rows_and_checks_without_a_temporary_index() 
         .unwrap()
         .collect::<Result<_, _>>()
         .unwrap();
-    assert_eq!(indexes, ["source_files_ingested_once", "source_files_path"]);
+    // (0012 adds the index by event that verify reads each stretch of events' rows with.)
+    assert_eq!(
+        indexes,
+        [
+            "source_files_event",
+            "source_files_ingested_once",
+            "source_files_path"
+        ]
+    );
     let insert = "INSERT INTO source_files(sha256, path, size, seen_at, outcome, event_seq) \
                   VALUES ('00', 'x', 1, 'now', ?1, (SELECT MAX(seq) FROM events))";
     let refused = conn.execute(insert, ["imported"]).unwrap_err();

@@ -2,12 +2,15 @@
 //! records are exactly what the events wrote. The link rule itself lives in
 //! [`crate::model::chain`], the appending in the store.
 
+mod check;
+mod outbox;
 mod verify;
+mod walk;
 
 pub mod key;
 
 pub use verify::{
-    Finding, FitCheck, SignOffCoverage, VerifyReport, Witnesses, verify, verify_with,
+    Finding, FitCheck, SignOffCoverage, VerifyReport, Witnesses, verify, verify_since, verify_with,
 };
 
 /// Who is acting: the configured name, else the OS user, else "unknown".

@@ -51,10 +51,22 @@ pub fn ingest(cfg: Config, a: &IngestArgs) -> CmdResult {
 }
 
 /// `turnbook verify`.
-pub fn verify(cfg: &Config, heads: &[crate::model::chain::Head], json: bool) -> CmdResult {
-    let report = crate::notebook::verify(cfg, heads)?;
-    if json {
-        println!("{}", serde_json::to_string_pretty(&report)?);
+pub fn verify(cfg: &Config, args: &super::VerifyArgs) -> CmdResult {
+    let scope = if args.since_last {
+        crate::notebook::VerifyScope::SinceLast
+    } else {
+        crate::notebook::VerifyScope::Full
+    };
+    let done = crate::notebook::verify_recorded(cfg, &args.heads, scope)?;
+    let report = &done.report;
+    if args.json {
+        println!("{}", serde_json::to_string_pretty(report)?);
+    } else if let (Some(since), true) = (&done.since, report.ok()) {
+        println!(
+            "verified since the last verification ({} at {}, head {}): {} later event(s) \
+             linked, every row they wrote matches; head {}:{}",
+            since.scope, since.at, since.head_seq, report.events, report.head_seq, report.head_hash
+        );
     } else if report.ok() {
         let keyed = match report.keyed_after {
             None => "plain links".to_string(),
@@ -64,7 +76,7 @@ pub fn verify(cfg: &Config, heads: &[crate::model::chain::Head], json: bool) -> 
         println!(
             "verified: {} events, chain intact ({keyed}), every record matches the events \
              that wrote it; {} published head(s) held; head {}:{}",
-            report.events, report.heads_checked, report.events, report.head_hash
+            report.events, report.heads_checked, report.head_seq, report.head_hash
         );
     } else {
         if report.unchecked_keyed_links > 0 {
@@ -85,7 +97,7 @@ pub fn verify(cfg: &Config, heads: &[crate::model::chain::Head], json: bool) -> 
             println!("{lead}{f}");
         }
     }
-    if !json {
+    if !args.json {
         if let Some(f) = &report.fits {
             println!(
                 "stored fits: {} identical to a recomputation from the records, {} differing; \

@@ -284,6 +284,11 @@ pub struct VerifyArgs {
     /// hold that event with that hash.
     #[arg(long = "head")]
     pub heads: Vec<crate::model::chain::Head>,
+    /// Check only what came after the last recorded intact verification: the links from
+    /// its head to the newest event and the rows those events wrote (a full verification
+    /// when none is recorded).
+    #[arg(long)]
+    pub since_last: bool,
 }
 
 /// Set up tracing: readable lines on a terminal, JSON lines when asked. RUST_LOG filters.
@@ -400,7 +405,7 @@ fn dispatch(cli: &Cli) -> CmdResult {
         Command::Signoff(a) => entries::sign_off(&load(cli)?, a),
         Command::History(a) => views::history(&load(cli)?, &a.lot, a.json),
         Command::Status(a) => views::status(&load(cli)?, a.json),
-        Command::Verify(a) => ingest::verify(&load(cli)?, &a.heads, a.json),
+        Command::Verify(a) => ingest::verify(&load(cli)?, a),
         Command::Watch => service::watch(&load(cli)?),
         Command::Mail => service::mail(&load(cli)?),
         Command::Digest => service::digest(&load(cli)?),

@@ -117,6 +117,15 @@ pub fn key_proof(key: &ChainKey, continues_from: &str) -> String {
     hex_lower(&m.finalize().into_bytes())
 }
 
+/// HMAC-SHA-256 under the chain key of a record kept beside the chain (a verification's
+/// result), so that a row written by someone without the key is told from a real one.
+pub fn record_mac(key: &ChainKey, record: &str) -> String {
+    let mut m = key.mac();
+    m.update(b"turnbook record\n");
+    m.update(record.as_bytes());
+    hex_lower(&m.finalize().into_bytes())
+}
+
 /// A published head of the chain, `SEQ:HASH`.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Head {

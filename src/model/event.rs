@@ -278,6 +278,56 @@ pub enum Payload {
         action: String,
         reason: String,
     },
+    /// An alert condition changed (opened, worse, eased, cleared) and its message was
+    /// queued, or a digest was queued: the outbox row and the condition as written.
+    AlertQueued(QueuedMessage),
+    /// A delivery attempt changed an outbox row: its delivery columns as written.
+    MailOutcome(DeliveryState),
+    /// From here on every outbox row and alert condition change is an event; rows below
+    /// `first_outbox_id` (`legacy_rows` of them) were queued before.
+    OutboxChained {
+        first_outbox_id: i64,
+        legacy_rows: i64,
+    },
+}
+
+/// An outbox row as queued, with the condition it left (`alert-queued`). The message's
+/// texts are held as SHA-256 digests: the event proves them without a second copy.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct QueuedMessage {
+    /// The outbox row, or None when an identical message was already queued.
+    pub outbox_id: Option<i64>,
+    pub alert_key: String,
+    pub rule: String,
+    pub lot: String,
+    pub episode: i64,
+    pub state: String,
+    pub severity: i64,
+    pub message_id: String,
+    pub in_reply_to: Option<String>,
+    pub subject_sha256: String,
+    pub body_text_sha256: String,
+    pub body_html_sha256: String,
+    pub recipients: Vec<String>,
+    pub queued_at: String,
+    pub next_attempt_at: Option<String>,
+    pub last_error: Option<String>,
+    /// The condition's thread after the change; None for a digest, which has no condition.
+    pub thread_message_id: Option<String>,
+}
+
+/// The delivery columns of an outbox row after an attempt (`mail-outcome`).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DeliveryState {
+    pub outbox_id: i64,
+    pub message_id: String,
+    /// `sent` or `failed`.
+    pub outcome: String,
+    pub attempts: i64,
+    pub next_attempt_at: Option<String>,
+    pub last_error: Option<String>,
+    pub delivered_at: Option<String>,
+    pub server_reply: Option<String>,
 }
 
 /// The `file-ingested` payload by reference: serialises exactly as
@@ -306,6 +356,9 @@ impl Payload {
             Payload::SignOff { .. } => "sign-off",
             Payload::ChainKeyed { .. } => "chain-keyed",
             Payload::AlertAction { .. } => "alert-action",
+            Payload::AlertQueued(_) => "alert-queued",
+            Payload::MailOutcome(_) => "mail-outcome",
+            Payload::OutboxChained { .. } => "outbox-chained",
         }
     }
 }

@@ -93,20 +93,3 @@ pub(crate) fn key_for_checking(cfg: &Config) -> Result<Option<ChainKey>> {
 pub(crate) fn witnessed_head(path: &Path) -> Result<Option<crate::model::chain::Head>> {
     Ok(key::read_head(path)?)
 }
-
-/// Verify the chain of `conn` as the notebook `cfg` knows it: keyed links checked with the
-/// key when its file is readable, the witness file's head and every head in `heads`.
-pub(crate) fn verify_with_witnesses(
-    cfg: &Config,
-    conn: &Connection,
-    heads: &[crate::model::chain::Head],
-) -> Result<crate::audit::VerifyReport> {
-    let key = key_for_checking(cfg)?;
-    let mut all: Vec<_> = heads.to_vec();
-    all.extend(witnessed_head(&cfg.head_witness_path())?);
-    let w = crate::audit::Witnesses {
-        key: key.as_ref(),
-        heads: all,
-    };
-    Ok(crate::audit::verify_with(conn, &w)?)
-}

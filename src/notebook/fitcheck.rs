@@ -71,7 +71,11 @@ pub fn check_fits(conn: &Connection, cfg: &Config) -> Result<(FitCheck, Vec<Find
     let mut check = FitCheck::default();
     let mut findings = Vec::new();
     let fingerprint = cfg.analysis_fingerprint();
-    for f in store::lots::newest_fits(conn)? {
+    // One lot's fit in memory at a time: the newest fits of a site's lots are megabytes.
+    for lot in store::replay::fitted_lots(conn)? {
+        let Some(f) = store::replay::newest_fit(conn, &lot)? else {
+            continue;
+        };
         if f.engine_version != fit::ENGINE_VERSION {
             check.other_engine += 1;
             continue;

@@ -33,6 +33,7 @@ mod lots;
 mod recompute;
 mod reports;
 mod signoffs;
+mod verifying;
 mod views;
 
 pub use alerts::{AlertActionLine, AlertEntry, list_alerts};
@@ -65,6 +66,7 @@ pub use signoffs::{
     SignOffCounts, lot_fingerprint, lot_marks, lot_sign_off_state, sign_off_overview,
     sign_off_states,
 };
+pub use verifying::{AuditStatus, Verification, VerifyScope, audit_status, verify_recorded};
 pub use views::{
     AlertsView, AuditView, ChangeWatch, FileLine, FilesView, LotPage, MessageLine, OpenAlertLine,
     OpsFigures, Overview, alerts_view, audit_view, files_view, lot_page, lot_report_html,
@@ -75,15 +77,11 @@ use crate::config::Config;
 
 /// Walk the audit trail of the notebook `cfg` names and compare every record with the
 /// events that wrote it; keyed links are checked when the chain key's file is readable,
-/// and the chain must hold the head in the witness file and every head in `heads`.
+/// and the chain must hold the head in the witness file and every head in `heads`. The
+/// result is recorded (see [`verify_recorded`]).
 pub fn verify(
     cfg: &Config,
     heads: &[crate::model::chain::Head],
 ) -> Result<crate::audit::VerifyReport> {
-    let conn = crate::store::open(&cfg.database_path())?;
-    let mut report = chain::verify_with_witnesses(cfg, &conn, heads)?;
-    let (fits, findings) = fitcheck::check_fits(&conn, cfg)?;
-    report.findings.extend(findings);
-    report.fits = Some(fits);
-    Ok(report)
+    Ok(verify_recorded(cfg, heads, VerifyScope::Full)?.report)
 }

@@ -349,19 +349,18 @@ fn cycle_lines(state: &LotState, corrected_batches: &[String]) -> Vec<report::Cy
         .collect()
 }
 
-/// The audit chain's state as `verify` finds it, with the notebook's key and witness.
+/// The audit chain's state: the last recorded verification and an incremental check of
+/// the events after it, with the notebook's key and witness (a full replay stays
+/// `verify`'s job; see [`super::verifying::audit_status`]).
 fn verify_line(conn: &Connection, cfg: &Config) -> Result<report::VerifyLine> {
-    let v = super::chain::verify_with_witnesses(cfg, conn, &[])?;
+    let status = super::verifying::audit_status(cfg, conn)?;
     Ok(report::VerifyLine {
-        ran_at: now_utc(),
-        outcome: if v.ok() {
-            report::VerifyOutcome::Intact {
-                entries: v.events as u64,
-            }
-        } else {
-            report::VerifyOutcome::Broken {
-                first_broken: v.findings[0].to_string(),
-            }
+        ran_at: status.when(),
+        outcome: match status.first_finding() {
+            None => report::VerifyOutcome::Intact {
+                entries: u64::try_from(status.events()).unwrap_or(0),
+            },
+            Some(first_broken) => report::VerifyOutcome::Broken { first_broken },
         },
     })
 }

@@ -11,7 +11,6 @@ use super::history::{HistoryEntry, lot_history};
 use super::lots::{lot_state, no_such_lot};
 use super::reports::{build, build_site};
 use crate::config::Config;
-use crate::model::time::now_utc;
 use crate::report::{self, LotReport, SiteReport};
 use crate::store::{self, Connection};
 
@@ -144,7 +143,7 @@ pub fn files_view(cfg: &Config, limit: i64) -> Result<FilesView> {
     })
 }
 
-/// The audit chain: a verification run now, and the chain's newest event.
+/// The audit chain: its state as last verified and checked since, and its newest event.
 #[derive(Debug, Clone, Serialize)]
 pub struct AuditView {
     pub verified_at: String,
@@ -156,16 +155,26 @@ pub struct AuditView {
     pub head_hash: Option<String>,
 }
 
-/// Verify the chain now and name its head.
+/// The chain's state (the last recorded verification and an incremental check of what
+/// came after it) and its head.
 pub fn audit_view(cfg: &Config) -> Result<AuditView> {
     let conn = open(cfg)?;
-    let v = super::chain::verify_with_witnesses(cfg, &conn, &[])?;
+    let status = super::verifying::audit_status(cfg, &conn)?;
     let head = store::web::chain_head(&conn)?;
+    let mut findings: Vec<String> = status
+        .report
+        .findings
+        .iter()
+        .map(ToString::to_string)
+        .collect();
+    if let Some(f) = status.failed.as_ref().and_then(|_| status.first_finding()) {
+        findings.insert(0, f);
+    }
     Ok(AuditView {
-        verified_at: now_utc(),
-        intact: v.ok(),
-        events: v.events,
-        findings: v.findings.iter().map(ToString::to_string).collect(),
+        verified_at: status.when(),
+        intact: status.intact(),
+        events: status.events(),
+        findings,
         head_seq: head.as_ref().map(|h| h.seq),
         head_at: head.as_ref().map(|h| h.at.clone()),
         head_hash: head.map(|h| h.hash),

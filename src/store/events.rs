@@ -81,6 +81,7 @@ pub fn start_keying(tx: &Transaction<'_>, key: &ChainKey, at: &str, actor: &str)
                 INSERT_EVENT,
                 rusqlite::params![seq, at, actor, KEYED_KIND, "chain", body, h.hash, hash],
             )?;
+            APPENDS.fetch_add(1, std::sync::atomic::Ordering::SeqCst);
             (seq, proof)
         }
     };
@@ -128,8 +129,14 @@ pub fn append_encoded(
 /// Only valid while every event of the transaction goes through it; an event appended
 /// past it would make the next append reuse a sequence number, which the primary key of
 /// `events` refuses (an error, never a forked chain).
+///
+/// Every append counts itself in [`APPENDS`]; a head kept from before another append (the
+/// outbox's events, written between a backfill's file events) is read again, not reused.
 #[derive(Debug, Default, Clone)]
-pub struct ChainHead(Option<(i64, String)>);
+pub struct ChainHead(Option<(i64, String, u64)>);
+
+/// Appends made by this process, so a kept [`ChainHead`] knows when it went stale.
+static APPENDS: std::sync::atomic::AtomicU64 = std::sync::atomic::AtomicU64::new(0);
 
 /// [`append_encoded`] continuing from `head`, which it reads when unknown and moves on.
 pub fn append_after(
@@ -163,8 +170,12 @@ pub fn append_prepared(
     kind: &str,
     body: &str,
 ) -> Result<i64> {
-    let (last, prev) = match head.0.take() {
-        Some(h) => h,
+    let kept = head
+        .0
+        .take()
+        .filter(|h| h.2 == APPENDS.load(std::sync::atomic::Ordering::SeqCst));
+    let (last, prev) = match kept {
+        Some((seq, hash, _)) => (seq, hash),
         None => tx
             .prepare_cached("SELECT seq, hash FROM events ORDER BY seq DESC LIMIT 1")?
             .query_row([], |r| Ok((r.get::<_, i64>(0)?, r.get(1)?)))
@@ -186,6 +197,7 @@ pub fn append_prepared(
     insert.execute(rusqlite::params![
         seq, at, actor, kind, subject, body, prev, hash
     ])?;
-    head.0 = Some((seq, hash));
+    let count = APPENDS.fetch_add(1, std::sync::atomic::Ordering::SeqCst) + 1;
+    head.0 = Some((seq, hash, count));
     Ok(seq)
 }

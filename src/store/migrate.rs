@@ -47,6 +47,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "fit_config",
         include_str!("../../schema/0011_fit_config.sql"),
     ),
+    (
+        12,
+        "outbox_chain",
+        include_str!("../../schema/0012_outbox_chain.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

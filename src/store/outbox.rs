@@ -4,6 +4,12 @@
 //! `alert_condition` remembers the state of every alert key; it is what turns the rules'
 //! open/cleared verdicts into messages: a new opening, a rise in severity ("worse") and a
 //! clearing each queue one message, a repeat of the same verdict queues nothing.
+//!
+//! Every change of either table is also an event of the audit chain, appended in the same
+//! transaction: `alert-queued` (the row and the condition as written) and `mail-outcome`
+//! (the delivery columns after an attempt), so `verify` replays both tables. The first
+//! such write after the upgrade appends `outbox-chained`, which records from which row on
+//! the outbox is in the chain.
 
 use chrono::{DateTime, Utc};
 use rusqlite::{Connection, OptionalExtension, Transaction, params};
@@ -12,7 +18,50 @@ use super::{Result, StoreError};
 use crate::alert::{Alert, AlertState, ComposedMessage, Severity, compose_alert};
 use crate::alert::{AlertChange, OpenAlert};
 use crate::alert::{Condition, backoff, decide, message_id_for};
+use crate::model::Payload;
+use crate::model::event::{DeliveryState, QueuedMessage};
 use crate::model::time::{format_ts, parse_ts};
+
+/// The actor of the outbox's events: the service's own rules and mailer, not a person.
+pub const OUTBOX_ACTOR: &str = "turnbook";
+
+/// Hex SHA-256 of a text, as the outbox's events hold a message's subject and bodies.
+pub fn text_sha256(text: &str) -> String {
+    use sha2::{Digest, Sha256};
+    hex::encode(Sha256::digest(text.as_bytes()))
+}
+
+/// Append the `outbox-chained` marker once: the first outbox write after the upgrade
+/// records, in the chain, the first row it covers and how many rows were queued before.
+fn ensure_chained(tx: &Transaction, now: &str) -> Result<()> {
+    let row: Option<(i64, i64, Option<i64>)> = tx
+        .query_row(
+            "SELECT first_outbox_id, legacy_rows, marker_seq FROM outbox_chain WHERE id = 1",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)),
+        )
+        .optional()?;
+    let (first, legacy) = match row {
+        Some((_, _, Some(_))) => return Ok(()),
+        Some((first, legacy, None)) => (first, legacy),
+        None => tx.query_row(
+            "SELECT COALESCE(MAX(id), 0) + 1, COUNT(*) FROM alert_outbox",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )?,
+    };
+    let payload = Payload::OutboxChained {
+        first_outbox_id: first,
+        legacy_rows: legacy,
+    };
+    let seq = super::events::append(tx, now, OUTBOX_ACTOR, "outbox", &payload)?;
+    tx.execute(
+        "INSERT INTO outbox_chain (id, first_outbox_id, legacy_rows, marker_seq) \
+         VALUES (1, ?1, ?2, ?3) ON CONFLICT (id) DO UPDATE SET marker_seq = excluded.marker_seq",
+        params![first, legacy, seq],
+    )?;
+    Ok(())
+}
 
 fn corrupt(id: i64, what: String) -> StoreError {
     StoreError::Invalid(format!("stored outbox row {id} is damaged: {what}"))
@@ -73,16 +122,20 @@ pub fn enqueue(tx: &Transaction, alerts: &[Alert], now: &str) -> Result<usize> {
         let mut shown = alert.clone();
         shown.severity = severity;
         let msg = compose_alert(&shown, state, &message_id, thread.as_deref());
+        let condition_thread = thread.clone().unwrap_or_else(|| message_id.clone());
         let n = insert_message(
             tx,
-            &alert.key,
-            alert.rule.as_str(),
-            &alert.lot,
-            episode,
-            state,
-            severity,
+            &Queued {
+                key: &alert.key,
+                rule: alert.rule.as_str(),
+                lot: &alert.lot,
+                episode,
+                state,
+                severity,
+            },
             &msg,
             &now,
+            Some(&condition_thread),
         )?;
         queued += n;
         tx.execute(
@@ -99,7 +152,7 @@ pub fn enqueue(tx: &Transaction, alerts: &[Alert], now: &str) -> Result<usize> {
                 state.as_str(),
                 severity as i64,
                 episode,
-                thread.unwrap_or(message_id),
+                condition_thread,
                 now
             ],
         )?;
@@ -111,18 +164,34 @@ pub fn enqueue(tx: &Transaction, alerts: &[Alert], now: &str) -> Result<usize> {
     Ok(queued)
 }
 
-#[allow(clippy::too_many_arguments)]
-fn insert_message(
-    tx: &Transaction,
-    key: &str,
-    rule: &str,
-    lot: &str,
+/// What an outbox row is about: its condition's key, rule, lot, episode, state, severity.
+struct Queued<'a> {
+    key: &'a str,
+    rule: &'a str,
+    lot: &'a str,
     episode: i64,
     state: AlertState,
     severity: Severity,
+}
+
+/// Insert one message and append its `alert-queued` event (with `thread`, the condition's
+/// thread after the change; None for a digest).
+fn insert_message(
+    tx: &Transaction,
+    q: &Queued<'_>,
     msg: &ComposedMessage,
     now: &str,
+    thread: Option<&str>,
 ) -> Result<usize> {
+    let Queued {
+        key,
+        rule,
+        lot,
+        episode,
+        state,
+        severity,
+    } = *q;
+    ensure_chained(tx, now)?;
     let recipients = serde_json::to_string(&msg.recipients)?;
     let (next, err) = if msg.recipients.is_empty() {
         tracing::warn!(key, "alert has no recipients configured; recorded but held");
@@ -153,6 +222,26 @@ fn insert_message(
             err
         ],
     )?;
+    let event = QueuedMessage {
+        outbox_id: (n > 0).then(|| tx.last_insert_rowid()),
+        alert_key: key.to_string(),
+        rule: rule.to_string(),
+        lot: lot.to_string(),
+        episode,
+        state: state.as_str().to_string(),
+        severity: severity as i64,
+        message_id: msg.message_id.clone(),
+        in_reply_to: msg.in_reply_to.clone(),
+        subject_sha256: text_sha256(&msg.subject),
+        body_text_sha256: text_sha256(&msg.text),
+        body_html_sha256: text_sha256(&msg.html),
+        recipients: msg.recipients.clone(),
+        queued_at: now.to_string(),
+        next_attempt_at: next.map(str::to_string),
+        last_error: err.map(str::to_string),
+        thread_message_id: thread.map(str::to_string),
+    };
+    super::events::append(tx, now, OUTBOX_ACTOR, key, &Payload::AlertQueued(event))?;
     Ok(n)
 }
 
@@ -167,14 +256,17 @@ pub fn enqueue_message(
     let now = format_ts(parse_ts(now)?);
     insert_message(
         tx,
-        key,
-        "digest",
-        "",
-        1,
-        AlertState::Open,
-        Severity::Info,
+        &Queued {
+            key,
+            rule: "digest",
+            lot: "",
+            episode: 1,
+            state: AlertState::Open,
+            severity: Severity::Info,
+        },
         msg,
         &now,
+        None,
     )
 }
 
@@ -243,14 +335,60 @@ pub fn due_messages(
     Ok(out)
 }
 
-/// Record a successful hand-over with the server's reply.
+/// After an attempt changed row `id` (in `tx`): append its `mail-outcome` event with the
+/// delivery columns as they now stand, and commit.
+fn record_outcome(tx: Transaction, id: i64, outcome: &str, now: &str) -> Result<()> {
+    ensure_chained(&tx, now)?;
+    let state = tx.query_row(
+        "SELECT message_id, attempts, next_attempt_at, last_error, delivered_at, server_reply \
+         FROM alert_outbox WHERE id = ?1",
+        [id],
+        |r| {
+            Ok(DeliveryState {
+                outbox_id: id,
+                message_id: r.get(0)?,
+                outcome: outcome.to_string(),
+                attempts: r.get(1)?,
+                next_attempt_at: r.get(2)?,
+                last_error: r.get(3)?,
+                delivered_at: r.get(4)?,
+                server_reply: r.get(5)?,
+            })
+        },
+    )?;
+    let subject = format!("outbox {id}");
+    super::events::append(
+        &tx,
+        now,
+        OUTBOX_ACTOR,
+        &subject,
+        &Payload::MailOutcome(state),
+    )?;
+    tx.commit()?;
+    Ok(())
+}
+
+/// A transaction on a shared connection that takes the write lock at once.
+fn write_tx(conn: &Connection) -> Result<Transaction<'_>> {
+    Ok(Transaction::new_unchecked(
+        conn,
+        rusqlite::TransactionBehavior::Immediate,
+    )?)
+}
+
+/// Record a successful hand-over with the server's reply, and its event.
 pub fn mark_delivered(conn: &Connection, id: i64, now: DateTime<Utc>, reply: &str) -> Result<()> {
-    conn.execute(
+    let tx = write_tx(conn)?;
+    let now = format_ts(now);
+    let n = tx.execute(
         "UPDATE alert_outbox SET delivered_at = ?2, server_reply = ?3, next_attempt_at = NULL, \
            attempts = attempts + 1, last_error = NULL WHERE id = ?1 AND delivered_at IS NULL",
-        params![id, format_ts(now), reply],
+        params![id, now, reply],
     )?;
-    Ok(())
+    if n == 0 {
+        return Ok(());
+    }
+    record_outcome(tx, id, "sent", &now)
 }
 
 /// Record a failed attempt and schedule the next one with [`backoff`]. Returns the time
@@ -266,11 +404,15 @@ pub fn mark_failed(
     let delay = chrono::Duration::from_std(backoff(attempts))
         .unwrap_or_else(|_| chrono::Duration::hours(1));
     let next = now.checked_add_signed(delay).unwrap_or(now);
-    conn.execute(
+    let tx = write_tx(conn)?;
+    let n = tx.execute(
         "UPDATE alert_outbox SET attempts = ?2, next_attempt_at = ?3, last_error = ?4 \
          WHERE id = ?1 AND delivered_at IS NULL",
         params![id, i64::from(attempts), format_ts(next), error],
     )?;
+    if n > 0 {
+        record_outcome(tx, id, "failed", &format_ts(now))?;
+    }
     Ok(next)
 }
 

@@ -172,7 +172,11 @@ fn cycles_table(s: &LotState, lot: &str, lines: &[CycleLine]) {
             fmt_opt(l.activity, 3),
             fmt_opt(l.activity_se, 3),
             fmt_opt(l.metal_in_product_ug_g, 2),
-            if l.flags.is_empty() { "-" } else { &l.flags },
+            if l.flags.is_empty() {
+                "-".to_string()
+            } else {
+                l.flags.join(" ")
+            },
             l.sources
         );
     }

@@ -47,6 +47,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "fit_config",
         include_str!("../../schema/0011_fit_config.sql"),
     ),
+    (
+        14,
+        "plain_sqlite_and_figures",
+        include_str!("../../schema/0014_plain_sqlite_and_figures.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

@@ -76,6 +76,10 @@ pub trait FileSink: Send + Sync + 'static {
             "entry not read");
         Ok(())
     }
+
+    /// Called once, when every folder's start-up scan is done and every file it found has
+    /// been handled (ingested, or failed and set aside for a retry): the service is ready.
+    fn caught_up(&self) {}
 }
 
 /// What the watcher did, returned when it stops.

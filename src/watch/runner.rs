@@ -43,6 +43,8 @@ struct Sighting {
 enum Seen {
     File(Sighting),
     Refused { root: usize, refused: Refused },
+    /// A scan of the folder (its root index) has sent everything it found.
+    Scanned(usize),
 }
 
 /// A settled file for the worker, or (with `refusal`) an entry to report as refused.
@@ -117,8 +119,10 @@ pub async fn run(
     }
 
     let mut state = State::new(folders.clone(), roots.clone(), job_tx);
+    let mut catching_up = CatchUp::new(roots.len());
     if !*shutdown.borrow_and_update() {
         loop {
+            catching_up.check(&state, sink.as_ref());
             let deadline = state.next_deadline();
             tokio::select! {
                 changed = shutdown.changed() => {
@@ -129,6 +133,7 @@ pub async fn run(
                 Some(seen) = seen_rx.recv() => match seen {
                     Seen::File(sighting) => state.sighted(sighting),
                     Seen::Refused { root, refused } => state.refused_entry(root, refused),
+                    Seen::Scanned(root) => catching_up.scanned(root),
                 },
                 Some(outcome) = done_rx.recv() => state.finished(outcome),
                 () = sleep_until(deadline) => state.recheck(),
@@ -161,6 +166,40 @@ pub async fn run(
         );
     }
     Ok(state.stats)
+}
+
+/// Whether the start-up catch-up is over: every folder scanned once and every file found
+/// settled and handled. Told to the sink once ([`FileSink::caught_up`]).
+struct CatchUp {
+    /// Per folder (root index): scanned at least once.
+    scanned: Vec<bool>,
+    told: bool,
+}
+
+impl CatchUp {
+    fn new(folders: usize) -> Self {
+        CatchUp {
+            scanned: vec![false; folders],
+            told: false,
+        }
+    }
+
+    fn scanned(&mut self, root: usize) {
+        if let Some(s) = self.scanned.get_mut(root) {
+            *s = true;
+        }
+    }
+
+    fn check(&mut self, state: &State, sink: &dyn FileSink) {
+        if !self.told
+            && self.scanned.iter().all(|s| *s)
+            && state.tracker.len() == 0
+            && state.in_flight.is_empty()
+        {
+            self.told = true;
+            sink.caught_up();
+        }
+    }
 }
 
 /// Sleeps until the next re-check, or forever when nothing is settling (no idle polling).
@@ -307,6 +346,7 @@ async fn scanner(root: Root, every: Option<Duration>, seen: mpsc::UnboundedSende
             Ok(files) => send_all(&seen, root.index, files),
             Err(error) => tracing::error!(folder = ?root.canonical, %error, "folder scan failed"),
         }
+        let _ = seen.send(Seen::Scanned(root.index));
         match every {
             Some(pause) if !seen.is_closed() => tokio::time::sleep(pause).await,
             _ => return,

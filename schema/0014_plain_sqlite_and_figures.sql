@@ -94,9 +94,16 @@ SELECT c.lot                                AS lot,
        f.activity_basis                     AS activity_basis,
        c.excluded                           AS excluded,
        c.conflicts                          AS conflicts,
-       COALESCE(f.flags, '[]')              AS flags_json,
+       CASE WHEN f.flags IS NOT NULL THEN f.flags
+            WHEN l.lot IS NOT NULL THEN '[]'
+            -- A pending lot's cycles carry the record flags and `pending`, as `cycles`.
+            WHEN c.conflicts > 0 AND c.excluded THEN '["conflict","excluded","pending"]'
+            WHEN c.conflicts > 0 THEN '["conflict","pending"]'
+            WHEN c.excluded THEN '["excluded","pending"]'
+            ELSE '["pending"]' END          AS flags_json,
        f.computed_at                        AS computed_at
-FROM cycles c LEFT JOIN cycle_figures f ON f.batch_id = c.batch_id;
+FROM cycles c LEFT JOIN cycle_figures f ON f.batch_id = c.batch_id
+     LEFT JOIN lots l ON l.lot = c.lot;
 
 -- One row per lot (registered, or named by a cycle); state: pending (nobody registered
 -- it), attention (`lots` lists something to look at), ok, or not-computed (not yet

@@ -97,8 +97,14 @@ fn the_system_sqlite3_checks_dumps_and_restores_a_demo_database_that_still_verif
     }
     std::fs::write(tmp.path().join("dump.sql"), &dump).unwrap();
     let restored_db = restored.join("turnbook.db");
-    shell(&restored_db, &format!(".read {}\n", tmp.path().join("dump.sql").display()));
-    assert_eq!(shell(&restored_db, "PRAGMA integrity_check;\n").trim(), "ok");
+    shell(
+        &restored_db,
+        &format!(".read {}\n", tmp.path().join("dump.sql").display()),
+    );
+    assert_eq!(
+        shell(&restored_db, "PRAGMA integrity_check;\n").trim(),
+        "ok"
+    );
 
     // An UPDATE of `source_files` through the shell works (it maintains the hash index),
     // and the index still refuses a second ingestion of one content.

@@ -835,7 +835,10 @@ fn the_upgraded_hash_index_still_refuses_a_second_ingestion() {
     let sql = sql.split_whitespace().collect::<Vec<_>>().join(" ");
     assert_eq!(table, "source_files");
     assert!(sql.starts_with("CREATE UNIQUE INDEX"), "{sql}");
-    assert!(sql.contains("ON source_files(sha256 COLLATE NOCASE)"), "{sql}");
+    assert!(
+        sql.contains("ON source_files(sha256 COLLATE NOCASE)"),
+        "{sql}"
+    );
     assert!(!sql.contains("unhex"), "{sql}");
     assert!(sql.contains("WHERE outcome = 'ingested'"), "{sql}");
 

@@ -155,8 +155,14 @@ pub fn cells(lot: &str, c: &super::lots::CycleLine) -> Vec<(&'static str, Cell)>
         ("cumulative_ton", f(c.cumulative_ton)),
         ("k_app_per_h", f(c.k_app_per_h)),
         ("k_app_se_per_h", f(c.k_app_se_per_h)),
-        ("activity_per_catalyst_ratio", f(c.activity_per_catalyst_ratio)),
-        ("activity_per_metal_charged", f(c.activity_per_metal_charged)),
+        (
+            "activity_per_catalyst_ratio",
+            f(c.activity_per_catalyst_ratio),
+        ),
+        (
+            "activity_per_metal_charged",
+            f(c.activity_per_metal_charged),
+        ),
         ("activity_se", f(c.activity_se)),
         ("metal_lost_mg", f(c.metal_lost_mg)),
         (

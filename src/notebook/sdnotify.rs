@@ -115,9 +115,11 @@ pub async fn watchdog(live: Arc<Liveness>, mut stop: tokio::sync::watch::Receive
         match live.stuck_for() {
             Some(busy) if busy >= interval => {
                 if !silent {
-                    tracing::error!(busy_s = busy.as_secs(),
+                    tracing::error!(
+                        busy_s = busy.as_secs(),
                         "one file has been in ingestion longer than the watchdog interval; \
-                         no more watchdog pings, the service manager will restart the service");
+                         no more watchdog pings, the service manager will restart the service"
+                    );
                     silent = true;
                 }
             }

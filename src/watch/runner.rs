@@ -42,7 +42,10 @@ struct Sighting {
 #[derive(Debug)]
 enum Seen {
     File(Sighting),
-    Refused { root: usize, refused: Refused },
+    Refused {
+        root: usize,
+        refused: Refused,
+    },
     /// A scan of the folder (its root index) has sent everything it found.
     Scanned(usize),
 }

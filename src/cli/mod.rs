@@ -432,13 +432,50 @@ pub type CmdResult = Result<u8, Failure>;
 
 /// Run a parsed command line.
 pub fn run(cli: Cli) -> ExitCode {
-    match dispatch(&cli) {
+    match dispatch(&cli).map_err(|f| with_suggestion(&cli, f)) {
         Ok(code) => ExitCode::from(code),
         Err(f) => {
             eprintln!("turnbook: {}", f.message);
             ExitCode::from(f.code)
         }
     }
+}
+
+/// The lot or batch a command names, if any.
+fn named(cmd: &Command) -> Option<(crate::notebook::NameKind, &str)> {
+    use crate::notebook::NameKind::{Batch, Lot};
+    match cmd {
+        Command::Cycles(a) => Some((Lot, a.lot.as_str())),
+        Command::History(a) => Some((Lot, a.lot.as_str())),
+        Command::Signoff(a) => Some((Lot, a.lot.as_str())),
+        Command::Fit(a) => a.lot.as_deref().map(|l| (Lot, l)),
+        Command::Report(a) => a.lot.as_deref().map(|l| (Lot, l)),
+        Command::Export(a) => a.lot.as_deref().map(|l| (Lot, l)),
+        Command::Correct(a) => Some((Batch, a.batch.as_str())),
+        Command::Exclude(a) => Some((Batch, a.batch.as_str())),
+        Command::Note(a) => match (&a.lot, &a.batch) {
+            (Some(l), _) => Some((Lot, l.as_str())),
+            (None, Some(b)) => Some((Batch, b.as_str())),
+            _ => None,
+        },
+        _ => None,
+    }
+}
+
+/// A refusal that quotes an unknown lot or batch name gets "did you mean" the closest
+/// known one.
+fn with_suggestion(cli: &Cli, mut f: Failure) -> Failure {
+    let Some((kind, name)) = named(&cli.command) else {
+        return f;
+    };
+    if f.code != 1 || !f.message.contains(&format!("'{name}'")) {
+        return f;
+    }
+    let Ok(cfg) = load(cli) else { return f };
+    if let Ok(Some(known)) = crate::notebook::suggest_name(&cfg, kind, name) {
+        f.message.push_str(&format!("; did you mean '{known}'?"));
+    }
+    f
 }
 
 fn load(cli: &Cli) -> Result<Config, Failure> {

@@ -328,3 +328,89 @@ pub fn write_csv_file(
     let file = std::fs::File::create(path).map_err(|e| cannot(&e))?;
     write_csv(lines, std::io::BufWriter::new(file)).map_err(|e| cannot(&e))
 }
+
+/// What a mistyped name was probably meant to be.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum NameKind {
+    Lot,
+    Batch,
+}
+
+/// The known lot or batch name closest to `typed` (Levenshtein distance on the upper-cased
+/// names, at most a quarter of its length and at least 1), for a "did you mean"; None when
+/// `typed` is known or nothing is close.
+pub fn suggest_name(
+    cfg: &crate::config::Config,
+    kind: NameKind,
+    typed: &str,
+) -> super::Result<Option<String>> {
+    let conn = crate::store::open(&cfg.database_path())?;
+    let names = match kind {
+        NameKind::Lot => crate::store::lots::lot_names(&conn)?,
+        NameKind::Batch => crate::store::export::batch_ids(&conn)?,
+    };
+    Ok(closest(typed, &names))
+}
+
+/// See [`suggest_name`].
+pub fn closest(typed: &str, names: &[String]) -> Option<String> {
+    if names.iter().any(|n| n == typed) {
+        return None;
+    }
+    let limit = (typed.chars().count() / 4).max(1);
+    let t = typed.to_uppercase();
+    names
+        .iter()
+        .map(|n| (edit_distance(&t, &n.to_uppercase()), n))
+        .filter(|(d, _)| *d <= limit)
+        .min_by_key(|(d, _)| *d)
+        .map(|(_, n)| n.clone())
+}
+
+/// Levenshtein distance (insertions, deletions, substitutions) by the two-row method.
+fn edit_distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut prev: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut cur = vec![i + 1; b.len() + 1];
+        for (j, cb) in b.iter().enumerate() {
+            cur[j + 1] = (prev[j] + usize::from(ca != *cb))
+                .min(prev[j + 1] + 1)
+                .min(cur[j] + 1);
+        }
+        prev = cur;
+    }
+    prev[b.len()]
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_close_name_is_suggested_and_a_far_or_known_one_is_not() {
+        let names = vec!["PD-C-2611-A".to_string(), "PT-AL-2610-B".to_string()];
+        assert_eq!(
+            closest("PD-C-2611-B", &names).as_deref(),
+            Some("PD-C-2611-A")
+        );
+        assert_eq!(
+            closest("pd-c-2611-a", &names).as_deref(),
+            Some("PD-C-2611-A")
+        );
+        assert_eq!(closest("PD-C-2611-A", &names), None);
+        assert_eq!(closest("XYZ", &names), None);
+        assert_eq!(edit_distance("kitten", "sitting"), 3);
+        assert_eq!(edit_distance("", "abc"), 3);
+    }
+
+    #[test]
+    fn rounding_keeps_the_digits_asked_for_and_drops_conversion_noise() {
+        assert_eq!(round_sig(Some(60.69999999999999), 10), Some(60.7));
+        assert_eq!(round_sig(Some(486.983368704), 5), Some(486.98));
+        assert_eq!(round_sig(Some(-0.000123456), 3), Some(-0.000123));
+        assert_eq!(round_sig(Some(f64::NAN), 3), None);
+        assert_eq!(round_sig(Some(0.0), 3), Some(0.0));
+        assert_eq!(round_sig(None, 3), None);
+    }
+}

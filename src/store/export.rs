@@ -131,3 +131,12 @@ pub fn store_figures(
     ])?;
     Ok(())
 }
+
+/// Every batch id of `cycles`, for "did you mean" suggestions.
+pub fn batch_ids(conn: &rusqlite::Connection) -> Result<Vec<String>> {
+    let mut st = conn.prepare("SELECT batch_id FROM cycles ORDER BY batch_id")?;
+    let ids = st
+        .query_map([], |r| r.get(0))?
+        .collect::<rusqlite::Result<Vec<String>>>()?;
+    Ok(ids)
+}

@@ -365,11 +365,18 @@ pub fn init_logging(json: bool, service: bool) {
     let no_mail_protocol = tracing_subscriber::filter::Targets::new()
         .with_default(tracing::Level::TRACE)
         .with_target("lettre", tracing::Level::WARN);
-    let layer = tracing_subscriber::fmt::layer().with_writer(std::io::stderr);
+    // Under systemd, each line carries its journald priority; readable lines then need no
+    // timestamp of their own either (the journal stamps them), but keep it for copies.
+    let writer = crate::logs::StderrWriter {
+        prefix: crate::logs::stderr_is_journal(),
+    };
+    let layer = tracing_subscriber::fmt::layer().with_writer(writer);
     let layer = if json {
         layer.json().boxed()
     } else {
-        layer.with_ansi(std::io::stderr().is_terminal()).boxed()
+        layer
+            .with_ansi(crate::logs::colour_wanted(std::io::stderr().is_terminal()))
+            .boxed()
     };
     let filter = tracing_subscriber::filter::FilterExt::and(env, no_mail_protocol);
     tracing_subscriber::registry()

@@ -167,7 +167,12 @@ pub async fn serve_with(
             tracing::error!(task = name, error = %e, "a service task ended abnormally");
         }
     }
-    watched.map_err(|e| NotebookError::Usage(format!("cannot watch the configured folders: {e:#}")))
+    watched.map_err(|e| {
+        NotebookError::Usage(format!(
+            "cannot watch the configured folders: {}",
+            crate::logs::anyhow_once(&e)
+        ))
+    })
 }
 
 /// Pass the caller's shutdown on to the tasks' stop signal; ends when either is given.

@@ -105,7 +105,7 @@ pub async fn run(
         .collect();
     for root in roots.iter() {
         let folder = &folders[root.index];
-        tracing::info!(folder = ?root.canonical, profile = ?folder.profile, mode = ?folder.mode,
+        tracing::info!(folder = %crate::logs::shown_path(&root.canonical), profile = %folder.profile, mode = ?folder.mode,
             recursive = folder.recursive, "watching");
     }
     drop(seen_tx);
@@ -282,7 +282,7 @@ fn start_events(
         Ok(event) => {
             let meaning = classify(&event);
             if meaning.rescan {
-                tracing::warn!(folder = ?root.canonical, "file events were lost; rescanning");
+                tracing::warn!(folder = %crate::logs::shown_path(&root.canonical), "file events were lost; rescanning");
                 send_all(&seen, root.index, root.scan_all(&root.canonical));
             }
             for (path, signal) in meaning.look_at {
@@ -306,7 +306,9 @@ fn start_events(
                 }
             }
         }
-        Err(error) => tracing::warn!(folder = ?root.canonical, %error, "file event error"),
+        Err(error) => {
+            tracing::warn!(folder = %crate::logs::shown_path(&root.canonical), %error, "file event error")
+        }
     };
     let events = |source| WatchError::Events {
         index,
@@ -347,7 +349,9 @@ async fn scanner(root: Root, every: Option<Duration>, seen: mpsc::UnboundedSende
         let scan_root = root.clone();
         match tokio::task::spawn_blocking(move || scan_root.scan_all(&scan_root.canonical)).await {
             Ok(files) => send_all(&seen, root.index, files),
-            Err(error) => tracing::error!(folder = ?root.canonical, %error, "folder scan failed"),
+            Err(error) => {
+                tracing::error!(folder = %crate::logs::shown_path(&root.canonical), %error, "folder scan failed")
+            }
         }
         let _ = seen.send(Seen::Scanned(root.index));
         match every {
@@ -376,7 +380,7 @@ fn worker(
                 None => sink.ingest(folder, &job.path),
             })) {
                 Ok(Ok(())) => Ok(()),
-                Ok(Err(error)) => Err(format!("{error:#}")),
+                Ok(Err(error)) => Err(crate::logs::anyhow_once(&error)),
                 Err(_) => Err("the ingestion code panicked".to_string()),
             },
             None => Err("file belongs to no configured folder".to_string()),
@@ -552,7 +556,7 @@ impl State {
                         .note(key, (root, path), found.stamp, Signal::Seen, settle, now);
                 }
                 _ => {
-                    tracing::debug!(path = ?path, "refused file is gone; no retry");
+                    tracing::debug!(path = %crate::logs::shown_path(&path), "refused file is gone; no retry");
                     self.refused.remove(&key);
                 }
             }
@@ -578,9 +582,11 @@ impl State {
                     },
                     now,
                 ),
-                Verdict::Waiting => tracing::trace!(path = ?path, "still changing"),
+                Verdict::Waiting => {
+                    tracing::trace!(path = %crate::logs::shown_path(&path), "still changing")
+                }
                 Verdict::Gone => {
-                    tracing::debug!(path = ?path, "vanished before it settled");
+                    tracing::debug!(path = %crate::logs::shown_path(&path), "vanished before it settled");
                     self.refused.remove(&key);
                 }
             }
@@ -598,7 +604,7 @@ impl State {
         if let Err(lost) = job_tx.send(job) {
             let job = lost.0;
             self.in_flight.remove(&job.key);
-            tracing::error!(path = ?job.path, "ingestion worker is gone; file not offered");
+            tracing::error!(path = %crate::logs::shown_path(&job.path), "ingestion worker is gone; file not offered");
         }
     }
 
@@ -612,7 +618,7 @@ impl State {
             if let Err(error) = result {
                 // Reported again at the next scan or event that sees it.
                 self.stats.sink_errors += 1;
-                tracing::error!(path = ?job.path, error = %error.escape_debug(),
+                tracing::error!(path = %crate::logs::shown_path(&job.path), error = %error.escape_debug(),
                     "refused entry not recorded");
                 self.reported.remove(&job.key);
             }
@@ -624,7 +630,7 @@ impl State {
             .map_or("", |f| f.profile.as_str());
         match result {
             Ok(()) => {
-                tracing::debug!(path = ?job.path, profile, size = job.stamp.size, "file offered");
+                tracing::debug!(path = %crate::logs::shown_path(&job.path), profile, size = job.stamp.size, "file offered");
                 self.refused.remove(&job.key);
                 self.offered.insert(job.key, job.stamp);
             }
@@ -637,7 +643,7 @@ impl State {
                 let wait = retry_delay(self.retry_first, attempts);
                 // The message may quote the file name: escape control characters so a name
                 // cannot start a forged log line.
-                tracing::error!(path = ?job.path, profile, error = %error.escape_debug(), attempts,
+                tracing::error!(path = %crate::logs::shown_path(&job.path), profile, error = %error.escape_debug(), attempts,
                     retry_in_s = wait.as_secs(), "file not ingested");
                 self.refused.insert(
                     job.key,

@@ -72,7 +72,7 @@ pub trait FileSink: Send + Sync + 'static {
     /// the entry in a run. The pipeline records it like a rejected file; this default only
     /// logs it, so that no entry is passed over without a line.
     fn refuse(&self, folder: &WatchFolder, path: &Path, reason: &str) -> anyhow::Result<()> {
-        tracing::warn!(folder = %crate::logs::shown_path(&folder.path), path = %crate::logs::shown_path(&path), reason = %reason.escape_debug(),
+        tracing::warn!(folder = %crate::logs::shown_path(&folder.path), path = %crate::logs::shown_path(path), reason = %reason.escape_debug(),
             "entry not read");
         Ok(())
     }

@@ -196,7 +196,7 @@ impl CatchUp {
     fn check(&mut self, state: &State, sink: &dyn FileSink) {
         if !self.told
             && self.scanned.iter().all(|s| *s)
-            && state.tracker.len() == 0
+            && state.tracker.is_empty()
             && state.in_flight.is_empty()
         {
             self.told = true;

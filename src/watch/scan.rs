@@ -273,11 +273,11 @@ impl Root {
                 })
             }
             None if skip == Skip::Unreadable => {
-                tracing::warn!(path = %crate::logs::shown_path(&path), "cannot look at this entry; not offered");
+                tracing::warn!(path = %crate::logs::shown_path(path), "cannot look at this entry; not offered");
                 None
             }
             None => {
-                tracing::trace!(path = %crate::logs::shown_path(&path), ?skip, "not offered");
+                tracing::trace!(path = %crate::logs::shown_path(path), ?skip, "not offered");
                 None
             }
         }

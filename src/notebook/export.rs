@@ -405,6 +405,50 @@ mod tests {
     }
 
     #[test]
+    fn csv_quotes_and_guards_text_and_reads_back_to_the_same_table() {
+        let mut lines = Vec::new();
+        for (i, id) in [
+            "=HYPERLINK(\"http://x\",\"y\")",
+            "@SUM(A1:A9)",
+            "a,b\r\nc \"q\"",
+            "\tTAB",
+            "-1",
+            "B-7",
+        ]
+        .iter()
+        .enumerate()
+        {
+            let mut l = empty_line();
+            l.cycle = i as u32 + 1;
+            l.batch_id = id.to_string();
+            l.temperature_c = Some(333.85 - 273.15);
+            l.ton = Some(-12.345678);
+            l.flags = vec!["conflict".into(), "excluded".into()];
+            lines.push(("LOT".to_string(), l));
+        }
+        let mut buf = Vec::new();
+        write_csv(&lines, &mut buf).unwrap();
+        let mut rd = csv::Reader::from_reader(buf.as_slice());
+        let header: Vec<String> = rd.headers().unwrap().iter().map(String::from).collect();
+        let col = |name: &str| header.iter().position(|h| h == name).unwrap();
+        let rows: Vec<csv::StringRecord> = rd.records().map(|r| r.unwrap()).collect();
+        assert_eq!(rows.len(), lines.len());
+        for (row, (_, l)) in rows.iter().zip(&lines) {
+            assert_eq!(row.len(), header.len());
+            let expected = match l.batch_id.chars().next() {
+                Some('=' | '+' | '-' | '@' | '\t' | '\r') => format!("'{}", l.batch_id),
+                _ => l.batch_id.clone(),
+            };
+            assert_eq!(&row[col("batch_id")], expected);
+            // Numbers stay numbers (a negative one gets no guard), rounded, without noise.
+            assert_eq!(&row[col("temperature_c")], "60.7");
+            assert_eq!(&row[col("ton")], "-12.346");
+            assert_eq!(&row[col("flags")], "conflict excluded");
+            assert_eq!(&row[col("duration_h")], "");
+        }
+    }
+
+    #[test]
     fn rounding_keeps_the_digits_asked_for_and_drops_conversion_noise() {
         assert_eq!(round_sig(Some(60.69999999999999), 10), Some(60.7));
         assert_eq!(round_sig(Some(486.983368704), 5), Some(486.98));

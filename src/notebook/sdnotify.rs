@@ -172,3 +172,23 @@ pub async fn log_hangups(mut stop: tokio::sync::watch::Receiver<bool>) {
         let _ = stop.changed().await;
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn liveness_reports_a_unit_of_work_while_it_lasts() {
+        let live = Arc::new(Liveness::default());
+        assert_eq!(live.stuck_for(), None);
+        {
+            let _busy = live.busy();
+            std::thread::sleep(Duration::from_millis(20));
+            assert!(
+                live.stuck_for()
+                    .is_some_and(|d| d >= Duration::from_millis(10))
+            );
+        }
+        assert_eq!(live.stuck_for(), None);
+    }
+}

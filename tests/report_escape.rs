@@ -110,7 +110,6 @@ fn empty_and_non_finite_reports_still_render() {
     let html = lot_html(&r);
     assert!(html.contains("No cycles recorded."));
     assert!(html.contains("no finite points to draw"));
-    assert_eq!(lot_csv(&r).lines().count(), 1);
     // Finite x but non-finite y and an unbounded forecast: the chart is still drawn.
     let mut r2 = demo_lot("L", "f", "w");
     if let Some(fit) = r2.fit.as_mut() {

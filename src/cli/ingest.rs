@@ -76,7 +76,7 @@ fn stopped(
 pub fn verify(cfg: &Config, heads: &[crate::model::chain::Head], json: bool) -> CmdResult {
     let report = crate::notebook::verify(cfg, heads)?;
     if json {
-        println!("{}", serde_json::to_string_pretty(&report)?);
+        super::print_json(&report)?;
     } else if report.ok() {
         let keyed = match report.keyed_after {
             None => "plain links".to_string(),

@@ -540,7 +540,7 @@ pub fn printable(s: &str) -> String {
 }
 
 /// The version of the shape of the JSON the commands print (`lots`, `cycles`, `history`,
-/// `status`); every printed object carries it as `schema`. Raised when a field is renamed,
+/// `status`, `alerts`, `fit`, `verify`); every printed object carries it as `schema`. Raised when a field is renamed,
 /// retyped or removed; new fields do not raise it.
 pub const JSON_SCHEMA: u32 = 1;
 

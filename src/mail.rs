@@ -245,12 +245,7 @@ fn configured_password(cfg: &MailConfig) -> Result<Option<Secret>, MailError> {
     if let Some(dir) = std::env::var_os("CREDENTIALS_DIRECTORY") {
         let path = std::path::Path::new(&dir).join("smtp-password");
         if path.is_file() {
-            let file_cfg = MailConfig {
-                password_env: None,
-                password_file: Some(path),
-                ..cfg.clone()
-            };
-            return configured_password(&file_cfg);
+            return password_file(&path).map(Some);
         }
     }
     if let Some(var) = &cfg.password_env {
@@ -258,34 +253,35 @@ fn configured_password(cfg: &MailConfig) -> Result<Option<Secret>, MailError> {
             .map_err(|_| cfg_err(format!("password variable {var} is not set")))?;
         return Ok(Some(Secret(v)));
     }
-    if let Some(path) = &cfg.password_file {
-        let meta = std::fs::metadata(path).map_err(|e| MailError::Io {
-            path: path.clone(),
-            source: e,
-        })?;
-        #[cfg(unix)]
-        {
-            use std::os::unix::fs::PermissionsExt;
-            let mode = meta.permissions().mode() & 0o777;
-            if mode & 0o077 != 0 {
-                return Err(cfg_err(format!(
-                    "password file {} has mode {mode:o}: readable by group or others; \
-                     restrict it with chmod 600",
-                    path.display()
-                )));
-            }
-        }
-        #[cfg(not(unix))]
-        let _ = meta;
-        let text = std::fs::read_to_string(path).map_err(|e| MailError::Io {
-            path: path.clone(),
-            source: e,
-        })?;
-        return Ok(Some(Secret(
-            text.trim_end_matches(['\r', '\n']).to_string(),
-        )));
+    match &cfg.password_file {
+        Some(path) => password_file(path).map(Some),
+        None => Ok(None),
     }
-    Ok(None)
+}
+
+/// The password in `path`, a file that group and others cannot read.
+fn password_file(path: &Path) -> Result<Secret, MailError> {
+    let io = |e| MailError::Io {
+        path: path.to_path_buf(),
+        source: e,
+    };
+    let meta = std::fs::metadata(path).map_err(io)?;
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        let mode = meta.permissions().mode() & 0o777;
+        if mode & 0o077 != 0 {
+            return Err(cfg_err(format!(
+                "password file {} has mode {mode:o}: readable by group or others; \
+                 restrict it with chmod 600",
+                path.display()
+            )));
+        }
+    }
+    #[cfg(not(unix))]
+    let _ = meta;
+    let text = std::fs::read_to_string(path).map_err(io)?;
+    Ok(Secret(text.trim_end_matches(['\r', '\n']).to_string()))
 }
 
 /// Resolve the delivery target: `env_url` (the value of [`SMTP_URL_ENV`]) wins over the

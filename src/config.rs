@@ -31,6 +31,36 @@ pub enum ConfigError {
         key: String,
         message: String,
     },
+    #[error(
+        "no configuration file found; looked in {}; name one with --config FILE or \
+         TURNBOOK_CONFIG, make a demonstration plant with `turnbook demo --dir DIR`, or start \
+         from the commented example deploy/turnbook.example.toml",
+        looked.join(", ")
+    )]
+    NotFound { looked: Vec<String> },
+}
+
+/// The system-wide configuration, looked up last.
+pub const SYSTEM_CONFIG: &str = "/etc/turnbook/turnbook.toml";
+
+/// The configuration file to use: `explicit` (from `--config` or `TURNBOOK_CONFIG`) when
+/// given, else `./turnbook.toml`, else [`SYSTEM_CONFIG`], the first that exists.
+pub fn locate(explicit: Option<&Path>) -> Result<PathBuf, ConfigError> {
+    if let Some(p) = explicit {
+        return Ok(p.to_path_buf());
+    }
+    let candidates = [PathBuf::from("turnbook.toml"), PathBuf::from(SYSTEM_CONFIG)];
+    if let Some(found) = candidates.iter().find(|p| p.is_file()) {
+        return Ok(found.clone());
+    }
+    Err(ConfigError::NotFound {
+        looked: vec![
+            "--config (not given)".into(),
+            "TURNBOOK_CONFIG (not set)".into(),
+            "./turnbook.toml".into(),
+            SYSTEM_CONFIG.into(),
+        ],
+    })
 }
 
 /// The whole configuration, as written in `turnbook.toml`.

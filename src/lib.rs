@@ -25,6 +25,7 @@ pub mod cli;
 pub mod config;
 pub mod fit;
 pub mod ingest;
+pub mod logs;
 pub mod mail;
 pub mod model;
 pub mod modes;

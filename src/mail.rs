@@ -238,41 +238,50 @@ pub fn parse_smtp_url(url: &str) -> Result<SmtpTarget, MailError> {
     })
 }
 
-/// Read the password from the configured environment variable or file.
+/// Read the password from systemd's credential `smtp-password`
+/// (`$CREDENTIALS_DIRECTORY/smtp-password`, `LoadCredential=` in the unit) when it exists,
+/// else from the configured environment variable or file.
 fn configured_password(cfg: &MailConfig) -> Result<Option<Secret>, MailError> {
+    if let Some(dir) = std::env::var_os("CREDENTIALS_DIRECTORY") {
+        let path = std::path::Path::new(&dir).join("smtp-password");
+        if path.is_file() {
+            return password_file(&path).map(Some);
+        }
+    }
     if let Some(var) = &cfg.password_env {
         let v = std::env::var(var)
             .map_err(|_| cfg_err(format!("password variable {var} is not set")))?;
         return Ok(Some(Secret(v)));
     }
-    if let Some(path) = &cfg.password_file {
-        let meta = std::fs::metadata(path).map_err(|e| MailError::Io {
-            path: path.clone(),
-            source: e,
-        })?;
-        #[cfg(unix)]
-        {
-            use std::os::unix::fs::PermissionsExt;
-            let mode = meta.permissions().mode() & 0o777;
-            if mode & 0o077 != 0 {
-                return Err(cfg_err(format!(
-                    "password file {} has mode {mode:o}: readable by group or others; \
-                     restrict it with chmod 600",
-                    path.display()
-                )));
-            }
-        }
-        #[cfg(not(unix))]
-        let _ = meta;
-        let text = std::fs::read_to_string(path).map_err(|e| MailError::Io {
-            path: path.clone(),
-            source: e,
-        })?;
-        return Ok(Some(Secret(
-            text.trim_end_matches(['\r', '\n']).to_string(),
-        )));
+    match &cfg.password_file {
+        Some(path) => password_file(path).map(Some),
+        None => Ok(None),
     }
-    Ok(None)
+}
+
+/// The password in `path`, a file that group and others cannot read.
+fn password_file(path: &Path) -> Result<Secret, MailError> {
+    let io = |e| MailError::Io {
+        path: path.to_path_buf(),
+        source: e,
+    };
+    let meta = std::fs::metadata(path).map_err(io)?;
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        let mode = meta.permissions().mode() & 0o777;
+        if mode & 0o077 != 0 {
+            return Err(cfg_err(format!(
+                "password file {} has mode {mode:o}: readable by group or others; \
+                 restrict it with chmod 600",
+                path.display()
+            )));
+        }
+    }
+    #[cfg(not(unix))]
+    let _ = meta;
+    let text = std::fs::read_to_string(path).map_err(io)?;
+    Ok(Secret(text.trim_end_matches(['\r', '\n']).to_string()))
 }
 
 /// Resolve the delivery target: `env_url` (the value of [`SMTP_URL_ENV`]) wins over the
@@ -445,10 +454,33 @@ pub async fn deliver_due(
     cfg: &MailConfig,
     now: DateTime<Utc>,
 ) -> Result<DeliveryReport, MailError> {
+    deliver_waiting(conn_path, cfg, now, now).await
+}
+
+/// Attempt every message still waiting, whatever its backoff (`turnbook mail`: someone
+/// asks for delivery now, typically right after the mail server came back).
+pub async fn deliver_all_waiting(
+    conn_path: &Path,
+    cfg: &MailConfig,
+    now: DateTime<Utc>,
+) -> Result<DeliveryReport, MailError> {
+    // Any backoff ends long before a thousand years (stored timestamps compare as text,
+    // so a four-digit year is kept).
+    let any_time = now + chrono::TimeDelta::days(365_000);
+    deliver_waiting(conn_path, cfg, now, any_time).await
+}
+
+/// Attempt the messages whose next attempt falls at or before `due_by`, at time `now`.
+async fn deliver_waiting(
+    conn_path: &Path,
+    cfg: &MailConfig,
+    now: DateTime<Utc>,
+    due_by: DateTime<Utc>,
+) -> Result<DeliveryReport, MailError> {
     let env_url = std::env::var(SMTP_URL_ENV).ok();
     let delivery = resolve_delivery(cfg, env_url.as_deref())?;
     let batch = cfg.batch.max(1);
-    let due = with_db(conn_path, move |c| due_messages(c, now, batch)).await?;
+    let due = with_db(conn_path, move |c| due_messages(c, due_by, batch)).await?;
     let mut report = DeliveryReport::default();
     if due.is_empty() {
         return Ok(report);

@@ -56,7 +56,11 @@ fn a_relative_demo_folder_records_each_file_once_and_completes_every_cycle() {
     let last = &rows[9];
     assert!(last["product_mass_g"].is_number(), "{last}");
     assert!(
-        !last["flags"].as_str().unwrap().contains("pending"),
+        !last["flags"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|f| f == "pending"),
         "{last}"
     );
     // Every recorded path is absolute.

@@ -703,7 +703,7 @@ fn an_upgrade_from_version_4_keeps_every_value_with_its_origin() {
     assert_ne!(store::PAGE_SIZE, 4096);
 
     // The schema is the newest, every migration recorded once.
-    assert_eq!(schema_version(&conn), 12);
+    assert_eq!(schema_version(&conn), 14);
     assert_eq!(schema_version(&conn), migrate::latest());
     let recorded: Vec<(i64, String)> = {
         let mut stmt = conn
@@ -822,7 +822,8 @@ fn the_upgraded_hash_index_still_refuses_a_second_ingestion() {
     let v4 = build_v4();
     let mut conn = upgrade(&v4.path);
 
-    // The index keeps its name and now holds the 32 bytes of the hash.
+    // The index keeps its name; since 0014 it holds the hex text compared without regard
+    // to case (as `unhex` compared it), so SQLite before 3.41 can read and check it.
     let (table, sql): (String, String) = conn
         .query_row(
             "SELECT tbl_name, sql FROM sqlite_master
@@ -834,7 +835,11 @@ fn the_upgraded_hash_index_still_refuses_a_second_ingestion() {
     let sql = sql.split_whitespace().collect::<Vec<_>>().join(" ");
     assert_eq!(table, "source_files");
     assert!(sql.starts_with("CREATE UNIQUE INDEX"), "{sql}");
-    assert!(sql.contains("ON source_files(unhex(sha256))"), "{sql}");
+    assert!(
+        sql.contains("ON source_files(sha256 COLLATE NOCASE)"),
+        "{sql}"
+    );
+    assert!(!sql.contains("unhex"), "{sql}");
     assert!(sql.contains("WHERE outcome = 'ingested'"), "{sql}");
 
     // The store's lookup finds the old files by hash, through that index.
@@ -853,7 +858,7 @@ fn the_upgraded_hash_index_still_refuses_a_second_ingestion() {
     let plan = dump(
         &conn,
         "EXPLAIN QUERY PLAN SELECT id FROM source_files
-         WHERE unhex(sha256) = unhex('00') AND outcome = 'ingested'",
+         WHERE sha256 = '00' COLLATE NOCASE AND outcome = 'ingested'",
     );
     assert!(
         plan.iter().flatten().any(|v| matches!(
@@ -871,6 +876,18 @@ fn the_upgraded_hash_index_still_refuses_a_second_ingestion() {
                 "INSERT INTO source_files(sha256, path, size, seen_at, outcome, event_seq)
                  VALUES (?1, '/exports/kv/again.csv', 1, '2025-11-06T00:00:00.000Z', 'ingested', 2)",
                 [&v4.shas[0]],
+            )
+            .unwrap_err();
+        assert!(
+            err.to_string().contains("UNIQUE constraint failed"),
+            "{err}"
+        );
+        // The same hash written in capitals is the same content, refused alike.
+        let err = tx
+            .execute(
+                "INSERT INTO source_files(sha256, path, size, seen_at, outcome, event_seq)
+                 VALUES (?1, '/exports/kv/again.csv', 1, '2025-11-06T00:00:00.000Z', 'ingested', 2)",
+                [&v4.shas[0].to_uppercase()],
             )
             .unwrap_err();
         assert!(

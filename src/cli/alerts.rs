@@ -8,7 +8,7 @@ use crate::notebook::{self, AlertAct};
 pub fn list(cfg: &Config, a: &AlertsArgs) -> CmdResult {
     let alerts = notebook::list_alerts(cfg, a.all)?;
     if a.json {
-        println!("{}", serde_json::to_string_pretty(&alerts)?);
+        super::print_json(&alerts)?;
         return Ok(0);
     }
     if alerts.is_empty() {

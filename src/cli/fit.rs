@@ -41,7 +41,7 @@ fn lot_fit(cfg: &Config, lot: &str, json: bool) -> CmdResult {
                 serde_json::json!(a.pooled.as_ref().map(|p| p.prior.lots.len())),
             );
         }
-        println!("{}", serde_json::to_string_pretty(&v)?);
+        super::print_json(&v)?;
     } else {
         println!(
             "lot {lot}: {} against {}",
@@ -82,7 +82,7 @@ fn series(file: &std::path::Path, a: &FitArgs) -> CmdResult {
         } => {
             let v = fit::fit_json(&f, forecast.as_deref());
             if a.json {
-                println!("{}", serde_json::to_string_pretty(&v)?);
+                super::print_json(&v)?;
             } else {
                 println!(
                     "model {} on {} points: converged {}, RSS {}, AICc {}",
@@ -117,7 +117,7 @@ fn series(file: &std::path::Path, a: &FitArgs) -> CmdResult {
                         m.entry(k).or_insert(val);
                     }
                 }
-                println!("{}", serde_json::to_string_pretty(&v)?);
+                super::print_json(&v)?;
             } else {
                 print!("{}", fit::render_text(&an));
             }

@@ -9,7 +9,10 @@ pub fn ingest(cfg: Config, a: &IngestArgs) -> CmdResult {
     let files = ingestion::files_under(&cfg, &a.paths, a.profile.as_deref())?;
     let json = a.json;
     let bar = progress_bar(files.len() as u64, json);
+    let database = cfg.database_path();
+    let mut stored = 0usize;
     let summary = ingestion::ingest_files(cfg, &files, a.profile.clone(), |o| {
+        stored += 1;
         bar.inc(1);
         if json {
             if let Ok(s) = serde_json::to_string(o) {
@@ -18,7 +21,8 @@ pub fn ingest(cfg: Config, a: &IngestArgs) -> CmdResult {
         } else if let FileOutcome::Rejected { path, error, .. } = o {
             bar.suspend(|| eprintln!("rejected {}: {}", printable(path), printable(error)));
         }
-    })?;
+    })
+    .map_err(|e| stopped(e, &database, stored, files.len()))?;
     bar.finish_and_clear();
     if !json {
         // Entries not read (links leading out, pipes...) are named when there are any.
@@ -50,6 +54,24 @@ pub fn ingest(cfg: Config, a: &IngestArgs) -> CmdResult {
     Ok(if summary.rejected > 0 { 1 } else { 0 })
 }
 
+/// A backfill that stopped: what failed, in which database, and what is already stored
+/// (committed files are kept; the same command skips them and goes on).
+fn stopped(
+    e: crate::notebook::NotebookError,
+    database: &std::path::Path,
+    stored: usize,
+    total: usize,
+) -> super::Failure {
+    let mut f = super::Failure::from(e);
+    f.message = format!(
+        "{} (database {}; {stored} of {total} file(s) were stored before this and are kept; \
+         the same command skips them and goes on)",
+        f.message,
+        database.display()
+    );
+    f
+}
+
 /// `turnbook verify`.
 pub fn verify(cfg: &Config, args: &super::VerifyArgs) -> CmdResult {
     let scope = if args.since_last {
@@ -60,7 +82,7 @@ pub fn verify(cfg: &Config, args: &super::VerifyArgs) -> CmdResult {
     let done = crate::notebook::verify_recorded(cfg, &args.heads, scope)?;
     let report = &done.report;
     if args.json {
-        println!("{}", serde_json::to_string_pretty(report)?);
+        super::print_json(report)?;
     } else if let (Some(since), true) = (&done.since, report.ok()) {
         println!(
             "verified since the last verification ({} at {}, head {}): {} later event(s) \

@@ -13,8 +13,7 @@ use crate::notebook::{
 pub fn lots(cfg: &Config, json: bool) -> CmdResult {
     let lines = lot_lines(cfg)?;
     if json {
-        println!("{}", serde_json::to_string_pretty(&lines)?);
-        return Ok(0);
+        return super::print_json(&lines);
     }
     if lines.is_empty() {
         println!(
@@ -104,14 +103,11 @@ pub fn cycles(cfg: &Config, lot: &str, format: &str) -> CmdResult {
     let s = known_lot(cfg, lot)?;
     let lines = cycle_lines(&s);
     match format {
-        "json" => println!("{}", serde_json::to_string_pretty(&cycles_document(&s))?),
+        "json" => return super::print_json(&cycles_document(&s)),
         "csv" => {
-            let mut w = csv::Writer::from_writer(std::io::stdout());
-            for l in &lines {
-                w.serialize(l)
-                    .map_err(|e| Failure::rejected(format!("cannot write CSV: {e}")))?;
-            }
-            w.flush()?;
+            let rows: Vec<_> = lines.into_iter().map(|l| (s.lot.clone(), l)).collect();
+            crate::notebook::write_csv(&rows, std::io::stdout().lock())
+                .map_err(|e| Failure::rejected(e.to_string()))?;
         }
         _ => cycles_table(&s, lot, &lines),
     }
@@ -172,7 +168,11 @@ fn cycles_table(s: &LotState, lot: &str, lines: &[CycleLine]) {
             fmt_opt(l.activity, 3),
             fmt_opt(l.activity_se, 3),
             fmt_opt(l.metal_in_product_ug_g, 2),
-            if l.flags.is_empty() { "-" } else { &l.flags },
+            if l.flags.is_empty() {
+                "-".to_string()
+            } else {
+                l.flags.join(" ")
+            },
             l.sources
         );
     }

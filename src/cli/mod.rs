@@ -9,6 +9,7 @@ mod alerts;
 mod demo;
 mod demo_live;
 mod entries;
+mod export;
 mod fit;
 mod ingest;
 pub(crate) mod lots;
@@ -29,9 +30,10 @@ use crate::notebook::{AlertAct, NotebookError};
 #[derive(Debug, Parser)]
 #[command(name = "turnbook", version, about)]
 pub struct Cli {
-    /// Configuration file.
-    #[arg(long, global = true, default_value = "turnbook.toml")]
-    pub config: PathBuf,
+    /// Configuration file; without it, TURNBOOK_CONFIG, then ./turnbook.toml, then
+    /// /etc/turnbook/turnbook.toml (the first that exists).
+    #[arg(long, global = true, env = "TURNBOOK_CONFIG", value_name = "FILE")]
+    pub config: Option<PathBuf>,
     /// Log as JSON lines (for journald or a log collector) instead of readable lines; also
     /// set by TURNBOOK_LOG_JSON=true. RUST_LOG filters as usual.
     #[arg(long, global = true, env = "TURNBOOK_LOG_JSON")]
@@ -85,6 +87,35 @@ pub enum Command {
     Ack(AlertActArgs),
     /// Close an alert's current episode: it is dealt with (recorded with who, when, why).
     Close(AlertActArgs),
+    /// Export every cycle of the site, of one site or of one lot with its computed figures,
+    /// as CSV or JSON Lines (the column names of `cycles` and `report --csv`).
+    Export(ExportArgs),
+    /// Print a shell completion script (bash, zsh, fish, elvish, powershell) to stdout.
+    Completions(CompletionsArgs),
+    /// Print the manual page (roff) to stdout: `turnbook manpage | man -l -`.
+    Manpage,
+}
+
+#[derive(Debug, Args)]
+pub struct ExportArgs {
+    /// Only this lot (default: every lot).
+    #[arg(long, conflicts_with = "site")]
+    pub lot: Option<String>,
+    /// Only the lots registered to this site (as `register --site` named it).
+    #[arg(long)]
+    pub site: Option<String>,
+    /// csv (RFC 4180, formula-like text neutralised) or jsonl (one JSON object a line).
+    #[arg(long, value_parser = ["csv", "jsonl"], default_value = "csv")]
+    pub format: String,
+    /// Write here instead of stdout.
+    #[arg(long, value_name = "FILE")]
+    pub out: Option<PathBuf>,
+}
+
+#[derive(Debug, Args)]
+pub struct CompletionsArgs {
+    /// The shell to complete for.
+    pub shell: clap_complete::Shell,
 }
 
 #[derive(Debug, Args)]
@@ -92,6 +123,7 @@ pub struct AlertsArgs {
     /// Also cleared and closed alerts.
     #[arg(long)]
     pub all: bool,
+    /// Print JSON instead of a table.
     #[arg(long)]
     pub json: bool,
 }
@@ -100,13 +132,15 @@ pub struct AlertsArgs {
 pub struct AlertActArgs {
     /// The alert's id (or key) as `turnbook alerts` lists it.
     pub alert: String,
+    /// Why (recorded in the audit trail).
     #[arg(long)]
     pub reason: String,
 }
 
 #[derive(Debug, Args)]
 pub struct DemoArgs {
-    #[arg(long)]
+    /// The folder to write the plant into (new or empty).
+    #[arg(long, value_name = "DIR")]
     pub dir: PathBuf,
     /// Skip the live part (the simulated plant writing files while the service runs).
     #[arg(long)]
@@ -115,7 +149,8 @@ pub struct DemoArgs {
 
 #[derive(Debug, Args)]
 pub struct IngestArgs {
-    #[arg(required = true)]
+    /// Export files or folders to read (folders: every entry below them).
+    #[arg(required = true, value_name = "PATH")]
     pub paths: Vec<PathBuf>,
     /// Read every file with this export profile, wherever it lies.
     #[arg(long)]
@@ -127,20 +162,26 @@ pub struct IngestArgs {
 
 #[derive(Debug, Args)]
 pub struct LotsArgs {
+    /// Print JSON instead of a table.
     #[arg(long)]
     pub json: bool,
 }
 
 #[derive(Debug, Args)]
 pub struct CyclesArgs {
+    /// The lot.
     pub lot: String,
+    /// table (readable), csv (the export's columns) or json (with the definitions).
     #[arg(long, value_parser = ["table", "csv", "json"], default_value = "table")]
     pub format: String,
 }
 
 #[derive(Debug, Args)]
+#[command(allow_negative_numbers = true)]
 pub struct RegisterArgs {
+    /// The lot's name (its id in exports).
     pub lot: String,
+    /// What the catalyst is, e.g. "5 % Pd/C, 50 % water-wet paste".
     #[arg(long)]
     pub catalyst: String,
     /// Element symbol of the active metal, e.g. Pd.
@@ -155,11 +196,13 @@ pub struct RegisterArgs {
     /// Date received, YYYY-MM-DD.
     #[arg(long)]
     pub received: Option<String>,
+    /// The supplier's own lot number.
     #[arg(long)]
     pub supplier_lot: Option<String>,
     /// Lot cost net of the refining credit.
     #[arg(long)]
     pub cost: Option<f64>,
+    /// The site (plant) the lot belongs to, as `[[sites]]` names it.
     #[arg(long)]
     pub site: Option<String>,
     /// Water content of the catalyst as charged, wt % (0 to below 100), for a catalyst
@@ -177,6 +220,7 @@ pub struct RegisterArgs {
 
 #[derive(Debug, Args)]
 pub struct CorrectArgs {
+    /// The batch (cycle) whose value is corrected.
     pub batch: String,
     /// The field, e.g. conversion, temperature, cycle_no.
     pub field: String,
@@ -184,13 +228,16 @@ pub struct CorrectArgs {
     /// `cycles` shows (h, °C, mol, g, fraction, µg/g).
     #[arg(allow_hyphen_values = true)]
     pub value: String,
+    /// Why (recorded in the audit trail).
     #[arg(long)]
     pub reason: String,
 }
 
 #[derive(Debug, Args)]
 pub struct ExcludeArgs {
+    /// The batch (cycle) to exclude.
     pub batch: String,
+    /// Why (recorded in the audit trail).
     #[arg(long)]
     pub reason: String,
     /// Take a previously excluded cycle back into the fits.
@@ -200,18 +247,24 @@ pub struct ExcludeArgs {
 
 #[derive(Debug, Args)]
 pub struct NoteArgs {
+    /// The lot the note is about.
     #[arg(long, required_unless_present = "batch")]
     pub lot: Option<String>,
+    /// The batch the note is about.
     #[arg(long)]
     pub batch: Option<String>,
+    /// The note.
     pub text: String,
 }
 
 #[derive(Debug, Args)]
 pub struct SignoffArgs {
+    /// The lot whose history is signed.
     pub lot: String,
+    /// What the signature means.
     #[arg(long, value_parser = ["reviewed", "approved", "rejected"])]
     pub meaning: String,
+    /// A comment recorded with the sign-off.
     #[arg(long)]
     pub comment: Option<String>,
     /// Your name as the configuration's signer roster (`[[signers]]`) spells it; your
@@ -222,18 +275,22 @@ pub struct SignoffArgs {
 
 #[derive(Debug, Args)]
 pub struct HistoryArgs {
+    /// The lot.
     pub lot: String,
+    /// Print JSON instead of a table.
     #[arg(long)]
     pub json: bool,
 }
 
 #[derive(Debug, Args)]
 pub struct StatusArgs {
+    /// Print JSON instead of text.
     #[arg(long)]
     pub json: bool,
 }
 
 #[derive(Debug, Args)]
+#[command(allow_negative_numbers = true)]
 pub struct FitArgs {
     /// The lot to fit (omit with --series).
     #[arg(required_unless_present = "series", conflicts_with = "series")]
@@ -254,12 +311,14 @@ pub struct FitArgs {
     /// Confidence of the forecast interval.
     #[arg(long, default_value_t = 0.90, requires = "series")]
     pub confidence: f64,
+    /// Print JSON instead of text.
     #[arg(long)]
     pub json: bool,
 }
 
 #[derive(Debug, Args)]
 pub struct ReportArgs {
+    /// The lot (omit with --site).
     #[arg(required_unless_present = "site", conflicts_with = "site")]
     pub lot: Option<String>,
     /// The summary of every lot instead of one lot's report.
@@ -268,7 +327,7 @@ pub struct ReportArgs {
     /// The HTML file to write.
     #[arg(long)]
     pub out: PathBuf,
-    /// Also write the cycle table as CSV here.
+    /// Also write the cycle table as CSV here (with --site: every lot's cycles).
     #[arg(long)]
     pub csv: Option<PathBuf>,
     /// Show the lot as it stood after this event number (see `history`).
@@ -278,6 +337,7 @@ pub struct ReportArgs {
 
 #[derive(Debug, Args)]
 pub struct VerifyArgs {
+    /// Print JSON instead of text.
     #[arg(long)]
     pub json: bool,
     /// A head of the chain published earlier, SEQ:HASH (repeatable): the chain must still
@@ -310,11 +370,18 @@ pub fn init_logging(json: bool, service: bool) {
     let no_mail_protocol = tracing_subscriber::filter::Targets::new()
         .with_default(tracing::Level::TRACE)
         .with_target("lettre", tracing::Level::WARN);
-    let layer = tracing_subscriber::fmt::layer().with_writer(std::io::stderr);
+    // Under systemd, each line carries its journald priority; readable lines then need no
+    // timestamp of their own either (the journal stamps them), but keep it for copies.
+    let writer = crate::logs::StderrWriter {
+        prefix: crate::logs::stderr_is_journal(),
+    };
+    let layer = tracing_subscriber::fmt::layer().with_writer(writer);
     let layer = if json {
         layer.json().boxed()
     } else {
-        layer.with_ansi(std::io::stderr().is_terminal()).boxed()
+        layer
+            .with_ansi(crate::logs::colour_wanted(std::io::stderr().is_terminal()))
+            .boxed()
     };
     // The web view's "problems by kind" count what this log shows at warn and error.
     let layer = layer.and_then(crate::web::ProblemTally);
@@ -379,7 +446,7 @@ pub type CmdResult = Result<u8, Failure>;
 
 /// Run a parsed command line.
 pub fn run(cli: Cli) -> ExitCode {
-    match dispatch(&cli) {
+    match dispatch(&cli).map_err(|f| with_suggestion(&cli, f)) {
         Ok(code) => ExitCode::from(code),
         Err(f) => {
             eprintln!("turnbook: {}", f.message);
@@ -388,8 +455,46 @@ pub fn run(cli: Cli) -> ExitCode {
     }
 }
 
+/// The lot or batch a command names, if any.
+fn named(cmd: &Command) -> Option<(crate::notebook::NameKind, &str)> {
+    use crate::notebook::NameKind::{Batch, Lot};
+    match cmd {
+        Command::Cycles(a) => Some((Lot, a.lot.as_str())),
+        Command::History(a) => Some((Lot, a.lot.as_str())),
+        Command::Signoff(a) => Some((Lot, a.lot.as_str())),
+        Command::Fit(a) => a.lot.as_deref().map(|l| (Lot, l)),
+        Command::Report(a) => a.lot.as_deref().map(|l| (Lot, l)),
+        Command::Export(a) => a.lot.as_deref().map(|l| (Lot, l)),
+        Command::Correct(a) => Some((Batch, a.batch.as_str())),
+        Command::Exclude(a) => Some((Batch, a.batch.as_str())),
+        Command::Note(a) => match (&a.lot, &a.batch) {
+            (Some(l), _) => Some((Lot, l.as_str())),
+            (None, Some(b)) => Some((Batch, b.as_str())),
+            _ => None,
+        },
+        _ => None,
+    }
+}
+
+/// A refusal that quotes an unknown lot or batch name gets "did you mean" the closest
+/// known one.
+fn with_suggestion(cli: &Cli, mut f: Failure) -> Failure {
+    let Some((kind, name)) = named(&cli.command) else {
+        return f;
+    };
+    if f.code != 1 || !f.message.contains(&format!("'{name}'")) {
+        return f;
+    }
+    let Ok(cfg) = load(cli) else { return f };
+    if let Ok(Some(known)) = crate::notebook::suggest_name(&cfg, kind, name) {
+        f.message.push_str(&format!("; did you mean '{known}'?"));
+    }
+    f
+}
+
 fn load(cli: &Cli) -> Result<Config, Failure> {
-    Ok(Config::load(&cli.config).map_err(NotebookError::from)?)
+    let path = crate::config::locate(cli.config.as_deref()).map_err(NotebookError::from)?;
+    Ok(Config::load(&path).map_err(NotebookError::from)?)
 }
 
 fn dispatch(cli: &Cli) -> CmdResult {
@@ -414,6 +519,9 @@ fn dispatch(cli: &Cli) -> CmdResult {
         Command::Alerts(a) => alerts::list(&load(cli)?, a),
         Command::Ack(a) => alerts::act(&load(cli)?, a, AlertAct::Acknowledge),
         Command::Close(a) => alerts::act(&load(cli)?, a, AlertAct::Close),
+        Command::Export(a) => export::export(&load(cli)?, a),
+        Command::Completions(a) => export::completions(a.shell),
+        Command::Manpage => export::manpage(),
     }
 }
 
@@ -436,6 +544,28 @@ pub fn printable(s: &str) -> String {
             }
         })
         .collect()
+}
+
+/// The version of the shape of the JSON the commands print (`lots`, `cycles`, `history`,
+/// `status`, `alerts`, `fit`, `verify`); every printed object carries it as `schema`. Raised when a field is renamed,
+/// retyped or removed; new fields do not raise it.
+pub const JSON_SCHEMA: u32 = 1;
+
+/// Print `value` as pretty JSON with `schema` added to the object, or to each object of
+/// an array.
+pub fn print_json(value: &impl serde::Serialize) -> CmdResult {
+    let mut v = serde_json::to_value(value)?;
+    let mark = |o: &mut serde_json::Value| {
+        if let Some(map) = o.as_object_mut() {
+            map.insert("schema".into(), JSON_SCHEMA.into());
+        }
+    };
+    match &mut v {
+        serde_json::Value::Array(items) => items.iter_mut().for_each(mark),
+        other => mark(other),
+    }
+    println!("{}", serde_json::to_string_pretty(&v)?);
+    Ok(0)
 }
 
 /// A number with `digits` decimals, or "-" when there is none.

@@ -20,6 +20,10 @@ pub fn report(cfg: &Config, a: &ReportArgs) -> CmdResult {
         (None, true) => {
             notebook::write_site_report(cfg, &a.out)?;
             println!("site report written to {}", a.out.display());
+            if let Some(csv) = &a.csv {
+                notebook::write_site_csv(cfg, csv)?;
+                println!("every lot's cycles written to {}", csv.display());
+            }
         }
         _ => {
             return Err(Failure::usage(

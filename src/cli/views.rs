@@ -7,8 +7,7 @@ use crate::config::Config;
 pub fn status(cfg: &Config, json: bool) -> CmdResult {
     let s = crate::notebook::status(cfg)?;
     if json {
-        println!("{}", serde_json::to_string_pretty(&s)?);
-        return Ok(0);
+        return super::print_json(&s);
     }
     println!("database        {}", s.database);
     println!(
@@ -49,8 +48,7 @@ pub fn status(cfg: &Config, json: bool) -> CmdResult {
 pub fn history(cfg: &Config, lot: &str, json: bool) -> CmdResult {
     let h = crate::notebook::history(cfg, lot)?;
     if json {
-        println!("{}", serde_json::to_string_pretty(&h)?);
-        return Ok(0);
+        return super::print_json(&labeled_rows(h));
     }
     for e in &h {
         let detail = match e.kind.as_str() {
@@ -116,4 +114,20 @@ fn sign_off_line(p: &serde_json::Value) -> String {
         p["what"].as_str().unwrap_or("?"),
         p["signed_sha256"].as_str().unwrap_or("?")
     )
+}
+
+/// History entries with a file event's measurement rows as objects with their column
+/// names (the events store them as bare arrays to save space).
+fn labeled_rows(mut h: Vec<crate::notebook::HistoryEntry>) -> Vec<crate::notebook::HistoryEntry> {
+    for e in &mut h {
+        let Some(rows) = e.payload.get("measurements").cloned() else {
+            continue;
+        };
+        if let Ok(rows) = crate::model::event::compact_rows::deserialize(rows)
+            && let Ok(v) = serde_json::to_value(rows)
+        {
+            e.payload["measurements"] = v;
+        }
+    }
+    h
 }

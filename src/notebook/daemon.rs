@@ -14,6 +14,7 @@ use std::time::Duration;
 
 use super::error::{NotebookError, Result};
 use super::ingestion::{FileOutcome, Ingestor};
+use super::sdnotify::Liveness;
 use crate::config::Config;
 use crate::mail::DeliveryReport;
 use crate::model::time::format_ts;
@@ -23,6 +24,8 @@ use crate::watch::{self, FileSink, WatchFolder};
 /// The pipeline as the watcher's sink: one writer, one file per transaction.
 pub struct PipelineSink {
     ingestor: Mutex<Ingestor>,
+    /// Whether a call is in progress and since when, for the watchdog.
+    live: Arc<Liveness>,
 }
 
 impl PipelineSink {
@@ -31,12 +34,19 @@ impl PipelineSink {
         ingestor.tune_for_service()?;
         Ok(PipelineSink {
             ingestor: Mutex::new(ingestor),
+            live: Arc::default(),
         })
     }
 }
 
 impl FileSink for PipelineSink {
+    fn caught_up(&self) {
+        tracing::info!("start-up scan done; every file found was handled");
+        super::sdnotify::notify("READY=1\nSTATUS=watching; start-up scan done");
+    }
+
     fn ingest(&self, _folder: &WatchFolder, path: &Path) -> anyhow::Result<()> {
+        let _busy = self.live.busy();
         let mut ing = self
             .ingestor
             .lock()
@@ -113,7 +123,9 @@ pub async fn serve_with(
     shutdown: tokio::sync::watch::Receiver<bool>,
     side: Vec<SideTask>,
 ) -> Result<watch::WatchStats> {
-    let sink: Arc<dyn FileSink> = Arc::new(PipelineSink::new(cfg.clone())?);
+    let pipeline = PipelineSink::new(cfg.clone())?;
+    let live = Arc::clone(&pipeline.live);
+    let sink: Arc<dyn FileSink> = Arc::new(pipeline);
     // The tasks' own stop signal: the caller's shutdown, or the failure of one of them.
     let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
     let stop_tx = Arc::new(stop_tx);
@@ -130,10 +142,14 @@ pub async fn serve_with(
     });
     let digest = tokio::spawn(digest_loop(cfg.clone(), stop_rx.clone()));
     let watching = Arc::new(AtomicBool::new(true));
+    let watchdog = tokio::spawn(super::sdnotify::watchdog(live, stop_rx.clone()));
+    let hangup = tokio::spawn(super::sdnotify::log_hangups(stop_rx.clone()));
     let mut tasks = vec![
         ("mailer", mailer),
         ("digest", digest),
         ("signal relay", relay),
+        ("watchdog", watchdog),
+        ("hangup", hangup),
     ];
     for (name, start) in side {
         let ctx = ServiceContext {
@@ -151,7 +167,12 @@ pub async fn serve_with(
             tracing::error!(task = name, error = %e, "a service task ended abnormally");
         }
     }
-    watched.map_err(|e| NotebookError::Usage(format!("cannot watch the configured folders: {e:#}")))
+    watched.map_err(|e| {
+        NotebookError::Usage(format!(
+            "cannot watch the configured folders: {}",
+            crate::logs::anyhow_once(&e)
+        ))
+    })
 }
 
 /// Pass the caller's shutdown on to the tasks' stop signal; ends when either is given.
@@ -204,9 +225,9 @@ pub fn run_service_with(cfg: &Config, side: Vec<SideTask>) -> Result<watch::Watc
     })
 }
 
-/// Deliver what the outbox holds now, once.
+/// Deliver what the outbox holds now, once, whatever the backoff of earlier failures.
 pub fn deliver_now(cfg: &Config) -> Result<DeliveryReport> {
-    Ok(runtime()?.block_on(crate::mail::deliver_due(
+    Ok(runtime()?.block_on(crate::mail::deliver_all_waiting(
         &cfg.database_path(),
         &cfg.resolved_mail(),
         chrono::Utc::now(),

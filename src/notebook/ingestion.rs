@@ -1188,7 +1188,7 @@ fn quarantine_copy(dir: &Path, facts: &FileFacts) -> Option<String> {
     let prefix = facts.sha256.get(..12).unwrap_or("unhashed");
     let dest = dir.join(format!("{prefix}-{name}"));
     if let Err(e) = crate::modes::create_dirs(dir) {
-        tracing::error!(dir = ?dir, error = %e, "cannot create the quarantine folder");
+        tracing::error!(dir = %crate::logs::shown_path(dir), error = %e, "cannot create the quarantine folder");
         return None;
     }
     // A copy takes its source's mode; a quarantined copy is the service's, mode 0640.

@@ -620,7 +620,8 @@ pub struct CycleLine {
     pub activity_se: Option<f64>,
     pub metal_lost_mg: Option<f64>,
     pub cumulative_metal_loss_fraction: Option<f64>,
-    pub flags: String,
+    /// The cycle's flags, as a list like every other output's `flags`.
+    pub flags: Vec<String>,
     pub sources: String,
 }
 
@@ -703,7 +704,7 @@ pub fn cycle_lines(s: &LotState) -> Vec<CycleLine> {
                 activity_se: m.and_then(|m| m.activity_se),
                 metal_lost_mg: m.and_then(|m| m.metal_lost_g).map(|g| g * 1000.0),
                 cumulative_metal_loss_fraction: m.and_then(|m| m.cumulative_loss_fraction),
-                flags: c.flags.join(" "),
+                flags: c.flags.clone(),
                 sources: c
                     .sources
                     .iter()

@@ -23,6 +23,7 @@ mod daemon;
 mod dates;
 mod entries;
 mod error;
+mod export;
 mod family;
 mod fitcheck;
 mod fits;
@@ -32,6 +33,7 @@ mod listing;
 mod lots;
 mod recompute;
 mod reports;
+mod sdnotify;
 mod signoffs;
 mod verifying;
 mod views;
@@ -48,6 +50,10 @@ pub use entries::{
 };
 pub use entries::{SignOffRequest, sign_off_from};
 pub use error::{NotebookError, Result};
+pub use export::{
+    Cell, EXPORT_SCHEMA, ExportError, NameKind, cells, closest, export_lines, round_sig,
+    suggest_name, write_csv, write_jsonl,
+};
 pub use fits::{SeriesFit, SeriesRequest, fit_series, lot_fit};
 pub use history::{HistoryEntry, Status, history, status};
 pub use ingestion::{
@@ -61,7 +67,7 @@ pub use lots::{
     lot_state, lot_state_as_of,
 };
 pub use recompute::recompute_stale;
-pub use reports::{write_all_reports, write_lot_report, write_site_report};
+pub use reports::{write_all_reports, write_lot_report, write_site_csv, write_site_report};
 pub use signoffs::{
     SignOffCounts, lot_fingerprint, lot_marks, lot_sign_off_state, sign_off_overview,
     sign_off_states,

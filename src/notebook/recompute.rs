@@ -106,6 +106,7 @@ fn recompute_lot(
         (fit::ENGINE_VERSION, &cfg.analysis_fingerprint()),
         &now_utc(),
     )?;
+    super::export::store_figures(tx, &state, after)?;
     super::alerts::raise(tx, cfg, &state, cause)?;
     Ok(())
 }

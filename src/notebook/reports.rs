@@ -461,8 +461,11 @@ pub fn write_lot_as_of(
     std::fs::write(out, report::lot_html(&r))
         .map_err(|e| NotebookError::Refused(format!("cannot write {}: {e}", out.display())))?;
     if let Some(csv) = csv {
-        std::fs::write(csv, report::lot_csv(&r))
-            .map_err(|e| NotebookError::Refused(format!("cannot write {}: {e}", csv.display())))?;
+        let lines: Vec<_> = super::lots::cycle_lines(&state)
+            .into_iter()
+            .map(|c| (state.lot.clone(), c))
+            .collect();
+        super::export::write_csv_file(&lines, csv)?;
     }
     Ok(())
 }
@@ -482,6 +485,12 @@ pub fn write_lot_report(
 /// Write the site summary across all lots.
 pub fn write_site_report(cfg: &Config, out: &Path) -> Result<()> {
     write_site(&open(cfg)?, cfg, out)
+}
+
+/// Write every lot's cycles as one CSV (`report --site --csv`), the export's columns.
+pub fn write_site_csv(cfg: &Config, csv: &Path) -> Result<()> {
+    let lines = super::export::export_lines(cfg, None, None)?;
+    super::export::write_csv_file(&lines, csv)
 }
 
 fn write_site(conn: &Connection, cfg: &Config, out: &Path) -> Result<()> {

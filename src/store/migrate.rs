@@ -52,6 +52,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "outbox_chain",
         include_str!("../../schema/0012_outbox_chain.sql"),
     ),
+    (
+        14,
+        "plain_sqlite_and_figures",
+        include_str!("../../schema/0014_plain_sqlite_and_figures.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

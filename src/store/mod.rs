@@ -4,6 +4,7 @@
 
 pub mod bulk;
 pub mod events;
+pub mod export;
 pub mod lots;
 pub mod migrate;
 pub mod outbox;

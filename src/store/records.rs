@@ -196,7 +196,8 @@ impl NextIds {
 pub fn ingested_file_with_hash(conn: &rusqlite::Connection, sha256: &str) -> Result<Option<i64>> {
     Ok(conn
         .prepare_cached(
-            "SELECT id FROM source_files WHERE unhex(sha256) = unhex(?1) AND outcome = 'ingested'",
+            "SELECT id FROM source_files
+             WHERE sha256 = ?1 COLLATE NOCASE AND outcome = 'ingested'",
         )?
         .query_row([sha256], |r| r.get(0))
         .optional()?)

@@ -72,10 +72,14 @@ pub trait FileSink: Send + Sync + 'static {
     /// the entry in a run. The pipeline records it like a rejected file; this default only
     /// logs it, so that no entry is passed over without a line.
     fn refuse(&self, folder: &WatchFolder, path: &Path, reason: &str) -> anyhow::Result<()> {
-        tracing::warn!(folder = ?folder.path, path = ?path, reason = %reason.escape_debug(),
+        tracing::warn!(folder = %crate::logs::shown_path(&folder.path), path = %crate::logs::shown_path(path), reason = %reason.escape_debug(),
             "entry not read");
         Ok(())
     }
+
+    /// Called once, when every folder's start-up scan is done and every file it found has
+    /// been handled (ingested, or failed and set aside for a retry): the service is ready.
+    fn caught_up(&self) {}
 }
 
 /// What the watcher did, returned when it stops.

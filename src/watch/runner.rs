@@ -42,7 +42,12 @@ struct Sighting {
 #[derive(Debug)]
 enum Seen {
     File(Sighting),
-    Refused { root: usize, refused: Refused },
+    Refused {
+        root: usize,
+        refused: Refused,
+    },
+    /// A scan of the folder (its root index) has sent everything it found.
+    Scanned(usize),
 }
 
 /// A settled file for the worker, or (with `refusal`) an entry to report as refused.
@@ -100,7 +105,7 @@ pub async fn run(
         .collect();
     for root in roots.iter() {
         let folder = &folders[root.index];
-        tracing::info!(folder = ?root.canonical, profile = ?folder.profile, mode = ?folder.mode,
+        tracing::info!(folder = %crate::logs::shown_path(&root.canonical), profile = %folder.profile, mode = ?folder.mode,
             recursive = folder.recursive, "watching");
     }
     drop(seen_tx);
@@ -117,8 +122,10 @@ pub async fn run(
     }
 
     let mut state = State::new(folders.clone(), roots.clone(), job_tx);
+    let mut catching_up = CatchUp::new(roots.len());
     if !*shutdown.borrow_and_update() {
         loop {
+            catching_up.check(&state, sink.as_ref());
             let deadline = state.next_deadline();
             tokio::select! {
                 changed = shutdown.changed() => {
@@ -129,6 +136,7 @@ pub async fn run(
                 Some(seen) = seen_rx.recv() => match seen {
                     Seen::File(sighting) => state.sighted(sighting),
                     Seen::Refused { root, refused } => state.refused_entry(root, refused),
+                    Seen::Scanned(root) => catching_up.scanned(root),
                 },
                 Some(outcome) = done_rx.recv() => state.finished(outcome),
                 () = sleep_until(deadline) => state.recheck(),
@@ -161,6 +169,40 @@ pub async fn run(
         );
     }
     Ok(state.stats)
+}
+
+/// Whether the start-up catch-up is over: every folder scanned once and every file found
+/// settled and handled. Told to the sink once ([`FileSink::caught_up`]).
+struct CatchUp {
+    /// Per folder (root index): scanned at least once.
+    scanned: Vec<bool>,
+    told: bool,
+}
+
+impl CatchUp {
+    fn new(folders: usize) -> Self {
+        CatchUp {
+            scanned: vec![false; folders],
+            told: false,
+        }
+    }
+
+    fn scanned(&mut self, root: usize) {
+        if let Some(s) = self.scanned.get_mut(root) {
+            *s = true;
+        }
+    }
+
+    fn check(&mut self, state: &State, sink: &dyn FileSink) {
+        if !self.told
+            && self.scanned.iter().all(|s| *s)
+            && state.tracker.is_empty()
+            && state.in_flight.is_empty()
+        {
+            self.told = true;
+            sink.caught_up();
+        }
+    }
 }
 
 /// Sleeps until the next re-check, or forever when nothing is settling (no idle polling).
@@ -240,7 +282,7 @@ fn start_events(
         Ok(event) => {
             let meaning = classify(&event);
             if meaning.rescan {
-                tracing::warn!(folder = ?root.canonical, "file events were lost; rescanning");
+                tracing::warn!(folder = %crate::logs::shown_path(&root.canonical), "file events were lost; rescanning");
                 send_all(&seen, root.index, root.scan_all(&root.canonical));
             }
             for (path, signal) in meaning.look_at {
@@ -264,7 +306,9 @@ fn start_events(
                 }
             }
         }
-        Err(error) => tracing::warn!(folder = ?root.canonical, %error, "file event error"),
+        Err(error) => {
+            tracing::warn!(folder = %crate::logs::shown_path(&root.canonical), %error, "file event error")
+        }
     };
     let events = |source| WatchError::Events {
         index,
@@ -305,8 +349,11 @@ async fn scanner(root: Root, every: Option<Duration>, seen: mpsc::UnboundedSende
         let scan_root = root.clone();
         match tokio::task::spawn_blocking(move || scan_root.scan_all(&scan_root.canonical)).await {
             Ok(files) => send_all(&seen, root.index, files),
-            Err(error) => tracing::error!(folder = ?root.canonical, %error, "folder scan failed"),
+            Err(error) => {
+                tracing::error!(folder = %crate::logs::shown_path(&root.canonical), %error, "folder scan failed")
+            }
         }
+        let _ = seen.send(Seen::Scanned(root.index));
         match every {
             Some(pause) if !seen.is_closed() => tokio::time::sleep(pause).await,
             _ => return,
@@ -333,7 +380,7 @@ fn worker(
                 None => sink.ingest(folder, &job.path),
             })) {
                 Ok(Ok(())) => Ok(()),
-                Ok(Err(error)) => Err(format!("{error:#}")),
+                Ok(Err(error)) => Err(crate::logs::anyhow_once(&error)),
                 Err(_) => Err("the ingestion code panicked".to_string()),
             },
             None => Err("file belongs to no configured folder".to_string()),
@@ -509,7 +556,7 @@ impl State {
                         .note(key, (root, path), found.stamp, Signal::Seen, settle, now);
                 }
                 _ => {
-                    tracing::debug!(path = ?path, "refused file is gone; no retry");
+                    tracing::debug!(path = %crate::logs::shown_path(&path), "refused file is gone; no retry");
                     self.refused.remove(&key);
                 }
             }
@@ -535,9 +582,11 @@ impl State {
                     },
                     now,
                 ),
-                Verdict::Waiting => tracing::trace!(path = ?path, "still changing"),
+                Verdict::Waiting => {
+                    tracing::trace!(path = %crate::logs::shown_path(&path), "still changing")
+                }
                 Verdict::Gone => {
-                    tracing::debug!(path = ?path, "vanished before it settled");
+                    tracing::debug!(path = %crate::logs::shown_path(&path), "vanished before it settled");
                     self.refused.remove(&key);
                 }
             }
@@ -555,7 +604,7 @@ impl State {
         if let Err(lost) = job_tx.send(job) {
             let job = lost.0;
             self.in_flight.remove(&job.key);
-            tracing::error!(path = ?job.path, "ingestion worker is gone; file not offered");
+            tracing::error!(path = %crate::logs::shown_path(&job.path), "ingestion worker is gone; file not offered");
         }
     }
 
@@ -569,7 +618,7 @@ impl State {
             if let Err(error) = result {
                 // Reported again at the next scan or event that sees it.
                 self.stats.sink_errors += 1;
-                tracing::error!(path = ?job.path, error = %error.escape_debug(),
+                tracing::error!(path = %crate::logs::shown_path(&job.path), error = %error.escape_debug(),
                     "refused entry not recorded");
                 self.reported.remove(&job.key);
             }
@@ -581,7 +630,7 @@ impl State {
             .map_or("", |f| f.profile.as_str());
         match result {
             Ok(()) => {
-                tracing::debug!(path = ?job.path, profile, size = job.stamp.size, "file offered");
+                tracing::debug!(path = %crate::logs::shown_path(&job.path), profile, size = job.stamp.size, "file offered");
                 self.refused.remove(&job.key);
                 self.offered.insert(job.key, job.stamp);
             }
@@ -594,7 +643,7 @@ impl State {
                 let wait = retry_delay(self.retry_first, attempts);
                 // The message may quote the file name: escape control characters so a name
                 // cannot start a forged log line.
-                tracing::error!(path = ?job.path, profile, error = %error.escape_debug(), attempts,
+                tracing::error!(path = %crate::logs::shown_path(&job.path), profile, error = %error.escape_debug(), attempts,
                     retry_in_s = wait.as_secs(), "file not ingested");
                 self.refused.insert(
                     job.key,

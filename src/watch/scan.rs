@@ -226,7 +226,7 @@ impl Root {
             let entries = match fs::read_dir(&current) {
                 Ok(entries) => entries,
                 Err(error) => {
-                    tracing::warn!(path = ?current, %error, "cannot list folder");
+                    tracing::warn!(path = %crate::logs::shown_path(&current), %error, "cannot list folder");
                     continue;
                 }
             };
@@ -273,11 +273,11 @@ impl Root {
                 })
             }
             None if skip == Skip::Unreadable => {
-                tracing::warn!(path = ?path, "cannot look at this entry; not offered");
+                tracing::warn!(path = %crate::logs::shown_path(path), "cannot look at this entry; not offered");
                 None
             }
             None => {
-                tracing::trace!(path = ?path, ?skip, "not offered");
+                tracing::trace!(path = %crate::logs::shown_path(path), ?skip, "not offered");
                 None
             }
         }

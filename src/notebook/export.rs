@@ -1,0 +1,460 @@
+//! The computed figures for SQL readers and exports: one lot's state turned into the rows
+//! of `cycle_figures` and `lot_figures` (stored at each recompute), from the same cycle
+//! lines `turnbook cycles` prints, so SQL and the command line can never disagree.
+
+use std::collections::BTreeSet;
+
+use super::lots::{LotState, cycle_lines};
+use crate::model::time::now_utc;
+use crate::store::export::{CycleFigures, LotFigures};
+use crate::store::{Result, Transaction};
+
+/// Store the figures of `state`, computed after event `after`, in the caller's
+/// transaction (the recompute's), replacing the lot's earlier ones.
+pub fn store_figures(tx: &Transaction<'_>, state: &LotState, after: i64) -> Result<()> {
+    let (lot, cycles) = figures_of(state);
+    crate::store::export::store_figures(tx, &lot, &cycles, after, &now_utc())
+}
+
+fn words_json(words: &[String]) -> String {
+    serde_json::to_string(words).unwrap_or_else(|_| "[]".into())
+}
+
+/// The rows of one lot: its figures and its cycles'.
+pub fn figures_of(s: &LotState) -> (LotFigures, Vec<CycleFigures>) {
+    let basis = s.activity_basis.key().to_string();
+    let cycles = cycle_lines(s)
+        .into_iter()
+        .zip(&s.cycles)
+        .map(|(l, c)| CycleFigures {
+            batch_id: l.batch_id,
+            cycle_no: i64::from(l.cycle),
+            ton: l.ton,
+            ton_per_mol_metal_available: l.ton_per_metal_available,
+            cumulative_ton: l.cumulative_ton,
+            tof_average_per_h: l.tof_per_h,
+            tof_initial_per_h: l.tof_initial_per_h,
+            k_app_per_h: l.k_app_per_h,
+            k_app_se_per_h: l.k_app_se_per_h,
+            activity: l.activity,
+            activity_se: l.activity_se,
+            activity_basis: basis.clone(),
+            metal_charged_mmol: l.metal_charged_mmol,
+            metal_available_mmol: l.metal_available_mmol,
+            catalyst_to_substrate: l.catalyst_to_substrate,
+            flags_json: words_json(&c.flags),
+        })
+        .collect();
+    (lot_figures(s), cycles)
+}
+
+fn lot_figures(s: &LotState) -> LotFigures {
+    let mut flags: BTreeSet<String> = s.cycles.iter().flat_map(|c| c.flags.clone()).collect();
+    flags.extend(s.lot_flags.iter().cloned());
+    let flags: Vec<String> = flags.into_iter().collect();
+    let a = s.analysis.as_ref();
+    let forecast = a.and_then(|a| a.forecast.as_ref());
+    let dates = forecast.and_then(|f| f.dates.as_deref());
+    let next = a.and_then(|a| a.next_cycle.as_ref());
+    LotFigures {
+        lot: s.lot.clone(),
+        state: if s.attention.is_empty() {
+            "ok"
+        } else {
+            "attention"
+        },
+        model: a.and_then(|a| a.chosen).map(|m| m.id().to_string()),
+        latest_activity: s.latest_activity(),
+        cumulative_ton: s
+            .cycles
+            .iter()
+            .rev()
+            .find_map(|c| c.metrics.as_ref().and_then(|m| m.cumulative_ton)),
+        forecast_status: forecast.map(|f| f.status.word().to_string()),
+        crossing_cycle: forecast.and_then(|f| f.x),
+        crossing_cycle_lower: forecast.and_then(|f| f.lower),
+        crossing_cycle_upper: forecast.and_then(|f| f.upper),
+        crossing_date: dates.and_then(|d| d.crossing_date.clone()),
+        crossing_date_early: dates.and_then(|d| d.crossing_early.clone()),
+        crossing_date_late: dates.and_then(|d| d.crossing_late.clone()),
+        order_by_date: dates.and_then(|d| d.order_by.clone()),
+        next_batch_verdict: next.and_then(|n| {
+            serde_json::to_value(n.verdict)
+                .ok()
+                .and_then(|v| v.as_str().map(str::to_string))
+        }),
+        next_batch_activity: next.map(|n| n.predicted),
+        next_batch_activity_lower: next.map(|n| n.lower),
+        abrupt_loss: a
+            .and_then(|a| a.abrupt.as_ref())
+            .is_some_and(|b| b.suspected),
+        flags_json: words_json(&flags),
+        attention_json: words_json(&s.attention),
+    }
+}
+
+/// The version of the export's row shape (CSV header and JSON Lines keys); JSON Lines
+/// rows carry it as `schema`. Raised when a column is renamed or its unit changes.
+pub const EXPORT_SCHEMA: u32 = 1;
+
+/// Significant digits of a measured value as exported: enough for any instrument, few
+/// enough to drop the noise of unit conversions (333.85 K − 273.15 = 60.69999999999999).
+const MEASURED_DIGITS: usize = 10;
+/// Significant digits of a computed figure (TON, TOF, k_app, activity): one more than a
+/// conversion assay usually supports (common practice: three to four digits).
+const COMPUTED_DIGITS: usize = 5;
+
+/// One exported cell.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Cell {
+    Text(Option<String>),
+    Int(i64),
+    Num(Option<f64>),
+    Words(Vec<String>),
+}
+
+/// `v` rounded to `digits` significant digits (None when not finite).
+pub fn round_sig(v: Option<f64>, digits: usize) -> Option<f64> {
+    let v = v.filter(|v| v.is_finite())?;
+    if v == 0.0 {
+        return Some(0.0);
+    }
+    format!("{v:.*e}", digits.saturating_sub(1)).parse().ok()
+}
+
+/// The export's columns for one cycle of `lot`, in order: the one vocabulary of
+/// `cycles --format csv`, `report --csv` and `export` (the keys of `cycles --format json`
+/// with `lot` first). Units are in the names; fractions are 0–1.
+pub fn cells(lot: &str, c: &super::lots::CycleLine) -> Vec<(&'static str, Cell)> {
+    let m = |v: Option<f64>| Cell::Num(round_sig(v, MEASURED_DIGITS));
+    let f = |v: Option<f64>| Cell::Num(round_sig(v, COMPUTED_DIGITS));
+    vec![
+        ("lot", Cell::Text(Some(lot.to_string()))),
+        ("cycle", Cell::Int(i64::from(c.cycle))),
+        ("batch_id", Cell::Text(Some(c.batch_id.clone()))),
+        ("started_at", Cell::Text(c.started_at.clone())),
+        ("duration_h", m(c.duration_h)),
+        ("temperature_c", m(c.temperature_c)),
+        ("substrate_mol", m(c.substrate_mol)),
+        ("catalyst_charged_g", m(c.catalyst_charged_g)),
+        ("metal_charged_mmol", f(c.metal_charged_mmol)),
+        ("metal_available_mmol", f(c.metal_available_mmol)),
+        ("catalyst_to_substrate", f(c.catalyst_to_substrate)),
+        ("conversion", m(c.conversion)),
+        ("selectivity", m(c.selectivity)),
+        ("yield_fraction", m(c.yield_fraction)),
+        ("product_mass_g", m(c.product_mass_g)),
+        ("metal_in_product_ug_g", m(c.metal_in_product_ug_g)),
+        ("catalyst_recovered_g", m(c.catalyst_recovered_g)),
+        ("ton", f(c.ton)),
+        ("ton_per_metal_available", f(c.ton_per_metal_available)),
+        ("tof_average_per_h", f(c.tof_per_h)),
+        ("tof_average_per_s", f(c.tof_per_s)),
+        ("tof_initial_per_h", f(c.tof_initial_per_h)),
+        ("tof_initial_per_s", f(c.tof_initial_per_s)),
+        ("cumulative_ton", f(c.cumulative_ton)),
+        ("k_app_per_h", f(c.k_app_per_h)),
+        ("k_app_se_per_h", f(c.k_app_se_per_h)),
+        (
+            "activity_per_catalyst_ratio",
+            f(c.activity_per_catalyst_ratio),
+        ),
+        (
+            "activity_per_metal_charged",
+            f(c.activity_per_metal_charged),
+        ),
+        ("activity_se", f(c.activity_se)),
+        ("metal_lost_mg", f(c.metal_lost_mg)),
+        (
+            "cumulative_metal_loss_fraction",
+            f(c.cumulative_metal_loss_fraction),
+        ),
+        ("flags", Cell::Words(c.flags.clone())),
+        ("sources", Cell::Text(Some(c.sources.clone()))),
+    ]
+}
+
+/// Every cycle of the lots asked for, with its lot: one lot, the lots registered to one
+/// site, or (neither) every lot, in lot then cycle order.
+pub fn export_lines(
+    cfg: &crate::config::Config,
+    lot: Option<&str>,
+    site: Option<&str>,
+) -> super::Result<Vec<(String, super::lots::CycleLine)>> {
+    let conn = crate::store::open(&cfg.database_path())?;
+    let names = match lot {
+        Some(l) => vec![super::known_lot(cfg, l)?.lot],
+        None => crate::store::lots::lot_names(&conn)?,
+    };
+    let mut out = Vec::new();
+    let mut matched = 0;
+    for name in names {
+        let state = super::lots::lot_state(&conn, cfg, &name)?;
+        if let Some(site) = site
+            && state.record.as_ref().and_then(|r| r.site.as_deref()) != Some(site)
+        {
+            continue;
+        }
+        matched += 1;
+        out.extend(cycle_lines(&state).into_iter().map(|c| (name.clone(), c)));
+    }
+    if let Some(site) = site
+        && matched == 0
+    {
+        return Err(super::NotebookError::Refused(format!(
+            "no lot is registered to site '{site}' (register --site names a lot's site)"
+        )));
+    }
+    Ok(out)
+}
+
+/// Why an export could not be written.
+#[derive(Debug, thiserror::Error)]
+pub enum ExportError {
+    #[error("writing the export failed: {0}")]
+    Csv(#[from] csv::Error),
+    #[error("writing the export failed: {0}")]
+    Io(#[from] std::io::Error),
+    #[error("writing the export failed: {0}")]
+    Json(#[from] serde_json::Error),
+}
+
+fn csv_text(cell: &Cell) -> String {
+    match cell {
+        Cell::Text(t) => crate::report::defuse_csv_cell(t.as_deref().unwrap_or("")),
+        Cell::Int(i) => i.to_string(),
+        Cell::Num(v) => v.map(|v| v.to_string()).unwrap_or_default(),
+        Cell::Words(w) => crate::report::defuse_csv_cell(&w.join(" ")),
+    }
+}
+
+/// Write `lines` as CSV (RFC 4180, CRLF, a header row; text that a spreadsheet would run
+/// as a formula, starting with `=`, `+`, `-`, `@`, a tab or a CR, gets a leading
+/// apostrophe; flags are separated by spaces).
+pub fn write_csv<W: std::io::Write>(
+    lines: &[(String, super::lots::CycleLine)],
+    out: W,
+) -> std::result::Result<(), ExportError> {
+    let mut w = csv::WriterBuilder::new()
+        .terminator(csv::Terminator::CRLF)
+        .from_writer(out);
+    let header: Vec<&str> = cells("", &empty_line()).iter().map(|c| c.0).collect();
+    w.write_record(&header)?;
+    for (lot, c) in lines {
+        w.write_record(cells(lot, c).iter().map(|(_, v)| csv_text(v)))?;
+    }
+    w.flush()?;
+    Ok(())
+}
+
+fn json_value(cell: &Cell) -> serde_json::Value {
+    use serde_json::Value;
+    match cell {
+        Cell::Text(t) => t.clone().map_or(Value::Null, Value::String),
+        Cell::Int(i) => Value::from(*i),
+        Cell::Num(v) => v.map_or(Value::Null, Value::from),
+        Cell::Words(w) => Value::from(w.clone()),
+    }
+}
+
+/// Write `lines` as JSON Lines: one object a cycle, keys in the CSV's column order after
+/// `schema` ([`EXPORT_SCHEMA`]); numbers are numbers, missing values null, flags a list.
+pub fn write_jsonl<W: std::io::Write>(
+    lines: &[(String, super::lots::CycleLine)],
+    mut out: W,
+) -> std::result::Result<(), ExportError> {
+    for (lot, c) in lines {
+        let mut line = format!("{{\"schema\":{EXPORT_SCHEMA}");
+        for (name, cell) in cells(lot, c) {
+            line.push(',');
+            line.push_str(&serde_json::to_string(name)?);
+            line.push(':');
+            line.push_str(&serde_json::to_string(&json_value(&cell))?);
+        }
+        line.push_str("}\n");
+        out.write_all(line.as_bytes())?;
+    }
+    out.flush()?;
+    Ok(())
+}
+
+/// A cycle line with nothing in it, to read the header's names from.
+fn empty_line() -> super::lots::CycleLine {
+    super::lots::CycleLine {
+        cycle: 0,
+        batch_id: String::new(),
+        started_at: None,
+        duration_h: None,
+        temperature_c: None,
+        substrate_mol: None,
+        catalyst_charged_g: None,
+        metal_charged_mmol: None,
+        metal_available_mmol: None,
+        catalyst_to_substrate: None,
+        conversion: None,
+        selectivity: None,
+        yield_fraction: None,
+        product_mass_g: None,
+        metal_in_product_ug_g: None,
+        catalyst_recovered_g: None,
+        ton: None,
+        ton_per_metal_available: None,
+        tof_per_h: None,
+        tof_per_s: None,
+        tof_initial_per_h: None,
+        tof_initial_per_s: None,
+        cumulative_ton: None,
+        k_app_per_h: None,
+        k_app_se_per_h: None,
+        activity: None,
+        activity_per_catalyst_ratio: None,
+        activity_per_metal_charged: None,
+        activity_se: None,
+        metal_lost_mg: None,
+        cumulative_metal_loss_fraction: None,
+        flags: Vec::new(),
+        sources: String::new(),
+    }
+}
+
+/// Write `lines` as CSV into the file `path` (the report's `--csv`).
+pub fn write_csv_file(
+    lines: &[(String, super::lots::CycleLine)],
+    path: &std::path::Path,
+) -> super::Result<()> {
+    let cannot = |e: &dyn std::fmt::Display| {
+        super::NotebookError::Refused(format!("cannot write {}: {e}", path.display()))
+    };
+    let file = std::fs::File::create(path).map_err(|e| cannot(&e))?;
+    write_csv(lines, std::io::BufWriter::new(file)).map_err(|e| cannot(&e))
+}
+
+/// What a mistyped name was probably meant to be.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum NameKind {
+    Lot,
+    Batch,
+}
+
+/// The known lot or batch name closest to `typed` (Levenshtein distance on the upper-cased
+/// names, at most a quarter of its length and at least 1), for a "did you mean"; None when
+/// `typed` is known or nothing is close.
+pub fn suggest_name(
+    cfg: &crate::config::Config,
+    kind: NameKind,
+    typed: &str,
+) -> super::Result<Option<String>> {
+    let conn = crate::store::open(&cfg.database_path())?;
+    let names = match kind {
+        NameKind::Lot => crate::store::lots::lot_names(&conn)?,
+        NameKind::Batch => crate::store::export::batch_ids(&conn)?,
+    };
+    Ok(closest(typed, &names))
+}
+
+/// See [`suggest_name`].
+pub fn closest(typed: &str, names: &[String]) -> Option<String> {
+    if names.iter().any(|n| n == typed) {
+        return None;
+    }
+    let limit = (typed.chars().count() / 4).max(1);
+    let t = typed.to_uppercase();
+    names
+        .iter()
+        .map(|n| (edit_distance(&t, &n.to_uppercase()), n))
+        .filter(|(d, _)| *d <= limit)
+        .min_by_key(|(d, _)| *d)
+        .map(|(_, n)| n.clone())
+}
+
+/// Levenshtein distance (insertions, deletions, substitutions) by the two-row method.
+fn edit_distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut prev: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut cur = vec![i + 1; b.len() + 1];
+        for (j, cb) in b.iter().enumerate() {
+            cur[j + 1] = (prev[j] + usize::from(ca != *cb))
+                .min(prev[j + 1] + 1)
+                .min(cur[j] + 1);
+        }
+        prev = cur;
+    }
+    prev[b.len()]
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_close_name_is_suggested_and_a_far_or_known_one_is_not() {
+        let names = vec!["PD-C-2611-A".to_string(), "PT-AL-2610-B".to_string()];
+        assert_eq!(
+            closest("PD-C-2611-B", &names).as_deref(),
+            Some("PD-C-2611-A")
+        );
+        assert_eq!(
+            closest("pd-c-2611-a", &names).as_deref(),
+            Some("PD-C-2611-A")
+        );
+        assert_eq!(closest("PD-C-2611-A", &names), None);
+        assert_eq!(closest("XYZ", &names), None);
+        assert_eq!(edit_distance("kitten", "sitting"), 3);
+        assert_eq!(edit_distance("", "abc"), 3);
+    }
+
+    #[test]
+    fn csv_quotes_and_guards_text_and_reads_back_to_the_same_table() {
+        let mut lines = Vec::new();
+        for (i, id) in [
+            "=HYPERLINK(\"http://x\",\"y\")",
+            "@SUM(A1:A9)",
+            "a,b\r\nc \"q\"",
+            "\tTAB",
+            "-1",
+            "B-7",
+        ]
+        .iter()
+        .enumerate()
+        {
+            let mut l = empty_line();
+            l.cycle = i as u32 + 1;
+            l.batch_id = id.to_string();
+            l.temperature_c = Some(333.85 - 273.15);
+            l.ton = Some(-12.345678);
+            l.flags = vec!["conflict".into(), "excluded".into()];
+            lines.push(("LOT".to_string(), l));
+        }
+        let mut buf = Vec::new();
+        write_csv(&lines, &mut buf).unwrap();
+        let mut rd = csv::Reader::from_reader(buf.as_slice());
+        let header: Vec<String> = rd.headers().unwrap().iter().map(String::from).collect();
+        let col = |name: &str| header.iter().position(|h| h == name).unwrap();
+        let rows: Vec<csv::StringRecord> = rd.records().map(|r| r.unwrap()).collect();
+        assert_eq!(rows.len(), lines.len());
+        for (row, (_, l)) in rows.iter().zip(&lines) {
+            assert_eq!(row.len(), header.len());
+            let expected = match l.batch_id.chars().next() {
+                Some('=' | '+' | '-' | '@' | '\t' | '\r') => format!("'{}", l.batch_id),
+                _ => l.batch_id.clone(),
+            };
+            assert_eq!(&row[col("batch_id")], expected);
+            // Numbers stay numbers (a negative one gets no guard), rounded, without noise.
+            assert_eq!(&row[col("temperature_c")], "60.7");
+            assert_eq!(&row[col("ton")], "-12.346");
+            assert_eq!(&row[col("flags")], "conflict excluded");
+            assert_eq!(&row[col("duration_h")], "");
+        }
+    }
+
+    #[test]
+    fn rounding_keeps_the_digits_asked_for_and_drops_conversion_noise() {
+        assert_eq!(round_sig(Some(60.69999999999999), 10), Some(60.7));
+        assert_eq!(round_sig(Some(486.983368704), 5), Some(486.98));
+        assert_eq!(round_sig(Some(-0.000123456), 3), Some(-0.000123));
+        assert_eq!(round_sig(Some(f64::NAN), 3), None);
+        assert_eq!(round_sig(Some(0.0), 3), Some(0.0));
+        assert_eq!(round_sig(None, 3), None);
+    }
+}

@@ -1,0 +1,142 @@
+//! The computed figures stored for SQL readers (`cycle_figures`, `lot_figures`, read
+//! through the views `cycle_results` and `lot_results`, migration 0014).
+//!
+//! Derived data like `fits`: outside the audit chain, replaced whole at each recompute of
+//! a lot, in the recompute's transaction, so the views never mix two recomputes of a lot.
+
+use rusqlite::params;
+
+use super::{Result, Transaction};
+
+/// One cycle's figures as `cycle_figures` stores them.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct CycleFigures {
+    pub batch_id: String,
+    pub cycle_no: i64,
+    pub ton: Option<f64>,
+    pub ton_per_mol_metal_available: Option<f64>,
+    pub cumulative_ton: Option<f64>,
+    pub tof_average_per_h: Option<f64>,
+    pub tof_initial_per_h: Option<f64>,
+    pub k_app_per_h: Option<f64>,
+    pub k_app_se_per_h: Option<f64>,
+    pub activity: Option<f64>,
+    pub activity_se: Option<f64>,
+    pub activity_basis: String,
+    pub metal_charged_mmol: Option<f64>,
+    pub metal_available_mmol: Option<f64>,
+    pub catalyst_to_substrate: Option<f64>,
+    /// JSON array of the cycle's flags.
+    pub flags_json: String,
+}
+
+/// A lot's figures as `lot_figures` stores them.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct LotFigures {
+    pub lot: String,
+    /// `ok` or `attention` (someone should look at the lot).
+    pub state: &'static str,
+    pub model: Option<String>,
+    pub latest_activity: Option<f64>,
+    pub cumulative_ton: Option<f64>,
+    pub forecast_status: Option<String>,
+    pub crossing_cycle: Option<f64>,
+    pub crossing_cycle_lower: Option<f64>,
+    pub crossing_cycle_upper: Option<f64>,
+    pub crossing_date: Option<String>,
+    pub crossing_date_early: Option<String>,
+    pub crossing_date_late: Option<String>,
+    pub order_by_date: Option<String>,
+    pub next_batch_verdict: Option<String>,
+    pub next_batch_activity: Option<f64>,
+    pub next_batch_activity_lower: Option<f64>,
+    pub abrupt_loss: bool,
+    pub flags_json: String,
+    pub attention_json: String,
+}
+
+/// Replace a lot's stored figures with these, computed after event `after` at `at`.
+pub fn store_figures(
+    tx: &Transaction<'_>,
+    lot: &LotFigures,
+    cycles: &[CycleFigures],
+    after: i64,
+    at: &str,
+) -> Result<()> {
+    tx.prepare_cached("DELETE FROM cycle_figures WHERE lot = ?1")?
+        .execute([&lot.lot])?;
+    let mut insert = tx.prepare_cached(
+        "INSERT OR REPLACE INTO cycle_figures(batch_id, lot, cycle_no, ton,
+             ton_per_mol_metal_available, cumulative_ton, tof_average_per_h, tof_initial_per_h,
+             k_app_per_h, k_app_se_per_h, activity, activity_se, activity_basis,
+             metal_charged_mmol, metal_available_mmol, catalyst_to_substrate_mol_per_mol,
+             flags, after_seq, computed_at)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17,
+             ?18, ?19)",
+    )?;
+    for c in cycles {
+        insert.execute(params![
+            c.batch_id,
+            lot.lot,
+            c.cycle_no,
+            c.ton,
+            c.ton_per_mol_metal_available,
+            c.cumulative_ton,
+            c.tof_average_per_h,
+            c.tof_initial_per_h,
+            c.k_app_per_h,
+            c.k_app_se_per_h,
+            c.activity,
+            c.activity_se,
+            c.activity_basis,
+            c.metal_charged_mmol,
+            c.metal_available_mmol,
+            c.catalyst_to_substrate,
+            c.flags_json,
+            after,
+            at
+        ])?;
+    }
+    tx.prepare_cached(
+        "INSERT OR REPLACE INTO lot_figures(lot, state, model, latest_activity, cumulative_ton,
+             forecast_status, crossing_cycle, crossing_cycle_lower, crossing_cycle_upper,
+             crossing_date, crossing_date_early, crossing_date_late, order_by_date,
+             next_batch_verdict, next_batch_activity, next_batch_activity_lower, abrupt_loss,
+             flags, attention, after_seq, computed_at)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17,
+             ?18, ?19, ?20, ?21)",
+    )?
+    .execute(params![
+        lot.lot,
+        lot.state,
+        lot.model,
+        lot.latest_activity,
+        lot.cumulative_ton,
+        lot.forecast_status,
+        lot.crossing_cycle,
+        lot.crossing_cycle_lower,
+        lot.crossing_cycle_upper,
+        lot.crossing_date,
+        lot.crossing_date_early,
+        lot.crossing_date_late,
+        lot.order_by_date,
+        lot.next_batch_verdict,
+        lot.next_batch_activity,
+        lot.next_batch_activity_lower,
+        lot.abrupt_loss,
+        lot.flags_json,
+        lot.attention_json,
+        after,
+        at
+    ])?;
+    Ok(())
+}
+
+/// Every batch id of `cycles`, for "did you mean" suggestions.
+pub fn batch_ids(conn: &rusqlite::Connection) -> Result<Vec<String>> {
+    let mut st = conn.prepare("SELECT batch_id FROM cycles ORDER BY batch_id")?;
+    let ids = st
+        .query_map([], |r| r.get(0))?
+        .collect::<rusqlite::Result<Vec<String>>>()?;
+    Ok(ids)
+}

@@ -6,6 +6,7 @@
 //! error; [`Failure`] is decided from the notebook's error kinds in one place.
 
 mod alerts;
+mod central;
 mod demo;
 mod demo_live;
 mod entries;
@@ -85,6 +86,25 @@ pub enum Command {
     Ack(AlertActArgs),
     /// Close an alert's current episode: it is dealt with (recorded with who, when, why).
     Close(AlertActArgs),
+    /// Copy the events the central store lacks to it now (the service does this on its own).
+    Ship(ShipArgs),
+    /// The company's central store: verify every site's chain, list the lots of all sites.
+    #[command(subcommand)]
+    Central(CentralCommand),
+}
+
+#[derive(Debug, Args)]
+pub struct ShipArgs {
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum CentralCommand {
+    /// Recompute every site's chain in the central store; name each first broken link.
+    Verify(ShipArgs),
+    /// List the company's lots by site, with their cycles and latest sign-off.
+    Lots(ShipArgs),
 }
 
 #[derive(Debug, Args)]
@@ -407,6 +427,9 @@ fn dispatch(cli: &Cli) -> CmdResult {
         Command::Alerts(a) => alerts::list(&load(cli)?, a),
         Command::Ack(a) => alerts::act(&load(cli)?, a, AlertAct::Acknowledge),
         Command::Close(a) => alerts::act(&load(cli)?, a, AlertAct::Close),
+        Command::Ship(a) => central::ship(&load(cli)?, a.json),
+        Command::Central(CentralCommand::Verify(a)) => central::verify(&load(cli)?, a.json),
+        Command::Central(CentralCommand::Lots(a)) => central::lots(&load(cli)?, a.json),
     }
 }
 

@@ -114,6 +114,8 @@ pub async fn serve_with(
     side: Vec<SideTask>,
 ) -> Result<watch::WatchStats> {
     let sink: Arc<dyn FileSink> = Arc::new(PipelineSink::new(cfg.clone())?);
+    // The central shipper, when configured: it only reads the database.
+    let shipper = super::central::shipper(cfg)?;
     // The tasks' own stop signal: the caller's shutdown, or the failure of one of them.
     let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
     let stop_tx = Arc::new(stop_tx);
@@ -136,6 +138,13 @@ pub async fn serve_with(
         ("signal relay", relay),
     ];
     for (name, start) in side {
+        let ctx = ServiceContext {
+            stop: stop_rx.clone(),
+            watching: Arc::clone(&watching),
+        };
+        tasks.push((name, tokio::spawn(start(ctx))));
+    }
+    if let Some((name, start)) = shipper {
         let ctx = ServiceContext {
             stop: stop_rx.clone(),
             watching: Arc::clone(&watching),

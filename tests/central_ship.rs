@@ -10,7 +10,7 @@ use std::time::{Duration, Instant};
 use central_support as pg;
 
 const SITES: [&str; 3] = ["north", "south", "east"];
-const BACKLOG: usize = 2000;
+const BACKLOG: usize = 1000;
 const WHILE_DOWN: usize = 200;
 
 fn start_service(config: &std::path::Path) -> Child {
@@ -66,6 +66,7 @@ fn three_sites_ship_through_a_server_killed_mid_stream() {
         std::thread::sleep(Duration::from_millis(10));
     };
     control.kill();
+    eprintln!("killed at {:?}: {at_kill} shipped", start.elapsed());
     assert!(
         at_kill > 0 && at_kill < backlog,
         "the kill was to come mid-stream: {at_kill} of {backlog} shipped"
@@ -82,16 +83,19 @@ fn three_sites_ship_through_a_server_killed_mid_stream() {
             .zip(&local)
             .all(|(c, n)| pg::local_events(c) >= n + WHILE_DOWN as i64)
     });
+    eprintln!("grown after {:?}", down.elapsed());
     assert!(grown, "ingestion stalled while the central server was down");
     assert!(central_total(&url).is_none(), "the server was to be down");
     std::thread::sleep(Duration::from_secs(5).saturating_sub(down.elapsed()));
     control.start();
+    eprintln!("restarted after {:?}", down.elapsed());
 
     let local: Vec<i64> = configs.iter().map(|c| pg::local_events(c)).collect();
     let want: i64 = local.iter().sum();
     let caught_up = pg::wait_for(Duration::from_secs(45), || {
         central_total(&url) == Some(want)
     });
+    eprintln!("caught up {caught_up} after {:?}", down.elapsed());
     for s in &mut services {
         unsafe { libc::kill(s.id() as i32, libc::SIGTERM) };
     }
@@ -115,6 +119,7 @@ fn three_sites_ship_through_a_server_killed_mid_stream() {
             "site {s}: every event once, numbered 1..{n}"
         );
     }
+    eprintln!("stopped after {:?}", down.elapsed());
     let center = pg::center(root.path(), &url, &SITES);
     let out = pg::turnbook(&center, &["central", "verify"]);
     let text = String::from_utf8_lossy(&out.stdout);

@@ -93,7 +93,10 @@ fn an_event_altered_at_the_center_is_named_and_lots_are_listed_by_site() {
     let lots: serde_json::Value = serde_json::from_slice(&lots.stdout).unwrap();
     let rows = lots.as_array().unwrap();
     assert_eq!(rows.len(), 6, "{lots}");
-    assert!(rows.iter().any(|l| l["site"] == "beta" && l["lot"] == "beta-L1" && l["cycles"] == 4));
+    assert!(
+        rows.iter()
+            .any(|l| l["site"] == "beta" && l["lot"] == "beta-L1" && l["cycles"] == 4)
+    );
 
     // A value changed at the center, the hash left as it was.
     pg::sql(

@@ -46,10 +46,7 @@ pub fn target(cfg: &Config) -> Result<Option<Target>> {
             Some(f) => {
                 let path = cfg.resolve(f);
                 let text = std::fs::read_to_string(&path).map_err(|e| {
-                    NotebookError::Usage(format!(
-                        "central.password_file {}: {e}",
-                        path.display()
-                    ))
+                    NotebookError::Usage(format!("central.password_file {}: {e}", path.display()))
                 })?;
                 Some(text.trim_end_matches(['\r', '\n']).to_string())
             }
@@ -132,11 +129,7 @@ async fn open_central(cfg: &Config, target: &Target, site: &str) -> Result<Clien
 
 /// The central head, after checking that this site's event of that number is the same
 /// event: a central copy that this database does not continue is never shipped onto.
-async fn agreed_head(
-    client: &Client,
-    db: &std::path::Path,
-    site: &str,
-) -> Result<Option<Head>> {
+async fn agreed_head(client: &Client, db: &std::path::Path, site: &str) -> Result<Option<Head>> {
     let Some(head) = central::head(client, site).await? else {
         return Ok(None);
     };
@@ -298,7 +291,10 @@ pub(crate) fn check_against_central(cfg: &Config, local: Option<Head>) -> Result
     let db = cfg.database_path();
     let asked = block_on(async move {
         let client = central::connect(&target).await?;
-        let Some(head) = central::head(&client, &site).await.or_else(missing_schema)? else {
+        let Some(head) = central::head(&client, &site)
+            .await
+            .or_else(missing_schema)?
+        else {
             return Ok(None);
         };
         let info = central::event_info(&client, &site, head.seq).await?;
@@ -348,11 +344,17 @@ pub(crate) fn check_against_central(cfg: &Config, local: Option<Head>) -> Result
 
 /// A central store where nothing was shipped yet has no schema: no head.
 fn missing_schema(e: CentralError) -> std::result::Result<Option<Head>, CentralError> {
+    none_shipped(e, None)
+}
+
+/// `empty` when the central schema does not exist yet (nothing was ever shipped), so
+/// that reading needs no right to create it; any other error as it is.
+fn none_shipped<T>(e: CentralError, empty: T) -> std::result::Result<T, CentralError> {
     match &e {
         CentralError::Postgres(p)
             if p.code() == Some(&tokio_postgres::error::SqlState::UNDEFINED_TABLE) =>
         {
-            Ok(None)
+            Ok(empty)
         }
         _ => Err(e),
     }
@@ -362,9 +364,10 @@ fn missing_schema(e: CentralError) -> std::result::Result<Option<Head>, CentralE
 pub fn central_lots(cfg: &Config) -> Result<Vec<CentralLot>> {
     let target = required_target(cfg)?;
     block_on(async move {
-        let mut client = central::connect(&target).await?;
-        central::prepare(&mut client).await?;
-        Ok(central::lots(&client).await?)
+        let client = central::connect(&target).await?;
+        Ok(central::lots(&client)
+            .await
+            .or_else(|e| none_shipped(e, Vec::new()))?)
     })
 }
 
@@ -429,11 +432,16 @@ pub fn verify_central(cfg: &Config) -> Result<CentralVerifyReport> {
         keys.push((site.clone(), key));
     }
     block_on(async move {
-        let mut client = central::connect(&target).await?;
-        central::prepare(&mut client).await?;
+        let client = central::connect(&target).await?;
         let mut sites = Vec::new();
-        for site in central::sites(&client).await? {
-            let key = keys.iter().find(|(s, _)| *s == site).map(|(_, k)| k.clone());
+        for site in central::sites(&client)
+            .await
+            .or_else(|e| none_shipped(e, Vec::new()))?
+        {
+            let key = keys
+                .iter()
+                .find(|(s, _)| *s == site)
+                .map(|(_, k)| k.clone());
             let mut walk = ChainWalk::new(&site, key);
             central::for_each_event(&client, &site, |e| walk.step(e)).await?;
             sites.push(walk.finish());
@@ -573,7 +581,11 @@ impl ChainWalk {
         let key = self.key.as_ref()?;
         let proof = serde_json::from_str::<serde_json::Value>(&e.payload)
             .ok()
-            .and_then(|v| v.get("key_proof").and_then(|p| p.as_str()).map(String::from));
+            .and_then(|v| {
+                v.get("key_proof")
+                    .and_then(|p| p.as_str())
+                    .map(String::from)
+            });
         (proof.as_deref() != Some(chain::key_proof(key, &e.prev_hash).as_str()))
             .then(|| "its key proof is not the site's key's".to_string())
     }

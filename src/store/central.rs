@@ -22,7 +22,7 @@ use crate::model::chain::Head;
 /// Errors of the central store. Messages never hold the password or the URL.
 #[derive(Debug, thiserror::Error)]
 pub enum CentralError {
-    #[error("central store: {0}")]
+    #[error("central store: {}", with_cause(.0))]
     Postgres(#[from] tokio_postgres::Error),
     #[error("central store address is not valid: {0}")]
     Address(String),
@@ -33,6 +33,16 @@ pub enum CentralError {
 }
 
 pub type Result<T> = std::result::Result<T, CentralError>;
+
+/// The client's error with its cause ("error connecting to server: Connection refused"),
+/// which its own message leaves out. Neither names the password.
+fn with_cause(e: &tokio_postgres::Error) -> String {
+    let text = e.to_string();
+    match std::error::Error::source(e).map(ToString::to_string) {
+        Some(cause) if !text.contains(&cause) => format!("{text}: {cause}"),
+        _ => text,
+    }
+}
 
 /// Where the central store is and how to log in. Debug shows neither URL nor password.
 #[derive(Clone)]
@@ -347,7 +357,9 @@ pub fn local_events_after(conn: &Connection, after: i64, limit: usize) -> Result
 pub fn local_hash(conn: &Connection, seq: i64) -> Result<Option<String>> {
     use rusqlite::OptionalExtension;
     Ok(conn
-        .query_row("SELECT hash FROM events WHERE seq = ?1", [seq], |r| r.get(0))
+        .query_row("SELECT hash FROM events WHERE seq = ?1", [seq], |r| {
+            r.get(0)
+        })
         .optional()?)
 }
 

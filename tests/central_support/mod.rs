@@ -71,7 +71,10 @@ pub fn try_count(url: &str, query: &str) -> Option<i64> {
 /// A new, empty database on the test server for one test; its URL.
 pub fn fresh_database(server: &str, name: &str) -> String {
     let db = format!("tb_{name}_{}", std::process::id());
-    sql(server, &format!("DROP DATABASE IF EXISTS {db} WITH (FORCE)"));
+    sql(
+        server,
+        &format!("DROP DATABASE IF EXISTS {db} WITH (FORCE)"),
+    );
     sql(server, &format!("CREATE DATABASE {db}"));
     let (base, _) = server.rsplit_once('/').expect("a URL ending in /DBNAME");
     format!("{base}/{db}")

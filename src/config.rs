@@ -119,6 +119,15 @@ pub struct Config {
     /// read in it and dates shown to people are its local dates. UTC when absent.
     #[serde(default)]
     pub time_zone: Option<String>,
+    /// This plant's identity in a company's central store: every new event carries it
+    /// inside its hashed payload. Absent: events carry none and nothing is shipped.
+    #[serde(default)]
+    pub site: Option<SiteIdentity>,
+    /// The company's central PostgreSQL store, which the service ships events to and the
+    /// site's `verify` compares its head with. Off when absent (and no
+    /// TURNBOOK_CENTRAL_URL is set).
+    #[serde(default)]
+    pub central: Option<Central>,
     /// Folder of the configuration file, for relative paths (set at load).
     #[serde(skip)]
     pub base_dir: PathBuf,
@@ -137,6 +146,68 @@ pub struct Site {
     /// Currency of lot costs at this site, for display.
     #[serde(default)]
     pub currency: Option<String>,
+}
+
+/// `[site]`: which plant this notebook is.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SiteIdentity {
+    /// Short, stable and unique across the company (letters, digits, `-`, `_`, `.`;
+    /// at most 40), e.g. "north-3". Lot and batch ids are unique per site only.
+    pub id: String,
+}
+
+/// `[central]`: the company's PostgreSQL store.
+#[derive(Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Central {
+    /// `postgresql://user@host:port/dbname` (TURNBOOK_CENTRAL_URL wins when set);
+    /// `?sslmode=require` asks for TLS. Keep the password out of it: see `password_file`.
+    #[serde(default)]
+    pub url: Option<String>,
+    /// File holding the database password (TURNBOOK_CENTRAL_PASSWORD wins when set).
+    #[serde(default)]
+    pub password_file: Option<PathBuf>,
+    /// PEM file of the certificate authorities the server's certificate is checked
+    /// against (with `sslmode=require`); the public web roots when absent.
+    #[serde(default)]
+    pub ca_file: Option<PathBuf>,
+    /// Events per batch sent to the server.
+    #[serde(default = "default_ship_batch")]
+    pub batch_events: usize,
+    /// Seconds the service waits between looks for new events to ship.
+    #[serde(default = "default_ship_interval")]
+    pub interval_seconds: u64,
+    /// Ship from the service (`watch`); `turnbook ship` works either way.
+    #[serde(default = "default_true")]
+    pub ship: bool,
+    /// For `turnbook central verify` at the center: each site's chain key file, by site
+    /// id, so that its keyed links can be recomputed there.
+    #[serde(default)]
+    pub site_keys: BTreeMap<String, PathBuf>,
+}
+
+/// Not the password, and not the URL, which may hold one.
+impl std::fmt::Debug for Central {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Central")
+            .field("url", &self.url.as_ref().map(|_| "<set>"))
+            .field("password_file", &self.password_file)
+            .field("batch_events", &self.batch_events)
+            .field("interval_seconds", &self.interval_seconds)
+            .field("ship", &self.ship)
+            .finish_non_exhaustive()
+    }
+}
+
+fn default_ship_batch() -> usize {
+    5000
+}
+fn default_ship_interval() -> u64 {
+    2
+}
+fn default_true() -> bool {
+    true
 }
 
 /// How raw measurements become TON, TOF and activity.
@@ -522,6 +593,7 @@ impl Config {
             return Err(self.invalid("alerts", problem));
         }
         self.validate_signers()?;
+        self.validate_central()?;
         for (name, p) in &self.profiles {
             p.validate()
                 .map_err(|m| self.invalid(format!("profiles.{name}"), m))?;
@@ -556,6 +628,40 @@ impl Config {
             }
         }
         Ok(())
+    }
+
+    /// A site id fit for a key; a central batch size and interval in range.
+    fn validate_central(&self) -> Result<(), ConfigError> {
+        if let Some(s) = &self.site
+            && (s.id.is_empty()
+                || s.id.len() > 40
+                || !s
+                    .id
+                    .chars()
+                    .all(|c| c.is_ascii_alphanumeric() || matches!(c, '-' | '_' | '.')))
+        {
+            return Err(self.invalid(
+                "site.id",
+                format!(
+                    "'{}' is not a site id; expected 1 to 40 letters, digits, '-', '_' or '.', e.g. \"north-3\"",
+                    s.id.escape_default()
+                ),
+            ));
+        }
+        if let Some(c) = &self.central {
+            if !(1..=100_000).contains(&c.batch_events) {
+                return Err(self.invalid("central.batch_events", "expected 1 to 100000"));
+            }
+            if !(1..=3600).contains(&c.interval_seconds) {
+                return Err(self.invalid("central.interval_seconds", "expected 1 to 3600"));
+            }
+        }
+        Ok(())
+    }
+
+    /// The site id events are stamped with, if configured.
+    pub fn site_id(&self) -> Option<&str> {
+        self.site.as_ref().map(|s| s.id.as_str())
     }
 
     /// Each signer has a printable name of its own and accounts without spaces.

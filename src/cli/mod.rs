@@ -6,6 +6,7 @@
 //! error; [`Failure`] is decided from the notebook's error kinds in one place.
 
 mod alerts;
+mod central;
 mod demo;
 mod demo_live;
 mod entries;
@@ -94,6 +95,11 @@ pub enum Command {
     Completions(CompletionsArgs),
     /// Print the manual page (roff) to stdout: `turnbook manpage | man -l -`.
     Manpage,
+    /// Copy the events the central store lacks to it now (the service does this on its own).
+    Ship(ShipArgs),
+    /// The company's central store: verify every site's chain, list the lots of all sites.
+    #[command(subcommand)]
+    Central(CentralCommand),
 }
 
 #[derive(Debug, Args)]
@@ -116,6 +122,21 @@ pub struct ExportArgs {
 pub struct CompletionsArgs {
     /// The shell to complete for.
     pub shell: clap_complete::Shell,
+}
+
+#[derive(Debug, Args)]
+pub struct ShipArgs {
+    /// Print JSON instead of lines of text.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum CentralCommand {
+    /// Recompute every site's chain in the central store; name each first broken link.
+    Verify(ShipArgs),
+    /// List the company's lots by site, with their cycles and latest sign-off.
+    Lots(ShipArgs),
 }
 
 #[derive(Debug, Args)]
@@ -522,6 +543,9 @@ fn dispatch(cli: &Cli) -> CmdResult {
         Command::Export(a) => export::export(&load(cli)?, a),
         Command::Completions(a) => export::completions(a.shell),
         Command::Manpage => export::manpage(),
+        Command::Ship(a) => central::ship(&load(cli)?, a.json),
+        Command::Central(CentralCommand::Verify(a)) => central::verify(&load(cli)?, a.json),
+        Command::Central(CentralCommand::Lots(a)) => central::lots(&load(cli)?, a.json),
     }
 }
 

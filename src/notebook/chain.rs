@@ -61,6 +61,9 @@ fn key_for_writing(cfg: &Config, conn: &Connection) -> Result<ChainKey> {
 /// a chain still plain is keyed now (see [`store::events::start_keying`]).
 pub(crate) fn open_writer(cfg: &Config) -> Result<Connection> {
     let mut conn = store::open(&cfg.database_path())?;
+    if let Some(site) = cfg.site_id() {
+        store::central::use_site(&conn, site);
+    }
     let key = key_for_writing(cfg, &conn)?;
     if store::events::keying(&conn)?.is_none() {
         let actor = crate::audit::actor(cfg.actor.as_deref());

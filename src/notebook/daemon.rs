@@ -126,6 +126,8 @@ pub async fn serve_with(
     let pipeline = PipelineSink::new(cfg.clone())?;
     let live = Arc::clone(&pipeline.live);
     let sink: Arc<dyn FileSink> = Arc::new(pipeline);
+    // The central shipper, when configured: it only reads the database.
+    let shipper = super::central::shipper(cfg)?;
     // The tasks' own stop signal: the caller's shutdown, or the failure of one of them.
     let (stop_tx, stop_rx) = tokio::sync::watch::channel(false);
     let stop_tx = Arc::new(stop_tx);
@@ -152,6 +154,13 @@ pub async fn serve_with(
         ("hangup", hangup),
     ];
     for (name, start) in side {
+        let ctx = ServiceContext {
+            stop: stop_rx.clone(),
+            watching: Arc::clone(&watching),
+        };
+        tasks.push((name, tokio::spawn(start(ctx))));
+    }
+    if let Some((name, start)) = shipper {
         let ctx = ServiceContext {
             stop: stop_rx.clone(),
             watching: Arc::clone(&watching),

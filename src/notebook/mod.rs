@@ -18,6 +18,7 @@
 
 mod alerts;
 mod causes;
+mod central;
 mod chain;
 mod daemon;
 mod dates;
@@ -40,6 +41,10 @@ mod views;
 
 pub use alerts::{AlertActionLine, AlertEntry, list_alerts};
 pub use causes::lot_causes;
+pub use central::{
+    BrokenLink, CentralVerifyReport, ChainWalk, ShipReport, SiteChain, central_lots, ship_now,
+    verify_central,
+};
 pub use daemon::{
     ServiceContext, SideTask, deliver_now, queue_digest, run_service, run_service_with, runtime,
     serve, serve_with,

@@ -68,7 +68,7 @@ pub fn verify_recorded(cfg: &Config, heads: &[Head], scope: VerifyScope) -> Resu
         VerifyScope::Full => None,
         VerifyScope::SinceLast => last_trusted_run(&conn, key.as_ref())?,
     };
-    let report = match &since {
+    let mut report = match &since {
         None => {
             let mut r = crate::audit::verify_with(&conn, &w)?;
             let (fits, findings) = super::fitcheck::check_fits(&conn, cfg)?;
@@ -78,6 +78,11 @@ pub fn verify_recorded(cfg: &Config, heads: &[Head], scope: VerifyScope) -> Resu
         }
         Some(run) => crate::audit::verify_since(&conn, &w, &head_of(run))?,
     };
+    // With a central store configured, its copy of this site's chain is a witness too.
+    let head = store::events::head(&conn)?;
+    report
+        .findings
+        .extend(super::central::check_against_central(cfg, head)?);
     let mut run = VerifyRun {
         id: 0,
         at: now_utc(),

@@ -3,6 +3,7 @@
 //! ([`crate::audit`]) in the same transaction as the rows it describes.
 
 pub mod bulk;
+pub mod central;
 pub mod events;
 pub mod export;
 pub mod lots;

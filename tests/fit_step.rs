@@ -71,29 +71,34 @@ fn suspected(a: &LotAnalysis) -> bool {
 fn a_20_percent_step_is_flagged_and_stays_flagged() {
     for (after, seed) in [(2, 21), (4, 22), (10, 23)] {
         let n = STEP_AT + after;
-        let v = run(n, 0.20, 200, seed, ModelId::FirstOrder);
+        let v = run(n, 0.20, 400, seed, ModelId::FirstOrder);
         let power = share(&v, suspected);
         let located = share(&v, |a| {
             a.abrupt.as_ref().and_then(|b| b.change_at) == Some(STEP_AT as f64)
         });
         eprintln!("{after} cycles after the step: flagged {power:.3}, located at 10 {located:.3}");
-        assert!(power >= 0.92, "{after} cycles after: power {power}");
+        assert!(power >= 0.95, "{after} cycles after: power {power}");
         assert!(located >= 0.85, "{after} cycles after: located {located}");
     }
 }
 
 #[test]
 fn step_free_lots_rarely_alarm() {
-    // A straight-line decay is reported by the ignored large run: its one-step baseline
-    // on the log scale is biased low there, and it alarms more often.
-    for (model, seed) in [(ModelId::FirstOrder, 31), (ModelId::SecondOrder, 32)] {
+    // Expected (the large run): 0.2 %, 0.03 % and 1.3 %; the detector before this one
+    // alarmed in 2.8 %, 0.8 % and 5.3 %. The limits leave room for sampling error
+    // (sd ≈ 0.4 points at 1.3 % on 1,000 series) and still fail that detector.
+    for (model, seed, limit) in [
+        (ModelId::FirstOrder, 31, 0.015),
+        (ModelId::SecondOrder, 32, 0.015),
+        (ModelId::Linear, 33, 0.025),
+    ] {
         let v = run(15, 0.0, 1000, seed, model);
         let alarms = share(&v, suspected);
         let changes = share(&v, |a| {
             a.abrupt.as_ref().is_some_and(|b| b.change_at.is_some())
         });
         eprintln!("{model}: false alarms {alarms:.4}, changes accepted {changes:.4}");
-        assert!(alarms <= 0.03, "{model}: false alarms {alarms}");
+        assert!(alarms <= limit, "{model}: false alarms {alarms}");
     }
 }
 

@@ -526,7 +526,8 @@ pub fn level_shift_p(x: &[f64], y: &[f64], tau: usize) -> f64 {
 
 /// The inverse of a symmetric 3 × 3 matrix by cofactors; None when it is singular.
 fn invert3(m: [[f64; 3]; 3]) -> Option<[[f64; 3]; 3]> {
-    let c = |r0: usize, r1: usize, c0: usize, c1: usize| m[r0][c0] * m[r1][c1] - m[r0][c1] * m[r1][c0];
+    let c =
+        |r0: usize, r1: usize, c0: usize, c1: usize| m[r0][c0] * m[r1][c1] - m[r0][c1] * m[r1][c0];
     let cof = [
         [c(1, 2, 1, 2), -c(1, 2, 0, 2), c(1, 2, 0, 1)],
         [-c(0, 2, 1, 2), c(0, 2, 0, 2), -c(0, 2, 0, 1)],

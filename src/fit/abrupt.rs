@@ -405,7 +405,7 @@ impl Baseline {
         let nf = n as f64;
         let xm = x[..n].iter().sum::<f64>() / nf;
         let sxx: f64 = x[..n].iter().map(|xi| (xi - xm).powi(2)).sum();
-        if !(sxx > 0.0) {
+        if sxx <= 0.0 || !sxx.is_finite() {
             return None;
         }
         let line = |v: &dyn Fn(usize) -> f64| {
@@ -535,7 +535,8 @@ fn invert3(m: [[f64; 3]; 3]) -> Option<[[f64; 3]; 3]> {
     ];
     let det = m[0][0] * cof[0][0] + m[0][1] * cof[0][1] + m[0][2] * cof[0][2];
     let scale = m[0][0].abs().max(m[1][1].abs()).max(m[2][2].abs());
-    if !(det.abs() > 1e-12 * scale.powi(3)) {
+    let regular = det.abs() > 1e-12 * scale.powi(3);
+    if !regular {
         return None;
     }
     let mut out = [[0.0; 3]; 3];
@@ -646,7 +647,7 @@ mod tests {
     fn level_shift_test_sees_a_step_and_not_a_trend() {
         // A first-order decay with alternating ±0.01 scatter, then 20 % lower from index 10.
         let x: Vec<f64> = (1..=14).map(f64::from).collect();
-        let wiggle = |i: usize| if i % 2 == 0 { 0.01 } else { -0.01 };
+        let wiggle = |i: usize| if i.is_multiple_of(2) { 0.01 } else { -0.01 };
         let flat: Vec<f64> = x
             .iter()
             .enumerate()

@@ -2,9 +2,12 @@
 //! first-order decay a0 = 1, kd = 0.03, Gaussian noise sd 0.02; a 20 % drop of activity
 //! from cycle 10 on. The detection must persist: flagged 2, 4 and 10 cycles after the step
 //! (series ending at cycles 12, 14 and 20). Measured on 2,000 series each (the ignored
-//! run below): 93.5 %, 94.3 % and 93.6 %; on 5,000 step-free first-order series of 15 cycles,
-//! false alarms in 2.8 % (second order 0.8 %, a straight-line decay 5.3 %). The CI runs
-//! smaller samples and holds power ≥ 92 % and false alarms ≤ 3 %.
+//! run below, seeds 512/514/520, `cargo test --release --test fit_step -- --ignored
+//! --nocapture`): 97.6 %, 97.0 % and 96.6 % (the detector before, 93.5 %, 94.3 % and
+//! 93.6 %); on 5,000 step-free series of 15 cycles (seed 700), false alarms at the newest
+//! cycle in 0.24 % of first-order, 0.06 % of second-order and 1.38 % of straight-line
+//! decays (before: 2.8 %, 0.8 %, 5.3 %). The CI runs smaller samples whose limits fail the
+//! detector before.
 //! After the change the fresh activity stays anchored to the cycles before.
 
 use rand::SeedableRng;
@@ -71,29 +74,34 @@ fn suspected(a: &LotAnalysis) -> bool {
 fn a_20_percent_step_is_flagged_and_stays_flagged() {
     for (after, seed) in [(2, 21), (4, 22), (10, 23)] {
         let n = STEP_AT + after;
-        let v = run(n, 0.20, 200, seed, ModelId::FirstOrder);
+        let v = run(n, 0.20, 400, seed, ModelId::FirstOrder);
         let power = share(&v, suspected);
         let located = share(&v, |a| {
             a.abrupt.as_ref().and_then(|b| b.change_at) == Some(STEP_AT as f64)
         });
         eprintln!("{after} cycles after the step: flagged {power:.3}, located at 10 {located:.3}");
-        assert!(power >= 0.92, "{after} cycles after: power {power}");
+        assert!(power >= 0.95, "{after} cycles after: power {power}");
         assert!(located >= 0.85, "{after} cycles after: located {located}");
     }
 }
 
 #[test]
 fn step_free_lots_rarely_alarm() {
-    // A straight-line decay is reported by the ignored large run: its one-step baseline
-    // on the log scale is biased low there, and it alarms more often.
-    for (model, seed) in [(ModelId::FirstOrder, 31), (ModelId::SecondOrder, 32)] {
+    // Expected (the large run): 0.2 %, 0.03 % and 1.3 %; the detector before this one
+    // alarmed in 2.8 %, 0.8 % and 5.3 %. The limits leave room for sampling error
+    // (sd ≈ 0.4 points at 1.3 % on 1,000 series) and still fail that detector.
+    for (model, seed, limit) in [
+        (ModelId::FirstOrder, 31, 0.015),
+        (ModelId::SecondOrder, 32, 0.015),
+        (ModelId::Linear, 33, 0.025),
+    ] {
         let v = run(15, 0.0, 1000, seed, model);
         let alarms = share(&v, suspected);
         let changes = share(&v, |a| {
             a.abrupt.as_ref().is_some_and(|b| b.change_at.is_some())
         });
         eprintln!("{model}: false alarms {alarms:.4}, changes accepted {changes:.4}");
-        assert!(alarms <= 0.03, "{model}: false alarms {alarms}");
+        assert!(alarms <= limit, "{model}: false alarms {alarms}");
     }
 }
 

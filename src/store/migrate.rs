@@ -47,6 +47,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "fit_config",
         include_str!("../../schema/0011_fit_config.sql"),
     ),
+    (
+        13,
+        "lot_states",
+        include_str!("../../schema/0013_lot_states.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

@@ -871,6 +871,10 @@ fn upsert_lot(tx: &Transaction<'_>, l: &LotRecord, seq: i64) -> Result<()> {
         l.family,
         seq
     ])?;
+    tx.prepare_cached(
+        "INSERT OR IGNORE INTO lot_registrations(lot, event_seq) VALUES (?1, ?2)",
+    )?
+    .execute(params![l.lot, seq])?;
     Ok(())
 }
 

@@ -41,7 +41,10 @@ SELECT lot FROM lots UNION SELECT lot FROM cycles WHERE lot IS NOT NULL;
 -- A lot's history: the events naming it or its batches, found through indexes rather
 -- than by reading every event (the lot sheets' events were found by parsing each event's
 -- payload). `lot_registrations` lists each event that wrote a registration of a lot.
-CREATE INDEX events_subject ON events(subject);
+-- Only events other than files' (people's entries, which name a lot or a batch): a file's
+-- event names its path, and is found through its batches' provenance and the lot
+-- registrations; indexing every file's path again would cost each backfill.
+CREATE INDEX events_subject ON events(subject) WHERE kind <> 'file-ingested';
 CREATE TABLE lot_registrations (
     lot TEXT NOT NULL,
     event_seq INTEGER NOT NULL REFERENCES events(seq),

@@ -137,7 +137,10 @@ fn a_backfill_mails_nothing_for_a_lot_finished_long_ago() {
         .filter(|(lot, _)| lot == "PD-NEW-26")
         .map(|(_, key)| key)
         .collect();
-    assert!(!new.is_empty(), "the current lot's alerts are raised: {queued:?}");
+    assert!(
+        !new.is_empty(),
+        "the current lot's alerts are raised: {queued:?}"
+    );
     let mut keys = new.clone();
     keys.dedup();
     assert_eq!(keys.len(), new.len(), "one message per alert: {new:?}");
@@ -175,4 +178,46 @@ fn the_history_window_is_a_setting() {
         queued.iter().any(|(lot, _)| lot == "PD-OLD-16"),
         "{queued:?}"
     );
+}
+
+#[test]
+fn an_open_recomputes_only_the_lots_left_waiting() {
+    let dir = tempfile::tempdir().unwrap();
+    let (cfg, files) = plant(dir.path());
+    let mut ing = Ingestor::open(cfg.clone()).unwrap();
+    ing.ingest_paths(&files, |_| {}).unwrap();
+    drop(ing);
+    let db = cfg.database_path();
+    let fits = |lot: &str| -> i64 {
+        let c = rusqlite::Connection::open(&db).unwrap();
+        c.query_row("SELECT COUNT(*) FROM fits WHERE lot = ?1", [lot], |r| {
+            r.get(0)
+        })
+        .unwrap()
+    };
+    // Nothing waits after a whole backfill: opening again recomputes nothing.
+    let mut conn = store::open(&db).unwrap();
+    assert_eq!(
+        turnbook::notebook::recompute_stale(&mut conn, &cfg, "qa").unwrap(),
+        0
+    );
+    drop(conn);
+    // A backfill stopped after a group and before its closing recompute leaves the lots
+    // of its groups listed (as the group's own transaction wrote them).
+    let (old, new) = (fits("PD-OLD-16"), fits("PD-NEW-26"));
+    rusqlite::Connection::open(&db)
+        .unwrap()
+        .execute(
+            "INSERT INTO lots_to_recompute(lot) VALUES ('PD-NEW-26')",
+            [],
+        )
+        .unwrap();
+    drop(Ingestor::open(cfg.clone()).unwrap());
+    assert_eq!(fits("PD-NEW-26"), new + 1, "the waiting lot is recomputed");
+    assert_eq!(fits("PD-OLD-16"), old, "no other lot is");
+    let waiting: i64 = rusqlite::Connection::open(&db)
+        .unwrap()
+        .query_row("SELECT COUNT(*) FROM lots_to_recompute", [], |r| r.get(0))
+        .unwrap();
+    assert_eq!(waiting, 0);
 }

@@ -1053,7 +1053,14 @@ fn the_rebuilt_file_table_keeps_its_rows_and_checks_without_a_temporary_index() 
         .unwrap()
         .collect::<Result<_, _>>()
         .unwrap();
-    assert_eq!(indexes, ["source_files_ingested_once", "source_files_path"]);
+    assert_eq!(
+        indexes,
+        [
+            "source_files_ingested_once",
+            "source_files_outcome_seen",
+            "source_files_path"
+        ]
+    );
     let insert = "INSERT INTO source_files(sha256, path, size, seen_at, outcome, event_seq) \
                   VALUES ('00', 'x', 1, 'now', ?1, (SELECT MAX(seq) FROM events))";
     let refused = conn.execute(insert, ["imported"]).unwrap_err();

@@ -70,6 +70,10 @@ impl FileSink for PipelineSink {
         Ok(())
     }
 
+    fn takes_files_together(&self) -> bool {
+        true
+    }
+
     /// Files that settled together, stored in transactions of up to [`TOGETHER_BYTES`]
     /// of content (each lot they touch refitted once per transaction); a database error
     /// fails the files of its transaction only.

@@ -394,12 +394,16 @@ pub fn current_states(
     part: StatePart,
 ) -> Result<HashMap<String, Option<String>>> {
     let mut stmt = conn.prepare_cached(match part {
-        StatePart::Line => "SELECT s.lot, s.line FROM lot_states s
+        StatePart::Line => {
+            "SELECT s.lot, s.line FROM lot_states s
          WHERE s.engine_version = ?1 AND s.config_sha256 = ?2
-           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = s.lot)",
-        StatePart::Snapshot => "SELECT s.lot, s.snapshot FROM lot_states s
+           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = s.lot)"
+        }
+        StatePart::Snapshot => {
+            "SELECT s.lot, s.snapshot FROM lot_states s
          WHERE s.engine_version = ?1 AND s.config_sha256 = ?2
-           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = s.lot)",
+           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = s.lot)"
+        }
     })?;
     let rows = stmt
         .query_map([engine_version, config_sha256], |r| {

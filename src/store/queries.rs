@@ -79,8 +79,9 @@ pub fn lot_events(conn: &Connection, lot: &str) -> Result<Vec<StoredEvent>> {
     let mut stmt = conn.prepare(
         "SELECT e.seq, e.at, e.actor, e.kind, e.subject, e.payload, e.prev_hash, e.hash FROM events e
          WHERE e.seq IN (
-             SELECT seq FROM events WHERE subject = ?1
-             UNION SELECT x.seq FROM cycles c JOIN events x ON x.subject = c.batch_id WHERE c.lot = ?1
+             SELECT seq FROM events WHERE subject = ?1 AND kind <> 'file-ingested'
+             UNION SELECT x.seq FROM cycles c JOIN events x ON x.subject = c.batch_id
+                 AND x.kind <> 'file-ingested' WHERE c.lot = ?1
              UNION SELECT b.event_seq FROM cycles c JOIN batch_sources b ON b.batch_id = c.batch_id
                  WHERE c.lot = ?1
              UNION SELECT event_seq FROM lot_registrations WHERE lot = ?1)

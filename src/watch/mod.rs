@@ -77,6 +77,13 @@ pub trait FileSink: Send + Sync + 'static {
         Ok(())
     }
 
+    /// True when [`FileSink::ingest_files`] stores files that settled together as one
+    /// unit of work; otherwise the watcher calls [`FileSink::ingest`] file by file (and
+    /// takes no further file once told to stop).
+    fn takes_files_together(&self) -> bool {
+        false
+    }
+
     /// Ingests files that settled together, each with its own result, as [`ingest`] does
     /// one (an `Err` of the whole call counts for each). The pipeline stores them in one
     /// transaction and refits each lot they touch once; this default calls [`ingest`]

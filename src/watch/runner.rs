@@ -404,7 +404,19 @@ fn worker(
                 Outcome { job, result }
             })
             .collect();
-        outcomes.extend(ingest_jobs(sink.as_ref(), &folders, files));
+        if sink.takes_files_together() {
+            outcomes.extend(ingest_jobs(sink.as_ref(), &folders, files));
+        } else {
+            for job in files {
+                if stop.load(Ordering::SeqCst) {
+                    break;
+                }
+                let result = call_sink(&folders, job.root, || {
+                    sink.ingest(&folders[job.root], &job.path)
+                });
+                outcomes.push(Outcome { job, result });
+            }
+        }
         for outcome in outcomes {
             if done.send(outcome).is_err() {
                 return;

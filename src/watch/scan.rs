@@ -261,8 +261,7 @@ impl Root {
         while let Some(dir) = stack.pop() {
             let mtime = fs::metadata(&dir).ok().and_then(|m| m.modified().ok());
             let kept = memo.dirs.get(&dir);
-            if !full && let Some(kept) = kept.filter(|k| k.mtime.is_some() && k.mtime == mtime)
-            {
+            if !full && let Some(kept) = kept.filter(|k| k.mtime.is_some() && k.mtime == mtime) {
                 stack.extend(kept.subdirs.iter().cloned());
                 walked.insert(dir);
                 continue;
@@ -521,7 +520,10 @@ mod tests {
         // not look, a full pass does.
         fs::write(r.canonical.join("a.csv"), b"22").unwrap();
         let (quick, _) = r.scan_changes(&mut memo);
-        assert!(quick.is_empty(), "an unchanged directory is not read: {quick:?}");
+        assert!(
+            quick.is_empty(),
+            "an unchanged directory is not read: {quick:?}"
+        );
         // A new file changes its directory's time: found at the next pass, alone.
         fs::write(r.canonical.join("sub/d.csv"), b"1").unwrap();
         let (added, _) = r.scan_changes(&mut memo);

@@ -259,18 +259,13 @@ impl Ingestor {
         &self,
         files: &[(&Path, u64, Option<std::time::SystemTime>)],
     ) -> Result<Vec<bool>, StoreError> {
-        files
+        let versions: Vec<(String, i64, Option<String>)> = files
             .iter()
             .map(|(path, size, modified)| {
-                let mtime = modified.map(mtime_text);
-                bulk::recorded_unchanged(
-                    &self.conn,
-                    &recorded_path(path),
-                    *size as i64,
-                    mtime.as_deref(),
-                )
+                (recorded_path(path), *size as i64, modified.map(mtime_text))
             })
-            .collect()
+            .collect();
+        bulk::recorded_among(&self.conn, &versions)
     }
 
     /// Record entries that are not read (see the `listing` module) as rejected files, in one

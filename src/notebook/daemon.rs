@@ -305,7 +305,7 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
     let mut lots = Vec::new();
     let mut pending_lots = 0;
     let signoffs = super::signoffs::sign_off_states(&conn)?;
-    for (lot, snap) in super::lots::current_snapshots(&conn, cfg)? {
+    for (lot, snap) in current_snapshots(&conn, cfg)? {
         let signoff = signoffs.get(&lot).map(|s| match &s.by {
             Some(m) => format!("{} ({})", s.state.as_str(), m.signer_or_unnamed()),
             None => s.state.as_str().to_string(),
@@ -336,6 +336,47 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
     outbox::enqueue_message(&tx, &key, &msg, &format_ts(now))?;
     tx.commit().map_err(store::StoreError::from)?;
     Ok(msg.subject)
+}
+
+/// Every lot's alert-rules snapshot as it stands (None for a lot nobody registered):
+/// stored by the lot's last recompute, computed here only where no usable one is stored
+/// (as `lots` reads its lines). Dates are worked out as of today.
+fn current_snapshots(
+    conn: &store::Connection,
+    cfg: &Config,
+) -> store::Result<Vec<(String, Option<crate::alert::LotSnapshot>)>> {
+    let mut stored = store::lots::current_states(
+        conn,
+        (crate::fit::ENGINE_VERSION, &cfg.analysis_fingerprint()),
+        store::lots::StatePart::Snapshot,
+    )?;
+    let today = super::lots::today(cfg);
+    let mut out = Vec::new();
+    for lot in store::lots::lot_names(conn)? {
+        let kept = match stored.remove(&lot) {
+            Some(None) => Some(None),
+            Some(Some(json)) => serde_json::from_str::<crate::alert::LotSnapshot>(&json)
+                .ok()
+                .map(Some),
+            None => None,
+        };
+        let snap = match kept {
+            Some(mut snap) => {
+                if let Some(d) = snap
+                    .as_mut()
+                    .and_then(|s| s.forecast.as_mut())
+                    .and_then(|f| f.dates.as_mut())
+                    .filter(|d| d.as_of.is_some())
+                {
+                    d.as_of = Some(today.clone());
+                }
+                snap
+            }
+            None => super::alerts::snapshot(cfg, &super::lots::lot_state(conn, cfg, &lot)?),
+        };
+        out.push((lot, snap));
+    }
+    Ok(out)
 }
 
 /// Queue a digest at every slot of the configured schedule until shutdown.

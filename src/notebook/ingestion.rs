@@ -792,15 +792,7 @@ impl<'a> Writer<'a> {
         }
         w.finish()?;
         close_notices(&tx, self.cfg, &outcomes)?;
-        if recompute {
-            // Under the write lock, this group's events are the newest of their lots.
-            let lots = touched.iter().map(|(l, a)| (l.clone(), Some(*a))).collect();
-            crate::notebook::recompute::recompute_backfill(&tx, self.cfg, &lots)?;
-        } else {
-            // Listed in the same transaction: a crash before the closing recompute leaves
-            // the list for the next open, which need look at nothing else.
-            store::lots::mark_to_recompute(&tx, touched.keys().map(String::as_str))?;
-        }
+        recompute_or_list(&tx, self.cfg, &touched, recompute)?;
         tx.commit()?;
         self.committed += 1;
         self.recent.push_back(in_group);
@@ -809,6 +801,24 @@ impl<'a> Writer<'a> {
         }
         log_ingested(&outcomes);
         Ok((outcomes, touched))
+    }
+}
+
+/// Recompute the lots a group touched in its transaction, or (a backfill's group, whose
+/// lots are recomputed after its last group) list them in it: a crash before the closing
+/// recompute leaves the list for the next open, which need look at nothing else.
+fn recompute_or_list(
+    tx: &store::Transaction<'_>,
+    cfg: &Config,
+    touched: &BTreeMap<String, i64>,
+    recompute: bool,
+) -> Result<(), StoreError> {
+    if recompute {
+        // Under the write lock, this group's events are the newest of their lots.
+        let lots = touched.iter().map(|(l, a)| (l.clone(), Some(*a))).collect();
+        crate::notebook::recompute::recompute_backfill(tx, cfg, &lots)
+    } else {
+        store::lots::mark_to_recompute(tx, touched.keys().map(String::as_str))
     }
 }
 

@@ -505,47 +505,6 @@ fn current_lines(conn: &Connection, cfg: &Config) -> Result<Vec<LotLine>> {
     Ok(lines)
 }
 
-/// Every lot's alert-rules snapshot as it stands (None for a lot nobody registered):
-/// stored by the lot's last recompute, computed here only where no usable one is stored
-/// (see [`current_lines`]). Dates are worked out as of today.
-pub(crate) fn current_snapshots(
-    conn: &Connection,
-    cfg: &Config,
-) -> Result<Vec<(String, Option<crate::alert::LotSnapshot>)>> {
-    let mut stored = store::lots::current_states(
-        conn,
-        (fit::ENGINE_VERSION, &cfg.analysis_fingerprint()),
-        store::lots::StatePart::Snapshot,
-    )?;
-    let today = today(cfg);
-    let mut out = Vec::new();
-    for lot in store::lots::lot_names(conn)? {
-        let kept = match stored.remove(&lot) {
-            Some(None) => Some(None),
-            Some(Some(json)) => serde_json::from_str::<crate::alert::LotSnapshot>(&json)
-                .ok()
-                .map(Some),
-            None => None,
-        };
-        let snap = match kept {
-            Some(mut snap) => {
-                if let Some(d) = snap
-                    .as_mut()
-                    .and_then(|s| s.forecast.as_mut())
-                    .and_then(|f| f.dates.as_mut())
-                    .filter(|d| d.as_of.is_some())
-                {
-                    d.as_of = Some(today.clone());
-                }
-                snap
-            }
-            None => super::alerts::snapshot(cfg, &lot_state(conn, cfg, &lot)?),
-        };
-        out.push((lot, snap));
-    }
-    Ok(out)
-}
-
 /// The plant-local date of today, as forecasts' dates are worked out on.
 pub(crate) fn today(cfg: &Config) -> String {
     crate::model::calendar::local_date(cfg.zone(), chrono::Utc::now())

@@ -157,6 +157,9 @@ struct Prepared {
     result: Result<ParsedFile, String>,
 }
 
+/// File versions the start-up's check of recorded files takes at a time.
+const RECORDED_SLICE: usize = 8192;
+
 /// Owns the database connection and the configuration; one per process (one writer).
 pub struct Ingestor {
     conn: Connection,
@@ -259,13 +262,19 @@ impl Ingestor {
         &self,
         files: &[(&Path, u64, Option<std::time::SystemTime>)],
     ) -> Result<Vec<bool>, StoreError> {
-        let versions: Vec<(String, i64, Option<String>)> = files
-            .iter()
-            .map(|(path, size, modified)| {
-                (recorded_path(path), *size as i64, modified.map(mtime_text))
-            })
-            .collect();
-        bulk::recorded_among(&self.conn, &versions)
+        // In slices: an idle service keeps the high-water mark of its memory, and the
+        // start-up's listing of a decade's files is already most of it.
+        let mut known = Vec::with_capacity(files.len());
+        for slice in files.chunks(RECORDED_SLICE) {
+            let versions: Vec<(String, i64, Option<String>)> = slice
+                .iter()
+                .map(|(path, size, modified)| {
+                    (recorded_path(path), *size as i64, modified.map(mtime_text))
+                })
+                .collect();
+            known.extend(bulk::recorded_among(&self.conn, &versions)?);
+        }
+        Ok(known)
     }
 
     /// Record entries that are not read (see the `listing` module) as rejected files, in one

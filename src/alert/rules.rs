@@ -5,13 +5,13 @@
 use std::collections::BTreeMap;
 use std::fmt::{self, Write as _};
 
-use serde::Deserialize;
+use serde::{Deserialize, Serialize};
 
 use super::schedule::DigestSchedule;
 pub use crate::model::ForecastStatus;
 
 /// The replacement forecast from the model chosen for the lot.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Forecast {
     pub status: ForecastStatus,
     /// Estimated cycle number of the crossing.
@@ -31,7 +31,7 @@ pub struct Forecast {
 }
 
 /// Abrupt-loss check on the newest cycle (prediction interval and Page's CUSUM).
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct AbruptLoss {
     pub flagged: bool,
     pub newest: f64,
@@ -45,7 +45,7 @@ pub struct AbruptLoss {
 
 /// Where a metal limit came from; shown beside the number so nobody mistakes a recalled
 /// value for a configured specification.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub enum LimitSource {
     /// A specification configured by the site.
     Configured(String),
@@ -63,7 +63,7 @@ impl fmt::Display for LimitSource {
 }
 
 /// Metal found in the product of the newest cycle, with its limit.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct MetalInProduct {
     pub cycle: u32,
     pub ug_per_g: f64,
@@ -72,7 +72,7 @@ pub struct MetalInProduct {
 }
 
 /// The verdict on the next batch (see the analysis's next-cycle prediction).
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 pub enum NextBatchVerdict {
     /// The lower prediction bound lies above the criterion.
     Ok,
@@ -83,7 +83,7 @@ pub enum NextBatchVerdict {
 }
 
 /// The next batch's predicted activity with its prediction interval.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct NextBatch {
     pub cycle: f64,
     pub predicted: f64,
@@ -94,14 +94,14 @@ pub struct NextBatch {
 }
 
 /// A file that could not be read and was kept aside.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct QuarantinedFile {
     pub name: String,
     pub reason: String,
 }
 
 /// One evidence row: a cycle's value traced to its source file.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct EvidenceRow {
     pub cycle: u32,
     pub value: f64,
@@ -110,7 +110,7 @@ pub struct EvidenceRow {
 }
 
 /// Everything the rules need about one lot, filled by the caller from records and fits.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct LotSnapshot {
     pub lot: String,
     pub catalyst: String,
@@ -213,6 +213,10 @@ pub struct AlertRules {
     /// When the managers' digest goes out ("daily HH:MM" or "weekly DAY HH:MM", UTC);
     /// absent means no digest.
     pub digest: Option<DigestSchedule>,
+    /// In a backfill, a lot whose newest batch started more than this many days before
+    /// the newest batch the store records is history: its state is stored and shown, its
+    /// alerts are not raised (no mail for lots finished long ago).
+    pub backfill_history_days: f64,
 }
 
 impl Default for AlertRules {
@@ -230,6 +234,9 @@ impl Default for AlertRules {
             recipients: Recipients::default(),
             sites: BTreeMap::new(),
             digest: None,
+            // Common practice scale, not a standard: a lot unused for a quarter while
+            // the plant ran is out of service.
+            backfill_history_days: 90.0,
         }
     }
 }

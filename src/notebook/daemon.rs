@@ -39,6 +39,25 @@ impl PipelineSink {
     }
 }
 
+/// File content stored in one transaction when files settle together: bounds what one
+/// call holds in memory (a large export goes alone).
+const TOGETHER_BYTES: u64 = 8 << 20;
+
+/// Log what became of a file the service offered.
+fn log_outcome(outcome: &FileOutcome) {
+    match outcome {
+        FileOutcome::Duplicate {
+            path, of_file_id, ..
+        } => {
+            tracing::info!(path = %path, of_file_id, "content ingested before; recorded as a duplicate")
+        }
+        FileOutcome::Rejected { path, error, .. } => {
+            tracing::warn!(path = %path, error = %error, "file rejected and quarantined")
+        }
+        FileOutcome::Ingested { .. } => {}
+    }
+}
+
 impl FileSink for PipelineSink {
     fn caught_up(&self) {
         tracing::info!("start-up scan done; every file found was handled");
@@ -57,18 +76,45 @@ impl FileSink for PipelineSink {
         }
         // A database error is returned so the watcher offers the file again later; a bad
         // file is an outcome (recorded, quarantined), not an error.
-        match ing.ingest_file(path)? {
-            FileOutcome::Duplicate {
-                path, of_file_id, ..
-            } => {
-                tracing::info!(path = %path, of_file_id, "content ingested before; recorded as a duplicate")
-            }
-            FileOutcome::Rejected { path, error, .. } => {
-                tracing::warn!(path = %path, error = %error, "file rejected and quarantined")
-            }
-            FileOutcome::Ingested { .. } => {}
-        }
+        log_outcome(&ing.ingest_file(path)?);
         Ok(())
+    }
+
+    fn takes_files_together(&self) -> bool {
+        true
+    }
+
+    /// Files that settled together, stored in transactions of up to [`TOGETHER_BYTES`]
+    /// of content (each lot they touch refitted once per transaction); a database error
+    /// fails the files of its transaction only.
+    fn ingest_files(
+        &self,
+        files: &[(&WatchFolder, &Path)],
+    ) -> anyhow::Result<Vec<anyhow::Result<()>>> {
+        let mut ing = self
+            .ingestor
+            .lock()
+            .map_err(|_| anyhow::anyhow!("the ingestor was poisoned by an earlier panic"))?;
+        let mut results: Vec<anyhow::Result<()>> = Vec::with_capacity(files.len());
+        let mut group: Vec<std::path::PathBuf> = Vec::new();
+        let mut bytes = 0u64;
+        for (i, (_, path)) in files.iter().enumerate() {
+            if ing.skip_unchanged && ing.unchanged_since_recorded(path)? {
+                tracing::debug!(path = %path.display(), "unchanged since it was recorded; skipped");
+                // Stored files keep their order: flush what is pending first.
+                store_together(&mut ing, &mut group, &mut results);
+                results.push(Ok(()));
+                bytes = 0;
+                continue;
+            }
+            group.push(path.to_path_buf());
+            bytes += std::fs::metadata(path).map_or(0, |m| m.len());
+            if bytes >= TOGETHER_BYTES || i + 1 == files.len() {
+                store_together(&mut ing, &mut group, &mut results);
+                bytes = 0;
+            }
+        }
+        Ok(results)
     }
 
     /// An entry the watcher does not offer (a link leading out of the folder, a named
@@ -90,6 +136,41 @@ impl FileSink for PipelineSink {
         tracing::warn!(path = %path.display().to_string().escape_debug(),
             reason = %reason.escape_debug(), "entry not read; recorded as rejected");
         Ok(())
+    }
+
+    fn recorded(&self, files: &[(&Path, watch::Stamp)]) -> anyhow::Result<Vec<bool>> {
+        let ing = self
+            .ingestor
+            .lock()
+            .map_err(|_| anyhow::anyhow!("the ingestor was poisoned by an earlier panic"))?;
+        let versions: Vec<(&Path, u64, Option<std::time::SystemTime>)> = files
+            .iter()
+            .map(|(p, s)| (*p, s.size, s.modified))
+            .collect();
+        Ok(ing.recorded_versions(&versions)?)
+    }
+}
+
+/// Store `group` (if any) in one transaction, adding each file's result, and empty it.
+fn store_together(
+    ing: &mut Ingestor,
+    group: &mut Vec<std::path::PathBuf>,
+    results: &mut Vec<anyhow::Result<()>>,
+) {
+    if group.is_empty() {
+        return;
+    }
+    let stored = ing.ingest_together(group);
+    let group = std::mem::take(group);
+    match stored {
+        Ok(outcomes) => {
+            outcomes.iter().for_each(log_outcome);
+            results.extend(group.iter().map(|_| Ok(())));
+        }
+        Err(e) => {
+            let e = anyhow::Error::from(e);
+            results.extend(group.iter().map(|_| Err(anyhow::anyhow!("{e:#}"))));
+        }
     }
 }
 
@@ -254,13 +335,12 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
     let mut lots = Vec::new();
     let mut pending_lots = 0;
     let signoffs = super::signoffs::sign_off_states(&conn)?;
-    for lot in store::lots::lot_names(&conn)? {
-        let state = super::lots::lot_state(&conn, cfg, &lot)?;
+    for (lot, snap) in current_snapshots(&conn, cfg)? {
         let signoff = signoffs.get(&lot).map(|s| match &s.by {
             Some(m) => format!("{} ({})", s.state.as_str(), m.signer_or_unnamed()),
             None => s.state.as_str().to_string(),
         });
-        match super::alerts::snapshot(cfg, &state) {
+        match snap {
             Some(snap) => lots.push(digest::DigestLot { snap, signoff }),
             None => pending_lots += 1,
         }
@@ -286,6 +366,47 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
     outbox::enqueue_message(&tx, &key, &msg, &format_ts(now))?;
     tx.commit().map_err(store::StoreError::from)?;
     Ok(msg.subject)
+}
+
+/// Every lot's alert-rules snapshot as it stands (None for a lot nobody registered):
+/// stored by the lot's last recompute, computed here only where no usable one is stored
+/// (as `lots` reads its lines). Dates are worked out as of today.
+fn current_snapshots(
+    conn: &store::Connection,
+    cfg: &Config,
+) -> store::Result<Vec<(String, Option<crate::alert::LotSnapshot>)>> {
+    let mut stored = store::lots::current_states(
+        conn,
+        (crate::fit::ENGINE_VERSION, &cfg.analysis_fingerprint()),
+        store::lots::StatePart::Snapshot,
+    )?;
+    let today = super::lots::today(cfg);
+    let mut out = Vec::new();
+    for lot in store::lots::lot_names(conn)? {
+        let kept = match stored.remove(&lot) {
+            Some(None) => Some(None),
+            Some(Some(json)) => serde_json::from_str::<crate::alert::LotSnapshot>(&json)
+                .ok()
+                .map(Some),
+            None => None,
+        };
+        let snap = match kept {
+            Some(mut snap) => {
+                if let Some(d) = snap
+                    .as_mut()
+                    .and_then(|s| s.forecast.as_mut())
+                    .and_then(|f| f.dates.as_mut())
+                    .filter(|d| d.as_of.is_some())
+                {
+                    d.as_of = Some(today.clone());
+                }
+                snap
+            }
+            None => super::alerts::snapshot(cfg, &super::lots::lot_state(conn, cfg, &lot)?),
+        };
+        out.push((lot, snap));
+    }
+    Ok(out)
 }
 
 /// Queue a digest at every slot of the configured schedule until shutdown.

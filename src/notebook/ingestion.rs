@@ -157,6 +157,9 @@ struct Prepared {
     result: Result<ParsedFile, String>,
 }
 
+/// File versions the start-up's check of recorded files takes at a time.
+const RECORDED_SLICE: usize = 8192;
+
 /// Owns the database connection and the configuration; one per process (one writer).
 pub struct Ingestor {
     conn: Connection,
@@ -253,6 +256,27 @@ impl Ingestor {
         )
     }
 
+    /// For each file version (path, size, modification time), whether it was recorded
+    /// before exactly so (the service's start-up scan leaves those out).
+    pub fn recorded_versions(
+        &self,
+        files: &[(&Path, u64, Option<std::time::SystemTime>)],
+    ) -> Result<Vec<bool>, StoreError> {
+        // In slices: an idle service keeps the high-water mark of its memory, and the
+        // start-up's listing of a decade's files is already most of it.
+        let mut known = Vec::with_capacity(files.len());
+        for slice in files.chunks(RECORDED_SLICE) {
+            let versions: Vec<(String, i64, Option<String>)> = slice
+                .iter()
+                .map(|(path, size, modified)| {
+                    (recorded_path(path), *size as i64, modified.map(mtime_text))
+                })
+                .collect();
+            known.extend(bulk::recorded_among(&self.conn, &versions)?);
+        }
+        Ok(known)
+    }
+
     /// Record entries that are not read (see the `listing` module) as rejected files, in one
     /// transaction: no content is read or copied into quarantine, and each raises the
     /// quarantine alert like any rejected file.
@@ -312,6 +336,15 @@ impl Ingestor {
         self.publish_head();
         out.pop()
             .ok_or_else(|| StoreError::Invalid("no outcome for the file".into()))
+    }
+
+    /// Ingest files that arrived together in one transaction (the service, when files
+    /// settle while it is busy): their records, each touched lot's refit and alerts
+    /// commit together, so a burst for one lot refits it once.
+    pub fn ingest_together(&mut self, paths: &[PathBuf]) -> Result<Vec<FileOutcome>, StoreError> {
+        let out = self.ingest_group(paths)?;
+        self.publish_head();
+        Ok(out)
     }
 
     /// Ingest files in groups of `files_per_transaction`, calling `progress` after each file.
@@ -427,12 +460,12 @@ impl Ingestor {
         let tx = store::immediate(&mut self.conn)?;
         // With no other writer since the run began, the newest event of each lot is
         // the newest this run wrote for it, and need not be looked up.
-        if start_version.is_some() && bulk::data_version(&tx).ok() == start_version {
-            crate::notebook::recompute::recompute_lots_after(&tx, &self.cfg, &touched)?;
-        } else {
-            let lots = touched.into_keys().collect();
-            crate::notebook::recompute::recompute_lots(&tx, &self.cfg, &lots, &self.actor)?;
-        }
+        let known = start_version.is_some() && bulk::data_version(&tx).ok() == start_version;
+        let lots = touched
+            .into_iter()
+            .map(|(lot, after)| (lot, known.then_some(after)))
+            .collect();
+        crate::notebook::recompute::recompute_backfill(&tx, &self.cfg, &lots)?;
         tx.commit()?;
         Ok(())
     }
@@ -768,10 +801,7 @@ impl<'a> Writer<'a> {
         }
         w.finish()?;
         close_notices(&tx, self.cfg, &outcomes)?;
-        if recompute {
-            // Under the write lock, this group's events are the newest of their lots.
-            crate::notebook::recompute::recompute_lots_after(&tx, self.cfg, &touched)?;
-        }
+        recompute_or_list(&tx, self.cfg, &touched, recompute)?;
         tx.commit()?;
         self.committed += 1;
         self.recent.push_back(in_group);
@@ -780,6 +810,24 @@ impl<'a> Writer<'a> {
         }
         log_ingested(&outcomes);
         Ok((outcomes, touched))
+    }
+}
+
+/// Recompute the lots a group touched in its transaction, or (a backfill's group, whose
+/// lots are recomputed after its last group) list them in it: a crash before the closing
+/// recompute leaves the list for the next open, which need look at nothing else.
+fn recompute_or_list(
+    tx: &store::Transaction<'_>,
+    cfg: &Config,
+    touched: &BTreeMap<String, i64>,
+    recompute: bool,
+) -> Result<(), StoreError> {
+    if recompute {
+        // Under the write lock, this group's events are the newest of their lots.
+        let lots = touched.iter().map(|(l, a)| (l.clone(), Some(*a))).collect();
+        crate::notebook::recompute::recompute_backfill(tx, cfg, &lots)
+    } else {
+        store::lots::mark_to_recompute(tx, touched.keys().map(String::as_str))
     }
 }
 
@@ -1146,9 +1194,12 @@ fn sha256_file(path: &Path) -> std::io::Result<String> {
 
 /// A file's modification time as stored.
 fn stored_mtime(meta: &std::fs::Metadata) -> Option<String> {
-    meta.modified()
-        .ok()
-        .map(|t| crate::model::time::format_ts(chrono::DateTime::<chrono::Utc>::from(t)))
+    meta.modified().ok().map(mtime_text)
+}
+
+/// A modification time as `source_files.mtime` stores it.
+fn mtime_text(t: std::time::SystemTime) -> String {
+    crate::model::time::format_ts(chrono::DateTime::<chrono::Utc>::from(t))
 }
 
 /// Copy each file that could not be read into quarantine; its copy's name, per file.

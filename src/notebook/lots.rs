@@ -464,17 +464,56 @@ fn attention_from(a: &LotAnalysis) -> Vec<String> {
 /// Lots that need someone's attention, one line each.
 pub fn lots_needing_attention(conn: &Connection, cfg: &Config) -> Result<Vec<String>> {
     let mut out = Vec::new();
-    for lot in store::lots::lot_names(conn)? {
-        let s = lot_state(conn, cfg, &lot)?;
-        for a in s.attention {
-            out.push(format!("{lot}: {a}"));
+    for line in current_lines(conn, cfg)? {
+        for a in line.attention {
+            out.push(format!("{}: {a}", line.lot));
         }
     }
     Ok(out)
 }
 
+/// Every lot's line as it stands: the state the last recompute of each lot stored (read,
+/// not rebuilt), computed here only for a lot with no usable stored state (made by
+/// another engine version or under other settings, or waiting for a recompute). The
+/// sign-off is left for the caller. Dates are worked out as of today.
+fn current_lines(conn: &Connection, cfg: &Config) -> Result<Vec<LotLine>> {
+    let mut stored = store::lots::current_states(
+        conn,
+        (fit::ENGINE_VERSION, &cfg.analysis_fingerprint()),
+        store::lots::StatePart::Line,
+    )?;
+    let today = today(cfg);
+    let mut lines = Vec::new();
+    for lot in store::lots::lot_names(conn)? {
+        let kept = stored
+            .remove(&lot)
+            .flatten()
+            .and_then(|json| serde_json::from_str::<LotLine>(&json).ok());
+        let line = match kept {
+            Some(mut line) => {
+                if let Some(serde_json::Value::Object(f)) = line.forecast.as_mut()
+                    && f.contains_key("as_of")
+                {
+                    f.insert("as_of".into(), serde_json::Value::String(today.clone()));
+                }
+                line
+            }
+            None => lot_line(&lot_state(conn, cfg, &lot)?),
+        };
+        lines.push(line);
+    }
+    Ok(lines)
+}
+
+/// The plant-local date of today, as forecasts' dates are worked out on.
+pub(crate) fn today(cfg: &Config) -> String {
+    crate::model::calendar::local_date(cfg.zone(), chrono::Utc::now())
+        .format("%Y-%m-%d")
+        .to_string()
+}
+
 /// One line of `lots --json`.
-#[derive(Debug, Serialize)]
+#[derive(Debug, Serialize, serde::Deserialize)]
 pub struct LotLine {
     pub lot: String,
     pub registered: bool,
@@ -498,7 +537,7 @@ pub struct LotLine {
     pub signoff: crate::model::signoff::SignOffState,
 }
 
-fn lot_line(s: &LotState) -> LotLine {
+pub(crate) fn lot_line(s: &LotState) -> LotLine {
     let mut flags: BTreeSet<String> = BTreeSet::new();
     for c in &s.cycles {
         flags.extend(c.flags.iter().cloned());
@@ -540,14 +579,12 @@ fn lot_line(s: &LotState) -> LotLine {
 /// The lines of `turnbook lots`, one per lot with a registration or cycles.
 pub fn lot_lines(cfg: &Config) -> NResult<Vec<LotLine>> {
     let conn = store::open(&cfg.database_path())?;
-    let mut lines = Vec::new();
+    let mut lines = current_lines(&conn, cfg)?;
     let mut signoffs = super::signoffs::sign_off_states(&conn)?;
-    for lot in store::lots::lot_names(&conn)? {
-        let mut line = lot_line(&lot_state(&conn, cfg, &lot)?);
-        if let Some(s) = signoffs.remove(&lot) {
+    for line in &mut lines {
+        if let Some(s) = signoffs.remove(&line.lot) {
             line.signoff = s;
         }
-        lines.push(line);
     }
     Ok(lines)
 }

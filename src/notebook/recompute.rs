@@ -1,18 +1,19 @@
 //! Recomputing lots when their records change: metrics, fits and alerts, stored in the
 //! caller's transaction.
 //!
-//! Single-file ingestion (the service) recomputes the touched lots in the same transaction
-//! as the records. A backfill recomputes once after its last group; if it is interrupted
-//! before that, [`recompute_stale`] heals it at the next start (a lot whose stored fit is
-//! older than its newest record is recomputed).
+//! The service recomputes the lots its files touched in the same transaction as their
+//! records (files that settled together share one). A backfill recomputes once after its last group; its groups list the
+//! lots they touched (`lots_to_recompute`), so if it is interrupted before that,
+//! [`recompute_stale`] heals it at the next start from that list alone. Each recompute
+//! also keeps the lot's state (its `lots` line) current, for the reads.
 
 use std::collections::{BTreeMap, BTreeSet};
 
-use super::lots::{basis, lot_state};
+use super::lots::{LotState, lot_line, lot_state};
 use crate::config::Config;
 use crate::fit;
 use crate::model::time::now_utc;
-use crate::store::{self, Connection, Result, Transaction, records};
+use crate::store::{self, Connection, Result, Transaction};
 
 /// Recompute metrics, fits and alerts of the given lots, in the caller's transaction.
 pub fn recompute_lots(
@@ -22,7 +23,14 @@ pub fn recompute_lots(
     _actor: &str,
 ) -> Result<()> {
     for lot in lots {
-        recompute_lot(tx, cfg, lot, store::lots::newest_seq_of(tx, lot)?, None)?;
+        recompute_lot(
+            tx,
+            cfg,
+            lot,
+            store::lots::newest_seq_of(tx, lot)?,
+            None,
+            Raise::Always,
+        )?;
     }
     Ok(())
 }
@@ -44,49 +52,81 @@ pub fn recompute_lots_because(
             lot,
             store::lots::newest_seq_of(tx, lot)?,
             Some(cause),
+            Raise::Always,
         )?;
     }
     Ok(())
 }
 
-/// [`recompute_lots`] for lots whose newest event the caller knows (it wrote them under the
-/// write lock, with no other writer since): the lookup of each lot's newest event reads a
-/// provenance row per cycle of the lot, the larger part of a backfill's closing recompute.
-pub fn recompute_lots_after(
+/// Whether a recompute raises the alerts of the state it computes.
+#[derive(Debug, Clone, Copy)]
+enum Raise {
+    /// A person's entry (registration, correction, exclusion): always raised.
+    Always,
+    /// Records from files: only lots whose newest batch started at or after this time
+    /// raise alerts; older ones are history (see [`recompute_backfill`]). `None`: every
+    /// lot.
+    CurrentFrom(Option<chrono::NaiveDateTime>),
+}
+
+/// The recompute of lots that files touched (a backfill after its last group, the
+/// service after each transaction), each with the newest event written for it (`None`:
+/// looked up). Files may bring history rather than news: a lot whose newest batch started
+/// more than `alerts.backfill_history_days` before the newest batch the store records is
+/// history. Its fit and state are stored and shown like any lot's, its alerts are not
+/// raised (no mail for a lot finished years ago); a newer batch of it raises them as usual,
+/// and so does a person's entry.
+pub fn recompute_backfill(
     tx: &Transaction<'_>,
     cfg: &Config,
-    lots: &BTreeMap<String, i64>,
+    lots: &BTreeMap<String, Option<i64>>,
 ) -> Result<()> {
+    let newest = store::lots::newest_batch_start(tx)?;
+    let from = newest
+        .as_deref()
+        .and_then(crate::model::time::parse_local)
+        .and_then(|t| {
+            let days = cfg.alerts.backfill_history_days;
+            (days.is_finite() && days >= 0.0)
+                .then(|| t - chrono::Duration::seconds((days * 86_400.0) as i64))
+        });
     for (lot, after) in lots {
-        recompute_lot(tx, cfg, lot, *after, None)?;
+        let after = match after {
+            Some(a) => *a,
+            None => store::lots::newest_seq_of(tx, lot)?,
+        };
+        recompute_lot(tx, cfg, lot, after, None, Raise::CurrentFrom(from))?;
     }
     Ok(())
 }
 
-/// Recompute one lot whose records go up to event `after`.
+/// The start of a lot's newest batch, when every start it records can be read.
+fn newest_start(state: &LotState) -> Option<chrono::NaiveDateTime> {
+    state
+        .cycles
+        .iter()
+        .filter_map(|c| c.view.started_at.as_deref())
+        .map(crate::model::time::parse_local)
+        .try_fold(None, |acc: Option<chrono::NaiveDateTime>, t| {
+            let t = t?;
+            Some(Some(acc.map_or(t, |a| a.max(t))))
+        })
+        .flatten()
+}
+
+/// Recompute one lot whose records go up to event `after`: its fit and its state are
+/// stored, and the alerts of that state raised as `raise` says.
 fn recompute_lot(
     tx: &Transaction<'_>,
     cfg: &Config,
     lot: &str,
     after: i64,
     cause: Option<&str>,
+    raise: Raise,
 ) -> Result<()> {
-    if records::lot(tx, lot)?.is_none() {
-        // Pending (nobody registered the lot): nothing to fit and no alert to raise;
-        // the empty fit still records what the lot's records were when looked at.
-        store::lots::store_fit(
-            tx,
-            lot,
-            after,
-            &basis(cfg),
-            None,
-            "null",
-            (fit::ENGINE_VERSION, &cfg.analysis_fingerprint()),
-            &now_utc(),
-        )?;
-        return Ok(());
-    }
     let state = lot_state(tx, cfg, lot)?;
+    let fingerprint = cfg.analysis_fingerprint();
+    let now = now_utc();
     let json = match &state.analysis {
         Some(a) => serde_json::to_string(a)?,
         None => "null".into(),
@@ -96,6 +136,8 @@ fn recompute_lot(
         .as_ref()
         .and_then(|a| a.chosen)
         .map(|m| m.id());
+    // Pending (nobody registered the lot): nothing to fit and no alert to raise; the
+    // empty fit still records what the lot's records were when looked at.
     store::lots::store_fit(
         tx,
         lot,
@@ -103,34 +145,50 @@ fn recompute_lot(
         &state.basis,
         model,
         &json,
-        (fit::ENGINE_VERSION, &cfg.analysis_fingerprint()),
-        &now_utc(),
+        (fit::ENGINE_VERSION, &fingerprint),
+        &now,
     )?;
     super::export::store_figures(tx, &state, after)?;
-    super::alerts::raise(tx, cfg, &state, cause)?;
+    let line = serde_json::to_string(&lot_line(&state))?;
+    let snapshot = super::alerts::snapshot(cfg, &state)
+        .map(|s| serde_json::to_string(&s))
+        .transpose()?;
+    let made = store::lots::StateMade {
+        after_seq: after,
+        engine_version: fit::ENGINE_VERSION,
+        config_sha256: &fingerprint,
+    };
+    store::lots::store_state(tx, lot, made, &now, (&line, snapshot.as_deref()))?;
+    if state.record.is_none() {
+        return Ok(());
+    }
+    let current = match raise {
+        Raise::Always | Raise::CurrentFrom(None) => true,
+        Raise::CurrentFrom(Some(from)) => newest_start(&state).is_none_or(|t| t >= from),
+    };
+    if current {
+        super::alerts::raise(tx, cfg, &state, cause)?;
+    } else {
+        tracing::debug!(lot, "backfilled history: state stored, no alert raised");
+    }
     Ok(())
 }
 
-/// Lots whose stored fit is older than their newest record (an interrupted backfill).
+/// Lots whose records changed with no recompute since (an interrupted backfill): the
+/// groups of a backfill list the lots they touch, and the recompute takes them off.
 pub fn stale_lots(conn: &Connection) -> Result<BTreeSet<String>> {
-    let mut out = BTreeSet::new();
-    for lot in store::lots::lot_names(conn)? {
-        let fitted = store::lots::fitted_after(conn, &lot)?;
-        if fitted.is_none_or(|f| f < store::lots::newest_seq_of(conn, &lot).unwrap_or(0)) {
-            out.insert(lot);
-        }
-    }
-    Ok(out)
+    store::lots::lots_to_recompute(conn)
 }
 
 /// Recompute every stale lot in one transaction.
-pub fn recompute_stale(conn: &mut Connection, cfg: &Config, actor: &str) -> Result<usize> {
+pub fn recompute_stale(conn: &mut Connection, cfg: &Config, _actor: &str) -> Result<usize> {
     let stale = stale_lots(conn)?;
     if stale.is_empty() {
         return Ok(0);
     }
     let tx = store::immediate(conn)?;
-    recompute_lots(&tx, cfg, &stale, actor)?;
+    let lots = stale.into_iter().map(|l| (l, None)).collect();
+    recompute_backfill(&tx, cfg, &lots)?;
     tx.commit()?;
-    Ok(stale.len())
+    Ok(lots.len())
 }

@@ -133,3 +133,38 @@ pub fn recorded_unchanged(
         .query_row(rusqlite::params![path, size, mtime], |r| r.get(0))?;
     Ok(n > 0)
 }
+
+/// For each file version (path, size, mtime as stored), whether a row records exactly it:
+/// one pass over the recorded files in path order, merged with the versions sorted by
+/// path, so that a start-up with tens of thousands of files costs one index walk rather
+/// than a query each, and holds nothing of the table in memory.
+pub fn recorded_among(
+    conn: &Connection,
+    versions: &[(String, i64, Option<String>)],
+) -> Result<Vec<bool>> {
+    let mut order: Vec<usize> = (0..versions.len()).collect();
+    order.sort_by(|a, b| versions[*a].0.cmp(&versions[*b].0));
+    let mut known = vec![false; versions.len()];
+    let mut stmt = conn.prepare("SELECT path, size, mtime FROM source_files ORDER BY path")?;
+    let mut rows = stmt.query([])?;
+    let mut i = 0;
+    while let Some(row) = rows.next()? {
+        let path: String = row.get(0)?;
+        while i < order.len() && versions[order[i]].0 < path {
+            i += 1;
+        }
+        if i == order.len() {
+            break;
+        }
+        let (size, mtime): (i64, Option<String>) = (row.get(1)?, row.get(2)?);
+        let mut j = i;
+        while j < order.len() && versions[order[j]].0 == path {
+            let v = &versions[order[j]];
+            if v.1 == size && v.2 == mtime {
+                known[order[j]] = true;
+            }
+            j += 1;
+        }
+    }
+    Ok(known)
+}

@@ -318,3 +318,104 @@ pub fn stored_ranking(
         .optional()?
         .and_then(|(r, n)| r.zip(n)))
 }
+
+/// Note lots whose records a transaction changed without recomputing them (a backfill's
+/// groups): the closing recompute, or the next open after a crash, takes them from here.
+pub fn mark_to_recompute<'a>(
+    tx: &Transaction<'_>,
+    lots: impl IntoIterator<Item = &'a str>,
+) -> Result<()> {
+    let mut stmt = tx.prepare_cached("INSERT OR IGNORE INTO lots_to_recompute(lot) VALUES (?1)")?;
+    for lot in lots {
+        stmt.execute([lot])?;
+    }
+    Ok(())
+}
+
+/// Lots whose records changed with no recompute since (see [`mark_to_recompute`]).
+pub fn lots_to_recompute(conn: &Connection) -> Result<std::collections::BTreeSet<String>> {
+    let mut stmt = conn.prepare_cached("SELECT lot FROM lots_to_recompute")?;
+    let rows = stmt
+        .query_map([], |r| r.get(0))?
+        .collect::<std::result::Result<_, _>>()?;
+    Ok(rows)
+}
+
+/// What a stored lot state was computed by and from: the newest event it was made of,
+/// the engine version and the configuration's analysis fingerprint.
+#[derive(Debug, Clone, Copy)]
+pub struct StateMade<'a> {
+    pub after_seq: i64,
+    pub engine_version: &'a str,
+    pub config_sha256: &'a str,
+}
+
+/// Keep a lot's current state (its `lots` line and the alert rules' snapshot, as JSON),
+/// in the transaction that recomputed it; the lot is no longer waiting for a recompute.
+pub fn store_state(
+    tx: &Transaction<'_>,
+    lot: &str,
+    made: StateMade<'_>,
+    at: &str,
+    (line_json, snapshot_json): (&str, Option<&str>),
+) -> Result<()> {
+    tx.prepare_cached(
+        "INSERT OR REPLACE INTO lot_states(lot, after_seq, engine_version, config_sha256,
+             computed_at, line, snapshot) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
+    )?
+    .execute(rusqlite::params![
+        lot,
+        made.after_seq,
+        made.engine_version,
+        made.config_sha256,
+        at,
+        line_json,
+        snapshot_json
+    ])?;
+    tx.prepare_cached("DELETE FROM lots_to_recompute WHERE lot = ?1")?
+        .execute([lot])?;
+    Ok(())
+}
+
+/// Which part of a stored state to read.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum StatePart {
+    /// The `lots` line.
+    Line,
+    /// The alert rules' snapshot (absent for a lot nobody registered).
+    Snapshot,
+}
+
+/// The stored states made by `engine_version` under `config_sha256`, by lot, leaving out
+/// lots waiting for a recompute (their stored state is older than their records).
+pub fn current_states(
+    conn: &Connection,
+    (engine_version, config_sha256): (&str, &str),
+    part: StatePart,
+) -> Result<HashMap<String, Option<String>>> {
+    let mut stmt = conn.prepare_cached(match part {
+        StatePart::Line => {
+            "SELECT s.lot, s.line FROM lot_states s
+         WHERE s.engine_version = ?1 AND s.config_sha256 = ?2
+           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = s.lot)"
+        }
+        StatePart::Snapshot => {
+            "SELECT s.lot, s.snapshot FROM lot_states s
+         WHERE s.engine_version = ?1 AND s.config_sha256 = ?2
+           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = s.lot)"
+        }
+    })?;
+    let rows = stmt
+        .query_map([engine_version, config_sha256], |r| {
+            Ok((r.get(0)?, r.get(1)?))
+        })?
+        .collect::<std::result::Result<_, _>>()?;
+    Ok(rows)
+}
+
+/// The newest batch start any cycle records (local time text as stored), if any.
+pub fn newest_batch_start(conn: &Connection) -> Result<Option<String>> {
+    Ok(conn
+        .prepare_cached("SELECT MAX(started_at) FROM cycles")?
+        .query_row([], |r| r.get(0))?)
+}

@@ -53,6 +53,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         include_str!("../../schema/0012_outbox_chain.sql"),
     ),
     (
+        13,
+        "lot_states",
+        include_str!("../../schema/0013_lot_states.sql"),
+    ),
+    (
         14,
         "plain_sqlite_and_figures",
         include_str!("../../schema/0014_plain_sqlite_and_figures.sql"),

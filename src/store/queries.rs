@@ -73,15 +73,18 @@ pub fn record_counts(conn: &Connection) -> Result<RecordCounts> {
 }
 
 /// Every event that concerns a lot: its registrations, the files that brought its cycles,
-/// corrections, exclusions, notes and sign-offs of its batches, in order.
+/// corrections, exclusions, notes and sign-offs of its batches, in order. Each part is an
+/// index lookup, so the time follows the lot's events, not the store's.
 pub fn lot_events(conn: &Connection, lot: &str) -> Result<Vec<StoredEvent>> {
     let mut stmt = conn.prepare(
         "SELECT e.seq, e.at, e.actor, e.kind, e.subject, e.payload, e.prev_hash, e.hash FROM events e
-         WHERE e.subject = ?1
-            OR e.subject IN (SELECT batch_id FROM cycles WHERE lot = ?1)
-            OR e.seq IN (SELECT b.event_seq FROM batch_sources b JOIN cycles c ON c.batch_id = b.batch_id WHERE c.lot = ?1)
-            OR (e.kind = 'file-ingested' AND EXISTS (
-                    SELECT 1 FROM json_each(e.payload, '$.lots') j WHERE json_extract(j.value, '$.lot') = ?1))
+         WHERE e.seq IN (
+             SELECT seq FROM events WHERE subject = ?1 AND kind <> 'file-ingested'
+             UNION SELECT x.seq FROM cycles c JOIN events x ON x.subject = c.batch_id
+                 AND x.kind <> 'file-ingested' WHERE c.lot = ?1
+             UNION SELECT b.event_seq FROM cycles c JOIN batch_sources b ON b.batch_id = c.batch_id
+                 WHERE c.lot = ?1
+             UNION SELECT event_seq FROM lot_registrations WHERE lot = ?1)
          ORDER BY e.seq",
     )?;
     let rows = stmt

@@ -872,6 +872,8 @@ fn upsert_lot(tx: &Transaction<'_>, l: &LotRecord, seq: i64) -> Result<()> {
         l.family,
         seq
     ])?;
+    tx.prepare_cached("INSERT OR IGNORE INTO lot_registrations(lot, event_seq) VALUES (?1, ?2)")?
+        .execute(params![l.lot, seq])?;
     Ok(())
 }
 
@@ -1059,10 +1061,28 @@ pub fn feed_lots_of_lot(
     conn: &rusqlite::Connection,
     lot: &str,
 ) -> Result<std::collections::BTreeMap<String, String>> {
+    // The `measurements` view would read every event of the store (SQLite does not push
+    // the lot into it): only the events that wrote rows of the lot's batches are read, and
+    // their rows taken apart as the view does. Corrections are not `observed` rows.
     let mut st = conn.prepare_cached(
-        "SELECT m.batch_id, m.text FROM measurements m JOIN cycles c ON c.batch_id = m.batch_id
-         WHERE c.lot = ?1 AND m.quantity = ?2 AND m.kind = 'observed' AND m.text IS NOT NULL
-         ORDER BY m.id",
+        "SELECT x.batch_id, x.text FROM (
+             SELECT CASE m.type WHEN 'array' THEN json_extract(m.value, '$[0]')
+                        ELSE json_extract(m.value, '$.id') END AS id,
+                    CASE m.type WHEN 'array' THEN json_extract(m.value, '$[1]')
+                        ELSE json_extract(m.value, '$.batch_id') END AS batch_id,
+                    CASE m.type WHEN 'array' THEN json_extract(m.value, '$[2]')
+                        ELSE json_extract(m.value, '$.quantity') END AS quantity,
+                    CASE m.type WHEN 'array' THEN json_extract(m.value, '$[4]')
+                        ELSE json_extract(m.value, '$.text') END AS text,
+                    CASE m.type WHEN 'array' THEN json_extract(m.value, '$[5]')
+                        ELSE json_extract(m.value, '$.kind') END AS kind
+             FROM (SELECT DISTINCT b.event_seq AS seq FROM cycles c
+                       JOIN batch_sources b ON b.batch_id = c.batch_id WHERE c.lot = ?1) s
+             JOIN events e ON e.seq = s.seq AND e.kind = 'file-ingested',
+                  json_each(e.payload, '$.measurements') m) x
+         WHERE x.quantity = ?2 AND x.kind = 'observed' AND x.text IS NOT NULL
+           AND x.batch_id IN (SELECT batch_id FROM cycles WHERE lot = ?1)
+         ORDER BY x.id",
     )?;
     let rows = st.query_map(params![lot, ATTR_FEED_LOT], |r| {
         Ok((r.get::<_, String>(0)?, r.get::<_, String>(1)?))

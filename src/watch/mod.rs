@@ -80,6 +80,36 @@ pub trait FileSink: Send + Sync + 'static {
     /// Called once, when every folder's start-up scan is done and every file it found has
     /// been handled (ingested, or failed and set aside for a retry): the service is ready.
     fn caught_up(&self) {}
+
+    /// True when [`FileSink::ingest_files`] stores files that settled together as one
+    /// unit of work; otherwise the watcher calls [`FileSink::ingest`] file by file (and
+    /// takes no further file once told to stop).
+    fn takes_files_together(&self) -> bool {
+        false
+    }
+
+    /// Ingests files that settled together, each with its own result, as [`ingest`] does
+    /// one (an `Err` of the whole call counts for each). The pipeline stores them in one
+    /// transaction and refits each lot they touch once; this default calls [`ingest`]
+    /// for each.
+    ///
+    /// [`ingest`]: FileSink::ingest
+    fn ingest_files(
+        &self,
+        files: &[(&WatchFolder, &Path)],
+    ) -> anyhow::Result<Vec<anyhow::Result<()>>> {
+        Ok(files
+            .iter()
+            .map(|(folder, path)| self.ingest(folder, path))
+            .collect())
+    }
+
+    /// For each file version (path, size and modification time), whether it was recorded
+    /// before exactly so: the start-up scan does not offer those. This default knows
+    /// none.
+    fn recorded(&self, files: &[(&Path, Stamp)]) -> anyhow::Result<Vec<bool>> {
+        Ok(vec![false; files.len()])
+    }
 }
 
 /// What the watcher did, returned when it stops.

@@ -22,7 +22,7 @@ use tokio::task::JoinHandle;
 use super::error::WatchError;
 use super::events::classify;
 use super::folder::{WatchFolder, WatchMode};
-use super::scan::{FileFound, Refused, Root, Skip};
+use super::scan::{FileFound, PollMemory, Refused, Root, Skip};
 use super::settle::{SettleTracker, Signal, Stamp, Verdict};
 use super::{FileSink, WatchStats};
 
@@ -100,7 +100,7 @@ pub async fn run(
             let folder = &folders[root.index];
             let every =
                 (folder.mode == WatchMode::Poll).then(|| Duration::from_secs(folder.poll_interval));
-            tokio::spawn(scanner(root.clone(), every, seen_tx.clone()))
+            tokio::spawn(scanner(root.clone(), every, seen_tx.clone(), sink.clone()))
         })
         .collect();
     for root in roots.iter() {
@@ -342,17 +342,40 @@ fn send_all(
 }
 
 /// Scans a folder once (catch-up), or every `every` in poll mode. Directory listing may
-/// block on a slow share, so it runs on the blocking pool.
-async fn scanner(root: Root, every: Option<Duration>, seen: mpsc::UnboundedSender<Seen>) {
+/// block on a slow share, so it runs on the blocking pool. Poll passes after the first
+/// send only what changed (see [`Root::scan_changes`]); the first leaves out files the
+/// sink recorded before with the same size and time, so a restart does not offer the
+/// whole folder again.
+async fn scanner(
+    root: Root,
+    every: Option<Duration>,
+    seen: mpsc::UnboundedSender<Seen>,
+    sink: Arc<dyn FileSink>,
+) {
     let root = Arc::new(root);
+    let mut memo = PollMemory::default();
+    let mut first = true;
     loop {
-        let scan_root = root.clone();
-        match tokio::task::spawn_blocking(move || scan_root.scan_all(&scan_root.canonical)).await {
-            Ok(files) => send_all(&seen, root.index, files),
-            Err(error) => {
-                tracing::error!(folder = %crate::logs::shown_path(&root.canonical), %error, "folder scan failed")
+        let (scan_root, scan_sink) = (root.clone(), sink.clone());
+        let pass = tokio::task::spawn_blocking(move || {
+            let (mut files, refused) = scan_root.scan_changes(&mut memo);
+            if first {
+                files = unrecorded(scan_sink.as_ref(), files);
             }
-        }
+            ((files, refused), memo)
+        })
+        .await;
+        memo = match pass {
+            Ok((files, memo)) => {
+                send_all(&seen, root.index, files);
+                first = false;
+                memo
+            }
+            Err(error) => {
+                tracing::error!(folder = %crate::logs::shown_path(&root.canonical), %error, "folder scan failed");
+                PollMemory::default()
+            }
+        };
         let _ = seen.send(Seen::Scanned(root.index));
         match every {
             Some(pause) if !seen.is_closed() => tokio::time::sleep(pause).await,
@@ -361,8 +384,41 @@ async fn scanner(root: Root, every: Option<Duration>, seen: mpsc::UnboundedSende
     }
 }
 
+/// The files the sink has not recorded with their present size and time (all of them
+/// when it cannot tell).
+fn unrecorded(sink: &dyn FileSink, files: Vec<FileFound>) -> Vec<FileFound> {
+    let versions: Vec<(&Path, Stamp)> = files.iter().map(|f| (f.path.as_path(), f.stamp)).collect();
+    match sink.recorded(&versions) {
+        Ok(known) if known.len() == files.len() => {
+            let before = files.len();
+            let left: Vec<FileFound> = files
+                .into_iter()
+                .zip(known)
+                .filter_map(|(f, k)| (!k).then_some(f))
+                .collect();
+            tracing::info!(
+                recorded = before - left.len(),
+                to_offer = left.len(),
+                "catch-up: files recorded before with the same size and time are not offered"
+            );
+            left
+        }
+        Ok(_) => files,
+        Err(error) => {
+            tracing::warn!(%error, "cannot tell which files were recorded; offering all");
+            files
+        }
+    }
+}
+
+/// Most settled files handed to the sink in one call (one transaction).
+const MOST_PER_CALL: usize = 200;
+
 /// The one thread that calls the sink, so the database has one writer and files are
-/// ingested in the order they settled.
+/// ingested in the order they settled. Files that settled while the sink was busy go to
+/// it together ([`FileSink::ingest_files`]): a burst for one lot is stored, and the lot
+/// refitted, once per call rather than once per file, so the worker keeps pace however
+/// long a refit takes.
 fn worker(
     jobs: std::sync::mpsc::Receiver<Job>,
     done: mpsc::UnboundedSender<Outcome>,
@@ -371,23 +427,102 @@ fn worker(
     stop: Arc<AtomicBool>,
 ) {
     while let Ok(job) = jobs.recv() {
+        let mut batch = vec![job];
+        while batch.len() < MOST_PER_CALL {
+            match jobs.try_recv() {
+                Ok(job) => batch.push(job),
+                Err(_) => break,
+            }
+        }
         if stop.load(Ordering::SeqCst) {
             break;
         }
-        let result = match folders.get(job.root) {
-            Some(folder) => match catch_unwind(AssertUnwindSafe(|| match &job.refusal {
-                Some(reason) => sink.refuse(folder, &job.path, reason),
-                None => sink.ingest(folder, &job.path),
-            })) {
-                Ok(Ok(())) => Ok(()),
-                Ok(Err(error)) => Err(crate::logs::anyhow_once(&error)),
-                Err(_) => Err("the ingestion code panicked".to_string()),
-            },
-            None => Err("file belongs to no configured folder".to_string()),
-        };
-        if done.send(Outcome { job, result }).is_err() {
-            break;
+        let (files, refusals): (Vec<Job>, Vec<Job>) =
+            batch.into_iter().partition(|j| j.refusal.is_none());
+        let mut outcomes: Vec<Outcome> = refusals
+            .into_iter()
+            .map(|job| {
+                let result = call_sink(&folders, job.root, || match &job.refusal {
+                    Some(reason) => sink.refuse(&folders[job.root], &job.path, reason),
+                    None => Ok(()),
+                });
+                Outcome { job, result }
+            })
+            .collect();
+        if sink.takes_files_together() {
+            outcomes.extend(ingest_jobs(sink.as_ref(), &folders, files));
+        } else {
+            for job in files {
+                if stop.load(Ordering::SeqCst) {
+                    break;
+                }
+                let result = call_sink(&folders, job.root, || {
+                    sink.ingest(&folders[job.root], &job.path)
+                });
+                outcomes.push(Outcome { job, result });
+            }
         }
+        for outcome in outcomes {
+            if done.send(outcome).is_err() {
+                return;
+            }
+        }
+    }
+}
+
+/// One sink call for `files`, each with its own result (the call's error for all when it
+/// fails as a whole or panics).
+fn ingest_jobs(sink: &dyn FileSink, folders: &[WatchFolder], files: Vec<Job>) -> Vec<Outcome> {
+    if files.is_empty() {
+        return Vec::new();
+    }
+    let (known, unknown): (Vec<Job>, Vec<Job>) =
+        files.into_iter().partition(|j| j.root < folders.len());
+    let mut out: Vec<Outcome> = unknown
+        .into_iter()
+        .map(|job| Outcome {
+            job,
+            result: Err("file belongs to no configured folder".to_string()),
+        })
+        .collect();
+    if known.is_empty() {
+        return out;
+    }
+    let calls: Vec<(&WatchFolder, &Path)> = known
+        .iter()
+        .map(|j| (&folders[j.root], j.path.as_path()))
+        .collect();
+    let results = match catch_unwind(AssertUnwindSafe(|| sink.ingest_files(&calls))) {
+        Ok(Ok(results)) if results.len() == known.len() => results
+            .into_iter()
+            .map(|r| r.map_err(|e| crate::logs::anyhow_once(&e)))
+            .collect(),
+        Ok(Ok(_)) => vec![Err("the sink gave no result for some files".to_string()); known.len()],
+        Ok(Err(error)) => vec![Err(crate::logs::anyhow_once(&error)); known.len()],
+        Err(_) => vec![Err("the ingestion code panicked".to_string()); known.len()],
+    };
+    out.extend(
+        known
+            .into_iter()
+            .zip(results)
+            .map(|(job, result)| Outcome { job, result }),
+    );
+    out
+}
+
+/// One sink call for a job of root `root`, its panic caught.
+fn call_sink(
+    folders: &[WatchFolder],
+    root: usize,
+    call: impl FnOnce() -> anyhow::Result<()>,
+) -> Result<(), String> {
+    if root >= folders.len() {
+        return Err("file belongs to no configured folder".to_string());
+    }
+    match catch_unwind(AssertUnwindSafe(call)) {
+        Ok(Ok(())) => Ok(()),
+        Ok(Err(error)) => Err(crate::logs::anyhow_once(&error)),
+        Err(_) => Err("the ingestion code panicked".to_string()),
     }
 }
 

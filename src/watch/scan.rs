@@ -11,9 +11,12 @@
 //! root, to a folder or to nothing; a named pipe, a socket, a device) is an entry to
 //! report: [`Root::refusal`] names what it is, and the watcher hands it on as refused.
 
+use std::collections::{HashMap, HashSet};
+use std::ffi::OsString;
 use std::fs;
 use std::io;
 use std::path::{Component, Path, PathBuf};
+use std::time::{Duration, SystemTime};
 
 use globset::GlobSet;
 
@@ -112,6 +115,43 @@ pub(crate) struct Refused {
     pub stamp: Stamp,
 }
 
+/// Every how many passes a poll folder is listed and looked at in full, whatever its
+/// directories' times say: the safety net for a file rewritten in place (which does not
+/// change its directory's time) and for file systems whose directory times lag.
+pub(crate) const FULL_PASS_EVERY: u64 = 30;
+
+/// How much older than its listing a directory's time must be to be trusted: a file
+/// added within the same tick of a coarse clock (one or two seconds on some file
+/// systems) would not change it.
+const TRUST_AFTER: Duration = Duration::from_secs(3);
+
+/// What a poll pass remembers of one directory.
+#[derive(Debug, Default)]
+struct DirMemo {
+    /// The directory's modification time when it was listed, kept only when old enough
+    /// to trust; `None`: list it again at the next pass.
+    mtime: Option<SystemTime>,
+    /// Each file's version as last seen, by name.
+    files: HashMap<OsString, Stamp>,
+    subdirs: Vec<PathBuf>,
+}
+
+/// A poll folder's memory across passes, so that a pass over an unchanged folder costs a
+/// look at each directory's time and nothing per file.
+#[derive(Debug, Default)]
+pub(crate) struct PollMemory {
+    dirs: HashMap<PathBuf, DirMemo>,
+    passes: u64,
+}
+
+impl PollMemory {
+    /// True when the next pass looks at everything (the first, then every
+    /// [`FULL_PASS_EVERY`]-th).
+    pub fn next_is_full(&self) -> bool {
+        self.passes.is_multiple_of(FULL_PASS_EVERY)
+    }
+}
+
 fn stamp_of(meta: &fs::Metadata) -> Stamp {
     Stamp {
         size: meta.len(),
@@ -181,6 +221,100 @@ impl Root {
         })
     }
 
+    /// [`Root::examine`] for an entry a directory listing of the walk from the canonical
+    /// root returned: the walk descends only real directories, so the path of a regular
+    /// file found there is already its resolved path and is not resolved again (that
+    /// lookup of every component was most of a poll pass's cost).
+    fn examine_listed(&self, path: &Path, kind: fs::FileType) -> Result<FileFound, Skip> {
+        if !kind.is_file() {
+            return self.examine(path);
+        }
+        if path.file_name().is_some_and(|n| self.ignored_name(n)) {
+            return Err(Skip::Ignored);
+        }
+        let meta = fs::symlink_metadata(path).map_err(io_skip)?;
+        if !meta.is_file() {
+            // Replaced since it was listed: the full rules decide.
+            return self.examine(path);
+        }
+        Ok(FileFound {
+            path: path.to_path_buf(),
+            key: path.to_path_buf(),
+            stamp: stamp_of(&meta),
+        })
+    }
+
+    /// One poll pass over the folder: the files to offer and the entries to report.
+    ///
+    /// A full pass (see [`PollMemory::next_is_full`]) lists every directory and returns
+    /// every file, as a scan of a folder never seen does. Other passes list only
+    /// directories whose modification time changed (or was too recent to trust) and
+    /// return only files new or changed since the pass that last listed them; a directory
+    /// whose time did not change holds the same names, so nothing below it is looked at.
+    pub fn scan_changes(&self, memo: &mut PollMemory) -> (Vec<FileFound>, Vec<Refused>) {
+        let full = memo.next_is_full();
+        memo.passes += 1;
+        let mut found = Vec::new();
+        let mut refused = Vec::new();
+        let mut walked: HashSet<PathBuf> = HashSet::new();
+        let mut stack = vec![self.canonical.clone()];
+        while let Some(dir) = stack.pop() {
+            let mtime = fs::metadata(&dir).ok().and_then(|m| m.modified().ok());
+            let kept = memo.dirs.get(&dir);
+            if !full && let Some(kept) = kept.filter(|k| k.mtime.is_some() && k.mtime == mtime) {
+                stack.extend(kept.subdirs.iter().cloned());
+                walked.insert(dir);
+                continue;
+            }
+            let old = memo.dirs.remove(&dir).unwrap_or_default();
+            let listed_at = SystemTime::now();
+            let entries = match fs::read_dir(&dir) {
+                Ok(entries) => entries,
+                Err(error) => {
+                    tracing::warn!(path = ?dir, %error, "cannot list folder");
+                    continue;
+                }
+            };
+            let mut memo_dir = DirMemo {
+                mtime: mtime.filter(|t| {
+                    listed_at
+                        .duration_since(*t)
+                        .is_ok_and(|age| age >= TRUST_AFTER)
+                }),
+                ..DirMemo::default()
+            };
+            for entry in entries.flatten() {
+                let path = entry.path();
+                let Ok(kind) = entry.file_type() else {
+                    continue;
+                };
+                if kind.is_dir() {
+                    if self.recursive && !self.ignored_name(&entry.file_name()) {
+                        memo_dir.subdirs.push(path.clone());
+                        stack.push(path);
+                    }
+                    continue;
+                }
+                match self.examine_listed(&path, kind) {
+                    Ok(file) => {
+                        let name = entry.file_name();
+                        let changed = old.files.get(&name) != Some(&file.stamp);
+                        memo_dir.files.insert(name, file.stamp);
+                        if full || changed {
+                            found.push(file);
+                        }
+                    }
+                    Err(skip) => refused.extend(self.refused_entry(&path, skip)),
+                }
+            }
+            memo.dirs.insert(dir.clone(), memo_dir);
+            walked.insert(dir);
+        }
+        memo.dirs.retain(|d, _| walked.contains(d));
+        sort_found(&mut found, &mut refused);
+        (found, refused)
+    }
+
     /// Why the entry at `path`, which [`Root::examine`] skipped for `skip`, is refused: a
     /// reason to record for what must be reported, `None` for what is rightly passed over
     /// (ignored names, folders, files gone or outside the root, deeper than watched).
@@ -245,13 +379,7 @@ impl Root {
                 }
             }
         }
-        found.sort_by(|a, b| {
-            a.stamp
-                .modified
-                .cmp(&b.stamp.modified)
-                .then_with(|| a.path.cmp(&b.path))
-        });
-        refused.sort_by(|a, b| a.path.cmp(&b.path));
+        sort_found(&mut found, &mut refused);
         (found, refused)
     }
 
@@ -282,6 +410,18 @@ impl Root {
             }
         }
     }
+}
+
+/// Oldest modification first, so that a catch-up offers files roughly in the order they
+/// landed; refused entries by path.
+fn sort_found(found: &mut [FileFound], refused: &mut [Refused]) {
+    found.sort_by(|a, b| {
+        a.stamp
+            .modified
+            .cmp(&b.stamp.modified)
+            .then_with(|| a.path.cmp(&b.path))
+    });
+    refused.sort_by(|a, b| a.path.cmp(&b.path));
 }
 
 fn io_skip(error: io::Error) -> Skip {
@@ -341,6 +481,66 @@ mod tests {
             Err(Skip::Ignored)
         );
         assert!(r.scan(&r.canonical).is_empty());
+    }
+
+    /// Set a directory's modification time an hour back (old enough to be trusted).
+    fn age(dir: &Path) {
+        let hour_ago = SystemTime::now() - Duration::from_secs(3600);
+        fs::File::open(dir).unwrap().set_modified(hour_ago).unwrap();
+    }
+
+    fn names(found: &[FileFound]) -> Vec<String> {
+        let mut v: Vec<String> = found
+            .iter()
+            .map(|f| f.path.file_name().unwrap().to_string_lossy().into_owned())
+            .collect();
+        v.sort();
+        v
+    }
+
+    #[test]
+    fn poll_passes_look_only_at_changed_directories() {
+        let tmp = tempfile::tempdir().unwrap();
+        let r = root(tmp.path(), true);
+        fs::create_dir(r.canonical.join("sub")).unwrap();
+        fs::write(r.canonical.join("a.csv"), b"1").unwrap();
+        fs::write(r.canonical.join("sub/c.csv"), b"1").unwrap();
+        let mut memo = PollMemory::default();
+        // The first pass sees everything, as a scan does; keys are the resolved paths.
+        let (first, _) = r.scan_changes(&mut memo);
+        assert_eq!(names(&first), ["a.csv", "c.csv"]);
+        assert_eq!(first, r.scan(&r.canonical));
+        // Directories changed just now are not trusted yet: listed again, nothing new.
+        let (again, _) = r.scan_changes(&mut memo);
+        assert!(again.is_empty(), "{again:?}");
+        age(&r.canonical);
+        age(&r.canonical.join("sub"));
+        r.scan_changes(&mut memo);
+        // A file rewritten in place leaves its directory's time alone: a quick pass does
+        // not look, a full pass does.
+        fs::write(r.canonical.join("a.csv"), b"22").unwrap();
+        let (quick, _) = r.scan_changes(&mut memo);
+        assert!(
+            quick.is_empty(),
+            "an unchanged directory is not read: {quick:?}"
+        );
+        // A new file changes its directory's time: found at the next pass, alone.
+        fs::write(r.canonical.join("sub/d.csv"), b"1").unwrap();
+        let (added, _) = r.scan_changes(&mut memo);
+        assert_eq!(names(&added), ["d.csv"]);
+        while !memo.next_is_full() {
+            r.scan_changes(&mut memo);
+        }
+        let (full, _) = r.scan_changes(&mut memo);
+        assert_eq!(names(&full), ["a.csv", "c.csv", "d.csv"]);
+        let a = full.iter().find(|f| f.path.ends_with("a.csv")).unwrap();
+        assert_eq!(a.stamp.size, 2, "the full pass sees the rewrite");
+        // A removed directory is forgotten.
+        fs::remove_file(r.canonical.join("sub/c.csv")).unwrap();
+        fs::remove_file(r.canonical.join("sub/d.csv")).unwrap();
+        fs::remove_dir(r.canonical.join("sub")).unwrap();
+        r.scan_changes(&mut memo);
+        assert!(!memo.dirs.contains_key(&r.canonical.join("sub")));
     }
 
     #[test]

@@ -50,6 +50,7 @@ columns.charged_mass = {{ header = "charged mass", unit = "from-header" }}
 path = "exports/batches"
 profile = "reactor"
 mode = "poll"
+recursive = true
 
 [[folders]]
 path = "exports/lots"

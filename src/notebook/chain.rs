@@ -62,7 +62,7 @@ fn key_for_writing(cfg: &Config, conn: &Connection) -> Result<ChainKey> {
 pub(crate) fn open_writer(cfg: &Config) -> Result<Connection> {
     let mut conn = store::open(&cfg.database_path())?;
     if let Some(site) = cfg.site_id() {
-        store::central::use_site(&conn, site);
+        store::site::use_site(&conn, site);
     }
     let key = key_for_writing(cfg, &conn)?;
     if store::events::keying(&conn)?.is_none() {

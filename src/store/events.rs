@@ -74,7 +74,7 @@ pub fn start_keying(tx: &Transaction<'_>, key: &ChainKey, at: &str, actor: &str)
                 rule: "HMAC-SHA-256 under the chain key".into(),
                 key_proof: proof.clone(),
             };
-            let body = super::central::stamp(tx, &canonical(&payload)?).into_owned();
+            let body = super::site::stamp(tx, &canonical(&payload)?).into_owned();
             let seq = h.seq + 1;
             let hash = link(None, &h.hash, seq, at, actor, KEYED_KIND, "chain", &body);
             tx.execute(
@@ -193,7 +193,7 @@ pub fn append_prepared(
                 .into(),
         ));
     }
-    let body = &*super::central::stamp(tx, body);
+    let body = &*super::site::stamp(tx, body);
     let hash = link(key.as_deref(), &prev, seq, at, actor, kind, subject, body);
     insert.execute(rusqlite::params![
         seq, at, actor, kind, subject, body, prev, hash

@@ -12,6 +12,7 @@ pub mod outbox;
 pub mod queries;
 pub mod records;
 pub mod replay;
+pub mod site;
 pub mod web;
 
 use std::path::Path;

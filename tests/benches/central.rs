@@ -88,7 +88,7 @@ fn main() {
 /// Write `n` events as a backfill of one-line exports would; the payload bytes in all.
 fn write_backlog(cfg: &turnbook::config::Config, key: ChainKey, n: i64) -> usize {
     let mut conn = turnbook::store::open(&cfg.database_path()).expect("the database");
-    turnbook::store::central::use_site(&conn, "bench");
+    turnbook::store::site::use_site(&conn, "bench");
     {
         let tx = turnbook::store::immediate(&mut conn).expect("a transaction");
         turnbook::store::events::start_keying(&tx, &key, "2026-01-01T00:00:00.000Z", "bench")

@@ -68,7 +68,45 @@ fn an_edited_fit_is_caught_and_changed_settings_are_not_tampering() {
         text.contains("table fits, row PD-C-2611-A, field analysis: stored forecast.x = "),
         "{text}"
     );
-    // Put back, then change the criterion in the configuration: the stored fits were made
+    // Put back; then someone shows the Pd lot as fresh in its stored `lots` line (what
+    // `lots`, `status` and the digest read without recomputing): a finding in lot_states.
+    db.execute(
+        "UPDATE fits SET analysis = ?1 WHERE id = ?2",
+        rusqlite::params![analysis, id],
+    )
+    .unwrap();
+    let line: String = db
+        .query_row(
+            "SELECT line FROM lot_states WHERE lot = 'PD-C-2611-A'",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    let mut l: serde_json::Value = serde_json::from_str(&line).unwrap();
+    assert!(
+        l["latest_activity"].as_f64().is_some_and(|a| a < 0.9),
+        "{l}"
+    );
+    l["latest_activity"] = serde_json::json!(0.99);
+    db.execute(
+        "UPDATE lot_states SET line = ?1 WHERE lot = 'PD-C-2611-A'",
+        rusqlite::params![l.to_string()],
+    )
+    .unwrap();
+    let (code, _, text) = verify(&dir);
+    assert_eq!(code, Some(1), "{text}");
+    assert!(
+        text.contains(
+            "table lot_states, row PD-C-2611-A, field line: stored latest_activity = 0.99"
+        ),
+        "{text}"
+    );
+    db.execute(
+        "UPDATE lot_states SET line = ?1 WHERE lot = 'PD-C-2611-A'",
+        rusqlite::params![line],
+    )
+    .unwrap();
+    // Then change the criterion in the configuration: the stored fits were made
     // under other settings; counted, not a finding.
     db.execute(
         "UPDATE fits SET analysis = ?1 WHERE id = ?2",

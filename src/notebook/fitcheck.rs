@@ -121,8 +121,36 @@ pub fn check_fits(conn: &Connection, cfg: &Config) -> Result<(FitCheck, Vec<Find
                 ));
             }
         }
+        findings.extend(check_line(conn, &state, f.after_seq, &fingerprint)?);
     }
     Ok((check, findings))
+}
+
+/// The lot's stored `lots` line (what `lots`, `status` and the digest show without
+/// recomputing) against the line recomputed from the records; a difference is a finding
+/// in table `lot_states`.
+fn check_line(
+    conn: &Connection,
+    state: &super::lots::LotState,
+    after_seq: i64,
+    fingerprint: &str,
+) -> Result<Option<Finding>> {
+    let key = (fit::ENGINE_VERSION, fingerprint);
+    let Some(json) = store::lots::stored_line(conn, &state.lot, after_seq, key)? else {
+        return Ok(None);
+    };
+    let mut stored = serde_json::from_str::<Value>(&json).unwrap_or(Value::Null);
+    let mut fresh =
+        serde_json::to_value(super::lots::lot_line(state)).map_err(store::StoreError::from)?;
+    strip(&mut stored);
+    strip(&mut fresh);
+    Ok(first_difference(&stored, &fresh, "").map(|path| Finding {
+        table: "lot_states".into(),
+        row: state.lot.clone(),
+        field: "line".into(),
+        stored: format!("{path} = {}", pick(&stored, &path)),
+        expected: format!("{} (recomputed from the records)", pick(&fresh, &path)),
+    }))
 }
 
 /// The value at a path such as `forecast.x` or `ranking[2].rss`, shortened for a line.

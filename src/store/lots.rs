@@ -377,6 +377,26 @@ pub fn store_state(
     Ok(())
 }
 
+/// A lot's stored `lots` line when it was made after event `after_seq` by `engine_version`
+/// under `config_sha256` (verify compares it with the line recomputed from the records).
+pub fn stored_line(
+    conn: &Connection,
+    lot: &str,
+    after_seq: i64,
+    (engine_version, config_sha256): (&str, &str),
+) -> Result<Option<String>> {
+    Ok(conn
+        .prepare_cached(
+            "SELECT line FROM lot_states WHERE lot = ?1 AND after_seq = ?2
+               AND engine_version = ?3 AND config_sha256 = ?4",
+        )?
+        .query_row(
+            rusqlite::params![lot, after_seq, engine_version, config_sha256],
+            |r| r.get(0),
+        )
+        .optional()?)
+}
+
 /// Which part of a stored state to read.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum StatePart {

@@ -106,6 +106,35 @@ fn an_edited_fit_is_caught_and_changed_settings_are_not_tampering() {
         rusqlite::params![line],
     )
     .unwrap();
+    // The figures the SQL views show: a cycle's activity raised in cycle_figures.
+    let (batch, activity): (String, f64) = db
+        .query_row(
+            "SELECT batch_id, activity FROM cycle_figures WHERE lot = 'PD-C-2611-A'
+             ORDER BY cycle_no DESC LIMIT 1",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .unwrap();
+    db.execute(
+        "UPDATE cycle_figures SET activity = 0.99 WHERE batch_id = ?1",
+        [&batch],
+    )
+    .unwrap();
+    let (code, _, text) = verify(&dir);
+    assert_eq!(code, Some(1), "{text}");
+    assert!(
+        text.contains(&format!(
+            "table cycle_figures, row {batch}, field activity: stored 0.99"
+        )),
+        "{text}"
+    );
+    db.execute(
+        "UPDATE cycle_figures SET activity = ?1 WHERE batch_id = ?2",
+        rusqlite::params![activity, batch],
+    )
+    .unwrap();
+    let (code, _, text) = verify(&dir);
+    assert_eq!(code, Some(0), "{text}");
     // Then change the criterion in the configuration: the stored fits were made
     // under other settings; counted, not a finding.
     db.execute(

@@ -122,6 +122,7 @@ pub fn check_fits(conn: &Connection, cfg: &Config) -> Result<(FitCheck, Vec<Find
             }
         }
         findings.extend(check_line(conn, &state, f.after_seq, &fingerprint)?);
+        findings.extend(check_figures(conn, &state, f.after_seq)?);
     }
     Ok((check, findings))
 }
@@ -151,6 +152,100 @@ fn check_line(
         stored: format!("{path} = {}", pick(&stored, &path)),
         expected: format!("{} (recomputed from the records)", pick(&fresh, &path)),
     }))
+}
+
+/// The lot's figures in `lot_figures` and `cycle_figures` (what the SQL views show)
+/// against the figures recomputed from the records: the first difference is a finding.
+fn check_figures(
+    conn: &Connection,
+    state: &super::lots::LotState,
+    after_seq: i64,
+) -> Result<Option<Finding>> {
+    let Some((lot, mut cycles)) = store::export::stored_figures(conn, &state.lot, after_seq)?
+    else {
+        return Ok(None);
+    };
+    let (fresh_lot, mut fresh_cycles) = super::export::figures_of(state);
+    let key = |c: &store::export::CycleFigures| (c.cycle_no, c.batch_id.clone());
+    cycles.sort_by_key(key);
+    fresh_cycles.sort_by_key(key);
+    if let Some((field, stored, expected)) = debug_difference(&lot, &fresh_lot) {
+        return Ok(Some(figure_finding(
+            "lot_figures",
+            &state.lot,
+            field,
+            stored,
+            expected,
+        )));
+    }
+    if cycles.len() != fresh_cycles.len() {
+        let (n, m) = (cycles.len(), fresh_cycles.len());
+        return Ok(Some(figure_finding(
+            "cycle_figures",
+            &state.lot,
+            "rows",
+            n.to_string(),
+            m.to_string(),
+        )));
+    }
+    for (c, f) in cycles.iter().zip(&fresh_cycles) {
+        if let Some((field, stored, expected)) = debug_difference(c, f) {
+            return Ok(Some(figure_finding(
+                "cycle_figures",
+                &c.batch_id,
+                field,
+                stored,
+                expected,
+            )));
+        }
+    }
+    Ok(None)
+}
+
+fn figure_finding(
+    table: &str,
+    row: &str,
+    field: impl Into<String>,
+    stored: String,
+    expected: String,
+) -> Finding {
+    Finding {
+        table: table.into(),
+        row: row.into(),
+        field: field.into(),
+        stored,
+        expected: format!("{expected} (recomputed from the records)"),
+    }
+}
+
+/// The first field whose value differs between two records of one type, read from their
+/// Debug forms ("name: value" pairs in declaration order).
+fn debug_difference<T: std::fmt::Debug + PartialEq>(
+    a: &T,
+    b: &T,
+) -> Option<(String, String, String)> {
+    if a == b {
+        return None;
+    }
+    let (da, db) = (format!("{a:#?}"), format!("{b:#?}"));
+    let mut field = "record";
+    for (x, y) in da.lines().zip(db.lines()) {
+        // Pretty Debug puts each field at four spaces: "    name: value" (a value such
+        // as Some(..) continues on deeper lines).
+        if let Some((name, _)) = x.strip_prefix("    ").and_then(|l| l.split_once(": "))
+            && !name.starts_with(' ')
+        {
+            field = name;
+        }
+        if x != y {
+            let value = |l: &str| {
+                let l = l.trim().trim_end_matches(',');
+                l.split_once(": ").map_or(l, |p| p.1).to_string()
+            };
+            return Some((field.to_string(), value(x), value(y)));
+        }
+    }
+    Some((field.to_string(), da, db))
 }
 
 /// The value at a path such as `forecast.x` or `ranking[2].rss`, shortened for a line.

@@ -132,6 +132,89 @@ pub fn store_figures(
     Ok(())
 }
 
+/// A lot's stored figures when they were computed after event `after_seq` (verify
+/// compares them with figures recomputed from the records); `None` when none were or
+/// they are older.
+pub fn stored_figures(
+    conn: &rusqlite::Connection,
+    lot: &str,
+    after_seq: i64,
+) -> Result<Option<(LotFigures, Vec<CycleFigures>)>> {
+    use rusqlite::OptionalExtension as _;
+    let figures = conn
+        .prepare_cached(
+            "SELECT state, model, latest_activity, cumulative_ton, forecast_status,
+                 crossing_cycle, crossing_cycle_lower, crossing_cycle_upper, crossing_date,
+                 crossing_date_early, crossing_date_late, order_by_date, next_batch_verdict,
+                 next_batch_activity, next_batch_activity_lower, abrupt_loss, flags, attention
+             FROM lot_figures WHERE lot = ?1 AND after_seq = ?2",
+        )?
+        .query_row(params![lot, after_seq], |r| {
+            let state: String = r.get(0)?;
+            Ok(LotFigures {
+                lot: lot.to_string(),
+                state: if state == "ok" {
+                    "ok"
+                } else if state == "attention" {
+                    "attention"
+                } else {
+                    "other"
+                },
+                model: r.get(1)?,
+                latest_activity: r.get(2)?,
+                cumulative_ton: r.get(3)?,
+                forecast_status: r.get(4)?,
+                crossing_cycle: r.get(5)?,
+                crossing_cycle_lower: r.get(6)?,
+                crossing_cycle_upper: r.get(7)?,
+                crossing_date: r.get(8)?,
+                crossing_date_early: r.get(9)?,
+                crossing_date_late: r.get(10)?,
+                order_by_date: r.get(11)?,
+                next_batch_verdict: r.get(12)?,
+                next_batch_activity: r.get(13)?,
+                next_batch_activity_lower: r.get(14)?,
+                abrupt_loss: r.get(15)?,
+                flags_json: r.get(16)?,
+                attention_json: r.get(17)?,
+            })
+        })
+        .optional()?;
+    let Some(figures) = figures else {
+        return Ok(None);
+    };
+    let mut st = conn.prepare_cached(
+        "SELECT batch_id, cycle_no, ton, ton_per_mol_metal_available, cumulative_ton,
+             tof_average_per_h, tof_initial_per_h, k_app_per_h, k_app_se_per_h, activity,
+             activity_se, activity_basis, metal_charged_mmol, metal_available_mmol,
+             catalyst_to_substrate_mol_per_mol, flags
+         FROM cycle_figures WHERE lot = ?1 ORDER BY cycle_no, batch_id",
+    )?;
+    let cycles = st
+        .query_map([lot], |r| {
+            Ok(CycleFigures {
+                batch_id: r.get(0)?,
+                cycle_no: r.get(1)?,
+                ton: r.get(2)?,
+                ton_per_mol_metal_available: r.get(3)?,
+                cumulative_ton: r.get(4)?,
+                tof_average_per_h: r.get(5)?,
+                tof_initial_per_h: r.get(6)?,
+                k_app_per_h: r.get(7)?,
+                k_app_se_per_h: r.get(8)?,
+                activity: r.get(9)?,
+                activity_se: r.get(10)?,
+                activity_basis: r.get(11)?,
+                metal_charged_mmol: r.get(12)?,
+                metal_available_mmol: r.get(13)?,
+                catalyst_to_substrate: r.get(14)?,
+                flags_json: r.get(15)?,
+            })
+        })?
+        .collect::<rusqlite::Result<Vec<_>>>()?;
+    Ok(Some((figures, cycles)))
+}
+
 /// Every batch id of `cycles`, for "did you mean" suggestions.
 pub fn batch_ids(conn: &rusqlite::Connection) -> Result<Vec<String>> {
     let mut st = conn.prepare("SELECT batch_id FROM cycles ORDER BY batch_id")?;

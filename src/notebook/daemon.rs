@@ -317,6 +317,8 @@ pub fn run_service_with(cfg: &Config, side: Vec<SideTask>) -> Result<watch::Watc
 
 /// Deliver what the outbox holds now, once, whatever the backoff of earlier failures.
 pub fn deliver_now(cfg: &Config) -> Result<DeliveryReport> {
+    // Each delivery outcome is an event: load the chain key for this database first.
+    drop(super::chain::open_writer(cfg)?);
     Ok(runtime()?.block_on(crate::mail::deliver_all_waiting(
         &cfg.database_path(),
         &cfg.resolved_mail(),
@@ -329,7 +331,8 @@ pub fn deliver_now(cfg: &Config) -> Result<DeliveryReport> {
 pub fn queue_digest(cfg: &Config) -> Result<String> {
     use crate::alert as digest;
     use crate::store::outbox;
-    let mut conn = store::open(&cfg.database_path())?;
+    // Queuing a message appends its event: open with the chain key loaded.
+    let mut conn = super::chain::open_writer(cfg)?;
     let now = chrono::Utc::now();
     let from = outbox::last_digest(&conn)?.unwrap_or_else(|| now - chrono::Duration::days(7));
     let mut lots = Vec::new();

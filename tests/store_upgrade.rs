@@ -1070,12 +1070,14 @@ fn the_rebuilt_file_table_keeps_its_rows_and_checks_without_a_temporary_index() 
         .unwrap()
         .collect::<Result<_, _>>()
         .unwrap();
-    // (0012 adds the index by event that verify reads each stretch of events' rows with.)
+    // (0012 adds the index by event that verify reads each stretch of events' rows with;
+    // 0013 the one by outcome and time that the time-window counts read.)
     assert_eq!(
         indexes,
         [
             "source_files_event",
             "source_files_ingested_once",
+            "source_files_outcome_seen",
             "source_files_path"
         ]
     );

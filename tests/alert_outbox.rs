@@ -420,6 +420,7 @@ fn digest_is_queued_once_per_period_and_kept_out_of_changes() {
         open: &open,
         period: &period,
         recipients: &["boss@example.org".into()],
+        resting: None,
     });
     // The lot's line says what changed in the period.
     assert!(

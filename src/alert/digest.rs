@@ -72,6 +72,30 @@ pub struct DigestInput<'a> {
     pub open: &'a [OpenAlert],
     pub period: &'a DigestPeriod,
     pub recipients: &'a [String],
+    /// Lots counted but not listed: no batch since the history cut-off, no open alert and
+    /// nothing changed in the period (`None`: every lot is listed).
+    pub resting: Option<RestingLots>,
+}
+
+/// Lots a digest counts without listing them: history, not news. A decade of a plant's
+/// lots in one message is not read in a minute.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RestingLots {
+    pub count: usize,
+    /// Their newest batch started before this date (plant time, `YYYY-MM-DD`).
+    pub before: String,
+}
+
+/// The headline's words for the lots counted but not listed (empty when there are none).
+fn resting_words(d: &DigestInput<'_>) -> String {
+    match &d.resting {
+        Some(r) if r.count > 0 => format!(
+            " {} more without a batch since {} and nothing open are not listed \
+             (`turnbook lots` shows every lot).",
+            r.count, r.before
+        ),
+        _ => String::new(),
+    }
 }
 
 /// The file-notice lot name (notices that belong to no lot).
@@ -323,7 +347,7 @@ pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
             "Catalyst digest {} to {}: {crit} critical, {warn} warning; {} lots{}",
             day(period.from),
             day(period.to),
-            d.lots.len() + d.pending_lots,
+            d.lots.len() + d.pending_lots + d.resting.as_ref().map_or(0, |r| r.count),
             if d.pending_lots > 0 {
                 format!(" ({} pending)", d.pending_lots)
             } else {
@@ -353,11 +377,12 @@ pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
         html_escape(&show_local(zone, period.from)),
         html_escape(&show_local(zone, period.to))
     );
-    // The headline: open alerts by severity and pending lots.
+    // The headline: open alerts by severity, pending lots, lots only counted.
+    let resting = resting_words(d);
     let _ = writeln!(
         text,
         "Open alerts: {crit} critical, {warn} warning, {info} info. Lots: {} registered, {} \
-         pending registration.\n",
+         pending registration.{resting}\n",
         d.lots.len(),
         d.pending_lots
     );
@@ -366,9 +391,10 @@ pub fn compose_digest(d: &DigestInput<'_>) -> ComposedMessage {
         "<p style=\"font-size:15px;margin:0 0 12px 0\">Open alerts: \
          <b style=\"color:#c62828\">{crit} critical</b>, \
          <b style=\"color:#ef6c00\">{warn} warning</b>, {info} info. \
-         Lots: {} registered, {} pending registration.</p>",
+         Lots: {} registered, {} pending registration.{}</p>",
         d.lots.len(),
-        d.pending_lots
+        d.pending_lots,
+        html_escape(&resting)
     );
     lots_section(d, &mut text, &mut html);
     open_section(d, &mut text, &mut html);
@@ -479,6 +505,7 @@ mod tests {
             open: &alerts,
             period: &p,
             recipients: &["m@example.org".into()],
+            resting: None,
         });
         assert_eq!(
             m.subject,
@@ -506,7 +533,40 @@ mod tests {
             open: &[],
             period: &p,
             recipients: &[],
+            resting: None,
         });
         assert_eq!(m.message_id, again.message_id);
+        // Lots only counted: in the subject's total and the headline, not as lines.
+        let counted = compose_digest(&DigestInput {
+            lots: &lots[..1],
+            pending_lots: 0,
+            changes: &[],
+            open: &[],
+            period: &p,
+            recipients: &[],
+            resting: Some(RestingLots {
+                count: 988,
+                before: "2026-09-02".into(),
+            }),
+        });
+        assert!(
+            counted.subject.ends_with("; 989 lots"),
+            "{}",
+            counted.subject
+        );
+        assert!(
+            counted
+                .text
+                .contains("988 more without a batch since 2026-09-02 and nothing open"),
+            "{}",
+            counted.text
+        );
+        let listed = counted
+            .text
+            .split("Lots (most urgent first):")
+            .nth(1)
+            .and_then(|t| t.split("\nOpen alerts:").next())
+            .unwrap_or_default();
+        assert_eq!(listed.matches("\n- ").count(), 1, "{}", counted.text);
     }
 }

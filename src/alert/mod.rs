@@ -18,7 +18,9 @@ mod rules;
 mod schedule;
 
 pub use compose::{ComposedMessage, compose_alert, header_safe, html_escape};
-pub use digest::{AlertChange, DigestInput, DigestLot, DigestPeriod, OpenAlert, compose_digest};
+pub use digest::{
+    AlertChange, DigestInput, DigestLot, DigestPeriod, OpenAlert, RestingLots, compose_digest,
+};
 pub use lifecycle::{Condition, backoff, decide, message_id_for};
 pub use rules::{
     AbruptLoss, Alert, AlertRules, AlertState, EvidenceRow, Forecast, ForecastStatus, LimitSource,

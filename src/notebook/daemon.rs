@@ -17,7 +17,6 @@ use super::ingestion::{FileOutcome, Ingestor};
 use super::sdnotify::Liveness;
 use crate::config::Config;
 use crate::mail::DeliveryReport;
-use crate::model::time::format_ts;
 use crate::store;
 use crate::watch::{self, FileSink, WatchFolder};
 
@@ -326,92 +325,6 @@ pub fn deliver_now(cfg: &Config) -> Result<DeliveryReport> {
     ))?)
 }
 
-/// Compose the managers' digest for the period since the last one and queue it; returns
-/// its subject.
-pub fn queue_digest(cfg: &Config) -> Result<String> {
-    use crate::alert as digest;
-    use crate::store::outbox;
-    // Queuing a message appends its event: open with the chain key loaded.
-    let mut conn = super::chain::open_writer(cfg)?;
-    let now = chrono::Utc::now();
-    let from = outbox::last_digest(&conn)?.unwrap_or_else(|| now - chrono::Duration::days(7));
-    let mut lots = Vec::new();
-    let mut pending_lots = 0;
-    let signoffs = super::signoffs::sign_off_states(&conn)?;
-    for (lot, snap) in current_snapshots(&conn, cfg)? {
-        let signoff = signoffs.get(&lot).map(|s| match &s.by {
-            Some(m) => format!("{} ({})", s.state.as_str(), m.signer_or_unnamed()),
-            None => s.state.as_str().to_string(),
-        });
-        match snap {
-            Some(snap) => lots.push(digest::DigestLot { snap, signoff }),
-            None => pending_lots += 1,
-        }
-    }
-    let open = outbox::open_alerts(&conn)?;
-    let changes = outbox::changes_since(&conn, &format_ts(from))?;
-    let period = digest::DigestPeriod {
-        from,
-        to: now,
-        chain_head: store::events::head(&conn)?.map(|h| h.to_string()),
-        zone: cfg.zone(),
-    };
-    let msg = digest::compose_digest(&digest::DigestInput {
-        lots: &lots,
-        pending_lots,
-        changes: &changes,
-        open: &open,
-        period: &period,
-        recipients: &cfg.alerts.recipients.managers,
-    });
-    let tx = conn.transaction().map_err(store::StoreError::from)?;
-    let key = format!("digest|{}", format_ts(now));
-    outbox::enqueue_message(&tx, &key, &msg, &format_ts(now))?;
-    tx.commit().map_err(store::StoreError::from)?;
-    Ok(msg.subject)
-}
-
-/// Every lot's alert-rules snapshot as it stands (None for a lot nobody registered):
-/// stored by the lot's last recompute, computed here only where no usable one is stored
-/// (as `lots` reads its lines). Dates are worked out as of today.
-fn current_snapshots(
-    conn: &store::Connection,
-    cfg: &Config,
-) -> store::Result<Vec<(String, Option<crate::alert::LotSnapshot>)>> {
-    let mut stored = store::lots::current_states(
-        conn,
-        (crate::fit::ENGINE_VERSION, &cfg.analysis_fingerprint()),
-        store::lots::StatePart::Snapshot,
-    )?;
-    let today = super::lots::today(cfg);
-    let mut out = Vec::new();
-    for lot in store::lots::lot_names(conn)? {
-        let kept = match stored.remove(&lot) {
-            Some(None) => Some(None),
-            Some(Some(json)) => serde_json::from_str::<crate::alert::LotSnapshot>(&json)
-                .ok()
-                .map(Some),
-            None => None,
-        };
-        let snap = match kept {
-            Some(mut snap) => {
-                if let Some(d) = snap
-                    .as_mut()
-                    .and_then(|s| s.forecast.as_mut())
-                    .and_then(|f| f.dates.as_mut())
-                    .filter(|d| d.as_of.is_some())
-                {
-                    d.as_of = Some(today.clone());
-                }
-                snap
-            }
-            None => super::alerts::snapshot(cfg, &super::lots::lot_state(conn, cfg, &lot)?),
-        };
-        out.push((lot, snap));
-    }
-    Ok(out)
-}
-
 /// Queue a digest at every slot of the configured schedule until shutdown.
 async fn digest_loop(cfg: Config, mut shutdown: tokio::sync::watch::Receiver<bool>) {
     let Some(schedule) = cfg.alerts.digest else {
@@ -435,7 +348,7 @@ async fn digest_loop(cfg: Config, mut shutdown: tokio::sync::watch::Receiver<boo
             return;
         }
         let c = cfg.clone();
-        match tokio::task::spawn_blocking(move || queue_digest(&c)).await {
+        match tokio::task::spawn_blocking(move || super::digesting::queue_digest(&c)).await {
             Ok(Ok(subject)) => tracing::info!(subject = %subject, "digest queued"),
             Ok(Err(e)) => tracing::error!(error = %e, "digest not queued"),
             Err(e) => tracing::error!(error = %e, "digest task failed"),

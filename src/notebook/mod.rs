@@ -22,6 +22,7 @@ mod central;
 mod chain;
 mod daemon;
 mod dates;
+mod digesting;
 mod entries;
 mod error;
 mod export;
@@ -46,9 +47,10 @@ pub use central::{
     verify_central,
 };
 pub use daemon::{
-    ServiceContext, SideTask, deliver_now, queue_digest, run_service, run_service_with, runtime,
-    serve, serve_with,
+    ServiceContext, SideTask, deliver_now, run_service, run_service_with, runtime, serve,
+    serve_with,
 };
+pub use digesting::queue_digest;
 pub use entries::{
     AlertAct, Corrected, Receipt, Registered, SignedOff, act_on_alert, correct, exclude, note,
     register, sign_off,

@@ -81,15 +81,7 @@ pub fn recompute_backfill(
     cfg: &Config,
     lots: &BTreeMap<String, Option<i64>>,
 ) -> Result<()> {
-    let newest = store::lots::newest_batch_start(tx)?;
-    let from = newest
-        .as_deref()
-        .and_then(crate::model::time::parse_local)
-        .and_then(|t| {
-            let days = cfg.alerts.backfill_history_days;
-            (days.is_finite() && days >= 0.0)
-                .then(|| t - chrono::Duration::seconds((days * 86_400.0) as i64))
-        });
+    let from = history_cutoff(tx, cfg)?;
     for (lot, after) in lots {
         let after = match after {
             Some(a) => *a,
@@ -98,6 +90,24 @@ pub fn recompute_backfill(
         recompute_lot(tx, cfg, lot, after, None, Raise::CurrentFrom(from))?;
     }
     Ok(())
+}
+
+/// The batch start before which a lot is history: `alerts.backfill_history_days` before
+/// the newest batch the store records (`None`: no batch, or the setting switched off).
+/// Backfills raise no alerts for such lots and the digest counts them without listing them.
+pub(crate) fn history_cutoff(
+    conn: &store::Connection,
+    cfg: &Config,
+) -> store::Result<Option<chrono::NaiveDateTime>> {
+    let newest = store::lots::newest_batch_start(conn)?;
+    Ok(newest
+        .as_deref()
+        .and_then(crate::model::time::parse_local)
+        .and_then(|t| {
+            let days = cfg.alerts.backfill_history_days;
+            (days.is_finite() && days >= 0.0)
+                .then(|| t - chrono::Duration::seconds((days * 86_400.0) as i64))
+        }))
 }
 
 /// The start of a lot's newest batch, when every start it records can be read.

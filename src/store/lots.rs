@@ -1,7 +1,7 @@
 //! Reads of a lot's records, as they stand or as they stood after an event, and the
 //! stored fits.
 
-use std::collections::HashMap;
+use std::collections::{BTreeSet, HashMap};
 
 use rusqlite::{Connection, OptionalExtension, Transaction};
 use serde::Serialize;
@@ -433,9 +433,59 @@ pub fn current_states(
     Ok(rows)
 }
 
+/// One lot's stored state as [`current_states`] gives it: `None` when no usable state is
+/// stored, `Some(None)` for a lot nobody registered (snapshot part). A primary-key read.
+pub fn current_state_of(
+    conn: &Connection,
+    (engine_version, config_sha256): (&str, &str),
+    part: StatePart,
+    lot: &str,
+) -> Result<Option<Option<String>>> {
+    let mut stmt = conn.prepare_cached(match part {
+        StatePart::Line => {
+            "SELECT s.line FROM lot_states s
+         WHERE s.lot = ?3 AND s.engine_version = ?1 AND s.config_sha256 = ?2
+           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = s.lot)"
+        }
+        StatePart::Snapshot => {
+            "SELECT s.snapshot FROM lot_states s
+         WHERE s.lot = ?3 AND s.engine_version = ?1 AND s.config_sha256 = ?2
+           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = s.lot)"
+        }
+    })?;
+    Ok(stmt
+        .query_row([engine_version, config_sha256, lot], |r| r.get(0))
+        .optional()?)
+}
+
+/// The registered lots (those with a lot record), by name.
+pub fn registered_lots(conn: &Connection) -> Result<BTreeSet<String>> {
+    let mut stmt = conn.prepare_cached("SELECT lot FROM lots")?;
+    let rows = stmt
+        .query_map([], |r| r.get(0))?
+        .collect::<std::result::Result<BTreeSet<String>, _>>()?;
+    Ok(rows)
+}
+
 /// The newest batch start any cycle records (local time text as stored), if any.
 pub fn newest_batch_start(conn: &Connection) -> Result<Option<String>> {
     Ok(conn
         .prepare_cached("SELECT MAX(started_at) FROM cycles")?
         .query_row([], |r| r.get(0))?)
+}
+
+/// Lots still in use: those with a batch that started at or after `since` (local time
+/// text as stored) or whose start is unknown, and those with no batch yet. Both parts go
+/// through indexes (`cycles_started`, `cycles_lot`), so the cost follows these lots, not
+/// the store's history.
+pub fn lots_in_use_since(conn: &Connection, since: &str) -> Result<BTreeSet<String>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT lot FROM cycles WHERE started_at >= ?1 AND lot IS NOT NULL
+         UNION SELECT lot FROM cycles WHERE started_at IS NULL AND lot IS NOT NULL
+         UNION SELECT l.lot FROM lots l WHERE NOT EXISTS (SELECT 1 FROM cycles c WHERE c.lot = l.lot)",
+    )?;
+    let rows = stmt
+        .query_map([since], |r| r.get(0))?
+        .collect::<std::result::Result<BTreeSet<String>, _>>()?;
+    Ok(rows)
 }

@@ -6,7 +6,9 @@
 //!
 //! For a profiler, name a lot (`decaying`, `stable` or `step`) and a number of calls:
 //! `target/release/deps/fit_analysis-* step 2000` runs analyse() on that lot alone, with
-//! no timing (e.g. under `perf record -g` or `valgrind --tool=callgrind`).
+//! no timing (e.g. under `perf record -g` or `valgrind --tool=callgrind`), then prints the
+//! ranking's convergence; with `FIT_ANALYSIS_PER_MODEL=1` it first times analyse() with
+//! each activity model as the only candidate (which model's fits cost the time).
 
 use std::hint::black_box;
 use std::time::Instant;
@@ -46,7 +48,10 @@ fn main() {
     let mut args = std::env::args().skip(1).filter(|a| a != "--bench");
     if let Some(case) = args.next() {
         let calls: usize = args.next().and_then(|a| a.parse().ok()).unwrap_or(1000);
-        let Some((_, l)) = lots.iter().find(|(name, _)| name.starts_with(case.as_str())) else {
+        let Some((_, l)) = lots
+            .iter()
+            .find(|(name, _)| name.starts_with(case.as_str()))
+        else {
             eprintln!("no lot named {case}: decaying, stable or step");
             std::process::exit(2);
         };
@@ -60,7 +65,10 @@ fn main() {
                 for _ in 0..calls {
                     black_box(analyse(black_box(l), &o));
                 }
-                eprintln!("{m}: {:.0} µs", t.elapsed().as_secs_f64() * 1e6 / calls as f64);
+                eprintln!(
+                    "{m}: {:.0} µs",
+                    t.elapsed().as_secs_f64() * 1e6 / calls as f64
+                );
             }
         }
         let mut last = None;
@@ -69,7 +77,12 @@ fn main() {
         }
         if let Some(a) = last {
             for r in &a.ranking {
-                eprintln!("{:<22} converged {} {:?}", r.model.id(), r.converged, r.why_not);
+                eprintln!(
+                    "{:<22} converged {} {:?}",
+                    r.model.id(),
+                    r.converged,
+                    r.why_not
+                );
             }
             eprintln!("trend cycles {}", a.trend_cycles);
         }

@@ -659,7 +659,10 @@ pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
     let to_z = |p: f64| normal.inverse_cdf(p.clamp(1e-12, 1.0 - 1e-12));
     // ln y once; the log scale serves a stretch only while every y in it is positive.
     let ly: Vec<f64> = y[..n].iter().map(|v| v.ln()).collect();
-    let positive = y[..n].iter().position(|&v| !(v > 0.0)).unwrap_or(n);
+    let positive = y[..n]
+        .iter()
+        .position(|v| v.is_nan() || *v <= 0.0)
+        .unwrap_or(n);
     let mut z = vec![f64::NAN; n];
     let mut path = vec![0.0; n];
     let mut s: f64 = 0.0;
@@ -917,7 +920,7 @@ mod tests {
     #[test]
     fn monitor_agrees_with_the_direct_computation() {
         // Seeded series (first-order and straight-line decay, sd 0.02, with and without a
-        // 20 % step at cycle 10, 8 to 40 cycles): the same alarms, change points, first
+        // 10 % or 20 % step at cycle 10, 8 to 40 cycles): the same alarms, change points, first
         // alarms and scores.
         use rand::SeedableRng;
         use rand_distr::Distribution;

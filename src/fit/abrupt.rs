@@ -17,7 +17,10 @@
 //! - A level-shift test ([`level_shift_p`]) at each of the [`SHIFT_WINDOW`] newest cycles
 //!   as the candidate first cycle of a new level, Bonferroni-corrected at [`SHIFT_ALPHA`].
 //!   It finds a large step at once, before it can enter the recursive baseline; with the
-//!   step one cycle old it is the single-cycle predictive test.
+//!   step one cycle old it is the single-cycle predictive test. Its t statistics are
+//!   compared with critical values found once per degrees of freedom
+//!   (`shift_critical`), not turned into p-values: the decisions are the same, at a
+//!   fraction of the cost.
 //!
 //! Either signal holds a change from its first cycle τ (the test's best candidate, or the
 //! first cycle after the CUSUM's last zero, the usual CUSUM change-point estimate). The
@@ -47,7 +50,7 @@
 
 use serde::{Deserialize, Serialize};
 
-use statrs::distribution::{ContinuousCDF, Normal, StudentsT};
+use statrs::distribution::{Continuous, ContinuousCDF, Normal, StudentsT};
 
 use super::engine::{FitResult, covariance_of};
 use super::forecast::t_quantile;
@@ -397,7 +400,9 @@ struct Baseline {
 }
 
 impl Baseline {
-    fn fit(x: &[f64], y: &[f64]) -> Option<Baseline> {
+    /// The lines through (x, y) and, when `ly` (ln y of the same points) is given, through
+    /// (x, ln y).
+    fn fit(x: &[f64], y: &[f64], ly: Option<&[f64]>) -> Option<Baseline> {
         let n = x.len().min(y.len());
         if n < 3 {
             return None;
@@ -408,58 +413,49 @@ impl Baseline {
         if sxx <= 0.0 || !sxx.is_finite() {
             return None;
         }
-        let line = |v: &dyn Fn(usize) -> f64| {
-            let vm = (0..n).map(v).sum::<f64>() / nf;
-            let sxv: f64 = (0..n).map(|i| (x[i] - xm) * (v(i) - vm)).sum();
+        let line = |v: &[f64]| {
+            let vm = v[..n].iter().sum::<f64>() / nf;
+            let sxv: f64 = (0..n).map(|i| (x[i] - xm) * (v[i] - vm)).sum();
             let b = sxv / sxx;
             let a = vm - b * xm;
-            let rss: f64 = (0..n).map(|i| (v(i) - a - b * x[i]).powi(2)).sum();
+            let rss: f64 = (0..n).map(|i| (v[i] - a - b * x[i]).powi(2)).sum();
             Line {
                 a,
                 b,
                 s2: rss / (nf - 2.0),
             }
         };
-        let lin = line(&|i| y[i]);
-        let log = y[..n]
-            .iter()
-            .all(|&v| v > 0.0)
-            .then(|| line(&|i| y[i].ln()));
         Some(Baseline {
-            lin,
-            log,
+            lin: line(y),
+            log: ly.filter(|l| l.len() >= n).map(line),
             xm,
             sxx,
             n,
         })
     }
 
-    fn t_cdf(&self, t: f64) -> f64 {
+    /// P(T ≤ t) of the one-step-ahead prediction error of (x, y), the larger of the two
+    /// lines' (a line with no variance gives 0.5; a y ≤ 0, `ly` = −∞, is −∞ on the log
+    /// scale). Both share n − 2 degrees of freedom, so the larger probability is that of
+    /// the larger t: one CDF evaluation.
+    fn p_one(&self, x: f64, y: f64, ly: f64) -> f64 {
+        let lev = 1.0 + 1.0 / self.n as f64 + (x - self.xm).powi(2) / self.sxx;
+        let t = |l: &Line, v: f64| {
+            let sd = (l.s2 * lev).sqrt();
+            if !(sd > 0.0 && sd.is_finite()) {
+                return 0.0;
+            }
+            (v - l.a - l.b * x) / sd
+        };
+        let lin = t(&self.lin, y);
+        let t = match &self.log {
+            Some(l) => lin.max(t(l, if y > 0.0 { ly } else { f64::NEG_INFINITY })),
+            None => lin,
+        };
         if t == f64::NEG_INFINITY {
             return 0.0;
         }
         StudentsT::new(0.0, 1.0, (self.n - 2) as f64).map_or(f64::NAN, |d| d.cdf(t))
-    }
-
-    /// P(T ≤ t) of the one-step-ahead prediction error of (x, y), the larger of the two
-    /// lines' (a line with no variance gives 0.5; a y ≤ 0 is −∞ on the log scale).
-    fn p_one(&self, x: f64, y: f64) -> f64 {
-        let lev = 1.0 + 1.0 / self.n as f64 + (x - self.xm).powi(2) / self.sxx;
-        let p = |l: &Line, v: f64| {
-            let sd = (l.s2 * lev).sqrt();
-            if !(sd > 0.0 && sd.is_finite()) {
-                return 0.5;
-            }
-            self.t_cdf((v - l.a - l.b * x) / sd)
-        };
-        let lin = p(&self.lin, y);
-        match &self.log {
-            Some(l) => {
-                let v = if y > 0.0 { y.ln() } else { f64::NEG_INFINITY };
-                lin.max(p(l, v))
-            }
-            None => lin,
-        }
     }
 }
 
@@ -477,51 +473,154 @@ pub fn level_shift_p(x: &[f64], y: &[f64], tau: usize) -> f64 {
     if tau == 0 || tau >= n || n < 4 {
         return 1.0;
     }
-    let df = (n - 3) as f64;
-    let Ok(t_dist) = StudentsT::new(0.0, 1.0, df) else {
+    let ly: Vec<f64> = y[..n].iter().map(|v| v.ln()).collect();
+    let positive = y[..n].iter().all(|&v| v > 0.0);
+    let sums = ShiftSums::new(&x[..n], &y[..n], positive.then_some(&ly[..]));
+    let t = sums.t(tau);
+    if t == f64::NEG_INFINITY {
         return 1.0;
-    };
-    let xm = x[..n].iter().sum::<f64>() / n as f64;
-    let one = |v: &dyn Fn(usize) -> f64| -> Option<f64> {
-        // Normal equations of (1, x − x̄, −D), solved by Gaussian elimination.
-        let mut a = [[0.0f64; 4]; 3];
-        for i in 0..n {
-            let row = [1.0, x[i] - xm, if i >= tau { -1.0 } else { 0.0 }];
-            let vi = v(i);
-            for r in 0..3 {
-                for c in 0..3 {
-                    a[r][c] += row[r] * row[c];
-                }
-                a[r][3] += row[r] * vi;
+    }
+    StudentsT::new(0.0, 1.0, (n - 3) as f64).map_or(1.0, |d| d.cdf(-t))
+}
+
+/// Centred sums of one scale (y or ln y) of a stretch of cycles, shared by the level-shift
+/// tests at every candidate change point.
+#[derive(Debug, Clone, Copy)]
+struct ScaleSums {
+    mean: f64,
+    /// Σ(x − x̄)(v − v̄).
+    suv: f64,
+    /// Σ(v − v̄)².
+    svv: f64,
+}
+
+/// The level-shift test's sums over the cycles 0..n: each candidate then costs a sum over
+/// its new level only, and the two scales' statistics are compared with one critical value
+/// instead of two p-values (see [`ShiftSums::t`]).
+struct ShiftSums<'a> {
+    x: &'a [f64],
+    y: &'a [f64],
+    ly: Option<&'a [f64]>,
+    xm: f64,
+    /// Σ(x − x̄)².
+    suu: f64,
+    lin: ScaleSums,
+    log: Option<ScaleSums>,
+}
+
+impl<'a> ShiftSums<'a> {
+    /// The sums of (x, y) and, when `ly` (ln y) is given, of (x, ln y).
+    fn new(x: &'a [f64], y: &'a [f64], ly: Option<&'a [f64]>) -> Self {
+        let n = x.len().min(y.len());
+        let (x, y) = (&x[..n], &y[..n]);
+        let ly = ly.filter(|l| l.len() >= n).map(|l| &l[..n]);
+        let nf = n as f64;
+        let xm = x.iter().sum::<f64>() / nf;
+        let suu = x.iter().map(|xi| (xi - xm).powi(2)).sum();
+        let scale = |v: &[f64]| {
+            let mean = v.iter().sum::<f64>() / nf;
+            let (mut suv, mut svv) = (0.0, 0.0);
+            for (xi, vi) in x.iter().zip(v) {
+                let d = vi - mean;
+                suv += (xi - xm) * d;
+                svv += d * d;
             }
+            ScaleSums { mean, suv, svv }
+        };
+        ShiftSums {
+            x,
+            y,
+            ly,
+            xm,
+            suu,
+            lin: scale(y),
+            log: ly.map(scale),
         }
-        let inv = invert3([
-            [a[0][0], a[0][1], a[0][2]],
-            [a[1][0], a[1][1], a[1][2]],
-            [a[2][0], a[2][1], a[2][2]],
-        ])?;
-        let beta: Vec<f64> = (0..3)
-            .map(|r| (0..3).map(|c| inv[r][c] * a[c][3]).sum())
-            .collect();
-        let rss: f64 = (0..n)
-            .map(|i| {
-                let d = if i >= tau { -1.0 } else { 0.0 };
-                (v(i) - beta[0] - beta[1] * (x[i] - xm) - beta[2] * d).powi(2)
-            })
-            .sum();
-        let se = (rss / df * inv[2][2]).sqrt();
+    }
+
+    /// The t statistic of the drop δ at `tau` on one scale (positive for a drop); None when
+    /// the fit is singular or exact. In centred form (u = x − x̄, w = v − v̄, the intercept
+    /// orthogonal to both) the normal equations of (1, u, −D) are
+    /// [[n, 0, −m], [0, Σu², −Σ_D u], [−m, −Σ_D u, m]]·β = [0, Σuw, −Σ_D w], with D the
+    /// indicator of the new level and m its length, and RSS = Σw² − βᵀXᵀw.
+    fn t_one(&self, v: &[f64], s: &ScaleSums, tau: usize) -> Option<f64> {
+        let n = self.x.len();
+        let (mut su, mut sw) = (0.0, 0.0);
+        for (xi, vi) in self.x[tau..].iter().zip(&v[tau..n]) {
+            su += xi - self.xm;
+            sw += vi - s.mean;
+        }
+        let m = (n - tau) as f64;
+        let inv = invert3([[n as f64, 0.0, -m], [0.0, self.suu, -su], [-m, -su, m]])?;
+        let rhs = [0.0, s.suv, -sw];
+        let beta: [f64; 3] = std::array::from_fn(|r| (0..3).map(|c| inv[r][c] * rhs[c]).sum());
+        let rss = s.svv - beta[1] * s.suv + beta[2] * sw;
+        let se = (rss / (n - 3) as f64 * inv[2][2]).sqrt();
         if !(se > 0.0 && se.is_finite()) {
             return None;
         }
-        // A drop is δ > 0: small p for a large positive t.
-        Some(t_dist.cdf(-beta[2] / se))
-    };
-    let lin = one(&|i| y[i]).unwrap_or(1.0);
-    if y[..n].iter().all(|&v| v > 0.0) {
-        lin.max(one(&|i| y[i].ln()).unwrap_or(1.0))
-    } else {
-        lin
+        Some(beta[2] / se)
     }
+
+    /// The level-shift statistic at `tau`: the smaller t of the two scales (the larger
+    /// p-value, since both have n − 3 degrees of freedom; intersection–union), −∞ when
+    /// either cannot be computed (p = 1).
+    fn t(&self, tau: usize) -> f64 {
+        let n = self.x.len();
+        if tau == 0 || tau >= n || n < 4 {
+            return f64::NEG_INFINITY;
+        }
+        let lin = self.t_one(self.y, &self.lin, tau);
+        let log = match (self.ly, &self.log) {
+            (Some(ly), Some(s)) => self.t_one(ly, s, tau),
+            _ => Some(f64::INFINITY),
+        };
+        match (lin, log) {
+            (Some(a), Some(b)) => a.min(b),
+            _ => f64::NEG_INFINITY,
+        }
+    }
+}
+
+/// Critical values of the level-shift test kept for this many degrees of freedom; more
+/// are computed when asked.
+const CRITICAL_TABLE: usize = 1024;
+
+/// The upper critical value t₁₋α(df) with α = [`SHIFT_ALPHA`]/`tried` (`tried` from 1 to
+/// [`SHIFT_WINDOW`]): the test rejects, p < α, exactly when t exceeds it. Each is found
+/// once per process: the Student t CDF is an incomplete beta function, and comparing
+/// statistics with a critical value saves one or two per candidate and cycle.
+fn shift_critical(df: usize, tried: usize) -> f64 {
+    static TABLE: [[std::sync::OnceLock<f64>; SHIFT_WINDOW]; CRITICAL_TABLE] =
+        [const { [const { std::sync::OnceLock::new() }; SHIFT_WINDOW] }; CRITICAL_TABLE];
+    let tried = tried.clamp(1, SHIFT_WINDOW);
+    let alpha = SHIFT_ALPHA / tried as f64;
+    match TABLE.get(df) {
+        Some(row) => *row[tried - 1].get_or_init(|| upper_t_critical(alpha, df)),
+        None => upper_t_critical(alpha, df),
+    }
+}
+
+/// t with P(T > t) = α on `df` degrees of freedom: statrs' inverse CDF polished by Newton
+/// steps on the CDF itself, so that the comparison with the critical value and the
+/// p-value agree to rounding. +∞ (never reject) when it cannot be computed.
+fn upper_t_critical(alpha: f64, df: usize) -> f64 {
+    let Ok(d) = StudentsT::new(0.0, 1.0, df as f64) else {
+        return f64::INFINITY;
+    };
+    let mut q = d.inverse_cdf(alpha);
+    for _ in 0..4 {
+        let f = d.pdf(q);
+        if !(f > 0.0 && q.is_finite()) {
+            break;
+        }
+        let step = (d.cdf(q) - alpha) / f;
+        q -= step;
+        if step.abs() <= 1e-15 * q.abs() {
+            break;
+        }
+    }
+    if q.is_finite() { -q } else { f64::INFINITY }
 }
 
 /// The inverse of a symmetric 3 × 3 matrix by cofactors; None when it is singular.
@@ -558,6 +657,12 @@ pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
     }
     let normal = Normal::new(0.0, 1.0).ok()?;
     let to_z = |p: f64| normal.inverse_cdf(p.clamp(1e-12, 1.0 - 1e-12));
+    // ln y once; the log scale serves a stretch only while every y in it is positive.
+    let ly: Vec<f64> = y[..n].iter().map(|v| v.ln()).collect();
+    let positive = y[..n]
+        .iter()
+        .position(|v| v.is_nan() || *v <= 0.0)
+        .unwrap_or(n);
     let mut z = vec![f64::NAN; n];
     let mut path = vec![0.0; n];
     let mut s: f64 = 0.0;
@@ -565,41 +670,38 @@ pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
     let mut held: Option<usize> = None;
     let mut last_zero = MIN_BASELINE - 1;
     let mut first_alarm = None;
-    let mut shift_p = None;
     for i in MIN_BASELINE..n {
-        let (xs, ys) = (&x[..=i], &y[..=i]);
         // Recursive one-step scores: independent for an in-control lot.
-        z[i] = to_z(Baseline::fit(&x[..i], &y[..i])?.p_one(x[i], y[i]));
+        let base = Baseline::fit(&x[..i], &y[..i], (i <= positive).then(|| &ly[..i]))?;
+        z[i] = to_z(base.p_one(x[i], y[i], ly[i]));
         s = (s - z[i] - k).max(0.0);
         path[i] = s;
         if s == 0.0 {
             last_zero = i;
         }
+        let sums = ShiftSums::new(&x[..=i], &y[..=i], (i < positive).then(|| &ly[..=i]));
+        // Degrees of freedom of the level-shift test on the i + 1 cycles so far.
+        let df = i - 2;
         if let Some(tau) = held {
-            let p = level_shift_p(xs, ys, tau);
-            if p < SHIFT_ALPHA / SHIFT_WINDOW as f64 || s > h {
-                shift_p = Some(p);
-            } else {
+            if !(sums.t(tau) > shift_critical(df, SHIFT_WINDOW) || s > h) {
                 // Back in control.
                 held = None;
-                shift_p = None;
             }
             continue;
         }
         let lo = MIN_BASELINE.max((i + 1).saturating_sub(SHIFT_WINDOW));
-        let tried = (i + 1 - lo) as f64;
-        let (p_min, t_min) = (lo..=i)
-            .map(|t0| (level_shift_p(xs, ys, t0), t0))
-            .fold((f64::INFINITY, i), |b, c| if c.0 < b.0 { c } else { b });
-        let tau = if p_min * tried < SHIFT_ALPHA {
-            t_min
+        // The candidate with the largest statistic has the smallest p-value.
+        let (t_max, t_at) = (lo..=i)
+            .map(|t0| (sums.t(t0), t0))
+            .fold((f64::NEG_INFINITY, i), |b, c| if c.0 > b.0 { c } else { b });
+        let tau = if t_max > shift_critical(df, i + 1 - lo) {
+            t_at
         } else if s > h {
             last_zero + 1
         } else {
             continue;
         };
         first_alarm.get_or_insert(i);
-        shift_p = Some(level_shift_p(xs, ys, tau));
         held = Some(tau);
     }
     let max = path.iter().copied().fold(0.0, f64::max);
@@ -619,7 +721,7 @@ pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
             last: s,
         },
         change_index,
-        shift_p,
+        shift_p: held.map(|tau| level_shift_p(&x[..n], &y[..n], tau)),
         alarm,
     })
 }
@@ -673,6 +775,227 @@ mod tests {
         let m = monitor(&x, &step, 0.5, 4.5).expect("enough cycles");
         assert!(m.alarm && m.change_index == Some(9), "{m:?}");
         assert!(!monitor(&x, &flat, 0.5, 4.5).expect("enough cycles").alarm);
+    }
+
+    /// The level-shift p-value as first written: normal equations accumulated point by
+    /// point and residuals summed directly, one CDF per scale.
+    fn level_shift_p_direct(x: &[f64], y: &[f64], tau: usize) -> f64 {
+        let n = x.len().min(y.len());
+        if tau == 0 || tau >= n || n < 4 {
+            return 1.0;
+        }
+        let df = (n - 3) as f64;
+        let t_dist = StudentsT::new(0.0, 1.0, df).expect("df > 0");
+        let xm = x[..n].iter().sum::<f64>() / n as f64;
+        let one = |v: &dyn Fn(usize) -> f64| -> Option<f64> {
+            let mut a = [[0.0f64; 4]; 3];
+            for i in 0..n {
+                let row = [1.0, x[i] - xm, if i >= tau { -1.0 } else { 0.0 }];
+                for r in 0..3 {
+                    for c in 0..3 {
+                        a[r][c] += row[r] * row[c];
+                    }
+                    a[r][3] += row[r] * v(i);
+                }
+            }
+            let inv = invert3([
+                [a[0][0], a[0][1], a[0][2]],
+                [a[1][0], a[1][1], a[1][2]],
+                [a[2][0], a[2][1], a[2][2]],
+            ])?;
+            let beta: Vec<f64> = (0..3)
+                .map(|r| (0..3).map(|c| inv[r][c] * a[c][3]).sum())
+                .collect();
+            let rss: f64 = (0..n)
+                .map(|i| {
+                    let d = if i >= tau { -1.0 } else { 0.0 };
+                    (v(i) - beta[0] - beta[1] * (x[i] - xm) - beta[2] * d).powi(2)
+                })
+                .sum();
+            let se = (rss / df * inv[2][2]).sqrt();
+            (se > 0.0 && se.is_finite()).then(|| t_dist.cdf(-beta[2] / se))
+        };
+        let lin = one(&|i| y[i]).unwrap_or(1.0);
+        if y[..n].iter().all(|&v| v > 0.0) {
+            lin.max(one(&|i| y[i].ln()).unwrap_or(1.0))
+        } else {
+            lin
+        }
+    }
+
+    /// The monitor as first written (every test a p-value, every baseline refitted with
+    /// its logarithms): the reference the faster [`monitor`] must agree with.
+    fn monitor_direct(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
+        let n = x.len().min(y.len());
+        if n <= MIN_BASELINE {
+            return None;
+        }
+        let normal = Normal::new(0.0, 1.0).ok()?;
+        let t_cdf = |df: usize, t: f64| {
+            if t == f64::NEG_INFINITY {
+                0.0
+            } else {
+                StudentsT::new(0.0, 1.0, df as f64).map_or(f64::NAN, |d| d.cdf(t))
+            }
+        };
+        let mut z = vec![f64::NAN; n];
+        let mut path = vec![0.0; n];
+        let (mut s, mut held, mut last_zero, mut first_alarm, mut shift_p) =
+            (0.0f64, None, MIN_BASELINE - 1, None, None);
+        for i in MIN_BASELINE..n {
+            let (xs, ys) = (&x[..=i], &y[..=i]);
+            let logs: Vec<f64> = y[..i].iter().map(|v| v.ln()).collect();
+            let all_pos = y[..i].iter().all(|&v| v > 0.0);
+            let b = Baseline::fit(&x[..i], &y[..i], all_pos.then_some(&logs[..]))?;
+            let lev = 1.0 + 1.0 / b.n as f64 + (x[i] - b.xm).powi(2) / b.sxx;
+            let p = |l: &Line, v: f64| {
+                let sd = (l.s2 * lev).sqrt();
+                if !(sd > 0.0 && sd.is_finite()) {
+                    return 0.5;
+                }
+                t_cdf(b.n - 2, (v - l.a - l.b * x[i]) / sd)
+            };
+            let mut p_one = p(&b.lin, y[i]);
+            if let Some(l) = &b.log {
+                let v = if y[i] > 0.0 {
+                    y[i].ln()
+                } else {
+                    f64::NEG_INFINITY
+                };
+                p_one = p_one.max(p(l, v));
+            }
+            z[i] = normal.inverse_cdf(p_one.clamp(1e-12, 1.0 - 1e-12));
+            s = (s - z[i] - k).max(0.0);
+            path[i] = s;
+            if s == 0.0 {
+                last_zero = i;
+            }
+            if let Some(tau) = held {
+                let p = level_shift_p_direct(xs, ys, tau);
+                if p < SHIFT_ALPHA / SHIFT_WINDOW as f64 || s > h {
+                    shift_p = Some(p);
+                } else {
+                    held = None;
+                    shift_p = None;
+                }
+                continue;
+            }
+            let lo = MIN_BASELINE.max((i + 1).saturating_sub(SHIFT_WINDOW));
+            let tried = (i + 1 - lo) as f64;
+            let (p_min, t_min) = (lo..=i)
+                .map(|t0| (level_shift_p_direct(xs, ys, t0), t0))
+                .fold((f64::INFINITY, i), |b, c| if c.0 < b.0 { c } else { b });
+            let tau = if p_min * tried < SHIFT_ALPHA {
+                t_min
+            } else if s > h {
+                last_zero + 1
+            } else {
+                continue;
+            };
+            first_alarm.get_or_insert(i);
+            shift_p = Some(level_shift_p_direct(xs, ys, tau));
+            held = Some(tau);
+        }
+        let max = path.iter().copied().fold(0.0, f64::max);
+        let change_index = match held {
+            Some(tau) => Some(tau),
+            None => (s > 0.0 && last_zero + 1 < n).then_some(last_zero + 1),
+        };
+        Some(Monitoring {
+            z,
+            cusum: CusumResult {
+                k,
+                h,
+                path,
+                first_alarm,
+                max,
+                last: s,
+            },
+            change_index,
+            shift_p,
+            alarm: held.is_some(),
+        })
+    }
+
+    #[test]
+    fn monitor_agrees_with_the_direct_computation() {
+        // Seeded series (first-order and straight-line decay, sd 0.02, with and without a
+        // 10 % or 20 % step at cycle 10, 8 to 40 cycles): the same alarms, change points, first
+        // alarms and scores.
+        use rand::SeedableRng;
+        use rand_distr::Distribution;
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(15);
+        let noise = rand_distr::Normal::new(0.0, 0.02).expect("sd");
+        let mut alarms = 0;
+        for case in 0..1500 {
+            let n = 8 + case % 33;
+            let step = [0.0, 0.0, 0.1, 0.2][case % 4];
+            let x: Vec<f64> = (1..=n).map(|i| i as f64).collect();
+            let y: Vec<f64> = x
+                .iter()
+                .map(|&v| {
+                    let trend = if case % 3 == 0 {
+                        1.0 - 0.03 * v
+                    } else {
+                        (-0.03 * v).exp()
+                    };
+                    trend * if v >= 10.0 { 1.0 - step } else { 1.0 } + noise.sample(&mut rng)
+                })
+                .collect();
+            let fast = monitor(&x, &y, 0.5, 4.5).expect("enough cycles");
+            let direct = monitor_direct(&x, &y, 0.5, 4.5).expect("enough cycles");
+            assert_eq!(fast.alarm, direct.alarm, "case {case}");
+            assert_eq!(fast.change_index, direct.change_index, "case {case}");
+            assert_eq!(
+                fast.cusum.first_alarm, direct.cusum.first_alarm,
+                "case {case}"
+            );
+            // The scores are the same numbers: the baselines' arithmetic is unchanged.
+            assert_eq!(fast.cusum.path, direct.cusum.path, "case {case}");
+            for (a, b) in fast.z.iter().zip(&direct.z) {
+                assert!(
+                    a.to_bits() == b.to_bits() || (a.is_nan() && b.is_nan()),
+                    "{case}"
+                );
+            }
+            match (fast.shift_p, direct.shift_p) {
+                (Some(a), Some(b)) => assert!((a - b).abs() <= 1e-6 * b + 1e-300, "{a} {b}"),
+                (a, b) => assert_eq!(a, b, "case {case}"),
+            }
+            alarms += usize::from(fast.alarm);
+        }
+        // Both outcomes were exercised.
+        assert!(alarms > 300 && alarms < 1200, "{alarms}");
+    }
+
+    #[test]
+    fn critical_values_match_the_p_values() {
+        for df in [1, 2, 3, 5, 10, 37, 200, 5000] {
+            for tried in 1..=SHIFT_WINDOW {
+                let c = shift_critical(df, tried);
+                let d = StudentsT::new(0.0, 1.0, df as f64).expect("df");
+                let alpha = SHIFT_ALPHA / tried as f64;
+                let p = d.cdf(-c);
+                assert!(
+                    (p - alpha).abs() <= 1e-12 * alpha,
+                    "df {df}: {p} vs {alpha}"
+                );
+            }
+        }
+        // Reference values: scipy 1.17.1, scipy.stats.t.isf(0.006 / tried, df).
+        for (df, tried, want) in [
+            (1, 1, 53.045364363156104),
+            (10, 1, 3.062169254194399),
+            (10, 3, 3.7162355007520147),
+            (37, 2, 2.9154371732234714),
+            (200, 3, 2.911923852870668),
+        ] {
+            let got = shift_critical(df, tried);
+            assert!(
+                (got - want).abs() <= 1e-9 * want,
+                "df {df}: {got} vs {want}"
+            );
+        }
     }
 
     #[test]

@@ -3,6 +3,12 @@
 //! next-cycle verdict. Three lots (demo data, invented parameters, seeded noise): a slow
 //! first-order-residual decay, a stable lot and a lot with a 20 % step at cycle 25.
 //! A plain timing loop on one thread; prints µs per lot.
+//!
+//! For a profiler, name a lot (`decaying`, `stable` or `step`) and a number of calls:
+//! `target/release/deps/fit_analysis-* step 2000` runs analyse() on that lot alone, with
+//! no timing (e.g. under `perf record -g` or `valgrind --tool=callgrind`), then prints the
+//! ranking's convergence; with `FIT_ANALYSIS_PER_MODEL=1` it first times analyse() with
+//! each activity model as the only candidate (which model's fits cost the time).
 
 use std::hint::black_box;
 use std::time::Instant;
@@ -39,6 +45,49 @@ fn main() {
         ),
     ];
     let opts = AnalysisOptions::default();
+    let mut args = std::env::args().skip(1).filter(|a| a != "--bench");
+    if let Some(case) = args.next() {
+        let calls: usize = args.next().and_then(|a| a.parse().ok()).unwrap_or(1000);
+        let Some((_, l)) = lots
+            .iter()
+            .find(|(name, _)| name.starts_with(case.as_str()))
+        else {
+            eprintln!("no lot named {case}: decaying, stable or step");
+            std::process::exit(2);
+        };
+        if std::env::var_os("FIT_ANALYSIS_PER_MODEL").is_some() {
+            for m in turnbook::fit::ModelId::ACTIVITY {
+                let o = AnalysisOptions {
+                    candidates: vec![m],
+                    ..AnalysisOptions::default()
+                };
+                let t = Instant::now();
+                for _ in 0..calls {
+                    black_box(analyse(black_box(l), &o));
+                }
+                eprintln!(
+                    "{m}: {:.0} µs",
+                    t.elapsed().as_secs_f64() * 1e6 / calls as f64
+                );
+            }
+        }
+        let mut last = None;
+        for _ in 0..calls {
+            last = Some(black_box(analyse(black_box(l), &opts)));
+        }
+        if let Some(a) = last {
+            for r in &a.ranking {
+                eprintln!(
+                    "{:<22} converged {} {:?}",
+                    r.model.id(),
+                    r.converged,
+                    r.why_not
+                );
+            }
+            eprintln!("trend cycles {}", a.trend_cycles);
+        }
+        return;
+    }
     for (name, l) in &lots {
         // Warm up, then time batches until a second has passed; report the best batch.
         for _ in 0..20 {

@@ -169,6 +169,9 @@ async fn open_links(cfg: &Config, target: &Target, site: &str) -> Result<Vec<Cli
     for _ in 1..connections(cfg) {
         links.push(central::connect(target).await?);
     }
+    for link in &links {
+        central::prepare_writer(link).await?;
+    }
     Ok(links)
 }
 
@@ -368,6 +371,17 @@ async fn write_in_turn(client: &mut Client, site: &str, job: Job) -> Result<u64>
             job.number
         ))),
     }
+}
+
+/// `turnbook ship`: one round of shipping, now.
+pub fn ship_now(cfg: &Config) -> Result<ShipReport> {
+    let target = required_target(cfg)?;
+    let site = site_id(cfg)?;
+    let cfg = cfg.clone();
+    block_on(async move {
+        let mut links = open_links(&cfg, &target, &site).await?;
+        ship_with(&cfg, &mut links, &site).await
+    })
 }
 
 /// First wait after a failed round; it doubles up to [`MAX_BACKOFF`].

@@ -181,6 +181,14 @@ pub async fn event_info(client: &Client, site: &str, seq: i64) -> Result<Option<
     }))
 }
 
+/// Make a connection ready to write batches: a wait for another transaction's rows (two
+/// shippers of one site at once) ends in an error after a minute rather than never, since
+/// a batch also waits, outside the server's sight, for the batch before it to commit.
+pub async fn prepare_writer(client: &Client) -> Result<()> {
+    client.batch_execute("SET lock_timeout = '60s'").await?;
+    Ok(())
+}
+
 /// Write a batch of the site's events in a transaction of its own, and commit it once
 /// `turn` says the batch before it is committed (true), or roll it back (false: None).
 /// Returns how many events were new.

@@ -223,7 +223,8 @@ FROM turnbook.lots l
 LEFT JOIN turnbook.lot_figures f ON f.site = l.site AND f.lot = l.lot;
 
 -- Every alert episode of every site: the latest message queued for it (rule, lot, state,
--- severity) and the latest action people took on it.
+-- severity) and the latest action people took on it. Digests (messages with no alert
+-- condition, hence no thread) are left out.
 CREATE OR REPLACE VIEW turnbook.alerts AS
 WITH queued AS (
     SELECT DISTINCT ON (site, body ->> 'alert_key', (body ->> 'episode')::bigint)
@@ -231,13 +232,13 @@ WITH queued AS (
            body ->> 'rule' AS rule, body ->> 'lot' AS lot, body ->> 'state' AS state,
            (body ->> 'severity')::bigint AS severity, body ->> 'queued_at' AS last_queued_at
     FROM turnbook.events
-    WHERE kind = 'alert-queued'
+    WHERE kind = 'alert-queued' AND body ->> 'thread_message_id' IS NOT NULL
     ORDER BY site, body ->> 'alert_key', (body ->> 'episode')::bigint, seq DESC
 ), first_queued AS (
     SELECT site, body ->> 'alert_key' AS alert_key, (body ->> 'episode')::bigint AS episode,
            min(body ->> 'queued_at') AS first_queued_at
     FROM turnbook.events
-    WHERE kind = 'alert-queued'
+    WHERE kind = 'alert-queued' AND body ->> 'thread_message_id' IS NOT NULL
     GROUP BY 1, 2, 3
 ), acted AS (
     SELECT DISTINCT ON (site, alert_key, episode) site, alert_key, episode, action,

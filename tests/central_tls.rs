@@ -13,8 +13,11 @@ use std::path::Path;
 /// The configuration at `config` with `line` added to its `[central]` section.
 fn with_central_line(config: &Path, line: &str) {
     let text = std::fs::read_to_string(config).unwrap();
-    std::fs::write(config, text.replacen("[central]\n", &format!("[central]\n{line}\n"), 1))
-        .unwrap();
+    std::fs::write(
+        config,
+        text.replacen("[central]\n", &format!("[central]\n{line}\n"), 1),
+    )
+    .unwrap();
 }
 
 fn text(out: &std::process::Output) -> String {
@@ -76,7 +79,10 @@ fn shipping_over_tls_works_and_plain_or_unknown_servers_are_refused() {
     pg::tls::make_ca(root.path(), "stranger");
     with_central_line(
         &other,
-        &format!("ca_file = \"{}\"", root.path().join("stranger.pem").display()),
+        &format!(
+            "ca_file = \"{}\"",
+            root.path().join("stranger.pem").display()
+        ),
     );
     pg::exports(&other, "other", 0, 2);
     pg::ingest(&other);

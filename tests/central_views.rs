@@ -61,7 +61,9 @@ fn computed_figures_reach_the_center_and_are_replaced_on_recompute() {
     assert!(demo.status.success(), "{demo:?}");
     let cfg = plant.join("turnbook.toml");
     let mut text = std::fs::read_to_string(&cfg).unwrap();
-    text.push_str(&format!("\n[site]\nid = \"south\"\n[central]\nurl = \"{url}\"\n"));
+    text.push_str(&format!(
+        "\n[site]\nid = \"south\"\n[central]\nurl = \"{url}\"\n"
+    ));
     std::fs::write(&cfg, text).unwrap();
     let db = plant.join("turnbook.db");
 
@@ -77,7 +79,10 @@ fn computed_figures_reach_the_center_and_are_replaced_on_recompute() {
                     crossing_cycle, crossing_date, order_by_date, next_batch_verdict";
     let here = local_rows(
         &db,
-        &format!("SELECT {} FROM lot_results ORDER BY lot", as_text(lot_cols, false)),
+        &format!(
+            "SELECT {} FROM lot_results ORDER BY lot",
+            as_text(lot_cols, false)
+        ),
     );
     let there = pg::rows(
         &url,
@@ -100,7 +105,10 @@ fn computed_figures_reach_the_center_and_are_replaced_on_recompute() {
                     activity_basis";
     let here = local_rows(
         &db,
-        &format!("SELECT {} FROM cycle_results ORDER BY batch_id", as_text(cyc_cols, false)),
+        &format!(
+            "SELECT {} FROM cycle_results ORDER BY batch_id",
+            as_text(cyc_cols, false)
+        ),
     );
     let there = pg::rows(
         &url,
@@ -166,7 +174,11 @@ fn computed_figures_reach_the_center_and_are_replaced_on_recompute() {
     );
     let central_episodes = pg::rows(&url, "SELECT count(*)::text FROM turnbook.alerts");
     assert_eq!(local_episodes, central_episodes);
-    assert_ne!(central_episodes[0][0].as_deref(), Some("0"), "the demo raises alerts");
+    assert_ne!(
+        central_episodes[0][0].as_deref(),
+        Some("0"),
+        "the demo raises alerts"
+    );
     let digests = pg::rows(
         &url,
         "SELECT count(*)::text FROM turnbook.alerts WHERE rule = 'digest'",

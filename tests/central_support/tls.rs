@@ -37,7 +37,10 @@ fn server_owner() -> Option<(u32, u32)> {
         return Some((m.uid(), m.gid()));
     }
     let id = |flag: &str| -> u32 {
-        let out = Command::new("id").args([flag, "postgres"]).output().unwrap();
+        let out = Command::new("id")
+            .args([flag, "postgres"])
+            .output()
+            .unwrap();
         String::from_utf8_lossy(&out.stdout).trim().parse().unwrap()
     };
     Some((id("-u"), id("-g")))
@@ -69,8 +72,15 @@ fn as_owner(owner: Option<(u32, u32)>, program: &Path) -> Command {
 pub fn make_ca(dir: &Path, name: &str) {
     run(Command::new("openssl")
         .current_dir(dir)
-        .args(["req", "-x509", "-newkey", "rsa:2048", "-nodes", "-days", "2"])
-        .args(["-keyout", &format!("{name}.key"), "-out", &format!("{name}.pem")])
+        .args([
+            "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-days", "2",
+        ])
+        .args([
+            "-keyout",
+            &format!("{name}.key"),
+            "-out",
+            &format!("{name}.pem"),
+        ])
         .args(["-subj", &format!("/CN=turnbook test {name}")]));
 }
 
@@ -78,7 +88,14 @@ pub fn make_ca(dir: &Path, name: &str) {
 fn make_server_cert(dir: &Path, ca: &str) {
     run(Command::new("openssl")
         .current_dir(dir)
-        .args(["req", "-newkey", "rsa:2048", "-nodes", "-keyout", "server.key"])
+        .args([
+            "req",
+            "-newkey",
+            "rsa:2048",
+            "-nodes",
+            "-keyout",
+            "server.key",
+        ])
         .args(["-out", "server.csr", "-subj", "/CN=127.0.0.1"]));
     std::fs::write(
         dir.join("server.ext"),
@@ -89,7 +106,13 @@ fn make_server_cert(dir: &Path, ca: &str) {
         .current_dir(dir)
         .args(["x509", "-req", "-in", "server.csr", "-days", "2"])
         .args(["-CA", &format!("{ca}.pem"), "-CAkey", &format!("{ca}.key")])
-        .args(["-CAcreateserial", "-out", "server.pem", "-extfile", "server.ext"]));
+        .args([
+            "-CAcreateserial",
+            "-out",
+            "server.pem",
+            "-extfile",
+            "server.ext",
+        ]));
 }
 
 /// A port nobody listens on now.

@@ -77,3 +77,26 @@ fn copies_new_events_skips_held_ones_and_rolls_back_a_batch_out_of_turn() {
     );
     assert_eq!(parsed, Some(10));
 }
+
+#[test]
+fn connections_out_of_range_are_refused_with_the_key_named() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("turnbook.toml");
+    for (n, ok) in [(0, false), (1, true), (8, true), (9, false)] {
+        std::fs::write(
+            &path,
+            format!("[central]\nurl = \"postgresql://u@h/db\"\nconnections = {n}\n"),
+        )
+        .unwrap();
+        match turnbook::config::Config::load(&path) {
+            Ok(c) => {
+                assert!(ok, "connections = {n} accepted");
+                assert_eq!(c.central.unwrap().connections, n);
+            }
+            Err(e) => {
+                assert!(!ok, "connections = {n} refused: {e}");
+                assert!(e.to_string().contains("central.connections"), "{e}");
+            }
+        }
+    }
+}

@@ -181,6 +181,9 @@ pub struct Central {
     /// Ship from the service (`watch`); `turnbook ship` works either way.
     #[serde(default = "default_true")]
     pub ship: bool,
+    /// Connections a shipping round writes batches over at once (they commit in order).
+    #[serde(default = "default_ship_connections")]
+    pub connections: usize,
     /// For `turnbook central verify` at the center: each site's chain key file, by site
     /// id, so that its keyed links can be recomputed there.
     #[serde(default)]
@@ -196,6 +199,7 @@ impl std::fmt::Debug for Central {
             .field("batch_events", &self.batch_events)
             .field("interval_seconds", &self.interval_seconds)
             .field("ship", &self.ship)
+            .field("connections", &self.connections)
             .finish_non_exhaustive()
     }
 }
@@ -204,6 +208,9 @@ fn default_ship_batch() -> usize {
     5000
 }
 fn default_ship_interval() -> u64 {
+    2
+}
+fn default_ship_connections() -> usize {
     2
 }
 fn default_true() -> bool {
@@ -654,6 +661,9 @@ impl Config {
             }
             if !(1..=3600).contains(&c.interval_seconds) {
                 return Err(self.invalid("central.interval_seconds", "expected 1 to 3600"));
+            }
+            if !(1..=8).contains(&c.connections) {
+                return Err(self.invalid("central.connections", "expected 1 to 8"));
             }
         }
         Ok(())

@@ -15,10 +15,12 @@ pub fn ship(cfg: &Config, json: bool) -> CmdResult {
         .as_ref()
         .map_or_else(|| "none (nothing to ship)".to_string(), |h| h.to_string());
     println!(
-        "site {}: {} event(s) shipped, {} already there; central head {head}",
+        "site {}: {} event(s) shipped, {} already there; central head {head}; figures of {} \
+         lot(s) replaced",
         printable(&r.site),
         r.shipped,
-        r.already_there
+        r.already_there,
+        r.figures_replaced
     );
     Ok(0)
 }

@@ -106,6 +106,8 @@ pub struct ShipReport {
     pub shipped: u64,
     /// Events sent that it had already (another shipper was quicker).
     pub already_there: u64,
+    /// Lots whose computed figures were replaced (or removed) at the central store.
+    pub figures_replaced: u64,
     /// The site's newest event at the central store after the round.
     #[serde(serialize_with = "head_text")]
     pub central_head: Option<Head>,
@@ -156,21 +158,167 @@ async fn agreed_head(client: &Client, db: &std::path::Path, site: &str) -> Resul
     }
 }
 
+fn connections(cfg: &Config) -> usize {
+    cfg.central.as_ref().map_or(2, |c| c.connections).max(1)
+}
+
+/// Connect as many times as configured: the first connection makes the schema if missing
+/// and records the site.
+async fn open_links(cfg: &Config, target: &Target, site: &str) -> Result<Vec<Client>> {
+    let mut links = vec![open_central(cfg, target, site).await?];
+    for _ in 1..connections(cfg) {
+        links.push(central::connect(target).await?);
+    }
+    for link in &links {
+        central::prepare_writer(link).await?;
+    }
+    Ok(links)
+}
+
+/// One batch for a writer: its events, the commit of the batch before it (none for the
+/// round's first) and the signal of its own commit.
+struct Job {
+    number: u64,
+    events: Vec<StoredEvent>,
+    after: Option<tokio::sync::oneshot::Receiver<()>>,
+    done: tokio::sync::oneshot::Sender<()>,
+}
+
+/// What a writer did in a round: events sent and new; or the failed batch's number and why.
+type Written = std::result::Result<(u64, u64), (u64, NotebookError)>;
+
 /// Ship every event the central store lacks, in batches, from its head on. A reader
-/// thread fetches the next batch from SQLite while the previous one is being inserted.
-async fn ship_with(cfg: &Config, client: &Client, site: &str) -> Result<ShipReport> {
+/// thread fetches batches from SQLite; the connections write batches at the same time,
+/// but each commits only after the batch before it has: the central copy of a site is
+/// always a gapless prefix of its chain (resuming from its head is right, and `central
+/// verify` never sees a hole that a batch still in flight would fill).
+async fn ship_with(cfg: &Config, links: &mut Vec<Client>, site: &str) -> Result<ShipReport> {
     let db = cfg.database_path();
-    let from = agreed_head(client, &db, site).await?;
+    let first = links
+        .first()
+        .ok_or_else(|| NotebookError::Refused("no central connection".into()))?;
+    let from = agreed_head(first, &db, site).await?;
     let mut report = ShipReport {
         site: site.to_string(),
         shipped: 0,
         already_there: 0,
+        figures_replaced: 0,
         central_head: from.clone(),
     };
-    let after = from.map_or(0, |h| h.seq);
-    let batch = batch_events(cfg);
     let (tx, mut rx) = tokio::sync::mpsc::channel::<Vec<StoredEvent>>(2);
-    let reader = tokio::task::spawn_blocking(move || -> Result<()> {
+    let reader = spawn_reader(db, from.map_or(0, |h| h.seq), batch_events(cfg), tx);
+    let mut queues = Vec::new();
+    let mut writers = Vec::new();
+    for client in std::mem::take(links) {
+        let (q, jobs) = tokio::sync::mpsc::channel::<Job>(1);
+        queues.push(q);
+        writers.push(tokio::spawn(batch_writer(client, site.to_string(), jobs)));
+    }
+    let (mut number, mut after, mut last) = (0u64, None, None);
+    while let Some(events) = rx.recv().await {
+        let (done, next) = tokio::sync::oneshot::channel();
+        let head = events.last().map(|e| Head {
+            seq: e.seq,
+            hash: e.hash.clone(),
+        });
+        let job = Job {
+            number,
+            events,
+            after: after.replace(next),
+            done,
+        };
+        let queue = &queues[(number % queues.len() as u64) as usize];
+        if queue.send(job).await.is_err() {
+            break; // that writer failed: its error is reported below
+        }
+        number += 1;
+        last = head.or(last);
+    }
+    drop(rx);
+    drop(queues);
+    let mut failed: Option<(u64, NotebookError)> = None;
+    for w in writers {
+        let (client, written) = w
+            .await
+            .map_err(|e| NotebookError::Refused(format!("a central writer failed: {e}")))?;
+        links.push(client);
+        match written {
+            Ok((sent, new)) => {
+                report.shipped += new;
+                report.already_there += sent - new;
+            }
+            Err((n, e)) if failed.as_ref().is_none_or(|(m, _)| n < *m) => failed = Some((n, e)),
+            Err(_) => {}
+        }
+    }
+    if let Some((_, e)) = failed {
+        return Err(e);
+    }
+    reader
+        .await
+        .map_err(|e| NotebookError::Refused(format!("the local reader failed: {e}")))??;
+    if number > 0 {
+        central::mark_shipped(&links[0], site).await?;
+        report.central_head = last.or(report.central_head);
+    }
+    report.figures_replaced = ship_figures(cfg, &mut links[0], site).await?;
+    Ok(report)
+}
+
+/// Lots whose figures are replaced in one central transaction.
+const FIGURES_LOTS_PER_BATCH: usize = 200;
+
+/// Bring the central copy of the site's computed figures up to date: the lots whose
+/// figures the site recomputed since (or that the center lacks) are replaced whole, lots
+/// the site no longer holds figures for are removed. Derived rows, not events: nothing
+/// here touches the chain. Returns how many lots changed.
+async fn ship_figures(cfg: &Config, client: &mut Client, site: &str) -> Result<u64> {
+    let held = central::central_figure_versions(client, site).await?;
+    let db = cfg.database_path();
+    let at = db.clone();
+    let local = local_read(move || central::local_figure_versions(&at)).await?;
+    let here: std::collections::HashSet<&str> = local.iter().map(|(l, _)| l.as_str()).collect();
+    let gone: Vec<String> = held
+        .keys()
+        .filter(|l| !here.contains(l.as_str()))
+        .cloned()
+        .collect();
+    let stale: Vec<String> = local
+        .into_iter()
+        .filter(|(lot, v)| held.get(lot) != Some(v))
+        .map(|(lot, _)| lot)
+        .collect();
+    let mut changed = gone.len() as u64;
+    if !gone.is_empty() {
+        central::replace_figures(client, site, &central::FiguresBatch::default(), &gone).await?;
+    }
+    for chunk in stale.chunks(FIGURES_LOTS_PER_BATCH) {
+        let lots = chunk.to_vec();
+        let at = db.clone();
+        let batch = local_read(move || central::local_figures(&at, &lots)).await?;
+        central::replace_figures(client, site, &batch, &[]).await?;
+        changed += chunk.len() as u64;
+    }
+    Ok(changed)
+}
+
+/// Run a read of the site's database off the async threads.
+async fn local_read<T: Send + 'static>(
+    read: impl FnOnce() -> std::result::Result<T, CentralError> + Send + 'static,
+) -> Result<T> {
+    Ok(tokio::task::spawn_blocking(read)
+        .await
+        .map_err(|e| NotebookError::Refused(format!("the local reader failed: {e}")))??)
+}
+
+/// The reader: batches of the events after `after`, in order, until there are no more.
+fn spawn_reader(
+    db: std::path::PathBuf,
+    after: i64,
+    batch: usize,
+    tx: tokio::sync::mpsc::Sender<Vec<StoredEvent>>,
+) -> tokio::task::JoinHandle<Result<()>> {
+    tokio::task::spawn_blocking(move || -> Result<()> {
         let conn = central::open_local_reader(&db)?;
         let mut after = after;
         loop {
@@ -183,22 +331,46 @@ async fn ship_with(cfg: &Config, client: &Client, site: &str) -> Result<ShipRepo
                 return Ok(());
             }
         }
-    });
-    while let Some(events) = rx.recv().await {
-        let n = central::insert_events(client, site, &events).await?;
-        report.shipped += n;
-        report.already_there += events.len() as u64 - n;
-        if let Some(last) = events.last() {
-            report.central_head = Some(Head {
-                seq: last.seq,
-                hash: last.hash.clone(),
-            });
+    })
+}
+
+/// One connection's writer: its batches in turn, each in a transaction that commits after
+/// the batch before it (on whichever connection) has; a failure rolls back its batch and
+/// every later one.
+async fn batch_writer(
+    mut client: Client,
+    site: String,
+    mut jobs: tokio::sync::mpsc::Receiver<Job>,
+) -> (Client, Written) {
+    let (mut sent, mut new) = (0u64, 0u64);
+    while let Some(job) = jobs.recv().await {
+        let number = job.number;
+        sent += job.events.len() as u64;
+        match write_in_turn(&mut client, &site, job).await {
+            Ok(n) => new += n,
+            Err(e) => return (client, Err((number, e))),
         }
     }
-    reader
-        .await
-        .map_err(|e| NotebookError::Refused(format!("the local reader failed: {e}")))??;
-    Ok(report)
+    (client, Ok((sent, new)))
+}
+
+async fn write_in_turn(client: &mut Client, site: &str, job: Job) -> Result<u64> {
+    let turn = async {
+        match job.after {
+            Some(before) => before.await.is_ok(),
+            None => true,
+        }
+    };
+    match central::write_batch(client, site, &job.events, turn).await? {
+        Some(n) => {
+            let _ = job.done.send(());
+            Ok(n)
+        }
+        None => Err(NotebookError::Refused(format!(
+            "batch {} not committed: an earlier batch failed",
+            job.number
+        ))),
+    }
 }
 
 /// `turnbook ship`: one round of shipping, now.
@@ -207,8 +379,8 @@ pub fn ship_now(cfg: &Config) -> Result<ShipReport> {
     let site = site_id(cfg)?;
     let cfg = cfg.clone();
     block_on(async move {
-        let client = open_central(&cfg, &target, &site).await?;
-        ship_with(&cfg, &client, &site).await
+        let mut links = open_links(&cfg, &target, &site).await?;
+        ship_with(&cfg, &mut links, &site).await
     })
 }
 
@@ -243,16 +415,13 @@ async fn ship_loop(
 ) {
     let interval = Duration::from_secs(cfg.central.as_ref().map_or(2, |c| c.interval_seconds));
     let mut backoff = FIRST_BACKOFF;
-    let mut client: Option<Client> = None;
+    let mut links: Vec<Client> = Vec::new();
     while !*stop.borrow() {
         let round = async {
-            if client.as_ref().is_none_or(Client::is_closed) {
-                client = Some(open_central(&cfg, &target, &site).await?);
+            if links.is_empty() || links.iter().any(Client::is_closed) {
+                links = open_links(&cfg, &target, &site).await?;
             }
-            match &client {
-                Some(c) => ship_with(&cfg, c, &site).await,
-                None => Err(NotebookError::Refused("no central connection".into())),
-            }
+            ship_with(&cfg, &mut links, &site).await
         };
         let wait = match round.await {
             Ok(r) => {
@@ -265,7 +434,7 @@ async fn ship_loop(
                 interval
             }
             Err(e) => {
-                client = None;
+                links.clear();
                 tracing::warn!(site = %site, error = %e, retry_in_s = backoff.as_secs(),
                     "shipping to the central store failed; the events wait here");
                 let w = backoff;

@@ -181,18 +181,119 @@ pub async fn event_info(client: &Client, site: &str, seq: i64) -> Result<Option<
     }))
 }
 
-/// Insert a batch of the site's events (one statement, so all or none); events the store
-/// holds already are left as they are. Returns how many were new.
-pub async fn insert_events(client: &Client, site: &str, events: &[StoredEvent]) -> Result<u64> {
+/// Make a connection ready to write batches: a wait for another transaction's rows (two
+/// shippers of one site at once) ends in an error after a minute rather than never, since
+/// a batch also waits, outside the server's sight, for the batch before it to commit.
+pub async fn prepare_writer(client: &Client) -> Result<()> {
+    client.batch_execute("SET lock_timeout = '60s'").await?;
+    Ok(())
+}
+
+/// Write a batch of the site's events in a transaction of its own, and commit it once
+/// `turn` says the batch before it is committed (true), or roll it back (false: None).
+/// Returns how many events were new.
+pub async fn write_batch(
+    client: &mut Client,
+    site: &str,
+    events: &[StoredEvent],
+    turn: impl std::future::Future<Output = bool>,
+) -> Result<Option<u64>> {
+    let mut tx = client.transaction().await?;
+    let n = write_events(&mut tx, site, events).await?;
+    if !turn.await {
+        tx.rollback().await?;
+        return Ok(None);
+    }
+    tx.commit().await?;
+    Ok(Some(n))
+}
+
+/// Insert a batch of the site's events in `tx`; events the store holds already are left as
+/// they are. Returns how many were new. The batch is copied straight into the table
+/// (binary COPY, the server's quickest path); should any of its events be there already
+/// (another shipper was quicker), the copy is undone and the batch inserted row by row
+/// with `ON CONFLICT DO NOTHING` instead, so a repeat inserts nothing.
+async fn write_events(
+    tx: &mut tokio_postgres::Transaction<'_>,
+    site: &str,
+    events: &[StoredEvent],
+) -> Result<u64> {
     if events.is_empty() {
         return Ok(0);
     }
+    let attempt = tx.transaction().await?;
+    match copy_events(&attempt, site, events).await {
+        Ok(n) => {
+            attempt.commit().await?;
+            Ok(n)
+        }
+        Err(CentralError::Postgres(e))
+            if e.code() == Some(&tokio_postgres::error::SqlState::UNIQUE_VIOLATION) =>
+        {
+            attempt.rollback().await?;
+            insert_events(tx, site, events).await
+        }
+        Err(e) => Err(e),
+    }
+}
+
+/// Binary COPY of the batch into `turnbook.events` (fails on an event held already).
+async fn copy_events(
+    tx: &tokio_postgres::Transaction<'_>,
+    site: &str,
+    events: &[StoredEvent],
+) -> Result<u64> {
+    use tokio_postgres::binary_copy::BinaryCopyInWriter;
+    use tokio_postgres::types::Type;
+    let sink = tx
+        .copy_in(
+            "COPY turnbook.events (site, seq, at, actor, kind, subject, payload, prev_hash, hash)
+             FROM STDIN (FORMAT binary)",
+        )
+        .await?;
+    let types = [
+        Type::TEXT,
+        Type::INT8,
+        Type::TEXT,
+        Type::TEXT,
+        Type::TEXT,
+        Type::TEXT,
+        Type::TEXT,
+        Type::TEXT,
+        Type::TEXT,
+    ];
+    let mut writer = std::pin::pin!(BinaryCopyInWriter::new(sink, &types));
+    for e in events {
+        writer
+            .as_mut()
+            .write(&[
+                &site,
+                &e.seq,
+                &e.at,
+                &e.actor,
+                &e.kind,
+                &e.subject,
+                &e.payload,
+                &e.prev_hash,
+                &e.hash,
+            ])
+            .await?;
+    }
+    Ok(writer.finish().await?)
+}
+
+/// The batch as one multi-row insert that skips events held already.
+async fn insert_events(
+    tx: &tokio_postgres::Transaction<'_>,
+    site: &str,
+    events: &[StoredEvent],
+) -> Result<u64> {
     let seq: Vec<i64> = events.iter().map(|e| e.seq).collect();
     let col = |f: fn(&StoredEvent) -> &str| events.iter().map(f).collect::<Vec<&str>>();
     let (at, actor, kind) = (col(|e| &e.at), col(|e| &e.actor), col(|e| &e.kind));
     let (subject, payload) = (col(|e| &e.subject), col(|e| &e.payload));
     let (prev, hash) = (col(|e| &e.prev_hash), col(|e| &e.hash));
-    let n = client
+    Ok(tx
         .execute(
             "INSERT INTO turnbook.events
                  (site, seq, at, actor, kind, subject, payload, prev_hash, hash)
@@ -203,14 +304,19 @@ pub async fn insert_events(client: &Client, site: &str, events: &[StoredEvent]) 
                 &site, &seq, &at, &actor, &kind, &subject, &payload, &prev, &hash,
             ],
         )
-        .await?;
+        .await?)
+}
+
+/// Note the time of the site's last shipping round (once a round, not per batch: batches
+/// of one round run on several connections at once and would queue on the site's row).
+pub async fn mark_shipped(client: &Client, site: &str) -> Result<()> {
     client
         .execute(
             "UPDATE turnbook.sites SET last_shipped = now() WHERE site = $1",
             &[&site],
         )
         .await?;
-    Ok(n)
+    Ok(())
 }
 
 /// The sites the central store knows, by id.
@@ -359,4 +465,156 @@ pub fn local_hash(conn: &Connection, seq: i64) -> Result<Option<String>> {
             r.get(0)
         })
         .optional()?)
+}
+
+// ---- computed figures: derived rows, replaced whole per lot ----
+
+/// A lot's figures version: after which event, and when, the site computed them.
+pub type FiguresVersion = (i64, String);
+
+/// The versions of the site's lot figures that the central store holds, by lot.
+pub async fn central_figure_versions(
+    client: &Client,
+    site: &str,
+) -> Result<std::collections::HashMap<String, FiguresVersion>> {
+    let rows = client
+        .query(
+            "SELECT lot, after_seq, computed_at FROM turnbook.lot_figures WHERE site = $1",
+            &[&site],
+        )
+        .await?;
+    rows.iter()
+        .map(|r| Ok((r.try_get(0)?, (r.try_get(1)?, r.try_get(2)?))))
+        .collect()
+}
+
+/// One round's figures of some lots, each row a JSON object (as the site's tables hold
+/// them, flags as arrays).
+#[derive(Debug, Default)]
+pub struct FiguresBatch {
+    pub lots: Vec<String>,
+    pub lot_rows: Vec<String>,
+    pub cycle_rows: Vec<String>,
+}
+
+/// Replace the central figures of `batch.lots` (and drop those of `gone`, lots the site
+/// holds no figures for any more) in one transaction.
+pub async fn replace_figures(
+    client: &mut Client,
+    site: &str,
+    batch: &FiguresBatch,
+    gone: &[String],
+) -> Result<()> {
+    let tx = client.transaction().await?;
+    let mut lots: Vec<&str> = batch.lots.iter().map(String::as_str).collect();
+    lots.extend(gone.iter().map(String::as_str));
+    tx.execute(
+        "DELETE FROM turnbook.cycle_figures WHERE site = $1 AND lot = ANY($2)",
+        &[&site, &lots],
+    )
+    .await?;
+    tx.execute(
+        "DELETE FROM turnbook.lot_figures WHERE site = $1 AND lot = ANY($2)",
+        &[&site, &lots],
+    )
+    .await?;
+    let lot_rows = format!("[{}]", batch.lot_rows.join(","));
+    tx.execute(
+        "INSERT INTO turnbook.lot_figures (site, lot, state, model, latest_activity,
+             cumulative_ton, forecast_status, crossing_cycle, crossing_cycle_lower,
+             crossing_cycle_upper, crossing_date, crossing_date_early, crossing_date_late,
+             order_by_date, next_batch_verdict, next_batch_activity, next_batch_activity_lower,
+             abrupt_loss, flags, attention, after_seq, computed_at)
+         SELECT $1, lot, state, model, latest_activity, cumulative_ton, forecast_status,
+                crossing_cycle, crossing_cycle_lower, crossing_cycle_upper, crossing_date,
+                crossing_date_early, crossing_date_late, order_by_date, next_batch_verdict,
+                next_batch_activity, next_batch_activity_lower, abrupt_loss <> 0, flags,
+                attention, after_seq, computed_at
+         FROM jsonb_to_recordset($2::text::jsonb) AS r(lot text, state text, model text,
+             latest_activity float8, cumulative_ton float8, forecast_status text,
+             crossing_cycle float8, crossing_cycle_lower float8, crossing_cycle_upper float8,
+             crossing_date text, crossing_date_early text, crossing_date_late text,
+             order_by_date text, next_batch_verdict text, next_batch_activity float8,
+             next_batch_activity_lower float8, abrupt_loss int, flags jsonb, attention jsonb,
+             after_seq bigint, computed_at text)",
+        &[&site, &lot_rows],
+    )
+    .await?;
+    let cycle_rows = format!("[{}]", batch.cycle_rows.join(","));
+    tx.execute(
+        "INSERT INTO turnbook.cycle_figures (site, batch_id, lot, cycle_no, ton,
+             ton_per_mol_metal_available, cumulative_ton, tof_average_per_h, tof_initial_per_h,
+             k_app_per_h, k_app_se_per_h, activity, activity_se, activity_basis,
+             metal_charged_mmol, metal_available_mmol, catalyst_to_substrate_mol_per_mol,
+             flags, after_seq, computed_at)
+         SELECT $1, r.* FROM jsonb_to_recordset($2::text::jsonb) AS r(batch_id text, lot text,
+             cycle_no bigint, ton float8, ton_per_mol_metal_available float8,
+             cumulative_ton float8, tof_average_per_h float8, tof_initial_per_h float8,
+             k_app_per_h float8, k_app_se_per_h float8, activity float8, activity_se float8,
+             activity_basis text, metal_charged_mmol float8, metal_available_mmol float8,
+             catalyst_to_substrate_mol_per_mol float8, flags jsonb, after_seq bigint,
+             computed_at text)",
+        &[&site, &cycle_rows],
+    )
+    .await?;
+    tx.commit().await?;
+    Ok(())
+}
+
+/// The versions of the figures the site holds, by lot.
+pub fn local_figure_versions(db: &Path) -> Result<Vec<(String, FiguresVersion)>> {
+    let conn = open_local_reader(db)?;
+    let mut stmt = conn.prepare_cached("SELECT lot, after_seq, computed_at FROM lot_figures")?;
+    let rows = stmt.query_map([], |r| Ok((r.get(0)?, (r.get(1)?, r.get(2)?))))?;
+    let versions = rows.collect::<std::result::Result<_, _>>()?;
+    Ok(versions)
+}
+
+/// The site's figures of these lots as JSON rows, read in one snapshot (so a lot's and
+/// its cycles' rows come from the same recompute).
+pub fn local_figures(db: &Path, lots: &[String]) -> Result<FiguresBatch> {
+    let conn = open_local_reader(db)?;
+    let tx = conn.unchecked_transaction()?;
+    let mut out = FiguresBatch::default();
+    let mut lot_stmt = tx.prepare_cached(
+        "SELECT lot, json_object('lot', lot, 'state', state, 'model', model,
+             'latest_activity', latest_activity, 'cumulative_ton', cumulative_ton,
+             'forecast_status', forecast_status, 'crossing_cycle', crossing_cycle,
+             'crossing_cycle_lower', crossing_cycle_lower,
+             'crossing_cycle_upper', crossing_cycle_upper, 'crossing_date', crossing_date,
+             'crossing_date_early', crossing_date_early,
+             'crossing_date_late', crossing_date_late, 'order_by_date', order_by_date,
+             'next_batch_verdict', next_batch_verdict,
+             'next_batch_activity', next_batch_activity,
+             'next_batch_activity_lower', next_batch_activity_lower,
+             'abrupt_loss', abrupt_loss, 'flags', json(flags), 'attention', json(attention),
+             'after_seq', after_seq, 'computed_at', computed_at)
+         FROM lot_figures WHERE lot = ?1",
+    )?;
+    let mut cycle_stmt = tx.prepare_cached(
+        "SELECT json_object('batch_id', batch_id, 'lot', lot, 'cycle_no', cycle_no,
+             'ton', ton, 'ton_per_mol_metal_available', ton_per_mol_metal_available,
+             'cumulative_ton', cumulative_ton, 'tof_average_per_h', tof_average_per_h,
+             'tof_initial_per_h', tof_initial_per_h, 'k_app_per_h', k_app_per_h,
+             'k_app_se_per_h', k_app_se_per_h, 'activity', activity,
+             'activity_se', activity_se, 'activity_basis', activity_basis,
+             'metal_charged_mmol', metal_charged_mmol,
+             'metal_available_mmol', metal_available_mmol,
+             'catalyst_to_substrate_mol_per_mol', catalyst_to_substrate_mol_per_mol,
+             'flags', json(flags), 'after_seq', after_seq, 'computed_at', computed_at)
+         FROM cycle_figures WHERE lot = ?1",
+    )?;
+    for lot in lots {
+        let mut rows = lot_stmt.query([lot])?;
+        let Some(r) = rows.next()? else { continue };
+        out.lots.push(r.get(0)?);
+        out.lot_rows.push(r.get(1)?);
+        let cycles = cycle_stmt.query_map([lot], |r| r.get::<_, String>(0))?;
+        for c in cycles {
+            out.cycle_rows.push(c?);
+        }
+    }
+    drop((lot_stmt, cycle_stmt));
+    tx.finish()?;
+    Ok(out)
 }

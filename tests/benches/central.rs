@@ -1,7 +1,9 @@
 //! Shipping rate of a backlog of events into PostgreSQL, and the central verify rate.
 //!
 //! `TURNBOOK_BENCH_PG=postgresql://postgres@127.0.0.1:PORT/postgres cargo bench --bench
-//! central` (TURNBOOK_TEST_PG is taken when TURNBOOK_BENCH_PG is not set). The backlog
+//! central` (TURNBOOK_TEST_PG is taken when TURNBOOK_BENCH_PG is not set;
+//! TURNBOOK_BENCH_CONNECTIONS and TURNBOOK_BENCH_BATCH set `[central] connections` and
+//! `batch_events`). The backlog
 //! (TURNBOOK_BENCH_EVENTS events, default 1,000,000) is written into a new site database
 //! as the backfill writes it: one `file-ingested` event per one-line export file, keyed
 //! chain, site stamp, 10,000 events a transaction. Then `ship` copies it into a new central
@@ -30,13 +32,22 @@ fn main() {
     admin(&server, &format!("CREATE DATABASE {db_name}"));
     let (base, _) = server.rsplit_once('/').expect("a URL ending in /DBNAME");
     let url = format!("{base}/{db_name}");
+    // Connections a round writes over (the default, 2, when not set).
+    let mut connections = std::env::var("TURNBOOK_BENCH_CONNECTIONS")
+        .ok()
+        .map(|n| format!("connections = {n}\n"))
+        .unwrap_or_default();
+    // Events per batch (the default, 5,000, when not set).
+    if let Ok(n) = std::env::var("TURNBOOK_BENCH_BATCH") {
+        connections.push_str(&format!("batch_events = {n}\n"));
+    }
     let key_path = dir.path().join("site.key");
     let cfg_path = dir.path().join("turnbook.toml");
     std::fs::write(
         &cfg_path,
         format!(
             "database = \"t.db\"\n[site]\nid = \"bench\"\n[central]\nurl = \"{url}\"\n\
-             [central.site_keys]\nbench = \"{}\"\n",
+             {connections}[central.site_keys]\nbench = \"{}\"\n",
             key_path.display()
         ),
     )
@@ -52,6 +63,7 @@ fn main() {
         t.elapsed().as_secs_f64()
     );
 
+    println!("load average before shipping: {}", load());
     let t = Instant::now();
     let r = turnbook::notebook::ship_now(&cfg).expect("shipped");
     let s = t.elapsed().as_secs_f64();
@@ -62,6 +74,7 @@ fn main() {
         r.shipped as f64 / s
     );
 
+    println!("load average after shipping: {}", load());
     let t = Instant::now();
     let again = turnbook::notebook::ship_now(&cfg).expect("shipped again");
     println!(
@@ -163,6 +176,13 @@ fn one_file(i: i64) -> Payload {
         ],
         lots: Vec::new(),
     }
+}
+
+/// The 1, 5 and 15 minute load averages.
+fn load() -> String {
+    std::fs::read_to_string("/proc/loadavg")
+        .map(|l| l.split_whitespace().take(3).collect::<Vec<_>>().join(" "))
+        .unwrap_or_default()
 }
 
 fn admin(url: &str, statement: &str) {

@@ -5,6 +5,8 @@
 #![allow(dead_code)]
 
 use std::path::{Path, PathBuf};
+pub mod tls;
+
 use std::process::{Command, Output};
 use std::time::{Duration, Instant};
 
@@ -253,4 +255,18 @@ impl Control {
         }
         panic!("the test server did not start again; see {}", log.display());
     }
+}
+
+/// Every row of `query` at `url`, each column cast to text by the caller.
+pub fn rows(url: &str, query: &str) -> Vec<Vec<Option<String>>> {
+    runtime().block_on(async {
+        let (client, conn) = tokio_postgres::connect(url, tokio_postgres::NoTls)
+            .await
+            .unwrap();
+        tokio::spawn(conn);
+        let rows = client.query(query, &[]).await.unwrap();
+        rows.iter()
+            .map(|r| (0..r.len()).map(|i| r.get(i)).collect())
+            .collect()
+    })
 }

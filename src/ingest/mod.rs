@@ -4,6 +4,7 @@
 //! - `profile`: the `[profiles.NAME]` configuration tables and their validation.
 //! - `units`: the closed list of units and their conversion to canonical units.
 //! - [`parse()`]: one file through one profile into [`ParsedFile`].
+//! - `spreadsheet`: an .xlsx or .ods worksheet read into the same rows as delimited text.
 //! - [`ParseCache`]: [`parse_valid`] for a run of files, resolving each header row once.
 
 mod cache;
@@ -14,6 +15,7 @@ mod number;
 mod parse;
 mod profile;
 mod record;
+mod spreadsheet;
 mod units;
 mod value;
 

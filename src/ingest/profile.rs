@@ -176,6 +176,10 @@ pub struct Profile {
     #[serde(default)]
     pub conversion_uncertainty: Option<AssayUncertainty>,
     pub columns: BTreeMap<String, ColumnSpec>,
+    /// The worksheet to read when a file of this profile is a spreadsheet (.xlsx, .ods);
+    /// the first worksheet when absent. Delimited text ignores it.
+    #[serde(default)]
+    pub sheet: Option<String>,
 }
 
 /// What a column key of a profile stands for.
@@ -327,6 +331,11 @@ impl Profile {
                 "skip_lines: expected at most 10000; found {}",
                 self.skip_lines
             ));
+        }
+        if let Some(name) = &self.sheet
+            && name.trim().is_empty()
+        {
+            return Err("sheet: expected a worksheet's name; found an empty text".into());
         }
         if let Some(f) = &self.datetime_format {
             check_format("datetime_format", f)?;

@@ -454,3 +454,19 @@ fn the_service_registers_a_workbook_dropped_into_its_folder() {
     );
     assert!(status.success(), "{status:?}\n{log}");
 }
+
+#[test]
+fn a_stray_cell_far_away_is_refused_not_read_into_memory() {
+    let mut wb = Workbook::new();
+    let ws = wb.add_worksheet();
+    ws.set_name("Lots").unwrap();
+    for (c, h) in HEADER.iter().enumerate() {
+        ws.write_string(0, c as u16, *h).unwrap();
+    }
+    // The last cell a worksheet has: the area up to it holds 17 billion cells.
+    ws.write_string(1_048_575, 16_383, "x").unwrap();
+    let bytes = wb.save_to_buffer().unwrap();
+    let e = parse(&bytes, &profile("")).unwrap_err().to_string();
+    assert!(e.starts_with("sheet \"Lots\""), "{e}");
+    assert!(e.contains("1048576 rows by 16384 columns"), "{e}");
+}

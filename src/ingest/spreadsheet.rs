@@ -78,21 +78,46 @@ struct Sheet {
     formulas: HashMap<(usize, usize), String>,
 }
 
-/// What an open workbook gives: the chosen sheet's name, values, formulas and merged areas.
-type Parts = (String, Range<Data>, Option<Range<String>>, Vec<Dimensions>);
+/// What an open workbook gives of the chosen worksheet: its name, the cells that hold
+/// something by absolute (row, column), its formulas, its merged areas.
+struct Parts {
+    name: String,
+    values: Vec<((usize, usize), Data)>,
+    formulas: HashMap<(usize, usize), String>,
+    merged: Vec<Dimensions>,
+}
 
 impl Sheet {
     fn open(bytes: &[u8], wanted: Option<&str>) -> Result<Sheet, ParseError> {
-        let (name, values, formulas, merged) = match Xlsx::new(Cursor::new(bytes)) {
+        let parts = match Xlsx::new(Cursor::new(bytes)) {
             Ok(mut book) => {
-                let (name, values, formulas) = pick(&mut book, wanted)?;
+                let name = choose(&book.sheet_names(), wanted)?;
+                let values = xlsx_values(&mut book, &name)?;
+                let formulas = xlsx_formulas(&mut book, &name);
                 let merged = book.merge_cells_by_sheet_name(&name).unwrap_or_default();
-                (name, values, formulas, merged)
+                Parts {
+                    name,
+                    values,
+                    formulas,
+                    merged,
+                }
             }
             Err(xlsx) => match Ods::new(Cursor::new(bytes)) {
                 Ok(mut book) => {
-                    let (name, values, formulas) = pick(&mut book, wanted)?;
-                    (name, values, formulas, Vec::new())
+                    let name = choose(&book.sheet_names(), wanted)?;
+                    let range = book
+                        .worksheet_range(&name)
+                        .map_err(|e| refused(&name, &e.to_string()))?;
+                    let formulas = book
+                        .worksheet_formula(&name)
+                        .map(|f| placed(&f).into_iter().collect())
+                        .unwrap_or_default();
+                    Parts {
+                        values: placed(&range),
+                        name,
+                        formulas,
+                        merged: Vec::new(),
+                    }
                 }
                 Err(_) => {
                     return Err(fail(
@@ -107,57 +132,42 @@ impl Sheet {
                 }
             },
         };
-        let parts: Parts = (name, values, formulas, merged);
         Sheet::lay_out(parts)
     }
 
-    /// Place the cells at their absolute positions, spread merged areas, note formulas.
-    fn lay_out((name, values, formulas, merged): Parts) -> Result<Sheet, ParseError> {
-        let (Some((r0, c0)), Some((r1, c1))) = (values.start(), values.end()) else {
-            return Ok(Sheet {
-                name,
-                rows: Vec::new(),
-                formulas: HashMap::new(),
-            });
-        };
-        let (height, width) = (r1 as usize + 1, c1 as usize + 1);
+    /// Place the cells at their absolute positions and spread merged areas, refusing a
+    /// used area (up to the last cell holding a value or formula) of more than `MAX_CELLS`.
+    fn lay_out(parts: Parts) -> Result<Sheet, ParseError> {
+        let Parts {
+            name,
+            values,
+            formulas,
+            merged,
+        } = parts;
+        let (mut height, mut width) = (0usize, 0usize);
+        for &(r, c) in values.iter().map(|(at, _)| at).chain(formulas.keys()) {
+            height = height.max(r.saturating_add(1));
+            width = width.max(c.saturating_add(1));
+        }
         if height.saturating_mul(width) > MAX_CELLS {
-            return Err(ParseError {
-                sheet: Some(name),
-                ..fail(
-                    None,
-                    None,
-                    &format!("a worksheet of at most {MAX_CELLS} cells up to its last used cell"),
-                    &format!("{height} rows by {width} columns"),
-                )
-            });
+            return Err(too_large(
+                &name,
+                &format!("{height} rows by {width} columns"),
+            ));
         }
         let mut rows = vec![vec![Data::Empty; width]; height];
-        for (r, c, v) in values.used_cells() {
-            if let Some(cell) = rows
-                .get_mut(r0 as usize + r)
-                .and_then(|row| row.get_mut(c0 as usize + c))
-            {
-                *cell = v.clone();
+        for ((r, c), v) in values {
+            if let Some(cell) = rows.get_mut(r).and_then(|row| row.get_mut(c)) {
+                *cell = v;
             }
         }
         for area in &merged {
             spread(&mut rows, area);
         }
-        let mut by_cell = HashMap::new();
-        if let Some(f) = formulas
-            && let Some((fr, fc)) = f.start()
-        {
-            for (r, c, text) in f.used_cells() {
-                if !text.trim().is_empty() {
-                    by_cell.insert((fr as usize + r, fc as usize + c), text.clone());
-                }
-            }
-        }
         Ok(Sheet {
             name,
             rows,
-            formulas: by_cell,
+            formulas,
         })
     }
 
@@ -323,17 +333,8 @@ fn duration(found: &str) -> (String, String) {
     )
 }
 
-/// The chosen worksheet of an open workbook: the named one, else the first.
-fn pick<RS, R>(
-    book: &mut R,
-    wanted: Option<&str>,
-) -> Result<(String, Range<Data>, Option<Range<String>>), ParseError>
-where
-    RS: std::io::Read + std::io::Seek,
-    R: Reader<RS>,
-    R::Error: std::fmt::Display,
-{
-    let names = book.sheet_names();
+/// The worksheet to read: the named one (exactly, else ignoring case), else the first.
+fn choose(names: &[String], wanted: Option<&str>) -> Result<String, ParseError> {
     let name = match wanted {
         Some(w) => names.iter().find(|n| n.as_str() == w).or_else(|| {
             names
@@ -342,32 +343,104 @@ where
         }),
         None => names.first(),
     };
-    let Some(name) = name.cloned() else {
-        let listed: Vec<String> = names.iter().map(|n| shown(n)).collect();
-        let expected = match wanted {
-            Some(w) => format!("a worksheet named {} (the profile's sheet)", shown(w)),
-            None => "a worksheet".to_string(),
-        };
-        let found = if listed.is_empty() {
-            "a workbook without worksheets".to_string()
-        } else {
-            format!("the worksheets {}", listed.join(", "))
-        };
-        return Err(fail(None, None, &expected, &found));
+    if let Some(name) = name {
+        return Ok(name.clone());
+    }
+    let listed: Vec<String> = names.iter().map(|n| shown(n)).collect();
+    let expected = match wanted {
+        Some(w) => format!("a worksheet named {} (the profile's sheet)", shown(w)),
+        None => "a worksheet".to_string(),
     };
-    let values = book.worksheet_range(&name).map_err(|e| ParseError {
-        sheet: Some(name.clone()),
+    let found = if listed.is_empty() {
+        "a workbook without worksheets".to_string()
+    } else {
+        format!("the worksheets {}", listed.join(", "))
+    };
+    Err(fail(None, None, &expected, &found))
+}
+
+fn refused(name: &str, why: &str) -> ParseError {
+    ParseError {
+        sheet: Some(name.to_owned()),
         ..fail(
             None,
             None,
             "a readable worksheet",
-            &format!("a worksheet the reader refused ({})", shown(&e.to_string())),
+            &format!("a worksheet the reader refused ({})", shown(why)),
         )
-    })?;
-    // Formulas only explain an empty cached value; a sheet whose formulas cannot be read
-    // still has its values.
-    let formulas = book.worksheet_formula(&name).ok();
-    Ok((name, values, formulas))
+    }
+}
+
+fn too_large(name: &str, found: &str) -> ParseError {
+    ParseError {
+        sheet: Some(name.to_owned()),
+        ..fail(
+            None,
+            None,
+            &format!("a worksheet of at most {MAX_CELLS} cells up to its last used cell"),
+            found,
+        )
+    }
+}
+
+/// The non-empty cells of a range at their absolute positions.
+fn placed<T: calamine::CellType + PartialEq>(range: &Range<T>) -> Vec<((usize, usize), T)> {
+    let Some((r0, c0)) = range.start() else {
+        return Vec::new();
+    };
+    let empty = T::default();
+    range
+        .used_cells()
+        .filter(|(_, _, v)| **v != empty)
+        .map(|(r, c, v)| ((r0 as usize + r, c0 as usize + c), v.clone()))
+        .collect()
+}
+
+/// An .xlsx worksheet's values, streamed: the reader's own range would first allocate
+/// every cell of the area up to the last used one, which a crafted file can make huge.
+fn xlsx_values(
+    book: &mut Xlsx<Cursor<&[u8]>>,
+    name: &str,
+) -> Result<Vec<((usize, usize), Data)>, ParseError> {
+    let mut reader = book
+        .worksheet_cells_reader(name)
+        .map_err(|e| refused(name, &e.to_string()))?;
+    let mut out = Vec::new();
+    while let Some(cell) = reader
+        .next_cell()
+        .map_err(|e| refused(name, &e.to_string()))?
+    {
+        let value = Data::from(cell.get_value().clone());
+        if value == Data::Empty {
+            continue;
+        }
+        if out.len() >= MAX_CELLS {
+            return Err(too_large(name, "more cells with values"));
+        }
+        let (r, c) = cell.get_position();
+        out.push(((r as usize, c as usize), value));
+    }
+    Ok(out)
+}
+
+/// An .xlsx worksheet's formulas; they only explain an empty stored value, so a sheet whose
+/// formulas cannot be read still has its values.
+fn xlsx_formulas(book: &mut Xlsx<Cursor<&[u8]>>, name: &str) -> HashMap<(usize, usize), String> {
+    let mut out = HashMap::new();
+    let Ok(mut reader) = book.worksheet_cells_reader(name) else {
+        return out;
+    };
+    while let Ok(Some(cell)) = reader.next_formula() {
+        if out.len() >= MAX_CELLS {
+            break;
+        }
+        let text = cell.get_value();
+        if !text.trim().is_empty() {
+            let (r, c) = cell.get_position();
+            out.insert((r as usize, c as usize), text.clone());
+        }
+    }
+    out
 }
 
 /// A merged area shows its first cell's value over the whole area.

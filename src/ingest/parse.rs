@@ -33,9 +33,6 @@ pub fn parse(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseError> 
 /// [`parse`] for a profile the caller has validated already (once for many files). A reader of
 /// many files keeps a [`ParseCache`](super::ParseCache) instead, which resolves each header once.
 pub fn parse_valid(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseError> {
-    if super::spreadsheet::is_spreadsheet(bytes) {
-        return super::spreadsheet::parse_sheet(bytes, profile, None);
-    }
     let text = decode(bytes, profile.encoding)?;
     parse_text(&text, profile)
 }

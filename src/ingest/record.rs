@@ -78,7 +78,8 @@ impl ParseError {
     fn describe(&self) -> String {
         let mut at = Vec::new();
         if let Some(s) = &self.sheet {
-            at.push(format!("sheet {}", super::parse::shown(s)));
+            // Debug quotes the name and escapes control characters.
+            at.push(format!("sheet {s:?}"));
         }
         let in_sheet = self.sheet.is_some();
         if let Some(l) = self.line {

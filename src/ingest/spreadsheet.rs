@@ -29,8 +29,10 @@ use calamine::{Data, Dimensions, Ods, Range, Reader, Xlsx};
 use super::dates::DateLayouts;
 use super::delimited::Record;
 use super::number::short_number;
-use super::parse::{Layout, shown};
-use super::profile::{DEFAULT_DATE_FORMAT, DEFAULT_DATETIME_FORMATS, DecimalMark, Field, Profile};
+use super::parse::{self as text, Layout, shown};
+use super::profile::{
+    DEFAULT_DATE_FORMAT, DEFAULT_DATETIME_FORMATS, DecimalMark, Field, Profile, ProfileKind,
+};
 use super::record::{CycleRow, LotRow, ParseError, ParsedFile};
 
 /// A ZIP archive's first bytes: both .xlsx and .ods are ZIP archives, and no delimited
@@ -40,13 +42,35 @@ const ZIP_MAGIC: &[u8] = b"PK\x03\x04";
 /// Most cells of a worksheet's used area turnbook reads (a lot sheet has some hundreds).
 const MAX_CELLS: usize = 2_000_000;
 
+/// Decode and parse one export file, delimited text or a workbook (told by content).
+pub fn parse(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseError> {
+    if !is_spreadsheet(bytes) {
+        return text::parse(bytes, profile);
+    }
+    profile.validate().map_err(|msg| ParseError {
+        field: Some("profile".into()),
+        ..fail(None, None, "a valid export profile", &msg)
+    })?;
+    parse_sheet(bytes, profile, None)
+}
+
+/// [`parse`] for a profile the caller has validated already (once for many files); a reader
+/// of many files keeps a `ParseCache` instead.
+pub fn parse_valid(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseError> {
+    if is_spreadsheet(bytes) {
+        parse_sheet(bytes, profile, None)
+    } else {
+        text::parse_valid(bytes, profile)
+    }
+}
+
 /// Whether these bytes are a spreadsheet file (a ZIP archive) rather than delimited text.
 pub(super) fn is_spreadsheet(bytes: &[u8]) -> bool {
     bytes.starts_with(ZIP_MAGIC)
 }
 
-/// Read one spreadsheet file through a validated profile, as [`super::parse_valid`] reads
-/// text; `now` bounds the plausible dates as [`super::ParseCache::set_now`] does.
+/// Read one spreadsheet file through a validated profile, as [`parse_valid`] reads text;
+/// `now` bounds the plausible dates as the parse cache's present time does.
 pub(super) fn parse_sheet(
     bytes: &[u8],
     profile: &Profile,
@@ -78,11 +102,14 @@ struct Sheet {
     formulas: HashMap<(usize, usize), String>,
 }
 
+/// Cells that hold something, by absolute (row, column), 0-based.
+type Placed<T> = Vec<((usize, usize), T)>;
+
 /// What an open workbook gives of the chosen worksheet: its name, the cells that hold
 /// something by absolute (row, column), its formulas, its merged areas.
 struct Parts {
     name: String,
-    values: Vec<((usize, usize), Data)>,
+    values: Placed<Data>,
     formulas: HashMap<(usize, usize), String>,
     merged: Vec<Dimensions>,
 }
@@ -209,10 +236,10 @@ impl Sheet {
             let record = Record::from_cells(&self.row_text(r, &fields, profile)?);
             layout.check_width(&record, line, header_line)?;
             match profile.kind {
-                super::ProfileKind::Cycles => {
+                ProfileKind::Cycles => {
                     cycles.push(layout.cycle_row(profile, &dates, &record, line)?);
                 }
-                super::ProfileKind::Lots => {
+                ProfileKind::Lots => {
                     lots.push(layout.lot_row(profile, &dates, &record, line)?);
                 }
             }
@@ -384,7 +411,7 @@ fn too_large(name: &str, found: &str) -> ParseError {
 }
 
 /// The non-empty cells of a range at their absolute positions.
-fn placed<T: calamine::CellType + PartialEq>(range: &Range<T>) -> Vec<((usize, usize), T)> {
+fn placed<T: calamine::CellType + PartialEq>(range: &Range<T>) -> Placed<T> {
     let Some((r0, c0)) = range.start() else {
         return Vec::new();
     };
@@ -398,10 +425,7 @@ fn placed<T: calamine::CellType + PartialEq>(range: &Range<T>) -> Vec<((usize, u
 
 /// An .xlsx worksheet's values, streamed: the reader's own range would first allocate
 /// every cell of the area up to the last used one, which a crafted file can make huge.
-fn xlsx_values(
-    book: &mut Xlsx<Cursor<&[u8]>>,
-    name: &str,
-) -> Result<Vec<((usize, usize), Data)>, ParseError> {
+fn xlsx_values(book: &mut Xlsx<Cursor<&[u8]>>, name: &str) -> Result<Placed<Data>, ParseError> {
     let mut reader = book
         .worksheet_cells_reader(name)
         .map_err(|e| refused(name, &e.to_string()))?;
@@ -466,8 +490,8 @@ fn finish(
     header_line: u64,
 ) -> Result<ParsedFile, ParseError> {
     let out = match profile.kind {
-        super::ProfileKind::Cycles if !cycles.is_empty() => ParsedFile::Cycles(cycles),
-        super::ProfileKind::Lots if !lots.is_empty() => ParsedFile::Lots(lots),
+        ProfileKind::Cycles if !cycles.is_empty() => ParsedFile::Cycles(cycles),
+        ProfileKind::Lots if !lots.is_empty() => ParsedFile::Lots(lots),
         _ => {
             return Err(fail(
                 Some(header_line),

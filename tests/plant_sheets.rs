@@ -470,3 +470,28 @@ fn a_stray_cell_far_away_is_refused_not_read_into_memory() {
     assert!(e.starts_with("sheet \"Lots\""), "{e}");
     assert!(e.contains("1048576 rows by 16384 columns"), "{e}");
 }
+
+#[test]
+fn ingest_with_a_named_profile_reads_a_workbook_from_anywhere() {
+    let dir = tempfile::tempdir().unwrap();
+    let cfg = plant(dir.path());
+    std::fs::create_dir_all(dir.path().join("inbox")).unwrap();
+    let path = dir.path().join("inbox/from-the-supplier.ods");
+    std::fs::write(&path, ods_sheet(OdsCell::Number(10.5))).unwrap();
+    // Outside every watched folder no profile applies...
+    let out = turnbook(&cfg, &["ingest", path.to_str().unwrap()]);
+    assert_eq!(out.status.code(), Some(1), "{out:?}");
+    assert!(stored_lots(dir.path()).is_empty());
+    // ...until the command line names one; the rejected content is then read anew.
+    let out = turnbook(
+        &cfg,
+        &["ingest", path.to_str().unwrap(), "--profile", "lot-sheet"],
+    );
+    assert!(out.status.success(), "{out:?}");
+    let lots = stored_lots(dir.path());
+    assert_eq!(lots.len(), 2);
+    assert!(
+        lots[0].contains(&"lot=Text(\"PD-S-1\")".to_string()),
+        "{lots:?}"
+    );
+}

@@ -304,10 +304,7 @@ impl Sheet {
                     "a value (save the file from a spreadsheet program, which stores each \
                      formula's result)"
                         .into(),
-                    format!(
-                        "the formula {} with no stored result",
-                        shown(&format!("={f}"))
-                    ),
+                    format!("the formula {} with no stored result", shown(&as_typed(f))),
                 )),
                 None => Ok(String::new()),
             },
@@ -329,6 +326,17 @@ impl Sheet {
             Data::DurationIso(s) => Err(duration(s)),
             other => Ok(plain_text(other, profile.decimal)),
         }
+    }
+}
+
+/// A formula as a person types it: `=` and the expression (.xlsx stores it without the
+/// `=`, .ods with an `of:=` namespace prefix).
+fn as_typed(formula: &str) -> String {
+    let f = formula.strip_prefix("of:").unwrap_or(formula);
+    if f.starts_with('=') {
+        f.to_owned()
+    } else {
+        format!("={f}")
     }
 }
 
@@ -654,6 +662,14 @@ mod tests {
             .unwrap_err();
         assert!(expected.starts_with("a value"), "{expected}");
         assert_eq!(found, "the formula \"=SUM(A1:A3)\" with no stored result");
+        let s2 = sheet(&[((4, 2), "of:=SUM([.A1:.A3])")]);
+        let (_, found) = s2
+            .cell_text(4, 2, &Data::Empty, Some(Field::Loading), &p)
+            .unwrap_err();
+        assert_eq!(
+            found,
+            "the formula \"=SUM([.A1:.A3])\" with no stored result"
+        );
         // An empty cell without a formula is simply empty.
         assert_eq!(s.cell_text(4, 3, &Data::Empty, None, &p), Ok(String::new()));
         let err = Data::Error(CellErrorType::Div0);

@@ -495,3 +495,42 @@ fn ingest_with_a_named_profile_reads_a_workbook_from_anywhere() {
         "{lots:?}"
     );
 }
+
+#[test]
+fn a_cycles_export_saved_as_a_workbook_gives_the_same_rows() {
+    let p = Profile::from_toml(
+        "kind = \"cycles\"\ndatetime_format = \"%d.%m.%Y %H:%M\"\n\
+         columns.batch_id = { header = \"Batch\" }\ncolumns.lot = { header = \"Lot\" }\n\
+         columns.started_at = { header = \"Start\" }\n\
+         columns.conversion = { header = \"Conversion\", unit = \"%\" }\n",
+    )
+    .unwrap();
+    let csv = "Batch,Lot,Start,Conversion\nB-1,PD-S-1,05.10.2026 14:30,97.25\n\
+               B-2,PD-S-1,06.10.2026 08:00,96.1\n";
+    let mut wb = Workbook::new();
+    let ws = wb.add_worksheet();
+    for (c, h) in ["Batch", "Lot", "Start", "Conversion"].iter().enumerate() {
+        ws.write_string(0, c as u16, *h).unwrap();
+    }
+    let stamp = Format::new().set_num_format("dd.mm.yyyy hh:mm");
+    for (r, (batch, (d, h, m), conv)) in [
+        ("B-1", (5, 14, 30), 97.25),
+        // A conversion computed in the sheet, with its binary noise.
+        ("B-2", (6, 8, 0), 0.961 * 100.0),
+    ]
+    .into_iter()
+    .enumerate()
+    {
+        let r = r as u32 + 1;
+        ws.write_string(r, 0, batch).unwrap();
+        ws.write_string(r, 1, "PD-S-1").unwrap();
+        let t = ExcelDateTime::from_ymd(2026, 10, d)
+            .unwrap()
+            .and_hms(h, m, 0)
+            .unwrap();
+        ws.write_datetime_with_format(r, 2, &t, &stamp).unwrap();
+        ws.write_number(r, 3, conv).unwrap();
+    }
+    let from_xlsx = parse(&wb.save_to_buffer().unwrap(), &p).unwrap();
+    assert_eq!(from_xlsx, parse(csv.as_bytes(), &p).unwrap());
+}

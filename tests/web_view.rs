@@ -156,8 +156,15 @@ async fn the_api_has_the_command_lines_json_shapes() {
     let (st, _, body) = get(&v, "/api/lots", None).await;
     assert_eq!(st, StatusCode::OK);
     let api: serde_json::Value = serde_json::from_str(&body).unwrap();
-    let cli = serde_json::to_value(turnbook::notebook::lot_lines(&cfg).unwrap()).unwrap();
+    // `lots --json` prints the lines stamped with the JSON schema version.
+    let cli =
+        turnbook::notebook::with_schema(&turnbook::notebook::lot_lines(&cfg).unwrap()).unwrap();
     assert_eq!(api, cli, "/api/lots differs from `lots --json`");
+    let lots = api.as_array().unwrap();
+    assert!(!lots.is_empty());
+    for line in lots {
+        assert_eq!(line["schema"], turnbook::notebook::JSON_SCHEMA, "{line}");
+    }
     let (st, _, body) = get(&v, "/api/lots/PT-AL-2610-B", None).await;
     assert_eq!(st, StatusCode::OK);
     let one: serde_json::Value = serde_json::from_str(&body).unwrap();
@@ -165,6 +172,20 @@ async fn the_api_has_the_command_lines_json_shapes() {
     let cycles = serde_json::to_value(turnbook::notebook::cycle_lines(&state)).unwrap();
     assert_eq!(one["lot"], "PT-AL-2610-B");
     assert_eq!(one["cycles"], cycles);
+    assert_eq!(one["schema"], turnbook::notebook::JSON_SCHEMA);
+    for path in ["/api/lots/PT-AL-2610-B/history", "/api/status"] {
+        let (st, _, body) = get(&v, path, None).await;
+        assert_eq!(st, StatusCode::OK, "{path}");
+        let doc: serde_json::Value = serde_json::from_str(&body).unwrap();
+        let objects = match doc.as_array() {
+            Some(items) => items.clone(),
+            None => vec![doc],
+        };
+        assert!(!objects.is_empty(), "{path}");
+        for o in objects {
+            assert_eq!(o["schema"], turnbook::notebook::JSON_SCHEMA, "{path}: {o}");
+        }
+    }
     let (st, _, _) = get(&v, "/api/lots/NO-SUCH-LOT", None).await;
     assert_eq!(st, StatusCode::NOT_FOUND);
 }

@@ -573,21 +573,12 @@ pub fn printable(s: &str) -> String {
 /// The version of the shape of the JSON the commands print (`lots`, `cycles`, `history`,
 /// `status`, `alerts`, `fit`, `verify`); every printed object carries it as `schema`. Raised when a field is renamed,
 /// retyped or removed; new fields do not raise it.
-pub const JSON_SCHEMA: u32 = 1;
+pub const JSON_SCHEMA: u32 = crate::notebook::JSON_SCHEMA;
 
 /// Print `value` as pretty JSON with `schema` added to the object, or to each object of
 /// an array.
 pub fn print_json(value: &impl serde::Serialize) -> CmdResult {
-    let mut v = serde_json::to_value(value)?;
-    let mark = |o: &mut serde_json::Value| {
-        if let Some(map) = o.as_object_mut() {
-            map.insert("schema".into(), JSON_SCHEMA.into());
-        }
-    };
-    match &mut v {
-        serde_json::Value::Array(items) => items.iter_mut().for_each(mark),
-        other => mark(other),
-    }
+    let v = crate::notebook::with_schema(value)?;
     println!("{}", serde_json::to_string_pretty(&v)?);
     Ok(0)
 }

@@ -79,6 +79,9 @@ impl ParseCache {
         bytes: &[u8],
         profile: &Profile,
     ) -> Result<ParsedFile, ParseError> {
+        if super::spreadsheet::is_spreadsheet(bytes) {
+            return super::spreadsheet::parse_sheet(bytes, profile, self.now);
+        }
         let text = decode(bytes, profile.encoding)?;
         let body = Body::open(&text, profile)?;
         match self.layout_for(profile, &body)? {

@@ -72,6 +72,7 @@ fn check_stray_bom(text: &str) -> Result<(), ParseError> {
             "a byte-order mark at line {line}, column {column} (an invisible character that \
              would become part of a value; were two exports joined into one?)"
         ),
+        sheet: None,
     })
 }
 
@@ -100,6 +101,7 @@ fn decode_utf8(bytes: &[u8]) -> Result<(String, usize), ParseError> {
                     bad.join(" "),
                     bom + good
                 ),
+                sheet: None,
             })
         }
     }
@@ -119,6 +121,7 @@ fn decode_utf16(
             field: None,
             expected: format!("{name} text"),
             found: "a byte-order mark of the other byte order at byte offset 0 (set encoding = \"auto\" or the other UTF-16 variant)".into(),
+            sheet: None,
         });
     }
     let bom = if bytes.starts_with(own_bom) { 2 } else { 0 };
@@ -148,6 +151,7 @@ fn decode_utf16(
                     shown.join(" "),
                     bom + start
                 ),
+                sheet: None,
             })
         }
         // The buffer was sized by the decoder's own worst case; treat a shortfall as an
@@ -158,6 +162,7 @@ fn decode_utf16(
             field: None,
             expected: format!("{name} text"),
             found: "more text than the decoder's buffer estimate".into(),
+            sheet: None,
         }),
     }
 }
@@ -192,6 +197,7 @@ fn check_nul(text: &str, bom: usize, encoding: Encoding) -> Result<(), ParseErro
         field: None,
         expected: "text without NUL characters".into(),
         found: format!("a NUL character at byte offset {offset}{hint}"),
+        sheet: None,
     })
 }
 

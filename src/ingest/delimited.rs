@@ -59,6 +59,23 @@ impl Record {
     pub(crate) fn iter(&self) -> impl Iterator<Item = &str> + '_ {
         (0..self.len).map(|i| self.get(i).unwrap_or(""))
     }
+
+    /// A record of the given cells (a spreadsheet's row, read as text), so that a row from
+    /// any source goes through the same field checks.
+    pub(crate) fn from_cells<S: AsRef<str>>(cells: &[S]) -> Record {
+        let mut fields = Vec::new();
+        let mut ends = Vec::with_capacity(cells.len());
+        for c in cells {
+            fields.extend_from_slice(c.as_ref().as_bytes());
+            ends.push(fields.len());
+        }
+        Record {
+            fields,
+            ends,
+            len: cells.len(),
+            start: 0,
+        }
+    }
 }
 
 /// The records of one text, in order.

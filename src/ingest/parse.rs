@@ -25,6 +25,7 @@ pub fn parse(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseError> 
         field: Some("profile".into()),
         expected: "a valid export profile".into(),
         found: msg,
+        sheet: None,
     })?;
     parse_valid(bytes, profile)
 }
@@ -167,6 +168,7 @@ fn err(
         field: field.map(str::to_owned),
         expected: expected.to_owned(),
         found: found.to_owned(),
+        sheet: None,
     }
 }
 
@@ -400,9 +402,21 @@ impl Layout {
         })
     }
 
+    /// The profile's columns found in the header: 0-based position, what each holds, its key.
+    pub(super) fn columns(&self) -> impl Iterator<Item = (usize, Field, &str)> + '_ {
+        self.bound
+            .iter()
+            .map(|b| (b.index, b.field, b.key.as_str()))
+    }
+
     /// A short row is a truncated line; extra cells are tolerated only when empty
     /// (spreadsheet exports often end rows with a stray delimiter).
-    fn check_width(&self, record: &Record, line: u64, header_line: u64) -> Result<(), ParseError> {
+    pub(super) fn check_width(
+        &self,
+        record: &Record,
+        line: u64,
+        header_line: u64,
+    ) -> Result<(), ParseError> {
         let n = record.len();
         if n < self.width {
             // Name the first missing cell by its profile key when mapped, else its header.
@@ -443,7 +457,7 @@ impl Layout {
         Ok(())
     }
 
-    fn cycle_row(
+    pub(super) fn cycle_row(
         &self,
         profile: &Profile,
         dates: &DateLayouts,
@@ -497,7 +511,7 @@ impl Layout {
         Ok(row)
     }
 
-    fn lot_row(
+    pub(super) fn lot_row(
         &self,
         profile: &Profile,
         dates: &DateLayouts,

@@ -139,7 +139,7 @@ pub struct ColumnSpec {
 }
 
 /// One instrument kind's export layout.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
+#[derive(Clone, PartialEq, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct Profile {
     pub kind: ProfileKind,
@@ -176,6 +176,36 @@ pub struct Profile {
     #[serde(default)]
     pub conversion_uncertainty: Option<AssayUncertainty>,
     pub columns: BTreeMap<String, ColumnSpec>,
+    /// The worksheet to read when a file of this profile is a spreadsheet (.xlsx, .ods);
+    /// the first worksheet when absent. Delimited text ignores it.
+    #[serde(default)]
+    pub sheet: Option<String>,
+}
+
+/// As `derive(Debug)` writes it, but `sheet` only when set: the configuration's analysis
+/// fingerprint is taken over this text, and a profile that names no worksheet must keep
+/// the fingerprint it had before `sheet` existed (else every stored fit would count as
+/// made under other settings).
+impl std::fmt::Debug for Profile {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        let mut d = f.debug_struct("Profile");
+        d.field("kind", &self.kind)
+            .field("delimiter", &self.delimiter)
+            .field("decimal", &self.decimal)
+            .field("encoding", &self.encoding)
+            .field("skip_lines", &self.skip_lines)
+            .field("datetime_format", &self.datetime_format)
+            .field("date_format", &self.date_format)
+            .field("temperature_range_k", &self.temperature_range_k)
+            .field("earliest_date", &self.earliest_date)
+            .field("latest_days_ahead", &self.latest_days_ahead)
+            .field("conversion_uncertainty", &self.conversion_uncertainty)
+            .field("columns", &self.columns);
+        if let Some(sheet) = &self.sheet {
+            d.field("sheet", sheet);
+        }
+        d.finish()
+    }
 }
 
 /// What a column key of a profile stands for.
@@ -328,6 +358,11 @@ impl Profile {
                 self.skip_lines
             ));
         }
+        if let Some(name) = &self.sheet
+            && name.trim().is_empty()
+        {
+            return Err("sheet: expected a worksheet's name; found an empty text".into());
+        }
         if let Some(f) = &self.datetime_format {
             check_format("datetime_format", f)?;
         }
@@ -446,6 +481,55 @@ impl Profile {
 
 #[cfg(test)]
 mod tests {
+    /// The profile as it was before `sheet`, with the derived `Debug` the fingerprint read.
+    mod before {
+        use super::super::*;
+        // Read by its derived Debug only, which the dead-code lint does not count.
+        #[allow(dead_code)]
+        #[derive(Debug)]
+        pub struct Profile {
+            pub kind: ProfileKind,
+            pub delimiter: Delimiter,
+            pub decimal: DecimalMark,
+            pub encoding: Encoding,
+            pub skip_lines: usize,
+            pub datetime_format: Option<String>,
+            pub date_format: Option<String>,
+            pub temperature_range_k: Option<[f64; 2]>,
+            pub earliest_date: Option<String>,
+            pub latest_days_ahead: Option<u32>,
+            pub conversion_uncertainty: Option<AssayUncertainty>,
+            pub columns: BTreeMap<String, ColumnSpec>,
+        }
+    }
+
+    #[test]
+    fn a_profile_without_a_sheet_reads_as_before_for_the_fingerprint() {
+        let toml = "kind = \"cycles\"\ndatetime_format = \"%d.%m.%Y %H:%M\"\n\
+                    conversion_uncertainty = { absolute = 0.005 }\n\
+                    columns.batch_id = { header = \"Batch\" }\n\
+                    columns.conversion = { header = \"Conv\", unit = \"%\" }\n";
+        let p = Profile::from_toml(toml).unwrap();
+        let old = before::Profile {
+            kind: p.kind,
+            delimiter: p.delimiter,
+            decimal: p.decimal,
+            encoding: p.encoding,
+            skip_lines: p.skip_lines,
+            datetime_format: p.datetime_format.clone(),
+            date_format: p.date_format.clone(),
+            temperature_range_k: p.temperature_range_k,
+            earliest_date: p.earliest_date.clone(),
+            latest_days_ahead: p.latest_days_ahead,
+            conversion_uncertainty: p.conversion_uncertainty,
+            columns: p.columns.clone(),
+        };
+        assert_eq!(format!("{p:?}"), format!("{old:?}"));
+        assert_eq!(format!("{p:#?}"), format!("{old:#?}"));
+        let named = Profile::from_toml(&format!("{toml}sheet = \"Lots\"\n")).unwrap();
+        assert!(format!("{named:?}").ends_with("sheet: \"Lots\" }"));
+    }
+
     use super::*;
 
     const BASE: &str = r#"

@@ -68,16 +68,27 @@ pub struct ParseError {
     pub expected: String,
     /// What was found instead (shortened, control characters escaped).
     pub found: String,
+    /// The worksheet, when the file is a spreadsheet: `line` is then its row and `column`
+    /// its column (shown as letters, A for 1).
+    #[serde(default)]
+    pub sheet: Option<String>,
 }
 
 impl ParseError {
     fn describe(&self) -> String {
         let mut at = Vec::new();
-        if let Some(l) = self.line {
-            at.push(format!("line {l}"));
+        if let Some(s) = &self.sheet {
+            // Debug quotes the name and escapes control characters.
+            at.push(format!("sheet {s:?}"));
         }
-        if let Some(c) = self.column {
-            at.push(format!("column {c}"));
+        let in_sheet = self.sheet.is_some();
+        if let Some(l) = self.line {
+            at.push(format!("{} {l}", if in_sheet { "row" } else { "line" }));
+        }
+        match self.column {
+            Some(c) if in_sheet => at.push(format!("column {}", column_letters(c))),
+            Some(c) => at.push(format!("column {c}")),
+            None => {}
         }
         if let Some(f) = &self.field {
             at.push(format!("field '{f}'"));
@@ -88,5 +99,47 @@ impl ParseError {
             format!("{}: ", at.join(", "))
         };
         format!("{at}expected {}, found {}", self.expected, self.found)
+    }
+}
+
+/// A spreadsheet's name of a 1-based column: A for 1, Z for 26, AA for 27.
+pub fn column_letters(column: u32) -> String {
+    let mut n = column;
+    let mut out = Vec::new();
+    while n > 0 {
+        let rem = (n - 1) % 26;
+        out.push(char::from(b'A' + rem as u8));
+        n = (n - 1) / 26;
+    }
+    out.iter().rev().collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn column_letters_as_spreadsheets_name_them() {
+        assert_eq!(column_letters(1), "A");
+        assert_eq!(column_letters(26), "Z");
+        assert_eq!(column_letters(27), "AA");
+        assert_eq!(column_letters(52), "AZ");
+        assert_eq!(column_letters(703), "AAA");
+    }
+
+    #[test]
+    fn a_sheet_names_row_and_lettered_column() {
+        let e = ParseError {
+            line: Some(4),
+            column: Some(3),
+            field: Some("loading".into()),
+            expected: "a number".into(),
+            found: "\"x\"".into(),
+            sheet: Some("Lots".into()),
+        };
+        assert_eq!(
+            e.to_string(),
+            "sheet \"Lots\", row 4, column C, field 'loading': expected a number, found \"x\""
+        );
     }
 }

@@ -97,6 +97,30 @@ fn lot_figures(s: &LotState) -> LotFigures {
 /// rows carry it as `schema`. Raised when a column is renamed or its unit changes.
 pub const EXPORT_SCHEMA: u32 = 1;
 
+/// The version of the shape of the JSON documents the command line prints and the web
+/// view's `/api` serves (`lots`, `cycles`, `history`, `status`, `alerts`, `fit`,
+/// `verify`); every object carries it as `schema`. Raised when a field is renamed, retyped
+/// or removed; new fields do not raise it.
+pub const JSON_SCHEMA: u32 = 1;
+
+/// `value` as JSON with `schema` ([`JSON_SCHEMA`]) added to the object, or to each object
+/// of an array: one stamp for the command line and the web view alike.
+pub fn with_schema(
+    value: &impl serde::Serialize,
+) -> std::result::Result<serde_json::Value, serde_json::Error> {
+    let mut v = serde_json::to_value(value)?;
+    let mark = |o: &mut serde_json::Value| {
+        if let Some(map) = o.as_object_mut() {
+            map.insert("schema".into(), JSON_SCHEMA.into());
+        }
+    };
+    match &mut v {
+        serde_json::Value::Array(items) => items.iter_mut().for_each(mark),
+        other => mark(other),
+    }
+    Ok(v)
+}
+
 /// Significant digits of a measured value as exported: enough for any instrument, few
 /// enough to drop the noise of unit conversions (333.85 K − 273.15 = 60.69999999999999).
 const MEASURED_DIGITS: usize = 10;

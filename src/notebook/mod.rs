@@ -58,8 +58,8 @@ pub use entries::{
 pub use entries::{SignOffRequest, sign_off_from};
 pub use error::{NotebookError, Result};
 pub use export::{
-    Cell, EXPORT_SCHEMA, ExportError, NameKind, cells, closest, export_lines, round_sig,
-    suggest_name, write_csv, write_jsonl,
+    Cell, EXPORT_SCHEMA, ExportError, JSON_SCHEMA, NameKind, cells, closest, export_lines,
+    round_sig, suggest_name, with_schema, write_csv, write_jsonl,
 };
 pub use fits::{SeriesFit, SeriesRequest, fit_series, lot_fit};
 pub use history::{HistoryEntry, Status, history, status};

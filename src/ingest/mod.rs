@@ -20,7 +20,7 @@ mod value;
 pub use cache::ParseCache;
 pub use decode::{Encoding, decode};
 pub use number::{parse_number, short_number};
-pub use parse::{parse, parse_text, parse_valid};
+pub use parse::{Chunked, parse, parse_text, parse_valid};
 pub use profile::{ColumnSpec, DecimalMark, Delimiter, Profile, ProfileKind};
 pub use record::*;
 pub use units::{Unit, dimension_of};

@@ -45,7 +45,10 @@ fn a_large_export_is_stored_in_bounded_parts_and_verifies() {
     let cfg = common::reactor_config(root, 100);
     let big = write_export(&root.join("exports"), "large.csv", ROWS, None);
     let size = std::fs::metadata(&big).unwrap().len();
-    assert!(size > 1 << 20, "the export must be a large one: {size} bytes");
+    assert!(
+        size > 1 << 20,
+        "the export must be a large one: {size} bytes"
+    );
     let mut ing = Ingestor::open(cfg.clone()).unwrap();
 
     let FileOutcome::Ingested { stored, .. } = ing.ingest_file(&big).unwrap() else {
@@ -68,7 +71,10 @@ fn a_large_export_is_stored_in_bounded_parts_and_verifies() {
         )
         .unwrap();
     assert_eq!(batch, "LG-031415");
-    assert!((value - conversion(31_415) / 100.0).abs() < 1e-12, "{value}");
+    assert!(
+        (value - conversion(31_415) / 100.0).abs() < 1e-12,
+        "{value}"
+    );
     // Two values a row (lot and conversion), each once in the measurements view.
     assert_eq!(
         count(&ing, "SELECT COUNT(*) FROM measurements"),
@@ -154,14 +160,20 @@ fn a_fault_on_the_last_line_rejects_the_whole_large_file() {
     };
     let last = ROWS + 2;
     assert!(error.contains(&format!("line {last}")), "{error}");
-    assert!(error.contains("Conversion") || error.contains("conversion"), "{error}");
+    assert!(
+        error.contains("Conversion") || error.contains("conversion"),
+        "{error}"
+    );
     assert_eq!(count(&ing, "SELECT COUNT(*) FROM cycles"), 0);
     assert_eq!(
         count(&ing, "SELECT COUNT(*) FROM events WHERE kind = 'file-rows'"),
         0
     );
     assert_eq!(
-        count(&ing, "SELECT COUNT(*) FROM source_files WHERE outcome = 'rejected'"),
+        count(
+            &ing,
+            "SELECT COUNT(*) FROM source_files WHERE outcome = 'rejected'"
+        ),
         1
     );
 }
@@ -195,7 +207,11 @@ fn rows_of_a_large_file_merge_with_stored_batches() {
         panic!("the large export was not ingested");
     };
     assert_eq!(stored.rows_conflict, 1, "{:?}", stored.conflicts);
-    assert!(stored.conflicts[0].contains("LG-030000"), "{:?}", stored.conflicts);
+    assert!(
+        stored.conflicts[0].contains("LG-030000"),
+        "{:?}",
+        stored.conflicts
+    );
     assert_eq!(
         count(&ing, "SELECT COUNT(*) FROM cycles WHERE lot = 'LOT-LARGE'"),
         ROWS as i64

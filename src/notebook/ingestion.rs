@@ -954,16 +954,17 @@ fn store_large(
     large: LargeExport,
     (in_group, touched): (&mut DigestMap<i64>, &mut BTreeMap<String, i64>),
 ) -> Result<FileOutcome, StoreError> {
-    let profile = cfg
-        .profiles
-        .get(&large.profile)
-        .ok_or_else(|| StoreError::Invalid(format!("no export profile named '{}'", large.profile)))?;
+    let profile = cfg.profiles.get(&large.profile).ok_or_else(|| {
+        StoreError::Invalid(format!("no export profile named '{}'", large.profile))
+    })?;
     let mut file = w.begin_large()?;
     let mut cache = ParseCache::new();
     cache.set_now(large.now);
     let read = cache.parse_in_chunks(&large.bytes, profile, PART_ROWS, |rows| match rows {
         ParsedFile::Cycles(rows) => w.large_part(&mut file, &facts, &rows, actor),
-        ParsedFile::Lots(_) => Err(StoreError::Invalid("a lot sheet read as a cycle export".into())),
+        ParsedFile::Lots(_) => Err(StoreError::Invalid(
+            "a lot sheet read as a cycle export".into(),
+        )),
     });
     drop(large.bytes);
     match read {
@@ -1157,13 +1158,14 @@ impl<'a> Reader<'a> {
         cache: &mut ParseCache,
     ) -> Result<Content, String> {
         let name = profile_name.unwrap_or_default();
-        let Some(profile) = self
-            .cfg
-            .profiles
-            .get(name)
-            .filter(|p| p.kind == ingest::ProfileKind::Cycles && valid.get(name) == Some(&Ok(())))
+        let Some(profile) =
+            self.cfg.profiles.get(name).filter(|p| {
+                p.kind == ingest::ProfileKind::Cycles && valid.get(name) == Some(&Ok(()))
+            })
         else {
-            return self.parse(profile_name, &bytes, valid, cache).map(Content::Rows);
+            return self
+                .parse(profile_name, &bytes, valid, cache)
+                .map(Content::Rows);
         };
         cache.set_now(self.now);
         let checked = cache.parse_in_chunks(&bytes, profile, PART_ROWS, |rows| {

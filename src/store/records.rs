@@ -495,18 +495,22 @@ fn stored_measurements(
          ORDER BY e.seq",
     )?;
     let events = stmt
-        .query_map([batch_id], |r| Ok((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?)))?
+        .query_map([batch_id], |r| {
+            Ok((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?))
+        })?
         .collect::<std::result::Result<Vec<_>, _>>()?;
-    if events
-        .iter()
-        .all(|(_, len)| *len < KEEP_PARSED_FROM || *len > KEEP_PARSED_UP_TO)
-    {
+    let kept_size = KEEP_PARSED_FROM..=KEEP_PARSED_UP_TO;
+    if !events.iter().any(|(_, len)| kept_size.contains(len)) {
         return measurements_of(tx, batch_id);
     }
     let mut out = Vec::new();
     for (seq, len) in events {
-        if len < KEEP_PARSED_FROM || len > KEEP_PARSED_UP_TO {
-            out.extend(rows_of_event(tx, seq)?.into_iter().filter(|m| m.batch_id == batch_id));
+        if !kept_size.contains(&len) {
+            out.extend(
+                rows_of_event(tx, seq)?
+                    .into_iter()
+                    .filter(|m| m.batch_id == batch_id),
+            );
             continue;
         }
         if kept.as_ref().is_none_or(|(s, _)| *s != seq) {
@@ -743,7 +747,11 @@ fn record_parsed_in(
 }
 
 /// The rows a file (or a chunk of one) adds, in id order (the order they were taken in).
-fn new_rows<'b>(batches: &'b [BatchWork<'_>], first_new: i64, next_m: i64) -> Vec<&'b MeasurementRow> {
+fn new_rows<'b>(
+    batches: &'b [BatchWork<'_>],
+    first_new: i64,
+    next_m: i64,
+) -> Vec<&'b MeasurementRow> {
     let mut new_measurements: Vec<&MeasurementRow> =
         Vec::with_capacity(usize::try_from(next_m - first_new).unwrap_or(0));
     new_measurements.extend(
@@ -771,10 +779,10 @@ fn write_cycles(
             continue; // nothing new for this batch
         }
         let v = view::derive_cycle(b.batch_id, &b.known, b.excluded, b.first_seq.unwrap_or(seq));
-        if let Some(l) = &v.lot {
-            if !out.lots_touched.contains(l) {
-                out.lots_touched.insert(l.clone());
-            }
+        if let Some(l) = &v.lot
+            && !out.lots_touched.contains(l)
+        {
+            out.lots_touched.insert(l.clone());
         }
         upsert_cycle_prepared(&mut st.cycle_put, &v)?;
     }

@@ -7,7 +7,7 @@
 Writes an invented export of ROWS rows (default 200,000: one lot, one batch a row, about
 14 MB) and a one-row export of another lot into DIR/staging once. Each round starts each
 BIN in turn (alternating, on this noisy machine) as `BIN watch` on an empty database with a
-polled folder, registers the two lots, moves the large export in, moves the small file in
+polled folder, registers the small file's lot (and the large one's with REGISTER_LARGE=1), moves the large export in, moves the small file in
 0.5 s later, and waits until both are recorded. Prints, per run: the large file's time
 from its drop to its record's commit, the service's peak RSS (VmHWM from /proc), and the
 small file's latency from its drop to its record. Then the medians per binary.
@@ -104,9 +104,12 @@ def stage(dirname, rows):
         os.rename(big + ".tmp", big)
     small = os.path.join(staging, "small.csv")
     write_export(small, "LSMALL", 1, 7)
+    # The large lot is left unregistered (pending: stored, not fitted) unless
+    # REGISTER_LARGE=1: a fit over 200,000 cycles takes minutes of its own.
+    big_line = "LBIG,5 % Pd/C,Pd,5.0,10.0\n" if os.environ.get("REGISTER_LARGE") == "1" else ""
     with open(os.path.join(staging, "sheet.csv"), "w") as f:
         f.write("lot,catalyst,metal,loading (%),charged mass (g)\n"
-                "LBIG,5 % Pd/C,Pd,5.0,10.0\nLSMALL,5 % Pd/C,Pd,5.0,10.0\n")
+                f"{big_line}LSMALL,5 % Pd/C,Pd,5.0,10.0\n")
     return staging, big, small
 
 

@@ -7,6 +7,8 @@
 //! Invented data: an imaginary reactor's lot of 50,000 one-row batches.
 
 use std::path::{Path, PathBuf};
+use std::process::Command;
+use std::time::{Duration, Instant};
 
 use turnbook::notebook::{self, FileOutcome, Ingestor};
 
@@ -227,6 +229,66 @@ fn rows_of_a_large_file_merge_with_stored_batches() {
         .unwrap();
     assert!((value - 0.1225).abs() < 1e-12, "{value}");
     assert_eq!(conflicts, 1);
+    let report = notebook::verify(&cfg, &[]).unwrap();
+    assert!(report.findings.is_empty(), "{:?}", report.findings);
+}
+
+#[test]
+fn killed_while_storing_a_large_file_nothing_is_half_stored() {
+    // `turnbook ingest` of the large file is killed with SIGKILL at growing moments (its
+    // one transaction is then either committed or not at all); then it runs to the end.
+    // The file is stored exactly once, every row of it, and the chain verifies.
+    let tmp = tempfile::tempdir().unwrap();
+    let root = tmp.path();
+    let cfg = common::reactor_config(root, 100);
+    let big = write_export(&root.join("exports"), "large.csv", ROWS, None);
+    let config = root.join("turnbook.toml");
+    let ingest = || {
+        Command::new(env!("CARGO_BIN_EXE_turnbook"))
+            .arg("--config")
+            .arg(&config)
+            .arg("ingest")
+            .arg(&big)
+            .env_remove("RUST_LOG")
+            .stdout(std::process::Stdio::null())
+            .stderr(std::process::Stdio::null())
+            .spawn()
+            .unwrap()
+    };
+    let mut killed = 0;
+    for wait_ms in [200u64, 700, 1500, 3000] {
+        let mut child = ingest();
+        let t0 = Instant::now();
+        while t0.elapsed() < Duration::from_millis(wait_ms) {
+            if child.try_wait().unwrap().is_some() {
+                break;
+            }
+            std::thread::sleep(Duration::from_millis(10));
+        }
+        if child.try_wait().unwrap().is_none() {
+            child.kill().unwrap();
+            killed += 1;
+        }
+        child.wait().unwrap();
+    }
+    assert!(killed > 0, "no run was killed before it finished");
+    assert!(ingest().wait().unwrap().success());
+    let ing = Ingestor::open(cfg.clone()).unwrap();
+    assert_eq!(
+        count(
+            &ing,
+            "SELECT COUNT(*) FROM source_files WHERE outcome = 'ingested'"
+        ),
+        1
+    );
+    assert_eq!(
+        count(&ing, "SELECT COUNT(*) FROM cycles WHERE lot = 'LOT-LARGE'"),
+        ROWS as i64
+    );
+    assert_eq!(
+        count(&ing, "SELECT COUNT(*) FROM measurements"),
+        2 * ROWS as i64
+    );
     let report = notebook::verify(&cfg, &[]).unwrap();
     assert!(report.findings.is_empty(), "{:?}", report.findings);
 }

@@ -796,13 +796,6 @@ impl<'a> Writer<'a> {
                 )?,
             };
             let outcome = match (seen, p.result) {
-                (None, Ok(Content::Large(large))) => store_large(
-                    &mut w,
-                    (self.cfg, self.actor),
-                    facts,
-                    large,
-                    (&mut in_group, &mut touched),
-                )?,
                 (Some(of), _) => {
                     w.duplicate(&facts, of, self.actor)?;
                     FileOutcome::Duplicate {
@@ -819,11 +812,11 @@ impl<'a> Writer<'a> {
                     error,
                     q.as_deref(),
                 )?,
-                (None, Ok(Content::Rows(parsed))) => store_parsed(
+                (None, Ok(content)) => store_content(
                     &mut w,
-                    self.actor,
+                    (self.cfg, self.actor),
                     facts,
-                    parsed,
+                    content,
                     (&mut in_group, &mut touched),
                     left,
                 )?,
@@ -943,6 +936,21 @@ fn store_parsed(
     };
     left.facts.push(facts);
     Ok(outcome)
+}
+
+/// Store a readable file's records: parsed whole, or a large export chunk by chunk.
+fn store_content(
+    w: &mut records::FileWriter<'_, '_>,
+    (cfg, actor): (&Config, &str),
+    facts: FileFacts,
+    content: Content,
+    seen: (&mut DigestMap<i64>, &mut BTreeMap<String, i64>),
+    left: &mut Leftovers,
+) -> Result<FileOutcome, StoreError> {
+    match content {
+        Content::Rows(parsed) => store_parsed(w, actor, facts, parsed, seen, left),
+        Content::Large(large) => store_large(w, (cfg, actor), facts, large, seen),
+    }
 }
 
 /// Store a large export chunk by chunk (see [`Content::Large`]); its records are the same

@@ -89,6 +89,10 @@ pub(super) struct Walk<'c, 'k> {
     touched: BTreeSet<String>,
     pub(super) signoffs: Vec<SignOffSeen>,
     outbox: OutboxReplay,
+    /// Large files whose `file-rows` parts were met but not yet their `file-ingested`
+    /// event (written in the same transaction, so none is left at the end), with the
+    /// first part's event.
+    open_parts: BTreeMap<i64, i64>,
 }
 
 impl<'c, 'k> Walk<'c, 'k> {
@@ -112,6 +116,7 @@ impl<'c, 'k> Walk<'c, 'k> {
             touched: BTreeSet::new(),
             signoffs: Vec::new(),
             outbox: OutboxReplay::default(),
+            open_parts: BTreeMap::new(),
         }
     }
 
@@ -239,7 +244,28 @@ impl<'c, 'k> Walk<'c, 'k> {
                 for l in lots {
                     self.lots.insert(l.lot.clone(), (l, seq));
                 }
+                self.open_parts.remove(&file.id);
                 self.files.insert(file.id, (file, seq));
+            }
+            Payload::FileRows {
+                file_id,
+                measurements,
+                ..
+            } => {
+                for m in &measurements {
+                    self.measurement(m, seq);
+                    if m.source_file_id != Some(file_id) {
+                        push(
+                            &mut self.findings,
+                            "events",
+                            seq,
+                            "source_file_id",
+                            format!("{:?} in measurement {}", m.source_file_id, m.id),
+                            format!("{file_id}, the file the part belongs to"),
+                        );
+                    }
+                }
+                self.open_parts.entry(file_id).or_insert(seq);
             }
             Payload::FileDuplicate { file, .. } | Payload::FileRejected { file } => {
                 self.files.insert(file.id, (file, seq));
@@ -356,6 +382,16 @@ impl<'c, 'k> Walk<'c, 'k> {
                 "absent (no event wrote it)",
             );
         })?;
+        for (file_id, seq) in std::mem::take(&mut self.open_parts) {
+            push(
+                &mut self.findings,
+                "events",
+                seq,
+                "file_id",
+                format!("a part of file {file_id} with no file-ingested event after it"),
+                "the file's file-ingested event after its parts",
+            );
+        }
         self.check_counter()?;
         self.check_lots()?;
         self.check_cycles()?;
@@ -472,7 +508,9 @@ impl ParsedEvents {
         let payload = store::replay::event_payload(conn, seq)?
             .and_then(|(_, body)| serde_json::from_str::<Payload>(&body).ok());
         let p = Rc::new(match payload {
-            Some(Payload::FileIngested { measurements, .. }) => Parsed {
+            Some(
+                Payload::FileIngested { measurements, .. } | Payload::FileRows { measurements, .. },
+            ) => Parsed {
                 from_file: true,
                 rows: measurements,
             },

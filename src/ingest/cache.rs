@@ -7,7 +7,7 @@ use std::fmt;
 
 use super::dates::DateLayouts;
 use super::decode::decode;
-use super::parse::{Body, Layout};
+use super::parse::{Body, Chunked, Layout};
 use super::profile::Profile;
 use super::record::{ParseError, ParsedFile};
 
@@ -89,6 +89,28 @@ impl ParseCache {
             None => {
                 let layout = Layout::resolve(profile, body.header(), body.header_line())?;
                 body.rows(profile, &layout, &DateLayouts::unprepared(self.now))
+            }
+        }
+    }
+
+    /// [`ParseCache::parse_valid`] for a large file: the rows are handed to `sink` in
+    /// chunks of at most `chunk` rows, in file order, and never held all at once; returns
+    /// the number of rows. Errors are `parse_valid`'s, met when reading reaches them.
+    pub fn parse_in_chunks<E>(
+        &mut self,
+        bytes: &[u8],
+        profile: &Profile,
+        chunk: usize,
+        mut sink: impl FnMut(ParsedFile) -> Result<(), E>,
+    ) -> Result<u64, Chunked<E>> {
+        let text = decode(bytes, profile.encoding)?;
+        let body = Body::open(&text, profile)?;
+        match self.layout_for(profile, &body)? {
+            Some((layout, dates)) => body.rows_in_chunks(profile, layout, dates, chunk, &mut sink),
+            None => {
+                let layout = Layout::resolve(profile, body.header(), body.header_line())?;
+                let dates = DateLayouts::unprepared(self.now);
+                body.rows_in_chunks(profile, &layout, &dates, chunk, &mut sink)
             }
         }
     }

@@ -102,13 +102,40 @@ impl<'t> Body<'t> {
     /// Read the data rows; `layout` must be the profile's resolution of [`Body::header`]
     /// and `dates` must serve `profile` alone.
     pub(super) fn rows(
-        mut self,
+        self,
         profile: &Profile,
         layout: &Layout,
         dates: &DateLayouts,
     ) -> Result<ParsedFile, ParseError> {
+        let mut all = None;
+        let keep = &mut |rows: ParsedFile| -> Result<(), std::convert::Infallible> {
+            all = Some(rows);
+            Ok(())
+        };
+        match self.rows_in_chunks(profile, layout, dates, usize::MAX, keep) {
+            Ok(_) => {}
+            Err(Chunked::Parse(e)) => return Err(e),
+            Err(Chunked::Sink(never)) => match never {},
+        }
+        all.ok_or_else(|| err(None, None, None, "data rows", "none"))
+    }
+
+    /// Read the data rows and hand them to `sink` in chunks of at most `chunk` rows, in
+    /// file order, so that a large file never holds all its rows at once. A parse error
+    /// stops the reading (chunks before it have been handed over: a caller that must not
+    /// act on part of a bad file reads it once to check it, then again to act).
+    pub(super) fn rows_in_chunks<E>(
+        mut self,
+        profile: &Profile,
+        layout: &Layout,
+        dates: &DateLayouts,
+        chunk: usize,
+        sink: &mut dyn FnMut(ParsedFile) -> Result<(), E>,
+    ) -> Result<u64, Chunked<E>> {
         let header_line = self.header_line;
+        let chunk = chunk.max(1);
         let mut rows = Rows::new(profile.kind);
+        let mut count = 0u64;
         let record = &mut self.record;
         while self.reader.read(record) {
             if is_blank(record) {
@@ -120,24 +147,38 @@ impl<'t> Body<'t> {
                 Rows::Cycles(v) => v.push(layout.cycle_row(profile, dates, record, line)?),
                 Rows::Lots(v) => v.push(layout.lot_row(profile, dates, record, line)?),
             }
+            count += 1;
+            if rows.len() >= chunk {
+                let full = std::mem::replace(&mut rows, Rows::new(profile.kind));
+                sink(full.into_parsed()).map_err(Chunked::Sink)?;
+            }
         }
-        let empty = match &rows {
-            Rows::Cycles(v) => v.is_empty(),
-            Rows::Lots(v) => v.is_empty(),
-        };
-        if empty {
-            return Err(err(
+        if count == 0 {
+            return Err(Chunked::Parse(err(
                 Some(header_line),
                 None,
                 None,
                 &format!("at least one data row after the header on line {header_line}"),
                 "no data rows",
-            ));
+            )));
         }
-        Ok(match rows {
-            Rows::Cycles(v) => ParsedFile::Cycles(v),
-            Rows::Lots(v) => ParsedFile::Lots(v),
-        })
+        if rows.len() > 0 {
+            sink(rows.into_parsed()).map_err(Chunked::Sink)?;
+        }
+        Ok(count)
+    }
+}
+
+/// Why reading a file in chunks stopped: the file, or the caller's handling of a chunk.
+#[derive(Debug)]
+pub enum Chunked<E> {
+    Parse(ParseError),
+    Sink(E),
+}
+
+impl<E> From<ParseError> for Chunked<E> {
+    fn from(e: ParseError) -> Self {
+        Chunked::Parse(e)
     }
 }
 
@@ -151,6 +192,20 @@ impl Rows {
         match kind {
             ProfileKind::Cycles => Rows::Cycles(Vec::new()),
             ProfileKind::Lots => Rows::Lots(Vec::new()),
+        }
+    }
+
+    fn len(&self) -> usize {
+        match self {
+            Rows::Cycles(v) => v.len(),
+            Rows::Lots(v) => v.len(),
+        }
+    }
+
+    fn into_parsed(self) -> ParsedFile {
+        match self {
+            Rows::Cycles(v) => ParsedFile::Cycles(v),
+            Rows::Lots(v) => ParsedFile::Lots(v),
         }
     }
 }

@@ -65,7 +65,7 @@ pub fn parse_valid(bytes: &[u8], profile: &Profile) -> Result<ParsedFile, ParseE
 }
 
 /// Whether these bytes are a spreadsheet file (a ZIP archive) rather than delimited text.
-pub(super) fn is_spreadsheet(bytes: &[u8]) -> bool {
+pub fn is_spreadsheet(bytes: &[u8]) -> bool {
     bytes.starts_with(ZIP_MAGIC)
 }
 

@@ -289,6 +289,17 @@ pub enum Payload {
         first_outbox_id: i64,
         legacy_rows: i64,
     },
+    /// Part of a large file's values: a large export is stored as a run of these, each
+    /// holding the measurements of a few thousand of its rows (so that no payload grows
+    /// with the file), followed in the same transaction by the file's `file-ingested`
+    /// event (its `source_files` row, with no measurements of its own).
+    FileRows {
+        file_id: i64,
+        /// 1, 2, ... within the file.
+        part: i64,
+        #[serde(with = "compact_rows")]
+        measurements: Vec<MeasurementRow>,
+    },
 }
 
 /// An outbox row as queued, with the condition it left (`alert-queued`). The message's
@@ -342,6 +353,16 @@ pub struct FileIngestedRef<'a> {
     pub lots: &'a [LotRecord],
 }
 
+/// The `file-rows` payload by reference: serialises exactly as [`Payload::FileRows`].
+#[derive(Debug, Serialize)]
+#[serde(tag = "kind", rename = "file-rows")]
+pub struct FileRowsRef<'a> {
+    pub file_id: i64,
+    pub part: i64,
+    #[serde(serialize_with = "compact_rows::serialize_refs")]
+    pub measurements: &'a [&'a MeasurementRow],
+}
+
 impl Payload {
     /// The event kind, as stored in `events.kind`.
     pub fn kind(&self) -> &'static str {
@@ -359,6 +380,7 @@ impl Payload {
             Payload::AlertQueued(_) => "alert-queued",
             Payload::MailOutcome(_) => "mail-outcome",
             Payload::OutboxChained { .. } => "outbox-chained",
+            Payload::FileRows { .. } => "file-rows",
         }
     }
 }

@@ -154,8 +154,32 @@ impl Leftovers {
 /// A file read and parsed, not yet stored.
 struct Prepared {
     facts: FileFacts,
-    result: Result<ParsedFile, String>,
+    result: Result<Content, String>,
 }
+
+/// What a readable file holds, ready to be stored.
+enum Content {
+    /// Its rows, all parsed.
+    Rows(ParsedFile),
+    /// A large cycle export, checked by a first reading: its rows are parsed again in
+    /// chunks while they are stored, so that they are never all in memory.
+    Large(LargeExport),
+}
+
+/// A cycle export over [`LARGE_FILE_BYTES`], as read.
+struct LargeExport {
+    bytes: Vec<u8>,
+    profile: String,
+    /// The present time its dates were checked against (the second reading uses it too).
+    now: chrono::NaiveDateTime,
+}
+
+/// Cycle exports larger than this are read twice, checked and then stored in chunks of
+/// [`PART_ROWS`] rows (one `file-rows` event each), rather than parsed whole: the memory a
+/// file takes is then its bytes and one chunk, whatever its length.
+const LARGE_FILE_BYTES: usize = 1 << 20;
+/// Rows of a large export per `file-rows` event (about 1.5 MB of payload at 11 values a row).
+const PART_ROWS: usize = 2048;
 
 /// File versions the start-up's check of recorded files takes at a time.
 const RECORDED_SLICE: usize = 8192;
@@ -788,11 +812,11 @@ impl<'a> Writer<'a> {
                     error,
                     q.as_deref(),
                 )?,
-                (None, Ok(parsed)) => store_parsed(
+                (None, Ok(content)) => store_content(
                     &mut w,
-                    self.actor,
+                    (self.cfg, self.actor),
                     facts,
-                    parsed,
+                    content,
                     (&mut in_group, &mut touched),
                     left,
                 )?,
@@ -912,6 +936,68 @@ fn store_parsed(
     };
     left.facts.push(facts);
     Ok(outcome)
+}
+
+/// Store a readable file's records: parsed whole, or a large export chunk by chunk.
+fn store_content(
+    w: &mut records::FileWriter<'_, '_>,
+    (cfg, actor): (&Config, &str),
+    facts: FileFacts,
+    content: Content,
+    seen: (&mut DigestMap<i64>, &mut BTreeMap<String, i64>),
+    left: &mut Leftovers,
+) -> Result<FileOutcome, StoreError> {
+    match content {
+        Content::Rows(parsed) => store_parsed(w, actor, facts, parsed, seen, left),
+        Content::Large(large) => store_large(w, (cfg, actor), facts, large, seen),
+    }
+}
+
+/// Store a large export chunk by chunk (see [`Content::Large`]); its records are the same
+/// as if it had been parsed whole, its values spread over `file-rows` events.
+fn store_large(
+    w: &mut records::FileWriter<'_, '_>,
+    (cfg, actor): (&Config, &str),
+    mut facts: FileFacts,
+    large: LargeExport,
+    (in_group, touched): (&mut DigestMap<i64>, &mut BTreeMap<String, i64>),
+) -> Result<FileOutcome, StoreError> {
+    let profile = cfg.profiles.get(&large.profile).ok_or_else(|| {
+        StoreError::Invalid(format!("no export profile named '{}'", large.profile))
+    })?;
+    let mut file = w.begin_large()?;
+    let mut cache = ParseCache::new();
+    cache.set_now(large.now);
+    let read = cache.parse_in_chunks(&large.bytes, profile, PART_ROWS, |rows| match rows {
+        ParsedFile::Cycles(rows) => w.large_part(&mut file, &facts, &rows, actor),
+        ParsedFile::Lots(_) => Err(StoreError::Invalid(
+            "a lot sheet read as a cycle export".into(),
+        )),
+    });
+    drop(large.bytes);
+    match read {
+        Ok(_) => {}
+        Err(ingest::Chunked::Sink(e)) => return Err(e),
+        // The first reading found no fault: the same bytes through the same profile and
+        // time cannot have one now.
+        Err(ingest::Chunked::Parse(e)) => {
+            return Err(StoreError::Invalid(format!(
+                "{}: a second reading differs from the first: {e}",
+                facts.path
+            )));
+        }
+    }
+    let stored = w.end_large(file, &facts, actor)?;
+    for lot in &stored.lots_touched {
+        touched.insert(lot.clone(), stored.event_seq);
+    }
+    warn_conflicts(&facts.path, &stored.conflicts);
+    in_group.insert(facts.sha256.clone(), stored.file_id);
+    Ok(FileOutcome::Ingested {
+        path: std::mem::take(&mut facts.path),
+        sha256: std::mem::take(&mut facts.sha256),
+        stored,
+    })
 }
 
 /// A warning per conflicting value a file brought.
@@ -1060,8 +1146,49 @@ impl<'a> Reader<'a> {
         };
         facts.size = bytes.len() as i64;
         facts.sha256 = crate::model::chain::hex_lower(&Sha256::digest(&bytes));
-        let result = self.parse(profile_name.as_deref(), &bytes, valid, cache);
+        let result = if bytes.len() > LARGE_FILE_BYTES && !ingest::is_spreadsheet(&bytes) {
+            self.check_large(profile_name.as_deref(), bytes, valid, cache)
+        } else {
+            self.parse(profile_name.as_deref(), &bytes, valid, cache)
+                .map(Content::Rows)
+        };
         Prepared { facts, result }
+    }
+
+    /// A large file: a cycle export through a valid profile is read once to check it,
+    /// its rows dropped chunk by chunk, and kept as bytes to be stored in chunks; any
+    /// other file is parsed whole.
+    fn check_large(
+        &self,
+        profile_name: Option<&str>,
+        bytes: Vec<u8>,
+        valid: &HashMap<&str, Result<(), String>>,
+        cache: &mut ParseCache,
+    ) -> Result<Content, String> {
+        let name = profile_name.unwrap_or_default();
+        let Some(profile) =
+            self.cfg.profiles.get(name).filter(|p| {
+                p.kind == ingest::ProfileKind::Cycles && valid.get(name) == Some(&Ok(()))
+            })
+        else {
+            return self
+                .parse(profile_name, &bytes, valid, cache)
+                .map(Content::Rows);
+        };
+        cache.set_now(self.now);
+        let checked = cache.parse_in_chunks(&bytes, profile, PART_ROWS, |rows| {
+            drop(rows);
+            Ok::<(), std::convert::Infallible>(())
+        });
+        match checked {
+            Ok(_) => Ok(Content::Large(LargeExport {
+                bytes,
+                profile: name.to_string(),
+                now: self.now,
+            })),
+            Err(ingest::Chunked::Parse(e)) => Err(e.to_string()),
+            Err(ingest::Chunked::Sink(never)) => match never {},
+        }
     }
 
     /// Parse a file's bytes with the profile its folder (or the command line) names.

@@ -53,7 +53,8 @@ FROM turnbook.events e
 WHERE e.kind = 'lot-registered';
 
 -- Every value stored for a batch: observed, conflicting or corrected (rows are arrays in
--- newer events and objects in older ones).
+-- newer events and objects in older ones; a large export's rows come in `file-rows`
+-- parts before its `file-ingested` event).
 CREATE OR REPLACE VIEW turnbook.batch_values AS
 SELECT e.site, e.seq, e.at,
        CASE jsonb_typeof(m) WHEN 'array' THEN m ->> 1 ELSE m ->> 'batch_id' END AS batch_id,
@@ -62,7 +63,7 @@ SELECT e.site, e.seq, e.at,
        CASE jsonb_typeof(m) WHEN 'array' THEN m ->> 4 ELSE m ->> 'text' END AS text,
        CASE jsonb_typeof(m) WHEN 'array' THEN m ->> 5 ELSE m ->> 'kind' END AS value_kind
 FROM turnbook.events e, jsonb_array_elements(e.body -> 'measurements') m
-WHERE e.kind = 'file-ingested'
+WHERE e.kind = 'file-ingested' OR e.kind = 'file-rows'
 UNION ALL
 SELECT e.site, e.seq, e.at, e.body -> 'measurement' ->> 'batch_id',
        e.body -> 'measurement' ->> 'quantity', e.body -> 'measurement' -> 'value',

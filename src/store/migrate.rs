@@ -62,6 +62,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "plain_sqlite_and_figures",
         include_str!("../../schema/0014_plain_sqlite_and_figures.sql"),
     ),
+    (
+        15,
+        "large_exports",
+        include_str!("../../schema/0015_large_exports.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

@@ -15,7 +15,9 @@ use crate::model::Quantity;
 use crate::model::cycle::{
     self as view, ATTR_CYCLE_NO, ATTR_FEED_LOT, ATTR_LOT, ATTR_STARTED_AT, CYCLE_COLUMNS, CycleView,
 };
-use crate::model::event::{FileIngestedRef, FileRow, FileRowRef, LotRecord, MeasurementRow};
+use crate::model::event::{
+    FileIngestedRef, FileRow, FileRowRef, FileRowsRef, LotRecord, MeasurementRow,
+};
 
 /// What the shell knows of a file before it is parsed.
 #[derive(Debug, Clone)]
@@ -52,6 +54,9 @@ struct FileStatements<'c> {
     source: rusqlite::Statement<'c>,
     cycle_get: rusqlite::Statement<'c>,
     cycle_put: rusqlite::Statement<'c>,
+    /// The rows of the last event of many rows read back, by batch (see
+    /// [`stored_measurements`]).
+    parsed: Option<(i64, HashMap<String, Vec<MeasurementRow>>)>,
 }
 
 impl<'c> FileStatements<'c> {
@@ -62,7 +67,24 @@ impl<'c> FileStatements<'c> {
             source: conn.prepare(INSERT_SOURCE)?,
             cycle_get: conn.prepare(&SELECT_CYCLE)?,
             cycle_put: conn.prepare(&UPSERT_CYCLE)?,
+            parsed: None,
         })
+    }
+}
+
+/// A large file while its chunks are stored (see [`FileWriter::begin_large`]).
+#[derive(Debug)]
+pub struct LargeFile {
+    /// Parts written so far.
+    part: i64,
+    /// The totals so far; `file_id` is the file's.
+    out: StoredFile,
+}
+
+impl LargeFile {
+    /// The id the file's row will have.
+    pub fn file_id(&self) -> i64 {
+        self.out.file_id
     }
 }
 
@@ -108,6 +130,92 @@ impl<'t, 'c> FileWriter<'t, 'c> {
         actor: &str,
     ) -> Result<StoredFile> {
         record_parsed_in(self.tx, &mut self.st, &mut self.ids, facts, parsed, actor)
+    }
+
+    /// Begin storing a large file whose rows come in chunks ([`FileWriter::large_part`],
+    /// then [`FileWriter::end_large`], all in this transaction). Its values go into a run
+    /// of `file-rows` events, one per chunk, so that no payload holds the whole file.
+    pub fn begin_large(&mut self) -> Result<LargeFile> {
+        // The parts' provenance rows name the file before its row is written (last, with
+        // the file's totals): foreign keys are checked at commit instead.
+        self.tx.pragma_update(None, "defer_foreign_keys", "ON")?;
+        let file_id = self.ids.take_file(self.tx)?;
+        Ok(LargeFile {
+            part: 0,
+            out: StoredFile {
+                file_id,
+                ..Default::default()
+            },
+        })
+    }
+
+    /// Store one chunk of a large file's rows: their new and conflicting values in one
+    /// `file-rows` event (none when the chunk brings nothing new), their provenance and
+    /// the cycles they change.
+    pub fn large_part(
+        &mut self,
+        large: &mut LargeFile,
+        facts: &FileFacts,
+        rows: &[CycleRow],
+        actor: &str,
+    ) -> Result<()> {
+        let out = &mut large.out;
+        let first_new = self.ids.first_measurement(self.tx)?;
+        let mut next_m = first_new;
+        let batches = merge_cycle_rows(self.tx, &mut self.st, rows, out.file_id, &mut next_m, out)?;
+        let new_measurements = new_rows(&batches, first_new, next_m);
+        if new_measurements.is_empty() {
+            return Ok(());
+        }
+        large.part += 1;
+        let mut body = Vec::with_capacity(64 + 128 * new_measurements.len());
+        serde_json::to_writer(
+            &mut body,
+            &FileRowsRef {
+                file_id: out.file_id,
+                part: large.part,
+                measurements: &new_measurements,
+            },
+        )?;
+        let body = String::from_utf8(body).map_err(|e| StoreError::Invalid(e.to_string()))?;
+        let seq = crate::store::events::append_prepared(
+            self.tx,
+            &mut self.st.event,
+            &mut self.ids.head,
+            &facts.seen_at,
+            actor,
+            &facts.path,
+            "file-rows",
+            &body,
+        )?;
+        self.ids.measurements_to(next_m);
+        insert_sources(&mut self.st.source, &new_measurements, seq)?;
+        write_cycles(&mut self.st, &batches, first_new, seq, out)
+    }
+
+    /// Close a large file: its `file-ingested` event (the file's row with its totals; its
+    /// values are in the parts before it) and its `source_files` row.
+    pub fn end_large(
+        &mut self,
+        large: LargeFile,
+        facts: &FileFacts,
+        actor: &str,
+    ) -> Result<StoredFile> {
+        let mut out = large.out;
+        let file = ingested_row(out.file_id, facts, &out);
+        let seq = append_ingested(
+            self.tx,
+            &mut self.st,
+            &mut self.ids,
+            facts,
+            actor,
+            &file,
+            &[],
+            &[],
+        )?;
+        out.event_seq = seq;
+        insert_file_prepared(&mut self.st.file, &file, seq)?;
+        Ok(out)
     }
 
     /// Record the counters the files took ids from.
@@ -367,6 +475,72 @@ pub fn measurements_up_to(
     Ok(out)
 }
 
+/// Payloads from this size up are parsed once and kept, their rows by batch, for the
+/// batches after (a file repeating the batches of a large export meets them in order).
+const KEEP_PARSED_FROM: i64 = 64 << 10;
+/// Payloads up to this size are kept so (a part of a large export is about 1.5 MB; an
+/// event written before parts existed can hold a whole file's rows, and is read per batch).
+const KEEP_PARSED_UP_TO: i64 = 16 << 20;
+
+/// [`measurements_of`] for a writer: the rows of a large event are parsed once and kept
+/// (one event at a time) rather than parsed again for each of its batches.
+fn stored_measurements(
+    tx: &Transaction<'_>,
+    kept: &mut Option<(i64, HashMap<String, Vec<MeasurementRow>>)>,
+    batch_id: &str,
+) -> Result<Vec<MeasurementRow>> {
+    let mut stmt = tx.prepare_cached(
+        "SELECT e.seq, LENGTH(e.payload) FROM events e
+         WHERE e.seq IN (SELECT event_seq FROM batch_sources WHERE batch_id = ?1)
+         ORDER BY e.seq",
+    )?;
+    let events = stmt
+        .query_map([batch_id], |r| {
+            Ok((r.get::<_, i64>(0)?, r.get::<_, i64>(1)?))
+        })?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    let kept_size = KEEP_PARSED_FROM..=KEEP_PARSED_UP_TO;
+    if !events.iter().any(|(_, len)| kept_size.contains(len)) {
+        return measurements_of(tx, batch_id);
+    }
+    let mut out = Vec::new();
+    for (seq, len) in events {
+        if !kept_size.contains(&len) {
+            out.extend(
+                rows_of_event(tx, seq)?
+                    .into_iter()
+                    .filter(|m| m.batch_id == batch_id),
+            );
+            continue;
+        }
+        if kept.as_ref().is_none_or(|(s, _)| *s != seq) {
+            let mut by_batch: HashMap<String, Vec<MeasurementRow>> = HashMap::new();
+            for m in rows_of_event(tx, seq)? {
+                by_batch.entry(m.batch_id.clone()).or_default().push(m);
+            }
+            *kept = Some((seq, by_batch));
+        }
+        if let Some((_, by_batch)) = kept {
+            out.extend(by_batch.get(batch_id).into_iter().flatten().cloned());
+        }
+    }
+    out.sort_by_key(|m| m.id);
+    Ok(out)
+}
+
+/// Every measurement row an event's payload holds.
+fn rows_of_event(tx: &Transaction<'_>, seq: i64) -> Result<Vec<MeasurementRow>> {
+    let body: String = tx
+        .prepare_cached("SELECT payload FROM events WHERE seq = ?1")?
+        .query_row([seq], |r| r.get(0))?;
+    let written: WrittenValues = serde_json::from_str(&body)?;
+    Ok(written
+        .measurements
+        .into_iter()
+        .chain(written.measurement)
+        .collect())
+}
+
 /// The measurement rows of an event's payload (a file's values, or a person's correction);
 /// every other field of the payload is skipped.
 #[derive(serde::Deserialize)]
@@ -557,17 +731,7 @@ fn record_parsed_in(
         ),
         ParsedFile::Lots(rows) => (Vec::new(), changed_lots(tx, rows, facts, &mut out)?),
     };
-    // The rows this file adds, in id order (the order they were taken in).
-    let mut new_measurements: Vec<&MeasurementRow> =
-        Vec::with_capacity(usize::try_from(next_m - first_new).unwrap_or(0));
-    new_measurements.extend(
-        batches
-            .iter()
-            .flat_map(|b| b.known.iter().filter(|m| m.id >= first_new)),
-    );
-    if batches.len() > 1 {
-        new_measurements.sort_by_key(|m| m.id);
-    }
+    let new_measurements = new_rows(&batches, first_new, next_m);
 
     let file = ingested_row(file_id, facts, &out);
     let seq = append_ingested(tx, st, ids, facts, actor, &file, &new_measurements, &lots)?;
@@ -578,17 +742,51 @@ fn record_parsed_in(
     for l in &lots {
         upsert_lot(tx, l, seq)?;
     }
-    for b in &batches {
+    write_cycles(st, &batches, first_new, seq, &mut out)?;
+    Ok(out)
+}
+
+/// The rows a file (or a chunk of one) adds, in id order (the order they were taken in).
+fn new_rows<'b>(
+    batches: &'b [BatchWork<'_>],
+    first_new: i64,
+    next_m: i64,
+) -> Vec<&'b MeasurementRow> {
+    let mut new_measurements: Vec<&MeasurementRow> =
+        Vec::with_capacity(usize::try_from(next_m - first_new).unwrap_or(0));
+    new_measurements.extend(
+        batches
+            .iter()
+            .flat_map(|b| b.known.iter().filter(|m| m.id >= first_new)),
+    );
+    if batches.len() > 1 {
+        new_measurements.sort_by_key(|m| m.id);
+    }
+    new_measurements
+}
+
+/// Write the current view of each batch given new values (ids from `first_new`) by the
+/// event `seq`; a batch first seen now takes `seq` as its first sight.
+fn write_cycles(
+    st: &mut FileStatements<'_>,
+    batches: &[BatchWork<'_>],
+    first_new: i64,
+    seq: i64,
+    out: &mut StoredFile,
+) -> Result<()> {
+    for b in batches {
         if !b.known.iter().any(|m| m.id >= first_new) {
             continue; // nothing new for this batch
         }
         let v = view::derive_cycle(b.batch_id, &b.known, b.excluded, b.first_seq.unwrap_or(seq));
-        if let Some(l) = &v.lot {
+        if let Some(l) = &v.lot
+            && !out.lots_touched.contains(l)
+        {
             out.lots_touched.insert(l.clone());
         }
         upsert_cycle_prepared(&mut st.cycle_put, &v)?;
     }
-    Ok(out)
+    Ok(())
 }
 
 /// Merge a cycle export's rows into the batches they touch; returns each touched batch
@@ -616,7 +814,7 @@ fn merge_cycle_rows<'p>(
             None => {
                 let existing = cycle_prepared(&mut st.cycle_get, &row.batch_id)?;
                 let known = if existing.is_some() {
-                    measurements_of(tx, &row.batch_id)?
+                    stored_measurements(tx, &mut st.parsed, &row.batch_id)?
                 } else {
                     Vec::new()
                 };
@@ -1078,7 +1276,8 @@ pub fn feed_lots_of_lot(
                         ELSE json_extract(m.value, '$.kind') END AS kind
              FROM (SELECT DISTINCT b.event_seq AS seq FROM cycles c
                        JOIN batch_sources b ON b.batch_id = c.batch_id WHERE c.lot = ?1) s
-             JOIN events e ON e.seq = s.seq AND e.kind = 'file-ingested',
+             JOIN events e ON e.seq = s.seq
+                 AND (e.kind = 'file-ingested' OR e.kind = 'file-rows'),
                   json_each(e.payload, '$.measurements') m) x
          WHERE x.quantity = ?2 AND x.kind = 'observed' AND x.text IS NOT NULL
            AND x.batch_id IN (SELECT batch_id FROM cycles WHERE lot = ?1)

@@ -918,9 +918,11 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         }
         None => (&all_fits, (lo, hi)),
     };
+    let mut least_squares = true;
     let (trend_fits, tx) =
         match bounded_trend(&xyc, pw.as_deref(), stretch, ls_fits, &fit_opts, bounded) {
             Some(b) => {
+                least_squares = false;
                 out.notes.push(format!(
                 "{} censored cycles entered the fit as lower bounds (censored normal likelihood)",
                 b.censored
@@ -949,7 +951,15 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             );
         }
     }
-    let avg = Averaged::new(&usable, opts.criterion);
+    // With least-squares fits, the data go along for the models tested by their profile.
+    let avg = Averaged::new(&usable, opts.criterion).map(|a| {
+        let end = change.unwrap_or(fx.len());
+        if least_squares {
+            a.with_data(&fx[..end], &fy[..end], fw.map(|w| &w[..end]))
+        } else {
+            a
+        }
+    });
     // The observed range: the exact cycles, widened by censored ones the trend used.
     let (x_first, x_last) = match (fx.first(), fx.last()) {
         (Some(&a), Some(&b)) => (

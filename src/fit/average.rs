@@ -16,12 +16,13 @@
 //! memory): at each x, each model's own test of "the curve is at the criterion at x" gives a
 //! tail probability from Student's t on that model's own n − p_i degrees of freedom, and
 //! x leaves the interval where the Akaike-weighted sum of those tail probabilities falls
-//! below α/2 (see [`Decision::band`]). A single quantile on the smallest degrees of freedom
-//! of any member with a weight of 5 % or more, around a standard error that adds the
-//! between-model spread to every member's variance, made the average's interval
-//! conservative (94–98 % coverage of a nominal 90 % at 6 and 10 cycles): a four-parameter
-//! member with 2 degrees of freedom set t = 2.92 for the whole average. With a single
-//! candidate both constructions are exactly that candidate's own interval
+//! below α/2 (see [`Decision::band`]). The earlier interval — one Student quantile on the
+//! smallest degrees of freedom of any member with 5 % of the weight (a four-parameter
+//! member at six cycles has 2: t = 2.92), around the standard error above, which adds the
+//! between-model spread to every member's variance — covered 94–98 % of a nominal 90 % at
+//! 6 and 10 cycles in simulation; the tail-area interval covers 87–96 % there
+//! (tests/fit_averaging.rs, figures in tests/benches/README.md). With a single candidate
+//! both constructions are exactly that candidate's own interval
 //! ([`super::forecast`](mod@super::forecast)).
 
 use serde::{Deserialize, Serialize};

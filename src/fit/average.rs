@@ -20,7 +20,7 @@
 //! smallest degrees of freedom of any member with 5 % of the weight (a four-parameter
 //! member at six cycles has 2: t = 2.92), around the standard error above, which adds the
 //! between-model spread to every member's variance — covered 94–98 % of a nominal 90 % at
-//! 6 and 10 cycles in simulation; the tail-area interval covers 87–96 % there
+//! 6 and 10 cycles in simulation; the tail-area interval covers 86.9–95.8 % there
 //! (tests/fit_averaging.rs, figures in tests/benches/README.md). With a single candidate
 //! both constructions are exactly that candidate's own interval
 //! ([`super::forecast`](mod@super::forecast)).
@@ -239,8 +239,12 @@ impl Decision for Averaged<'_> {
     /// crossing with confidence 1 − `tail` when S ≥ 1 − `tail` and after it when
     /// S ≤ `tail`. With one model this is its own band h ∓ t·sd.
     fn band(&self, x: f64, tail: f64) -> (f64, f64) {
+        let several = self.members.len() > 1;
         let s = self.tail_area(|d| {
-            if let Some(r) = d.profile_root(x) {
+            // Among several models, each on a scale that stays meaningful far beyond the
+            // data (see FitDecision::stat); alone, a model keeps its own band.
+            let z = if several { d.stat(x) } else { d.root(x) };
+            if let Some(r) = z {
                 return (r, 1.0);
             }
             let (mut v, mut sd) = d.at(x);

@@ -13,7 +13,12 @@
 //! searched only from the newest cycle on, so it never starts before the data end and never
 //! reaches negative x. When the lower confidence band never reaches the criterion the upper
 //! end is unbounded, and the interval stated is the one-sided [lower, ∞) at the same
-//! confidence (its lower end from the one-sided t quantile). A criterion never reached
+//! confidence (its lower end from the one-sided t quantile). The test of "the curve is at
+//! the criterion at x" is the delta method on h for most models; first and second order
+//! take it on a scale where they are linear in kd inside a model average
+//! ([`FitDecision::stat`]), and, when the data are at hand (every analysis of
+//! least-squares fits), the first-order model with residual activity takes the profile
+//! likelihood instead ([`ResidualProfile`]). A criterion never reached
 //! under the fitted curve may still carry such a lower limit: the earliest crossing the
 //! data do not exclude. Its coverage is checked by seeded simulation (tests/fit_states.rs,
 //! tests/fit_averaging.rs, tests/fit_coverage.rs).
@@ -358,6 +363,55 @@ impl<'a> FitDecision<'a> {
         Some(if v >= 0.0 { r } else { -r })
     }
 
+    /// The test statistic of "h(x) = 0" when it is not the delta method on h itself: a
+    /// profile's signed root ([`Self::root`]), or the delta method on a scale where the
+    /// model is linear in kd: first order ln y(x) − ln c = ln a0 − kd·x − ln c, second order
+    /// y(0)/c − y(0)/y(x) = a0/c − 1 − kd·x (c = c_abs + f·a0). With a fraction-of-fresh
+    /// criterion a0 drops out and the test is Student's t on kd itself, carried through a
+    /// monotone map; it stays bounded far beyond the data, where on the natural scale
+    /// sd(h) → 0 faster than h → −c and any decay, however uncertain, looked certain to
+    /// cross ("the delta method on a transformed scale", DESIGN §4; a Fieller-type
+    /// construction, Fieller 1954, recalled from memory). None for other models.
+    pub fn stat(&self, x: f64) -> Option<f64> {
+        if let Some(r) = self.root(x) {
+            return Some(r);
+        }
+        let m = self.fit.model;
+        if !matches!(m, ModelId::FirstOrder | ModelId::SecondOrder) {
+            return None;
+        }
+        let cov = self.fit.covariance.as_ref()?;
+        let (a0, kd) = (self.fit.params[0], self.fit.params[1]);
+        if !(a0 > 0.0 && self.threshold > 0.0 && x >= 0.0 && kd * x > -1.0) {
+            return None;
+        }
+        let c = self.threshold;
+        let f = self.fraction;
+        let (v, g) = match m {
+            // ln y(x) − ln c in closed form (y itself underflows far out).
+            ModelId::FirstOrder => (a0.ln() - kd * x - c.ln(), [1.0 / a0 - f / c, -x]),
+            // y(0)/c − y(0)/y(x) = a0/c − (1 + kd·x), linear in kd.
+            _ => (a0 / c - 1.0 - kd * x, [1.0 / c - a0 * f / (c * c), -x]),
+        };
+        let sd = sd_of(cov, &g);
+        if sd > 0.0 {
+            Some(v / sd)
+        } else if sd == 0.0 {
+            Some(if v >= 0.0 {
+                f64::INFINITY
+            } else {
+                f64::NEG_INFINITY
+            })
+        } else {
+            None
+        }
+    }
+
+    /// The signed root statistic of whichever profile this decision holds.
+    pub fn root(&self, x: f64) -> Option<f64> {
+        self.profile_root(x)
+    }
+
     /// ∂h/∂θ at x.
     pub fn grad_h(&self, x: f64, out: &mut [f64]) {
         let m = self.fit.model;
@@ -425,7 +479,7 @@ impl Decision for FitDecision<'_> {
     /// residual-activity model with its data, the profile root r(x) ∓ t.
     fn band(&self, x: f64, tail: f64) -> (f64, f64) {
         let t = t_one_sided(1.0 - tail, self.fit.dof).unwrap_or(f64::NAN);
-        if let Some(r) = self.profile_root(x) {
+        if let Some(r) = self.root(x) {
             return (r - t, r + t);
         }
         let (v, sd) = self.at(x);
@@ -473,7 +527,10 @@ const PROFILE_PER_DECADE: usize = 40;
 impl ResidualProfile {
     fn new(x: &[f64], y: &[f64], w: Option<&[f64]>, rss: f64, dof: usize) -> Option<Self> {
         let scale = x.iter().fold(0.0f64, |m, v| m.max(v.abs()));
-        if x.len() != y.len() || x.len() < 4 || !(scale > 0.0) {
+        if x.len() != y.len()
+            || x.len() < 4
+            || scale.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater)
+        {
             return None;
         }
         let mut pr = ResidualProfile {
@@ -512,7 +569,8 @@ impl ResidualProfile {
             yy += wi * yi * yi;
         }
         let det = m00 * m11 - m01 * m01;
-        if !(det > 1e-14 * (m00 * m11).max(f64::MIN_POSITIVE)) {
+        let floor = 1e-14 * (m00 * m11).max(f64::MIN_POSITIVE);
+        if det.is_nan() || det <= floor {
             return None;
         }
         let inv = [m11 / det, -m01 / det, m00 / det];
@@ -545,7 +603,10 @@ impl ResidualProfile {
         // Refine between the grid neighbours by golden-section search on ln kd.
         let lo = self.grid[k.saturating_sub(1)].0.ln();
         let hi = self.grid[(k + 1).min(self.grid.len() - 1)].0.ln();
-        let eval = |lk: f64| self.unconstrained(lk.exp()).map_or(f64::INFINITY, |e| at(&e));
+        let eval = |lk: f64| {
+            self.unconstrained(lk.exp())
+                .map_or(f64::INFINITY, |e| at(&e))
+        };
         let g = 0.5 * (5f64.sqrt() - 1.0);
         let (mut a, mut b) = (lo, hi);
         let (mut c1, mut c2) = (b - g * (b - a), a + g * (b - a));
@@ -902,9 +963,15 @@ mod tests {
         let r0 = d.profile_root(xs).expect("profile");
         assert!(r0.abs() < 1e-2, "r(x*) = {r0}");
         // Signed: positive before the crossing, negative after, growing in size.
-        let (a, b) = (d.profile_root(xs - 3.0).unwrap(), d.profile_root(xs - 6.0).unwrap());
+        let (a, b) = (
+            d.profile_root(xs - 3.0).unwrap(),
+            d.profile_root(xs - 6.0).unwrap(),
+        );
         assert!(0.0 < a && a < b, "{a} {b}");
-        let (a, b) = (d.profile_root(xs + 3.0).unwrap(), d.profile_root(xs + 8.0).unwrap());
+        let (a, b) = (
+            d.profile_root(xs + 3.0).unwrap(),
+            d.profile_root(xs + 8.0).unwrap(),
+        );
         assert!(b < a && a < 0.0, "{a} {b}");
         // The interval holds x* and starts after the data.
         let (lo, hi) = (fc.lower.expect("lower"), fc.upper.unwrap_or(f64::INFINITY));

@@ -10,7 +10,10 @@
 //! fitted curve when the data do not exclude a crossing from some lower limit on; every
 //! other state (withheld, reached already, no limit stated) does not cover.
 //!
-//! The CI runs a representative subset; the whole grid is `#[ignore]`d (run it with
+//! The first-order model with residual activity tests the crossing by its profile
+//! likelihood, and the average combines the models' tail areas (see `turnbook::fit`'s
+//! forecast and average modules). The CI runs a representative subset; the whole grid is
+//! `#[ignore]`d (run it with
 //! `cargo test --release --test fit_averaging -- --ignored --nocapture`).
 
 use rand::SeedableRng;
@@ -156,7 +159,31 @@ fn named_second_order_covers_n10() {
 }
 
 #[test]
-#[ignore = "the whole grid: minutes in a release build"]
+fn auto_covers_second_order_n10() {
+    let c = report(ModelId::SecondOrder, true, 0.03, 10, CI_TRIALS, 106);
+    assert!((0.85..=0.95).contains(&c), "coverage {c}");
+}
+
+#[test]
+fn auto_covers_power_n6() {
+    let c = report(ModelId::Power, true, 0.05, 6, CI_TRIALS, 107);
+    assert!((0.85..=0.95).contains(&c), "coverage {c}");
+}
+
+#[test]
+fn named_residual_activity_covers_n6() {
+    let c = report(ModelId::FirstOrderResidual, false, 0.03, 6, CI_TRIALS, 108);
+    assert!((0.85..=0.95).contains(&c), "coverage {c}");
+}
+
+#[test]
+fn named_residual_activity_covers_n10() {
+    let c = report(ModelId::FirstOrderResidual, false, 0.05, 10, CI_TRIALS, 109);
+    assert!((0.85..=0.95).contains(&c), "coverage {c}");
+}
+
+#[test]
+#[ignore = "the whole grid: about a minute in a release build"]
 fn full_coverage_grid() {
     let mut outside = Vec::new();
     let mut seed = 1000;
@@ -171,13 +198,17 @@ fn full_coverage_grid() {
                 for auto in [false, true] {
                     seed += 1;
                     let c = report(model, auto, sd, n, 1000, seed);
-                    // Held to 85–95 %: every cell at n = 20, and first and second order
-                    // named at every n. The other cells are printed: at n = 6 and 10 the
-                    // average's interval is mostly open above and covers 94–98 %, and the
-                    // residual-activity model named alone covers 70–81 % (its asymptote is
-                    // not identified by so few cycles).
-                    let held = n == 20
-                        || (!auto && matches!(model, ModelId::FirstOrder | ModelId::SecondOrder));
+                    // Held to 85–95 %: every cell but these, printed and left open: the
+                    // power law named alone at n ≤ 10 (its delta-method interval over-covers,
+                    // 98 % in two cells) and the average on first-order and power-law data at
+                    // sd 0.03 and n ≤ 10 (up to 95.8 %, within the binomial error of 1,000
+                    // trials of the edge).
+                    let left = n <= 10
+                        && ((!auto && model == ModelId::Power)
+                            || (auto
+                                && matches!(model, ModelId::FirstOrder | ModelId::Power)
+                                && sd < 0.04));
+                    let held = !left;
                     if held && !(0.85..=0.95).contains(&c) {
                         outside.push(format!("{} auto={auto} sd={sd} n={n}: {c}", model.id()));
                     }
@@ -186,4 +217,56 @@ fn full_coverage_grid() {
         }
     }
     assert!(outside.is_empty(), "outside 85–95 %: {outside:#?}");
+}
+
+/// Where the trials of one cell end: state, reason and whether the fit was held at a bound,
+/// with the coverage within each (a diagnostic for the cells outside 85–95 %).
+#[test]
+#[ignore = "diagnostic"]
+fn diagnose_residual_named() {
+    use std::collections::BTreeMap;
+    for (n, sd) in [(6, 0.03), (10, 0.03), (6, 0.05), (10, 0.05)] {
+        let model = ModelId::FirstOrderResidual;
+        let p = truth(model);
+        let mut rng = ChaCha8Rng::seed_from_u64(77);
+        let noise = Normal::new(0.0, sd).expect("valid sd");
+        let x: Vec<f64> = (1..=n).map(|i| i as f64).collect();
+        let opts = AnalysisOptions {
+            criterion: Criterion::FractionOfFresh(0.5),
+            confidence: 0.90,
+            candidates: vec![model],
+            grid_points: 2,
+            ..AnalysisOptions::default()
+        };
+        let mut tally: BTreeMap<String, (usize, usize)> = BTreeMap::new();
+        for _ in 0..1000 {
+            let y: Vec<f64> = x
+                .iter()
+                .map(|&v| model.eval(v, &p) + noise.sample(&mut rng))
+                .collect();
+            let a = analyse(
+                &LotSeries {
+                    x: x.clone(),
+                    y,
+                    ..LotSeries::default()
+                },
+                &opts,
+            );
+            let held = a.notes.iter().any(|s| s.contains("physical bound"));
+            let key = format!(
+                "{:?}/{:?} held={held} lower={} upper={}",
+                a.forecast.as_ref().map(|f| f.status),
+                a.forecast.as_ref().and_then(|f| f.why_not),
+                a.forecast.as_ref().is_some_and(|f| f.lower.is_some()),
+                a.forecast.as_ref().is_some_and(|f| f.upper.is_some()),
+            );
+            let e = tally.entry(key).or_default();
+            e.0 += 1;
+            e.1 += usize::from(covers(&a));
+        }
+        eprintln!("n {n} sd {sd}:");
+        for (k, (c, cov)) in tally {
+            eprintln!("  {k}: {c} trials, {cov} cover");
+        }
+    }
 }

@@ -51,7 +51,7 @@ use super::weights::{SdFunction, point_weights};
 
 /// Version of the numerical engine, stored beside each analysis so that a stored result
 /// can be traced to the code that produced it.
-pub const ENGINE_VERSION: &str = "turnbook-fit 1.2.0";
+pub const ENGINE_VERSION: &str = "turnbook-fit 1.3.0";
 
 /// The measured activity of one lot over its cycles.
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
@@ -918,9 +918,11 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         }
         None => (&all_fits, (lo, hi)),
     };
+    let mut least_squares = true;
     let (trend_fits, tx) =
         match bounded_trend(&xyc, pw.as_deref(), stretch, ls_fits, &fit_opts, bounded) {
             Some(b) => {
+                least_squares = false;
                 out.notes.push(format!(
                 "{} censored cycles entered the fit as lower bounds (censored normal likelihood)",
                 b.censored
@@ -949,7 +951,15 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             );
         }
     }
-    let avg = Averaged::new(&usable, opts.criterion);
+    // With least-squares fits, the data go along for the models tested by their profile.
+    let avg = Averaged::new(&usable, opts.criterion).map(|a| {
+        let end = change.unwrap_or(fx.len());
+        if least_squares {
+            a.with_data(&fx[..end], &fy[..end], fw.map(|w| &w[..end]))
+        } else {
+            a
+        }
+    });
     // The observed range: the exact cycles, widened by censored ones the trend used.
     let (x_first, x_last) = match (fx.first(), fx.last()) {
         (Some(&a), Some(&b)) => (

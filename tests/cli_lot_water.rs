@@ -182,7 +182,15 @@ fn a_lot_sheet_carries_the_water_content_and_refuses_a_bad_one() {
         s.record.as_ref().and_then(|r| r.water_content_wt_pct),
         Some(48.5)
     );
-    assert!(s.attention.is_empty(), "{:?}", s.attention);
+    // Registered with its water content: no warning about a wet charge (a forecast of the
+    // young lot may still ask for attention).
+    assert!(
+        !s.attention
+            .iter()
+            .any(|a| a.contains("water") || a.contains("wet")),
+        "{:?}",
+        s.attention
+    );
     // 100 % water is no catalyst: the file is rejected, naming line and column key.
     let bad = p.dir.join("exports/lots/lot-sheet-2026-12b.csv");
     std::fs::write(

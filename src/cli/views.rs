@@ -41,6 +41,13 @@ pub fn status(cfg: &Config, json: bool) -> CmdResult {
             println!("attention       {l}");
         }
     }
+    if let Some(before) = s.history_before.as_ref().filter(|_| s.lots_not_in_view > 0) {
+        println!(
+            "history         {} lots without a batch since {before} and no open alert are not \
+             checked here (`turnbook lots` shows every lot)",
+            s.lots_not_in_view
+        );
+    }
     Ok(0)
 }
 

@@ -20,16 +20,11 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
     let from = outbox::last_digest(&conn)?.unwrap_or_else(|| now - chrono::Duration::days(7));
     let open = outbox::open_alerts(&conn)?;
     let changes = outbox::changes_since(&conn, &format_ts(from))?;
-    let cutoff = super::recompute::history_cutoff(&conn, cfg)?;
-    let listed = match cutoff {
-        Some(c) => {
-            let mut set =
-                store::lots::lots_in_use_since(&conn, &c.format(LOCAL_FORMAT).to_string())?;
-            set.extend(open.iter().map(|a| a.lot.clone()));
-            set.extend(changes.iter().map(|c| c.lot.clone()));
-            Some(set)
-        }
-        None => None,
+    let seen = open.iter().map(|a| a.lot.clone());
+    let seen = seen.chain(changes.iter().map(|c| c.lot.clone()));
+    let (listed, cutoff) = match lots_in_view(&conn, cfg, seen)? {
+        Some((set, cutoff)) => (Some(set), Some(cutoff)),
+        None => (None, None),
     };
     let signoffs = super::signoffs::sign_off_states(&conn)?;
     let shown = current_snapshots(&conn, cfg, listed.as_ref())?;
@@ -64,6 +59,22 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
     outbox::enqueue_message(&tx, &key, &msg, &format_ts(now))?;
     tx.commit().map_err(store::StoreError::from)?;
     Ok(msg.subject)
+}
+
+/// The lots a reader of current lots sees in full: those in use (a batch since the history
+/// cut-off, or none yet) and `also` (lots with open alerts, say), with the cut-off; `None`
+/// when there is no cut-off (every lot is in view).
+pub(crate) fn lots_in_view(
+    conn: &store::Connection,
+    cfg: &Config,
+    also: impl Iterator<Item = String>,
+) -> store::Result<Option<(BTreeSet<String>, chrono::NaiveDateTime)>> {
+    let Some(cutoff) = super::recompute::history_cutoff(conn, cfg)? else {
+        return Ok(None);
+    };
+    let mut set = store::lots::lots_in_use_since(conn, &cutoff.format(LOCAL_FORMAT).to_string())?;
+    set.extend(also);
+    Ok(Some((set, cutoff)))
 }
 
 /// The digest's lots: those listed with their snapshots, how many nobody registered yet

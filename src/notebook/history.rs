@@ -22,7 +22,13 @@ pub struct Status {
     pub lots: i64,
     pub cycles: i64,
     pub pending_cycles: i64,
+    /// Attention lines of the lots in view: in use (a batch since the history cut-off, see
+    /// `alerts.backfill_history_days`) or with an open alert.
     pub lots_needing_attention: Vec<String>,
+    /// Lots left out of `lots_needing_attention`: history, not news.
+    pub lots_not_in_view: usize,
+    /// Their newest batch started before this plant-local date (`None`: every lot is in view).
+    pub history_before: Option<String>,
     pub outbox_waiting: i64,
     /// Lots by sign-off state (none, reviewed, approved, rejected, stale).
     pub signoffs: super::signoffs::SignOffCounts,
@@ -35,6 +41,10 @@ pub fn gather_status(conn: &Connection, cfg: &Config) -> store::Result<Status> {
     let day = format_ts(now - chrono::Duration::days(1));
     let files = store::queries::file_counts(conn, &hour, &day)?;
     let records = store::queries::record_counts(conn)?;
+    let open = store::outbox::open_alerts(conn)?;
+    let view = super::digesting::lots_in_view(conn, cfg, open.into_iter().map(|a| a.lot))?;
+    let (attention, not_in_view) =
+        crate::notebook::lots::lots_needing_attention(conn, cfg, view.as_ref().map(|v| &v.0))?;
     Ok(Status {
         database: cfg.database_path().display().to_string(),
         files_ingested: files.ingested,
@@ -48,7 +58,9 @@ pub fn gather_status(conn: &Connection, cfg: &Config) -> store::Result<Status> {
         lots: records.lots,
         cycles: records.cycles,
         pending_cycles: records.pending_cycles,
-        lots_needing_attention: crate::notebook::lots::lots_needing_attention(conn, cfg)?,
+        lots_needing_attention: attention,
+        lots_not_in_view: not_in_view,
+        history_before: view.map(|v| v.1.format("%Y-%m-%d").to_string()),
         outbox_waiting: store::outbox::waiting(conn)?,
         signoffs: super::signoffs::count_states(
             &store::lots::lot_names(conn)?,

@@ -461,15 +461,48 @@ fn attention_from(a: &LotAnalysis) -> Vec<String> {
     out
 }
 
-/// Lots that need someone's attention, one line each.
-pub fn lots_needing_attention(conn: &Connection, cfg: &Config) -> Result<Vec<String>> {
-    let mut out = Vec::new();
-    for line in current_lines(conn, cfg)? {
+/// Lots that need someone's attention, one line each, among `listed` (`None`: every
+/// lot), and how many lots were left out. Only the listed lots' stored lines are read.
+pub fn lots_needing_attention(
+    conn: &Connection,
+    cfg: &Config,
+    listed: Option<&BTreeSet<String>>,
+) -> Result<(Vec<String>, usize)> {
+    let version = (fit::ENGINE_VERSION, cfg.analysis_fingerprint());
+    let today = today(cfg);
+    let (mut out, mut left_out) = (Vec::new(), 0);
+    for lot in store::lots::lot_names(conn)? {
+        if listed.is_some_and(|set| !set.contains(&lot)) {
+            left_out += 1;
+            continue;
+        }
+        let stored = store::lots::current_state_of(
+            conn,
+            (version.0, version.1.as_str()),
+            store::lots::StatePart::Line,
+            &lot,
+        )?;
+        let line = match stored.flatten() {
+            Some(json) => serde_json::from_str::<LotLine>(&json).ok(),
+            None => None,
+        };
+        let line = match line {
+            Some(line) => line,
+            None => {
+                let mut line = lot_line(&lot_state(conn, cfg, &lot)?);
+                if let Some(serde_json::Value::Object(f)) = line.forecast.as_mut()
+                    && f.contains_key("as_of")
+                {
+                    f.insert("as_of".into(), serde_json::Value::String(today.clone()));
+                }
+                line
+            }
+        };
         for a in line.attention {
             out.push(format!("{}: {a}", line.lot));
         }
     }
-    Ok(out)
+    Ok((out, left_out))
 }
 
 /// Every lot's line as it stands: the state the last recompute of each lot stored (read,

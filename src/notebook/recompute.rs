@@ -5,7 +5,8 @@
 //! records (files that settled together share one). A backfill recomputes once after its last group; its groups list the
 //! lots they touched (`lots_to_recompute`), so if it is interrupted before that,
 //! [`recompute_stale`] heals it at the next start from that list alone. Each recompute
-//! also keeps the lot's state (its `lots` line) current, for the reads.
+//! also keeps the lot's state (its `lots` line) current, for the reads; after an engine
+//! upgrade or a change of analysis settings the next start recomputes every lot once.
 
 use std::collections::{BTreeMap, BTreeSet};
 
@@ -190,9 +191,15 @@ pub fn stale_lots(conn: &Connection) -> Result<BTreeSet<String>> {
     store::lots::lots_to_recompute(conn)
 }
 
-/// Recompute every stale lot in one transaction.
+/// Recompute every stale lot in one transaction: those a backfill left listed, and those
+/// whose stored state another engine version or other analysis settings made (so that
+/// after an upgrade the reads find current states instead of recomputing per read).
 pub fn recompute_stale(conn: &mut Connection, cfg: &Config, _actor: &str) -> Result<usize> {
-    let stale = stale_lots(conn)?;
+    let mut stale = stale_lots(conn)?;
+    stale.extend(store::lots::outdated_states(
+        conn,
+        (fit::ENGINE_VERSION, &cfg.analysis_fingerprint()),
+    )?);
     if stale.is_empty() {
         return Ok(0);
     }

@@ -156,9 +156,10 @@ pub fn cycles_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Vec<Cycl
 
 /// Every lot name that has a registration or cycles.
 pub fn lot_names(conn: &Connection) -> Result<Vec<String>> {
-    let mut stmt = conn.prepare(
-        "SELECT lot FROM lots UNION SELECT lot FROM cycles WHERE lot IS NOT NULL ORDER BY 1",
-    )?;
+    let mut stmt = conn.prepare_cached(&format!(
+        "{} SELECT lot FROM lots UNION SELECT lot FROM d WHERE lot IS NOT NULL ORDER BY 1",
+        super::queries::DISTINCT_CYCLE_LOTS
+    ))?;
     let rows = stmt
         .query_map([], |r| r.get(0))?
         .collect::<std::result::Result<Vec<String>, _>>()?;
@@ -463,6 +464,22 @@ pub fn registered_lots(conn: &Connection) -> Result<BTreeSet<String>> {
     let mut stmt = conn.prepare_cached("SELECT lot FROM lots")?;
     let rows = stmt
         .query_map([], |r| r.get(0))?
+        .collect::<std::result::Result<BTreeSet<String>, _>>()?;
+    Ok(rows)
+}
+
+/// Lots whose stored state was made by another engine version or under other analysis
+/// settings: after an upgrade or a settings change they are recomputed once, not on every
+/// read.
+pub fn outdated_states(
+    conn: &Connection,
+    (engine_version, config_sha256): (&str, &str),
+) -> Result<BTreeSet<String>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT lot FROM lot_states WHERE engine_version <> ?1 OR config_sha256 <> ?2",
+    )?;
+    let rows = stmt
+        .query_map([engine_version, config_sha256], |r| r.get(0))?
         .collect::<std::result::Result<BTreeSet<String>, _>>()?;
     Ok(rows)
 }

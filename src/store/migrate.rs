@@ -67,6 +67,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "large_exports",
         include_str!("../../schema/0015_large_exports.sql"),
     ),
+    (
+        16,
+        "conflict_index",
+        include_str!("../../schema/0016_conflict_index.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

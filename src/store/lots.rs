@@ -158,7 +158,7 @@ pub fn cycles_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Vec<Cycl
 pub fn lot_names(conn: &Connection) -> Result<Vec<String>> {
     let mut stmt = conn.prepare_cached(&format!(
         "{} SELECT lot FROM lots UNION SELECT lot FROM d WHERE lot IS NOT NULL ORDER BY 1",
-        super::queries::DISTINCT_CYCLE_LOTS
+        DISTINCT_CYCLE_LOTS
     ))?;
     let rows = stmt
         .query_map([], |r| r.get(0))?
@@ -458,6 +458,13 @@ pub fn current_state_of(
         .query_row([engine_version, config_sha256, lot], |r| r.get(0))
         .optional()?)
 }
+
+/// The distinct lots of `cycles` as the table `d(lot)`, by a skip scan of the `cycles_lot`
+/// index: one seek per lot (a recursive query; see SQLite's documentation of `WITH
+/// RECURSIVE`). The last row of `d` is NULL.
+pub(crate) const DISTINCT_CYCLE_LOTS: &str = "WITH RECURSIVE d(lot) AS (
+    SELECT MIN(lot) FROM cycles
+    UNION ALL SELECT (SELECT MIN(lot) FROM cycles WHERE lot > d.lot) FROM d WHERE d.lot IS NOT NULL)";
 
 /// The registered lots (those with a lot record), by name.
 pub fn registered_lots(conn: &Connection) -> Result<BTreeSet<String>> {

@@ -58,13 +58,6 @@ pub fn file_counts(conn: &Connection, hour: &str, day: &str) -> Result<FileCount
     })
 }
 
-/// The distinct lots of `cycles` as the table `d(lot)`, by a skip scan of the `cycles_lot`
-/// index: one seek per lot (a recursive query; see SQLite's documentation of `WITH
-/// RECURSIVE`). The last row of `d` is NULL.
-pub(crate) const DISTINCT_CYCLE_LOTS: &str = "WITH RECURSIVE d(lot) AS (
-    SELECT MIN(lot) FROM cycles
-    UNION ALL SELECT (SELECT MIN(lot) FROM cycles WHERE lot > d.lot) FROM d WHERE d.lot IS NOT NULL)";
-
 /// Record counts.
 pub fn record_counts(conn: &Connection) -> Result<RecordCounts> {
     Ok(RecordCounts {
@@ -81,10 +74,11 @@ pub fn record_counts(conn: &Connection) -> Result<RecordCounts> {
         pending_cycles: count(
             conn,
             &format!(
-                "{DISTINCT_CYCLE_LOTS} SELECT (SELECT COUNT(*) FROM cycles WHERE lot IS NULL)
+                "{} SELECT (SELECT COUNT(*) FROM cycles WHERE lot IS NULL)
                  + (SELECT COUNT(*) FROM d JOIN cycles c ON c.lot = d.lot
                     WHERE d.lot IS NOT NULL
-                      AND NOT EXISTS (SELECT 1 FROM lots l WHERE l.lot = d.lot))"
+                      AND NOT EXISTS (SELECT 1 FROM lots l WHERE l.lot = d.lot))",
+                super::lots::DISTINCT_CYCLE_LOTS
             ),
             [],
         )?,

@@ -151,4 +151,18 @@ fn the_report_explains_activity_and_both_tofs() {
     assert!(water.starts_with("50"), "{}", &water[..40.min(water.len())]);
     assert!(water.contains("wt % (metal on the dry mass)"));
     assert!(html.contains("activity (relative to cycle 1, per catalyst-to-substrate ratio)"));
+    // The methods behind the forecast, each with its source.
+    let methods = html
+        .split("id=\"methods\"")
+        .nth(1)
+        .expect("a methods list under the definitions");
+    for source in [
+        "Page 1954",
+        "Burnham &amp; Anderson 2002",
+        "Hurvich &amp; Tsai 1989",
+        "Turek &amp; Fletcher 2012",
+        "Chow 1960",
+    ] {
+        assert!(methods.contains(source), "{source} missing: {methods}");
+    }
 }

@@ -400,6 +400,7 @@ fn cycle_table(out: &mut String, r: &LotReport) {
     }
     out.push_str("</tbody>\n</table>\n</div>\n");
     definitions(out, r);
+    methods(out);
     out.push_str("</section>\n");
 }
 
@@ -436,6 +437,47 @@ fn definitions(out: &mut String, r: &LotReport) {
          activity. A lower bound (≥) for a censored cycle.</dd>\n</dl>",
         esc(&activity)
     );
+}
+
+/// The statistical methods behind the fit and the forecast, each with its published source
+/// (sources marked "recalled" are cited from memory, as in the code's documentation).
+const METHODS: &[(&str, &str)] = &[
+    (
+        "fitting",
+        "nonlinear least squares by Levenberg–Marquardt (Moré 1978), weighted by the \
+         activity's propagated standard errors; censored cycles as bounds (Tobit-type \
+         likelihood)",
+    ),
+    (
+        "model choice",
+        "AICc (Hurvich & Tsai 1989); the simplest model within ΔAICc < 2 is shown, and the \
+         forecast averages the usable models with Akaike weights (Burnham & Anderson 2002)",
+    ),
+    (
+        "forecast interval",
+        "the cycles at which the 90 % confidence band of the fitted curve meets the \
+         criterion (inverting the band, a Fieller-type construction, Fieller 1954, recalled); \
+         for an average, each model's Student-t tail area on its own degrees of freedom, \
+         summed with the Akaike weights (model-averaged tail area, Turek & Fletcher 2012, \
+         recalled); for first order with residual activity, the profile likelihood of the \
+         crossing (Venzon & Moolgavkar 1988, recalled)",
+    ),
+    (
+        "step change",
+        "a level-shift test of trend plus step at each of the three newest cycles \
+         (dummy-variable form of Chow 1960, recalled; Bonferroni-corrected) and Page's CUSUM \
+         (Page 1954) on one-step-ahead scores, k = 0.5, h = 4.5; after a step the trend is \
+         fitted on the cycles before it",
+    ),
+];
+
+/// The methods and their sources, for a reader who must judge the forecast.
+fn methods(out: &mut String) {
+    out.push_str("<dl class=\"definitions\" id=\"methods\">\n");
+    for (name, text) in METHODS {
+        let _ = writeln!(out, "<dt>{}</dt><dd>{}</dd>", esc(name), esc(text));
+    }
+    out.push_str("</dl>\n");
 }
 
 /// A titled table of rows of already-escaped cells; an empty list says so in words.

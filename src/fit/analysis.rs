@@ -51,7 +51,7 @@ use super::weights::{SdFunction, point_weights};
 
 /// Version of the numerical engine, stored beside each analysis so that a stored result
 /// can be traced to the code that produced it.
-pub const ENGINE_VERSION: &str = "turnbook-fit 1.3.0";
+pub const ENGINE_VERSION: &str = "turnbook-fit 1.3.1";
 
 /// The measured activity of one lot over its cycles.
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]

@@ -209,18 +209,49 @@ pub fn t_cdf(t: f64, dof: usize) -> f64 {
     (0.5 + 0.5 * a).clamp(0.0, 1.0)
 }
 
-/// First root of h in [a, b] given h(a) > 0 ≥ h(b), by bisection to 10⁻¹² relative
-/// (far below any meaning a cycle number has).
-fn bisect(h: impl Fn(f64) -> f64, mut a: f64, mut b: f64) -> f64 {
-    for _ in 0..200 {
-        let m = 0.5 * (a + b);
-        if m <= a || m >= b || b - a <= 1e-12 * (1.0 + a.abs()) {
+/// A root of h in [a, b] given h(a) > 0 ≥ h(b) (`fa`, `fb`: h(a) and h(b), NaN where not
+/// evaluated), to 10⁻¹² relative (far below any meaning a cycle number has), by the Illinois variant of false position (Dowell & Jarratt, BIT 11,
+/// 1971, 168–174, recalled from memory) with a bisection step whenever an interpolation would
+/// not shrink the bracket enough or a value is not finite: a band can be a profile-likelihood
+/// search per evaluation, and bisection needs about 40 of them.
+fn bracketed(h: impl Fn(f64) -> f64, mut a: f64, mut fa: f64, mut b: f64, mut fb: f64) -> f64 {
+    // Which end moved last (+1 a, −1 b): when the same end moves twice, the other end's value
+    // is halved so that it moves too.
+    let mut last = 0i8;
+    // The bracket's width three steps ago: if it has not halved since, bisect.
+    let mut width = b - a;
+    for it in 0..200 {
+        let mid = 0.5 * (a + b);
+        if mid <= a || mid >= b || b - a <= 1e-12 * (1.0 + a.abs()) {
             break;
         }
-        if h(m) > 0.0 {
+        let stuck = it % 3 == 2 && b - a > 0.5 * width;
+        if it % 3 == 2 {
+            width = b - a;
+        }
+        let mut m = mid;
+        if !stuck && fa.is_finite() && fb.is_finite() && fa > fb {
+            let f = a + (b - a) * fa / (fa - fb);
+            if f > a && f < b {
+                m = f;
+            }
+        }
+        let fm = h(m);
+        if fm > 0.0 {
             a = m;
+            fa = fm;
+            if last == 1 {
+                fb *= 0.5;
+            }
+            last = 1;
         } else {
+            // NaN counts as "at or below", as in plain bisection, and stops interpolation.
             b = m;
+            fb = fm;
+            if last == -1 {
+                fa *= 0.5;
+            }
+            last = -1;
         }
     }
     0.5 * (a + b)
@@ -240,6 +271,8 @@ enum Search {
 /// is ≤ 0 there (a curve that ends at zero), the crossing lies before it.
 fn search_after(h: &impl Fn(f64) -> f64, from: f64, span: f64) -> Search {
     let mut a = from;
+    // h(a) once known (h(from) is not evaluated: it is only known to be > 0).
+    let mut ha = f64::NAN;
     let mut step = 0.05 * span;
     for _ in 0..200 {
         let b = a + step;
@@ -254,19 +287,21 @@ fn search_after(h: &impl Fn(f64) -> f64, from: f64, span: f64) -> Search {
                 }
                 if h(m).is_nan() { hi = m } else { lo = m }
             }
-            return if h(lo) <= 0.0 {
-                Search::Crossed(bisect(h, a, lo))
+            let hlo = h(lo);
+            return if hlo <= 0.0 {
+                Search::Crossed(bracketed(h, a, ha, lo, hlo))
             } else {
                 Search::Ends
             };
         }
         if hb <= 0.0 {
-            return Search::Crossed(bisect(h, a, b));
+            return Search::Crossed(bracketed(h, a, ha, b, hb));
         }
         if b - from > 1e6 * span {
             return Search::Horizon;
         }
         a = b;
+        ha = hb;
         step *= 1.5;
     }
     Search::Horizon
@@ -280,17 +315,22 @@ fn first_crossing_within(h: &impl Fn(f64) -> f64, lo: f64, hi: f64) -> Option<f6
     // monotone h; a band may be a profile-likelihood search per evaluation).
     let (coarse, fine) = (40, 10);
     let at = |i: usize| lo + (hi - lo) * i as f64 / (coarse * fine) as f64;
+    // h at the previous coarse point (h(lo) is not evaluated).
+    let mut h_prev = f64::NAN;
     for c in 1..=coarse {
-        if h(at(c * fine)) <= 0.0 {
-            let mut a = at((c - 1) * fine);
+        let h_c = h(at(c * fine));
+        if h_c <= 0.0 {
+            let (mut a, mut ha) = (at((c - 1) * fine), h_prev);
             for i in (c - 1) * fine + 1..=c * fine {
                 let b = at(i);
-                if h(b) <= 0.0 {
-                    return Some(bisect(h, a, b));
+                let hb = if i == c * fine { h_c } else { h(b) };
+                if hb <= 0.0 {
+                    return Some(bracketed(h, a, ha, b, hb));
                 }
-                a = b;
+                (a, ha) = (b, hb);
             }
         }
+        h_prev = h_c;
     }
     None
 }
@@ -525,7 +565,12 @@ pub struct ResidualProfile {
     y: Vec<f64>,
     w: Option<Vec<f64>>,
     /// Per grid kd: (kd, β_u = (a0, a_inf), M⁻¹ as (m00, m01, m11), RSS_u).
-    grid: Vec<(f64, [f64; 2], [f64; 3], f64)>,
+    grid: Vec<GridPoint>,
+    /// The common spacing of x when x is evenly spaced and increasing (cycles 1, 2, 3 …):
+    /// e^(−kd·x) is then one exponential and a product per point.
+    step: Option<f64>,
+    /// Grid indices in increasing order of their unconstrained RSS.
+    order: Vec<usize>,
     rss_min: f64,
     s2: f64,
 }
@@ -547,6 +592,8 @@ impl ResidualProfile {
             y: y.to_vec(),
             w: w.map(<[f64]>::to_vec),
             grid: Vec::new(),
+            step: even_step(x),
+            order: Vec::new(),
             rss_min: rss,
             s2: f64::NAN,
         };
@@ -560,15 +607,23 @@ impl ResidualProfile {
             }
         }
         pr.s2 = pr.rss_min / dof as f64;
+        pr.order = (0..pr.grid.len()).collect();
+        pr.order
+            .sort_by(|&i, &j| pr.grid[i].3.total_cmp(&pr.grid[j].3));
         (pr.grid.len() > 2 && pr.s2 > 0.0 && pr.s2.is_finite()).then_some(pr)
     }
 
     /// Weighted least squares in (a0, a_inf) for a fixed kd.
-    fn unconstrained(&self, kd: f64) -> Option<(f64, [f64; 2], [f64; 3], f64)> {
+    fn unconstrained(&self, kd: f64) -> Option<GridPoint> {
         let (mut m00, mut m01, mut m11, mut r0, mut r1, mut yy) = (0.0, 0.0, 0.0, 0.0, 0.0, 0.0);
+        let q = self.step.map(|d| (-kd * d).exp());
+        let mut u = f64::NAN;
         for (i, (&xi, &yi)) in self.x.iter().zip(&self.y).enumerate() {
             let wi = self.w.as_ref().map_or(1.0, |w| w[i]);
-            let u = (-kd * xi).exp();
+            u = match q {
+                Some(q) if i > 0 => u * q,
+                _ => (-kd * xi).exp(),
+            };
             let v = 1.0 - u;
             m00 += wi * u * u;
             m01 += wi * u * v;
@@ -589,55 +644,115 @@ impl ResidualProfile {
     }
 
     /// √((RSS_x0 − RSS)/s²) for the curves meeting y(x0) − f·y(0) = c.
+    ///
+    /// The grid is scanned in increasing order of its unconstrained RSS (kept sorted), and the
+    /// scan stops at the first point whose unconstrained RSS is no less than the best
+    /// constrained RSS found: a constraint never lowers the RSS, so no later point can win and
+    /// the grid's minimum is exact. The minimum is then refined between the winner's grid
+    /// neighbours by successive parabolic interpolation on ln kd (a few evaluations instead of
+    /// a golden-section search's twenty; Brent, "Algorithms for Minimization without
+    /// Derivatives", 1973, ch. 5, recalled from memory).
     fn root(&self, x0: f64, f: f64, c: f64) -> f64 {
-        let at = |e: &(f64, [f64; 2], [f64; 3], f64)| {
-            let e0 = (-e.0 * x0).exp();
-            let g = [e0 - f, 1.0 - e0];
-            let gmg = g[0] * g[0] * e.2[0] + 2.0 * g[0] * g[1] * e.2[1] + g[1] * g[1] * e.2[2];
-            let miss = g[0] * e.1[0] + g[1] * e.1[1] - c;
-            if gmg > 0.0 {
-                e.3 + miss * miss / gmg
-            } else {
-                f64::INFINITY
-            }
+        let best_on_grid = self.scan(x0, f, c);
+        let Some((k, mut best)) = best_on_grid else {
+            return f64::INFINITY;
         };
-        let (mut best, mut k) = (f64::INFINITY, 0);
-        for (i, e) in self.grid.iter().enumerate() {
-            let v = at(e);
-            if v < best {
-                best = v;
-                k = i;
-            }
-        }
-        // Refine between the grid neighbours by golden-section search on ln kd.
-        let lo = self.grid[k.saturating_sub(1)].0.ln();
-        let hi = self.grid[(k + 1).min(self.grid.len() - 1)].0.ln();
+        let at = |e: &GridPoint| constrained(e, x0, f, c);
         let eval = |lk: f64| {
             self.unconstrained(lk.exp())
                 .map_or(f64::INFINITY, |e| at(&e))
         };
-        let g = 0.5 * (5f64.sqrt() - 1.0);
-        let (mut a, mut b) = (lo, hi);
-        let (mut c1, mut c2) = (b - g * (b - a), a + g * (b - a));
-        let (mut f1, mut f2) = (eval(c1), eval(c2));
-        for _ in 0..20 {
-            if f1 < f2 {
-                b = c2;
-                c2 = c1;
-                f2 = f1;
-                c1 = b - g * (b - a);
-                f1 = eval(c1);
-            } else {
-                a = c1;
-                c1 = c2;
-                f1 = f2;
-                c2 = a + g * (b - a);
-                f2 = eval(c2);
+        if k > 0 && k + 1 < self.grid.len() {
+            // Three points bracketing the minimum: (ln kd, RSS_x).
+            let mut pts = [
+                (self.grid[k - 1].0.ln(), at(&self.grid[k - 1])),
+                (self.grid[k].0.ln(), best),
+                (self.grid[k + 1].0.ln(), at(&self.grid[k + 1])),
+            ];
+            let (lo, hi) = (pts[0].0, pts[2].0);
+            for _ in 0..12 {
+                let Some(v) = parabola_vertex(&pts) else {
+                    break;
+                };
+                let v = v.clamp(lo, hi);
+                if (v - pts[1].0).abs() < 1e-9 * (hi - lo) {
+                    break;
+                }
+                let fv = eval(v);
+                if !fv.is_finite() {
+                    break;
+                }
+                best = best.min(fv);
+                // Keep the best point in the middle and its nearest neighbours either side.
+                let mut all = [pts[0], pts[1], pts[2], (v, fv)];
+                all.sort_by(|a, b| a.0.total_cmp(&b.0));
+                let m = (0..4)
+                    .min_by(|&i, &j| all[i].1.total_cmp(&all[j].1))
+                    .unwrap_or(1)
+                    .clamp(1, 2);
+                pts = [all[m - 1], all[m], all[m + 1]];
             }
         }
-        best = best.min(f1).min(f2);
         ((best - self.rss_min).max(0.0) / self.s2).sqrt()
     }
+
+    /// The grid point (its index) with the least constrained RSS, and that RSS.
+    fn scan(&self, x0: f64, f: f64, c: f64) -> Option<(usize, f64)> {
+        let (mut best, mut k) = (f64::INFINITY, None);
+        for &i in &self.order {
+            let e = &self.grid[i];
+            if e.3 >= best {
+                break;
+            }
+            let v = constrained(e, x0, f, c);
+            if v < best {
+                best = v;
+                k = Some(i);
+            }
+        }
+        k.map(|k| (k, best))
+    }
+}
+
+/// The spacing of `x` when it is increasing and evenly spaced to 10⁻¹² of its span.
+fn even_step(x: &[f64]) -> Option<f64> {
+    let d = x.get(1)? - x.first()?;
+    let span = (x.last()? - x.first()?).abs();
+    (d > 0.0
+        && x.windows(2)
+            .all(|p| ((p[1] - p[0]) - d).abs() <= 1e-12 * span))
+    .then_some(d)
+}
+
+/// One grid point of [`ResidualProfile`]: (kd, β_u = (a0, a_inf), M⁻¹ as (m00, m01, m11),
+/// RSS_u).
+type GridPoint = (f64, [f64; 2], [f64; 3], f64);
+
+/// The least RSS at one kd among the curves meeting y(x0) − f·y(0) = c: RSS_u + (gᵀβ_u −
+/// c)²/(gᵀM⁻¹g), g = (e^(−kd·x0) − f, 1 − e^(−kd·x0)) (equality-constrained least squares).
+fn constrained(e: &GridPoint, x0: f64, f: f64, c: f64) -> f64 {
+    let e0 = (-e.0 * x0).exp();
+    let g = [e0 - f, 1.0 - e0];
+    let gmg = g[0] * g[0] * e.2[0] + 2.0 * g[0] * g[1] * e.2[1] + g[1] * g[1] * e.2[2];
+    let miss = g[0] * e.1[0] + g[1] * e.1[1] - c;
+    if gmg > 0.0 {
+        e.3 + miss * miss / gmg
+    } else {
+        f64::INFINITY
+    }
+}
+
+/// The abscissa of the vertex of the parabola through three points, when it opens upwards.
+fn parabola_vertex(p: &[(f64, f64); 3]) -> Option<f64> {
+    let (a, b, c) = (p[0], p[1], p[2]);
+    let num = (b.0 - a.0).powi(2) * (b.1 - c.1) - (b.0 - c.0).powi(2) * (b.1 - a.1);
+    let den = (b.0 - a.0) * (b.1 - c.1) - (b.0 - c.0) * (b.1 - a.1);
+    if !(den.is_finite() && num.is_finite()) || den == 0.0 {
+        return None;
+    }
+    // The parabola opens upwards when the middle point lies below the chord.
+    let chord = a.1 + (c.1 - a.1) * (b.0 - a.0) / (c.0 - a.0);
+    (b.1 <= chord).then_some(b.0 - 0.5 * num / den)
 }
 
 /// The point crossing of `d` after `x_last` (h(x_last) > 0), ignoring the interval and the
@@ -1012,5 +1127,106 @@ mod tests {
         let want: f64 = (1..=12).map(|n| 100.0 * f.predict(f64::from(n))).sum();
         assert!((total - want).abs() < 1e-6 * want, "{total} vs {want}");
         assert_eq!(lifetime_ton(&f, &x, &y, &[None; 10], 12.5), None);
+    }
+
+    /// The profile root as first written: every grid point scanned, then a 20-step
+    /// golden-section search on ln kd between the winner's neighbours.
+    fn root_exhaustive(pr: &ResidualProfile, x0: f64, f: f64, c: f64) -> f64 {
+        // Every exponential computed directly.
+        let mut pr = pr.clone();
+        pr.step = None;
+        let pr = &pr;
+        let (mut best, mut k) = (f64::INFINITY, 0);
+        for (i, e) in pr.grid.iter().enumerate() {
+            let v = constrained(e, x0, f, c);
+            if v < best {
+                best = v;
+                k = i;
+            }
+        }
+        let lo = pr.grid[k.saturating_sub(1)].0.ln();
+        let hi = pr.grid[(k + 1).min(pr.grid.len() - 1)].0.ln();
+        let eval = |lk: f64| {
+            pr.unconstrained(lk.exp())
+                .map_or(f64::INFINITY, |e| constrained(&e, x0, f, c))
+        };
+        let g = 0.5 * (5f64.sqrt() - 1.0);
+        let (mut a, mut b) = (lo, hi);
+        let (mut c1, mut c2) = (b - g * (b - a), a + g * (b - a));
+        let (mut f1, mut f2) = (eval(c1), eval(c2));
+        for _ in 0..60 {
+            if f1 < f2 {
+                b = c2;
+                c2 = c1;
+                f2 = f1;
+                c1 = b - g * (b - a);
+                f1 = eval(c1);
+            } else {
+                a = c1;
+                c1 = c2;
+                f1 = f2;
+                c2 = a + g * (b - a);
+                f2 = eval(c2);
+            }
+        }
+        best = best.min(f1).min(f2);
+        ((best - pr.rss_min).max(0.0) / pr.s2).sqrt()
+    }
+
+    #[test]
+    fn bracketed_root_finds_smooth_kinked_and_undefined_roots() {
+        let sqrt2 = bracketed(|x| 2.0 - x * x, 0.0, 2.0, 2.0, -2.0);
+        assert!((sqrt2 - 2f64.sqrt()).abs() < 1e-11, "{sqrt2}");
+        // A steep exponential, where plain false position crawls from one side.
+        let r = bracketed(|x| (-20.0 * x).exp() - 1e-6, 0.0, f64::NAN, 5.0, f64::NAN);
+        assert!((r - 1e-6f64.ln() / -20.0).abs() < 1e-11, "{r}");
+        // A step: the jump's abscissa.
+        let s = bracketed(|x| if x < 0.3 { 1.0 } else { -1.0 }, 0.0, 1.0, 1.0, -1.0);
+        assert!((s - 0.3).abs() < 1e-11, "{s}");
+        // Undefined (NaN) beyond 0.7 counts as at or below, as in bisection.
+        let u = bracketed(
+            |x| if x < 0.7 { 1.0 - x } else { f64::NAN },
+            0.0,
+            1.0,
+            1.0,
+            f64::NAN,
+        );
+        assert!((u - 0.7).abs() < 1e-11, "{u}");
+    }
+
+    #[test]
+    fn pruned_profile_agrees_with_the_exhaustive_search() {
+        use rand::SeedableRng;
+        use rand_distr::{Distribution, Normal};
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(7);
+        let noise = Normal::new(0.0, 0.03).expect("valid sd");
+        let mut worst = 0.0f64;
+        for trial in 0..200 {
+            let n = [6, 10, 20, 40][trial % 4];
+            let kd = [0.02, 0.06, 0.2][trial % 3];
+            let x: Vec<f64> = (1..=n as u32).map(f64::from).collect();
+            let y: Vec<f64> = x
+                .iter()
+                .map(|&v| 0.3 + 0.7 * (-kd * v).exp() + noise.sample(&mut rng))
+                .collect();
+            let Some(pr) = ResidualProfile::new(&x, &y, None, f64::INFINITY, n - 3) else {
+                continue;
+            };
+            for (f, c) in [(0.0, 0.5), (0.5, 0.0), (0.0, 0.8)] {
+                for x0 in [0.5, 3.0, 7.5, 15.0, 33.3, 80.0, 400.0] {
+                    let (got, want) = (pr.root(x0, f, c), root_exhaustive(&pr, x0, f, c));
+                    let d = (got - want).abs() / want.abs().max(1.0);
+                    assert!(
+                        d < 1e-7 || (got.is_infinite() && want.is_infinite()),
+                        "trial {trial} x0 {x0}: {got} vs {want}"
+                    );
+                    if d.is_finite() {
+                        worst = worst.max(d);
+                    }
+                }
+            }
+        }
+        eprintln!("worst {worst:e}");
+        assert!(worst < 1e-7, "{worst}");
     }
 }

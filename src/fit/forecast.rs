@@ -566,7 +566,7 @@ pub struct ResidualProfile {
     w: Option<Vec<f64>>,
     /// Per grid kd: (kd, β_u = (a0, a_inf), M⁻¹ as (m00, m01, m11), RSS_u).
     grid: Vec<GridPoint>,
-    /// The common spacing of x when x is evenly spaced and increasing (cycles 1, 2, 3 …):
+    /// The common spacing of x when x is evenly spaced (cycles 1, 2, 3 …):
     /// e^(−kd·x) is then one exponential and a product per point.
     step: Option<f64>,
     /// Grid indices in increasing order of their unconstrained RSS.
@@ -592,7 +592,7 @@ impl ResidualProfile {
             y: y.to_vec(),
             w: w.map(<[f64]>::to_vec),
             grid: Vec::new(),
-            step: even_step(x),
+            step: super::start::even_step(x),
             order: Vec::new(),
             rss_min: rss,
             s2: f64::NAN,
@@ -712,16 +712,6 @@ impl ResidualProfile {
         }
         k.map(|k| (k, best))
     }
-}
-
-/// The spacing of `x` when it is increasing and evenly spaced to 10⁻¹² of its span.
-fn even_step(x: &[f64]) -> Option<f64> {
-    let d = x.get(1)? - x.first()?;
-    let span = (x.last()? - x.first()?).abs();
-    (d > 0.0
-        && x.windows(2)
-            .all(|p| ((p[1] - p[0]) - d).abs() <= 1e-12 * span))
-    .then_some(d)
 }
 
 /// One grid point of [`ResidualProfile`]: (kd, β_u = (a0, a_inf), M⁻¹ as (m00, m01, m11),

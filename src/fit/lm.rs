@@ -556,7 +556,7 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
     project(&mut p, &opts.bounds);
     // Every buffer is allocated once here: an iteration allocates nothing.
     // One allocation for all the buffers.
-    let mut work = vec![0.0; 4 * n + 9 * np + 2 * np * np];
+    let mut work = vec![0.0; 4 * n + 10 * np + 2 * np * np];
     let (mut r, rest) = work.split_at_mut(n);
     let (mut r_trial, rest) = rest.split_at_mut(n);
     let (r_geo, rest) = rest.split_at_mut(n);
@@ -567,7 +567,7 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
     let mut bufs = rest.chunks_exact_mut(np);
     let mut next = || bufs.next().unwrap_or_default();
     let (row, diag, g, delta, step) = (next(), next(), next(), next(), next());
-    let (acc, rhs, trial, probe) = (next(), next(), next(), next());
+    let (acc, rhs, trial, probe, g_free) = (next(), next(), next(), next(), next());
     let mut jac = DMatrix::zeros(n, np);
     // With analytic derivatives every trial point also gets its Jacobian (the same
     // exponentials serve both); an accepted trial then needs no separate Jacobian pass,
@@ -664,9 +664,24 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
             let c = jtj[j * np + j].sqrt();
             diag[j] = diag[j].max(c).max(1e-300);
         }
+        // Parameters held at a bound that the descent direction (+g) pushes against: this
+        // iteration's step leaves them where they are and solves for the others (an active
+        // set; Kanzow, Yamashita & Fukushima, J. Comput. Appl. Math. 172, 2004, recalled from
+        // memory). Projecting a full step instead crept along the bound for hundreds of
+        // iterations.
+        let mut active = 0u64;
+        for (j, &(lo, hi)) in opts.bounds.iter().enumerate().take(np.min(64)) {
+            if (p[j] <= lo && g[j] < 0.0) || (p[j] >= hi && g[j] > 0.0) {
+                active |= 1 << j;
+            }
+        }
+        let held = |j: usize| j < 64 && active & (1 << j) != 0;
+        for j in 0..np {
+            g_free[j] = if held(j) { 0.0 } else { g[j] };
+        }
         let rnorm = rss.sqrt();
         let mut gcos: f64 = 0.0;
-        for j in 0..np {
+        for j in (0..np).filter(|&j| !held(j)) {
             let c = jtj[j * np + j].sqrt();
             if c > 0.0 {
                 gcos = gcos.max(g[j].abs() / (c * rnorm));
@@ -681,6 +696,13 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
             for j in 0..np {
                 chol[j * np + j] += lambda * diag[j] * diag[j];
             }
+            for j in (0..np).filter(|&j| held(j)) {
+                for k in 0..np {
+                    chol[j * np + k] = 0.0;
+                    chol[k * np + j] = 0.0;
+                }
+                chol[j * np + j] = 1.0;
+            }
             if !cholesky_in_place(chol, np) {
                 lambda *= nu;
                 nu *= 2.0;
@@ -690,7 +712,7 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
                 }
                 continue;
             }
-            cholesky_solve(chol, np, g, delta);
+            cholesky_solve(chol, np, g_free, delta);
             // Geodesic acceleration: correct the step with the second directional derivative
             // of the residuals along δ, estimated by one finite difference.
             step.copy_from_slice(delta);
@@ -707,7 +729,7 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
                         r_geo[i] = ((r[i] - r_geo[i]) / h - jv[i]) * (2.0 / h);
                     }
                     for j in 0..np {
-                        rhs[j] = dot(col(j), r_geo);
+                        rhs[j] = if held(j) { 0.0 } else { dot(col(j), r_geo) };
                     }
                     cholesky_solve(chol, np, rhs, acc);
                     let mut na = 0.0;

@@ -84,7 +84,7 @@ fn solve_normal<const K: usize>(
 }
 
 /// The common step of evenly spaced x (cycle numbers usually are), if they are.
-fn even_step(x: &[f64]) -> Option<f64> {
+pub(super) fn even_step(x: &[f64]) -> Option<f64> {
     let (first, second) = (*x.first()?, *x.get(1)?);
     let step = second - first;
     let tol = 1e-12 * (x.last()? - first).abs().max(f64::MIN_POSITIVE);

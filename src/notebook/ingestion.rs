@@ -84,8 +84,6 @@ impl RunSummary {
 const STATEMENT_CACHE: usize = 64;
 /// SQLite page cache of the writer, KiB (a negative `cache_size` is in KiB).
 const PAGE_CACHE_KIB: i64 = -24 * 1024;
-/// The service's page cache between large exports, KiB (negative, as above).
-const SERVICE_CACHE_KIB: i64 = -4096;
 /// Write-ahead log size, in bytes, that triggers SQLite's own checkpoint for an
 /// `Ingestor` outside a backfill's run (one-file groups through `ingest_group`).
 const WAL_CHECKPOINT_BYTES: i64 = 128 << 20;
@@ -207,10 +205,6 @@ pub struct Ingestor {
     /// own does the copy while the writer goes on; the writer then copies only what it
     /// appended meanwhile, so that the log starts over at its next transaction.
     pub checkpoint_bytes: i64,
-    /// The service's small page cache (KiB, negative as SQLite takes it), widened to the
-    /// backfill's while a large export is stored: its rows update indexes in random
-    /// order, which a small cache turns into reads and writes of the same pages.
-    small_cache_kib: Option<i64>,
 }
 
 impl Ingestor {
@@ -252,7 +246,6 @@ impl Ingestor {
             parse_cache: ParseCache::new(),
             part_bytes: PART_BYTES,
             checkpoint_bytes: BACKFILL_CHECKPOINT_BYTES,
-            small_cache_kib: None,
         })
     }
 
@@ -260,9 +253,8 @@ impl Ingestor {
     /// page cache and SQLite's default checkpoint interval keep an idle service small
     /// (the large cache only pays off in a backfill).
     pub fn tune_for_service(&mut self) -> Result<(), StoreError> {
-        bulk::tune_service(&self.conn, SERVICE_CACHE_KIB, SERVICE_WAL_CHECKPOINT_PAGES)?;
+        bulk::tune_service(&self.conn, -4096, SERVICE_WAL_CHECKPOINT_PAGES)?;
         self.skip_unchanged = true;
-        self.small_cache_kib = Some(SERVICE_CACHE_KIB);
         Ok(())
     }
 
@@ -506,21 +498,9 @@ impl Ingestor {
     fn ingest_group(&mut self, paths: &[PathBuf]) -> Result<Vec<FileOutcome>, StoreError> {
         let prepared = Reader::new(&self.cfg, self.profile_override.as_deref())
             .prepare_group(paths, &mut self.parse_cache);
-        let large = prepared
-            .iter()
-            .any(|p| matches!(p.result, Ok(Content::Large(_))));
-        let widened = self.small_cache_kib.filter(|_| large);
-        if widened.is_some() {
-            bulk::set_cache_kib(&self.conn, PAGE_CACHE_KIB)?;
-        }
-        let stored = Writer::new(&mut self.conn, &self.cfg, &self.actor)
+        Writer::new(&mut self.conn, &self.cfg, &self.actor)
             .store(prepared, None, true, &mut Leftovers::default())
-            .map(|(o, _)| o);
-        // Back to the small cache (SQLite frees the pages over it), whatever happened.
-        if let Some(kib) = widened {
-            bulk::set_cache_kib(&self.conn, kib)?;
-        }
-        stored
+            .map(|(o, _)| o)
     }
 }
 

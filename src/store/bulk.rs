@@ -36,13 +36,6 @@ pub fn tune_service(conn: &Connection, cache_kib: i64, checkpoint_pages: i64) ->
     Ok(())
 }
 
-/// Set the page cache to `cache_kib` (negative: KiB); a smaller cache frees the pages
-/// over it.
-pub fn set_cache_kib(conn: &Connection, cache_kib: i64) -> Result<()> {
-    conn.pragma_update(None, "cache_size", cache_kib)?;
-    Ok(())
-}
-
 /// The database's page size in bytes.
 pub fn page_size(conn: &Connection) -> Result<i64> {
     Ok(conn.query_row("PRAGMA page_size", [], |r| r.get(0))?)

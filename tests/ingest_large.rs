@@ -292,3 +292,79 @@ fn killed_while_storing_a_large_file_nothing_is_half_stored() {
     let report = notebook::verify(&cfg, &[]).unwrap();
     assert!(report.findings.is_empty(), "{:?}", report.findings);
 }
+
+#[test]
+fn a_large_lot_nobody_registered_is_recomputed_as_the_whole_state_would_be() {
+    // A lot nobody registered is recomputed by streaming its cycles from the store (it
+    // has no analysis to hold them for). What that stores must be what the lot's whole
+    // state gives: `verify` recomputes the line and the figures from the whole state
+    // and compares them, here with a conflicting, an excluded and a later cycle.
+    let tmp = tempfile::tempdir().unwrap();
+    let root = tmp.path();
+    let cfg = common::reactor_config(root, 100);
+    let dir = root.join("exports");
+    let big = write_export(&dir, "large.csv", ROWS, None);
+    let mut ing = Ingestor::open(cfg.clone()).unwrap();
+    assert!(matches!(
+        ing.ingest_file(&big).unwrap(),
+        FileOutcome::Ingested { .. }
+    ));
+    let later = dir.join("later.csv");
+    std::fs::write(
+        &later,
+        "Batch,Lot,Conversion\nLG-000007,LOT-LARGE,1.00\nLG-900000,LOT-LARGE,55.00\n",
+    )
+    .unwrap();
+    assert!(matches!(
+        ing.ingest_file(&later).unwrap(),
+        FileOutcome::Ingested { .. }
+    ));
+    drop(ing);
+    notebook::exclude(&cfg, "LG-000011", true, "sample spilled").unwrap();
+
+    let ing = Ingestor::open(cfg.clone()).unwrap();
+    let (line, figures): (String, i64) = ing
+        .conn()
+        .query_row(
+            "SELECT s.line, (SELECT COUNT(*) FROM cycle_figures WHERE lot = s.lot)
+             FROM lot_states s WHERE s.lot = 'LOT-LARGE'",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .unwrap();
+    let line: serde_json::Value = serde_json::from_str(&line).unwrap();
+    assert_eq!(line["cycles"], ROWS + 1);
+    assert_eq!(figures, ROWS as i64 + 1);
+    assert_eq!(
+        line["flags"],
+        serde_json::json!(["conflict", "excluded", "pending"])
+    );
+    let flags = |batch: &str| -> String {
+        ing.conn()
+            .query_row(
+                "SELECT flags FROM cycle_figures WHERE batch_id = ?1",
+                [batch],
+                |r| r.get(0),
+            )
+            .unwrap()
+    };
+    assert_eq!(flags("LG-000007"), r#"["conflict","pending"]"#);
+    assert_eq!(flags("LG-000011"), r#"["excluded","pending"]"#);
+    assert_eq!(flags("LG-900000"), r#"["pending"]"#);
+    let report = notebook::verify(&cfg, &[]).unwrap();
+    assert!(report.findings.is_empty(), "{:?}", report.findings);
+
+    // A stored figure off by one flag is a finding: the check compares.
+    ing.conn()
+        .execute(
+            "UPDATE cycle_figures SET flags = '[\"pending\"]' WHERE batch_id = 'LG-000011'",
+            [],
+        )
+        .unwrap();
+    let report = notebook::verify(&cfg, &[]).unwrap();
+    assert!(
+        report.findings.iter().any(|f| f.table == "cycle_figures"),
+        "{:?}",
+        report.findings
+    );
+}

@@ -4,16 +4,53 @@
 
 use std::collections::BTreeSet;
 
-use super::lots::{LotState, cycle_lines};
+use super::lots::{CycleLine, CycleState, LotState, cycle_line, cycle_lines};
 use crate::model::time::now_utc;
 use crate::store::export::{CycleFigures, LotFigures};
 use crate::store::{Result, Transaction};
 
 /// Store the figures of `state`, computed after event `after`, in the caller's
 /// transaction (the recompute's), replacing the lot's earlier ones.
+///
+/// One cycle at a time: the rows of a lot of 200,000 cycles are never all in memory.
 pub fn store_figures(tx: &Transaction<'_>, state: &LotState, after: i64) -> Result<()> {
-    let (lot, cycles) = figures_of(state);
-    crate::store::export::store_figures(tx, &lot, &cycles, after, &now_utc())
+    let mut figures = FiguresWriter::begin(tx, state, after)?;
+    for c in &state.cycles {
+        figures.cycle(state, c)?;
+    }
+    figures.finish(state)
+}
+
+/// Replaces a lot's stored figures as its cycles come (see [`store_figures`]): a lot
+/// streamed from the store (a pending one) is stored without holding its cycles.
+pub struct FiguresWriter<'t, 'c> {
+    tx: &'t Transaction<'c>,
+    after: i64,
+    at: String,
+    basis: String,
+}
+
+impl<'t, 'c> FiguresWriter<'t, 'c> {
+    pub fn begin(tx: &'t Transaction<'c>, state: &LotState, after: i64) -> Result<Self> {
+        crate::store::export::clear_figures(tx, &state.lot)?;
+        Ok(FiguresWriter {
+            tx,
+            after,
+            at: now_utc(),
+            basis: state.activity_basis.key().to_string(),
+        })
+    }
+
+    /// Store the figures of cycle `c` of `state`.
+    pub fn cycle(&mut self, state: &LotState, c: &CycleState) -> Result<()> {
+        let row = cycle_figures(&self.basis, cycle_line(state, c), c);
+        crate::store::export::store_cycle_figures(self.tx, &state.lot, &row, self.after, &self.at)
+    }
+
+    /// Store the lot's own figures; `state` holds what [`lot_figures`] reads of it.
+    pub fn finish(self, state: &LotState) -> Result<()> {
+        crate::store::export::store_lot_figures(self.tx, &lot_figures(state), self.after, &self.at)
+    }
 }
 
 fn words_json(words: &[String]) -> String {
@@ -26,26 +63,31 @@ pub fn figures_of(s: &LotState) -> (LotFigures, Vec<CycleFigures>) {
     let cycles = cycle_lines(s)
         .into_iter()
         .zip(&s.cycles)
-        .map(|(l, c)| CycleFigures {
-            batch_id: l.batch_id,
-            cycle_no: i64::from(l.cycle),
-            ton: l.ton,
-            ton_per_mol_metal_available: l.ton_per_metal_available,
-            cumulative_ton: l.cumulative_ton,
-            tof_average_per_h: l.tof_per_h,
-            tof_initial_per_h: l.tof_initial_per_h,
-            k_app_per_h: l.k_app_per_h,
-            k_app_se_per_h: l.k_app_se_per_h,
-            activity: l.activity,
-            activity_se: l.activity_se,
-            activity_basis: basis.clone(),
-            metal_charged_mmol: l.metal_charged_mmol,
-            metal_available_mmol: l.metal_available_mmol,
-            catalyst_to_substrate: l.catalyst_to_substrate,
-            flags_json: words_json(&c.flags),
-        })
+        .map(|(l, c)| cycle_figures(&basis, l, c))
         .collect();
     (lot_figures(s), cycles)
+}
+
+/// The figures of cycle `c`, whose line is `l`, on activity basis `basis`.
+fn cycle_figures(basis: &str, l: CycleLine, c: &CycleState) -> CycleFigures {
+    CycleFigures {
+        batch_id: l.batch_id,
+        cycle_no: i64::from(l.cycle),
+        ton: l.ton,
+        ton_per_mol_metal_available: l.ton_per_metal_available,
+        cumulative_ton: l.cumulative_ton,
+        tof_average_per_h: l.tof_per_h,
+        tof_initial_per_h: l.tof_initial_per_h,
+        k_app_per_h: l.k_app_per_h,
+        k_app_se_per_h: l.k_app_se_per_h,
+        activity: l.activity,
+        activity_se: l.activity_se,
+        activity_basis: basis.to_string(),
+        metal_charged_mmol: l.metal_charged_mmol,
+        metal_available_mmol: l.metal_available_mmol,
+        catalyst_to_substrate: l.catalyst_to_substrate,
+        flags_json: words_json(&c.flags),
+    }
 }
 
 fn lot_figures(s: &LotState) -> LotFigures {

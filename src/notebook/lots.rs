@@ -137,10 +137,7 @@ pub fn lot_state_as_of(
         for c in &mut cycles {
             c.flags.push("pending".into());
         }
-        attention.push(format!(
-            "{} cycle(s) recorded for lot '{lot}', which nobody registered: pending until the lot is registered",
-            cycles.len()
-        ));
+        attention.push(pending_attention(lot, cycles.len()));
         return Ok(LotState {
             lot: lot.to_string(),
             record,
@@ -235,45 +232,99 @@ fn stored_cycles(
     lot: &str,
     as_of: Option<i64>,
 ) -> Result<(Option<LotRecord>, Vec<CycleState>)> {
-    let (record, views) = match as_of {
-        None => (records::lot(conn, lot)?, records::cycles_of_lot(conn, lot)?),
-        Some(seq) => (
-            store::lots::lot_record_as_of(conn, lot, seq)?,
-            store::lots::cycles_as_of(conn, lot, seq)?,
-        ),
+    let Some(seq) = as_of else {
+        // The current view fetches every batch's sources in one query, and turns each
+        // row into its cycle as it is read.
+        let record = records::lot(conn, lot)?;
+        let mut all = store::lots::sources_of_lot(conn, lot)?;
+        let mut cycles = Vec::with_capacity(records::cycle_count_of_lot(conn, lot)?);
+        records::each_cycle_of_lot(conn, lot, |v| {
+            let sources = all.remove(&v.batch_id).unwrap_or_default();
+            cycles.push(cycle_state(cycles.len(), v, sources));
+            Ok(())
+        })?;
+        return Ok((record, cycles));
     };
-    // The current view fetches every batch's sources in one query.
-    let mut lot_sources = match as_of {
-        None => Some(store::lots::sources_of_lot(conn, lot)?),
-        Some(_) => None,
-    };
-    let as_of = as_of.unwrap_or(i64::MAX);
+    let record = store::lots::lot_record_as_of(conn, lot, seq)?;
+    let views = store::lots::cycles_as_of(conn, lot, seq)?;
     let mut cycles: Vec<CycleState> = Vec::with_capacity(views.len());
     for (i, v) in views.into_iter().enumerate() {
-        let n = v
-            .cycle_no
-            .and_then(|c| u32::try_from(c).ok())
-            .unwrap_or(i as u32 + 1);
-        let mut flags = Vec::new();
-        if v.conflicts > 0 {
-            flags.push("conflict".to_string());
-        }
-        if v.excluded {
-            flags.push("excluded".to_string());
-        }
-        let sources = match lot_sources.as_mut() {
-            Some(all) => all.remove(&v.batch_id).unwrap_or_default(),
-            None => store::lots::sources_of(conn, &v.batch_id, as_of)?,
-        };
-        cycles.push(CycleState {
-            cycle: n,
-            view: v,
-            metrics: None,
-            sources,
-            flags,
-        });
+        let sources = store::lots::sources_of(conn, &v.batch_id, seq)?;
+        cycles.push(cycle_state(i, v, sources));
     }
     Ok((record, cycles))
+}
+
+/// The `i`-th cycle of a lot (0-based, in the store's order) with its record flags.
+fn cycle_state(i: usize, v: CycleView, sources: Vec<SourceRef>) -> CycleState {
+    let n = v
+        .cycle_no
+        .and_then(|c| u32::try_from(c).ok())
+        .unwrap_or(i as u32 + 1);
+    let mut flags = Vec::new();
+    if v.conflicts > 0 {
+        flags.push("conflict".to_string());
+    }
+    if v.excluded {
+        flags.push("excluded".to_string());
+    }
+    CycleState {
+        cycle: n,
+        view: v,
+        metrics: None,
+        sources,
+        flags,
+    }
+}
+
+/// The attention line of a lot nobody registered.
+fn pending_attention(lot: &str, cycles: usize) -> String {
+    format!(
+        "{cycles} cycle(s) recorded for lot '{lot}', which nobody registered: pending until the lot is registered"
+    )
+}
+
+/// The state of a lot with no registration, its cycles not kept: each is handed to `each`
+/// as it is read (with the flags [`lot_state`] gives it), and the state comes back with
+/// no cycles, the union of their flags in `lot_flags` (such a lot has no flags of its
+/// own), and their count. Its lot line and figures are [`lot_state`]'s once the count is
+/// put in the line. `None` when the lot is registered: its analysis needs every cycle.
+pub(crate) fn pending_state_streamed(
+    conn: &Connection,
+    cfg: &Config,
+    lot: &str,
+    mut each: impl FnMut(&LotState, &CycleState) -> Result<()>,
+) -> Result<Option<(LotState, usize)>> {
+    if records::lot(conn, lot)?.is_some() {
+        return Ok(None);
+    }
+    let mut state = LotState {
+        lot: lot.to_string(),
+        record: None,
+        cycles: Vec::new(),
+        analysis: None,
+        basis: basis(cfg),
+        lifetime_ton: None,
+        attention: Vec::new(),
+        activity_basis: cfg.chemistry.activity_basis,
+        reference_cycle: None,
+        reference_moved: false,
+        lot_flags: Vec::new(),
+        feed_lots: Default::default(),
+    };
+    let mut flags: BTreeSet<String> = BTreeSet::new();
+    let mut count = 0;
+    records::each_cycle_of_lot(conn, lot, |v| {
+        let mut c = cycle_state(count, v, Vec::new());
+        c.flags.push("pending".into());
+        each(&state, &c)?;
+        flags.extend(c.flags);
+        count += 1;
+        Ok(())
+    })?;
+    state.lot_flags = flags.into_iter().collect();
+    state.attention.push(pending_attention(lot, count));
+    Ok(Some((state, count)))
 }
 
 /// σ of a cycle's conversion: the assay uncertainty of the profile of the first file of
@@ -734,65 +785,65 @@ pub fn cycles_document(s: &LotState) -> CyclesDocument {
 }
 
 pub fn cycle_lines(s: &LotState) -> Vec<CycleLine> {
-    s.cycles
-        .iter()
-        .map(|c| {
-            let m = c.metrics.as_ref();
-            let v = &c.view;
-            let activity = m.and_then(|m| m.activity);
-            CycleLine {
-                cycle: c.cycle,
-                batch_id: v.batch_id.clone(),
-                started_at: v.started_at.clone(),
-                duration_h: v.get(Quantity::Duration).map(|s| s / 3600.0),
-                temperature_c: v.get(Quantity::Temperature).map(|k| k - 273.15),
-                substrate_mol: v.get(Quantity::Substrate),
-                catalyst_charged_g: m.and_then(|m| m.catalyst_charged_g),
-                metal_charged_mmol: m.and_then(|m| m.metal_mol).map(|n| n * 1000.0),
-                metal_available_mmol: m.and_then(|m| m.metal_available_mol).map(|n| n * 1000.0),
-                catalyst_to_substrate: m.and_then(|m| m.catalyst_ratio),
-                conversion: v.get(Quantity::Conversion),
-                selectivity: v.get(Quantity::Selectivity),
-                yield_fraction: m.and_then(|m| m.yield_used),
-                product_mass_g: v.get(Quantity::ProductMass),
-                metal_in_product_ug_g: v.get(Quantity::MetalInProduct),
-                catalyst_recovered_g: v.get(Quantity::CatalystRecovered),
-                ton: m.and_then(|m| m.ton),
-                ton_per_metal_available: m.and_then(|m| m.ton_available),
-                tof_per_h: m.and_then(|m| m.tof_per_h),
-                tof_per_s: m.and_then(|m| m.tof_per_s),
-                tof_initial_per_h: m.and_then(|m| m.initial_tof_per_h),
-                tof_initial_per_s: m.and_then(|m| m.initial_tof_per_s),
-                cumulative_ton: m.and_then(|m| m.cumulative_ton),
-                k_app_per_h: m.and_then(|m| m.k_app_per_h),
-                k_app_se_per_h: m.and_then(|m| m.k_app_se_per_h),
-                activity,
-                activity_per_catalyst_ratio: activity
-                    .filter(|_| s.activity_basis == ActivityBasis::CatalystRatio),
-                activity_per_metal_charged: activity
-                    .filter(|_| s.activity_basis == ActivityBasis::MetalCharged),
-                activity_se: m.and_then(|m| m.activity_se),
-                metal_lost_mg: m.and_then(|m| m.metal_lost_g).map(|g| g * 1000.0),
-                cumulative_metal_loss_fraction: m.and_then(|m| m.cumulative_loss_fraction),
-                flags: c.flags.clone(),
-                sources: c
-                    .sources
-                    .iter()
-                    .map(|s| {
-                        format!(
-                            "{}:{} ({})",
-                            s.path,
-                            s.lines
-                                .iter()
-                                .map(|l| l.to_string())
-                                .collect::<Vec<_>>()
-                                .join(","),
-                            &s.sha256[..12.min(s.sha256.len())]
-                        )
-                    })
-                    .collect::<Vec<_>>()
-                    .join("; "),
-            }
-        })
-        .collect()
+    s.cycles.iter().map(|c| cycle_line(s, c)).collect()
+}
+
+/// The line of one cycle `c` of the lot `s`.
+pub fn cycle_line(s: &LotState, c: &CycleState) -> CycleLine {
+    let m = c.metrics.as_ref();
+    let v = &c.view;
+    let activity = m.and_then(|m| m.activity);
+    CycleLine {
+        cycle: c.cycle,
+        batch_id: v.batch_id.clone(),
+        started_at: v.started_at.clone(),
+        duration_h: v.get(Quantity::Duration).map(|s| s / 3600.0),
+        temperature_c: v.get(Quantity::Temperature).map(|k| k - 273.15),
+        substrate_mol: v.get(Quantity::Substrate),
+        catalyst_charged_g: m.and_then(|m| m.catalyst_charged_g),
+        metal_charged_mmol: m.and_then(|m| m.metal_mol).map(|n| n * 1000.0),
+        metal_available_mmol: m.and_then(|m| m.metal_available_mol).map(|n| n * 1000.0),
+        catalyst_to_substrate: m.and_then(|m| m.catalyst_ratio),
+        conversion: v.get(Quantity::Conversion),
+        selectivity: v.get(Quantity::Selectivity),
+        yield_fraction: m.and_then(|m| m.yield_used),
+        product_mass_g: v.get(Quantity::ProductMass),
+        metal_in_product_ug_g: v.get(Quantity::MetalInProduct),
+        catalyst_recovered_g: v.get(Quantity::CatalystRecovered),
+        ton: m.and_then(|m| m.ton),
+        ton_per_metal_available: m.and_then(|m| m.ton_available),
+        tof_per_h: m.and_then(|m| m.tof_per_h),
+        tof_per_s: m.and_then(|m| m.tof_per_s),
+        tof_initial_per_h: m.and_then(|m| m.initial_tof_per_h),
+        tof_initial_per_s: m.and_then(|m| m.initial_tof_per_s),
+        cumulative_ton: m.and_then(|m| m.cumulative_ton),
+        k_app_per_h: m.and_then(|m| m.k_app_per_h),
+        k_app_se_per_h: m.and_then(|m| m.k_app_se_per_h),
+        activity,
+        activity_per_catalyst_ratio: activity
+            .filter(|_| s.activity_basis == ActivityBasis::CatalystRatio),
+        activity_per_metal_charged: activity
+            .filter(|_| s.activity_basis == ActivityBasis::MetalCharged),
+        activity_se: m.and_then(|m| m.activity_se),
+        metal_lost_mg: m.and_then(|m| m.metal_lost_g).map(|g| g * 1000.0),
+        cumulative_metal_loss_fraction: m.and_then(|m| m.cumulative_loss_fraction),
+        flags: c.flags.clone(),
+        sources: c
+            .sources
+            .iter()
+            .map(|s| {
+                format!(
+                    "{}:{} ({})",
+                    s.path,
+                    s.lines
+                        .iter()
+                        .map(|l| l.to_string())
+                        .collect::<Vec<_>>()
+                        .join(","),
+                    &s.sha256[..12.min(s.sha256.len())]
+                )
+            })
+            .collect::<Vec<_>>()
+            .join("; "),
+    }
 }

@@ -135,6 +135,9 @@ fn recompute_lot(
     cause: Option<&str>,
     raise: Raise,
 ) -> Result<()> {
+    if recompute_pending(tx, cfg, lot, after)? {
+        return Ok(());
+    }
     let state = lot_state(tx, cfg, lot)?;
     let fingerprint = cfg.analysis_fingerprint();
     let now = now_utc();
@@ -183,6 +186,52 @@ fn recompute_lot(
         tracing::debug!(lot, "backfilled history: state stored, no alert raised");
     }
     Ok(())
+}
+
+/// Recompute a lot nobody registered, streaming its cycles from the store: it has no
+/// analysis and raises no alert, so each cycle is needed only for its figures and its
+/// share of the lot's flags, and a lot of 200,000 cycles (one large export) is stored in
+/// the memory of one cycle. What it stores is what [`recompute_lot`] stores from the
+/// lot's whole state (a test compares them). False when the lot is registered.
+fn recompute_pending(tx: &Transaction<'_>, cfg: &Config, lot: &str, after: i64) -> Result<bool> {
+    let mut figures = None;
+    let streamed = super::lots::pending_state_streamed(tx, cfg, lot, |state, c| {
+        let w = match figures.as_mut() {
+            Some(w) => w,
+            None => figures.insert(super::export::FiguresWriter::begin(tx, state, after)?),
+        };
+        w.cycle(state, c)
+    })?;
+    let Some((state, count)) = streamed else {
+        return Ok(false);
+    };
+    let figures = match figures {
+        Some(w) => w,
+        None => super::export::FiguresWriter::begin(tx, &state, after)?,
+    };
+    figures.finish(&state)?;
+    let fingerprint = cfg.analysis_fingerprint();
+    let now = now_utc();
+    store::lots::store_fit(
+        tx,
+        lot,
+        after,
+        &state.basis,
+        None,
+        "null",
+        (fit::ENGINE_VERSION, &fingerprint),
+        &now,
+    )?;
+    let mut line = lot_line(&state);
+    line.cycles = count;
+    let made = store::lots::StateMade {
+        after_seq: after,
+        engine_version: fit::ENGINE_VERSION,
+        config_sha256: &fingerprint,
+    };
+    let line = serde_json::to_string(&line)?;
+    store::lots::store_state(tx, lot, made, &now, (&line, None))?;
+    Ok(true)
 }
 
 /// Lots whose records changed with no recompute since (an interrupted backfill): the

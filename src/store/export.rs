@@ -63,8 +63,30 @@ pub fn store_figures(
     after: i64,
     at: &str,
 ) -> Result<()> {
+    clear_figures(tx, &lot.lot)?;
+    for c in cycles {
+        store_cycle_figures(tx, &lot.lot, c, after, at)?;
+    }
+    store_lot_figures(tx, lot, after, at)
+}
+
+/// The first step of replacing a lot's figures one cycle at a time (a lot of 200,000
+/// cycles is never held whole): remove its cycles' figures. Then
+/// [`store_cycle_figures`] for each cycle and [`store_lot_figures`], in one transaction.
+pub fn clear_figures(tx: &Transaction<'_>, lot: &str) -> Result<()> {
     tx.prepare_cached("DELETE FROM cycle_figures WHERE lot = ?1")?
-        .execute([&lot.lot])?;
+        .execute([lot])?;
+    Ok(())
+}
+
+/// Store one cycle's figures of `lot` (see [`clear_figures`]).
+pub fn store_cycle_figures(
+    tx: &Transaction<'_>,
+    lot: &str,
+    c: &CycleFigures,
+    after: i64,
+    at: &str,
+) -> Result<()> {
     let mut insert = tx.prepare_cached(
         "INSERT OR REPLACE INTO cycle_figures(batch_id, lot, cycle_no, ton,
              ton_per_mol_metal_available, cumulative_ton, tof_average_per_h, tof_initial_per_h,
@@ -74,29 +96,37 @@ pub fn store_figures(
          VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17,
              ?18, ?19)",
     )?;
-    for c in cycles {
-        insert.execute(params![
-            c.batch_id,
-            lot.lot,
-            c.cycle_no,
-            c.ton,
-            c.ton_per_mol_metal_available,
-            c.cumulative_ton,
-            c.tof_average_per_h,
-            c.tof_initial_per_h,
-            c.k_app_per_h,
-            c.k_app_se_per_h,
-            c.activity,
-            c.activity_se,
-            c.activity_basis,
-            c.metal_charged_mmol,
-            c.metal_available_mmol,
-            c.catalyst_to_substrate,
-            c.flags_json,
-            after,
-            at
-        ])?;
-    }
+    insert.execute(params![
+        c.batch_id,
+        lot,
+        c.cycle_no,
+        c.ton,
+        c.ton_per_mol_metal_available,
+        c.cumulative_ton,
+        c.tof_average_per_h,
+        c.tof_initial_per_h,
+        c.k_app_per_h,
+        c.k_app_se_per_h,
+        c.activity,
+        c.activity_se,
+        c.activity_basis,
+        c.metal_charged_mmol,
+        c.metal_available_mmol,
+        c.catalyst_to_substrate,
+        c.flags_json,
+        after,
+        at
+    ])?;
+    Ok(())
+}
+
+/// Store the lot's own figures (see [`clear_figures`]).
+pub fn store_lot_figures(
+    tx: &Transaction<'_>,
+    lot: &LotFigures,
+    after: i64,
+    at: &str,
+) -> Result<()> {
     tx.prepare_cached(
         "INSERT OR REPLACE INTO lot_figures(lot, state, model, latest_activity, cumulative_ton,
              forecast_status, crossing_cycle, crossing_cycle_lower, crossing_cycle_upper,

@@ -664,6 +664,30 @@ pub fn all_cycles(conn: &rusqlite::Connection) -> Result<Vec<CycleView>> {
 
 /// The cycle rows of one lot, ordered by cycle number (given) and then by first sight.
 pub fn cycles_of_lot(conn: &rusqlite::Connection, lot: &str) -> Result<Vec<CycleView>> {
+    let mut out = Vec::new();
+    each_cycle_of_lot(conn, lot, |v| {
+        out.push(v);
+        Ok(())
+    })?;
+    Ok(out)
+}
+
+/// How many cycles name the lot.
+pub fn cycle_count_of_lot(conn: &rusqlite::Connection, lot: &str) -> Result<usize> {
+    let n: i64 = conn
+        .prepare_cached("SELECT COUNT(*) FROM cycles WHERE lot = ?1")?
+        .query_row([lot], |r| r.get(0))?;
+    Ok(usize::try_from(n).unwrap_or(0))
+}
+
+/// The cycles of a lot in [`cycles_of_lot`]'s order, handed to `each` one at a time as
+/// they are read: a lot of 200,000 cycles is then never held twice (as rows and in the
+/// caller's own form).
+pub fn each_cycle_of_lot(
+    conn: &rusqlite::Connection,
+    lot: &str,
+    mut each: impl FnMut(CycleView) -> Result<()>,
+) -> Result<()> {
     let sql = format!(
         "SELECT batch_id, lot, cycle_no, started_at, {}, conflicts, excluded, first_seq
          FROM cycles WHERE lot = ?1
@@ -671,10 +695,11 @@ pub fn cycles_of_lot(conn: &rusqlite::Connection, lot: &str) -> Result<Vec<Cycle
         CYCLE_COLUMNS.join(", ")
     );
     let mut stmt = conn.prepare(&sql)?;
-    let rows = stmt
-        .query_map([lot], cycle_from_row)?
-        .collect::<std::result::Result<Vec<_>, _>>()?;
-    Ok(rows)
+    let mut rows = stmt.query([lot])?;
+    while let Some(r) = rows.next()? {
+        each(cycle_from_row(r)?)?;
+    }
+    Ok(())
 }
 
 pub(crate) fn cycle_from_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<CycleView> {

@@ -266,7 +266,8 @@ enum Search {
     Horizon,
 }
 
-/// Finds where `h` first turns ≤ 0 after `from` (h(from) > 0), stepping out geometrically.
+/// Finds where `h` first turns ≤ 0 after `from` (h(from) > 0), stepping out geometrically
+/// (by 1.5 while a step is shorter than the data's span, then by 2).
 /// Where h turns NaN (the curve leaves its domain), bisects to the last finite point: if h
 /// is ≤ 0 there (a curve that ends at zero), the crossing lies before it.
 fn search_after(h: &impl Fn(f64) -> f64, from: f64, span: f64) -> Search {
@@ -302,7 +303,8 @@ fn search_after(h: &impl Fn(f64) -> f64, from: f64, span: f64) -> Search {
         }
         a = b;
         ha = hb;
-        step *= 1.5;
+        // Finely near the data, then doubling: the horizon (10⁶ spans) in 28 steps, not 40.
+        step *= if step < span { 1.5 } else { 2.0 };
     }
     Search::Horizon
 }
@@ -571,6 +573,8 @@ pub struct ResidualProfile {
     step: Option<f64>,
     /// Grid indices in increasing order of their unconstrained RSS.
     order: Vec<usize>,
+    /// The grid point that won the last scan (a hint; the result does not depend on it).
+    last_winner: std::sync::Arc<std::sync::atomic::AtomicUsize>,
     rss_min: f64,
     s2: f64,
 }
@@ -580,6 +584,18 @@ const PROFILE_PER_DECADE: usize = 40;
 
 impl ResidualProfile {
     fn new(x: &[f64], y: &[f64], w: Option<&[f64]>, rss: f64, dof: usize) -> Option<Self> {
+        Self::with_grid(x, y, w, rss, dof, PROFILE_PER_DECADE)
+    }
+
+    /// [`Self::new`] with `per_decade` grid points per decade of kd.
+    fn with_grid(
+        x: &[f64],
+        y: &[f64],
+        w: Option<&[f64]>,
+        rss: f64,
+        dof: usize,
+        per_decade: usize,
+    ) -> Option<Self> {
         let scale = x.iter().fold(0.0f64, |m, v| m.max(v.abs()));
         if x.len() != y.len()
             || x.len() < 4
@@ -594,13 +610,14 @@ impl ResidualProfile {
             grid: Vec::new(),
             step: super::start::even_step(x),
             order: Vec::new(),
+            last_winner: Default::default(),
             rss_min: rss,
             s2: f64::NAN,
         };
         // kd from 10⁻⁴ to 10² per x span: from a straight line to a step after the first x.
         let decades = 6;
-        for i in 0..=decades * PROFILE_PER_DECADE {
-            let kd = 1e-4 / scale * 10f64.powf(i as f64 / PROFILE_PER_DECADE as f64);
+        for i in 0..=decades * per_decade {
+            let kd = 1e-4 / scale * 10f64.powf(i as f64 / per_decade as f64);
             if let Some(e) = pr.unconstrained(kd) {
                 pr.rss_min = pr.rss_min.min(e.3);
                 pr.grid.push(e);
@@ -698,17 +715,30 @@ impl ResidualProfile {
 
     /// The grid point (its index) with the least constrained RSS, and that RSS.
     fn scan(&self, x0: f64, f: f64, c: f64) -> Option<(usize, f64)> {
-        let (mut best, mut k) = (f64::INFINITY, None);
+        use std::sync::atomic::Ordering::Relaxed;
+        // The previous call's winner first: calls come in sequences of nearby x0 (a search
+        // along x), so it is usually near the winner and its value prunes the scan early.
+        let hint = self.last_winner.load(Relaxed);
+        let (mut best, mut k) = match self.grid.get(hint) {
+            Some(e) => (constrained(e, x0, f, c), Some(hint)),
+            None => (f64::INFINITY, None),
+        };
+        if best.is_nan() {
+            (best, k) = (f64::INFINITY, None);
+        }
         for &i in &self.order {
             let e = &self.grid[i];
             if e.3 >= best {
                 break;
             }
             let v = constrained(e, x0, f, c);
-            if v < best {
+            if v < best || (v == best && k.is_some_and(|k| i < k)) {
                 best = v;
                 k = Some(i);
             }
+        }
+        if let Some(k) = k {
+            self.last_winner.store(k, Relaxed);
         }
         k.map(|k| (k, best))
     }
@@ -721,7 +751,12 @@ type GridPoint = (f64, [f64; 2], [f64; 3], f64);
 /// The least RSS at one kd among the curves meeting y(x0) − f·y(0) = c: RSS_u + (gᵀβ_u −
 /// c)²/(gᵀM⁻¹g), g = (e^(−kd·x0) − f, 1 − e^(−kd·x0)) (equality-constrained least squares).
 fn constrained(e: &GridPoint, x0: f64, f: f64, c: f64) -> f64 {
-    let e0 = (-e.0 * x0).exp();
+    // e^(−709) is the smallest normal double; far beyond it the exponential is zero.
+    let e0 = if e.0 * x0 > 750.0 {
+        0.0
+    } else {
+        (-e.0 * x0).exp()
+    };
     let g = [e0 - f, 1.0 - e0];
     let gmg = g[0] * g[0] * e.2[0] + 2.0 * g[0] * g[1] * e.2[1] + g[1] * g[1] * e.2[2];
     let miss = g[0] * e.1[0] + g[1] * e.1[1] - c;
@@ -1199,12 +1234,24 @@ mod tests {
                 .iter()
                 .map(|&v| 0.3 + 0.7 * (-kd * v).exp() + noise.sample(&mut rng))
                 .collect();
-            let Some(pr) = ResidualProfile::new(&x, &y, None, f64::INFINITY, n - 3) else {
+            // The reference: a grid four times as fine (holding every point of the
+            // production grid), searched exhaustively; its least RSS is both profiles'.
+            let Some(fine) = ResidualProfile::with_grid(
+                &x,
+                &y,
+                None,
+                f64::INFINITY,
+                n - 3,
+                4 * PROFILE_PER_DECADE,
+            ) else {
+                continue;
+            };
+            let Some(pr) = ResidualProfile::new(&x, &y, None, fine.rss_min, n - 3) else {
                 continue;
             };
             for (f, c) in [(0.0, 0.5), (0.5, 0.0), (0.0, 0.8)] {
                 for x0 in [0.5, 3.0, 7.5, 15.0, 33.3, 80.0, 400.0] {
-                    let (got, want) = (pr.root(x0, f, c), root_exhaustive(&pr, x0, f, c));
+                    let (got, want) = (pr.root(x0, f, c), root_exhaustive(&fine, x0, f, c));
                     let d = (got - want).abs() / want.abs().max(1.0);
                     assert!(
                         d < 1e-7 || (got.is_infinite() && want.is_infinite()),

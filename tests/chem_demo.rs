@@ -140,7 +140,8 @@ fn the_report_explains_activity_and_both_tofs() {
         .nth(1)
         .expect("a definitions list under the cycle table");
     assert!(defs.contains("catalyst-to-substrate ratio"), "{defs}");
-    assert!(defs.contains("Activity 1 is cycle 1."), "{defs}");
+    assert!(defs.contains("Activity 1 is cycle 1. A censored"), "{defs}");
+    assert!(!defs.contains(".."), "a doubled full stop: {defs}");
     assert!(defs.contains("initial TOF") && defs.contains("average TOF"));
     assert!(html.contains("<th>initial TOF (h⁻¹)</th>"));
     assert!(html.contains("<th>TON (per mol metal available)</th>"));

@@ -435,7 +435,8 @@ fn definitions(out: &mut String, r: &LotReport) {
          <dt>initial TOF</dt><dd>k<sub>app</sub> × mol limiting substrate / mol metal charged, \
          the rate at the start of a batch first order in substrate, per mol metal; it follows \
          activity. A lower bound (≥) for a censored cycle.</dd>\n</dl>",
-        esc(&activity)
+        // The sentence's own full stop is the template's.
+        esc(activity.trim_end_matches('.'))
     );
 }
 

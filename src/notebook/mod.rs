@@ -70,7 +70,7 @@ pub use ingestion::{
 pub use listing::{Listing, RefusedEntry, collect_files};
 pub use lots::{
     CycleLine, CycleState, CyclesDocument, LotLine, LotState, TOF_AVERAGE_DEFINITION,
-    TOF_INITIAL_DEFINITION, cycle_lines, cycles_document, known_lot, lot_lines, lot_series,
+    TOF_INITIAL_DEFINITION, cycle_lines, cycles_document, known_lot, lot_lines, lot_lines_json, lot_series,
     lot_state, lot_state_as_of,
 };
 pub use recompute::recompute_stale;

@@ -24,3 +24,16 @@ SELECT lot, after_seq, engine_version, config_sha256, computed_at, line FROM lot
 ORDER BY lot;
 DROP TABLE lot_states;
 ALTER TABLE lot_states_0017 RENAME TO lot_states;
+
+-- The lots with a batch since the history cut-off (status, the digest) read the batches'
+-- lots from the index alone, not each batch's row: `started_at` with `lot`. The index
+-- keeps its name; its first column is the same.
+DROP INDEX cycles_started;
+CREATE INDEX cycles_started ON cycles(started_at, lot);
+
+-- The outbox's waiting messages (status counts them, the web view shows the oldest) and
+-- the digest's questions (when the last digest was queued, what was queued since) go
+-- through indexes, not through every message's row and body.
+CREATE INDEX alert_outbox_waiting ON alert_outbox(queued_at) WHERE delivered_at IS NULL;
+CREATE INDEX alert_outbox_rule_queued ON alert_outbox(rule, queued_at);
+CREATE INDEX alert_outbox_queued ON alert_outbox(queued_at);

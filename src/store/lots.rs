@@ -506,9 +506,11 @@ pub fn newest_batch_start(conn: &Connection) -> Result<Option<String>> {
 /// batches, not the store's history. (Lots with no batch yet are in use too: see
 /// [`LotIndex::without_cycles`].)
 pub fn lots_batched_since(conn: &Connection, since: &str) -> Result<BTreeSet<String>> {
+    // The index named: SQLite otherwise took `lot IS NOT NULL` to the index `cycles_lot`,
+    // walked every cycle's entry and read its row (286 pages at 40,000 cycles).
     let mut stmt = conn.prepare_cached(
-        "SELECT lot FROM cycles WHERE started_at >= ?1 AND lot IS NOT NULL
-         UNION SELECT lot FROM cycles WHERE started_at IS NULL AND lot IS NOT NULL",
+        "SELECT lot FROM cycles INDEXED BY cycles_started WHERE started_at >= ?1 AND lot IS NOT NULL
+         UNION SELECT lot FROM cycles INDEXED BY cycles_started WHERE started_at IS NULL AND lot IS NOT NULL",
     )?;
     let rows = stmt
         .query_map([since], |r| r.get(0))?

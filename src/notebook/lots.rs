@@ -864,3 +864,83 @@ pub fn cycle_lines(s: &LotState) -> Vec<CycleLine> {
         })
         .collect()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::model::signoff::{SignOffMark, SignOffState, SignOffStatus};
+
+    /// A line with every part filled: a forecast, a next batch, a sign-off with its mark.
+    fn full_line() -> LotLine {
+        LotLine {
+            lot: "KV-2611-\"A\"".into(),
+            registered: true,
+            catalyst: Some("5 % Pd/C".into()),
+            metal: Some("Pd".into()),
+            cycles: 12,
+            complete_cycles: 11,
+            latest_activity: Some(0.812_345_678_901_234_5),
+            cumulative_ton: Some(1.0e5 / 3.0),
+            lifetime_ton: None,
+            model: Some("first-order".into()),
+            forecast: Some(serde_json::json!({
+                "status": "ahead", "x": 31.5, "lower": null, "as_of": "2026-12-03",
+                "crossing_early": "2027-01-02", "z_last": [1, 2.5, {"b": 1, "a": 2}]
+            })),
+            next_cycle: Some(fit::NextCycle {
+                x: 13.0,
+                predicted: 0.8,
+                lower: 0.75,
+                upper: 0.85,
+                threshold: 0.6,
+                verdict: fit::NextVerdict::Ok,
+            }),
+            abrupt_loss: true,
+            flags: vec!["derived-yield".into(), "pending".into()],
+            attention: vec!["look at ünits\n".into()],
+            signoff: SignOffState {
+                state: SignOffStatus::Approved,
+                by: Some(SignOffMark {
+                    seq: 40,
+                    at: "2026-11-30T10:00:00.000Z".into(),
+                    actor: "qa".into(),
+                    meaning: "approved".into(),
+                    signer: Some("M. Ferreira".into()),
+                    os_user: None,
+                    signed_sha256: "ab".repeat(32),
+                    what: "history of lot KV-2611-A: 12 events up to #40".into(),
+                    comment: Some("ok".into()),
+                }),
+            },
+        }
+    }
+
+    #[test]
+    fn lots_json_prints_what_the_value_tree_printed() {
+        let empty = LotLine {
+            lot: "L2".into(),
+            registered: false,
+            catalyst: None,
+            metal: None,
+            cycles: 0,
+            complete_cycles: 0,
+            latest_activity: Some(f64::NAN),
+            cumulative_ton: None,
+            lifetime_ton: None,
+            model: None,
+            forecast: None,
+            next_cycle: None,
+            abrupt_loss: false,
+            flags: vec![],
+            attention: vec![],
+            signoff: SignOffState::none(),
+        };
+        for lines in [vec![], vec![full_line(), empty]] {
+            let before =
+                serde_json::to_string_pretty(&super::super::export::with_schema(&lines).unwrap())
+                    .unwrap();
+            let now = serde_json::to_string_pretty(&lot_lines_json(&lines)).unwrap();
+            assert_eq!(now, before);
+        }
+    }
+}

@@ -74,8 +74,7 @@ pub(crate) fn lots_in_view(
     let Some(cutoff) = super::recompute::history_cutoff(conn, cfg)? else {
         return Ok(None);
     };
-    let mut set =
-        store::lots::lots_batched_since(conn, &cutoff.format(LOCAL_FORMAT).to_string())?;
+    let mut set = store::lots::lots_batched_since(conn, &cutoff.format(LOCAL_FORMAT).to_string())?;
     set.extend(lots.without_cycles().cloned());
     set.extend(also);
     Ok(Some((set, cutoff)))

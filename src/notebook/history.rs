@@ -46,8 +46,7 @@ pub fn gather_status(conn: &Connection, cfg: &Config) -> store::Result<Status> {
     let names = index.names();
     let records = store::queries::record_counts(conn, &index)?;
     let open = store::outbox::open_alerts(conn)?;
-    let view =
-        super::digesting::lots_in_view(conn, cfg, &index, open.into_iter().map(|a| a.lot))?;
+    let view = super::digesting::lots_in_view(conn, cfg, &index, open.into_iter().map(|a| a.lot))?;
     let (attention, not_in_view) = crate::notebook::lots::lots_needing_attention(
         conn,
         cfg,
@@ -71,10 +70,7 @@ pub fn gather_status(conn: &Connection, cfg: &Config) -> store::Result<Status> {
         lots_not_in_view: not_in_view,
         history_before: view.map(|v| v.1.format("%Y-%m-%d").to_string()),
         outbox_waiting: store::outbox::waiting(conn)?,
-        signoffs: super::signoffs::count_states(
-            &names,
-            &super::signoffs::sign_off_states(conn)?,
-        ),
+        signoffs: super::signoffs::count_states(&names, &super::signoffs::sign_off_states(conn)?),
     })
 }
 

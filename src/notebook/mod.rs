@@ -57,6 +57,7 @@ pub use entries::{
 };
 pub use entries::{SignOffRequest, sign_off_from};
 pub use error::{NotebookError, Result};
+pub use export::lot_lines_json;
 pub use export::{
     Cell, EXPORT_SCHEMA, ExportError, JSON_SCHEMA, NameKind, cells, closest, export_lines,
     round_sig, suggest_name, with_schema, write_csv, write_jsonl,
@@ -70,7 +71,7 @@ pub use ingestion::{
 pub use listing::{Listing, RefusedEntry, collect_files};
 pub use lots::{
     CycleLine, CycleState, CyclesDocument, LotLine, LotState, TOF_AVERAGE_DEFINITION,
-    TOF_INITIAL_DEFINITION, cycle_lines, cycles_document, known_lot, lot_lines, lot_lines_json, lot_series,
+    TOF_INITIAL_DEFINITION, cycle_lines, cycles_document, known_lot, lot_lines, lot_series,
     lot_state, lot_state_as_of,
 };
 pub use recompute::recompute_stale;

@@ -544,10 +544,7 @@ impl LotIndex {
 
     /// Every lot name, sorted as [`lot_names`] gives them.
     pub fn names(&self) -> Vec<String> {
-        self.registered
-            .union(&self.with_cycles)
-            .cloned()
-            .collect()
+        self.registered.union(&self.with_cycles).cloned().collect()
     }
 
     /// Lots some cycle names and nobody registered.

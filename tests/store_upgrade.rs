@@ -703,7 +703,7 @@ fn an_upgrade_from_version_4_keeps_every_value_with_its_origin() {
     assert_ne!(store::PAGE_SIZE, 4096);
 
     // The schema is the newest, every migration recorded once.
-    assert_eq!(schema_version(&conn), 16);
+    assert_eq!(schema_version(&conn), 17);
     assert_eq!(schema_version(&conn), migrate::latest());
     let recorded: Vec<(i64, String)> = {
         let mut stmt = conn
@@ -1133,4 +1133,65 @@ fn a_connection_has_more_lookaside_slots_than_sqlite_gives_by_default() {
     // sizes (123 were filled here without the change); the store's holds more than 800.
     assert!(most > 200, "lookaside slots used at most: {most}");
     drop(held);
+}
+
+/// 0017 moves each lot's alert snapshot out of `lot_states` into `lot_snapshots`: the
+/// line, what the state was made by and the snapshot (NULL for a lot nobody registered)
+/// all survive, and the lines' table no longer holds the snapshots.
+#[test]
+fn the_upgrade_to_0017_keeps_each_lot_state_and_its_snapshot() {
+    let dir = TempDir::new().unwrap();
+    let path = dir.path().join("v16.db");
+    let mut conn = Connection::open(&path).unwrap();
+    conn.execute_batch(
+        "CREATE TABLE schema_migrations (version INTEGER PRIMARY KEY, name TEXT NOT NULL,
+             applied_at TEXT NOT NULL) STRICT;",
+    )
+    .unwrap();
+    for &(version, name, sql) in migrate::MIGRATIONS.iter().filter(|m| m.0 <= 16) {
+        let tx = conn.transaction().unwrap();
+        tx.execute_batch(sql).unwrap();
+        tx.execute(
+            "INSERT INTO schema_migrations(version, name, applied_at) VALUES (?1, ?2, 'then')",
+            params![version, name],
+        )
+        .unwrap();
+        tx.commit().unwrap();
+    }
+    let rows = [
+        ("LOT-A", 7, "{\"lot\":\"LOT-A\"}", Some("{\"rules\":1}")),
+        ("LOT-B", 9, "{\"lot\":\"LOT-B\"}", None),
+    ];
+    for (lot, seq, line, snapshot) in rows {
+        conn.execute(
+            "INSERT INTO lot_states(lot, after_seq, engine_version, config_sha256, computed_at,
+                 line, snapshot) VALUES (?1, ?2, 'engine 1', 'cfg', 'at', ?3, ?4)",
+            params![lot, seq, line, snapshot],
+        )
+        .unwrap();
+    }
+    drop(conn);
+
+    let conn = upgrade(&path);
+    assert_eq!(schema_version(&conn), 17);
+    let columns: Vec<String> = conn
+        .prepare("SELECT name FROM pragma_table_info('lot_states')")
+        .unwrap()
+        .query_map([], |r| r.get(0))
+        .unwrap()
+        .collect::<Result<_, _>>()
+        .unwrap();
+    assert!(!columns.iter().any(|c| c == "snapshot"), "{columns:?}");
+    for (lot, seq, line, snapshot) in rows {
+        let (s, l, e, p): (i64, String, String, Option<String>) = conn
+            .query_row(
+                "SELECT s.after_seq, s.line, s.engine_version, p.snapshot
+                 FROM lot_states s JOIN lot_snapshots p ON p.lot = s.lot WHERE s.lot = ?1",
+                [lot],
+                |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?)),
+            )
+            .unwrap();
+        assert_eq!((s, l.as_str(), e.as_str()), (seq, line, "engine 1"));
+        assert_eq!(p.as_deref(), snapshot);
+    }
 }

@@ -1,6 +1,7 @@
 //! `turnbook lots` and `turnbook cycles`: the tables of lots and of one lot's cycles.
 
 use std::fmt::Write as _;
+use std::io::Write as _;
 
 use super::{CmdResult, Failure, fmt_opt};
 use crate::config::Config;
@@ -13,7 +14,12 @@ use crate::notebook::{
 pub fn lots(cfg: &Config, json: bool) -> CmdResult {
     let lines = lot_lines(cfg)?;
     if json {
-        return super::print_json(&lines);
+        // The same document `print_json` prints, written as it is serialised.
+        let mut out = std::io::BufWriter::new(std::io::stdout().lock());
+        serde_json::to_writer_pretty(&mut out, &crate::notebook::lot_lines_json(&lines))?;
+        writeln!(out)?;
+        std::io::Write::flush(&mut out)?;
+        return Ok(0);
     }
     if lines.is_empty() {
         println!(

@@ -22,12 +22,13 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
     let changes = outbox::changes_since(&conn, &format_ts(from))?;
     let seen = open.iter().map(|a| a.lot.clone());
     let seen = seen.chain(changes.iter().map(|c| c.lot.clone()));
-    let (listed, cutoff) = match lots_in_view(&conn, cfg, seen)? {
+    let index = store::lots::LotIndex::read(&conn)?;
+    let (listed, cutoff) = match lots_in_view(&conn, cfg, &index, seen)? {
         Some((set, cutoff)) => (Some(set), Some(cutoff)),
         None => (None, None),
     };
     let signoffs = super::signoffs::sign_off_states(&conn)?;
-    let shown = current_snapshots(&conn, cfg, listed.as_ref())?;
+    let shown = current_snapshots(&conn, cfg, &index, listed.as_ref())?;
     let mut lots = Vec::new();
     for (lot, snap) in shown.listed {
         let signoff = signoffs.get(&lot).map(|s| match &s.by {
@@ -67,12 +68,14 @@ pub fn queue_digest(cfg: &Config) -> Result<String> {
 pub(crate) fn lots_in_view(
     conn: &store::Connection,
     cfg: &Config,
+    lots: &store::lots::LotIndex,
     also: impl Iterator<Item = String>,
 ) -> store::Result<Option<(BTreeSet<String>, chrono::NaiveDateTime)>> {
     let Some(cutoff) = super::recompute::history_cutoff(conn, cfg)? else {
         return Ok(None);
     };
-    let mut set = store::lots::lots_in_use_since(conn, &cutoff.format(LOCAL_FORMAT).to_string())?;
+    let mut set = store::lots::lots_batched_since(conn, &cutoff.format(LOCAL_FORMAT).to_string())?;
+    set.extend(lots.without_cycles().cloned());
     set.extend(also);
     Ok(Some((set, cutoff)))
 }
@@ -93,20 +96,20 @@ struct Shown {
 fn current_snapshots(
     conn: &store::Connection,
     cfg: &Config,
+    index: &store::lots::LotIndex,
     listed: Option<&BTreeSet<String>>,
 ) -> store::Result<Shown> {
     let version = (crate::fit::ENGINE_VERSION, cfg.analysis_fingerprint());
     let version = (version.0, version.1.as_str());
-    let registered = store::lots::registered_lots(conn)?;
     let today = super::lots::today(cfg);
     let mut shown = Shown {
         listed: Vec::new(),
         pending: 0,
         resting: 0,
     };
-    for lot in store::lots::lot_names(conn)? {
+    for lot in index.names() {
         if listed.is_some_and(|set| !set.contains(&lot)) {
-            if registered.contains(&lot) {
+            if index.registered.contains(&lot) {
                 shown.resting += 1;
             } else {
                 shown.pending += 1;

@@ -40,11 +40,19 @@ pub fn gather_status(conn: &Connection, cfg: &Config) -> store::Result<Status> {
     let hour = format_ts(now - chrono::Duration::hours(1));
     let day = format_ts(now - chrono::Duration::days(1));
     let files = store::queries::file_counts(conn, &hour, &day)?;
-    let records = store::queries::record_counts(conn)?;
+    // The lots, read once (a seek a lot) for the counts, the view, the attention lines
+    // and the sign-off counts.
+    let index = store::lots::LotIndex::read(conn)?;
+    let names = index.names();
+    let records = store::queries::record_counts(conn, &index)?;
     let open = store::outbox::open_alerts(conn)?;
-    let view = super::digesting::lots_in_view(conn, cfg, open.into_iter().map(|a| a.lot))?;
-    let (attention, not_in_view) =
-        crate::notebook::lots::lots_needing_attention(conn, cfg, view.as_ref().map(|v| &v.0))?;
+    let view = super::digesting::lots_in_view(conn, cfg, &index, open.into_iter().map(|a| a.lot))?;
+    let (attention, not_in_view) = crate::notebook::lots::lots_needing_attention(
+        conn,
+        cfg,
+        &names,
+        view.as_ref().map(|v| &v.0),
+    )?;
     Ok(Status {
         database: cfg.database_path().display().to_string(),
         files_ingested: files.ingested,
@@ -62,10 +70,7 @@ pub fn gather_status(conn: &Connection, cfg: &Config) -> store::Result<Status> {
         lots_not_in_view: not_in_view,
         history_before: view.map(|v| v.1.format("%Y-%m-%d").to_string()),
         outbox_waiting: store::outbox::waiting(conn)?,
-        signoffs: super::signoffs::count_states(
-            &store::lots::lot_names(conn)?,
-            &super::signoffs::sign_off_states(conn)?,
-        ),
+        signoffs: super::signoffs::count_states(&names, &super::signoffs::sign_off_states(conn)?),
     })
 }
 

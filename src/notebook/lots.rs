@@ -513,17 +513,19 @@ fn attention_from(a: &LotAnalysis) -> Vec<String> {
 }
 
 /// Lots that need someone's attention, one line each, among `listed` (`None`: every
-/// lot), and how many lots were left out. Only the listed lots' stored lines are read.
+/// lot of `names`, the lot names as [`store::lots::lot_names`] gives them), and how many
+/// lots were left out. Only the listed lots' stored lines are read.
 pub fn lots_needing_attention(
     conn: &Connection,
     cfg: &Config,
+    names: &[String],
     listed: Option<&BTreeSet<String>>,
 ) -> Result<(Vec<String>, usize)> {
     let version = (fit::ENGINE_VERSION, cfg.analysis_fingerprint());
     let today = today(cfg);
     let (mut out, mut left_out) = (Vec::new(), 0);
-    for lot in store::lots::lot_names(conn)? {
-        if listed.is_some_and(|set| !set.contains(&lot)) {
+    for lot in names {
+        if listed.is_some_and(|set| !set.contains(lot)) {
             left_out += 1;
             continue;
         }
@@ -531,7 +533,7 @@ pub fn lots_needing_attention(
             conn,
             (version.0, version.1.as_str()),
             store::lots::StatePart::Line,
-            &lot,
+            lot,
         )?;
         let line = match stored.flatten() {
             Some(json) => serde_json::from_str::<LotLine>(&json).ok(),
@@ -540,7 +542,7 @@ pub fn lots_needing_attention(
         let line = match line {
             Some(line) => line,
             None => {
-                let mut line = lot_line(&lot_state(conn, cfg, &lot)?);
+                let mut line = lot_line(&lot_state(conn, cfg, lot)?);
                 if let Some(serde_json::Value::Object(f)) = line.forecast.as_mut()
                     && f.contains_key("as_of")
                 {

@@ -72,6 +72,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "conflict_index",
         include_str!("../../schema/0016_conflict_index.sql"),
     ),
+    (
+        17,
+        "lot_snapshots",
+        include_str!("../../schema/0017_lot_snapshots.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

@@ -34,9 +34,12 @@ fn count(conn: &Connection, sql: &str, p: impl rusqlite::Params) -> Result<i64> 
 /// File counts; `hour` and `day` are the stored timestamps an hour and a day ago.
 pub fn file_counts(conn: &Connection, hour: &str, day: &str) -> Result<FileCounts> {
     let ing = "SELECT COUNT(*) FROM source_files WHERE outcome = 'ingested'";
+    // `+outcome`: the rows are walked from the newest id back to the first ingested one
+    // (at once, almost always). Through the outcome index SQLite fetched and sorted every
+    // ingested file's row: 9 ms at 40,000 files.
     let last = conn
         .query_row(
-            "SELECT path, seen_at FROM source_files WHERE outcome = 'ingested' ORDER BY id DESC LIMIT 1",
+            "SELECT path, seen_at FROM source_files WHERE +outcome = 'ingested' ORDER BY id DESC LIMIT 1",
             [],
             |r| Ok((r.get(0)?, r.get(1)?)),
         )
@@ -58,8 +61,15 @@ pub fn file_counts(conn: &Connection, hour: &str, day: &str) -> Result<FileCount
     })
 }
 
-/// Record counts.
-pub fn record_counts(conn: &Connection) -> Result<RecordCounts> {
+/// Record counts; `lots` names the store's lots (read once by the caller).
+pub fn record_counts(conn: &Connection, lots: &super::lots::LotIndex) -> Result<RecordCounts> {
+    // Cycles without a lot, and those of each lot nobody registered (an index range a lot,
+    // few lots): no further seek per lot.
+    let mut pending = count(conn, "SELECT COUNT(*) FROM cycles WHERE lot IS NULL", [])?;
+    let mut of_lot = conn.prepare_cached("SELECT COUNT(*) FROM cycles WHERE lot = ?1")?;
+    for lot in lots.unregistered() {
+        pending += of_lot.query_row([lot], |r| r.get::<_, i64>(0))?;
+    }
     Ok(RecordCounts {
         // The partial index `cycles_conflicting` (0016) holds only cycles with conflicts.
         conflicts: count(
@@ -67,21 +77,9 @@ pub fn record_counts(conn: &Connection) -> Result<RecordCounts> {
             "SELECT COALESCE(SUM(conflicts), 0) FROM cycles WHERE conflicts > 0",
             [],
         )?,
-        lots: count(conn, "SELECT COUNT(*) FROM lots", [])?,
+        lots: i64::try_from(lots.registered.len()).unwrap_or(i64::MAX),
         cycles: count(conn, "SELECT COUNT(*) FROM cycles", [])?,
-        // Cycles without a lot, and those of each distinct unregistered lot: the lots are
-        // found by a skip scan of `cycles_lot`, one seek a lot, not a read of every cycle.
-        pending_cycles: count(
-            conn,
-            &format!(
-                "{} SELECT (SELECT COUNT(*) FROM cycles WHERE lot IS NULL)
-                 + (SELECT COUNT(*) FROM d JOIN cycles c ON c.lot = d.lot
-                    WHERE d.lot IS NOT NULL
-                      AND NOT EXISTS (SELECT 1 FROM lots l WHERE l.lot = d.lot))",
-                super::lots::DISTINCT_CYCLE_LOTS
-            ),
-            [],
-        )?,
+        pending_cycles: pending,
     })
 }
 

@@ -7,7 +7,8 @@
 #       write the plant once (plant_generator.py) and load it with BASE_BIN into
 #       DIR/base; DIR/new is a copy that NEW_BIN upgrades. Slow: run once, reuse.
 #   tests/benches/decade.sh reads DIR BASE_BIN NEW_BIN [ROUNDS]
-#       lots --json, status --json, history, cycles, fit, digest: hyperfine blocks of
+#       lots --json, status --json, history, cycles, fit, digest, report LOT --out
+#       (after a recorded verify of each store): hyperfine blocks of
 #       five runs, base and new alternating, ROUNDS (default 3) times; prints medians.
 #   tests/benches/decade.sh one DIR BASE_BIN NEW_BIN [ROUNDS]
 #       `ingest ONE_FILE` of a new batch (on a throw-away copy of each database).
@@ -78,6 +79,11 @@ reads() { # DIR BASE NEW [ROUNDS]
     time_pair "$dir" "$base" "$new" "$rounds" "cycles LOT" cycles "$lot"
     time_pair "$dir" "$base" "$new" "$rounds" "fit LOT" fit "$lot"
     time_pair "$dir" "$base" "$new" "$rounds" "digest" digest
+    # A report shows the chain from the last recorded verification plus a check of the
+    # events after it: both stores are verified once first, outside the timings.
+    "$base" --config "$dir/base/turnbook.toml" verify > /dev/null
+    "$new" --config "$dir/new/turnbook.toml" verify > /dev/null
+    time_pair "$dir" "$base" "$new" "$rounds" "report LOT" report "$lot" --out "$dir/report.html"
 }
 
 one() { # DIR BASE NEW [ROUNDS]: ingest of one new batch file, on copies of each database
@@ -134,5 +140,5 @@ case "$cmd" in
     reads) reads "$@" ;;
     one) one "$@" ;;
     idle) idle "$@" ;;
-    *) sed -n '2,20p' "$0"; exit 2 ;;
+    *) sed -n '2,19p' "$0"; exit 2 ;;
 esac

@@ -28,7 +28,9 @@
 use serde::{Deserialize, Serialize};
 
 use super::engine::FitResult;
-use super::forecast::{Criterion, Decision, FitDecision, t_cdf, t_quantile, threshold_of};
+use super::forecast::{
+    Criterion, Decision, FitDecision, bracketed, t_cdf, t_quantile, threshold_of,
+};
 use super::models::ModelId;
 
 /// One model's share of the average.
@@ -279,16 +281,13 @@ impl Decision for Averaged<'_> {
             })
         };
         let solve = |target: f64, lo: f64, hi: f64| {
-            // S(bound) falls as the bound rises.
-            let (mut lo, mut hi) = (lo, hi);
-            for _ in 0..100 {
-                let m = 0.5 * (lo + hi);
-                if m <= lo || m >= hi {
-                    break;
-                }
-                if at(m) > target { lo = m } else { hi = m }
+            // S(bound) falls as the bound rises: the root of S − target between the members'
+            // own bounds (the same false-position search as the interval ends).
+            if lo < hi {
+                bracketed(|b| at(b) - target, lo, f64::NAN, hi, f64::NAN)
+            } else {
+                0.5 * (lo + hi)
             }
-            0.5 * (lo + hi)
         };
         let min = |f: fn(&(f64, f64)) -> f64| own.iter().map(f).fold(f64::INFINITY, f64::min);
         let max = |f: fn(&(f64, f64)) -> f64| own.iter().map(f).fold(f64::NEG_INFINITY, f64::max);

@@ -214,7 +214,13 @@ pub fn t_cdf(t: f64, dof: usize) -> f64 {
 /// 1971, 168–174, recalled from memory) with a bisection step whenever an interpolation would
 /// not shrink the bracket enough or a value is not finite: a band can be a profile-likelihood
 /// search per evaluation, and bisection needs about 40 of them.
-fn bracketed(h: impl Fn(f64) -> f64, mut a: f64, mut fa: f64, mut b: f64, mut fb: f64) -> f64 {
+pub(super) fn bracketed(
+    h: impl Fn(f64) -> f64,
+    mut a: f64,
+    mut fa: f64,
+    mut b: f64,
+    mut fb: f64,
+) -> f64 {
     // Which end moved last (+1 a, −1 b): when the same end moves twice, the other end's value
     // is halved so that it moves too.
     let mut last = 0i8;
@@ -944,7 +950,6 @@ pub fn forecast_with(
     fc.status = ForecastStatus::Ahead;
     fc.x = Some(xs);
     if t.is_some() {
-        fc.lower = lower_of(alpha / 2.0).map(|l| l.min(xs));
         // Upper end: the first x ≥ x* where the upper band falls below the criterion.
         let hi = |x: f64| d.band(x, alpha / 2.0).1;
         fc.upper = if hi(xs) <= 0.0 {
@@ -955,6 +960,11 @@ pub fn forecast_with(
                 _ => None,
             }
         };
+        // The two-sided lower end only when the upper one exists: an interval open above
+        // takes the one-sided lower end below instead.
+        if fc.upper.is_some() {
+            fc.lower = lower_of(alpha / 2.0).map(|l| l.min(xs));
+        }
     }
     if fc.lower.is_none() || fc.upper.is_none() {
         fc.status = ForecastStatus::UnboundedInterval;

@@ -152,6 +152,14 @@ fn named_power_covers_n20() {
     assert!((0.85..=0.95).contains(&c), "coverage {c}");
 }
 
+/// The power law named alone at n = 10: 97.8 % with the delta method on the natural scale
+/// (1,000 trials), inside 85–95 % on the scale where it is linear in kd.
+#[test]
+fn named_power_covers_n10() {
+    let c = report(ModelId::Power, false, 0.05, 10, CI_TRIALS, 110);
+    assert!((0.85..=0.95).contains(&c), "coverage {c}");
+}
+
 #[test]
 fn named_second_order_covers_n10() {
     let c = report(ModelId::SecondOrder, false, 0.05, 10, CI_TRIALS, 105);
@@ -198,16 +206,14 @@ fn full_coverage_grid() {
                 for auto in [false, true] {
                     seed += 1;
                     let c = report(model, auto, sd, n, 1000, seed);
-                    // Held to 85–95 %: every cell but these, printed and left open: the
-                    // power law named alone at n ≤ 10 (its delta-method interval over-covers,
-                    // 98 % in two cells) and the average on first-order and power-law data at
-                    // sd 0.03 and n ≤ 10 (up to 95.8 %, within the binomial error of 1,000
-                    // trials of the edge).
-                    let left = n <= 10
-                        && ((!auto && model == ModelId::Power)
-                            || (auto
-                                && matches!(model, ModelId::FirstOrder | ModelId::Power)
-                                && sd < 0.04));
+                    // Held to 85–95 %: every cell but these two, printed and left open: the
+                    // power law named alone at n = 6, sd 0.03 (96.5 %; its transformed-scale
+                    // interval at 3 degrees of freedom) and the average on first-order data at
+                    // n = 10, sd 0.03 (95.7 %, within the binomial error of 1,000 trials of
+                    // the edge).
+                    let left = sd < 0.04
+                        && ((!auto && model == ModelId::Power && n == 6)
+                            || (auto && model == ModelId::FirstOrder && n == 10));
                     let held = !left;
                     if held && !(0.85..=0.95).contains(&c) {
                         outside.push(format!("{} auto={auto} sd={sd} n={n}: {c}", model.id()));

@@ -464,9 +464,52 @@ impl<'a> FitDecision<'a> {
         }
     }
 
-    /// The signed root statistic of whichever profile this decision holds.
+    /// The signed root statistic of whichever profile this decision holds; for the power
+    /// law, the transformed-scale statistic of [`Self::power_stat`].
     pub fn root(&self, x: f64) -> Option<f64> {
-        self.profile_root(x)
+        self.profile_root(x).or_else(|| self.power_stat(x))
+    }
+
+    /// The power law's "h(x) ≥ 0" on the scale where it is linear in kd and x:
+    /// a(x) = a0·(1 + q·kd·x)^(−1/q), q = m − 1, meets c where
+    /// v(x) = ((a0/c)^q − 1)/q − kd·x = 0, and v > 0 before. v is ln(a0/c) − kd·x at m = 1
+    /// and a0/c − 1 − kd·x at m = 2 (the first- and second-order scales of [`Self::stat`]).
+    /// The delta method on v, as for those (DESIGN §4: "the delta method on a transformed
+    /// scale"); on the natural scale the power law's interval was too wide at n ≤ 10.
+    fn power_stat(&self, x: f64) -> Option<f64> {
+        if self.fit.model != ModelId::Power {
+            return None;
+        }
+        let cov = self.fit.covariance.as_ref()?;
+        let (a0, kd, m) = (self.fit.params[0], self.fit.params[1], self.fit.params[2]);
+        let c = self.threshold;
+        if !(a0 > 0.0 && c > 0.0 && x >= 0.0 && kd.is_finite() && m.is_finite()) {
+            return None;
+        }
+        let (q, l) = (m - 1.0, (a0 / c).ln());
+        let ql = q * l;
+        // (r^q − 1)/q and its derivative in q, by series where q·ln r is small.
+        let (base, d_q) = if ql.abs() < 1e-6 {
+            (l * (1.0 + 0.5 * ql), 0.5 * l * l * (1.0 + 2.0 * ql / 3.0))
+        } else {
+            let rq = ql.exp();
+            ((rq - 1.0) / q, (q * rq * l - (rq - 1.0)) / (q * q))
+        };
+        let v = base - kd * x;
+        // ∂v/∂a0 = r^q·(1/a0 − f/c): c = c_abs + f·a0 moves with a0.
+        let g = [ql.exp() * (1.0 / a0 - self.fraction / c), -x, d_q];
+        let sd = sd_of(cov, &g);
+        if sd > 0.0 {
+            Some(v / sd)
+        } else if sd == 0.0 {
+            Some(if v >= 0.0 {
+                f64::INFINITY
+            } else {
+                f64::NEG_INFINITY
+            })
+        } else {
+            None
+        }
     }
 
     /// ∂h/∂θ at x.

@@ -460,7 +460,8 @@ const METHODS: &[(&str, &str)] = &[
          criterion (inverting the band, a Fieller-type construction, Fieller 1954, recalled); \
          for an average, each model's Student-t tail area on its own degrees of freedom, \
          summed with the Akaike weights (model-averaged tail area, Turek & Fletcher 2012, \
-         recalled); for first order with residual activity, the profile likelihood of the \
+         recalled); first order, second order and the power law on the scale where they are \
+         linear in kd; for first order with residual activity, the profile likelihood of the \
          crossing (Venzon & Moolgavkar 1988, recalled)",
     ),
     (

@@ -450,18 +450,7 @@ impl<'a> FitDecision<'a> {
             // y(0)/c − y(0)/y(x) = a0/c − (1 + kd·x), linear in kd.
             _ => (a0 / c - 1.0 - kd * x, [1.0 / c - a0 * f / (c * c), -x]),
         };
-        let sd = sd_of(cov, &g);
-        if sd > 0.0 {
-            Some(v / sd)
-        } else if sd == 0.0 {
-            Some(if v >= 0.0 {
-                f64::INFINITY
-            } else {
-                f64::NEG_INFINITY
-            })
-        } else {
-            None
-        }
+        z_of(v, sd_of(cov, &g))
     }
 
     /// The signed root statistic of whichever profile this decision holds; for the power
@@ -498,18 +487,7 @@ impl<'a> FitDecision<'a> {
         let v = base - kd * x;
         // ∂v/∂a0 = r^q·(1/a0 − f/c): c = c_abs + f·a0 moves with a0.
         let g = [ql.exp() * (1.0 / a0 - self.fraction / c), -x, d_q];
-        let sd = sd_of(cov, &g);
-        if sd > 0.0 {
-            Some(v / sd)
-        } else if sd == 0.0 {
-            Some(if v >= 0.0 {
-                f64::INFINITY
-            } else {
-                f64::NEG_INFINITY
-            })
-        } else {
-            None
-        }
+        z_of(v, sd_of(cov, &g))
     }
 
     /// ∂h/∂θ at x.
@@ -521,6 +499,21 @@ impl<'a> FitDecision<'a> {
                 *o -= self.fraction * g;
             }
         }
+    }
+}
+
+/// v/sd as a test statistic: ±∞ for a value known exactly, None when sd is unknown.
+fn z_of(v: f64, sd: f64) -> Option<f64> {
+    if sd > 0.0 {
+        Some(v / sd)
+    } else if sd == 0.0 {
+        Some(if v >= 0.0 {
+            f64::INFINITY
+        } else {
+            f64::NEG_INFINITY
+        })
+    } else {
+        None
     }
 }
 

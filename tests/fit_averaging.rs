@@ -276,3 +276,64 @@ fn diagnose_residual_named() {
         }
     }
 }
+
+/// The two cells left outside 85–95 %: where their trials end, and on which side the
+/// intervals that miss the true crossing miss it.
+#[test]
+#[ignore = "diagnostic"]
+fn diagnose_open_cells() {
+    use std::collections::BTreeMap;
+    for (model, auto, n, sd, seed) in [
+        (ModelId::Power, false, 6, 0.03, 1025u64),
+        (ModelId::FirstOrder, true, 10, 0.03, 1004),
+    ] {
+        let p = truth(model);
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let noise = Normal::new(0.0, sd).expect("valid sd");
+        let x: Vec<f64> = (1..=n).map(|i| i as f64).collect();
+        let opts = AnalysisOptions {
+            criterion: Criterion::FractionOfFresh(0.5),
+            confidence: 0.90,
+            candidates: if auto {
+                ModelId::ACTIVITY.to_vec()
+            } else {
+                vec![model]
+            },
+            grid_points: 2,
+            ..AnalysisOptions::default()
+        };
+        let mut tally: BTreeMap<String, [usize; 4]> = BTreeMap::new();
+        for _ in 0..2000 {
+            let y: Vec<f64> = x
+                .iter()
+                .map(|&v| model.eval(v, &p) + noise.sample(&mut rng))
+                .collect();
+            let a = analyse(
+                &LotSeries {
+                    x: x.clone(),
+                    y,
+                    ..LotSeries::default()
+                },
+                &opts,
+            );
+            let fc = a.forecast.as_ref();
+            let key = format!(
+                "{:?} chosen={:?} upper={}",
+                fc.map(|f| f.status),
+                a.chosen.map(|m| m.id()),
+                fc.is_some_and(|f| f.upper.is_some()),
+            );
+            let e = tally.entry(key).or_default();
+            e[0] += 1;
+            e[1] += usize::from(covers(&a));
+            e[2] += usize::from(fc.and_then(|f| f.lower).is_some_and(|l| l > X_TRUE));
+            e[3] += usize::from(fc.and_then(|f| f.upper).is_some_and(|u| u < X_TRUE));
+        }
+        eprintln!("{} auto={auto} n {n} sd {sd}:", model.id());
+        for (k, [c, cov, low, high]) in tally {
+            eprintln!(
+                "  {k}: {c} trials, {cov} cover, lower above truth {low}, upper below {high}"
+            );
+        }
+    }
+}

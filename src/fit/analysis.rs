@@ -51,7 +51,7 @@ use super::weights::{SdFunction, point_weights};
 
 /// Version of the numerical engine, stored beside each analysis so that a stored result
 /// can be traced to the code that produced it.
-pub const ENGINE_VERSION: &str = "turnbook-fit 1.3.1";
+pub const ENGINE_VERSION: &str = "turnbook-fit 1.3.2";
 
 /// The measured activity of one lot over its cycles.
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
@@ -695,8 +695,7 @@ fn with_prior(
     out: &mut LotAnalysis,
     prior: &FamilyPrior,
     opts: &AnalysisOptions,
-    x: &[f64],
-    y: &[f64],
+    (x, y, w): (&[f64], &[f64], Option<&[f64]>),
     change: Option<usize>,
     x_next: f64,
     lot_alone: Option<Forecast>,
@@ -705,8 +704,7 @@ fn with_prior(
     let mut p = if change.is_some() {
         let mut d = pooled(
             prior,
-            &[],
-            &[],
+            (&[], &[], None),
             opts.criterion,
             opts.confidence,
             x_next,
@@ -727,8 +725,7 @@ fn with_prior(
         };
         pooled(
             prior,
-            x,
-            y,
+            (x, y, w),
             opts.criterion,
             opts.confidence,
             x_next,
@@ -993,7 +990,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             .push("no model could be fitted and chosen".to_string());
         if let Some(prior) = &opts.prior {
             let x_next = x_last + cycle_step(&fx);
-            let fc = with_prior(&mut out, prior, opts, &fx, &fy, change, x_next, None);
+            let fc = with_prior(&mut out, prior, opts, (&fx, &fy, fw), change, x_next, None);
             out.forecast = fc;
         }
         out.abrupt = mon.map(|m| AbruptLoss {
@@ -1075,7 +1072,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     };
     if let Some(prior) = &opts.prior {
         let alone = Some(fc.clone());
-        fc = with_prior(&mut out, prior, opts, &fx, &fy, change, x_next, alone).unwrap_or(fc);
+        fc = with_prior(&mut out, prior, opts, (&fx, &fy, fw), change, x_next, alone).unwrap_or(fc);
     }
     if pts.iter().any(|p| p.3.is_some())
         && let Some(xs) = fc.x

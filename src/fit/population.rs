@@ -24,7 +24,8 @@
 //!    residuals √(σ²/τⱼ²)·(θⱼ − μⱼ) carry the prior, minimised by the same
 //!    Levenberg–Marquardt engine as every fit ([`posterior_fit`]). σ, the scatter of one
 //!    activity about its lot's curve, is the pooled residual scatter of the family,
-//!    σ² = ΣRSSₖ / Σ(nₖ − p): a lot with three cycles cannot estimate its own.
+//!    σ² = ΣRSSₖ / Σ(nₖ − p): a lot with three cycles cannot estimate its own. The lot's
+//!    residuals carry its points' relative weights, as in its lot-alone fit.
 //! 4. The posterior covariance is the Laplace approximation σ²·(J̃ᵀW̃J̃)⁻¹ of the penalised
 //!    problem (J̃ with the prior rows). The forecast's states are those of every forecast
 //!    ([`mod@super::forecast`]); a crossing ahead gets its interval by the delta method on
@@ -357,12 +358,16 @@ impl Curve for Penalised<'_> {
 /// The posterior mode of a lot's (x, y) under `prior`, as a fit of the prior's model with
 /// parameters (a0, kd): the covariance is the Laplace approximation σ²·(J̃ᵀW̃J̃)⁻¹ mapped to
 /// (a0, kd) by the delta method, `sigma` the family's, `dof` the family's pooled degrees of
-/// freedom, `rss` the lot's own residuals at the mode. Err with the reason when it cannot
-/// be computed.
+/// freedom, `rss` the lot's own (weighted) residuals at the mode. `w` are the points'
+/// relative weights (see [`super::weights`]: the median standard error has weight 1, so σ
+/// is the scatter of a cycle of median precision, as in the earlier lots' weighted fits
+/// the family's σ comes from); None weighs every point 1. Err with the reason when it
+/// cannot be computed.
 pub fn posterior_fit(
     prior: &FamilyPrior,
     x: &[f64],
     y: &[f64],
+    w: Option<&[f64]>,
     lm: &LmOptions,
 ) -> Result<FitResult, String> {
     let n = x.len().min(y.len());
@@ -376,7 +381,11 @@ pub fn posterior_fit(
     let mut ys = y.to_vec();
     ys.push(prior.a0.mean);
     ys.push(prior.ln_kd.mean);
-    let mut w = vec![1.0; n];
+    let mut w: Vec<f64> = match w {
+        Some(w) if w.len() >= n => w[..n].to_vec(),
+        _ => vec![1.0; n],
+    };
+    let point_w = w.clone();
     w.push(s2 / (prior.a0.sd * prior.a0.sd));
     w.push(s2 / (prior.ln_kd.sd * prior.ln_kd.sd));
     let start = [prior.a0.mean, prior.ln_kd.mean];
@@ -406,7 +415,8 @@ pub fn posterior_fit(
     let rss: f64 = x
         .iter()
         .zip(y)
-        .map(|(&xi, &yi)| (yi - prior.model.eval(xi, &[a0, kd])).powi(2))
+        .zip(&point_w)
+        .map(|((&xi, &yi), wi)| wi * (yi - prior.model.eval(xi, &[a0, kd])).powi(2))
         .sum();
     if !(a0.is_finite() && kd.is_finite() && rss.is_finite() && se.iter().all(|v| v.is_finite())) {
         return Err("the posterior fit is not finite".into());
@@ -501,8 +511,7 @@ pub struct Pooled {
 #[allow(clippy::too_many_arguments)]
 pub fn pooled(
     prior: &FamilyPrior,
-    x: &[f64],
-    y: &[f64],
+    (x, y, w): (&[f64], &[f64], Option<&[f64]>),
     criterion: Criterion,
     confidence: f64,
     x_next: f64,
@@ -528,7 +537,7 @@ pub fn pooled(
         ));
         return out;
     }
-    let fit = match posterior_fit(prior, x, y, lm) {
+    let fit = match posterior_fit(prior, x, y, w, lm) {
         Ok(f) => f,
         Err(e) => {
             out.why_not = Some(e);
@@ -619,13 +628,47 @@ mod tests {
         let truth = |x: f64| (-0.10 * x).exp();
         let xs: Vec<f64> = (1..=40).map(f64::from).collect();
         let ys: Vec<f64> = xs.iter().map(|&x| truth(x)).collect();
-        let young = posterior_fit(&p, &xs[..3], &ys[..3], &lm).expect("fit");
-        let old = posterior_fit(&p, &xs, &ys, &lm).expect("fit");
+        let young = posterior_fit(&p, &xs[..3], &ys[..3], None, &lm).expect("fit");
+        let old = posterior_fit(&p, &xs, &ys, None, &lm).expect("fit");
         let kd = |f: &FitResult| f.param("kd").unwrap_or(f64::NAN);
         // Young: between the family and the truth; old: the lot's own kd.
         assert!(kd(&young) > 0.05 && kd(&young) < 0.10, "{}", kd(&young));
         assert!((kd(&old) - 0.10).abs() < 0.002, "{}", kd(&old));
         assert!(young.std_errors.as_ref().map(|s| s[1]) > Some(0.0));
+    }
+
+    #[test]
+    fn the_posterior_weighs_points_by_their_precision() {
+        // Five cycles on the lot's curve kd = 0.08, the third read 0.15 too high.
+        let p = prior(0.05f64.ln(), 0.3);
+        let lm = LmOptions::default();
+        let xs: Vec<f64> = (1..=5).map(f64::from).collect();
+        let mut ys: Vec<f64> = xs.iter().map(|&x| (-0.08 * x).exp()).collect();
+        ys[2] += 0.15;
+        let kd = |f: &FitResult| f.param("kd").unwrap_or(f64::NAN);
+        let plain = posterior_fit(&p, &xs, &ys, None, &lm).expect("fit");
+        let ones = posterior_fit(&p, &xs, &ys, Some(&[1.0; 5]), &lm).expect("fit");
+        assert_eq!(plain.params, ones.params);
+        assert_eq!(plain.rss, ones.rss);
+        // The stray cycle with a ten times larger standard error (weight 1/100) counts for
+        // little: the fit is close to the one without it.
+        let w = [1.0, 1.0, 0.01, 1.0, 1.0];
+        let weighed = posterior_fit(&p, &xs, &ys, Some(&w), &lm).expect("fit");
+        let (x4, y4): (Vec<f64>, Vec<f64>) = xs
+            .iter()
+            .zip(&ys)
+            .enumerate()
+            .filter(|(i, _)| *i != 2)
+            .map(|(_, (x, y))| (*x, *y))
+            .unzip();
+        let without = posterior_fit(&p, &x4, &y4, None, &lm).expect("fit");
+        assert!(
+            (kd(&weighed) - kd(&without)).abs() < 0.1 * (kd(&plain) - kd(&without)).abs(),
+            "weighed {} without {} plain {}",
+            kd(&weighed),
+            kd(&without),
+            kd(&plain)
+        );
     }
 
     #[test]

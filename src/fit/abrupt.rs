@@ -401,7 +401,8 @@ struct Baseline {
 
 impl Baseline {
     /// The lines through (x, y) and, when `ly` (ln y of the same points) is given, through
-    /// (x, ln y).
+    /// (x, ln y), summed directly (the reference for [`Baseline::from_running`]).
+    #[cfg(test)]
     fn fit(x: &[f64], y: &[f64], ly: Option<&[f64]>) -> Option<Baseline> {
         let n = x.len().min(y.len());
         if n < 3 {
@@ -431,6 +432,30 @@ impl Baseline {
             xm,
             sxx,
             n,
+        })
+    }
+
+    /// The same lines from running sums of the points so far (see [`Running`]): O(1) a
+    /// cycle instead of O(n), which made the monitor quadratic in a lot's cycles.
+    fn from_running(r: &Running) -> Option<Baseline> {
+        if r.n < 3 || r.sxx <= 0.0 || !r.sxx.is_finite() {
+            return None;
+        }
+        let nf = r.n as f64;
+        let line = |v: &ScaleSums| {
+            let b = v.suv / r.sxx;
+            Line {
+                a: v.mean - b * r.xm,
+                b,
+                s2: (v.svv - b * v.suv).max(0.0) / (nf - 2.0),
+            }
+        };
+        Some(Baseline {
+            lin: line(&r.lin),
+            log: r.log.as_ref().map(line),
+            xm: r.xm,
+            sxx: r.sxx,
+            n: r.n,
         })
     }
 
@@ -485,13 +510,86 @@ pub fn level_shift_p(x: &[f64], y: &[f64], tau: usize) -> f64 {
 
 /// Centred sums of one scale (y or ln y) of a stretch of cycles, shared by the level-shift
 /// tests at every candidate change point.
-#[derive(Debug, Clone, Copy)]
+#[derive(Debug, Clone, Copy, Default)]
 struct ScaleSums {
     mean: f64,
     /// Σ(x − x̄)(v − v̄).
     suv: f64,
     /// Σ(v − v̄)².
     svv: f64,
+}
+
+/// Centred sums of the cycles so far, updated one cycle at a time by Welford's method
+/// (Welford, Technometrics 4, 1962, for the variance; the co-moment update
+/// C ← C + (x − x̄_old)·(v − v̄_new) is its bivariate form; recalled from memory), which
+/// stays accurate where Σx² − (Σx)²/n would cancel. The ln y sums are kept while every y
+/// so far is positive.
+#[derive(Debug, Clone, Copy, Default)]
+struct Running {
+    n: usize,
+    xm: f64,
+    /// Σ(x − x̄)².
+    sxx: f64,
+    lin: ScaleSums,
+    log: Option<ScaleSums>,
+}
+
+impl Running {
+    fn new() -> Self {
+        Running {
+            log: Some(ScaleSums::default()),
+            ..Running::default()
+        }
+    }
+
+    /// Adds the cycle (x, y) with ly = ln y.
+    fn push(&mut self, x: f64, y: f64, ly: f64) {
+        self.n += 1;
+        let nf = self.n as f64;
+        let dx = x - self.xm;
+        self.xm += dx / nf;
+        self.sxx += dx * (x - self.xm);
+        let add = |s: &mut ScaleSums, v: f64| {
+            let dv = v - s.mean;
+            s.mean += dv / nf;
+            s.suv += dx * (v - s.mean);
+            s.svv += dv * (v - s.mean);
+        };
+        add(&mut self.lin, y);
+        if y.is_nan() || y <= 0.0 {
+            self.log = None;
+        }
+        if let Some(l) = self.log.as_mut() {
+            add(l, ly);
+        }
+    }
+}
+
+/// Raw sums of x, y and ln y over a new level (the cycles from a held change point on),
+/// kept as cycles arrive so that a held change is re-tested in O(1) a cycle.
+#[derive(Debug, Clone, Copy, Default)]
+struct Tail {
+    m: usize,
+    sx: f64,
+    sy: f64,
+    sly: f64,
+}
+
+impl Tail {
+    fn over(x: &[f64], y: &[f64], ly: &[f64]) -> Self {
+        let mut t = Tail::default();
+        for i in 0..x.len().min(y.len()).min(ly.len()) {
+            t.push(x[i], y[i], ly[i]);
+        }
+        t
+    }
+
+    fn push(&mut self, x: f64, y: f64, ly: f64) {
+        self.m += 1;
+        self.sx += x;
+        self.sy += y;
+        self.sly += ly;
+    }
 }
 
 /// The level-shift test's sums over the cycles 0..n: each candidate then costs a sum over
@@ -538,19 +636,29 @@ impl<'a> ShiftSums<'a> {
         }
     }
 
-    /// The t statistic of the drop δ at `tau` on one scale (positive for a drop); None when
-    /// the fit is singular or exact. In centred form (u = x − x̄, w = v − v̄, the intercept
-    /// orthogonal to both) the normal equations of (1, u, −D) are
-    /// [[n, 0, −m], [0, Σu², −Σ_D u], [−m, −Σ_D u, m]]·β = [0, Σuw, −Σ_D w], with D the
-    /// indicator of the new level and m its length, and RSS = Σw² − βᵀXᵀw.
-    fn t_one(&self, v: &[f64], s: &ScaleSums, tau: usize) -> Option<f64> {
-        let n = self.x.len();
-        let (mut su, mut sw) = (0.0, 0.0);
-        for (xi, vi) in self.x[tau..].iter().zip(&v[tau..n]) {
-            su += xi - self.xm;
-            sw += vi - s.mean;
+    /// The sums of the cycles 0..=i from running sums that already include cycle i; `ly`
+    /// is used only while the running log sums are kept.
+    fn from_running(x: &'a [f64], y: &'a [f64], ly: &'a [f64], r: &Running) -> Self {
+        let n = r.n.min(x.len()).min(y.len());
+        ShiftSums {
+            x: &x[..n],
+            y: &y[..n],
+            ly: r.log.and(ly.get(..n)),
+            xm: r.xm,
+            suu: r.sxx,
+            lin: r.lin,
+            log: r.log,
         }
-        let m = (n - tau) as f64;
+    }
+
+    /// The t statistic of the drop δ on one scale (positive for a drop) for a new level of
+    /// `m` cycles with Σ(x − x̄) = `su` and Σ(v − v̄) = `sw` over it; None when the fit is
+    /// singular or exact. In centred form (u = x − x̄, w = v − v̄, the intercept orthogonal
+    /// to both) the normal equations of (1, u, −D) are
+    /// [[n, 0, −m], [0, Σu², −Σ_D u], [−m, −Σ_D u, m]]·β = [0, Σuw, −Σ_D w], with D the
+    /// indicator of the new level, and RSS = Σw² − βᵀXᵀw.
+    fn t_one(&self, s: &ScaleSums, su: f64, sw: f64, m: f64) -> Option<f64> {
+        let n = self.x.len();
         let inv = invert3([[n as f64, 0.0, -m], [0.0, self.suu, -su], [-m, -su, m]])?;
         let rhs = [0.0, s.suv, -sw];
         let beta: [f64; 3] = std::array::from_fn(|r| (0..3).map(|c| inv[r][c] * rhs[c]).sum());
@@ -564,15 +672,40 @@ impl<'a> ShiftSums<'a> {
 
     /// The level-shift statistic at `tau`: the smaller t of the two scales (the larger
     /// p-value, since both have n − 3 degrees of freedom; intersection–union), −∞ when
-    /// either cannot be computed (p = 1).
+    /// either cannot be computed (p = 1). The new level's sums are taken here, O(n − tau).
     fn t(&self, tau: usize) -> f64 {
         let n = self.x.len();
         if tau == 0 || tau >= n || n < 4 {
             return f64::NEG_INFINITY;
         }
-        let lin = self.t_one(self.y, &self.lin, tau);
+        let (mut su, mut sw, mut swl) = (0.0, 0.0, 0.0);
+        for i in tau..n {
+            su += self.x[i] - self.xm;
+            sw += self.y[i] - self.lin.mean;
+            if let (Some(ly), Some(l)) = (self.ly, &self.log) {
+                swl += ly[i] - l.mean;
+            }
+        }
+        self.t_sums(su, (sw, swl), (n - tau) as f64)
+    }
+
+    /// [`Self::t`] from the raw sums of the new level kept as cycles arrive.
+    fn t_tail(&self, tail: &Tail) -> f64 {
+        let n = self.x.len();
+        if tail.m == 0 || tail.m >= n || n < 4 {
+            return f64::NEG_INFINITY;
+        }
+        let m = tail.m as f64;
+        let su = tail.sx - m * self.xm;
+        let sw = tail.sy - m * self.lin.mean;
+        let swl = self.log.map_or(0.0, |l| tail.sly - m * l.mean);
+        self.t_sums(su, (sw, swl), m)
+    }
+
+    fn t_sums(&self, su: f64, (sw, swl): (f64, f64), m: f64) -> f64 {
+        let lin = self.t_one(&self.lin, su, sw, m);
         let log = match (self.ly, &self.log) {
-            (Some(ly), Some(s)) => self.t_one(ly, s, tau),
+            (Some(_), Some(s)) => self.t_one(s, su, swl, m),
             _ => Some(f64::INFINITY),
         };
         match (lin, log) {
@@ -597,8 +730,32 @@ fn shift_critical(df: usize, tried: usize) -> f64 {
     let alpha = SHIFT_ALPHA / tried as f64;
     match TABLE.get(df) {
         Some(row) => *row[tried - 1].get_or_init(|| upper_t_critical(alpha, df)),
-        None => upper_t_critical(alpha, df),
+        None => {
+            // Beyond the table (a lot of more than a thousand cycles): the expansion, once
+            // the normal quantile is known; solving the CDF at each cycle's own degrees of
+            // freedom made the monitor's cost grow faster than the lot.
+            static Z: [std::sync::OnceLock<f64>; SHIFT_WINDOW] =
+                [const { std::sync::OnceLock::new() }; SHIFT_WINDOW];
+            let z = *Z[tried - 1].get_or_init(|| {
+                Normal::new(0.0, 1.0).map_or(f64::INFINITY, |d| d.inverse_cdf(1.0 - alpha))
+            });
+            t_quantile_expansion(z, df)
+        }
     }
+}
+
+/// The upper quantile of Student's t on `df` degrees of freedom from the normal one `z`, by
+/// Fisher's expansion in powers of 1/df (Abramowitz & Stegun, Handbook of Mathematical
+/// Functions, 1964, 26.7.5; recalled from memory, and checked against the solved CDF in
+/// the tests: within 10⁻¹⁴ relative from 1,024 degrees of freedom on).
+fn t_quantile_expansion(z: f64, df: usize) -> f64 {
+    let nu = df as f64;
+    let z2 = z * z;
+    let g1 = (z2 + 1.0) * z / 4.0;
+    let g2 = ((5.0 * z2 + 16.0) * z2 + 3.0) * z / 96.0;
+    let g3 = (((3.0 * z2 + 19.0) * z2 + 17.0) * z2 - 15.0) * z / 384.0;
+    let g4 = ((((79.0 * z2 + 776.0) * z2 + 1482.0) * z2 - 1920.0) * z2 - 945.0) * z / 92160.0;
+    z + (g1 + (g2 + (g3 + g4 / nu) / nu) / nu) / nu
 }
 
 /// t with P(T > t) = α on `df` degrees of freedom: statrs' inverse CDF polished by Newton
@@ -657,33 +814,36 @@ pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
     }
     let normal = Normal::new(0.0, 1.0).ok()?;
     let to_z = |p: f64| normal.inverse_cdf(p.clamp(1e-12, 1.0 - 1e-12));
-    // ln y once; the log scale serves a stretch only while every y in it is positive.
+    // ln y once; the log scale serves a stretch only while every y in it is positive
+    // (the running sums drop it at the first y that is not).
     let ly: Vec<f64> = y[..n].iter().map(|v| v.ln()).collect();
-    let positive = y[..n]
-        .iter()
-        .position(|v| v.is_nan() || *v <= 0.0)
-        .unwrap_or(n);
+    let mut run = Running::new();
+    for i in 0..MIN_BASELINE {
+        run.push(x[i], y[i], ly[i]);
+    }
     let mut z = vec![f64::NAN; n];
     let mut path = vec![0.0; n];
     let mut s: f64 = 0.0;
-    // The first index of the held change.
-    let mut held: Option<usize> = None;
+    // The first index of the held change, and the sums of its new level so far.
+    let mut held: Option<(usize, Tail)> = None;
     let mut last_zero = MIN_BASELINE - 1;
     let mut first_alarm = None;
     for i in MIN_BASELINE..n {
         // Recursive one-step scores: independent for an in-control lot.
-        let base = Baseline::fit(&x[..i], &y[..i], (i <= positive).then(|| &ly[..i]))?;
+        let base = Baseline::from_running(&run)?;
         z[i] = to_z(base.p_one(x[i], y[i], ly[i]));
         s = (s - z[i] - k).max(0.0);
         path[i] = s;
         if s == 0.0 {
             last_zero = i;
         }
-        let sums = ShiftSums::new(&x[..=i], &y[..=i], (i < positive).then(|| &ly[..=i]));
+        run.push(x[i], y[i], ly[i]);
+        let sums = ShiftSums::from_running(x, y, &ly, &run);
         // Degrees of freedom of the level-shift test on the i + 1 cycles so far.
         let df = i - 2;
-        if let Some(tau) = held {
-            if !(sums.t(tau) > shift_critical(df, SHIFT_WINDOW) || s > h) {
+        if let Some((_, tail)) = held.as_mut() {
+            tail.push(x[i], y[i], ly[i]);
+            if !(sums.t_tail(tail) > shift_critical(df, SHIFT_WINDOW) || s > h) {
                 // Back in control.
                 held = None;
             }
@@ -702,8 +862,9 @@ pub fn monitor(x: &[f64], y: &[f64], k: f64, h: f64) -> Option<Monitoring> {
             continue;
         };
         first_alarm.get_or_insert(i);
-        held = Some(tau);
+        held = Some((tau, Tail::over(&x[tau..=i], &y[tau..=i], &ly[tau..=i])));
     }
+    let held = held.map(|(tau, _)| tau);
     let max = path.iter().copied().fold(0.0, f64::max);
     let alarm = held.is_some();
     let change_index = match held {
@@ -950,13 +1111,17 @@ mod tests {
                 fast.cusum.first_alarm, direct.cusum.first_alarm,
                 "case {case}"
             );
-            // The scores are the same numbers: the baselines' arithmetic is unchanged.
-            assert_eq!(fast.cusum.path, direct.cusum.path, "case {case}");
+            // The scores agree to rounding: the running sums reorder the arithmetic.
+            let close = |a: f64, b: f64| {
+                a.to_bits() == b.to_bits()
+                    || (a.is_nan() && b.is_nan())
+                    || (a - b).abs() <= 1e-9 * (1.0 + b.abs())
+            };
+            for (a, b) in fast.cusum.path.iter().zip(&direct.cusum.path) {
+                assert!(close(*a, *b), "case {case}: path {a} vs {b}");
+            }
             for (a, b) in fast.z.iter().zip(&direct.z) {
-                assert!(
-                    a.to_bits() == b.to_bits() || (a.is_nan() && b.is_nan()),
-                    "{case}"
-                );
+                assert!(close(*a, *b), "case {case}: z {a} vs {b}");
             }
             match (fast.shift_p, direct.shift_p) {
                 (Some(a), Some(b)) => assert!((a - b).abs() <= 1e-6 * b + 1e-300, "{a} {b}"),
@@ -969,6 +1134,73 @@ mod tests {
     }
 
     #[test]
+    fn monitor_agrees_over_long_lots_and_large_x() {
+        // Long lots (300 cycles, x in hours from 10⁴ on) with a step held over 200 cycles:
+        // the running sums and the held level's sums give the direct computation's
+        // decisions.
+        use rand::SeedableRng;
+        use rand_distr::Distribution;
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(16);
+        let noise = rand_distr::Normal::new(0.0, 0.01).expect("sd");
+        for case in 0..12 {
+            let n = 300;
+            let step = [0.0, 0.1, 0.2][case % 3];
+            let x: Vec<f64> = (0..n).map(|i| 1.0e4 + 12.5 * i as f64).collect();
+            let y: Vec<f64> = (0..n)
+                .map(|i| {
+                    let trend = (-0.002 * i as f64).exp();
+                    trend * if i >= 100 { 1.0 - step } else { 1.0 } + noise.sample(&mut rng)
+                })
+                .collect();
+            let fast = monitor(&x, &y, 0.5, 4.5).expect("enough cycles");
+            let direct = monitor_direct(&x, &y, 0.5, 4.5).expect("enough cycles");
+            assert_eq!(fast.alarm, direct.alarm, "case {case}");
+            assert_eq!(fast.change_index, direct.change_index, "case {case}");
+            assert_eq!(
+                fast.cusum.first_alarm, direct.cusum.first_alarm,
+                "case {case}"
+            );
+            for (a, b) in fast.z.iter().zip(&direct.z) {
+                assert!(
+                    (a.is_nan() && b.is_nan()) || (a - b).abs() <= 1e-7 * (1.0 + b.abs()),
+                    "case {case}: z {a} vs {b}"
+                );
+            }
+            if step > 0.15 {
+                assert!(
+                    fast.cusum
+                        .first_alarm
+                        .is_some_and(|i| (100..103).contains(&i)),
+                    "case {case}: {:?}",
+                    fast.cusum.first_alarm
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn the_expansion_matches_the_quantile_beyond_the_table() {
+        // Reference values: scipy 1.17.1, scipy.stats.t.isf(0.006 / tried, df).
+        for (df, tried, want) in [
+            (1024, 1, 2.5166357786373585),
+            (1024, 3, 2.8846989624186867),
+            (5000, 1, 2.5130629432071014),
+            (5000, 2, 2.748956571780474),
+            (50_000, 3, 2.8782953464413703),
+            (200_000, 1, 2.512167285576762),
+        ] {
+            let got = shift_critical(df, tried);
+            assert!(
+                (got - want).abs() <= 1e-14 * want,
+                "df {df}, tried {tried}: {got} vs {want}"
+            );
+            // statrs' own CDF, solved, agrees to its precision there (3e-11 at 200,000).
+            let solved = upper_t_critical(SHIFT_ALPHA / tried as f64, df);
+            assert!((got - solved).abs() <= 1e-9 * want, "{got} vs {solved}");
+        }
+    }
+
+    #[test]
     fn critical_values_match_the_p_values() {
         for df in [1, 2, 3, 5, 10, 37, 200, 5000] {
             for tried in 1..=SHIFT_WINDOW {
@@ -976,10 +1208,10 @@ mod tests {
                 let d = StudentsT::new(0.0, 1.0, df as f64).expect("df");
                 let alpha = SHIFT_ALPHA / tried as f64;
                 let p = d.cdf(-c);
-                assert!(
-                    (p - alpha).abs() <= 1e-12 * alpha,
-                    "df {df}: {p} vs {alpha}"
-                );
+                // Beyond the table the value is the expansion (exact to 1e-14 against scipy)
+                // and statrs' CDF is the less precise of the two there.
+                let tol = if df < CRITICAL_TABLE { 1e-12 } else { 1e-10 };
+                assert!((p - alpha).abs() <= tol * alpha, "df {df}: {p} vs {alpha}");
             }
         }
         // Reference values: scipy 1.17.1, scipy.stats.t.isf(0.006 / tried, df).

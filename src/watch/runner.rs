@@ -982,4 +982,44 @@ mod tests {
         advance(&mut state);
         assert_eq!(jobs.try_recv().unwrap().stamp.size, 8);
     }
+
+    fn job(name: &str, size: u64, refusal: Option<&str>) -> Job {
+        Job {
+            root: 0,
+            path: PathBuf::from(name),
+            key: PathBuf::from(name),
+            stamp: Stamp {
+                size,
+                modified: None,
+            },
+            refusal: refusal.map(str::to_string),
+        }
+    }
+
+    #[test]
+    fn files_from_the_lane_size_go_to_the_large_lane_in_order() {
+        let (lane, large) = std::sync::mpsc::channel();
+        let batch = vec![
+            job("a.csv", 10, None),
+            job("big-1.csv", 1 << 20, None),
+            job("pipe", 1 << 21, Some("a named pipe")),
+            job("b.csv", (1 << 20) - 1, None),
+            job("big-2.csv", 5 << 20, None),
+        ];
+        let stay = pass_on_large(batch, Some(&(1 << 20, lane)));
+        let names = |jobs: &[Job]| -> Vec<String> {
+            jobs.iter().map(|j| j.path.display().to_string()).collect()
+        };
+        assert_eq!(names(&stay), ["a.csv", "pipe", "b.csv"]);
+        let passed: Vec<Job> = large.try_iter().collect();
+        assert_eq!(names(&passed), ["big-1.csv", "big-2.csv"]);
+        // Without a lane, or with one that has ended, every file stays.
+        assert_eq!(pass_on_large(vec![job("c.csv", 9 << 20, None)], None).len(), 1);
+        let (gone, ended) = std::sync::mpsc::channel();
+        drop(ended);
+        assert_eq!(
+            names(&pass_on_large(vec![job("d.csv", 9 << 20, None)], Some(&(1, gone)))),
+            ["d.csv"]
+        );
+    }
 }

@@ -10,7 +10,8 @@ BIN in turn (alternating, on this noisy machine) as `BIN watch` on an empty data
 polled folder, registers the small file's lot (and the large one's with REGISTER_LARGE=1), moves the large export in, moves the small file in
 0.5 s later, and waits until both are recorded. Prints, per run: the large file's time
 from its drop to its record's commit, the service's peak RSS (VmHWM from /proc), and the
-small file's latency from its drop to its record. Then the medians per binary.
+small file's latency from its drop to its record, and the load average after the run.
+Then the medians per binary.
 Standard library only.
 """
 import math
@@ -198,8 +199,8 @@ def main():
             x = run_once(b, dirname, staging, big, small)
             results[b].append(x)
             print(f"round {r + 1} {b}: large {x['large_s']:.2f} s ({x['large']}), peak RSS "
-                  f"{x['rss_mb']:.1f} MB, small file {x['small_s']:.2f} s ({x['small']})",
-                  flush=True)
+                  f"{x['rss_mb']:.1f} MB, small file {x['small_s']:.2f} s ({x['small']}), "
+                  f"load {os.getloadavg()[0]:.1f}", flush=True)
     for b, xs in results.items():
         med = {k: statistics.median(x[k] for x in xs) for k in ("large_s", "rss_mb", "small_s")}
         print(f"median of {len(xs)} {b}: large {med['large_s']:.2f} s, peak RSS "

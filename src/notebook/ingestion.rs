@@ -983,7 +983,16 @@ impl<'a> Writer<'a> {
         let Some(mut file) = self.open_large(&facts)? else {
             return self.duplicate_large(facts);
         };
-        self.store_chunks(&facts, &large, &mut file)?;
+        // The parts commit without waiting for the disk; the closing commit syncs the log
+        // with every part before it. A power cut meanwhile loses only the last parts, each
+        // with its progress, and the file resumes after the last part kept.
+        let full = bulk::full_sync(self.conn)?;
+        bulk::set_full_sync(self.conn, false)?;
+        let stored = self.store_chunks(&facts, &large, &mut file);
+        if full {
+            bulk::set_full_sync(self.conn, true)?;
+        }
+        stored?;
         drop(large);
         self.parts.let_others_write();
         let tx = store::immediate(self.conn)?;

@@ -286,7 +286,9 @@ fn killed_while_storing_a_large_file_it_resumes_and_stores_every_row_once() {
         assert!(report.findings.is_empty(), "{:?}", report.findings);
         let conn = turnbook::store::open(&cfg.database_path()).unwrap();
         let chunks: Option<i64> = conn
-            .query_row("SELECT chunks_done FROM files_in_progress", [], |r| r.get(0))
+            .query_row("SELECT chunks_done FROM files_in_progress", [], |r| {
+                r.get(0)
+            })
             .ok();
         if chunks.is_some_and(|c| c > 0) {
             partial_seen += 1;
@@ -498,11 +500,17 @@ fn a_large_file_stopped_between_parts_resumes_with_one_pass_totals() {
     drop(ing);
     let ing = Ingestor::open(cfg.clone()).unwrap();
     assert_eq!(
-        count(&ing, "SELECT parts * 100 + chunks_done FROM files_in_progress"),
+        count(
+            &ing,
+            "SELECT parts * 100 + chunks_done FROM files_in_progress"
+        ),
         505
     );
     assert_eq!(
-        count(&ing, "SELECT COUNT(*) FROM source_files WHERE path LIKE '%large.csv'"),
+        count(
+            &ing,
+            "SELECT COUNT(*) FROM source_files WHERE path LIKE '%large.csv'"
+        ),
         0
     );
     let report = notebook::verify(&cfg, &[]).unwrap();
@@ -527,7 +535,10 @@ fn a_large_file_stopped_between_parts_resumes_with_one_pass_totals() {
     );
     // Every value once: the small file's four, the large file's new and conflicting ones.
     assert_eq!(
-        count(&ing, "SELECT COUNT(DISTINCT id) * 10 + COUNT(*) - COUNT(DISTINCT id) FROM measurements"),
+        count(
+            &ing,
+            "SELECT COUNT(DISTINCT id) * 10 + COUNT(*) - COUNT(DISTINCT id) FROM measurements"
+        ),
         (4 + 2 * (ROWS as i64 - 2) + 1) * 10
     );
     assert_eq!(count(&ing, "SELECT COUNT(*) FROM files_in_progress"), 0);

@@ -45,7 +45,10 @@ impl Lanes {
             }
             tokio::time::sleep(Duration::from_millis(20)).await;
         }
-        panic!("expected the call {what:?} within 5 s; got {:?}", self.calls());
+        panic!(
+            "expected the call {what:?} within 5 s; got {:?}",
+            self.calls()
+        );
     }
 }
 

@@ -298,6 +298,12 @@ impl Ingestor {
                 "recomputed lots whose fits were older than their records"
             );
         }
+        // A large file stopped midway resumes when its content is offered again; until
+        // then its stored parts stand without its closing event.
+        for f in records::files_in_progress(&conn)? {
+            tracing::warn!(path = %f.path.escape_debug(), file_id = f.file_id, parts = f.parts,
+                "a large file was stopped midway; it resumes when offered again");
+        }
         Ok(Ingestor {
             conn,
             cfg,
@@ -857,7 +863,8 @@ impl<'a> Writer<'a> {
                 continue;
             }
             if !run.is_empty() {
-                let (o, t) = self.store_together(std::mem::take(&mut run), None, recompute, left)?;
+                let (o, t) =
+                    self.store_together(std::mem::take(&mut run), None, recompute, left)?;
                 outcomes.extend(o);
                 touched.extend(t);
             }

@@ -365,7 +365,9 @@ impl<'t, 'c> FileWriter<'t, 'c> {
         insert_file_prepared(&mut self.st.file, &file, seq)?;
         let listed = self
             .tx
-            .prepare_cached("DELETE FROM files_in_progress WHERE file_id = ?1 AND chunks_done = ?2")?
+            .prepare_cached(
+                "DELETE FROM files_in_progress WHERE file_id = ?1 AND chunks_done = ?2",
+            )?
             .execute([out.file_id, chunks_done])?;
         if listed != 1 {
             return Err(not_in_progress(&LargeFile {

@@ -1014,11 +1014,17 @@ mod tests {
         let passed: Vec<Job> = large.try_iter().collect();
         assert_eq!(names(&passed), ["big-1.csv", "big-2.csv"]);
         // Without a lane, or with one that has ended, every file stays.
-        assert_eq!(pass_on_large(vec![job("c.csv", 9 << 20, None)], None).len(), 1);
+        assert_eq!(
+            pass_on_large(vec![job("c.csv", 9 << 20, None)], None).len(),
+            1
+        );
         let (gone, ended) = std::sync::mpsc::channel();
         drop(ended);
         assert_eq!(
-            names(&pass_on_large(vec![job("d.csv", 9 << 20, None)], Some(&(1, gone)))),
+            names(&pass_on_large(
+                vec![job("d.csv", 9 << 20, None)],
+                Some(&(1, gone))
+            )),
             ["d.csv"]
         );
     }

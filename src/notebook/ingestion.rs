@@ -229,8 +229,11 @@ pub struct PartControl {
     pub rows: usize,
     pub stop: Option<Arc<AtomicBool>>,
     pub yield_to: Option<Arc<AtomicUsize>>,
-    pub after_part: Option<Box<dyn FnMut(&PartDone) + Send>>,
+    pub after_part: Option<PartHook>,
 }
+
+/// Called after each committed part of a large export (see [`PartControl`]).
+pub type PartHook = Box<dyn FnMut(&PartDone) + Send>;
 
 impl Default for PartControl {
     fn default() -> Self {

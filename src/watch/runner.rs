@@ -113,31 +113,7 @@ pub async fn run(
     let stop = Arc::new(AtomicBool::new(false));
     let (job_tx, job_rx) = std::sync::mpsc::channel::<Job>();
     let (done_tx, mut done_rx) = mpsc::unbounded_channel::<Outcome>();
-    let large_lane = match sink.large_lane_from() {
-        Some(from) => {
-            let (large_tx, large_rx) = std::sync::mpsc::channel::<Job>();
-            let (sink, folders, stop) = (sink.clone(), folders.clone(), stop.clone());
-            let done = done_tx.clone();
-            std::thread::Builder::new()
-                .name("turnbook-ingest-large".into())
-                .spawn(move || large_worker(large_rx, done, sink, folders, stop))
-                .map_err(WatchError::Worker)?;
-            Some((from, large_tx))
-        }
-        None => None,
-    };
-    {
-        let (sink, folders, stop) = (sink.clone(), folders.clone(), stop.clone());
-        let lanes = Lanes {
-            jobs: job_rx,
-            large: large_lane,
-            done: done_tx,
-        };
-        std::thread::Builder::new()
-            .name("turnbook-ingest".into())
-            .spawn(move || worker(lanes, sink, folders, stop))
-            .map_err(WatchError::Worker)?;
-    }
+    start_workers(job_rx, done_tx, &sink, &folders, &stop)?;
 
     let mut state = State::new(folders.clone(), roots.clone(), job_tx);
     let mut catching_up = CatchUp::new(roots.len());
@@ -188,6 +164,40 @@ pub async fn run(
         );
     }
     Ok(state.stats)
+}
+
+/// Start the ingest worker, and the large-file lane's when the sink has one.
+fn start_workers(
+    jobs: std::sync::mpsc::Receiver<Job>,
+    done: mpsc::UnboundedSender<Outcome>,
+    sink: &Arc<dyn FileSink>,
+    folders: &Arc<[WatchFolder]>,
+    stop: &Arc<AtomicBool>,
+) -> Result<(), WatchError> {
+    let large_lane = match sink.large_lane_from() {
+        Some(from) => {
+            let (large_tx, large_rx) = std::sync::mpsc::channel::<Job>();
+            let (sink, folders, stop) = (Arc::clone(sink), Arc::clone(folders), Arc::clone(stop));
+            let done = done.clone();
+            std::thread::Builder::new()
+                .name("turnbook-ingest-large".into())
+                .spawn(move || large_worker(large_rx, done, sink, folders, stop))
+                .map_err(WatchError::Worker)?;
+            Some((from, large_tx))
+        }
+        None => None,
+    };
+    let (sink, folders, stop) = (Arc::clone(sink), Arc::clone(folders), Arc::clone(stop));
+    let lanes = Lanes {
+        jobs,
+        large: large_lane,
+        done,
+    };
+    std::thread::Builder::new()
+        .name("turnbook-ingest".into())
+        .spawn(move || worker(lanes, sink, folders, stop))
+        .map_err(WatchError::Worker)?;
+    Ok(())
 }
 
 /// Whether the start-up catch-up is over: every folder scanned once and every file found

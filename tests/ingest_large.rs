@@ -621,3 +621,107 @@ fn a_large_lot_nobody_registered_is_recomputed_as_the_whole_state_would_be() {
         report.findings
     );
 }
+
+/// Send SIGTERM to `child` and wait (at most 10 s) for it to exit; its exit status.
+fn terminate(child: &mut std::process::Child) -> std::process::ExitStatus {
+    let ok = Command::new("kill")
+        .args(["-TERM", &child.id().to_string()])
+        .status()
+        .unwrap();
+    assert!(ok.success());
+    let t0 = Instant::now();
+    loop {
+        if let Some(status) = child.try_wait().unwrap() {
+            return status;
+        }
+        if t0.elapsed() > Duration::from_secs(10) {
+            let _ = child.kill();
+            let _ = child.wait();
+            panic!("the service ignored SIGTERM for 10 s");
+        }
+        std::thread::sleep(Duration::from_millis(10));
+    }
+}
+
+/// Poll `sql` (one integer) on the store until `done` holds, at most `limit`.
+fn wait_for_count(db: &Path, sql: &str, limit: Duration, done: impl Fn(i64) -> bool) -> i64 {
+    let t0 = Instant::now();
+    loop {
+        let n = turnbook::store::open(db)
+            .ok()
+            .and_then(|c| c.query_row(sql, [], |r| r.get::<_, i64>(0)).ok())
+            .unwrap_or(-1);
+        if done(n) {
+            return n;
+        }
+        assert!(t0.elapsed() < limit, "{sql} gave {n} after {limit:?}");
+        std::thread::sleep(Duration::from_millis(20));
+    }
+}
+
+#[test]
+fn the_service_stops_a_large_file_between_parts_on_sigterm_and_resumes_it() {
+    // `turnbook watch` stores the large export on its lane for large files; SIGTERM once a
+    // few parts are committed: the service exits cleanly with the file part-stored (and
+    // verifying), and the next start resumes it to the end, every row once.
+    let tmp = tempfile::tempdir().unwrap();
+    let root = tmp.path();
+    let cfg = common::reactor_config(root, 100);
+    let config = root.join("turnbook.toml");
+    let db = cfg.database_path();
+    std::fs::create_dir_all(root.join("exports")).unwrap();
+    let watch = || {
+        Command::new(env!("CARGO_BIN_EXE_turnbook"))
+            .arg("--config")
+            .arg(&config)
+            .arg("watch")
+            .env_remove("RUST_LOG")
+            .stdout(std::process::Stdio::null())
+            .stderr(std::process::Stdio::null())
+            .spawn()
+            .unwrap()
+    };
+    let mut service = watch();
+    let staged = write_export(&root.join("staging"), "large.csv", ROWS, None);
+    std::thread::sleep(Duration::from_millis(500));
+    std::fs::rename(&staged, root.join("exports").join("large.csv")).unwrap();
+    let chunks = "SELECT COALESCE(MAX(chunks_done), 0) FROM files_in_progress";
+    wait_for_count(&db, chunks, Duration::from_secs(30), |n| n >= 2);
+    let status = terminate(&mut service);
+    assert_eq!(status.code(), Some(0), "exit status after SIGTERM");
+    let stopped_at = wait_for_count(&db, chunks, Duration::from_secs(1), |n| n >= 0);
+    let parts = ROWS.div_ceil(2048) as i64;
+    assert!(
+        (2..parts).contains(&stopped_at),
+        "stopped after {stopped_at} of {parts} chunks"
+    );
+    let report = notebook::verify(&cfg, &[]).unwrap();
+    assert!(report.findings.is_empty(), "{:?}", report.findings);
+
+    let mut service = watch();
+    let ingested = "SELECT COUNT(*) FROM source_files WHERE outcome = 'ingested'";
+    wait_for_count(&db, ingested, Duration::from_secs(60), |n| n == 1);
+    assert_eq!(terminate(&mut service).code(), Some(0));
+    let ing = Ingestor::open(cfg.clone()).unwrap();
+    assert_eq!(count(&ing, "SELECT COUNT(*) FROM files_in_progress"), 0);
+    assert_eq!(
+        count(&ing, "SELECT COUNT(*) FROM events WHERE kind = 'file-rows'"),
+        parts
+    );
+    assert_eq!(
+        count(
+            &ing,
+            "SELECT rows_new FROM source_files WHERE outcome = 'ingested'"
+        ),
+        ROWS as i64
+    );
+    assert_eq!(
+        count(
+            &ing,
+            "SELECT COUNT(DISTINCT id) * 10 + COUNT(*) - COUNT(DISTINCT id) FROM measurements"
+        ),
+        2 * ROWS as i64 * 10
+    );
+    let report = notebook::verify(&cfg, &[]).unwrap();
+    assert!(report.findings.is_empty(), "{:?}", report.findings);
+}

@@ -703,8 +703,20 @@ fn an_upgrade_from_version_4_keeps_every_value_with_its_origin() {
     assert_ne!(store::PAGE_SIZE, 4096);
 
     // The schema is the newest, every migration recorded once.
-    assert_eq!(schema_version(&conn), 17);
+    assert_eq!(schema_version(&conn), 19);
     assert_eq!(schema_version(&conn), migrate::latest());
+    // 0019: no large file in progress; provenance rows no longer a foreign key to files.
+    assert_eq!(
+        dump(&conn, "SELECT COUNT(*) FROM files_in_progress"),
+        vec![vec![Value::Integer(0)]]
+    );
+    assert_eq!(
+        dump(
+            &conn,
+            "SELECT COUNT(*) FROM pragma_foreign_key_list('batch_sources') WHERE \"table\" = 'source_files'"
+        ),
+        vec![vec![Value::Integer(0)]]
+    );
     let recorded: Vec<(i64, String)> = {
         let mut stmt = conn
             .prepare("SELECT version, name FROM schema_migrations ORDER BY version")
@@ -1173,7 +1185,7 @@ fn the_upgrade_to_0017_keeps_each_lot_state_and_its_snapshot() {
     drop(conn);
 
     let conn = upgrade(&path);
-    assert_eq!(schema_version(&conn), 17);
+    assert_eq!(schema_version(&conn), migrate::latest());
     let columns: Vec<String> = conn
         .prepare("SELECT name FROM pragma_table_info('lot_states')")
         .unwrap()

@@ -90,9 +90,10 @@ pub(super) struct Walk<'c, 'k> {
     pub(super) signoffs: Vec<SignOffSeen>,
     outbox: OutboxReplay,
     /// Large files whose `file-rows` parts were met but not yet their `file-ingested`
-    /// event (written in the same transaction, so none is left at the end), with the
-    /// first part's event.
-    open_parts: BTreeMap<i64, i64>,
+    /// event, with the first part's event and the parts met. At the end, only a file
+    /// listed in `files_in_progress` (being stored, or stopped and to be resumed) may be
+    /// left, with the parts its row counts.
+    open_parts: BTreeMap<i64, (i64, i64)>,
 }
 
 impl<'c, 'k> Walk<'c, 'k> {
@@ -265,7 +266,7 @@ impl<'c, 'k> Walk<'c, 'k> {
                         );
                     }
                 }
-                self.open_parts.entry(file_id).or_insert(seq);
+                self.open_parts.entry(file_id).or_insert((seq, 0)).1 += 1;
             }
             Payload::FileDuplicate { file, .. } | Payload::FileRejected { file } => {
                 self.files.insert(file.id, (file, seq));
@@ -382,16 +383,7 @@ impl<'c, 'k> Walk<'c, 'k> {
                 "absent (no event wrote it)",
             );
         })?;
-        for (file_id, seq) in std::mem::take(&mut self.open_parts) {
-            push(
-                &mut self.findings,
-                "events",
-                seq,
-                "file_id",
-                format!("a part of file {file_id} with no file-ingested event after it"),
-                "the file's file-ingested event after its parts",
-            );
-        }
+        self.check_open_parts()?;
         self.check_counter()?;
         self.check_lots()?;
         self.check_cycles()?;
@@ -399,6 +391,50 @@ impl<'c, 'k> Walk<'c, 'k> {
         let (full, from) = (self.full(), self.from);
         outbox.compare(self.conn, &mut self.findings, full, from)?;
         Ok((self.findings, self.signoffs))
+    }
+
+    /// Parts with no closing event after them: a file in progress, with as many parts as
+    /// its progress row counts (a partial walk sees only the parts after its start).
+    fn check_open_parts(&mut self) -> Result<()> {
+        let listed: BTreeMap<i64, i64> = store::records::files_in_progress(self.conn)?
+            .into_iter()
+            .map(|f| (f.file_id, f.parts))
+            .collect();
+        let open = std::mem::take(&mut self.open_parts);
+        for (file_id, parts) in &listed {
+            if self.full() && *parts > 0 && !open.contains_key(file_id) {
+                push(
+                    &mut self.findings,
+                    "files_in_progress",
+                    file_id,
+                    "parts",
+                    parts,
+                    "0: no part of the file is in the events",
+                );
+            }
+        }
+        for (file_id, (seq, met)) in open {
+            match listed.get(&file_id) {
+                Some(parts) if *parts == met || (!self.full() && *parts > met) => {}
+                Some(parts) => push(
+                    &mut self.findings,
+                    "files_in_progress",
+                    file_id,
+                    "parts",
+                    parts,
+                    format!("{met}, the parts its events hold"),
+                ),
+                None => push(
+                    &mut self.findings,
+                    "events",
+                    seq,
+                    "file_id",
+                    format!("a part of file {file_id} with no file-ingested event after it"),
+                    "the file's file-ingested event after its parts, or the file in progress",
+                ),
+            }
+        }
+        Ok(())
     }
 
     /// Measurement ids are counted in `id_counters`; the next one must lie past every id

@@ -8,7 +8,7 @@
 use std::future::Future;
 use std::path::Path;
 use std::pin::Pin;
-use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
@@ -20,19 +20,34 @@ use crate::mail::DeliveryReport;
 use crate::store;
 use crate::watch::{self, FileSink, WatchFolder};
 
-/// The pipeline as the watcher's sink: one writer, one file per transaction.
+/// The pipeline as the watcher's sink: files settled together stored in one transaction,
+/// and a lane of its own for large exports (see [`FileSink::large_lane_from`]): a second
+/// writer on its own connection, whose parts each take the write lock briefly, so that
+/// small files are stored between them (SQLite's busy wait orders the two writers).
 pub struct PipelineSink {
     ingestor: Mutex<Ingestor>,
+    /// The large-file lane's writer is opened per file (an idle service keeps only one
+    /// connection); the lock keeps the lane to one file at a time.
+    large: Mutex<()>,
+    cfg: Config,
+    /// Set when the service stops: a large file stops between two of its parts.
+    stop: Arc<AtomicBool>,
+    /// Calls of the small-file lane in progress: the large lane lets them write first.
+    small_calls: Arc<AtomicUsize>,
     /// Whether a call is in progress and since when, for the watchdog.
     live: Arc<Liveness>,
 }
 
 impl PipelineSink {
     pub fn new(cfg: Config) -> Result<Self> {
-        let mut ingestor = Ingestor::open(cfg)?;
+        let mut ingestor = Ingestor::open(cfg.clone())?;
         ingestor.tune_for_service()?;
         Ok(PipelineSink {
             ingestor: Mutex::new(ingestor),
+            large: Mutex::new(()),
+            cfg,
+            stop: Arc::default(),
+            small_calls: Arc::default(),
             live: Arc::default(),
         })
     }
@@ -65,6 +80,7 @@ impl FileSink for PipelineSink {
 
     fn ingest(&self, _folder: &WatchFolder, path: &Path) -> anyhow::Result<()> {
         let _busy = self.live.busy();
+        let _first = SmallCall::new(&self.small_calls);
         let mut ing = self
             .ingestor
             .lock()
@@ -83,6 +99,33 @@ impl FileSink for PipelineSink {
         true
     }
 
+    fn large_lane_from(&self) -> Option<u64> {
+        Some(super::ingestion::LARGE_FILE_BYTES as u64)
+    }
+
+    /// A large file on its own writer: its parts commit one by one while the other lane
+    /// stores the small files settling meanwhile.
+    fn ingest_large(&self, _folder: &WatchFolder, path: &Path) -> anyhow::Result<()> {
+        let _one = self
+            .large
+            .lock()
+            .map_err(|_| anyhow::anyhow!("the large-file lane was poisoned by an earlier panic"))?;
+        let mut ing = Ingestor::open(self.cfg.clone())?;
+        ing.tune_for_service()?;
+        ing.parts.stop = Some(Arc::clone(&self.stop));
+        ing.parts.yield_to = Some(Arc::clone(&self.small_calls));
+        if ing.unchanged_since_recorded(path)? {
+            tracing::debug!(path = %path.display(), "unchanged since it was recorded; skipped");
+            return Ok(());
+        }
+        log_outcome(&ing.ingest_file(path)?);
+        Ok(())
+    }
+
+    fn stopping(&self) {
+        self.stop.store(true, Ordering::SeqCst);
+    }
+
     /// Files that settled together, stored in transactions of up to [`TOGETHER_BYTES`]
     /// of content (each lot they touch refitted once per transaction); a database error
     /// fails the files of its transaction only.
@@ -90,6 +133,7 @@ impl FileSink for PipelineSink {
         &self,
         files: &[(&WatchFolder, &Path)],
     ) -> anyhow::Result<Vec<anyhow::Result<()>>> {
+        let _first = SmallCall::new(&self.small_calls);
         let mut ing = self
             .ingestor
             .lock()
@@ -147,6 +191,22 @@ impl FileSink for PipelineSink {
             .map(|(p, s)| (*p, s.size, s.modified))
             .collect();
         Ok(ing.recorded_versions(&versions)?)
+    }
+}
+
+/// A call of the small-file lane in progress, counted while it lasts.
+struct SmallCall<'a>(&'a AtomicUsize);
+
+impl<'a> SmallCall<'a> {
+    fn new(calls: &'a AtomicUsize) -> Self {
+        calls.fetch_add(1, Ordering::SeqCst);
+        SmallCall(calls)
+    }
+}
+
+impl Drop for SmallCall<'_> {
+    fn drop(&mut self) {
+        self.0.fetch_sub(1, Ordering::SeqCst);
     }
 }
 

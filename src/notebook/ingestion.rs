@@ -157,6 +157,13 @@ struct Prepared {
     result: Result<Content, String>,
 }
 
+impl Prepared {
+    /// A large export, stored over transactions of its own.
+    fn is_large(&self) -> bool {
+        matches!(self.result, Ok(Content::Large(_)))
+    }
+}
+
 /// What a readable file holds, ready to be stored.
 enum Content {
     /// Its rows, all parsed.
@@ -177,7 +184,7 @@ struct LargeExport {
 /// Cycle exports larger than this are read twice, checked and then stored in chunks of
 /// [`PART_ROWS`] rows (one `file-rows` event each), rather than parsed whole: the memory a
 /// file takes is then its bytes and one chunk, whatever its length.
-const LARGE_FILE_BYTES: usize = 1 << 20;
+pub(crate) const LARGE_FILE_BYTES: usize = 1 << 20;
 /// Rows of a large export per `file-rows` event (about 1.5 MB of payload at 11 values a row).
 const PART_ROWS: usize = 2048;
 
@@ -205,6 +212,63 @@ pub struct Ingestor {
     /// own does the copy while the writer goes on; the writer then copies only what it
     /// appended meanwhile, so that the log starts over at its next transaction.
     pub checkpoint_bytes: i64,
+    /// How a large export is stored over transactions (rows per part, stop, hook).
+    pub parts: PartControl,
+}
+
+/// How a large export is stored: in chunks of `rows` rows, each chunk in a transaction of
+/// its own, so that the write lock is free between them and other writers (the service's
+/// lane for small files) get it; `stop` is checked between chunks (a file stopped so
+/// resumes when offered again); `after_part` is called after each committed chunk.
+///
+/// `yield_to` counts calls of another writer in progress (the service's lane for small
+/// files): before each part this writer waits while there is one, up to [`YIELD_AT_MOST`],
+/// so that the other gets the lock between parts rather than by chance of SQLite's busy
+/// wait, which polls at growing intervals.
+pub struct PartControl {
+    pub rows: usize,
+    pub stop: Option<Arc<AtomicBool>>,
+    pub yield_to: Option<Arc<AtomicUsize>>,
+    pub after_part: Option<PartHook>,
+}
+
+/// Called after each committed part of a large export (see [`PartControl`]).
+pub type PartHook = Box<dyn FnMut(&PartDone) + Send>;
+
+impl Default for PartControl {
+    fn default() -> Self {
+        PartControl {
+            rows: PART_ROWS,
+            stop: None,
+            yield_to: None,
+            after_part: None,
+        }
+    }
+}
+
+/// Longest a large file's next part waits for another writer's call to end.
+const YIELD_AT_MOST: std::time::Duration = std::time::Duration::from_millis(500);
+
+impl PartControl {
+    /// Wait, before a part, while another writer's call is in progress (at most
+    /// [`YIELD_AT_MOST`]).
+    fn let_others_write(&self) {
+        let Some(others) = &self.yield_to else {
+            return;
+        };
+        let start = std::time::Instant::now();
+        while others.load(Ordering::SeqCst) > 0 && start.elapsed() < YIELD_AT_MOST {
+            std::thread::sleep(std::time::Duration::from_millis(2));
+        }
+    }
+}
+
+/// One committed chunk of a large export, as told to [`PartControl::after_part`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct PartDone {
+    pub file_id: i64,
+    pub chunks_done: i64,
+    pub parts: i64,
 }
 
 impl Ingestor {
@@ -237,6 +301,12 @@ impl Ingestor {
                 "recomputed lots whose fits were older than their records"
             );
         }
+        // A large file stopped midway resumes when its content is offered again; until
+        // then its stored parts stand without its closing event.
+        for f in records::files_in_progress(&conn)? {
+            tracing::warn!(path = %f.path.escape_debug(), file_id = f.file_id, parts = f.parts,
+                "a large file was stopped midway; it resumes when offered again");
+        }
         Ok(Ingestor {
             conn,
             cfg,
@@ -246,6 +316,7 @@ impl Ingestor {
             parse_cache: ParseCache::new(),
             part_bytes: PART_BYTES,
             checkpoint_bytes: BACKFILL_CHECKPOINT_BYTES,
+            parts: PartControl::default(),
         })
     }
 
@@ -332,7 +403,7 @@ impl Ingestor {
                 }
             })
             .collect();
-        let out = Writer::new(&mut self.conn, &self.cfg, &self.actor)
+        let out = Writer::new(&mut self.conn, &self.cfg, &self.actor, &mut self.parts)
             .store(prepared, None, false, &mut Leftovers::default())
             .map(|(o, _)| o)?;
         self.publish_head();
@@ -404,7 +475,7 @@ impl Ingestor {
         let autocheckpoint = bulk::autocheckpoint(&self.conn)?;
         let copied = AtomicBool::new(false);
         let part_bytes = self.part_bytes;
-        let mut writer = Writer::new(&mut self.conn, &self.cfg, &self.actor);
+        let mut writer = Writer::new(&mut self.conn, &self.cfg, &self.actor, &mut self.parts);
         writer.version_at_start = Some(bulk::data_version(writer.conn)?);
         let start_version = writer.version_at_start;
         let log_frames = Arc::new(AtomicI64::new(0));
@@ -466,6 +537,9 @@ impl Ingestor {
     /// Publish the chain's head after a commit. The records are committed whatever
     /// happens here, so a witness that cannot be written is logged, not returned.
     fn publish_head(&self) {
+        // The service's two writers publish in turn: one file written, then renamed.
+        static PUBLISHING: std::sync::Mutex<()> = std::sync::Mutex::new(());
+        let _turn = PUBLISHING.lock().unwrap_or_else(|p| p.into_inner());
         if let Err(e) = super::chain::publish_head(&self.cfg, &self.conn) {
             tracing::warn!(error = %e, "the chain's head was not published");
         }
@@ -498,7 +572,7 @@ impl Ingestor {
     fn ingest_group(&mut self, paths: &[PathBuf]) -> Result<Vec<FileOutcome>, StoreError> {
         let prepared = Reader::new(&self.cfg, self.profile_override.as_deref())
             .prepare_group(paths, &mut self.parse_cache);
-        Writer::new(&mut self.conn, &self.cfg, &self.actor)
+        Writer::new(&mut self.conn, &self.cfg, &self.actor, &mut self.parts)
             .store(prepared, None, true, &mut Leftovers::default())
             .map(|(o, _)| o)
     }
@@ -726,10 +800,17 @@ struct Writer<'a> {
     /// when another connection commits. If it moved, a file that other writer ingested
     /// after a reader's snapshot would be missed, so readers' lookups are not used.
     version_at_start: Option<i64>,
+    /// How large exports are stored over transactions.
+    parts: &'a mut PartControl,
 }
 
 impl<'a> Writer<'a> {
-    fn new(conn: &'a mut Connection, cfg: &'a Config, actor: &'a str) -> Self {
+    fn new(
+        conn: &'a mut Connection,
+        cfg: &'a Config,
+        actor: &'a str,
+        parts: &'a mut PartControl,
+    ) -> Self {
         Writer {
             conn,
             cfg,
@@ -737,6 +818,7 @@ impl<'a> Writer<'a> {
             committed: 0,
             recent: std::collections::VecDeque::new(),
             version_at_start: None,
+            parts,
         }
     }
 
@@ -760,7 +842,56 @@ impl<'a> Writer<'a> {
     /// What is left of each ingested file (its parsed content and the facts not kept in
     /// its outcome) is moved into `left` rather than freed here: a backfill frees it on
     /// the reader thread that built it.
+    ///
+    /// A large export among them is stored over transactions of its own (see
+    /// [`Writer::store_large_file`]), the files before and after it in theirs.
     fn store(
+        &mut self,
+        prepared: Vec<Prepared>,
+        lookups: Option<&HashLookups>,
+        recompute: bool,
+        left: &mut Leftovers,
+    ) -> Result<(Vec<FileOutcome>, BTreeMap<String, i64>), StoreError> {
+        if !prepared.iter().any(Prepared::is_large) {
+            return self.store_together(prepared, lookups, recompute, left);
+        }
+        // The reader's lookups are by place in the whole part, and other writers may
+        // commit between these transactions: each hash is looked up in its transaction.
+        let mut outcomes = Vec::with_capacity(prepared.len());
+        let mut touched: BTreeMap<String, i64> = BTreeMap::new();
+        let mut run: Vec<Prepared> = Vec::new();
+        for p in prepared {
+            if !p.is_large() {
+                run.push(p);
+                continue;
+            }
+            if !run.is_empty() {
+                let (o, t) =
+                    self.store_together(std::mem::take(&mut run), None, recompute, left)?;
+                outcomes.extend(o);
+                touched.extend(t);
+            }
+            let Prepared {
+                facts,
+                result: Ok(Content::Large(large)),
+            } = p
+            else {
+                continue; // is_large said so
+            };
+            let (o, t) = self.store_large_file(facts, large, recompute)?;
+            outcomes.push(o);
+            touched.extend(t);
+        }
+        if !run.is_empty() {
+            let (o, t) = self.store_together(run, None, recompute, left)?;
+            outcomes.extend(o);
+            touched.extend(t);
+        }
+        Ok((outcomes, touched))
+    }
+
+    /// [`Writer::store`] for files of which none is a large export: one transaction.
+    fn store_together(
         &mut self,
         prepared: Vec<Prepared>,
         lookups: Option<&HashLookups>,
@@ -812,14 +943,20 @@ impl<'a> Writer<'a> {
                     error,
                     q.as_deref(),
                 )?,
-                (None, Ok(content)) => store_content(
+                (None, Ok(Content::Rows(parsed))) => store_parsed(
                     &mut w,
-                    (self.cfg, self.actor),
+                    self.actor,
                     facts,
-                    content,
+                    parsed,
                     (&mut in_group, &mut touched),
                     left,
                 )?,
+                (None, Ok(Content::Large(_))) => {
+                    return Err(StoreError::Invalid(format!(
+                        "{}: a large export reached the one-transaction path; expected it stored in parts",
+                        facts.path
+                    )));
+                }
             };
             outcomes.push(outcome);
         }
@@ -827,13 +964,175 @@ impl<'a> Writer<'a> {
         close_notices(&tx, self.cfg, &outcomes)?;
         recompute_or_list(&tx, self.cfg, &touched, recompute)?;
         tx.commit()?;
+        self.committed_with(in_group);
+        log_ingested(&outcomes);
+        Ok((outcomes, touched))
+    }
+
+    /// Count a transaction that ingested `hashes` (the lookups of readers whose snapshot
+    /// came before it find them here).
+    fn committed_with(&mut self, hashes: DigestMap<i64>) {
         self.committed += 1;
-        self.recent.push_back(in_group);
+        self.recent.push_back(hashes);
         if self.recent.len() > RECENT_GROUPS {
             self.recent.pop_front();
         }
+    }
+
+    /// Store a large export in transactions of its own: one that takes its id (or finds
+    /// it in progress, to resume after its last stored chunk), one per chunk of rows (its
+    /// `file-rows` event, provenance, cycles and progress), and one that closes it (its
+    /// `file-ingested` event and row) and recomputes the lots it touched. The write lock
+    /// is free between them. A content ingested before is recorded as a duplicate.
+    fn store_large_file(
+        &mut self,
+        facts: FileFacts,
+        large: LargeExport,
+        recompute: bool,
+    ) -> Result<(FileOutcome, BTreeMap<String, i64>), StoreError> {
+        let Some(mut file) = self.open_large(&facts)? else {
+            return self.duplicate_large(facts);
+        };
+        // The parts commit without waiting for the disk; the closing commit syncs the log
+        // with every part before it. A power cut meanwhile loses only the last parts, each
+        // with its progress, and the file resumes after the last part kept.
+        let full = bulk::full_sync(self.conn)?;
+        bulk::set_full_sync(self.conn, false)?;
+        let stored = self.store_chunks(&facts, &large, &mut file);
+        if full {
+            bulk::set_full_sync(self.conn, true)?;
+        }
+        stored?;
+        drop(large);
+        self.parts.let_others_write();
+        let tx = store::immediate(self.conn)?;
+        let mut w = records::FileWriter::new(&tx)?;
+        let stored = w.end_large(file, &facts, self.actor)?;
+        w.finish()?;
+        let mut touched = BTreeMap::new();
+        for lot in &stored.lots_touched {
+            touched.insert(lot.clone(), stored.event_seq);
+        }
+        warn_conflicts(&facts.path, &stored.conflicts);
+        let mut hashes = DigestMap::default();
+        hashes.insert(facts.sha256.clone(), stored.file_id);
+        let outcomes = vec![FileOutcome::Ingested {
+            path: facts.path,
+            sha256: facts.sha256,
+            stored,
+        }];
+        close_notices(&tx, self.cfg, &outcomes)?;
+        recompute_or_list(&tx, self.cfg, &touched, recompute)?;
+        tx.commit()?;
+        self.committed_with(hashes);
         log_ingested(&outcomes);
-        Ok((outcomes, touched))
+        let outcome = outcomes
+            .into_iter()
+            .next()
+            .ok_or_else(|| StoreError::Invalid("no outcome for the large file".into()))?;
+        Ok((outcome, touched))
+    }
+
+    /// The large file as stored so far: resumed when its content is in progress, begun
+    /// (its id taken) otherwise; None when its content was ingested before.
+    fn open_large(&mut self, facts: &FileFacts) -> Result<Option<records::LargeFile>, StoreError> {
+        let tx = store::immediate(self.conn)?;
+        if records::ingested_file_with_hash(&tx, &facts.sha256)?.is_some() {
+            return Ok(None);
+        }
+        if let Some(file) = records::large_in_progress(&tx, &facts.sha256)? {
+            tracing::info!(path = %facts.path.escape_debug(), file_id = file.file_id(),
+                chunks_done = file.chunks_done(), "resuming a large file after its last stored part");
+            return Ok(Some(file));
+        }
+        let mut w = records::FileWriter::new(&tx)?;
+        let file = w.begin_large(facts, self.parts.rows)?;
+        w.finish()?;
+        tx.commit()?;
+        Ok(Some(file))
+    }
+
+    /// Record a large file whose content was ingested before as a duplicate.
+    fn duplicate_large(
+        &mut self,
+        facts: FileFacts,
+    ) -> Result<(FileOutcome, BTreeMap<String, i64>), StoreError> {
+        let tx = store::immediate(self.conn)?;
+        let of = records::ingested_file_with_hash(&tx, &facts.sha256)?
+            .ok_or_else(|| StoreError::Invalid("the earlier copy vanished".into()))?;
+        let mut w = records::FileWriter::new(&tx)?;
+        w.duplicate(&facts, of, self.actor)?;
+        w.finish()?;
+        tx.commit()?;
+        self.committed_with(DigestMap::default());
+        Ok((
+            FileOutcome::Duplicate {
+                path: facts.path,
+                sha256: facts.sha256,
+                of_file_id: of,
+            },
+            BTreeMap::new(),
+        ))
+    }
+
+    /// Read the large file again in its chunks and store each one not yet stored in a
+    /// transaction of its own; stop between chunks when asked.
+    fn store_chunks(
+        &mut self,
+        facts: &FileFacts,
+        large: &LargeExport,
+        file: &mut records::LargeFile,
+    ) -> Result<(), StoreError> {
+        let profile = self.cfg.profiles.get(&large.profile).ok_or_else(|| {
+            StoreError::Invalid(format!("no export profile named '{}'", large.profile))
+        })?;
+        let mut cache = ParseCache::new();
+        cache.set_now(large.now);
+        let skip = file.chunks_done();
+        let mut chunk = 0i64;
+        let (conn, actor, parts) = (&mut *self.conn, self.actor, &mut *self.parts);
+        let read = cache.parse_in_chunks(&large.bytes, profile, file.chunk_rows(), |rows| {
+            chunk += 1;
+            if chunk <= skip {
+                return Ok(()); // stored before the file was stopped
+            }
+            if parts.stop.as_ref().is_some_and(|s| s.load(Ordering::SeqCst)) {
+                return Err(StoreError::Invalid(format!(
+                    "{}: stopped after {} of its chunks; the rest is stored when it is offered again",
+                    facts.path,
+                    chunk - 1
+                )));
+            }
+            let ParsedFile::Cycles(rows) = rows else {
+                return Err(StoreError::Invalid(
+                    "a lot sheet read as a cycle export".into(),
+                ));
+            };
+            parts.let_others_write();
+            let tx = store::immediate(conn)?;
+            let mut w = records::FileWriter::new(&tx)?;
+            w.large_part(file, facts, &rows, actor)?;
+            w.finish()?;
+            tx.commit()?;
+            if let Some(hook) = parts.after_part.as_mut() {
+                hook(&PartDone {
+                    file_id: file.file_id(),
+                    chunks_done: file.chunks_done(),
+                    parts: file.parts(),
+                });
+            }
+            Ok(())
+        });
+        match read {
+            Ok(_) => Ok(()),
+            Err(ingest::Chunked::Sink(e)) => Err(e),
+            // The first reading found no fault: the same bytes through the same profile and
+            // time cannot have one now.
+            Err(ingest::Chunked::Parse(e)) => Err(StoreError::Invalid(format!(
+                "{}: a second reading differs from the first: {e}",
+                facts.path
+            ))),
+        }
     }
 }
 
@@ -936,68 +1235,6 @@ fn store_parsed(
     };
     left.facts.push(facts);
     Ok(outcome)
-}
-
-/// Store a readable file's records: parsed whole, or a large export chunk by chunk.
-fn store_content(
-    w: &mut records::FileWriter<'_, '_>,
-    (cfg, actor): (&Config, &str),
-    facts: FileFacts,
-    content: Content,
-    seen: (&mut DigestMap<i64>, &mut BTreeMap<String, i64>),
-    left: &mut Leftovers,
-) -> Result<FileOutcome, StoreError> {
-    match content {
-        Content::Rows(parsed) => store_parsed(w, actor, facts, parsed, seen, left),
-        Content::Large(large) => store_large(w, (cfg, actor), facts, large, seen),
-    }
-}
-
-/// Store a large export chunk by chunk (see [`Content::Large`]); its records are the same
-/// as if it had been parsed whole, its values spread over `file-rows` events.
-fn store_large(
-    w: &mut records::FileWriter<'_, '_>,
-    (cfg, actor): (&Config, &str),
-    mut facts: FileFacts,
-    large: LargeExport,
-    (in_group, touched): (&mut DigestMap<i64>, &mut BTreeMap<String, i64>),
-) -> Result<FileOutcome, StoreError> {
-    let profile = cfg.profiles.get(&large.profile).ok_or_else(|| {
-        StoreError::Invalid(format!("no export profile named '{}'", large.profile))
-    })?;
-    let mut file = w.begin_large()?;
-    let mut cache = ParseCache::new();
-    cache.set_now(large.now);
-    let read = cache.parse_in_chunks(&large.bytes, profile, PART_ROWS, |rows| match rows {
-        ParsedFile::Cycles(rows) => w.large_part(&mut file, &facts, &rows, actor),
-        ParsedFile::Lots(_) => Err(StoreError::Invalid(
-            "a lot sheet read as a cycle export".into(),
-        )),
-    });
-    drop(large.bytes);
-    match read {
-        Ok(_) => {}
-        Err(ingest::Chunked::Sink(e)) => return Err(e),
-        // The first reading found no fault: the same bytes through the same profile and
-        // time cannot have one now.
-        Err(ingest::Chunked::Parse(e)) => {
-            return Err(StoreError::Invalid(format!(
-                "{}: a second reading differs from the first: {e}",
-                facts.path
-            )));
-        }
-    }
-    let stored = w.end_large(file, &facts, actor)?;
-    for lot in &stored.lots_touched {
-        touched.insert(lot.clone(), stored.event_seq);
-    }
-    warn_conflicts(&facts.path, &stored.conflicts);
-    in_group.insert(facts.sha256.clone(), stored.file_id);
-    Ok(FileOutcome::Ingested {
-        path: std::mem::take(&mut facts.path),
-        sha256: std::mem::take(&mut facts.sha256),
-        stored,
-    })
 }
 
 /// A warning per conflicting value a file brought.

@@ -47,6 +47,12 @@ pub fn autocheckpoint(conn: &Connection) -> Result<i64> {
 }
 
 /// Commits sync the log (`full`, the default) or leave it to the next sync.
+/// Whether commits sync the log to disk at once (`synchronous` FULL or stronger).
+pub fn full_sync(conn: &Connection) -> Result<bool> {
+    let level: i64 = conn.query_row("PRAGMA synchronous", [], |r| r.get(0))?;
+    Ok(level >= 2)
+}
+
 pub fn set_full_sync(conn: &Connection, full: bool) -> Result<()> {
     conn.pragma_update(None, "synchronous", if full { "FULL" } else { "NORMAL" })?;
     Ok(())

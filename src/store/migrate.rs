@@ -77,6 +77,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "lot_snapshots",
         include_str!("../../schema/0017_lot_snapshots.sql"),
     ),
+    (
+        19,
+        "files_in_progress",
+        include_str!("../../schema/0019_files_in_progress.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

@@ -72,11 +72,17 @@ impl<'c> FileStatements<'c> {
     }
 }
 
-/// A large file while its chunks are stored (see [`FileWriter::begin_large`]).
+/// A large file while its chunks are stored (see [`FileWriter::begin_large`]), each chunk
+/// in a transaction of its own; its progress is kept in `files_in_progress` so that the
+/// file resumes after its last stored chunk when offered again.
 #[derive(Debug)]
 pub struct LargeFile {
-    /// Parts written so far.
+    /// Parts (`file-rows` events) written so far.
     part: i64,
+    /// Chunks of rows stored so far (a chunk that brings nothing new writes no part).
+    chunks_done: i64,
+    /// Rows a chunk holds: a resumed file is read in the chunks it began with.
+    chunk_rows: usize,
     /// The totals so far; `file_id` is the file's.
     out: StoredFile,
 }
@@ -86,6 +92,90 @@ impl LargeFile {
     pub fn file_id(&self) -> i64 {
         self.out.file_id
     }
+
+    /// Chunks of rows stored so far: a resumed file skips these.
+    pub fn chunks_done(&self) -> i64 {
+        self.chunks_done
+    }
+
+    /// Parts (`file-rows` events) written so far.
+    pub fn parts(&self) -> i64 {
+        self.part
+    }
+
+    /// Rows a chunk holds.
+    pub fn chunk_rows(&self) -> usize {
+        self.chunk_rows
+    }
+}
+
+/// The large file with this content whose storing began and did not end, if any.
+pub fn large_in_progress(conn: &rusqlite::Connection, sha256: &str) -> Result<Option<LargeFile>> {
+    let row = conn
+        .prepare_cached(
+            "SELECT file_id, chunks_done, parts, rows_new, rows_known, rows_conflict, lots,
+                 chunk_rows
+             FROM files_in_progress WHERE sha256 = ?1",
+        )?
+        .query_row([sha256], |r| {
+            Ok((
+                LargeFile {
+                    part: r.get(2)?,
+                    chunks_done: r.get(1)?,
+                    chunk_rows: usize::try_from(r.get::<_, i64>(7)?).unwrap_or(1).max(1),
+                    out: StoredFile {
+                        file_id: r.get(0)?,
+                        rows_new: r.get(3)?,
+                        rows_known: r.get(4)?,
+                        rows_conflict: r.get(5)?,
+                        ..Default::default()
+                    },
+                },
+                r.get::<_, String>(6)?,
+            ))
+        })
+        .optional()?;
+    let Some((mut large, lots)) = row else {
+        return Ok(None);
+    };
+    large.out.lots_touched = serde_json::from_str(&lots)?;
+    Ok(Some(large))
+}
+
+/// A large file's progress row was not as this writer left it: another writer (a second
+/// process offered the same content) stores it, and this one stops.
+fn not_in_progress(large: &LargeFile) -> StoreError {
+    StoreError::Invalid(format!(
+        "large file {} is not listed in progress after {} chunks; another writer may be storing it",
+        large.out.file_id, large.chunks_done
+    ))
+}
+
+/// A large file whose storing began and did not end: its id, path and parts so far.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FileInProgress {
+    pub file_id: i64,
+    pub path: String,
+    pub parts: i64,
+    pub chunks_done: i64,
+}
+
+/// Every large file whose storing began and did not end, by id.
+pub fn files_in_progress(conn: &rusqlite::Connection) -> Result<Vec<FileInProgress>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT file_id, path, parts, chunks_done FROM files_in_progress ORDER BY file_id",
+    )?;
+    let rows = stmt
+        .query_map([], |r| {
+            Ok(FileInProgress {
+                file_id: r.get(0)?,
+                path: r.get(1)?,
+                parts: r.get(2)?,
+                chunks_done: r.get(3)?,
+            })
+        })?
+        .collect::<std::result::Result<Vec<_>, _>>()?;
+    Ok(rows)
 }
 
 /// Writes the records of many files in one transaction, as a backfill's writer does:
@@ -133,15 +223,29 @@ impl<'t, 'c> FileWriter<'t, 'c> {
     }
 
     /// Begin storing a large file whose rows come in chunks ([`FileWriter::large_part`],
-    /// then [`FileWriter::end_large`], all in this transaction). Its values go into a run
-    /// of `file-rows` events, one per chunk, so that no payload holds the whole file.
-    pub fn begin_large(&mut self) -> Result<LargeFile> {
-        // The parts' provenance rows name the file before its row is written (last, with
-        // the file's totals): foreign keys are checked at commit instead.
-        self.tx.pragma_update(None, "defer_foreign_keys", "ON")?;
+    /// then [`FileWriter::end_large`], each in this or a later transaction). Its values go
+    /// into a run of `file-rows` events, one per chunk, so that no payload holds the whole
+    /// file; its id is taken now and the file listed in `files_in_progress` until it ends.
+    pub fn begin_large(&mut self, facts: &FileFacts, chunk_rows: usize) -> Result<LargeFile> {
         let file_id = self.ids.take_file(self.tx)?;
+        let chunk_rows = chunk_rows.max(1);
+        self.tx
+            .prepare_cached(
+                "INSERT INTO files_in_progress(file_id, sha256, path, chunk_rows, chunks_done,
+                     parts, started_at)
+                 VALUES (?1, ?2, ?3, ?4, 0, 0, ?5)",
+            )?
+            .execute(params![
+                file_id,
+                facts.sha256,
+                facts.path,
+                chunk_rows as i64,
+                facts.seen_at
+            ])?;
         Ok(LargeFile {
             part: 0,
+            chunks_done: 0,
+            chunk_rows,
             out: StoredFile {
                 file_id,
                 ..Default::default()
@@ -149,10 +253,52 @@ impl<'t, 'c> FileWriter<'t, 'c> {
         })
     }
 
+    /// Record how far a large file is stored (its chunks, parts and totals so far), in
+    /// the transaction that stored its last chunk.
+    fn save_progress(&mut self, large: &LargeFile) -> Result<()> {
+        let out = &large.out;
+        let lots = serde_json::to_string(&out.lots_touched)?;
+        let changed = self
+            .tx
+            .prepare_cached(
+                "UPDATE files_in_progress SET chunks_done = ?2, parts = ?3, rows_new = ?4,
+                     rows_known = ?5, rows_conflict = ?6, lots = ?7,
+                     last_seq = COALESCE(?8, last_seq)
+                 WHERE file_id = ?1 AND chunks_done = ?2 - 1",
+            )?
+            .execute(params![
+                out.file_id,
+                large.chunks_done,
+                large.part,
+                out.rows_new,
+                out.rows_known,
+                out.rows_conflict,
+                lots,
+                (out.event_seq > 0).then_some(out.event_seq),
+            ])?;
+        if changed != 1 {
+            return Err(not_in_progress(large));
+        }
+        Ok(())
+    }
+
     /// Store one chunk of a large file's rows: their new and conflicting values in one
     /// `file-rows` event (none when the chunk brings nothing new), their provenance and
     /// the cycles they change.
     pub fn large_part(
+        &mut self,
+        large: &mut LargeFile,
+        facts: &FileFacts,
+        rows: &[CycleRow],
+        actor: &str,
+    ) -> Result<()> {
+        large.chunks_done += 1;
+        self.large_rows(large, facts, rows, actor)?;
+        self.save_progress(large)
+    }
+
+    /// The rows of one chunk: a `file-rows` event when they bring anything new.
+    fn large_rows(
         &mut self,
         large: &mut LargeFile,
         facts: &FileFacts,
@@ -190,6 +336,7 @@ impl<'t, 'c> FileWriter<'t, 'c> {
         )?;
         self.ids.measurements_to(next_m);
         insert_sources(&mut self.st.source, &new_measurements, seq)?;
+        out.event_seq = seq;
         write_cycles(&mut self.st, &batches, first_new, seq, out)
     }
 
@@ -201,6 +348,7 @@ impl<'t, 'c> FileWriter<'t, 'c> {
         facts: &FileFacts,
         actor: &str,
     ) -> Result<StoredFile> {
+        let chunks_done = large.chunks_done;
         let mut out = large.out;
         let file = ingested_row(out.file_id, facts, &out);
         let seq = append_ingested(
@@ -215,6 +363,20 @@ impl<'t, 'c> FileWriter<'t, 'c> {
         )?;
         out.event_seq = seq;
         insert_file_prepared(&mut self.st.file, &file, seq)?;
+        let listed = self
+            .tx
+            .prepare_cached(
+                "DELETE FROM files_in_progress WHERE file_id = ?1 AND chunks_done = ?2",
+            )?
+            .execute([out.file_id, chunks_done])?;
+        if listed != 1 {
+            return Err(not_in_progress(&LargeFile {
+                part: 0,
+                chunks_done,
+                chunk_rows: 1,
+                out,
+            }));
+        }
         Ok(out)
     }
 
@@ -226,7 +388,11 @@ impl<'t, 'c> FileWriter<'t, 'c> {
 
 fn next_id(tx: &Transaction<'_>, table: &str) -> Result<i64> {
     let sql = match table {
-        "source_files" => "SELECT COALESCE(MAX(id), 0) + 1 FROM source_files",
+        // A large file in progress holds its id before its row exists.
+        "source_files" => {
+            "SELECT MAX(COALESCE((SELECT MAX(id) FROM source_files), 0),
+                        COALESCE((SELECT MAX(file_id) FROM files_in_progress), 0)) + 1"
+        }
         // Measurements live in the event payloads; their ids are counted in `id_counters`.
         "measurements" => "SELECT next FROM id_counters WHERE name = 'measurement'",
         _ => {

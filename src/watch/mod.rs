@@ -110,6 +110,24 @@ pub trait FileSink: Send + Sync + 'static {
     fn recorded(&self, files: &[(&Path, Stamp)]) -> anyhow::Result<Vec<bool>> {
         Ok(vec![false; files.len()])
     }
+
+    /// Files of at least this many bytes go to a lane of their own: a second thread that
+    /// calls [`FileSink::ingest_large`] one file at a time, so that storing one does not
+    /// hold up the small files settling meanwhile (the sink must then take calls from both
+    /// threads at once). None, this default: one lane for every file.
+    fn large_lane_from(&self) -> Option<u64> {
+        None
+    }
+
+    /// Ingests one file offered on the large-file lane (see
+    /// [`FileSink::large_lane_from`]); its result means what [`FileSink::ingest`]'s does.
+    fn ingest_large(&self, folder: &WatchFolder, path: &Path) -> anyhow::Result<()> {
+        self.ingest(folder, path)
+    }
+
+    /// The watcher is stopping: a call in progress should end at its next safe point
+    /// (a large file between two of its parts) rather than run to its end.
+    fn stopping(&self) {}
 }
 
 /// What the watcher did, returned when it stops.

@@ -113,13 +113,7 @@ pub async fn run(
     let stop = Arc::new(AtomicBool::new(false));
     let (job_tx, job_rx) = std::sync::mpsc::channel::<Job>();
     let (done_tx, mut done_rx) = mpsc::unbounded_channel::<Outcome>();
-    {
-        let (sink, folders, stop) = (sink.clone(), folders.clone(), stop.clone());
-        std::thread::Builder::new()
-            .name("turnbook-ingest".into())
-            .spawn(move || worker(job_rx, done_tx, sink, folders, stop))
-            .map_err(WatchError::Worker)?;
-    }
+    start_workers(job_rx, done_tx, &sink, &folders, &stop)?;
 
     let mut state = State::new(folders.clone(), roots.clone(), job_tx);
     let mut catching_up = CatchUp::new(roots.len());
@@ -147,6 +141,7 @@ pub async fn run(
     // Stop taking files: the worker skips queued jobs, the call in progress may finish.
     let shutdown_at = tokio::time::Instant::now();
     stop.store(true, Ordering::SeqCst);
+    sink.stopping();
     state.job_tx = None;
     drop(watchers);
     for scanner in &scanners {
@@ -169,6 +164,40 @@ pub async fn run(
         );
     }
     Ok(state.stats)
+}
+
+/// Start the ingest worker, and the large-file lane's when the sink has one.
+fn start_workers(
+    jobs: std::sync::mpsc::Receiver<Job>,
+    done: mpsc::UnboundedSender<Outcome>,
+    sink: &Arc<dyn FileSink>,
+    folders: &Arc<[WatchFolder]>,
+    stop: &Arc<AtomicBool>,
+) -> Result<(), WatchError> {
+    let large_lane = match sink.large_lane_from() {
+        Some(from) => {
+            let (large_tx, large_rx) = std::sync::mpsc::channel::<Job>();
+            let (sink, folders, stop) = (Arc::clone(sink), Arc::clone(folders), Arc::clone(stop));
+            let done = done.clone();
+            std::thread::Builder::new()
+                .name("turnbook-ingest-large".into())
+                .spawn(move || large_worker(large_rx, done, sink, folders, stop))
+                .map_err(WatchError::Worker)?;
+            Some((from, large_tx))
+        }
+        None => None,
+    };
+    let (sink, folders, stop) = (Arc::clone(sink), Arc::clone(folders), Arc::clone(stop));
+    let lanes = Lanes {
+        jobs,
+        large: large_lane,
+        done,
+    };
+    std::thread::Builder::new()
+        .name("turnbook-ingest".into())
+        .spawn(move || worker(lanes, sink, folders, stop))
+        .map_err(WatchError::Worker)?;
+    Ok(())
 }
 
 /// Whether the start-up catch-up is over: every folder scanned once and every file found
@@ -419,13 +448,16 @@ const MOST_PER_CALL: usize = 200;
 /// it together ([`FileSink::ingest_files`]): a burst for one lot is stored, and the lot
 /// refitted, once per call rather than once per file, so the worker keeps pace however
 /// long a refit takes.
+///
+/// With a large-file lane ([`FileSink::large_lane_from`]), files of that size or more are
+/// passed on to it as they come, and the files after them go on here meanwhile.
 fn worker(
-    jobs: std::sync::mpsc::Receiver<Job>,
-    done: mpsc::UnboundedSender<Outcome>,
+    lanes: Lanes,
     sink: Arc<dyn FileSink>,
     folders: Arc<[WatchFolder]>,
     stop: Arc<AtomicBool>,
 ) {
+    let Lanes { jobs, large, done } = lanes;
     while let Ok(job) = jobs.recv() {
         let mut batch = vec![job];
         while batch.len() < MOST_PER_CALL {
@@ -437,6 +469,7 @@ fn worker(
         if stop.load(Ordering::SeqCst) {
             break;
         }
+        let batch = pass_on_large(batch, large.as_ref());
         let (files, refusals): (Vec<Job>, Vec<Job>) =
             batch.into_iter().partition(|j| j.refusal.is_none());
         let mut outcomes: Vec<Outcome> = refusals
@@ -466,6 +499,54 @@ fn worker(
             if done.send(outcome).is_err() {
                 return;
             }
+        }
+    }
+}
+
+/// The ingest worker's channels: jobs in, the large-file lane (its threshold in bytes
+/// and its jobs) if any, outcomes out.
+struct Lanes {
+    jobs: std::sync::mpsc::Receiver<Job>,
+    large: Option<(u64, std::sync::mpsc::Sender<Job>)>,
+    done: mpsc::UnboundedSender<Outcome>,
+}
+
+/// Send the files of `batch` at least the lane's size to the large-file lane; the rest
+/// stay. A file the lane cannot take (it has ended) stays too.
+fn pass_on_large(batch: Vec<Job>, large: Option<&(u64, std::sync::mpsc::Sender<Job>)>) -> Vec<Job> {
+    let Some((from, lane)) = large else {
+        return batch;
+    };
+    let mut stay = Vec::with_capacity(batch.len());
+    for job in batch {
+        if job.refusal.is_some() || job.stamp.size < *from {
+            stay.push(job);
+            continue;
+        }
+        if let Err(back) = lane.send(job) {
+            stay.push(back.0);
+        }
+    }
+    stay
+}
+
+/// The large-file lane: one file at a time, each in its own sink call.
+fn large_worker(
+    jobs: std::sync::mpsc::Receiver<Job>,
+    done: mpsc::UnboundedSender<Outcome>,
+    sink: Arc<dyn FileSink>,
+    folders: Arc<[WatchFolder]>,
+    stop: Arc<AtomicBool>,
+) {
+    while let Ok(job) = jobs.recv() {
+        if stop.load(Ordering::SeqCst) {
+            break;
+        }
+        let result = call_sink(&folders, job.root, || {
+            sink.ingest_large(&folders[job.root], &job.path)
+        });
+        if done.send(Outcome { job, result }).is_err() {
+            return;
         }
     }
 }
@@ -910,5 +991,51 @@ mod tests {
         });
         advance(&mut state);
         assert_eq!(jobs.try_recv().unwrap().stamp.size, 8);
+    }
+
+    fn job(name: &str, size: u64, refusal: Option<&str>) -> Job {
+        Job {
+            root: 0,
+            path: PathBuf::from(name),
+            key: PathBuf::from(name),
+            stamp: Stamp {
+                size,
+                modified: None,
+            },
+            refusal: refusal.map(str::to_string),
+        }
+    }
+
+    #[test]
+    fn files_from_the_lane_size_go_to_the_large_lane_in_order() {
+        let (lane, large) = std::sync::mpsc::channel();
+        let batch = vec![
+            job("a.csv", 10, None),
+            job("big-1.csv", 1 << 20, None),
+            job("pipe", 1 << 21, Some("a named pipe")),
+            job("b.csv", (1 << 20) - 1, None),
+            job("big-2.csv", 5 << 20, None),
+        ];
+        let stay = pass_on_large(batch, Some(&(1 << 20, lane)));
+        let names = |jobs: &[Job]| -> Vec<String> {
+            jobs.iter().map(|j| j.path.display().to_string()).collect()
+        };
+        assert_eq!(names(&stay), ["a.csv", "pipe", "b.csv"]);
+        let passed: Vec<Job> = large.try_iter().collect();
+        assert_eq!(names(&passed), ["big-1.csv", "big-2.csv"]);
+        // Without a lane, or with one that has ended, every file stays.
+        assert_eq!(
+            pass_on_large(vec![job("c.csv", 9 << 20, None)], None).len(),
+            1
+        );
+        let (gone, ended) = std::sync::mpsc::channel();
+        drop(ended);
+        assert_eq!(
+            names(&pass_on_large(
+                vec![job("d.csv", 9 << 20, None)],
+                Some(&(1, gone))
+            )),
+            ["d.csv"]
+        );
     }
 }

@@ -7,10 +7,12 @@
 Writes an invented export of ROWS rows (default 200,000: one lot, one batch a row, about
 14 MB) and a one-row export of another lot into DIR/staging once. Each round starts each
 BIN in turn (alternating, on this noisy machine) as `BIN watch` on an empty database with a
-polled folder, registers the small file's lot (and the large one's with REGISTER_LARGE=1), moves the large export in, moves the small file in
-0.5 s later, and waits until both are recorded. Prints, per run: the large file's time
+polled folder, registers the small file's lot (and the large one's with REGISTER_LARGE=1),
+moves the large export in, moves the small file in 0.5 s later (SMALL_AFTER seconds), and
+waits until both are recorded. Prints, per run: the large file's time
 from its drop to its record's commit, the service's peak RSS (VmHWM from /proc), and the
-small file's latency from its drop to its record. Then the medians per binary.
+small file's latency from its drop to its record, and the load average after the run.
+Then the medians per binary.
 Standard library only.
 """
 import math
@@ -76,6 +78,10 @@ transport = "file"
 dir = "{db}/outbox"
 from = "bench@plant.example"
 """
+
+# Seconds between the large file's drop and the small one's (SMALL_AFTER=2 lands it while
+# the large file's parts are being stored).
+SMALL_AFTER = float(os.environ.get("SMALL_AFTER", "0.5"))
 
 HEADER = ("Batch,Lot,Cycle,Started,Time (min),T (degC),Conversion (%),Selectivity (%),"
           "Substrate (mol),Catalyst (g),Product (g)\n")
@@ -163,7 +169,7 @@ def run_once(binary, dirname, staging, big, small):
         shutil.copyfile(small, os.path.join(batches, "small.csv.part"))
         t_big = time.time()
         os.rename(os.path.join(batches, "large.csv.part"), os.path.join(batches, "large.csv"))
-        time.sleep(0.5)
+        time.sleep(SMALL_AFTER)
         t_small = time.time()
         os.rename(os.path.join(batches, "small.csv.part"), os.path.join(batches, "small.csv"))
         done_small, out_small = wait_for(dbfile, "small.csv", time.time() + 600)
@@ -198,8 +204,8 @@ def main():
             x = run_once(b, dirname, staging, big, small)
             results[b].append(x)
             print(f"round {r + 1} {b}: large {x['large_s']:.2f} s ({x['large']}), peak RSS "
-                  f"{x['rss_mb']:.1f} MB, small file {x['small_s']:.2f} s ({x['small']})",
-                  flush=True)
+                  f"{x['rss_mb']:.1f} MB, small file {x['small_s']:.2f} s ({x['small']}), "
+                  f"load {os.getloadavg()[0]:.1f}", flush=True)
     for b, xs in results.items():
         med = {k: statistics.median(x[k] for x in xs) for k in ("large_s", "rss_mb", "small_s")}
         print(f"median of {len(xs)} {b}: large {med['large_s']:.2f} s, peak RSS "

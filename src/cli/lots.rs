@@ -12,15 +12,15 @@ use crate::notebook::{
 
 /// `turnbook lots`.
 pub fn lots(cfg: &Config, json: bool) -> CmdResult {
-    let lines = lot_lines(cfg)?;
     if json {
-        // The same document `print_json` prints, written as it is serialised.
+        // The document `print_json` would print, from each lot's entry as kept printed.
+        let listing = crate::notebook::lots_listing(cfg)?;
         let mut out = std::io::BufWriter::new(std::io::stdout().lock());
-        serde_json::to_writer_pretty(&mut out, &crate::notebook::lot_lines_json(&lines))?;
-        writeln!(out)?;
-        std::io::Write::flush(&mut out)?;
+        crate::notebook::write_lots_json(&mut out, &listing)?;
+        out.flush()?;
         return Ok(0);
     }
+    let lines = lot_lines(cfg)?;
     if lines.is_empty() {
         println!(
             "no lots yet: register one (`turnbook register`) or drop a lot sheet into a watched folder"

@@ -571,24 +571,183 @@ fn current_lines(conn: &Connection, cfg: &Config) -> Result<Vec<LotLine>> {
     let today = today(cfg);
     let mut lines = Vec::new();
     for lot in store::lots::lot_names(conn)? {
-        let kept = stored
-            .remove(&lot)
-            .flatten()
-            .and_then(|json| serde_json::from_str::<LotLine>(&json).ok());
-        let line = match kept {
-            Some(mut line) => {
-                if let Some(serde_json::Value::Object(f)) = line.forecast.as_mut()
-                    && f.contains_key("as_of")
-                {
-                    f.insert("as_of".into(), serde_json::Value::String(today.clone()));
-                }
-                line
-            }
-            None => lot_line(&lot_state(conn, cfg, &lot)?),
-        };
-        lines.push(line);
+        let kept = stored.remove(&lot).flatten();
+        lines.push(line_of(conn, cfg, &lot, kept, &today)?);
     }
     Ok(lines)
+}
+
+/// A lot's line as the list shows it: its stored line (`stored`, the state's JSON) with
+/// the forecast's `as_of` made `today`, or, with none usable, computed now.
+fn line_of(
+    conn: &Connection,
+    cfg: &Config,
+    lot: &str,
+    stored: Option<String>,
+    today: &str,
+) -> Result<LotLine> {
+    let kept = stored.and_then(|json| serde_json::from_str::<LotLine>(&json).ok());
+    Ok(match kept {
+        Some(mut line) => {
+            if let Some(serde_json::Value::Object(f)) = line.forecast.as_mut()
+                && f.contains_key("as_of")
+            {
+                f.insert("as_of".into(), serde_json::Value::String(today.to_string()));
+            }
+            line
+        }
+        None => lot_line(&lot_state(conn, cfg, lot)?),
+    })
+}
+
+/// One entry of the lot list: its printed form kept with its state, or a line built or
+/// read now (a lot whose printed form is missing or was made by other code).
+#[derive(Debug)]
+pub enum ListedLot {
+    Printed { lot: String, printed: super::export::PrintedLine },
+    Line(LotLine),
+}
+
+/// What `lots --json` prints, in order, with what is filled in at read time.
+#[derive(Debug)]
+pub struct LotsListing {
+    pub entries: Vec<ListedLot>,
+    /// Today's plant-local date: the forecasts' `as_of`.
+    pub today: String,
+    /// The lots' sign-offs, for the printed entries (a built line carries its own).
+    pub signoffs: std::collections::BTreeMap<String, crate::model::signoff::SignOffState>,
+}
+
+
+/// `lots --json`: each lot's entry as kept in its printed form beside its current state
+/// (read, not parsed), or, for a lot with none usable, its line as [`lot_lines`] makes
+/// it. The bytes printed are the same either way.
+pub fn lots_listing(cfg: &Config) -> NResult<LotsListing> {
+    let conn = store::open(&cfg.database_path())?;
+    let fingerprint = cfg.analysis_fingerprint();
+    let version = (fit::ENGINE_VERSION, fingerprint.as_str());
+    let mut printed =
+        store::lots::printed_lines(&conn, version, super::export::printed_form())?;
+    let mut signoffs = super::signoffs::sign_off_states(&conn)?;
+    let today = today(cfg);
+    let mut entries = Vec::new();
+    for lot in store::lots::lot_names(&conn)? {
+        if let Some((head, tail)) = printed.remove(&lot) {
+            let printed = super::export::PrintedLine { head, tail };
+            entries.push(ListedLot::Printed { lot, printed });
+            continue;
+        }
+        let stored = store::lots::current_state_of(&conn, version, store::lots::StatePart::Line, &lot)?;
+        let mut line = line_of(&conn, cfg, &lot, stored.flatten(), &today)?;
+        if let Some(s) = signoffs.remove(&lot) {
+            line.signoff = s;
+        }
+        entries.push(ListedLot::Line(line));
+    }
+    Ok(LotsListing {
+        entries,
+        today,
+        signoffs,
+    })
+}
+
+/// Keep the printed entry of a lot's stored line (`line_json`, as the state just stored
+/// in `tx` holds it) beside that state. Printed from the line as read back, so that the
+/// entry is what the list would print from the stored state; nothing is kept when the
+/// line cannot be cut for the read-time parts (the list then prints the line).
+pub(crate) fn keep_printed_line(
+    tx: &store::Transaction<'_>,
+    lot: &str,
+    line_json: &str,
+) -> Result<()> {
+    let Some(p) = serde_json::from_str::<LotLine>(line_json)
+        .ok()
+        .and_then(super::export::printed_line)
+    else {
+        return Ok(());
+    };
+    let form = super::export::printed_form();
+    store::lots::store_printed(tx, lot, form, (&p.head, p.tail.as_deref()))
+}
+
+/// Keep the printed entries of current states that have none by this build's printing
+/// code (a store from before they were kept, or printed by another build): once, at the
+/// writer's open, in one transaction. Returns how many were kept.
+pub fn fill_printed_lines(conn: &mut Connection, cfg: &Config) -> Result<usize> {
+    let fingerprint = cfg.analysis_fingerprint();
+    let version = (fit::ENGINE_VERSION, fingerprint.as_str());
+    let form = super::export::printed_form();
+    if store::lots::lines_to_print(conn, version, form)?.is_empty() {
+        return Ok(0);
+    }
+    // Read again under the write lock: a state stored meanwhile keeps its own entry.
+    let tx = store::immediate(conn)?;
+    let todo = store::lots::lines_to_print(&tx, version, form)?;
+    for (lot, line) in &todo {
+        keep_printed_line(&tx, lot, line)?;
+    }
+    tx.commit()?;
+    Ok(todo.len())
+}
+
+/// The lot's kept printed entry (what `lots --json` prints) against the entry printed
+/// from its stored line made after event `after_seq` (which `verify` checks against the
+/// records): the first difference is a finding in table `lot_printed`. Entries another
+/// build printed, or of another state, are not read by the list and not checked.
+pub(crate) fn printed_finding(
+    conn: &Connection,
+    lot: &str,
+    after_seq: i64,
+    fingerprint: &str,
+) -> Result<Option<crate::audit::Finding>> {
+    let key = (fit::ENGINE_VERSION, fingerprint);
+    let Some((form, engine, config, head, tail)) = store::lots::printed_of(conn, lot)? else {
+        return Ok(None);
+    };
+    if form != super::export::printed_form() || (engine.as_str(), config.as_str()) != key {
+        return Ok(None);
+    }
+    let Some(json) = store::lots::stored_line(conn, lot, after_seq, key)? else {
+        return Ok(None);
+    };
+    let expected = serde_json::from_str::<LotLine>(&json)
+        .ok()
+        .and_then(super::export::printed_line);
+    let (want_head, want_tail) = match &expected {
+        Some(p) => (p.head.as_str(), p.tail.as_deref()),
+        None => ("", None),
+    };
+    let differing = [
+        ("head", Some(head.as_str()), Some(want_head)),
+        ("tail", tail.as_deref(), want_tail),
+    ]
+    .into_iter()
+    .find(|(_, a, b)| a != b);
+    Ok(differing.map(|(field, stored, want)| crate::audit::Finding {
+        table: "lot_printed".into(),
+        row: lot.to_string(),
+        field: field.into(),
+        stored: first_differing_line(stored.unwrap_or("(none)"), want.unwrap_or("(none)")),
+        expected: format!(
+            "{} (printed from the stored line)",
+            first_differing_line(want.unwrap_or("(none)"), stored.unwrap_or("(none)"))
+        ),
+    }))
+}
+
+/// The line of `a` (trimmed) where it first differs from `b`.
+fn first_differing_line(a: &str, b: &str) -> String {
+    let mut at = a
+        .bytes()
+        .zip(b.bytes())
+        .position(|(x, y)| x != y)
+        .unwrap_or(a.len().min(b.len()));
+    while !a.is_char_boundary(at) {
+        at -= 1;
+    }
+    let start = a[..at].rfind('\n').map_or(0, |i| i + 1);
+    let end = a[at..].find('\n').map_or(a.len(), |i| at + i);
+    a[start..end].trim().to_string()
 }
 
 /// The plant-local date of today, as forecasts' dates are worked out on.

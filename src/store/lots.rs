@@ -378,6 +378,10 @@ pub fn store_state(
         .execute(rusqlite::params![lot, snapshot_json])?;
     tx.prepare_cached("DELETE FROM lots_to_recompute WHERE lot = ?1")?
         .execute([lot])?;
+    // The printed entry of the state replaced goes with it (0018): one is kept again only
+    // by [`store_printed`], so an entry never outlives its state.
+    tx.prepare_cached("DELETE FROM lot_printed WHERE lot = ?1")?
+        .execute([lot])?;
     Ok(())
 }
 
@@ -556,4 +560,85 @@ impl LotIndex {
     pub fn without_cycles(&self) -> impl Iterator<Item = &String> {
         self.registered.difference(&self.with_cycles)
     }
+}
+
+/// Keep a lot's `lots --json` entry in its printed form (`head`, `tail`: see
+/// `notebook::export::PrintedLine`), made by the printing code `form`, beside the state
+/// [`store_state`] just stored in this transaction: the row takes what that state was made
+/// by, and is used only while the state is.
+pub fn store_printed(
+    tx: &Transaction<'_>,
+    lot: &str,
+    form: &str,
+    (head, tail): (&str, Option<&str>),
+) -> Result<()> {
+    tx.prepare_cached(
+        "INSERT OR REPLACE INTO lot_printed(lot, engine_version, config_sha256, form, head, tail)
+         SELECT lot, engine_version, config_sha256, ?2, ?3, ?4 FROM lot_states WHERE lot = ?1",
+    )?
+    .execute(rusqlite::params![lot, form, head, tail])?;
+    Ok(())
+}
+
+/// A printed entry as stored: its `head` and `tail`.
+pub type PrintedParts = (String, Option<String>);
+
+/// The printed entries of the states [`current_states`] would give, made by the printing
+/// code `form`, by lot.
+pub fn printed_lines(
+    conn: &Connection,
+    (engine_version, config_sha256): (&str, &str),
+    form: &str,
+) -> Result<HashMap<String, PrintedParts>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT p.lot, p.head, p.tail FROM lot_printed p
+         WHERE p.engine_version = ?1 AND p.config_sha256 = ?2 AND p.form = ?3
+           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = p.lot)",
+    )?;
+    let rows = stmt
+        .query_map([engine_version, config_sha256, form], |r| {
+            Ok((r.get(0)?, (r.get(1)?, r.get(2)?)))
+        })?
+        .collect::<std::result::Result<_, _>>()?;
+    Ok(rows)
+}
+
+/// One lot's printed entry as stored, whatever made it (`verify` compares it with the
+/// entry printed from its stored line): (form, engine version, settings, head, tail).
+pub fn printed_of(
+    conn: &Connection,
+    lot: &str,
+) -> Result<Option<(String, String, String, String, Option<String>)>> {
+    Ok(conn
+        .prepare_cached(
+            "SELECT form, engine_version, config_sha256, head, tail FROM lot_printed
+             WHERE lot = ?1",
+        )?
+        .query_row([lot], |r| {
+            Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?, r.get(4)?))
+        })
+        .optional()?)
+}
+
+/// The stored lines of the current states (as [`current_states`] gives them) with no
+/// printed entry by the printing code `form`: a store from before printed entries were
+/// kept, or from a build that printed otherwise. By lot.
+pub fn lines_to_print(
+    conn: &Connection,
+    (engine_version, config_sha256): (&str, &str),
+    form: &str,
+) -> Result<Vec<(String, String)>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT s.lot, s.line FROM lot_states s
+         WHERE s.engine_version = ?1 AND s.config_sha256 = ?2
+           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = s.lot)
+           AND NOT EXISTS (SELECT 1 FROM lot_printed p WHERE p.lot = s.lot AND p.form = ?3
+               AND p.engine_version = s.engine_version AND p.config_sha256 = s.config_sha256)",
+    )?;
+    let rows = stmt
+        .query_map([engine_version, config_sha256, form], |r| {
+            Ok((r.get(0)?, r.get(1)?))
+        })?
+        .collect::<std::result::Result<_, _>>()?;
+    Ok(rows)
 }

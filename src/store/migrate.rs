@@ -77,6 +77,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "lot_snapshots",
         include_str!("../../schema/0017_lot_snapshots.sql"),
     ),
+    (
+        18,
+        "printed_lines",
+        include_str!("../../schema/0018_printed_lines.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

@@ -10,7 +10,7 @@ use common::run;
 use std::path::{Path, PathBuf};
 
 use turnbook::config::Config;
-use turnbook::notebook::{ListedLot, lot_lines, lots_listing, with_schema};
+use turnbook::notebook::{ListedFrom, lot_lines, with_schema, write_lots_json};
 
 fn demo() -> (tempfile::TempDir, PathBuf) {
     let tmp = tempfile::tempdir().unwrap();
@@ -41,15 +41,10 @@ fn ok(dir: &Path, code: i32, args: &[&str]) -> String {
     text
 }
 
-/// How many of the listing's entries are kept printed, and how many in all.
+/// How `lots --json` prints its entries now: (kept printed, printed from lines).
 fn kept(cfg: &Config) -> (usize, usize) {
-    let listing = lots_listing(cfg).unwrap();
-    let printed = listing
-        .entries
-        .iter()
-        .filter(|e| matches!(e, ListedLot::Printed { .. }))
-        .count();
-    (printed, listing.entries.len())
+    let ListedFrom { kept, lines } = write_lots_json(cfg, std::io::sink()).unwrap();
+    (kept, kept + lines)
 }
 
 #[test]

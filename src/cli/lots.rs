@@ -14,9 +14,8 @@ use crate::notebook::{
 pub fn lots(cfg: &Config, json: bool) -> CmdResult {
     if json {
         // The document `print_json` would print, from each lot's entry as kept printed.
-        let listing = crate::notebook::lots_listing(cfg)?;
-        let mut out = std::io::BufWriter::new(std::io::stdout().lock());
-        crate::notebook::write_lots_json(&mut out, &listing)?;
+        let mut out = std::io::BufWriter::with_capacity(1 << 16, std::io::stdout().lock());
+        crate::notebook::write_lots_json(cfg, &mut out)?;
         out.flush()?;
         return Ok(0);
     }

@@ -366,41 +366,75 @@ fn probe_line() -> super::lots::LotLine {
     }
 }
 
-/// Write `lots --json` (the array, and a line end): the same bytes as serialising every
-/// lot's line (see the test `a_printed_entry_splices_to_the_entry_printed_whole`).
-pub fn write_lots_json<W: std::io::Write>(
-    out: &mut W,
-    listing: &super::lots::LotsListing,
-) -> std::result::Result<(), serde_json::Error> {
-    if listing.entries.is_empty() {
-        out.write_all(b"[]\n").map_err(serde_json::Error::io)?;
-        return Ok(());
+/// Writes `lots --json` entry by entry: the same bytes as serialising every lot's line
+/// whole (see the test `a_printed_entry_splices_to_the_entry_printed_whole`), from kept
+/// printed entries ([`Self::printed`]) or from lines ([`Self::line`]).
+pub struct LotsJsonWriter<W: std::io::Write> {
+    out: W,
+    entries: usize,
+    /// Today's plant-local date as JSON: the forecasts' `as_of`.
+    today: String,
+    /// The printed "none" sign-off, the usual one.
+    unsigned: String,
+}
+
+impl<W: std::io::Write> LotsJsonWriter<W> {
+    pub fn new(out: W, today: &str) -> std::result::Result<Self, serde_json::Error> {
+        Ok(LotsJsonWriter {
+            out,
+            entries: 0,
+            today: serde_json::to_string(today)?,
+            unsigned: signoff_text(&crate::model::signoff::SignOffState::none())?,
+        })
     }
-    let today = serde_json::to_string(&listing.today)?;
-    let unsigned = signoff_text(&crate::model::signoff::SignOffState::none())?;
-    let mut write = |bytes: &str| out.write_all(bytes.as_bytes()).map_err(serde_json::Error::io);
-    write("[\n")?;
-    for (i, e) in listing.entries.iter().enumerate() {
-        if i > 0 {
-            write(",\n")?;
-        }
-        match e {
-            super::lots::ListedLot::Printed { lot, printed } => {
-                write(&printed.head)?;
-                if let Some(tail) = &printed.tail {
-                    write(&today)?;
-                    write(tail)?;
-                }
-                match listing.signoffs.get(lot) {
-                    Some(s) => write(&signoff_text(s)?)?,
-                    None => write(&unsigned)?,
-                }
-                write(PRINTED_END)?;
+
+    fn put(&mut self, bytes: &str) -> std::io::Result<()> {
+        self.out.write_all(bytes.as_bytes())
+    }
+
+    fn separate(&mut self) -> std::io::Result<()> {
+        self.entries += 1;
+        self.put(if self.entries == 1 { "[\n" } else { ",\n" })
+    }
+
+    /// A kept printed entry ([`PrintedLine`]'s parts as stored) with the lot's sign-off.
+    pub fn printed(
+        &mut self,
+        head: &str,
+        tail: Option<&str>,
+        signoff: Option<&crate::model::signoff::SignOffState>,
+    ) -> std::result::Result<(), serde_json::Error> {
+        self.separate().map_err(serde_json::Error::io)?;
+        let signed = signoff.map(signoff_text).transpose()?;
+        let mut write = || -> std::io::Result<()> {
+            self.out.write_all(head.as_bytes())?;
+            if let Some(tail) = tail {
+                self.out.write_all(self.today.as_bytes())?;
+                self.out.write_all(tail.as_bytes())?;
             }
-            super::lots::ListedLot::Line(line) => write(&entry_text(line)?)?,
-        }
+            let signoff = signed.as_deref().unwrap_or(self.unsigned.as_str());
+            self.out.write_all(signoff.as_bytes())?;
+            self.out.write_all(PRINTED_END.as_bytes())
+        };
+        write().map_err(serde_json::Error::io)
     }
-    write("\n]\n")
+
+    /// A line as the list shows it (its `as_of` and sign-off already in).
+    pub fn line(
+        &mut self,
+        line: &super::lots::LotLine,
+    ) -> std::result::Result<(), serde_json::Error> {
+        self.separate().map_err(serde_json::Error::io)?;
+        let text = entry_text(line)?;
+        self.put(&text).map_err(serde_json::Error::io)
+    }
+
+    /// Close the array (with a line end) and hand the output back.
+    pub fn finish(mut self) -> std::result::Result<W, serde_json::Error> {
+        let end = if self.entries == 0 { "[]\n" } else { "\n]\n" };
+        self.put(end).map_err(serde_json::Error::io)?;
+        Ok(self.out)
+    }
 }
 
 /// Significant digits of a measured value as exported: enough for any instrument, few
@@ -770,7 +804,7 @@ mod lot_line_json_tests {
     use super::*;
     use crate::fit;
     use crate::model::signoff::{SignOffMark, SignOffState, SignOffStatus};
-    use crate::notebook::lots::{ListedLot, LotLine, LotsListing};
+    use crate::notebook::lots::LotLine;
 
     /// A line with every part filled: a forecast, a next batch, a sign-off with its mark.
     fn full_line() -> LotLine {
@@ -895,46 +929,27 @@ mod lot_line_json_tests {
             .collect();
         let expected =
             serde_json::to_string_pretty(&with_schema(&reference).unwrap()).unwrap() + "\n";
-        // Kept printed (each cut from the stored line), one line built as the fallback.
-        let mut entries = Vec::new();
-        for (i, l) in lines().into_iter().enumerate() {
-            if i == 1 {
-                let s = signoffs.get(&l.lot).unwrap_or(&none).clone();
-                entries.push(ListedLot::Line(shown(l, today, &s)));
-                continue;
+        // Kept printed (each cut from the stored line), the second printed from its line
+        // (the fallback); then every entry kept.
+        for fallback in [Some(1), None] {
+            let mut w = LotsJsonWriter::new(Vec::new(), today).unwrap();
+            for (i, l) in lines().into_iter().enumerate() {
+                let signoff = signoffs.get(&l.lot);
+                if Some(i) == fallback {
+                    w.line(&shown(l, today, signoff.unwrap_or(&none))).unwrap();
+                    continue;
+                }
+                let p = printed_line(stored(l)).expect("a line with no mark in it is cut");
+                assert_eq!(p.tail.is_some(), i == 0, "only the first has a dated forecast");
+                w.printed(&p.head, p.tail.as_deref(), signoff).unwrap();
             }
-            let lot = l.lot.clone();
-            let printed = printed_line(stored(l)).expect("a line with no mark in it is cut");
-            entries.push(ListedLot::Printed { lot, printed });
+            let out = w.finish().unwrap();
+            assert_eq!(String::from_utf8(out).unwrap(), expected);
         }
-        assert!(matches!(&entries[0], ListedLot::Printed { printed, .. } if printed.tail.is_some()));
-        assert!(matches!(&entries[2], ListedLot::Printed { printed, .. } if printed.tail.is_none()));
-        let listing = LotsListing {
-            entries,
-            today: today.into(),
-            signoffs,
-        };
-        let mut out = Vec::new();
-        write_lots_json(&mut out, &listing).unwrap();
-        assert_eq!(String::from_utf8(out).unwrap(), expected);
-        // Every entry kept printed, and none.
-        let all: Vec<ListedLot> = lines()
-            .into_iter()
-            .map(|l| ListedLot::Printed {
-                lot: l.lot.clone(),
-                printed: printed_line(stored(l)).unwrap(),
-            })
-            .collect();
-        let mut out = Vec::new();
-        let listing = LotsListing { entries: all, ..listing };
-        write_lots_json(&mut out, &listing).unwrap();
-        assert_eq!(String::from_utf8(out).unwrap(), expected);
-        let empty = LotsListing {
-            entries: Vec::new(),
-            ..listing
-        };
-        let mut out = Vec::new();
-        write_lots_json(&mut out, &empty).unwrap();
+        let out = LotsJsonWriter::new(Vec::new(), today)
+            .unwrap()
+            .finish()
+            .unwrap();
         let reference = serde_json::to_string_pretty(&with_schema(&Vec::<LotLine>::new()).unwrap());
         assert_eq!(String::from_utf8(out).unwrap(), reference.unwrap() + "\n");
     }

@@ -600,55 +600,56 @@ fn line_of(
     })
 }
 
-/// One entry of the lot list: its printed form kept with its state, or a line built or
-/// read now (a lot whose printed form is missing or was made by other code).
-#[derive(Debug)]
-pub enum ListedLot {
-    Printed { lot: String, printed: super::export::PrintedLine },
-    Line(LotLine),
+/// How `lots --json` printed its entries.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct ListedFrom {
+    /// Entries streamed as kept printed beside the lots' states.
+    pub kept: usize,
+    /// Entries printed from a line read or computed now (no usable kept entry).
+    pub lines: usize,
 }
 
-/// What `lots --json` prints, in order, with what is filled in at read time.
-#[derive(Debug)]
-pub struct LotsListing {
-    pub entries: Vec<ListedLot>,
-    /// Today's plant-local date: the forecasts' `as_of`.
-    pub today: String,
-    /// The lots' sign-offs, for the printed entries (a built line carries its own).
-    pub signoffs: std::collections::BTreeMap<String, crate::model::signoff::SignOffState>,
-}
-
-
-/// `lots --json`: each lot's entry as kept in its printed form beside its current state
-/// (read, not parsed), or, for a lot with none usable, its line as [`lot_lines`] makes
-/// it. The bytes printed are the same either way.
-pub fn lots_listing(cfg: &Config) -> NResult<LotsListing> {
+/// Write `lots --json` to `out`: each lot's entry as kept printed beside its current
+/// state, streamed as stored (not parsed), or, for a lot with none usable, its line as
+/// [`lot_lines`] makes it. The bytes are the same either way.
+pub fn write_lots_json<W: std::io::Write>(cfg: &Config, out: W) -> NResult<ListedFrom> {
     let conn = store::open(&cfg.database_path())?;
+    store::lots::map_for_listing(&conn)?;
     let fingerprint = cfg.analysis_fingerprint();
     let version = (fit::ENGINE_VERSION, fingerprint.as_str());
-    let mut printed =
-        store::lots::printed_lines(&conn, version, super::export::printed_form())?;
-    let mut signoffs = super::signoffs::sign_off_states(&conn)?;
+    let signoffs = super::signoffs::sign_off_states(&conn)?;
     let today = today(cfg);
-    let mut entries = Vec::new();
-    for lot in store::lots::lot_names(&conn)? {
-        if let Some((head, tail)) = printed.remove(&lot) {
-            let printed = super::export::PrintedLine { head, tail };
-            entries.push(ListedLot::Printed { lot, printed });
-            continue;
+    let names = store::lots::lot_names(&conn)?;
+    let mut names = names.iter().peekable();
+    let mut w = super::export::LotsJsonWriter::new(out, &today)?;
+    let mut from = ListedFrom::default();
+    // A lot with no usable kept entry: its line, printed whole.
+    let mut line_entry = |w: &mut super::export::LotsJsonWriter<W>, lot: &str| -> NResult<()> {
+        let stored = store::lots::current_state_of(&conn, version, store::lots::StatePart::Line, lot)?;
+        let mut line = line_of(&conn, cfg, lot, stored.flatten(), &today)?;
+        if let Some(s) = signoffs.get(lot) {
+            line.signoff = s.clone();
         }
-        let stored = store::lots::current_state_of(&conn, version, store::lots::StatePart::Line, &lot)?;
-        let mut line = line_of(&conn, cfg, &lot, stored.flatten(), &today)?;
-        if let Some(s) = signoffs.remove(&lot) {
-            line.signoff = s;
+        from.lines += 1;
+        Ok(w.line(&line)?)
+    };
+    // Both in lot order: the kept entries are merged into the names.
+    let form = super::export::printed_form();
+    store::lots::each_printed(&conn, version, form, |lot, head, tail| -> NResult<()> {
+        while let Some(name) = names.next_if(|n| n.as_str() < lot) {
+            line_entry(&mut w, name)?;
         }
-        entries.push(ListedLot::Line(line));
+        if names.next_if(|n| n.as_str() == lot).is_some() {
+            w.printed(head, tail, signoffs.get(lot))?;
+            from.kept += 1;
+        }
+        Ok(())
+    })?;
+    for name in names {
+        line_entry(&mut w, name)?;
     }
-    Ok(LotsListing {
-        entries,
-        today,
-        signoffs,
-    })
+    w.finish()?;
+    Ok(from)
 }
 
 /// Keep the printed entry of a lot's stored line (`line_json`, as the state just stored

@@ -58,8 +58,8 @@ pub use entries::{
 pub use entries::{SignOffRequest, sign_off_from};
 pub use error::{NotebookError, Result};
 pub use export::lot_lines_json;
-pub use export::{PrintedLine, write_lots_json};
-pub use lots::{ListedLot, LotsListing, lots_listing};
+pub use export::{LotsJsonWriter, PrintedLine};
+pub use lots::{ListedFrom, write_lots_json};
 pub use export::{
     Cell, EXPORT_SCHEMA, ExportError, JSON_SCHEMA, NameKind, cells, closest, export_lines,
     round_sig, suggest_name, with_schema, write_csv, write_jsonl,

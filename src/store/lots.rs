@@ -580,27 +580,52 @@ pub fn store_printed(
     Ok(())
 }
 
-/// A printed entry as stored: its `head` and `tail`.
-pub type PrintedParts = (String, Option<String>);
+/// Bytes of the database a listing maps into memory (SQLite caps it at its own maximum).
+const LISTING_MAP_BYTES: i64 = 1 << 31;
+
+/// Let a read-only listing read the database's pages through a memory map instead of
+/// copying each into SQLite's page cache: `lots --json` at 1,000 lots read 172 pages
+/// (2.7 MB) through as many reads and freshly touched cache memory, the largest part of
+/// its cost that grew with the lots (SQLite's documentation, "Memory-Mapped I/O"). The
+/// documented risk, a crash rather than an error on a failing disk, costs a command that
+/// writes nothing no data; the writer and the service keep ordinary reads.
+pub fn map_for_listing(conn: &Connection) -> Result<()> {
+    conn.pragma_update(None, "mmap_size", LISTING_MAP_BYTES)?;
+    Ok(())
+}
 
 /// The printed entries of the states [`current_states`] would give, made by the printing
-/// code `form`, by lot.
-pub fn printed_lines(
+/// code `form`, handed to `each` as (lot, head, tail) in lot order (that of
+/// [`lot_names`]) as they are read, without a copy.
+pub fn each_printed<E: From<super::StoreError>>(
     conn: &Connection,
     (engine_version, config_sha256): (&str, &str),
     form: &str,
-) -> Result<HashMap<String, PrintedParts>> {
-    let mut stmt = conn.prepare_cached(
-        "SELECT p.lot, p.head, p.tail FROM lot_printed p
+    mut each: impl FnMut(&str, &str, Option<&str>) -> std::result::Result<(), E>,
+) -> std::result::Result<(), E> {
+    fn text<'r>(r: &'r rusqlite::Row<'_>, i: usize) -> Result<Option<&'r str>> {
+        Ok(r.get_ref(i)?
+            .as_str_or_null()
+            .map_err(rusqlite::Error::from)?)
+    }
+    let mut stmt = conn
+        .prepare_cached(
+            "SELECT p.lot, p.head, p.tail FROM lot_printed p
          WHERE p.engine_version = ?1 AND p.config_sha256 = ?2 AND p.form = ?3
-           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = p.lot)",
-    )?;
-    let rows = stmt
-        .query_map([engine_version, config_sha256, form], |r| {
-            Ok((r.get(0)?, (r.get(1)?, r.get(2)?)))
-        })?
-        .collect::<std::result::Result<_, _>>()?;
-    Ok(rows)
+           AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = p.lot)
+         ORDER BY p.lot",
+        )
+        .map_err(super::StoreError::from)?;
+    let mut rows = stmt
+        .query([engine_version, config_sha256, form])
+        .map_err(super::StoreError::from)?;
+    while let Some(r) = rows.next().map_err(super::StoreError::from)? {
+        let (Some(lot), Some(head)) = (text(r, 0)?, text(r, 1)?) else {
+            continue;
+        };
+        each(lot, head, text(r, 2)?)?;
+    }
+    Ok(())
 }
 
 /// One lot's printed entry as stored, whatever made it (`verify` compares it with the

@@ -7,12 +7,16 @@
 -- is written in the transaction that stores the lot's state, which first deletes the old
 -- one, so a row is never older than the state; it also carries what the state was made
 -- by. `form` names the printing code that wrote it: another build prints from the state.
--- Rows are kept in lot order (WITHOUT ROWID), the order the list prints them in.
+-- `cycles` is the state's count of the lot's cycles: when the kept entries' counts add up
+-- to every cycle that names a lot, no lot with cycles lacks one, and the list need not
+-- look each lot up in `cycles`. Rows are kept in lot order (WITHOUT ROWID), the order the
+-- list prints them in.
 CREATE TABLE lot_printed (
     lot TEXT PRIMARY KEY,
     engine_version TEXT NOT NULL,
     config_sha256 TEXT NOT NULL,
     form TEXT NOT NULL,
+    cycles INTEGER NOT NULL,
     head TEXT NOT NULL,
     tail TEXT
 ) STRICT, WITHOUT ROWID;

@@ -286,7 +286,9 @@ pub fn printed_line(mut line: super::lots::LotLine) -> Option<PrintedLine> {
     };
     let text = entry_text(&line).ok()?;
     let signoff = signoff_text(&line.signoff).ok()?;
-    let body = text.strip_suffix(PRINTED_END)?.strip_suffix(signoff.as_str())?;
+    let body = text
+        .strip_suffix(PRINTED_END)?
+        .strip_suffix(signoff.as_str())?;
     if !body.ends_with("\n    \"signoff\": ") {
         return None;
     }
@@ -940,7 +942,11 @@ mod lot_line_json_tests {
                     continue;
                 }
                 let p = printed_line(stored(l)).expect("a line with no mark in it is cut");
-                assert_eq!(p.tail.is_some(), i == 0, "only the first has a dated forecast");
+                assert_eq!(
+                    p.tail.is_some(),
+                    i == 0,
+                    "only the first has a dated forecast"
+                );
                 w.printed(&p.head, p.tail.as_deref(), signoff).unwrap();
             }
             let out = w.finish().unwrap();

@@ -619,13 +619,22 @@ pub fn write_lots_json<W: std::io::Write>(cfg: &Config, out: W) -> NResult<Liste
     let version = (fit::ENGINE_VERSION, fingerprint.as_str());
     let signoffs = super::signoffs::sign_off_states(&conn)?;
     let today = today(cfg);
-    let names = store::lots::lot_names(&conn)?;
+    let form = super::export::printed_form();
+    // The lots to list: the registered ones and those of the kept entries with cycles,
+    // when these account for every cycle; else every name the store holds, looked up.
+    let covered = store::lots::printed_cover_cycles(&conn, version, form)?;
+    let names: Vec<String> = if covered {
+        store::lots::registered_lots(&conn)?.into_iter().collect()
+    } else {
+        store::lots::lot_names(&conn)?
+    };
     let mut names = names.iter().peekable();
     let mut w = super::export::LotsJsonWriter::new(out, &today)?;
     let mut from = ListedFrom::default();
     // A lot with no usable kept entry: its line, printed whole.
     let mut line_entry = |w: &mut super::export::LotsJsonWriter<W>, lot: &str| -> NResult<()> {
-        let stored = store::lots::current_state_of(&conn, version, store::lots::StatePart::Line, lot)?;
+        let stored =
+            store::lots::current_state_of(&conn, version, store::lots::StatePart::Line, lot)?;
         let mut line = line_of(&conn, cfg, lot, stored.flatten(), &today)?;
         if let Some(s) = signoffs.get(lot) {
             line.signoff = s.clone();
@@ -634,17 +643,18 @@ pub fn write_lots_json<W: std::io::Write>(cfg: &Config, out: W) -> NResult<Liste
         Ok(w.line(&line)?)
     };
     // Both in lot order: the kept entries are merged into the names.
-    let form = super::export::printed_form();
-    store::lots::each_printed(&conn, version, form, |lot, head, tail| -> NResult<()> {
+    let each = |lot: &str, cycles: i64, head: &str, tail: Option<&str>| -> NResult<()> {
         while let Some(name) = names.next_if(|n| n.as_str() < lot) {
             line_entry(&mut w, name)?;
         }
-        if names.next_if(|n| n.as_str() == lot).is_some() {
+        let named = names.next_if(|n| n.as_str() == lot).is_some();
+        if named || (covered && cycles > 0) {
             w.printed(head, tail, signoffs.get(lot))?;
             from.kept += 1;
         }
         Ok(())
-    })?;
+    };
+    store::lots::each_printed(&conn, version, form, each)?;
     for name in names {
         line_entry(&mut w, name)?;
     }
@@ -661,13 +671,14 @@ pub(crate) fn keep_printed_line(
     lot: &str,
     line_json: &str,
 ) -> Result<()> {
-    let Some(p) = serde_json::from_str::<LotLine>(line_json)
-        .ok()
-        .and_then(super::export::printed_line)
-    else {
+    let Ok(line) = serde_json::from_str::<LotLine>(line_json) else {
         return Ok(());
     };
-    let form = super::export::printed_form();
+    let cycles = line.cycles;
+    let Some(p) = super::export::printed_line(line) else {
+        return Ok(());
+    };
+    let form = (super::export::printed_form(), cycles);
     store::lots::store_printed(tx, lot, form, (&p.head, p.tail.as_deref()))
 }
 
@@ -724,16 +735,18 @@ pub(crate) fn printed_finding(
     ]
     .into_iter()
     .find(|(_, a, b)| a != b);
-    Ok(differing.map(|(field, stored, want)| crate::audit::Finding {
-        table: "lot_printed".into(),
-        row: lot.to_string(),
-        field: field.into(),
-        stored: first_differing_line(stored.unwrap_or("(none)"), want.unwrap_or("(none)")),
-        expected: format!(
-            "{} (printed from the stored line)",
-            first_differing_line(want.unwrap_or("(none)"), stored.unwrap_or("(none)"))
-        ),
-    }))
+    Ok(
+        differing.map(|(field, stored, want)| crate::audit::Finding {
+            table: "lot_printed".into(),
+            row: lot.to_string(),
+            field: field.into(),
+            stored: first_differing_line(stored.unwrap_or("(none)"), want.unwrap_or("(none)")),
+            expected: format!(
+                "{} (printed from the stored line)",
+                first_differing_line(want.unwrap_or("(none)"), stored.unwrap_or("(none)"))
+            ),
+        }),
+    )
 }
 
 /// The line of `a` (trimmed) where it first differs from `b`.

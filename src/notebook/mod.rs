@@ -58,12 +58,11 @@ pub use entries::{
 pub use entries::{SignOffRequest, sign_off_from};
 pub use error::{NotebookError, Result};
 pub use export::lot_lines_json;
-pub use export::{LotsJsonWriter, PrintedLine};
-pub use lots::{ListedFrom, write_lots_json};
 pub use export::{
     Cell, EXPORT_SCHEMA, ExportError, JSON_SCHEMA, NameKind, cells, closest, export_lines,
     round_sig, suggest_name, with_schema, write_csv, write_jsonl,
 };
+pub use export::{LotsJsonWriter, PrintedLine};
 pub use fits::{SeriesFit, SeriesRequest, fit_series, lot_fit};
 pub use history::{HistoryEntry, Status, history, status};
 pub use ingestion::{
@@ -76,6 +75,7 @@ pub use lots::{
     TOF_INITIAL_DEFINITION, cycle_lines, cycles_document, known_lot, lot_lines, lot_series,
     lot_state, lot_state_as_of,
 };
+pub use lots::{ListedFrom, write_lots_json};
 pub use recompute::recompute_stale;
 pub use reports::{write_all_reports, write_lot_report, write_site_csv, write_site_report};
 pub use signoffs::{

@@ -569,15 +569,44 @@ impl LotIndex {
 pub fn store_printed(
     tx: &Transaction<'_>,
     lot: &str,
-    form: &str,
+    (form, cycles): (&str, usize),
     (head, tail): (&str, Option<&str>),
 ) -> Result<()> {
     tx.prepare_cached(
-        "INSERT OR REPLACE INTO lot_printed(lot, engine_version, config_sha256, form, head, tail)
-         SELECT lot, engine_version, config_sha256, ?2, ?3, ?4 FROM lot_states WHERE lot = ?1",
+        "INSERT OR REPLACE INTO lot_printed(lot, engine_version, config_sha256, form, cycles,
+             head, tail)
+         SELECT lot, engine_version, config_sha256, ?2, ?3, ?4, ?5 FROM lot_states
+         WHERE lot = ?1",
     )?
-    .execute(rusqlite::params![lot, form, head, tail])?;
+    .execute(rusqlite::params![
+        lot,
+        form,
+        i64::try_from(cycles).unwrap_or(i64::MAX),
+        head,
+        tail
+    ])?;
     Ok(())
+}
+
+/// True when the kept printed entries usable now (as [`each_printed`] gives them) account
+/// for every cycle that names a lot: their states' cycle counts add up to the number of
+/// such cycles, so no lot with cycles is without one and the lots to list are the
+/// registered ones and those of the entries. Counting `cycles` takes its pages, not its
+/// rows (SQLite counts an index's cells page by page); a lookup a lot in `cycles`, as
+/// [`lot_names`] makes, cost about 1 µs a lot.
+pub fn printed_cover_cycles(
+    conn: &Connection,
+    (engine_version, config_sha256): (&str, &str),
+    form: &str,
+) -> Result<bool> {
+    Ok(conn
+        .prepare_cached(
+            "SELECT (SELECT COALESCE(SUM(p.cycles), 0) FROM lot_printed p
+                     WHERE p.engine_version = ?1 AND p.config_sha256 = ?2 AND p.form = ?3
+                       AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = p.lot))
+                  = (SELECT COUNT(*) FROM cycles) - (SELECT COUNT(*) FROM cycles WHERE lot IS NULL)",
+        )?
+        .query_row([engine_version, config_sha256, form], |r| r.get(0))?)
 }
 
 /// Bytes of the database a listing maps into memory (SQLite caps it at its own maximum).
@@ -595,13 +624,13 @@ pub fn map_for_listing(conn: &Connection) -> Result<()> {
 }
 
 /// The printed entries of the states [`current_states`] would give, made by the printing
-/// code `form`, handed to `each` as (lot, head, tail) in lot order (that of
-/// [`lot_names`]) as they are read, without a copy.
+/// code `form`, handed to `each` as (lot, its state's cycle count, head, tail) in lot
+/// order (that of [`lot_names`]) as they are read, without a copy.
 pub fn each_printed<E: From<super::StoreError>>(
     conn: &Connection,
     (engine_version, config_sha256): (&str, &str),
     form: &str,
-    mut each: impl FnMut(&str, &str, Option<&str>) -> std::result::Result<(), E>,
+    mut each: impl FnMut(&str, i64, &str, Option<&str>) -> std::result::Result<(), E>,
 ) -> std::result::Result<(), E> {
     fn text<'r>(r: &'r rusqlite::Row<'_>, i: usize) -> Result<Option<&'r str>> {
         Ok(r.get_ref(i)?
@@ -610,7 +639,7 @@ pub fn each_printed<E: From<super::StoreError>>(
     }
     let mut stmt = conn
         .prepare_cached(
-            "SELECT p.lot, p.head, p.tail FROM lot_printed p
+            "SELECT p.lot, p.head, p.tail, p.cycles FROM lot_printed p
          WHERE p.engine_version = ?1 AND p.config_sha256 = ?2 AND p.form = ?3
            AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = p.lot)
          ORDER BY p.lot",
@@ -623,7 +652,8 @@ pub fn each_printed<E: From<super::StoreError>>(
         let (Some(lot), Some(head)) = (text(r, 0)?, text(r, 1)?) else {
             continue;
         };
-        each(lot, head, text(r, 2)?)?;
+        let cycles: i64 = r.get(3).map_err(super::StoreError::from)?;
+        each(lot, cycles, head, text(r, 2)?)?;
     }
     Ok(())
 }

@@ -882,8 +882,10 @@ mod lot_line_json_tests {
 
     /// A line as stored: a forecast dated the day it was computed, no sign-off.
     fn stored(mut l: LotLine) -> LotLine {
-        if let Some(f) = l.forecast.as_mut() {
-            f["as_of"] = "2026-12-03".into();
+        if let Some(serde_json::Value::Object(f)) = l.forecast.as_mut()
+            && f.contains_key("as_of")
+        {
+            f.insert("as_of".into(), "2026-12-03".into());
         }
         l.signoff = SignOffState::none();
         l

@@ -32,6 +32,7 @@ mod fits;
 mod history;
 mod ingestion;
 mod listing;
+mod lot_list;
 mod lots;
 mod recompute;
 mod reports;
@@ -70,12 +71,12 @@ pub use ingestion::{
     newest_file_id,
 };
 pub use listing::{Listing, RefusedEntry, collect_files};
+pub use lot_list::{ListedFrom, write_lots_json};
 pub use lots::{
     CycleLine, CycleState, CyclesDocument, LotLine, LotState, TOF_AVERAGE_DEFINITION,
     TOF_INITIAL_DEFINITION, cycle_lines, cycles_document, known_lot, lot_lines, lot_series,
     lot_state, lot_state_as_of,
 };
-pub use lots::{ListedFrom, write_lots_json};
 pub use recompute::recompute_stale;
 pub use reports::{write_all_reports, write_lot_report, write_site_csv, write_site_report};
 pub use signoffs::{

@@ -122,12 +122,14 @@ pub(crate) fn printed_finding(
     fingerprint: &str,
 ) -> Result<Option<crate::audit::Finding>> {
     let key = (fit::ENGINE_VERSION, fingerprint);
-    let Some((form, engine, config, head, tail)) = store::lots::printed_of(conn, lot)? else {
+    let Some(kept) = store::lots::printed_of(conn, lot)? else {
         return Ok(None);
     };
-    if form != super::export::printed_form() || (engine.as_str(), config.as_str()) != key {
+    let made = (kept.engine_version.as_str(), kept.config_sha256.as_str());
+    if kept.form != super::export::printed_form() || made != key {
         return Ok(None);
     }
+    let (head, tail) = (kept.head, kept.tail);
     let Some(json) = store::lots::stored_line(conn, lot, after_seq, key)? else {
         return Ok(None);
     };

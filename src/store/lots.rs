@@ -658,19 +658,32 @@ pub fn each_printed<E: From<super::StoreError>>(
     Ok(())
 }
 
+/// A lot's kept printed entry as stored, with what made it.
+#[derive(Debug, Clone)]
+pub struct KeptPrinted {
+    pub form: String,
+    pub engine_version: String,
+    pub config_sha256: String,
+    pub head: String,
+    pub tail: Option<String>,
+}
+
 /// One lot's printed entry as stored, whatever made it (`verify` compares it with the
-/// entry printed from its stored line): (form, engine version, settings, head, tail).
-pub fn printed_of(
-    conn: &Connection,
-    lot: &str,
-) -> Result<Option<(String, String, String, String, Option<String>)>> {
+/// entry printed from its stored line).
+pub fn printed_of(conn: &Connection, lot: &str) -> Result<Option<KeptPrinted>> {
     Ok(conn
         .prepare_cached(
             "SELECT form, engine_version, config_sha256, head, tail FROM lot_printed
              WHERE lot = ?1",
         )?
         .query_row([lot], |r| {
-            Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?, r.get(4)?))
+            Ok(KeptPrinted {
+                form: r.get(0)?,
+                engine_version: r.get(1)?,
+                config_sha256: r.get(2)?,
+                head: r.get(3)?,
+                tail: r.get(4)?,
+            })
         })
         .optional()?)
 }

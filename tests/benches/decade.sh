@@ -63,11 +63,12 @@ time_pair() { # DIR BASE NEW ROUNDS NAME ARGS...
     for r in $(seq "$rounds"); do
         for v in base new; do
             bin=$base; [ "$v" = new ] && bin=$new
-            hyperfine -N -w 1 -r 5 --export-json "/tmp/decade-$v.json" \
+            hyperfine -N -w 1 -r 5 --export-json "/tmp/decade-$$-$v.json" \
                 "$bin --config $dir/$v/turnbook.toml $*" > /dev/null 2>&1
-            if [ "$v" = base ]; then b+=("$(median_of /tmp/decade-base.json)"); else n+=("$(median_of /tmp/decade-new.json)"); fi
+            if [ "$v" = base ]; then b+=("$(median_of /tmp/decade-$$-base.json)"); else n+=("$(median_of /tmp/decade-$$-new.json)"); fi
         done
     done
+    rm -f "/tmp/decade-$$-base.json" "/tmp/decade-$$-new.json"
     printf '%-16s base %s   new %s  (s, medians of 5 runs, %s rounds)\n' \
         "$name" "${b[*]}" "${n[*]}" "$rounds"
 }
@@ -119,15 +120,15 @@ same() { # DIR BASE NEW
         for v in base new; do
             bin=$base; [ "$v" = new ] && bin=$new
             # shellcheck disable=SC2086
-            "$bin" --config "$dir/$v/turnbook.toml" $args | grep -v '"database": ' > "/tmp/decade-same-$v"
+            "$bin" --config "$dir/$v/turnbook.toml" $args | grep -v '"database": ' > "/tmp/decade-$$-same-$v"
         done
-        if cmp -s /tmp/decade-same-base /tmp/decade-same-new; then
-            printf '%-14s identical (%s bytes)\n' "$args" "$(wc -c < /tmp/decade-same-new)"
+        if cmp -s /tmp/decade-$$-same-base /tmp/decade-$$-same-new; then
+            printf '%-14s identical (%s bytes)\n' "$args" "$(wc -c < /tmp/decade-$$-same-new)"
         else
             printf '%-14s DIFFER\n' "$args"; differ=1
         fi
     done
-    rm -f /tmp/decade-same-base /tmp/decade-same-new
+    rm -f /tmp/decade-$$-same-base /tmp/decade-$$-same-new
     return "$differ"
 }
 

@@ -1207,3 +1207,50 @@ fn the_upgrade_to_0017_keeps_each_lot_state_and_its_snapshot() {
         assert_eq!(p.as_deref(), snapshot);
     }
 }
+
+/// 0018 adds the table of kept printed `lots --json` entries, empty: a store from before
+/// keeps every state, and its list prints from the states until the writer's open keeps
+/// the entries (`tests/lots_printed.rs`).
+#[test]
+fn the_upgrade_to_0018_keeps_each_state_and_starts_with_no_printed_entry() {
+    let dir = TempDir::new().unwrap();
+    let path = dir.path().join("v17.db");
+    let mut conn = Connection::open(&path).unwrap();
+    conn.execute_batch(
+        "CREATE TABLE schema_migrations (version INTEGER PRIMARY KEY, name TEXT NOT NULL,
+             applied_at TEXT NOT NULL) STRICT;",
+    )
+    .unwrap();
+    for &(version, name, sql) in migrate::MIGRATIONS.iter().filter(|m| m.0 <= 17) {
+        let tx = conn.transaction().unwrap();
+        tx.execute_batch(sql).unwrap();
+        tx.execute(
+            "INSERT INTO schema_migrations(version, name, applied_at) VALUES (?1, ?2, 'then')",
+            params![version, name],
+        )
+        .unwrap();
+        tx.commit().unwrap();
+    }
+    conn.execute(
+        "INSERT INTO lot_states(lot, after_seq, engine_version, config_sha256, computed_at, line)
+         VALUES ('LOT-A', 7, 'engine 1', 'cfg', 'at', '{\"lot\":\"LOT-A\"}')",
+        [],
+    )
+    .unwrap();
+    drop(conn);
+
+    let conn = upgrade(&path);
+    assert_eq!(schema_version(&conn), migrate::latest());
+    let (seq, line): (i64, String) = conn
+        .query_row(
+            "SELECT after_seq, line FROM lot_states WHERE lot = 'LOT-A'",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .unwrap();
+    assert_eq!((seq, line.as_str()), (7, "{\"lot\":\"LOT-A\"}"));
+    let printed: i64 = conn
+        .query_row("SELECT COUNT(*) FROM lot_printed", [], |r| r.get(0))
+        .unwrap();
+    assert_eq!(printed, 0);
+}

@@ -12,15 +12,14 @@ use crate::notebook::{
 
 /// `turnbook lots`.
 pub fn lots(cfg: &Config, json: bool) -> CmdResult {
-    let lines = lot_lines(cfg)?;
     if json {
-        // The same document `print_json` prints, written as it is serialised.
-        let mut out = std::io::BufWriter::new(std::io::stdout().lock());
-        serde_json::to_writer_pretty(&mut out, &crate::notebook::lot_lines_json(&lines))?;
-        writeln!(out)?;
-        std::io::Write::flush(&mut out)?;
+        // The document `print_json` would print, from each lot's entry as kept printed.
+        let mut out = std::io::BufWriter::with_capacity(1 << 16, std::io::stdout().lock());
+        crate::notebook::write_lots_json(cfg, &mut out)?;
+        out.flush()?;
         return Ok(0);
     }
+    let lines = lot_lines(cfg)?;
     if lines.is_empty() {
         println!(
             "no lots yet: register one (`turnbook register`) or drop a lot sheet into a watched folder"

@@ -228,6 +228,217 @@ pub fn lot_lines_json(lines: &[super::lots::LotLine]) -> Vec<LotLineJson<'_>> {
     lines.iter().map(LotLineJson::from).collect()
 }
 
+/// A lot's `lots --json` entry as printed (at its place in the array, keys sorted), cut
+/// where the parts that vary at read time go: `head`, then today's date as the
+/// forecast's `as_of` and `tail` when the forecast has one, then the sign-off and
+/// [`PRINTED_END`]. Kept beside the lot's state so that the list streams stored bytes.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct PrintedLine {
+    pub head: String,
+    pub tail: Option<String>,
+}
+
+/// What closes a printed entry after its sign-off.
+const PRINTED_END: &str = "\n  }";
+
+/// What stands for `as_of` while an entry is cut: a string no date is, written by
+/// serde_json as an escape (`"\u0001"`); an entry holding the text twice is not kept.
+const AS_OF_MARK: &str = "\u{1}";
+
+/// One entry of `lots --json` as the whole array prints it: from its indentation to its
+/// closing brace, without the separator.
+pub fn entry_text(line: &super::lots::LotLine) -> std::result::Result<String, serde_json::Error> {
+    let text = serde_json::to_string_pretty(&[LotLineJson::from(line)])?;
+    text.strip_prefix("[\n")
+        .and_then(|t| t.strip_suffix("\n]"))
+        .map(str::to_string)
+        .ok_or_else(|| serde::ser::Error::custom("a one-entry array printed unexpectedly"))
+}
+
+/// A sign-off as it is printed as the value of an entry's `signoff`.
+pub fn signoff_text(
+    s: &crate::model::signoff::SignOffState,
+) -> std::result::Result<String, serde_json::Error> {
+    #[derive(serde::Serialize)]
+    struct Only<'a> {
+        #[serde(serialize_with = "keys_sorted")]
+        signoff: &'a crate::model::signoff::SignOffState,
+    }
+    let text = serde_json::to_string_pretty(&[Only { signoff: s }])?;
+    text.strip_prefix("[\n  {\n    \"signoff\": ")
+        .and_then(|t| t.strip_suffix("\n  }\n]"))
+        .map(str::to_string)
+        .ok_or_else(|| serde::ser::Error::custom("a sign-off printed unexpectedly"))
+}
+
+/// The printed form of a lot's line as the list would print it with no sign-off, cut for
+/// the read-time parts; `None` when it cannot be cut unambiguously (the list then prints
+/// the line itself). `line` is the stored line as read back, so that what is kept is
+/// what the list printed from the stored state.
+pub fn printed_line(mut line: super::lots::LotLine) -> Option<PrintedLine> {
+    line.signoff = crate::model::signoff::SignOffState::none();
+    let dated = match line.forecast.as_mut() {
+        Some(serde_json::Value::Object(f)) if f.contains_key("as_of") => {
+            f.insert("as_of".into(), AS_OF_MARK.into());
+            true
+        }
+        _ => false,
+    };
+    let text = entry_text(&line).ok()?;
+    let signoff = signoff_text(&line.signoff).ok()?;
+    let body = text
+        .strip_suffix(PRINTED_END)?
+        .strip_suffix(signoff.as_str())?;
+    if !body.ends_with("\n    \"signoff\": ") {
+        return None;
+    }
+    if !dated {
+        return Some(PrintedLine {
+            head: body.to_string(),
+            tail: None,
+        });
+    }
+    let mark = serde_json::to_string(AS_OF_MARK).ok()?;
+    let mut parts = body.split(mark.as_str());
+    let (head, tail) = (parts.next()?, parts.next()?);
+    if parts.next().is_some() {
+        return None;
+    }
+    Some(PrintedLine {
+        head: head.to_string(),
+        tail: Some(tail.to_string()),
+    })
+}
+
+/// The name of the code that prints entries: a digest of a probe entry and sign-off as
+/// this build prints them. A printed form kept under another name (another build, whose
+/// fields or layout may differ) is not used.
+pub fn printed_form() -> &'static str {
+    static FORM: std::sync::OnceLock<String> = std::sync::OnceLock::new();
+    FORM.get_or_init(|| {
+        use sha2::Digest as _;
+        let mut h = sha2::Sha256::new();
+        let line = probe_line();
+        h.update(entry_text(&line).unwrap_or_default());
+        h.update(signoff_text(&line.signoff).unwrap_or_default());
+        format!("entry-{}", &hex::encode(h.finalize())[..16])
+    })
+}
+
+/// A line with every part filled, for [`printed_form`].
+fn probe_line() -> super::lots::LotLine {
+    use crate::model::signoff::{SignOffMark, SignOffState, SignOffStatus};
+    super::lots::LotLine {
+        lot: "L".into(),
+        registered: true,
+        catalyst: Some("c".into()),
+        metal: Some("m".into()),
+        cycles: 2,
+        complete_cycles: 1,
+        latest_activity: Some(0.5),
+        cumulative_ton: Some(10.0),
+        lifetime_ton: Some(20.0),
+        model: Some("m".into()),
+        forecast: Some(serde_json::json!({"as_of": "d", "x": 1.5})),
+        next_cycle: Some(crate::fit::NextCycle {
+            x: 3.0,
+            predicted: 0.4,
+            lower: 0.3,
+            upper: 0.5,
+            threshold: 0.2,
+            verdict: crate::fit::NextVerdict::Ok,
+        }),
+        abrupt_loss: true,
+        flags: vec!["f".into()],
+        attention: vec!["a".into()],
+        signoff: SignOffState {
+            state: SignOffStatus::Approved,
+            by: Some(SignOffMark {
+                seq: 1,
+                at: "t".into(),
+                actor: "a".into(),
+                meaning: "m".into(),
+                signer: Some("s".into()),
+                os_user: Some("o".into()),
+                signed_sha256: "h".into(),
+                what: "w".into(),
+                comment: Some("c".into()),
+            }),
+        },
+    }
+}
+
+/// Writes `lots --json` entry by entry: the same bytes as serialising every lot's line
+/// whole (see the test `a_printed_entry_splices_to_the_entry_printed_whole`), from kept
+/// printed entries ([`Self::printed`]) or from lines ([`Self::line`]).
+pub struct LotsJsonWriter<W: std::io::Write> {
+    out: W,
+    entries: usize,
+    /// Today's plant-local date as JSON: the forecasts' `as_of`.
+    today: String,
+    /// The printed "none" sign-off, the usual one.
+    unsigned: String,
+}
+
+impl<W: std::io::Write> LotsJsonWriter<W> {
+    pub fn new(out: W, today: &str) -> std::result::Result<Self, serde_json::Error> {
+        Ok(LotsJsonWriter {
+            out,
+            entries: 0,
+            today: serde_json::to_string(today)?,
+            unsigned: signoff_text(&crate::model::signoff::SignOffState::none())?,
+        })
+    }
+
+    fn put(&mut self, bytes: &str) -> std::io::Result<()> {
+        self.out.write_all(bytes.as_bytes())
+    }
+
+    fn separate(&mut self) -> std::io::Result<()> {
+        self.entries += 1;
+        self.put(if self.entries == 1 { "[\n" } else { ",\n" })
+    }
+
+    /// A kept printed entry ([`PrintedLine`]'s parts as stored) with the lot's sign-off.
+    pub fn printed(
+        &mut self,
+        head: &str,
+        tail: Option<&str>,
+        signoff: Option<&crate::model::signoff::SignOffState>,
+    ) -> std::result::Result<(), serde_json::Error> {
+        self.separate().map_err(serde_json::Error::io)?;
+        let signed = signoff.map(signoff_text).transpose()?;
+        let mut write = || -> std::io::Result<()> {
+            self.out.write_all(head.as_bytes())?;
+            if let Some(tail) = tail {
+                self.out.write_all(self.today.as_bytes())?;
+                self.out.write_all(tail.as_bytes())?;
+            }
+            let signoff = signed.as_deref().unwrap_or(self.unsigned.as_str());
+            self.out.write_all(signoff.as_bytes())?;
+            self.out.write_all(PRINTED_END.as_bytes())
+        };
+        write().map_err(serde_json::Error::io)
+    }
+
+    /// A line as the list shows it (its `as_of` and sign-off already in).
+    pub fn line(
+        &mut self,
+        line: &super::lots::LotLine,
+    ) -> std::result::Result<(), serde_json::Error> {
+        self.separate().map_err(serde_json::Error::io)?;
+        let text = entry_text(line)?;
+        self.put(&text).map_err(serde_json::Error::io)
+    }
+
+    /// Close the array (with a line end) and hand the output back.
+    pub fn finish(mut self) -> std::result::Result<W, serde_json::Error> {
+        let end = if self.entries == 0 { "[]\n" } else { "\n]\n" };
+        self.put(end).map_err(serde_json::Error::io)?;
+        Ok(self.out)
+    }
+}
+
 /// Significant digits of a measured value as exported: enough for any instrument, few
 /// enough to drop the noise of unit conversions (333.85 K − 273.15 = 60.69999999999999).
 const MEASURED_DIGITS: usize = 10;
@@ -667,5 +878,101 @@ mod lot_line_json_tests {
             let now = serde_json::to_string_pretty(&lot_lines_json(&lines)).unwrap();
             assert_eq!(now, before);
         }
+    }
+
+    /// A line as stored: a forecast dated the day it was computed, no sign-off.
+    fn stored(mut l: LotLine) -> LotLine {
+        if let Some(serde_json::Value::Object(f)) = l.forecast.as_mut()
+            && f.contains_key("as_of")
+        {
+            f.insert("as_of".into(), "2026-12-03".into());
+        }
+        l.signoff = SignOffState::none();
+        l
+    }
+
+    /// The same line as the list shows it today: the forecast's `as_of` today, the
+    /// lot's sign-off in.
+    fn shown(mut l: LotLine, today: &str, signoff: &SignOffState) -> LotLine {
+        if let Some(serde_json::Value::Object(f)) = l.forecast.as_mut()
+            && f.contains_key("as_of")
+        {
+            f.insert("as_of".into(), today.into());
+        }
+        l.signoff = signoff.clone();
+        l
+    }
+
+    #[test]
+    fn a_printed_entry_splices_to_the_entry_printed_whole() {
+        let today = "2027-01-05";
+        let signed = full_line().signoff;
+        let mut undated = full_line();
+        undated.lot = "L-UNDATED".into();
+        undated.forecast = Some(serde_json::json!({"status": "no-trend", "x": null}));
+        let mut bare = full_line();
+        bare.lot = "L-BARE".into();
+        bare.forecast = None;
+        bare.next_cycle = None;
+        // LotLine is not Clone: a copy goes through its stored JSON.
+        let copy = |l: &LotLine| -> LotLine {
+            serde_json::from_str(&serde_json::to_string(l).unwrap()).unwrap()
+        };
+        let lines = || [full_line(), copy(&undated), copy(&bare)];
+        // The reference: every line shown, printed through a JSON value tree as the
+        // command printed it before lines were kept printed.
+        let signoffs: std::collections::BTreeMap<String, SignOffState> =
+            [(full_line().lot, signed.clone())].into_iter().collect();
+        let none = SignOffState::none();
+        let reference: Vec<LotLine> = lines()
+            .into_iter()
+            .map(|l| {
+                let s = signoffs.get(&l.lot).unwrap_or(&none).clone();
+                shown(l, today, &s)
+            })
+            .collect();
+        let expected =
+            serde_json::to_string_pretty(&with_schema(&reference).unwrap()).unwrap() + "\n";
+        // Kept printed (each cut from the stored line), the second printed from its line
+        // (the fallback); then every entry kept.
+        for fallback in [Some(1), None] {
+            let mut w = LotsJsonWriter::new(Vec::new(), today).unwrap();
+            for (i, l) in lines().into_iter().enumerate() {
+                let signoff = signoffs.get(&l.lot);
+                if Some(i) == fallback {
+                    w.line(&shown(l, today, signoff.unwrap_or(&none))).unwrap();
+                    continue;
+                }
+                let p = printed_line(stored(l)).expect("a line with no mark in it is cut");
+                assert_eq!(
+                    p.tail.is_some(),
+                    i == 0,
+                    "only the first has a dated forecast"
+                );
+                w.printed(&p.head, p.tail.as_deref(), signoff).unwrap();
+            }
+            let out = w.finish().unwrap();
+            assert_eq!(String::from_utf8(out).unwrap(), expected);
+        }
+        let out = LotsJsonWriter::new(Vec::new(), today)
+            .unwrap()
+            .finish()
+            .unwrap();
+        let reference = serde_json::to_string_pretty(&with_schema(&Vec::<LotLine>::new()).unwrap());
+        assert_eq!(String::from_utf8(out).unwrap(), reference.unwrap() + "\n");
+    }
+
+    #[test]
+    fn a_line_holding_the_date_mark_is_not_cut_and_the_form_names_this_build() {
+        let mut l = stored(full_line());
+        l.attention.push(AS_OF_MARK.into());
+        assert_eq!(printed_line(l), None);
+        // Without a forecast the mark is never looked for.
+        let mut l = stored(full_line());
+        l.forecast = None;
+        l.attention.push(AS_OF_MARK.into());
+        assert!(printed_line(l).is_some_and(|p| p.tail.is_none()));
+        assert!(printed_form().starts_with("entry-"));
+        assert_eq!(printed_form(), printed_form());
     }
 }

@@ -122,6 +122,12 @@ pub fn check_fits(conn: &Connection, cfg: &Config) -> Result<(FitCheck, Vec<Find
             }
         }
         findings.extend(check_line(conn, &state, f.after_seq, &fingerprint)?);
+        findings.extend(super::lot_list::printed_finding(
+            conn,
+            &f.lot,
+            f.after_seq,
+            &fingerprint,
+        )?);
         findings.extend(check_figures(conn, &state, f.after_seq)?);
     }
     Ok((check, findings))

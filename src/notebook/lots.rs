@@ -571,24 +571,33 @@ fn current_lines(conn: &Connection, cfg: &Config) -> Result<Vec<LotLine>> {
     let today = today(cfg);
     let mut lines = Vec::new();
     for lot in store::lots::lot_names(conn)? {
-        let kept = stored
-            .remove(&lot)
-            .flatten()
-            .and_then(|json| serde_json::from_str::<LotLine>(&json).ok());
-        let line = match kept {
-            Some(mut line) => {
-                if let Some(serde_json::Value::Object(f)) = line.forecast.as_mut()
-                    && f.contains_key("as_of")
-                {
-                    f.insert("as_of".into(), serde_json::Value::String(today.clone()));
-                }
-                line
-            }
-            None => lot_line(&lot_state(conn, cfg, &lot)?),
-        };
-        lines.push(line);
+        let kept = stored.remove(&lot).flatten();
+        lines.push(line_of(conn, cfg, &lot, kept, &today)?);
     }
     Ok(lines)
+}
+
+/// A lot's line as the list shows it: its stored line (`stored`, the state's JSON) with
+/// the forecast's `as_of` made `today`, or, with none usable, computed now.
+pub(crate) fn line_of(
+    conn: &Connection,
+    cfg: &Config,
+    lot: &str,
+    stored: Option<String>,
+    today: &str,
+) -> Result<LotLine> {
+    let kept = stored.and_then(|json| serde_json::from_str::<LotLine>(&json).ok());
+    Ok(match kept {
+        Some(mut line) => {
+            if let Some(serde_json::Value::Object(f)) = line.forecast.as_mut()
+                && f.contains_key("as_of")
+            {
+                f.insert("as_of".into(), serde_json::Value::String(today.to_string()));
+            }
+            line
+        }
+        None => lot_line(&lot_state(conn, cfg, lot)?),
+    })
 }
 
 /// The plant-local date of today, as forecasts' dates are worked out on.

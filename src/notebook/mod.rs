@@ -32,6 +32,7 @@ mod fits;
 mod history;
 mod ingestion;
 mod listing;
+mod lot_list;
 mod lots;
 mod recompute;
 mod reports;
@@ -62,6 +63,7 @@ pub use export::{
     Cell, EXPORT_SCHEMA, ExportError, JSON_SCHEMA, NameKind, cells, closest, export_lines,
     round_sig, suggest_name, with_schema, write_csv, write_jsonl,
 };
+pub use export::{LotsJsonWriter, PrintedLine};
 pub use fits::{SeriesFit, SeriesRequest, fit_series, lot_fit};
 pub use history::{HistoryEntry, Status, history, status};
 pub use ingestion::{
@@ -69,6 +71,7 @@ pub use ingestion::{
     newest_file_id,
 };
 pub use listing::{Listing, RefusedEntry, collect_files};
+pub use lot_list::{ListedFrom, write_lots_json};
 pub use lots::{
     CycleLine, CycleState, CyclesDocument, LotLine, LotState, TOF_AVERAGE_DEFINITION,
     TOF_INITIAL_DEFINITION, cycle_lines, cycles_document, known_lot, lot_lines, lot_series,

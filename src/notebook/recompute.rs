@@ -173,6 +173,7 @@ fn recompute_lot(
         config_sha256: &fingerprint,
     };
     store::lots::store_state(tx, lot, made, &now, (&line, snapshot.as_deref()))?;
+    super::lot_list::keep_printed_line(tx, lot, &line)?;
     if state.record.is_none() {
         return Ok(());
     }
@@ -231,6 +232,7 @@ fn recompute_pending(tx: &Transaction<'_>, cfg: &Config, lot: &str, after: i64) 
     };
     let line = serde_json::to_string(&line)?;
     store::lots::store_state(tx, lot, made, &now, (&line, None))?;
+    super::lot_list::keep_printed_line(tx, lot, &line)?;
     Ok(true)
 }
 
@@ -244,6 +246,12 @@ pub fn stale_lots(conn: &Connection) -> Result<BTreeSet<String>> {
 /// whose stored state another engine version or other analysis settings made (so that
 /// after an upgrade the reads find current states instead of recomputing per read).
 pub fn recompute_stale(conn: &mut Connection, cfg: &Config, _actor: &str) -> Result<usize> {
+    // Current states whose printed `lots --json` entry is missing (a store from before
+    // they were kept) get one: outdated states are left to the recompute below.
+    let printed = super::lot_list::fill_printed_lines(conn, cfg)?;
+    if printed > 0 {
+        tracing::info!(lots = printed, "kept the printed entries of the lot list");
+    }
     let mut stale = stale_lots(conn)?;
     stale.extend(store::lots::outdated_states(
         conn,

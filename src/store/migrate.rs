@@ -78,6 +78,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         include_str!("../../schema/0017_lot_snapshots.sql"),
     ),
     (
+        18,
+        "printed_lines",
+        include_str!("../../schema/0018_printed_lines.sql"),
+    ),
+    (
         19,
         "files_in_progress",
         include_str!("../../schema/0019_files_in_progress.sql"),

@@ -12,6 +12,9 @@
 #       five runs, base and new alternating, ROUNDS (default 3) times; prints medians.
 #   tests/benches/decade.sh one DIR BASE_BIN NEW_BIN [ROUNDS]
 #       `ingest ONE_FILE` of a new batch (on a throw-away copy of each database).
+#   tests/benches/decade.sh same DIR BASE_BIN NEW_BIN
+#       the outputs of lots --json, lots and status --json of both builds, compared byte
+#       for byte (status names each database's path: that line is left out).
 #   tests/benches/decade.sh idle DIR BIN VARIANT [SECONDS]
 #       start `watch` on DIR/VARIANT: time to the "watching" lines being done with the
 #       catch-up, CPU ticks and RSS over SECONDS idle (default 20).
@@ -60,11 +63,12 @@ time_pair() { # DIR BASE NEW ROUNDS NAME ARGS...
     for r in $(seq "$rounds"); do
         for v in base new; do
             bin=$base; [ "$v" = new ] && bin=$new
-            hyperfine -N -w 1 -r 5 --export-json "/tmp/decade-$v.json" \
+            hyperfine -N -w 1 -r 5 --export-json "/tmp/decade-$$-$v.json" \
                 "$bin --config $dir/$v/turnbook.toml $*" > /dev/null 2>&1
-            if [ "$v" = base ]; then b+=("$(median_of /tmp/decade-base.json)"); else n+=("$(median_of /tmp/decade-new.json)"); fi
+            if [ "$v" = base ]; then b+=("$(median_of /tmp/decade-$$-base.json)"); else n+=("$(median_of /tmp/decade-$$-new.json)"); fi
         done
     done
+    rm -f "/tmp/decade-$$-base.json" "/tmp/decade-$$-new.json"
     printf '%-16s base %s   new %s  (s, medians of 5 runs, %s rounds)\n' \
         "$name" "${b[*]}" "${n[*]}" "$rounds"
 }
@@ -110,6 +114,24 @@ one() { # DIR BASE NEW [ROUNDS]: ingest of one new batch file, on copies of each
     printf 'ingest ONE_FILE  %s\n' "${out[*]}"
 }
 
+same() { # DIR BASE NEW
+    local dir=$1 base=$2 new=$3 args v bin differ=0
+    for args in "lots --json" "lots" "status --json"; do
+        for v in base new; do
+            bin=$base; [ "$v" = new ] && bin=$new
+            # shellcheck disable=SC2086
+            "$bin" --config "$dir/$v/turnbook.toml" $args | grep -v '"database": ' > "/tmp/decade-$$-same-$v"
+        done
+        if cmp -s /tmp/decade-$$-same-base /tmp/decade-$$-same-new; then
+            printf '%-14s identical (%s bytes)\n' "$args" "$(wc -c < /tmp/decade-$$-same-new)"
+        else
+            printf '%-14s DIFFER\n' "$args"; differ=1
+        fi
+    done
+    rm -f /tmp/decade-$$-same-base /tmp/decade-$$-same-new
+    return "$differ"
+}
+
 ticks_of() { awk '{print $14+$15}' "/proc/$1/stat"; }
 
 idle() { # DIR BIN VARIANT [SECONDS]
@@ -139,6 +161,7 @@ case "$cmd" in
     build) build "$@" ;;
     reads) reads "$@" ;;
     one) one "$@" ;;
+    same) same "$@" ;;
     idle) idle "$@" ;;
-    *) sed -n '2,19p' "$0"; exit 2 ;;
+    *) sed -n '2,22p' "$0"; exit 2 ;;
 esac

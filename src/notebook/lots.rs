@@ -362,11 +362,19 @@ fn add_metrics(cfg: &Config, rec: &LotRecord, cycles: &mut [CycleState]) -> Refe
         cycle: lot.reference_cycle,
         moved: lot.reference_moved,
     };
+    // Each cycle's metrics go to the first cycle of that number still without them; the
+    // cycles of each number are listed once (a search per cycle made a lot of 200,000
+    // cycles take a minute).
+    let mut open: std::collections::HashMap<u32, std::collections::VecDeque<usize>> =
+        std::collections::HashMap::new();
+    for (i, c) in cycles.iter().enumerate() {
+        if c.metrics.is_none() {
+            open.entry(c.cycle).or_default().push_back(i);
+        }
+    }
     for m in lot.cycles {
-        if let Some(c) = cycles
-            .iter_mut()
-            .find(|c| c.cycle == m.cycle_no && c.metrics.is_none())
-        {
+        let at = open.get_mut(&m.cycle_no).and_then(|q| q.pop_front());
+        if let Some(c) = at.and_then(|i| cycles.get_mut(i)) {
             for f in &m.flags {
                 if !c.flags.contains(f) {
                     c.flags.push(f.clone());

@@ -55,6 +55,22 @@ fn covers(a: &LotAnalysis) -> bool {
     }
 }
 
+/// The analysis of the grid: a 90 % interval on half the fresh activity, with `auto`'s
+/// candidates or the true model alone.
+fn options(model: ModelId, auto: bool) -> AnalysisOptions {
+    AnalysisOptions {
+        criterion: Criterion::FractionOfFresh(0.5),
+        confidence: 0.90,
+        candidates: if auto {
+            ModelId::ACTIVITY.to_vec()
+        } else {
+            vec![model]
+        },
+        grid_points: 2,
+        ..AnalysisOptions::default()
+    }
+}
+
 /// (coverage, share of trials in each state: ahead, unbounded, no-significant-trend, other).
 fn coverage(
     model: ModelId,
@@ -69,17 +85,7 @@ fn coverage(
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let noise = Normal::new(0.0, sd).expect("valid sd");
     let x: Vec<f64> = (1..=n).map(|i| i as f64).collect();
-    let opts = AnalysisOptions {
-        criterion: Criterion::FractionOfFresh(0.5),
-        confidence: 0.90,
-        candidates: if auto {
-            ModelId::ACTIVITY.to_vec()
-        } else {
-            vec![model]
-        },
-        grid_points: 2,
-        ..AnalysisOptions::default()
-    };
+    let opts = options(model, auto);
     let mut covered = 0;
     let mut states = [0usize; 4];
     for _ in 0..trials {
@@ -237,13 +243,7 @@ fn diagnose_residual_named() {
         let mut rng = ChaCha8Rng::seed_from_u64(77);
         let noise = Normal::new(0.0, sd).expect("valid sd");
         let x: Vec<f64> = (1..=n).map(|i| i as f64).collect();
-        let opts = AnalysisOptions {
-            criterion: Criterion::FractionOfFresh(0.5),
-            confidence: 0.90,
-            candidates: vec![model],
-            grid_points: 2,
-            ..AnalysisOptions::default()
-        };
+        let opts = options(model, false);
         let mut tally: BTreeMap<String, (usize, usize)> = BTreeMap::new();
         for _ in 0..1000 {
             let y: Vec<f64> = x
@@ -291,17 +291,7 @@ fn diagnose_open_cells() {
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
         let noise = Normal::new(0.0, sd).expect("valid sd");
         let x: Vec<f64> = (1..=n).map(|i| i as f64).collect();
-        let opts = AnalysisOptions {
-            criterion: Criterion::FractionOfFresh(0.5),
-            confidence: 0.90,
-            candidates: if auto {
-                ModelId::ACTIVITY.to_vec()
-            } else {
-                vec![model]
-            },
-            grid_points: 2,
-            ..AnalysisOptions::default()
-        };
+        let opts = options(model, auto);
         let mut tally: BTreeMap<String, [usize; 4]> = BTreeMap::new();
         for _ in 0..2000 {
             let y: Vec<f64> = x

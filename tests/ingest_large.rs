@@ -515,6 +515,11 @@ fn a_large_file_stopped_between_parts_resumes_with_one_pass_totals() {
     );
     let report = notebook::verify(&cfg, &[]).unwrap();
     assert!(report.findings.is_empty(), "{:?}", report.findings);
+    // `status` names the part-stored file.
+    let status = notebook::status(&cfg).unwrap();
+    assert_eq!(status.files_in_progress.len(), 1);
+    assert!(status.files_in_progress[0].path.ends_with("large.csv"));
+    assert_eq!(status.files_in_progress[0].parts, 5);
     drop(ing);
 
     let mut ing = Ingestor::open(cfg.clone()).unwrap();
@@ -542,6 +547,7 @@ fn a_large_file_stopped_between_parts_resumes_with_one_pass_totals() {
         (4 + 2 * (ROWS as i64 - 2) + 1) * 10
     );
     assert_eq!(count(&ing, "SELECT COUNT(*) FROM files_in_progress"), 0);
+    assert!(notebook::status(&cfg).unwrap().files_in_progress.is_empty());
     let report = notebook::verify(&cfg, &[]).unwrap();
     assert!(report.findings.is_empty(), "{:?}", report.findings);
 }

@@ -41,6 +41,12 @@ pub fn status(cfg: &Config, json: bool) -> CmdResult {
             println!("attention       {l}");
         }
     }
+    for f in &s.files_in_progress {
+        println!(
+            "part-stored     {} ({} parts stored; the rest is stored when it is offered again)",
+            f.path, f.parts
+        );
+    }
     if let Some(before) = s.history_before.as_ref().filter(|_| s.lots_not_in_view > 0) {
         println!(
             "history         {} lots without a batch since {before} and no open alert are not \

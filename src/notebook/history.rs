@@ -32,6 +32,9 @@ pub struct Status {
     pub outbox_waiting: i64,
     /// Lots by sign-off state (none, reviewed, approved, rejected, stale).
     pub signoffs: super::signoffs::SignOffCounts,
+    /// Large files whose storing began and did not end (a stop or a crash midway): their
+    /// parts so far are stored; the same content offered again is stored to the end.
+    pub files_in_progress: Vec<store::records::FileInProgress>,
 }
 
 /// Gather the status figures.
@@ -71,6 +74,7 @@ pub fn gather_status(conn: &Connection, cfg: &Config) -> store::Result<Status> {
         history_before: view.map(|v| v.1.format("%Y-%m-%d").to_string()),
         outbox_waiting: store::outbox::waiting(conn)?,
         signoffs: super::signoffs::count_states(&names, &super::signoffs::sign_off_states(conn)?),
+        files_in_progress: store::records::files_in_progress(conn)?,
     })
 }
 

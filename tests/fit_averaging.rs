@@ -55,6 +55,29 @@ fn covers(a: &LotAnalysis) -> bool {
     }
 }
 
+/// The analysis of one series drawn from `model` with parameters `p` at `x`, plus noise.
+fn simulated(
+    model: ModelId,
+    p: &[f64],
+    x: &[f64],
+    noise: &Normal<f64>,
+    rng: &mut ChaCha8Rng,
+    opts: &AnalysisOptions,
+) -> LotAnalysis {
+    let y: Vec<f64> = x
+        .iter()
+        .map(|&v| model.eval(v, p) + noise.sample(rng))
+        .collect();
+    analyse(
+        &LotSeries {
+            x: x.to_vec(),
+            y,
+            ..LotSeries::default()
+        },
+        opts,
+    )
+}
+
 /// The analysis of the grid: a 90 % interval on half the fresh activity, with `auto`'s
 /// candidates or the true model alone.
 fn options(model: ModelId, auto: bool) -> AnalysisOptions {
@@ -89,18 +112,7 @@ fn coverage(
     let mut covered = 0;
     let mut states = [0usize; 4];
     for _ in 0..trials {
-        let y: Vec<f64> = x
-            .iter()
-            .map(|&v| model.eval(v, &p) + noise.sample(&mut rng))
-            .collect();
-        let a = analyse(
-            &LotSeries {
-                x: x.clone(),
-                y,
-                ..LotSeries::default()
-            },
-            &opts,
-        );
+        let a = simulated(model, &p, &x, &noise, &mut rng, &opts);
         if covers(&a) {
             covered += 1;
         }
@@ -246,18 +258,7 @@ fn diagnose_residual_named() {
         let opts = options(model, false);
         let mut tally: BTreeMap<String, (usize, usize)> = BTreeMap::new();
         for _ in 0..1000 {
-            let y: Vec<f64> = x
-                .iter()
-                .map(|&v| model.eval(v, &p) + noise.sample(&mut rng))
-                .collect();
-            let a = analyse(
-                &LotSeries {
-                    x: x.clone(),
-                    y,
-                    ..LotSeries::default()
-                },
-                &opts,
-            );
+            let a = simulated(model, &p, &x, &noise, &mut rng, &opts);
             let held = a.notes.iter().any(|s| s.contains("physical bound"));
             let key = format!(
                 "{:?}/{:?} held={held} lower={} upper={}",
@@ -294,18 +295,7 @@ fn diagnose_open_cells() {
         let opts = options(model, auto);
         let mut tally: BTreeMap<String, [usize; 4]> = BTreeMap::new();
         for _ in 0..2000 {
-            let y: Vec<f64> = x
-                .iter()
-                .map(|&v| model.eval(v, &p) + noise.sample(&mut rng))
-                .collect();
-            let a = analyse(
-                &LotSeries {
-                    x: x.clone(),
-                    y,
-                    ..LotSeries::default()
-                },
-                &opts,
-            );
+            let a = simulated(model, &p, &x, &noise, &mut rng, &opts);
             let fc = a.forecast.as_ref();
             let key = format!(
                 "{:?} chosen={:?} upper={}",

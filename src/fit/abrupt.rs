@@ -1078,6 +1078,20 @@ mod tests {
         })
     }
 
+    /// The monitor and its direct computation on (x, y), checked to take the same
+    /// decisions: alarm, change point and first alarm.
+    fn both_monitors(x: &[f64], y: &[f64], case: usize) -> (Monitoring, Monitoring) {
+        let fast = monitor(x, y, 0.5, 4.5).expect("enough cycles");
+        let direct = monitor_direct(x, y, 0.5, 4.5).expect("enough cycles");
+        assert_eq!(fast.alarm, direct.alarm, "case {case}");
+        assert_eq!(fast.change_index, direct.change_index, "case {case}");
+        assert_eq!(
+            fast.cusum.first_alarm, direct.cusum.first_alarm,
+            "case {case}"
+        );
+        (fast, direct)
+    }
+
     #[test]
     fn monitor_agrees_with_the_direct_computation() {
         // Seeded series (first-order and straight-line decay, sd 0.02, with and without a
@@ -1103,14 +1117,7 @@ mod tests {
                     trend * if v >= 10.0 { 1.0 - step } else { 1.0 } + noise.sample(&mut rng)
                 })
                 .collect();
-            let fast = monitor(&x, &y, 0.5, 4.5).expect("enough cycles");
-            let direct = monitor_direct(&x, &y, 0.5, 4.5).expect("enough cycles");
-            assert_eq!(fast.alarm, direct.alarm, "case {case}");
-            assert_eq!(fast.change_index, direct.change_index, "case {case}");
-            assert_eq!(
-                fast.cusum.first_alarm, direct.cusum.first_alarm,
-                "case {case}"
-            );
+            let (fast, direct) = both_monitors(&x, &y, case);
             // The scores agree to rounding: the running sums reorder the arithmetic.
             let close = |a: f64, b: f64| {
                 a.to_bits() == b.to_bits()
@@ -1152,14 +1159,7 @@ mod tests {
                     trend * if i >= 100 { 1.0 - step } else { 1.0 } + noise.sample(&mut rng)
                 })
                 .collect();
-            let fast = monitor(&x, &y, 0.5, 4.5).expect("enough cycles");
-            let direct = monitor_direct(&x, &y, 0.5, 4.5).expect("enough cycles");
-            assert_eq!(fast.alarm, direct.alarm, "case {case}");
-            assert_eq!(fast.change_index, direct.change_index, "case {case}");
-            assert_eq!(
-                fast.cusum.first_alarm, direct.cusum.first_alarm,
-                "case {case}"
-            );
+            let (fast, direct) = both_monitors(&x, &y, case);
             for (a, b) in fast.z.iter().zip(&direct.z) {
                 assert!(
                     (a.is_nan() && b.is_nan()) || (a - b).abs() <= 1e-7 * (1.0 + b.abs()),

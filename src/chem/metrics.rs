@@ -308,97 +308,218 @@ pub fn cycle_metrics(
 pub fn lot_metrics(lot: &LotFacts, cycles: &[CycleInput], opts: &ChemOptions) -> LotMetrics {
     let mut sorted: Vec<&CycleInput> = cycles.iter().collect();
     sorted.sort_by_key(|c| c.cycle_no);
-    let m_metal = molar_mass(&lot.metal);
-
-    let mut out: Vec<CycleMetrics> = Vec::with_capacity(sorted.len());
-    for (i, c) in sorted.iter().enumerate() {
-        let prev = i
-            .checked_sub(1)
-            .map(|j| sorted[j])
-            .filter(|p| p.cycle_no + 1 == c.cycle_no);
-        out.push(one_cycle(lot, c, prev, m_metal, opts));
+    let mut scan = BasisScan::new(lot, opts);
+    for c in &sorted {
+        scan.add(c);
     }
-
-    // Initial metal: cycle 1 as charged, else the lot's registered charge (dry basis).
-    let initial_mol = out
-        .iter()
-        .find(|m| m.cycle_no == 1)
-        .and_then(|m| m.metal_mol)
-        .or_else(|| {
-            let dry = dry_mass_g(lot.charged_mass_g, lot.water_content_wt_pct)?;
-            metal_mol(dry, lot.loading_wt_pct, m_metal?)
-        });
-    let reference = choose_reference(&out, opts);
-
-    // Sums over the cycles known so far; None until at least one term is known.
-    let mut product_sum: Option<f64> = None;
-    let mut product_gap = false;
-    let mut lost_sum: Option<f64> = None;
-    let mut lost_gap = false;
-    // Metal lost before the cycle at hand, mol, and whether an earlier figure is missing.
-    let mut lost_before_mol = 0.0;
-    let mut lost_before_gap = false;
-    let mut expected_no = 1;
-    for (m, input) in out.iter_mut().zip(&sorted) {
-        if m.cycle_no != expected_no {
-            // Earlier cycles are not recorded (yet): their leaching is unknown.
-            lost_before_gap = true;
-        }
-        expected_no = m.cycle_no.saturating_add(1);
-        inventory(m, input, lost_before_mol, lost_before_gap);
-        match (m.metal_lost_g, m_metal) {
-            (Some(g), Some(mm)) => lost_before_mol += g / mm,
-            _ => lost_before_gap = true,
-        }
-        match m.product_mol {
-            Some(p) => product_sum = Some(product_sum.unwrap_or(0.0) + p),
-            None => product_gap = true,
-        }
-        match m.metal_lost_g {
-            Some(g) => lost_sum = Some(lost_sum.unwrap_or(0.0) + g),
-            None => lost_gap = true,
-        }
-        if let Some(n0) = initial_mol.filter(|n| *n > 0.0) {
-            m.cumulative_ton = product_sum.and_then(|p| finite(p / n0));
-            let metal_g = m_metal.map(|mm| n0 * mm);
-            m.cumulative_loss_fraction = lost_sum.and_then(|l| metal_g.and_then(|g| finite(l / g)));
-        }
-        if product_gap {
-            m.flags.push("cumulative-ton-partial".into());
-        }
-        if lost_gap {
-            m.flags.push("cumulative-loss-partial".into());
-        }
-        relative_activity(m, reference.as_ref(), opts);
-    }
-    let usual_ratio = median(
-        out.iter()
-            .filter(|m| m.missing.is_empty())
-            .filter_map(|m| m.catalyst_ratio)
-            .collect(),
+    let basis = scan.finish();
+    let (reference_cycle, reference_moved, usual_ratio) = (
+        basis.reference_cycle(),
+        basis.reference_moved(),
+        basis.usual_ratio,
     );
-    if let Some(usual) = usual_ratio.filter(|u| *u > 0.0)
-        && opts.ratio_tolerance.is_finite()
-        && opts.ratio_tolerance > 0.0
-    {
-        for m in &mut out {
-            if m.catalyst_ratio
-                .is_some_and(|r| (r / usual - 1.0).abs() > opts.ratio_tolerance)
-            {
-                m.flags.push("ratio-off-usual".into());
-            }
-        }
-    }
+    let mut pass = MetricsPass::new(lot, opts, basis);
+    let out = sorted.iter().map(|c| pass.next(c)).collect();
     LotMetrics {
         cycles: out,
         basis: opts.activity_basis,
-        reference_cycle: reference.as_ref().map(|r| r.cycle_no),
-        reference_moved: reference.as_ref().is_some_and(|r| r.moved),
+        reference_cycle,
+        reference_moved,
         usual_ratio,
     }
 }
 
+/// What every cycle's metrics rest on, found by a first pass over the lot's cycles in
+/// ascending order ([`BasisScan`]): the initial metal, the activity reference and the
+/// usual catalyst-to-substrate ratio. [`lot_metrics`] and a lot streamed from the store
+/// in two passes share it, so both give the same figures.
+#[derive(Debug, Clone)]
+pub struct LotBasis {
+    /// Cycle 1 as charged, else the lot's registered charge (dry basis), mol.
+    initial_mol: Option<f64>,
+    reference: Option<Reference>,
+    /// The median catalyst-to-substrate ratio over the complete cycles.
+    pub usual_ratio: Option<f64>,
+}
+
+impl LotBasis {
+    /// The cycle whose rate is activity 1, when one can serve.
+    pub fn reference_cycle(&self) -> Option<u32> {
+        self.reference.as_ref().map(|r| r.cycle_no)
+    }
+
+    /// True when cycle 1 is censored and a later cycle is the reference.
+    pub fn reference_moved(&self) -> bool {
+        self.reference.as_ref().is_some_and(|r| r.moved)
+    }
+}
+
+/// The first pass of [`lot_metrics`]: each cycle's own figures, kept only as far as the
+/// reference, the initial metal and the usual ratio need them.
+pub struct BasisScan<'a> {
+    lot: &'a LotFacts,
+    opts: &'a ChemOptions,
+    m_metal: Option<f64>,
+    prev: Option<CycleInput>,
+    /// The first cycle numbered 1: its metal, and its rate as a reference.
+    first: Option<(Option<f64>, Option<Reference>)>,
+    /// The first later uncensored cycle with a usable rate.
+    later: Option<Reference>,
+    ratios: Vec<f64>,
+}
+
+impl<'a> BasisScan<'a> {
+    pub fn new(lot: &'a LotFacts, opts: &'a ChemOptions) -> Self {
+        BasisScan {
+            lot,
+            opts,
+            m_metal: molar_mass(&lot.metal),
+            prev: None,
+            first: None,
+            later: None,
+            ratios: Vec::new(),
+        }
+    }
+
+    /// The next cycle, in ascending cycle order.
+    pub fn add(&mut self, c: &CycleInput) {
+        let prev = self.prev.as_ref().filter(|p| p.cycle_no + 1 == c.cycle_no);
+        let m = one_cycle(self.lot, c, prev, self.m_metal, self.opts);
+        let usable = specific_rate(&m, self.opts).filter(|r| *r > 0.0);
+        let as_reference = |rate: f64, moved: bool| Reference {
+            cycle_no: m.cycle_no,
+            rate,
+            rel_se: relative_se(&m),
+            censored: m.censored,
+            moved,
+        };
+        if m.cycle_no == 1 && self.first.is_none() {
+            self.first = Some((m.metal_mol, usable.map(|r| as_reference(r, false))));
+        } else if m.cycle_no > 1 && !m.censored && self.later.is_none() {
+            self.later = usable.map(|r| as_reference(r, true));
+        }
+        if m.missing.is_empty()
+            && let Some(r) = m.catalyst_ratio
+        {
+            self.ratios.push(r);
+        }
+        self.prev = Some(c.clone());
+    }
+
+    /// Cycle 1 when its rate is exact; the first uncensored cycle with a positive rate
+    /// when cycle 1 is censored; cycle 1's bound when no cycle is uncensored (flagged
+    /// `reference-censored`: every ratio to it is then an upper bound).
+    pub fn finish(self) -> LotBasis {
+        let (first_metal, first_ref) = self.first.unwrap_or((None, None));
+        let initial_mol = first_metal.or_else(|| {
+            let dry = dry_mass_g(self.lot.charged_mass_g, self.lot.water_content_wt_pct)?;
+            metal_mol(dry, self.lot.loading_wt_pct, self.m_metal?)
+        });
+        let reference = first_ref.map(|r1| match self.later {
+            Some(later) if r1.censored => later,
+            _ => r1,
+        });
+        LotBasis {
+            initial_mol,
+            reference,
+            usual_ratio: median(self.ratios),
+        }
+    }
+}
+
+/// The second pass of [`lot_metrics`]: every cycle's metrics, in ascending cycle order,
+/// with the sums over the cycles before it (cumulative TON, metal lost) and its activity
+/// against the reference of the [`LotBasis`].
+pub struct MetricsPass<'a> {
+    lot: &'a LotFacts,
+    opts: &'a ChemOptions,
+    basis: LotBasis,
+    m_metal: Option<f64>,
+    prev: Option<CycleInput>,
+    /// Sums over the cycles known so far; None until at least one term is known.
+    product_sum: Option<f64>,
+    product_gap: bool,
+    lost_sum: Option<f64>,
+    lost_gap: bool,
+    /// Metal lost before the cycle at hand, mol, and whether an earlier figure is missing.
+    lost_before_mol: f64,
+    lost_before_gap: bool,
+    expected_no: u32,
+}
+
+impl<'a> MetricsPass<'a> {
+    pub fn new(lot: &'a LotFacts, opts: &'a ChemOptions, basis: LotBasis) -> Self {
+        MetricsPass {
+            lot,
+            opts,
+            basis,
+            m_metal: molar_mass(&lot.metal),
+            prev: None,
+            product_sum: None,
+            product_gap: false,
+            lost_sum: None,
+            lost_gap: false,
+            lost_before_mol: 0.0,
+            lost_before_gap: false,
+            expected_no: 1,
+        }
+    }
+
+    /// The metrics of the next cycle, in ascending cycle order.
+    pub fn next(&mut self, input: &CycleInput) -> CycleMetrics {
+        let prev = self
+            .prev
+            .as_ref()
+            .filter(|p| p.cycle_no + 1 == input.cycle_no);
+        let mut m = one_cycle(self.lot, input, prev, self.m_metal, self.opts);
+        self.prev = Some(input.clone());
+        if m.cycle_no != self.expected_no {
+            // Earlier cycles are not recorded (yet): their leaching is unknown.
+            self.lost_before_gap = true;
+        }
+        self.expected_no = m.cycle_no.saturating_add(1);
+        inventory(&mut m, input, self.lost_before_mol, self.lost_before_gap);
+        match (m.metal_lost_g, self.m_metal) {
+            (Some(g), Some(mm)) => self.lost_before_mol += g / mm,
+            _ => self.lost_before_gap = true,
+        }
+        match m.product_mol {
+            Some(p) => self.product_sum = Some(self.product_sum.unwrap_or(0.0) + p),
+            None => self.product_gap = true,
+        }
+        match m.metal_lost_g {
+            Some(g) => self.lost_sum = Some(self.lost_sum.unwrap_or(0.0) + g),
+            None => self.lost_gap = true,
+        }
+        if let Some(n0) = self.basis.initial_mol.filter(|n| *n > 0.0) {
+            m.cumulative_ton = self.product_sum.and_then(|p| finite(p / n0));
+            let metal_g = self.m_metal.map(|mm| n0 * mm);
+            m.cumulative_loss_fraction = self
+                .lost_sum
+                .and_then(|l| metal_g.and_then(|g| finite(l / g)));
+        }
+        if self.product_gap {
+            m.flags.push("cumulative-ton-partial".into());
+        }
+        if self.lost_gap {
+            m.flags.push("cumulative-loss-partial".into());
+        }
+        relative_activity(&mut m, self.basis.reference.as_ref(), self.opts);
+        let tolerance = self.opts.ratio_tolerance;
+        if let Some(usual) = self.basis.usual_ratio.filter(|u| *u > 0.0)
+            && tolerance.is_finite()
+            && tolerance > 0.0
+            && m.catalyst_ratio
+                .is_some_and(|r| (r / usual - 1.0).abs() > tolerance)
+        {
+            m.flags.push("ratio-off-usual".into());
+        }
+        m
+    }
+}
+
 /// The rate activity is made relative to.
+#[derive(Debug, Clone)]
 struct Reference {
     cycle_no: u32,
     /// Its specific rate on the configured basis.
@@ -408,33 +529,6 @@ struct Reference {
     censored: bool,
     /// A later cycle stands in for a censored cycle 1.
     moved: bool,
-}
-
-/// Cycle 1 when its rate is exact; the first uncensored cycle with a positive rate when
-/// cycle 1 is censored; cycle 1's bound when no cycle is uncensored (flagged
-/// `reference-censored`: every ratio to it is then an upper bound).
-fn choose_reference(out: &[CycleMetrics], opts: &ChemOptions) -> Option<Reference> {
-    let usable = |m: &CycleMetrics| specific_rate(m, opts).filter(|r| *r > 0.0);
-    let first = out.iter().find(|m| m.cycle_no == 1)?;
-    let r1 = usable(first)?;
-    let make = |m: &CycleMetrics, rate: f64, moved: bool| Reference {
-        cycle_no: m.cycle_no,
-        rate,
-        rel_se: relative_se(m),
-        censored: m.censored,
-        moved,
-    };
-    if !first.censored {
-        return Some(make(first, r1, false));
-    }
-    let later = out
-        .iter()
-        .filter(|m| m.cycle_no > 1 && !m.censored)
-        .find_map(|m| usable(m).map(|r| (m, r)));
-    Some(match later {
-        Some((m, r)) => make(m, r, true),
-        None => make(first, r1, false),
-    })
 }
 
 /// se(k_app)/k_app of a cycle, when known and k_app > 0.

@@ -25,7 +25,8 @@ pub use kinetics::{
 pub use limits::{OPTION1_DAILY_DOSE_G, Pde, PdeTable, Route, ich_q3d_pde, option1_limit_ug_per_g};
 pub use lot_check::{LotField, LotProblem, check_lot, described_wet, lot_warnings};
 pub use metrics::{
-    ActivityBasis, ChargeSource, ChemOptions, CycleInput, CycleMetrics, DEFAULT_RATIO_TOLERANCE,
-    LotFacts, LotMetrics, cycle_metrics, lot_metrics,
+    ActivityBasis, BasisScan, ChargeSource, ChemOptions, CycleInput, CycleMetrics,
+    DEFAULT_RATIO_TOLERANCE, LotBasis, LotFacts, LotMetrics, MetricsPass, cycle_metrics,
+    lot_metrics,
 };
 pub use uncertainty::{AssayUncertainty, rate_constant_se};

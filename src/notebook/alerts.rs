@@ -9,8 +9,7 @@ use crate::alert::{EvidenceRow, LimitSource, LotSnapshot, MetalInProduct, Quaran
 use crate::chem::PdeTable;
 use crate::config::{Config, Measure};
 use crate::fit;
-use crate::model::Quantity;
-use crate::notebook::lots::LotState;
+use crate::notebook::lots::{CycleState, CycleTotals, LotState};
 use crate::store::Result;
 
 /// The metal-in-product limit of a metal: the configured one, else ICH Q3D option 1.
@@ -76,44 +75,52 @@ fn abrupt_view(cfg: &Config, a: &fit::LotAnalysis) -> Option<alert::AbruptLoss> 
 }
 
 /// The newest measured metal in product against its limit.
-fn metal_view(cfg: &Config, state: &LotState, metal: &str) -> Option<MetalInProduct> {
-    let newest = state
-        .cycles
-        .iter()
-        .rev()
-        .find(|c| c.view.get(Quantity::MetalInProduct).is_some());
-    newest.and_then(|c| {
+fn metal_view(cfg: &Config, totals: &CycleTotals, metal: &str) -> Option<MetalInProduct> {
+    totals.metal_in_product.and_then(|(cycle, ug_per_g)| {
         let (limit, source) = metal_limit(cfg, metal)?;
         Some(MetalInProduct {
-            cycle: c.cycle,
-            ug_per_g: c.view.get(Quantity::MetalInProduct)?,
+            cycle,
+            ug_per_g,
             limit_ug_per_g: limit,
             limit_source: source,
         })
     })
 }
 
-/// Each cycle's fitted measure with the file it came from, as the message shows them.
+/// Cycles a message lists as its evidence: the newest (a message is read, not searched;
+/// the lot's report lists every cycle).
+pub const EVIDENCE_ROWS: usize = 30;
+
+/// The newest [`EVIDENCE_ROWS`] cycles' fitted measure with the file it came from, as
+/// the message shows them, oldest first.
 fn evidence_rows(cfg: &Config, state: &LotState) -> Vec<EvidenceRow> {
-    state
+    let mut rows: Vec<EvidenceRow> = state
         .cycles
         .iter()
+        .rev()
         .filter_map(|c| {
-            let m = c.metrics.as_ref()?;
-            let value = if cfg.fitting.measure == Measure::Ton {
-                m.ton?
-            } else {
-                m.activity?
-            };
             let src = c.sources.first();
             Some(EvidenceRow {
                 cycle: c.cycle,
-                value,
+                value: evidence_value(cfg, c)?,
                 source_file: src.map(|s| s.path.clone()).unwrap_or_default(),
                 sha256: src.map(|s| s.sha256.clone()).unwrap_or_default(),
             })
         })
-        .collect()
+        .take(EVIDENCE_ROWS)
+        .collect();
+    rows.reverse();
+    rows
+}
+
+/// The fitted measure a message shows for a cycle, when it has one.
+pub(crate) fn evidence_value(cfg: &Config, c: &CycleState) -> Option<f64> {
+    let m = c.metrics.as_ref()?;
+    if cfg.fitting.measure == Measure::Ton {
+        m.ton
+    } else {
+        m.activity
+    }
 }
 
 /// The rules' view of one lot.
@@ -138,25 +145,22 @@ pub fn snapshot(cfg: &Config, state: &LotState) -> Option<LotSnapshot> {
         }
         ab
     });
-    let metal_in_product = metal_view(cfg, state, &rec.metal);
+    let totals = state.totals();
+    let metal_in_product = metal_view(cfg, &totals, &rec.metal);
     let evidence = evidence_rows(cfg, state);
     Some(LotSnapshot {
         lot: state.lot.clone(),
         catalyst: rec.catalyst.clone(),
         metal: rec.metal.clone(),
         site: rec.site.clone().unwrap_or_default(),
-        cycles_done: state.cycles.len() as u32,
-        latest_activity: state.latest_activity(),
+        cycles_done: totals.count as u32,
+        latest_activity: totals.latest_activity,
         criterion,
         forecast,
         next_batch,
         abrupt,
         metal_in_product,
-        metal_loss_fraction: state
-            .cycles
-            .iter()
-            .rev()
-            .find_map(|c| c.metrics.as_ref().and_then(|m| m.cumulative_loss_fraction)),
+        metal_loss_fraction: totals.loss_fraction,
         economic_cycle: a
             .and_then(|a| a.economics.as_ref())
             .filter(|e| !e.at_horizon)

@@ -14,18 +14,21 @@ pub fn cadence<'a>(
     cfg: &Config,
     cycles: impl IntoIterator<Item = &'a CycleView>,
 ) -> Option<Cadence> {
-    let starts: Vec<(u32, chrono::NaiveDateTime)> = cycles
-        .into_iter()
-        .filter(|v| !v.excluded)
-        .filter_map(|v| {
-            let t = v.started_at.as_deref()?;
-            Some((
-                u32::try_from(v.cycle_no?).ok()?,
-                crate::model::time::parse_local(t)?,
-            ))
-        })
-        .collect();
+    let starts: Vec<(u32, chrono::NaiveDateTime)> =
+        cycles.into_iter().filter_map(start_of).collect();
     Cadence::of(cfg.zone(), &starts)
+}
+
+/// A cycle's number and start as the cadence takes them (none for an excluded cycle).
+pub(crate) fn start_of(v: &CycleView) -> Option<(u32, chrono::NaiveDateTime)> {
+    if v.excluded {
+        return None;
+    }
+    let t = v.started_at.as_deref()?;
+    Some((
+        u32::try_from(v.cycle_no?).ok()?,
+        crate::model::time::parse_local(t)?,
+    ))
 }
 
 /// Put dates on the analysis's forecast when it offers a crossing (ahead, or with an
@@ -36,6 +39,23 @@ pub fn date_forecast<'a>(
     cycles: impl IntoIterator<Item = &'a CycleView>,
     a: &mut LotAnalysis,
 ) {
+    if a.forecast.as_ref().is_some_and(|f| {
+        matches!(
+            f.status,
+            ForecastStatus::Ahead | ForecastStatus::UnboundedInterval
+        )
+    }) {
+        date_forecast_with(cfg, rec, cadence(cfg, cycles), a);
+    }
+}
+
+/// [`date_forecast`] with the lot's cadence worked out already.
+pub fn date_forecast_with(
+    cfg: &Config,
+    rec: &LotRecord,
+    cadence: Option<Cadence>,
+    a: &mut LotAnalysis,
+) {
     let Some(f) = a.forecast.as_mut() else { return };
     if !matches!(
         f.status,
@@ -43,7 +63,7 @@ pub fn date_forecast<'a>(
     ) {
         return;
     }
-    let (Some(x), Some(c)) = (f.x, cadence(cfg, cycles)) else {
+    let (Some(x), Some(c)) = (f.x, cadence) else {
         return;
     };
     let lead = cfg.alerts.lead_days_for(&rec.catalyst);

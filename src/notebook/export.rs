@@ -53,6 +53,11 @@ impl<'t, 'c> FiguresWriter<'t, 'c> {
     }
 }
 
+/// The figures of cycle `c` of `state`, as [`FiguresWriter::cycle`] stores them.
+pub(crate) fn cycle_row(state: &LotState, c: &CycleState) -> CycleFigures {
+    cycle_figures(state.activity_basis.key(), cycle_line(state, c), c)
+}
+
 fn words_json(words: &[String]) -> String {
     serde_json::to_string(words).unwrap_or_else(|_| "[]".into())
 }
@@ -91,7 +96,8 @@ fn cycle_figures(basis: &str, l: CycleLine, c: &CycleState) -> CycleFigures {
 }
 
 fn lot_figures(s: &LotState) -> LotFigures {
-    let mut flags: BTreeSet<String> = s.cycles.iter().flat_map(|c| c.flags.clone()).collect();
+    let totals = s.totals();
+    let mut flags: BTreeSet<String> = totals.flags.clone();
     flags.extend(s.lot_flags.iter().cloned());
     let flags: Vec<String> = flags.into_iter().collect();
     let a = s.analysis.as_ref();
@@ -106,12 +112,8 @@ fn lot_figures(s: &LotState) -> LotFigures {
             "attention"
         },
         model: a.and_then(|a| a.chosen).map(|m| m.id().to_string()),
-        latest_activity: s.latest_activity(),
-        cumulative_ton: s
-            .cycles
-            .iter()
-            .rev()
-            .find_map(|c| c.metrics.as_ref().and_then(|m| m.cumulative_ton)),
+        latest_activity: totals.latest_activity,
+        cumulative_ton: totals.cumulative_ton,
         forecast_status: forecast.map(|f| f.status.word().to_string()),
         crossing_cycle: forecast.and_then(|f| f.x),
         crossing_cycle_lower: forecast.and_then(|f| f.lower),

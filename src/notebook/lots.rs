@@ -51,18 +51,112 @@ pub struct LotState {
     pub lot_flags: Vec<String>,
     /// The feed (or substrate) lot of each batch that recorded one, by batch id.
     pub feed_lots: std::collections::BTreeMap<String, String>,
+    /// Set when the lot was recomputed by streaming its cycles ([`super::large_lot`]):
+    /// `cycles` then holds only the newest ones, and this what the whole lot gives.
+    #[serde(skip)]
+    pub streamed: Option<Box<StreamedCycles>>,
+}
+
+/// What the readers of a state take from all of a lot's cycles, gathered one cycle at a
+/// time: [`LotState::totals`] gives it for any state, streamed or not.
+#[derive(Debug, Clone, Default)]
+pub struct CycleTotals {
+    pub count: usize,
+    /// Cycles with no field missing.
+    pub complete: usize,
+    /// The union of the cycles' flags.
+    pub flags: BTreeSet<String>,
+    /// The newest activity, cumulative TON and cumulative metal-loss fraction.
+    pub latest_activity: Option<f64>,
+    pub cumulative_ton: Option<f64>,
+    pub loss_fraction: Option<f64>,
+    /// The newest cycle with a metal-in-product figure, and that figure.
+    pub metal_in_product: Option<(u32, f64)>,
+    /// The newest cycle not excluded with an activity.
+    pub newest_active: Option<u32>,
+    /// The start of the newest batch: `Some(None)` until a start cannot be read.
+    newest_start: Option<Option<chrono::NaiveDateTime>>,
+}
+
+impl CycleTotals {
+    /// Take the next cycle (in the store's order) into the totals.
+    pub fn add(&mut self, c: &CycleState) {
+        self.count += 1;
+        let m = c.metrics.as_ref();
+        if m.is_some_and(|m| m.missing.is_empty()) {
+            self.complete += 1;
+        }
+        self.flags.extend(c.flags.iter().cloned());
+        let newer = |old: &mut Option<f64>, new: Option<f64>| {
+            if new.is_some() {
+                *old = new;
+            }
+        };
+        newer(&mut self.latest_activity, m.and_then(|m| m.activity));
+        newer(&mut self.cumulative_ton, m.and_then(|m| m.cumulative_ton));
+        newer(
+            &mut self.loss_fraction,
+            m.and_then(|m| m.cumulative_loss_fraction),
+        );
+        if let Some(v) = c.view.get(Quantity::MetalInProduct) {
+            self.metal_in_product = Some((c.cycle, v));
+        }
+        if !c.view.excluded && m.and_then(|m| m.activity).is_some() {
+            self.newest_active = Some(c.cycle);
+        }
+        if let Some(t) = c.view.started_at.as_deref() {
+            let t = crate::model::time::parse_local(t);
+            self.newest_start = match (self.newest_start, t) {
+                (Some(None), _) | (_, None) => Some(None),
+                (Some(Some(a)), Some(t)) => Some(Some(a.max(t))),
+                (None, Some(t)) => Some(Some(t)),
+            };
+        }
+    }
+
+    /// The totals of `cycles`.
+    pub fn of(cycles: &[CycleState]) -> Self {
+        let mut t = CycleTotals::default();
+        for c in cycles {
+            t.add(c);
+        }
+        t
+    }
+
+    /// The start of the lot's newest batch, when every start it records can be read.
+    pub fn newest_start(&self) -> Option<chrono::NaiveDateTime> {
+        self.newest_start.flatten()
+    }
+}
+
+/// A lot streamed from the store: its totals and the hints on its suspect cycle.
+#[derive(Debug, Clone, Default)]
+pub struct StreamedCycles {
+    pub totals: CycleTotals,
+    pub hints: Option<crate::chem::cause::CauseHints>,
 }
 
 impl LotState {
     pub fn latest_activity(&self) -> Option<f64> {
+        if let Some(s) = &self.streamed {
+            return s.totals.latest_activity;
+        }
         self.cycles
             .iter()
             .rev()
             .find_map(|c| c.metrics.as_ref().and_then(|m| m.activity))
     }
+
+    /// What the whole lot's cycles give ([`CycleTotals`]), streamed or held.
+    pub fn totals(&self) -> std::borrow::Cow<'_, CycleTotals> {
+        match &self.streamed {
+            Some(s) => std::borrow::Cow::Borrowed(&s.totals),
+            None => std::borrow::Cow::Owned(CycleTotals::of(&self.cycles)),
+        }
+    }
 }
 
-fn chem_options(cfg: &Config) -> ChemOptions {
+pub(crate) fn chem_options(cfg: &Config) -> ChemOptions {
     ChemOptions {
         saturation: cfg.chemistry.saturation,
         activation_energy_j_per_mol: cfg.chemistry.activation_energy_kj_mol.map(|e| e * 1000.0),
@@ -151,6 +245,7 @@ pub fn lot_state_as_of(
             reference_moved: false,
             lot_flags: Vec::new(),
             feed_lots: Default::default(),
+            streamed: None,
         });
     };
     let reference = add_metrics(cfg, &rec, &mut cycles);
@@ -185,7 +280,43 @@ pub fn lot_state_as_of(
         reference_moved: reference.moved,
         lot_flags,
         feed_lots: records::feed_lots_of_lot(conn, lot)?,
+        streamed: None,
     })
+}
+
+/// A registered lot's state before its cycles and analysis are put in.
+pub(crate) fn registered_shell(cfg: &Config, lot: &str, rec: &LotRecord) -> LotState {
+    LotState {
+        lot: lot.to_string(),
+        record: Some(rec.clone()),
+        cycles: Vec::new(),
+        analysis: None,
+        basis: basis(cfg),
+        lifetime_ton: None,
+        attention: Vec::new(),
+        activity_basis: cfg.chemistry.activity_basis,
+        reference_cycle: None,
+        reference_moved: false,
+        lot_flags: Vec::new(),
+        feed_lots: Default::default(),
+        streamed: None,
+    }
+}
+
+/// [`lot_attention`] of a state whose record and reference are set.
+pub(crate) fn lot_attention_of(
+    cfg: &Config,
+    state: &LotState,
+    attention: &mut Vec<String>,
+) -> Vec<String> {
+    let Some(rec) = state.record.as_ref() else {
+        return Vec::new();
+    };
+    let reference = ReferenceOf {
+        cycle: state.reference_cycle,
+        moved: state.reference_moved,
+    };
+    lot_attention(cfg, rec, &reference, attention)
 }
 
 /// What the lot's registration and its activity reference ask of someone: a wet catalyst
@@ -256,7 +387,7 @@ fn stored_cycles(
 }
 
 /// The `i`-th cycle of a lot (0-based, in the store's order) with its record flags.
-fn cycle_state(i: usize, v: CycleView, sources: Vec<SourceRef>) -> CycleState {
+pub(crate) fn cycle_state(i: usize, v: CycleView, sources: Vec<SourceRef>) -> CycleState {
     let n = v
         .cycle_no
         .and_then(|c| u32::try_from(c).ok())
@@ -311,6 +442,7 @@ pub(crate) fn pending_state_streamed(
         reference_moved: false,
         lot_flags: Vec::new(),
         feed_lots: Default::default(),
+        streamed: None,
     };
     let mut flags: BTreeSet<String> = BTreeSet::new();
     let mut count = 0;
@@ -342,22 +474,35 @@ fn conversion_sd(cfg: &Config, c: &CycleState) -> Option<f64> {
     profile.conversion_uncertainty?.sd_at(x)
 }
 
+/// A cycle's input to the pure chemistry.
+pub(crate) fn cycle_input(cfg: &Config, c: &CycleState) -> CycleInput {
+    CycleInput {
+        conversion_sd: conversion_sd(cfg, c),
+        ..CycleInput::from_values(
+            c.cycle,
+            Quantity::ALL
+                .iter()
+                .filter_map(|q| c.view.get(*q).map(|v| (*q, v))),
+        )
+    }
+}
+
+/// Give a cycle its metrics, their flags added to its own.
+pub(crate) fn merge_metrics(c: &mut CycleState, m: CycleMetrics) {
+    for f in &m.flags {
+        if !c.flags.contains(f) {
+            c.flags.push(f.clone());
+        }
+    }
+    c.metrics = Some(m);
+}
+
 /// Compute every cycle's metrics through the pure chemistry and merge their flags.
 fn add_metrics(cfg: &Config, rec: &LotRecord, cycles: &mut [CycleState]) -> ReferenceOf {
     let facts = LotFacts::from(rec);
-    let inputs: Vec<CycleInput> = cycles
-        .iter()
-        .map(|c| CycleInput {
-            conversion_sd: conversion_sd(cfg, c),
-            ..CycleInput::from_values(
-                c.cycle,
-                Quantity::ALL
-                    .iter()
-                    .filter_map(|q| c.view.get(*q).map(|v| (*q, v))),
-            )
-        })
-        .collect();
+    let inputs: Vec<CycleInput> = cycles.iter().map(|c| cycle_input(cfg, c)).collect();
     let lot = chem::lot_metrics(&facts, &inputs, &chem_options(cfg));
+    drop(inputs);
     let reference = ReferenceOf {
         cycle: lot.reference_cycle,
         moved: lot.reference_moved,
@@ -375,12 +520,7 @@ fn add_metrics(cfg: &Config, rec: &LotRecord, cycles: &mut [CycleState]) -> Refe
     for m in lot.cycles {
         let at = open.get_mut(&m.cycle_no).and_then(|q| q.pop_front());
         if let Some(c) = at.and_then(|i| cycles.get_mut(i)) {
-            for f in &m.flags {
-                if !c.flags.contains(f) {
-                    c.flags.push(f.clone());
-                }
-            }
-            c.metrics = Some(m);
+            merge_metrics(c, m);
         }
     }
     reference
@@ -395,19 +535,33 @@ fn add_metrics(cfg: &Config, rec: &LotRecord, cycles: &mut [CycleState]) -> Refe
 /// out: it is one factor common to every point, which a fitted a0 absorbs. When no cycle
 /// has one, `sd` stays empty (unweighted).
 pub fn lot_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
-    let ton_basis = cfg.fitting.measure == Measure::Ton;
-    let mut series = LotSeries::default();
-    let mut hours = 0.0;
+    let mut b = SeriesBuilder::default();
     for c in cycles {
-        let Some(m) = &c.metrics else { continue };
-        hours += c.view.get(Quantity::Duration).unwrap_or(0.0) / 3600.0;
+        b.push(cfg, c);
+    }
+    b.finish()
+}
+
+/// [`lot_series`] one cycle at a time, in the store's order.
+#[derive(Default)]
+pub(crate) struct SeriesBuilder {
+    series: LotSeries,
+    hours: f64,
+}
+
+impl SeriesBuilder {
+    pub(crate) fn push(&mut self, cfg: &Config, c: &CycleState) {
+        let ton_basis = cfg.fitting.measure == Measure::Ton;
+        let series = &mut self.series;
+        let Some(m) = &c.metrics else { return };
+        self.hours += c.view.get(Quantity::Duration).unwrap_or(0.0) / 3600.0;
         if c.view.excluded {
-            continue;
+            return;
         }
         let y = if ton_basis { m.ton } else { m.activity };
-        let Some(y) = y else { continue };
+        let Some(y) = y else { return };
         series.x.push(if cfg.fitting.axis == Axis::Hours {
-            hours
+            self.hours
         } else {
             f64::from(c.cycle)
         });
@@ -420,63 +574,91 @@ pub fn lot_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
             m.activity_sd_own
         });
     }
-    if series.sd.iter().all(Option::is_none) {
-        series.sd.clear();
+
+    pub(crate) fn finish(mut self) -> LotSeries {
+        if self.series.sd.iter().all(Option::is_none) {
+            self.series.sd.clear();
+        }
+        self.series
     }
-    series
 }
 
 /// What the records themselves ask of someone: pending cycles and unsettled conflicts.
 fn record_attention(cycles: &[CycleState]) -> Vec<String> {
-    let mut out = Vec::new();
-    let pending: Vec<String> = cycles
-        .iter()
-        .filter(|c| c.flags.iter().any(|f| f == "pending"))
-        .map(|c| {
-            let missing: Vec<&str> = c
-                .metrics
-                .as_ref()
-                .map(|m| m.missing.iter().map(|q| q.key()).collect())
-                .unwrap_or_default();
-            format!(
-                "cycle {} ({}) lacks {}",
-                c.cycle,
-                c.view.batch_id,
-                if missing.is_empty() {
-                    "a field".to_string()
-                } else {
-                    missing.join(", ")
-                }
-            )
-        })
-        .collect();
-    if !pending.is_empty() {
-        out.push(format!(
-            "{} cycle(s) pending: a field a complete cycle needs is missing ({})",
-            pending.len(),
-            pending.join("; ")
+    let mut b = RecordAttention::default();
+    for c in cycles {
+        b.add(c);
+    }
+    b.lines()
+}
+
+/// [`record_attention`] one cycle at a time.
+#[derive(Default)]
+pub(crate) struct RecordAttention {
+    pending: Vec<String>,
+    conflicts: i64,
+}
+
+impl RecordAttention {
+    pub(crate) fn add(&mut self, c: &CycleState) {
+        self.conflicts += c.view.conflicts;
+        if !c.flags.iter().any(|f| f == "pending") {
+            return;
+        }
+        let missing: Vec<&str> = c
+            .metrics
+            .as_ref()
+            .map(|m| m.missing.iter().map(|q| q.key()).collect())
+            .unwrap_or_default();
+        self.pending.push(format!(
+            "cycle {} ({}) lacks {}",
+            c.cycle,
+            c.view.batch_id,
+            if missing.is_empty() {
+                "a field".to_string()
+            } else {
+                missing.join(", ")
+            }
         ));
     }
-    let conflicts: i64 = cycles.iter().map(|c| c.view.conflicts).sum();
-    if conflicts > 0 {
-        out.push(format!(
-            "{conflicts} conflicting value(s) kept and flagged; settle them with `turnbook correct`"
-        ));
+
+    pub(crate) fn lines(self) -> Vec<String> {
+        let mut out = Vec::new();
+        if !self.pending.is_empty() {
+            out.push(format!(
+                "{} cycle(s) pending: a field a complete cycle needs is missing ({})",
+                self.pending.len(),
+                self.pending.join("; ")
+            ));
+        }
+        if self.conflicts > 0 {
+            out.push(format!(
+                "{} conflicting value(s) kept and flagged; settle them with `turnbook correct`",
+                self.conflicts
+            ));
+        }
+        out
     }
-    out
 }
 
 /// Fit `plateau` (ton_max·(1 − exp(−kd·x))) to cumulative TON against cycle number; its
 /// ton_max is the lot's lifetime TON. Needs more points than parameters + 1.
 fn plateau_lifetime(cycles: &[CycleState]) -> Option<(f64, Option<f64>)> {
-    let (x, y): (Vec<f64>, Vec<f64>) = cycles
-        .iter()
-        .filter_map(|c| Some((f64::from(c.cycle), c.metrics.as_ref()?.cumulative_ton?)))
-        .unzip();
+    let (x, y): (Vec<f64>, Vec<f64>) = cycles.iter().filter_map(cumulative_point).unzip();
+    plateau_lifetime_of(&x, &y)
+}
+
+/// A cycle's point of cumulative TON against cycle number, when it has one.
+pub(crate) fn cumulative_point(c: &CycleState) -> Option<(f64, f64)> {
+    Some((f64::from(c.cycle), c.metrics.as_ref()?.cumulative_ton?))
+}
+
+/// [`plateau_lifetime`] of the points `x`, `y`.
+pub(crate) fn plateau_lifetime_of(x: &[f64], y: &[f64]) -> Option<(f64, Option<f64>)> {
     if x.len() <= ModelId::Plateau.n_params() + 1 {
         return None;
     }
-    let f = fit::fit_model(ModelId::Plateau, &x, &y, &fit::FitOptions::default()).ok()?;
+    let f = fit::fit_model(ModelId::Plateau, x, y, &fit::FitOptions::default()).ok()?;
     let ton_max = f.param("ton_max")?;
     (f.converged && ton_max.is_finite()).then(|| {
         (
@@ -490,7 +672,7 @@ pub(crate) fn basis(cfg: &Config) -> String {
     format!("{}-vs-{}", cfg.fitting.measure, cfg.fitting.axis)
 }
 
-fn attention_from(a: &LotAnalysis) -> Vec<String> {
+pub(crate) fn attention_from(a: &LotAnalysis) -> Vec<String> {
     let mut out = Vec::new();
     if let Some(f) = &a.forecast {
         match f.status {
@@ -641,10 +823,8 @@ pub struct LotLine {
 }
 
 pub(crate) fn lot_line(s: &LotState) -> LotLine {
-    let mut flags: BTreeSet<String> = BTreeSet::new();
-    for c in &s.cycles {
-        flags.extend(c.flags.iter().cloned());
-    }
+    let totals = s.totals();
+    let mut flags = totals.flags.clone();
     flags.extend(s.lot_flags.iter().cloned());
     let a = s.analysis.as_ref();
     LotLine {
@@ -652,18 +832,10 @@ pub(crate) fn lot_line(s: &LotState) -> LotLine {
         registered: s.record.is_some(),
         catalyst: s.record.as_ref().map(|r| r.catalyst.clone()),
         metal: s.record.as_ref().map(|r| r.metal.clone()),
-        cycles: s.cycles.len(),
-        complete_cycles: s
-            .cycles
-            .iter()
-            .filter(|c| c.metrics.as_ref().is_some_and(|m| m.missing.is_empty()))
-            .count(),
-        latest_activity: s.latest_activity(),
-        cumulative_ton: s
-            .cycles
-            .iter()
-            .rev()
-            .find_map(|c| c.metrics.as_ref().and_then(|m| m.cumulative_ton)),
+        cycles: totals.count,
+        complete_cycles: totals.complete,
+        latest_activity: totals.latest_activity,
+        cumulative_ton: totals.cumulative_ton,
         lifetime_ton: s.lifetime_ton.map(|l| l.0),
         model: a.and_then(|a| a.chosen).map(|m| m.id().to_string()),
         forecast: a

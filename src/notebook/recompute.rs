@@ -111,20 +111,6 @@ pub(crate) fn history_cutoff(
         }))
 }
 
-/// The start of a lot's newest batch, when every start it records can be read.
-fn newest_start(state: &LotState) -> Option<chrono::NaiveDateTime> {
-    state
-        .cycles
-        .iter()
-        .filter_map(|c| c.view.started_at.as_deref())
-        .map(crate::model::time::parse_local)
-        .try_fold(None, |acc: Option<chrono::NaiveDateTime>, t| {
-            let t = t?;
-            Some(Some(acc.map_or(t, |a| a.max(t))))
-        })
-        .flatten()
-}
-
 /// Recompute one lot whose records go up to event `after`: its fit and its state are
 /// stored, and the alerts of that state raised as `raise` says.
 fn recompute_lot(
@@ -138,7 +124,14 @@ fn recompute_lot(
     if recompute_pending(tx, cfg, lot, after)? {
         return Ok(());
     }
-    let state = lot_state(tx, cfg, lot)?;
+    let state = match recompute_streamed(tx, cfg, lot, after)? {
+        Some(state) => state,
+        None => {
+            let state = lot_state(tx, cfg, lot)?;
+            super::export::store_figures(tx, &state, after)?;
+            state
+        }
+    };
     let fingerprint = cfg.analysis_fingerprint();
     let now = now_utc();
     let json = match &state.analysis {
@@ -162,7 +155,6 @@ fn recompute_lot(
         (fit::ENGINE_VERSION, &fingerprint),
         &now,
     )?;
-    super::export::store_figures(tx, &state, after)?;
     let line = serde_json::to_string(&lot_line(&state))?;
     let snapshot = super::alerts::snapshot(cfg, &state)
         .map(|s| serde_json::to_string(&s))
@@ -179,7 +171,7 @@ fn recompute_lot(
     }
     let current = match raise {
         Raise::Always | Raise::CurrentFrom(None) => true,
-        Raise::CurrentFrom(Some(from)) => newest_start(&state).is_none_or(|t| t >= from),
+        Raise::CurrentFrom(Some(from)) => state.totals().newest_start().is_none_or(|t| t >= from),
     };
     if current {
         super::alerts::raise(tx, cfg, &state, cause)?;
@@ -187,6 +179,35 @@ fn recompute_lot(
         tracing::debug!(lot, "backfilled history: state stored, no alert raised");
     }
     Ok(())
+}
+
+/// A registered lot of very many cycles ([`super::large_lot::STREAM_FROM`] or more),
+/// streamed from the store with its figures stored as its cycles come; `None` for any
+/// other lot (its state is held whole).
+fn recompute_streamed(
+    tx: &Transaction<'_>,
+    cfg: &Config,
+    lot: &str,
+    after: i64,
+) -> Result<Option<LotState>> {
+    let mut figures = None;
+    let from = super::large_lot::STREAM_FROM;
+    let state = super::large_lot::streamed_state(tx, cfg, lot, from, |state, c| {
+        let w = match figures.as_mut() {
+            Some(w) => w,
+            None => figures.insert(super::export::FiguresWriter::begin(tx, state, after)?),
+        };
+        w.cycle(state, c)
+    })?;
+    let Some(state) = state else {
+        return Ok(None);
+    };
+    let figures = match figures {
+        Some(w) => w,
+        None => super::export::FiguresWriter::begin(tx, &state, after)?,
+    };
+    figures.finish(&state)?;
+    Ok(Some(state))
 }
 
 /// Recompute a lot nobody registered, streaming its cycles from the store: it has no

@@ -74,6 +74,30 @@ pub fn sources_of_lot(conn: &Connection, lot: &str) -> Result<HashMap<String, Ve
     Ok(out)
 }
 
+/// The sources of one batch as it stands now ([`sources_of_lot`] for one batch): a lot
+/// streamed cycle by cycle looks up each batch's as it comes.
+pub fn sources_of_batch(conn: &Connection, batch: &str) -> Result<Vec<SourceRef>> {
+    let mut stmt = conn.prepare_cached(
+        "SELECT f.id, f.path, f.sha256, f.profile, b.line
+         FROM batch_sources b JOIN source_files f ON f.id = b.source_file_id
+         WHERE b.batch_id = ?1 ORDER BY f.id, b.line",
+    )?;
+    let rows = stmt.query_map([batch], |r| {
+        Ok((
+            r.get::<_, i64>(0)?,
+            r.get::<_, String>(1)?,
+            r.get::<_, String>(2)?,
+            r.get::<_, Option<String>>(3)?,
+            r.get::<_, Option<i64>>(4)?,
+        ))
+    })?;
+    let mut out = Vec::new();
+    for row in rows {
+        add_source(&mut out, row?);
+    }
+    Ok(out)
+}
+
 fn add_source(out: &mut Vec<SourceRef>, (id, path, sha, profile, line): SourceRow) {
     match out.last_mut() {
         Some(s) if s.file_id == id => {

@@ -1,0 +1,262 @@
+//! A registered lot of very many cycles (one export of a whole history) recomputed in
+//! bounded memory: its cycles are read from the store twice, one at a time, instead of
+//! all being held with their sources and metrics ([`super::lots::lot_state`] holds about
+//! 4 KB a cycle: 900 MB for 200,000).
+//!
+//! The first pass finds what every cycle's metrics rest on ([`chem::BasisScan`]: the
+//! activity reference, the initial metal, the usual ratio); the second computes each
+//! cycle's metrics ([`chem::MetricsPass`], the same code [`chem::lot_metrics`] runs),
+//! stores its figures and keeps only the series to fit, the totals the lot's line and
+//! alerts read ([`CycleTotals`]), the conditions the hints compare and the cycles a
+//! message lists.
+//! What is stored from it is what the held state gives (a test compares them).
+
+use std::collections::{BTreeMap, HashMap, VecDeque};
+
+use super::alerts::EVIDENCE_ROWS;
+use super::lots::{
+    CycleState, CycleTotals, LotState, RecordAttention, SeriesBuilder, StreamedCycles,
+};
+use crate::chem::cause::{CauseHints, Conditions, cause_hints};
+use crate::chem::{self, BasisScan, CycleInput, LotFacts, MetricsPass};
+use crate::config::Config;
+use crate::fit;
+use crate::model::Quantity;
+use crate::model::event::LotRecord;
+use crate::store::{self, Connection, Result, records};
+
+/// Lots of at least this many cycles are recomputed by streaming. Far above any lot a
+/// plant reuses (hundreds of cycles), so everyday lots keep the held state.
+pub const STREAM_FROM: usize = 20_000;
+
+/// The state of registered lot `lot` streamed from the store, each cycle with its metrics
+/// handed to `each` as it comes (with the state as far as the cycles need it), when the
+/// lot has at least `from` cycles. `None` otherwise, and when the store's order of its
+/// cycles is not ascending in cycle number (cycles without a number among numbered ones):
+/// the caller then takes the held state.
+pub(crate) fn streamed_state(
+    conn: &Connection,
+    cfg: &Config,
+    lot: &str,
+    from: usize,
+    mut each: impl FnMut(&LotState, &CycleState) -> Result<()>,
+) -> Result<Option<LotState>> {
+    let Some(rec) = records::lot(conn, lot)? else {
+        return Ok(None);
+    };
+    if records::cycle_count_of_lot(conn, lot)? < from.max(1) {
+        return Ok(None);
+    }
+    let facts = LotFacts::from(&rec);
+    let opts = super::lots::chem_options(cfg);
+    let Some(basis) = first_pass(conn, cfg, lot, &facts, &opts)? else {
+        return Ok(None);
+    };
+    let mut state = super::lots::registered_shell(cfg, lot, &rec);
+    state.reference_cycle = basis.reference_cycle();
+    state.reference_moved = basis.reference_moved();
+    state.feed_lots = records::feed_lots_of_lot(conn, lot)?;
+    let mut pass = MetricsPass::new(&facts, &opts, basis.clone());
+    let mut kept = Kept::default();
+    each_cycle(conn, cfg, lot, |mut c, input| {
+        super::lots::merge_metrics(&mut c, pass.next(&input));
+        each(&state, &c)?;
+        kept.add(cfg, c);
+        Ok(())
+    })?;
+    let newest_active = kept.totals.newest_active;
+    let mut state = finish(conn, cfg, &rec, state, kept)?;
+    let suspect = state
+        .analysis
+        .as_ref()
+        .zip(newest_active)
+        .and_then(|(a, newest)| super::causes::suspect_of(cfg, a, newest));
+    if let (Some(suspect), Some(s)) = (suspect, state.streamed.as_mut()) {
+        let mut pass = MetricsPass::new(&facts, &opts, basis);
+        s.hints = hints_pass(conn, cfg, lot, &mut pass, &state.feed_lots, suspect)?;
+    }
+    Ok(Some(state))
+}
+
+/// A third pass, only for a lot whose step or decline calls for hints: the conditions of
+/// every cycle, as [`super::causes::lot_causes`] compares them.
+fn hints_pass(
+    conn: &Connection,
+    cfg: &Config,
+    lot: &str,
+    pass: &mut MetricsPass<'_>,
+    feed_lots: &BTreeMap<String, String>,
+    suspect: u32,
+) -> Result<Option<CauseHints>> {
+    let mut history: Vec<Conditions> = Vec::new();
+    let mut activity: HashMap<u32, Option<f64>> = HashMap::new();
+    let mut lost_before = None;
+    each_cycle(conn, cfg, lot, |mut c, input| {
+        super::lots::merge_metrics(&mut c, pass.next(&input));
+        if !c.view.excluded {
+            history.push(super::causes::conditions(feed_lots, &c));
+        }
+        let m = c.metrics.as_ref();
+        activity
+            .entry(c.cycle)
+            .or_insert(m.and_then(|m| m.activity));
+        if c.cycle < suspect
+            && let Some(l) = m.and_then(|m| m.cumulative_loss_fraction)
+        {
+            lost_before = Some(l);
+        }
+        Ok(())
+    })?;
+    let activity_of = |n: u32| activity.get(&n).copied().flatten();
+    Ok(cause_hints(&history, suspect, activity_of, lost_before))
+}
+
+/// The first pass: the lot's basis, or `None` when its cycles do not come in ascending
+/// cycle order.
+fn first_pass(
+    conn: &Connection,
+    cfg: &Config,
+    lot: &str,
+    facts: &LotFacts,
+    opts: &chem::ChemOptions,
+) -> Result<Option<chem::LotBasis>> {
+    let mut scan = BasisScan::new(facts, opts);
+    let (mut last, mut ascending) = (0, true);
+    each_cycle(conn, cfg, lot, |c, input| {
+        ascending &= c.cycle >= last;
+        last = c.cycle;
+        scan.add(&input);
+        Ok(())
+    })?;
+    Ok(ascending.then(|| scan.finish()))
+}
+
+/// Each cycle of the lot in the store's order, with its sources, record flags and chemistry
+/// input.
+fn each_cycle(
+    conn: &Connection,
+    cfg: &Config,
+    lot: &str,
+    mut f: impl FnMut(CycleState, CycleInput) -> Result<()>,
+) -> Result<()> {
+    let mut i = 0;
+    records::each_cycle_of_lot(conn, lot, |v| {
+        let sources = store::lots::sources_of_batch(conn, &v.batch_id)?;
+        let c = super::lots::cycle_state(i, v, sources);
+        i += 1;
+        let input = super::lots::cycle_input(cfg, &c);
+        f(c, input)
+    })
+}
+
+/// What the second pass keeps of the cycles.
+#[derive(Default)]
+struct Kept {
+    series: SeriesBuilder,
+    totals: CycleTotals,
+    records: RecordAttention,
+    starts: Vec<(u32, chrono::NaiveDateTime)>,
+    cumulative: (Vec<f64>, Vec<f64>),
+    product_first_kg: Option<Option<f64>>,
+    /// The newest cycles a message lists ([`EVIDENCE_ROWS`]): all a streamed state holds.
+    newest: VecDeque<CycleState>,
+}
+
+impl Kept {
+    fn add(&mut self, cfg: &Config, c: CycleState) {
+        self.series.push(cfg, &c);
+        self.totals.add(&c);
+        self.records.add(&c);
+        self.starts.extend(super::dates::start_of(&c.view));
+        if let Some((x, y)) = super::lots::cumulative_point(&c) {
+            self.cumulative.0.push(x);
+            self.cumulative.1.push(y);
+        }
+        if c.cycle == 1 && self.product_first_kg.is_none() {
+            self.product_first_kg = Some(c.view.get(Quantity::ProductMass).map(|g| g / 1000.0));
+        }
+        if super::alerts::evidence_value(cfg, &c).is_some() {
+            if self.newest.len() == EVIDENCE_ROWS {
+                self.newest.pop_front();
+            }
+            self.newest.push_back(c);
+        }
+    }
+}
+
+/// The analysis and attention of the streamed lot (its hints come after), as [`super::lots::lot_state`]
+/// makes them from the held cycles.
+fn finish(
+    conn: &Connection,
+    cfg: &Config,
+    rec: &LotRecord,
+    mut state: LotState,
+    kept: Kept,
+) -> Result<LotState> {
+    let series = kept.series.finish();
+    let product_first_kg = kept.product_first_kg.flatten();
+    let mut opts = super::lots::analysis_options(cfg, Some(rec), product_first_kg);
+    opts.prior = super::family::family_prior(conn, cfg, rec, &series, &state.basis, None)?;
+    let mut analysis = (!series.x.is_empty()).then(|| fit::analyse(&series, &opts));
+    drop(series);
+    if let Some(a) = analysis.as_mut() {
+        let cadence = crate::model::calendar::Cadence::of(cfg.zone(), &kept.starts);
+        super::dates::date_forecast_with(cfg, rec, cadence, a);
+    }
+    let mut attention = Vec::new();
+    if let Some(a) = &analysis {
+        attention.extend(super::lots::attention_from(a));
+    }
+    attention.extend(kept.records.lines());
+    state.lot_flags = super::lots::lot_attention_of(cfg, &state, &mut attention);
+    state.lifetime_ton = super::lots::plateau_lifetime_of(&kept.cumulative.0, &kept.cumulative.1);
+    state.analysis = analysis;
+    state.attention = attention;
+    state.cycles = kept.newest.into();
+    state.streamed = Some(Box::new(StreamedCycles {
+        totals: kept.totals,
+        hints: None,
+    }));
+    Ok(state)
+}
+
+/// What a recompute stores for registered lot `lot`, as text (its fit, lot line, alert
+/// snapshot, lot figures and every cycle's figures; timestamps are not part of it): from
+/// the held state, or streamed when `streamed` (at any number of cycles). `None` when
+/// the lot is not registered. Both must agree; the tests compare them.
+pub fn recomputed_outputs(
+    cfg: &Config,
+    lot: &str,
+    streamed: bool,
+) -> super::Result<Option<String>> {
+    let conn = store::open(&cfg.database_path())?;
+    if records::lot(&conn, lot)?.is_none() {
+        return Ok(None);
+    }
+    let mut cycles = Vec::new();
+    let state = if streamed {
+        match streamed_state(&conn, cfg, lot, 0, |s, c| {
+            cycles.push(super::export::cycle_row(s, c));
+            Ok(())
+        })? {
+            Some(s) => s,
+            None => return Ok(None),
+        }
+    } else {
+        let s = super::lots::lot_state(&conn, cfg, lot)?;
+        cycles = s
+            .cycles
+            .iter()
+            .map(|c| super::export::cycle_row(&s, c))
+            .collect();
+        s
+    };
+    let snapshot = super::alerts::snapshot(cfg, &state);
+    Ok(Some(format!(
+        "fit {}\nline {}\nsnapshot {}\nlot figures {:?}\ncycle figures {cycles:?}",
+        serde_json::to_string(&state.analysis)?,
+        serde_json::to_string(&super::lots::lot_line(&state))?,
+        serde_json::to_string(&snapshot)?,
+        super::export::figures_of(&state).0,
+    )))
+}

@@ -7,7 +7,7 @@
 use serde_json::Value;
 
 use super::error::Result;
-use super::lots::lot_state;
+use super::lots::{LotState, lot_state};
 use crate::audit::{Finding, FitCheck};
 use crate::config::Config;
 use crate::fit;
@@ -100,7 +100,7 @@ pub fn check_fits(conn: &Connection, cfg: &Config) -> Result<(FitCheck, Vec<Find
             findings.push(finding("unreadable JSON".into(), "an analysis".into()));
             continue;
         };
-        let state = lot_state(conn, cfg, &f.lot)?;
+        let (state, streamed) = fresh_state(conn, cfg, &f.lot)?;
         let mut fresh = match &state.analysis {
             Some(a) => serde_json::to_value(a).map_err(store::StoreError::from)?,
             None => Value::Null,
@@ -128,9 +128,92 @@ pub fn check_fits(conn: &Connection, cfg: &Config) -> Result<(FitCheck, Vec<Find
             f.after_seq,
             &fingerprint,
         )?);
-        findings.extend(check_figures(conn, &state, f.after_seq)?);
+        findings.extend(match streamed {
+            Some(cycles) => check_streamed_figures(conn, &state, f.after_seq, cycles)?,
+            None => check_figures(conn, &state, f.after_seq)?,
+        });
     }
     Ok((check, findings))
+}
+
+/// What a streamed recompute found of the cycles' figures: how many cycles, and the
+/// first that differs from its stored row.
+struct StreamedCycles {
+    count: usize,
+    finding: Option<Finding>,
+}
+
+/// The lot's state recomputed from the records: held whole, or for a lot of very many
+/// cycles streamed ([`super::large_lot`]) with each cycle's figures compared with its
+/// stored row as it comes, so that `verify` holds no lot's cycles.
+fn fresh_state(
+    conn: &Connection,
+    cfg: &Config,
+    lot: &str,
+) -> Result<(LotState, Option<StreamedCycles>)> {
+    let mut cycles = StreamedCycles {
+        count: 0,
+        finding: None,
+    };
+    let from = super::large_lot::STREAM_FROM;
+    let streamed = super::large_lot::streamed_state(conn, cfg, lot, from, |s, c| {
+        cycles.count += 1;
+        if cycles.finding.is_some() {
+            return Ok(());
+        }
+        let fresh = super::export::cycle_row(s, c);
+        let stored = store::export::stored_cycle_figures(conn, lot, &fresh.batch_id)?;
+        cycles.finding = match stored {
+            Some(stored) => debug_difference(&stored, &fresh)
+                .map(|(field, a, b)| figure_finding("cycle_figures", &fresh.batch_id, field, a, b)),
+            None => Some(figure_finding(
+                "cycle_figures",
+                &fresh.batch_id,
+                "row",
+                "none".into(),
+                "a row".into(),
+            )),
+        };
+        Ok(())
+    })?;
+    Ok(match streamed {
+        Some(state) => (state, Some(cycles)),
+        None => (lot_state(conn, cfg, lot)?, None),
+    })
+}
+
+/// [`check_figures`] for a streamed lot: its own figures, then the count of its cycles'
+/// rows and the first cycle that differed.
+fn check_streamed_figures(
+    conn: &Connection,
+    state: &LotState,
+    after_seq: i64,
+    cycles: StreamedCycles,
+) -> Result<Option<Finding>> {
+    let Some(lot) = store::export::stored_lot_figures(conn, &state.lot, after_seq)? else {
+        return Ok(None);
+    };
+    let (fresh_lot, _) = super::export::figures_of(state);
+    if let Some((field, stored, expected)) = debug_difference(&lot, &fresh_lot) {
+        return Ok(Some(figure_finding(
+            "lot_figures",
+            &state.lot,
+            field,
+            stored,
+            expected,
+        )));
+    }
+    let stored = store::export::cycle_figures_count(conn, &state.lot)?;
+    if stored != cycles.count {
+        return Ok(Some(figure_finding(
+            "cycle_figures",
+            &state.lot,
+            "rows",
+            stored.to_string(),
+            cycles.count.to_string(),
+        )));
+    }
+    Ok(cycles.finding)
 }
 
 /// The lot's stored `lots` line (what `lots`, `status` and the digest show without

@@ -1009,9 +1009,11 @@ impl<'a> Writer<'a> {
         let mut w = records::FileWriter::new(&tx)?;
         let stored = w.end_large(file, &facts, self.actor)?;
         w.finish()?;
+        // A lot's newest event is its last part's (the closing event names no batch): the
+        // recompute records that, so `verify` finds the fit current and compares it.
         let mut touched = BTreeMap::new();
         for lot in &stored.lots_touched {
-            touched.insert(lot.clone(), stored.event_seq);
+            touched.insert(lot.clone(), store::lots::newest_seq_of(&tx, lot)?);
         }
         warn_conflicts(&facts.path, &stored.conflicts);
         let mut hashes = DigestMap::default();

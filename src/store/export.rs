@@ -162,14 +162,12 @@ pub fn store_lot_figures(
     Ok(())
 }
 
-/// A lot's stored figures when they were computed after event `after_seq` (verify
-/// compares them with figures recomputed from the records); `None` when none were or
-/// they are older.
-pub fn stored_figures(
+/// A lot's stored figures made after event `after_seq`, without its cycles'.
+pub fn stored_lot_figures(
     conn: &rusqlite::Connection,
     lot: &str,
     after_seq: i64,
-) -> Result<Option<(LotFigures, Vec<CycleFigures>)>> {
+) -> Result<Option<LotFigures>> {
     use rusqlite::OptionalExtension as _;
     let figures = conn
         .prepare_cached(
@@ -210,39 +208,77 @@ pub fn stored_figures(
             })
         })
         .optional()?;
+    Ok(figures)
+}
+
+/// A lot's stored figures when they were computed after event `after_seq` (verify
+/// compares them with figures recomputed from the records); `None` when none were or
+/// they are older.
+pub fn stored_figures(
+    conn: &rusqlite::Connection,
+    lot: &str,
+    after_seq: i64,
+) -> Result<Option<(LotFigures, Vec<CycleFigures>)>> {
+    let figures = stored_lot_figures(conn, lot, after_seq)?;
     let Some(figures) = figures else {
         return Ok(None);
     };
-    let mut st = conn.prepare_cached(
-        "SELECT batch_id, cycle_no, ton, ton_per_mol_metal_available, cumulative_ton,
-             tof_average_per_h, tof_initial_per_h, k_app_per_h, k_app_se_per_h, activity,
-             activity_se, activity_basis, metal_charged_mmol, metal_available_mmol,
-             catalyst_to_substrate_mol_per_mol, flags
-         FROM cycle_figures WHERE lot = ?1 ORDER BY cycle_no, batch_id",
-    )?;
+    let mut st = conn.prepare_cached(&format!(
+        "SELECT {CYCLE_FIGURE_COLUMNS} FROM cycle_figures WHERE lot = ?1 ORDER BY cycle_no, batch_id"
+    ))?;
     let cycles = st
-        .query_map([lot], |r| {
-            Ok(CycleFigures {
-                batch_id: r.get(0)?,
-                cycle_no: r.get(1)?,
-                ton: r.get(2)?,
-                ton_per_mol_metal_available: r.get(3)?,
-                cumulative_ton: r.get(4)?,
-                tof_average_per_h: r.get(5)?,
-                tof_initial_per_h: r.get(6)?,
-                k_app_per_h: r.get(7)?,
-                k_app_se_per_h: r.get(8)?,
-                activity: r.get(9)?,
-                activity_se: r.get(10)?,
-                activity_basis: r.get(11)?,
-                metal_charged_mmol: r.get(12)?,
-                metal_available_mmol: r.get(13)?,
-                catalyst_to_substrate: r.get(14)?,
-                flags_json: r.get(15)?,
-            })
-        })?
+        .query_map([lot], cycle_figures_row)?
         .collect::<rusqlite::Result<Vec<_>>>()?;
     Ok(Some((figures, cycles)))
+}
+
+const CYCLE_FIGURE_COLUMNS: &str = "batch_id, cycle_no, ton, ton_per_mol_metal_available,
+    cumulative_ton, tof_average_per_h, tof_initial_per_h, k_app_per_h, k_app_se_per_h, activity,
+    activity_se, activity_basis, metal_charged_mmol, metal_available_mmol,
+    catalyst_to_substrate_mol_per_mol, flags";
+
+fn cycle_figures_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<CycleFigures> {
+    Ok(CycleFigures {
+        batch_id: r.get(0)?,
+        cycle_no: r.get(1)?,
+        ton: r.get(2)?,
+        ton_per_mol_metal_available: r.get(3)?,
+        cumulative_ton: r.get(4)?,
+        tof_average_per_h: r.get(5)?,
+        tof_initial_per_h: r.get(6)?,
+        k_app_per_h: r.get(7)?,
+        k_app_se_per_h: r.get(8)?,
+        activity: r.get(9)?,
+        activity_se: r.get(10)?,
+        activity_basis: r.get(11)?,
+        metal_charged_mmol: r.get(12)?,
+        metal_available_mmol: r.get(13)?,
+        catalyst_to_substrate: r.get(14)?,
+        flags_json: r.get(15)?,
+    })
+}
+
+/// One batch's stored figures in lot `lot` (a lot checked cycle by cycle).
+pub fn stored_cycle_figures(
+    conn: &rusqlite::Connection,
+    lot: &str,
+    batch: &str,
+) -> Result<Option<CycleFigures>> {
+    use rusqlite::OptionalExtension as _;
+    Ok(conn
+        .prepare_cached(&format!(
+            "SELECT {CYCLE_FIGURE_COLUMNS} FROM cycle_figures WHERE batch_id = ?1 AND lot = ?2"
+        ))?
+        .query_row(params![batch, lot], cycle_figures_row)
+        .optional()?)
+}
+
+/// How many cycles of lot `lot` have stored figures.
+pub fn cycle_figures_count(conn: &rusqlite::Connection, lot: &str) -> Result<usize> {
+    let n: i64 = conn
+        .prepare_cached("SELECT COUNT(*) FROM cycle_figures WHERE lot = ?1")?
+        .query_row([lot], |r| r.get(0))?;
+    Ok(usize::try_from(n).unwrap_or(0))
 }
 
 /// Every batch id of `cycles`, for "did you mean" suggestions.

@@ -233,7 +233,7 @@ fn full_coverage_grid() {
                     // `named_power_across_orders`) and the average on first-order data at
                     // n = 10, sd 0.03 (96.0 % at 10,000: first order lies between the straight
                     // line and second order, whose tails the average carries; the straight
-                    // line itself is covered in only 83 %, `auto_on_straight_line_data`).
+                    // line itself is covered in only 83 %, `auto_misses_by_true_model`).
                     let left = sd < 0.04
                         && ((!auto && model == ModelId::Power && n == 6)
                             || (auto && model == ModelId::FirstOrder && n == 10));

@@ -14,7 +14,9 @@
 //! likelihood, and the average combines the models' tail areas (see `turnbook::fit`'s
 //! forecast and average modules). The CI runs a representative subset; the whole grid is
 //! `#[ignore]`d (run it with
-//! `cargo test --release --test fit_averaging -- --ignored --nocapture`).
+//! `cargo test --release --test fit_averaging -- --ignored --nocapture`). Ignored
+//! diagnostics also draw from a straight-line loss and from the power law across its order
+//! m, to show where the cells left outside 85–95 % miss (figures in tests/benches/README.md).
 
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
@@ -29,6 +31,7 @@ const X_TRUE: f64 = 25.0;
 fn truth(model: ModelId) -> Vec<f64> {
     match model {
         ModelId::FirstOrder => vec![1.0, 2f64.ln() / X_TRUE],
+        ModelId::Linear => vec![1.0, 0.5 / X_TRUE],
         ModelId::SecondOrder => vec![1.0, 1.0 / X_TRUE],
         // (1 + 0.5·kd·25)^(−2) = 0.5 ⇒ kd = (√2 − 1)/12.5.
         ModelId::Power => vec![1.0, (2f64.sqrt() - 1.0) / (0.5 * X_TRUE), 1.5],
@@ -224,11 +227,15 @@ fn full_coverage_grid() {
                 for auto in [false, true] {
                     seed += 1;
                     let c = report(model, auto, sd, n, 1000, seed);
-                    // Held to 85–95 %: every cell but these two, printed and left open: the
-                    // power law named alone at n = 6, sd 0.03 (96.5 %; its transformed-scale
-                    // interval at 3 degrees of freedom) and the average on first-order data at
-                    // n = 10, sd 0.03 (95.7 %, within the binomial error of 1,000 trials of
-                    // the edge).
+                    // Held to 85–95 %: every cell but these two, printed and left open
+                    // (figures and the methods tried in tests/benches/README.md): the power
+                    // law named alone at n = 6, sd 0.03 (96.5 % at 10,000 series: six cycles
+                    // do not identify the order, no lower end lies above the truth for any
+                    // order in 0–5, and upper ends miss more often the larger the order,
+                    // `named_power_across_orders`) and the average on first-order data at
+                    // n = 10, sd 0.03 (96.0 % at 10,000: first order lies between the straight
+                    // line and second order, whose tails the average carries; the straight
+                    // line itself is covered in only 83 %, `auto_misses_by_true_model`).
                     let left = sd < 0.04
                         && ((!auto && model == ModelId::Power && n == 6)
                             || (auto && model == ModelId::FirstOrder && n == 10));
@@ -315,5 +322,160 @@ fn diagnose_open_cells() {
                 "  {k}: {c} trials, {cov} cover, lower above truth {low}, upper below {high}"
             );
         }
+    }
+}
+
+/// Power law parameters of order m with a0 = 1 and y(25) = 0.5:
+/// (1 + q·kd·25)^(−1/q) = 0.5, q = m − 1 ⇒ kd = (2^q − 1)/(25·q) (ln 2/25 at m = 1).
+fn power_truth(m: f64) -> Vec<f64> {
+    let q = m - 1.0;
+    let kd = if q.abs() < 1e-12 {
+        2f64.ln() / X_TRUE
+    } else {
+        (2f64.powf(q) - 1.0) / (q * X_TRUE)
+    };
+    vec![1.0, kd, m]
+}
+
+/// Where a cell's intervals miss: (coverage, lower end above the truth, upper end below
+/// it, open above), each a share of `trials` series drawn from `model` with parameters `p`.
+fn miss_sides(
+    model: ModelId,
+    p: &[f64],
+    auto: bool,
+    sd: f64,
+    n: usize,
+    trials: usize,
+    seed: u64,
+) -> [f64; 4] {
+    assert!((model.eval(X_TRUE, p) - 0.5).abs() < 1e-9);
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let noise = Normal::new(0.0, sd).expect("valid sd");
+    let x: Vec<f64> = (1..=n).map(|i| i as f64).collect();
+    let opts = options(model, auto);
+    let mut k = [0usize; 4];
+    for _ in 0..trials {
+        let a = simulated(model, p, &x, &noise, &mut rng, &opts);
+        let fc = a.forecast.as_ref();
+        k[0] += usize::from(covers(&a));
+        k[1] += usize::from(fc.and_then(|f| f.lower).is_some_and(|l| l > X_TRUE));
+        k[2] += usize::from(fc.and_then(|f| f.upper).is_some_and(|u| u < X_TRUE));
+        k[3] += usize::from(fc.is_some_and(|f| f.upper.is_none()));
+    }
+    k.map(|c| c as f64 / trials as f64)
+}
+
+fn print_sides(label: &str, s: [f64; 4]) {
+    eprintln!(
+        "{label}: coverage {:.3}  lower above truth {:.3}  upper below {:.3}  open above {:.3}",
+        s[0], s[1], s[2], s[3]
+    );
+}
+
+/// The two cells outside 85–95 % at 10,000 series, two seeds each (one binomial sd about
+/// 0.2 points).
+#[test]
+#[ignore = "diagnostic: about ten seconds in a release build"]
+fn open_cells_at_ten_thousand() {
+    for (model, auto, n, seeds) in [
+        (ModelId::Power, false, 6, [1025u64, 2025]),
+        (ModelId::FirstOrder, true, 10, [1004, 2004]),
+    ] {
+        for seed in seeds {
+            let s = miss_sides(model, &truth(model), auto, 0.03, n, 10_000, seed);
+            let label = format!("{} auto={auto} n {n} sd 0.03 seed {seed}", model.id());
+            print_sides(&label, s);
+        }
+    }
+}
+
+/// The power law named alone, with the true order m across its documented range (the
+/// crossing at cycle 25 throughout): where its interval misses. At six cycles the order is
+/// not identified (most fits end at m = 0 or m = 5), no lower end lies above the truth, and
+/// the upper end misses more often the larger m is.
+#[test]
+#[ignore = "diagnostic: about a minute in a release build"]
+fn named_power_across_orders() {
+    for (n, sd) in [(6, 0.03), (6, 0.05), (10, 0.03), (10, 0.05), (20, 0.03)] {
+        for m in [0.0, 0.5, 1.0, 1.5, 2.0, 3.0, 4.0, 5.0] {
+            let s = miss_sides(ModelId::Power, &power_truth(m), false, sd, n, 2000, 4242);
+            print_sides(&format!("power named n {n:>2} sd {sd} m {m}"), s);
+        }
+    }
+}
+
+/// The power law named alone: its test statistic at the true crossing, against Student's t
+/// on n − 3 degrees of freedom, for fits inside the order's range and fits held at its ends.
+#[test]
+#[ignore = "diagnostic"]
+fn diagnose_power_statistic() {
+    use turnbook::fit::forecast::FitDecision;
+    let model = ModelId::Power;
+    for (n, sd, seed) in [(6usize, 0.03, 1025u64), (6, 0.05, 1031), (10, 0.03, 1027)] {
+        let t2 = turnbook::fit::t_quantile(0.90, n - 3).expect("defined");
+        let p = truth(model);
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let noise = Normal::new(0.0, sd).expect("valid sd");
+        let x: Vec<f64> = (1..=n).map(|i| i as f64).collect();
+        let opts = options(model, false);
+        // (held at a bound, z at the truth)
+        let mut zs: Vec<(bool, f64)> = Vec::new();
+        for _ in 0..4000 {
+            let a = simulated(model, &p, &x, &noise, &mut rng, &opts);
+            let held = a.notes.iter().any(|s| s.contains("physical bound"));
+            let Some(fit) = a.fit.as_ref() else { continue };
+            let c = 0.5 * fit.predict(0.0);
+            let z = FitDecision::new(fit, c, 0.5)
+                .root(X_TRUE)
+                .unwrap_or(f64::NAN);
+            zs.push((held, z));
+        }
+        for held in [false, true] {
+            let mut z: Vec<f64> = zs.iter().filter(|e| e.0 == held).map(|e| e.1).collect();
+            z.sort_by(f64::total_cmp);
+            let k = z.len() as f64;
+            let q = |p: f64| z[((k - 1.0) * p) as usize];
+            eprintln!(
+                "n {n} sd {sd} held at a bound {held}: {} fits; z > t {:.3}, z < −t {:.3} \
+                 (t = {t2:.3}); quantiles 5/50/95 %: {:.2} {:.2} {:.2}",
+                z.len(),
+                z.iter().filter(|&&v| v > t2).count() as f64 / k,
+                z.iter().filter(|&&v| v < -t2).count() as f64 / k,
+                q(0.05),
+                q(0.5),
+                q(0.95),
+            );
+        }
+    }
+}
+
+/// `auto` by true model, the straight line (zero order, the earliest-crossing member of the
+/// average) included, with the straight line also named alone: where the intervals miss.
+#[test]
+#[ignore = "diagnostic: about half a minute in a release build"]
+fn auto_misses_by_true_model() {
+    for model in [
+        ModelId::Linear,
+        ModelId::FirstOrder,
+        ModelId::Power,
+        ModelId::FirstOrderResidual,
+        ModelId::SecondOrder,
+    ] {
+        for (sd, n) in [(0.03, 6), (0.03, 10), (0.05, 10), (0.03, 20)] {
+            let s = miss_sides(model, &truth(model), true, sd, n, 4000, 555);
+            print_sides(&format!("{} auto n {n} sd {sd}", model.id()), s);
+        }
+    }
+    for (sd, n) in [(0.03, 6), (0.03, 10), (0.05, 10), (0.03, 20)] {
+        let s = miss_sides(
+            ModelId::Linear,
+            &truth(ModelId::Linear),
+            false,
+            sd,
+            n,
+            4000,
+            555,
+        );
+        print_sides(&format!("linear named n {n} sd {sd}"), s);
     }
 }

@@ -71,7 +71,7 @@ pub use ingestion::{
     FileOutcome, Ingestor, RunSummary, files_recorded_after, files_under, ingest_files,
     newest_file_id,
 };
-pub use large_lot::recomputed_outputs;
+pub use large_lot::{STREAM_FROM, recomputed_outputs};
 pub use listing::{Listing, RefusedEntry, collect_files};
 pub use lot_list::{ListedFrom, write_lots_json};
 pub use lots::{

@@ -131,8 +131,10 @@ fn first_pass(
     Ok(ascending.then(|| scan.finish()))
 }
 
-/// Each cycle of the lot in the store's order, with its sources, record flags and chemistry
-/// input.
+/// Each cycle of the lot in the store's order, with its record flags and chemistry input,
+/// and its sources where the chemistry reads them (an assay's σ comes from the profile
+/// of the file a conversion was read from); otherwise the sources are looked up only for
+/// the cycles a message lists ([`with_sources`]).
 fn each_cycle(
     conn: &Connection,
     cfg: &Config,
@@ -140,13 +142,41 @@ fn each_cycle(
     mut f: impl FnMut(CycleState, CycleInput) -> Result<()>,
 ) -> Result<()> {
     let mut i = 0;
+    let needed = sources_needed(cfg);
     records::each_cycle_of_lot(conn, lot, |v| {
-        let sources = store::lots::sources_of_batch(conn, &v.batch_id)?;
+        let sources = if needed {
+            store::lots::sources_of_batch(conn, &v.batch_id)?
+        } else {
+            Vec::new()
+        };
         let c = super::lots::cycle_state(i, v, sources);
         i += 1;
         let input = super::lots::cycle_input(cfg, &c);
         f(c, input)
     })
+}
+
+/// Whether a cycle's chemistry reads its sources: when some profile states its assay's
+/// uncertainty.
+fn sources_needed(cfg: &Config) -> bool {
+    cfg.profiles
+        .values()
+        .any(|p| p.conversion_uncertainty.is_some())
+}
+
+/// The cycles with their sources, looked up now if the pass did not.
+fn with_sources(
+    conn: &Connection,
+    cfg: &Config,
+    cycles: VecDeque<CycleState>,
+) -> Result<Vec<CycleState>> {
+    let mut cycles: Vec<CycleState> = cycles.into();
+    if !sources_needed(cfg) {
+        for c in &mut cycles {
+            c.sources = store::lots::sources_of_batch(conn, &c.view.batch_id)?;
+        }
+    }
+    Ok(cycles)
 }
 
 /// What the second pass keeps of the cycles.
@@ -212,7 +242,7 @@ fn finish(
     state.lifetime_ton = super::lots::plateau_lifetime_of(&kept.cumulative.0, &kept.cumulative.1);
     state.analysis = analysis;
     state.attention = attention;
-    state.cycles = kept.newest.into();
+    state.cycles = with_sources(conn, cfg, kept.newest)?;
     state.streamed = Some(Box::new(StreamedCycles {
         totals: kept.totals,
         hints: None,

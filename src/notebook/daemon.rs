@@ -72,9 +72,25 @@ fn log_outcome(outcome: &FileOutcome) {
     }
 }
 
+impl PipelineSink {
+    /// The idle service holds its working memory, not its peak: called when the start-up
+    /// scan is done. A failure only costs memory, so it is logged, not returned.
+    fn release_memory(&self) {
+        match self.ingestor.lock() {
+            Ok(ing) => {
+                if let Err(e) = ing.release_memory() {
+                    tracing::warn!(error = %e, "could not shrink the store's cache");
+                }
+            }
+            Err(_) => tracing::warn!("the ingestor was poisoned by an earlier panic"),
+        }
+    }
+}
+
 impl FileSink for PipelineSink {
     fn caught_up(&self) {
         tracing::info!("start-up scan done; every file found was handled");
+        self.release_memory();
         super::sdnotify::notify("READY=1\nSTATUS=watching; start-up scan done");
     }
 
@@ -119,6 +135,8 @@ impl FileSink for PipelineSink {
             return Ok(());
         }
         log_outcome(&ing.ingest_file(path)?);
+        drop(ing);
+        super::ingestion::release_heap();
         Ok(())
     }
 

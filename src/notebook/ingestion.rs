@@ -333,6 +333,14 @@ impl Ingestor {
         &self.conn
     }
 
+    /// Give back the memory the last work needed: SQLite's cache, then the heap's free
+    /// pages to the system (see [`release_heap`]).
+    pub fn release_memory(&self) -> Result<(), StoreError> {
+        bulk::shrink_memory(&self.conn)?;
+        release_heap();
+        Ok(())
+    }
+
     pub fn config(&self) -> &Config {
         &self.cfg
     }
@@ -1696,4 +1704,14 @@ pub fn recorded_path(path: &Path) -> String {
         .unwrap_or_else(|_| path.to_path_buf())
         .display()
         .to_string()
+}
+
+/// Return the heap's free pages to the system (glibc's `malloc_trim`): after a start-up
+/// scan or a large export the service idles at its working size, not at its peak.
+pub fn release_heap() {
+    #[cfg(all(target_os = "linux", target_env = "gnu"))]
+    // SAFETY: malloc_trim only walks the allocator's own free lists; it takes no pointer.
+    unsafe {
+        libc::malloc_trim(0);
+    }
 }

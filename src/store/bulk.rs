@@ -36,6 +36,13 @@ pub fn tune_service(conn: &Connection, cache_kib: i64, checkpoint_pages: i64) ->
     Ok(())
 }
 
+/// Hand the connection's page cache and other memory SQLite can spare back to the heap
+/// (`PRAGMA shrink_memory`): an idle service keeps no pages of its start-up scan.
+pub fn shrink_memory(conn: &Connection) -> Result<()> {
+    conn.execute_batch("PRAGMA shrink_memory")?;
+    Ok(())
+}
+
 /// The database's page size in bytes.
 pub fn page_size(conn: &Connection) -> Result<i64> {
     Ok(conn.query_row("PRAGMA page_size", [], |r| r.get(0))?)

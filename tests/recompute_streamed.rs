@@ -190,6 +190,22 @@ fn a_registered_lot_past_the_streaming_size_is_stored_as_held_and_verify_compare
         held.contains("\"cycles\":20500"),
         "the line counts every cycle"
     );
+    // A message lists the newest 30 cycles, oldest first, each with its file.
+    let snapshot = held
+        .lines()
+        .find_map(|l| l.strip_prefix("snapshot "))
+        .unwrap();
+    let snapshot: serde_json::Value = serde_json::from_str(snapshot).unwrap();
+    let rows = snapshot["evidence"].as_array().unwrap();
+    assert_eq!(rows.len(), 30);
+    assert_eq!(rows[0]["cycle"], 20471);
+    assert_eq!(rows[29]["cycle"], 20500);
+    assert!(
+        rows[29]["source_file"]
+            .as_str()
+            .unwrap()
+            .ends_with("history.csv")
+    );
 
     // verify recomputes it (streamed) and finds it identical, then catches an edited row.
     let report = turnbook::notebook::verify(&cfg, &[]).unwrap();

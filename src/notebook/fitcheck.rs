@@ -213,7 +213,7 @@ fn fresh_state(
         finding: None,
     };
     let from = super::large_lot::STREAM_FROM;
-    let streamed = super::large_lot::streamed_state(conn, cfg, lot, from, |s, c| {
+    let mut compare = |s: &LotState, c: &super::lots::CycleState| {
         cycles.count += 1;
         if cycles.finding.is_some() {
             return Ok(());
@@ -232,7 +232,13 @@ fn fresh_state(
             )),
         };
         Ok(())
-    })?;
+    };
+    let mut streamed = super::large_lot::streamed_state(conn, cfg, lot, from, &mut compare)?;
+    if streamed.is_none() && store::records::cycle_count_of_lot(conn, lot)? >= from {
+        // A lot nobody registered, recomputed the way the recompute streams it.
+        streamed = super::lots::pending_state_streamed(conn, cfg, lot, &mut compare)?
+            .map(|(state, _)| state);
+    }
     Ok(match streamed {
         Some(state) => (state, Some(cycles)),
         None => (lot_state(conn, cfg, lot)?, None),

@@ -250,27 +250,29 @@ fn finish(
     Ok(state)
 }
 
-/// What a recompute stores for registered lot `lot`, as text (its fit, lot line, alert
-/// snapshot, lot figures and every cycle's figures; timestamps are not part of it): from
-/// the held state, or streamed when `streamed` (at any number of cycles). `None` when
-/// the lot is not registered. Both must agree; the tests compare them.
+/// What a recompute stores for lot `lot`, as text (its fit, lot line, alert snapshot, lot
+/// figures and every cycle's figures; timestamps are not part of it): from the held state,
+/// or streamed when `streamed` (a registered lot at any number of cycles, or one nobody
+/// registered). Both must agree; the tests compare them.
 pub fn recomputed_outputs(
     cfg: &Config,
     lot: &str,
     streamed: bool,
 ) -> super::Result<Option<String>> {
     let conn = store::open(&cfg.database_path())?;
-    if records::lot(&conn, lot)?.is_none() {
-        return Ok(None);
-    }
     let mut cycles = Vec::new();
+    let mut row = |s: &LotState, c: &CycleState| {
+        cycles.push(super::export::cycle_row(s, c));
+        Ok(())
+    };
     let state = if streamed {
-        match streamed_state(&conn, cfg, lot, 0, |s, c| {
-            cycles.push(super::export::cycle_row(s, c));
-            Ok(())
-        })? {
+        let registered = streamed_state(&conn, cfg, lot, 0, &mut row)?;
+        match registered {
             Some(s) => s,
-            None => return Ok(None),
+            None => match super::lots::pending_state_streamed(&conn, cfg, lot, &mut row)? {
+                Some((s, _)) => s,
+                None => return Ok(None),
+            },
         }
     } else {
         let s = super::lots::lot_state(&conn, cfg, lot)?;

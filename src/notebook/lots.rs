@@ -444,18 +444,21 @@ pub(crate) fn pending_state_streamed(
         feed_lots: Default::default(),
         streamed: None,
     };
-    let mut flags: BTreeSet<String> = BTreeSet::new();
-    let mut count = 0;
+    let mut totals = CycleTotals::default();
     records::each_cycle_of_lot(conn, lot, |v| {
-        let mut c = cycle_state(count, v, Vec::new());
+        let mut c = cycle_state(totals.count, v, Vec::new());
         c.flags.push("pending".into());
         each(&state, &c)?;
-        flags.extend(c.flags);
-        count += 1;
+        totals.add(&c);
         Ok(())
     })?;
-    state.lot_flags = flags.into_iter().collect();
+    let count = totals.count;
+    state.lot_flags = totals.flags.iter().cloned().collect();
     state.attention.push(pending_attention(lot, count));
+    state.streamed = Some(Box::new(StreamedCycles {
+        totals,
+        hints: None,
+    }));
     Ok(Some((state, count)))
 }
 

@@ -23,6 +23,8 @@ const STRETCH_EVENTS: usize = 512;
 const STRETCH_ROWS: usize = 20_000;
 /// Parsed events kept for rebuilding cycles: a file of many batches is parsed once.
 const PARSED_KEPT: usize = 16;
+/// Rows of older parsed events kept beside the newest (about 200 bytes each).
+const PARSED_ROWS_KEPT: usize = 16_384;
 
 /// A row of `batch_sources`: an event wrote values of a batch from a file line.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -526,13 +528,44 @@ impl<'c, 'k> Walk<'c, 'k> {
 }
 
 /// The measurements of a parsed event and whether it was a file's (which sets a cycle's
-/// first sight).
+/// first sight), with each batch's rows found by its id: a part of a large export holds
+/// 2,048 batches, and scanning its 20,000 rows for each of them made `verify` quadratic.
 struct Parsed {
     from_file: bool,
     rows: Vec<MeasurementRow>,
+    by_batch: HashMap<String, Vec<usize>>,
 }
 
-/// The few events parsed last.
+impl Parsed {
+    fn new(from_file: bool, rows: Vec<MeasurementRow>) -> Self {
+        let mut by_batch: HashMap<String, Vec<usize>> = HashMap::new();
+        for (i, m) in rows.iter().enumerate() {
+            match by_batch.get_mut(m.batch_id.as_str()) {
+                Some(v) => v.push(i),
+                None => {
+                    by_batch.insert(m.batch_id.clone(), vec![i]);
+                }
+            }
+        }
+        Parsed {
+            from_file,
+            rows,
+            by_batch,
+        }
+    }
+
+    /// The rows of `batch`, in the event's order.
+    fn rows_of<'a>(&'a self, batch: &str) -> impl Iterator<Item = &'a MeasurementRow> + 'a {
+        self.by_batch
+            .get(batch)
+            .into_iter()
+            .flatten()
+            .filter_map(|&i| self.rows.get(i))
+    }
+}
+
+/// The few events parsed last: at most [`PARSED_KEPT`] events and, beyond the newest,
+/// [`PARSED_ROWS_KEPT`] rows (a large export's parts are thousands of rows each).
 #[derive(Default)]
 struct ParsedEvents(VecDeque<(i64, Rc<Parsed>)>);
 
@@ -546,21 +579,15 @@ impl ParsedEvents {
         let p = Rc::new(match payload {
             Some(
                 Payload::FileIngested { measurements, .. } | Payload::FileRows { measurements, .. },
-            ) => Parsed {
-                from_file: true,
-                rows: measurements,
-            },
-            Some(Payload::Correction { measurement, .. }) => Parsed {
-                from_file: false,
-                rows: vec![measurement],
-            },
-            _ => Parsed {
-                from_file: false,
-                rows: Vec::new(),
-            },
+            ) => Parsed::new(true, measurements),
+            Some(Payload::Correction { measurement, .. }) => Parsed::new(false, vec![measurement]),
+            _ => Parsed::new(false, Vec::new()),
         });
-        if self.0.len() >= PARSED_KEPT {
-            self.0.pop_front();
+        let mut rows: usize = self.0.iter().map(|(_, p)| p.rows.len()).sum();
+        while !self.0.is_empty() && (self.0.len() >= PARSED_KEPT || rows > PARSED_ROWS_KEPT) {
+            if let Some((_, old)) = self.0.pop_front() {
+                rows -= old.rows.len();
+            }
         }
         self.0.push_back((seq, Rc::clone(&p)));
         Ok(p)
@@ -581,7 +608,7 @@ fn check_batch(
     let mut first_seq = None;
     for &seq in seqs {
         let p = parsed.get(conn, seq)?;
-        for m in p.rows.iter().filter(|m| m.batch_id == batch) {
+        for m in p.rows_of(batch) {
             if p.from_file && first_seq.is_none() {
                 first_seq = Some(seq);
             }

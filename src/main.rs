@@ -7,6 +7,7 @@ use clap::Parser;
 fn main() -> ExitCode {
     restore_default_sigpipe();
     restrict_umask();
+    fixed_map_threshold();
     turnbook::store::configure_library();
     let cli = turnbook::cli::Cli::parse();
     turnbook::cli::init_logging(cli.log_json, cli.command.is_service());
@@ -35,5 +36,17 @@ fn restore_default_sigpipe() {
     // disposition to its default has no other effect on the process.
     unsafe {
         libc::signal(libc::SIGPIPE, libc::SIG_DFL);
+    }
+}
+
+/// Allocations of 1 MiB or more are mapped and unmapped on their own (glibc's default,
+/// fixed): left dynamic, the threshold rises after the first large buffer is freed and
+/// later ones stay in the heap, so a process idles at its peak (`mallopt(3)`, M_MMAP_THRESHOLD).
+fn fixed_map_threshold() {
+    #[cfg(all(target_os = "linux", target_env = "gnu"))]
+    // SAFETY: called first thing in main, before any thread exists; mallopt only tunes
+    // the allocator's policy for later allocations.
+    unsafe {
+        libc::mallopt(libc::M_MMAP_THRESHOLD, 1 << 20);
     }
 }

@@ -52,7 +52,7 @@ pub(crate) fn streamed_state(
     let Some(basis) = first_pass(conn, cfg, lot, &facts, &opts)? else {
         return Ok(None);
     };
-    let mut state = super::lots::registered_shell(cfg, lot, &rec);
+    let mut state = super::lots::shell(cfg, lot, Some(&rec));
     state.reference_cycle = basis.reference_cycle();
     state.reference_moved = basis.reference_moved();
     state.feed_lots = records::feed_lots_of_lot(conn, lot)?;

@@ -284,11 +284,11 @@ pub fn lot_state_as_of(
     })
 }
 
-/// A registered lot's state before its cycles and analysis are put in.
-pub(crate) fn registered_shell(cfg: &Config, lot: &str, rec: &LotRecord) -> LotState {
+/// A lot's state before its cycles and analysis are put in (`rec`: its registration).
+pub(crate) fn shell(cfg: &Config, lot: &str, rec: Option<&LotRecord>) -> LotState {
     LotState {
         lot: lot.to_string(),
-        record: Some(rec.clone()),
+        record: rec.cloned(),
         cycles: Vec::new(),
         analysis: None,
         basis: basis(cfg),
@@ -429,21 +429,7 @@ pub(crate) fn pending_state_streamed(
     if records::lot(conn, lot)?.is_some() {
         return Ok(None);
     }
-    let mut state = LotState {
-        lot: lot.to_string(),
-        record: None,
-        cycles: Vec::new(),
-        analysis: None,
-        basis: basis(cfg),
-        lifetime_ton: None,
-        attention: Vec::new(),
-        activity_basis: cfg.chemistry.activity_basis,
-        reference_cycle: None,
-        reference_moved: false,
-        lot_flags: Vec::new(),
-        feed_lots: Default::default(),
-        streamed: None,
-    };
+    let mut state = shell(cfg, lot, None);
     let mut totals = CycleTotals::default();
     records::each_cycle_of_lot(conn, lot, |v| {
         let mut c = cycle_state(totals.count, v, Vec::new());

@@ -344,6 +344,15 @@ const TAMPERS: &[Tamper] = &[
             "INSERT INTO cycles(batch_id, lot, conversion, first_seq) VALUES ('B77', 'PD-7', 0.5, 1)",
         )
     }),
+    ("kept total of cycles", "kept_totals", |c| {
+        sql(c, "UPDATE kept_totals SET n = n + 1 WHERE name = 'cycles'")
+    }),
+    ("kept cycles of a lot", "kept_totals", |c| {
+        sql(c, "UPDATE lot_cycle_counts SET n = n + 1")
+    }),
+    ("kept files of a minute", "kept_totals", |c| {
+        sql(c, "UPDATE ingested_by_minute SET n = n + 1")
+    }),
     ("batch_sources line", "batch_sources", |c| {
         sql(
             c,

@@ -703,7 +703,7 @@ fn an_upgrade_from_version_4_keeps_every_value_with_its_origin() {
     assert_ne!(store::PAGE_SIZE, 4096);
 
     // The schema is the newest, every migration recorded once.
-    assert_eq!(schema_version(&conn), 19);
+    assert_eq!(schema_version(&conn), 20);
     assert_eq!(schema_version(&conn), migrate::latest());
     // 0019: no large file in progress; provenance rows no longer a foreign key to files.
     assert_eq!(

@@ -180,10 +180,9 @@ pub fn cycles_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Vec<Cycl
 
 /// Every lot name that has a registration or cycles.
 pub fn lot_names(conn: &Connection) -> Result<Vec<String>> {
-    let mut stmt = conn.prepare_cached(&format!(
-        "{} SELECT lot FROM lots UNION SELECT lot FROM d WHERE lot IS NOT NULL ORDER BY 1",
-        DISTINCT_CYCLE_LOTS
-    ))?;
+    let mut stmt = conn.prepare_cached(
+        "SELECT lot FROM lots UNION SELECT lot FROM lot_cycle_counts WHERE n > 0 ORDER BY 1",
+    )?;
     let rows = stmt
         .query_map([], |r| r.get(0))?
         .collect::<std::result::Result<Vec<String>, _>>()?;
@@ -490,13 +489,6 @@ pub fn current_state_of(
         .optional()?)
 }
 
-/// The distinct lots of `cycles` as the table `d(lot)`, by a skip scan of the `cycles_lot`
-/// index: one seek per lot (a recursive query; see SQLite's documentation of `WITH
-/// RECURSIVE`). The last row of `d` is NULL.
-pub(crate) const DISTINCT_CYCLE_LOTS: &str = "WITH RECURSIVE d(lot) AS (
-    SELECT MIN(lot) FROM cycles
-    UNION ALL SELECT (SELECT MIN(lot) FROM cycles WHERE lot > d.lot) FROM d WHERE d.lot IS NOT NULL)";
-
 /// The registered lots (those with a lot record), by name.
 pub fn registered_lots(conn: &Connection) -> Result<BTreeSet<String>> {
     let mut stmt = conn.prepare_cached("SELECT lot FROM lots")?;
@@ -548,8 +540,8 @@ pub fn lots_batched_since(conn: &Connection, since: &str) -> Result<BTreeSet<Str
 
 /// The lots the store names, read once for a view that needs them several ways (names,
 /// lots nobody registered, lots with no batch): the registered lots, and the lots the
-/// cycles name by one skip scan of `cycles_lot`. Each further question is answered from
-/// these sets instead of another seek a lot.
+/// cycles name, from the per-lot cycle counts migration 0020 keeps. Each further
+/// question is answered from these sets instead of another read.
 #[derive(Debug, Clone, Default)]
 pub struct LotIndex {
     pub registered: BTreeSet<String>,
@@ -558,9 +550,7 @@ pub struct LotIndex {
 
 impl LotIndex {
     pub fn read(conn: &Connection) -> Result<Self> {
-        let mut stmt = conn.prepare_cached(&format!(
-            "{DISTINCT_CYCLE_LOTS} SELECT lot FROM d WHERE lot IS NOT NULL"
-        ))?;
+        let mut stmt = conn.prepare_cached("SELECT lot FROM lot_cycle_counts WHERE n > 0")?;
         let with_cycles = stmt
             .query_map([], |r| r.get(0))?
             .collect::<std::result::Result<BTreeSet<String>, _>>()?;
@@ -614,10 +604,8 @@ pub fn store_printed(
 
 /// True when the kept printed entries usable now (as [`each_printed`] gives them) account
 /// for every cycle that names a lot: their states' cycle counts add up to the number of
-/// such cycles, so no lot with cycles is without one and the lots to list are the
-/// registered ones and those of the entries. Counting `cycles` takes its pages, not its
-/// rows (SQLite counts an index's cells page by page); a lookup a lot in `cycles`, as
-/// [`lot_names`] makes, cost about 1 µs a lot.
+/// such cycles (the per-lot counts migration 0020 keeps), so no lot with cycles is without
+/// one and the lots to list are the registered ones and those of the entries.
 pub fn printed_cover_cycles(
     conn: &Connection,
     (engine_version, config_sha256): (&str, &str),
@@ -628,7 +616,7 @@ pub fn printed_cover_cycles(
             "SELECT (SELECT COALESCE(SUM(p.cycles), 0) FROM lot_printed p
                      WHERE p.engine_version = ?1 AND p.config_sha256 = ?2 AND p.form = ?3
                        AND NOT EXISTS (SELECT 1 FROM lots_to_recompute r WHERE r.lot = p.lot))
-                  = (SELECT COUNT(*) FROM cycles) - (SELECT COUNT(*) FROM cycles WHERE lot IS NULL)",
+                  = (SELECT COALESCE(SUM(n), 0) FROM lot_cycle_counts)",
         )?
         .query_row([engine_version, config_sha256, form], |r| r.get(0))?)
 }

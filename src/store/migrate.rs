@@ -87,6 +87,11 @@ pub const MIGRATIONS: &[(i64, &str, &str)] = &[
         "files_in_progress",
         include_str!("../../schema/0019_files_in_progress.sql"),
     ),
+    (
+        20,
+        "kept_counts",
+        include_str!("../../schema/0020_kept_counts.sql"),
+    ),
 ];
 
 /// The newest schema version this build knows.

@@ -13,6 +13,7 @@ pub mod queries;
 pub mod records;
 pub mod replay;
 pub mod site;
+pub(crate) mod totals;
 pub mod web;
 
 use std::path::Path;

@@ -31,9 +31,37 @@ fn count(conn: &Connection, sql: &str, p: impl rusqlite::Params) -> Result<i64> 
     Ok(conn.query_row(sql, p, |r| r.get(0))?)
 }
 
+/// A total the triggers of migration 0020 keep (see `schema/0020_kept_counts.sql`).
+pub fn kept_total(conn: &Connection, name: &str) -> Result<i64> {
+    Ok(conn
+        .prepare_cached("SELECT n FROM kept_totals WHERE name = ?1")?
+        .query_row([name], |r| r.get(0))
+        .optional()?
+        .unwrap_or(0))
+}
+
+/// Ingested files seen at or after `since` (a stored timestamp): the kept per-minute
+/// totals of the minutes after the one `since` falls in, and a count of the rows of that
+/// minute. The work is bounded by the window's minutes, not by the files in it.
+fn ingested_since(conn: &Connection, since: &str) -> Result<i64> {
+    let minute: String = since.chars().take(16).collect();
+    // Every timestamp of that minute is `minute` followed by ':' and the seconds; ';'
+    // sorts right after ':'.
+    let minute_end = format!("{minute};");
+    let whole: i64 = conn
+        .prepare_cached("SELECT COALESCE(SUM(n), 0) FROM ingested_by_minute WHERE minute > ?1")?
+        .query_row([&minute], |r| r.get(0))?;
+    let part = count(
+        conn,
+        "SELECT COUNT(*) FROM source_files
+         WHERE outcome = 'ingested' AND seen_at >= ?1 AND seen_at < ?2",
+        [since, minute_end.as_str()],
+    )?;
+    Ok(whole + part)
+}
+
 /// File counts; `hour` and `day` are the stored timestamps an hour and a day ago.
 pub fn file_counts(conn: &Connection, hour: &str, day: &str) -> Result<FileCounts> {
-    let ing = "SELECT COUNT(*) FROM source_files WHERE outcome = 'ingested'";
     // `+outcome`: the rows are walked from the newest id back to the first ingested one
     // (at once, almost always). Through the outcome index SQLite fetched and sorted every
     // ingested file's row: 9 ms at 40,000 files.
@@ -44,43 +72,99 @@ pub fn file_counts(conn: &Connection, hour: &str, day: &str) -> Result<FileCount
             |r| Ok((r.get(0)?, r.get(1)?)),
         )
         .optional()?;
-    let by_outcome = |o: &str| {
-        count(
-            conn,
-            "SELECT COUNT(*) FROM source_files WHERE outcome = ?1",
-            [o],
-        )
-    };
     Ok(FileCounts {
-        ingested: count(conn, ing, [])?,
-        ingested_last_hour: count(conn, &format!("{ing} AND seen_at >= ?1"), [hour])?,
-        ingested_last_day: count(conn, &format!("{ing} AND seen_at >= ?1"), [day])?,
-        quarantined: by_outcome("rejected")?,
-        duplicates: by_outcome("duplicate")?,
+        ingested: kept_total(conn, "files-ingested")?,
+        ingested_last_hour: ingested_since(conn, hour)?,
+        ingested_last_day: ingested_since(conn, day)?,
+        quarantined: kept_total(conn, "files-rejected")?,
+        duplicates: kept_total(conn, "files-duplicate")?,
         last,
     })
 }
 
 /// Record counts; `lots` names the store's lots (read once by the caller).
 pub fn record_counts(conn: &Connection, lots: &super::lots::LotIndex) -> Result<RecordCounts> {
-    // Cycles without a lot, and those of each lot nobody registered (an index range a lot,
-    // few lots): no further seek per lot.
-    let mut pending = count(conn, "SELECT COUNT(*) FROM cycles WHERE lot IS NULL", [])?;
-    let mut of_lot = conn.prepare_cached("SELECT COUNT(*) FROM cycles WHERE lot = ?1")?;
+    // Cycles without a lot, and those of each lot nobody registered (few lots, a lookup
+    // each in the kept per-lot counts).
+    let mut pending = kept_total(conn, "cycles-without-lot")?;
+    let mut of_lot =
+        conn.prepare_cached("SELECT COALESCE(SUM(n), 0) FROM lot_cycle_counts WHERE lot = ?1")?;
     for lot in lots.unregistered() {
         pending += of_lot.query_row([lot], |r| r.get::<_, i64>(0))?;
     }
     Ok(RecordCounts {
-        // The partial index `cycles_conflicting` (0016) holds only cycles with conflicts.
-        conflicts: count(
-            conn,
-            "SELECT COALESCE(SUM(conflicts), 0) FROM cycles WHERE conflicts > 0",
-            [],
-        )?,
+        conflicts: kept_total(conn, "conflicts")?,
         lots: i64::try_from(lots.registered.len()).unwrap_or(i64::MAX),
-        cycles: count(conn, "SELECT COUNT(*) FROM cycles", [])?,
+        cycles: kept_total(conn, "cycles")?,
         pending_cycles: pending,
     })
+}
+
+/// The kept totals (migration 0020) that differ from a count of the rows themselves, as
+/// (what, kept, counted). `verify` reports them; empty when all agree. Counts every row.
+pub fn kept_totals_disagreeing(conn: &Connection) -> Result<Vec<(String, i64, i64)>> {
+    let mut out = Vec::new();
+    let pairs: [(&str, &str); 6] = [
+        (
+            "files-ingested",
+            "SELECT COUNT(*) FROM source_files WHERE outcome = 'ingested'",
+        ),
+        (
+            "files-rejected",
+            "SELECT COUNT(*) FROM source_files WHERE outcome = 'rejected'",
+        ),
+        (
+            "files-duplicate",
+            "SELECT COUNT(*) FROM source_files WHERE outcome = 'duplicate'",
+        ),
+        ("cycles", "SELECT COUNT(*) FROM cycles"),
+        (
+            "cycles-without-lot",
+            "SELECT COUNT(*) FROM cycles WHERE lot IS NULL",
+        ),
+        (
+            "conflicts",
+            "SELECT COALESCE(SUM(conflicts), 0) FROM cycles WHERE conflicts > 0",
+        ),
+    ];
+    for (name, sql) in pairs {
+        let (kept, counted) = (kept_total(conn, name)?, count(conn, sql, [])?);
+        if kept != counted {
+            out.push((name.to_string(), kept, counted));
+        }
+    }
+    let mut grouped = |what: &str, sql: &str| -> Result<()> {
+        let mut stmt = conn.prepare(sql)?;
+        let rows = stmt.query_map([], |r| Ok((r.get::<_, String>(0)?, r.get(1)?, r.get(2)?)))?;
+        for row in rows {
+            let (key, kept, counted): (String, i64, i64) = row?;
+            out.push((format!("{what} {key}"), kept, counted));
+        }
+        Ok(())
+    };
+    // Each side's keys against the other's: a key missing on one side counts as 0 there.
+    grouped(
+        "files ingested in minute",
+        "WITH c(minute, n) AS (SELECT substr(seen_at, 1, 16), COUNT(*) FROM source_files
+                              WHERE outcome = 'ingested' GROUP BY 1),
+              k(minute, n) AS (SELECT minute, n FROM ingested_by_minute WHERE n <> 0)
+         SELECT minute, COALESCE((SELECT n FROM k WHERE k.minute = m.minute), 0),
+                COALESCE((SELECT n FROM c WHERE c.minute = m.minute), 0)
+         FROM (SELECT minute FROM c UNION SELECT minute FROM k) m
+         WHERE COALESCE((SELECT n FROM k WHERE k.minute = m.minute), 0)
+            <> COALESCE((SELECT n FROM c WHERE c.minute = m.minute), 0)",
+    )?;
+    grouped(
+        "cycles of lot",
+        "WITH c(lot, n) AS (SELECT lot, COUNT(*) FROM cycles WHERE lot IS NOT NULL GROUP BY lot),
+              k(lot, n) AS (SELECT lot, n FROM lot_cycle_counts WHERE n <> 0)
+         SELECT lot, COALESCE((SELECT n FROM k WHERE k.lot = m.lot), 0),
+                COALESCE((SELECT n FROM c WHERE c.lot = m.lot), 0)
+         FROM (SELECT lot FROM c UNION SELECT lot FROM k) m
+         WHERE COALESCE((SELECT n FROM k WHERE k.lot = m.lot), 0)
+            <> COALESCE((SELECT n FROM c WHERE c.lot = m.lot), 0)",
+    )?;
+    Ok(out)
 }
 
 /// Every event that concerns a lot: its registrations, the files that brought its cycles,

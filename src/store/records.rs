@@ -54,6 +54,8 @@ struct FileStatements<'c> {
     source: rusqlite::Statement<'c>,
     cycle_get: rusqlite::Statement<'c>,
     cycle_put: rusqlite::Statement<'c>,
+    /// What the rows written change in the kept totals, added by [`FileWriter::finish`].
+    tally: super::totals::Tally,
     /// The rows of the last event of many rows read back, by batch (see
     /// [`stored_measurements`]).
     parsed: Option<(i64, HashMap<String, Vec<MeasurementRow>>)>,
@@ -67,6 +69,7 @@ impl<'c> FileStatements<'c> {
             source: conn.prepare(INSERT_SOURCE)?,
             cycle_get: conn.prepare(&SELECT_CYCLE)?,
             cycle_put: conn.prepare(&UPSERT_CYCLE)?,
+            tally: super::totals::Tally::default(),
             parsed: None,
         })
     }
@@ -363,6 +366,7 @@ impl<'t, 'c> FileWriter<'t, 'c> {
         )?;
         out.event_seq = seq;
         insert_file_prepared(&mut self.st.file, &file, seq)?;
+        self.st.tally.file(file.outcome, file.seen_at);
         let listed = self
             .tx
             .prepare_cached(
@@ -380,8 +384,9 @@ impl<'t, 'c> FileWriter<'t, 'c> {
         Ok(out)
     }
 
-    /// Record the counters the files took ids from.
+    /// Record the counters the files took ids from, and the kept totals of the rows.
     pub fn finish(mut self) -> Result<()> {
+        self.st.tally.write(self.tx)?;
         self.ids.finish(self.tx)
     }
 }
@@ -502,7 +507,10 @@ const INSERT_FILE: &str = "INSERT INTO source_files(id, sha256, path, size, mtim
 
 fn insert_file(tx: &Transaction<'_>, r: &FileRow, seq: i64) -> Result<()> {
     let mut stmt = tx.prepare_cached(INSERT_FILE)?;
-    insert_file_prepared(&mut stmt, &r.as_ref(), seq)
+    insert_file_prepared(&mut stmt, &r.as_ref(), seq)?;
+    let mut tally = super::totals::Tally::default();
+    tally.file(&r.outcome, &r.seen_at);
+    tally.write(tx)
 }
 
 fn insert_file_prepared(
@@ -773,10 +781,21 @@ static SELECT_CYCLE: LazyLock<String> = LazyLock::new(|| {
     )
 });
 
-/// Write (insert or replace) the current view of one cycle.
+/// Write (insert or replace) the current view of one cycle, and its change to the kept
+/// totals.
 pub fn upsert_cycle(tx: &Transaction<'_>, v: &CycleView) -> Result<()> {
+    let before: Option<(Option<String>, i64)> = tx
+        .prepare_cached("SELECT lot, conflicts FROM cycles WHERE batch_id = ?1")?
+        .query_row([&v.batch_id], |r| Ok((r.get(0)?, r.get(1)?)))
+        .optional()?;
     let mut stmt = tx.prepare_cached(&UPSERT_CYCLE)?;
-    upsert_cycle_prepared(&mut stmt, v)
+    upsert_cycle_prepared(&mut stmt, v)?;
+    let mut tally = super::totals::Tally::default();
+    tally.cycle(
+        before.as_ref().map(|b| (b.0.as_deref(), b.1)),
+        (v.lot.as_deref(), v.conflicts),
+    );
+    tally.write(tx)
 }
 
 fn upsert_cycle_prepared(stmt: &mut rusqlite::Statement<'_>, v: &CycleView) -> Result<()> {
@@ -929,6 +948,7 @@ fn record_parsed_in(
     ids.measurements_to(next_m);
     out.event_seq = seq;
     insert_file_prepared(&mut st.file, &file, seq)?;
+    st.tally.file(file.outcome, file.seen_at);
     insert_sources(&mut st.source, &new_measurements, seq)?;
     for l in &lots {
         upsert_lot(tx, l, seq)?;
@@ -976,6 +996,10 @@ fn write_cycles(
             out.lots_touched.insert(l.clone());
         }
         upsert_cycle_prepared(&mut st.cycle_put, &v)?;
+        st.tally.cycle(
+            b.before.as_ref().map(|b| (b.0.as_deref(), b.1)),
+            (v.lot.as_deref(), v.conflicts),
+        );
     }
     Ok(())
 }
@@ -1012,6 +1036,7 @@ fn merge_cycle_rows<'p>(
                 batches.push(BatchWork {
                     batch_id: &row.batch_id,
                     first_seq: existing.as_ref().map(|c| c.first_seq),
+                    before: existing.as_ref().map(|c| (c.lot.clone(), c.conflicts)),
                     excluded: existing.as_ref().is_some_and(|c| c.excluded),
                     known,
                 });
@@ -1116,6 +1141,8 @@ const FEW_BATCHES: usize = 8;
 struct BatchWork<'a> {
     batch_id: &'a str,
     first_seq: Option<i64>,
+    /// The stored row's lot and conflicts (None: the batch is new), for the kept totals.
+    before: Option<(Option<String>, i64)>,
     excluded: bool,
     /// Its measurements by id: the stored ones, then those this file adds.
     known: Vec<MeasurementRow>,

@@ -73,7 +73,7 @@ pub fn check_fits(conn: &Connection, cfg: &Config) -> Result<(FitCheck, Vec<Find
     let fingerprint = cfg.analysis_fingerprint();
     // One lot's fit in memory at a time: the newest fits of a site's lots are megabytes.
     for lot in store::replay::fitted_lots(conn)? {
-        let Some(f) = store::replay::newest_fit(conn, &lot)? else {
+        let Some((fit_id, mut f)) = store::replay::newest_fit(conn, &lot)? else {
             continue;
         };
         if f.engine_version != fit::ENGINE_VERSION {
@@ -96,6 +96,8 @@ pub fn check_fits(conn: &Connection, cfg: &Config) -> Result<(FitCheck, Vec<Find
             expected,
         };
         let (state, streamed) = fresh_state(conn, cfg, &f.lot)?;
+        // Read after the recompute: a lot's analysis is megabytes at 200,000 cycles.
+        f.analysis = store::replay::fit_analysis(conn, fit_id)?.unwrap_or_default();
         match same_analysis(&f.analysis, state.analysis.as_ref()) {
             Some(true) => {
                 check.identical += 1;

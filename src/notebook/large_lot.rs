@@ -44,7 +44,8 @@ pub(crate) fn streamed_state(
     let Some(rec) = records::lot(conn, lot)? else {
         return Ok(None);
     };
-    if records::cycle_count_of_lot(conn, lot)? < from.max(1) {
+    let count = records::cycle_count_of_lot(conn, lot)?;
+    if count < from.max(1) {
         return Ok(None);
     }
     let facts = LotFacts::from(&rec);
@@ -57,7 +58,7 @@ pub(crate) fn streamed_state(
     state.reference_moved = basis.reference_moved();
     state.feed_lots = records::feed_lots_of_lot(conn, lot)?;
     let mut pass = MetricsPass::new(&facts, &opts, basis.clone());
-    let mut kept = Kept::default();
+    let mut kept = Kept::with_capacity(count);
     each_cycle(conn, cfg, lot, |mut c, input| {
         super::lots::merge_metrics(&mut c, pass.next(&input));
         each(&state, &c)?;
@@ -193,6 +194,15 @@ struct Kept {
 }
 
 impl Kept {
+    fn with_capacity(n: usize) -> Self {
+        let mut k = Kept {
+            series: SeriesBuilder::with_capacity(n),
+            ..Default::default()
+        };
+        k.starts.reserve_exact(n);
+        k
+    }
+
     fn add(&mut self, cfg: &Config, c: CycleState) {
         self.series.push(cfg, &c);
         self.totals.add(&c);

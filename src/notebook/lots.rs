@@ -539,6 +539,19 @@ pub(crate) struct SeriesBuilder {
 }
 
 impl SeriesBuilder {
+    /// Room for `n` cycles at once: a lot streamed at 200,000 cycles otherwise grows each
+    /// column by doubling, up to a third of it unused.
+    pub(crate) fn with_capacity(n: usize) -> Self {
+        let mut b = SeriesBuilder::default();
+        let s = &mut b.series;
+        s.x.reserve_exact(n);
+        s.y.reserve_exact(n);
+        s.censored.reserve_exact(n);
+        s.ton.reserve_exact(n);
+        s.sd.reserve_exact(n);
+        b
+    }
+
     pub(crate) fn push(&mut self, cfg: &Config, c: &CycleState) {
         let ton_basis = cfg.fitting.measure == Measure::Ton;
         let series = &mut self.series;

@@ -688,21 +688,34 @@ pub fn fitted_lots(conn: &Connection) -> Result<Vec<String>> {
     Ok(rows)
 }
 
-/// A lot's newest stored fit.
-pub fn newest_fit(conn: &Connection, lot: &str) -> Result<Option<super::lots::StoredFit>> {
+/// A lot's newest stored fit, its analysis left empty (see [`fit_analysis`]), and the
+/// fit's id: verify recomputes the lot before it reads the stored analysis (megabytes for
+/// a lot of many cycles), so the two are not held at once.
+pub fn newest_fit(conn: &Connection, lot: &str) -> Result<Option<(i64, super::lots::StoredFit)>> {
     Ok(conn
         .prepare_cached(
-            "SELECT lot, after_seq, engine_version, config_sha256, analysis FROM fits
+            "SELECT id, lot, after_seq, engine_version, config_sha256 FROM fits
              WHERE lot = ?1 ORDER BY id DESC LIMIT 1",
         )?
         .query_row([lot], |r| {
-            Ok(super::lots::StoredFit {
-                lot: r.get(0)?,
-                after_seq: r.get(1)?,
-                engine_version: r.get(2)?,
-                config_sha256: r.get(3)?,
-                analysis: r.get(4)?,
-            })
+            Ok((
+                r.get(0)?,
+                super::lots::StoredFit {
+                    lot: r.get(1)?,
+                    after_seq: r.get(2)?,
+                    engine_version: r.get(3)?,
+                    config_sha256: r.get(4)?,
+                    analysis: String::new(),
+                },
+            ))
         })
+        .optional()?)
+}
+
+/// The stored analysis of the fit `id` (as [`newest_fit`] names it).
+pub fn fit_analysis(conn: &Connection, id: i64) -> Result<Option<String>> {
+    Ok(conn
+        .prepare_cached("SELECT analysis FROM fits WHERE id = ?1")?
+        .query_row([id], |r| r.get(0))
         .optional()?)
 }

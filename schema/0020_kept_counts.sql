@@ -44,3 +44,7 @@ INSERT INTO ingested_by_minute(minute, n)
 
 INSERT INTO lot_cycle_counts(lot, n)
     SELECT lot, COUNT(*) FROM cycles WHERE lot IS NOT NULL GROUP BY lot;
+
+-- Whether the kept printed entries cover every cycle (`lots --json`) sums their cycle
+-- counts: through this index, not through the entries' rows of about 1.4 KB each.
+CREATE INDEX lot_printed_cycles ON lot_printed(engine_version, config_sha256, form, lot, cycles);

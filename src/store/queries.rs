@@ -133,8 +133,17 @@ pub fn kept_totals_disagreeing(conn: &Connection) -> Result<Vec<(String, i64, i6
             out.push((name.to_string(), kept, counted));
         }
     }
-    let mut grouped = |what: &str, sql: &str| -> Result<()> {
-        let mut stmt = conn.prepare(sql)?;
+    // Each side's keys against the other's: a key missing on one side counts as 0 there.
+    let mut grouped = |what: &str, counted: &str, (table, key): (&str, &str)| -> Result<()> {
+        let sql = format!(
+            "WITH c(key, n) AS ({counted}),
+                  k(key, n) AS (SELECT {key}, n FROM {table} WHERE n <> 0),
+                  u(key) AS (SELECT key FROM c UNION SELECT key FROM k)
+             SELECT u.key, COALESCE(k.n, 0), COALESCE(c.n, 0)
+             FROM u LEFT JOIN k USING (key) LEFT JOIN c USING (key)
+             WHERE COALESCE(k.n, 0) <> COALESCE(c.n, 0)"
+        );
+        let mut stmt = conn.prepare(&sql)?;
         let rows = stmt.query_map([], |r| Ok((r.get::<_, String>(0)?, r.get(1)?, r.get(2)?)))?;
         for row in rows {
             let (key, kept, counted): (String, i64, i64) = row?;
@@ -142,27 +151,16 @@ pub fn kept_totals_disagreeing(conn: &Connection) -> Result<Vec<(String, i64, i6
         }
         Ok(())
     };
-    // Each side's keys against the other's: a key missing on one side counts as 0 there.
     grouped(
         "files ingested in minute",
-        "WITH c(minute, n) AS (SELECT substr(seen_at, 1, 16), COUNT(*) FROM source_files
-                              WHERE outcome = 'ingested' GROUP BY 1),
-              k(minute, n) AS (SELECT minute, n FROM ingested_by_minute WHERE n <> 0)
-         SELECT minute, COALESCE((SELECT n FROM k WHERE k.minute = m.minute), 0),
-                COALESCE((SELECT n FROM c WHERE c.minute = m.minute), 0)
-         FROM (SELECT minute FROM c UNION SELECT minute FROM k) m
-         WHERE COALESCE((SELECT n FROM k WHERE k.minute = m.minute), 0)
-            <> COALESCE((SELECT n FROM c WHERE c.minute = m.minute), 0)",
+        "SELECT substr(seen_at, 1, 16), COUNT(*) FROM source_files
+         WHERE outcome = 'ingested' GROUP BY 1",
+        ("ingested_by_minute", "minute"),
     )?;
     grouped(
         "cycles of lot",
-        "WITH c(lot, n) AS (SELECT lot, COUNT(*) FROM cycles WHERE lot IS NOT NULL GROUP BY lot),
-              k(lot, n) AS (SELECT lot, n FROM lot_cycle_counts WHERE n <> 0)
-         SELECT lot, COALESCE((SELECT n FROM k WHERE k.lot = m.lot), 0),
-                COALESCE((SELECT n FROM c WHERE c.lot = m.lot), 0)
-         FROM (SELECT lot FROM c UNION SELECT lot FROM k) m
-         WHERE COALESCE((SELECT n FROM k WHERE k.lot = m.lot), 0)
-            <> COALESCE((SELECT n FROM c WHERE c.lot = m.lot), 0)",
+        "SELECT lot, COUNT(*) FROM cycles WHERE lot IS NOT NULL GROUP BY lot",
+        ("lot_cycle_counts", "lot"),
     )?;
     Ok(out)
 }

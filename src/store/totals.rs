@@ -80,37 +80,39 @@ impl Tally {
                 total.execute(rusqlite::params![name, by])?;
             }
         }
-        if !self.minutes.is_empty() {
-            let mut minute = tx.prepare_cached(
-                "INSERT INTO ingested_by_minute(minute, n) VALUES (?1, ?2)
-                 ON CONFLICT (minute) DO UPDATE SET n = n + excluded.n",
-            )?;
-            for (m, by) in self.minutes.drain() {
-                minute.execute(rusqlite::params![m, by])?;
-            }
-        }
-        if !self.lots.is_empty() {
-            let mut lot = tx.prepare_cached(
-                "INSERT INTO lot_cycle_counts(lot, n) VALUES (?1, ?2)
-                 ON CONFLICT (lot) DO UPDATE SET n = n + excluded.n",
-            )?;
-            let mut emptied =
-                tx.prepare_cached("DELETE FROM lot_cycle_counts WHERE lot = ?1 AND n = 0")?;
-            for (name, by) in self.lots.drain() {
-                if by == 0 {
-                    continue;
-                }
-                if by < 0 {
-                    // A lot keeps its row while it has cycles; the insert cannot be what
-                    // runs here, since the lot had the cycle it loses.
-                    tx.prepare_cached("UPDATE lot_cycle_counts SET n = n + ?2 WHERE lot = ?1")?
-                        .execute(rusqlite::params![name, by])?;
-                    emptied.execute([&name])?;
-                } else {
-                    lot.execute(rusqlite::params![name, by])?;
-                }
-            }
+        add_each(tx, "ingested_by_minute", "minute", self.minutes.drain())?;
+        // A lot that loses cycles keeps its row while it has any; it had the cycle it loses,
+        // so its row exists.
+        let (gained, lost): (Vec<_>, Vec<_>) = self
+            .lots
+            .drain()
+            .filter(|e| e.1 != 0)
+            .partition(|e| e.1 > 0);
+        add_each(tx, "lot_cycle_counts", "lot", gained.into_iter())?;
+        for (lot, by) in lost {
+            tx.prepare_cached("UPDATE lot_cycle_counts SET n = n + ?2 WHERE lot = ?1")?
+                .execute(rusqlite::params![lot, by])?;
+            tx.prepare_cached("DELETE FROM lot_cycle_counts WHERE lot = ?1 AND n = 0")?
+                .execute([&lot])?;
         }
         Ok(())
     }
+}
+
+/// Add each (key, count) to the count of its row in `table` (keyed by `key`), making the
+/// row where there is none.
+fn add_each(
+    tx: &Transaction<'_>,
+    table: &str,
+    key: &str,
+    entries: impl Iterator<Item = (String, i64)>,
+) -> Result<()> {
+    let mut stmt = tx.prepare_cached(&format!(
+        "INSERT INTO {table}({key}, n) VALUES (?1, ?2)
+         ON CONFLICT ({key}) DO UPDATE SET n = n + excluded.n"
+    ))?;
+    for (k, by) in entries {
+        stmt.execute(rusqlite::params![k, by])?;
+    }
+    Ok(())
 }

@@ -752,6 +752,23 @@ fn with_prior(
 
 /// Analyses one lot. Never fails: what cannot be computed is absent, with a note.
 pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
+    let (pts, n_points, notes) = points_of(series);
+    analyse_points(pts, n_points, notes, opts)
+}
+
+/// [`analyse`] of a series it may free: the columns of a lot of 200,000 cycles are gone
+/// before the fits allocate theirs.
+pub fn analyse_owned(series: LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
+    let (pts, n_points, notes) = points_of(&series);
+    drop(series);
+    analyse_points(pts, n_points, notes, opts)
+}
+
+/// (x, y, censored, TON, standard error of y)
+type Point = (f64, f64, bool, Option<f64>, Option<f64>);
+
+/// The series' usable points with the notes on what was left out, and how many pairs it has.
+fn points_of(series: &LotSeries) -> (Vec<Point>, usize, Vec<String>) {
     let mut notes = Vec::new();
     let n_points = series.x.len().min(series.y.len());
     if series.x.len() != series.y.len() {
@@ -761,8 +778,6 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             series.y.len()
         ));
     }
-    // (x, y, censored, TON, standard error of y)
-    type Point = (f64, f64, bool, Option<f64>, Option<f64>);
     let mut pts: Vec<Point> = Vec::with_capacity(n_points);
     let mut dropped = 0;
     for i in 0..n_points {
@@ -781,12 +796,42 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             "{dropped} points with non-finite x or y were left out"
         ));
     }
+    (pts, n_points, notes)
+}
+
+fn analyse_points(
+    mut pts: Vec<Point>,
+    n_points: usize,
+    mut notes: Vec<String>,
+    opts: &AnalysisOptions,
+) -> LotAnalysis {
     pts.sort_by(|a, b| a.0.total_cmp(&b.0));
-    let (fx, fy): (Vec<f64>, Vec<f64>) = pts.iter().filter(|p| !p.2).map(|p| (p.0, p.1)).unzip();
-    let n_censored = pts.iter().filter(|p| p.2).count();
+    // The sorted points as the analysis keeps them, and their TON and standard errors
+    // apart: a lot of 200,000 cycles would otherwise hold 56 bytes a point twice over.
+    let xyc: Vec<(f64, f64, bool)> = pts.iter().map(|p| (p.0, p.1, p.2)).collect();
+    // Empty when no point has one: the weights are then None either way.
+    let sds: Vec<Option<f64>> = if pts.iter().any(|p| p.4.is_some()) {
+        pts.iter().map(|p| p.4).collect()
+    } else {
+        Vec::new()
+    };
+    let tons: Vec<Option<f64>> = if pts.iter().any(|p| p.3.is_some()) {
+        pts.iter().map(|p| p.3).collect()
+    } else {
+        Vec::new()
+    };
+    drop(pts);
+    let n_censored = xyc.iter().filter(|p| p.2).count();
+    let (mut fx, mut fy) = (
+        Vec::with_capacity(xyc.len() - n_censored),
+        Vec::with_capacity(xyc.len() - n_censored),
+    );
+    for p in xyc.iter().filter(|p| !p.2) {
+        fx.push(p.0);
+        fy.push(p.1);
+    }
     // Relative weights of every point, and of the exact points alone.
-    let sds: Vec<Option<f64>> = pts.iter().map(|p| p.4).collect();
-    let flags: Vec<bool> = pts.iter().map(|p| p.2).collect();
+    let flags: Vec<bool> = xyc.iter().map(|p| p.2).collect();
     let mut pw = point_weights(&sds, &flags);
     let exact_of = |w: &Vec<f64>| -> Vec<f64> {
         w.iter()
@@ -800,10 +845,9 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         let known = sds.iter().filter(|s| s.is_some_and(|v| v > 0.0)).count();
         notes.push(format!(
             "weighted by 1/sd² from the standard errors of {known} of {} cycles",
-            pts.len()
+            xyc.len()
         ));
     }
-    let xyc: Vec<(f64, f64, bool)> = pts.iter().map(|p| (p.0, p.1, p.2)).collect();
     let mut out = LotAnalysis {
         engine_version: ENGINE_VERSION.to_string(),
         n_points,
@@ -819,7 +863,8 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         abrupt: None,
         economics: None,
         plot: None,
-        observed: pts.iter().map(|p| (p.0, p.1, p.2)).collect(),
+        // Filled from `xyc` at the end: the points are used until then.
+        observed: Vec::new(),
         notes,
         weights: Vec::new(),
         next_cycle: None,
@@ -858,16 +903,17 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     let mut all_fits = fit_candidates(&fx, &fy, fw_own.as_deref(), &candidates, &fit_opts, bounded);
     // Weights at the fitted values when the standard errors are a function of activity
     // (see super::weights): the first fit gives the activities, the fits are repeated.
-    let ys: Vec<f64> = pts.iter().map(|p| p.1).collect();
+    let ys: Vec<f64> = xyc.iter().map(|p| p.1).collect();
     if pw.is_some()
         && let Some(func) = SdFunction::fit(&ys, &sds, &flags)
         && let Some(pilot) = best_usable(&all_fits)
     {
-        let at_fit: Vec<Option<f64>> = pts
+        let at_fit: Vec<Option<f64>> = xyc
             .iter()
-            .map(|p| {
+            .zip(&sds)
+            .map(|(p, sd)| {
                 let y = if p.2 { p.1 } else { pilot.predict(p.0) };
-                func.at(y).or(p.4)
+                func.at(y).or(*sd)
             })
             .collect();
         pw = point_weights(&at_fit, &flags);
@@ -1001,6 +1047,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
             checks: Vec::new(),
             shift,
         });
+        out.observed = xyc;
         return out;
     };
     out.chosen = Some(model);
@@ -1074,16 +1121,15 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
         let alone = Some(fc.clone());
         fc = with_prior(&mut out, prior, opts, (&fx, &fy, fw), change, x_next, alone).unwrap_or(fc);
     }
-    if pts.iter().any(|p| p.3.is_some())
+    if !tons.is_empty()
         && let Some(xs) = fc.x
     {
-        let ax: Vec<f64> = pts.iter().map(|p| p.0).collect();
-        let ay: Vec<f64> = pts.iter().map(|p| p.1).collect();
-        let at: Vec<Option<f64>> = pts.iter().map(|p| p.3).collect();
-        fc.lifetime_ton = lifetime_ton(fit, &ax, &ay, &at, xs);
+        let ax: Vec<f64> = xyc.iter().map(|p| p.0).collect();
+        let ay: Vec<f64> = xyc.iter().map(|p| p.1).collect();
+        fc.lifetime_ton = lifetime_ton(fit, &ax, &ay, &tons, xs);
     }
 
-    out.censored.above_fit = pts
+    out.censored.above_fit = xyc
         .iter()
         .filter(|p| p.2 && fit.predict(p.0) < p.1)
         .map(|p| p.0)
@@ -1185,6 +1231,7 @@ pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     out.plot = Some(plot);
     out.forecast = Some(fc);
     out.fit = Some(fit.clone());
+    out.observed = xyc;
     out
 }
 

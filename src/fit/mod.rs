@@ -62,6 +62,7 @@ pub mod weights;
 pub use abrupt::{AbruptLoss, CusumResult, LevelShift, Monitoring, PredictionCheck, cusum_down};
 pub use analysis::{
     AnalysisOptions, ENGINE_VERSION, LotAnalysis, LotSeries, NamedValue, RankEntry, analyse,
+    analyse_owned,
 };
 pub use average::{ModelWeight, NextCycle, NextVerdict};
 pub use censored::fit_censored;

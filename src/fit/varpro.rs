@@ -38,12 +38,11 @@ struct Work {
     n: usize,
     /// Orthonormal basis of span{√w, √w·e1, √w·e2}, column-major.
     q: Vec<f64>,
-    /// √w·e^(−k_j·x) for j = 1, 2.
-    e: [Vec<f64>; 2],
+    /// The rates of the last projection. √w·e^(−k_j·x) is recomputed where the
+    /// derivatives need it, not held: that saves two columns a workspace.
+    k: [f64; 2],
     /// Projected residual.
     r: Vec<f64>,
-    /// Its derivatives by k1, k2.
-    jac: [Vec<f64>; 2],
     /// Upper-triangular R of B = QR.
     rr: [[f64; 3]; 3],
     /// Amplitudes (a_inf, a1, a2).
@@ -55,9 +54,8 @@ impl Work {
         Self {
             n,
             q: vec![0.0; 3 * n],
-            e: [vec![0.0; n], vec![0.0; n]],
+            k: [0.0; 2],
             r: vec![0.0; n],
-            jac: [vec![0.0; n], vec![0.0; n]],
             rr: [[0.0; 3]; 3],
             c: [0.0; 3],
         }
@@ -67,12 +65,11 @@ impl Work {
     /// when the basis is numerically rank deficient or a value is not finite.
     fn project(&mut self, x: &[f64], yw: &[f64], sw: &[f64], k: [f64; 2]) -> Option<f64> {
         let n = self.n;
+        self.k = k;
         for i in 0..n {
             self.q[i] = sw[i];
-            self.e[0][i] = sw[i] * (-k[0] * x[i]).exp();
-            self.e[1][i] = sw[i] * (-k[1] * x[i]).exp();
-            self.q[n + i] = self.e[0][i];
-            self.q[2 * n + i] = self.e[1][i];
+            self.q[n + i] = sw[i] * (-k[0] * x[i]).exp();
+            self.q[2 * n + i] = sw[i] * (-k[1] * x[i]).exp();
         }
         self.rr = [[0.0; 3]; 3];
         // Modified Gram–Schmidt with one reorthogonalisation: for three columns this is as
@@ -128,16 +125,22 @@ impl Work {
     /// Golub–Pereyra derivative of the projected residual r = P⊥·y by each rate, at the
     /// point of the last [`Work::project`]: ∂r/∂k_j = −P⊥·D_j·c − (B⁺)ᵀ·D_jᵀ·r, where D_j
     /// is ∂B/∂k_j, whose only non-zero column is d_j = −x·√w·e^(−k_j·x).
-    fn jacobian(&mut self, x: &[f64]) {
+    /// Written to `jac`, held outside: a refused trial's projection needs none. Each
+    /// column first holds √w·e^(−k_j·x), then its derivative in place.
+    fn jacobian(&self, x: &[f64], sw: &[f64], jac: &mut [Vec<f64>; 2]) {
         let n = self.n;
         for j in 0..2 {
+            let e = &mut jac[j];
+            for i in 0..n {
+                e[i] = sw[i] * (-self.k[j] * x[i]).exp();
+            }
             let col = j + 1;
             let cj = self.c[col];
             // u = D_j·c = c_j·d_j, then P⊥·u = u − Q·Qᵀu.
             let mut qtu = [0.0; 3];
             let mut dtr = 0.0;
             for i in 0..n {
-                let d = -x[i] * self.e[j][i];
+                let d = -x[i] * e[i];
                 let u = cj * d;
                 qtu[0] += self.q[i] * u;
                 qtu[1] += self.q[n + i] * u;
@@ -154,11 +157,11 @@ impl Work {
                 z[a] = s / self.rr[a][a];
             }
             for i in 0..n {
-                let d = -x[i] * self.e[j][i];
+                let d = -x[i] * e[i];
                 let pu = cj * d
                     - (qtu[0] * self.q[i] + qtu[1] * self.q[n + i] + qtu[2] * self.q[2 * n + i]);
                 let bz = z[0] * self.q[i] + z[1] * self.q[n + i] + z[2] * self.q[2 * n + i];
-                self.jac[j][i] = -pu - bz;
+                e[i] = -pu - bz;
             }
         }
     }
@@ -232,6 +235,8 @@ pub fn fit_two_site(
     // trial swaps them, a refused one costs nothing to undo.
     let mut w = Work::new(n);
     let mut wt = Work::new(n);
+    // The projected residual's derivatives by k1, k2 at `w`'s rates.
+    let mut jac = [vec![0.0; n], vec![0.0; n]];
     let mut k = [k1.max(kmin), k2.max(kmin)];
     let mut rss = w.project(x, &yw, &sw, k)?;
     let mut evaluations = 1;
@@ -246,13 +251,13 @@ pub fn fit_two_site(
             verdict = Verdict::Interior;
             break;
         }
-        w.jacobian(x);
+        w.jacobian(x, &sw, &mut jac);
         let a = [
-            [dot(&w.jac[0], &w.jac[0]), dot(&w.jac[0], &w.jac[1])],
-            [dot(&w.jac[1], &w.jac[0]), dot(&w.jac[1], &w.jac[1])],
+            [dot(&jac[0], &jac[0]), dot(&jac[0], &jac[1])],
+            [dot(&jac[1], &jac[0]), dot(&jac[1], &jac[1])],
         ];
         // g = −Jᵀr: the Gauss–Newton step for r(k + δ) ≈ r + Jδ solves (JᵀJ)δ = −Jᵀr.
-        let g = [-dot(&w.jac[0], &w.r), -dot(&w.jac[1], &w.r)];
+        let g = [-dot(&jac[0], &w.r), -dot(&jac[1], &w.r)];
         if !(a[0][0].is_finite() && a[1][1].is_finite() && g.iter().all(|v| v.is_finite())) {
             break;
         }
@@ -307,7 +312,7 @@ pub fn fit_two_site(
             // Predicted reduction of the linear model: ‖r‖² − ‖r + J·step‖².
             let mut pred_rss = 0.0;
             for i in 0..n {
-                let v = w.r[i] + w.jac[0][i] * step[0] + w.jac[1][i] * step[1];
+                let v = w.r[i] + jac[0][i] * step[0] + jac[1][i] * step[1];
                 pred_rss += v * v;
             }
             let predicted = rss - pred_rss;
@@ -365,6 +370,11 @@ pub fn fit_two_site(
         verdict = Verdict::Degenerate;
     }
     let params = w.params(k);
+    // Two projections of 48 bytes a point: gone before the fit that follows allocates its own.
+    drop(w);
+    drop(wt);
+    drop(jac);
+    drop(yw);
     let model = ModelId::TwoSite;
     match verdict {
         Verdict::Interior | Verdict::Undecided => {
@@ -396,7 +406,7 @@ pub fn fit_two_site(
             Some(Ok(LmOutcome {
                 params,
                 rss: rss_full,
-                inv_jtj: inverse_jtj(&jac),
+                inv_jtj: inverse_jtj(jac),
                 reason: StopReason::Degenerate,
                 iterations,
                 evaluations,

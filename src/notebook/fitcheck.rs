@@ -11,6 +11,7 @@ use super::lots::{LotState, lot_state};
 use crate::audit::{Finding, FitCheck};
 use crate::config::Config;
 use crate::fit;
+use crate::model::calendar::CrossingDates;
 use crate::store::{self, Connection};
 
 /// Keys whose value depends on the day of computing, not on the records.
@@ -166,8 +167,21 @@ fn same_analysis(stored: &str, fresh: Option<&fit::LotAnalysis>) -> Option<bool>
             .and_then(|f| f.dates.as_ref())
             .and_then(|d| d.as_of.clone())
     };
-    if let Some(d) = a.forecast.as_mut().and_then(|f| f.dates.as_mut()) {
-        d.as_of = day(b);
+    if let Some(f) = a.forecast.as_mut() {
+        // The dates are a flattened Option of optional fields: an undated forecast reads
+        // back as dates with every field empty (serde), and must compare as undated.
+        let empty = |d: &CrossingDates| {
+            CrossingDates {
+                as_of: None,
+                ..d.clone()
+            } == CrossingDates::default()
+        };
+        if f.dates.as_deref().is_some_and(empty) {
+            f.dates = None;
+        }
+        if let Some(d) = f.dates.as_mut() {
+            d.as_of = day(b);
+        }
     }
     (a == *b).then_some(true)
 }
@@ -450,5 +464,26 @@ mod tests {
         let d: Value = serde_json::json!({"forecast": {"x": 16.4}, "n": [1, 3]});
         assert_eq!(first_difference(&a, &d, "").as_deref(), Some("n[1]"));
         assert_eq!(pick(&d, "n[1]"), "3");
+    }
+
+    #[test]
+    fn an_undated_forecast_compares_as_read_back() {
+        // A flat lot: its forecast carries no dates. Read back from its stored JSON, it
+        // must compare equal in the analysis itself, not fall back to a JSON tree.
+        let x: Vec<f64> = (1..=12).map(f64::from).collect();
+        let y: Vec<f64> = x.iter().map(|c| 1.0 + 0.004 * (c * 1.7).sin()).collect();
+        let series = fit::LotSeries {
+            x,
+            y,
+            ..Default::default()
+        };
+        let fresh = fit::analyse(&series, &fit::AnalysisOptions::default());
+        let forecast = fresh.forecast.as_ref().expect("a forecast");
+        assert!(forecast.dates.is_none());
+        let stored = serde_json::to_string(&fresh).expect("serialisable");
+        assert_eq!(same_analysis(&stored, Some(&fresh)), Some(true));
+        let mut other = fresh.clone();
+        other.n_fitted += 1;
+        assert_eq!(same_analysis(&stored, Some(&other)), None);
     }
 }

@@ -22,6 +22,7 @@ use crate::chem::{self, BasisScan, CycleInput, LotFacts, MetricsPass};
 use crate::config::Config;
 use crate::fit;
 use crate::model::Quantity;
+use crate::model::calendar::CADENCE_WINDOW;
 use crate::model::event::LotRecord;
 use crate::store::{self, Connection, Result, records};
 
@@ -195,19 +196,30 @@ struct Kept {
 
 impl Kept {
     fn with_capacity(n: usize) -> Self {
-        let mut k = Kept {
+        Kept {
             series: SeriesBuilder::with_capacity(n),
             ..Default::default()
-        };
-        k.starts.reserve_exact(n);
-        k
+        }
+    }
+
+    /// Only the newest [`CADENCE_WINDOW`] starts by cycle number make the cadence: the
+    /// list is cut back to those (sorted stably, as the cadence sorts) whenever it doubles.
+    fn add_start(&mut self, start: (u32, chrono::NaiveDateTime)) {
+        self.starts.push(start);
+        if self.starts.len() >= 2 * CADENCE_WINDOW {
+            self.starts.sort_by_key(|(n, _)| *n);
+            let cut = self.starts.len() - CADENCE_WINDOW;
+            self.starts.drain(..cut);
+        }
     }
 
     fn add(&mut self, cfg: &Config, c: CycleState) {
         self.series.push(cfg, &c);
         self.totals.add(&c);
         self.records.add(&c);
-        self.starts.extend(super::dates::start_of(&c.view));
+        if let Some(start) = super::dates::start_of(&c.view) {
+            self.add_start(start);
+        }
         if let Some((x, y)) = super::lots::cumulative_point(&c) {
             self.cumulative.0.push(x);
             self.cumulative.1.push(y);
@@ -233,12 +245,17 @@ fn finish(
     mut state: LotState,
     kept: Kept,
 ) -> Result<LotState> {
+    // The cumulative-TON plateau first: its points are gone before the analysis runs.
+    let lifetime_ton = super::lots::plateau_lifetime_of(&kept.cumulative.0, &kept.cumulative.1);
+    let kept = Kept {
+        cumulative: Default::default(),
+        ..kept
+    };
     let series = kept.series.finish();
     let product_first_kg = kept.product_first_kg.flatten();
     let mut opts = super::lots::analysis_options(cfg, Some(rec), product_first_kg);
     opts.prior = super::family::family_prior(conn, cfg, rec, &series, &state.basis, None)?;
-    let mut analysis = (!series.x.is_empty()).then(|| fit::analyse(&series, &opts));
-    drop(series);
+    let mut analysis = (!series.x.is_empty()).then(|| fit::analyse_owned(series, &opts));
     if let Some(a) = analysis.as_mut() {
         let cadence = crate::model::calendar::Cadence::of(cfg.zone(), &kept.starts);
         super::dates::date_forecast_with(cfg, rec, cadence, a);
@@ -249,7 +266,7 @@ fn finish(
     }
     attention.extend(kept.records.lines());
     state.lot_flags = super::lots::lot_attention_of(cfg, &state, &mut attention);
-    state.lifetime_ton = super::lots::plateau_lifetime_of(&kept.cumulative.0, &kept.cumulative.1);
+    state.lifetime_ton = lifetime_ton;
     state.analysis = analysis;
     state.attention = attention;
     state.cycles = with_sources(conn, cfg, kept.newest)?;

@@ -577,9 +577,13 @@ impl SeriesBuilder {
         });
     }
 
+    /// An empty column means "none known" to the analysis: an all-unknown one is freed.
     pub(crate) fn finish(mut self) -> LotSeries {
         if self.series.sd.iter().all(Option::is_none) {
-            self.series.sd.clear();
+            self.series.sd = Vec::new();
+        }
+        if self.series.ton.iter().all(Option::is_none) {
+            self.series.ton = Vec::new();
         }
         self.series
     }

@@ -192,25 +192,9 @@ fn deviation(
     })
 }
 
-/// Compare cycle `suspect` with the cycles before it. `activity` is each cycle's activity
-/// (relative to fresh), `metal_lost` the cumulative fraction of the metal charged lost up
-/// to each cycle; both keyed by cycle like `history`.
-pub fn cause_hints(
-    history: &[Conditions],
-    suspect: u32,
-    activity_of: impl Fn(u32) -> Option<f64>,
-    metal_lost_before: Option<f64>,
-) -> Option<CauseHints> {
-    let s = history.iter().find(|c| c.cycle == suspect)?;
-    let before: Vec<&Conditions> = history.iter().filter(|c| c.cycle < suspect).collect();
-    if before.len() < MIN_USUAL {
-        return None;
-    }
-    let col = |f: fn(&Conditions) -> Option<f64>| -> Vec<f64> {
-        before.iter().filter_map(|c| f(c)).collect()
-    };
-    let mut deviations = Vec::new();
-    let checks: [Check; 5] = [
+/// The conditions to compare: name, display unit, how to read them and how to show them.
+fn checks() -> [Check; 5] {
+    [
         ("temperature", "°C", |c| c.temperature_k, |k| k - 273.15),
         ("reaction time", "min", |c| c.duration_s, |s| s / 60.0),
         (
@@ -231,40 +215,112 @@ pub fn cause_hints(
             |c| c.metal_in_product_ug_g,
             |v| v,
         ),
-    ];
-    for (what, unit, get, scale) in checks {
-        if let Some(x) = get(s)
-            && let Some(d) = deviation(what, unit, scale, &col(get), x)
-        {
-            deviations.push(d);
+    ]
+}
+
+/// What [`cause_hints`] needs of a lot's cycles, gathered one cycle at a time: the usual
+/// values of the cycles before the suspect one and the suspect's own conditions. A lot of
+/// 200,000 cycles is then a few columns of numbers, not a list of every cycle's record.
+#[derive(Debug, Clone)]
+pub struct HintsInput {
+    suspect: u32,
+    /// Per check, the finite values of the cycles before the suspect (the only ones a
+    /// comparison uses).
+    usual: [Vec<f64>; 5],
+    /// How many cycles before the suspect were charged from each feed lot.
+    feed_lots: std::collections::BTreeMap<String, usize>,
+    before: usize,
+    at_suspect: Option<Conditions>,
+}
+
+impl HintsInput {
+    pub fn new(suspect: u32) -> Self {
+        Self {
+            suspect,
+            usual: Default::default(),
+            feed_lots: Default::default(),
+            before: 0,
+            at_suspect: None,
         }
     }
-    let new_feed_lot = s.feed_lot.as_ref().and_then(|f| {
-        let mut counts: std::collections::BTreeMap<&str, usize> = Default::default();
-        for c in &before {
+
+    /// One cycle, in the lot's order; the first record of the suspect cycle counts.
+    pub fn add(&mut self, c: &Conditions) {
+        if c.cycle < self.suspect {
+            self.before += 1;
+            for (column, (_, _, get, _)) in self.usual.iter_mut().zip(checks()) {
+                column.extend(get(c).filter(|v| v.is_finite()));
+            }
             if let Some(b) = c.feed_lot.as_deref() {
-                *counts.entry(b).or_default() += 1;
+                match self.feed_lots.get_mut(b) {
+                    Some(n) => *n += 1,
+                    None => {
+                        self.feed_lots.insert(b.to_string(), 1);
+                    }
+                }
+            }
+        } else if c.cycle == self.suspect && self.at_suspect.is_none() {
+            self.at_suspect = Some(c.clone());
+        }
+    }
+
+    /// The hints, given the suspect cycle's activity (relative to fresh) and the
+    /// cumulative fraction of the metal charged lost before it.
+    pub fn finish(
+        self,
+        activity_at_suspect: Option<f64>,
+        metal_lost_before: Option<f64>,
+    ) -> Option<CauseHints> {
+        let s = self.at_suspect.as_ref()?;
+        if self.before < MIN_USUAL {
+            return None;
+        }
+        let mut deviations = Vec::new();
+        for ((what, unit, get, scale), usual) in checks().into_iter().zip(&self.usual) {
+            if let Some(x) = get(s)
+                && let Some(d) = deviation(what, unit, scale, usual, x)
+            {
+                deviations.push(d);
             }
         }
-        let usual = counts.iter().max_by_key(|(_, n)| **n).map(|(k, _)| *k)?;
-        (!counts.contains_key(f.as_str())).then(|| (f.clone(), usual.to_string()))
-    });
-    let activity_lost = activity_of(suspect)
-        .filter(|a| a.is_finite())
-        .map(|a| (1.0 - a).max(0.0));
-    let metal_share = match (activity_lost, metal_lost_before) {
-        (Some(a), Some(m)) if a > 0.0 && m.is_finite() && m >= 0.0 => Some((m / a).min(1.0)),
-        _ => None,
-    };
-    Some(CauseHints {
-        cycle: suspect,
-        compared_with: before.len(),
-        deviations,
-        new_feed_lot,
-        activity_lost,
-        metal_lost: metal_lost_before,
-        metal_share,
-    })
+        let new_feed_lot = s.feed_lot.as_ref().and_then(|f| {
+            let counts = &self.feed_lots;
+            let usual = counts.iter().max_by_key(|(_, n)| **n).map(|(k, _)| k)?;
+            (!counts.contains_key(f.as_str())).then(|| (f.clone(), usual.clone()))
+        });
+        let activity_lost = activity_at_suspect
+            .filter(|a| a.is_finite())
+            .map(|a| (1.0 - a).max(0.0));
+        let metal_share = match (activity_lost, metal_lost_before) {
+            (Some(a), Some(m)) if a > 0.0 && m.is_finite() && m >= 0.0 => Some((m / a).min(1.0)),
+            _ => None,
+        };
+        Some(CauseHints {
+            cycle: self.suspect,
+            compared_with: self.before,
+            deviations,
+            new_feed_lot,
+            activity_lost,
+            metal_lost: metal_lost_before,
+            metal_share,
+        })
+    }
+}
+
+/// Compare cycle `suspect` with the cycles before it. `activity_of` gives a cycle's
+/// activity (relative to fresh), `metal_lost_before` the cumulative fraction of the metal
+/// charged lost before the suspect cycle.
+pub fn cause_hints(
+    history: &[Conditions],
+    suspect: u32,
+    activity_of: impl Fn(u32) -> Option<f64>,
+    metal_lost_before: Option<f64>,
+) -> Option<CauseHints> {
+    let mut input = HintsInput::new(suspect);
+    for c in history {
+        input.add(c);
+    }
+    input.finish(activity_of(suspect), metal_lost_before)
 }
 
 #[cfg(test)]

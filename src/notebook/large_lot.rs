@@ -11,13 +11,13 @@
 //! message lists.
 //! What is stored from it is what the held state gives (a test compares them).
 
-use std::collections::{BTreeMap, HashMap, VecDeque};
+use std::collections::{BTreeMap, VecDeque};
 
 use super::alerts::EVIDENCE_ROWS;
 use super::lots::{
     CycleState, CycleTotals, LotState, RecordAttention, SeriesBuilder, StreamedCycles,
 };
-use crate::chem::cause::{CauseHints, Conditions, cause_hints};
+use crate::chem::cause::{CauseHints, HintsInput};
 use crate::chem::{self, BasisScan, CycleInput, LotFacts, MetricsPass};
 use crate::config::Config;
 use crate::fit;
@@ -90,18 +90,18 @@ fn hints_pass(
     feed_lots: &BTreeMap<String, String>,
     suspect: u32,
 ) -> Result<Option<CauseHints>> {
-    let mut history: Vec<Conditions> = Vec::new();
-    let mut activity: HashMap<u32, Option<f64>> = HashMap::new();
+    let mut input = HintsInput::new(suspect);
+    let mut activity = None;
     let mut lost_before = None;
-    each_cycle(conn, cfg, lot, |mut c, input| {
-        super::lots::merge_metrics(&mut c, pass.next(&input));
+    each_cycle(conn, cfg, lot, |mut c, input_of| {
+        super::lots::merge_metrics(&mut c, pass.next(&input_of));
         if !c.view.excluded {
-            history.push(super::causes::conditions(feed_lots, &c));
+            input.add(&super::causes::conditions(feed_lots, &c));
         }
         let m = c.metrics.as_ref();
-        activity
-            .entry(c.cycle)
-            .or_insert(m.and_then(|m| m.activity));
+        if c.cycle == suspect && activity.is_none() {
+            activity = Some(m.and_then(|m| m.activity));
+        }
         if c.cycle < suspect
             && let Some(l) = m.and_then(|m| m.cumulative_loss_fraction)
         {
@@ -109,8 +109,7 @@ fn hints_pass(
         }
         Ok(())
     })?;
-    let activity_of = |n: u32| activity.get(&n).copied().flatten();
-    Ok(cause_hints(&history, suspect, activity_of, lost_before))
+    Ok(input.finish(activity.flatten(), lost_before))
 }
 
 /// The first pass: the lot's basis, or `None` when its cycles do not come in ascending
@@ -243,14 +242,12 @@ fn finish(
     cfg: &Config,
     rec: &LotRecord,
     mut state: LotState,
-    kept: Kept,
+    mut kept: Kept,
 ) -> Result<LotState> {
     // The cumulative-TON plateau first: its points are gone before the analysis runs.
-    let lifetime_ton = super::lots::plateau_lifetime_of(&kept.cumulative.0, &kept.cumulative.1);
-    let kept = Kept {
-        cumulative: Default::default(),
-        ..kept
-    };
+    let (cx, cy) = std::mem::take(&mut kept.cumulative);
+    let lifetime_ton = super::lots::plateau_lifetime_of(&cx, &cy);
+    drop((cx, cy));
     let series = kept.series.finish();
     let product_first_kg = kept.product_first_kg.flatten();
     let mut opts = super::lots::analysis_options(cfg, Some(rec), product_first_kg);

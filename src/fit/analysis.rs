@@ -764,6 +764,11 @@ pub fn analyse_owned(series: LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
     analyse_points(pts, n_points, notes, opts)
 }
 
+/// The points as the analysis reports them, (x, y, censored).
+fn observed(xs: &[f64], ys: &[f64], flags: &[bool]) -> Vec<(f64, f64, bool)> {
+    (0..xs.len()).map(|i| (xs[i], ys[i], flags[i])).collect()
+}
+
 /// (x, y, censored, TON, standard error of y)
 type Point = (f64, f64, bool, Option<f64>, Option<f64>);
 
@@ -806,9 +811,11 @@ fn analyse_points(
     opts: &AnalysisOptions,
 ) -> LotAnalysis {
     pts.sort_by(|a, b| a.0.total_cmp(&b.0));
-    // The sorted points as the analysis keeps them, and their TON and standard errors
-    // apart: a lot of 200,000 cycles would otherwise hold 56 bytes a point twice over.
-    let xyc: Vec<(f64, f64, bool)> = pts.iter().map(|p| (p.0, p.1, p.2)).collect();
+    // The sorted points as columns: a lot of 200,000 cycles would otherwise hold 56 bytes
+    // a point twice over while its models are fitted.
+    let xs: Vec<f64> = pts.iter().map(|p| p.0).collect();
+    let ys: Vec<f64> = pts.iter().map(|p| p.1).collect();
+    let flags: Vec<bool> = pts.iter().map(|p| p.2).collect();
     // Empty when no point has one: the weights are then None either way.
     let sds: Vec<Option<f64>> = if pts.iter().any(|p| p.4.is_some()) {
         pts.iter().map(|p| p.4).collect()
@@ -821,17 +828,29 @@ fn analyse_points(
         Vec::new()
     };
     drop(pts);
-    let n_censored = xyc.iter().filter(|p| p.2).count();
-    let (mut fx, mut fy) = (
-        Vec::with_capacity(xyc.len() - n_censored),
-        Vec::with_capacity(xyc.len() - n_censored),
-    );
-    for p in xyc.iter().filter(|p| !p.2) {
-        fx.push(p.0);
-        fy.push(p.1);
-    }
+    let n_censored = flags.iter().filter(|c| **c).count();
+    // The exact points: all of them (the columns themselves) unless some are censored.
+    let (fx_own, fy_own): (Vec<f64>, Vec<f64>) = if n_censored == 0 {
+        (Vec::new(), Vec::new())
+    } else {
+        (0..xs.len())
+            .filter(|&i| !flags[i])
+            .map(|i| (xs[i], ys[i]))
+            .unzip()
+    };
+    let (fx, fy): (&[f64], &[f64]) = if n_censored == 0 {
+        (&xs, &ys)
+    } else {
+        (&fx_own, &fy_own)
+    };
+    // (x, y, censored) of every point, for the fits with censored cycles as bounds; empty
+    // without censored cycles (those fits are then not made).
+    let xyc: Vec<(f64, f64, bool)> = if n_censored == 0 {
+        Vec::new()
+    } else {
+        (0..xs.len()).map(|i| (xs[i], ys[i], flags[i])).collect()
+    };
     // Relative weights of every point, and of the exact points alone.
-    let flags: Vec<bool> = xyc.iter().map(|p| p.2).collect();
     let mut pw = point_weights(&sds, &flags);
     let exact_of = |w: &Vec<f64>| -> Vec<f64> {
         w.iter()
@@ -845,7 +864,7 @@ fn analyse_points(
         let known = sds.iter().filter(|s| s.is_some_and(|v| v > 0.0)).count();
         notes.push(format!(
             "weighted by 1/sd² from the standard errors of {known} of {} cycles",
-            xyc.len()
+            xs.len()
         ));
     }
     let mut out = LotAnalysis {
@@ -863,7 +882,7 @@ fn analyse_points(
         abrupt: None,
         economics: None,
         plot: None,
-        // Filled from `xyc` at the end: the points are used until then.
+        // Filled from the columns at the end: the fits come first.
         observed: Vec::new(),
         notes,
         weights: Vec::new(),
@@ -899,26 +918,27 @@ fn analyse_points(
     let bounded = opts.physical_bounds;
 
     // 1. Monitoring for a step change, and the single-regime fits on every cycle.
-    let mon = monitor(&fx, &fy, opts.cusum_k, opts.cusum_h);
-    let mut all_fits = fit_candidates(&fx, &fy, fw_own.as_deref(), &candidates, &fit_opts, bounded);
+    let mon = monitor(fx, fy, opts.cusum_k, opts.cusum_h);
+    let mut all_fits = fit_candidates(fx, fy, fw_own.as_deref(), &candidates, &fit_opts, bounded);
     // Weights at the fitted values when the standard errors are a function of activity
     // (see super::weights): the first fit gives the activities, the fits are repeated.
-    let ys: Vec<f64> = xyc.iter().map(|p| p.1).collect();
     if pw.is_some()
         && let Some(func) = SdFunction::fit(&ys, &sds, &flags)
         && let Some(pilot) = best_usable(&all_fits)
     {
-        let at_fit: Vec<Option<f64>> = xyc
-            .iter()
-            .zip(&sds)
-            .map(|(p, sd)| {
-                let y = if p.2 { p.1 } else { pilot.predict(p.0) };
-                func.at(y).or(*sd)
+        let at_fit: Vec<Option<f64>> = (0..xs.len())
+            .map(|i| {
+                let y = if flags[i] {
+                    ys[i]
+                } else {
+                    pilot.predict(xs[i])
+                };
+                func.at(y).or(sds[i])
             })
             .collect();
         pw = point_weights(&at_fit, &flags);
         fw_own = pw.as_ref().map(exact_of);
-        all_fits = fit_candidates(&fx, &fy, fw_own.as_deref(), &candidates, &fit_opts, bounded);
+        all_fits = fit_candidates(fx, fy, fw_own.as_deref(), &candidates, &fit_opts, bounded);
         out.notes.push(
             "the standard errors follow the activity: weights taken at the fitted activities"
                 .to_string(),
@@ -934,7 +954,7 @@ fn analyse_points(
             .iter()
             .filter_map(|c| c.usable_fit().and_then(|f| f.aicc))
             .min_by(|a, b| a.total_cmp(b));
-        if let Some(mut s) = fit_level_shift(&fx, &fy, fw, at, &fit_opts.lm, opts.confidence) {
+        if let Some(mut s) = fit_level_shift(fx, fy, fw, at, &fit_opts.lm, opts.confidence) {
             s.delta_vs_single = s.aicc.zip(best_single).map(|(a, b)| a - b);
             let wins = match (s.aicc, best_single) {
                 (Some(a), Some(b)) => a < b,
@@ -975,7 +995,7 @@ fn analyse_points(
             }
             None => match change {
                 Some(i) => (ls_fits, &fx[..i]),
-                None => (ls_fits, &fx[..]),
+                None => (ls_fits, fx),
             },
         };
     out.trend_cycles = tx.len();
@@ -1035,8 +1055,8 @@ fn analyse_points(
         out.notes
             .push("no model could be fitted and chosen".to_string());
         if let Some(prior) = &opts.prior {
-            let x_next = x_last + cycle_step(&fx);
-            let fc = with_prior(&mut out, prior, opts, (&fx, &fy, fw), change, x_next, None);
+            let x_next = x_last + cycle_step(fx);
+            let fc = with_prior(&mut out, prior, opts, (fx, fy, fw), change, x_next, None);
             out.forecast = fc;
         }
         out.abrupt = mon.map(|m| AbruptLoss {
@@ -1047,11 +1067,11 @@ fn analyse_points(
             checks: Vec::new(),
             shift,
         });
-        out.observed = xyc;
+        out.observed = observed(&xs, &ys, &flags);
         return out;
     };
     out.chosen = Some(model);
-    let x_next = x_last + cycle_step(&fx);
+    let x_next = x_last + cycle_step(fx);
 
     // 3. The forecast and the next cycle (the pooled ones when a family prior is given).
     let mut fc = match (&avg, change) {
@@ -1119,16 +1139,15 @@ fn analyse_points(
     };
     if let Some(prior) = &opts.prior {
         let alone = Some(fc.clone());
-        fc = with_prior(&mut out, prior, opts, (&fx, &fy, fw), change, x_next, alone).unwrap_or(fc);
+        fc = with_prior(&mut out, prior, opts, (fx, fy, fw), change, x_next, alone).unwrap_or(fc);
     }
     if !tons.is_empty()
-        && let Some(xs) = fc.x
+        && let Some(x_star) = fc.x
     {
-        let ax: Vec<f64> = xyc.iter().map(|p| p.0).collect();
-        let ay: Vec<f64> = xyc.iter().map(|p| p.1).collect();
-        fc.lifetime_ton = lifetime_ton(fit, &ax, &ay, &tons, xs);
+        fc.lifetime_ton = lifetime_ton(fit, &xs, &ys, &tons, x_star);
     }
 
+    // Empty `xyc` without censored cycles: none lies above the fit.
     out.censored.above_fit = xyc
         .iter()
         .filter(|p| p.2 && fit.predict(p.0) < p.1)
@@ -1231,7 +1250,7 @@ fn analyse_points(
     out.plot = Some(plot);
     out.forecast = Some(fc);
     out.fit = Some(fit.clone());
-    out.observed = xyc;
+    out.observed = observed(&xs, &ys, &flags);
     out
 }
 

@@ -370,7 +370,7 @@ pub fn fit_two_site(
         verdict = Verdict::Degenerate;
     }
     let params = w.params(k);
-    // Two projections of 48 bytes a point: gone before the fit that follows allocates its own.
+    // Two projections of 32 bytes a point: gone before the fit that follows allocates its own.
     drop(w);
     drop(wt);
     drop(jac);

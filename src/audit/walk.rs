@@ -169,7 +169,7 @@ impl<'c, 'k> Walk<'c, 'k> {
             self.stopped = true;
             return Ok(false);
         }
-        let payload: Payload = match serde_json::from_str(&e.payload) {
+        let payload: Payload = match Payload::from_json(&e.payload) {
             Ok(p) => p,
             Err(err) => {
                 push(
@@ -575,7 +575,7 @@ impl ParsedEvents {
             return Ok(Rc::clone(p));
         }
         let payload = store::replay::event_payload(conn, seq)?
-            .and_then(|(_, body)| serde_json::from_str::<Payload>(&body).ok());
+            .and_then(|(_, body)| Payload::from_json(&body).ok());
         let p = Rc::new(match payload {
             Some(
                 Payload::FileIngested { measurements, .. } | Payload::FileRows { measurements, .. },
@@ -670,6 +670,6 @@ fn compare_keyed<T: Serialize>(
 /// walk's start were verified before).
 fn stored_exclusion(conn: &Connection, batch: &str) -> Result<bool> {
     Ok(store::replay::last_exclusion(conn, batch)?
-        .and_then(|body| serde_json::from_str::<Payload>(&body).ok())
+        .and_then(|body| Payload::from_json(&body).ok())
         .is_some_and(|p| matches!(p, Payload::Exclusion { excluded: true, .. })))
 }

@@ -752,16 +752,13 @@ fn with_prior(
 
 /// Analyses one lot. Never fails: what cannot be computed is absent, with a note.
 pub fn analyse(series: &LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
-    let (pts, n_points, notes) = points_of(series);
-    analyse_points(pts, n_points, notes, opts)
+    analyse_columns(Columns::of(series.clone()), opts)
 }
 
-/// [`analyse`] of a series it may free: the columns of a lot of 200,000 cycles are gone
-/// before the fits allocate theirs.
+/// [`analyse`] of a series it may free: the series' own columns become the analysis's,
+/// so a lot of 200,000 cycles holds them once while its models are fitted.
 pub fn analyse_owned(series: LotSeries, opts: &AnalysisOptions) -> LotAnalysis {
-    let (pts, n_points, notes) = points_of(&series);
-    drop(series);
-    analyse_points(pts, n_points, notes, opts)
+    analyse_columns(Columns::of(series), opts)
 }
 
 /// The points as the analysis reports them, (x, y, censored).
@@ -769,65 +766,118 @@ fn observed(xs: &[f64], ys: &[f64], flags: &[bool]) -> Vec<(f64, f64, bool)> {
     (0..xs.len()).map(|i| (xs[i], ys[i], flags[i])).collect()
 }
 
-/// (x, y, censored, TON, standard error of y)
-type Point = (f64, f64, bool, Option<f64>, Option<f64>);
-
-/// The series' usable points with the notes on what was left out, and how many pairs it has.
-fn points_of(series: &LotSeries) -> (Vec<Point>, usize, Vec<String>) {
-    let mut notes = Vec::new();
-    let n_points = series.x.len().min(series.y.len());
-    if series.x.len() != series.y.len() {
-        notes.push(format!(
-            "x has {} values and y {}; only the first {n_points} pairs are used",
-            series.x.len(),
-            series.y.len()
-        ));
-    }
-    let mut pts: Vec<Point> = Vec::with_capacity(n_points);
-    let mut dropped = 0;
-    for i in 0..n_points {
-        let (x, y) = (series.x[i], series.y[i]);
-        if !(x.is_finite() && y.is_finite()) {
-            dropped += 1;
-            continue;
-        }
-        let c = series.censored.get(i).copied().unwrap_or(false);
-        let t = series.ton.get(i).copied().flatten();
-        let sd = series.sd.get(i).copied().flatten();
-        pts.push((x, y, c, t, sd));
-    }
-    if dropped > 0 {
-        notes.push(format!(
-            "{dropped} points with non-finite x or y were left out"
-        ));
-    }
-    (pts, n_points, notes)
+/// A series' usable points in x order, as columns, with the notes on what was left out.
+struct Columns {
+    xs: Vec<f64>,
+    ys: Vec<f64>,
+    /// Censored (y only a lower bound).
+    flags: Vec<bool>,
+    /// TON of each point; empty when no point has one.
+    tons: Vec<Option<f64>>,
+    /// Standard error of each y; empty when no point has one.
+    sds: Vec<Option<f64>>,
+    /// Pairs in the series (usable or not).
+    n_points: usize,
+    notes: Vec<String>,
 }
 
-fn analyse_points(
-    mut pts: Vec<Point>,
-    n_points: usize,
-    mut notes: Vec<String>,
-    opts: &AnalysisOptions,
-) -> LotAnalysis {
-    pts.sort_by(|a, b| a.0.total_cmp(&b.0));
-    // The sorted points as columns: a lot of 200,000 cycles would otherwise hold 56 bytes
-    // a point twice over while its models are fitted.
-    let xs: Vec<f64> = pts.iter().map(|p| p.0).collect();
-    let ys: Vec<f64> = pts.iter().map(|p| p.1).collect();
-    let flags: Vec<bool> = pts.iter().map(|p| p.2).collect();
-    // Empty when no point has one: the weights are then None either way.
-    let sds: Vec<Option<f64>> = if pts.iter().any(|p| p.4.is_some()) {
-        pts.iter().map(|p| p.4).collect()
-    } else {
-        Vec::new()
-    };
-    let tons: Vec<Option<f64>> = if pts.iter().any(|p| p.3.is_some()) {
-        pts.iter().map(|p| p.3).collect()
-    } else {
-        Vec::new()
-    };
-    drop(pts);
+impl Columns {
+    /// Keeps the pairs with finite x and y, in place, then orders them by x (stably: equal
+    /// x keep the series' order).
+    fn of(series: LotSeries) -> Self {
+        let LotSeries {
+            mut x,
+            mut y,
+            censored,
+            ton,
+            sd,
+        } = series;
+        let mut notes = Vec::new();
+        let n_points = x.len().min(y.len());
+        if x.len() != y.len() {
+            notes.push(format!(
+                "x has {} values and y {}; only the first {n_points} pairs are used",
+                x.len(),
+                y.len()
+            ));
+        }
+        let has_ton = ton.iter().take(n_points).any(Option::is_some);
+        let has_sd = sd.iter().take(n_points).any(Option::is_some);
+        let mut flags = Vec::with_capacity(n_points);
+        let mut tons = Vec::with_capacity(if has_ton { n_points } else { 0 });
+        let mut sds = Vec::with_capacity(if has_sd { n_points } else { 0 });
+        let mut kept = 0;
+        for i in 0..n_points {
+            let (xi, yi) = (x[i], y[i]);
+            if !(xi.is_finite() && yi.is_finite()) {
+                continue;
+            }
+            x[kept] = xi;
+            y[kept] = yi;
+            kept += 1;
+            flags.push(censored.get(i).copied().unwrap_or(false));
+            if has_ton {
+                tons.push(ton.get(i).copied().flatten());
+            }
+            if has_sd {
+                sds.push(sd.get(i).copied().flatten());
+            }
+        }
+        drop((censored, ton, sd));
+        x.truncate(kept);
+        y.truncate(kept);
+        let dropped = n_points - kept;
+        if dropped > 0 {
+            notes.push(format!(
+                "{dropped} points with non-finite x or y were left out"
+            ));
+        }
+        // Empty when no usable point has one: the weights are then None either way.
+        if tons.iter().all(Option::is_none) {
+            tons = Vec::new();
+        }
+        if sds.iter().all(Option::is_none) {
+            sds = Vec::new();
+        }
+        let sorted = x.windows(2).all(|w| w[0].total_cmp(&w[1]).is_le());
+        if !sorted {
+            // A stable sort of the indices by x: the order a stable sort of the points gives.
+            let mut idx: Vec<usize> = (0..kept).collect();
+            idx.sort_by(|&a, &b| x[a].total_cmp(&x[b]));
+            fn permuted<T: Copy>(v: &[T], idx: &[usize]) -> Vec<T> {
+                if v.is_empty() {
+                    return Vec::new();
+                }
+                idx.iter().map(|&i| v[i]).collect()
+            }
+            x = permuted(&x, &idx);
+            y = permuted(&y, &idx);
+            flags = permuted(&flags, &idx);
+            tons = permuted(&tons, &idx);
+            sds = permuted(&sds, &idx);
+        }
+        Columns {
+            xs: x,
+            ys: y,
+            flags,
+            tons,
+            sds,
+            n_points,
+            notes,
+        }
+    }
+}
+
+fn analyse_columns(cols: Columns, opts: &AnalysisOptions) -> LotAnalysis {
+    let Columns {
+        xs,
+        ys,
+        flags,
+        tons,
+        sds,
+        n_points,
+        mut notes,
+    } = cols;
     let n_censored = flags.iter().filter(|c| **c).count();
     // The exact points: all of them (the columns themselves) unless some are censored.
     let (fx_own, fy_own): (Vec<f64>, Vec<f64>) = if n_censored == 0 {
@@ -918,7 +968,12 @@ fn analyse_points(
     let bounded = opts.physical_bounds;
 
     // 1. Monitoring for a step change, and the single-regime fits on every cycle.
-    let mon = monitor(fx, fy, opts.cusum_k, opts.cusum_h);
+    let mut mon = monitor(fx, fy, opts.cusum_k, opts.cusum_h);
+    // The normal scores are the monitor's working; only the CUSUM path is reported. Freed
+    // before the fits (8 bytes a point).
+    if let Some(m) = mon.as_mut() {
+        m.z = Vec::new();
+    }
     let mut all_fits = fit_candidates(fx, fy, fw_own.as_deref(), &candidates, &fit_opts, bounded);
     // Weights at the fitted values when the standard errors are a function of activity
     // (see super::weights): the first fit gives the activities, the fits are repeated.
@@ -1270,6 +1325,30 @@ mod tests {
             y,
             ..LotSeries::default()
         }
+    }
+
+    #[test]
+    fn columns_keep_finite_pairs_in_a_stable_x_order() {
+        // Out of order, with a repeated x, a non-finite y and TON/σ on some points.
+        let s = LotSeries {
+            x: vec![3.0, 1.0, 2.0, 1.0, 4.0],
+            y: vec![0.7, 0.9, f64::NAN, 0.95, 0.6],
+            censored: vec![false, true],
+            ton: vec![Some(30.0), None, Some(20.0), Some(11.0), None],
+            sd: vec![None, None, None, None, None],
+        };
+        let c = Columns::of(s);
+        assert_eq!(c.xs, vec![1.0, 1.0, 3.0, 4.0]);
+        // The two points at x = 1 keep the series' order.
+        assert_eq!(c.ys, vec![0.9, 0.95, 0.7, 0.6]);
+        assert_eq!(c.flags, vec![true, false, false, false]);
+        assert_eq!(c.tons, vec![None, Some(11.0), Some(30.0), None]);
+        assert!(c.sds.is_empty(), "no σ known: no column");
+        assert_eq!(c.n_points, 5);
+        assert_eq!(
+            c.notes,
+            vec!["1 points with non-finite x or y were left out".to_string()]
+        );
     }
 
     #[test]

@@ -295,18 +295,24 @@ fn project(p: &mut [f64], bounds: &[(f64, f64)]) {
     }
 }
 
+/// √w of every point; None when unweighted (√w = 1, and 1·v = v exactly, so both paths
+/// give the same bits): a lot of 200,000 cycles then holds no column of ones.
+fn root_weight(sw: Option<&[f64]>, i: usize) -> f64 {
+    sw.map_or(1.0, |s| s[i])
+}
+
 /// Weighted residuals r = √w·(y − f); returns RSS, or None if any value is not finite.
 fn residuals<C: Curve + ?Sized>(
     curve: &C,
     x: &[f64],
     y: &[f64],
-    sw: &[f64],
+    sw: Option<&[f64]>,
     p: &[f64],
     r: &mut [f64],
 ) -> Option<f64> {
     let mut rss = 0.0;
     for i in 0..x.len() {
-        let v = sw[i] * (y[i] - curve.value(x[i], p));
+        let v = root_weight(sw, i) * (y[i] - curve.value(x[i], p));
         if !v.is_finite() {
             return None;
         }
@@ -323,7 +329,7 @@ fn residuals_and_jacobian<C: Curve + ?Sized>(
     curve: &C,
     x: &[f64],
     y: &[f64],
-    sw: &[f64],
+    sw: Option<&[f64]>,
     p: &[f64],
     r: &mut [f64],
     jac: &mut DMatrix<f64>,
@@ -334,7 +340,7 @@ fn residuals_and_jacobian<C: Curve + ?Sized>(
     let js = jac.as_mut_slice();
     curve.values_and_jacobian(x, p, r, js);
     for i in 0..n {
-        let v = sw[i] * (y[i] - r[i]);
+        let v = root_weight(sw, i) * (y[i] - r[i]);
         r[i] = v;
         rss += v * v;
     }
@@ -343,9 +349,14 @@ fn residuals_and_jacobian<C: Curve + ?Sized>(
     }
     let mut finite_jac = true;
     for col in js.chunks_exact_mut(n.max(1)) {
-        for (d, w) in col.iter_mut().zip(sw) {
-            *d *= w;
-            finite_jac &= d.is_finite();
+        match sw {
+            Some(sw) => {
+                for (d, w) in col.iter_mut().zip(sw) {
+                    *d *= w;
+                    finite_jac &= d.is_finite();
+                }
+            }
+            None => finite_jac &= col.iter().all(|d| d.is_finite()),
         }
     }
     (rss.is_finite().then_some(rss), finite_jac)
@@ -354,7 +365,7 @@ fn residuals_and_jacobian<C: Curve + ?Sized>(
 fn jacobian<C: Curve + ?Sized>(
     curve: &C,
     x: &[f64],
-    sw: &[f64],
+    sw: Option<&[f64]>,
     p: &[f64],
     jac: &mut DMatrix<f64>,
     row: &mut [f64],
@@ -364,7 +375,7 @@ fn jacobian<C: Curve + ?Sized>(
     for i in 0..n {
         curve_gradient(curve, x[i], p, row);
         for (j, g) in row.iter().enumerate() {
-            let v = sw[i] * g;
+            let v = root_weight(sw, i) * g;
             if !v.is_finite() {
                 return false;
             }
@@ -551,20 +562,17 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
     validate(curve, x, y, weights, start, opts)?;
     let n = x.len();
     let np = curve.n_params();
-    let sw: Vec<f64> = match weights {
-        Some(w) => w.iter().map(|v| v.sqrt()).collect(),
-        None => vec![1.0; n],
-    };
+    let sw_own: Option<Vec<f64>> = weights.map(|w| w.iter().map(|v| v.sqrt()).collect());
+    let sw = sw_own.as_deref();
     let mut p = start.to_vec();
     project(&mut p, &opts.bounds);
     // Every buffer is allocated once here: an iteration allocates nothing.
     // One allocation for all the buffers.
-    let mut work = vec![0.0; 4 * n + 10 * np + 2 * np * np];
+    // Two columns: the geodesic correction's residuals live in `r_trial` until the trial
+    // overwrites them, and J·v is summed point by point, not held.
+    let mut work = vec![0.0; 2 * n + 10 * np + 2 * np * np];
     let (mut r, rest) = work.split_at_mut(n);
     let (mut r_trial, rest) = rest.split_at_mut(n);
-    let (r_geo, rest) = rest.split_at_mut(n);
-    // J·v for the step being tried, one column at a time.
-    let (jv, rest) = rest.split_at_mut(n);
     let (jtj, rest) = rest.split_at_mut(np * np);
     let (chol, rest) = rest.split_at_mut(np * np);
     let mut bufs = rest.chunks_exact_mut(np);
@@ -586,11 +594,11 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
     // has not used it yet.
     let mut jac_ready: Option<bool> = None;
     let start_rss = if joint {
-        let (v, f) = residuals_and_jacobian(curve, x, y, &sw, &p, r, &mut jac);
+        let (v, f) = residuals_and_jacobian(curve, x, y, sw, &p, r, &mut jac);
         jac_ready = Some(f);
         v
     } else {
-        residuals(curve, x, y, &sw, &p, r)
+        residuals(curve, x, y, sw, &p, r)
     };
     let mut rss = start_rss.ok_or_else(|| {
         let index = x
@@ -631,7 +639,7 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
         }
         let finite = match jac_ready.take() {
             Some(f) => f,
-            None => jacobian(curve, x, &sw, &p, &mut jac, row),
+            None => jacobian(curve, x, sw, &p, &mut jac, row),
         };
         jac_at_p = Some(finite);
         if !finite {
@@ -649,17 +657,13 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
             }
             g[a] = dot(col(a), r);
         }
-        // out = J·v, column by column (the same sums, in the same order, as row by row).
-        let jmul = |v: &[f64], out: &mut [f64]| {
-            for (i, o) in out.iter_mut().enumerate() {
-                *o = js[i] * v[0];
+        // (J·v)ᵢ, summed over the columns in order.
+        let jv = |v: &[f64], i: usize| {
+            let mut s = js[i] * v[0];
+            for (j, vj) in v.iter().enumerate().take(np).skip(1) {
+                s += js[j * n + i] * vj;
             }
-            for j in 1..np {
-                let (c, vj) = (col(j), v[j]);
-                for (o, cj) in out.iter_mut().zip(c) {
-                    *o += cj * vj;
-                }
-            }
+            s
         };
         // Moré's scaling: D_j never decreases, so the trust region cannot collapse in a
         // direction that was once informative.
@@ -724,12 +728,12 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
                 for j in 0..np {
                     probe[j] = p[j] + h * delta[j];
                 }
-                if residuals(curve, x, y, &sw, probe, r_geo).is_some() {
+                let r_geo = &mut *r_trial;
+                if residuals(curve, x, y, sw, probe, r_geo).is_some() {
                     evaluations += 1;
                     // r(p+hδ) ≈ r − hJδ − ½h²·f''  ⇒  f'' ≈ 2/h·((r − r_h)/h − Jδ)
-                    jmul(delta, jv);
                     for i in 0..n {
-                        r_geo[i] = ((r[i] - r_geo[i]) / h - jv[i]) * (2.0 / h);
+                        r_geo[i] = ((r[i] - r_geo[i]) / h - jv(delta, i)) * (2.0 / h);
                     }
                     for j in 0..np {
                         rhs[j] = if held(j) { 0.0 } else { dot(col(j), r_geo) };
@@ -768,18 +772,17 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
             let pnorm = pnorm.sqrt();
             let new_rss = if joint {
                 let (v, f) =
-                    residuals_and_jacobian(curve, x, y, &sw, trial, r_trial, &mut jac_trial);
+                    residuals_and_jacobian(curve, x, y, sw, trial, r_trial, &mut jac_trial);
                 trial_jac_finite = f;
                 v
             } else {
-                residuals(curve, x, y, &sw, trial, r_trial)
+                residuals(curve, x, y, sw, trial, r_trial)
             };
             evaluations += 1;
             // Predicted reduction of the linear model: ‖r‖² − ‖r − Jδ‖².
             let mut lin = 0.0;
-            jmul(step, jv);
             for i in 0..n {
-                let v = r[i] - jv[i];
+                let v = r[i] - jv(step, i);
                 lin += v * v;
             }
             let predicted = rss - lin;
@@ -841,7 +844,7 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
     }
     let finite = match jac_at_p {
         Some(f) => f,
-        None => jacobian(curve, x, &sw, &p, &mut jac, row),
+        None => jacobian(curve, x, sw, &p, &mut jac, row),
     };
     // The buffers go before the QR, which works in J's own storage.
     drop(jac_trial);

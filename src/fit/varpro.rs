@@ -34,12 +34,25 @@ const GONE_RATE_X: f64 = 40.0;
 const RANK_TOL: f64 = 1e-11;
 
 /// Workspace of the projection: everything per point, allocated once per fit.
+///
+/// One basis serves both the current rates and a trial: the current basis is needed only
+/// for the derivatives, which are taken before any trial, so a trial overwrites it. A
+/// refused trial leaves the current residual, amplitudes and R untouched (the step loop
+/// needs the residual), and the loop stops or tries again without the basis; an accepted
+/// one becomes current with the basis it wrote.
 struct Work {
     n: usize,
-    /// Orthonormal basis of span{√w, √w·e1, √w·e2}, column-major.
+    /// Orthonormal basis of span{√w, √w·e1, √w·e2}, column-major: of the last projection.
     q: Vec<f64>,
-    /// The rates of the last projection. √w·e^(−k_j·x) is recomputed where the
-    /// derivatives need it, not held: that saves two columns a workspace.
+    /// The projection at the current rates.
+    cur: Projected,
+    /// The projection at the last trial rates.
+    trial: Projected,
+}
+
+/// What one projection leaves besides its basis.
+struct Projected {
+    /// The rates. √w·e^(−k_j·x) is recomputed where the derivatives need it, not held.
     k: [f64; 2],
     /// Projected residual.
     r: Vec<f64>,
@@ -49,29 +62,51 @@ struct Work {
     c: [f64; 3],
 }
 
-impl Work {
+impl Projected {
     fn new(n: usize) -> Self {
         Self {
-            n,
-            q: vec![0.0; 3 * n],
             k: [0.0; 2],
             r: vec![0.0; n],
             rr: [[0.0; 3]; 3],
             c: [0.0; 3],
         }
     }
+}
 
-    /// Solves the amplitudes for rates `k` and fills the residual; returns RSS, or None
-    /// when the basis is numerically rank deficient or a value is not finite.
-    fn project(&mut self, x: &[f64], yw: &[f64], sw: &[f64], k: [f64; 2]) -> Option<f64> {
-        let n = self.n;
-        self.k = k;
-        for i in 0..n {
-            self.q[i] = sw[i];
-            self.q[n + i] = sw[i] * (-k[0] * x[i]).exp();
-            self.q[2 * n + i] = sw[i] * (-k[1] * x[i]).exp();
+/// √w of point i (1 when unweighted: 1·v = v exactly, so no column of ones is held).
+fn root_weight(sw: Option<&[f64]>, i: usize) -> f64 {
+    sw.map_or(1.0, |s| s[i])
+}
+
+impl Work {
+    fn new(n: usize) -> Self {
+        Self {
+            n,
+            q: vec![0.0; 3 * n],
+            cur: Projected::new(n),
+            trial: Projected::new(n),
         }
-        self.rr = [[0.0; 3]; 3];
+    }
+
+    /// The last trial becomes the current projection.
+    fn accept(&mut self) {
+        std::mem::swap(&mut self.cur, &mut self.trial);
+    }
+
+    /// Solves the amplitudes for rates `k` into the trial (and the basis) and fills its
+    /// residual; returns RSS, or None when the basis is numerically rank deficient or a
+    /// value is not finite. `yw` is √w·y.
+    fn project(&mut self, x: &[f64], yw: &[f64], sw: Option<&[f64]>, k: [f64; 2]) -> Option<f64> {
+        let n = self.n;
+        let t = &mut self.trial;
+        t.k = k;
+        for i in 0..n {
+            let s = root_weight(sw, i);
+            self.q[i] = s;
+            self.q[n + i] = s * (-k[0] * x[i]).exp();
+            self.q[2 * n + i] = s * (-k[1] * x[i]).exp();
+        }
+        t.rr = [[0.0; 3]; 3];
         // Modified Gram–Schmidt with one reorthogonalisation: for three columns this is as
         // accurate as Householder and needs no extra storage.
         for j in 0..3 {
@@ -85,7 +120,7 @@ impl Work {
                     let qi = &head[i * n..(i + 1) * n];
                     let v = &mut tail[..n];
                     let s = dot(qi, v);
-                    self.rr[i][j] += s;
+                    t.rr[i][j] += s;
                     for (vt, qt) in v.iter_mut().zip(qi) {
                         *vt -= s * qt;
                     }
@@ -97,7 +132,7 @@ impl Work {
             if norm.is_nan() || norm <= RANK_TOL * norm0 {
                 return None;
             }
-            self.rr[j][j] = norm;
+            t.rr[j][j] = norm;
             v.iter_mut().for_each(|t| *t /= norm);
         }
         // Qᵀy, residual r = y − Q·Qᵀy, amplitudes by back substitution.
@@ -109,33 +144,34 @@ impl Work {
         for i in 0..n {
             let fit = qty[0] * self.q[i] + qty[1] * self.q[n + i] + qty[2] * self.q[2 * n + i];
             let v = yw[i] - fit;
-            self.r[i] = v;
+            t.r[i] = v;
             rss += v * v;
         }
         for j in (0..3).rev() {
             let mut s = qty[j];
             for l in j + 1..3 {
-                s -= self.rr[j][l] * self.c[l];
+                s -= t.rr[j][l] * t.c[l];
             }
-            self.c[j] = s / self.rr[j][j];
+            t.c[j] = s / t.rr[j][j];
         }
-        (rss.is_finite() && self.c.iter().all(|v| v.is_finite())).then_some(rss)
+        (rss.is_finite() && t.c.iter().all(|v| v.is_finite())).then_some(rss)
     }
 
     /// Golub–Pereyra derivative of the projected residual r = P⊥·y by each rate, at the
-    /// point of the last [`Work::project`]: ∂r/∂k_j = −P⊥·D_j·c − (B⁺)ᵀ·D_jᵀ·r, where D_j
+    /// current rates (the basis must be theirs: called only after [`Work::accept`]): ∂r/∂k_j = −P⊥·D_j·c − (B⁺)ᵀ·D_jᵀ·r, where D_j
     /// is ∂B/∂k_j, whose only non-zero column is d_j = −x·√w·e^(−k_j·x).
     /// Written to `jac`, held outside: a refused trial's projection needs none. Each
     /// column first holds √w·e^(−k_j·x), then its derivative in place.
-    fn jacobian(&self, x: &[f64], sw: &[f64], jac: &mut [Vec<f64>; 2]) {
+    fn jacobian(&self, x: &[f64], sw: Option<&[f64]>, jac: &mut [Vec<f64>; 2]) {
         let n = self.n;
+        let cur = &self.cur;
         for j in 0..2 {
             let e = &mut jac[j];
             for i in 0..n {
-                e[i] = sw[i] * (-self.k[j] * x[i]).exp();
+                e[i] = root_weight(sw, i) * (-cur.k[j] * x[i]).exp();
             }
             let col = j + 1;
-            let cj = self.c[col];
+            let cj = cur.c[col];
             // u = D_j·c = c_j·d_j, then P⊥·u = u − Q·Qᵀu.
             let mut qtu = [0.0; 3];
             let mut dtr = 0.0;
@@ -145,16 +181,16 @@ impl Work {
                 qtu[0] += self.q[i] * u;
                 qtu[1] += self.q[n + i] * u;
                 qtu[2] += self.q[2 * n + i] * u;
-                dtr += d * self.r[i];
+                dtr += d * cur.r[i];
             }
             // (B⁺)ᵀ·e_col·dtr = Q·R⁻ᵀ·e_col·dtr: solve Rᵀz = e_col·dtr (forward).
             let mut z = [0.0; 3];
             for a in 0..3 {
                 let mut s = if a == col { dtr } else { 0.0 };
                 for b in 0..a {
-                    s -= self.rr[b][a] * z[b];
+                    s -= cur.rr[b][a] * z[b];
                 }
-                z[a] = s / self.rr[a][a];
+                z[a] = s / cur.rr[a][a];
             }
             for i in 0..n {
                 let d = -x[i] * e[i];
@@ -167,7 +203,8 @@ impl Work {
     }
 
     fn params(&self, k: [f64; 2]) -> Vec<f64> {
-        vec![self.c[0], self.c[1], k[0], self.c[2], k[1]]
+        let c = &self.cur.c;
+        vec![c[0], c[1], k[0], c[2], k[1]]
     }
 }
 
@@ -208,14 +245,17 @@ pub fn fit_two_site(
     if x.iter().chain(y).any(|v| !v.is_finite()) {
         return None;
     }
-    let sw: Vec<f64> = match weights {
+    let sw_own: Option<Vec<f64>> = match weights {
         Some(w) if w.iter().all(|v| v.is_finite() && *v >= 0.0) => {
-            w.iter().map(|v| v.sqrt()).collect()
+            Some(w.iter().map(|v| v.sqrt()).collect())
         }
         Some(_) => return None,
-        None => vec![1.0; n],
+        None => None,
     };
-    let yw: Vec<f64> = y.iter().zip(&sw).map(|(a, b)| a * b).collect();
+    let sw = sw_own.as_deref();
+    // √w·y: y itself when unweighted.
+    let yw_own: Option<Vec<f64>> = sw.map(|sw| y.iter().zip(sw).map(|(a, b)| a * b).collect());
+    let yw: &[f64] = yw_own.as_deref().unwrap_or(y);
     let (xmin, xmax) = x
         .iter()
         .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
@@ -231,14 +271,12 @@ pub fn fit_two_site(
     let gone = |k: [f64; 2]| k.iter().any(|&r| r * x_second > GONE_RATE_X);
     let merged = |k: [f64; 2]| (k[0] - k[1]).abs() <= SAME_RATE * k[0].max(k[1]);
 
-    // `w` holds the projection at the current rates, `wt` that of a trial; an accepted
-    // trial swaps them, a refused one costs nothing to undo.
     let mut w = Work::new(n);
-    let mut wt = Work::new(n);
-    // The projected residual's derivatives by k1, k2 at `w`'s rates.
+    // The projected residual's derivatives by k1, k2 at the current rates.
     let mut jac = [vec![0.0; n], vec![0.0; n]];
     let mut k = [k1.max(kmin), k2.max(kmin)];
-    let mut rss = w.project(x, &yw, &sw, k)?;
+    let mut rss = w.project(x, yw, sw, k)?;
+    w.accept();
     let mut evaluations = 1;
     let mut iterations = 0;
     let mut lambda = 1e-3;
@@ -251,13 +289,13 @@ pub fn fit_two_site(
             verdict = Verdict::Interior;
             break;
         }
-        w.jacobian(x, &sw, &mut jac);
+        w.jacobian(x, sw, &mut jac);
         let a = [
             [dot(&jac[0], &jac[0]), dot(&jac[0], &jac[1])],
             [dot(&jac[1], &jac[0]), dot(&jac[1], &jac[1])],
         ];
         // g = −Jᵀr: the Gauss–Newton step for r(k + δ) ≈ r + Jδ solves (JᵀJ)δ = −Jᵀr.
-        let g = [-dot(&jac[0], &w.r), -dot(&jac[1], &w.r)];
+        let g = [-dot(&jac[0], &w.cur.r), -dot(&jac[1], &w.cur.r)];
         if !(a[0][0].is_finite() && a[1][1].is_finite() && g.iter().all(|v| v.is_finite())) {
             break;
         }
@@ -312,12 +350,12 @@ pub fn fit_two_site(
             // Predicted reduction of the linear model: ‖r‖² − ‖r + J·step‖².
             let mut pred_rss = 0.0;
             for i in 0..n {
-                let v = w.r[i] + jac[0][i] * step[0] + jac[1][i] * step[1];
+                let v = w.cur.r[i] + jac[0][i] * step[0] + jac[1][i] * step[1];
                 pred_rss += v * v;
             }
             let predicted = rss - pred_rss;
             evaluations += 1;
-            match wt.project(x, &yw, &sw, trial) {
+            match w.project(x, yw, sw, trial) {
                 Some(new_rss) if new_rss < rss => {
                     let actual = rss - new_rss;
                     let rho = if predicted > 0.0 {
@@ -326,7 +364,7 @@ pub fn fit_two_site(
                         1.0
                     };
                     let old = rss;
-                    std::mem::swap(&mut w, &mut wt);
+                    w.accept();
                     k = trial;
                     rss = new_rss;
                     lambda *= (1.0 - (2.0 * rho - 1.0).powi(3)).max(1.0 / 3.0);
@@ -370,11 +408,10 @@ pub fn fit_two_site(
         verdict = Verdict::Degenerate;
     }
     let params = w.params(k);
-    // Two projections of 32 bytes a point: gone before the fit that follows allocates its own.
+    // The projection's 56 bytes a point: gone before the fit that follows allocates its own.
     drop(w);
-    drop(wt);
     drop(jac);
-    drop(yw);
+    drop(yw_own);
     let model = ModelId::TwoSite;
     match verdict {
         Verdict::Interior | Verdict::Undecided => {
@@ -396,11 +433,12 @@ pub fn fit_two_site(
             let mut jac = DMatrix::zeros(n, 5);
             let mut g = [0.0; 5];
             for i in 0..n {
-                let v = sw[i] * (y[i] - model.eval(x[i], &params));
+                let s = root_weight(sw, i);
+                let v = s * (y[i] - model.eval(x[i], &params));
                 rss_full += v * v;
                 model.grad(x[i], &params, &mut g);
                 for j in 0..5 {
-                    jac[(i, j)] = sw[i] * g[j];
+                    jac[(i, j)] = s * g[j];
                 }
             }
             Some(Ok(LmOutcome {

@@ -136,7 +136,7 @@ impl FileSink for PipelineSink {
         }
         log_outcome(&ing.ingest_file(path)?);
         drop(ing);
-        super::ingestion::release_heap();
+        super::heap::release_heap();
         Ok(())
     }
 

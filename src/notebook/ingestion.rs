@@ -5,6 +5,7 @@
 //! Everything before the transaction is safe to repeat: a crash before commit means the
 //! file is read again next time; after commit its SHA-256 marks it as seen.
 
+use super::heap::release_heap;
 use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, AtomicI64, AtomicUsize, Ordering};
@@ -1704,14 +1705,4 @@ pub fn recorded_path(path: &Path) -> String {
         .unwrap_or_else(|_| path.to_path_buf())
         .display()
         .to_string()
-}
-
-/// Return the heap's free pages to the system (glibc's `malloc_trim`): after a start-up
-/// scan or a large export the service idles at its working size, not at its peak.
-pub fn release_heap() {
-    #[cfg(all(target_os = "linux", target_env = "gnu"))]
-    // SAFETY: malloc_trim only walks the allocator's own free lists; it takes no pointer.
-    unsafe {
-        libc::malloc_trim(0);
-    }
 }

@@ -536,6 +536,22 @@ pub fn lot_series(cfg: &Config, cycles: &[CycleState]) -> LotSeries {
 pub(crate) struct SeriesBuilder {
     series: LotSeries,
     hours: f64,
+    /// Cycles the columns are sized for ([`SeriesBuilder::with_capacity`]).
+    room: usize,
+}
+
+/// Pushes `v` onto a column left empty (meaning "none") while every value so far is
+/// `none`; `len` values come before `v`. A lot with no censored cycle or no standard error
+/// then holds no column for them: 17 bytes a cycle, 3.4 MB at 200,000.
+fn push_sparse<T: Copy + PartialEq>(col: &mut Vec<T>, v: T, none: T, len: usize, room: usize) {
+    if col.is_empty() {
+        if v == none {
+            return;
+        }
+        col.reserve_exact(room.max(len + 1));
+        col.resize(len, none);
+    }
+    col.push(v);
 }
 
 impl SeriesBuilder {
@@ -546,9 +562,7 @@ impl SeriesBuilder {
         let s = &mut b.series;
         s.x.reserve_exact(n);
         s.y.reserve_exact(n);
-        s.censored.reserve_exact(n);
-        s.ton.reserve_exact(n);
-        s.sd.reserve_exact(n);
+        b.room = n;
         b
     }
 
@@ -568,13 +582,21 @@ impl SeriesBuilder {
             f64::from(c.cycle)
         });
         series.y.push(y);
-        series.censored.push(!ton_basis && m.censored);
-        series.ton.push(m.ton);
-        series.sd.push(if ton_basis || m.censored {
+        let (len, room) = (series.x.len() - 1, self.room);
+        push_sparse(
+            &mut series.censored,
+            !ton_basis && m.censored,
+            false,
+            len,
+            room,
+        );
+        push_sparse(&mut series.ton, m.ton, None, len, room);
+        let sd = if ton_basis || m.censored {
             None
         } else {
             m.activity_sd_own
-        });
+        };
+        push_sparse(&mut series.sd, sd, None, len, room);
     }
 
     /// An empty column means "none known" to the analysis: an all-unknown one is freed.
@@ -1042,5 +1064,24 @@ pub fn cycle_line(s: &LotState, c: &CycleState) -> CycleLine {
             })
             .collect::<Vec<_>>()
             .join("; "),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::push_sparse;
+
+    #[test]
+    fn a_sparse_column_stays_empty_until_a_value_and_then_lines_up() {
+        let mut col: Vec<Option<f64>> = Vec::new();
+        for (i, v) in [None, None, Some(2.0), None].into_iter().enumerate() {
+            push_sparse(&mut col, v, None, i, 4);
+        }
+        assert_eq!(col, vec![None, None, Some(2.0), None]);
+        let mut none: Vec<bool> = Vec::new();
+        for i in 0..3 {
+            push_sparse(&mut none, false, false, i, 3);
+        }
+        assert!(none.is_empty());
     }
 }

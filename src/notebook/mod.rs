@@ -29,6 +29,7 @@ mod export;
 mod family;
 mod fitcheck;
 mod fits;
+mod heap;
 mod history;
 mod ingestion;
 mod large_lot;

@@ -125,7 +125,7 @@ pub fn lot_record_as_of(conn: &Connection, lot: &str, as_of: i64) -> Result<Opti
     let mut found = None;
     let rows = stmt.query_map([as_of], |r| r.get::<_, String>(0))?;
     for body in rows {
-        match serde_json::from_str::<crate::model::Payload>(&body?)? {
+        match crate::model::Payload::from_json(&body?)? {
             crate::model::Payload::LotRegistered { lot: l, .. } if l.lot == lot => found = Some(l),
             crate::model::Payload::FileIngested { lots, .. } => {
                 if let Some(l) = lots.into_iter().rev().find(|l| l.lot == lot) {

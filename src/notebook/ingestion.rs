@@ -5,7 +5,6 @@
 //! Everything before the transaction is safe to repeat: a crash before commit means the
 //! file is read again next time; after commit its SHA-256 marks it as seen.
 
-use super::heap::release_heap;
 use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, AtomicI64, AtomicUsize, Ordering};
@@ -15,6 +14,7 @@ use serde::Serialize;
 use sha2::{Digest, Sha256};
 
 use super::error::NotebookError;
+use super::heap::release_heap;
 use super::listing::{Listing, RefusedEntry, collect_files};
 use crate::audit;
 use crate::config::Config;

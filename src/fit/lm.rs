@@ -311,13 +311,28 @@ fn residuals<C: Curve + ?Sized>(
     r: &mut [f64],
 ) -> Option<f64> {
     let mut rss = 0.0;
-    for i in 0..x.len() {
-        let v = root_weight(sw, i) * (y[i] - curve.value(x[i], p));
-        if !v.is_finite() {
-            return None;
+    // One loop per case, so that the unweighted one carries no branch.
+    match sw {
+        Some(sw) => {
+            for i in 0..x.len() {
+                let v = sw[i] * (y[i] - curve.value(x[i], p));
+                if !v.is_finite() {
+                    return None;
+                }
+                r[i] = v;
+                rss += v * v;
+            }
         }
-        r[i] = v;
-        rss += v * v;
+        None => {
+            for i in 0..x.len() {
+                let v = y[i] - curve.value(x[i], p);
+                if !v.is_finite() {
+                    return None;
+                }
+                r[i] = v;
+                rss += v * v;
+            }
+        }
     }
     rss.is_finite().then_some(rss)
 }
@@ -339,10 +354,21 @@ fn residuals_and_jacobian<C: Curve + ?Sized>(
     // Column-major: element (i, j) is js[j·n + i]. The model's values land in r first.
     let js = jac.as_mut_slice();
     curve.values_and_jacobian(x, p, r, js);
-    for i in 0..n {
-        let v = root_weight(sw, i) * (y[i] - r[i]);
-        r[i] = v;
-        rss += v * v;
+    match sw {
+        Some(sw) => {
+            for i in 0..n {
+                let v = sw[i] * (y[i] - r[i]);
+                r[i] = v;
+                rss += v * v;
+            }
+        }
+        None => {
+            for i in 0..n {
+                let v = y[i] - r[i];
+                r[i] = v;
+                rss += v * v;
+            }
+        }
     }
     if !r.iter().all(|v| v.is_finite()) {
         return (None, false);
@@ -770,6 +796,26 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
             }
             let step_norm = step_norm.sqrt();
             let pnorm = pnorm.sqrt();
+            // Predicted reduction of the linear model: ‖r‖² − ‖r − Jδ‖², with J·δ summed
+            // column by column in the trial's residual column before the trial fills it.
+            {
+                let out = &mut *r_trial;
+                for (o, j0) in out.iter_mut().zip(col(0)) {
+                    *o = j0 * step[0];
+                }
+                for j in 1..np {
+                    let sj = step[j];
+                    for (o, cj) in out.iter_mut().zip(col(j)) {
+                        *o += cj * sj;
+                    }
+                }
+            }
+            let mut lin = 0.0;
+            for i in 0..n {
+                let v = r[i] - r_trial[i];
+                lin += v * v;
+            }
+            let predicted = rss - lin;
             let new_rss = if joint {
                 let (v, f) =
                     residuals_and_jacobian(curve, x, y, sw, trial, r_trial, &mut jac_trial);
@@ -779,13 +825,6 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
                 residuals(curve, x, y, sw, trial, r_trial)
             };
             evaluations += 1;
-            // Predicted reduction of the linear model: ‖r‖² − ‖r − Jδ‖².
-            let mut lin = 0.0;
-            for i in 0..n {
-                let v = r[i] - jv(step, i);
-                lin += v * v;
-            }
-            let predicted = rss - lin;
             match new_rss {
                 Some(new_rss) if new_rss < rss => {
                     let actual = rss - new_rss;

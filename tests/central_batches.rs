@@ -100,3 +100,101 @@ fn connections_out_of_range_are_refused_with_the_key_named() {
         }
     }
 }
+
+/// Until a lock on `turnbook.events` is granted to a connection other than the asker's.
+async fn wait_for_open_batch(client: &tokio_postgres::Client) {
+    for _ in 0..200 {
+        let held: i64 = client
+            .query_one(
+                "SELECT count(*) FROM pg_locks l JOIN pg_class c ON c.oid = l.relation
+                 WHERE c.relname = 'events' AND l.mode = 'RowExclusiveLock' AND l.granted
+                   AND l.pid <> pg_backend_pid()",
+                &[],
+            )
+            .await
+            .unwrap()
+            .get(0);
+        if held > 0 {
+            return;
+        }
+        tokio::time::sleep(std::time::Duration::from_millis(25)).await;
+    }
+    panic!("the batch never took its lock on the events table");
+}
+
+/// A site connecting while another site's batch is written and waits for its turn does
+/// not queue behind that batch (making the schema again would: `CREATE INDEX IF NOT
+/// EXISTS` waits for every open insert, and every later insert waits behind it). A store
+/// whose record of the schema was lost is made again, and that waits a bounded time.
+#[test]
+fn connecting_does_not_wait_for_a_batch_in_flight() {
+    use std::time::{Duration, Instant};
+    let Some(server) = pg::server() else { return };
+    let url = pg::fresh_database(&server, "inflight");
+    let rt = tokio::runtime::Builder::new_current_thread()
+        .enable_all()
+        .build()
+        .unwrap();
+    rt.block_on(async {
+        let target = Target {
+            url: url.clone(),
+            password: None,
+            ca_file: None,
+        };
+        let mut a = central::connect(&target).await.unwrap();
+        central::prepare(&mut a).await.unwrap();
+        central::register_site(&a, "a", None).await.unwrap();
+        central::prepare_writer(&a).await.unwrap();
+        let (release, turn) = tokio::sync::oneshot::channel::<()>();
+        let batch = tokio::spawn(async move {
+            let events: Vec<StoredEvent> = (1..=5).map(event).collect();
+            let n = central::write_batch(&mut a, "a", &events, async { turn.await.is_ok() }).await;
+            (a, n)
+        });
+        let watcher = central::connect(&target).await.unwrap();
+        wait_for_open_batch(&watcher).await;
+
+        let mut b = central::connect(&target).await.unwrap();
+        let made = tokio::time::timeout(Duration::from_secs(5), central::prepare(&mut b)).await;
+        assert!(
+            matches!(made, Ok(Ok(()))),
+            "connecting waited for the other site's batch: {made:?}"
+        );
+        central::register_site(&b, "b", None).await.unwrap();
+
+        // The record of the schema lost: it is made again, which must wait for the open
+        // batch, and gives up after its lock timeout rather than holding everyone.
+        watcher
+            .batch_execute("DELETE FROM turnbook.schema_applied")
+            .await
+            .unwrap();
+        let start = Instant::now();
+        let made = tokio::time::timeout(Duration::from_secs(30), central::prepare(&mut b)).await;
+        let waited = start.elapsed();
+        let Ok(Err(e)) = made else {
+            panic!("making the schema beside an open batch: {made:?}")
+        };
+        assert!(e.to_string().contains("lock timeout"), "{e}");
+        assert!(
+            waited >= Duration::from_secs(4) && waited < Duration::from_secs(15),
+            "{waited:?}"
+        );
+
+        let _ = release.send(());
+        let (_a, n) = batch.await.unwrap();
+        assert_eq!(n.unwrap(), Some(5));
+        // With no batch open, it is made again and recorded.
+        central::prepare(&mut b).await.unwrap();
+    });
+    assert_eq!(
+        pg::try_count(&url, "SELECT count(*) FROM turnbook.schema_applied"),
+        Some(1)
+    );
+    assert_eq!(
+        pg::try_count(
+            &url,
+            "SELECT count(*) FROM turnbook.events WHERE site = 'a'"
+        ),
+        Some(5)
+    );
+}

@@ -102,6 +102,16 @@ fn three_sites_ship_through_a_server_killed_mid_stream() {
     for s in &mut services {
         assert!(s.wait().unwrap().success());
     }
+    if !caught_up {
+        for c in &configs {
+            let log = std::fs::read_to_string(c.with_extension("log")).unwrap_or_default();
+            let tail: Vec<&str> = log.lines().rev().take(30).collect();
+            eprintln!("--- {}:", c.display());
+            for line in tail.iter().rev() {
+                eprintln!("{line}");
+            }
+        }
+    }
     assert!(
         caught_up,
         "central holds {:?} events, the sites {want}",

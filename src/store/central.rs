@@ -119,12 +119,67 @@ fn tls_connector(ca_file: Option<&Path>) -> Result<tokio_postgres_rustls::MakeRu
 /// Any fixed number: the advisory lock under which the schema is made.
 const SCHEMA_LOCK: i64 = 0x7475_726e_626b;
 
-/// Make the central schema and views if they are missing (idempotent, one at a time).
+/// The central schema and views, as this build makes them.
+const SCHEMA_SQL: &str = include_str!("central.sql");
+
+/// How long making the schema may wait for a lock before it gives up (the shipper retries
+/// with backoff). Even `CREATE INDEX IF NOT EXISTS` on an index that exists takes a share
+/// lock on the events table, so it waits for every site's open batch, and every batch
+/// asked for after it queues behind it; a batch that waits (outside the server's sight)
+/// for its predecessor on another connection would then hold everyone until that
+/// connection's own lock timeout. Giving up soon breaks the wait instead.
+const SCHEMA_LOCK_TIMEOUT: &str = "5s";
+
+/// SHA-256 of [`SCHEMA_SQL`]: the text the store was last brought up to is recorded, so a
+/// connection that finds its own text recorded makes no DDL at all.
+fn schema_digest() -> String {
+    use sha2::{Digest, Sha256};
+    hex::encode(Sha256::digest(SCHEMA_SQL.as_bytes()))
+}
+
+/// The digest of the schema text the store was last brought up to; None for a store that
+/// has no schema yet (or one made before digests were recorded).
+async fn applied_digest(client: &impl tokio_postgres::GenericClient) -> Result<Option<String>> {
+    let row = client
+        .query_one(
+            "SELECT to_regclass('turnbook.schema_applied') IS NOT NULL",
+            &[],
+        )
+        .await?;
+    if !row.get::<_, bool>(0) {
+        return Ok(None);
+    }
+    let row = client
+        .query_opt("SELECT digest FROM turnbook.schema_applied", &[])
+        .await?;
+    Ok(row.map(|r| r.get(0)))
+}
+
+/// Make the central schema and views if they are missing or were made by another text of
+/// them (idempotent, one connection at a time). A store already brought up to this text
+/// is only read: no lock is taken, so connecting never waits for another site's batches.
 pub async fn prepare(client: &mut Client) -> Result<()> {
+    let digest = schema_digest();
+    if applied_digest(client).await?.as_deref() == Some(digest.as_str()) {
+        return Ok(());
+    }
     let tx = client.transaction().await?;
+    tx.batch_execute(&format!("SET LOCAL lock_timeout = '{SCHEMA_LOCK_TIMEOUT}'"))
+        .await?;
     tx.execute("SELECT pg_advisory_xact_lock($1)", &[&SCHEMA_LOCK])
         .await?;
-    tx.batch_execute(include_str!("central.sql")).await?;
+    // Another connection may have made it while this one waited for the advisory lock.
+    if applied_digest(&tx).await?.as_deref() == Some(digest.as_str()) {
+        tx.commit().await?;
+        return Ok(());
+    }
+    tx.batch_execute(SCHEMA_SQL).await?;
+    tx.execute(
+        "INSERT INTO turnbook.schema_applied (one, digest) VALUES (true, $1)
+         ON CONFLICT (one) DO UPDATE SET digest = EXCLUDED.digest, applied_at = now()",
+        &[&digest],
+    )
+    .await?;
     tx.commit().await?;
     Ok(())
 }

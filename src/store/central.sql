@@ -3,6 +3,15 @@
 -- idempotent, and the caller holds an advisory lock so concurrent shippers do not race.
 CREATE SCHEMA IF NOT EXISTS turnbook;
 
+-- Which text of this file the store was last brought up to (its SHA-256): a shipper that
+-- finds its own text here runs none of this file, since some of it (CREATE INDEX IF NOT
+-- EXISTS) locks the events table against every site's batches even when nothing changes.
+CREATE TABLE IF NOT EXISTS turnbook.schema_applied (
+    one boolean PRIMARY KEY DEFAULT true CHECK (one),
+    digest text NOT NULL,
+    applied_at timestamptz NOT NULL DEFAULT now()
+);
+
 CREATE TABLE IF NOT EXISTS turnbook.sites (
     site text PRIMARY KEY,
     time_zone text,

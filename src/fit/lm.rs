@@ -592,10 +592,9 @@ pub fn levenberg_marquardt<C: Curve + ?Sized>(
     let sw = sw_own.as_deref();
     let mut p = start.to_vec();
     project(&mut p, &opts.bounds);
-    // Every buffer is allocated once here: an iteration allocates nothing.
-    // One allocation for all the buffers.
-    // Two columns: the geodesic correction's residuals live in `r_trial` until the trial
-    // overwrites them, and J·v is summed point by point, not held.
+    // Every buffer is allocated once, in one allocation: an iteration allocates nothing.
+    // Two columns of n: `r`, and `r_trial`, which holds the geodesic correction's
+    // residuals, then J·δ for the predicted reduction, until the trial overwrites it.
     let mut work = vec![0.0; 2 * n + 10 * np + 2 * np * np];
     let (mut r, rest) = work.split_at_mut(n);
     let (mut r_trial, rest) = rest.split_at_mut(n);

@@ -426,6 +426,22 @@ impl Payload {
 mod tests {
     use super::*;
 
+    /// A conversion value with every provenance field set, as an export gives it.
+    fn conversion_row() -> MeasurementRow {
+        MeasurementRow {
+            id: 9,
+            batch_id: "B1".into(),
+            quantity: "conversion".into(),
+            value: Some(0.1 + 0.2),
+            text: None,
+            kind: "observed".into(),
+            source_file_id: Some(3),
+            line: Some(2),
+            col: Some(7),
+            raw: Some("30,0".into()),
+        }
+    }
+
     #[test]
     fn file_ingested_by_reference_encodes_as_the_payload() {
         let file = FileRow {
@@ -444,18 +460,7 @@ mod tests {
             rows_conflict: 0,
             quarantined: None,
         };
-        let m = MeasurementRow {
-            id: 9,
-            batch_id: "B1".into(),
-            quantity: "conversion".into(),
-            value: Some(0.1 + 0.2),
-            text: None,
-            kind: "observed".into(),
-            source_file_id: Some(3),
-            line: Some(2),
-            col: Some(7),
-            raw: Some("30,0".into()),
-        };
+        let m = conversion_row();
         let lot = LotRecord {
             lot: "L".into(),
             catalyst: "Pd/C".into(),
@@ -537,18 +542,7 @@ mod tests {
 
     #[test]
     fn a_part_reads_the_same_straight_or_through_the_enum() {
-        let m = MeasurementRow {
-            id: 9,
-            batch_id: "B1".into(),
-            quantity: "conversion".into(),
-            value: Some(0.1 + 0.2),
-            text: None,
-            kind: "observed".into(),
-            source_file_id: Some(3),
-            line: Some(2),
-            col: Some(7),
-            raw: Some("30,0".into()),
-        };
+        let m = conversion_row();
         let written = serde_json::to_string(&FileRowsRef {
             file_id: 3,
             part: 2,

@@ -413,6 +413,8 @@ fn diagnose_power_statistic() {
     let model = ModelId::Power;
     for (n, sd, seed) in [(6usize, 0.03, 1025u64), (6, 0.05, 1031), (10, 0.03, 1027)] {
         let t2 = turnbook::fit::t_quantile(0.90, n - 3).expect("defined");
+        // Student's t on n − 2 degrees of freedom: a fit held at a bound of m estimates two.
+        let t_held = turnbook::fit::t_quantile(0.90, n - 2).expect("defined");
         let p = truth(model);
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
         let noise = Normal::new(0.0, sd).expect("valid sd");
@@ -437,10 +439,13 @@ fn diagnose_power_statistic() {
             let q = |p: f64| z[((k - 1.0) * p) as usize];
             eprintln!(
                 "n {n} sd {sd} held at a bound {held}: {} fits; z > t {:.3}, z < −t {:.3} \
-                 (t = {t2:.3}); quantiles 5/50/95 %: {:.2} {:.2} {:.2}",
+                 (t = {t2:.3}; on n − 2 df {t_held:.3}: z > t {:.3}, z < −t {:.3}); \
+                 quantiles 5/50/95 %: {:.2} {:.2} {:.2}",
                 z.len(),
                 z.iter().filter(|&&v| v > t2).count() as f64 / k,
                 z.iter().filter(|&&v| v < -t2).count() as f64 / k,
+                z.iter().filter(|&&v| v > t_held).count() as f64 / k,
+                z.iter().filter(|&&v| v < -t_held).count() as f64 / k,
                 q(0.05),
                 q(0.5),
                 q(0.95),

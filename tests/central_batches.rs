@@ -25,24 +25,37 @@ fn event(seq: i64) -> StoredEvent {
     }
 }
 
+fn runtime() -> tokio::runtime::Runtime {
+    tokio::runtime::Builder::new_current_thread()
+        .enable_all()
+        .build()
+        .unwrap()
+}
+
+fn target(url: &str) -> Target {
+    Target {
+        url: url.to_string(),
+        password: None,
+        ca_file: None,
+    }
+}
+
+/// A connection ready to write the site's batches, as a shipper's first one is made.
+async fn writer(target: &Target, site: &str) -> tokio_postgres::Client {
+    let mut client = central::connect(target).await.unwrap();
+    central::prepare(&mut client).await.unwrap();
+    central::register_site(&client, site, None).await.unwrap();
+    central::prepare_writer(&client).await.unwrap();
+    client
+}
+
 #[test]
 fn copies_new_events_skips_held_ones_and_rolls_back_a_batch_out_of_turn() {
     let Some(server) = pg::server() else { return };
     let url = pg::fresh_database(&server, "batches");
-    let rt = tokio::runtime::Builder::new_current_thread()
-        .enable_all()
-        .build()
-        .unwrap();
-    rt.block_on(async {
-        let target = Target {
-            url: url.clone(),
-            password: None,
-            ca_file: None,
-        };
-        let mut client = central::connect(&target).await.unwrap();
-        central::prepare(&mut client).await.unwrap();
-        central::register_site(&client, "t", None).await.unwrap();
-        central::prepare_writer(&client).await.unwrap();
+    runtime().block_on(async {
+        let target = target(&url);
+        let mut client = writer(&target, "t").await;
         let events: Vec<StoredEvent> = (1..=10).map(event).collect();
 
         let n = central::write_batch(&mut client, "t", &events[..6], async { true }).await;
@@ -131,20 +144,9 @@ fn connecting_does_not_wait_for_a_batch_in_flight() {
     use std::time::{Duration, Instant};
     let Some(server) = pg::server() else { return };
     let url = pg::fresh_database(&server, "inflight");
-    let rt = tokio::runtime::Builder::new_current_thread()
-        .enable_all()
-        .build()
-        .unwrap();
-    rt.block_on(async {
-        let target = Target {
-            url: url.clone(),
-            password: None,
-            ca_file: None,
-        };
-        let mut a = central::connect(&target).await.unwrap();
-        central::prepare(&mut a).await.unwrap();
-        central::register_site(&a, "a", None).await.unwrap();
-        central::prepare_writer(&a).await.unwrap();
+    runtime().block_on(async {
+        let target = target(&url);
+        let mut a = writer(&target, "a").await;
         let (release, turn) = tokio::sync::oneshot::channel::<()>();
         let batch = tokio::spawn(async move {
             let events: Vec<StoredEvent> = (1..=5).map(event).collect();
